@@ -1,0 +1,238 @@
+"""The data model: keypoint tracks of one session.
+
+``PoseTracks`` holds coordinates ``(frames, animals, keypoints, dims)`` with ``dims`` 2 or 3, a
+confidence ``(frames, animals, keypoints)`` in [0, 1] (NaN where the tracker gave none), the
+keypoint names, animal ids, frame rate and units. Missing points are NaN in ``coords``.
+Everything downstream takes and returns these objects or plain arrays.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from types import MappingProxyType
+from typing import Any
+
+import numpy as np
+
+from ethoscribe.errors import InputError
+
+UNITS = ("px", "mm", "cm", "m")
+
+
+def _names(values: Sequence[Any], what: str, session: str) -> tuple[str, ...]:
+    names = tuple(str(v) for v in values)
+    if any(not n.strip() for n in names):
+        raise InputError(f"session '{session}': {what} names must not be empty; got {list(names)}")
+    dup = sorted({n for n in names if names.count(n) > 1})
+    if dup:
+        raise InputError(f"session '{session}': {what} names must be unique; repeated: {dup}")
+    return names
+
+
+@dataclass(frozen=True, eq=False)
+class PoseTracks:
+    """Keypoint tracks of one session.
+
+    Parameters
+    ----------
+    coords : array, shape (frames, animals, keypoints, dims)
+        Positions; ``dims`` is 2 (x, y) or 3 (x, y, z). NaN marks a missing point.
+    confidence : array, shape (frames, animals, keypoints), optional
+        Tracker confidence in [0, 1]; NaN where unknown. Defaults to 1 where coords are finite.
+    keypoints : sequence of str
+        Keypoint names, one per keypoint axis.
+    animals : sequence of str, optional
+        Animal ids; defaults to ``animal0, animal1, ...``.
+    fps : float
+        Frames per second (> 0).
+    units : str
+        ``"px"`` before calibration, or ``"mm"``, ``"cm"``, ``"m"``.
+    session : str
+        Session name (readers default to the file stem).
+    meta : mapping
+        Free metadata (source file, group, subject, calibration ...). Stored read-only.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = PoseTracks(np.zeros((10, 1, 2, 2)), keypoints=["nose", "tail"], fps=30)
+    >>> t.n_frames, t.n_keypoints, t.n_dims
+    (10, 2, 2)
+    """
+
+    coords: np.ndarray
+    confidence: np.ndarray | None = None
+    keypoints: Sequence[str] = ()
+    animals: Sequence[str] | None = None
+    fps: float = 0.0
+    units: str = "px"
+    session: str = "session"
+    meta: Mapping[str, Any] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        s = str(self.session)
+        try:
+            coords = np.asarray(self.coords, dtype=np.float64)
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"session '{s}': coordinates must be numeric ({exc})") from None
+        if coords.ndim != 4:
+            raise InputError(
+                f"session '{s}': coords must have shape (frames, animals, keypoints, dims); "
+                f"got {coords.ndim} dimensions with shape {coords.shape}"
+            )
+        n_frames, n_animals, n_kp, n_dims = coords.shape
+        if n_dims not in (2, 3):
+            raise InputError(f"session '{s}': dims must be 2 (x, y) or 3 (x, y, z); got {n_dims}")
+        if n_frames < 2:
+            raise InputError(
+                f"session '{s}': at least 2 frames are needed to measure movement; got {n_frames}"
+            )
+        if n_kp < 1 or n_animals < 1:
+            raise InputError(f"session '{s}': no keypoints or no animals (shape {coords.shape})")
+        if np.isinf(coords).any():
+            raise InputError(f"session '{s}': coordinates contain infinite values")
+        keypoints = _names(self.keypoints, "keypoint", s)
+        if len(keypoints) != n_kp:
+            raise InputError(
+                f"session '{s}': {n_kp} keypoints in coords but {len(keypoints)} names given "
+                f"({list(keypoints)})"
+            )
+        animals = (
+            tuple(f"animal{i}" for i in range(n_animals))
+            if self.animals is None
+            else _names(self.animals, "animal", s)
+        )
+        if len(animals) != n_animals:
+            raise InputError(
+                f"session '{s}': {n_animals} animals in coords but {len(animals)} ids given"
+            )
+        if self.confidence is None:
+            conf = np.where(np.isfinite(coords).all(axis=-1), 1.0, np.nan)
+        else:
+            try:
+                conf = np.asarray(self.confidence, dtype=np.float64)
+            except (TypeError, ValueError) as exc:
+                raise InputError(f"session '{s}': confidence must be numeric ({exc})") from None
+            if conf.shape != coords.shape[:3]:
+                raise InputError(
+                    f"session '{s}': confidence must have shape {coords.shape[:3]} "
+                    f"(frames, animals, keypoints); got {conf.shape}"
+                )
+            finite = conf[np.isfinite(conf)]
+            if finite.size and (finite.min() < 0 or finite.max() > 1):
+                raise InputError(
+                    f"session '{s}': confidence must lie in [0, 1]; found values from "
+                    f"{finite.min():g} to {finite.max():g}. Rescale it (e.g. divide by the maximum)."
+                )
+            if np.isinf(conf).any():
+                raise InputError(f"session '{s}': confidence contains infinite values")
+        try:
+            fps = float(self.fps)
+        except (TypeError, ValueError):
+            fps = float("nan")
+        if not np.isfinite(fps) or fps <= 0:
+            raise InputError(
+                f"session '{s}': fps must be a positive number of frames per second; got "
+                f"{self.fps!r}. Pass fps=... or give it in the manifest."
+            )
+        if self.units not in UNITS:
+            raise InputError(f"session '{s}': units must be one of {UNITS}; got {self.units!r}")
+        coords.setflags(write=False)
+        conf.setflags(write=False)
+        object.__setattr__(self, "coords", coords)
+        object.__setattr__(self, "confidence", conf)
+        object.__setattr__(self, "keypoints", keypoints)
+        object.__setattr__(self, "animals", animals)
+        object.__setattr__(self, "fps", fps)
+        object.__setattr__(self, "session", s)
+        object.__setattr__(self, "meta", MappingProxyType(dict(self.meta)))
+
+    # --- shape helpers -------------------------------------------------------------------
+    @property
+    def n_frames(self) -> int:
+        return self.coords.shape[0]
+
+    @property
+    def n_animals(self) -> int:
+        return self.coords.shape[1]
+
+    @property
+    def n_keypoints(self) -> int:
+        return self.coords.shape[2]
+
+    @property
+    def n_dims(self) -> int:
+        return self.coords.shape[3]
+
+    @property
+    def duration_s(self) -> float:
+        return self.n_frames / self.fps
+
+    @property
+    def times(self) -> np.ndarray:
+        """Time of each frame in seconds, shape (frames,)."""
+        return np.arange(self.n_frames) / self.fps
+
+    def keypoint_index(self, name: str) -> int:
+        """Index of keypoint ``name``; a clear error lists the known names."""
+        try:
+            return self.keypoints.index(name)  # type: ignore[union-attr]
+        except ValueError:
+            raise InputError(
+                f"session '{self.session}': no keypoint named '{name}'; "
+                f"known keypoints: {list(self.keypoints)}"
+            ) from None
+
+    def replace(self, **changes: Any) -> PoseTracks:
+        """A copy with some fields changed (validated again)."""
+        if "meta" in changes:
+            changes["meta"] = {**self.meta, **changes["meta"]}
+        else:
+            changes["meta"] = dict(self.meta)
+        return replace(self, **changes)
+
+    def select_animal(self, animal: str) -> PoseTracks:
+        """Tracks of one animal only."""
+        if animal not in self.animals:  # type: ignore[operator]
+            raise InputError(
+                f"session '{self.session}': no animal '{animal}'; known: {list(self.animals)}"
+            )
+        i = self.animals.index(animal)  # type: ignore[union-attr]
+        return self.replace(
+            coords=self.coords[:, i : i + 1],
+            confidence=self.confidence[:, i : i + 1],
+            animals=[animal],
+        )
+
+    def __repr__(self) -> str:
+        return (
+            f"PoseTracks(session={self.session!r}, frames={self.n_frames}, "
+            f"animals={list(self.animals)}, keypoints={len(self.keypoints)}, "
+            f"dims={self.n_dims}, fps={self.fps:g}, units={self.units!r})"
+        )
+
+
+def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
+    """Raise if sessions of one study differ in keypoint names or dimensionality.
+
+    A model is fitted on one body plan; mixing keypoint sets or 2-D with 3-D would silently
+    misalign features.
+    """
+    if not sessions:
+        raise InputError("no sessions given")
+    ref = sessions[0]
+    for s in sessions[1:]:
+        if tuple(s.keypoints) != tuple(ref.keypoints):
+            missing = sorted(set(ref.keypoints) - set(s.keypoints))
+            extra = sorted(set(s.keypoints) - set(ref.keypoints))
+            raise InputError(
+                f"session '{s.session}' has different keypoints from session '{ref.session}' "
+                f"(missing {missing}, extra {extra}, or another order). All sessions of one "
+                "study must share one keypoint set; rename or drop keypoints when reading."
+            )
+        if s.n_dims != ref.n_dims:
+            raise InputError(
+                f"session '{s.session}' is {s.n_dims}-D but session '{ref.session}' is "
+                f"{ref.n_dims}-D; a study must not mix 2-D and 3-D tracks"
+            )

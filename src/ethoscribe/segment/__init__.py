@@ -1,0 +1,1 @@
+"""Unsupervised segmentation of feature series into behaviour states."""

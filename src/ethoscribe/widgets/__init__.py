@@ -1,0 +1,1 @@
+"""The Jupyter workbench: thin ipywidgets + plotly bindings over the library."""
