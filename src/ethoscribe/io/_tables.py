@@ -1,0 +1,386 @@
+"""Shared checks for the table readers: opening CSV / Parquet, parsing columns, frame timing.
+
+Every problem is reported as an ``InputError`` naming the file, the column and a row, so a user
+never sees a bare pyarrow or numpy traceback for a bad file.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pa_csv
+import pyarrow.parquet as pq
+
+from ethoscribe.errors import InputError
+from ethoscribe.io._atomic import TABLE_SUFFIXES
+from ethoscribe.pose import PoseTracks
+
+METADATA_KEY = b"ethoscribe"
+_BLANKS = {"", "nan", "na", "n/a", "null", "none", "-nan", "#n/a"}
+
+
+@dataclass(frozen=True)
+class TableInfo:
+    """A table file that opened: its kind, column names and ethoscribe metadata (Parquet)."""
+
+    path: Path
+    kind: str
+    columns: tuple[str, ...]
+    metadata: dict[str, Any] = field(default_factory=dict)
+
+    def row(self, i: int) -> str:
+        """Human location of data row ``i`` (0-based): a line for CSV, a row for Parquet."""
+        return f"line {i + 2}" if self.kind == "csv" else f"row {i + 1}"
+
+
+def check_file(path: str | os.PathLike[str], fix: str = "export the tracks again") -> Path:
+    """The path as a ``Path`` if it is an existing, non-empty file; a clear error otherwise."""
+    path = Path(path).expanduser()
+    if not path.exists():
+        msg = f"{path}: no such file (looked in {path.resolve().parent}); check the name and folder"
+        raise InputError(msg)
+    if path.is_dir():
+        raise InputError(f"{path}: is a folder, not a file; use read_folder() to read every file")
+    if path.stat().st_size == 0:
+        raise InputError(f"{path}: the file is empty (0 bytes); {fix}")
+    return path
+
+
+def check_fps(fps: Any, where: str | os.PathLike[str]) -> float | None:
+    """``None`` or a positive finite frame rate."""
+    if fps is None:
+        return None
+    try:
+        value = float(fps)
+    except (TypeError, ValueError):
+        value = float("nan")
+    if not np.isfinite(value) or value <= 0:
+        msg = f"{where}: fps must be a positive number of frames per second; got {fps!r}"
+        raise InputError(msg)
+    return value
+
+
+def table_info(path: Path) -> TableInfo:
+    """Open a CSV or Parquet file far enough to know its columns."""
+    kind = TABLE_SUFFIXES.get(path.suffix.lower())
+    if kind is None:
+        raise InputError(
+            f"{path}: cannot read tables with suffix '{path.suffix}'; use .csv, .parquet or .pq"
+        )
+    metadata: dict[str, Any] = {}
+    if kind == "parquet":
+        try:
+            schema = pq.read_schema(path)
+        except (pa.ArrowException, OSError) as exc:
+            raise InputError(
+                f"{path}: cannot be read as a Parquet file ({exc}). It may be damaged or only "
+                "partly copied: export or copy it again (a CSV file needs the .csv suffix)."
+            ) from None
+        columns = tuple(schema.names)
+        raw = (schema.metadata or {}).get(METADATA_KEY)
+        if raw:
+            try:
+                metadata = dict(json.loads(raw))
+            except (ValueError, TypeError):
+                metadata = {}
+    else:
+        try:
+            with open(path, encoding="utf-8-sig", newline="") as fh:
+                columns = tuple(next(csv.reader(fh), []))
+        except (UnicodeDecodeError, csv.Error) as exc:
+            raise InputError(f"{path}: not a readable UTF-8 CSV file ({exc})") from None
+    dup = sorted({c for c in columns if columns.count(c) > 1})
+    if dup:
+        raise InputError(f"{path}: column names must be unique; repeated: {dup}. Rename them.")
+    return TableInfo(path, kind, columns, metadata)
+
+
+def require_columns(info: TableInfo, needed: list[str], purpose: str) -> None:
+    """Raise listing the missing columns, the columns found and near misses."""
+    missing = [c for c in needed if c not in info.columns]
+    if not missing:
+        return
+    near = {c: f for c in missing for f in info.columns if f.strip().lower() == c and f != c}
+    hints = "".join(f" Column '{f}' looks like '{c}': rename it." for c, f in near.items())
+    if len(info.columns) == 1 and any(s in info.columns[0] for s in ";\t|"):
+        hints += " The header looks separated by ';', tab or '|': save it comma-separated."
+    raise InputError(
+        f"{info.path}: missing column(s) {missing} needed for {purpose}; found columns "
+        f"{list(info.columns)}.{hints}"
+    )
+
+
+def read_columns(
+    info: TableInfo, numbers: list[str], texts: list[str], whole: tuple[str, ...] = ()
+) -> tuple[dict[str, np.ndarray], dict[str, pa.ChunkedArray]]:
+    """Read the named columns: numbers as float64 arrays (NaN for empty), texts as dictionaries.
+
+    Columns in ``whole`` stored as integers without gaps come back as int64 instead.
+    """
+    if info.kind == "csv":
+        table = _read_csv(info, numbers, texts)
+        n_rows, read = table.num_rows, table.select
+    else:
+        n_rows, read = _parquet_reader(info, texts)
+    if n_rows == 0:
+        raise InputError(
+            f"{info.path}: the table has column names but no rows; export the tracks again"
+        )
+    values = {}
+    for c in numbers:
+        col = read([c]).column(0)
+        if c in whole and pa.types.is_integer(col.type) and col.null_count == 0:
+            values[c] = col.to_numpy().astype(np.int64, copy=False)
+        else:
+            values[c] = to_numbers(col, c, info)
+        del col
+    text_table = read(texts)
+    return values, {c: text_table.column(c) for c in texts}
+
+
+def _parquet_reader(info: TableInfo, texts: list[str]) -> tuple[int, Any]:
+    """Row count and a column reader. Reading one column at a time keeps the peak memory near
+    one column plus the arrays already made, instead of the whole table at once."""
+
+    def damaged(exc: Exception) -> InputError:
+        return InputError(
+            f"{info.path}: the Parquet file is damaged and cannot be read ({exc}); "
+            "export or copy it again"
+        )
+
+    try:
+        schema = pq.read_schema(info.path)
+        as_dict = [c for c in texts if pa.types.is_string(schema.field(c).type)]
+        source = pq.ParquetFile(info.path, read_dictionary=as_dict)
+    except (pa.ArrowException, OSError) as exc:
+        raise damaged(exc) from None
+
+    def read(names: list[str]) -> pa.Table:
+        try:
+            return source.read(columns=names)
+        except (pa.ArrowException, OSError) as exc:
+            raise damaged(exc) from None
+
+    return source.metadata.num_rows, read
+
+
+def _read_csv(info: TableInfo, numbers: list[str], texts: list[str]) -> pa.Table:
+    kinds = {c: pa.float64() for c in numbers} | {
+        c: pa.dictionary(pa.int32(), pa.string()) for c in texts
+    }
+    try:
+        try:
+            return _csv(info.path, kinds, [*numbers, *texts])
+        except pa.ArrowInvalid as exc:
+            if "conversion error" not in str(exc):
+                raise
+        # Some cell is not a number: read those columns as text so to_numbers can point at it.
+        return _csv(info.path, kinds | {c: pa.string() for c in numbers}, [*numbers, *texts])
+    except (pa.ArrowException, OSError) as exc:
+        raise InputError(f"{info.path}: cannot be read as CSV ({exc})") from None
+
+
+def _csv(path: Path, kinds: dict[str, pa.DataType], columns: list[str]) -> pa.Table:
+    # Text cells are never read as missing: a keypoint may well be called "NA".
+    options = pa_csv.ConvertOptions(
+        column_types=kinds, include_columns=columns, strings_can_be_null=False
+    )
+    return pa_csv.read_csv(path, convert_options=options)
+
+
+def to_numbers(col: pa.ChunkedArray, name: str, info: TableInfo) -> np.ndarray:
+    """A numeric column as float64 with NaN for empty cells; errors name a bad cell."""
+    kind = col.type
+    if pa.types.is_dictionary(kind):
+        col, kind = col.cast(kind.value_type), kind.value_type
+    types = pa.types
+    if types.is_integer(kind) or types.is_floating(kind) or types.is_decimal(kind):
+        out = pc.cast(col, pa.float64()).to_numpy()
+    elif types.is_null(kind):  # a column with every cell empty
+        out = np.full(len(col), np.nan)
+    elif pa.types.is_string(kind) or pa.types.is_large_string(kind):
+        out = _parse_text_numbers(col, name, info)
+    else:
+        raise InputError(f"{info.path}: column '{name}' must hold numbers; it holds {kind} values")
+    out = np.asarray(out, dtype=np.float64)
+    if np.isinf(out).any():
+        i = int(np.flatnonzero(np.isinf(out))[0])
+        raise InputError(
+            f"{info.path}: column '{name}' has an infinite value ({out[i]}) at {info.row(i)}; "
+            "use an empty cell for a missing value"
+        )
+    return out
+
+
+def _parse_text_numbers(col: pa.ChunkedArray, name: str, info: TableInfo) -> np.ndarray:
+    text = col.to_pandas().astype(object)
+    parsed = pd.to_numeric(text, errors="coerce")
+    blank = text.isna() | text.str.strip().str.lower().isin(_BLANKS)
+    bad = np.flatnonzero((parsed.isna() & ~blank).to_numpy())
+    if bad.size:
+        i = int(bad[0])
+        raise InputError(
+            f"{info.path}: column '{name}' must hold numbers, but {info.row(i)} has "
+            f"{text.iloc[i]!r} ({bad.size} such cell(s) in all). Correct those cells or leave "
+            "them empty (an empty cell marks a missing value)."
+        )
+    return parsed.to_numpy(dtype=np.float64, na_value=np.nan)
+
+
+def text_codes(col: pa.ChunkedArray, name: str, info: TableInfo) -> tuple[np.ndarray, list[str]]:
+    """Integer codes (rows,) and names of a text column, names in order of first appearance."""
+    if not pa.types.is_dictionary(col.type):
+        if not (pa.types.is_string(col.type) or pa.types.is_large_string(col.type)):
+            col = pc.cast(col, pa.string())
+        col = pc.dictionary_encode(col)
+    col = pa.table({name: col}).unify_dictionaries().column(0)
+    if col.null_count:
+        i = int(np.flatnonzero(col.is_null().to_numpy(zero_copy_only=False))[0])
+        raise InputError(
+            f"{info.path}: column '{name}' is empty at {info.row(i)} ({col.null_count} empty "
+            f"cell(s)); every row needs a {name} name"
+        )
+    names = [str(v) for v in col.chunk(0).dictionary.to_pylist()] if col.num_chunks else []
+    codes = np.concatenate(
+        [c.indices.to_numpy(zero_copy_only=False) for c in col.chunks] or [np.zeros(0, np.int32)]
+    )
+    used = np.bincount(codes, minlength=len(names)) > 0
+    blank = [j for j, n in enumerate(names) if used[j] and not n.strip()]
+    if blank:
+        i = int(np.argmax(codes == blank[0]))
+        raise InputError(
+            f"{info.path}: column '{name}' has a blank name at {info.row(i)}; name every {name}"
+        )
+    order = _first_seen(codes, len(names), used)
+    remap = np.full(len(names), -1, dtype=np.int32)
+    remap[order] = np.arange(order.size)
+    return remap[codes], [names[j] for j in order]
+
+
+def _first_seen(codes: np.ndarray, n_codes: int, used: np.ndarray) -> np.ndarray:
+    # Names nearly always all appear in the first rows; scan everything only if they do not.
+    first = np.full(n_codes, codes.size, dtype=np.int64)
+    head = codes[: 1 << 16]
+    u, idx = np.unique(head, return_index=True)
+    first[u] = idx
+    late = np.flatnonzero(used & (first == codes.size))
+    if late.size:
+        rows = np.flatnonzero(np.isin(codes, late))
+        np.minimum.at(first, codes[rows], rows)
+    return np.flatnonzero(used)[np.argsort(first[used], kind="stable")]
+
+
+def integer_frames(values: np.ndarray, name: str, info: TableInfo) -> np.ndarray:
+    """Frame numbers as int64; empty or fractional cells are errors."""
+    if values.dtype.kind in "iu":
+        return values.astype(np.int64, copy=False)
+    bad = ~np.isfinite(values)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        msg = f"{info.path}: column '{name}' is empty at {info.row(i)}; number every row"
+        raise InputError(msg)
+    frac = values != np.rint(values)
+    if frac.any():
+        i = int(np.flatnonzero(frac)[0])
+        raise InputError(
+            f"{info.path}: column '{name}' must hold whole frame numbers; {info.row(i)} has "
+            f"{values[i]:g}. If these are times in seconds, name the column 'time'."
+        )
+    return values.astype(np.int64)
+
+
+def check_confidence(values: np.ndarray, name: str, info: TableInfo) -> None:
+    """Raise if finite confidence values fall outside [0, 1], naming the first offending row."""
+    outside = (values < 0) | (values > 1)
+    if outside.any():
+        rows = np.flatnonzero(outside)
+        finite = values[np.isfinite(values)]
+        raise InputError(
+            f"{info.path}: column '{name}' must lie in [0, 1]; {info.row(int(rows[0]))} has "
+            f"{values[rows[0]]:g} ({rows.size} value(s) outside, range {finite.min():g} to "
+            f"{finite.max():g}). Rescale it to [0, 1] (e.g. divide by the maximum) or drop it."
+        )
+
+
+def require_two_frames(n_frames: int, where: str | os.PathLike[str]) -> None:
+    """Movement needs at least two frames."""
+    if n_frames < 2:
+        raise InputError(
+            f"{where}: holds a single frame; at least 2 frames are needed to measure movement"
+        )
+
+
+def frames_from_times(
+    times: np.ndarray, fps: float | None, where: str | os.PathLike[str], column: str = "time"
+) -> tuple[np.ndarray, float, float]:
+    """Frame numbers for strictly increasing ``times`` (seconds) on a steady frame rate.
+
+    Returns ``(frames, fps, t0)``: frames (n,) int64 counted from the first time ``t0``. Without
+    ``fps`` the rate is estimated from the typical time step. Whole missing frames are allowed;
+    a time off the frame grid (by more than a quarter frame) is an error.
+    """
+    require_two_frames(times.size, where)
+    t0 = float(times[0])
+    rel = times - t0
+    derived = fps is None
+    if fps is None:
+        step = float(np.median(np.diff(times)))
+        fps = float(np.rint(rel[-1] / step) / rel[-1])
+    pos = rel * fps
+    k = np.rint(pos)
+    off = np.abs(pos - k)
+    same = np.r_[False, np.diff(k) == 0]
+    bad = (off > 0.25) | same
+    if bad.any():
+        i = int(np.argmax(bad))
+        how = "estimated from the typical time step" if derived else "given"
+        what = (
+            f"times {times[i - 1]:.6g} s and {times[i]:.6g} s fall within one frame"
+            if same[i]
+            else f"time {times[i]:.6g} s lies {off[i]:.2f} frames off the frame grid"
+        )
+        raise InputError(
+            f"{where}: column '{column}' is not on a steady frame rate: {what} at {fps:.6g} fps "
+            f"({how}). Frames must be evenly spaced in time (whole missing frames are fine): "
+            "pass the true fps, give frame numbers instead, or resample the recording."
+        )
+    frames = k.astype(np.int64)
+    if derived:
+        fps = snap_rate(frames, rel, fps, float(np.abs(times).max()))
+    return frames, fps, t0
+
+
+def snap_rate(frames: np.ndarray, rel: np.ndarray, fps: float, scale: float = 0.0) -> float:
+    """The estimated ``fps``, or the shortest decimal rate that reproduces the times.
+
+    ``frames`` and ``rel`` (seconds since the first frame) are matching arrays; ``scale`` is the
+    largest absolute time in the file, which sets the rounding noise of the times.
+    """
+    # A file written with time = frame / fps gives back exactly that fps. First look for a rate
+    # reproducing every time bit for bit, then for one within the times' rounding noise.
+    candidates = [float(f"{fps:.{digits}g}") for digits in range(3, 18)]
+    for candidate in candidates:
+        if np.array_equal(frames / candidate, rel):
+            return candidate
+    noise = 8 * np.finfo(np.float64).eps * max(scale, float(np.abs(rel).max()))
+    for candidate in candidates:
+        if np.abs(frames / candidate - rel).max() <= noise:
+            return candidate
+    return fps
+
+
+def make_tracks(where: str | os.PathLike[str], **fields: Any) -> PoseTracks:
+    """Build ``PoseTracks``; a validation error is prefixed with the file it came from."""
+    try:
+        return PoseTracks(**fields)
+    except InputError as exc:
+        raise InputError(f"{where}: {exc}") from None

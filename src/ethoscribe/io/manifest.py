@@ -1,0 +1,252 @@
+"""The session manifest: one CSV row per recording, and reading a whole study from it.
+
+Required columns ``session, path``; optional ``fps, group, subject, condition, px_per_unit,
+units, video``; any other column is kept as session metadata. Paths are relative to the
+manifest's own folder. Rows are counted from 1 below the header.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from tqdm.auto import tqdm
+
+from ethoscribe.errors import InputError
+from ethoscribe.io._tables import check_file
+from ethoscribe.io.registry import read_pose
+from ethoscribe.pose import UNITS, PoseTracks, check_same_body_plan
+
+REQUIRED = ("session", "path")
+OPTIONAL = ("fps", "group", "subject", "condition", "px_per_unit", "units", "video")
+_LABELS = ("group", "subject", "condition")
+
+
+def read_manifest(path: str | os.PathLike[str], require_paths: bool = True) -> pd.DataFrame:
+    """Read and check a manifest CSV.
+
+    With ``require_paths=False`` the ``path`` column may be absent (a manifest that only gives
+    groups for sessions already read, as ``compare`` needs).
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per session: ``session``, ``path`` (absolute), ``fps`` and ``px_per_unit``
+        (float, NaN when empty), text columns ("" when empty), extra columns (numbers when every
+        filled cell is one).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (d / "m1.csv").write_text("frame,keypoint,x,y\\n0,nose,1,2\\n")
+    >>> _ = (d / "study.csv").write_text("session,path,fps,group\\nm1,m1.csv,30,control\\n")
+    >>> read_manifest(d / "study.csv")[["session", "fps", "group"]].to_dict("records")
+    [{'session': 'm1', 'fps': 30.0, 'group': 'control'}]
+    """
+    path = check_file(path, fix="write one row per session below the header")
+    if path.suffix.lower() != ".csv":
+        raise InputError(f"{path}: a manifest is a .csv file; got suffix '{path.suffix}'")
+    try:
+        table = pd.read_csv(path, dtype=str, keep_default_na=False, encoding="utf-8-sig")
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: not a readable CSV manifest ({exc})") from None
+    return validate_manifest(table, path.parent, str(path), require_paths=require_paths)
+
+
+def validate_manifest(
+    table: pd.DataFrame,
+    base_folder: str | os.PathLike[str],
+    source: str = "manifest",
+    require_paths: bool = True,
+) -> pd.DataFrame:
+    """Check a manifest table and resolve its paths against ``base_folder``."""
+    base = Path(base_folder).expanduser().resolve()
+    table = table.rename(columns=lambda c: str(c).strip()).reset_index(drop=True)
+    if not require_paths and "path" not in table.columns:
+        table = table.assign(path="")
+    missing = [c for c in REQUIRED if c not in table.columns]
+    if missing:
+        raise InputError(
+            f"{source}: missing column(s) {missing}; found {list(table.columns)}. A manifest "
+            f"needs {list(REQUIRED)} and may have {list(OPTIONAL)} and columns of your own."
+        )
+    if table.empty:
+        raise InputError(f"{source}: has column names but no sessions; add one row per session")
+    text = {c: table[c].map(_cell) for c in table.columns}
+    out = pd.DataFrame({"session": text["session"], "path": text["path"]})
+    _check_names(source, out["session"])
+    out["path"] = [_resolve(base, p) if p else "" for p in out["path"]]
+    if require_paths:
+        _check_files(source, out, base)
+    for c in ("fps", "px_per_unit"):
+        if c in table.columns:
+            out[c] = _positive(source, text[c], c)
+    for c in (*_LABELS, "units", "video"):
+        if c in table.columns:
+            out[c] = text[c]
+    if "video" in out:
+        out["video"] = [_resolve(base, v) if v else "" for v in out["video"]]
+    _check_units(source, out)
+    for c in table.columns:
+        if c not in out:
+            out[c] = _maybe_numbers(text[c])
+    out.attrs.update(manifest=source, base_folder=str(base))
+    return out
+
+
+def _cell(value: Any) -> str:
+    if value is None or (not isinstance(value, str) and pd.isna(value)):
+        return ""
+    return str(value).strip()
+
+
+def _resolve(base: Path, value: str) -> str:
+    p = Path(value).expanduser()
+    return str(p if p.is_absolute() else (base / p).resolve())
+
+
+def _check_names(source: str, sessions: pd.Series) -> None:
+    empty = [i + 1 for i, s in enumerate(sessions) if not s]
+    if empty:
+        raise InputError(f"{source}: row(s) {empty} have no session name; name every session")
+    dup = sessions[sessions.duplicated(keep=False)]
+    if not dup.empty:
+        name = dup.iloc[0]
+        rows = [i + 1 for i, s in enumerate(sessions) if s == name]
+        raise InputError(
+            f"{source}: session name '{name}' is used in rows {rows} ({dup.nunique()} repeated "
+            "name(s) in all); session names must be unique"
+        )
+
+
+def _check_files(source: str, table: pd.DataFrame, base: Path) -> None:
+    bad = [
+        f"row {i + 1} (session '{s}'): {p or '(empty path)'}"
+        for i, (s, p) in enumerate(zip(table["session"], table["path"], strict=True))
+        if not p or not Path(p).is_file()
+    ]
+    if bad:
+        raise InputError(
+            f"{source}: {len(bad)} listed file(s) do not exist: "
+            + "; ".join(bad[:5])
+            + ("; ..." if len(bad) > 5 else "")
+            + f". Relative paths are read from the manifest's folder {base}."
+        )
+
+
+def _positive(source: str, cells: pd.Series, column: str) -> np.ndarray:
+    values = pd.to_numeric(cells.replace("", np.nan), errors="coerce").to_numpy(np.float64)
+    for i, (cell, v) in enumerate(zip(cells, values, strict=True)):
+        if cell and not np.isfinite(v):
+            raise InputError(f"{source}: row {i + 1}, column '{column}': {cell!r} is not a number")
+        if cell and v <= 0:
+            raise InputError(
+                f"{source}: row {i + 1}, column '{column}' must be positive; got {cell}"
+            )
+    return values
+
+
+def _check_units(source: str, table: pd.DataFrame) -> None:
+    units = table["units"] if "units" in table else pd.Series([""] * len(table))
+    scale = table["px_per_unit"] if "px_per_unit" in table else np.full(len(table), np.nan)
+    for i, (u, s) in enumerate(zip(units, scale, strict=True)):
+        if u and u not in UNITS:
+            raise InputError(f"{source}: row {i + 1}: units must be one of {UNITS}; got {u!r}")
+        if np.isfinite(s) and u in ("", "px"):
+            raise InputError(
+                f"{source}: row {i + 1}: px_per_unit is given but not the unit it measures; "
+                "set units to mm, cm or m (pixels per that unit)"
+            )
+
+
+def _maybe_numbers(cells: pd.Series) -> pd.Series:
+    filled = cells[cells != ""]
+    numbers = pd.to_numeric(filled, errors="coerce")
+    if filled.empty or numbers.isna().any():
+        return cells
+    return pd.to_numeric(cells.replace("", np.nan))
+
+
+def _session_meta(row: dict[str, Any], extras: list[str], source: str, i: int) -> dict[str, Any]:
+    meta: dict[str, Any] = {"manifest": source, "manifest_row": i + 1}
+    for c in (*_LABELS, "video"):
+        if row.get(c):
+            meta[c] = row[c]
+    if np.isfinite(row.get("px_per_unit", np.nan)):
+        meta["px_per_unit"] = float(row["px_per_unit"])
+        meta["calibration_units"] = row["units"]
+    for c in extras:
+        v = row[c]
+        if not (v == "" or (isinstance(v, float) and np.isnan(v))):
+            meta[c] = v.item() if isinstance(v, np.generic) else v
+    return meta
+
+
+def load_study(
+    manifest: str | os.PathLike[str] | pd.DataFrame,
+    fps: float | None = None,
+    progress: bool = True,
+    format: str | None = None,
+    **reader_options: Any,
+) -> list[PoseTracks]:
+    """Read every session listed in a manifest (file or table) as one study.
+
+    Parameters
+    ----------
+    manifest : str, Path or pandas.DataFrame
+        Manifest CSV, or a table with its columns (relative paths then resolve against
+        ``table.attrs["base_folder"]`` or the working folder).
+    fps : float, optional
+        Frame rate for rows whose ``fps`` cell is empty.
+    progress : bool
+        Show a progress bar over sessions.
+    format : str, optional
+        Reader name for every file ("tidy", "wide", "nwb"); default by suffix.
+    **reader_options
+        Passed to the reader (e.g. ``pattern=`` for wide tables).
+
+    Returns
+    -------
+    list of PoseTracks
+        In manifest order; ``meta`` holds group, subject, condition, video, px_per_unit with
+        ``calibration_units``, and the extra columns. All share one body plan.
+
+    Examples
+    --------
+    >>> sessions = load_study("study.csv", fps=30)  # doctest: +SKIP
+    """
+    if isinstance(manifest, pd.DataFrame):
+        base = manifest.attrs.get("base_folder", Path.cwd())
+        table = validate_manifest(manifest, base, manifest.attrs.get("manifest", "manifest"))
+    else:
+        table = read_manifest(manifest)
+    source = table.attrs["manifest"]
+    if "session" in reader_options:
+        raise InputError("load_study names sessions from the manifest; do not pass session=")
+    extras = [c for c in table.columns if c not in (*REQUIRED, *OPTIONAL)]
+    sessions = []
+    rows = table.to_dict("records")
+    for i, row in enumerate(
+        tqdm(rows, desc="reading sessions", unit="session", disable=not progress)
+    ):
+        options = dict(reader_options)
+        row_fps = row.get("fps", np.nan)
+        if np.isfinite(row_fps) or fps is not None:
+            options["fps"] = float(row_fps) if np.isfinite(row_fps) else fps
+        if row.get("units") and not np.isfinite(row.get("px_per_unit", np.nan)):
+            options["units"] = row["units"]  # the file is already in these units
+        try:
+            tracks = read_pose(row["path"], format=format, session=row["session"], **options)
+        except InputError as exc:
+            msg = f"{source}: row {i + 1} (session '{row['session']}'): {exc}"
+            raise InputError(msg) from None
+        sessions.append(tracks.replace(meta=_session_meta(row, extras, source, i)))
+    try:
+        check_same_body_plan(sessions)
+    except InputError as exc:
+        raise InputError(f"{source}: {exc}") from None
+    return sessions

@@ -1,0 +1,289 @@
+"""Tidy (long) pose tables: one row per frame x keypoint (x animal), as CSV or Parquet.
+
+Columns: ``frame`` (whole numbers) or ``time`` (seconds), ``keypoint``, ``x``, ``y``, optional
+``z``, ``confidence`` and ``animal``. Row order does not matter. A point the tracker missed is a
+row with empty ``x``/``y``; frames absent for every keypoint become all-missing frames.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+
+from ethoscribe.errors import InputError
+from ethoscribe.io._atomic import write_table
+from ethoscribe.io._tables import (
+    METADATA_KEY,
+    TableInfo,
+    check_confidence,
+    check_file,
+    check_fps,
+    frames_from_times,
+    integer_frames,
+    make_tracks,
+    read_columns,
+    require_columns,
+    require_two_frames,
+    snap_rate,
+    table_info,
+    text_codes,
+)
+from ethoscribe.pose import PoseTracks
+
+_OPTIONAL = ("z", "confidence")
+
+
+def read_tidy(
+    path: str | os.PathLike[str],
+    fps: float | None = None,
+    session: str | None = None,
+    units: str | None = None,
+    keypoints: list[str] | None = None,
+) -> PoseTracks:
+    """Read a tidy table (``.csv``, ``.parquet``, ``.pq``) into ``PoseTracks``.
+
+    Parameters
+    ----------
+    path : str or Path
+        The table.
+    fps : float, optional
+        Frames per second. Without it, the rate comes from a file written by ``write_tidy``
+        (Parquet) or from the ``time`` column (the regular time step).
+    session : str, optional
+        Session name; defaults to the file stem.
+    units : str, optional
+        Coordinate units; defaults to the file's record (Parquet from ``write_tidy``) or "px".
+    keypoints : list of str, optional
+        Keep only these keypoints, in this order.
+
+    Returns
+    -------
+    PoseTracks
+        coords (frames, animals, keypoints, dims). Frames count from the first frame in the file;
+        ``meta["first_frame"]`` keeps its original number and ``meta["source"]`` the path.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib, pandas as pd
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "mouse1.csv"
+    >>> pd.DataFrame({"frame": [10, 10, 11, 11], "keypoint": ["nose", "tail"] * 2,
+    ...               "x": [1.0, 2, 3, 4], "y": [5.0, 6, 7, 8]}).to_csv(p, index=False)
+    >>> t = read_tidy(p, fps=30)
+    >>> t.coords.shape, t.keypoints, t.meta["first_frame"]
+    ((2, 1, 2, 2), ('nose', 'tail'), 10)
+    """
+    path = check_file(path)
+    fps = check_fps(fps, path)
+    info = table_info(path)
+    time_col = "frame" if "frame" in info.columns else "time"
+    require_columns(info, [time_col, "keypoint", "x", "y"], "a tidy pose table")
+    if fps is None:
+        fps = check_fps(info.metadata.get("fps"), path)
+    # With frame numbers and a known rate the time column is not needed: skip reading it.
+    skip = ("time",) if time_col == "frame" and fps is not None else ()
+    numbers = [c for c in ("frame", "time", "x", "y", *_OPTIONAL) if c in info.columns]
+    numbers = [c for c in numbers if c not in skip]
+    texts = [c for c in ("keypoint", "animal") if c in info.columns]
+    values, text_cols = read_columns(info, numbers, texts, whole=("frame",))
+
+    kp_codes, kp_names = text_codes(text_cols["keypoint"], "keypoint", info)
+    if "animal" in text_cols:
+        an_codes, an_names = text_codes(text_cols["animal"], "animal", info)
+    else:
+        an_codes, an_names = np.zeros((), dtype=np.int32), ["animal0"]
+    if keypoints is not None:
+        keep, kp_codes, kp_names = _select_keypoints(info, kp_codes, kp_names, keypoints)
+        an_codes = an_codes[keep] if an_codes.ndim else an_codes
+        values = {c: v[keep] for c, v in values.items()}
+
+    frames, fps, extra = _frames(info, values, fps)
+    n_frames = int(frames.max()) + 1
+    if n_frames > 100 * frames.size + 10_000:  # would allocate mostly empty frames
+        raise InputError(
+            f"{info.path}: the frames span {n_frames} frames from frame {extra['first_frame']} "
+            f"but the table has only {frames.size} rows; check the '{time_col}' column (are "
+            "these time stamps in another unit?)"
+        )
+    shape = (n_frames, len(an_names), len(kp_names))
+    flat = (frames * shape[1] + an_codes) * shape[2] + kp_codes
+    _check_complete(info, flat, shape, kp_names, an_names, extra["first_frame"])
+    del frames, kp_codes, an_codes, text_cols  # large tables: free what is no longer needed
+    values = {c: v for c, v in values.items() if c not in ("frame", "time")}
+    coords, conf = _scatter(info, values, flat, shape)
+    return make_tracks(
+        path,
+        coords=coords,
+        confidence=conf,
+        keypoints=kp_names,
+        animals=an_names,
+        fps=fps,
+        units=units or info.metadata.get("units", "px"),
+        session=session if session is not None else path.stem,
+        meta={"source": str(path), "source_format": "tidy", **extra},
+    )
+
+
+def _scatter(
+    info: TableInfo, values: dict[str, np.ndarray], flat: np.ndarray, shape: tuple[int, int, int]
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Place each row's values at its (frame, animal, keypoint) cell; cells without rows are NaN."""
+    dims = ["x", "y", "z"] if "z" in values else ["x", "y"]
+    coords = np.full((shape[0] * shape[1] * shape[2], len(dims)), np.nan)
+    for d, axis in enumerate(dims):
+        coords[flat, d] = values.pop(axis)  # pop: free each column once placed
+    conf = None
+    if "confidence" in values:
+        check_confidence(values["confidence"], "confidence", info)
+        conf = np.full(coords.shape[0], np.nan)
+        conf[flat] = values.pop("confidence")
+        conf = conf.reshape(shape)
+    return coords.reshape((*shape, len(dims))), conf
+
+
+def _select_keypoints(
+    info: TableInfo, codes: np.ndarray, names: list[str], wanted: list[str]
+) -> tuple[np.ndarray, np.ndarray, list[str]]:
+    """Rows to keep, their new keypoint codes and the kept names, in the order asked for."""
+    missing = [k for k in wanted if k not in names]
+    if missing or not wanted:
+        raise InputError(
+            f"{info.path}: keypoint(s) {missing} asked for but not in the table; "
+            f"its keypoints are {names}"
+        )
+    remap = np.full(len(names), -1, dtype=np.int64)
+    remap[[names.index(k) for k in wanted]] = np.arange(len(wanted))
+    new = remap[codes]
+    keep = new >= 0
+    return keep, new[keep], list(wanted)
+
+
+def _frames(
+    info: TableInfo, values: dict[str, np.ndarray], fps: float | None
+) -> tuple[np.ndarray, float, dict[str, float | int]]:
+    """0-based frame of every row, the frame rate and timing metadata."""
+    if "frame" not in values:
+        times = values["time"]
+        _no_empty_times(info, times)
+        unique, inverse = np.unique(times, return_inverse=True)
+        frames, fps, t0 = frames_from_times(unique, fps, info.path)
+        first = round(t0 * fps)
+        return frames[inverse], fps, {"first_frame": first, "start_time_s": t0}
+    frames = integer_frames(values["frame"], "frame", info)
+    first = int(frames.min())
+    frames = frames - first
+    n_frames = int(frames.max()) + 1
+    require_two_frames(n_frames, info.path)
+    if fps is None and "time" in values:
+        fps = _fps_from_frame_times(info, frames, values["time"], first)
+    if fps is None:
+        raise InputError(
+            f"{info.path}: the frame rate is unknown: the table has a 'frame' column but no "
+            "'time' column. Pass fps=... (frames per second) or give it in the manifest."
+        )
+    return frames, fps, {"first_frame": first}
+
+
+def _no_empty_times(info: TableInfo, times: np.ndarray) -> None:
+    if np.isnan(times).any():
+        i = int(np.flatnonzero(np.isnan(times))[0])
+        raise InputError(f"{info.path}: column 'time' is empty at {info.row(i)}; fill it in")
+
+
+def _fps_from_frame_times(
+    info: TableInfo, frames: np.ndarray, times: np.ndarray, first: int
+) -> float:
+    """Frame rate from a table with both ``frame`` and ``time`` columns."""
+    _no_empty_times(info, times)
+    per_frame = np.full(int(frames.max()) + 1, np.nan)
+    per_frame[frames] = times
+    present = np.flatnonzero(np.isfinite(per_frame))
+    rel = per_frame[present] - per_frame[0]
+    fps = present[-1] / rel[-1] if rel[-1] > 0 else np.nan
+    off = np.abs((times - per_frame[0]) * fps - frames)
+    if not np.isfinite(fps) or off.max() > 0.25:
+        i = int(np.argmax(off)) if np.isfinite(fps) else 0
+        raise InputError(
+            f"{info.path}: columns 'frame' and 'time' disagree at {info.row(i)} (frame "
+            f"{frames[i] + first} at {times[i]:g} s does not fit one steady frame rate). "
+            "Pass fps=... to use the frame numbers alone."
+        )
+    return snap_rate(present, rel, float(fps), float(np.abs(times).max()))
+
+
+def _check_complete(
+    info: TableInfo,
+    flat: np.ndarray,
+    shape: tuple[int, int, int],
+    kp_names: list[str],
+    an_names: list[str],
+    first: int,
+) -> None:
+    """Each (frame, animal, keypoint) at most once; a frame with rows has every keypoint."""
+    counts = np.bincount(flat, minlength=shape[0] * shape[1] * shape[2]).reshape(shape)
+    many = counts > 1
+    if many.any():
+        f, a, k = (int(v[0]) for v in np.nonzero(many))
+        who = f", animal '{an_names[a]}'" if len(an_names) > 1 else ""
+        raise InputError(
+            f"{info.path}: {int((counts[many] - 1).sum())} row(s) repeat a frame and keypoint "
+            f"already present, e.g. frame {f + first}, keypoint '{kp_names[k]}'{who} appears "
+            f"{counts[f, a, k]} times. Each frame needs exactly one row per keypoint; remove the "
+            "repeats (a file joining several recordings must be split, one file per session)."
+        )
+    present = counts > 0
+    missing = present.any(axis=2, keepdims=True) & ~present
+    if not missing.any():
+        return
+    per_kp = missing.sum(axis=(0, 1))
+    k = int(np.argmax(per_kp))
+    a = int(np.argmax(missing[:, :, k].any(axis=0)))
+    frames = np.flatnonzero(missing[:, a, k])[:5] + first
+    who = f" for animal '{an_names[a]}'" if len(an_names) > 1 else ""
+    others = [kp_names[j] for j in np.flatnonzero(per_kp) if j != k]
+    also = f" (also missing rows: {others})" if others else ""
+    raise InputError(
+        f"{info.path}: keypoint '{kp_names[k]}' has no row in {int(per_kp[k])} frame(s) that "
+        f"have rows for other keypoints{who}, e.g. frames {frames.tolist()}{also}. Every frame "
+        "needs one row per keypoint: add rows with empty x/y for points the tracker missed."
+    )
+
+
+def write_tidy(tracks: PoseTracks, path: str | os.PathLike[str]) -> Path:
+    """Save tracks as a tidy table (CSV or Parquet by suffix), atomically.
+
+    Columns ``frame, time, animal, keypoint, x, y, [z], confidence``; every frame x animal x
+    keypoint gets a row (missing points have empty x/y), so ``read_tidy`` gives the tracks back.
+    Parquet files also record fps and units.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> t = PoseTracks(np.zeros((3, 1, 2, 2)), keypoints=["nose", "tail"], fps=25)
+    >>> p = write_tidy(t, pathlib.Path(tempfile.mkdtemp()) / "s.parquet")
+    >>> read_tidy(p).fps
+    25.0
+    """
+    n_frames, n_animals, n_kp, n_dims = tracks.coords.shape
+    first = int(tracks.meta.get("first_frame", 0))
+    per_frame = n_animals * n_kp
+    rel = np.repeat(np.arange(n_frames, dtype=np.int64), per_frame)
+    cols: dict[str, pa.Array] = {
+        "frame": pa.array(rel + first),
+        "time": pa.array(rel / tracks.fps),
+        "animal": _labels(np.tile(np.repeat(np.arange(n_animals), n_kp), n_frames), tracks.animals),
+        "keypoint": _labels(np.tile(np.arange(n_kp), n_frames * n_animals), tracks.keypoints),
+    }
+    for d, axis in enumerate("xyz"[:n_dims]):
+        cols[axis] = pa.array(tracks.coords[..., d].ravel(), from_pandas=True)
+    cols["confidence"] = pa.array(tracks.confidence.ravel(), from_pandas=True)
+    record = {"fps": tracks.fps, "units": tracks.units, "first_frame": first, "format": "tidy"}
+    table = pa.table(cols).replace_schema_metadata({METADATA_KEY: json.dumps(record)})
+    return write_table(table, path)
+
+
+def _labels(codes: np.ndarray, names: tuple[str, ...]) -> pa.DictionaryArray:
+    return pa.DictionaryArray.from_arrays(pa.array(codes.astype(np.int32)), pa.array(list(names)))

@@ -1,0 +1,268 @@
+"""Wide pose tables: one row per frame, one column per keypoint and axis (CSV or Parquet).
+
+The user says how columns are named with a pattern such as ``"{keypoint}_{axis}"`` (``nose_x``,
+``nose_y``, ``nose_confidence``) or ``"{animal}.{keypoint}.{axis}"``; nothing about any
+particular tracker's layout is guessed.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Sequence
+
+import numpy as np
+
+from ethoscribe.errors import InputError
+from ethoscribe.io._tables import (
+    TableInfo,
+    check_confidence,
+    check_file,
+    check_fps,
+    frames_from_times,
+    integer_frames,
+    make_tracks,
+    read_columns,
+    require_columns,
+    require_two_frames,
+    table_info,
+)
+from ethoscribe.pose import PoseTracks
+
+_FIELD = re.compile(r"\{(\w*)\}")
+
+
+def pattern_regex(
+    pattern: str, axes: Sequence[str], confidence_axis: str | None
+) -> re.Pattern[str]:
+    """The regular expression a column-name pattern stands for.
+
+    ``{keypoint}`` and ``{animal}`` match any text (shortest first), ``{axis}`` one of ``axes``
+    or ``confidence_axis``.
+
+    Examples
+    --------
+    >>> bool(pattern_regex("{keypoint}_{axis}", ("x", "y"), "confidence").fullmatch("left_ear_x"))
+    True
+    """
+    fields = _FIELD.findall(pattern)
+    unknown = sorted(set(fields) - {"keypoint", "axis", "animal"})
+    if unknown or fields.count("keypoint") != 1 or fields.count("axis") != 1:
+        raise InputError(
+            f"pattern {pattern!r} must contain {{keypoint}} and {{axis}} once each and may contain "
+            f"{{animal}}; unknown or repeated placeholders: {unknown or fields}. "
+            "Example: '{keypoint}_{axis}' for columns like 'nose_x'."
+        )
+    if fields.count("animal") > 1:
+        raise InputError(f"pattern {pattern!r} may contain {{animal}} only once")
+    names = sorted({*axes, *([confidence_axis] if confidence_axis else [])}, key=len, reverse=True)
+    groups = {
+        "keypoint": "(?P<keypoint>.+?)",
+        "animal": "(?P<animal>.+?)",
+        "axis": "(?P<axis>" + "|".join(re.escape(a) for a in names) + ")",
+    }
+    parts = _FIELD.split(pattern)
+    # split() alternates literal text and placeholder names.
+    regex = "".join(re.escape(p) if i % 2 == 0 else groups[p] for i, p in enumerate(parts))
+    return re.compile(regex)
+
+
+def read_wide(
+    path: str | os.PathLike[str],
+    pattern: str = "{keypoint}_{axis}",
+    fps: float | None = None,
+    frame_column: str | None = None,
+    time_column: str | None = None,
+    axes: Sequence[str] = ("x", "y", "z"),
+    confidence_axis: str | None = "confidence",
+    animal: str | None = None,
+    session: str | None = None,
+    units: str = "px",
+    keypoints: list[str] | None = None,
+) -> PoseTracks:
+    """Read a wide table (one row per frame) whose columns follow ``pattern``.
+
+    Parameters
+    ----------
+    path : str or Path
+        ``.csv``, ``.parquet`` or ``.pq`` file.
+    pattern : str
+        Column names with placeholders ``{keypoint}``, ``{axis}`` and optionally ``{animal}``.
+        Columns that do not match are ignored (listed in ``meta["ignored_columns"]``).
+    fps : float, optional
+        Frames per second; needed unless ``time_column`` is given.
+    frame_column, time_column : str, optional
+        Column of whole frame numbers, or of times in seconds. Either must increase from row to
+        row; missing frames become all-missing frames. Without both, row ``i`` is frame ``i``.
+    axes : sequence of str
+        Names standing for x, y and (optionally) z in the column names, in that order.
+    confidence_axis : str or None
+        Name standing for confidence in the column names; ``None`` to ignore confidence.
+    animal : str, optional
+        Without ``{animal}`` in the pattern: the animal's id. With it: read only this animal.
+    session, units, keypoints
+        Session name (default: file stem), coordinate units, keypoints to keep (in order).
+
+    Returns
+    -------
+    PoseTracks
+        coords (frames, animals, keypoints, dims).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib, pandas as pd
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "m.csv"
+    >>> pd.DataFrame({"nose_x": [1.0, 2], "nose_y": [3.0, 4], "tail_x": [5.0, 6],
+    ...               "tail_y": [7.0, 8]}).to_csv(p, index=False)
+    >>> t = read_wide(p, fps=30)
+    >>> t.keypoints, t.coords[1, 0, 1].tolist()
+    (('nose', 'tail'), [6.0, 8.0])
+    """
+    path = check_file(path)
+    fps = check_fps(fps, path)
+    if len(axes) not in (2, 3):
+        raise InputError(f"axes must name 2 or 3 axes (x, y[, z]); got {list(axes)}")
+    info = table_info(path)
+    timing = [c for c in (frame_column, time_column) if c is not None]
+    require_columns(info, timing, "frame timing")
+    found, ignored = _match_columns(info, pattern, axes, confidence_axis, timing, animal)
+    animals, kp_names, n_dims = _layout(info, found, axes, animal, "{animal}" in pattern, keypoints)
+    whole = (frame_column,) if frame_column is not None else ()
+    values, _ = read_columns(info, [*timing, *found.values()], [], whole=whole)
+    frames, fps, extra = _frames(info, values, fps, frame_column, time_column)
+    n_frames = int(frames[-1]) + 1
+    coords = np.full((n_frames, len(animals), len(kp_names), n_dims), np.nan)
+    conf = np.full(coords.shape[:3], np.nan)
+    for (a, k, axis), column in found.items():
+        if a not in animals or k not in kp_names:
+            continue
+        i, j = animals.index(a), kp_names.index(k)
+        if axis == confidence_axis:
+            check_confidence(values[column], column, info)
+            conf[frames, i, j] = values[column]
+        elif axes.index(axis) < n_dims:
+            coords[frames, i, j, axes.index(axis)] = values[column]
+    has_conf = any(axis == confidence_axis for _, _, axis in found)
+    return make_tracks(
+        path,
+        coords=coords,
+        confidence=conf if has_conf else None,
+        keypoints=kp_names,
+        animals=animals,
+        fps=fps,
+        units=units,
+        session=session if session is not None else path.stem,
+        meta={"source": str(path), "source_format": "wide", "ignored_columns": ignored, **extra},
+    )
+
+
+def _match_columns(
+    info: TableInfo,
+    pattern: str,
+    axes: Sequence[str],
+    confidence_axis: str | None,
+    timing: list[str],
+    animal: str | None,
+) -> tuple[dict[tuple[str, str, str], str], list[str]]:
+    """Map (animal, keypoint, axis) -> column name, and list the columns left over."""
+    single = animal or "animal0"  # the id when the pattern names no animal
+    regex = pattern_regex(pattern, axes, confidence_axis)
+    found: dict[tuple[str, str, str], str] = {}
+    ignored = []
+    for column in info.columns:
+        m = regex.fullmatch(column) if column not in timing else None
+        if m is None:
+            ignored.append(column)
+            continue
+        groups = m.groupdict()
+        found[(groups.get("animal") or single, groups["keypoint"], groups["axis"])] = column
+    if not found:
+        shown = list(info.columns[:30]) + (["..."] if len(info.columns) > 30 else [])
+        raise InputError(
+            f"{info.path}: no column matches the pattern {pattern!r} (regular expression "
+            f"{regex.pattern!r}, axes {list(axes)}). Columns found: {shown}. Give pattern= (and "
+            "axes=) naming your columns, e.g. pattern='{keypoint}_{axis}' for 'nose_x', "
+            "pattern='{animal}.{keypoint}.{axis}' for 'mouse1.nose.x'."
+        )
+    return found, ignored
+
+
+def _layout(
+    info: TableInfo,
+    found: dict[tuple[str, str, str], str],
+    axes: Sequence[str],
+    animal: str | None,
+    per_animal: bool,
+    keypoints: list[str] | None,
+) -> tuple[list[str], list[str], int]:
+    """Animals, keypoints (first-seen order) and dims; each needs x and y, z all or none."""
+    animals = list(dict.fromkeys(a for a, _, _ in found))
+    kp_names = list(dict.fromkeys(k for _, k, _ in found))
+    if per_animal and animal is not None:
+        if animal not in animals:
+            raise InputError(f"{info.path}: no columns for animal '{animal}'; found {animals}")
+        animals = [animal]
+    if keypoints is not None:
+        missing = [k for k in keypoints if k not in kp_names]
+        if missing or not keypoints:
+            raise InputError(
+                f"{info.path}: keypoint(s) {missing} asked for but no columns name them; "
+                f"keypoints found: {kp_names}"
+            )
+        kp_names = list(keypoints)
+    with_z = {(a, k) for a, k, axis in found if len(axes) == 3 and axis == axes[2]}
+    n_dims = 3 if with_z else 2
+    for a in animals:
+        for k in kp_names:
+            for axis in axes[:n_dims]:
+                if (a, k, axis) not in found:
+                    who = f" of animal '{a}'" if per_animal else ""
+                    raise InputError(
+                        f"{info.path}: keypoint '{k}'{who} has no '{axis}' column (other "
+                        f"keypoints have one); add it, or leave '{k}' out with keypoints=[...]"
+                        + (". A study is 2-D or 3-D throughout." if axis == axes[2] else "")
+                    )
+    return animals, kp_names, n_dims
+
+
+def _frames(
+    info: TableInfo,
+    values: dict[str, np.ndarray],
+    fps: float | None,
+    frame_column: str | None,
+    time_column: str | None,
+) -> tuple[np.ndarray, float, dict[str, float | int]]:
+    """0-based frame of each row, frame rate and timing metadata."""
+    n_rows = len(next(iter(values.values())))
+    if frame_column is not None:
+        raw = integer_frames(values[frame_column], frame_column, info)
+        _increasing(info, raw, frame_column)
+        frames, first = raw - raw[0], int(raw[0])
+    elif time_column is not None:
+        times = values[time_column]
+        if np.isnan(times).any():
+            i = int(np.flatnonzero(np.isnan(times))[0])
+            raise InputError(f"{info.path}: column '{time_column}' is empty at {info.row(i)}")
+        _increasing(info, times, time_column)
+        frames, fps, t0 = frames_from_times(times, fps, info.path, time_column)
+        return frames, fps, {"first_frame": round(t0 * fps), "start_time_s": t0}
+    else:
+        frames, first = np.arange(n_rows), 0
+    require_two_frames(int(frames[-1]) + 1, info.path)
+    if fps is None:
+        raise InputError(
+            f"{info.path}: the frame rate is unknown; pass fps=... (frames per second), or "
+            "time_column=... if the table has times in seconds"
+        )
+    return frames, fps, {"first_frame": first}
+
+
+def _increasing(info: TableInfo, values: np.ndarray, column: str) -> None:
+    back = np.flatnonzero(np.diff(values) <= 0)
+    if back.size:
+        i = int(back[0]) + 1
+        raise InputError(
+            f"{info.path}: column '{column}' must increase from row to row (one row per frame); "
+            f"{info.row(i)} has {values[i]:g} after {values[i - 1]:g} ({back.size} such step(s)). "
+            "Sort the table, remove repeated frames, or split joined recordings."
+        )

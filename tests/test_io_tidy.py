@@ -1,0 +1,358 @@
+"""Tidy (long) pose tables: reading, writing, round trips and every kind of bad file."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from hypothesis.extra import numpy as hnp
+
+from ethoscribe.errors import InputError
+from ethoscribe.io import read_tidy, write_tidy
+from ethoscribe.pose import UNITS, PoseTracks
+
+
+def _table(n_frames=4, keypoints=("nose", "neck", "tail"), first=0, **extra):
+    rows = [
+        {"frame": first + f, "keypoint": k, "x": 10.0 * f + i, "y": -1.0 * f - i}
+        for f in range(n_frames)
+        for i, k in enumerate(keypoints)
+    ]
+    df = pd.DataFrame(rows)
+    for name, values in extra.items():
+        df[name] = values
+    return df
+
+
+def _save(df, folder, name="s.csv"):
+    p = folder / name
+    if p.suffix == ".csv":
+        df.to_csv(p, index=False)
+    else:
+        df.to_parquet(p, index=False)
+    return p
+
+
+def _clean_error(info):
+    # The message is ours alone: no library traceback chained to it.
+    assert info.value.__cause__ is None
+    assert info.value.__context__ is None or info.value.__suppress_context__
+
+
+@pytest.mark.parametrize("name", ["m1.csv", "m1.parquet", "m1.pq"])
+def test_reads_csv_and_parquet(tmp_path, name):
+    p = _save(_table(first=100), tmp_path, name)
+    t = read_tidy(p, fps=30)
+    assert t.coords.shape == (4, 1, 3, 2)
+    assert t.keypoints == ("nose", "neck", "tail")  # order of first appearance
+    assert t.session == "m1" and t.fps == 30 and t.units == "px"
+    assert t.meta["first_frame"] == 100 and t.meta["source"] == str(p)
+    assert t.coords[2, 0, 1].tolist() == [21.0, -3.0]
+    assert np.all(t.confidence == 1)
+
+
+def test_row_order_does_not_matter(tmp_path):
+    df = _table(n_frames=6)
+    a = read_tidy(_save(df, tmp_path, "a.csv"), fps=30)
+    b = read_tidy(_save(df.sample(frac=1, random_state=0), tmp_path, "b.csv"), fps=30)
+    assert a.keypoints == ("nose", "neck", "tail")
+    assert set(b.keypoints) == set(a.keypoints)
+    order = [b.keypoints.index(k) for k in a.keypoints]
+    np.testing.assert_array_equal(b.coords[:, :, order], a.coords)
+
+
+def test_missing_points_gaps_confidence_and_z(tmp_path):
+    df = _table(n_frames=4, first=5)
+    df = df[df["frame"] != 7].copy()  # frame 7 absent for every keypoint: a gap
+    df.loc[df.index[1], ["x", "y"]] = np.nan  # a point the tracker missed
+    df["confidence"] = 0.5
+    df["z"] = 2.0
+    t = read_tidy(_save(df, tmp_path), fps=25, session="given")
+    assert t.n_frames == 4 and t.n_dims == 3 and t.session == "given"
+    assert np.isnan(t.coords[2]).all() and np.isnan(t.confidence[2]).all()
+    assert np.isnan(t.coords[0, 0, 1, :2]).all() and t.confidence[0, 0, 1] == 0.5
+    assert t.coords[3, 0, 0].tolist() == [30.0, -3.0, 2.0]
+
+
+def test_animals_and_keypoint_selection(tmp_path):
+    a = _table(n_frames=3, animal="mouseA")
+    b = _table(n_frames=3, animal="mouseB")
+    b[["x", "y"]] += 1000
+    p = _save(pd.concat([b, a]), tmp_path, "pair.parquet")
+    t = read_tidy(p, fps=30, keypoints=["tail", "nose"])
+    assert t.animals == ("mouseB", "mouseA") and t.keypoints == ("tail", "nose")
+    assert t.coords[1, 1, 0].tolist() == [12.0, -3.0]
+    assert t.coords[1, 0, 0].tolist() == [1012.0, 997.0]
+    with pytest.raises(InputError, match=r"\['paw'\] asked for.*'nose', 'neck', 'tail'"):
+        read_tidy(p, fps=30, keypoints=["paw"])
+
+
+def test_time_column_gives_frames_and_fps(tmp_path):
+    df = _table(n_frames=5)
+    df["time"] = 10.0 + df.pop("frame") / 29.97  # a recording starting at 10 s
+    df = df[df["time"] != df["time"].unique()[2]]  # one whole frame missing
+    t = read_tidy(_save(df, tmp_path))
+    assert t.fps == 29.97  # derived from the time step, recovered exactly
+    assert t.n_frames == 5 and np.isnan(t.coords[2]).all()
+    assert t.meta["first_frame"] == round(10 * 29.97) and t.meta["start_time_s"] == 10.0
+    assert read_tidy(_save(df, tmp_path), fps=30).fps == 30.0
+
+
+def test_frame_and_time_columns_give_fps(tmp_path):
+    df = _table(n_frames=6)
+    df["time"] = df["frame"] / 12.5
+    assert read_tidy(_save(df, tmp_path)).fps == 12.5
+
+
+def test_write_tidy_layout(tmp_path):
+    coords = np.arange(2 * 1 * 2 * 2, dtype=float).reshape(2, 1, 2, 2)
+    coords[1, 0, 1] = np.nan
+    t = PoseTracks(coords, keypoints=["nose", "tail"], fps=4, meta={"first_frame": 3})
+    p = write_tidy(t, tmp_path / "out.csv")
+    lines = p.read_text().splitlines()
+    assert lines[0] == "frame,time,animal,keypoint,x,y,confidence"
+    assert lines[1:] == [
+        "3,0,animal0,nose,0,1,1",
+        "3,0,animal0,tail,2,3,1",
+        "4,0.25,animal0,nose,4,5,1",
+        "4,0.25,animal0,tail,,,",
+    ]
+    assert sorted(x.name for x in tmp_path.iterdir()) == ["out.csv"]
+
+
+def test_write_tidy_into_missing_folder_writes_nothing(tmp_path):
+    t = PoseTracks(np.zeros((2, 1, 1, 2)), keypoints=["nose"], fps=30)
+    with pytest.raises(InputError, match="does not exist"):
+        write_tidy(t, tmp_path / "no" / "out.parquet")
+    assert list(tmp_path.iterdir()) == []
+
+
+# --- round trip -----------------------------------------------------------------------------
+_names = st.text(
+    st.characters(codec="utf-8", exclude_categories=("Cc", "Cs", "Zl", "Zp")),
+    min_size=1,
+    max_size=6,
+).filter(lambda s: s.strip() == s and s != "")
+
+
+@st.composite
+def _tracks(draw):
+    shape = (
+        draw(st.integers(2, 6)),
+        draw(st.integers(1, 2)),
+        draw(st.integers(1, 3)),
+        draw(st.sampled_from([2, 3])),
+    )
+    values = st.floats(-1e9, 1e9, allow_nan=False, width=64)
+    coords = draw(hnp.arrays(np.float64, shape, elements=values))
+    coords[draw(hnp.arrays(bool, shape[:3]))] = np.nan
+    conf = draw(hnp.arrays(np.float64, shape[:3], elements=st.floats(0, 1) | st.just(np.nan)))
+    return PoseTracks(
+        coords,
+        confidence=conf,
+        keypoints=draw(st.lists(_names, min_size=shape[2], max_size=shape[2], unique=True)),
+        animals=draw(st.lists(_names, min_size=shape[1], max_size=shape[1], unique=True)),
+        # rates of up to 15 significant digits survive CSV text exactly
+        fps=draw(st.sampled_from([25.0, 29.97, 30.0, 30000 / 1001, 59.94, 120.0, 7.5])),
+        units=draw(st.sampled_from(UNITS)),
+        session="roundtrip",
+        meta={"first_frame": draw(st.integers(-1000, 10**6))},
+    )
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
+@settings(
+    max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+@given(tracks=_tracks())
+def test_round_trip(tmp_path, suffix, tracks):
+    p = write_tidy(tracks, tmp_path / f"roundtrip{suffix}")
+    # CSV keeps no units: say them; Parquet records fps and units itself.
+    back = read_tidy(p, units=tracks.units if suffix == ".csv" else None)
+    np.testing.assert_array_equal(back.coords, tracks.coords)
+    np.testing.assert_array_equal(back.confidence, tracks.confidence)
+    assert back.keypoints == tracks.keypoints and back.animals == tracks.animals
+    assert back.fps == tracks.fps and back.units == tracks.units
+    assert back.meta["first_frame"] == tracks.meta["first_frame"]
+
+
+# --- bad input: each raises InputError naming the file, the column and the fix ---------------
+def test_missing_required_columns(tmp_path):
+    p = _save(_table().drop(columns=["y"]), tmp_path)
+    with pytest.raises(InputError, match=r"s\.csv: missing column\(s\) \['y'\].*found columns"):
+        read_tidy(p, fps=30)
+    p = _save(_table().rename(columns={"x": " X "}), tmp_path, "t.csv")
+    with pytest.raises(InputError, match="Column ' X ' looks like 'x'"):
+        read_tidy(p, fps=30)
+    p = tmp_path / "semi.csv"
+    p.write_text("frame;keypoint;x;y\n0;nose;1;2\n")
+    with pytest.raises(InputError, match="separated by ';'"):
+        read_tidy(p, fps=30)
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
+def test_non_numeric_coordinates(tmp_path, suffix):
+    df = _table()
+    df["x"] = df["x"].astype(str)  # a text column, as a spreadsheet export can give
+    df.loc[4, "x"] = "12,5px"
+    df.loc[7, "x"] = "n/a?"
+    with pytest.raises(InputError) as info:
+        read_tidy(_save(df, tmp_path, f"s{suffix}"), fps=30)
+    where = "line 6" if suffix == ".csv" else "row 5"
+    assert f"column 'x' must hold numbers, but {where} has '12,5px' (2 such" in str(info.value)
+    _clean_error(info)
+
+
+def test_infinite_coordinates(tmp_path):
+    df = _table()
+    df.loc[2, "y"] = np.inf
+    with pytest.raises(InputError, match=r"column 'y' has an infinite value \(inf\) at line 4"):
+        read_tidy(_save(df, tmp_path), fps=30)
+
+
+def test_confidence_outside_unit_interval(tmp_path):
+    df = _table(confidence=0.9)
+    df.loc[3, "confidence"] = 97.0
+    with pytest.raises(InputError, match=r"'confidence' must lie in \[0, 1\]; line 5 has 97"):
+        read_tidy(_save(df, tmp_path), fps=30)
+
+
+def test_duplicated_rows(tmp_path):
+    df = _table(first=10)
+    df = pd.concat([df, df.iloc[[4]]])
+    with pytest.raises(InputError) as info:
+        read_tidy(_save(df, tmp_path), fps=30)
+    msg = str(info.value)
+    assert "1 row(s) repeat" in msg and "frame 11, keypoint 'neck' appears 2 times" in msg
+    assert "remove the repeats" in msg
+    both = pd.concat([_table(animal="a"), _table(animal="b"), _table(animal="b").iloc[:1]])
+    with pytest.raises(InputError, match="keypoint 'nose', animal 'b' appears 2 times"):
+        read_tidy(_save(both, tmp_path, "b.csv"), fps=30)
+
+
+def test_irregular_time(tmp_path):
+    df = _table(n_frames=6).astype({"frame": float})
+    df["time"] = df.pop("frame") / 30
+    df.loc[df["time"] == 3 / 30, "time"] = 3.5 / 30
+    with pytest.raises(InputError, match=r"column 'time' is not on a steady frame rate.*off"):
+        read_tidy(_save(df, tmp_path))
+    df.loc[df["time"] == 3.5 / 30, "time"] = 2.2 / 30
+    with pytest.raises(InputError, match="fall within one frame at 30 fps"):
+        read_tidy(_save(df, tmp_path), fps=30)
+
+
+def test_frame_and_time_disagree(tmp_path):
+    df = _table(n_frames=6)
+    df["time"] = df["frame"] / 30
+    df.loc[df["frame"] == 4, "time"] = 0.5
+    with pytest.raises(InputError, match="'frame' and 'time' disagree"):
+        read_tidy(_save(df, tmp_path))
+
+
+def test_keypoint_missing_in_some_frames(tmp_path):
+    df = _table(n_frames=8, first=100)
+    df = df[~((df["keypoint"] == "tail") & df["frame"].isin([102, 105]))]
+    with pytest.raises(InputError) as info:
+        read_tidy(_save(df, tmp_path), fps=30)
+    msg = str(info.value)
+    assert "keypoint 'tail' has no row in 2 frame(s)" in msg and "frames [102, 105]" in msg
+    assert "add rows with empty x/y" in msg
+
+
+def test_empty_files(tmp_path):
+    for name in ("zero.csv", "zero.parquet"):
+        (tmp_path / name).write_bytes(b"")
+        with pytest.raises(InputError, match=r"is empty \(0 bytes\)"):
+            read_tidy(tmp_path / name, fps=30)
+    head = tmp_path / "head.csv"
+    head.write_text("frame,keypoint,x,y\n")
+    with pytest.raises(InputError, match="column names but no rows"):
+        read_tidy(head, fps=30)
+    p = _save(_table().iloc[:0], tmp_path, "head.parquet")
+    with pytest.raises(InputError, match="column names but no rows"):
+        read_tidy(p, fps=30)
+
+
+def test_single_frame(tmp_path):
+    with pytest.raises(InputError, match=r"s\.csv: holds a single frame"):
+        read_tidy(_save(_table(n_frames=1), tmp_path), fps=30)
+    df = _table(n_frames=1)
+    df["time"] = df.pop("frame") * 0.0
+    with pytest.raises(InputError, match="single frame"):
+        read_tidy(_save(df, tmp_path, "t.csv"))
+
+
+@pytest.mark.parametrize("fps", [0, -30, float("nan"), "fast"])
+def test_bad_fps(tmp_path, fps):
+    with pytest.raises(InputError, match="fps must be a positive number"):
+        read_tidy(_save(_table(), tmp_path), fps=fps)
+
+
+def test_fps_missing(tmp_path):
+    with pytest.raises(InputError, match=r"frame rate is unknown.*Pass fps="):
+        read_tidy(_save(_table(), tmp_path))
+
+
+def test_corrupt_parquet(tmp_path):
+    p = tmp_path / "broken.parquet"
+    p.write_bytes(np.random.default_rng(0).bytes(2000))
+    with pytest.raises(InputError, match=r"broken\.parquet: cannot be read as a Parquet") as info:
+        read_tidy(p, fps=30)
+    _clean_error(info)
+
+
+def test_path_missing_folder_and_unknown_suffix(tmp_path):
+    with pytest.raises(InputError, match="no such file"):
+        read_tidy(tmp_path / "nope.csv", fps=30)
+    with pytest.raises(InputError, match="is a folder"):
+        read_tidy(tmp_path, fps=30)
+    p = tmp_path / "s.txt"
+    p.write_text("frame,keypoint,x,y\n")
+    with pytest.raises(InputError, match=r"suffix '\.txt'; use \.csv, \.parquet or \.pq"):
+        read_tidy(p, fps=30)
+
+
+def test_bad_frame_and_keypoint_cells(tmp_path):
+    df = _table().astype({"frame": float})
+    df.loc[1, "frame"] = 0.5
+    with pytest.raises(InputError, match=r"whole frame numbers; line 3 has 0\.5"):
+        read_tidy(_save(df, tmp_path), fps=30)
+    df = _table().astype({"frame": float})
+    df.loc[2, "frame"] = np.nan
+    with pytest.raises(InputError, match="column 'frame' is empty at line 4"):
+        read_tidy(_save(df, tmp_path), fps=30)
+    df = _table()
+    df.loc[3, "keypoint"] = ""
+    with pytest.raises(InputError, match="column 'keypoint' has a blank name at line 5"):
+        read_tidy(_save(df, tmp_path), fps=30)
+    df = _table()
+    df.loc[3, "keypoint"] = None
+    with pytest.raises(InputError, match="column 'keypoint' is empty at row 4"):
+        read_tidy(_save(df, tmp_path, "k.parquet"), fps=30)
+
+
+def test_absurd_frame_numbers(tmp_path):
+    df = _table(n_frames=2)
+    df.loc[df["frame"] == 1, "frame"] = 10**12
+    with pytest.raises(InputError, match="span 1000000000001 frames from frame 0"):
+        read_tidy(_save(df, tmp_path), fps=30)
+    df = _table(n_frames=2)
+    df["time"] = df.pop("frame") * 1e6  # microseconds taken for seconds
+    with pytest.raises(InputError, match="check the 'time' column"):
+        read_tidy(_save(df, tmp_path), fps=30)
+
+
+def test_keypoint_named_like_a_missing_value(tmp_path):
+    t = read_tidy(_save(_table(keypoints=("NA", "nan", "1")), tmp_path), fps=30)
+    assert t.keypoints == ("NA", "nan", "1")
+
+
+def test_column_types_changing_late_in_a_csv(tmp_path):
+    # Whole numbers for many rows, then decimals: the reader must not lock onto integers.
+    df = _table(n_frames=20_000, keypoints=("nose",))
+    df["x"] = df["x"].astype("int64").astype(object)
+    df.loc[df.index[-1], "x"] = 1.5
+    t = read_tidy(_save(df, tmp_path), fps=30)
+    assert t.coords[-1, 0, 0, 0] == 1.5
