@@ -1,0 +1,126 @@
+"""Figure of cleaning quality: what was masked, filled and left missing, per keypoint and session.
+
+Takes the tables of ``ethoscribe.clean.QualityReport.to_frame()`` (or the reports themselves);
+holds no science, only averages for display.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import TYPE_CHECKING, Any
+
+import pandas as pd
+import plotly.graph_objects as go
+from plotly.subplots import make_subplots
+
+from ethoscribe.errors import InputError
+
+if TYPE_CHECKING:
+    from ethoscribe.clean import QualityReport
+
+__all__ = ["quality_figure"]
+
+BARS = {
+    "frac_missing_raw": ("missing in raw data", "#9e9e9e"),
+    "frac_low_confidence": ("masked: low confidence", "#f2a541"),
+    "frac_jumps": ("masked: jumps", "#d1495b"),
+    "frac_filled": ("filled", "#4f9dd9"),
+    "frac_missing_after": ("missing after cleaning", "#2e294e"),
+}
+NEEDED = ("session", "animal", "keypoint", *BARS, "frac_invalid_frames")
+
+
+def _table(item: Any) -> pd.DataFrame:
+    table = item.to_frame() if hasattr(item, "to_frame") and hasattr(item, "invalid") else item
+    if not isinstance(table, pd.DataFrame):
+        raise InputError(
+            f"quality_figure takes QualityReport objects or their to_frame() tables; got "
+            f"{type(item).__name__}"
+        )
+    missing = [c for c in NEEDED if c not in table.columns]
+    if missing:
+        raise InputError(
+            f"quality table lacks columns {missing}; pass QualityReport.to_frame() output"
+        )
+    return table
+
+
+def quality_figure(
+    report_or_reports: QualityReport | pd.DataFrame | Sequence[QualityReport | pd.DataFrame],
+) -> go.Figure:
+    """Bar charts of cleaning quality.
+
+    Left: per keypoint, the fractions of frames missing in the raw data, masked for low
+    confidence, masked as jumps, filled, and missing after cleaning (mean over sessions and
+    animals). Right: the fraction of invalid frames (any keypoint missing) per session.
+
+    Parameters
+    ----------
+    report_or_reports : QualityReport, its ``to_frame()`` table, or a sequence of these
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from ethoscribe.clean import clean
+    >>> from ethoscribe.pose import PoseTracks
+    >>> t = PoseTracks(np.zeros((30, 1, 2, 2)), keypoints=["nose", "tail"], fps=30, units="mm")
+    >>> fig = quality_figure(clean(t, max_speed=None)[1])
+    >>> len(fig.data)
+    6
+    """
+    items = (
+        list(report_or_reports)
+        if isinstance(report_or_reports, (list, tuple))
+        else [report_or_reports]
+    )
+    if not items:
+        raise InputError("quality_figure needs at least one QualityReport")
+    table = pd.concat([_table(i) for i in items], ignore_index=True)
+    by_keypoint = table.groupby("keypoint", sort=False)[list(BARS)].mean()
+    per_animal = table.drop_duplicates(["session", "animal"])
+    invalid = per_animal.groupby("session", sort=False)["frac_invalid_frames"].mean()
+
+    fig = make_subplots(
+        rows=1,
+        cols=2,
+        column_widths=[0.72, 0.28],
+        subplot_titles=("Per keypoint (mean over sessions and animals)", "Invalid frames"),
+    )
+    for column, (label, colour) in BARS.items():
+        fig.add_trace(
+            go.Bar(
+                x=list(by_keypoint.index),
+                y=by_keypoint[column].to_numpy(),
+                name=label,
+                marker_color=colour,
+                hovertemplate="%{x}: %{y:.1%}<extra>" + label + "</extra>",
+            ),
+            row=1,
+            col=1,
+        )
+    fig.add_trace(
+        go.Bar(
+            x=list(invalid.index),
+            y=invalid.to_numpy(),
+            name="invalid frames (any keypoint missing)",
+            marker_color="#5c5c5c",
+            hovertemplate="%{x}: %{y:.1%}<extra>invalid frames</extra>",
+        ),
+        row=1,
+        col=2,
+    )
+    fig.update_layout(
+        barmode="group",
+        title="Cleaning quality",
+        legend={"orientation": "h", "y": -0.2},
+        margin={"t": 70},
+    )
+    fig.update_yaxes(tickformat=".0%", rangemode="tozero")
+    fig.update_yaxes(title_text="fraction of frames", row=1, col=1)
+    fig.update_xaxes(title_text="keypoint", row=1, col=1)
+    fig.update_xaxes(title_text="session", row=1, col=2)
+    return fig
