@@ -1,0 +1,121 @@
+"""Figures about the segmentation model: the state-count curve and state stability.
+
+Builders take the result objects of ``segment.select`` and ``segment.stability`` (anything with
+the same ``table``/``best``/``summary`` fields) and only draw them.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import plotly.graph_objects as go
+
+
+def state_count_figure(selection: Any) -> go.Figure:
+    """Held-out log-likelihood per frame (or BIC) against the number of states, chosen K marked.
+
+    Parameters
+    ----------
+    selection : StateCountSelection
+        ``table`` with ``n_states`` and ``heldout_ll_per_frame``/``bic`` columns, ``best``,
+        ``criterion``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from types import SimpleNamespace
+    >>> t = pd.DataFrame({"n_states": [2, 3], "bic": [10.0, 8.0]})
+    >>> fig = state_count_figure(SimpleNamespace(table=t, best=3, criterion="bic"))
+    >>> fig.layout.xaxis.title.text
+    'number of states'
+    """
+    table = selection.table
+    k = table["n_states"].to_numpy()
+    best = int(selection.best)
+    fig = go.Figure()
+    if selection.criterion == "heldout":
+        y = table["heldout_ll_per_frame"].to_numpy(dtype=float)
+        se = table["heldout_gap_se"].to_numpy(dtype=float) if "heldout_gap_se" in table else None
+        fig.add_trace(
+            go.Scatter(
+                x=k, y=y, mode="lines+markers", name="held-out",
+                error_y=None if se is None else {"type": "data", "array": se, "visible": True},
+            )
+        )  # fmt: skip
+        if "train_ll_per_frame" in table:
+            fig.add_trace(
+                go.Scatter(
+                    x=k, y=table["train_ll_per_frame"], mode="lines+markers", name="training",
+                    line={"dash": "dash"}, opacity=0.6,
+                )
+            )  # fmt: skip
+        y_title = "log-likelihood per frame"
+    else:
+        y = table["bic"].to_numpy(dtype=float)
+        fig.add_trace(go.Scatter(x=k, y=y, mode="lines+markers", name="BIC"))
+        y_title = "BIC (lower is better)"
+    chosen = y[np.flatnonzero(k == best)[0]] if (k == best).any() else None
+    if chosen is not None:
+        fig.add_trace(
+            go.Scatter(
+                x=[best], y=[chosen], mode="markers", name=f"chosen: {best} states",
+                marker={"symbol": "star", "size": 16, "line": {"width": 1}},
+            )
+        )  # fmt: skip
+    fig.add_vline(x=best, line_dash="dot", opacity=0.5)
+    fig.update_layout(
+        title=f"Number of states ({selection.criterion}): {best} chosen",
+        xaxis_title="number of states",
+        yaxis_title=y_title,
+        template="plotly_white",
+        xaxis={"dtick": 1},
+    )
+    return fig
+
+
+def stability_figure(report: Any) -> go.Figure:
+    """Per-state Jaccard agreement between seeds and between split halves, threshold marked.
+
+    Parameters
+    ----------
+    report : StabilityReport
+        ``table`` with ``state, jaccard_seeds_mean, jaccard_seeds_min, jaccard_halves`` and
+        ``summary`` with ``ari_seeds_mean, ari_halves, reproducible_jaccard``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from types import SimpleNamespace
+    >>> t = pd.DataFrame({"state": [0, 1], "jaccard_seeds_mean": [.9, .3],
+    ...                   "jaccard_seeds_min": [.8, .2], "jaccard_halves": [.9, .4]})
+    >>> s = {"ari_seeds_mean": .7, "ari_halves": .6, "reproducible_jaccard": .5}
+    >>> len(stability_figure(SimpleNamespace(table=t, summary=s)).data)
+    2
+    """
+    table, summary = report.table, report.summary
+    names = [f"state {int(s)}" for s in table["state"]]
+    mean = table["jaccard_seeds_mean"].to_numpy(dtype=float)
+    low = mean - table["jaccard_seeds_min"].to_numpy(dtype=float)
+    fig = go.Figure()
+    fig.add_trace(
+        go.Bar(
+            x=names, y=mean, name="between seeds (mean, bar to min)",
+            error_y={"type": "data", "symmetric": False, "array": 0 * low, "arrayminus": low},
+        )
+    )  # fmt: skip
+    fig.add_trace(go.Bar(x=names, y=table["jaccard_halves"], name="between split halves"))
+    fig.add_hline(
+        y=summary.get("reproducible_jaccard", 0.5), line_dash="dot",
+        annotation_text="reproducible above", annotation_position="top left",
+    )  # fmt: skip
+    fig.update_layout(
+        barmode="group",
+        title=(
+            f"State stability: ARI between seeds {summary.get('ari_seeds_mean', np.nan):.2f}, "
+            f"between halves {summary.get('ari_halves', np.nan):.2f}"
+        ),
+        yaxis={"title": "Jaccard of matched states", "range": [0, 1.05]},
+        template="plotly_white",
+    )
+    return fig

@@ -1,0 +1,314 @@
+"""Fitting helpers of the Gaussian HMM: parameter checks, the fit subsample, initialisation,
+the sticky transition matrix and the hmmlearn reference path."""
+
+from __future__ import annotations
+
+import itertools
+from typing import Any
+
+import numpy as np
+from threadpoolctl import ThreadpoolController
+
+from ethoscribe.errors import InputError
+from ethoscribe.segment._hmm_gaussian import (
+    COVARIANCE_TYPES,
+    GaussianEmission,
+    e_step_buffers,
+    gaussian_e_step,
+    gaussian_m_step,
+    repair_covariances,
+)
+
+_CONTROLLER: ThreadpoolController | None = None
+
+PROB_FLOOR = 1e-10  # smallest start/transition probability kept after an M-step
+_KMEANS_MAX_FRAMES = 50_000
+_MAX_RESEEDS = 3  # per state and restart
+_EMPTY_FRAMES = 1.0  # a state with less expected frames than this is re-seeded
+
+
+def one_thread():
+    """Context limiting BLAS and OpenMP to one thread.
+
+    Our products are small (chunks of a few thousand frames) and k-means runs on a subsample:
+    on a shared 2-core machine one thread was 2-8x faster than two for these shapes, and it
+    leaves the other core to other work. The controller (library discovery, ~40 ms) is built
+    once.
+    """
+    global _CONTROLLER
+    if _CONTROLLER is None:
+        import sklearn.cluster  # noqa: F401  (loads the OpenMP runtime k-means uses)
+
+        _CONTROLLER = ThreadpoolController()
+    return _CONTROLLER.limit(limits=1)
+
+
+def _is_int(v: Any) -> bool:
+    return isinstance(v, (int, np.integer)) and not isinstance(v, bool)
+
+
+def _is_num(v: Any) -> bool:
+    return isinstance(v, (int, float, np.number)) and not isinstance(v, bool) and np.isfinite(v)
+
+
+def check_hmm_params(model: Any) -> None:
+    """Validate the constructor parameters of a GaussianHMM; raise InputError naming the fix."""
+    m = model
+    fps_ok = _is_num(m.fps) and m.fps > 0
+    rules = [
+        ("n_states", _is_int(m.n_states) and m.n_states >= 1, "an int >= 1"),
+        ("covariance_type", m.covariance_type in COVARIANCE_TYPES, f"one of {COVARIANCE_TYPES}"),
+        ("fps", fps_ok, "> 0"),
+        (
+            "expected_bout_s",
+            m.expected_bout_s is None
+            or (fps_ok and _is_num(m.expected_bout_s) and m.expected_bout_s * m.fps > 1),
+            "None or longer than one frame (> 1/fps seconds)",
+        ),
+        (
+            "persistence_strength",
+            _is_num(m.persistence_strength) and m.persistence_strength >= 0,
+            ">= 0",
+        ),
+        ("n_restarts", _is_int(m.n_restarts) and m.n_restarts >= 1, "an int >= 1"),
+        ("n_iter", _is_int(m.n_iter) and m.n_iter >= 1, "an int >= 1"),
+        ("tol", _is_num(m.tol) and m.tol >= 0, ">= 0"),
+        ("min_covar", _is_num(m.min_covar) and m.min_covar > 0, "> 0 (a covariance floor)"),
+        ("init", m.init in ("kmeans", "random"), "'kmeans' or 'random'"),
+        (
+            "fit_max_frames",
+            m.fit_max_frames is None or (_is_int(m.fit_max_frames) and m.fit_max_frames >= 100),
+            "None or an int >= 100",
+        ),
+        ("engine", m.engine in ("fast", "hmmlearn"), "'fast' or 'hmmlearn'"),
+        (
+            "random_state",
+            m.random_state is None or (_is_int(m.random_state) and m.random_state >= 0),
+            "None or an int >= 0",
+        ),
+    ]
+    problems = [
+        f"{name} must be {want}, got {getattr(m, name)!r}" for name, ok, want in rules if not ok
+    ]
+    if problems:
+        msg = "GaussianHMM parameters: " + "; ".join(problems)
+        raise InputError(msg)
+
+
+def sticky_transmat(n_states: int, expected_bout_s: float | None, fps: float) -> np.ndarray:
+    """Transition matrix with self-transition ``1 - 1/(expected_bout_s * fps)``, the rest spread
+    evenly; uniform if ``expected_bout_s`` is None.
+
+    Examples
+    --------
+    >>> sticky_transmat(2, 1.0, 10.0).round(3).tolist()
+    [[0.9, 0.1], [0.1, 0.9]]
+    """
+    if n_states == 1:
+        return np.ones((1, 1))
+    if expected_bout_s is None:
+        return np.full((n_states, n_states), 1.0 / n_states)
+    stay = 1.0 - 1.0 / (expected_bout_s * fps)
+    out = np.full((n_states, n_states), (1.0 - stay) / (n_states - 1))
+    np.fill_diagonal(out, stay)
+    return out
+
+
+def representative_blocks(
+    lengths: np.ndarray, max_frames: int | None, block_frames: int, rng: np.random.Generator
+) -> tuple[np.ndarray, np.ndarray]:
+    """Whole contiguous blocks from every session, about ``max_frames`` frames in total.
+
+    Each session gets a share of the budget proportional to its length (largest remainder,
+    at least ``min(length, 10)`` frames). The share is cut into ``m = ceil(share/block_frames)``
+    equal blocks, and one block is placed at a uniformly random offset inside each of ``m``
+    equal slices of the session, so early and late behaviour are both represented. Blocks
+    never overlap and never straddle sessions; they become separate sequences for EM.
+
+    Returns
+    -------
+    starts, stops : int64 arrays of frame indices into the concatenated matrix.
+
+    Examples
+    --------
+    >>> a, b = representative_blocks(np.array([50, 50]), None, 10, np.random.default_rng(0))
+    >>> a.tolist(), b.tolist()
+    ([0, 50], [50, 100])
+    """
+    lengths = np.asarray(lengths, dtype=np.int64)
+    offsets = np.cumsum(lengths) - lengths
+    total = int(lengths.sum())
+    if max_frames is None or total <= max_frames:
+        return offsets.copy(), offsets + lengths
+    exact = max_frames * lengths / total
+    share = np.floor(exact).astype(np.int64)
+    extra = max_frames - int(share.sum())
+    share[np.argsort(share - exact, kind="stable")[:extra]] += 1
+    share = np.clip(np.maximum(share, np.minimum(lengths, 10)), 1, lengths)
+    starts, stops = [], []
+    for off, n, q in zip(offsets, lengths, share, strict=True):
+        m = int(-(-q // block_frames))
+        size = int(q // m)
+        edges = np.linspace(0, n, m + 1).astype(np.int64)
+        for lo, hi in itertools.pairwise(edges):
+            begin = lo + int(rng.integers(0, hi - lo - size + 1))
+            starts.append(off + begin)
+            stops.append(off + begin + size)
+    return np.array(starts, dtype=np.int64), np.array(stops, dtype=np.int64)
+
+
+def _row_view(X: np.ndarray) -> np.ndarray:
+    X = np.ascontiguousarray(X)
+    return X.view(np.dtype((np.void, X.dtype.itemsize * X.shape[1]))).ravel()
+
+
+def distinct_rows_at_least(X: np.ndarray, k: int) -> bool:
+    """Whether ``X`` has at least ``k`` distinct rows (checks a head sample first)."""
+    head = X[: 50 * k]
+    if len(np.unique(_row_view(head))) >= k:
+        return True
+    return len(head) < len(X) and len(np.unique(_row_view(X))) >= k
+
+
+def initial_means(X: np.ndarray, k: int, init: str, rng: np.random.Generator) -> np.ndarray:
+    """Initial state means (k, D): k-means centres on a subsample, or random distinct frames."""
+    n = len(X)
+    idx = np.sort(rng.choice(n, size=min(n, _KMEANS_MAX_FRAMES), replace=False))
+    sample = X[idx]
+    if not distinct_rows_at_least(sample, k):
+        sample = X
+    if init == "random":
+        order = rng.permutation(len(sample))
+        _, first = np.unique(_row_view(sample[order]), return_index=True)
+        return sample[order[np.sort(first)[:k]]].copy()
+    from sklearn.cluster import KMeans
+
+    km = KMeans(n_clusters=k, n_init=1, random_state=int(rng.integers(2**31 - 1)))
+    return km.fit(sample).cluster_centers_.astype(np.float64)
+
+
+def fit_with_hmmlearn(
+    model: Any,
+    X: np.ndarray,
+    lengths: np.ndarray,
+    sticky: np.ndarray,
+    start_counts: np.ndarray,
+    trans_counts: np.ndarray | float,
+    rng: np.random.Generator,
+) -> dict[str, Any]:
+    """The reference path: hmmlearn's EM (scaling) with our sticky start and priors.
+
+    hmmlearn expresses the covariance regularisation as a prior scatter: ``covars_prior =
+    min_covar * I`` is added before dividing by the state's frame count, so this floor fades
+    as ``min_covar / N_k`` (our own M-step adds ``min_covar * I`` after dividing).
+    """
+    from hmmlearn.hmm import GaussianHMM as ReferenceHMM
+
+    K, D = int(model.n_states), X.shape[1]
+    floor = float(model.min_covar)
+    prior_cov = floor * (np.ones((K, D)) if model.covariance_type == "diag" else np.eye(D))
+    if model.covariance_type == "full":
+        prior_cov = np.broadcast_to(prior_cov, (K, D, D)).copy()
+    ref = ReferenceHMM(
+        n_components=K,
+        covariance_type=model.covariance_type,
+        min_covar=floor,
+        startprob_prior=1.0 + start_counts,
+        transmat_prior=1.0 + trans_counts * np.ones((K, K)),
+        means_prior=0.0,
+        means_weight=0.0,
+        covars_prior=prior_cov,
+        covars_weight=1.0,
+        random_state=int(rng.integers(2**31 - 1)),
+        n_iter=int(model.n_iter),
+        tol=float(model.tol) * len(X),  # hmmlearn's tol is on the total log-likelihood
+        params="stmc",
+        init_params="mc",
+        implementation="scaling",
+    )
+    ref.startprob_ = np.full(K, 1.0 / K)
+    ref.transmat_ = sticky.copy()
+    ref.fit(X, lengths)
+    startprob, transmat = floor_probabilities(ref.startprob_, ref.transmat_)
+    covars = repair_covariances(np.array(ref.covars_, dtype=np.float64), floor)
+    means = np.array(ref.means_, dtype=np.float64)
+    stats, _ = gaussian_e_step(
+        X, lengths, startprob, transmat, means, covars, model.covariance_type
+    )
+    return {
+        "means": means, "covars": covars, "startprob": startprob, "transmat": transmat,
+        "log_likelihood": float(stats.log_likelihood.sum()) / len(X),
+        "n_iter": int(ref.monitor_.iter), "converged": bool(ref.monitor_.converged),
+        "occupancy": stats.post,
+    }  # fmt: skip
+
+
+def floor_probabilities(startprob: np.ndarray, transmat: np.ndarray):
+    """Keep every start/transition probability >= PROB_FLOOR (renormalised): no -inf later."""
+    startprob = np.maximum(np.asarray(startprob, dtype=np.float64), PROB_FLOOR)
+    transmat = np.maximum(np.asarray(transmat, dtype=np.float64), PROB_FLOOR)
+    return startprob / startprob.sum(), transmat / transmat.sum(axis=1, keepdims=True)
+
+
+def run_em(model, X, lengths, means, transmat, start_counts, trans_counts, bar) -> dict[str, Any]:
+    """EM from ``means`` (shared global covariance, sticky ``transmat``) until the
+    log-likelihood per frame gains less than ``model.tol``; the returned log-likelihood and
+    occupancy are those of the returned parameters."""
+    K, D = means.shape
+    ct, floor = model.covariance_type, float(model.min_covar)
+    global_cov = np.atleast_2d(np.cov(X.T)) + floor * np.eye(D)
+    if ct == "diag":
+        global_cov = np.diag(np.diag(global_cov))
+    covars = np.repeat(global_cov[None], K, axis=0)
+    startprob, transmat, sticky = np.full(K, 1.0 / K), transmat.copy(), transmat
+    reseeds = np.zeros(K, dtype=int)
+    prev, converged, n_done = -np.inf, False, 0
+    work = e_step_buffers(len(X), K)
+    for it in range(model.n_iter + 1):
+        stats, _ = gaussian_e_step(X, lengths, startprob, transmat, means, covars, ct, work)
+        ll = float(stats.log_likelihood.sum()) / len(X)
+        if not np.isfinite(ll):
+            msg = (
+                "the HMM log-likelihood became non-finite; features may contain extreme "
+                "values: standardise them (e.g. z-scores) or raise min_covar"
+            )
+            raise InputError(msg)
+        bar.set_postfix(iteration=it, ll_per_frame=f"{ll:.4f}", refresh=False)
+        if (it > 0 and ll - prev < model.tol) or it == model.n_iter:
+            converged = it > 0 and ll - prev < model.tol
+            break
+        prev, old = ll, (means, covars)
+        new = gaussian_m_step(stats, ct, floor, start_counts, trans_counts)
+        empty = np.flatnonzero(stats.post < _EMPTY_FRAMES)
+        if len(empty):
+            if (reseeds[empty] < _MAX_RESEEDS).any():
+                prev = -np.inf  # a re-seed may lower the likelihood for a step: go on
+            new = _reseed(X, empty, reseeds, old, new, global_cov, sticky, ct)
+        startprob, transmat, means, covars = new
+        startprob, transmat = floor_probabilities(startprob, transmat)
+        covars = repair_covariances(covars, floor)
+        n_done += 1
+    return {
+        "means": means, "covars": covars, "startprob": startprob, "transmat": transmat,
+        "log_likelihood": ll, "n_iter": n_done, "converged": converged, "occupancy": stats.post,
+    }  # fmt: skip
+
+
+def _reseed(X, empty, reseeds, old, new, global_cov, sticky, covariance_type):
+    """Move empty states onto the worst-explained frames, with the global covariance and the
+    sticky transitions in and out (after 3 tries: keep the state where it was)."""
+    old_means, old_covars = old
+    startprob, transmat, means, covars = new
+    log_b = GaussianEmission(old_means, old_covars, covariance_type).log_likelihood(X)
+    worst = np.argsort(log_b.max(axis=1), kind="stable")[: len(empty)]
+    for k, t in zip(empty, worst, strict=True):
+        if reseeds[k] < _MAX_RESEEDS:
+            means[k], covars[k] = X[t], global_cov
+            transmat[k] = sticky[k]
+            transmat[:, k] = np.maximum(transmat[:, k], sticky[:, k])
+            startprob[k] = max(startprob[k], 1.0 / len(startprob))
+            reseeds[k] += 1
+        else:
+            means[k], covars[k] = old_means[k], old_covars[k]
+    transmat /= transmat.sum(axis=1, keepdims=True)
+    return startprob / startprob.sum(), transmat, means, covars

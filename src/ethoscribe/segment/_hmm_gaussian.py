@@ -1,0 +1,219 @@
+"""Gaussian emission algebra of the HMM: log-densities, sufficient statistics, M-step.
+
+Everything is BLAS matrix products over chunks of frames, so memory stays bounded (a few MB
+of temporaries) whatever the number of frames: never a (T, K, D) array.
+
+- Full covariance: with the Cholesky factor ``Sigma_k = L_k L_k^T`` and ``P_k = L_k^{-T}``, the
+  Mahalanobis term is ``||x P_k - mu_k P_k||^2``; ``x [P_1 ... P_K]`` is one (n, D) @ (D, K*D)
+  product per chunk.
+- Diagonal: ``sum_d (x_d - mu_d)^2 / s_d`` expanded into two (n, D) @ (D, K) products.
+  Frames are first centred on the mean of the state means, which keeps the expansion accurate.
+- M-step statistics: ``gamma^T X`` and, for full covariances, ``gamma^T Z`` with
+  ``Z = upper-triangle of x x^T`` (n, D(D+1)/2): one product instead of K weighted scatters.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import numpy as np
+from scipy.linalg import solve_triangular
+
+from ethoscribe.segment._hmm_kernels import (
+    _half_squared_norms,
+    _upper_products,
+    forward_backward_log,
+)
+
+COVARIANCE_TYPES = ("full", "diag")
+_LOG_2PI = float(np.log(2.0 * np.pi))
+_CHUNK_BYTES = 2**21  # ~2 MB work buffers: stays in cache, still long enough for BLAS
+
+
+class SufficientStatistics(NamedTuple):
+    """Expected counts from one E-step.
+
+    start (K,), trans (K, K), post (K,) frames per state, obs (K, D) sum of gamma x,
+    obs2 (K, D, D) sum of gamma x x^T (full) or (K, D) sum of gamma x^2 (diag),
+    log_likelihood (n_sequences,).
+    """
+
+    start: np.ndarray
+    trans: np.ndarray
+    post: np.ndarray
+    obs: np.ndarray
+    obs2: np.ndarray
+    log_likelihood: np.ndarray
+
+
+def repair_covariances(covars: np.ndarray, floor: float) -> np.ndarray:
+    """Symmetrise and, where a Cholesky factorisation fails, clip eigenvalues at ``floor``."""
+    covars = 0.5 * (covars + np.swapaxes(covars, 1, 2))
+    for k in range(len(covars)):
+        try:
+            np.linalg.cholesky(covars[k])
+        except np.linalg.LinAlgError:
+            vals, vecs = np.linalg.eigh(covars[k])
+            vals = np.maximum(vals, max(floor, 1e-12))
+            covars[k] = (vecs * vals) @ vecs.T
+    return covars
+
+
+class GaussianEmission:
+    """Prepared Gaussian log-densities of K states.
+
+    Parameters
+    ----------
+    means : array (K, D)
+    covars : array (K, D, D), symmetric positive definite (only the diagonal is read for
+        ``"diag"``).
+    covariance_type : {"full", "diag"}
+
+    Examples
+    --------
+    >>> em = GaussianEmission(np.zeros((1, 2)), np.eye(2)[None], "full")
+    >>> round(float(em.log_likelihood(np.zeros((1, 2)))[0, 0]), 6)  # -log(2 pi)
+    -1.837877
+    """
+
+    def __init__(self, means: np.ndarray, covars: np.ndarray, covariance_type: str):
+        means = np.asarray(means, dtype=np.float64)
+        n_states, n_dims = means.shape
+        self.n_states, self.n_dims = n_states, n_dims
+        self.covariance_type = covariance_type
+        self.center = means.mean(axis=0)
+        mu = means - self.center
+        if covariance_type == "full":
+            chol = np.linalg.cholesky(covars)
+            eye = np.eye(n_dims)
+            prec = np.stack([solve_triangular(c, eye, lower=True).T for c in chol])
+            # d-major columns, proj[:, d*K + k] = P_k[:, d], so the squared norms vectorise over k
+            self.proj = np.ascontiguousarray(prec.transpose(1, 2, 0).reshape(n_dims, -1))
+            self.offset = np.einsum("kd,kde->ek", mu, prec).ravel()
+            quad = 2.0 * np.log(np.diagonal(chol, axis1=1, axis2=2)).sum(axis=1)  # log det
+            self.chunk = max(64, _CHUNK_BYTES // (8 * n_states * n_dims))
+        else:
+            var = np.diagonal(covars, axis1=1, axis2=2)
+            inv = 1.0 / var
+            self.w_sq = np.ascontiguousarray((-0.5 * inv).T)  # (D, K) for x'^2
+            self.w_lin = np.ascontiguousarray((mu * inv).T)  # (D, K) for x'
+            quad = np.log(var).sum(axis=1) + (mu * mu * inv).sum(axis=1)
+            self.chunk = max(256, _CHUNK_BYTES // (8 * max(n_states, n_dims)))
+        self.const = -0.5 * (n_dims * _LOG_2PI + quad)
+
+    def log_likelihood(self, X: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """``log N(x_t | mu_k, Sigma_k)`` for every frame and state, shape (T, K)."""
+        n_frames = X.shape[0]
+        if out is None:
+            out = np.empty((n_frames, self.n_states))
+        for a in range(0, n_frames, self.chunk):
+            xc = X[a : a + self.chunk] - self.center
+            part = out[a : a + len(xc)]
+            if self.covariance_type == "full":
+                _half_squared_norms(xc @ self.proj, self.offset, self.const, self.n_dims, part)
+            else:
+                np.matmul(xc * xc, self.w_sq, out=part)
+                part += xc @ self.w_lin
+                part += self.const
+        return out
+
+
+def gaussian_statistics(
+    X: np.ndarray, gamma: np.ndarray, covariance_type: str
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Posterior-weighted sums ``post (K,)``, ``obs (K, D)``, ``obs2`` (as SufficientStatistics)."""
+    n_frames, n_dims = X.shape
+    post = gamma.sum(axis=0)
+    obs = gamma.T @ X
+    if covariance_type == "diag":
+        obs2 = np.zeros_like(obs)
+        chunk = max(256, _CHUNK_BYTES // (8 * n_dims))
+        for a in range(0, n_frames, chunk):
+            x = X[a : a + chunk]
+            obs2 += gamma[a : a + chunk].T @ (x * x)
+        return post, obs, obs2
+    iu, ju = np.triu_indices(n_dims)
+    tri = np.zeros((gamma.shape[1], len(iu)))
+    chunk = max(64, _CHUNK_BYTES // (8 * len(iu)))
+    buf = np.empty((min(chunk, n_frames), len(iu)))
+    for a in range(0, n_frames, chunk):
+        x = X[a : a + chunk]
+        z = buf[: len(x)]
+        _upper_products(x, iu, ju, z)
+        # a contiguous copy of gamma^T: OpenBLAS is ~2x slower on the transposed operand here
+        tri += np.ascontiguousarray(gamma[a : a + chunk].T) @ z
+    obs2 = np.empty((gamma.shape[1], n_dims, n_dims))
+    obs2[:, iu, ju] = tri
+    obs2[:, ju, iu] = tri
+    return post, obs, obs2
+
+
+def e_step_buffers(n_frames: int, n_states: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Three (T, K) work arrays for :func:`gaussian_e_step`, touched once so that EM
+    iterations reuse resident memory instead of faulting in fresh pages every time."""
+    return tuple(np.full((n_frames, n_states), 0.0) for _ in range(3))  # full() writes: resident
+
+
+def gaussian_e_step(
+    X: np.ndarray,
+    lengths: np.ndarray,
+    startprob: np.ndarray,
+    transmat: np.ndarray,
+    means: np.ndarray,
+    covars: np.ndarray,
+    covariance_type: str,
+    work: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
+) -> tuple[SufficientStatistics, np.ndarray]:
+    """One E-step: sufficient statistics and the posteriors ``gamma (T, K)``.
+
+    ``work``: buffers from :func:`e_step_buffers`; ``gamma`` then lives in ``work[1]`` and is
+    overwritten by the next call.
+    """
+    emission = GaussianEmission(means, covars, covariance_type)
+    log_b = emission.log_likelihood(X, out=None if work is None else work[0])
+    fb_work = None if work is None else work[1:]
+    fb = forward_backward_log(log_b, startprob, transmat, lengths, overwrite=True, work=fb_work)
+    post, obs, obs2 = gaussian_statistics(X, fb.gamma, covariance_type)
+    stats = SufficientStatistics(fb.start_sum, fb.xi_sum, post, obs, obs2, fb.log_likelihood)
+    return stats, fb.gamma
+
+
+def _normalise_rows(counts: np.ndarray) -> np.ndarray:
+    counts = np.maximum(counts, 0.0)
+    total = counts.sum(axis=-1, keepdims=True)
+    n = counts.shape[-1]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = np.where(total > 0, counts / total, 1.0 / n)
+    return out
+
+
+def gaussian_m_step(
+    stats: SufficientStatistics,
+    covariance_type: str,
+    min_covar: float,
+    start_prior_counts: np.ndarray | float = 0.0,
+    trans_prior_counts: np.ndarray | float = 0.0,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """MAP M-step: ``(startprob (K,), transmat (K, K), means (K, D), covars (K, D, D))``.
+
+    ``*_prior_counts`` are Dirichlet pseudo-counts (concentration minus one, as hmmlearn's
+    ``startprob_prior - 1``). ``min_covar`` is added to the diagonal of every covariance after
+    dividing the scatter by the state's frame count (a floor, not a prior that fades with data).
+    States with no frames get their means from ``obs / tiny`` = 0 and must be re-seeded by the
+    caller.
+    """
+    startprob = _normalise_rows(stats.start + start_prior_counts)
+    transmat = _normalise_rows(stats.trans + trans_prior_counts)
+    n = np.maximum(stats.post, np.finfo(np.float64).tiny)
+    means = stats.obs / n[:, None]
+    n_dims = means.shape[1]
+    if covariance_type == "diag":
+        var = np.maximum(stats.obs2 / n[:, None] - means**2, 0.0) + min_covar
+        covars = np.zeros((len(means), n_dims, n_dims))
+        idx = np.arange(n_dims)
+        covars[:, idx, idx] = var
+    else:
+        covars = stats.obs2 / n[:, None, None] - means[:, :, None] * means[:, None, :]
+        covars = 0.5 * (covars + np.swapaxes(covars, 1, 2))
+        covars += min_covar * np.eye(n_dims)
+    return startprob, transmat, means, covars

@@ -1,0 +1,353 @@
+"""Gaussian hidden Markov model over frames of many sessions, with a persistence prior.
+
+Fitting is Baum-Welch (EM) with a MAP M-step: the transition rows get a Dirichlet prior centred
+on a "sticky" matrix whose self-transition ``p = 1 - 1/(expected_bout_s * fps)`` matches the bout
+duration the scientist expects (a geometric duration with mean ``expected_bout_s``). The prior is
+worth ``persistence_strength * n_fit_frames / n_states`` pseudo-transitions per row (hmmlearn's
+``transmat_prior`` minus one): with the default 0.5 an average state's row weighs its own
+observed transitions 2 : 1 against the prior, whatever the amount of data. On glitchy simulated
+data it cut spurious short bouts without lowering agreement with the truth (tests). The same
+sticky matrix starts every restart.
+
+Large data: EM runs on a representative subsample of whole contiguous blocks drawn from every
+session (``_hmm_fit.representative_blocks``); decoding always covers every frame.
+
+After fitting, states are ordered by decreasing occupancy (time budget), ties by lexicographic
+means, so refits with the same seed and data give identical arrays.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from importlib.metadata import version
+from typing import Any
+
+import numpy as np
+from tqdm.auto import tqdm
+
+from ethoscribe.errors import InputError
+from ethoscribe.segment._hmm_fit import (
+    check_hmm_params,
+    distinct_rows_at_least,
+    fit_with_hmmlearn,
+    initial_means,
+    one_thread,
+    representative_blocks,
+    run_em,
+    sticky_transmat,
+)
+from ethoscribe.segment._hmm_gaussian import GaussianEmission
+from ethoscribe.segment._hmm_kernels import forward_backward_log, forward_filter_log, viterbi_log
+from ethoscribe.segment.base import check_fitted, check_X_lengths
+from ethoscribe.segment.postprocess import order_states_by_occupancy
+
+FORMAT_VERSION = 1
+_DECODE_BATCH = 2**18  # frames decoded together (bounds the T x K work buffers)
+
+
+def _batches(lengths: np.ndarray):
+    """Consecutive groups of whole sessions of about ``_DECODE_BATCH`` frames."""
+    ends = np.cumsum(lengths)
+    first = 0
+    while first < len(lengths):
+        base = ends[first - 1] if first else 0
+        last = max(first + 1, int(np.searchsorted(ends, base + _DECODE_BATCH, side="right")))
+        yield int(base), int(ends[last - 1]), lengths[first:last]
+        first = last
+
+
+class GaussianHMM:
+    """Gaussian HMM segmenter (scikit-learn conventions; ``__init__`` only stores parameters).
+
+    Parameters
+    ----------
+    n_states : int
+        Number of hidden states K.
+    covariance_type : {"full", "diag"}
+        Covariance of each state's Gaussian. ``covars_`` is always stored as (K, D, D).
+    expected_bout_s : float or None
+        Expected bout duration in seconds: sets the sticky self-transition
+        ``p = 1 - 1/(expected_bout_s * fps)`` of the initial matrix and of the prior.
+        ``None``: uniform initial transitions and no transition prior.
+    fps : float
+        Frame rate of the features.
+    persistence_strength : float
+        Weight of the transition prior as a fraction of an average state's frames
+        (pseudo-transitions per row = ``persistence_strength * n_fit_frames / n_states``).
+        0 disables the prior but keeps the sticky start.
+    n_restarts : int
+        EM runs from different seeds; the best log-likelihood wins.
+    n_iter : int
+        Maximum EM iterations per restart.
+    tol : float
+        Stop when the log-likelihood per frame improves by less than ``tol``.
+    min_covar : float
+        Covariance floor added to the diagonal after every M-step (in feature units squared;
+        features should be standardised). Reported as ``covariance_floor_``.
+    init : {"kmeans", "random"}
+        Initial means: k-means (``n_init=1``, different seed per restart, on a subsample) or
+        random distinct frames.
+    fit_max_frames : int or None
+        Fit on a representative subsample of about this many frames when the data are larger:
+        every session gives a share proportional to its length, as contiguous blocks of at
+        most 60 s placed at random inside equal slices of the session (see
+        ``_hmm_fit.representative_blocks``). ``None``: always fit on everything.
+    engine : {"fast", "hmmlearn"}
+        Own numba/BLAS kernels, or hmmlearn's EM (reference path). Decoding is always fast.
+    random_state : int or None
+    progress : bool
+        Show a progress bar over restarts and iterations.
+
+    Attributes
+    ----------
+    means_ (K, D), covars_ (K, D, D), startprob_ (K,), transmat_ (K, K), n_states_,
+    n_features_in_, log_likelihood_ (per frame of the fit data, best restart),
+    restart_log_likelihoods_ (n_restarts,), n_iter_, converged_, covariance_floor_,
+    n_fit_frames_.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(0)
+    >>> X = np.r_[rng.normal(0, 1, (200, 2)), rng.normal(6, 1, (200, 2))]
+    >>> hmm = GaussianHMM(n_states=2, n_restarts=1).fit(X)
+    >>> np.bincount(hmm.predict(X)).tolist()
+    [200, 200]
+    """
+
+    def __init__(
+        self,
+        n_states: int = 8,
+        covariance_type: str = "full",
+        expected_bout_s: float | None = 1.0,
+        fps: float = 30.0,
+        persistence_strength: float = 0.5,
+        n_restarts: int = 4,
+        n_iter: int = 100,
+        tol: float = 1e-4,
+        min_covar: float = 1e-3,
+        init: str = "kmeans",
+        fit_max_frames: int | None = 200_000,
+        engine: str = "fast",
+        random_state: int | None = 0,
+        progress: bool = False,
+    ):
+        self.n_states = n_states
+        self.covariance_type = covariance_type
+        self.expected_bout_s = expected_bout_s
+        self.fps = fps
+        self.persistence_strength = persistence_strength
+        self.n_restarts = n_restarts
+        self.n_iter = n_iter
+        self.tol = tol
+        self.min_covar = min_covar
+        self.init = init
+        self.fit_max_frames = fit_max_frames
+        self.engine = engine
+        self.random_state = random_state
+        self.progress = progress
+
+    _PARAMS = (
+        "n_states", "covariance_type", "expected_bout_s", "fps", "persistence_strength",
+        "n_restarts", "n_iter", "tol", "min_covar", "init", "fit_max_frames", "engine",
+        "random_state", "progress",
+    )  # fmt: skip
+
+    def get_params(self, deep: bool = True) -> dict[str, Any]:
+        """The constructor parameters (JSON-able)."""
+        return {name: getattr(self, name) for name in self._PARAMS}
+
+    def set_params(self, **params: Any) -> GaussianHMM:
+        """Set constructor parameters; unknown names raise InputError."""
+        unknown = sorted(set(params) - set(self._PARAMS))
+        if unknown:
+            raise InputError(f"unknown GaussianHMM parameters {unknown}; valid: {self._PARAMS}")
+        for name, value in params.items():
+            setattr(self, name, value)
+        return self
+
+    # ----------------------------------------------------------------------------- fitting
+    def fit(self, X: np.ndarray, lengths: Sequence[int] | np.ndarray | None = None) -> GaussianHMM:
+        """Fit by EM on ``X (n_frames, n_features)`` of sessions with ``lengths``."""
+        check_hmm_params(self)
+        X, lengths = check_X_lengths(X, lengths)
+        K = int(self.n_states)
+        seeds = np.random.SeedSequence(self.random_state).spawn(self.n_restarts + 1)
+        block = max(100, round(60.0 * self.fps))
+        rng_blocks = np.random.default_rng(seeds[0])
+        starts, stops = representative_blocks(lengths, self.fit_max_frames, block, rng_blocks)
+        fit_lengths = (stops - starts).astype(np.int64)
+        whole = fit_lengths.sum() == len(X)
+        blocks = zip(starts, stops, strict=True)
+        X_fit = X if whole else np.concatenate([X[a:b] for a, b in blocks])
+        if not distinct_rows_at_least(X_fit, K):
+            msg = (
+                f"n_states={K} is more than the number of distinct frames in the data "
+                f"({len(X_fit)} frames used for fitting); lower n_states or pass more data"
+            )
+            raise InputError(msg)
+        offset = X_fit.mean(axis=0)
+        X_fit = X_fit - offset  # centred: better conditioned sufficient statistics
+        n_fit = len(X_fit)
+        sticky = sticky_transmat(K, self.expected_bout_s, self.fps)
+        start_counts = np.full(K, 1.0 / K)  # one pseudo-sequence spread over the states
+        trans_counts = (
+            0.0 if self.expected_bout_s is None else self.persistence_strength * n_fit / K * sticky
+        )
+        results = []
+        bar = tqdm(total=self.n_restarts, desc="HMM restarts", disable=not self.progress)
+        with one_thread():  # small products: one thread is faster (see one_thread)
+            for r in range(self.n_restarts):
+                rng = np.random.default_rng(seeds[r + 1])
+                if self.engine == "hmmlearn":
+                    res = fit_with_hmmlearn(
+                        self, X_fit, fit_lengths, sticky, start_counts, trans_counts, rng
+                    )
+                else:
+                    means = initial_means(X_fit, K, self.init, rng)
+                    res = run_em(
+                        self, X_fit, fit_lengths, means, sticky, start_counts, trans_counts, bar
+                    )
+                results.append(res)
+                bar.update(1)
+        bar.close()
+        lls = np.array([res["log_likelihood"] for res in results])
+        best = results[int(np.argmax(lls))]
+        order = order_states_by_occupancy(best["occupancy"], best["means"])
+        self.means_ = best["means"][order] + offset
+        self.covars_ = best["covars"][order]
+        self.startprob_ = best["startprob"][order]
+        self.transmat_ = best["transmat"][np.ix_(order, order)]
+        self.n_states_ = K
+        self.n_features_in_ = X.shape[1]
+        self.log_likelihood_ = float(best["log_likelihood"])
+        self.restart_log_likelihoods_ = lls
+        self.n_iter_ = int(best["n_iter"])
+        self.converged_ = bool(best["converged"])
+        self.covariance_floor_ = float(self.min_covar)
+        self.n_fit_frames_ = int(n_fit)
+        return self
+
+    # ---------------------------------------------------------------------------- decoding
+    def _prepare(self, X, lengths):
+        check_fitted(self, "means_")
+        X, lengths = check_X_lengths(X, lengths, n_features=self.n_features_in_)
+        emission = GaussianEmission(self.means_, self.covars_, self.covariance_type)
+        return X, lengths, emission
+
+    def _log_emission_batches(self, X, lengths):
+        X, lengths, emission = self._prepare(X, lengths)
+        with one_thread():
+            for a, b, sub in _batches(lengths):
+                yield a, b, sub, emission.log_likelihood(X[a:b])
+
+    def score(self, X: np.ndarray, lengths: Sequence[int] | np.ndarray | None = None) -> float:
+        """Total log-likelihood ``log P(X)`` of all sessions."""
+        return float(self.score_per_session(X, lengths).sum())
+
+    def score_per_session(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Log-likelihood of each session, shape (n_sessions,)."""
+        parts = []
+        for _, _, sub, log_b in self._log_emission_batches(X, lengths):
+            _, log_scale = forward_filter_log(log_b, self.startprob_, self.transmat_, sub)
+            parts.append(np.add.reduceat(log_scale, np.cumsum(sub) - sub))
+        return np.concatenate(parts)
+
+    def score_per_frame(self, X: np.ndarray, lengths=None) -> float:
+        """Log-likelihood per frame (comparable across data sizes)."""
+        return self.score(X, lengths) / len(X)
+
+    def filter(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Causal posteriors ``P(state_t | x_1..t)`` per session, shape (n_frames, K)."""
+        check_fitted(self, "means_")
+        out = np.empty((len(X), self.n_states_))
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
+            out[a:b] = forward_filter_log(log_b, self.startprob_, self.transmat_, sub)[0]
+        return out
+
+    def predict_proba(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Smoothed posteriors ``P(state_t | whole session)``, shape (n_frames, K)."""
+        check_fitted(self, "means_")
+        out = np.empty((len(X), self.n_states_))
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
+            post = forward_backward_log(log_b, self.startprob_, self.transmat_, sub, True)
+            out[a:b] = post.gamma
+        return out
+
+    def decode(self, X: np.ndarray, lengths=None) -> tuple[float, np.ndarray]:
+        """Viterbi: ``(joint log-probability of the best paths, labels (n_frames,))``."""
+        labels = np.empty(len(X), dtype=np.int64)
+        logprob = 0.0
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
+            labels[a:b], best = viterbi_log(log_b, self.startprob_, self.transmat_, sub)
+            logprob += float(best.sum())
+        return logprob, labels
+
+    def predict(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Most probable state path (Viterbi), int labels (n_frames,)."""
+        return self.decode(X, lengths)[1]
+
+    def n_parameters(self) -> int:
+        """Free parameters: start (K-1) + transitions K(K-1) + means KD + covariances."""
+        check_fitted(self, "means_")
+        K, D = self.n_states_, self.n_features_in_
+        cov = K * D * (D + 1) // 2 if self.covariance_type == "full" else K * D
+        return (K - 1) + K * (K - 1) + K * D + cov
+
+    def bic(self, X: np.ndarray, lengths=None) -> float:
+        """Bayesian information criterion ``-2 log L + n_parameters * log(n_frames)``."""
+        return -2.0 * self.score(X, lengths) + self.n_parameters() * float(np.log(len(X)))
+
+    # ------------------------------------------------------------------------- persistence
+    def to_state(self) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
+        """JSON-able parameters and metadata, plus the fitted arrays (no pickle)."""
+        check_fitted(self, "means_")
+        meta = {
+            "kind": "ethoscribe.GaussianHMM",
+            "format_version": FORMAT_VERSION,
+            "ethoscribe_version": version("ethoscribe"),
+            "params": self.get_params(),
+            "n_states": self.n_states_,
+            "n_features": self.n_features_in_,
+            "log_likelihood": self.log_likelihood_,
+            "n_iter": self.n_iter_,
+            "converged": self.converged_,
+            "covariance_floor": self.covariance_floor_,
+            "n_fit_frames": self.n_fit_frames_,
+        }
+        arrays = {
+            "means": self.means_, "covars": self.covars_, "startprob": self.startprob_,
+            "transmat": self.transmat_, "restart_log_likelihoods": self.restart_log_likelihoods_,
+        }  # fmt: skip
+        return meta, {k: np.array(v, dtype=np.float64) for k, v in arrays.items()}
+
+    @classmethod
+    def from_state(cls, meta: dict[str, Any], arrays: dict[str, np.ndarray]) -> GaussianHMM:
+        """Rebuild the fitted model written by :meth:`to_state`."""
+        if (
+            meta.get("kind") != "ethoscribe.GaussianHMM"
+            or meta.get("format_version") != FORMAT_VERSION
+        ):
+            msg = (
+                f"not a GaussianHMM state of format 1 (kind={meta.get('kind')!r}, format="
+                f"{meta.get('format_version')!r}); save it again with this ethoscribe"
+            )
+            raise InputError(msg)
+        model = cls(**meta["params"])
+        K, D = int(meta["n_states"]), int(meta["n_features"])
+        shapes = {"means": (K, D), "covars": (K, D, D), "startprob": (K,), "transmat": (K, K)}
+        for name, shape in shapes.items():
+            if name not in arrays or np.shape(arrays[name]) != shape:
+                got = np.shape(arrays[name]) if name in arrays else "missing"
+                raise InputError(f"GaussianHMM state: array {name!r} must be {shape}, got {got}")
+        model.means_ = np.array(arrays["means"], dtype=np.float64)
+        model.covars_ = np.array(arrays["covars"], dtype=np.float64)
+        model.startprob_ = np.array(arrays["startprob"], dtype=np.float64)
+        model.transmat_ = np.array(arrays["transmat"], dtype=np.float64)
+        model.restart_log_likelihoods_ = np.array(arrays.get("restart_log_likelihoods", []))
+        model.n_states_, model.n_features_in_ = K, D
+        model.log_likelihood_ = float(meta["log_likelihood"])
+        model.n_iter_ = int(meta["n_iter"])
+        model.converged_ = bool(meta["converged"])
+        model.covariance_floor_ = float(meta["covariance_floor"])
+        model.n_fit_frames_ = int(meta["n_fit_frames"])
+        return model

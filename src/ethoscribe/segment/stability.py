@@ -1,0 +1,164 @@
+"""How reproducible are the states? Agreement between refits with different seeds and between
+models fitted on two halves of the sessions.
+
+Each fitted model labels *all* sessions, so two fits are compared on the same frames: overall by
+the adjusted Rand index, per state by the Jaccard index of Hungarian-matched states. A motif that
+comes back under another seed and from the other half of the data is worth naming; one that does
+not is probably an artefact of the fit.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from tqdm.auto import tqdm
+
+from ethoscribe.errors import InputError
+from ethoscribe.segment.agreement import adjusted_rand, match_states
+from ethoscribe.segment.base import check_X_lengths
+
+
+@dataclass(frozen=True)
+class StabilityReport:
+    """Result of :func:`stability_report`.
+
+    ``table``: one row per state of the reference fit (the first seed) with ``state, occupancy,
+    jaccard_seeds_mean, jaccard_seeds_min, jaccard_halves, reproducible``.
+    ``summary``: ``n_states, seeds, ari_seeds_mean, ari_seeds_min, ari_halves, n_reproducible,
+    reproducible_jaccard``. ``pairwise_ari``: seed x seed adjusted Rand indices.
+    """
+
+    table: pd.DataFrame
+    summary: dict[str, Any]
+    pairwise_ari: pd.DataFrame = field(repr=False)
+
+
+def _halves(lengths: np.ndarray, rng: np.random.Generator) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Frame index arrays and lengths of two halves: sessions alternately after a shuffle, or
+    the first and second half in time of a single session."""
+    offsets = np.cumsum(lengths) - lengths
+    if len(lengths) == 1:
+        mid = int(lengths[0]) // 2
+        return [(np.arange(mid), np.array([mid])),
+                (np.arange(mid, lengths[0]), np.array([lengths[0] - mid]))]  # fmt: skip
+    order = rng.permutation(len(lengths))
+    out = []
+    for part in (np.sort(order[0::2]), np.sort(order[1::2])):
+        idx = np.concatenate([np.arange(offsets[s], offsets[s] + lengths[s]) for s in part])
+        out.append((idx, lengths[part]))
+    return out
+
+
+def _n_states(model: Any, labels: np.ndarray) -> int:
+    return int(getattr(model, "n_states_", labels.max() + 1))
+
+
+def stability_report(
+    make_model: Callable[[int], Any],
+    X: np.ndarray,
+    lengths: Sequence[int] | np.ndarray | None = None,
+    seeds: Sequence[int] = (0, 1, 2),
+    split_halves: bool = True,
+    reproducible_jaccard: float = 0.5,
+    progress: bool = False,
+) -> StabilityReport:
+    """Refit with several seeds (and on two halves of the sessions) and compare the labelings.
+
+    Parameters
+    ----------
+    make_model : callable seed -> unfitted segmenter
+        Anything with ``fit(X, lengths)`` and ``predict(X, lengths)``.
+    X : array (n_frames, n_features); lengths : int array (n_sessions,), optional
+    seeds : sequence of int
+        The first seed's fit is the reference whose states the table lists.
+    split_halves : bool
+        Also fit on two halves of the sessions (shuffled with the first seed; a single
+        session is split in time); each half's model labels all sessions.
+    reproducible_jaccard : float
+        A state is called reproducible when its mean Jaccard between seeds and its split-half
+        Jaccard both reach this value (0.5: more shared frames than not, common practice).
+
+    Examples
+    --------
+    >>> from ethoscribe.segment.hmm import GaussianHMM
+    >>> rng = np.random.default_rng(0)
+    >>> X = rng.normal(0, 1, (300, 1)) + 8 * (np.arange(300)[:, None] // 50 % 2)
+    >>> rep = stability_report(lambda s: GaussianHMM(2, n_restarts=1, random_state=s), X,
+    ...                        [150, 150], seeds=(0, 1))
+    >>> rep.summary["n_reproducible"]
+    2
+    """
+    X, lengths = check_X_lengths(X, lengths)
+    seeds = [int(s) for s in seeds]
+    if not seeds:
+        raise InputError("seeds must contain at least one seed")
+    jobs = len(seeds) + (2 if split_halves else 0)
+    bar = tqdm(total=jobs, desc="stability fits", disable=not progress)
+    labels = []
+    for seed in seeds:
+        model = make_model(seed).fit(X, lengths)
+        labels.append(np.asarray(model.predict(X, lengths)))
+        if seed == seeds[0]:
+            n_states = _n_states(model, labels[0])
+        bar.update(1)
+    ref = labels[0]
+    states = np.arange(n_states)
+    ari = np.eye(len(seeds))
+    for i in range(len(seeds)):
+        for j in range(i + 1, len(seeds)):
+            ari[i, j] = ari[j, i] = adjusted_rand(labels[i], labels[j])
+    seed_jac = np.full((len(seeds) - 1, n_states), np.nan)
+    for r, other in enumerate(labels[1:]):
+        jac = match_states(ref, other).jaccard
+        seed_jac[r] = jac.reindex(states).to_numpy()
+    halves_jac = np.full(n_states, np.nan)
+    ari_halves = np.nan
+    if split_halves:
+        half_labels = []
+        for idx, sub_lengths in _halves(lengths, np.random.default_rng(seeds[0])):
+            model = make_model(seeds[0]).fit(X[idx], sub_lengths)
+            half_labels.append(np.asarray(model.predict(X, lengths)))
+            bar.update(1)
+        a, b = half_labels
+        ari_halves = adjusted_rand(a, b)
+        map_a, map_b = match_states(ref, a).mapping, match_states(ref, b).mapping
+        for s in states:
+            sa, sb = map_a.get(int(s), -1), map_b.get(int(s), -1)
+            in_a, in_b = (a == sa) & (sa >= 0), (b == sb) & (sb >= 0)
+            union = (in_a | in_b).sum()
+            halves_jac[s] = (in_a & in_b).sum() / union if union else np.nan
+    bar.close()
+    with np.errstate(all="ignore"):
+        mean_seed = np.nanmean(seed_jac, axis=0) if len(seeds) > 1 else np.full(n_states, np.nan)
+        min_seed = np.nanmin(seed_jac, axis=0) if len(seeds) > 1 else np.full(n_states, np.nan)
+    checks = np.vstack([mean_seed, halves_jac])
+    measured = ~np.isnan(checks)
+    reproducible = measured.any(axis=0) & np.all(
+        ~measured | (checks >= reproducible_jaccard), axis=0
+    )
+    occupancy = np.bincount(ref[ref >= 0], minlength=n_states)[:n_states] / max((ref >= 0).sum(), 1)
+    table = pd.DataFrame(
+        {
+            "state": states,
+            "occupancy": occupancy,
+            "jaccard_seeds_mean": mean_seed,
+            "jaccard_seeds_min": min_seed,
+            "jaccard_halves": halves_jac,
+            "reproducible": reproducible,
+        }
+    )
+    off = ari[np.triu_indices(len(seeds), 1)]
+    summary = {
+        "n_states": int(n_states),
+        "seeds": seeds,
+        "ari_seeds_mean": float(off.mean()) if off.size else float("nan"),
+        "ari_seeds_min": float(off.min()) if off.size else float("nan"),
+        "ari_halves": float(ari_halves),
+        "n_reproducible": int(reproducible.sum()),
+        "reproducible_jaccard": float(reproducible_jaccard),
+    }
+    return StabilityReport(table, summary, pd.DataFrame(ari, index=seeds, columns=seeds))

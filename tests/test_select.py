@@ -1,0 +1,73 @@
+"""Choosing the number of states on invented data with a known count."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from ethoscribe.errors import InputError
+from ethoscribe.plots.model import state_count_figure
+from ethoscribe.segment.select import _choose, select_n_states
+from test_hmm_sampling import sample_sticky_hmm
+
+FAST = {"n_restarts": 2, "n_iter": 50}
+
+
+@pytest.fixture(scope="module")
+def four_states():
+    # invented data: 4-state sticky Gaussian HMM, 4 sessions
+    return sample_sticky_hmm(seed=3, lengths=(400,) * 4)
+
+
+def test_heldout_sessions_pick_the_true_count(four_states):
+    X, _, lengths = four_states
+    sel = select_n_states(X, lengths, candidates=range(2, 7), model_params=FAST)
+    assert sel.best == 4 and sel.criterion == "heldout"
+    table = sel.table.set_index("n_states")
+    assert list(table.index) == [2, 3, 4, 5, 6]
+    assert table["within_tolerance"].idxmax() == 4  # smallest K within tolerance
+    assert table.loc[4, "heldout_gap"] <= table.loc[4, "tolerance"]
+    assert table.loc[3, "heldout_gap"] > table.loc[3, "tolerance"]
+    assert np.isfinite(table[["bic", "train_ll_per_frame", "heldout_gap_se"]]).all().all()
+    fig = state_count_figure(sel)
+    assert any(t.name == "chosen: 4 states" for t in fig.data)
+    assert fig.layout.shapes[0].x0 == 4  # the vertical marker
+
+
+def test_blocks_inside_one_session_and_bic(four_states):
+    X, _, lengths = four_states
+    one = select_n_states(
+        X, candidates=[3, 4, 5], heldout="blocks", model_params=FAST, block_frames=200
+    )
+    assert one.best == 4
+    bic = select_n_states(X, lengths, candidates=[3, 4, 5], criterion="bic", model_params=FAST)
+    assert bic.best == 4 and bic.table["heldout_ll_per_frame"].isna().all()
+    assert bic.table.set_index("n_states")["bic"].idxmin() == 4
+    assert "BIC" in state_count_figure(bic).layout.yaxis.title.text
+
+
+def test_rule_prefers_the_smaller_count_within_one_standard_error():
+    # hand-made per-unit log-likelihoods for K = 2, 3, 4 (4 units of 100 frames): K=4 is best
+    # by 0.01 per frame, but the paired per-unit gaps (.04, -.04, .06, -.02) have a standard
+    # error of sqrt(4/3 * sum(w^2 (d - .01)^2)) = 0.0238, so K=3 is chosen
+    n = np.full(4, 100)
+    ll = np.array(
+        [[-300.0] * 4, [-200.0, -199.0, -201.0, -200.0], [-196.0, -203.0, -195.0, -202.0]]
+    )
+    rule = _choose(ll, n, [2, 3, 4])
+    assert rule["best"] == 3
+    np.testing.assert_allclose(rule["gap"], [1.01, 0.01, 0.0], atol=1e-12)
+    assert rule["se"][1] == pytest.approx(np.sqrt(4 / 3 * 0.0625 * 0.0068), rel=1e-9)
+    assert rule["ok"].tolist() == [False, True, True]
+
+
+def test_bad_requests_are_explained(four_states):
+    X, _, lengths = four_states
+    with pytest.raises(InputError, match="heldout='blocks'"):
+        select_n_states(X, candidates=[2], model_params=FAST)
+    with pytest.raises(InputError, match="n_states"):
+        select_n_states(X, lengths, candidates=[2], model_params={"n_states": 3})
+    with pytest.raises(InputError, match="criterion"):
+        select_n_states(X, lengths, candidates=[2], criterion="aic")
+    with pytest.raises(InputError, match="candidates"):
+        select_n_states(X, lengths, candidates=[])
