@@ -1,0 +1,270 @@
+"""Two-sample tests and effect sizes: permutation tests, Hedges' g, Cliff's delta, bootstrap
+intervals and Benjamini-Hochberg q-values. Used by :mod:`ethoscribe.stats`, which re-exports them.
+
+Permutation tests are exact (every distinct relabelling enumerated) when there are at most
+``EXACT_THRESHOLD`` = 50 000 of them -- e.g. 8 vs 8 sessions (12 870) or 15 paired subjects
+(32 768) -- and Monte Carlo otherwise, with ``p = (count + 1) / (n_resamples + 1)``. Two-sided
+p-values are twice the smaller one-sided p, capped at 1, as ``scipy.stats.permutation_test``
+defines them.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from functools import lru_cache
+from itertools import combinations
+from math import comb
+from typing import NamedTuple
+
+import numpy as np
+from scipy import special
+
+from ethoscribe.errors import InputError
+
+EXACT_THRESHOLD = 50_000
+
+
+class PermutationResult(NamedTuple):
+    """Outcome of :func:`permutation_test`."""
+
+    statistic: float
+    p_value: float
+    method: str  # "exact" or "monte_carlo"
+    n_arrangements: int  # distinct relabellings of the data
+    n_resamples: int  # null statistics computed
+    min_p_value: float  # smallest two-sided p the test can give
+
+
+def _sample(x, what: str) -> np.ndarray:
+    values = np.asarray(x, dtype=np.float64).ravel()
+    if not np.isfinite(values).all():
+        raise InputError(f"{what} contains NaN or infinite values; drop them first")
+    return values
+
+
+@lru_cache(maxsize=16)
+def _combinations(n: int, k: int) -> np.ndarray:
+    flat = np.fromiter((i for c in combinations(range(n), k) for i in c), dtype=np.int64)
+    out = flat.reshape(-1, k)
+    out.flags.writeable = False
+    return out
+
+
+def _statistic(name: str) -> Callable[[np.ndarray], np.ndarray]:
+    if name == "mean_difference":
+        return lambda v: v.mean(axis=-1)
+    if name == "median_difference":
+        return lambda v: np.median(v, axis=-1)
+    raise InputError(f"statistic must be 'mean_difference' or 'median_difference'; got {name!r}")
+
+
+def permutation_test(
+    a: Sequence[float],
+    b: Sequence[float],
+    statistic: str = "mean_difference",
+    n_resamples: int = 10_000,
+    exact_threshold: int = EXACT_THRESHOLD,
+    paired: bool = False,
+    random_state: int | np.random.Generator = 0,
+) -> PermutationResult:
+    """Two-sided permutation test of ``statistic(a) - statistic(b)``.
+
+    Independent samples are relabelled (``comb(n_a + n_b, n_a)`` arrangements); paired samples
+    (``paired=True``, equal lengths) have the signs of their differences flipped (``2 ** n``), as
+    ``scipy.stats.permutation_test(permutation_type="samples")``; the paired statistic is the mean
+    or median of ``a - b``.
+
+    Examples
+    --------
+    >>> r = permutation_test([1.0, 2.0, 3.0], [4.0, 5.0, 6.0])
+    >>> r.method, r.n_arrangements, r.p_value
+    ('exact', 20, 0.1)
+    """
+    a, b = _sample(a, "sample a"), _sample(b, "sample b")
+    stat = _statistic(statistic)
+    rng = np.random.default_rng(random_state)
+    if paired:
+        if len(a) != len(b) or len(a) < 1:
+            raise InputError(f"paired samples need equal, non-zero lengths; got {len(a)}, {len(b)}")
+        d = a - b
+        total, observed = 2 ** len(d), float(stat(d))
+        if total <= exact_threshold:
+            signs = 1 - 2 * ((np.arange(total)[:, None] >> np.arange(len(d))) & 1)
+        else:
+            signs = rng.choice(np.array([-1, 1]), size=(n_resamples, len(d)))
+        null = stat(signs * d)
+        scale = np.abs(d).max()
+    else:
+        if len(a) < 1 or len(b) < 1:
+            raise InputError(f"each sample needs a value; got sizes {len(a)} and {len(b)}")
+        x, k = np.r_[a, b], len(a)
+        total, observed = comb(len(x), k), float(stat(a) - stat(b))
+        if total <= exact_threshold:
+            chosen = _combinations(len(x), k)
+            mask = np.ones((len(chosen), len(x)), bool)
+            np.put_along_axis(mask, chosen, False, axis=1)
+            rest = np.nonzero(mask)[1].reshape(len(chosen), -1)
+        else:
+            order = rng.permuted(np.tile(np.arange(len(x)), (n_resamples, 1)), axis=1)
+            chosen, rest = order[:, :k], order[:, k:]
+        null = stat(x[chosen]) - stat(x[rest])
+        scale = np.abs(x).max()
+    exact = total <= exact_threshold
+    extra = 0 if exact else 1
+    gamma = 100 * np.finfo(float).eps * max(abs(observed), scale)  # ties despite rounding
+    less = (np.count_nonzero(null <= observed + gamma) + extra) / (len(null) + extra)
+    more = (np.count_nonzero(null >= observed - gamma) + extra) / (len(null) + extra)
+    p = float(min(1.0, 2 * min(less, more)))
+    floor = min(1.0, 2 / total) if exact else min(1.0, max(2 / total, 2 / (n_resamples + 1)))
+    return PermutationResult(
+        observed, p, "exact" if exact else "monte_carlo", int(total), len(null), floor
+    )
+
+
+def _bias_correction(df: np.ndarray | float) -> np.ndarray:
+    """Hedges' J(df) = Gamma(df/2) / (sqrt(df/2) Gamma((df-1)/2)) (~ 1 - 3 / (4 df - 1))."""
+    df = np.asarray(df, dtype=np.float64)
+    return np.exp(special.gammaln(df / 2) - 0.5 * np.log(df / 2) - special.gammaln((df - 1) / 2))
+
+
+def hedges_g_rows(x: np.ndarray, y: np.ndarray, paired: bool) -> np.ndarray:
+    """Hedges' g of each row pair of ``x`` (R, n_a) and ``y`` (R, n_b): shape (R,)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if paired:
+            d = x - y
+            sd, df, diff = d.std(axis=1, ddof=1), d.shape[1] - 1, d.mean(axis=1)
+        else:
+            na, nb = x.shape[1], y.shape[1]
+            df = na + nb - 2
+            pooled = ((na - 1) * x.var(axis=1, ddof=1) + (nb - 1) * y.var(axis=1, ddof=1)) / df
+            sd, diff = np.sqrt(pooled), x.mean(axis=1) - y.mean(axis=1)
+        return np.where(sd > 0, _bias_correction(df) * diff / sd, np.nan)
+
+
+def hedges_g(a: Sequence[float], b: Sequence[float], paired: bool = False) -> float:
+    """Bias-corrected standardised mean difference of ``a`` minus ``b``.
+
+    ``g = J(df) (mean_a - mean_b) / s_pooled`` with the pooled SD on ``df = n_a + n_b - 2`` and the
+    exact small-sample factor ``J`` (Hedges & Olkin 1985, Statistical Methods for Meta-Analysis,
+    ch. 5; from memory). ``paired=True`` standardises the mean difference by the SD of the
+    differences (``df = n - 1``). NaN when the SD is 0.
+
+    Examples
+    --------
+    >>> round(hedges_g([2.0, 3.0, 4.0], [1.0, 2.0, 3.0]), 4)  # d = 1, J(4) = 0.7979
+    0.7979
+    """
+    a, b = _sample(a, "sample a"), _sample(b, "sample b")
+    if min(len(a), len(b)) < 2 or (paired and len(a) != len(b)):
+        raise InputError(f"Hedges' g needs >= 2 values per sample; got {len(a)} and {len(b)}")
+    return float(hedges_g_rows(a[None], b[None], paired)[0])
+
+
+def cliffs_delta_rows(x: np.ndarray, y: np.ndarray, paired: bool) -> np.ndarray:
+    """Cliff's delta of each row pair of ``x`` (R, n_a) and ``y`` (R, n_b): shape (R,)."""
+    if paired:
+        return np.sign(x - y).mean(axis=1)
+    return np.sign(x[:, :, None] - y[:, None, :]).mean(axis=(1, 2))
+
+
+def cliffs_delta(a: Sequence[float], b: Sequence[float], paired: bool = False) -> float:
+    """Cliff's delta: P(a > b) - P(a < b) over all pairs (Cliff 1993), in [-1, 1].
+
+    ``paired=True`` gives its matched-pairs form: the share of subjects with ``a > b`` minus the
+    share with ``a < b``.
+
+    Examples
+    --------
+    >>> cliffs_delta([3.0, 4.0], [1.0, 3.0])  # pairs: +, 0, +, + -> 3/4
+    0.75
+    """
+    a, b = _sample(a, "sample a"), _sample(b, "sample b")
+    if not len(a) or not len(b) or (paired and len(a) != len(b)):
+        raise InputError(f"Cliff's delta needs non-empty samples; got {len(a)} and {len(b)}")
+    if paired:
+        return float(np.sign(a - b).mean())
+    bs = np.sort(b)
+    below = np.searchsorted(bs, a, side="left")  # b values under each a
+    above = len(bs) - np.searchsorted(bs, a, side="right")
+    return float((below.sum() - above.sum()) / (len(a) * len(b)))
+
+
+def bootstrap_ci(
+    a: Sequence[float],
+    b: Sequence[float] | None = None,
+    statistic: str = "hedges_g",
+    n_resamples: int = 2000,
+    confidence: float = 0.95,
+    paired: bool = False,
+    random_state: int | np.random.Generator = 0,
+) -> tuple[float, float]:
+    """Percentile bootstrap interval (Efron & Tibshirani 1993, ch. 13) of a statistic.
+
+    ``statistic`` is ``"mean"`` (of ``a`` alone), or for two samples ``"mean_difference"``,
+    ``"hedges_g"``, ``"cliffs_delta"``. Independent samples are resampled separately; paired ones
+    by subject. Resamples where the statistic is undefined (zero SD) are left out; the interval is
+    NaN if more than half are.
+
+    Examples
+    --------
+    >>> lo, hi = bootstrap_ci([1.0, 2.0, 3.0, 4.0], statistic="mean", random_state=1)
+    >>> 1.0 <= lo <= hi <= 4.0
+    True
+    """
+    if not 0 < confidence < 1:
+        raise InputError(f"confidence must be in (0, 1); got {confidence}")
+    rng = np.random.default_rng(random_state)
+    a = _sample(a, "sample a")
+    if statistic == "mean":
+        values = a[rng.integers(len(a), size=(n_resamples, len(a)))].mean(axis=1)
+    else:
+        if b is None:
+            raise InputError(f"statistic {statistic!r} needs two samples (a and b)")
+        b = _sample(b, "sample b")
+        if paired:
+            if len(a) != len(b):
+                raise InputError(f"paired samples need equal lengths; got {len(a)}, {len(b)}")
+            idx = rng.integers(len(a), size=(n_resamples, len(a)))
+            x, y = a[idx], b[idx]
+        else:
+            x = a[rng.integers(len(a), size=(n_resamples, len(a)))]
+            y = b[rng.integers(len(b), size=(n_resamples, len(b)))]
+        funcs = {
+            "mean_difference": lambda x, y, p: (x - y).mean(1) if p else x.mean(1) - y.mean(1),
+            "hedges_g": hedges_g_rows,
+            "cliffs_delta": cliffs_delta_rows,
+        }
+        if statistic not in funcs:
+            raise InputError(f"unknown statistic {statistic!r}; expected mean or one of {[*funcs]}")
+        values = funcs[statistic](x, y, paired)
+    values = values[np.isfinite(values)]
+    if len(values) < n_resamples / 2:
+        return (float("nan"), float("nan"))
+    tail = 50 * (1 - confidence)
+    low, high = np.percentile(values, [tail, 100 - tail])
+    return float(low), float(high)
+
+
+def benjamini_hochberg(p: Sequence[float]) -> np.ndarray:
+    """Benjamini-Hochberg (1995) adjusted p-values (q-values); NaN entries are left out.
+
+    ``q_(i) = min_{j >= i} m p_(j) / j`` over the sorted p-values, capped at 1.
+
+    Examples
+    --------
+    >>> benjamini_hochberg([0.01, 0.04, 0.03]).round(3).tolist()
+    [0.03, 0.04, 0.04]
+    """
+    p = np.asarray(p, dtype=np.float64)
+    q = np.full(p.shape, np.nan)
+    ok = ~np.isnan(p)
+    if ((p[ok] < 0) | (p[ok] > 1)).any():
+        raise InputError("p-values must lie in [0, 1]")
+    order = np.argsort(p[ok], kind="stable")
+    m = len(order)
+    scaled = p[ok][order] * m / np.arange(1, m + 1)
+    adjusted = np.minimum.accumulate(scaled[::-1])[::-1].clip(max=1.0)
+    values = np.empty(m)
+    values[order] = adjusted
+    q[ok] = values
+    return q

@@ -1,0 +1,377 @@
+"""The whole behaviour model: cleaning, feature pipeline and segmenter, fitted and applied as one.
+
+A fitted ``BehaviourModel`` carries everything needed to label a new session the same way:
+the cleaning parameters, the fitted egocentric feature pipeline (alignment, PCA, scaler) and the
+fitted segmenter. New cohorts therefore get the same state ids, hence the same motif names.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from tqdm.auto import tqdm
+
+from ethoscribe import __version__
+from ethoscribe.clean import CleanParams, QualityReport, clean
+from ethoscribe.errors import InputError
+from ethoscribe.features import FeaturePipeline, FeatureSet
+from ethoscribe.pose import PoseTracks, check_same_body_plan
+from ethoscribe.segment.base import check_fitted, split_by_lengths
+from ethoscribe.segment.changepoint import ChangePointSegmenter
+from ethoscribe.segment.hmm import GaussianHMM
+from ethoscribe.segment.postprocess import enforce_min_bout
+from ethoscribe.segment.select import select_n_states
+
+METHODS = ("hmm", "changepoint", "prediction_error")
+FORMAT_VERSION = 1
+
+
+def motif_name(state: int) -> str:
+    """Neutral default name of state ``state`` (0-based): ``motif_01``, ``motif_02`` ..."""
+    return f"motif_{state + 1:02d}"
+
+
+def stack_valid(features: Sequence[FeatureSet]) -> tuple[np.ndarray, np.ndarray]:
+    """Valid rows of every feature set stacked, and the length of each non-empty piece.
+
+    A session whose valid frames are interrupted by invalid ones is still one sequence here:
+    the segmenter sees the valid frames back to back. Bouts are later cut at the gaps.
+    """
+    parts = [f.values[f.valid] for f in features]
+    lengths = np.array([len(p) for p in parts], dtype=np.int64)
+    if lengths.sum() == 0:
+        raise InputError(
+            "no valid frames in any session after cleaning: every frame misses at least one "
+            "keypoint. Lower min_confidence, raise max_gap_s, or check the keypoint names."
+        )
+    return np.concatenate(parts), lengths
+
+
+class BehaviourModel:
+    """Cleaning + egocentric features + unsupervised segmentation, fitted across sessions.
+
+    Parameters
+    ----------
+    cleaning : dict or CleanParams, optional
+        Cleaning parameters (see :class:`ethoscribe.clean.CleanParams`).
+    features : dict, optional
+        Keyword parameters of :class:`ethoscribe.features.FeaturePipeline`.
+    method : {"hmm", "changepoint", "prediction_error"}
+        Gaussian HMM over frames, or change points (penalised search or prediction-error peaks)
+        whose segments are clustered into motifs.
+    n_states : int or "auto"
+        Number of states (motifs); "auto" chooses it from ``state_range`` by held-out
+        log-likelihood per frame (HMM) or BIC of the segment clustering (change points).
+    state_range : (int, int)
+        Smallest and largest state count tried when ``n_states="auto"``.
+    segmenter : dict, optional
+        Extra keyword parameters of the segmenter (e.g. ``expected_bout_s`` for the HMM).
+    min_bout_s : float
+        Shorter bouts are merged into a neighbour in the final labels.
+    random_state : int
+        Seed of every random choice (initialisations, subsamples).
+    progress : bool
+        Show progress bars.
+
+    Examples
+    --------
+    >>> from ethoscribe.simulate import simulate_session
+    >>> tracks, truth = simulate_session(duration_s=60, seed=1)
+    >>> model = BehaviourModel(n_states=4).fit([tracks])   # doctest: +SKIP
+    >>> labels = model.label([tracks])                      # doctest: +SKIP
+    """
+
+    def __init__(
+        self,
+        cleaning: dict | CleanParams | None = None,
+        features: dict | None = None,
+        method: str = "hmm",
+        n_states: int | str = "auto",
+        state_range: tuple[int, int] = (3, 12),
+        segmenter: dict | None = None,
+        min_bout_s: float = 0.2,
+        random_state: int = 0,
+        progress: bool = False,
+    ) -> None:
+        self.cleaning = cleaning
+        self.features = features
+        self.method = method
+        self.n_states = n_states
+        self.state_range = state_range
+        self.segmenter = segmenter
+        self.min_bout_s = min_bout_s
+        self.random_state = random_state
+        self.progress = progress
+
+    def get_params(self) -> dict[str, Any]:
+        cleaning = (
+            self.cleaning.to_dict() if isinstance(self.cleaning, CleanParams) else self.cleaning
+        )
+        return {
+            "cleaning": cleaning,
+            "features": self.features,
+            "method": self.method,
+            "n_states": self.n_states,
+            "state_range": list(self.state_range),
+            "segmenter": self.segmenter,
+            "min_bout_s": self.min_bout_s,
+            "random_state": self.random_state,
+        }
+
+    # --- fitting --------------------------------------------------------------------------
+    def _check_params(self) -> None:
+        if self.method not in METHODS:
+            raise InputError(f"method must be one of {METHODS}; got {self.method!r}")
+        if self.n_states != "auto":
+            if not isinstance(self.n_states, (int, np.integer)) or self.n_states < 1:
+                raise InputError(
+                    f"n_states must be a positive integer or 'auto'; got {self.n_states!r}"
+                )
+        lo, hi = self.state_range
+        if not (1 <= lo <= hi):
+            raise InputError(
+                f"state_range must be (low, high) with 1 <= low <= high; got {self.state_range}"
+            )
+        if not np.isfinite(self.min_bout_s) or self.min_bout_s < 0:
+            raise InputError(f"min_bout_s must be >= 0 seconds; got {self.min_bout_s!r}")
+
+    def _clean_params(self) -> CleanParams:
+        if isinstance(self.cleaning, CleanParams):
+            return self.cleaning
+        return CleanParams.from_dict(self.cleaning or {})
+
+    def _make_segmenter(self, n_states: int | str, fps: float, seed: int) -> Any:
+        extra = dict(self.segmenter or {})
+        if self.method == "hmm":
+            return GaussianHMM(n_states=n_states, fps=fps, random_state=seed, **extra)
+        # Change points: with n_states="auto" the segment clustering picks the count by BIC.
+        method = "prediction_error" if self.method == "prediction_error" else "kernel"
+        extra.setdefault("method", method)
+        extra.setdefault("max_motifs", self.state_range[1])
+        return ChangePointSegmenter(n_motifs=n_states, fps=fps, random_state=seed, **extra)
+
+    def fit(self, sessions: Sequence[PoseTracks]) -> BehaviourModel:
+        """Fit cleaning-resolved features and the segmenter on all ``sessions`` at once."""
+        self._check_params()
+        sessions = list(sessions)
+        check_same_body_plan(sessions)
+        fps = {s.fps for s in sessions}
+        if len(fps) > 1:
+            raise InputError(
+                f"sessions have different frame rates {sorted(fps)}; resample them to one rate "
+                "with cleaning={'target_fps': ...}"
+            )
+        params = self._clean_params()
+        cleaned, quality = self._clean_all(sessions, params)
+        pipeline = FeaturePipeline(**(self.features or {}))
+        feats = pipeline.fit_transform(cleaned)
+        X, lengths = stack_valid(feats)
+        fps_value = cleaned[0].fps
+        selection = None
+        n_states = self.n_states
+        if n_states == "auto" and self.method == "hmm":
+            lo, hi = self.state_range
+            selection = select_n_states(
+                X,
+                lengths,
+                candidates=range(lo, hi + 1),
+                model_params={"fps": fps_value, **(self.segmenter or {})},
+                random_state=self.random_state,
+                progress=self.progress,
+            )
+            n_states = int(selection.best)
+        segmenter = self._make_segmenter(n_states, fps_value, self.random_state)
+        segmenter.fit(X, lengths)
+        self.cleaning_ = params
+        self.features_ = pipeline
+        self.segmenter_ = segmenter
+        self.selection_ = selection
+        self.n_states_ = int(segmenter.n_states_)
+        self.fps_ = fps_value
+        self.keypoints_ = tuple(sessions[0].keypoints)
+        self.n_dims_ = sessions[0].n_dims
+        self.quality_ = quality
+        self.training_sessions_ = [s.session for s in sessions]
+        self.n_training_frames_ = int(lengths.sum())
+        return self
+
+    def _clean_all(
+        self, sessions: Sequence[PoseTracks], params: CleanParams
+    ) -> tuple[list[PoseTracks], list[QualityReport]]:
+        out, reports = [], []
+        for s in tqdm(sessions, desc="cleaning", unit="session", disable=not self.progress):
+            cleaned, report = clean(s, params)
+            out.append(cleaned)
+            reports.append(report)
+        return out, reports
+
+    # --- applying -------------------------------------------------------------------------
+    def transform_features(
+        self, sessions: Sequence[PoseTracks]
+    ) -> tuple[list[FeatureSet], list[QualityReport]]:
+        """Clean and featurise ``sessions`` exactly as at fitting time."""
+        check_fitted(self, "segmenter_")
+        sessions = list(sessions)
+        for s in sessions:
+            self._check_body_plan(s)
+        cleaned, quality = self._clean_all(sessions, self.cleaning_)
+        return [f for s in cleaned for f in self.features_.transform(s)], quality
+
+    def _check_body_plan(self, s: PoseTracks) -> None:
+        if tuple(s.keypoints) != self.keypoints_ or s.n_dims != self.n_dims_:
+            raise InputError(
+                f"session '{s.session}' has keypoints {list(s.keypoints)} in {s.n_dims}-D but "
+                f"the model was fitted on {list(self.keypoints_)} in {self.n_dims_}-D"
+            )
+        if abs(s.fps - self.fps_) > 1e-9 and not self.cleaning_.target_fps:
+            raise InputError(
+                f"session '{s.session}' runs at {s.fps:g} fps but the model at {self.fps_:g} fps; "
+                "resample it (cleaning target_fps) before labelling"
+            )
+
+    def label(self, sessions: Sequence[PoseTracks]) -> pd.DataFrame:
+        """Per-frame label table of ``sessions``.
+
+        Returns
+        -------
+        DataFrame with columns ``session, animal, frame, time_s, state, motif, probability``;
+        invalid frames have state -1, motif "" and probability NaN.
+        """
+        feats, _ = self.transform_features(sessions)
+        return self.label_features(feats)
+
+    def label_features(self, feats: Sequence[FeatureSet]) -> pd.DataFrame:
+        """Label already computed feature sets (see :meth:`label`)."""
+        check_fitted(self, "segmenter_")
+        X, lengths = stack_valid(feats)
+        states, prob = self._states_and_probability(X, lengths)
+        min_frames = int(round(self.min_bout_s * self.fps_))
+        if min_frames > 1:
+            states = enforce_min_bout(states, min_frames, lengths=lengths, probabilities=prob)
+        # Posterior of the label given; clipped because scaled recursions round to 1 + 1e-15.
+        prob = np.clip(np.take_along_axis(prob, states[:, None], axis=1)[:, 0], 0.0, 1.0)
+        tables = []
+        nonempty = iter(zip(split_by_lengths(states, lengths), split_by_lengths(prob, lengths)))
+        for f in feats:
+            n = len(f.valid)
+            state = np.full(n, -1, dtype=np.int64)
+            p = np.full(n, np.nan)
+            if f.valid.any():
+                s_part, p_part = next(nonempty)
+                state[f.valid] = s_part
+                p[f.valid] = p_part
+            tables.append(
+                pd.DataFrame(
+                    {
+                        "session": f.session,
+                        "animal": f.animal,
+                        "frame": np.arange(n),
+                        "time_s": np.arange(n) / f.fps,
+                        "state": state,
+                        "probability": p,
+                    }
+                )
+            )
+        labels = pd.concat(tables, ignore_index=True)
+        names = np.array([""] + [motif_name(k) for k in range(self.n_states_)], dtype=object)
+        labels.insert(5, "motif", names[labels["state"].to_numpy() + 1])
+        return labels
+
+    def _states_and_probability(
+        self, X: np.ndarray, lengths: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        seg = self.segmenter_
+        if isinstance(seg, GaussianHMM):
+            return seg.predict(X, lengths), seg.predict_proba(X, lengths)
+        states = seg.predict(X, lengths)
+        prob = np.zeros((len(states), self.n_states_))
+        prob[np.arange(len(states)), states] = 1.0
+        return states, prob
+
+    # --- persistence (arrays + JSON; written by ethoscribe.io.bundle) ---------------------
+    def to_state(self) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
+        """JSON-able description and arrays that rebuild this fitted model exactly."""
+        check_fitted(self, "segmenter_")
+        f_meta, f_arrays = self.features_.to_state()
+        s_meta, s_arrays = self.segmenter_.to_state()
+        meta = {
+            "kind": "ethoscribe.BehaviourModel",
+            "format_version": FORMAT_VERSION,
+            "ethoscribe_version": __version__,
+            "params": self.get_params(),
+            "cleaning": self.cleaning_.to_dict(),
+            "features": f_meta,
+            "segmenter_kind": type(self.segmenter_).__name__,
+            "segmenter": s_meta,
+            "n_states": self.n_states_,
+            "fps": self.fps_,
+            "keypoints": list(self.keypoints_),
+            "n_dims": self.n_dims_,
+            "training_sessions": self.training_sessions_,
+            "n_training_frames": self.n_training_frames_,
+            "selection": None if self.selection_ is None else _selection_to_json(self.selection_),
+        }
+        arrays = {f"features/{k}": v for k, v in f_arrays.items()}
+        arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
+        return meta, arrays
+
+    @classmethod
+    def from_state(cls, meta: dict[str, Any], arrays: dict[str, np.ndarray]) -> BehaviourModel:
+        """Rebuild a fitted model saved by :meth:`to_state`."""
+        if meta.get("kind") != "ethoscribe.BehaviourModel":
+            raise InputError(f"not an ethoscribe behaviour model (kind={meta.get('kind')!r})")
+        if meta.get("format_version") != FORMAT_VERSION:
+            raise InputError(
+                f"this model was saved in format version {meta.get('format_version')!r} by "
+                f"ethoscribe {meta.get('ethoscribe_version')}; this ethoscribe ({__version__}) reads "
+                f"version {FORMAT_VERSION}. Refit the model or install the matching ethoscribe."
+            )
+        params = dict(meta["params"])
+        params["state_range"] = tuple(params["state_range"])
+        model = cls(**params)
+        seg_cls = {"GaussianHMM": GaussianHMM, "ChangePointSegmenter": ChangePointSegmenter}
+        kind = meta["segmenter_kind"]
+        if kind not in seg_cls:
+            raise InputError(f"unknown segmenter kind {kind!r} in the model file")
+        pick = (
+            lambda prefix: {
+                k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)
+            }
+        )
+        model.cleaning_ = CleanParams.from_dict(meta["cleaning"])
+        model.features_ = FeaturePipeline.from_state(meta["features"], pick("features/"))
+        model.segmenter_ = seg_cls[kind].from_state(meta["segmenter"], pick("segmenter/"))
+        model.selection_ = meta["selection"] and _FixedSelection.from_json(meta["selection"])
+        model.n_states_ = int(meta["n_states"])
+        model.fps_ = float(meta["fps"])
+        model.keypoints_ = tuple(meta["keypoints"])
+        model.n_dims_ = int(meta["n_dims"])
+        model.quality_ = []
+        model.training_sessions_ = list(meta["training_sessions"])
+        model.n_training_frames_ = int(meta["n_training_frames"])
+        return model
+
+
+class _FixedSelection:
+    """A state-count choice without a curve (change points, or a reloaded model)."""
+
+    def __init__(self, best: int, table: pd.DataFrame | None = None, criterion: str = "bic"):
+        self.best = int(best)
+        self.table = table if table is not None else pd.DataFrame()
+        self.criterion = criterion
+
+    @classmethod
+    def from_json(cls, d: dict[str, Any]) -> _FixedSelection:
+        return cls(d["best"], pd.DataFrame(d["table"]), d.get("criterion", ""))
+
+
+def _selection_to_json(selection: Any) -> dict[str, Any]:
+    table = getattr(selection, "table", pd.DataFrame())
+    return {
+        "best": int(selection.best),
+        "criterion": str(getattr(selection, "criterion", "")),
+        "table": table.astype(object).where(table.notna(), None).to_dict(orient="list"),
+    }

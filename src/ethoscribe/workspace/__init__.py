@@ -1,0 +1,18 @@
+"""A project folder on disk, and the batch runs that create and use one.
+
+See :mod:`ethoscribe.workspace.folder` for the layout. This package is the only place that knows it.
+"""
+
+from ethoscribe.workspace.compare import compare, write_ethogram_report
+from ethoscribe.workspace.folder import Workspace, read_journal
+from ethoscribe.workspace.reading import read_sessions
+from ethoscribe.workspace.runs import discover, label_sessions
+
+__all__ = [
+    "Workspace",
+    "compare",
+    "discover",
+    "read_journal",
+    "read_sessions",
+    "write_ethogram_report",
+]

@@ -1,0 +1,348 @@
+"""Group statistics and the HTML reports of a workspace.
+
+:func:`compare` takes a workspace's curated labels (motif names replayed from its journal), joins
+each session to a group (from a manifest, or the manifest columns recorded at discovery), tests
+every metric x motif between the groups and writes the tables, ``metadata.json`` and
+``report.html`` into a folder of its own. Every input is checked before anything is written, and
+the files are moved into place together with ``metadata.json`` last.
+
+:func:`write_ethogram_report` writes the report without group statistics.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ethoscribe.errors import InputError
+from ethoscribe.ethogram import bout_table, time_budget, transition_table
+from ethoscribe.io import read_manifest
+from ethoscribe.io._atomic import atomic_write_json, atomic_write_text, write_table
+from ethoscribe.report import Section, render_report
+from ethoscribe.stats import EXACT_THRESHOLD, compare_groups, session_metrics
+from ethoscribe.workspace.folder import CAUTION, Staging, Workspace, jsonable, now, versions
+from ethoscribe.workspace.report_sections import (
+    ethogram_sections,
+    group_section,
+    model_section,
+    quality_section,
+)
+
+ALPHA = 0.05
+N_BOOTSTRAP = 2000
+TESTS = ("permutation", "rank")
+METADATA_FILE = "metadata.json"
+
+
+def compare(
+    workspace_dir: str | Path,
+    out: str | Path,
+    manifest: str | Path | None = None,
+    by: str = "group",
+    test: str = "permutation",
+    paired: bool = False,
+    seed: int = 0,
+    n_resamples: int = 10_000,
+) -> str:
+    """Compare groups of sessions of a workspace; write tables and a report into ``out``.
+
+    Parameters
+    ----------
+    workspace_dir : str or Path
+        A folder written by ``discover`` (its curated motif names are used).
+    out : str or Path
+        Output folder (created; not the workspace itself).
+    manifest : str or Path, optional
+        CSV with a ``session`` column (the pose file names without suffix) and the column
+        ``by``; default: the manifest columns the workspace recorded at discovery.
+    by : str
+        Grouping column (with ``paired``, the condition; subjects come from ``subject``).
+    test : {"permutation", "rank"}
+        See :func:`ethoscribe.stats.compare_groups`.
+    paired, seed, n_resamples
+        Paired design; random seed of permutations and bootstraps; Monte Carlo resamples when
+        an exact permutation test would need more than 50 000 arrangements.
+
+    Returns
+    -------
+    str
+        A one-paragraph summary ending with the caution sentence.
+
+    Writes ``group_stats.csv/.parquet``, ``session_metrics.csv``, ``bouts``, ``time_budget`` and
+    ``transitions`` (``.csv/.parquet``, per session, with the group), ``metadata.json`` and
+    ``report.html``.
+
+    Examples
+    --------
+    >>> print(compare("study_ws", "study_ws/groups"))  # doctest: +SKIP
+    Compared 16 sessions in 2 groups of 'group' (enriched: 8, standard: 8) ...
+    """
+    _check_options(by, test, n_resamples, seed)
+    ws = Workspace(workspace_dir)
+    out = _output_folder(out, ws)
+    labels = ws.labels()
+    design = _design(ws, labels, manifest, by, paired)
+    bouts = bout_table(labels)
+    metrics = session_metrics(labels, bouts, design)
+    stats = compare_groups(
+        metrics, by="group", test=test, paired=paired, alpha=ALPHA, n_resamples=n_resamples,
+        n_bootstrap=N_BOOTSTRAP, random_state=seed,
+    )  # fmt: skip
+    groups = dict(zip(design["session"], design["group"], strict=True))
+    budgets = time_budget(labels)
+    tables = {
+        "group_stats": (stats, True),
+        "session_metrics": (_renamed(metrics, by), False),
+        "bouts": (_tagged(bouts, groups, by), True),
+        "time_budget": (_tagged(budgets, groups, by), True),
+        "transitions": (_tagged(transition_table(bouts), groups, by), True),
+    }
+    options = {
+        "by": by, "test": test, "paired": paired, "seed": seed, "n_resamples": n_resamples,
+        "n_bootstrap": N_BOOTSTRAP, "alpha": ALPHA, "exact_threshold": EXACT_THRESHOLD,
+        "manifest": None if manifest is None else str(Path(manifest).resolve()),
+        "multiple_testing": "Benjamini-Hochberg over every row of group_stats",
+    }  # fmt: skip
+    meta = _metadata(ws, options, design, stats)
+    sections = [
+        s for s in (quality_section(ws, labels), model_section(ws)) if s is not None
+    ] + ethogram_sections(labels, bouts, budgets, groups, seed)
+    sections.append(group_section(stats, ALPHA))
+    page = render_report(f"Group comparison by {by!r}: {ws.path.name}", sections, meta)
+    _write_outputs(out, tables, meta, page)
+    return _summary(design, stats, labels, by, test, paired, out)
+
+
+def write_ethogram_report(workspace: Workspace | str | Path, path: str | Path) -> Path:
+    """Write the ethogram report of a workspace (no group statistics) to ``path``.
+
+    Sessions are grouped in the time-budget figure when the workspace's sessions table has a
+    ``group`` for every session.
+
+    Examples
+    --------
+    >>> write_ethogram_report("study_ws", "study_ws/report.html")  # doctest: +SKIP
+    """
+    ws = workspace if isinstance(workspace, Workspace) else Workspace(workspace)
+    labels = ws.labels()
+    bouts = bout_table(labels)
+    sessions = _sessions_table(ws)
+    names = set(labels["session"].astype(str))
+    groups = None
+    if "group" in sessions.columns:
+        lookup = dict(zip(sessions["session"], sessions["group"], strict=True))
+        if all(lookup.get(s, "") for s in names):
+            groups = {s: lookup[s] for s in names}
+    sections = [s for s in (quality_section(ws, labels), model_section(ws)) if s is not None]
+    sections += ethogram_sections(labels, bouts, time_budget(labels), groups, 0)
+    sections.append(Section("Group statistics", "Run 'ethoscribe compare' for group tests."))
+    params = {
+        "created": now(),
+        "versions": versions(),
+        "workspace": str(ws.path.resolve()),
+        "workspace_parameters": ws.summary.get("parameters"),
+        "seeds": {"discovery": ws.summary.get("seed")},
+        "journal": _journal_summary(ws),
+    }
+    page = render_report(f"Ethogram: {ws.path.name}", sections, jsonable(params))
+    return atomic_write_text(path, page)
+
+
+# --- checks -------------------------------------------------------------------------------
+def _check_options(by: Any, test: Any, n_resamples: Any, seed: Any) -> None:
+    if not isinstance(by, str) or not by.strip():
+        raise InputError(f"by must name a grouping column (e.g. 'group'); got {by!r}")
+    if test not in TESTS:
+        raise InputError(f"test must be one of {list(TESTS)}; got {test!r}")
+    if isinstance(n_resamples, bool) or not isinstance(n_resamples, (int, np.integer)):
+        raise InputError(f"n_resamples must be a whole number >= 100; got {n_resamples!r}")
+    if n_resamples < 100:
+        raise InputError(f"n_resamples must be a whole number >= 100; got {n_resamples!r}")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise InputError(f"seed must be a whole number >= 0; got {seed!r}")
+
+
+def _output_folder(out: str | Path, ws: Workspace) -> Path:
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise InputError(f"--out {out} is a file; give a folder for the comparison outputs")
+    if out.exists() and out.resolve() == ws.path.resolve():
+        msg = f"--out {out} is the workspace itself; write the comparison to a folder of its own"
+        raise InputError(f"{msg}, e.g. {ws.path / 'comparison'}")
+    return out
+
+
+def _text(column: pd.Series) -> pd.Series:
+    """Cells as text ("" when empty); whole numbers without a trailing ".0"."""
+
+    def cell(v: Any) -> str:
+        if v is None or (isinstance(v, float) and np.isnan(v)):
+            return ""
+        if isinstance(v, (float, np.floating)) and float(v).is_integer():
+            return str(int(v))
+        return str(v).strip()
+
+    return column.map(cell).astype(object)
+
+
+def _sessions_table(ws: Workspace) -> pd.DataFrame:
+    # Read as text: session names such as "007" must not turn into numbers.
+    return pd.read_csv(ws.path / "sessions.csv", dtype=str, keep_default_na=False)
+
+
+def _listed(names: list[str], limit: int = 10) -> str:
+    more = f" and {len(names) - limit} more" if len(names) > limit else ""
+    return ", ".join(repr(n) for n in names[:limit]) + more
+
+
+def _design(
+    ws: Workspace, labels: pd.DataFrame, manifest: str | Path | None, by: str, paired: bool
+) -> pd.DataFrame:
+    """``session, group, subject`` for every session of the workspace, checked."""
+    if manifest is not None:
+        table, source = read_manifest(manifest, require_paths=False), f"manifest {manifest}"
+        fix = f"Add a {by!r} column to it, or name another of its columns with by= (--by)"
+    else:
+        table, source = _sessions_table(ws), f"{ws.path / 'sessions.csv'}"
+        fix = (
+            f"Give a manifest (manifest=, --manifest) with columns 'session' and {by!r}, or "
+            "name one of these columns with by= (--by)"
+        )
+    if by not in table.columns:
+        found = [c for c in table.columns if c != "path"]
+        raise InputError(f"{source} has no grouping column {by!r}; columns found: {found}. {fix}")
+    if paired and "subject" not in table.columns:
+        msg = f"{source} has no 'subject' column; a paired comparison matches sessions by subject"
+        raise InputError(f"{msg}. Add one (the animal measured under each {by!r})")
+    design = pd.DataFrame({"session": _text(table["session"]), "group": _text(table[by])})
+    design["subject"] = _text(table["subject"]) if "subject" in table else design["session"]
+    _check_coverage(design, labels, source, ws)
+    empty = design.loc[design["group"] == "", "session"].tolist()
+    if empty:
+        raise InputError(f"{source}: sessions {_listed(empty)} have an empty {by!r}; fill it in")
+    unit = "subject" if paired else "session"
+    sizes = design.groupby("group")[unit].nunique()
+    if len(sizes) < 2:
+        msg = f"{source}: column {by!r} holds {len(sizes)} group ({_listed(list(sizes.index))})"
+        raise InputError(f"{msg}; a comparison needs at least two groups")
+    single = sizes[sizes < 2].index.tolist()
+    if single:
+        alone = [f"{g!r} ({design.loc[design['group'] == g, unit].iloc[0]})" for g in single]
+        msg = f"{source}: group(s) {', '.join(alone)} of {by!r} have a single {unit}; "
+        raise InputError(msg + f"each group needs at least two {unit}s to be compared")
+    return design
+
+
+def _check_coverage(design: pd.DataFrame, labels: pd.DataFrame, source: str, ws: Workspace) -> None:
+    have = set(labels["session"].astype(str))
+    listed = set(design["session"])
+    missing, extra = sorted(have - listed), sorted(listed - have)
+    problems = []
+    if missing:
+        problems.append(f"sessions of the workspace missing from it: {_listed(missing)}")
+    if extra:
+        problems.append(f"sessions in it that the workspace {ws.path} lacks: {_listed(extra)}")
+    if problems:
+        msg = f"{source} does not match the workspace: {'; '.join(problems)}. The session column "
+        raise InputError(msg + "must list the pose file names (without suffix) discovery read.")
+
+
+# --- outputs ------------------------------------------------------------------------------
+def _tagged(table: pd.DataFrame, groups: dict[str, str], by: str) -> pd.DataFrame:
+    """``table`` with the grouping column ``by`` after ``session`` (``group`` if taken)."""
+    name = by if by not in table.columns else "group"
+    out = table.copy()
+    out.insert(1, name, out["session"].astype(str).map(groups))
+    return out
+
+
+def _renamed(metrics: pd.DataFrame, by: str) -> pd.DataFrame:
+    """The metrics with their ``group`` column named after ``by`` (when that name is free)."""
+    return metrics if by in metrics.columns else metrics.rename(columns={"group": by})
+
+
+def _journal_summary(ws: Workspace) -> dict[str, Any]:
+    records = ws.journal()
+    cur = ws.curation()
+    edits = [r.get("op") for r in records if r.get("op") != "start"]
+    return {
+        "n_edits": len(edits),
+        "edits_by_kind": dict(sorted(Counter(edits).items())),
+        "names": {str(k): v for k, v in cur.names.items()},
+        "motifs": cur.motifs,
+    }
+
+
+def _metadata(ws: Workspace, options: dict, design: pd.DataFrame, stats: pd.DataFrame) -> dict:
+    summary = ws.summary
+    members = design.groupby("group")["session"].apply(sorted).to_dict()
+    return jsonable(
+        {
+            "kind": "ethoscribe.comparison",
+            "created": now(),
+            "versions": versions(),
+            "workspace": str(ws.path.resolve()),
+            "comparison": options,
+            "seeds": {"comparison": options["seed"], "discovery": summary.get("seed")},
+            "groups": members,
+            "workspace_parameters": summary.get("parameters"),
+            "workspace_summary": {
+                k: summary.get(k) for k in ("n_states", "n_sessions", "n_frames", "created")
+            },
+            "journal": _journal_summary(ws),
+            "n_tests": len(stats),
+            "warnings": list(stats.attrs.get("warnings") or []),
+            "caution": CAUTION,
+        }
+    )
+
+
+def _write_outputs(out: Path, tables: dict, meta: dict, page: str) -> None:
+    stage = Staging(out)
+    try:
+        for name, (table, parquet) in tables.items():
+            write_table(table, stage.path(f"{name}.csv"))
+            if parquet:
+                write_table(table, stage.path(f"{name}.parquet"))
+        atomic_write_text(stage.path("report.html"), page)
+        atomic_write_json(stage.path(METADATA_FILE), meta)
+        stage.commit(last=METADATA_FILE)
+    except BaseException:
+        stage.abort()
+        raise
+
+
+def _summary(
+    design: pd.DataFrame,
+    stats: pd.DataFrame,
+    labels: pd.DataFrame,
+    by: str,
+    test: str,
+    paired: bool,
+    out: Path,
+) -> str:
+    """The paragraph ``compare`` returns: groups, tests, the smallest q, notes, the caution."""
+    counts = design.groupby("group")["session"].nunique()
+    sizes = ", ".join(f"{g}: {n}" for g, n in counts.items())
+    motifs = sorted(set(labels["motif"].astype(str)) - {""})
+    kind = f"{'paired ' if paired else ''}{test} tests"
+    n_sig = int(stats["significant"].sum())
+    text = (
+        f"Compared {len(design)} sessions in {len(counts)} groups of {by!r} ({sizes}) over "
+        f"{len(motifs)} motifs: {len(stats)} {kind}, {n_sig} with q < {ALPHA} "
+        "(Benjamini-Hochberg)"
+    )
+    best = stats.dropna(subset=["q_value"]).sort_values("q_value", kind="stable").head(1)
+    if len(best):
+        r = best.iloc[0]
+        text += (
+            f"; smallest q: {r['metric']} of {r['motif']!r} ({r['group_a']} vs {r['group_b']}: "
+            f"Hedges' g = {r['effect_size']:.2f}, q = {r['q_value']:.2g})"
+        )
+    warnings = stats.attrs.get("warnings") or []
+    text += ". " + (" ".join(w.rstrip(".") + "." for w in warnings) + " " if warnings else "")
+    return f"{text}Tables, metadata.json and report.html are in {out}. {CAUTION}"

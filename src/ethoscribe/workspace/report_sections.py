@@ -1,0 +1,177 @@
+"""The parts of a workspace's HTML reports: data quality, the model's choices, the ethogram, and
+the group differences.
+
+Figures come from :mod:`ethoscribe.plots`; this module picks what goes on the page and thins the
+largest figures (raster, bout durations) so that a report of a big study stays a few megabytes.
+The tables written beside the report always keep every row.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from types import SimpleNamespace
+
+import numpy as np
+import pandas as pd
+
+from ethoscribe.ethogram import duration_summary, time_budget, transition_matrix
+from ethoscribe.plots.ethogram import (
+    duration_figure,
+    ethogram_raster,
+    time_budget_figure,
+    transition_diagram,
+    transition_heatmap,
+)
+from ethoscribe.plots.model import stability_figure, state_count_figure
+from ethoscribe.plots.quality import BARS, quality_figure
+from ethoscribe.plots.stats import group_difference_figure
+from ethoscribe.report import Section
+from ethoscribe.workspace.folder import Workspace
+
+RASTER_BARS = 6000  # bars drawn in the ethogram raster before rows are resampled
+DURATION_POINTS = 2000  # bout durations per motif drawn in the box plot
+TOP_ROWS = 25  # rows of the statistics table shown in the report
+STATS_COLUMNS = (
+    "metric", "motif", "group_a", "group_b", "n_a", "n_b", "mean_a", "mean_b", "effect_size",
+    "ci_low", "ci_high", "p_value", "q_value", "test",
+)  # fmt: skip
+
+
+def quality_section(ws: Workspace, labels: pd.DataFrame) -> Section | None:
+    """Cleaning quality per keypoint and session, from ``quality.csv`` (None if there is none).
+
+    The share of invalid frames per session is taken from the labels (frames without a motif)
+    when ``quality.csv`` does not carry it.
+    """
+    path = ws.path / "quality.csv"
+    if not path.is_file():
+        return None
+    table = pd.read_csv(path, dtype={"session": str, "animal": str, "keypoint": str})
+    if any(c not in table.columns for c in ("session", "animal", "keypoint", *BARS)):
+        text = f"{path.name} has columns {list(table.columns)}; too old to draw, see the file."
+        return Section("Data quality", text)
+    text = "Fractions of frames missing, masked and filled by cleaning (see quality.csv)."
+    if "frac_invalid_frames" not in table.columns:
+        unlabelled = (labels["state"] < 0).groupby([labels["session"], labels["animal"]]).mean()
+        unlabelled = unlabelled.rename("frac_invalid_frames").reset_index()
+        table = table.merge(unlabelled.astype({"session": str, "animal": str}), how="left")
+        text += " Invalid frames: the share of frames left without a motif label."
+    per_session = table.groupby("session")[[*BARS, "frac_invalid_frames"]].mean().reset_index()
+    return Section("Data quality", text, [quality_figure(table)], [("Per session", per_session)])
+
+
+def model_section(ws: Workspace) -> Section:
+    """The number of states, how it was chosen, and how stable the states were across fits."""
+    summary = ws.summary
+    params = summary.get("parameters") or {}
+    chosen = "chosen from the data" if params.get("n_states") == "auto" else "set by the user"
+    text = (
+        f"{summary.get('n_states')} states ({chosen}), method {params.get('method', '?')}, "
+        f"seed {summary.get('seed')}; {summary.get('n_sessions')} sessions, "
+        f"{summary.get('n_frames')} frames ({summary.get('n_training_frames', '?')} used to fit)."
+    )
+    figures, tables = [], []
+    choice = summary.get("state_count_choice")
+    if choice:
+        table = pd.DataFrame(choice["table"])
+        pick = SimpleNamespace(table=table, best=choice["best"], criterion=choice["criterion"])
+        figures.append(state_count_figure(pick))
+        tables.append(("Candidate numbers of states", table))
+    stability = summary.get("stability")
+    if stability:
+        path = ws.path / "stability.csv"
+        if path.is_file():
+            report = SimpleNamespace(table=pd.read_csv(path), summary=stability)
+            figures.append(stability_figure(report))
+        tables.append(("Stability across seeds and split halves", pd.DataFrame([stability])))
+    else:
+        text += " No stability check was run."
+    return Section("The model's choices", text, figures, tables)
+
+
+def ethogram_sections(
+    labels: pd.DataFrame,
+    bouts: pd.DataFrame,
+    budgets: pd.DataFrame,
+    groups: Mapping[str, str] | None = None,
+    seed: int = 0,
+) -> list[Section]:
+    """Raster, time budgets, bout durations and transitions (current motif names).
+
+    ``budgets`` is ``time_budget`` per session and animal; ``groups`` maps session -> group.
+    """
+    n_rows = len(bouts[["session", "animal"]].drop_duplicates())
+    n_bins = int(np.clip(RASTER_BARS // max(n_rows, 1), 100, 2000))
+    raster = ethogram_raster(bouts, max_bars=RASTER_BARS, n_bins=n_bins)
+    sections = [
+        Section(
+            "Ethogram",
+            "One row per session and animal; gaps are frames without a label. Long studies are "
+            "drawn from evenly spaced samples (the title says so); bouts.csv has every bout.",
+            [raster],
+        )
+    ]
+    by = ("group",) if groups else ()
+    pooled = time_budget(labels, by=by, groups=groups)
+    sections.append(
+        Section(
+            "Time budgets",
+            "Share of each session's valid time spent in each motif; one point per session.",
+            [time_budget_figure(budgets, groups)],
+            [("Pooled over sessions" + (" by group" if groups else ""), pooled)],
+        )
+    )
+    shown, note = _thinned(bouts, seed)
+    sections.append(
+        Section(
+            "Bout durations",
+            "Bout durations per motif, including bouts cut by a gap or a recording edge." + note,
+            [duration_figure(shown)],
+            [("Bout durations", duration_summary(bouts, by=by, groups=groups))],
+        )
+    )
+    sections.append(_transition_section(labels, bouts))
+    return sections
+
+
+def _thinned(bouts: pd.DataFrame, seed: int) -> tuple[pd.DataFrame, str]:
+    """At most DURATION_POINTS bouts per motif (a seeded random subset) for the box plot."""
+    counts = bouts.groupby("motif")["motif"].transform("size").to_numpy()
+    if counts.max(initial=0) <= DURATION_POINTS:
+        return bouts, ""
+    keep = np.random.default_rng(seed).random(len(bouts)) < DURATION_POINTS / counts
+    note = f" The box plot draws a random {DURATION_POINTS} bouts per motif; the table all."
+    return bouts[keep], note
+
+
+def _transition_section(labels: pd.DataFrame, bouts: pd.DataFrame) -> Section:
+    title = "Transitions"
+    matrix = transition_matrix(bouts)
+    if not np.isfinite(matrix.to_numpy(np.float64)).any():
+        return Section(title, "No bout is directly followed by another motif's bout.")
+    text = (
+        "Probability that a bout of one motif is directly followed by a bout of another, pooled "
+        "over sessions (bouts separated by invalid frames are not linked)."
+    )
+    figures = [transition_heatmap(matrix), transition_diagram(matrix, time_budget(labels, by=()))]
+    return Section(title, text, figures, [("Transition probabilities", matrix.reset_index())])
+
+
+def group_section(stats: pd.DataFrame, alpha: float) -> Section:
+    """Forest plot of the effect sizes and the tests with the smallest q-values."""
+    n_sig = int(stats["significant"].sum())
+    text = (
+        f"{n_sig} of {len(stats)} comparisons have q < {alpha} (Benjamini-Hochberg over all "
+        "rows). Effects are group a minus group b: Hedges' g with a 95% percentile bootstrap "
+        "interval. A small q is a reason to look at the bouts, not a finding by itself."
+    )
+    warnings = stats.attrs.get("warnings") or []
+    if warnings:
+        text += " Design notes: " + " ".join(warnings)
+    top = stats.sort_values(["q_value", "p_value"], kind="stable").head(TOP_ROWS)
+    return Section(
+        "Group differences",
+        text,
+        [group_difference_figure(stats, max_rows=40)],
+        [(f"Smallest q-values (group_stats.csv has all {len(stats)})", top[list(STATS_COLUMNS)])],
+    )

@@ -1,0 +1,302 @@
+"""Group comparison of a workspace: outputs, curated names, bad inputs, the command line.
+
+The workspace is built by hand from invented labels (no discovery run): two groups of 8 sessions
+("001".."008" control, "009".."016" treated) whose bouts draw motifs with fixed shares of time;
+the treated group is planted to spend 1.5 times as much time in motif_01 (30% vs 20%). Seed 11.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats as sps
+from statsmodels.stats.multitest import multipletests
+
+from ethoscribe.cli import main
+from ethoscribe.curation import Curation
+from ethoscribe.errors import InputError, WorkspaceError
+from ethoscribe.report import CAUTION as REPORT_CAUTION
+from ethoscribe.stats import COMPARISON_COLUMNS
+from ethoscribe.workspace import Workspace, compare, write_ethogram_report
+from ethoscribe.workspace.folder import CAUTION, append_journal
+
+FPS = 10.0
+N_FRAMES = 1500
+SEED = 11
+SHARES = {"control": (0.2, 0.4, 0.4), "treated": (0.3, 0.35, 0.35)}  # motif_01 planted +50%
+GROUP_OF = {f"{i:03d}": ("control" if i <= 8 else "treated") for i in range(1, 17)}
+REQUIRED = (
+    "metric", "motif", "group_a", "group_b", "n_a", "n_b", "mean_a", "mean_b", "effect_size",
+    "ci_low", "ci_high", "p_value", "q_value",
+)  # fmt: skip
+OUTPUTS = (
+    "group_stats.csv", "group_stats.parquet", "session_metrics.csv", "bouts.csv",
+    "bouts.parquet", "time_budget.csv", "time_budget.parquet", "transitions.csv",
+    "transitions.parquet", "metadata.json", "report.html",
+)  # fmt: skip
+
+
+def _session_labels(session: str, rng: np.random.Generator) -> pd.DataFrame:
+    """Bouts of 5-14 frames whose motif is drawn with the group's shares; 20 invalid frames."""
+    lengths = rng.integers(5, 15, size=N_FRAMES // 5)
+    states = rng.choice(3, size=len(lengths), p=SHARES[GROUP_OF[session]])
+    state = np.repeat(states, lengths)[:N_FRAMES]
+    state[700:720] = -1
+    frame = np.arange(N_FRAMES)
+    return pd.DataFrame(
+        {
+            "session": session,
+            "animal": "animal_1",
+            "frame": frame,
+            "time_s": frame / FPS,
+            "state": state,
+            "motif": np.where(state >= 0, [f"motif_{s + 1:02d}" for s in state], ""),
+            "probability": np.where(state >= 0, 0.9, np.nan),
+        }
+    )
+
+
+def make_workspace(folder: Path) -> Path:
+    """Write a minimal workspace folder by hand (invented data, see the module docstring)."""
+    folder.mkdir(parents=True)
+    rng = np.random.default_rng(SEED)
+    labels = pd.concat([_session_labels(s, rng) for s in GROUP_OF], ignore_index=True)
+    labels.to_parquet(folder / "labels.parquet", index=False)
+    sessions = pd.DataFrame(
+        {
+            "session": list(GROUP_OF),
+            "source": [f"/data/{s}.parquet" for s in GROUP_OF],
+            "fps": FPS,
+            "n_frames": N_FRAMES,
+            "duration_s": N_FRAMES / FPS,
+            "n_animals": 1,
+            "units": "mm",
+            "group": list(GROUP_OF.values()),
+            "subject": [f"vole_{i:02d}" for i in range(16)],
+        }
+    )
+    sessions.to_csv(folder / "sessions.csv", index=False)
+    quality = pd.DataFrame(
+        [
+            {"session": s, "animal": "animal_1", "keypoint": k, "frac_missing_raw": 0.01,
+             "frac_low_confidence": 0.02, "frac_jumps": 0.0, "frac_filled": 0.02,
+             "frac_missing_after": 0.013}
+            for s in GROUP_OF
+            for k in ("nose", "tail_base")
+        ]
+    )  # fmt: skip
+    quality.to_csv(folder / "quality.csv", index=False)
+    summary = {
+        "n_states": 3, "n_sessions": 16, "n_frames": 16 * N_FRAMES, "seed": 0,
+        "parameters": {"n_states": 3, "method": "hmm", "random_state": 0}, "stability": None,
+    }  # fmt: skip
+    (folder / "summary.json").write_text(json.dumps(summary))
+    marker = {"kind": "ethoscribe.workspace", "format_version": 1, "created": "2026-01-01"}
+    (folder / "workspace.json").write_text(json.dumps(marker))
+    return folder
+
+
+def rename_motif(folder: Path, motif: str, name: str) -> None:
+    """Journal a rename the way the workbench does."""
+    record = Curation(Workspace(folder).default_names()).rename(motif, name)
+    append_journal(folder / "journal.jsonl", record)
+
+
+def write_manifest(path: Path, groups: dict[str, str], column: str = "group") -> Path:
+    pd.DataFrame({"session": list(groups), column: list(groups.values())}).to_csv(path, index=False)
+    return path
+
+
+@pytest.fixture(scope="module")
+def compared(tmp_path_factory):
+    """One comparison of the curated workspace (motif_01 renamed 'digging'), shared by tests."""
+    folder = make_workspace(tmp_path_factory.mktemp("study") / "ws")
+    rename_motif(folder, "motif_01", "digging")
+    out = folder.parent / "comparison"
+    summary = compare(folder, out, seed=3)
+    return folder, out, summary
+
+
+def test_compare_writes_every_output(compared):
+    _, out, summary = compared
+    assert sorted(p.name for p in out.iterdir()) == sorted(OUTPUTS)
+    stats = pd.read_csv(out / "group_stats.csv")
+    assert set(REQUIRED) <= set(stats.columns)
+    assert list(stats.columns[: len(COMPARISON_COLUMNS)]) == list(COMPARISON_COLUMNS)
+    assert len(pd.read_parquet(out / "group_stats.parquet")) == len(stats)
+    assert summary.endswith(CAUTION)
+    assert "16 sessions in 2 groups" in summary and str(out) in summary
+
+
+def test_planted_time_budget_difference_is_found(compared):
+    _, out, _ = compared
+    stats = pd.read_csv(out / "group_stats.csv")
+    row = stats[(stats["metric"] == "time_budget") & (stats["motif"] == "digging")].iloc[0]
+    assert row["q_value"] < 0.05  # recovery of the planted +50% (invented data)
+    assert (row["group_a"], row["group_b"]) == ("control", "treated")
+    assert row["mean_b"] / row["mean_a"] == pytest.approx(1.5, abs=0.2)
+
+
+def test_p_and_q_values_match_reference_libraries(compared):
+    _, out, _ = compared
+    stats = pd.read_csv(out / "group_stats.csv")
+    metrics = pd.read_csv(out / "session_metrics.csv", dtype={"session": str})
+    budget = metrics[(metrics["metric"] == "time_budget") & (metrics["motif"] == "digging")]
+    a = budget.loc[budget["group"] == "control", "value"].to_numpy()
+    b = budget.loc[budget["group"] == "treated", "value"].to_numpy()
+    ref = sps.permutation_test(
+        (a, b), lambda x, y: x.mean() - y.mean(), n_resamples=np.inf, vectorized=False
+    )
+    row = stats[(stats["metric"] == "time_budget") & (stats["motif"] == "digging")].iloc[0]
+    assert row["p_value"] == pytest.approx(ref.pvalue)  # scipy.stats.permutation_test, exact
+    ok = stats["p_value"].notna()
+    bh = multipletests(stats.loc[ok, "p_value"], method="fdr_bh")[1]
+    np.testing.assert_allclose(stats.loc[ok, "q_value"], bh)  # statsmodels multipletests
+
+
+def test_curated_names_reach_every_table(compared):
+    _, out, _ = compared
+    for name in ("group_stats.csv", "bouts.csv", "time_budget.csv", "session_metrics.csv"):
+        motifs = set(pd.read_csv(out / name)["motif"])
+        assert "digging" in motifs and "motif_01" not in motifs, name
+    bouts = pd.read_parquet(out / "bouts.parquet")
+    assert set(bouts["group"]) == {"control", "treated"}
+    assert set(pd.read_csv(out / "transitions.csv")["from_motif"]) >= {"digging"}
+
+
+def test_metadata_records_versions_parameters_and_journal(compared):
+    _, out, _ = compared
+    meta = json.loads((out / "metadata.json").read_text())
+    assert {"ethoscribe", "numpy", "scipy"} <= set(meta["versions"])
+    assert meta["comparison"]["by"] == "group" and meta["comparison"]["seed"] == 3
+    assert meta["seeds"] == {"comparison": 3, "discovery": 0}
+    assert meta["workspace_parameters"]["method"] == "hmm"
+    assert meta["journal"]["n_edits"] == 1
+    assert meta["journal"]["names"] == {"0": "digging", "1": "motif_02", "2": "motif_03"}
+    assert meta["groups"]["control"] == [f"{i:03d}" for i in range(1, 9)]
+
+
+def test_report_opens_offline_with_figures_and_caution(compared):
+    _, out, _ = compared
+    page = (out / "report.html").read_text()
+    assert html.escape(REPORT_CAUTION) in page
+    assert "plotly-graph-div" in page and "Traceback" not in page
+    assert "<script src=" not in page  # plotly.js is embedded, nothing is fetched
+    for title in ("Data quality", "The model&#x27;s choices", "Ethogram", "Time budgets"):
+        assert title in page
+    assert "Bout durations" in page and "Transitions" in page and "Group differences" in page
+    assert (out / "report.html").stat().st_size < 12e6
+
+
+def test_groups_from_a_manifest_with_another_column(tmp_path):
+    folder = make_workspace(tmp_path / "ws")
+    manifest = write_manifest(tmp_path / "m.csv", GROUP_OF, column="housing")
+    summary = compare(folder, tmp_path / "out", manifest=manifest, by="housing", test="rank")
+    stats = pd.read_csv(tmp_path / "out" / "group_stats.csv")
+    assert set(stats["test"]) <= {"mann-whitney u"}
+    assert "housing" in pd.read_csv(tmp_path / "out" / "bouts.csv").columns
+    assert "groups of 'housing'" in summary
+
+
+def test_paired_design_matches_subjects(tmp_path):
+    folder = make_workspace(tmp_path / "ws")
+    table = pd.DataFrame({"session": list(GROUP_OF), "condition": list(GROUP_OF.values())})
+    table["subject"] = [f"vole_{i % 8}" for i in range(16)]  # each vole in both conditions
+    table.to_csv(tmp_path / "paired.csv", index=False)
+    compare(folder, tmp_path / "out", manifest=tmp_path / "paired.csv", by="condition", paired=True)
+    stats = pd.read_csv(tmp_path / "out" / "group_stats.csv")
+    assert stats["test"].str.startswith("paired permutation").all()
+    assert (stats["n_a"] == 8).all()
+
+
+def _bad_manifest(tmp_path: Path, case: str) -> tuple[dict, str]:
+    groups = dict(GROUP_OF)
+    if case == "no group column":
+        return {"manifest": write_manifest(tmp_path / "m.csv", groups, "housing")}, "columns found"
+    if case == "group of one":
+        groups["001"] = "alone"
+        return {"manifest": write_manifest(tmp_path / "m.csv", groups)}, "single session"
+    if case == "session missing from manifest":
+        del groups["005"]
+        return {"manifest": write_manifest(tmp_path / "m.csv", groups)}, "missing from it: '005'"
+    if case == "session missing from workspace":
+        groups["099"] = "control"
+        return {"manifest": write_manifest(tmp_path / "m.csv", groups)}, "lacks: '099'"
+    if case == "one group":
+        groups = dict.fromkeys(groups, "control")
+        return {"manifest": write_manifest(tmp_path / "m.csv", groups)}, "at least two groups"
+    if case == "unknown by":
+        return {"by": "genotype"}, "no grouping column 'genotype'"
+    if case == "paired without subject":
+        m = write_manifest(tmp_path / "m.csv", groups)
+        return {"manifest": m, "paired": True}, "no 'subject' column"
+    if case == "bad test":
+        return {"test": "t-test"}, "test must be one of"
+    raise AssertionError(case)
+
+
+@pytest.mark.parametrize(
+    "case",
+    [
+        "no group column", "group of one", "session missing from manifest",
+        "session missing from workspace", "one group", "unknown by", "paired without subject",
+        "bad test",
+    ],
+)  # fmt: skip
+def test_bad_inputs_raise_clearly_and_write_nothing(tmp_path, case):
+    folder = make_workspace(tmp_path / "ws")
+    kwargs, message = _bad_manifest(tmp_path, case)
+    out = tmp_path / "out"
+    with pytest.raises(InputError, match=message):
+        compare(folder, out, **kwargs)
+    assert not out.exists()
+
+
+def test_existing_output_folder_is_left_alone_on_bad_input(tmp_path):
+    folder = make_workspace(tmp_path / "ws")
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "notes.txt").write_text("mine")
+    with pytest.raises(InputError, match="genotype"):
+        compare(folder, out, by="genotype")
+    assert [p.name for p in out.iterdir()] == ["notes.txt"]
+    with pytest.raises(InputError, match="folder of its own"):
+        compare(folder, folder)
+    with pytest.raises(WorkspaceError, match="not an ethoscribe workspace"):
+        compare(tmp_path / "elsewhere", out)
+
+
+def test_ethogram_report_without_groups(tmp_path):
+    folder = make_workspace(tmp_path / "ws")
+    rename_motif(folder, "motif_02", "grooming")
+    path = write_ethogram_report(Workspace(folder), folder / "report.html")
+    page = path.read_text()
+    assert "grooming" in page and "plotly-graph-div" in page
+    assert html.escape(REPORT_CAUTION) in page and "Traceback" not in page
+    assert "Group differences" not in page
+
+
+def test_command_line_compare(tmp_path, capsys):
+    folder = make_workspace(tmp_path / "ws")
+    manifest = write_manifest(tmp_path / "m.csv", GROUP_OF)
+    args = ["compare", str(folder), "--out", str(tmp_path / "out"), "--manifest", str(manifest)]
+    assert main(args) == 0
+    printed = capsys.readouterr().out
+    assert printed.startswith("Compared 16 sessions") and CAUTION in printed
+    assert (tmp_path / "out" / "report.html").is_file()
+
+
+def test_command_line_reports_a_missing_group_column(tmp_path, capsys):
+    folder = make_workspace(tmp_path / "ws")
+    manifest = write_manifest(tmp_path / "m.csv", GROUP_OF, column="housing")
+    args = ["compare", str(folder), "--out", str(tmp_path / "out"), "--manifest", str(manifest)]
+    assert main(args) == 2
+    err = capsys.readouterr().err
+    assert "ethoscribe compare: error:" in err and "no grouping column 'group'" in err
+    assert "housing" in err and "Traceback" not in err
+    assert not (tmp_path / "out").exists()

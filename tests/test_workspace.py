@@ -1,0 +1,194 @@
+"""The discover run and the workspace folder: output contract, determinism, edits, locks, bad input.
+
+Data: the bundled simulated example sessions (invented animals), trimmed to keep tests fast.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from ethoscribe.errors import InputError, WorkspaceError
+from ethoscribe.io import read_tidy, write_tidy
+from ethoscribe.workspace import Workspace, discover, read_journal
+from ethoscribe.workspace.runs import label_sessions
+
+EXAMPLES = Path(__file__).resolve().parents[1] / "example_sessions"
+LABEL_COLUMNS = ["session", "animal", "frame", "time_s", "state", "motif", "probability"]
+BOUT_COLUMNS = ["session", "animal", "motif", "start_frame", "stop_frame", "start_s", "duration_s"]
+
+
+@pytest.fixture(scope="module")
+def study(tmp_path_factory) -> Path:
+    """Three trimmed example sessions (90 s each) and a manifest, in a folder of their own."""
+    folder = tmp_path_factory.mktemp("study")
+    manifest = pd.read_csv(EXAMPLES / "manifest.csv")
+    rows = manifest[manifest["session"].isin(["session_01", "session_02", "session_09"])]
+    for name in rows["session"]:
+        tracks = read_tidy(EXAMPLES / f"{name}.parquet", fps=30.0)
+        write_tidy(tracks.replace(coords=tracks.coords[:2700], confidence=tracks.confidence[:2700]),
+                   folder / f"{name}.parquet")
+    rows.to_csv(folder / "manifest.csv", index=False)
+    return folder
+
+
+@pytest.fixture(scope="module")
+def workspace(study, tmp_path_factory) -> Workspace:
+    out = tmp_path_factory.mktemp("ws") / "run"
+    return discover([study], out, manifest=study / "manifest.csv", states=4, stability=False,
+                    progress=False)
+
+
+def test_discover_writes_the_documented_files(workspace):
+    p = workspace.path
+    for name in ["labels.csv", "bouts.csv", "transitions.csv", "time_budget.csv", "quality.csv",
+                 "sessions.csv", "summary.json", "workspace.json", "model/model.json",
+                 "model/arrays.npz"]:
+        assert (p / name).is_file(), name
+    labels = pd.read_csv(p / "labels.csv", keep_default_na=False, na_values=[""])
+    assert list(labels.columns) == LABEL_COLUMNS
+    assert set(labels["session"]) == {"session_01", "session_02", "session_09"}
+    assert (labels.groupby("session").size() == 2700).all()
+    invalid = labels["state"] == -1
+    assert labels.loc[invalid, "probability"].isna().all()
+    assert labels.loc[~invalid, "motif"].str.match(r"motif_\d\d$").all()
+    assert labels.loc[~invalid, "probability"].between(0, 1).all()
+    bouts = pd.read_csv(p / "bouts.csv")
+    assert list(bouts.columns[: len(BOUT_COLUMNS) + 1]) != []  # the contract's columns, in order
+    assert [c for c in bouts.columns if c in BOUT_COLUMNS] == BOUT_COLUMNS
+    transitions = pd.read_csv(p / "transitions.csv")
+    assert {"from_motif", "to_motif", "count", "probability"} <= set(transitions.columns)
+    summary = json.loads((p / "summary.json").read_text())
+    assert summary["seed"] == 0 and summary["n_states"] == 4
+    assert {"ethoscribe", "numpy", "hmmlearn", "ruptures"} <= set(summary["versions"])
+    assert "animal-welfare" in summary["caution"]
+    assert not list(p.glob(".incoming-*")), "staging folder left behind"
+
+
+def test_bout_table_reproduces_the_frame_labels(workspace):
+    # Reference: plain run-length encoding with itertools.groupby over each session's states.
+    from itertools import groupby
+
+    labels = workspace.state_labels()
+    bouts = pd.read_csv(workspace.path / "bouts.csv")
+    for session, part in labels.groupby("session"):
+        runs = [(k, len(list(g))) for k, g in groupby(part["motif"].tolist())]
+        runs = [r for r in runs if r[0] != ""]
+        got = bouts[bouts["session"] == session]
+        assert [r[0] for r in runs] == got["motif"].tolist()
+        assert [r[1] for r in runs] == (got["stop_frame"] - got["start_frame"]).tolist()
+
+
+def test_same_seed_gives_identical_files(study, workspace, tmp_path):
+    again = discover([study], tmp_path / "again", manifest=study / "manifest.csv", states=4,
+                     stability=False, progress=False)
+    for name in ["labels.csv", "bouts.csv", "transitions.csv"]:
+        assert (again.path / name).read_bytes() == (workspace.path / name).read_bytes(), name
+
+
+def test_saved_model_labels_sessions_as_at_discovery(study, workspace):
+    model = workspace.model()
+    tracks = read_tidy(study / "session_09.parquet", session="session_09", fps=30.0)
+    from ethoscribe.workspace import read_sessions
+
+    sessions, _ = read_sessions([study / "session_09.parquet"], study / "manifest.csv",
+                                progress=False)
+    labels = model.label(sessions)
+    saved = workspace.state_labels()
+    saved = saved[saved["session"] == "session_09"].reset_index(drop=True)
+    assert tracks.n_frames == len(labels)
+    np.testing.assert_array_equal(labels["state"].to_numpy(), saved["state"].to_numpy())
+
+
+def test_edits_are_journaled_and_replayed(study, workspace, tmp_path):
+    import shutil
+
+    ws = Workspace(shutil.copytree(workspace.path, tmp_path / "ws"))
+    ws.rename_motif("motif_01", "resting")
+    ws.merge_motifs(["motif_02", "motif_03"], into="moving")
+    assert set(pd.read_csv(ws.path / "bouts.csv")["motif"]) <= {"resting", "moving", "motif_04"}
+    reopened = Workspace(ws.path)
+    assert set(reopened.labels()["motif"]) - {""} == {"resting", "moving", "motif_04"}
+    reopened.undo()
+    assert "motif_02" in set(Workspace(ws.path).labels()["motif"])
+    records, problems = read_journal(ws.path / "journal.jsonl")
+    assert [r["op"] for r in records] == ["rename", "merge", "undo"] and not problems
+    with pytest.raises(InputError, match="itself|same|twice|distinct|at least"):
+        ws.merge_motifs(["resting", "resting"], into="resting")
+    with pytest.raises(InputError):
+        ws.rename_motif("resting", "")
+
+    # A line cut short by a crash: every complete edit survives, the bad line is reported.
+    with open(ws.path / "journal.jsonl", "a") as fh:
+        fh.write('{"op": "rename", "motif": "moving", "na')
+    records, problems = read_journal(ws.path / "journal.jsonl")
+    assert len(records) == 3 and len(problems) == 1 and "line 4" in problems[0]
+    assert "resting" in set(Workspace(ws.path).labels()["motif"])
+
+    # A new cohort labelled with this workspace's model gets the curated names.
+    cohort = label_sessions(ws.path, [study / "session_02.parquet"], tmp_path / "cohort",
+                            manifest=study / "manifest.csv", progress=False)
+    assert "resting" in set(pd.read_csv(cohort.path / "bouts.csv")["motif"])
+
+
+def test_second_editor_gets_a_clear_message(workspace, tmp_path):
+    import shutil
+
+    ws = Workspace(shutil.copytree(workspace.path, tmp_path / "ws"))
+    holder = subprocess.Popen(
+        [sys.executable, "-c",
+         "import sys, time; from ethoscribe.workspace import Workspace\n"
+         f"with Workspace({str(ws.path)!r}).lock():\n"
+         "    print('locked', flush=True); time.sleep(30)"],
+        stdout=subprocess.PIPE, text=True,
+    )
+    try:
+        assert holder.stdout.readline().strip() == "locked"
+        with pytest.raises(WorkspaceError, match=r"in use by process \d+"):
+            ws.rename_motif("motif_01", "resting")
+    finally:
+        holder.kill()
+        holder.wait()
+    time.sleep(0.1)
+    ws.rename_motif("motif_01", "resting")  # the lock of a dead process is released
+    assert "resting" in set(ws.labels()["motif"])
+
+
+def test_bad_input_writes_nothing(study, tmp_path):
+    out = tmp_path / "out"
+    with pytest.raises(InputError, match="does not exist|not found|no such"):
+        discover([study / "missing.parquet"], out, progress=False)
+    assert not out.exists() or not any(out.iterdir())
+    bad = tmp_path / "bad"
+    bad.mkdir()
+    pd.DataFrame({"frame": [0, 1], "keypoint": ["nose", "nose"], "x": [1.0, 2.0]}).to_csv(
+        bad / "broken.csv", index=False
+    )
+    with pytest.raises(InputError, match="'y'|y"):
+        discover([bad], out, fps=30, progress=False)
+    assert not out.exists() or not any(out.iterdir())
+
+
+def test_a_session_missing_from_the_manifest_is_named(study, tmp_path):
+    (tmp_path / "extra").mkdir()
+    src = study / "session_01.parquet"
+    (tmp_path / "extra" / "session_77.parquet").write_bytes(src.read_bytes())
+    with pytest.raises(InputError, match="session_77"):
+        discover([tmp_path / "extra"], tmp_path / "out", manifest=study / "manifest.csv",
+                 progress=False)
+
+
+def test_rediscovery_refuses_to_drop_curated_names(study, workspace, tmp_path):
+    import shutil
+
+    ws = Workspace(shutil.copytree(workspace.path, tmp_path / "ws"))
+    ws.rename_motif("motif_01", "resting")
+    with pytest.raises(WorkspaceError, match="curated"):
+        discover([study], ws.path, manifest=study / "manifest.csv", states=4, progress=False)
