@@ -24,17 +24,35 @@ def study(tmp_path_factory) -> Path:
     rows = manifest[manifest["session"].isin(["session_03", "session_11"])]
     for name in rows["session"]:
         t = read_tidy(EXAMPLES / f"{name}.parquet", fps=30.0)
-        write_tidy(t.replace(coords=t.coords[:1800], confidence=t.confidence[:1800]),
-                   folder / f"{name}.parquet")
+        write_tidy(
+            t.replace(coords=t.coords[:1800], confidence=t.confidence[:1800]),
+            folder / f"{name}.parquet",
+        )
     rows.to_csv(folder / "manifest.csv", index=False)
     return folder
 
 
 def test_discover_then_label_a_new_cohort(study, tmp_path, capsys):
     out = tmp_path / "run"
-    code = main(["discover", str(study / "session_03.parquet"), "--manifest",
-                 str(study / "manifest.csv"), "--out", str(out), "--states", "3", "--seed", "5",
-                 "--quiet", "--axis", "tail_base,nose", "--min-confidence", "0.6"])
+    code = main(
+        [
+            "discover",
+            str(study / "session_03.parquet"),
+            "--manifest",
+            str(study / "manifest.csv"),
+            "--out",
+            str(out),
+            "--states",
+            "3",
+            "--seed",
+            "5",
+            "--quiet",
+            "--axis",
+            "tail_base,nose",
+            "--min-confidence",
+            "0.6",
+        ]
+    )
     assert code == 0
     said = capsys.readouterr().out
     assert "3 motifs" in said and "animal-welfare" in said
@@ -44,8 +62,18 @@ def test_discover_then_label_a_new_cohort(study, tmp_path, capsys):
     assert (out / "report.html").is_file()
 
     cohort = tmp_path / "cohort"
-    code = main(["label", str(out), str(study / "session_11.parquet"), "--manifest",
-                 str(study / "manifest.csv"), "--out", str(cohort), "--quiet"])
+    code = main(
+        [
+            "label",
+            str(out),
+            str(study / "session_11.parquet"),
+            "--manifest",
+            str(study / "manifest.csv"),
+            "--out",
+            str(cohort),
+            "--quiet",
+        ]
+    )
     assert code == 0
     labels = pd.read_csv(cohort / "labels.csv", keep_default_na=False)
     assert set(labels["session"]) == {"session_11"}
@@ -54,8 +82,19 @@ def test_discover_then_label_a_new_cohort(study, tmp_path, capsys):
 
 def test_bad_input_exits_2_with_a_message_and_writes_nothing(study, tmp_path, capsys):
     out = tmp_path / "run"
-    code = main(["discover", str(study / "session_03.parquet"), "--out", str(out), "--quiet",
-                 "--origin", "no_such_keypoint", "--fps", "30"])
+    code = main(
+        [
+            "discover",
+            str(study / "session_03.parquet"),
+            "--out",
+            str(out),
+            "--quiet",
+            "--origin",
+            "no_such_keypoint",
+            "--fps",
+            "30",
+        ]
+    )
     assert code == 2
     err = capsys.readouterr().err
     assert err.startswith("ethoscribe discover: error:") and "no_such_keypoint" in err
@@ -71,6 +110,10 @@ def test_options_are_checked_before_any_work(capsys):
 
 
 def test_the_console_script_runs():
-    done = subprocess.run([sys.executable, "-m", "ethoscribe", "--version"], capture_output=True,
-                          text=True, check=False)
+    done = subprocess.run(
+        [sys.executable, "-m", "ethoscribe", "--version"],
+        capture_output=True,
+        text=True,
+        check=False,
+    )
     assert done.returncode == 0 and done.stdout.startswith("ethoscribe ")

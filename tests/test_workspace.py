@@ -33,8 +33,10 @@ def study(tmp_path_factory) -> Path:
     rows = manifest[manifest["session"].isin(["session_01", "session_02", "session_09"])]
     for name in rows["session"]:
         tracks = read_tidy(EXAMPLES / f"{name}.parquet", fps=30.0)
-        write_tidy(tracks.replace(coords=tracks.coords[:2700], confidence=tracks.confidence[:2700]),
-                   folder / f"{name}.parquet")
+        write_tidy(
+            tracks.replace(coords=tracks.coords[:2700], confidence=tracks.confidence[:2700]),
+            folder / f"{name}.parquet",
+        )
     rows.to_csv(folder / "manifest.csv", index=False)
     return folder
 
@@ -42,15 +44,25 @@ def study(tmp_path_factory) -> Path:
 @pytest.fixture(scope="module")
 def workspace(study, tmp_path_factory) -> Workspace:
     out = tmp_path_factory.mktemp("ws") / "run"
-    return discover([study], out, manifest=study / "manifest.csv", states=4, stability=False,
-                    progress=False)
+    return discover(
+        [study], out, manifest=study / "manifest.csv", states=4, stability=False, progress=False
+    )
 
 
 def test_discover_writes_the_documented_files(workspace):
     p = workspace.path
-    for name in ["labels.csv", "bouts.csv", "transitions.csv", "time_budget.csv", "quality.csv",
-                 "sessions.csv", "summary.json", "workspace.json", "model/model.json",
-                 "model/arrays.npz"]:
+    for name in [
+        "labels.csv",
+        "bouts.csv",
+        "transitions.csv",
+        "time_budget.csv",
+        "quality.csv",
+        "sessions.csv",
+        "summary.json",
+        "workspace.json",
+        "model/model.json",
+        "model/arrays.npz",
+    ]:
         assert (p / name).is_file(), name
     labels = pd.read_csv(p / "labels.csv", keep_default_na=False, na_values=[""])
     assert list(labels.columns) == LABEL_COLUMNS
@@ -87,8 +99,14 @@ def test_bout_table_reproduces_the_frame_labels(workspace):
 
 
 def test_same_seed_gives_identical_files(study, workspace, tmp_path):
-    again = discover([study], tmp_path / "again", manifest=study / "manifest.csv", states=4,
-                     stability=False, progress=False)
+    again = discover(
+        [study],
+        tmp_path / "again",
+        manifest=study / "manifest.csv",
+        states=4,
+        stability=False,
+        progress=False,
+    )
     for name in ["labels.csv", "bouts.csv", "transitions.csv"]:
         assert (again.path / name).read_bytes() == (workspace.path / name).read_bytes(), name
 
@@ -98,8 +116,9 @@ def test_saved_model_labels_sessions_as_at_discovery(study, workspace):
     tracks = read_tidy(study / "session_09.parquet", session="session_09", fps=30.0)
     from ethoscribe.workspace import read_sessions
 
-    sessions, _ = read_sessions([study / "session_09.parquet"], study / "manifest.csv",
-                                progress=False)
+    sessions, _ = read_sessions(
+        [study / "session_09.parquet"], study / "manifest.csv", progress=False
+    )
     labels = model.label(sessions)
     saved = workspace.state_labels()
     saved = saved[saved["session"] == "session_09"].reset_index(drop=True)
@@ -120,7 +139,7 @@ def test_edits_are_journaled_and_replayed(study, workspace, tmp_path):
     assert "motif_02" in set(Workspace(ws.path).labels()["motif"])
     records, problems = read_journal(ws.path / "journal.jsonl")
     assert [r["op"] for r in records] == ["rename", "merge", "undo"] and not problems
-    with pytest.raises(InputError, match="itself|same|twice|distinct|at least"):
+    with pytest.raises(InputError, match=r"itself|same|twice|distinct|at least"):
         ws.merge_motifs(["resting", "resting"], into="resting")
     with pytest.raises(InputError):
         ws.rename_motif("resting", "")
@@ -133,8 +152,13 @@ def test_edits_are_journaled_and_replayed(study, workspace, tmp_path):
     assert "resting" in set(Workspace(ws.path).labels()["motif"])
 
     # A new cohort labelled with this workspace's model gets the curated names.
-    cohort = label_sessions(ws.path, [study / "session_02.parquet"], tmp_path / "cohort",
-                            manifest=study / "manifest.csv", progress=False)
+    cohort = label_sessions(
+        ws.path,
+        [study / "session_02.parquet"],
+        tmp_path / "cohort",
+        manifest=study / "manifest.csv",
+        progress=False,
+    )
     assert "resting" in set(pd.read_csv(cohort.path / "bouts.csv")["motif"])
 
 
@@ -143,11 +167,15 @@ def test_second_editor_gets_a_clear_message(workspace, tmp_path):
 
     ws = Workspace(shutil.copytree(workspace.path, tmp_path / "ws"))
     holder = subprocess.Popen(
-        [sys.executable, "-c",
-         "import sys, time; from ethoscribe.workspace import Workspace\n"
-         f"with Workspace({str(ws.path)!r}).lock():\n"
-         "    print('locked', flush=True); time.sleep(30)"],
-        stdout=subprocess.PIPE, text=True,
+        [
+            sys.executable,
+            "-c",
+            "import sys, time; from ethoscribe.workspace import Workspace\n"
+            f"with Workspace({str(ws.path)!r}).lock():\n"
+            "    print('locked', flush=True); time.sleep(30)",
+        ],
+        stdout=subprocess.PIPE,
+        text=True,
     )
     try:
         assert holder.stdout.readline().strip() == "locked"
@@ -163,7 +191,7 @@ def test_second_editor_gets_a_clear_message(workspace, tmp_path):
 
 def test_bad_input_writes_nothing(study, tmp_path):
     out = tmp_path / "out"
-    with pytest.raises(InputError, match="does not exist|not found|no such"):
+    with pytest.raises(InputError, match=r"does not exist|not found|no such"):
         discover([study / "missing.parquet"], out, progress=False)
     assert not out.exists() or not any(out.iterdir())
     bad = tmp_path / "bad"
@@ -171,7 +199,7 @@ def test_bad_input_writes_nothing(study, tmp_path):
     pd.DataFrame({"frame": [0, 1], "keypoint": ["nose", "nose"], "x": [1.0, 2.0]}).to_csv(
         bad / "broken.csv", index=False
     )
-    with pytest.raises(InputError, match="'y'|y"):
+    with pytest.raises(InputError, match=r"'y'"):
         discover([bad], out, fps=30, progress=False)
     assert not out.exists() or not any(out.iterdir())
 
@@ -181,8 +209,9 @@ def test_a_session_missing_from_the_manifest_is_named(study, tmp_path):
     src = study / "session_01.parquet"
     (tmp_path / "extra" / "session_77.parquet").write_bytes(src.read_bytes())
     with pytest.raises(InputError, match="session_77"):
-        discover([tmp_path / "extra"], tmp_path / "out", manifest=study / "manifest.csv",
-                 progress=False)
+        discover(
+            [tmp_path / "extra"], tmp_path / "out", manifest=study / "manifest.csv", progress=False
+        )
 
 
 def test_rediscovery_refuses_to_drop_curated_names(study, workspace, tmp_path):

@@ -1,4 +1,4 @@
-"""Batch commands. Each command parses its options and calls one library function; no science here."""
+"""Batch commands: each parses its options and calls one library function; no science here."""
 
 from __future__ import annotations
 

@@ -123,7 +123,8 @@ class PoseTracks:
             if finite.size and (finite.min() < 0 or finite.max() > 1):
                 raise InputError(
                     f"session '{s}': confidence must lie in [0, 1]; found values from "
-                    f"{finite.min():g} to {finite.max():g}. Rescale it (e.g. divide by the maximum)."
+                    f"{finite.min():g} to {finite.max():g}. Rescale it (e.g. divide by the "
+                    "maximum)."
                 )
             if np.isinf(conf).any():
                 raise InputError(f"session '{s}': confidence contains infinite values")

@@ -18,8 +18,8 @@ from plotly.offline import get_plotlyjs
 CAUTION = (
     "These results support, and do not replace, expert review of the behaviour by people who know "
     "the species, and the local animal-welfare and ethics rules. Discovered motifs are statistical "
-    "regularities in keypoint tracks: look at example bouts before trusting a name, and treat group "
-    "differences with the scrutiny given to any other measurement."
+    "regularities in keypoint tracks: look at example bouts before trusting a name, and treat "
+    "group differences with the scrutiny given to any other measurement."
 )
 
 _STYLE = """

@@ -12,6 +12,7 @@ __all__ = [
     "Workspace",
     "compare",
     "discover",
+    "label_sessions",
     "read_journal",
     "read_sessions",
     "write_ethogram_report",

@@ -18,6 +18,7 @@ from ethoscribe.io.bundle import read_bundle, write_bundle
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
 from ethoscribe.segment.stability import stability_report
+from ethoscribe.workspace.compare import write_ethogram_report
 from ethoscribe.workspace.folder import (
     CAUTION,
     FORMAT_VERSION,
@@ -35,7 +36,6 @@ from ethoscribe.workspace.folder import (
     write_ethogram_tables,
 )
 from ethoscribe.workspace.reading import read_sessions
-from ethoscribe.workspace.compare import write_ethogram_report
 
 
 def discover(
