@@ -74,6 +74,18 @@ def build_parser() -> argparse.ArgumentParser:
         help="Gaussian HMM (default) or change points clustered into motifs",
     )
     d.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    d.add_argument(
+        "--jobs",
+        type=int,
+        default=None,
+        help="worker processes for reading and cleaning (default: every CPU)",
+    )
+    d.add_argument("--scheduler", help="address of a Dask scheduler to run per-session work on")
+    d.add_argument(
+        "--force",
+        action="store_true",
+        help="recompute cleaned sessions even when the workspace cache holds them",
+    )
 
     lab = sub.add_parser("label", help="label new sessions with a saved model (same motif names)")
     lab.add_argument("model", type=Path, help="a workspace folder or its model/ folder")
@@ -119,6 +131,9 @@ def _run(args: argparse.Namespace) -> str:
             method=args.method,
             seed=args.seed,
             progress=progress,
+            jobs=args.jobs,
+            scheduler=args.scheduler,
+            force=args.force,
         )
         return ws.describe()
     if args.command == "label":

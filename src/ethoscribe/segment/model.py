@@ -158,14 +158,28 @@ class BehaviourModel:
         self._check_params()
         sessions = list(sessions)
         check_same_body_plan(sessions)
-        fps = {s.fps for s in sessions}
+        cleaned, quality = self._clean_all(sessions, self._clean_params())
+        return self.fit_cleaned(cleaned, quality)
+
+    def fit_cleaned(
+        self, cleaned: Sequence[PoseTracks], quality: Sequence[QualityReport] = ()
+    ) -> BehaviourModel:
+        """Fit on sessions already cleaned with this model's cleaning parameters.
+
+        Batch runs clean each session in its own worker (and cache the result), then fit here
+        on the cleaned tracks, or on a representative sample of them.
+        """
+        self._check_params()
+        cleaned = list(cleaned)
+        check_same_body_plan(cleaned)
+        fps = {s.fps for s in cleaned}
         if len(fps) > 1:
             raise InputError(
                 f"sessions have different frame rates {sorted(fps)}; resample them to one rate "
                 "with cleaning={'target_fps': ...}"
             )
         params = self._clean_params()
-        cleaned, quality = self._clean_all(sessions, params)
+        sessions = cleaned
         pipeline = FeaturePipeline(**(self.features or {}))
         feats = pipeline.fit_transform(cleaned)
         X, lengths = stack_valid(feats)
@@ -193,7 +207,7 @@ class BehaviourModel:
         self.fps_ = fps_value
         self.keypoints_ = tuple(sessions[0].keypoints)
         self.n_dims_ = sessions[0].n_dims
-        self.quality_ = quality
+        self.quality_ = list(quality)
         self.training_sessions_ = [s.session for s in sessions]
         self.n_training_frames_ = int(lengths.sum())
         return self
@@ -218,7 +232,14 @@ class BehaviourModel:
         for s in sessions:
             self._check_body_plan(s)
         cleaned, quality = self._clean_all(sessions, self.cleaning_)
-        return [f for s in cleaned for f in self.features_.transform(s)], quality
+        return self.featurise_cleaned(cleaned), quality
+
+    def featurise_cleaned(self, cleaned: Sequence[PoseTracks]) -> list[FeatureSet]:
+        """Features of sessions already cleaned with :attr:`cleaning_` (one set per animal)."""
+        check_fitted(self, "segmenter_")
+        for s in cleaned:
+            self._check_body_plan(s)
+        return [f for s in cleaned for f in self.features_.transform(s)]
 
     def _check_body_plan(self, s: PoseTracks) -> None:
         if tuple(s.keypoints) != self.keypoints_ or s.n_dims != self.n_dims_:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import shutil
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -10,15 +11,19 @@ from typing import Any
 import pandas as pd
 
 from ethoscribe import __version__
+from ethoscribe.clean import CleanParams
 from ethoscribe.curation import Curation
-from ethoscribe.errors import WorkspaceError
+from ethoscribe.errors import EthoscribeError, WorkspaceError
 from ethoscribe.features import FeatureSet
 from ethoscribe.io._atomic import atomic_write_json, write_table
 from ethoscribe.io.bundle import read_bundle, write_bundle
+from ethoscribe.pose import PoseTracks, check_same_body_plan
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
 from ethoscribe.segment.stability import stability_report
+from ethoscribe.workspace.cache import CACHE_FOLDER, load_prepared, prepare_session
 from ethoscribe.workspace.compare import write_ethogram_report
+from ethoscribe.workspace.executor import connect, map_sessions
 from ethoscribe.workspace.folder import (
     CAUTION,
     FORMAT_VERSION,
@@ -35,7 +40,7 @@ from ethoscribe.workspace.folder import (
     versions,
     write_ethogram_tables,
 )
-from ethoscribe.workspace.reading import read_sessions
+from ethoscribe.workspace.reading import plan_sessions, read_sessions, sessions_table
 
 
 def discover(
@@ -51,38 +56,88 @@ def discover(
     seed: int = 0,
     progress: bool = True,
     stability: bool = True,
+    jobs: int | None = 1,
+    scheduler: Any = None,
     force: bool = False,
+    replace_curation: bool = False,
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
+    Parameters
+    ----------
+    inputs : files or folders of pose files (or none, with a manifest that lists paths)
+    out : the workspace folder
+    manifest : CSV with per-session fps, calibration, group, subject ...
+    jobs : worker processes for the per-session reading and cleaning (None: every CPU)
+    scheduler : a Dask scheduler address or ``dask.distributed.Client`` to run those on
+        (the workspace folder must then be on a file system the workers share)
+    force : recompute cleaned sessions even when the cache holds them
+    replace_curation : allow a new discovery in a workspace whose motifs were already named
+
     Writes ``labels.csv``, ``bouts.csv``, ``transitions.csv``, ``time_budget.csv``,
-    ``quality.csv``, ``sessions.csv``, ``summary.json``, ``model/`` and ``features/``.
-    Nothing is written until every input has been read and validated.
+    ``quality.csv``, ``sessions.csv``, ``summary.json``, ``report.html``, ``model/`` and
+    ``features/``; cleaned sessions are cached in ``cache/``. If the run fails in a folder it
+    created, the folder is removed: nothing half-written is left.
     """
     out = Path(out)
-    _refuse_to_overwrite_curation(out, force)
-    sessions, table = read_sessions(inputs, manifest, fps, progress)
-    cleaning: dict[str, Any] = {}
-    if min_confidence is not None:
-        cleaning["min_confidence"] = min_confidence
-    model = BehaviourModel(
-        cleaning=cleaning,
-        features={"origin": origin, "axis": axis},
-        method=method,
-        n_states=states,
-        random_state=seed,
-        progress=progress,
-    ).fit(sessions)
-    feats, quality = model.transform_features(sessions)
-    labels = model.label_features(feats)
-    report = None
-    if stability and method == "hmm":
-        report = _stability(model, feats, seed, progress)
-    summary = _summary(model, table, seed, report)
-    _write_workspace(out, table, model, feats, quality, labels, report, summary)
+    _refuse_to_overwrite_curation(out, replace_curation)
+    plan = plan_sessions(inputs, manifest, fps)
+    cleaning = CleanParams.from_dict(
+        {} if min_confidence is None else {"min_confidence": min_confidence}
+    ).to_dict()
+    created = not out.exists()
+    try:
+        cleaned, quality, table = _prepare(out, plan, cleaning, jobs, scheduler, force, progress)
+        model = BehaviourModel(
+            cleaning=cleaning,
+            features={"origin": origin, "axis": axis},
+            method=method,
+            n_states=states,
+            random_state=seed,
+            progress=progress,
+        ).fit_cleaned(cleaned, quality)
+        feats = model.featurise_cleaned(cleaned)
+        labels = model.label_features(feats)
+        report = _stability(model, feats, seed, progress) if stability and method == "hmm" else None
+        summary = _summary(model, table, seed, report)
+        _write_workspace(out, table, model, feats, quality, labels, report, summary)
+    except EthoscribeError:
+        # Bad input in a folder this run made: leave nothing behind. (An interrupted run keeps
+        # its cache, so the next run resumes.)
+        if created:
+            shutil.rmtree(out, ignore_errors=True)
+        raise
     ws = Workspace(out)
     write_ethogram_report(ws, out / "report.html")
     return ws
+
+
+def _prepare(
+    out: Path,
+    plan: Sequence[dict[str, Any]],
+    cleaning: dict[str, Any],
+    jobs: int | None,
+    scheduler: Any,
+    force: bool,
+    progress: bool,
+) -> tuple[list[PoseTracks], list[pd.DataFrame], pd.DataFrame]:
+    """Read and clean every session (in parallel, through the cache); load the results."""
+    work = [
+        {"entry": e, "cleaning": cleaning, "cache": str(out / CACHE_FOLDER), "force": force}
+        for e in plan
+    ]
+    infos = map_sessions(
+        prepare_session,
+        work,
+        jobs=jobs,
+        client=connect(scheduler),
+        progress=progress,
+        desc="reading and cleaning",
+    )
+    loaded = [load_prepared(i) for i in infos]
+    cleaned = [t for t, _, _ in loaded]
+    check_same_body_plan(cleaned)
+    return cleaned, [q for _, q, _ in loaded], sessions_table([r for _, _, r in loaded])
 
 
 def label_sessions(
@@ -107,7 +162,7 @@ def label_sessions(
     out = Path(out)
     if out.resolve() == source.resolve():
         raise WorkspaceError(f"{out}: write the new cohort's labels to a folder of its own")
-    _refuse_to_overwrite_curation(out, force=False)
+    _refuse_to_overwrite_curation(out, False)
     sessions, table = read_sessions(inputs, manifest, fps, progress)
     feats, quality = model.transform_features(sessions)
     labels = model.label_features(feats)
@@ -162,7 +217,7 @@ def _write_workspace(
     try:
         write_table(table, stage.path("sessions.csv"))
         if quality:
-            frames = [q.to_frame() for q in quality]
+            frames = [q if isinstance(q, pd.DataFrame) else q.to_frame() for q in quality]
             write_table(pd.concat(frames, ignore_index=True), stage.path("quality.csv"))
         write_table(labels, stage.path("labels.parquet"))
         if report is not None:
@@ -209,11 +264,11 @@ def _stability(
     return stability_report(make, X, lengths, seeds=(seed, seed + 1, seed + 2), split_halves=True)
 
 
-def _refuse_to_overwrite_curation(out: Path, force: bool) -> None:
+def _refuse_to_overwrite_curation(out: Path, allowed: bool) -> None:
     journal = out / JOURNAL_FILE
-    if journal.exists() and journal.stat().st_size > 0 and not force:
+    if journal.exists() and journal.stat().st_size > 0 and not allowed:
         raise WorkspaceError(
             f"{out} holds curated motif names ({journal.name}); a new discovery would replace the "
-            "states they name. Choose another --out folder, or pass force=True (the old journal "
-            "is kept beside the new one)."
+            "states they name. Choose another --out folder, or pass replace_curation=True (the old "
+            "journal is kept beside the new one)."
         )
