@@ -59,7 +59,8 @@ def _study(folder: Path, n_frames: int) -> Path:
     (folder / "manifest.csv").write_text("session,path,fps,group\n" + "\n".join(rows) + "\n")
     import pandas as pd
 
-    pd.concat(truths).to_parquet(folder / "truth.parquet")
+    (folder / "truth").mkdir(exist_ok=True)
+    pd.concat(truths).to_parquet(folder / "truth" / "frames.parquet")
     marker.write_text(json.dumps({"frames": n_frames, "sessions": n_sessions}))
     return folder
 
@@ -76,7 +77,7 @@ def _features_matrix(n: int, seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
 def stage_read(n: int, data: Path) -> dict:
     from ethoscribe.io import pose_files, read_pose
 
-    files = [f for f in pose_files([data]) if f.name not in ("manifest.csv", "truth.parquet")]
+    files = [f for f in pose_files([data]) if f.name != "manifest.csv"]
     frames = sum(read_pose(f, fps=30).n_frames for f in files)
     return {"frames_read": frames}
 
@@ -170,7 +171,7 @@ def stage_discover(n: int, data: Path) -> dict:
     out = Path(tempfile.mkdtemp(prefix="bench-discover-"))
     ws = discover([data], out / "ws", manifest=data / "manifest.csv", progress=False)
     labels = ws.state_labels().merge(
-        pd.read_parquet(data / "truth.parquet"), on=["session", "frame"], suffixes=("", "_true")
+        pd.read_parquet(data / "truth" / "frames.parquet"), on=["session", "frame"], suffixes=("", "_true")
     )
     valid = labels[labels["state"] >= 0]
     return {
@@ -202,7 +203,7 @@ def stage_reference(n: int, data: Path) -> dict:
     model = ReferenceHMM(n_components=7, covariance_type="full", n_iter=50, random_state=0)
     model.fit(X, lengths)
     state = model.predict(X, lengths)
-    truth = pd.read_parquet(data / "truth.parquet")
+    truth = pd.read_parquet(data / "truth" / "frames.parquet")
     return {"ari_vs_truth": adjusted_rand_score(truth["behaviour"].astype(str), state)}
 
 

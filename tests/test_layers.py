@@ -16,7 +16,7 @@ LAYERS = [
     {"errors", "pose"},
     {"io"},
     {"clean", "_clean_kernels", "geometry", "dynamics"},
-    {"features"},
+    {"features", "postures"},
     {"simulate"},
     {"segment"},
     {"ethogram", "curation", "label_table", "transitions"},

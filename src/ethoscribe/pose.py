@@ -8,6 +8,7 @@ Everything downstream takes and returns these objects or plain arrays.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from types import MappingProxyType
@@ -18,6 +19,31 @@ import numpy as np
 from ethoscribe.errors import InputError
 
 UNITS = ("px", "mm", "cm", "m")
+_UNSAFE_NAME = re.compile(r"[\x00-\x1f\x7f/\\]|^[A-Za-z]:")
+
+
+def check_file_name(name: str, what: str) -> str:
+    """``name`` if it can be one file name inside a folder; ``InputError`` otherwise.
+
+    Session names end up in file names inside a workspace, so ``"../../x"`` must never reach
+    one: refused are ``"."``, ``".."``, path separators (``/``, ``\\``), a drive prefix
+    (``C:``), control characters and names over 200 bytes.
+
+    Examples
+    --------
+    >>> check_file_name("mouse_01", "session")
+    'mouse_01'
+    """
+    too_long = len(name.encode("utf-8", "surrogatepass")) > 200
+    if not name or name in (".", "..") or _UNSAFE_NAME.search(name) or too_long:
+        msg = (
+            f"{what} name {name!r} cannot be used: names become file names inside a workspace, "
+            "so they must be 1-200 bytes long, must not be '.' or '..', and must not contain '/', "
+            "'\\', a drive prefix like 'C:' or control characters. Rename it (the file name, the "
+            "session= argument or the manifest's session column)."
+        )
+        raise InputError(msg)
+    return name
 
 
 def _names(values: Sequence[Any], what: str, session: str) -> tuple[str, ...]:
@@ -71,7 +97,7 @@ class PoseTracks:
     meta: Mapping[str, Any] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
-        s = str(self.session)
+        s = check_file_name(str(self.session), "session")
         try:
             coords = np.asarray(self.coords, dtype=np.float64)
         except (TypeError, ValueError) as exc:

@@ -280,14 +280,23 @@ def _first_seen(codes: np.ndarray, n_codes: int, used: np.ndarray) -> np.ndarray
 
 
 def integer_frames(values: np.ndarray, name: str, info: TableInfo) -> np.ndarray:
-    """Frame numbers as int64; empty or fractional cells are errors."""
-    if values.dtype.kind in "iu":
-        return values.astype(np.int64, copy=False)
-    bad = ~np.isfinite(values)
+    """Frame numbers as int64; empty, fractional or absurdly large cells are errors."""
+    bad = ~np.isfinite(values) if values.dtype.kind == "f" else np.zeros(values.shape, bool)
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
         msg = f"{info.path}: column '{name}' is empty at {info.row(i)}; number every row"
         raise InputError(msg)
+    # Beyond 2**53 floats are not exact whole numbers, and differences of int64 overflow.
+    huge = (values >= 2**53) | (values <= -(2**53))
+    if huge.any():
+        i = int(np.flatnonzero(huge)[0])
+        raise InputError(
+            f"{info.path}: column '{name}' has the frame number {values[i]:.6g} at "
+            f"{info.row(i)}, beyond 2**53; frame numbers count frames from the recording's "
+            "start: check the column (a time stamp in another unit?)"
+        )
+    if values.dtype.kind in "iu":
+        return values.astype(np.int64, copy=False)
     frac = values != np.rint(values)
     if frac.any():
         i = int(np.flatnonzero(frac)[0])
@@ -309,73 +318,6 @@ def check_confidence(values: np.ndarray, name: str, info: TableInfo) -> None:
             f"{values[rows[0]]:g} ({rows.size} value(s) outside, range {finite.min():g} to "
             f"{finite.max():g}). Rescale it to [0, 1] (e.g. divide by the maximum) or drop it."
         )
-
-
-def require_two_frames(n_frames: int, where: str | os.PathLike[str]) -> None:
-    """Movement needs at least two frames."""
-    if n_frames < 2:
-        raise InputError(
-            f"{where}: holds a single frame; at least 2 frames are needed to measure movement"
-        )
-
-
-def frames_from_times(
-    times: np.ndarray, fps: float | None, where: str | os.PathLike[str], column: str = "time"
-) -> tuple[np.ndarray, float, float]:
-    """Frame numbers for strictly increasing ``times`` (seconds) on a steady frame rate.
-
-    Returns ``(frames, fps, t0)``: frames (n,) int64 counted from the first time ``t0``. Without
-    ``fps`` the rate is estimated from the typical time step. Whole missing frames are allowed;
-    a time off the frame grid (by more than a quarter frame) is an error.
-    """
-    require_two_frames(times.size, where)
-    t0 = float(times[0])
-    rel = times - t0
-    derived = fps is None
-    if fps is None:
-        step = float(np.median(np.diff(times)))
-        fps = float(np.rint(rel[-1] / step) / rel[-1])
-    pos = rel * fps
-    k = np.rint(pos)
-    off = np.abs(pos - k)
-    same = np.r_[False, np.diff(k) == 0]
-    bad = (off > 0.25) | same
-    if bad.any():
-        i = int(np.argmax(bad))
-        how = "estimated from the typical time step" if derived else "given"
-        what = (
-            f"times {times[i - 1]:.6g} s and {times[i]:.6g} s fall within one frame"
-            if same[i]
-            else f"time {times[i]:.6g} s lies {off[i]:.2f} frames off the frame grid"
-        )
-        raise InputError(
-            f"{where}: column '{column}' is not on a steady frame rate: {what} at {fps:.6g} fps "
-            f"({how}). Frames must be evenly spaced in time (whole missing frames are fine): "
-            "pass the true fps, give frame numbers instead, or resample the recording."
-        )
-    frames = k.astype(np.int64)
-    if derived:
-        fps = snap_rate(frames, rel, fps, float(np.abs(times).max()))
-    return frames, fps, t0
-
-
-def snap_rate(frames: np.ndarray, rel: np.ndarray, fps: float, scale: float = 0.0) -> float:
-    """The estimated ``fps``, or the shortest decimal rate that reproduces the times.
-
-    ``frames`` and ``rel`` (seconds since the first frame) are matching arrays; ``scale`` is the
-    largest absolute time in the file, which sets the rounding noise of the times.
-    """
-    # A file written with time = frame / fps gives back exactly that fps. First look for a rate
-    # reproducing every time bit for bit, then for one within the times' rounding noise.
-    candidates = [float(f"{fps:.{digits}g}") for digits in range(3, 18)]
-    for candidate in candidates:
-        if np.array_equal(frames / candidate, rel):
-            return candidate
-    noise = 8 * np.finfo(np.float64).eps * max(scale, float(np.abs(rel).max()))
-    for candidate in candidates:
-        if np.abs(frames / candidate - rel).max() <= noise:
-            return candidate
-    return fps
 
 
 def make_tracks(where: str | os.PathLike[str], **fields: Any) -> PoseTracks:

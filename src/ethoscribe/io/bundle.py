@@ -1,26 +1,37 @@
 """Safe model files: a folder with ``model.json`` (parameters, versions) and ``arrays.npz``.
 
-No pickle: arrays are loaded with ``allow_pickle=False`` and the JSON is parsed strictly, so a model
-file from a colleague cannot run code. Both files are written atomically; ``model.json`` is written
-last and names a digest of the arrays, so a folder whose save was interrupted is detected.
+No pickle: the arrays are checked and loaded by :func:`ethoscribe.io._safe.load_npz` (object
+arrays are refused) and the JSON is parsed strictly, so a model file from a colleague cannot run
+code. ``model.json`` is written last and names a digest of the arrays, so a folder whose save
+was interrupted is detected.
+
+Saving over an existing model is crash-safe too: before ``arrays.npz`` is replaced, the old
+arrays stay reachable under a hidden name derived from their digest (``.arrays-<digest>.npz``,
+a hard link, so nothing is copied). If the process dies between the two files, the old
+``model.json`` still finds its arrays there and the previous model loads; the next complete
+save removes the hidden copy.
 """
 
 from __future__ import annotations
 
 import hashlib
-import json
-import zipfile
+import os
+import re
+import shutil
+from contextlib import suppress
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from ethoscribe.errors import InputError, UnsafeFileError
+from ethoscribe.errors import EthoscribeError, InputError, UnsafeFileError
 from ethoscribe.io._atomic import atomic_write, atomic_write_json
+from ethoscribe.io._safe import MAX_JSON_BYTES, load_npz, read_json
 
 META_FILE = "model.json"
 ARRAYS_FILE = "arrays.npz"
-MAX_META_BYTES = 50_000_000
+MAX_META_BYTES = MAX_JSON_BYTES
+_DIGEST = re.compile(r"^[0-9a-f]{64}$")
 
 
 def _digest(path: Path) -> str:
@@ -29,6 +40,35 @@ def _digest(path: Path) -> str:
         for block in iter(lambda: fh.read(1 << 20), b""):
             h.update(block)
     return h.hexdigest()
+
+
+def _kept_name(digest: str) -> str:
+    return f".arrays-{digest[:32]}.npz"
+
+
+def _named_digest(folder: Path) -> str | None:
+    """The arrays digest the current ``model.json`` names, if it is readable."""
+    try:
+        meta = read_json(folder / META_FILE, MAX_META_BYTES)
+    except (EthoscribeError, OSError):
+        return None
+    digest = meta.get("arrays_sha256") if isinstance(meta, dict) else None
+    return digest if isinstance(digest, str) and _DIGEST.match(digest) else None
+
+
+def _keep_previous(folder: Path) -> None:
+    """Keep the arrays the current ``model.json`` names reachable while they are replaced."""
+    digest, arrays = _named_digest(folder), folder / ARRAYS_FILE
+    if digest is None or not arrays.is_file() or arrays.is_symlink():
+        return
+    kept = folder / _kept_name(digest)
+    if kept.exists() or _digest(arrays) != digest:  # already kept by an interrupted save
+        return
+    try:
+        os.link(arrays, kept)
+    except OSError:  # no hard links on this file system: copy, atomically
+        with atomic_write(kept, "wb") as fh, open(arrays, "rb") as src:
+            shutil.copyfileobj(src, fh)
 
 
 def write_bundle(folder: str | Path, meta: dict[str, Any], arrays: dict[str, np.ndarray]) -> Path:
@@ -44,50 +84,50 @@ def write_bundle(folder: str | Path, meta: dict[str, Any], arrays: dict[str, np.
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     for name, a in arrays.items():
-        if np.asarray(a).dtype == object:
+        if np.asarray(a).dtype.hasobject:
             raise InputError(
                 f"array '{name}' has object dtype; only numeric/string arrays are saved"
             )
+    _keep_previous(folder)
     with atomic_write(folder / ARRAYS_FILE, "wb") as fh:
         np.savez(fh, **{k: np.asarray(v) for k, v in arrays.items()})
     atomic_write_json(folder / META_FILE, {**meta, "arrays_sha256": _digest(folder / ARRAYS_FILE)})
+    for old in folder.glob(".arrays-*.npz"):
+        with suppress(OSError):
+            old.unlink()
     return folder
 
 
 def read_bundle(folder: str | Path) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
-    """Read a folder written by :func:`write_bundle`; refuse anything that would need pickle."""
+    """Read a folder written by :func:`write_bundle`; refuse anything that would need pickle.
+
+    Raises ``InputError`` for a damaged or incomplete folder and ``UnsafeFileError`` for links,
+    object arrays, archive members with path-like names or implausible sizes.
+    """
     folder = Path(folder)
     meta_path, arrays_path = folder / META_FILE, folder / ARRAYS_FILE
     for p in (meta_path, arrays_path):
-        if not p.is_file():
-            raise InputError(f"{folder}: not a saved model folder ({p.name} is missing)")
         if p.is_symlink():
             raise UnsafeFileError(f"{p}: is a symbolic link; model files must be plain files")
-    if meta_path.stat().st_size > MAX_META_BYTES:
-        raise UnsafeFileError(f"{meta_path}: implausibly large ({meta_path.stat().st_size} bytes)")
-    try:
-        meta = json.loads(meta_path.read_text(encoding="utf-8"), parse_constant=_no_constant)
-    except (ValueError, UnicodeDecodeError) as exc:
-        raise InputError(f"{meta_path}: not valid JSON ({exc}); the file is damaged") from None
+        if not p.is_file():
+            raise InputError(f"{folder}: not a saved model folder ({p.name} is missing)")
+    meta = read_json(meta_path, MAX_META_BYTES)
     if not isinstance(meta, dict):
         raise InputError(f"{meta_path}: expected a JSON object at the top level")
     expected = meta.get("arrays_sha256")
-    if expected is not None and expected != _digest(arrays_path):
-        raise InputError(
-            f"{arrays_path}: does not match {meta_path.name} (digest differs): the save was "
-            "interrupted or the files come from different saves. Save the model again."
-        )
-    try:
-        with np.load(arrays_path, allow_pickle=False) as npz:
-            arrays = {k: npz[k] for k in npz.files}
-    except ValueError as exc:
-        raise UnsafeFileError(
-            f"{arrays_path}: holds object arrays, which would need pickle to load; refused ({exc})"
-        ) from None
-    except (OSError, zipfile.BadZipFile, EOFError) as exc:
-        raise InputError(f"{arrays_path}: cannot be read as an npz archive ({exc})") from None
-    return meta, arrays
+    if expected is not None:
+        if not isinstance(expected, str) or not _DIGEST.match(expected):
+            raise InputError(f"{meta_path}: 'arrays_sha256' is not a sha256 digest: {expected!r}")
+        if expected != _digest(arrays_path):
+            arrays_path = _previous_arrays(folder, expected, arrays_path, meta_path)
+    return meta, load_npz(arrays_path)
 
 
-def _no_constant(name: str) -> float:
-    raise ValueError(f"non-standard JSON constant {name}")
+def _previous_arrays(folder: Path, expected: str, arrays_path: Path, meta_path: Path) -> Path:
+    kept = folder / _kept_name(expected)
+    if kept.is_file() and not kept.is_symlink() and _digest(kept) == expected:
+        return kept  # a save over this model was interrupted: the previous model is intact
+    raise InputError(
+        f"{arrays_path}: does not match {meta_path.name} (digest differs): the save was "
+        "interrupted or the files come from different saves. Save the model again."
+    )

@@ -18,7 +18,7 @@ from tqdm.auto import tqdm
 from ethoscribe.errors import InputError
 from ethoscribe.io._tables import check_file
 from ethoscribe.io.registry import read_pose
-from ethoscribe.pose import UNITS, PoseTracks, check_same_body_plan
+from ethoscribe.pose import UNITS, PoseTracks, check_file_name, check_same_body_plan
 
 REQUIRED = ("session", "path")
 OPTIONAL = ("fps", "group", "subject", "condition", "px_per_unit", "units", "video")
@@ -113,6 +113,11 @@ def _check_names(source: str, sessions: pd.Series) -> None:
     empty = [i + 1 for i, s in enumerate(sessions) if not s]
     if empty:
         raise InputError(f"{source}: row(s) {empty} have no session name; name every session")
+    for i, s in enumerate(sessions):
+        try:
+            check_file_name(s, "session")
+        except InputError as exc:
+            raise InputError(f"{source}: row {i + 1}: {exc}") from None
     dup = sessions[sessions.duplicated(keep=False)]
     if not dup.empty:
         name = dup.iloc[0]

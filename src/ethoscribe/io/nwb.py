@@ -18,7 +18,8 @@ import numpy as np
 
 from ethoscribe.errors import InputError
 from ethoscribe.io._atomic import atomic_path
-from ethoscribe.io._tables import check_file, check_fps, frames_from_times, make_tracks
+from ethoscribe.io._tables import check_file, check_fps, make_tracks
+from ethoscribe.io._timing import frames_from_times
 from ethoscribe.pose import PoseTracks
 
 _UNITS = {

@@ -22,15 +22,18 @@ from ethoscribe.io._tables import (
     check_confidence,
     check_file,
     check_fps,
-    frames_from_times,
     integer_frames,
     make_tracks,
     read_columns,
     require_columns,
-    require_two_frames,
-    snap_rate,
     table_info,
     text_codes,
+)
+from ethoscribe.io._timing import (
+    check_frame_span,
+    frames_from_times,
+    require_two_frames,
+    snap_rate,
 )
 from ethoscribe.pose import PoseTracks
 
@@ -102,12 +105,7 @@ def read_tidy(
 
     frames, fps, extra = _frames(info, values, fps)
     n_frames = int(frames.max()) + 1
-    if n_frames > 100 * frames.size + 10_000:  # would allocate mostly empty frames
-        raise InputError(
-            f"{info.path}: the frames span {n_frames} frames from frame {extra['first_frame']} "
-            f"but the table has only {frames.size} rows; check the '{time_col}' column (are "
-            "these time stamps in another unit?)"
-        )
+    check_frame_span(n_frames, frames.size, extra["first_frame"], info.path, time_col)
     shape = (n_frames, len(an_names), len(kp_names))
     flat = (frames * shape[1] + an_codes) * shape[2] + kp_codes
     _check_complete(info, flat, shape, kp_names, an_names, extra["first_frame"])

@@ -19,13 +19,16 @@ from ethoscribe.io._tables import (
     check_confidence,
     check_file,
     check_fps,
-    frames_from_times,
     integer_frames,
     make_tracks,
     read_columns,
     require_columns,
-    require_two_frames,
     table_info,
+)
+from ethoscribe.io._timing import (
+    check_frame_span,
+    frames_from_times,
+    require_two_frames,
 )
 from ethoscribe.pose import PoseTracks
 
@@ -131,6 +134,8 @@ def read_wide(
     values, _ = read_columns(info, [*timing, *found.values()], [], whole=whole)
     frames, fps, extra = _frames(info, values, fps, frame_column, time_column)
     n_frames = int(frames[-1]) + 1
+    timing_column = frame_column or time_column or "row order"
+    check_frame_span(n_frames, len(frames), extra["first_frame"], info.path, timing_column)
     coords = np.full((n_frames, len(animals), len(kp_names), n_dims), np.nan)
     conf = np.full(coords.shape[:3], np.nan)
     for (a, k, axis), column in found.items():

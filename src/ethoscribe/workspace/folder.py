@@ -12,21 +12,22 @@ This is the only module that knows the folder layout::
     model/             the fitted model (model.json + arrays.npz, no pickle)
     features/          per-session features (npz), used to split motifs
     journal.jsonl      every curation edit, appended; names are derived by replaying it
+    .exports-state.json  which journal the ethogram tables reflect (stale after a crash mid-edit)
+    .lock, .lock-owner.json  the edit lock and who holds it (see ethoscribe.io.locking)
 
 A ``discover`` run validates every input before it writes anything and moves finished files into
 place atomically, with ``workspace.json`` last, so an interrupted run never leaves a folder that
 looks complete.
+
+Its files are read safely and written crash-safely by :mod:`ethoscribe.workspace.files`: links
+leading outside are refused, JSON and npz are parsed strictly, and tables left behind the journal
+by a killed edit are brought up to date by :meth:`Workspace.repair` or the next edit.
 """
 
 from __future__ import annotations
 
 import datetime as _dt
-import json
-import os
 import platform
-import shutil
-import socket
-import tempfile
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
@@ -34,19 +35,34 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from filelock import FileLock, Timeout
+import pyarrow as pa
 
 from ethoscribe import __version__
 from ethoscribe.curation import Curation
-from ethoscribe.errors import WorkspaceError
+from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.ethogram import bout_table, time_budget, transition_table
 from ethoscribe.features import FeatureSet
-from ethoscribe.io._atomic import atomic_write, atomic_write_json, write_table
-from ethoscribe.io.bundle import read_bundle
+from ethoscribe.io import locking
+from ethoscribe.io._atomic import atomic_write_json, write_table
+from ethoscribe.io._safe import read_json
 from ethoscribe.segment.model import BehaviourModel, motif_name
+from ethoscribe.workspace.files import (
+    EXPORTS_STATE,
+    JOURNAL_FILE,
+    MAX_STATES,
+    append_journal,
+    check_links,
+    journal_fingerprint,
+    load_features,
+    load_model,
+    read_journal,
+    remove_leftovers,
+)
+from ethoscribe.workspace.files import WORKSPACE_FILE as WORKSPACE_FILE
+from ethoscribe.workspace.files import Staging as Staging
+from ethoscribe.workspace.files import jsonable as jsonable
+from ethoscribe.workspace.files import save_features as save_features
 
-WORKSPACE_FILE = "workspace.json"
-JOURNAL_FILE = "journal.jsonl"
 FORMAT_VERSION = 1
 CAUTION = (
     "These outputs support, and do not replace, expert review of the behaviour and the local "
@@ -78,81 +94,15 @@ def now() -> str:
 
 
 # --- writing a workspace ------------------------------------------------------------------
-class Staging:
-    """Files are written into a hidden folder beside the target and moved in one by one."""
-
-    def __init__(self, out: Path):
-        out.mkdir(parents=True, exist_ok=True)
-        self.out = out
-        self.dir = Path(tempfile.mkdtemp(prefix=".incoming-", dir=out))
-
-    def path(self, name: str) -> Path:
-        p = self.dir / name
-        p.parent.mkdir(parents=True, exist_ok=True)
-        return p
-
-    def commit(self, last: str) -> None:
-        # The old marker goes first and the new one last: while files are being swapped, the
-        # folder does not claim to be a complete workspace.
-        (self.out / last).unlink(missing_ok=True)
-        for item in sorted(self.dir.iterdir()):
-            if item.name != last:
-                _replace(item, self.out / item.name)
-        _replace(self.dir / last, self.out / last)
-        shutil.rmtree(self.dir, ignore_errors=True)
-
-    def abort(self) -> None:
-        shutil.rmtree(self.dir, ignore_errors=True)
-
-
-def _replace(src: Path, dst: Path) -> None:
-    if src.is_dir():
-        old = None
-        if dst.exists():
-            old = dst.with_name(f".old-{dst.name}-{os.getpid()}")
-            os.replace(dst, old)
-        os.replace(src, dst)
-        if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
-    else:
-        os.replace(src, dst)
-
-
 def write_ethogram_tables(folder: Path, labels: pd.DataFrame, stage: Staging | None = None) -> None:
+    """The four ethogram tables, then the record of which journal they reflect."""
     path = stage.path if stage is not None else (lambda n: folder / n)
     bouts = bout_table(labels)
     write_table(labels, path("labels.csv"))
     write_table(bouts, path("bouts.csv"))
     write_table(transition_table(bouts), path("transitions.csv"))
     write_table(time_budget(labels), path("time_budget.csv"))
-
-
-def save_features(path: Path, f: FeatureSet) -> None:
-    """One feature set as an npz (float32 values: half the size, ample precision for splits)."""
-    with atomic_write(path, "wb") as fh:
-        np.savez(
-            fh,
-            values=f.values.astype(np.float32),
-            valid=f.valid,
-            columns=np.array(f.columns),
-            session=np.array(f.session),
-            animal=np.array(f.animal),
-            fps=np.array(f.fps),
-        )
-
-
-def load_features(path: Path) -> FeatureSet:
-    """Read a feature set written by :func:`save_features` (no pickle)."""
-    with np.load(path, allow_pickle=False) as z:
-        return FeatureSet(
-            values=z["values"].astype(np.float64),
-            columns=tuple(str(c) for c in z["columns"]),
-            valid=z["valid"],
-            session=str(z["session"]),
-            animal=str(z["animal"]),
-            fps=float(z["fps"]),
-            meta={},
-        )
+    atomic_write_json(path(EXPORTS_STATE), journal_fingerprint(path(JOURNAL_FILE)))
 
 
 def features_table(feats: Sequence[FeatureSet]) -> pd.DataFrame:
@@ -172,19 +122,6 @@ def table_json(table: pd.DataFrame) -> dict[str, list]:
     return table.astype(object).where(table.notna(), None).to_dict(orient="list")
 
 
-def jsonable(obj: Any) -> Any:
-    """``obj`` with numpy scalars as Python numbers and non-finite floats as None."""
-    if isinstance(obj, dict):
-        return {str(k): jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [jsonable(v) for v in obj]
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if isinstance(obj, float) and not np.isfinite(obj):
-        return None
-    return obj
-
-
 # --- an existing workspace ----------------------------------------------------------------
 class Workspace:
     """An ethoscribe workspace folder (see the module docstring for its layout)."""
@@ -197,7 +134,12 @@ class Workspace:
                 f"{self.path}: not an ethoscribe workspace ({WORKSPACE_FILE} missing); run "
                 "'ethoscribe discover ... --out FOLDER' first, or an earlier run was interrupted"
             )
-        info = json.loads(marker.read_text())
+        check_links(self.path)
+        info = self._read_json(WORKSPACE_FILE)
+        if not isinstance(info, dict) or info.get("kind", "ethoscribe.workspace") != (
+            "ethoscribe.workspace"
+        ):
+            raise WorkspaceError(f"{marker}: not an ethoscribe workspace record; it is damaged")
         if info.get("format_version") != FORMAT_VERSION:
             raise WorkspaceError(
                 f"{self.path}: workspace format {info.get('format_version')!r} written by "
@@ -205,6 +147,14 @@ class Workspace:
                 f"{FORMAT_VERSION}"
             )
         self.info = info
+        self.recovery: list[str] = []  # what the last lock() found and cleaned up
+        self._stale: dict[str, Any] | None = None
+
+    def _read_json(self, name: str) -> Any:
+        try:
+            return read_json(self.path / name)
+        except InputError as exc:
+            raise WorkspaceError(f"{exc}. The workspace is damaged: run discover again.") from None
 
     # reading
     @property
@@ -213,14 +163,28 @@ class Workspace:
 
     @property
     def summary(self) -> dict[str, Any]:
-        return json.loads((self.path / "summary.json").read_text())
+        summary = self._read_json("summary.json")
+        n = summary.get("n_states") if isinstance(summary, dict) else None
+        if not isinstance(n, int) or isinstance(n, bool) or not 1 <= n <= MAX_STATES:
+            msg = (
+                f"{self.path / 'summary.json'}: expected a JSON object whose n_states is a whole "
+                f"number from 1 to {MAX_STATES}; found {n!r}. The file is damaged: run discover "
+                "again."
+            )
+            raise WorkspaceError(msg)
+        return summary
 
     def model(self) -> BehaviourModel:
-        return BehaviourModel.from_state(*read_bundle(self.path / "model"))
+        return load_model(self.path / "model")
 
     def state_labels(self) -> pd.DataFrame:
         """Per-frame labels with the model's default motif names."""
-        return pd.read_parquet(self.path / "labels.parquet")
+        path = self.path / "labels.parquet"
+        try:
+            return pd.read_parquet(path)
+        except (OSError, ValueError, pa.ArrowException) as exc:
+            msg = f"{path}: cannot be read ({exc}); the workspace is damaged: run discover again"
+            raise WorkspaceError(msg) from None
 
     def journal(self) -> list[dict[str, Any]]:
         records, _ = read_journal(self.path / JOURNAL_FILE)
@@ -228,7 +192,25 @@ class Workspace:
 
     def curation(self) -> Curation:
         """The current naming, replayed from the journal."""
-        return Curation.from_journal(self.journal(), self.default_names())
+        with self._replay_errors():
+            return Curation.from_journal(self.journal(), self.default_names())
+
+    @contextmanager
+    def _replay_errors(self) -> Iterator[None]:
+        # Journal records are data from disk: a record of the wrong shape is reported, with the
+        # file, instead of surfacing as a bare TypeError from deep inside the replay.
+        try:
+            yield
+        except EthoscribeError:
+            raise
+        except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
+            msg = (
+                f"{self.path / JOURNAL_FILE}: an edit record cannot be replayed "
+                f"({type(exc).__name__}: {exc}); the journal was changed by hand or is damaged. "
+                "Remove the offending line, or move the journal aside to start from the model's "
+                "names."
+            )
+            raise WorkspaceError(msg) from None
 
     def default_names(self) -> dict[int, str]:
         """``state -> name`` as the model left them (before any edit)."""
@@ -248,7 +230,46 @@ class Workspace:
         """Per-frame labels with the current (curated) motif names."""
         cur = self.curation()
         features = self.features() if self._needs_features(cur) else None
-        return cur.apply(self.state_labels(), features)
+        with self._replay_errors():
+            return cur.apply(self.state_labels(), features)
+
+    def exports_current(self) -> bool:
+        """Whether the ethogram tables reflect the journal (False after a crash mid-edit)."""
+        try:
+            state = read_json(self.path / EXPORTS_STATE)
+        except (EthoscribeError, OSError):
+            state = None
+        if state is None:  # a folder older than the exports record: current unless edited
+            return journal_fingerprint(self.path / JOURNAL_FILE)["journal_bytes"] == 0
+        return state == journal_fingerprint(self.path / JOURNAL_FILE)
+
+    def repair(self) -> list[str]:
+        """Finish what an interrupted save left behind; returns a note per thing done.
+
+        Removes temporary files of killed writers, reports an owner record a crashed editor
+        left, and rewrites the ethogram tables if they lag behind the journal.
+        """
+        with self.lock():
+            notes = list(self.recovery)
+            if not self.exports_current():
+                cur = self.curation()
+                features = self.features() if self._needs_features(cur) else None
+                with self._replay_errors():
+                    labels = cur.apply(self.state_labels(), features)
+                write_ethogram_tables(self.path, labels)
+                notes.append("rewrote the ethogram tables, which lagged behind the journal")
+        return notes
+
+    def lock_holder(self) -> dict[str, Any] | None:
+        """The owner record of the process editing this workspace (None if nobody is)."""
+        return locking.holder(self.path)
+
+    def clear_stale_lock(self) -> dict[str, Any] | None:
+        """Remove the owner record a crashed editor left (returned; None if none). Safe: a live
+        editor's record is never removed, that raises 'in use by ...' instead."""
+        with self.lock():
+            stale = self._stale
+        return stale
 
     def describe(self) -> str:
         s = self.summary
@@ -261,28 +282,16 @@ class Workspace:
     # editing
     @contextmanager
     def lock(self) -> Iterator[None]:
-        """Hold the workspace for editing; a second process gets a clear message."""
-        owner_file = self.path / ".lock-owner.json"
-        lock = FileLock(str(self.path / ".lock"), timeout=0)
-        try:
-            lock.acquire()
-        except Timeout:
-            try:
-                owner = json.loads(owner_file.read_text())
-            except (OSError, ValueError):
-                owner = {}
-            raise WorkspaceError(
-                f"workspace {self.path} is in use by process {owner.get('pid', '?')} on "
-                f"{owner.get('host', '?')} since {owner.get('since', '?')}; close it there first"
-            ) from None
-        try:
-            atomic_write_json(
-                owner_file, {"pid": os.getpid(), "host": socket.gethostname(), "since": now()}
-            )
+        """Hold the workspace for editing; a second process is told the holder's pid, host and
+        start time. A crashed holder does not block; what it left is cleaned up and noted in
+        :attr:`recovery`."""
+        with locking.hold(self.path, "workspace") as stale:
+            self._stale = stale
+            self.recovery = remove_leftovers(self.path)
+            if stale is not None:
+                who = locking.describe_owner(stale)
+                self.recovery.insert(0, f"an earlier editor ({who}) ended without closing")
             yield
-        finally:
-            owner_file.unlink(missing_ok=True)
-            lock.release()
 
     def edit(self, op: str, **kwargs: Any) -> dict[str, Any]:
         """Apply one curation edit and journal it; the ethogram tables are rewritten.
@@ -302,8 +311,10 @@ class Workspace:
             if op == "split":
                 kwargs = {"labels": labels, "features": features, **kwargs}
             record = getattr(cur, op)(**kwargs)
-            append_journal(self.path / JOURNAL_FILE, record)
-            write_ethogram_tables(self.path, cur.apply(labels, features))
+            append_journal(self.path / JOURNAL_FILE, record)  # the edit is safe from here on
+            with self._replay_errors():
+                named = cur.apply(labels, features)
+            write_ethogram_tables(self.path, named)
         return record
 
     def rename_motif(self, motif: str, name: str) -> dict[str, Any]:
@@ -330,36 +341,3 @@ class Workspace:
 
 
 EDITS = {"rename", "merge", "split", "unassign", "undo", "redo"}
-
-
-# --- the journal file ---------------------------------------------------------------------
-def append_journal(path: Path, record: dict[str, Any]) -> None:
-    """Append one edit as a JSON line and fsync it before returning (the edit is then safe)."""
-    line = json.dumps(jsonable(record), sort_keys=True, allow_nan=False) + "\n"
-    with open(path, "a", encoding="utf-8") as fh:
-        fh.write(line)
-        fh.flush()
-        os.fsync(fh.fileno())
-
-
-def read_journal(path: Path) -> tuple[list[dict[str, Any]], list[str]]:
-    """Every complete edit of the journal, and a note on each line that could not be read.
-
-    A line cut short by a crash is reported and skipped; all complete edits survive.
-    """
-    if not path.exists():
-        return [], []
-    records, problems = [], []
-    for number, line in enumerate(path.read_text(encoding="utf-8").splitlines(), start=1):
-        if not line.strip():
-            continue
-        try:
-            record = json.loads(line)
-        except ValueError:
-            problems.append(f"{path}: line {number} is incomplete or damaged and was skipped")
-            continue
-        if not isinstance(record, dict) or "op" not in record:
-            problems.append(f"{path}: line {number} is not an edit record and was skipped")
-            continue
-        records.append(record)
-    return records, problems

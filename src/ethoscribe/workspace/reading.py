@@ -55,7 +55,7 @@ def plan_sessions(
         px = _row_value(row, "px_per_unit", None)
         plan.append(
             {
-                "path": str(path),
+                "path": str(Path(path).resolve()),
                 "session": name,
                 "fps": _row_value(row, "fps", fps),
                 "px_per_unit": None if px is None else float(px),

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import os
 import shutil
 from collections.abc import Sequence
 from pathlib import Path
@@ -16,7 +15,7 @@ from ethoscribe.curation import Curation
 from ethoscribe.errors import EthoscribeError, WorkspaceError
 from ethoscribe.features import FeatureSet
 from ethoscribe.io._atomic import atomic_write_json, write_table
-from ethoscribe.io.bundle import read_bundle, write_bundle
+from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks, check_same_body_plan
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
@@ -24,6 +23,7 @@ from ethoscribe.segment.stability import stability_report
 from ethoscribe.workspace.cache import CACHE_FOLDER, load_prepared, prepare_session
 from ethoscribe.workspace.compare import write_ethogram_report
 from ethoscribe.workspace.executor import connect, map_sessions
+from ethoscribe.workspace.files import load_model
 from ethoscribe.workspace.folder import (
     CAUTION,
     FORMAT_VERSION,
@@ -158,7 +158,7 @@ def label_sessions(
         ws = Workspace(source)
         model, journal = ws.model(), ws.journal()
     else:  # a bare model/ folder
-        model, journal = BehaviourModel.from_state(*read_bundle(source)), []
+        model, journal = load_model(source), []
     out = Path(out)
     if out.resolve() == source.resolve():
         raise WorkspaceError(f"{out}: write the new cohort's labels to a folder of its own")
@@ -238,9 +238,10 @@ def _write_workspace(
         )
         for record in journal:
             append_journal(stage.path(JOURNAL_FILE), record)
-        old = out / JOURNAL_FILE
-        if old.exists() and not journal:  # new states: old names no longer apply; keep them aside
-            os.replace(old, out / f"journal-before-{now().replace(':', '')}.jsonl")
+        if (out / JOURNAL_FILE).exists() and not journal:
+            # New states: the old names no longer apply. They are kept aside, and only once the
+            # commit has begun, so a run killed before it leaves the old workspace whole.
+            stage.retire(JOURNAL_FILE, f"journal-before-{now().replace(':', '')}.jsonl")
         # The tables carry the current names (those of a copied journal, if any).
         cur = Curation.from_journal(journal, {k: motif_name(k) for k in range(model.n_states_)})
         needs = any(r.get("op") == "split" for r in journal)

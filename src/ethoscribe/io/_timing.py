@@ -1,0 +1,99 @@
+"""Frame timing of the table readers: frame numbers from time stamps, the rate, sane spans.
+
+A time column in another unit (milliseconds, clock times) or absurd values must become a clear
+``InputError``, never a huge allocation, an overflow or a numpy warning.
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+
+from ethoscribe.errors import InputError
+
+
+def require_two_frames(n_frames: int, where: str | os.PathLike[str]) -> None:
+    """Movement needs at least two frames."""
+    if n_frames < 2:
+        raise InputError(
+            f"{where}: holds a single frame; at least 2 frames are needed to measure movement"
+        )
+
+
+def check_frame_span(
+    n_frames: int, n_rows: int, first: int, where: str | os.PathLike[str], column: str
+) -> None:
+    """Refuse timing that would allocate mostly empty frames (a column in another unit)."""
+    if n_frames > 100 * n_rows + 10_000:
+        raise InputError(
+            f"{where}: the frames span {n_frames} frames from frame {first} but the table "
+            f"has only {n_rows} rows; check the '{column}' column (are these time stamps in "
+            "another unit?)"
+        )
+
+
+def frames_from_times(
+    times: np.ndarray, fps: float | None, where: str | os.PathLike[str], column: str = "time"
+) -> tuple[np.ndarray, float, float]:
+    """Frame numbers for strictly increasing ``times`` (seconds) on a steady frame rate.
+
+    Returns ``(frames, fps, t0)``: frames (n,) int64 counted from the first time ``t0``. Without
+    ``fps`` the rate is estimated from the typical time step. Whole missing frames are allowed;
+    a time off the frame grid (by more than a quarter frame) is an error.
+    """
+    require_two_frames(times.size, where)
+    t0 = float(times[0])
+    derived = fps is None
+    with np.errstate(all="ignore"):  # absurd times are reported just below, not warned about
+        rel = times - t0
+        if fps is None:
+            step = float(np.median(np.diff(times)))
+            fps = float(np.rint(rel[-1] / step) / rel[-1])
+        pos = rel * fps
+    if not (np.isfinite(fps) and fps > 0 and np.isfinite(pos).all() and pos.max() < 2.0**53):
+        raise InputError(
+            f"{where}: column '{column}' runs from {times[0]:.6g} s to {times[-1]:.6g} s, which "
+            f"cannot be counted in frames at {fps:.6g} fps; check that the column holds "
+            "seconds (not milliseconds or clock times), or pass the true fps"
+        )
+    k = np.rint(pos)
+    off = np.abs(pos - k)
+    same = np.r_[False, np.diff(k) == 0]
+    bad = (off > 0.25) | same
+    if bad.any():
+        i = int(np.argmax(bad))
+        how = "estimated from the typical time step" if derived else "given"
+        what = (
+            f"times {times[i - 1]:.6g} s and {times[i]:.6g} s fall within one frame"
+            if same[i]
+            else f"time {times[i]:.6g} s lies {off[i]:.2f} frames off the frame grid"
+        )
+        raise InputError(
+            f"{where}: column '{column}' is not on a steady frame rate: {what} at {fps:.6g} fps "
+            f"({how}). Frames must be evenly spaced in time (whole missing frames are fine): "
+            "pass the true fps, give frame numbers instead, or resample the recording."
+        )
+    frames = k.astype(np.int64)
+    if derived:
+        fps = snap_rate(frames, rel, fps, float(np.abs(times).max()))
+    return frames, fps, t0
+
+
+def snap_rate(frames: np.ndarray, rel: np.ndarray, fps: float, scale: float = 0.0) -> float:
+    """The estimated ``fps``, or the shortest decimal rate that reproduces the times.
+
+    ``frames`` and ``rel`` (seconds since the first frame) are matching arrays; ``scale`` is the
+    largest absolute time in the file, which sets the rounding noise of the times.
+    """
+    # A file written with time = frame / fps gives back exactly that fps. First look for a rate
+    # reproducing every time bit for bit, then for one within the times' rounding noise.
+    candidates = [float(f"{fps:.{digits}g}") for digits in range(3, 18)]
+    for candidate in candidates:
+        if np.array_equal(frames / candidate, rel):
+            return candidate
+    noise = 8 * np.finfo(np.float64).eps * max(scale, float(np.abs(rel).max()))
+    for candidate in candidates:
+        if np.abs(frames / candidate - rel).max() <= noise:
+            return candidate
+    return fps

@@ -1,0 +1,124 @@
+"""Small pieces shared by the workbench panels: redrawing figures in place, messages, styles."""
+
+from __future__ import annotations
+
+import html
+from collections.abc import Callable
+from typing import Any
+
+import ipywidgets as w
+import pandas as pd
+import plotly.graph_objects as go
+
+from ethoscribe.errors import EthoscribeError
+
+MESSAGE_COLOURS = {"ok": "#1b6e3a", "info": "#444444", "error": "#a4262c"}
+MESSAGE_BACKGROUNDS = {"ok": "#e9f5ee", "info": "#f3f3f3", "error": "#fdecea"}
+LABEL_STYLE = {"description_width": "initial"}
+
+
+class LazyDrawing:
+    """Redraw only what is on screen: a page hidden behind another tab redraws when shown."""
+
+    visible = True
+    _dirty = False
+
+    def draw(self) -> None:  # pragma: no cover - every page defines it
+        raise NotImplementedError
+
+    def request_draw(self) -> None:
+        if self.visible:
+            self.draw()
+        else:
+            self._dirty = True
+
+    def set_visible(self, visible: bool) -> None:
+        self.visible = visible
+        if visible and self._dirty:
+            self._dirty = False
+            self.draw()
+
+
+def figure_widget(fig: go.Figure, css: str) -> go.FigureWidget:
+    """A FigureWidget of ``fig`` carrying the CSS class ``css`` (for tests and styling)."""
+    widget = go.FigureWidget(fig)
+    widget.add_class(css)
+    return widget
+
+
+def redraw(widget: go.FigureWidget, fig: go.Figure) -> None:
+    """Show ``fig`` in ``widget``: traces updated in place when their kinds match."""
+    same = len(widget.data) == len(fig.data) and all(
+        a.type == b.type for a, b in zip(widget.data, fig.data, strict=True)
+    )
+    if not same:
+        widget.data = ()
+        widget.add_traces(list(fig.data))
+    new = fig.layout.to_plotly_json()
+    new.pop("template", None)  # the widget keeps the one it was made with
+    old = widget.layout.to_plotly_json()
+    changed = {k: v for k, v in new.items() if old.get(k) != v}
+    gone = [k for k in old if k not in new and k in ("annotations", "shapes", "images")]
+    with widget.batch_update():
+        if same:
+            for old_trace, new_trace in zip(widget.data, fig.data, strict=True):
+                old_trace.update(new_trace.to_plotly_json(), overwrite=True)
+        for key in gone:
+            widget.layout[key] = ()
+        if changed:
+            widget.update_layout(changed, overwrite=True)
+
+
+def message_html(kind: str, text: str) -> str:
+    """A one-line coloured message box (text escaped), CSS class ``ethoscribe-note-<kind>``."""
+    if not text:
+        return ""
+    colour, background = MESSAGE_COLOURS.get(kind, "#444"), MESSAGE_BACKGROUNDS.get(kind, "#fff")
+    return (
+        f'<div class="ethoscribe-note-{kind}" style="color:{colour};background:{background};'
+        'padding:4px 10px;border-radius:4px;font-size:13px;line-height:1.4">'
+        f"{html.escape(text)}</div>"
+    )
+
+
+def heading(text: str, size: int = 14) -> w.HTML:
+    return w.HTML(f'<div style="font-weight:600;font-size:{size}px;margin:4px 0">{text}</div>')
+
+
+def note(text: str) -> w.HTML:
+    return w.HTML(f'<div style="color:#555;font-size:12px;line-height:1.4">{text}</div>')
+
+
+def table_html(table: pd.DataFrame, max_rows: int = 30) -> str:
+    """A compact HTML table (numbers to 3 significant digits)."""
+    shown = table.head(max_rows)
+    body = shown.to_html(index=False, border=0, na_rep="", float_format=lambda v: f"{v:.3g}")
+    more = f"<div style='color:#666'>first {max_rows} of {len(table)} rows</div>"
+    style = (
+        "<style>.ethoscribe-table table{border-collapse:collapse;font-size:12px}"
+        ".ethoscribe-table th,.ethoscribe-table td{border-bottom:1px solid #e3e3e3;"
+        "padding:2px 8px;text-align:right}.ethoscribe-table th{background:#f5f5f5}</style>"
+    )
+    extra = more if len(table) > max_rows else ""
+    return f"{style}<div class='ethoscribe-table'>{body}{extra}</div>"
+
+
+def button(
+    label: str,
+    css: str,
+    handler: Callable[[], Any],
+    report: Callable[[str, str], None],
+    style: str = "",
+) -> w.Button:
+    """A button calling ``handler()``; an ethoscribe error becomes a message via ``report``."""
+    b = w.Button(description=label, button_style=style, layout=w.Layout(width="auto"))
+    b.add_class(css)
+
+    def clicked(_):
+        try:
+            handler()
+        except EthoscribeError as exc:  # bad input: say so, never a traceback
+            report("error", str(exc))
+
+    b.on_click(clicked)
+    return b

@@ -1,0 +1,140 @@
+"""The "Study" page (sessions, data quality, the model's choices) and the "Groups" page
+(group comparison and its plots)."""
+
+from __future__ import annotations
+
+import html
+
+import ipywidgets as w
+import pandas as pd
+
+from ethoscribe.plots.stats import group_difference_figure
+from ethoscribe.widgets.common import button, figure_widget, heading, note, redraw, table_html
+from ethoscribe.widgets.state import WorkbenchState
+from ethoscribe.workspace.report_sections import model_section, quality_section
+
+SESSION_COLUMNS = (
+    "session",
+    "group",
+    "subject",
+    "fps",
+    "n_frames",
+    "duration_s",
+    "n_animals",
+    "units",
+)
+FIGURE_WIDTH = 900
+
+
+class StudyPage:
+    """Sessions, cleaning quality per keypoint and session, state count and stability."""
+
+    def __init__(self, state: WorkbenchState) -> None:
+        ws = state.ws
+        sessions = state.sessions[[c for c in state.sessions.columns if c in SESSION_COLUMNS]]
+        parts: list[w.Widget] = [heading("Sessions"), w.HTML(table_html(sessions, 50))]
+        quality = quality_section(ws, ws.state_labels())
+        parts.append(heading("Data quality"))
+        if quality is None:
+            parts.append(note("This workspace has no quality.csv."))
+        else:
+            parts.append(note(html.escape(quality.text)))
+            parts += [self._figure(f, "ethoscribe-quality") for f in quality.figures]
+        model = model_section(ws)
+        parts += [heading("The model's choices"), note(html.escape(model.text))]
+        parts += [self._figure(f, "ethoscribe-model") for f in model.figures]
+        for caption, table in model.tables:
+            parts += [note(html.escape(caption)), w.HTML(table_html(table))]
+        self.widget = w.VBox(parts)
+
+    @staticmethod
+    def _figure(fig, css: str):
+        fig.update_layout(width=FIGURE_WIDTH, height=max(fig.layout.height or 380, 380))
+        return figure_widget(fig, css)
+
+
+class GroupPage:
+    """Choose a grouping column and a test, run the comparison, read its plots."""
+
+    def __init__(self, state: WorkbenchState) -> None:
+        self.state = state
+        columns = state.grouping_columns()
+        self.by = w.Dropdown(
+            options=columns, value=columns[0] if columns else None, description="Group by"
+        )
+        self.test = w.Dropdown(
+            options=[("permutation test", "permutation"), ("rank test", "rank")], description="Test"
+        )
+        self.run = button(
+            "Compare groups", "ethoscribe-compare-button", self._run, state.say, "primary"
+        )
+        if not columns:
+            self.run.disabled = True
+        self.summary = w.HTML()
+        self.figure = figure_widget(self._figure(), "ethoscribe-groups")
+        self.table = w.HTML()
+        state.on("comparison", self.draw)
+        hint = (
+            "Compares every motif's time budget, bout rate and durations between the groups "
+            "(one value per session), with Benjamini-Hochberg q-values. Results are written to "
+            "comparison_&lt;column&gt;/ in the workspace."
+            if columns
+            else "sessions.csv has no column that splits the sessions into groups; give a "
+            "manifest with a group column when discovering."
+        )
+        self.widget = w.VBox(
+            [
+                heading("Group comparison"),
+                note(hint),
+                w.HBox([self.by, self.test, self.run]),
+                self.summary,
+                self.figure,
+                self.table,
+            ]
+        )
+
+    def _run(self) -> None:
+        if self.by.value:
+            self.state.run_comparison(self.by.value, self.test.value)
+
+    def _figure(self):
+        result = self.state.comparison
+        if result is None:
+            import plotly.graph_objects as go
+
+            fig = go.Figure()
+            fig.add_annotation(
+                text="no comparison run yet",
+                showarrow=False,
+                x=0.5,
+                y=0.5,
+                xref="paper",
+                yref="paper",
+            )
+            fig.update_layout(
+                width=FIGURE_WIDTH,
+                height=220,
+                template="plotly_white",
+                xaxis={"visible": False},
+                yaxis={"visible": False},
+            )
+            return fig
+        fig = group_difference_figure(result["stats"], max_rows=30)
+        fig.update_layout(width=FIGURE_WIDTH, template="plotly_white", margin={"l": 330})
+        return fig
+
+    def draw(self) -> None:
+        result = self.state.comparison
+        self.summary.value = (
+            f"<div style='font-size:13px;line-height:1.5;max-width:{FIGURE_WIDTH}px'>"
+            f"{html.escape(result['summary'])}</div>"
+        )
+        redraw(self.figure, self._figure())
+        stats: pd.DataFrame = result["stats"]
+        cols = [
+            c
+            for c in ("metric", "motif", "group_a", "group_b", "effect_size", "q_value")
+            if c in stats.columns
+        ]
+        top = stats.sort_values("q_value", kind="stable")[cols]
+        self.table.value = table_html(top, 15)

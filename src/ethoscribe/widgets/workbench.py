@@ -1,0 +1,182 @@
+"""The workbench: a header (workspace, save, messages) over four pages -- Motifs, Ethogram,
+Study and Groups -- all bound to one :class:`~ethoscribe.widgets.state.WorkbenchState`."""
+
+from __future__ import annotations
+
+import html
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+import ipywidgets as w
+
+from ethoscribe.widgets.common import button, message_html, note
+from ethoscribe.widgets.ethogram import EthogramPage
+from ethoscribe.widgets.motifs import CurationDesk, MotifList, MotifPortrait
+from ethoscribe.widgets.state import WorkbenchState
+from ethoscribe.widgets.study import GroupPage, StudyPage
+
+PAGES = ("Motifs", "Ethogram", "Study", "Groups")
+
+
+class Workbench(w.VBox):
+    """The workbench widget; display it in a notebook. Its methods edit like its buttons do.
+
+    Parameters
+    ----------
+    path : str or Path
+        A workspace folder (from ``discover`` or ``label_sessions``).
+    skeleton : sequence of (str, str), optional
+        Keypoint pairs to draw as bones. Default: the bundled body plan whose keypoints match,
+        else the minimum spanning tree of the mean keypoint distances.
+    write_behind : bool
+        Write edits to disk on a background thread (the view updates at once).
+    """
+
+    def __init__(
+        self,
+        path: str | Path,
+        skeleton: Sequence[tuple[str, str]] | None = None,
+        write_behind: bool = True,
+    ) -> None:
+        self.state = state = WorkbenchState(path, skeleton, write_behind)
+        self.motif_list = MotifList(state)
+        self.portrait = MotifPortrait(state)
+        self.desk = CurationDesk(state)
+        self.ethogram = EthogramPage(state)
+        self.study = StudyPage(state)
+        self.groups = GroupPage(state)
+        self.closer = w.Dropdown(options=[], layout=w.Layout(width="280px"))
+        self.closer_button = button("Play it", "ethoscribe-closer-button", self._closer, state.say)
+        self.save_button = button(
+            "Save ethogram", "ethoscribe-save-button", self.state.save, state.say, "success"
+        )
+        self.message = w.HTML()
+        self.message.add_class("ethoscribe-message")
+        state.on("message", self._show_message)
+        state.on("motif", self._list_examples)
+        state.on("names", self._list_examples)
+        state.on("bout", self._to_ethogram)
+        self._list_examples()
+        self.tabs = w.Tab(
+            children=[
+                self._motif_page(),
+                self.ethogram.widget,
+                self.study.widget,
+                self.groups.widget,
+            ]
+        )
+        self.tabs.titles = PAGES
+        self.tabs.add_class("ethoscribe-pages")
+        self.tabs.observe(self._page_shown, "selected_index")
+        super().__init__([self._header(), self.tabs], layout=w.Layout(width="100%"))
+        self.add_class("ethoscribe-workbench")
+
+    # --- layout ---------------------------------------------------------------------------
+    def _header(self) -> w.Widget:
+        s = self.state.summary
+        name = html.escape(self.state.ws.path.resolve().name)
+        facts = (
+            f"{s.get('n_sessions')} sessions · {s.get('n_frames'):,} frames · "
+            f"{len(self.state.motifs)} motifs · {html.escape(str(self.state.ws.path.resolve()))}"
+        )
+        title = w.HTML(
+            f"<div style='font-size:18px;font-weight:600'>ethoscribe workbench: {name}</div>"
+            f"<div style='color:#555;font-size:12px'>{facts}</div>"
+        )
+        bar = w.HBox(
+            [title, self.save_button],
+            layout=w.Layout(justify_content="space-between", align_items="center"),
+        )
+        return w.VBox([bar, self.message], layout=w.Layout(padding="4px 2px 8px 2px"))
+
+    def _motif_page(self) -> w.Widget:
+        p = self.portrait
+        top = w.HBox([self.motif_list.widget, p.centre, p.right])
+        closer = w.VBox(
+            [
+                p.neighbours,
+                note("Watch an example bout move, with its video if the session has one:"),
+                w.HBox([self.closer, self.closer_button]),
+            ]
+        )
+        middle = w.HBox([p.examples, closer])
+        return w.VBox([top, middle, self.desk.widget])
+
+    # --- bindings -------------------------------------------------------------------------
+    def _show_message(self) -> None:
+        self.message.value = message_html(*self.state.message)
+
+    def _list_examples(self) -> None:
+        self._examples = self.state.examples(self.state.motif or "")
+        options = [(self.state.bout_caption(b), i) for i, b in enumerate(self._examples)]
+        self.closer.options = options
+        self.closer.value = 0 if options else None
+
+    def _closer(self) -> None:
+        if self.closer.value is not None:
+            self.state.select_bout(self._examples[self.closer.value])
+
+    def _page_shown(self, change) -> None:
+        page = PAGES[change["new"]] if change["new"] is not None else ""
+        self.portrait.set_visible(page == "Motifs")
+        self.ethogram.set_visible(page == "Ethogram")
+
+    def _to_ethogram(self) -> None:
+        self.tabs.selected_index = PAGES.index("Ethogram")
+
+    def close(self) -> None:
+        """Finish writing pending edits, then close the widgets."""
+        self.state.close()
+        super().close()
+
+    # --- the same edits from code ----------------------------------------------------------
+    def _report(self, ok: bool) -> None:
+        print(self.state.message[1])
+
+    def rename_motif(self, motif: str, name: str) -> None:
+        """Give ``motif`` a new ``name`` (journaled)."""
+        self._report(self.state.edit("rename", motif=motif, name=name))
+
+    def merge_motifs(self, motifs: Sequence[str], into: str) -> None:
+        """Give all ``motifs`` one name ``into`` (journaled)."""
+        self._report(self.state.edit("merge", motifs=list(motifs), into=into))
+
+    def split_motif(self, motif: str, names: Sequence[str]) -> None:
+        """Split ``motif`` in two by its frames' features (journaled)."""
+        self._report(self.state.edit("split", motif=motif, names=list(names)))
+
+    def unassign_motif(self, motif: str) -> None:
+        """Set ``motif`` aside as unassigned (journaled)."""
+        self._report(self.state.edit("unassign", motif=motif))
+
+    def undo(self) -> None:
+        self._report(self.state.edit("undo"))
+
+    def redo(self) -> None:
+        self._report(self.state.edit("redo"))
+
+    def save(self) -> dict[str, Path] | None:
+        """Write ``exports/`` and ``report.html`` into the workspace; prints where."""
+        files = self.state.save()
+        print(self.state.message[1])
+        return files
+
+    def compare(self, by: str = "group", test: str = "permutation") -> Any:
+        """Run the group comparison (as the Groups page does) and show its page."""
+        if self.state.run_comparison(by, test):
+            self.groups.by.value = by if by in self.groups.by.options else self.groups.by.value
+            self.tabs.selected_index = PAGES.index("Groups")
+        print(self.state.message[1])
+
+
+def workbench(path: str | Path, skeleton: Sequence[tuple[str, str]] | None = None) -> Workbench:
+    """Open the workbench on a workspace folder (display the result in a notebook).
+
+    Examples
+    --------
+    >>> import ethoscribe
+    >>> wb = ethoscribe.workbench("study_ws")  # doctest: +SKIP
+    >>> wb  # doctest: +SKIP
+    """
+    return Workbench(path, skeleton)

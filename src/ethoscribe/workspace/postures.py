@@ -1,0 +1,323 @@
+"""Egocentric postures of a workspace's sessions, computed once and cached in ``postures/``.
+
+A workspace keeps labels and features but not keypoints. To draw motifs, each session's source
+file (``sessions.csv``, column ``source``) is read again as discovery read it (fps and the
+``px_per_unit`` calibration of its row), cleaned with the model's cleaning parameters
+(``BehaviourModel.cleaning_``) and turned into body-frame keypoints with the fitted feature
+pipeline (:func:`ethoscribe.postures.egocentric_postures`). The result is saved as
+``postures/<session>.npz`` (float32, written atomically) with a provenance key; a cache whose key
+no longer matches the source file or the model is recomputed.
+
+Skeletons to draw: :func:`skeleton_for` takes the user's edges, else the edges of a bundled
+simulated body plan whose keypoints match exactly, else the minimum spanning tree of the mean
+keypoint distances (:func:`ethoscribe.postures.minimum_spanning_skeleton`).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from collections import OrderedDict
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ethoscribe.clean import calibrate, clean
+from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
+from ethoscribe.io._atomic import atomic_write
+from ethoscribe.postures import (
+    egocentric_postures,
+    mean_postures,
+    minimum_spanning_skeleton,
+    posture_sums,
+)
+from ethoscribe.segment.model import BehaviourModel
+from ethoscribe.workspace.folder import Workspace
+from ethoscribe.workspace.reading import read_sessions
+
+POSTURE_FOLDER = "postures"
+CACHE_FORMAT = 1
+
+
+@dataclass(frozen=True)
+class SessionPostures:
+    """Body-frame keypoints of one session: ``coords`` (frames, animals, keypoints, dims)."""
+
+    session: str
+    coords: np.ndarray
+    animals: tuple[str, ...]
+    keypoints: tuple[str, ...]
+    fps: float
+    units: str
+
+
+def source_file(ws: Workspace, session: str, column: str = "source") -> Path:
+    """The file named in ``sessions.csv`` for ``session`` (``source`` or e.g. ``video``).
+
+    A relative path is tried from the current folder, the workspace's parent and the workspace.
+    """
+    row = _row(ws, session)
+    value = row.get(column)
+    if value is None or (isinstance(value, float) and np.isnan(value)) or not str(value).strip():
+        raise InputError(f"{ws.path / 'sessions.csv'}: session '{session}' has no {column!r}")
+    path = Path(str(value)).expanduser()
+    tries = [path] if path.is_absolute() else [path, ws.path.parent / path, ws.path / path]
+    for p in tries:
+        if p.is_file():
+            return p.resolve()
+    msg = (
+        f"session '{session}': file {str(value)!r} (sessions.csv, column {column!r}) was not "
+        f"found (tried {[str(p) for p in tries]}); put it back or correct sessions.csv"
+    )
+    raise InputError(msg)
+
+
+def _row(ws: Workspace, session: str) -> dict[str, Any]:
+    table = ws.sessions
+    rows = table[table["session"].astype(str) == str(session)]
+    if rows.empty:
+        known = table["session"].astype(str).tolist()
+        raise InputError(f"no session {session!r} in {ws.path / 'sessions.csv'}; known: {known}")
+    return rows.iloc[0].to_dict()
+
+
+def _key(source: Path, model: BehaviourModel) -> str:
+    stat = source.stat()
+    pipe = model.features_
+    key = {
+        "format": CACHE_FORMAT,
+        "source": str(source),
+        "size": stat.st_size,
+        "mtime_ns": stat.st_mtime_ns,
+        "cleaning": model.cleaning_.to_dict(),
+        "origin": pipe.origin_,
+        "axis": list(pipe.axis_),
+        "up_axis": pipe.up_axis,
+    }
+    return json.dumps(key, sort_keys=True, default=str)
+
+
+def _cache_path(ws: Workspace, session: str) -> Path:
+    return ws.path / POSTURE_FOLDER / f"{session}.npz"
+
+
+def _load(path: Path, key: str | None) -> SessionPostures | None:
+    try:
+        with np.load(path, allow_pickle=False) as z:
+            if key is not None and str(z["key"]) != key:
+                return None
+            return SessionPostures(
+                session=str(z["session"]),
+                coords=z["coords"],
+                animals=tuple(str(a) for a in z["animals"]),
+                keypoints=tuple(str(k) for k in z["keypoints"]),
+                fps=float(z["fps"]),
+                units=str(z["units"]),
+            )
+    except (OSError, KeyError, ValueError):
+        return None  # damaged or foreign file: recompute
+
+
+def _save(path: Path, p: SessionPostures, key: str) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with atomic_write(path, "wb") as fh:
+        np.savez(
+            fh,
+            coords=p.coords.astype(np.float32),
+            session=np.array(p.session),
+            animals=np.array(p.animals),
+            keypoints=np.array(p.keypoints),
+            fps=np.array(p.fps),
+            units=np.array(p.units),
+            key=np.array(key),
+        )
+
+
+def compute_session_postures(
+    ws: Workspace, session: str, model: BehaviourModel | None = None
+) -> SessionPostures:
+    """Read, clean and turn one session into body-frame keypoints (no cache involved)."""
+    model = ws.model() if model is None else model
+    row = _row(ws, session)
+    source = source_file(ws, session)
+    fps = row.get("fps")
+    fps = float(fps) if fps is not None and np.isfinite(fps) else None
+    (tracks,), _ = read_sessions([source], fps=fps, progress=False)
+    px = row.get("px_per_unit")
+    if px is not None and not (isinstance(px, float) and np.isnan(px)):
+        tracks = calibrate(tracks, float(px), str(row.get("units") or "mm"))
+    cleaned, _ = clean(tracks, model.cleaning_)
+    ego = egocentric_postures(cleaned, model.features_)
+    n_frames = row.get("n_frames")
+    if n_frames is not None and len(ego) != int(n_frames) and not model.cleaning_.target_fps:
+        msg = (
+            f"session '{session}': {source} now has {len(ego)} frames but discovery read "
+            f"{int(n_frames)}; the file changed since the workspace was made"
+        )
+        raise WorkspaceError(msg)
+    return SessionPostures(
+        str(session), ego.astype(np.float32), tuple(cleaned.animals), tuple(cleaned.keypoints),
+        float(cleaned.fps), str(cleaned.units),
+    )  # fmt: skip
+
+
+def session_postures(
+    ws: Workspace, session: str, model: BehaviourModel | None = None
+) -> SessionPostures:
+    """Body-frame keypoints of ``session``, from ``postures/`` or computed and cached there.
+
+    Examples
+    --------
+    >>> p = session_postures(Workspace("study_ws"), "session_01")  # doctest: +SKIP
+    >>> p.coords.shape  # (frames, animals, keypoints, dims)  # doctest: +SKIP
+    (9000, 1, 10, 2)
+    """
+    path = _cache_path(ws, session)
+    model = ws.model() if model is None else model
+    key = _key(source_file(ws, session), model)
+    if path.is_file():
+        cached = _load(path, key)
+        if cached is not None:
+            return cached
+    fresh = compute_session_postures(ws, session, model)
+    _save(path, fresh, key)
+    return fresh
+
+
+def cached_postures(ws: Workspace, session: str) -> SessionPostures | None:
+    """The cached postures of ``session`` without checking them against the source (fast)."""
+    path = _cache_path(ws, session)
+    return _load(path, None) if path.is_file() else None
+
+
+def skeleton_for(
+    keypoints: Sequence[str],
+    skeleton: Sequence[tuple[str, str]] | None = None,
+    postures: np.ndarray | None = None,
+) -> tuple[tuple[tuple[str, str], ...], str]:
+    """Edges to draw between keypoints, and a sentence saying where they came from.
+
+    ``skeleton`` (the user's) wins; then a bundled body plan with exactly these keypoints; then
+    the minimum spanning tree of the mean keypoint distances of ``postures`` (N, K, D).
+    """
+    names = tuple(str(k) for k in keypoints)
+    if skeleton is not None:
+        edges = tuple((str(a), str(b)) for a, b in skeleton)
+        unknown = sorted({k for e in edges for k in e} - set(names))
+        if unknown:
+            raise InputError(
+                f"skeleton names unknown keypoints {unknown}; keypoints: {list(names)}"
+            )
+        return edges, "skeleton given by the user"
+    from ethoscribe.simulate import BODY_PLANS  # body plans of the bundled simulated animals
+
+    for plan in BODY_PLANS.values():
+        if set(plan.keypoints) == set(names):
+            return tuple(plan.skeleton), f"skeleton of the '{plan.name}' body plan"
+    if postures is None:
+        raise InputError("no skeleton given and no postures to derive one from")
+    edges = minimum_spanning_skeleton(postures, names)
+    return edges, "skeleton: nearest-neighbour tree of the mean keypoint distances"
+
+
+def posture_files(ws: Workspace) -> list[Path]:
+    """The cached posture files of a workspace (may be empty)."""
+    folder = ws.path / POSTURE_FOLDER
+    return sorted(folder.glob("*.npz")) if folder.is_dir() else []
+
+
+def clear_postures(ws: Workspace) -> None:
+    """Remove the posture cache (it is rebuilt on next use)."""
+    for path in posture_files(ws):
+        os.remove(path)
+
+
+class PostureLibrary:
+    """Postures of a workspace for browsing: mean posture per state, frames of any bout.
+
+    On :meth:`set_states` every session's postures are loaded (computed and cached the first
+    time) and summed per state, so the mean posture of any motif -- any set of states -- is a
+    small sum. Sessions are then kept in memory a few at a time. A session whose source file is
+    missing is left out and named in :attr:`problem`; nothing else stops working.
+    """
+
+    def __init__(
+        self,
+        ws: Workspace,
+        skeleton: Sequence[tuple[str, str]] | None = None,
+        max_sessions: int = 16,
+    ) -> None:
+        self.ws, self._skeleton, self._max = ws, skeleton, int(max_sessions)
+        self._cache: OrderedDict[str, SessionPostures] = OrderedDict()
+        self._model: BehaviourModel | None = None
+        self.problem: str | None = None
+        self.keypoints: tuple[str, ...] = ()
+        self.units = ""
+        self.edges: tuple[tuple[str, str], ...] = ()
+        self.edges_note = ""
+        self._sums = self._counts = None
+
+    @property
+    def available(self) -> bool:
+        return self._sums is not None
+
+    def session(self, session: str) -> SessionPostures:
+        """Postures of one session (from memory, the cache file, or computed)."""
+        if session in self._cache:
+            self._cache.move_to_end(session)
+            return self._cache[session]
+        if self._model is None:
+            self._model = self.ws.model()
+        p = session_postures(self.ws, session, self._model)
+        self._cache[session] = p
+        while len(self._cache) > self._max:
+            self._cache.popitem(last=False)
+        return p
+
+    def set_states(self, frame_states: pd.DataFrame, n_states: int) -> None:
+        """Sum postures per state; ``frame_states`` has ``session, animal, frame, state``."""
+        groups = frame_states.groupby(["session", "animal"], sort=False).indices
+        frames = frame_states["frame"].to_numpy(np.int64)
+        states = frame_states["state"].to_numpy(np.int64)
+        sums = counts = None
+        missing = []
+        for (session, animal), rows in groups.items():
+            try:
+                p = self.session(str(session))
+            except EthoscribeError as exc:
+                missing.append(f"{session}: {exc}")
+                continue
+            a = p.animals.index(str(animal)) if str(animal) in p.animals else 0
+            f = frames[rows]
+            ok = f < len(p.coords)
+            s, c = posture_sums(p.coords[f[ok], a], states[rows][ok], n_states)
+            sums, counts = (s, c) if sums is None else (sums + s, counts + c)
+            if not self.keypoints:
+                self.keypoints, self.units = p.keypoints, p.units
+                sample = p.coords[:: max(1, len(p.coords) // 2000), a]
+                self.edges, self.edges_note = skeleton_for(p.keypoints, self._skeleton, sample)
+        self._sums, self._counts = sums, counts
+        self.problem = None
+        if missing:
+            shown = "; ".join(missing[:3]) + (
+                f" (and {len(missing) - 3} more)" if len(missing) > 3 else ""
+            )
+            self.problem = f"postures of {len(missing)} recording(s) are unavailable: {shown}"
+
+    def mean_posture(self, states: Sequence[int]) -> np.ndarray:
+        """Mean body-frame posture (K, D) over the frames of ``states``."""
+        if self._sums is None:
+            raise InputError(self.problem or "no postures are available for this workspace")
+        ids = [s for s in states if s < len(self._sums)]
+        return mean_postures(self._sums, self._counts, [ids])[0]
+
+    def frames(self, session: str, animal: str, frames: np.ndarray) -> np.ndarray:
+        """Body-frame postures (n, K, D) of ``frames`` of one recording."""
+        p = self.session(str(session))
+        a = p.animals.index(str(animal)) if str(animal) in p.animals else 0
+        f = np.clip(np.asarray(frames, dtype=np.int64), 0, len(p.coords) - 1)
+        return p.coords[f, a].astype(np.float64)

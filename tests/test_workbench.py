@@ -1,0 +1,363 @@
+"""The workbench, driven from Python: set control values, click buttons, check state and files.
+
+The workspace comes from the package's simulator (4 invented voles, 20 s each, seed 3) through
+``discover``; session_01 has a tiny generated video. Each test edits its own copy.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from plotly.callbacks import Points
+
+import ethoscribe
+from ethoscribe.ethogram import bout_table
+from ethoscribe.simulate import simulate_study, write_study
+from ethoscribe.widgets import Workbench
+from ethoscribe.workspace import Workspace, discover
+from ethoscribe.workspace.postures import session_postures, skeleton_for
+
+SEED = 3
+
+
+@pytest.fixture(scope="module")
+def built(tmp_path_factory) -> Path:
+    root = tmp_path_factory.mktemp("study")
+    sessions, truths, manifest = simulate_study(n_per_group=2, duration_s=20, seed=SEED)
+    study = write_study(root / "data", sessions, truths, manifest)
+    if _tiny_video(study / "session_01.mp4"):
+        table = pd.read_csv(study / "manifest.csv")
+        table["video"] = np.where(table["session"] == "session_01", "session_01.mp4", "")
+        table.to_csv(study / "manifest.csv", index=False)
+    ws = discover([study], root / "ws", manifest=study / "manifest.csv", states=3,
+                  stability=False, progress=False)  # fmt: skip
+    model = ws.model()
+    for session in ws.sessions["session"]:  # cached once; every copy below has them
+        session_postures(ws, session, model)
+    return root / "ws"
+
+
+def _tiny_video(path: Path) -> bool:
+    """A 20 s grey-level video at 10 fps, if imageio and its ffmpeg plugin are installed."""
+    try:
+        import imageio.v2 as imageio
+        import imageio_ffmpeg  # noqa: F401 - the codec ships in this wheel
+    except ImportError:
+        return False
+    frames = [np.full((48, 64, 3), (i * 9) % 256, np.uint8) for i in range(200)]
+    imageio.mimwrite(path, frames, fps=10, macro_block_size=16)
+    return True
+
+
+@pytest.fixture
+def folder(built, tmp_path) -> Path:
+    copy = tmp_path / "ws"
+    shutil.copytree(built, copy)
+    return copy
+
+
+@pytest.fixture
+def wb(folder):
+    """A workbench writing each edit before the click returns (no writer process to start)."""
+    bench = Workbench(folder, write_behind=False)
+    yield bench
+    bench.close()
+
+
+@pytest.fixture
+def writing_behind(folder):
+    """A workbench as users get it: edits written by a writer process."""
+    bench = Workbench(folder)
+    yield bench
+    bench.close()
+
+
+@pytest.fixture(scope="module")
+def viewer(built, tmp_path_factory):
+    """One workbench for the tests that only look (they must not edit)."""
+    copy = tmp_path_factory.mktemp("viewer") / "ws"
+    shutil.copytree(built, copy)
+    bench = Workbench(copy, write_behind=False)
+    yield bench
+    bench.close()
+
+
+def _rename(wb: Workbench, name: str) -> None:
+    wb.desk.name.value = name
+    wb.desk.rename.click()
+
+
+def test_import_stays_light():
+    code = "import sys, ethoscribe; print('ipywidgets' in sys.modules, 'plotly' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.split() == ["False", "False"]
+
+
+def test_opens_with_motifs_figures_and_cached_postures(folder):
+    shutil.rmtree(folder / "postures")  # computed again on first use
+    bench = ethoscribe.workbench(folder)
+    try:
+        state = bench.state
+        assert state.motifs == ["motif_01", "motif_02", "motif_03"]
+        assert [v for _, v in bench.motif_list.list.options] == state.motif_table()[
+            "motif"
+        ].tolist()
+        assert bench.motif_list.list.value == state.motif
+        bones = bench.portrait.posture.data[0]
+        assert bones.name == "bones" and np.isfinite(np.asarray(bones.x, float)).sum() > 10
+        assert "dune_vole" in state.postures.edges_note
+        files = sorted((folder / "postures").glob("*.npz"))
+        assert [f.stem for f in files] == ["session_01", "session_02", "session_03", "session_04"]
+        with np.load(files[0], allow_pickle=False) as z:
+            assert z["coords"].dtype == np.float32 and z["coords"].shape[2:] == (10, 2)
+        assert (
+            len(bench.portrait.strip.data) == 2
+            and "Example bouts" in bench.portrait.strip.layout.title.text
+        )
+    finally:
+        bench.close()
+
+
+def test_rename_reaches_journal_and_tables(wb, folder):
+    wb.state.select_motif("motif_02")
+    _rename(wb, "long_stretch")
+    assert wb.state.message == ("ok", "Renamed 'motif_02' to 'long_stretch'.")
+    assert wb.state.motif == "long_stretch" and "long_stretch" in wb.state.bouts["motif"].values
+    assert wb.desk.name.value == ""
+    wb.state.flush()
+    last = Workspace(folder).journal()[-1]
+    assert (last["op"], last["motif"], last["name"]) == ("rename", "motif_02", "long_stretch")
+    for table in ("labels.csv", "bouts.csv"):
+        assert "long_stretch" in set(pd.read_csv(folder / table)["motif"].dropna())
+    # The relabelled in-memory bouts equal the ethogram's own bouts of the saved labels.
+    expected = bout_table(Workspace(folder).labels())
+    pd.testing.assert_frame_equal(wb.state.bouts, expected, check_dtype=False)
+
+
+BAD_INPUT = [
+    (lambda wb: _rename(wb, ""), "a motif name must be a non-empty string"),
+    (lambda wb: _rename(wb, "motif_03"), "already taken"),
+    (lambda wb: _rename(wb, "unassigned"), "'unassigned' is reserved"),
+    (lambda wb: wb.desk.undo.click(), "nothing to undo"),
+    (lambda wb: wb.desk.merge.click(), "merge needs at least two different motifs"),
+    (lambda wb: wb.desk.split.click(), "a motif name must be a non-empty string"),
+]
+
+
+def test_bad_input_gives_a_message_and_changes_nothing(wb, folder):
+    for setup, expected in BAD_INPUT:
+        wb.state.select_motif("motif_01")
+        setup(wb)
+        kind, text = wb.state.message
+        assert kind == "error" and expected in text, (expected, text)
+        shown = wb.desk.message.value
+        assert "ethoscribe-note-error" in shown and "Traceback" not in shown
+    wb.state.flush()
+    assert Workspace(folder).journal() == []
+    assert wb.state.motifs == ["motif_01", "motif_02", "motif_03"]
+
+
+def test_merge_undo_redo_and_unassign(wb, folder):
+    state = wb.state
+    state.select_motif("motif_01")
+    wb.desk.merge_with.value = ("motif_03",)
+    wb.desk.merge_into.value = "still"
+    wb.desk.merge.click()
+    assert state.motifs == ["motif_02", "still"] and state.motif == "still"
+    assert set(wb.desk.merge_with.options) == {"motif_02"}
+    wb.desk.undo.click()
+    assert state.motifs == ["motif_01", "motif_02", "motif_03"]
+    wb.desk.redo.click()
+    assert state.motifs == ["motif_02", "still"]
+    state.select_motif("motif_02")
+    wb.desk.unassign.click()
+    assert state.motifs == ["still"]
+    assert "unassigned" in state.bouts["motif"].values
+    state.flush()
+    ops = [r["op"] for r in Workspace(folder).journal()]
+    assert ops == ["merge", "undo", "redo", "unassign"]
+    assert set(pd.read_csv(folder / "bouts.csv")["motif"]) == {"still", "unassigned"}
+
+
+def test_split_goes_through_the_journal(wb, folder):
+    wb.state.select_motif("motif_01")
+    for box, name in zip(wb.desk.split_names, ("part_a", "part_b"), strict=True):
+        box.value = name
+    wb.desk.split.click()
+    assert wb.state.message[0] == "ok", wb.state.message
+    assert {"part_a", "part_b"} <= set(wb.state.motifs) and wb.state.motif == "part_a"
+    assert Workspace(folder).journal()[-1]["op"] == "split"
+    assert np.isfinite(wb.state.postures.mean_posture([3])).all()  # a new state: new sums
+
+
+def test_sort_and_filter_the_motif_list(viewer):
+    wb = viewer
+    wb.motif_list.sort.value = "number of bouts"
+    counts = wb.state.motif_table()["n_bouts"].tolist()
+    assert counts == sorted(counts, reverse=True)
+    wb.motif_list.largest.value = False
+    assert wb.state.motif_table()["n_bouts"].tolist() == sorted(counts)
+    wb.motif_list.sort.value = "name"
+    assert [v for _, v in wb.motif_list.list.options] == ["motif_01", "motif_02", "motif_03"]
+    share = wb.state.motif_table()["time_share"].min()
+    wb.motif_list.min_share.value = float(share) + 1e-6
+    assert len(wb.motif_list.list.options) == 2
+    assert wb.motif_list.min_stability.disabled  # no stability check in this workspace
+    wb.motif_list.min_share.value = 0.0
+    wb.motif_list.sort.value = "time share"
+    wb.motif_list.largest.value = True
+    assert len(wb.motif_list.list.options) == 3
+
+
+def test_pick_a_motif_from_the_list_redraws_its_portrait(viewer):
+    wb = viewer
+    wb.motif_list.list.value = "motif_03"
+    assert wb.state.motif == "motif_03"
+    assert wb.portrait.posture.layout.title.text.startswith("motif_03")
+    assert "motif_03" in wb.portrait.neighbours.layout.title.text
+    assert wb.desk.title.value.count("motif_03") == 1
+
+
+def test_raster_click_and_bout_list_jump_to_the_bout(viewer):
+    wb = viewer
+    wb.tabs.selected_index = 1
+    wb.ethogram.session.value = "session_02"
+    assert wb.state.session == "session_02"
+    bars = [t for t in wb.ethogram.raster.data if t.type == "bar" and len(t.x)]
+    trace = bars[0]
+    wb.ethogram._clicked(
+        trace, Points(point_inds=[0], xs=[], ys=[], trace_name=trace.name, trace_index=0)
+    )
+    bout = wb.state.bout
+    assert bout["session"] == "session_02" and bout["motif"] == trace.name
+    assert bout["start_s"] <= float(trace.base[0]) + float(trace.x[0]) / 2
+    assert "session_02" in wb.ethogram.closeup.layout.title.text
+    assert wb.ethogram.step.max > 0
+    wb.ethogram.step.value = 1
+    assert f"frame {int(wb.ethogram._frames[1])}" in wb.ethogram.closeup.layout.title.text
+    assert any(t.name == "shown in close-up" for t in wb.ethogram.raster.data)
+    wb.ethogram.bouts.value = 0
+    assert wb.state.bout["start_frame"] == wb.ethogram._rows[0]["start_frame"]
+
+
+def test_example_bout_plays_on_the_ethogram_page(viewer):
+    wb = viewer
+    wb.closer.value = 0
+    wb.closer_button.click()
+    assert wb.tabs.selected_index == 1
+    assert wb.state.bout["motif"] == wb.state.motif
+
+
+def test_video_frames_beside_the_skeleton(viewer):
+    pytest.importorskip("imageio_ffmpeg", reason='pip install "ethoscribe[video]"')
+    wb = viewer
+    state = wb.state
+    with_video = [b for b in state.bouts.to_dict("records") if b["session"] == "session_01"]
+    images = state.video_frames(with_video[0], 3)
+    assert len(images) == 3 and all(png[:4] == b"\x89PNG" for png in images)
+    assert state.video_frames({**with_video[0], "session": "session_02"}, 3) == []
+    state.select_bout(with_video[0])
+    assert wb.ethogram.video.layout.display is None and wb.ethogram.video.value[:4] == b"\x89PNG"
+    motif = with_video[0]["motif"]
+    state.select_motif(next(m for m in state.motifs if m != motif))
+    state.select_motif(motif)
+    shown = wb.portrait.video.children
+    examples = state.examples(motif)
+    assert bool(shown) == any(b["session"] == "session_01" for b in examples)
+
+
+def test_group_comparison_and_its_errors(wb, folder):
+    assert wb.groups.by.options == ("group",)
+    wb.groups.run.click()
+    assert wb.state.message[0] == "ok", wb.state.message
+    assert (folder / "comparison_group" / "group_stats.csv").is_file()
+    assert len(wb.groups.figure.data) == 2 and "Compared 4 sessions" in wb.groups.summary.value
+    wb.state.run_comparison("subject")
+    kind, text = wb.state.message
+    assert kind == "error" and "single session" in text
+
+
+def test_save_writes_exports_and_report(wb, folder):
+    wb.state.select_motif("motif_01")
+    _rename(wb, "resting_like")
+    wb.save_button.click()
+    kind, text = wb.state.message
+    assert kind == "ok" and str(folder.resolve()) in text
+    for name in (
+        "labels.csv",
+        "bouts.csv",
+        "transitions.csv",
+        "time_budget.csv",
+        "bout_durations.csv",
+        "transition_matrix.csv",
+        "motif_names.csv",
+    ):
+        assert (folder / "exports" / name).is_file(), name
+    assert "resting_like" in set(pd.read_csv(folder / "exports" / "bouts.csv")["motif"])
+    assert "resting_like" in (folder / "report.html").read_text()
+
+
+def test_edits_written_behind_and_a_failed_write_reloads_the_names(writing_behind, folder):
+    wb = writing_behind
+    _rename(wb, "first")
+    wb.state.flush()
+    assert Workspace(folder).journal()[-1]["name"] == "first"
+    wb.desk.undo.click()
+    wb.state.flush()
+    with Workspace(folder).lock():  # another program holds the workspace
+        _rename(wb, "never_saved")
+        assert wb.state.motif == "never_saved"
+        wb.state.flush()
+    kind, text = wb.state.message
+    assert kind == "error" and "could not be saved" in text and "in use" in text
+    assert wb.state.motifs == ["motif_01", "motif_02", "motif_03"]
+    _rename(wb, "saved_now")
+    wb.state.flush()
+    assert Workspace(folder).journal()[-1]["name"] == "saved_now"
+
+
+def test_code_methods_print_the_message(wb, capsys):
+    wb.rename_motif("motif_01", "from_code")
+    wb.merge_motifs(["motif_02", "motif_03"], into="joined")
+    wb.undo()
+    wb.rename_motif("nope", "x")
+    out = capsys.readouterr().out.splitlines()
+    assert out[:3] == [
+        "Renamed 'motif_01' to 'from_code'.",
+        "Merged 'motif_02', 'motif_03' into 'joined'.",
+        "Undid the last edit.",
+    ]
+    assert out[3].startswith("unknown motif 'nope'")
+
+
+def test_missing_source_keeps_everything_else_working(folder):
+    sessions = pd.read_csv(folder / "sessions.csv")
+    sessions["source"] = "/nowhere/" + sessions["session"] + ".parquet"
+    sessions.to_csv(folder / "sessions.csv", index=False)
+    shutil.rmtree(folder / "postures")
+    bench = Workbench(folder, write_behind=False)
+    try:
+        assert not bench.state.postures.available
+        assert "not found" in bench.state.postures.problem
+        assert "not found" in bench.portrait.posture.layout.annotations[0].text
+        _rename(bench, "still_works")
+        assert json.loads((folder / "journal.jsonl").read_text().splitlines()[-1])["op"] == "rename"
+    finally:
+        bench.close()
+
+
+def test_skeleton_choice():
+    edges, note = skeleton_for(["a", "b"], [("a", "b")])
+    assert edges == (("a", "b"),) and "user" in note
+    line = np.array([[[0.0, 0], [2, 0], [1, 0]]])
+    edges, note = skeleton_for(["p", "q", "r"], None, line)
+    assert edges == (("p", "r"), ("q", "r")) and "tree" in note
+    with pytest.raises(ethoscribe.InputError, match="unknown keypoints"):
+        skeleton_for(["a"], [("a", "z")])
