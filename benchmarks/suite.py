@@ -171,7 +171,9 @@ def stage_discover(n: int, data: Path) -> dict:
     out = Path(tempfile.mkdtemp(prefix="bench-discover-"))
     ws = discover([data], out / "ws", manifest=data / "manifest.csv", progress=False)
     labels = ws.state_labels().merge(
-        pd.read_parquet(data / "truth" / "frames.parquet"), on=["session", "frame"], suffixes=("", "_true")
+        pd.read_parquet(data / "truth" / "frames.parquet"),
+        on=["session", "frame"],
+        suffixes=("", "_true"),
     )
     valid = labels[labels["state"] >= 0]
     return {
