@@ -115,6 +115,25 @@ def test_band_power_of_a_sinusoid_peaks_in_its_band_like_welch():
     assert causal[2] == pytest.approx(amp**2 / 2, rel=0.05)
 
 
+def test_summed_band_power_is_the_power_of_the_vector_signal():
+    # Two sinusoids in two channels: the summed power is A1^2/2 + A2^2/2 (Parseval) and equals
+    # the sum of the per-channel powers (the smoothing is linear) offline and causally.
+    fps = 30.0
+    t = np.arange(int(60 * fps)) / fps
+    x = np.c_[1.5 * np.sin(2 * np.pi * 2.0 * t), 0.5 * np.sin(2 * np.pi * 2.0 * t + 1.0)]
+    x[400:405, 1] = np.nan
+    for causal in (False, True):
+        each = band_power(x, fps, [1.0, 2.0, 4.0], causal=causal)
+        total = band_power(x, fps, [1.0, 2.0, 4.0], causal=causal, sum_channels=True)
+        assert total.shape == (len(t), 1, 3)
+        ok = np.isfinite(x).all(1)
+        # equal but where the smoother undershoots zero (clipped per channel or in the sum)
+        np.testing.assert_allclose(total[ok, 0], each[ok].sum(1), rtol=1e-9, atol=1e-3)
+        assert np.isnan(total[~ok]).all()
+        inner = total[600:-300, 0, 1].mean()
+        assert inner == pytest.approx((1.5**2 + 0.5**2) / 2, rel=0.05)  # Parseval
+
+
 def test_causal_band_power_uses_only_the_past():
     rng = np.random.default_rng(3)  # seed 3
     x = rng.normal(size=(500, 2))

@@ -20,6 +20,7 @@ from ethoscribe.geometry import rotate_to_axis
 from ethoscribe.pose import PoseTracks
 
 NAMES = ["tail_base", "mid", "neck", "nose", "ear_left", "ear_right"]
+DETAILED = {"feature_set": "detailed", "band_components": 3}  # the per-keypoint column set
 BODY = np.array([[-4.0, 0.0], [0.0, 0.0], [2.5, 0.0], [4.5, 0.0], [3.0, 0.8], [3.0, -0.8]])
 
 
@@ -65,8 +66,17 @@ def turned(tracks: PoseTracks, angle: float, shift=(5.0, -3.0)) -> PoseTracks:
 
 
 def test_fit_chooses_and_reports_the_body_axis():
-    pipe = FeaturePipeline().fit([walking(seed=1), walking(seed=2, session="b")])
-    assert pipe.axis_ == ("tail_base", "nose")
+    sessions = [walking(seed=1), walking(seed=2, session="b")]
+    compact = FeaturePipeline().fit(sessions)
+    assert compact.columns_ == (
+        *(f"posture_pc{i}" for i in range(1, compact.n_components_ + 1)),
+        "log_centroid_speed_cm_s", "log_turning_speed_rad_s", "log_posture_speed_cm_s",
+        *(f"log_posture_band_{f}hz" for f in ("0.5", "1", "2", "4", "8")),
+    )  # fmt: skip
+    logged = np.array([c.startswith("log_") for c in compact.columns_])
+    assert (compact.log_offset_[logged] > 0).all() and (compact.log_offset_[~logged] == 0).all()
+    pipe = FeaturePipeline(**DETAILED).fit(sessions)
+    assert pipe.axis_ == compact.axis_ == ("tail_base", "nose")
     assert pipe.origin_ is None
     assert "tail_base -> nose" in pipe.axis_report_ and "centroid" in pipe.axis_report_
     assert pipe.axis_details_["rule"] == "travel"
@@ -74,6 +84,7 @@ def test_fit_chooses_and_reports_the_body_axis():
     json.dumps(pipe.axis_details_)
     assert pipe.keypoints_ == tuple(NAMES) and pipe.n_dims_ == 2
     assert pipe.columns_[:2] == ("posture_pc1", "posture_pc2")
+    assert not pipe.log_offset_.any()  # the detailed set stays linear
     assert "centroid_speed_cm_s" in pipe.columns_
     assert "nose_ego_speed_cm_s" in pipe.columns_
     assert "posture_pc1_band_0.5hz" in pipe.columns_ and "posture_pc3_band_8hz" in pipe.columns_
@@ -135,7 +146,7 @@ def test_transform_one_featureset_per_animal_and_invalid_frames_kept():
     assert not sets[1].valid[200]  # its partner's features (social) are undefined there
     alone = FeaturePipeline(social=False).fit_transform([tracks])
     assert alone[1].valid[200] and not alone[0].valid[200]
-    assert "dist_to_nearest_cm" in pipe.columns_ and "facing_nearest_cos" in pipe.columns_
+    assert "log_dist_to_nearest_cm" in pipe.columns_ and "facing_nearest_cos" in pipe.columns_
     again = pipe.transform(tracks)
     np.testing.assert_array_equal(again[0].values, first.values)
     stacked = np.vstack([f.values[f.valid] for f in sets])
@@ -160,8 +171,8 @@ def test_features_do_not_change_when_the_arena_is_turned():
 def test_3d_heights_are_kept_under_rotation_about_z():
     # Invented 3-D animal: height columns equal the raw z coordinates, whatever the heading.
     tracks = walking(n=300, seed=7, dims=3)
-    pipe = FeaturePipeline(standardise=False, axis=("tail_base", "nose")).fit([tracks])
-    fs = pipe.transform(turned(tracks, 2.0))[0]
+    pipe = FeaturePipeline(standardise=False, axis=("tail_base", "nose"), **DETAILED)
+    fs = pipe.fit([tracks]).transform(turned(tracks, 2.0))[0]
     cols = [pipe.columns_.index(f"height_{k}_cm") for k in NAMES]
     ok = fs.valid
     np.testing.assert_allclose(fs.values[ok][:, cols], tracks.coords[ok, 0, :, 2], atol=1e-12)
@@ -183,7 +194,7 @@ def _rhythm(freq: float, seed: int, session: str) -> PoseTracks:
 def test_rhythmic_and_slow_movement_separate_in_band_power():
     # Recovery test on invented data: same mean posture, sway at 4 Hz versus 0.5 Hz.
     fast, slow = _rhythm(4.0, 8, "fast"), _rhythm(0.5, 9, "slow")
-    pipe = FeaturePipeline(origin="mid", axis=("tail_base", "mid"), n_components=2)
+    pipe = FeaturePipeline(origin="mid", axis=("tail_base", "mid"), n_components=2, **DETAILED)
     sets = pipe.fit_transform([fast, slow])
     np.testing.assert_allclose(
         fast.coords.mean(0), slow.coords.mean(0), atol=0.05
@@ -209,6 +220,7 @@ def test_social_features_of_two_placed_animals():
     coords = np.stack([a0, a1])[None].repeat(n, 0) + rng.normal(0, 1e-3, (n, 2, 6, 2))
     tracks = PoseTracks(coords, keypoints=NAMES, fps=30.0, units="cm")
     pipe = FeaturePipeline(axis=("tail_base", "nose"), standardise=False, n_components=2)
+    pipe.set_params(**DETAILED)
     fs0, fs1 = pipe.fit_transform([tracks])
     col = {c: i for i, c in enumerate(pipe.columns_)}
     row0, row1 = fs0.values[100], fs1.values[100]
@@ -301,7 +313,7 @@ def test_two_keypoint_body_and_optional_blocks():
     tracks = walking(n=200, seed=19)
     pair = PoseTracks(tracks.coords[:, :, [0, 3]], keypoints=["tail", "head"], fps=30.0)
     assert not pair.coords.flags.c_contiguous
-    pipe = FeaturePipeline(origin="tail")
+    pipe = FeaturePipeline(origin="tail", **DETAILED)
     sets = pipe.fit_transform([pair])
     assert pipe.n_components_ == 1  # body length is the only posture left
     assert "tail_ego_speed_px_s" not in pipe.columns_ and "head_ego_speed_px_s" in pipe.columns_
@@ -317,7 +329,7 @@ def test_speeds_are_in_units_per_second_at_any_frame_rate():
         t = np.arange(int(4 * fps)) / fps
         coords = BODY[None, None] + (12.0 * t)[:, None, None, None] * np.array([1.0, 0.0])
         tracks = PoseTracks(coords, keypoints=NAMES, fps=fps, units="cm")
-        pipe = FeaturePipeline(standardise=False, n_components=1).fit([tracks])
+        pipe = FeaturePipeline(standardise=False, n_components=1, **DETAILED).fit([tracks])
         fs = pipe.transform(tracks)[0]
         col = {c: i for i, c in enumerate(pipe.columns_)}
         np.testing.assert_allclose(fs.values[:, col["centroid_speed_cm_s"]], 12.0, atol=1e-9)
@@ -372,3 +384,47 @@ def test_featureset_checks_its_shapes():
         FeatureSet(np.zeros((3, 2)), ("a",), np.ones(3, bool), "s", "m", 30.0)
     with pytest.raises(InputError, match="valid"):
         FeatureSet(np.full((3, 1), np.nan), ("a",), np.ones(3, bool), "s", "m", 30.0)
+
+
+def test_compact_log_offsets_are_the_noise_floor_quantile():
+    # log(x + c) with c = 5 % quantile of x over the fitted frames (numpy.quantile as reference)
+    tracks = [walking(seed=21), walking(seed=22, session="b")]
+    compact = FeaturePipeline(standardise=False).fit(tracks)
+    detailed = FeaturePipeline(standardise=False, **DETAILED)
+    i = detailed.fit([tracks[0]]).columns_.index("centroid_speed_cm_s")
+    speeds = [f.values[:, i] for t in tracks for f in detailed.fit([t]).transform(t)]
+    pooled = np.concatenate(speeds)
+    offset = np.quantile(pooled[np.isfinite(pooled)], 0.05)  # numpy.quantile
+    j = compact.columns_.index("log_centroid_speed_cm_s")
+    assert compact.log_offset_[j] == pytest.approx(offset, rel=1e-12)
+    values = compact.transform(tracks[0])[0].values[:, j]
+    np.testing.assert_allclose(values, np.log(speeds[0] + offset), rtol=1e-12)
+
+
+def test_compact_posture_band_is_the_rms_of_the_whole_body_sway():
+    # Invented sway of amplitude a_k on four keypoints: the band amplitude of the whole posture
+    # is the RMS of the sinusoid, sqrt(sum a_k^2 / 2) (a textbook identity), in its own band.
+    fast, slow = _rhythm(4.0, 8, "fast"), _rhythm(0.5, 9, "slow")
+    pipe = FeaturePipeline(origin="mid", axis=("tail_base", "mid"), n_components=2)
+    pipe.set_params(standardise=False)
+    sets = pipe.fit_transform([fast, slow])
+    rms = 0.8 * np.sqrt(np.sum(np.array([0.5, 1.0, 0.7, 0.7]) ** 2) / 2)
+    col = {c: i for i, c in enumerate(pipe.columns_)}
+    inner = slice(150, -150)
+    for fs, band, other in ((sets[0], "4hz", "0.5hz"), (sets[1], "0.5hz", "4hz")):
+        j, k = col[f"log_posture_band_{band}"], col[f"log_posture_band_{other}"]
+        amp = np.exp(fs.values[inner, j]) - pipe.log_offset_[j]
+        assert np.median(amp) == pytest.approx(rms, rel=0.1)
+        assert np.median(np.exp(fs.values[inner, k]) - pipe.log_offset_[k]) < 0.2 * rms
+
+
+def test_a_state_saved_before_feature_sets_loads_as_the_detailed_set():
+    tracks = walking(n=300, seed=23)
+    pipe = FeaturePipeline(**DETAILED).fit([tracks])
+    meta, arrays = pipe.to_state()
+    del meta["params"]["feature_set"], arrays["log_offset_"]  # as written by version 0.1
+    loaded = FeaturePipeline.from_state(meta, arrays)
+    assert loaded.feature_set == "detailed" and loaded.columns_ == pipe.columns_
+    np.testing.assert_array_equal(
+        loaded.transform(tracks)[0].values, pipe.transform(tracks)[0].values
+    )

@@ -311,6 +311,7 @@ def band_power(
     frequencies: Sequence[float],
     causal: bool = False,
     order: int = 2,
+    sum_channels: bool = False,
 ) -> np.ndarray:
     """Power of each channel in one-octave bands around several centre frequencies.
 
@@ -327,11 +328,16 @@ def band_power(
         False: zero-phase ``sosfiltfilt``. True: ``sosfilt`` (past frames only).
     order : int
         Butterworth order of the band-pass.
+    sum_channels : bool
+        Return the power summed over channels, shape (F, 1, n_frequencies): the power of a
+        vector signal (e.g. a whole posture). The smoothing is linear, so offline the squares
+        are summed before it and one channel is smoothed instead of C.
 
     Returns
     -------
     array, shape (F, C, n_frequencies)
-        Power in squared signal units; NaN on missing frames.
+        Power in squared signal units; NaN on missing frames (with ``sum_channels``, where
+        any channel is missing).
 
     Examples
     --------
@@ -343,17 +349,23 @@ def band_power(
     x = _as_2d(signal)
     fps = _check_positive(fps, "fps")
     if causal:
-        return CausalBandPower(x.shape[1], fps, frequencies, order).process(x)
+        out = CausalBandPower(x.shape[1], fps, frequencies, order).process(x)
+        return out.sum(axis=1, keepdims=True) if sum_channels else out
     xt = np.ascontiguousarray(_interp_fill(x).T)
-    out = np.empty((*x.shape, len(frequencies)))
+    missing = ~np.isfinite(x)
+    if sum_channels:
+        missing = missing.any(axis=1, keepdims=True)
+    out = np.empty((len(x), missing.shape[1], len(frequencies)))
     for k, f in enumerate(frequencies):
         bp, lp = band_filters(f, fps, order)
         pad = min(len(x) - 1, max(3 * (2 * len(bp) + 1), int(2 * fps / f)))
         y = sps.sosfiltfilt(bp, xt, axis=-1, padlen=pad)
         np.multiply(y, y, out=y)
+        if sum_channels:
+            y = y.sum(axis=0, keepdims=True)
         out[:, :, k] = sps.sosfiltfilt(lp, y, axis=-1, padlen=pad).T
     np.maximum(out, 0.0, out=out)
-    out[~np.isfinite(x)] = np.nan
+    out[missing] = np.nan
     return out
 
 

@@ -3,10 +3,33 @@
 Per frame, each animal's keypoints are put in its own body frame (origin at a keypoint or the
 centroid; x along the tail-to-head axis; in 3-D heights kept). Postures are projected on
 principal components fitted over all sessions; speeds are in the tracks' units per second;
-multi-scale band amplitudes and rolling variability of the leading components describe rhythm;
-with several animals, social features describe the nearest other animal.
+band amplitudes describe rhythm; with several animals, social features describe the nearest
+other animal.
 
-Column scheme (``<u>`` = the tracks' units, e.g. ``cm``)::
+Two column sets (``<u>`` = the tracks' units, e.g. ``cm``). ``feature_set="compact"``
+(default), for segmentation::
+
+    posture_pc<i>                       egocentric posture on principal component i
+    log_centroid_speed_<u>_s            log(speed of the keypoint centroid + c)
+    log_turning_speed_rad_s             log(|turning rate of the body axis| + c)
+    log_posture_speed_<u>_s             log(speed of the posture in component space + c)
+    log_posture_band_<f>hz              log(RMS amplitude of the whole posture, summed over the
+                                        components, in the one-octave band around f Hz + c)
+
+Why: a Gaussian HMM models each state by a mean and a covariance, so every column should be
+informative, low in noise and roughly Gaussian within a behaviour. Speeds and amplitudes are
+skewed over orders of magnitude (still 1-5 mm/s, walking 100-300 mm/s); their logarithm is
+close to Gaussian within a behaviour, and the offset ``c`` (``log_offset_``, the 5 % quantile
+over the fitted frames, about the tracking-noise floor) keeps noise at rest from spreading
+over many log units. One amplitude per band for the whole posture finds a rhythm in whichever
+component it lives. On the simulated example study this set (16 columns) gave an adjusted
+Rand index with the truth of 0.84 against 0.67 for the detailed set (41 columns; the same
+7-state HMM), and an EM iteration cost 3.6x less.
+Signed velocities (zero mean in every behaviour, heavy tails when walking) and one speed per
+keypoint (dominated by tracking jitter) are left out: with them walking was split in two and
+resting, scanning and freezing merged.
+
+``feature_set="detailed"``, for inspection and custom models (linear units)::
 
     posture_pc<i>                       egocentric posture on principal component i
     centroid_speed_<u>_s                speed of the keypoint centroid
@@ -16,8 +39,11 @@ Column scheme (``<u>`` = the tracks' units, e.g. ``cm``)::
     height_<keypoint>_<u>               3-D only: coordinate along the vertical axis
     posture_pc<i>_band_<f>hz            RMS amplitude of pc i in the one-octave band around f Hz
     posture_pc<i>_std_<w>s, centroid_speed_<u>_s_std_<w>s   rolling std over w seconds
+
+Social columns (both sets; the three distances log-transformed in the compact set)::
+
     dist_to_nearest_<u>, head_to_nearest_body_<u>, nearest_head_to_body_<u>,
-    facing_nearest_cos/_sin, nearest_heading_cos/_sin, nearest_approach_speed_<u>_s   social
+    facing_nearest_cos/_sin, nearest_heading_cos/_sin, nearest_approach_speed_<u>_s
 
 Social columns describe the nearest other animal (by centroid), so sessions whose animals have
 other ids still share one column set.
@@ -149,17 +175,20 @@ class _Motion:
         d, k = pipe.n_dims_, len(pipe.keypoints_)
         n_small = d + 1 + int(pipe.social_)
         bc = pipe._band_components
+        compact = pipe.feature_set == "compact"
+        n_shape = pipe.n_components_ if compact else k * d  # channels of the posture speed
         w_std = max(1, round(pipe.variability_window_s * fps))
         vw, freqs = pipe.velocity_window_s, tuple(pipe.frequencies)
         if pipe.causal:
             self.d_small = TrailingDerivative(n_small, fps, vw).process
-            self.d_ego = TrailingDerivative(k * d, fps, vw).process
+            self.d_ego = TrailingDerivative(n_shape, fps, vw).process
             self.bands = CausalBandPower(bc, fps, freqs).process if bc and freqs else None
-            self.stds = TrailingStd(bc + 1, w_std).process
+            self.stds = None if compact else TrailingStd(bc + 1, w_std).process
         else:
             self.d_small = self.d_ego = partial(derivative, fps=fps, window_s=vw)
-            self.bands = partial(band_power, fps=fps, frequencies=freqs) if bc and freqs else None
-            self.stds = partial(rolling_std, window_frames=w_std)
+            bands = partial(band_power, fps=fps, frequencies=freqs, sum_channels=compact)
+            self.bands = bands if bc and freqs else None
+            self.stds = None if compact else partial(rolling_std, window_frames=w_std)
         self._last_heading: tuple[float, float] | None = None  # (raw, unwrapped), causal only
 
     def _unwrap(self, heading: np.ndarray) -> np.ndarray:
@@ -176,12 +205,12 @@ class _Motion:
         return out
 
     def __call__(self, geo: tuple, social: np.ndarray | None) -> np.ndarray:
-        """Raw (unstandardised) features of a chunk, shape (F, n_features)."""
+        """Raw features of a chunk, shape (F, n_features): linear, before the log transform
+        and standardisation of ``FeaturePipeline._finish``."""
         p = self.pipe
         centroid, heading, ego = geo
-        n, k, d = ego.shape
+        n, d = ego.shape[0], ego.shape[2]
         bc = p._band_components
-        h = list(horizontal_axes(d, p.up_axis))
         out = np.empty((n, len(p.columns_)))
         col = 0
 
@@ -196,6 +225,25 @@ class _Motion:
         small = [centroid, self._unwrap(heading)[:, None]]
         rates = self.d_small(np.hstack(small + ([social[:, :1]] if social is not None else [])))
         speed = np.linalg.norm(rates[:, :d], axis=1)
+        if p.feature_set == "compact":
+            put(np.column_stack([speed, np.abs(rates[:, d])]))
+            put(np.linalg.norm(self.d_ego(pcs), axis=1))
+            if self.bands is not None:  # amplitude of the whole posture in each band
+                power = self.bands(pcs[:, :bc])
+                put(np.sqrt(power.sum(axis=1) if power.shape[1] > 1 else power[:, 0]))
+        else:
+            self._detailed(put, rates, speed, heading, ego, pcs)
+        if social is not None:
+            put(social)
+            put(-rates[:, d + 1])
+        return out
+
+    def _detailed(self, put, rates, speed, heading, ego, pcs) -> None:
+        """The per-keypoint columns of ``feature_set="detailed"``."""
+        p = self.pipe
+        n, k, d = ego.shape
+        bc = p._band_components
+        h = list(horizontal_axes(d, p.up_axis))
         c, s = np.cos(heading), np.sin(heading)
         vx, vy = rates[:, h[0]], rates[:, h[1]]
         put(np.column_stack([speed, vx * c + vy * s, vy * c - vx * s, rates[:, d]]))
@@ -207,10 +255,6 @@ class _Motion:
         if self.bands is not None:
             put(np.sqrt(self.bands(pcs[:, :bc])))
         put(self.stds(np.column_stack([pcs[:, :bc], speed])))
-        if social is not None:
-            put(social)
-            put(-rates[:, d + 1])
-        return out
 
 
 class FeatureStream:
@@ -302,7 +346,11 @@ def _accumulate(acc: list | None, X: np.ndarray, full: bool) -> list | None:
     return acc
 
 
+# Quantile of a magnitude (speed, amplitude) used as its log offset: the noise floor (below).
+LOG_OFFSET_QUANTILE = 0.05
+
 _FITTED_ARRAYS = (
+    "log_offset_",
     "mean_posture_",
     "pca_mean_",
     "pca_components_",
@@ -349,8 +397,12 @@ class FeaturePipeline(BaseEstimator):
         Posture principal components kept (fewer if postures span fewer dimensions).
     frequencies : sequence of float
         Centre frequencies (Hz) of the band amplitudes.
-    band_components : int
-        Leading components that get band amplitudes and rolling variability.
+    feature_set : {"compact", "detailed"}
+        Column set (module doc): "compact" (default) is lean and log-scaled for segmentation;
+        "detailed" has one column per keypoint and per component, in linear units.
+    band_components : int or None
+        Leading components that get band amplitudes (and rolling variability in the detailed
+        set); None: all kept components.
     velocity_window_s, variability_window_s : float
         Derivative fitting window and rolling-std window, in seconds.
     social : bool
@@ -382,7 +434,7 @@ class FeaturePipeline(BaseEstimator):
     ...                     keypoints=["tail", "mid", "nose"], fps=30, units="cm")
     >>> fs = FeaturePipeline(n_components=2).fit_transform([tracks])[0]
     >>> fs.columns[:3]
-    ('posture_pc1', 'posture_pc2', 'centroid_speed_cm_s')
+    ('posture_pc1', 'posture_pc2', 'log_centroid_speed_cm_s')
     """
 
     def __init__(
@@ -394,7 +446,8 @@ class FeaturePipeline(BaseEstimator):
         align: str = "rotate",
         n_components: int = 8,
         frequencies: Sequence[float] = (0.5, 1, 2, 4, 8),
-        band_components: int = 3,
+        feature_set: str = "compact",
+        band_components: int | None = None,
         velocity_window_s: float = 0.1,
         variability_window_s: float = 0.5,
         social: bool = True,
@@ -407,6 +460,7 @@ class FeaturePipeline(BaseEstimator):
         self.align = align
         self.n_components = n_components
         self.frequencies = frequencies
+        self.feature_set = feature_set
         self.band_components = band_components
         self.velocity_window_s = velocity_window_s
         self.variability_window_s = variability_window_s
@@ -417,6 +471,8 @@ class FeaturePipeline(BaseEstimator):
     # --- derived from fitted state -------------------------------------------------------
     @property
     def _band_components(self) -> int:
+        if self.band_components is None:
+            return self.n_components_
         return min(int(self.band_components), self.n_components_)
 
     @property
@@ -456,8 +512,12 @@ class FeaturePipeline(BaseEstimator):
             bad.append(f"up_axis must be 'x', 'y' or 'z'; got {self.up_axis!r}")
         if self.align not in ("rotate", "procrustes"):
             bad.append(f"align must be 'rotate' or 'procrustes'; got {self.align!r}")
+        if self.feature_set not in ("compact", "detailed"):
+            bad.append(f"feature_set must be 'compact' or 'detailed'; got {self.feature_set!r}")
         for name, low in (("n_components", 1), ("band_components", 0)):
             v = getattr(self, name)
+            if name == "band_components" and v is None:
+                continue
             if isinstance(v, bool) or not isinstance(v, int | np.integer) or v < low:
                 bad.append(f"{name} must be an integer >= {low}; got {v!r}")
         try:
@@ -591,13 +651,18 @@ class FeaturePipeline(BaseEstimator):
             self._fit_reference(sessions)
         self._fit_pca(sessions)
         self.columns_ = self._column_names()
-        acc, raws = None, []
-        for s in sessions:
-            r = self._compute(s.coords, self._motions(s.fps, s.n_animals, f"session '{s.session}'"))
-            for values in r:
-                acc = _accumulate(acc, values, full=False)
-            if keep:
-                raws.append(r)
+        raws = [
+            self._compute(s.coords, self._motions(s.fps, s.n_animals, f"session '{s.session}'"))
+            for s in sessions
+        ]
+        self.log_offset_ = self._fit_log_offsets([v for r in raws for v in r])
+        acc = None
+        logged = np.flatnonzero(self.log_offset_)
+        for values in (v for r in raws for v in r):
+            if len(logged):  # the scaler sees the transformed columns; raws stay linear
+                values = values.copy()
+                values[:, logged] = np.log(values[:, logged] + self.log_offset_[logged])
+            acc = _accumulate(acc, values, full=False)
         if acc is None:
             msg = (
                 "no valid frame in the fitted sessions: every frame misses a keypoint or lacks "
@@ -611,6 +676,30 @@ class FeaturePipeline(BaseEstimator):
         if not keep:
             return []
         return [fs for s, r in zip(sessions, raws, strict=True) for fs in self._sets(s, r)]
+
+    def _fit_log_offsets(self, raws: list[np.ndarray]) -> np.ndarray:
+        """Offset ``c`` of each log column (``log(x + c)``), 0 for linear columns.
+
+        ``c`` is the LOG_OFFSET_QUANTILE quantile of the column over the fitted frames (at
+        most ~200k evenly spaced rows): about the tracking-noise floor of a speed or an
+        amplitude, so values at the floor are compressed together and real movement is
+        spread on a log scale. Floored at 1e-6 of the column's median, and 1 for an
+        all-zero column.
+        """
+        logged = [j for j, c in enumerate(self.columns_) if c.startswith("log_")]
+        offsets = np.zeros(len(self.columns_))
+        if not logged:
+            return offsets
+        step = max(1, sum(len(r) for r in raws) // 200_000)
+        sample = np.concatenate([r[::step][:, logged] for r in raws])
+        for j, col in zip(logged, sample.T, strict=True):
+            col = col[np.isfinite(col)]
+            if not col.size:
+                offsets[j] = 1.0
+                continue
+            low, mid = np.quantile(col, [LOG_OFFSET_QUANTILE, 0.5])
+            offsets[j] = max(low, 1e-6 * mid) if mid > 0 else 1.0
+        return offsets
 
     def _fit_reference(self, sessions: list[PoseTracks]) -> None:
         """Mean posture for Procrustes: start from axis-aligned postures, then two rounds of
@@ -660,18 +749,24 @@ class FeaturePipeline(BaseEstimator):
     def _column_names(self) -> tuple[str, ...]:
         u, us = self.units_, f"{self.units_}_s"
         pcs = [f"posture_pc{i + 1}" for i in range(self.n_components_)]
-        lead = pcs[: self._band_components]
-        cols = [*pcs, f"centroid_speed_{us}", f"forward_velocity_{us}"]
-        cols += [f"lateral_velocity_{us}", "heading_velocity_rad_s"]
-        cols += [f"{self.keypoints_[k]}_ego_speed_{us}" for k in self._speed_keypoints]
-        if self.n_dims_ == 3:
-            cols += [f"height_{kp}_{u}" for kp in self.keypoints_]
-        cols += [f"{pc}_band_{float(f):g}hz" for pc in lead for f in self.frequencies]
-        w = f"std_{float(self.variability_window_s):g}s"
-        cols += [f"{pc}_{w}" for pc in lead] + [f"centroid_speed_{us}_{w}"]
+        bands = [f"{float(f):g}hz" for f in self.frequencies] if self._band_components else []
+        if self.feature_set == "compact":
+            cols = [*pcs, f"log_centroid_speed_{us}", "log_turning_speed_rad_s"]
+            cols += [f"log_posture_speed_{us}"] + [f"log_posture_band_{b}" for b in bands]
+        else:
+            lead = pcs[: self._band_components]
+            cols = [*pcs, f"centroid_speed_{us}", f"forward_velocity_{us}"]
+            cols += [f"lateral_velocity_{us}", "heading_velocity_rad_s"]
+            cols += [f"{self.keypoints_[k]}_ego_speed_{us}" for k in self._speed_keypoints]
+            if self.n_dims_ == 3:
+                cols += [f"height_{kp}_{u}" for kp in self.keypoints_]
+            cols += [f"{pc}_band_{b}" for pc in lead for b in bands]
+            w = f"std_{float(self.variability_window_s):g}s"
+            cols += [f"{pc}_{w}" for pc in lead] + [f"centroid_speed_{us}_{w}"]
         if self.social_:
-            cols += [f"dist_to_nearest_{u}", f"head_to_nearest_body_{u}"]
-            cols += [f"nearest_head_to_body_{u}", "facing_nearest_cos", "facing_nearest_sin"]
+            log = "log_" if self.feature_set == "compact" else ""
+            cols += [f"{log}dist_to_nearest_{u}", f"{log}head_to_nearest_body_{u}"]
+            cols += [f"{log}nearest_head_to_body_{u}", "facing_nearest_cos", "facing_nearest_sin"]
             cols += ["nearest_heading_cos", "nearest_heading_sin", f"nearest_approach_speed_{us}"]
         return tuple(cols)
 
@@ -801,7 +896,12 @@ class FeaturePipeline(BaseEstimator):
         ]
 
     def _finish(self, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Standardise in place and blank invalid rows."""
+        """Log-transform the magnitudes, standardise (both in place), blank invalid rows."""
+        logged = np.flatnonzero(self.log_offset_)
+        if len(logged):
+            part = raw[:, logged]
+            part += self.log_offset_[logged]
+            raw[:, logged] = np.log(part)
         if self.standardise:
             raw -= self.scaler_mean_
             raw /= self.scaler_scale_
@@ -904,6 +1004,10 @@ class FeaturePipeline(BaseEstimator):
                 raise KeyError("estimator")
             params = dict(meta["params"])
             fitted = dict(meta["fitted"])
+            arrays = dict(arrays)
+            if "feature_set" not in params:  # saved before feature sets: the detailed one
+                params["feature_set"] = "detailed"
+                arrays.setdefault("log_offset_", np.zeros(len(fitted["columns_"])))
             missing = [k for k in (*_FITTED_META,) if k not in fitted]
             missing += [k for k in _FITTED_ARRAYS if k not in arrays]
         except (KeyError, TypeError) as exc:

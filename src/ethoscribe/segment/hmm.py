@@ -9,6 +9,12 @@ observed transitions 2 : 1 against the prior, whatever the amount of data. On gl
 data it cut spurious short bouts without lowering agreement with the truth (tests). The same
 sticky matrix starts every restart.
 
+Starting points: each restart screens ``init_candidates`` k-means starts by a short EM run on a
+small subsample and continues the best (``_hmm_fit.screened_start``). On the simulated example
+study (7 states, 16 compact features, 8 seeds of one restart) single k-means starts ended in a
+poor optimum (0.5-0.7 nats per frame below the best, agreement with the truth 0.62-0.69
+instead of 0.81) in 3 of 8 seeds, 8 screened starts in 1 of 8 and 16 in none.
+
 Large data: EM runs on a representative subsample of whole contiguous blocks drawn from every
 session (``_hmm_fit.representative_blocks``); decoding always covers every frame.
 
@@ -34,6 +40,7 @@ from ethoscribe.segment._hmm_fit import (
     one_thread,
     representative_blocks,
     run_em,
+    screened_start,
     sticky_transmat,
 )
 from ethoscribe.segment._hmm_gaussian import GaussianEmission
@@ -87,6 +94,12 @@ class GaussianHMM:
     init : {"kmeans", "random"}
         Initial means: k-means (``n_init=1``, different seed per restart, on a subsample) or
         random distinct frames.
+    init_candidates : int
+        Starting points screened per restart: each gets a short EM run (10 iterations on a
+        subsample of at most 20,000 frames) and the best continues to convergence
+        (``_hmm_fit.screened_start``). 1: no screening, EM starts from one set of initial
+        means. The default 8 costs less than one full restart (80 iterations on 20,000
+        frames against 10-50 on up to 200,000) and made poor optima rarer (module doc).
     fit_max_frames : int or None
         Fit on a representative subsample of about this many frames when the data are larger:
         every session gives a share proportional to its length, as contiguous blocks of at
@@ -126,6 +139,7 @@ class GaussianHMM:
         tol: float = 1e-4,
         min_covar: float = 1e-3,
         init: str = "kmeans",
+        init_candidates: int = 8,
         fit_max_frames: int | None = 200_000,
         engine: str = "fast",
         random_state: int | None = 0,
@@ -141,6 +155,7 @@ class GaussianHMM:
         self.tol = tol
         self.min_covar = min_covar
         self.init = init
+        self.init_candidates = init_candidates
         self.fit_max_frames = fit_max_frames
         self.engine = engine
         self.random_state = random_state
@@ -148,8 +163,8 @@ class GaussianHMM:
 
     _PARAMS = (
         "n_states", "covariance_type", "expected_bout_s", "fps", "persistence_strength",
-        "n_restarts", "n_iter", "tol", "min_covar", "init", "fit_max_frames", "engine",
-        "random_state", "progress",
+        "n_restarts", "n_iter", "tol", "min_covar", "init", "init_candidates", "fit_max_frames",
+        "engine", "random_state", "progress",
     )  # fmt: skip
 
     def get_params(self, deep: bool = True) -> dict[str, Any]:
@@ -202,6 +217,17 @@ class GaussianHMM:
                     res = fit_with_hmmlearn(
                         self, X_fit, fit_lengths, sticky, start_counts, trans_counts, rng
                     )
+                elif self.init_candidates > 1:
+                    persistence = (
+                        0.0 if self.expected_bout_s is None else (self.persistence_strength / K)
+                    )
+                    start = screened_start(
+                        self, X_fit, fit_lengths, K, sticky, start_counts, persistence, rng, bar
+                    )
+                    res = run_em(
+                        self, X_fit, fit_lengths, start["means"], sticky, start_counts,
+                        trans_counts, bar, start=start,
+                    )  # fmt: skip
                 else:
                     means = initial_means(X_fit, K, self.init, rng)
                     res = run_em(

