@@ -1,0 +1,83 @@
+"""Closed-loop labelling: one pose frame in, the current most probable state out.
+
+``StreamingLabeller`` chains the causal cleaner, the causal feature stream and HMM forward
+filtering of a fitted :class:`~ethoscribe.segment.model.BehaviourModel`. Frames that cannot be
+scored (a keypoint lost, not enough history yet) return state -1 and do not advance the filter —
+exactly as offline labelling stacks the valid frames back to back — so the streamed posteriors
+equal offline forward filtering (:meth:`GaussianHMM.filter`) of the same session's valid frames.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import numpy as np
+
+from ethoscribe.clean import StreamingCleaner
+from ethoscribe.errors import InputError
+from ethoscribe.segment.base import check_fitted
+from ethoscribe.segment.hmm import GaussianHMM
+from ethoscribe.segment.streaming_hmm import HMMFilter
+
+
+class LiveLabel(NamedTuple):
+    """The label of one animal after a frame: state id (-1 if unscorable) and its probability."""
+
+    state: int
+    probability: float
+    posterior: np.ndarray
+
+
+class StreamingLabeller:
+    """Label a session frame by frame with a fitted model (causal features, Gaussian HMM).
+
+    Parameters
+    ----------
+    model : fitted BehaviourModel
+        Fitted with ``features={"causal": True}`` (every feature from past frames only), an HMM
+        segmenter, and a numeric ``max_speed`` in its cleaning (an automatic bound needs the
+        whole recording).
+    n_animals : int
+        Animals per frame.
+
+    Examples
+    --------
+    >>> live = StreamingLabeller(model)                         # doctest: +SKIP
+    >>> [label] = live.push(coords_of_one_frame, confidence)     # doctest: +SKIP
+    """
+
+    def __init__(self, model, n_animals: int = 1) -> None:
+        check_fitted(model, "segmenter_")
+        if not isinstance(model.segmenter_, GaussianHMM):
+            raise InputError("streaming labelling needs a model fitted with method='hmm'")
+        if not model.features_.causal:
+            raise InputError(
+                "this model's features look at future frames; fit it with "
+                "features={'causal': True} to label frames as they arrive"
+            )
+        self.model = model
+        self.n_animals = int(n_animals)
+        self.cleaner = StreamingCleaner(
+            model.cleaning_,
+            model.keypoints_,
+            model.fps_,
+            n_animals=self.n_animals,
+            n_dims=model.n_dims_,
+            units=model.features_.units_,
+        )
+        self.features = model.features_.stream(self.n_animals)
+        self.filters = [HMMFilter(model.segmenter_) for _ in range(self.n_animals)]
+
+    def push(self, coords: np.ndarray, confidence: np.ndarray | None = None) -> list[LiveLabel]:
+        """Add one frame ``coords (animals, keypoints, dims)``; return one label per animal."""
+        cleaned = self.cleaner.push(coords, confidence)
+        rows = self.features.push(cleaned)
+        out = []
+        for row, live in zip(rows, self.filters, strict=True):
+            if not np.isfinite(row).all():
+                out.append(LiveLabel(-1, float("nan"), np.full(live.n_states, np.nan)))
+                continue
+            posterior = live.push(row)
+            state = int(np.argmax(posterior))
+            out.append(LiveLabel(state, float(posterior[state]), posterior))
+        return out
