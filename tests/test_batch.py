@@ -8,29 +8,19 @@ from __future__ import annotations
 import shutil
 from pathlib import Path
 
-import pandas as pd
 import pytest
 
-from ethoscribe.io import read_tidy, write_tidy
+from _example_study import trimmed_study
 from ethoscribe.workspace import discover
 
-EXAMPLES = Path(__file__).resolve().parents[1] / "example_sessions"
 OUTPUTS = ["labels.csv", "bouts.csv", "transitions.csv", "time_budget.csv", "quality.csv"]
 
 
 @pytest.fixture(scope="module")
 def study(tmp_path_factory) -> Path:
-    folder = tmp_path_factory.mktemp("batch_study")
-    manifest = pd.read_csv(EXAMPLES / "manifest.csv")
-    rows = manifest[manifest["session"].isin(["session_04", "session_05", "session_12"])]
-    for name in rows["session"]:
-        t = read_tidy(EXAMPLES / f"{name}.parquet", fps=30.0)
-        write_tidy(
-            t.replace(coords=t.coords[:1500], confidence=t.confidence[:1500]),
-            folder / f"{name}.parquet",
-        )
-    rows.to_csv(folder / "manifest.csv", index=False)
-    return folder
+    return trimmed_study(
+        tmp_path_factory.mktemp("batch_study"), ["session_04", "session_05", "session_12"], 1500
+    )
 
 
 def _run(study: Path, out: Path, **kw):

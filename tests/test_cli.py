@@ -10,26 +10,14 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
+from _example_study import trimmed_study
 from ethoscribe.cli import main
-from ethoscribe.io import read_tidy, write_tidy
-
-EXAMPLES = Path(__file__).resolve().parents[1] / "example_sessions"
 
 
 @pytest.fixture(scope="module")
 def study(tmp_path_factory) -> Path:
     """Two simulated example sessions (60 s each) and their manifest rows."""
-    folder = tmp_path_factory.mktemp("cli_study")
-    manifest = pd.read_csv(EXAMPLES / "manifest.csv")
-    rows = manifest[manifest["session"].isin(["session_03", "session_11"])]
-    for name in rows["session"]:
-        t = read_tidy(EXAMPLES / f"{name}.parquet", fps=30.0)
-        write_tidy(
-            t.replace(coords=t.coords[:1800], confidence=t.confidence[:1800]),
-            folder / f"{name}.parquet",
-        )
-    rows.to_csv(folder / "manifest.csv", index=False)
-    return folder
+    return trimmed_study(tmp_path_factory.mktemp("cli_study"), ["session_03", "session_11"], 1800)
 
 
 def test_discover_then_label_a_new_cohort(study, tmp_path, capsys):

@@ -15,12 +15,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from _example_study import trimmed_study
 from ethoscribe.errors import InputError, WorkspaceError
-from ethoscribe.io import read_tidy, write_tidy
+from ethoscribe.io import read_tidy
 from ethoscribe.workspace import Workspace, discover, read_journal
 from ethoscribe.workspace.runs import label_sessions
 
-EXAMPLES = Path(__file__).resolve().parents[1] / "example_sessions"
 LABEL_COLUMNS = ["session", "animal", "frame", "time_s", "state", "motif", "probability"]
 BOUT_COLUMNS = ["session", "animal", "motif", "start_frame", "stop_frame", "start_s", "duration_s"]
 
@@ -28,17 +28,9 @@ BOUT_COLUMNS = ["session", "animal", "motif", "start_frame", "stop_frame", "star
 @pytest.fixture(scope="module")
 def study(tmp_path_factory) -> Path:
     """Three trimmed example sessions (90 s each) and a manifest, in a folder of their own."""
-    folder = tmp_path_factory.mktemp("study")
-    manifest = pd.read_csv(EXAMPLES / "manifest.csv")
-    rows = manifest[manifest["session"].isin(["session_01", "session_02", "session_09"])]
-    for name in rows["session"]:
-        tracks = read_tidy(EXAMPLES / f"{name}.parquet", fps=30.0)
-        write_tidy(
-            tracks.replace(coords=tracks.coords[:2700], confidence=tracks.confidence[:2700]),
-            folder / f"{name}.parquet",
-        )
-    rows.to_csv(folder / "manifest.csv", index=False)
-    return folder
+    return trimmed_study(
+        tmp_path_factory.mktemp("study"), ["session_01", "session_02", "session_09"], 2700
+    )
 
 
 @pytest.fixture(scope="module")
