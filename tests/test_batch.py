@@ -48,7 +48,8 @@ def _same(a: Path, b: Path) -> None:
 def test_a_rerun_reuses_the_cache_and_resumes(study, serial, tmp_path):
     ws = Path(shutil.copytree(serial, tmp_path / "ws"))
     cached = sorted((ws / "cache" / "cleaned").glob("*.npz"))
-    assert len(cached) == 3
+    cached += sorted((ws / "cache" / "labelled").glob("*.npz"))
+    assert len(cached) == 6
     stamps = [p.stat().st_mtime_ns for p in cached]
     # An interrupted run: the cache is there but the workspace was never completed.
     (ws / "workspace.json").unlink()
@@ -59,6 +60,28 @@ def test_a_rerun_reuses_the_cache_and_resumes(study, serial, tmp_path):
     _run(study, ws, force=True)
     assert [p.stat().st_mtime_ns for p in cached] != stamps, "--force did not recompute"
     _same(serial, ws)
+
+
+def test_decoding_is_redone_only_for_a_new_model(study, serial, tmp_path):
+    ws = Path(shutil.copytree(serial, tmp_path / "ws"))
+    _run(study, ws, seed=1)  # same cleaned sessions, another model
+    assert len(list((ws / "cache" / "cleaned").glob("*.npz"))) == 3
+    assert len(list((ws / "cache" / "labelled").glob("*.json"))) == 6
+    assert len(list((ws / "cache" / "models").iterdir())) == 2
+
+
+def test_fitting_on_a_sample_bounds_the_training_frames_and_labels_every_frame(study, tmp_path):
+    ws = _run(study, tmp_path / "sample", fit_frames=1200)
+    summary = ws.summary
+    assert summary["n_training_frames"] <= 1200  # valid frames of the sampled blocks
+    model = ws.model()
+    # One block from each session, each named after the frames it spans.
+    assert len(model.training_sessions_) == 3
+    assert all("[" in name for name in model.training_sessions_)
+    labels = ws.state_labels()
+    assert len(labels) == 3 * 1500
+    assert set(labels["state"].unique()) <= {-1, 0, 1, 2}
+    assert (labels["state"] >= 0).mean() > 0.5
 
 
 def test_a_changed_parameter_is_not_served_from_the_cache(study, serial, tmp_path):

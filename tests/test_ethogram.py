@@ -300,3 +300,39 @@ def test_figures_build_and_colours_are_deterministic():
     assert transition_heatmap(mat).data[0].z.shape == mat.shape
     diagram = transition_diagram(transition_table(bouts, by=()), time_budget(labels, by=()))
     assert len(diagram.layout.annotations) > 0
+
+
+# --- a study summarised one session at a time -------------------------------------------------
+def _three_sessions() -> pd.DataFrame:
+    # Invented labels: s2 never shows motif "c"; s3 has no valid frame at all.
+    rng = np.random.default_rng(3)
+    parts = []
+    for name, motifs in [("s1", "abc"), ("s2", "ab"), ("s3", "")]:
+        n = 60
+        state = rng.integers(0, len(motifs), n) if motifs else np.full(n, -1)
+        state[rng.random(n) < 0.1] = -1
+        parts.append(
+            pd.DataFrame(
+                {
+                    "session": name,
+                    "animal": "a",
+                    "frame": np.arange(n),
+                    "time_s": np.arange(n) / 10,
+                    "state": state,
+                    "motif": [motifs[s] if s >= 0 else "" for s in state],
+                    "probability": 1.0,
+                }
+            )
+        )
+    return pd.concat(parts, ignore_index=True)
+
+
+def test_time_budgets_joined_per_session_equal_the_whole_table_budget():
+    from ethoscribe.ethogram import time_budgets_joined
+
+    labels = _three_sessions()
+    parts = [time_budget(g) for _, g in labels.groupby("session", sort=False)]
+    joined = time_budgets_joined(parts, labels[["session", "animal"]])
+    pd.testing.assert_frame_equal(joined, time_budget(labels), check_dtype=False)
+    # s3 (no valid frame) is listed with zeros and an undefined fraction, as in the whole table.
+    assert joined.loc[joined["session"] == "s3", "fraction"].isna().all()

@@ -140,3 +140,41 @@ def test_write_table_failure_keeps_previous_file(tmp_path):
         write_table(mixed, p)
     assert p.read_bytes() == before
     assert _leftovers(tmp_path) == ["t.parquet"]
+
+
+# --- tables written piece by piece ----------------------------------------------------------
+@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
+def test_a_table_written_in_pieces_equals_the_table_written_at_once(tmp_path, suffix):
+    from ethoscribe.io._atomic import atomic_table_writer, write_table
+
+    table = pd.DataFrame(
+        {"session": ["a", "a", "b,c", "b,c"], "x": [1.5, np.nan, 3.0, 4.0], "n": [1, 2, 3, 4]}
+    )
+    whole = write_table(table, tmp_path / f"whole{suffix}")
+    with atomic_table_writer(tmp_path / f"pieces{suffix}") as write:
+        write(table.iloc[:2])
+        write(table.iloc[2:])
+    # (CSV quoting is decided per piece, so the bytes may differ where a value needs quotes;
+    # the parsed tables may not.)
+    pd.testing.assert_frame_equal(
+        pd.read_parquet(tmp_path / f"pieces{suffix}")
+        if suffix == ".parquet"
+        else pd.read_csv(tmp_path / f"pieces{suffix}"),
+        pd.read_parquet(whole) if suffix == ".parquet" else pd.read_csv(whole),
+    )
+
+
+def test_a_table_writer_that_fails_midway_leaves_no_file(tmp_path):
+    from ethoscribe.io._atomic import atomic_table_writer
+
+    target = tmp_path / "t.parquet"
+    with pytest.raises(RuntimeError), atomic_table_writer(target) as write:
+        write(pd.DataFrame({"a": [1]}))
+        raise RuntimeError("killed")
+    assert not target.exists() and not list(tmp_path.iterdir())
+    with pytest.raises(InputError, match="no rows"), atomic_table_writer(target):
+        pass
+    with pytest.raises(InputError, match="does not match"), atomic_table_writer(target) as write:
+        write(pd.DataFrame({"a": [1]}))
+        write(pd.DataFrame({"b": ["x"]}))
+    assert not list(tmp_path.iterdir())

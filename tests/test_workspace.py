@@ -213,3 +213,18 @@ def test_rediscovery_refuses_to_drop_curated_names(study, workspace, tmp_path):
     ws.rename_motif("motif_01", "resting")
     with pytest.raises(WorkspaceError, match="curated"):
         discover([study], ws.path, manifest=study / "manifest.csv", states=4, progress=False)
+
+
+def test_ethogram_tables_written_per_session_equal_those_written_at_once(tmp_path):
+    from test_ethogram import _three_sessions
+
+    from ethoscribe.workspace.folder import write_ethogram_tables
+
+    labels = _three_sessions()
+    (tmp_path / "whole").mkdir()
+    (tmp_path / "pieces").mkdir()
+    write_ethogram_tables(tmp_path / "whole", labels)
+    write_ethogram_tables(tmp_path / "pieces", (g for _, g in labels.groupby("session")))
+    for name in ["labels.csv", "bouts.csv", "transitions.csv", "time_budget.csv"]:
+        a, b = (tmp_path / "whole" / name), (tmp_path / "pieces" / name)
+        assert a.read_bytes() == b.read_bytes(), name

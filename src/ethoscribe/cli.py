@@ -74,23 +74,20 @@ def build_parser() -> argparse.ArgumentParser:
         help="Gaussian HMM (default) or change points clustered into motifs",
     )
     d.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    _add_batch_options(d)
     d.add_argument(
-        "--jobs",
-        type=int,
-        default=None,
-        help="worker processes for reading and cleaning (default: every CPU)",
-    )
-    d.add_argument("--scheduler", help="address of a Dask scheduler to run per-session work on")
-    d.add_argument(
-        "--force",
-        action="store_true",
-        help="recompute cleaned sessions even when the workspace cache holds them",
+        "--fit-frames",
+        type=_fit_frames,
+        default=1_000_000,
+        help="fit on at most this many frames, in blocks from every session ('all': every "
+        "frame; default 1000000)",
     )
 
     lab = sub.add_parser("label", help="label new sessions with a saved model (same motif names)")
     lab.add_argument("model", type=Path, help="a workspace folder or its model/ folder")
     _add_reading_options(lab)
     lab.add_argument("--out", type=Path, required=True, help="output folder")
+    _add_batch_options(lab)
 
     c = sub.add_parser("compare", help="group statistics and the HTML report of a discover folder")
     c.add_argument("workspace", type=Path, help="folder written by 'ethoscribe discover'")
@@ -111,6 +108,35 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--duration", type=float, default=240.0, help="seconds per session")
     s.add_argument("--seed", type=int, default=0)
     return parser
+
+
+def _add_batch_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--jobs",
+        type=int,
+        default=None,
+        help="worker processes for the per-session work (default: every CPU)",
+    )
+    p.add_argument("--scheduler", help="address of a Dask scheduler to run per-session work on")
+    p.add_argument(
+        "--force",
+        action="store_true",
+        help="recompute cleaned and labelled sessions even when the workspace cache holds them",
+    )
+
+
+def _fit_frames(text: str) -> int | None:
+    if text.strip().lower() == "all":
+        return None
+    try:
+        value = int(float(text))
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"expected a number of frames or 'all'; got {text!r}"
+        ) from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected at least 1 frame; got {text!r}")
+    return value
 
 
 def _run(args: argparse.Namespace) -> str:
@@ -134,6 +160,7 @@ def _run(args: argparse.Namespace) -> str:
             jobs=args.jobs,
             scheduler=args.scheduler,
             force=args.force,
+            fit_frames=args.fit_frames,
         )
         return ws.describe()
     if args.command == "label":
@@ -144,6 +171,9 @@ def _run(args: argparse.Namespace) -> str:
             manifest=args.manifest,
             fps=args.fps,
             progress=progress,
+            jobs=args.jobs,
+            scheduler=args.scheduler,
+            force=args.force,
         )
         return ws.describe()
     if args.command == "compare":

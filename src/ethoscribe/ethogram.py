@@ -54,6 +54,7 @@ __all__ = [
     "labels_from_bouts",
     "survival_curve",
     "time_budget",
+    "time_budgets_joined",
     "transition_entropy",
     "transition_matrix",
     "transition_table",
@@ -238,6 +239,48 @@ def time_budget(
     keys = grouping_keys(table, by, "the label table")
     out = grouped_sum(table, [*keys, "motif"], ["n_frames", "seconds"])
     total = out.groupby(keys)["seconds"].transform("sum") if keys else out["seconds"].sum()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out["fraction"] = out["seconds"] / total
+    return out
+
+
+def time_budgets_joined(parts: Sequence[pd.DataFrame], recordings: pd.DataFrame) -> pd.DataFrame:
+    """Per-recording time budgets computed piece by piece, joined into one table.
+
+    Equal to :func:`time_budget` of the whole label table (``by=("session", "animal")``): every
+    motif seen anywhere appears for every recording, with zeros, so a study can be summarised one
+    session at a time.
+
+    Parameters
+    ----------
+    parts : sequence of DataFrame
+        :func:`time_budget` outputs, each for some of the recordings.
+    recordings : DataFrame
+        ``session, animal`` of every recording, including those without a valid frame.
+
+    Examples
+    --------
+    >>> a = pd.DataFrame({"session": "s1", "animal": "a", "frame": range(2), "time_s": [0, .1],
+    ...     "state": 0, "motif": "m1", "probability": 1.0})
+    >>> b = a.assign(session="s2", state=1, motif="m2")
+    >>> keys = pd.DataFrame({"session": ["s1", "s2"], "animal": "a"})
+    >>> time_budgets_joined([time_budget(a), time_budget(b)], keys)["fraction"].tolist()
+    [1.0, 0.0, 0.0, 1.0]
+    """
+    keys = ["session", "animal"]
+    table = pd.concat(list(parts), ignore_index=True)
+    motifs = sorted(table["motif"].astype(str).unique())
+    blocks = recordings[keys].drop_duplicates()
+    full = pd.MultiIndex.from_arrays(
+        [np.repeat(blocks[k].to_numpy(), len(motifs)) for k in keys]
+        + [np.tile(np.array(motifs, dtype=object), len(blocks))],
+        names=[*keys, "motif"],
+    )
+    out = table.set_index([*keys, "motif"])[["n_frames", "seconds"]].reindex(full, fill_value=0)
+    out = out.sort_index().reset_index()
+    out["n_frames"] = out["n_frames"].astype(np.int64)
+    out["seconds"] = out["seconds"].astype(np.float64)
+    total = out.groupby(keys, sort=False)["seconds"].transform("sum")
     with np.errstate(invalid="ignore", divide="ignore"):
         out["fraction"] = out["seconds"] / total
     return out

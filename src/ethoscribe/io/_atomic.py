@@ -13,7 +13,7 @@ import io
 import json
 import os
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager, suppress
 from pathlib import Path
 from typing import IO, Any
@@ -243,12 +243,7 @@ def write_table(
     2,y
     """
     path = Path(path)
-    kind = TABLE_SUFFIXES.get(path.suffix.lower())
-    if kind is None:
-        raise InputError(
-            f"{path}: cannot tell the table format from the suffix '{path.suffix}'; "
-            f"use one of {sorted(TABLE_SUFFIXES)}"
-        )
+    kind = _table_kind(path)
     arrow = _to_arrow(table, index)
     with atomic_write(path, "wb") as fh:
         if kind == "parquet":
@@ -261,22 +256,87 @@ def write_table(
     return path
 
 
+def _table_kind(path: Path) -> str:
+    kind = TABLE_SUFFIXES.get(path.suffix.lower())
+    if kind is None:
+        raise InputError(
+            f"{path}: cannot tell the table format from the suffix '{path.suffix}'; "
+            f"use one of {sorted(TABLE_SUFFIXES)}"
+        )
+    return kind
+
+
 def _is_text(kind: pa.DataType) -> bool:
     types = pa.types
     return types.is_dictionary(kind) or types.is_string(kind) or types.is_large_string(kind)
 
 
-def _write_csv(arrow: pa.Table, fh: IO[bytes]) -> None:
+def _write_csv(arrow: pa.Table, fh: IO[bytes], header: bool = True) -> None:
     # pyarrow quotes every header name and every text value; unquoted CSV is easier to read,
-    # so quote only where a value needs it (commas, quotes, line breaks).
-    line = io.StringIO()
-    csv.writer(line, lineterminator="\n").writerow(arrow.column_names)
-    fh.write(line.getvalue().encode("utf-8"))
+    # so quote only where a value needs it (commas, quotes, line breaks). Each call writes
+    # whole lines, so a table can be written piece by piece (see atomic_table_writer).
+    if header:
+        line = io.StringIO()
+        csv.writer(line, lineterminator="\n").writerow(arrow.column_names)
+        fh.write(line.getvalue().encode("utf-8"))
+    body = io.BytesIO()
     try:
         options = pa_csv.WriteOptions(include_header=False, quoting_style="none")
-        pa_csv.write_csv(arrow, fh, write_options=options)
+        pa_csv.write_csv(arrow, body, write_options=options)
     except pa.ArrowInvalid:
-        fh.seek(0)
-        fh.truncate()
-        fh.write(line.getvalue().encode("utf-8"))
-        pa_csv.write_csv(arrow, fh, write_options=pa_csv.WriteOptions(include_header=False))
+        body = io.BytesIO()
+        pa_csv.write_csv(arrow, body, write_options=pa_csv.WriteOptions(include_header=False))
+    fh.write(body.getbuffer())
+
+
+@contextmanager
+def atomic_table_writer(path: str | os.PathLike[str]) -> Iterator[Callable[[Any], None]]:
+    """Write a table piece by piece (CSV or Parquet); it appears only when every piece is in.
+
+    Yields a function taking one piece (a DataFrame or pyarrow Table with the same columns each
+    time). Memory then grows with the largest piece, not with the table: batch runs write the
+    per-frame tables of a whole study one session at a time. A Parquet file gets one row group
+    per piece.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "t.csv"
+    >>> with atomic_table_writer(p) as write:
+    ...     write(pd.DataFrame({"a": [1], "b": ["x"]}))
+    ...     write(pd.DataFrame({"a": [2], "b": ["y"]}))
+    >>> print(p.read_text(), end="")
+    a,b
+    1,x
+    2,y
+    """
+    path = Path(path)
+    kind = _table_kind(path)
+    state: dict[str, Any] = {}
+
+    def write(piece: pd.DataFrame | pa.Table) -> None:
+        arrow = _to_arrow(piece, False)
+        schema = state.setdefault("schema", arrow.schema)
+        if not arrow.schema.equals(schema):
+            try:
+                arrow = arrow.select(schema.names).cast(schema)
+            except (pa.ArrowException, KeyError, ValueError) as exc:
+                msg = f"{path}: a piece does not match the columns of the first ({exc})"
+                raise InputError(msg) from None
+        if kind == "csv":
+            _write_csv(arrow, fh, header="written" not in state)
+        else:
+            if "writer" not in state:
+                text = [f.name for f in schema if _is_text(f.type)]
+                state["writer"] = pq.ParquetWriter(fh, schema, use_dictionary=text)
+            state["writer"].write_table(arrow)
+        state["written"] = True
+
+    with atomic_write(path, "wb") as fh:
+        try:
+            yield write
+        finally:
+            if "writer" in state:
+                state["writer"].close()
+        if "written" not in state:
+            raise InputError(f"{path}: no rows to write")

@@ -1,8 +1,11 @@
-"""The workspace cache of cleaned sessions, so that a rerun skips what is up to date.
+"""The workspace cache of per-session work, so that a rerun skips what is up to date.
 
 Each session's cleaned tracks and quality table are stored under ``cache/cleaned/`` with a key
 made from the input file's bytes, how it was read (fps, calibration) and the cleaning parameters
-(plus the ethoscribe version). A rerun with the same inputs and parameters reuses them; a run
+(plus the ethoscribe version). Its features and labels under a fitted model are stored under
+``cache/labelled/`` with a key made from the cleaned session's key and the model file's digest;
+the fitted model itself lies in ``cache/models/<digest>/``, where worker processes load it.
+A rerun with the same inputs and parameters reuses them; a run
 interrupted halfway resumes without redoing finished sessions, because every cache file is
 written atomically. Cleaned coordinates are stored as float32 and every run — fresh or cached —
 reads them back from the cache, so a cached rerun gives exactly the files of the first run.
@@ -10,9 +13,13 @@ reads them back from the cache, so a cached rerun gives exactly the files of the
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
+import os
 import re
+import shutil
+import tempfile
 from pathlib import Path
 from typing import Any
 
@@ -22,11 +29,16 @@ import pandas as pd
 from ethoscribe import __version__
 from ethoscribe.clean import CleanParams, clean
 from ethoscribe.io._atomic import atomic_write, atomic_write_json, write_table
+from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
+from ethoscribe.segment.model import BehaviourModel
+from ethoscribe.workspace.files import load_model, save_features
 from ethoscribe.workspace.folder import jsonable
 from ethoscribe.workspace.reading import read_planned, session_row
 
 CACHE_FOLDER = Path("cache") / "cleaned"
+MODELS_FOLDER = Path("cache") / "models"
+LABELLED_FOLDER = Path("cache") / "labelled"
 
 
 def file_digest(path: str | Path) -> str:
@@ -107,3 +119,77 @@ def load_prepared(info: dict[str, Any]) -> tuple[PoseTracks, pd.DataFrame, dict[
         )
     row = json.loads(Path(info["row"]).read_text())
     return tracks, pd.read_parquet(info["quality"]), row
+
+
+def cache_model(model: BehaviourModel, root: str | Path) -> tuple[str, str]:
+    """Save a fitted model under ``root/cache/models/<digest>/``; returns (folder, digest).
+
+    The digest is that of ``model.json``, which names the digest of the arrays: two fits that
+    give the same model share one folder, so a resumed run finds its decoded sessions again.
+    """
+    models = Path(root) / MODELS_FOLDER
+    models.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=".incoming-", dir=models))
+    try:
+        meta, arrays = model.to_state()
+        write_bundle(tmp, meta, arrays)
+        key = file_digest(tmp / "model.json")[:24]
+        final = models / key
+        if final.is_dir():
+            shutil.rmtree(tmp)
+        else:
+            os.replace(tmp, final)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return str(final), key
+
+
+@functools.lru_cache(maxsize=2)
+def _cached_model(folder: str, key: str) -> BehaviourModel:
+    # One load per worker process and model, not one per session (``key`` makes a refitted
+    # model in the same folder a different entry).
+    return load_model(Path(folder))
+
+
+def decode_session(job: dict[str, Any]) -> dict[str, Any]:
+    """Features and labels of one cleaned session under a cached model, or the cached result.
+
+    ``job`` holds ``prepared`` (what :func:`prepare_session` returned), ``model`` and
+    ``model_key`` (from :func:`cache_model`), ``cache`` (the workspace folder) and ``force``.
+    Writes the session's label table (state ids, default names) as Parquet and one feature
+    file per animal; returns their paths. Runs in worker processes, like
+    :func:`prepare_session`.
+    """
+    prepared = job["prepared"]
+    folder = Path(job["cache"]) / LABELLED_FOLDER
+    folder.mkdir(parents=True, exist_ok=True)
+    stem = Path(prepared["tracks"]).stem
+    key = hashlib.sha256(f"{stem}|{job['model_key']}".encode()).hexdigest()[:24]
+    base = folder / f"{stem[:80]}-{key}"
+    done = Path(f"{base}.json")
+    if not job.get("force") and done.is_file():
+        info = json.loads(done.read_text())
+        paths = [info["labels"], *info["features"]]
+        if all((folder / p).is_file() for p in paths):
+            return _absolute(info, folder)
+    tracks, _, _ = load_prepared(prepared)
+    model = _cached_model(job["model"], job["model_key"])
+    feats = model.featurise_cleaned([tracks])
+    labels = model.label_features(feats)
+    write_table(labels, f"{base}.labels.parquet")
+    names = []
+    for i, f in enumerate(feats):
+        names.append(f"{base.name}.features-{i}.npz")
+        save_features(folder / names[-1], f)
+    info = {"session": tracks.session, "labels": f"{base.name}.labels.parquet", "features": names}
+    atomic_write_json(done, info)  # last: its presence says the entry is complete
+    return _absolute(info, folder)
+
+
+def _absolute(info: dict[str, Any], folder: Path) -> dict[str, Any]:
+    return {
+        **info,
+        "labels": str(folder / info["labels"]),
+        "features": [str(folder / p) for p in info["features"]],
+    }

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import platform
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
@@ -40,10 +40,10 @@ import pyarrow as pa
 from ethoscribe import __version__
 from ethoscribe.curation import Curation
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
-from ethoscribe.ethogram import bout_table, time_budget, transition_table
+from ethoscribe.ethogram import bout_table, time_budget, time_budgets_joined, transition_table
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import locking
-from ethoscribe.io._atomic import atomic_write_json, write_table
+from ethoscribe.io._atomic import atomic_table_writer, atomic_write_json, write_table
 from ethoscribe.io._safe import read_json
 from ethoscribe.segment.model import BehaviourModel, motif_name
 from ethoscribe.workspace.files import (
@@ -94,14 +94,33 @@ def now() -> str:
 
 
 # --- writing a workspace ------------------------------------------------------------------
-def write_ethogram_tables(folder: Path, labels: pd.DataFrame, stage: Staging | None = None) -> None:
-    """The four ethogram tables, then the record of which journal they reflect."""
+def write_ethogram_tables(
+    folder: Path,
+    labels: pd.DataFrame | Iterable[pd.DataFrame],
+    stage: Staging | None = None,
+) -> None:
+    """The four ethogram tables, then the record of which journal they reflect.
+
+    ``labels`` is the named label table, or an iterable of its pieces (each holding whole
+    recordings, e.g. one session): per-frame rows are then streamed to ``labels.csv`` and only
+    the bout tables of the study are held in memory.
+    """
     path = stage.path if stage is not None else (lambda n: folder / n)
-    bouts = bout_table(labels)
-    write_table(labels, path("labels.csv"))
-    write_table(bouts, path("bouts.csv"))
-    write_table(transition_table(bouts), path("transitions.csv"))
-    write_table(time_budget(labels), path("time_budget.csv"))
+    parts = [labels] if isinstance(labels, pd.DataFrame) else labels
+    bouts, budgets, recordings = [], [], []
+    with atomic_table_writer(path("labels.csv")) as write_labels:
+        for part in parts:
+            write_labels(part)
+            bouts.append(bout_table(part))
+            budgets.append(time_budget(part))
+            recordings.append(part[["session", "animal"]].drop_duplicates())
+    bouts_all = pd.concat(bouts, ignore_index=True)
+    budget = budgets[0]
+    if len(budgets) > 1:
+        budget = time_budgets_joined(budgets, pd.concat(recordings))
+    write_table(bouts_all, path("bouts.csv"))
+    write_table(transition_table(bouts_all), path("transitions.csv"))
+    write_table(budget, path("time_budget.csv"))
     atomic_write_json(path(EXPORTS_STATE), journal_fingerprint(path(JOURNAL_FILE)))
 
 

@@ -3,27 +3,36 @@
 from __future__ import annotations
 
 import shutil
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 from ethoscribe import __version__
 from ethoscribe.clean import CleanParams
 from ethoscribe.curation import Curation
-from ethoscribe.errors import EthoscribeError, WorkspaceError
+from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.features import FeatureSet
-from ethoscribe.io._atomic import atomic_write_json, write_table
+from ethoscribe.io._atomic import atomic_table_writer, atomic_write_json, write_table
+from ethoscribe.io._safe import read_json
 from ethoscribe.io.bundle import write_bundle
-from ethoscribe.pose import PoseTracks, check_same_body_plan
+from ethoscribe.pose import PoseTracks
+from ethoscribe.segment._hmm_fit import representative_blocks
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
 from ethoscribe.segment.stability import stability_report
-from ethoscribe.workspace.cache import CACHE_FOLDER, load_prepared, prepare_session
+from ethoscribe.workspace.cache import (
+    CACHE_FOLDER,
+    cache_model,
+    decode_session,
+    load_prepared,
+    prepare_session,
+)
 from ethoscribe.workspace.compare import write_ethogram_report
 from ethoscribe.workspace.executor import connect, map_sessions
-from ethoscribe.workspace.files import load_model
+from ethoscribe.workspace.files import load_features, load_model
 from ethoscribe.workspace.folder import (
     CAUTION,
     FORMAT_VERSION,
@@ -35,12 +44,11 @@ from ethoscribe.workspace.folder import (
     features_table,
     jsonable,
     now,
-    save_features,
     table_json,
     versions,
     write_ethogram_tables,
 )
-from ethoscribe.workspace.reading import plan_sessions, read_sessions, sessions_table
+from ethoscribe.workspace.reading import plan_sessions, sessions_table
 
 
 def discover(
@@ -60,6 +68,7 @@ def discover(
     scheduler: Any = None,
     force: bool = False,
     replace_curation: bool = False,
+    fit_frames: int | None = 1_000_000,
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
@@ -68,11 +77,19 @@ def discover(
     inputs : files or folders of pose files (or none, with a manifest that lists paths)
     out : the workspace folder
     manifest : CSV with per-session fps, calibration, group, subject ...
-    jobs : worker processes for the per-session reading and cleaning (None: every CPU)
-    scheduler : a Dask scheduler address or ``dask.distributed.Client`` to run those on
+    jobs : worker processes for the per-session work (None: every CPU)
+    scheduler : a Dask scheduler address or ``dask.distributed.Client`` to run it on
         (the workspace folder must then be on a file system the workers share)
-    force : recompute cleaned sessions even when the cache holds them
+    force : recompute cleaned and labelled sessions even when the cache holds them
     replace_curation : allow a new discovery in a workspace whose motifs were already named
+    fit_frames : fit the features and the model on at most this many frames (blocks of
+        about five minutes from every session; None: all). Memory then grows with this
+        sample plus the largest session, not with the study. 1,000,000 frames (9 h at 30 fps)
+        holds many thousands of bouts of every common behaviour, and the model fit itself
+        works on a subsample of 200,000 frames (``GaussianHMM.fit_max_frames``).
+
+    Reading and cleaning, then features and decoding, run per session in worker processes
+    (or on the Dask cluster); the fit runs here, on the sample.
 
     Writes ``labels.csv``, ``bouts.csv``, ``transitions.csv``, ``time_budget.csv``,
     ``quality.csv``, ``sessions.csv``, ``summary.json``, ``report.html``, ``model/`` and
@@ -87,7 +104,9 @@ def discover(
     ).to_dict()
     created = not out.exists()
     try:
-        cleaned, quality, table = _prepare(out, plan, cleaning, jobs, scheduler, force, progress)
+        client = connect(scheduler)
+        prepared, quality, table = _prepare(out, plan, cleaning, jobs, client, force, progress)
+        sample = _training_sample(prepared, fit_frames, seed)
         model = BehaviourModel(
             cleaning=cleaning,
             features={"origin": origin, "axis": axis},
@@ -95,12 +114,14 @@ def discover(
             n_states=states,
             random_state=seed,
             progress=progress,
-        ).fit_cleaned(cleaned, quality)
-        feats = model.featurise_cleaned(cleaned)
-        labels = model.label_features(feats)
-        report = _stability(model, feats, seed, progress) if stability and method == "hmm" else None
+        ).fit_cleaned(sample, quality)
+        report = None
+        if stability and method == "hmm":
+            report = _stability(model, model.featurise_cleaned(sample), seed, progress)
+        del sample
+        decoded = _decode(out, prepared, model, jobs, client, force, progress)
         summary = _summary(model, table, seed, report)
-        _write_workspace(out, table, model, feats, quality, labels, report, summary)
+        _write_workspace(out, table, model, decoded, quality, report, summary)
     except EthoscribeError:
         # Bad input in a folder this run made: leave nothing behind. (An interrupted run keeps
         # its cache, so the next run resumes.)
@@ -117,27 +138,83 @@ def _prepare(
     plan: Sequence[dict[str, Any]],
     cleaning: dict[str, Any],
     jobs: int | None,
-    scheduler: Any,
+    client: Any,
     force: bool,
     progress: bool,
-) -> tuple[list[PoseTracks], list[pd.DataFrame], pd.DataFrame]:
-    """Read and clean every session (in parallel, through the cache); load the results."""
+) -> tuple[list[dict[str, Any]], list[pd.DataFrame], pd.DataFrame]:
+    """Read and clean every session (in parallel, through the cache).
+
+    Returns where each cleaned session lies, the quality tables and the sessions table; the
+    tracks themselves stay on disk until a step needs them.
+    """
     work = [
         {"entry": e, "cleaning": cleaning, "cache": str(out / CACHE_FOLDER), "force": force}
         for e in plan
     ]
     infos = map_sessions(
-        prepare_session,
-        work,
-        jobs=jobs,
-        client=connect(scheduler),
-        progress=progress,
+        prepare_session, work, jobs=jobs, client=client, progress=progress,
         desc="reading and cleaning",
+    )  # fmt: skip
+    quality = [pd.read_parquet(i["quality"]) for i in infos]
+    return infos, quality, sessions_table([read_json(i["row"]) for i in infos])
+
+
+def _training_sample(
+    prepared: Sequence[dict[str, Any]], max_frames: int | None, seed: int
+) -> list[PoseTracks]:
+    """Cleaned sessions to fit on: all of them, or blocks from each, ``max_frames`` in all.
+
+    Blocks of about five minutes are drawn from every session, spread over its length
+    (:func:`~ethoscribe.segment._hmm_fit.representative_blocks`), so each animal and each part
+    of a recording is represented while memory is bounded by the sample plus one session. Five
+    minutes: long enough that the slowest feature filters (seconds) barely feel the block edges.
+    """
+    rows = [read_json(i["row"]) for i in prepared]
+    lengths = np.array([int(r["n_frames"]) for r in rows], dtype=np.int64)
+    if max_frames is None or lengths.sum() <= max_frames:
+        return [load_prepared(i)[0] for i in prepared]
+    if max_frames < 1:
+        raise InputError(f"fit_frames must be a positive number of frames; got {max_frames}")
+    block = max(1, round(300 * float(rows[0]["fps"])))
+    starts, stops = representative_blocks(lengths, max_frames, block, np.random.default_rng(seed))
+    offsets = np.cumsum(lengths) - lengths
+    owner = np.searchsorted(offsets, starts, side="right") - 1
+    sample = []
+    for i, info in enumerate(prepared):
+        mine = np.flatnonzero(owner == i)
+        if not len(mine):
+            continue
+        tracks = load_prepared(info)[0]
+        for a, b in zip(starts[mine] - offsets[i], stops[mine] - offsets[i], strict=True):
+            sample.append(
+                tracks.replace(
+                    coords=tracks.coords[a:b].copy(),
+                    confidence=tracks.confidence[a:b].copy(),
+                    session=f"{tracks.session} [{a}:{b}]",
+                )
+            )
+        del tracks
+    return sample
+
+
+def _decode(
+    out: Path,
+    prepared: Sequence[dict[str, Any]],
+    model: BehaviourModel,
+    jobs: int | None,
+    client: Any,
+    force: bool,
+    progress: bool,
+) -> list[dict[str, Any]]:
+    """Features and labels of every session under ``model``, per session in parallel."""
+    folder, key = cache_model(model, out)
+    work = [
+        {"prepared": p, "model": folder, "model_key": key, "cache": str(out), "force": force}
+        for p in prepared
+    ]
+    return map_sessions(
+        decode_session, work, jobs=jobs, client=client, progress=progress, desc="labelling"
     )
-    loaded = [load_prepared(i) for i in infos]
-    cleaned = [t for t, _, _ in loaded]
-    check_same_body_plan(cleaned)
-    return cleaned, [q for _, q, _ in loaded], sessions_table([r for _, _, r in loaded])
 
 
 def label_sessions(
@@ -147,11 +224,15 @@ def label_sessions(
     manifest: str | Path | None = None,
     fps: float | None = None,
     progress: bool = True,
+    jobs: int | None = 1,
+    scheduler: Any = None,
+    force: bool = False,
 ) -> Workspace:
     """Label new sessions with the model of workspace ``source`` (same states, same names).
 
     The curation journal of ``source`` is copied, so the new cohort carries the motif names
-    the scientist gave, including merges and splits.
+    the scientist gave, including merges and splits. Sessions are read, cleaned and labelled
+    one by one (in ``jobs`` processes or on a Dask ``scheduler``), through ``out``'s cache.
     """
     source = Path(source)
     if (source / "model").is_dir() and (source / WORKSPACE_FILE).is_file():
@@ -163,12 +244,20 @@ def label_sessions(
     if out.resolve() == source.resolve():
         raise WorkspaceError(f"{out}: write the new cohort's labels to a folder of its own")
     _refuse_to_overwrite_curation(out, False)
-    sessions, table = read_sessions(inputs, manifest, fps, progress)
-    feats, quality = model.transform_features(sessions)
-    labels = model.label_features(feats)
-    summary = _summary(model, table, model.random_state, None)
-    summary["labelled_with"] = str(source)
-    _write_workspace(out, table, model, feats, quality, labels, None, summary, journal)
+    plan = plan_sessions(inputs, manifest, fps)
+    created = not out.exists()
+    try:
+        client = connect(scheduler)
+        cleaning = model.cleaning_.to_dict()
+        prepared, quality, table = _prepare(out, plan, cleaning, jobs, client, force, progress)
+        decoded = _decode(out, prepared, model, jobs, client, force, progress)
+        summary = _summary(model, table, model.random_state, None)
+        summary["labelled_with"] = str(source)
+        _write_workspace(out, table, model, decoded, quality, None, summary, journal)
+    except EthoscribeError:
+        if created:
+            shutil.rmtree(out, ignore_errors=True)
+        raise
     ws = Workspace(out)
     write_ethogram_report(ws, out / "report.html")
     return ws
@@ -206,26 +295,23 @@ def _write_workspace(
     out: Path,
     table: pd.DataFrame,
     model: BehaviourModel,
-    feats: Sequence[FeatureSet],
+    decoded: Sequence[dict[str, Any]],
     quality: Sequence[Any],
-    labels: pd.DataFrame,
     report: Any,
     summary: dict,
     journal: Sequence[dict] = (),
 ) -> None:
+    """Move a finished run's files into ``out``, one session at a time for per-frame tables."""
     stage = Staging(out)
     try:
         write_table(table, stage.path("sessions.csv"))
         if quality:
             frames = [q if isinstance(q, pd.DataFrame) else q.to_frame() for q in quality]
             write_table(pd.concat(frames, ignore_index=True), stage.path("quality.csv"))
-        write_table(labels, stage.path("labels.parquet"))
         if report is not None:
             write_table(report.table, stage.path("stability.csv"))
         meta, arrays = model.to_state()
         write_bundle(stage.path("model"), meta, arrays)
-        for i, f in enumerate(feats):
-            save_features(stage.path(f"features/{i:05d}.npz"), f)
         atomic_write_json(stage.path("summary.json"), jsonable(summary))
         atomic_write_json(
             stage.path(WORKSPACE_FILE),
@@ -245,17 +331,35 @@ def _write_workspace(
         # The tables carry the current names (those of a copied journal, if any).
         cur = Curation.from_journal(journal, {k: motif_name(k) for k in range(model.n_states_)})
         needs = any(r.get("op") == "split" for r in journal)
-        named = cur.apply(labels, features_table(feats) if needs else None)
-        write_ethogram_tables(out, named, stage)
+        with atomic_table_writer(stage.path("labels.parquet")) as write_labels:
+            write_ethogram_tables(out, _named(decoded, cur, needs, stage, write_labels), stage)
         stage.commit(last=WORKSPACE_FILE)
     except BaseException:
         stage.abort()
         raise
 
 
+def _named(
+    decoded: Sequence[dict[str, Any]], cur: Curation, needs: bool, stage: Staging, write: Any
+) -> Iterator[pd.DataFrame]:
+    """Each session's labels with the current names; its state labels and features saved."""
+    n = 0
+    for d in decoded:
+        labels = pd.read_parquet(d["labels"])
+        write(labels)
+        feats = []
+        for path in d["features"]:
+            shutil.copyfile(path, stage.path(f"features/{n:05d}.npz"))
+            n += 1
+            if needs:
+                feats.append(load_features(Path(path)))
+        yield cur.apply(labels, features_table(feats) if needs else None)
+
+
 def _stability(
     model: BehaviourModel, feats: Sequence[FeatureSet], seed: int, progress: bool
 ) -> Any:
+    """Agreement between refits (seeds, halves of the sessions) on the training sample."""
     X, lengths = stack_valid(feats)
     params = model.segmenter_.get_params()
 
