@@ -169,7 +169,8 @@ def stage_discover(n: int, data: Path) -> dict:
     from ethoscribe.workspace import discover
 
     out = Path(tempfile.mkdtemp(prefix="bench-discover-"))
-    ws = discover([data], out / "ws", manifest=data / "manifest.csv", progress=False)
+    # As the command line runs it: per-session work in one process per CPU.
+    ws = discover([data], out / "ws", manifest=data / "manifest.csv", progress=False, jobs=None)
     labels = ws.state_labels().merge(
         pd.read_parquet(data / "truth" / "frames.parquet"),
         on=["session", "frame"],
@@ -228,6 +229,8 @@ def _child(stage: str, n: int, data: str) -> None:
     t0, c0 = time.perf_counter(), time.process_time()
     extra = STAGES[stage](n, Path(data))
     rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    # Worker processes (discover's per-session pool): the largest of their peaks.
+    workers = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
     print(
         json.dumps(
             {
@@ -236,6 +239,7 @@ def _child(stage: str, n: int, data: str) -> None:
                 "wall_s": time.perf_counter() - t0,
                 "cpu_s": time.process_time() - c0,
                 "peak_rss_mb": rss,
+                "peak_rss_workers_mb": workers,
                 **extra,
             }
         )
@@ -294,7 +298,7 @@ def _line(row: dict) -> str:
     extra = {
         k: v
         for k, v in row.items()
-        if k not in ("stage", "frames", "wall_s", "cpu_s", "peak_rss_mb")
+        if k not in ("stage", "frames", "wall_s", "cpu_s", "peak_rss_mb", "peak_rss_workers_mb")
     }
     shown = ", ".join(
         f"{k}={v:.4g}" if isinstance(v, float) else f"{k}={v}" for k, v in extra.items()
