@@ -11,8 +11,9 @@ folder as Parquet first (not timed). With ``--keypoints 12`` (default) two inven
 are added to the vole's 10: ``mid_back`` between neck and body centre and ``hip`` between body
 centre and tail base, each with its own jitter. Then ``ethoscribe.workspace.discover`` runs
 with its defaults (``states="auto"``) and ``stability=False``. Stages are timed by wrapping the
-library calls ``discover`` makes (read, clean, features, state-count choice, final fit,
-decoding = features of the sessions + labels, writing); time outside them is "other".
+library calls ``discover`` makes (read + clean and features + labels run per session in
+worker processes; the fitting sample, the features' fit, the state-count choice, the final
+fit and writing run in this one); time outside them is "other".
 Decoding a new session is timed on a further simulated session (clean + features + labels,
 and labels alone). Each run is one process: ``ru_maxrss`` is its peak resident memory.
 
@@ -63,14 +64,11 @@ def _instrument() -> None:
 
     targets = [
         (runs, "_prepare", "read + clean"),  # in worker processes: CPU of children below
-        (runs, "read_sessions", "read"),
-        (model_module.BehaviourModel, "_clean_all", "clean"),
+        (runs, "_training_sample", "fitting sample"),
         (FeaturePipeline, "fit_transform", "features (fit)"),
         (model_module, "choose_n_states", "state count"),
         (GaussianHMM, "fit", "final fit"),
-        (model_module.BehaviourModel, "transform_features", "decode: features"),
-        (model_module.BehaviourModel, "featurise_cleaned", "decode: features"),
-        (model_module.BehaviourModel, "label_features", "decode: labels"),
+        (runs, "_decode", "features + labels"),  # in worker processes
         (runs, "_write_workspace", "write"),
     ]
     for owner, attr, name in targets:

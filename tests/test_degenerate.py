@@ -178,13 +178,7 @@ def test_hmm_stays_finite_and_positive_definite(case, covariance_type):
     assert np.isfinite(hmm.transmat_).all() and (hmm.transmat_ > 0).all()
 
 
-# --- known gaps in files owned elsewhere (strict xfail: fix, then remove the mark) ----------
-@pytest.mark.xfail(
-    strict=True,
-    reason="features.py/segment/model.py: a keypoint missing in every frame gives 'fewer than "
-    "2 frames have all keypoints present' without naming the keypoint, after a spurious "
-    "'unreliable automatic body axis' warning",
-)
+# --- issue #7 reliability gaps (were strict xfail; now fixed) -------------------------------
 def test_a_keypoint_that_is_always_missing_is_named(moving):
     sessions = []
     for s in moving:
@@ -220,12 +214,6 @@ def test_automatic_state_count_with_one_session_works(moving):
     assert np.isfinite(table.drop(columns="heldout_gain").to_numpy()).all()
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="segment/hmm.py GaussianHMM.fit accepts more states than the frames can support: "
-    "with fewer than D + 1 frames per full-covariance state (common practice) every covariance "
-    "is singular and held up only by the floor; it should refuse clearly",
-)
 def test_more_states_than_the_data_supports_is_a_clear_error():
     short = _session(3, "short", duration_s=6.0)
     with Caught():

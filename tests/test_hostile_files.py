@@ -357,7 +357,7 @@ def test_command_line_reports_a_refusal_in_one_line(ws_path, study, tmp_path, ca
     assert len(err.strip().splitlines()) == 1 and not (tmp_path / "code_ran").exists()
 
 
-# --- known gaps in files owned elsewhere (strict xfail: fix, then remove the mark) ----------
+# --- issue #7 reliability gaps (were strict xfail; now fixed) -------------------------------
 def test_labelling_with_a_hostile_bare_model_folder_is_refused_clearly(base, study, tmp_path):
     from ethoscribe.workspace import label_sessions
 
@@ -368,11 +368,6 @@ def test_labelling_with_a_hostile_bare_model_folder_is_refused_clearly(base, stu
         label_sessions(model, [study / "session_01.parquet"], tmp_path / "out", progress=False)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="segment/model.py BehaviourModel.from_state does not check the types of its meta "
-    "(params, keypoints, fps, n_states); wrong types raise TypeError/ValueError/KeyError",
-)
 def test_model_from_state_checks_its_input(base):
     from ethoscribe.segment.model import BehaviourModel
 

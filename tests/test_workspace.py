@@ -216,9 +216,8 @@ def test_rediscovery_refuses_to_drop_curated_names(study, workspace, tmp_path):
 
 
 def test_ethogram_tables_written_per_session_equal_those_written_at_once(tmp_path):
-    from test_ethogram import _three_sessions
-
     from ethoscribe.workspace.folder import write_ethogram_tables
+    from test_ethogram import _three_sessions
 
     labels = _three_sessions()
     (tmp_path / "whole").mkdir()

@@ -555,6 +555,37 @@ class FeaturePipeline(BaseEstimator):
             raise InputError(msg)
         return sessions
 
+    @staticmethod
+    def _check_keypoints_seen(sessions: list[PoseTracks]) -> None:
+        """Refuse a keypoint without a single tracked position in any session.
+
+        Features need every keypoint in a frame, so such a keypoint leaves no valid frame at
+        all; naming it here beats the later "no complete frame" (and the spurious warning
+        about the body axis that the missing centroid would cause first).
+        """
+        seen = np.zeros(sessions[0].n_keypoints, dtype=bool)
+        for s in sessions:
+            # (F, A, K, D) -> per keypoint: any finite position of any animal in any frame
+            seen |= np.isfinite(s.coords).all(axis=-1).any(axis=(0, 1))
+            if seen.all():
+                return
+        names = [k for k, ok in zip(sessions[0].keypoints, seen, strict=True) if not ok]
+        where = [s.session for s in sessions]
+        shown = f"{where[:5]}" + (f" and {len(where) - 5} more" if len(where) > 5 else "")
+        quoted = ", ".join(f"'{n}'" for n in names)
+        msg = (
+            f"keypoint {quoted} has no tracked position in any frame of session(s) {shown} "
+            "(missing, or below the confidence threshold, everywhere), so no frame has all "
+            "keypoints and no feature can be computed. Drop that keypoint from the tracks, or "
+            "check that the tracker's keypoint names match (a renamed keypoint looks untracked)."
+        )
+        if len(names) == len(seen):
+            msg = (
+                f"no keypoint has a tracked position in any frame of session(s) {shown}; check "
+                "that the files hold tracks (and the confidence threshold, min_confidence)"
+            )
+        raise InputError(msg)
+
     def _check_keypoints(self, keypoints: tuple[str, ...]) -> None:
         if len(keypoints) < 2:
             msg = (
@@ -631,6 +662,7 @@ class FeaturePipeline(BaseEstimator):
         sessions = self._check_sessions(sessions)
         first = sessions[0]
         self._check_keypoints(tuple(first.keypoints))
+        self._check_keypoints_seen(sessions)
         self.keypoints_ = tuple(first.keypoints)
         self.n_dims_, self.units_ = first.n_dims, first.units
         rates = {s.fps for s in sessions}
@@ -1016,19 +1048,86 @@ class FeaturePipeline(BaseEstimator):
             raise InputError(
                 f"FeaturePipeline state lacks {missing}; save it again with to_state()"
             )
-        params["frequencies"] = tuple(params["frequencies"])
-        if params.get("axis") is not None:
-            params["axis"] = tuple(params["axis"])
+        unknown = sorted(set(params) - set(cls._get_param_names()))
+        if unknown:
+            raise InputError(
+                f"FeaturePipeline state: unknown parameters {unknown[:5]}; valid: "
+                f"{cls._get_param_names()}"
+            )
+        for k in ("frequencies", "axis"):  # saved as JSON lists
+            if isinstance(params.get(k), list):
+                params[k] = tuple(params[k])
         pipe = cls(**params)
+        pipe._check_params()  # InputError naming each bad parameter
+        _check_fitted_meta(fitted)
         for k in ("axis_", "keypoints_", "columns_"):
             fitted[k] = tuple(fitted[k])
         for k, v in fitted.items():
             setattr(pipe, k, v)
-        for k in _FITTED_ARRAYS:
-            setattr(pipe, k, np.array(arrays[k], dtype=np.float64))
-        n = len(pipe.columns_)
-        if pipe.scaler_mean_.shape != (n,) or pipe.pca_components_.shape[0] != pipe.n_components_:
+        try:
+            for k in _FITTED_ARRAYS:
+                setattr(pipe, k, np.array(arrays[k], dtype=np.float64))
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"FeaturePipeline state: arrays must hold numbers ({exc})") from None
+        n, m = len(pipe.columns_), pipe.n_components_
+        n_kp, n_dims = len(pipe.keypoints_), pipe.n_dims_
+        shapes = {
+            "scaler_mean_": (n,), "scaler_scale_": (n,), "log_offset_": (n,),
+            "pca_mean_": (n_kp * n_dims,), "pca_components_": (m, n_kp * n_dims),
+            "explained_variance_": (m,), "mean_posture_": (n_kp, n_dims),
+        }  # fmt: skip
+        wrong = [
+            f"{k} {getattr(pipe, k).shape} (expected {shape})"
+            for k, shape in shapes.items()
+            if getattr(pipe, k).shape != shape
+        ]
+        if wrong:
             raise InputError(
-                "FeaturePipeline state is inconsistent: array shapes do not match the columns"
+                "FeaturePipeline state is inconsistent: array shapes do not match the columns, "
+                f"keypoints and components: {'; '.join(wrong)}"
             )
         return pipe
+
+
+def _check_fitted_meta(fitted: Mapping[str, Any]) -> None:
+    """Types of the saved fitted fields of a FeaturePipeline (an InputError names each)."""
+
+    def names(v: Any) -> bool:
+        return isinstance(v, list | tuple) and all(isinstance(x, str) for x in v)
+
+    kps = fitted["keypoints_"]
+    n_comp, fps = fitted["n_components_"], fitted["fps_"]
+    rules = {
+        "keypoints_": names(kps) and len(kps) >= 2 and len(set(kps)) == len(kps),
+        "columns_": names(fitted["columns_"]) and len(fitted["columns_"]) >= 1,
+        "axis_": names(fitted["axis_"]) and len(fitted["axis_"]) == 2,
+        "origin_": fitted["origin_"] is None or isinstance(fitted["origin_"], str),
+        "axis_report_": isinstance(fitted["axis_report_"], str),
+        "axis_details_": isinstance(fitted["axis_details_"], Mapping),
+        "n_dims_": fitted["n_dims_"] in (2, 3) and not isinstance(fitted["n_dims_"], bool),
+        "units_": isinstance(fitted["units_"], str),
+        "social_": isinstance(fitted["social_"], bool | np.bool_),
+        "n_components_": isinstance(n_comp, int | np.integer)
+        and not isinstance(n_comp, bool)
+        and 1 <= n_comp <= 100_000,
+        "fps_": fps is None
+        or (
+            isinstance(fps, int | float | np.number)
+            and not isinstance(fps, bool)
+            and 0 < fps <= 1e6
+        ),
+    }
+    bad = [k for k, ok in rules.items() if not ok]
+    if not bad and isinstance(kps, list | tuple):
+        named = [*fitted["axis_"], *([fitted["origin_"]] if fitted["origin_"] else [])]
+        bad = (
+            [f"axis_/origin_ (names {named} not all in keypoints_)"]
+            if set(named) - set(kps)
+            else []
+        )
+    if bad:
+        shown = ", ".join(f"{k}={fitted.get(k)!r:.60}" for k in bad if k in fitted) or bad[0]
+        raise InputError(
+            f"FeaturePipeline state has fields of the wrong type or value: {shown}; save it "
+            "again with to_state()"
+        )

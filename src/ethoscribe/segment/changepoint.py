@@ -448,26 +448,84 @@ class ChangePointSegmenter(BaseEstimator):
     def from_state(
         cls, meta: dict[str, Any], arrays: dict[str, np.ndarray]
     ) -> ChangePointSegmenter:
-        """Rebuild a fitted segmenter saved by :meth:`to_state`."""
-        if meta.get("kind") != "ethoscribe.ChangePointSegmenter":
-            raise InputError(f"not a saved change-point segmenter (kind={meta.get('kind')!r})")
-        obj = cls(**meta["params"])
-        for name in ("mean", "scale", "penalty"):
-            setattr(obj, f"{name}_", np.asarray(arrays[name], dtype=np.float64))
-        obj.n_features_in_ = int(meta["n_features_in"])
-        obj.noise_variance_ = float(meta["noise_variance"])
+        """Rebuild a fitted segmenter saved by :meth:`to_state`.
+
+        Parameters, counts and array shapes are checked, so a damaged or hand-edited state is
+        an ``InputError`` naming the field instead of a ``TypeError`` or ``KeyError``.
+        """
+        kind = meta.get("kind") if isinstance(meta, dict) else type(meta).__name__
+        if kind != "ethoscribe.ChangePointSegmenter":
+            raise InputError(f"not a saved change-point segmenter (kind={kind!r})")
+        params = meta.get("params")
+        if not isinstance(params, dict):
+            raise InputError(f"change-point state: 'params' must be an object, got {params!r:.60}")
+        unknown = sorted(set(params) - set(cls._get_param_names()))
+        if unknown:
+            raise InputError(
+                f"change-point state: unknown parameters {unknown[:5]}; valid: "
+                f"{cls._get_param_names()}"
+            )
+        obj = cls(**params)
+        obj._check_params()
+        problems = []
+        for name, high in (("n_features_in", 100_000), ("n_motifs", 1000)):
+            v = meta.get(name)
+            if not (isinstance(v, int | np.integer) and not isinstance(v, bool) and 1 <= v <= high):
+                problems.append(f"'{name}' must be an integer from 1 to {high}, got {v!r:.60}")
+        noise = meta.get("noise_variance")
+        if not (_positive_number(noise) or (_finite_number(noise) and noise == 0)):
+            problems.append(f"'noise_variance' must be a number >= 0, got {noise!r:.60}")
+        needed = ["mean", "scale", "penalty", "boundaries", "boundary_counts"]
+        needed += [f"segments/{c}" for c in SEGMENT_COLUMNS]
+        missing = [k for k in needed if k not in arrays]
+        if missing:
+            problems.append(f"arrays {missing} are missing")
+        if problems:
+            raise InputError("change-point state: " + "; ".join(problems))
+        D = int(meta["n_features_in"])
+        try:
+            for name in ("mean", "scale", "penalty"):
+                setattr(obj, f"{name}_", np.asarray(arrays[name], dtype=np.float64))
+            counts = np.asarray(arrays["boundary_counts"], dtype=np.int64)
+            flat = np.asarray(arrays["boundaries"], dtype=np.int64)
+            segments = {c: np.asarray(arrays[f"segments/{c}"]) for c in SEGMENT_COLUMNS}
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"change-point state: arrays must hold numbers ({exc})") from None
+        if obj.mean_.shape != (D,) or obj.scale_.shape != (D,):
+            raise InputError(
+                f"change-point state: 'mean' and 'scale' must have shape ({D},) for "
+                f"n_features_in={D}; got {obj.mean_.shape} and {obj.scale_.shape}"
+            )
+        if counts.ndim != 1 or (counts < 0).any() or counts.sum() != flat.size:
+            raise InputError(
+                "change-point state: 'boundary_counts' must be counts >= 0 adding up to the "
+                "number of saved boundaries"
+            )
+        obj.n_features_in_ = D
+        obj.noise_variance_ = float(noise)
         obj.motif_params_ = _with_prefix(arrays, "motif/")
         obj.n_motifs_ = obj.n_states_ = int(meta["n_motifs"])
-        counts = np.asarray(arrays["boundary_counts"], dtype=np.int64)
-        flat = np.asarray(arrays["boundaries"], dtype=np.int64)
+        weights = obj.motif_params_.get("weights")
+        if weights is None or np.shape(weights) != (obj.n_motifs_,):
+            raise InputError(
+                f"change-point state: motif weights must have shape ({obj.n_motifs_},) for "
+                f"n_motifs={obj.n_motifs_}; got {None if weights is None else np.shape(weights)}"
+            )
         obj.boundaries_ = np.split(flat, np.cumsum(counts)[:-1])
-        obj.segments_ = pd.DataFrame(
-            {c: np.asarray(arrays[f"segments/{c}"]) for c in SEGMENT_COLUMNS}
-        )
+        obj.segments_ = pd.DataFrame(segments)
         if meta.get("detector") is not None:
             det = _with_prefix(arrays, "detector/")
             obj.detector_ = PredictionErrorBoundaries.from_state(meta["detector"], det)
         return obj
+
+
+def _finite_number(v: object) -> bool:
+    if not isinstance(v, int | float | np.integer | np.floating) or isinstance(v, bool):
+        return False
+    try:
+        return bool(np.isfinite(float(v)))
+    except OverflowError:  # an integer too large for a float
+        return False
 
 
 def _with_prefix(arrays: dict[str, np.ndarray], prefix: str) -> dict[str, np.ndarray]:

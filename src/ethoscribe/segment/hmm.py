@@ -24,7 +24,7 @@ means, so refits with the same seed and data give identical arrays.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from importlib.metadata import version
 from typing import Any
 
@@ -61,6 +61,23 @@ def _batches(lengths: np.ndarray):
         last = max(first + 1, int(np.searchsorted(ends, base + _DECODE_BATCH, side="right")))
         yield int(base), int(ends[last - 1]), lengths[first:last]
         first = last
+
+
+def frames_needed(n_states: int, n_features: int, covariance_type: str = "full") -> int:
+    """Fewest frames a fit of ``n_states`` Gaussian states can be trusted with.
+
+    The sample covariance of ``n`` frames has rank at most ``n - 1``, so a full covariance of
+    ``D`` features is singular (held up only by ``min_covar``) unless its state owns at least
+    ``D + 1`` frames: ``n_states * (D + 1)`` is the common lower limit. A diagonal covariance
+    needs 2 frames per state.
+
+    Examples
+    --------
+    >>> frames_needed(3, 4), frames_needed(3, 4, "diag")
+    (15, 6)
+    """
+    per_state = int(n_features) + 1 if covariance_type == "full" else 2
+    return int(n_states) * per_state
 
 
 class GaussianHMM:
@@ -194,6 +211,17 @@ class GaussianHMM:
         whole = fit_lengths.sum() == len(X)
         blocks = zip(starts, stops, strict=True)
         X_fit = X if whole else np.concatenate([X[a:b] for a, b in blocks])
+        needed = frames_needed(K, X.shape[1], self.covariance_type)
+        if len(X_fit) < needed:
+            per_state = needed // K
+            msg = (
+                f"n_states={K} is more states than {len(X_fit)} frames of {X.shape[1]} features "
+                f"can support: each {self.covariance_type}-covariance state needs at least "
+                f"{per_state} frames ({needed} in all), or its covariance is singular. Lower "
+                f"n_states to at most {max(1, len(X_fit) // per_state)}, pass more data"
+                + (", or use covariance_type='diag'" if self.covariance_type == "full" else "")
+            )
+            raise InputError(msg)
         if not distinct_rows_at_least(X_fit, K):
             msg = (
                 f"n_states={K} is more than the number of distinct frames in the data "
@@ -348,28 +376,61 @@ class GaussianHMM:
 
     @classmethod
     def from_state(cls, meta: dict[str, Any], arrays: dict[str, np.ndarray]) -> GaussianHMM:
-        """Rebuild the fitted model written by :meth:`to_state`."""
+        """Rebuild the fitted model written by :meth:`to_state`.
+
+        The parameters, the summary numbers and the arrays are checked (types, shapes, finite
+        probabilities) so a damaged or hand-edited state is an ``InputError`` naming the field.
+        """
         if (
-            meta.get("kind") != "ethoscribe.GaussianHMM"
+            not isinstance(meta, Mapping)
+            or meta.get("kind") != "ethoscribe.GaussianHMM"
             or meta.get("format_version") != FORMAT_VERSION
         ):
+            kind = meta.get("kind") if isinstance(meta, Mapping) else type(meta).__name__
+            fmt = meta.get("format_version") if isinstance(meta, Mapping) else None
             msg = (
-                f"not a GaussianHMM state of format 1 (kind={meta.get('kind')!r}, format="
-                f"{meta.get('format_version')!r}); save it again with this ethoscribe"
+                f"not a GaussianHMM state of format 1 (kind={kind!r}, format={fmt!r}); save it "
+                "again with this ethoscribe"
             )
             raise InputError(msg)
-        model = cls(**meta["params"])
+        params = meta.get("params")
+        if not isinstance(params, Mapping):
+            raise InputError(f"GaussianHMM state: 'params' must be an object, got {params!r:.60}")
+        model = cls().set_params(**params)  # unknown names: InputError
+        check_hmm_params(model)
+        problems = []
+        rules = {
+            "n_states": (_int_between(meta.get("n_states"), 1, _MAX_STATES), "an int >= 1"),
+            "n_features": (_int_between(meta.get("n_features"), 1, _MAX_FEATURES), "an int >= 1"),
+            "n_iter": (_int_between(meta.get("n_iter"), 0, 2**31), "an int >= 0"),
+            "n_fit_frames": (_int_between(meta.get("n_fit_frames"), 0, 2**62), "an int >= 0"),
+            "log_likelihood": (_real(meta.get("log_likelihood")), "a number"),
+            "covariance_floor": (
+                _real(meta.get("covariance_floor")) and meta["covariance_floor"] > 0,
+                "a number > 0",
+            ),
+            "converged": (isinstance(meta.get("converged"), bool | np.bool_), "true or false"),
+        }
+        for name, (ok, want) in rules.items():
+            if not ok:
+                problems.append(f"'{name}' must be {want}, got {meta.get(name, 'nothing')!r:.60}")
+        if problems:
+            raise InputError("GaussianHMM state: " + "; ".join(problems))
         K, D = int(meta["n_states"]), int(meta["n_features"])
         shapes = {"means": (K, D), "covars": (K, D, D), "startprob": (K,), "transmat": (K, K)}
         for name, shape in shapes.items():
             if name not in arrays or np.shape(arrays[name]) != shape:
                 got = np.shape(arrays[name]) if name in arrays else "missing"
                 raise InputError(f"GaussianHMM state: array {name!r} must be {shape}, got {got}")
-        model.means_ = np.array(arrays["means"], dtype=np.float64)
-        model.covars_ = np.array(arrays["covars"], dtype=np.float64)
-        model.startprob_ = np.array(arrays["startprob"], dtype=np.float64)
-        model.transmat_ = np.array(arrays["transmat"], dtype=np.float64)
-        model.restart_log_likelihoods_ = np.array(arrays.get("restart_log_likelihoods", []))
+        try:
+            fitted = {name: np.array(arrays[name], dtype=np.float64) for name in shapes}
+            restarts = np.array(arrays.get("restart_log_likelihoods", []), dtype=np.float64)
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"GaussianHMM state: arrays must hold numbers ({exc})") from None
+        _check_fitted_arrays(fitted)
+        model.means_, model.covars_ = fitted["means"], fitted["covars"]
+        model.startprob_, model.transmat_ = fitted["startprob"], fitted["transmat"]
+        model.restart_log_likelihoods_ = restarts
         model.n_states_, model.n_features_in_ = K, D
         model.log_likelihood_ = float(meta["log_likelihood"])
         model.n_iter_ = int(meta["n_iter"])
@@ -377,3 +438,39 @@ class GaussianHMM:
         model.covariance_floor_ = float(meta["covariance_floor"])
         model.n_fit_frames_ = int(meta["n_fit_frames"])
         return model
+
+
+_MAX_STATES = 1000  # a saved state count beyond this is damage, not a model
+_MAX_FEATURES = 100_000
+
+
+def _int_between(v: Any, low: int, high: int) -> bool:
+    ok = isinstance(v, int | np.integer) and not isinstance(v, bool | np.bool_)
+    return ok and low <= v <= high
+
+
+def _real(v: Any) -> bool:
+    """A finite number (a huge JSON integer does not fit a float: not one)."""
+    if not isinstance(v, int | float | np.integer | np.floating) or isinstance(v, bool | np.bool_):
+        return False
+    try:
+        return bool(np.isfinite(float(v)))
+    except OverflowError:
+        return False
+
+
+def _check_fitted_arrays(fitted: dict[str, np.ndarray]) -> None:
+    """Saved means, covariances and probabilities must be usable for decoding."""
+    bad = [name for name, a in fitted.items() if not np.isfinite(a).all()]
+    if bad:
+        raise InputError(f"GaussianHMM state: arrays {bad} hold NaN or infinite values")
+    for name, p in (("startprob", fitted["startprob"]), ("transmat", fitted["transmat"])):
+        rows = np.atleast_2d(p)
+        if (rows < 0).any() or not np.allclose(rows.sum(axis=1), 1.0, atol=1e-6):
+            raise InputError(
+                f"GaussianHMM state: {name!r} must hold probabilities summing to 1 per row"
+            )
+    covars = fitted["covars"]
+    symmetric = np.allclose(covars, np.swapaxes(covars, 1, 2), rtol=1e-8, atol=1e-12)
+    if not symmetric or (np.linalg.eigvalsh(covars).min(initial=np.inf) <= 0):
+        raise InputError("GaussianHMM state: 'covars' must be symmetric positive definite matrices")

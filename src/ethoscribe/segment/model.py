@@ -7,7 +7,7 @@ fitted segmenter. New cohorts therefore get the same state ids, hence the same m
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -16,16 +16,16 @@ from tqdm.auto import tqdm
 
 from ethoscribe import __version__
 from ethoscribe.clean import CleanParams, QualityReport, clean
-from ethoscribe.errors import InputError
+from ethoscribe.errors import EthoscribeError, InputError
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.pose import PoseTracks, check_same_body_plan
+from ethoscribe.segment._model_meta import METHODS, RESAVE, SEGMENTERS, check_meta, known_keys
 from ethoscribe.segment.base import check_fitted, split_by_lengths
 from ethoscribe.segment.changepoint import ChangePointSegmenter
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.postprocess import enforce_min_bout
 from ethoscribe.segment.select import choose_n_states
 
-METHODS = ("hmm", "changepoint", "prediction_error")
 FORMAT_VERSION = 1
 
 
@@ -275,8 +275,12 @@ class BehaviourModel:
     def label_features(self, feats: Sequence[FeatureSet]) -> pd.DataFrame:
         """Label already computed feature sets (see :meth:`label`)."""
         check_fitted(self, "segmenter_")
-        X, lengths = stack_valid(feats)
-        states, prob = self._states_and_probability(X, lengths)
+        if any(f.valid.any() for f in feats):
+            X, lengths = stack_valid(feats)
+            states, prob = self._states_and_probability(X, lengths)
+        else:  # nothing to decode (e.g. one session, all invalid): every frame stays -1
+            X, lengths = np.zeros((0, 0)), np.zeros(0, dtype=np.int64)
+            states, prob = np.zeros(0, dtype=np.int64), np.zeros((0, self.n_states_))
         min_frames = round(self.min_bout_s * self.fps_)
         if min_frames > 1:
             states = enforce_min_bout(states, min_frames, lengths=lengths, probabilities=prob)
@@ -350,7 +354,17 @@ class BehaviourModel:
 
     @classmethod
     def from_state(cls, meta: dict[str, Any], arrays: dict[str, np.ndarray]) -> BehaviourModel:
-        """Rebuild a fitted model saved by :meth:`to_state`."""
+        """Rebuild a fitted model saved by :meth:`to_state`.
+
+        Every field of ``meta`` is checked (type, range, known keys) before use, so a
+        hand-edited or foreign ``model.json`` is refused with an :class:`InputError` naming
+        the field, never with a bare ``TypeError`` or ``KeyError`` from deep inside.
+        """
+        if not isinstance(meta, Mapping):
+            raise InputError(
+                f"model.json must hold a JSON object (a mapping of fields); got "
+                f"{type(meta).__name__}. {RESAVE}"
+            )
         if meta.get("kind") != "ethoscribe.BehaviourModel":
             raise InputError(f"not an ethoscribe behaviour model (kind={meta.get('kind')!r})")
         if meta.get("format_version") != FORMAT_VERSION:
@@ -360,21 +374,36 @@ class BehaviourModel:
                 f"reads version {FORMAT_VERSION}. Refit the model or install the matching "
                 "ethoscribe."
             )
+        check_meta(meta, known_keys(cls))
+        try:
+            return cls._rebuild(meta, arrays)
+        except EthoscribeError as exc:
+            raise InputError(f"model file: {exc}") from None
+        except (KeyError, TypeError, ValueError, AttributeError, IndexError, OverflowError) as exc:
+            # Backstop for what the explicit checks cannot foresee (nested parts).
+            raise InputError(
+                f"the model file does not hold what ethoscribe writes "
+                f"({type(exc).__name__}: {exc}). {RESAVE}"
+            ) from None
+
+    @classmethod
+    def _rebuild(cls, meta: Mapping[str, Any], arrays: Mapping[str, np.ndarray]) -> BehaviourModel:
+        """``from_state`` after ``_check_meta``: build the parts and check they agree."""
         params = dict(meta["params"])
-        params["state_range"] = tuple(params["state_range"])
+        if "state_range" in params:
+            params["state_range"] = tuple(params["state_range"])
         model = cls(**params)
-        seg_cls = {"GaussianHMM": GaussianHMM, "ChangePointSegmenter": ChangePointSegmenter}
+        model._check_params()
         kind = meta["segmenter_kind"]
-        if kind not in seg_cls:
-            raise InputError(f"unknown segmenter kind {kind!r} in the model file")
 
         def pick(prefix: str) -> dict[str, np.ndarray]:
             return {k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)}
 
         model.cleaning_ = CleanParams.from_dict(meta["cleaning"])
         model.features_ = FeaturePipeline.from_state(meta["features"], pick("features/"))
-        model.segmenter_ = seg_cls[kind].from_state(meta["segmenter"], pick("segmenter/"))
-        model.selection_ = meta["selection"] and _FixedSelection.from_json(meta["selection"])
+        model.segmenter_ = SEGMENTERS[kind].from_state(meta["segmenter"], pick("segmenter/"))
+        selection = meta["selection"]
+        model.selection_ = None if selection is None else _FixedSelection.from_json(selection)
         model.n_states_ = int(meta["n_states"])
         model.fps_ = float(meta["fps"])
         model.keypoints_ = tuple(meta["keypoints"])
@@ -382,6 +411,31 @@ class BehaviourModel:
         model.quality_ = []
         model.training_sessions_ = list(meta["training_sessions"])
         model.n_training_frames_ = int(meta["n_training_frames"])
+        # The parts must describe the same body plan and state count as the summary fields.
+        problems = []
+        if model.features_.keypoints_ != model.keypoints_:
+            problems.append(
+                f"'keypoints' {list(model.keypoints_)} differ from the feature pipeline's "
+                f"{list(model.features_.keypoints_)}"
+            )
+        if model.features_.n_dims_ != model.n_dims_:
+            problems.append(
+                f"'n_dims' {model.n_dims_} differs from the feature pipeline's "
+                f"{model.features_.n_dims_}"
+            )
+        if int(model.segmenter_.n_states_) != model.n_states_:
+            problems.append(
+                f"'n_states' {model.n_states_} differs from the segmenter's "
+                f"{model.segmenter_.n_states_}"
+            )
+        n_features = len(model.features_.columns_)
+        if int(model.segmenter_.n_features_in_) != n_features:
+            problems.append(
+                f"the segmenter expects {model.segmenter_.n_features_in_} features but the "
+                f"feature pipeline makes {n_features}"
+            )
+        if problems:
+            raise InputError("the model file is inconsistent: " + "; ".join(problems) + ".")
         return model
 
 

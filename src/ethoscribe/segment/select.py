@@ -42,7 +42,7 @@ from tqdm.auto import tqdm
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_fit import representative_blocks
 from ethoscribe.segment.base import check_X_lengths
-from ethoscribe.segment.hmm import GaussianHMM
+from ethoscribe.segment.hmm import GaussianHMM, frames_needed
 
 RANGE_TOLERANCE = 0.01
 ELBOW_FRACTION = 0.2
@@ -61,8 +61,11 @@ class StateCountSelection:
     n_parameters`` (held-out columns are NaN with ``criterion="bic"``; with "heldout", ``bic``
     is the mean over folds of the BIC on each fold's training part; ``heldout_gain`` is the
     gain per added state of the held-out curve's concave envelope, which the elbow rule
-    reads). ``best``: the chosen K;
-    ``rule``: how the held-out curve was read ("one_se" or "elbow").
+    reads), and ``fitted``: False for a candidate skipped because its fits would have fewer
+    frames than its states can support (:func:`ethoscribe.segment.hmm.frames_needed`; its
+    other columns are NaN, except ``n_parameters``). ``best``: the chosen K;
+    ``rule``: how the held-out curve was read ("one_se" or "elbow"); ``skipped``: the
+    candidates not fitted.
     """
 
     table: pd.DataFrame
@@ -70,6 +73,7 @@ class StateCountSelection:
     criterion: str
     heldout: str
     rule: str = "one_se"
+    skipped: tuple[int, ...] = ()
 
 
 def _units(lengths: np.ndarray, heldout: str, block_frames: int | None, rng) -> pd.DataFrame:
@@ -185,7 +189,9 @@ def select_n_states(
     ----------
     X : array (n_frames, n_features); lengths : int array (n_sessions,), optional
     candidates : iterable of int
-        State counts to try.
+        State counts to try. A count whose fits would have fewer frames than its states can
+        support (:func:`ethoscribe.segment.hmm.frames_needed`) is skipped and marked
+        ``fitted=False`` in the table; an ``InputError`` only when every count is.
     criterion : {"heldout", "bic"}
     heldout : {"sessions", "blocks"}
         Held-out units: whole sessions (needs >= 2), or blocks alternating inside sessions.
@@ -227,9 +233,30 @@ def select_n_states(
         raise InputError("model_params must not contain n_states: the candidates set it")
     params["random_state"] = random_state
     params.setdefault("progress", False)
-    rows = []
+    n_features = X.shape[1]
+    covariance_type = params.get("covariance_type", "full")
     if criterion == "bic":
-        for k in tqdm(cands, desc="state counts", disable=not progress):
+        fit_frames = len(X)
+    else:
+        units = _units(lengths, heldout, block_frames, np.random.default_rng(random_state))
+        n_units = (units["stop"] - units["start"]).to_numpy(np.int64)
+        # Each fold's model is fitted on the other fold: the smaller training part decides.
+        fit_frames = min(int(n_units[units["fold"].to_numpy() != f].sum()) for f in (0, 1))
+    feasible = [k for k in cands if fit_frames >= frames_needed(k, n_features, covariance_type)]
+    if not feasible:
+        needed = frames_needed(cands[0], n_features, covariance_type)
+        msg = (
+            f"none of the candidate state counts {cands} can be fitted: even {cands[0]} states "
+            f"of {covariance_type} covariance over {n_features} features need {needed} frames "
+            f"per fit, but a fit has only {fit_frames}"
+            + (" (one of 2 held-out folds)" if criterion == "heldout" else "")
+            + ". Try fewer states (a lower state range) or pass more data."
+        )
+        raise InputError(msg)
+    skipped = tuple(k for k in cands if k not in feasible)
+    if criterion == "bic":
+        rows = []
+        for k in tqdm(feasible, desc="state counts", disable=not progress):
             m = GaussianHMM(n_states=k, **params).fit(X, lengths)
             ll = m.score(X, lengths)
             rows.append((k, np.nan, m.bic(X, lengths), ll / len(X), m.n_parameters()))
@@ -239,13 +266,12 @@ def select_n_states(
         for col in ("heldout_gap", "heldout_gap_se", "tolerance", "heldout_gain"):
             table[col] = np.nan
         table["within_tolerance"] = table["n_states"] == best
-        return StateCountSelection(table, best, criterion, heldout, rule)
-    units = _units(lengths, heldout, block_frames, np.random.default_rng(random_state))
-    n_units = (units["stop"] - units["start"]).to_numpy(np.int64)
-    ll_units = np.zeros((len(cands), len(units)))
-    bic = np.zeros(len(cands))
-    train = np.zeros(len(cands))
-    jobs = [(i, k, f) for i, k in enumerate(cands) for f in (0, 1)]
+        table = _with_skipped(table, cands, n_features, params)
+        return StateCountSelection(table, best, criterion, heldout, rule, skipped)
+    ll_units = np.zeros((len(feasible), len(units)))
+    bic = np.zeros(len(feasible))
+    train = np.zeros(len(feasible))
+    jobs = [(i, k, f) for i, k in enumerate(feasible) for f in (0, 1)]
     for i, k, f in tqdm(jobs, desc="state counts x folds", disable=not progress):
         X_tr, len_tr = _take(X, units[units["fold"] != f])
         X_te, len_te = _take(X, units[units["fold"] == f])
@@ -254,10 +280,10 @@ def select_n_states(
         ll_tr = m.score(X_tr, len_tr)
         train[i] += ll_tr / len(X)  # both folds together cover every frame once
         bic[i] += 0.5 * (-2 * ll_tr + m.n_parameters() * np.log(len(X_tr)))
-    chosen = _choose(ll_units, n_units, cands, rule)
+    chosen = _choose(ll_units, n_units, feasible, rule)
     table = pd.DataFrame(
         {
-            "n_states": cands,
+            "n_states": feasible,
             "heldout_ll_per_frame": chosen["curve"],
             "heldout_gap": chosen["gap"],
             "heldout_gap_se": chosen["se"],
@@ -266,10 +292,23 @@ def select_n_states(
             "heldout_gain": chosen["gain"],
             "bic": bic,
             "train_ll_per_frame": train,
-            "n_parameters": [_n_parameters(k, X.shape[1], params) for k in cands],
+            "n_parameters": [_n_parameters(k, n_features, params) for k in feasible],
         }
     )
-    return StateCountSelection(table, int(chosen["best"]), criterion, heldout, rule)
+    table = _with_skipped(table, cands, n_features, params)
+    return StateCountSelection(table, int(chosen["best"]), criterion, heldout, rule, skipped)
+
+
+def _with_skipped(
+    table: pd.DataFrame, cands: list[int], n_features: int, params: Mapping[str, Any]
+) -> pd.DataFrame:
+    """The table of the fitted candidates with a NaN row for each skipped one (``fitted``)."""
+    fitted = set(table["n_states"])
+    out = table.set_index("n_states").reindex(cands).reset_index()
+    out["within_tolerance"] = out["within_tolerance"].fillna(False).astype(bool)
+    out["n_parameters"] = [_n_parameters(k, n_features, params) for k in cands]
+    out["fitted"] = [k in fitted for k in cands]
+    return out
 
 
 def _n_parameters(k: int, d: int, params: Mapping[str, Any]) -> int:
