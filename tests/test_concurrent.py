@@ -81,6 +81,12 @@ def test_second_editor_is_told_who_holds_the_workspace(ctx, ws, study, tmp_path)
         with pytest.raises(WorkspaceError, match=rf"in use by process {pid} "):
             run_discover(study, ws.path)
         assert not list(ws.path.glob(".incoming-*"))
+        # So is an export of the curated ethogram, which must not mix names of two journals.
+        from ethoscribe.workspace.export import save_ethogram
+
+        with pytest.raises(WorkspaceError, match=rf"in use by process {pid} "):
+            save_ethogram(ws.path, report=False)
+        assert not (ws.path / "exports").exists()
     finally:
         holder.kill()
         holder.join()

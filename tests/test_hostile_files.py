@@ -374,3 +374,15 @@ def test_model_from_state_checks_its_input(base):
     meta, arrays = read_bundle(base / "model")
     with pytest.raises(InputError):
         BehaviourModel.from_state({**meta, "keypoints": 5}, arrays)
+
+
+def test_an_export_folder_name_that_leaves_the_workspace_is_refused(base, tmp_path):
+    import shutil
+
+    from ethoscribe.errors import EthoscribeError
+    from ethoscribe.workspace.export import save_ethogram
+
+    ws = shutil.copytree(base, tmp_path / "ws")
+    with pytest.raises(EthoscribeError, match="export folder"):
+        save_ethogram(ws, folder="../outside", report=False)
+    assert not (tmp_path / "outside").exists()

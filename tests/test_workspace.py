@@ -227,3 +227,18 @@ def test_ethogram_tables_written_per_session_equal_those_written_at_once(tmp_pat
     for name in ["labels.csv", "bouts.csv", "transitions.csv", "time_budget.csv"]:
         a, b = (tmp_path / "whole" / name), (tmp_path / "pieces" / name)
         assert a.read_bytes() == b.read_bytes(), name
+
+
+def test_repair_removes_old_temporary_files_of_interrupted_runs_from_the_cache(workspace, tmp_path):
+    import os
+    import shutil
+
+    ws = Workspace(shutil.copytree(workspace.path, tmp_path / "ws"))
+    cleaned = ws.path / "cache" / "cleaned"
+    old, fresh = cleaned / ".a.npz.x1.tmp", cleaned / ".b.npz.x2.tmp"
+    old.write_bytes(b"partial")
+    fresh.write_bytes(b"partial")
+    os.utime(old, (time.time() - 7200, time.time() - 7200))
+    notes = ws.repair()
+    assert not old.exists() and fresh.exists()  # a live run may still own the fresh one
+    assert any(".a.npz.x1.tmp" in n for n in notes)

@@ -24,6 +24,7 @@ import pandas as pd
 
 from ethoscribe.curation import UNASSIGNED
 from ethoscribe.errors import EthoscribeError, InputError
+from ethoscribe.io._safe import safe_child
 from ethoscribe.postures import evenly_spaced_frames, example_bouts
 from ethoscribe.widgets.editing import CurationEdits
 from ethoscribe.workspace import Workspace, compare
@@ -352,8 +353,8 @@ class WorkbenchState(CurationEdits):
     def run_comparison(self, by: str, test: str = "permutation") -> bool:
         """Compare groups of sessions by column ``by`` (writes ``comparison_<by>/``)."""
         self.flush()
-        out = self.ws.path / f"comparison_{by}"
         try:
+            out = safe_child(self.ws.path, f"comparison_{by}", "grouping column")
             text = compare(self.ws.path, out, by=by, test=test)
         except EthoscribeError as exc:
             self.say("error", f"could not compare by {by!r}: {exc}")

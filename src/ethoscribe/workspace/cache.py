@@ -28,7 +28,9 @@ import pandas as pd
 
 from ethoscribe import __version__
 from ethoscribe.clean import CleanParams, clean
+from ethoscribe.errors import WorkspaceError
 from ethoscribe.io._atomic import atomic_write, atomic_write_json, write_table
+from ethoscribe.io._safe import load_npz, loads_json, read_json
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
 from ethoscribe.segment.model import BehaviourModel
@@ -106,7 +108,9 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
 
 def load_prepared(info: dict[str, Any]) -> tuple[PoseTracks, pd.DataFrame, dict[str, Any]]:
     """Cleaned tracks, quality table and sessions-table row made by :func:`prepare_session`."""
-    with np.load(info["tracks"], allow_pickle=False) as z:
+    # The cache is read like any file a colleague could have put there: no pickle, strict JSON.
+    z = load_npz(info["tracks"])
+    try:
         tracks = PoseTracks(
             coords=z["coords"].astype(np.float64),
             confidence=z["confidence"].astype(np.float64),
@@ -115,10 +119,12 @@ def load_prepared(info: dict[str, Any]) -> tuple[PoseTracks, pd.DataFrame, dict[
             fps=float(z["fps"]),
             units=str(z["units"]),
             session=str(z["session"]),
-            meta=json.loads(str(z["meta"])),
+            meta=loads_json(str(z["meta"]), info["tracks"]),
         )
-    row = json.loads(Path(info["row"]).read_text())
-    return tracks, pd.read_parquet(info["quality"]), row
+    except (KeyError, TypeError, ValueError) as exc:
+        msg = f"{info['tracks']}: a damaged cache entry ({exc}); rerun with --force"
+        raise WorkspaceError(msg) from None
+    return tracks, pd.read_parquet(info["quality"]), read_json(info["row"])
 
 
 def cache_model(model: BehaviourModel, root: str | Path) -> tuple[str, str]:
@@ -169,9 +175,11 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     base = folder / f"{stem[:80]}-{key}"
     done = Path(f"{base}.json")
     if not job.get("force") and done.is_file():
-        info = json.loads(done.read_text())
-        paths = [info["labels"], *info["features"]]
-        if all((folder / p).is_file() for p in paths):
+        info = read_json(done)
+        paths = [info.get("labels"), *info.get("features", [])] if isinstance(info, dict) else []
+        # Entries name files beside them, nothing else (a hand-edited entry is recomputed).
+        plain = paths and all(isinstance(p, str) and p == Path(p).name for p in paths)
+        if plain and all((folder / p).is_file() for p in paths):
             return _absolute(info, folder)
     tracks, _, _ = load_prepared(prepared)
     model = _cached_model(job["model"], job["model_key"])

@@ -24,6 +24,7 @@ import pandas as pd
 from ethoscribe.ethogram import bout_table, duration_summary, time_budget, transition_matrix
 from ethoscribe.ethogram import transition_table as transitions_of
 from ethoscribe.io._atomic import write_table
+from ethoscribe.io._safe import safe_child
 from ethoscribe.workspace.compare import write_ethogram_report
 from ethoscribe.workspace.folder import Workspace
 
@@ -48,7 +49,13 @@ def save_ethogram(
     ['bout_durations.csv', 'bouts.csv']
     """
     ws = workspace if isinstance(workspace, Workspace) else Workspace(workspace)
-    out = ws.path / folder
+    out = safe_child(ws.path, str(folder), "export folder")
+    # Under the edit lock: an edit in another process cannot change the names half-way through.
+    with ws.lock():
+        return _save_ethogram(ws, out, report)
+
+
+def _save_ethogram(ws: Workspace, out: Path, report: bool) -> dict[str, Path]:
     out.mkdir(exist_ok=True)
     labels = ws.labels()
     bouts = bout_table(labels)

@@ -15,6 +15,7 @@ import json
 import os
 import shutil
 import tempfile
+import time
 from collections.abc import Sequence
 from contextlib import ExitStack
 from pathlib import Path
@@ -224,12 +225,32 @@ def remove_leftovers(root: Path) -> list[str]:
         else:
             continue
         notes.append(f"removed {p.name}, left by a save that was interrupted")
+    notes += _remove_cache_leftovers(root / "cache")
     model = root / "model"
     if model.is_dir() and not model.is_symlink():
         for p in sorted(model.iterdir()):
             if p.is_file() and _is_partial(p, ("model.json", "arrays.npz")):
                 p.unlink(missing_ok=True)
                 notes.append(f"removed model/{p.name}, left by a save that was interrupted")
+    return notes
+
+
+def _remove_cache_leftovers(cache: Path, min_age_s: float = 3600.0) -> list[str]:
+    # Batch runs write the cache without the edit lock, so only temporary files and staging
+    # folders old enough that no live writer can still own them are removed.
+    if not cache.is_dir() or cache.is_symlink():
+        return []
+    notes, limit = [], time.time() - min_age_s
+    for sub in sorted(p for p in cache.iterdir() if p.is_dir() and not p.is_symlink()):
+        for p in sorted(sub.iterdir()):
+            partial = p.is_file() and p.name.startswith(".") and p.name.endswith(".tmp")
+            staged = p.is_dir() and not p.is_symlink() and p.name.startswith(".incoming-")
+            if (partial or staged) and p.lstat().st_mtime < limit:
+                if staged:
+                    shutil.rmtree(p, ignore_errors=True)
+                else:
+                    p.unlink(missing_ok=True)
+                notes.append(f"removed cache/{sub.name}/{p.name}, left by an interrupted run")
     return notes
 
 

@@ -29,6 +29,7 @@ import pandas as pd
 from ethoscribe.clean import calibrate, clean
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.io._atomic import atomic_write
+from ethoscribe.io._safe import safe_child
 from ethoscribe.postures import (
     egocentric_postures,
     mean_postures,
@@ -102,7 +103,8 @@ def _key(source: Path, model: BehaviourModel) -> str:
 
 
 def _cache_path(ws: Workspace, session: str) -> Path:
-    return ws.path / POSTURE_FOLDER / f"{session}.npz"
+    # Session names come from files and manifests: keep them from leaving the folder.
+    return safe_child(ws.path / POSTURE_FOLDER, f"{session}.npz", "session")
 
 
 def _load(path: Path, key: str | None) -> SessionPostures | None:
