@@ -5,6 +5,7 @@ Usage::
     python benchmarks/bench_scale.py                         # 20,000,000 frames, 40 sessions
     python benchmarks/bench_scale.py --frames 10000000 --sessions 20
     python benchmarks/bench_scale.py --keep /tmp/big-study   # keep the simulated files
+    python benchmarks/bench_scale.py --keep /tmp/big-study --generate-only
 
 The sessions are simulated one at a time (invented dune voles with two extra keypoints, 12 in
 all, see ``bench_discover.add_keypoints``) and written as tidy Parquet with their true
@@ -136,6 +137,9 @@ def main(argv=None) -> int:
     parser.add_argument("--sessions", type=int, default=40)
     parser.add_argument("--jobs", type=int, default=2)
     parser.add_argument("--keep", type=Path, help="folder for the study (kept, reused if there)")
+    parser.add_argument(
+        "--generate-only", action="store_true", help="only simulate the study (with --keep)"
+    )
     parser.add_argument("--child", nargs=3, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.child:
@@ -149,6 +153,8 @@ def main(argv=None) -> int:
             n = write_study(study, args.frames, args.sessions)
             print(f"simulated {n:,d} frames in {args.sessions} sessions: "
                   f"{time.perf_counter() - t:.0f} s (not measured below)", flush=True)  # fmt: skip
+        if args.generate_only:
+            return 0
         shutil.rmtree(out, ignore_errors=True)
         cmd = [sys.executable, __file__, "--child", str(study), str(out), str(args.jobs)]
         proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)

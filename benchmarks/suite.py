@@ -22,6 +22,7 @@ import json
 import math
 import os
 import resource
+import shutil
 import subprocess
 import sys
 import tempfile
@@ -37,7 +38,13 @@ K, D = 20, 12  # HMM size for the per-iteration and decode stages (as in the iss
 
 # --- data -----------------------------------------------------------------------------------
 def _study(folder: Path, n_frames: int) -> Path:
-    """Simulated sessions of ~1e5 frames each (at most 10), written as tidy Parquet + truth."""
+    """Simulated sessions of ~1e5 frames each (at most 10), written as tidy Parquet + truth.
+
+    Invented dune voles with two extra keypoints (12 in all, ``bench_discover.add_keypoints``).
+    """
+    sys.path.insert(0, str(HERE))
+    from bench_discover import add_keypoints
+
     from ethoscribe.io import write_tidy
     from ethoscribe.simulate import simulate_session
 
@@ -53,6 +60,7 @@ def _study(folder: Path, n_frames: int) -> Path:
         tracks, truth = simulate_session(
             duration_s=per / 30, fps=30, group=group, seed=100 + i, session=f"s{i:02d}"
         )
+        tracks = add_keypoints(tracks, np.random.default_rng(i))  # 12 keypoints, as targeted
         write_tidy(tracks, folder / f"s{i:02d}.parquet")
         truths.append(truth.assign(session=f"s{i:02d}"))
         rows.append(f"s{i:02d},s{i:02d}.parquet,30,{group}")
@@ -82,24 +90,49 @@ def stage_read(n: int, data: Path) -> dict:
     return {"frames_read": frames}
 
 
+def _sessions(data: Path) -> list[Path]:
+    from ethoscribe.io import pose_files
+
+    return [f for f in pose_files([data]) if f.name != "manifest.csv"]
+
+
 def stage_clean(n: int, data: Path) -> dict:
+    """Every session cleaned one after another (as one worker does); reading not counted."""
     from ethoscribe.clean import clean
     from ethoscribe.io import read_pose
 
-    tracks = read_pose(data / "s00.parquet", fps=30)
-    t0 = time.process_time()
-    clean(tracks)
-    return {"frames": tracks.n_frames, "cpu_s_first_session": time.process_time() - t0}
+    seconds = frames = 0
+    for f in _sessions(data):
+        tracks = read_pose(f, fps=30)
+        t0 = time.perf_counter()
+        clean(tracks)
+        seconds += time.perf_counter() - t0
+        frames += tracks.n_frames
+    return {"frames_cleaned": frames, "seconds_cleaning": seconds}
 
 
 def stage_features(n: int, data: Path) -> dict:
+    """Pipeline fitted on the first session, then every session transformed (reading and
+    cleaning not counted)."""
     from ethoscribe.clean import clean
     from ethoscribe.features import FeaturePipeline
     from ethoscribe.io import read_pose
 
-    cleaned, _ = clean(read_pose(data / "s00.parquet", fps=30))
-    feats = FeaturePipeline().fit_transform([cleaned])
-    return {"frames": cleaned.n_frames, "n_features": feats[0].values.shape[1]}
+    seconds = frames = 0
+    pipeline = None
+    for f in _sessions(data):
+        cleaned, _ = clean(read_pose(f, fps=30))
+        t0 = time.perf_counter()
+        if pipeline is None:
+            pipeline = FeaturePipeline().fit([cleaned])
+        feats = pipeline.transform(cleaned)
+        seconds += time.perf_counter() - t0
+        frames += cleaned.n_frames
+    return {
+        "frames_featurised": frames,
+        "seconds_features": seconds,
+        "n_features": feats[0].values.shape[1],
+    }
 
 
 def stage_em_iteration(n: int, data: Path) -> dict:
@@ -162,7 +195,63 @@ def stage_bouts(n: int, data: Path) -> dict:
     return {"bouts": len(bouts), "seconds_tables": time.perf_counter() - t}
 
 
-def stage_discover(n: int, data: Path) -> dict:
+def stage_stats(n: int, data: Path) -> dict:
+    """Per-session metrics and every group test for invented labels of n frames, 16 sessions."""
+    import pandas as pd
+
+    sys.path.insert(0, str(HERE))
+    from bench_ethogram import FPS, N_SESSIONS, invented_labels
+
+    from ethoscribe.ethogram import bout_table
+    from ethoscribe.stats import compare_groups, session_metrics
+
+    labels = invented_labels(n)
+    bouts = bout_table(labels, fps=FPS)
+    sessions = pd.DataFrame(
+        {
+            "session": [f"s{i:02d}" for i in range(N_SESSIONS)],
+            "group": np.random.default_rng(1).permutation(["a", "b"] * (N_SESSIONS // 2)),
+        }
+    )
+    t = time.perf_counter()
+    tests = compare_groups(session_metrics(labels, bouts, sessions, fps=FPS))
+    return {"tests": len(tests), "seconds_stats": time.perf_counter() - t}
+
+
+def stage_widget(n: int, data: Path) -> dict:
+    """The workbench on a workspace of about n frames: open it, select a motif, rename one."""
+    import statistics
+
+    sys.path.insert(0, str(HERE))
+    from bench_workbench import build
+
+    from ethoscribe.widgets import Workbench
+
+    folder = Path(tempfile.mkdtemp(prefix="bench-widget-"))
+    path = build(folder, max(2, n // 9000))
+    t = time.perf_counter()
+    wb = Workbench(path)
+    opened = time.perf_counter() - t
+    motifs, select, rename = list(wb.state.motifs), [], []
+    for i in range(5):
+        t = time.perf_counter()
+        wb.state.select_motif(motifs[(i + 1) % len(motifs)])
+        select.append(time.perf_counter() - t)
+        t = time.perf_counter()
+        wb.desk.name.value = f"renamed_{i}"
+        wb.desk.rename.click()
+        rename.append(time.perf_counter() - t)
+    wb.state.flush()
+    wb.close()
+    shutil.rmtree(folder, ignore_errors=True)
+    return {
+        "seconds_open": opened,
+        "ms_select_motif": 1000 * statistics.median(select),
+        "ms_rename": 1000 * statistics.median(rename),
+    }
+
+
+def stage_discover(n: int, data: Path, **options) -> dict:
     import pandas as pd
     from sklearn.metrics import adjusted_rand_score
 
@@ -170,17 +259,33 @@ def stage_discover(n: int, data: Path) -> dict:
 
     out = Path(tempfile.mkdtemp(prefix="bench-discover-"))
     # As the command line runs it: per-session work in one process per CPU.
-    ws = discover([data], out / "ws", manifest=data / "manifest.csv", progress=False, jobs=None)
-    labels = ws.state_labels().merge(
-        pd.read_parquet(data / "truth" / "frames.parquet"),
+    wall = time.perf_counter()
+    ws = discover(
+        [data], out / "ws", manifest=data / "manifest.csv", progress=False, jobs=None, **options
+    )
+    seconds = time.perf_counter() - wall
+    # Peak of discover itself, before the comparison below loads every label and truth row.
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    labels = ws.state_labels()[["session", "frame", "state"]].merge(
+        pd.read_parquet(
+            data / "truth" / "frames.parquet", columns=["session", "frame", "behaviour"]
+        ),
         on=["session", "frame"],
-        suffixes=("", "_true"),
     )
     valid = labels[labels["state"] >= 0]
+    n_states = ws.summary["n_states"]
+    shutil.rmtree(out, ignore_errors=True)
     return {
-        "n_states": ws.summary["n_states"],
+        "seconds_discover": seconds,
+        "peak_rss_discover_mb": peak,
+        "n_states": n_states,
         "ari_vs_truth": adjusted_rand_score(valid["behaviour"].astype(str), valid["state"]),
     }
+
+
+def stage_discover_k7(n: int, data: Path) -> dict:
+    """discover doing what the reference does: 7 states given, no stability refits."""
+    return stage_discover(n, data, states=7, stability=False)
 
 
 def stage_reference(n: int, data: Path) -> dict:
@@ -221,7 +326,7 @@ def stage_matmul(n: int, data: Path) -> dict:
 
 
 STAGES = {name[6:]: f for name, f in globals().items() if name.startswith("stage_")}
-NEEDS_DATA = {"read", "clean", "features", "discover", "reference"}
+NEEDS_DATA = {"read", "clean", "features", "discover", "discover_k7", "reference"}
 
 
 # --- running ----------------------------------------------------------------------------------
@@ -268,6 +373,8 @@ def main() -> None:
                 continue
             if stage == "reference" and n > 1_000_000:
                 continue  # hours at 1e7 frames; the ratio is measured at 1e5 and 1e6
+            if stage == "widget" and n > 1_000_000:
+                continue  # building 1,100 inflated sessions takes longer than the point
             cmd = [sys.executable, __file__, "--child", stage, str(n), str(data)]
             try:
                 done = subprocess.run(

@@ -6,6 +6,7 @@ import io
 import json
 
 import numpy as np
+import pandas as pd
 import pytest
 from tqdm.auto import tqdm
 
@@ -225,3 +226,40 @@ def test_diag_and_random_init_recover():
         assert np.count_nonzero(model.covars_[0] - np.diag(np.diag(model.covars_[0]))) == (
             0 if params.get("covariance_type") == "diag" else 6
         )
+
+
+# --- independent fits on threads ---------------------------------------------------------------
+def _sticky_series(seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
+    # Invented: three Gaussian states in runs of 40 frames, two sequences.
+    rng = np.random.default_rng(seed)
+    states = np.repeat(rng.integers(0, 3, 60), 40)
+    X = np.array([[0, 0], [4, 0], [0, 4]])[states] + rng.normal(size=(len(states), 2))
+    return X, np.array([1200, 1200])
+
+
+def test_restarts_on_threads_give_the_serial_fit_exactly():
+    X, lengths = _sticky_series()
+    serial = GaussianHMM(3, n_restarts=4, n_jobs=1, random_state=0).fit(X, lengths)
+    threads = GaussianHMM(3, n_restarts=4, n_jobs=2, random_state=0).fit(X, lengths)
+    assert np.array_equal(serial.restart_log_likelihoods_, threads.restart_log_likelihoods_)
+    assert np.array_equal(serial.means_, threads.means_)
+    assert np.array_equal(serial.transmat_, threads.transmat_)
+
+
+def test_state_count_choice_and_stability_on_threads_equal_the_serial_ones():
+    from ethoscribe.segment.select import choose_n_states
+    from ethoscribe.segment.stability import stability_report
+
+    X, lengths = _sticky_series(1)
+    tables = [
+        choose_n_states(X, lengths, candidates=range(2, 5), model_params={"n_jobs": j}).table
+        for j in (1, 2)
+    ]
+    pd.testing.assert_frame_equal(*tables)
+    reports = [
+        stability_report(
+            lambda s: GaussianHMM(3, n_restarts=1, random_state=s), X, lengths, n_jobs=j
+        ).table
+        for j in (1, 2)
+    ]
+    pd.testing.assert_frame_equal(*reports)

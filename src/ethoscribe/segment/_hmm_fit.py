@@ -4,7 +4,10 @@ the sticky transition matrix and the hmmlearn reference path."""
 from __future__ import annotations
 
 import itertools
-from typing import Any
+import os
+from collections.abc import Callable, Iterable
+from concurrent.futures import ThreadPoolExecutor
+from typing import Any, TypeVar
 
 import numpy as np
 from threadpoolctl import ThreadpoolController
@@ -20,6 +23,7 @@ from ethoscribe.segment._hmm_gaussian import (
 )
 
 _CONTROLLER: ThreadpoolController | None = None
+T = TypeVar("T")
 
 PROB_FLOOR = 1e-10  # smallest start/transition probability kept after an M-step
 _KMEANS_MAX_FRAMES = 50_000
@@ -32,6 +36,41 @@ _EMPTY_FRAMES = 1.0  # a state with less expected frames than this is re-seeded
 SCREEN_ITER = 10
 SCREEN_FRAMES = 20_000
 SCREEN_BLOCK_S = 10.0
+
+
+def n_threads(n_jobs: int | None) -> int:
+    """Threads for independent fits: ``n_jobs``, or every CPU this process may use (None)."""
+    if n_jobs is None:
+        try:
+            return max(1, len(os.sched_getaffinity(0)))
+        except AttributeError:  # pragma: no cover - not Linux
+            return max(1, os.cpu_count() or 1)
+    if int(n_jobs) < 1:
+        raise InputError(f"n_jobs must be at least 1 (or None for every CPU); got {n_jobs!r}")
+    return int(n_jobs)
+
+
+def in_threads(func: Callable[[Any], T], items: Iterable[Any], n_jobs: int | None) -> list[T]:
+    """``[func(i) for i in items]`` on up to ``n_jobs`` threads, results in input order.
+
+    For independent fits (restarts, candidate state counts, stability refits): the numba
+    kernels release the GIL and BLAS runs one thread per fit, so two fits use two cores. Each
+    item carries its own seed, so the results equal the serial ones exactly.
+    """
+    items = list(items)
+    workers = min(len(items), n_threads(n_jobs))
+    if workers <= 1:
+        return [func(i) for i in items]
+
+    def run(item: Any) -> T:
+        # OpenMP's thread count is per thread (k-means reads it): set it in each worker too.
+        with one_thread():
+            return func(item)
+
+    # Held around the whole pool as well, so that no worker's exit restores the process-wide
+    # BLAS limit while another worker still runs.
+    with one_thread(), ThreadPoolExecutor(workers) as pool:
+        return list(pool.map(run, items))
 
 
 def one_thread():
@@ -89,6 +128,11 @@ def check_hmm_params(model: Any) -> None:
             "None or an int >= 100",
         ),
         ("engine", m.engine in ("fast", "hmmlearn"), "'fast' or 'hmmlearn'"),
+        (
+            "n_jobs",
+            getattr(m, "n_jobs", None) is None or (_is_int(m.n_jobs) and m.n_jobs >= 1),
+            "None or an int >= 1",
+        ),
         (
             "random_state",
             m.random_state is None or (_is_int(m.random_state) and m.random_state >= 0),

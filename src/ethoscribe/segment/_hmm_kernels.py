@@ -41,7 +41,7 @@ def sequence_bounds(lengths: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return ends - np.asarray(lengths, dtype=np.int64), ends
 
 
-@njit(cache=True, fastmath=False)
+@njit(cache=True, fastmath=False, nogil=True)
 def _forward(scaled_b, startprob, transmat, starts, ends, alpha, scale):  # pragma: no cover
     n_states = scaled_b.shape[1]
     nxt = np.empty(n_states)
@@ -71,7 +71,7 @@ def _forward(scaled_b, startprob, transmat, starts, ends, alpha, scale):  # prag
                 cur[j] = nxt[j] * inv
 
 
-@njit(cache=True, fastmath=False)
+@njit(cache=True, fastmath=False, nogil=True)
 def _backward(scaled_b, transmat, starts, ends, scale, alpha, beta, xi):  # pragma: no cover
     """Scaled backward pass; accumulates ``xi[i, j] += alpha_t[i] A[i, j] w_{t+1}[j]``."""
     n_states = scaled_b.shape[1]
@@ -102,7 +102,7 @@ def _backward(scaled_b, transmat, starts, ends, scale, alpha, beta, xi):  # prag
             xi[i, j] = outer[i, j] * transmat[i, j]
 
 
-@njit(cache=True, fastmath=False)
+@njit(cache=True, fastmath=False, nogil=True)
 def _row_max(a):  # pragma: no cover
     out = np.empty(a.shape[0])
     for t in range(a.shape[0]):
@@ -115,7 +115,7 @@ def _row_max(a):  # pragma: no cover
     return out
 
 
-@njit(cache=True, fastmath=False)
+@njit(cache=True, fastmath=False, nogil=True)
 def _viterbi(log_b, log_start, log_trans, starts, ends, path, best_logprob):  # pragma: no cover
     n_states = log_b.shape[1]
     longest = 0
@@ -154,7 +154,7 @@ def _viterbi(log_b, log_start, log_trans, starts, ends, path, best_logprob):  # 
             path[t - 1] = best
 
 
-@njit(cache=True, fastmath=False)
+@njit(cache=True, fastmath=False, nogil=True)
 def _half_squared_norms(y, offset, const, n_dims, out):  # pragma: no cover
     """``out[t, k] = const[k] - 0.5 * sum_d (y[t, d*K + k] - offset[d*K + k])^2`` (d-major)."""
     n_states = out.shape[1]
@@ -172,7 +172,7 @@ def _half_squared_norms(y, offset, const, n_dims, out):  # pragma: no cover
             o[k] = const[k] - 0.5 * acc[k]
 
 
-@njit(cache=True, fastmath=False)
+@njit(cache=True, fastmath=False, nogil=True)
 def _upper_products(x, rows, cols, out):  # pragma: no cover
     """``out[t, p] = x[t, rows[p]] * x[t, cols[p]]``: the upper triangle of each x x^T."""
     for t in range(x.shape[0]):

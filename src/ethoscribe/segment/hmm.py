@@ -36,6 +36,7 @@ from ethoscribe.segment._hmm_fit import (
     check_hmm_params,
     distinct_rows_at_least,
     fit_with_hmmlearn,
+    in_threads,
     initial_means,
     one_thread,
     representative_blocks,
@@ -124,6 +125,9 @@ class GaussianHMM:
         ``_hmm_fit.representative_blocks``). ``None``: always fit on everything.
     engine : {"fast", "hmmlearn"}
         Own numba/BLAS kernels, or hmmlearn's EM (reference path). Decoding is always fast.
+    n_jobs : int or None
+        Threads for the restarts (None: every CPU). Each restart has its own seed, so the
+        result does not depend on it.
     random_state : int or None
     progress : bool
         Show a progress bar over restarts and iterations.
@@ -158,6 +162,7 @@ class GaussianHMM:
         init: str = "kmeans",
         init_candidates: int = 8,
         fit_max_frames: int | None = 200_000,
+        n_jobs: int | None = None,
         engine: str = "fast",
         random_state: int | None = 0,
         progress: bool = False,
@@ -174,6 +179,7 @@ class GaussianHMM:
         self.init = init
         self.init_candidates = init_candidates
         self.fit_max_frames = fit_max_frames
+        self.n_jobs = n_jobs
         self.engine = engine
         self.random_state = random_state
         self.progress = progress
@@ -181,7 +187,7 @@ class GaussianHMM:
     _PARAMS = (
         "n_states", "covariance_type", "expected_bout_s", "fps", "persistence_strength",
         "n_restarts", "n_iter", "tol", "min_covar", "init", "init_candidates", "fit_max_frames",
-        "engine", "random_state", "progress",
+        "engine", "random_state", "progress", "n_jobs",
     )  # fmt: skip
 
     def get_params(self, deep: bool = True) -> dict[str, Any]:
@@ -236,33 +242,37 @@ class GaussianHMM:
         trans_counts = (
             0.0 if self.expected_bout_s is None else self.persistence_strength * n_fit / K * sticky
         )
-        results = []
         bar = tqdm(total=self.n_restarts, desc="HMM restarts", disable=not self.progress)
+
+        def restart(r: int) -> dict[str, Any]:
+            rng = np.random.default_rng(seeds[r + 1])
+            if self.engine == "hmmlearn":
+                res = fit_with_hmmlearn(
+                    self, X_fit, fit_lengths, sticky, start_counts, trans_counts, rng
+                )
+            elif self.init_candidates > 1:
+                persistence = (
+                    0.0 if self.expected_bout_s is None else (self.persistence_strength / K)
+                )
+                start = screened_start(
+                    self, X_fit, fit_lengths, K, sticky, start_counts, persistence, rng, bar
+                )
+                res = run_em(
+                    self, X_fit, fit_lengths, start["means"], sticky, start_counts,
+                    trans_counts, bar, start=start,
+                )  # fmt: skip
+            else:
+                means = initial_means(X_fit, K, self.init, rng)
+                res = run_em(
+                    self, X_fit, fit_lengths, means, sticky, start_counts, trans_counts, bar
+                )
+            bar.update(1)
+            return res
+
         with one_thread():  # small products: one thread is faster (see one_thread)
-            for r in range(self.n_restarts):
-                rng = np.random.default_rng(seeds[r + 1])
-                if self.engine == "hmmlearn":
-                    res = fit_with_hmmlearn(
-                        self, X_fit, fit_lengths, sticky, start_counts, trans_counts, rng
-                    )
-                elif self.init_candidates > 1:
-                    persistence = (
-                        0.0 if self.expected_bout_s is None else (self.persistence_strength / K)
-                    )
-                    start = screened_start(
-                        self, X_fit, fit_lengths, K, sticky, start_counts, persistence, rng, bar
-                    )
-                    res = run_em(
-                        self, X_fit, fit_lengths, start["means"], sticky, start_counts,
-                        trans_counts, bar, start=start,
-                    )  # fmt: skip
-                else:
-                    means = initial_means(X_fit, K, self.init, rng)
-                    res = run_em(
-                        self, X_fit, fit_lengths, means, sticky, start_counts, trans_counts, bar
-                    )
-                results.append(res)
-                bar.update(1)
+            # hmmlearn's own loops hold the GIL: its restarts run one after another.
+            jobs = 1 if self.engine == "hmmlearn" else self.n_jobs
+            results = in_threads(restart, range(self.n_restarts), jobs)
         bar.close()
         lls = np.array([res["log_likelihood"] for res in results])
         best = results[int(np.argmax(lls))]

@@ -40,7 +40,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError
-from ethoscribe.segment._hmm_fit import representative_blocks
+from ethoscribe.segment._hmm_fit import in_threads, representative_blocks
 from ethoscribe.segment.base import check_X_lengths
 from ethoscribe.segment.hmm import GaussianHMM, frames_needed
 
@@ -233,6 +233,7 @@ def select_n_states(
         raise InputError("model_params must not contain n_states: the candidates set it")
     params["random_state"] = random_state
     params.setdefault("progress", False)
+    n_jobs = params.pop("n_jobs", None)  # threads over the candidate fits, not inside each
     n_features = X.shape[1]
     covariance_type = params.get("covariance_type", "full")
     if criterion == "bic":
@@ -272,14 +273,24 @@ def select_n_states(
     bic = np.zeros(len(feasible))
     train = np.zeros(len(feasible))
     jobs = [(i, k, f) for i, k in enumerate(feasible) for f in (0, 1)]
-    for i, k, f in tqdm(jobs, desc="state counts x folds", disable=not progress):
+    bar = tqdm(total=len(jobs), desc="state counts x folds", disable=not progress)
+
+    def fit_fold(job: tuple[int, int, int]) -> tuple[np.ndarray, float, int, int]:
+        _, k, f = job
         X_tr, len_tr = _take(X, units[units["fold"] != f])
         X_te, len_te = _take(X, units[units["fold"] == f])
         m = GaussianHMM(n_states=k, **params).fit(X_tr, len_tr)
-        ll_units[i, (units["fold"] == f).to_numpy()] = m.score_per_session(X_te, len_te)
-        ll_tr = m.score(X_tr, len_tr)
+        bar.update(1)
+        return m.score_per_session(X_te, len_te), m.score(X_tr, len_tr), len(X_tr), m.n_parameters()
+
+    # The fits are independent (each seeded alike): on threads, results equal a serial loop.
+    for (i, _, f), (ll_te, ll_tr, n_tr, n_par) in zip(
+        jobs, in_threads(fit_fold, jobs, n_jobs), strict=True
+    ):
+        ll_units[i, (units["fold"] == f).to_numpy()] = ll_te
         train[i] += ll_tr / len(X)  # both folds together cover every frame once
-        bic[i] += 0.5 * (-2 * ll_tr + m.n_parameters() * np.log(len(X_tr)))
+        bic[i] += 0.5 * (-2 * ll_tr + n_par * np.log(n_tr))
+    bar.close()
     chosen = _choose(ll_units, n_units, feasible, rule)
     table = pd.DataFrame(
         {

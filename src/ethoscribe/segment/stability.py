@@ -18,6 +18,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError
+from ethoscribe.segment._hmm_fit import in_threads
 from ethoscribe.segment.agreement import adjusted_rand, match_states
 from ethoscribe.segment.base import check_X_lengths
 
@@ -65,6 +66,7 @@ def stability_report(
     split_halves: bool = True,
     reproducible_jaccard: float = 0.5,
     progress: bool = False,
+    n_jobs: int | None = None,
 ) -> StabilityReport:
     """Refit with several seeds (and on two halves of the sessions) and compare the labelings.
 
@@ -81,6 +83,9 @@ def stability_report(
     reproducible_jaccard : float
         A state is called reproducible when its mean Jaccard between seeds and its split-half
         Jaccard both reach this value (0.5: more shared frames than not, common practice).
+    n_jobs : int or None
+        Threads for the refits (None: every CPU); ``make_model`` must then be safe to call
+        from several threads (a GaussianHMM is: its kernels release the GIL).
 
     Examples
     --------
@@ -98,13 +103,20 @@ def stability_report(
         raise InputError("seeds must contain at least one seed")
     jobs = len(seeds) + (2 if split_halves else 0)
     bar = tqdm(total=jobs, desc="stability fits", disable=not progress)
-    labels = []
-    for seed in seeds:
-        model = make_model(seed).fit(X, lengths)
-        labels.append(np.asarray(model.predict(X, lengths)))
-        if seed == seeds[0]:
-            n_states = _n_states(model, labels[0])
+    halves = list(_halves(lengths, np.random.default_rng(seeds[0]))) if split_halves else []
+
+    def refit(job: tuple[int, np.ndarray | None, np.ndarray | None]) -> tuple[Any, np.ndarray]:
+        seed, idx, sub_lengths = job
+        model = make_model(seed)
+        model = model.fit(X, lengths) if idx is None else model.fit(X[idx], sub_lengths)
         bar.update(1)
+        return model, np.asarray(model.predict(X, lengths))
+
+    # Independent seeded fits: on threads (n_jobs) they give what a serial loop gives.
+    work = [(s, None, None) for s in seeds] + [(seeds[0], i, n) for i, n in halves]
+    fits = in_threads(refit, work, n_jobs)
+    labels = [lab for _, lab in fits[: len(seeds)]]
+    n_states = _n_states(fits[0][0], labels[0])
     ref = labels[0]
     states = np.arange(n_states)
     ari = np.eye(len(seeds))
@@ -118,12 +130,7 @@ def stability_report(
     halves_jac = np.full(n_states, np.nan)
     ari_halves = np.nan
     if split_halves:
-        half_labels = []
-        for idx, sub_lengths in _halves(lengths, np.random.default_rng(seeds[0])):
-            model = make_model(seeds[0]).fit(X[idx], sub_lengths)
-            half_labels.append(np.asarray(model.predict(X, lengths)))
-            bar.update(1)
-        a, b = half_labels
+        a, b = (lab for _, lab in fits[len(seeds) :])
         ari_halves = adjusted_rand(a, b)
         map_a, map_b = match_states(ref, a).mapping, match_states(ref, b).mapping
         for s in states:
