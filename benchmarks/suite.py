@@ -5,6 +5,7 @@ Run from the repository root::
     python benchmarks/suite.py                      # sizes 1e5 and 1e6 frames (~10 minutes)
     python benchmarks/suite.py --sizes 1e5 1e6 1e7  # the full table (~1 hour on 2 cores)
     python benchmarks/suite.py --stages decode bouts --sizes 1e6
+    python benchmarks/suite.py --markdown           # the recorded results as a table
 
 Each (stage, size) runs in a fresh subprocess so that its peak resident memory is its own. The
 suite prints a table and writes ``benchmarks/results/suite.json``. Alongside ethoscribe's stages
@@ -86,8 +87,9 @@ def stage_read(n: int, data: Path) -> dict:
     from ethoscribe.io import pose_files, read_pose
 
     files = [f for f in pose_files([data]) if f.name != "manifest.csv"]
+    t = time.perf_counter()
     frames = sum(read_pose(f, fps=30).n_frames for f in files)
-    return {"frames_read": frames}
+    return {"frames_read": frames, "seconds_reading": time.perf_counter() - t}
 
 
 def _sessions(data: Path) -> list[Path]:
@@ -167,7 +169,7 @@ def stage_decode(n: int, data: Path) -> dict:
     t = time.perf_counter()
     model.predict(Xn, ln)
     seconds = time.perf_counter() - t
-    return {"frames_per_s": n / seconds}
+    return {"frames_per_s": n / seconds, "seconds_decode": seconds}
 
 
 def stage_bouts(n: int, data: Path) -> dict:
@@ -296,6 +298,7 @@ def stage_reference(n: int, data: Path) -> dict:
     from sklearn.metrics import adjusted_rand_score
     from sklearn.preprocessing import StandardScaler
 
+    t = time.perf_counter()
     parts, lengths = [], []
     manifest = pd.read_csv(data / "manifest.csv")
     for name in manifest["session"]:
@@ -311,8 +314,12 @@ def stage_reference(n: int, data: Path) -> dict:
     model = ReferenceHMM(n_components=7, covariance_type="full", n_iter=50, random_state=0)
     model.fit(X, lengths)
     state = model.predict(X, lengths)
+    seconds = time.perf_counter() - t
     truth = pd.read_parquet(data / "truth" / "frames.parquet")
-    return {"ari_vs_truth": adjusted_rand_score(truth["behaviour"].astype(str), state)}
+    return {
+        "seconds_reference": seconds,
+        "ari_vs_truth": adjusted_rand_score(truth["behaviour"].astype(str), state),
+    }
 
 
 def stage_matmul(n: int, data: Path) -> dict:
@@ -359,8 +366,14 @@ def main() -> None:
         "--data", type=Path, default=Path(tempfile.gettempdir()) / "ethoscribe-bench"
     )
     parser.add_argument("--timeout", type=float, default=3600)
+    parser.add_argument(
+        "--markdown", action="store_true", help="print results/suite.json as a Markdown table"
+    )
     parser.add_argument("--child", nargs=3, help=argparse.SUPPRESS)
     args = parser.parse_args()
+    if args.markdown:
+        print(_markdown(json.loads((RESULTS / "suite.json").read_text())))
+        return
     if args.child:
         _child(args.child[0], int(args.child[1]), args.child[2])
         return
@@ -393,10 +406,45 @@ def main() -> None:
                 row = {"stage": stage, "frames": n, "error": f"timed out after {args.timeout} s"}
             rows.append(row)
             print(_line(row), flush=True)
-    _scaling(rows)
     RESULTS.mkdir(exist_ok=True)
-    (RESULTS / "suite.json").write_text(json.dumps(rows, indent=2))
-    print(f"wrote {RESULTS / 'suite.json'}")
+    # Rows of earlier runs for other (stage, size) pairs are kept: the table can be built in parts.
+    path = RESULTS / "suite.json"
+    done = {(r["stage"], r["frames"]) for r in rows}
+    old = json.loads(path.read_text()) if path.exists() else []
+    rows = [r for r in old if (r["stage"], r["frames"]) not in done] + rows
+    _scaling(rows)
+    tmp = path.with_suffix(".tmp")
+    tmp.write_text(json.dumps(rows, indent=2))
+    os.replace(tmp, path)
+    print(f"wrote {path}")
+
+
+def _markdown(rows: list[dict]) -> str:
+    """The results as a Markdown table: one row per stage and size."""
+    order = {name: i for i, name in enumerate(STAGES)}
+    rows = sorted(rows, key=lambda r: (order.get(r["stage"], 99), r["frames"]))
+    lines = [
+        "| stage | frames | wall s | cpu s | peak MB | scaling exponent | figures |",
+        "|---|---:|---:|---:|---:|---:|---|",
+    ]
+    skip = {"stage", "frames", "wall_s", "cpu_s", "peak_rss_mb", "peak_rss_workers_mb"}
+    skip.add("scaling_exponent_from_previous")
+    for r in rows:
+        if "error" in r:
+            lines.append(f"| {r['stage']} | {r['frames']:,} | | | | | error: {r['error'][:80]} |")
+            continue
+        figures = ", ".join(
+            f"{k} {v:.3g}" if isinstance(v, float) else f"{k} {v}"
+            for k, v in r.items()
+            if k not in skip
+        )
+        exponent = r.get("scaling_exponent_from_previous")
+        lines.append(
+            f"| {r['stage']} | {r['frames']:,} | {r['wall_s']:.2f} | {r['cpu_s']:.2f} | "
+            f"{r['peak_rss_mb']:.0f} | {'' if exponent is None else f'{exponent:.2f}'} | "
+            f"{figures} |"
+        )
+    return "\n".join(lines)
 
 
 def _line(row: dict) -> str:
@@ -416,8 +464,17 @@ def _line(row: dict) -> str:
     )
 
 
+def _work_seconds(row: dict) -> float:
+    own = [k for k in row if k.startswith("seconds_") and k != "seconds_open"]
+    return float(row[own[0]]) if own else float(row["wall_s"])
+
+
 def _scaling(rows: list[dict]) -> None:
-    """Scaling exponent of wall time between consecutive sizes: t ~ n^b."""
+    """Scaling exponent of a stage's time between consecutive sizes: t ~ n^b.
+
+    The stage's own measured seconds (``seconds_*`` or ``seconds_per_iteration``) are used
+    where it reports them, so start-up and data loading do not flatten the exponent.
+    """
     by_stage: dict[str, list[dict]] = {}
     for r in rows:
         if "error" not in r:
@@ -425,8 +482,9 @@ def _scaling(rows: list[dict]) -> None:
     for stage, rs in by_stage.items():
         rs.sort(key=lambda r: r["frames"])
         for a, b in itertools.pairwise(rs):
-            if a["wall_s"] > 0 and b["frames"] > a["frames"]:
-                exp = math.log(b["wall_s"] / a["wall_s"]) / math.log(b["frames"] / a["frames"])
+            ta, tb = _work_seconds(a), _work_seconds(b)
+            if ta > 0 and b["frames"] > a["frames"]:
+                exp = math.log(tb / ta) / math.log(b["frames"] / a["frames"])
                 b["scaling_exponent_from_previous"] = exp
                 print(
                     f"{stage:>12} scaling exponent {a['frames']:,d} -> {b['frames']:,d}: {exp:.2f}"

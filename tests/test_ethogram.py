@@ -336,3 +336,16 @@ def test_time_budgets_joined_per_session_equal_the_whole_table_budget():
     pd.testing.assert_frame_equal(joined, time_budget(labels), check_dtype=False)
     # s3 (no valid frame) is listed with zeros and an undefined fraction, as in the whole table.
     assert joined.loc[joined["session"] == "s3", "fraction"].isna().all()
+
+
+def test_pooled_time_budgets_from_per_session_budgets_equal_the_label_table_ones():
+    from ethoscribe.ethogram import pool_time_budgets
+
+    labels = _three_sessions()
+    per_session = time_budget(labels)
+    groups = {"s1": "x", "s2": "y", "s3": "y"}
+    for by, g in [((), None), (("group",), groups)]:
+        pd.testing.assert_frame_equal(
+            pool_time_budgets(per_session, by=by, groups=g),
+            time_budget(labels, by=by, groups=g),
+        )

@@ -223,8 +223,11 @@ def test_ethogram_tables_written_per_session_equal_those_written_at_once(tmp_pat
     (tmp_path / "whole").mkdir()
     (tmp_path / "pieces").mkdir()
     write_ethogram_tables(tmp_path / "whole", labels)
-    write_ethogram_tables(tmp_path / "pieces", (g for _, g in labels.groupby("session")))
-    for name in ["labels.csv", "bouts.csv", "transitions.csv", "time_budget.csv"]:
+    # Pieces in another order than the sorted session names: the summaries must not care.
+    pieces = [g for _, g in labels.groupby("session")][::-1]
+    write_ethogram_tables(tmp_path / "pieces", iter(pieces))
+    assert pd.read_csv(tmp_path / "pieces" / "labels.csv")["session"].iloc[0] == "s3"
+    for name in ["bouts.csv", "transitions.csv", "time_budget.csv"]:
         a, b = (tmp_path / "whole" / name), (tmp_path / "pieces" / name)
         assert a.read_bytes() == b.read_bytes(), name
 

@@ -52,6 +52,7 @@ __all__ = [
     "check_columns",
     "duration_summary",
     "labels_from_bouts",
+    "pool_time_budgets",
     "survival_curve",
     "time_budget",
     "time_budgets_joined",
@@ -235,8 +236,34 @@ def time_budget(
     table["motif"] = np.tile(r.motifs, n_blocks)
     table["n_frames"] = counts.astype(np.int64)
     table["seconds"] = counts / r.fps[rows]
+    return _pooled(table, by, groups, "the label table")
+
+
+def pool_time_budgets(
+    budgets: pd.DataFrame, by: Sequence[str] = (), groups: GroupSpec = None
+) -> pd.DataFrame:
+    """Time budgets pooled over recordings, from a per-recording :func:`time_budget` table.
+
+    Equal to :func:`time_budget` of the label table with the same ``by`` (pooled fractions
+    weigh recordings by their valid seconds), without the per-frame labels: reports of large
+    studies are drawn from the per-session table.
+
+    Examples
+    --------
+    >>> lab = pd.DataFrame({"session": ["s1"] * 3 + ["s2"], "animal": "a",
+    ...     "frame": [0, 1, 2, 0], "time_s": [0, .1, .2, 0], "state": [0, 0, 1, 1],
+    ...     "motif": ["m1", "m1", "m2", "m2"], "probability": 1.0})
+    >>> pool_time_budgets(time_budget(lab))["fraction"].tolist()
+    [0.5, 0.5]
+    """
+    check_columns(budgets, ("session", "animal", "motif", "n_frames", "seconds"), "time budgets")
+    table = budgets[["session", "animal", "motif", "n_frames", "seconds"]]
+    return _pooled(table, by, groups, "the time budgets")
+
+
+def _pooled(table: pd.DataFrame, by: Sequence[str], groups: GroupSpec, what: str) -> pd.DataFrame:
     table = with_groups(table, groups)
-    keys = grouping_keys(table, by, "the label table")
+    keys = grouping_keys(table, by, what)
     out = grouped_sum(table, [*keys, "motif"], ["n_frames", "seconds"])
     total = out.groupby(keys)["seconds"].transform("sum") if keys else out["seconds"].sum()
     with np.errstate(invalid="ignore", divide="ignore"):

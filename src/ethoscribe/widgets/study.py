@@ -33,7 +33,7 @@ class StudyPage:
         ws = state.ws
         sessions = state.sessions[[c for c in state.sessions.columns if c in SESSION_COLUMNS]]
         parts: list[w.Widget] = [heading("Sessions"), w.HTML(table_html(sessions, 50))]
-        quality = quality_section(ws, ws.state_labels())
+        quality = quality_section(ws)
         parts.append(heading("Data quality"))
         if quality is None:
             parts.append(note("This workspace has no quality.csv."))

@@ -110,35 +110,45 @@ def compare(
     meta = _metadata(ws, options, design, stats)
     sections = [
         s for s in (quality_section(ws, labels), model_section(ws)) if s is not None
-    ] + ethogram_sections(labels, bouts, budgets, groups, seed)
+    ] + ethogram_sections(bouts, budgets, groups, seed)
     sections.append(group_section(stats, ALPHA))
     page = render_report(f"Group comparison by {by!r}: {ws.path.name}", sections, meta)
     _write_outputs(out, tables, meta, page)
     return _summary(design, stats, labels, by, test, paired, out)
 
 
-def write_ethogram_report(workspace: Workspace | str | Path, path: str | Path) -> Path:
+def write_ethogram_report(
+    workspace: Workspace | str | Path,
+    path: str | Path,
+    tables: tuple[pd.DataFrame, pd.DataFrame] | None = None,
+) -> Path:
     """Write the ethogram report of a workspace (no group statistics) to ``path``.
 
     Sessions are grouped in the time-budget figure when the workspace's sessions table has a
-    ``group`` for every session.
+    ``group`` for every session. ``tables``: the current (bouts, per-session time budgets),
+    as :func:`~ethoscribe.workspace.folder.write_ethogram_tables` returns them; without them
+    they are computed from the per-frame labels.
 
     Examples
     --------
     >>> write_ethogram_report("study_ws", "study_ws/report.html")  # doctest: +SKIP
     """
     ws = workspace if isinstance(workspace, Workspace) else Workspace(workspace)
-    labels = ws.labels()
-    bouts = bout_table(labels)
+    if tables is None:
+        labels = ws.labels()
+        bouts, budgets = bout_table(labels), time_budget(labels)
+        del labels
+    else:
+        bouts, budgets = tables
     sessions = _sessions_table(ws)
-    names = set(labels["session"].astype(str))
+    names = set(budgets["session"].astype(str))
     groups = None
     if "group" in sessions.columns:
         lookup = dict(zip(sessions["session"], sessions["group"], strict=True))
         if all(lookup.get(s, "") for s in names):
             groups = {s: lookup[s] for s in names}
-    sections = [s for s in (quality_section(ws, labels), model_section(ws)) if s is not None]
-    sections += ethogram_sections(labels, bouts, time_budget(labels), groups, 0)
+    sections = [s for s in (quality_section(ws), model_section(ws)) if s is not None]
+    sections += ethogram_sections(bouts, budgets, groups, 0)
     sections.append(Section("Group statistics", "Run 'ethoscribe compare' for group tests."))
     params = {
         "created": now(),

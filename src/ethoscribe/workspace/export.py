@@ -58,7 +58,7 @@ def save_ethogram(
 def _save_ethogram(ws: Workspace, out: Path, report: bool) -> dict[str, Path]:
     out.mkdir(exist_ok=True)
     labels = ws.labels()
-    bouts = bout_table(labels)
+    bouts, budgets = bout_table(labels), time_budget(labels)
     cur = ws.curation()
     names = pd.DataFrame({"state": list(cur.names), "motif": list(cur.names.values())})
     tables = {
@@ -68,7 +68,7 @@ def _save_ethogram(ws: Workspace, out: Path, report: bool) -> dict[str, Path]:
         "bouts.parquet": bouts,
         "transitions.csv": transitions_of(bouts),
         "transition_matrix.csv": transition_matrix(bouts).rename_axis("from_motif").reset_index(),
-        "time_budget.csv": time_budget(labels),
+        "time_budget.csv": budgets,
         "bout_durations.csv": duration_summary(bouts),
         "motif_names.csv": names,
     }
@@ -76,5 +76,6 @@ def _save_ethogram(ws: Workspace, out: Path, report: bool) -> dict[str, Path]:
     for name, table in tables.items():
         written[name] = write_table(table, out / name)
     if report:
-        written[REPORT_FILE] = Path(write_ethogram_report(ws, ws.path / REPORT_FILE))
+        path = write_ethogram_report(ws, ws.path / REPORT_FILE, (bouts, budgets))
+        written[REPORT_FILE] = Path(path)
     return written

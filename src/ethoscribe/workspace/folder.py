@@ -98,12 +98,13 @@ def write_ethogram_tables(
     folder: Path,
     labels: pd.DataFrame | Iterable[pd.DataFrame],
     stage: Staging | None = None,
-) -> None:
+) -> tuple[pd.DataFrame, pd.DataFrame]:
     """The four ethogram tables, then the record of which journal they reflect.
 
     ``labels`` is the named label table, or an iterable of its pieces (each holding whole
     recordings, e.g. one session): per-frame rows are then streamed to ``labels.csv`` and only
-    the bout tables of the study are held in memory.
+    the bout tables of the study are held in memory. Returns the bouts and the per-session
+    time budgets (for the report).
     """
     path = stage.path if stage is not None else (lambda n: folder / n)
     parts = [labels] if isinstance(labels, pd.DataFrame) else labels
@@ -115,6 +116,9 @@ def write_ethogram_tables(
             budgets.append(time_budget(part))
             recordings.append(part[["session", "animal"]].drop_duplicates())
     bouts_all = pd.concat(bouts, ignore_index=True)
+    if len(bouts) > 1:  # in the order bout_table gives a whole table: by recording, then time
+        order = ["session", "animal", "start_frame"]
+        bouts_all = bouts_all.sort_values(order, kind="stable", ignore_index=True)
     budget = budgets[0]
     if len(budgets) > 1:
         budget = time_budgets_joined(budgets, pd.concat(recordings))
@@ -122,6 +126,7 @@ def write_ethogram_tables(
     write_table(transition_table(bouts_all), path("transitions.csv"))
     write_table(budget, path("time_budget.csv"))
     atomic_write_json(path(EXPORTS_STATE), journal_fingerprint(path(JOURNAL_FILE)))
+    return bouts_all, budget
 
 
 def features_table(feats: Sequence[FeatureSet]) -> pd.DataFrame:

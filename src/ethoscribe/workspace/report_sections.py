@@ -14,7 +14,7 @@ from types import SimpleNamespace
 import numpy as np
 import pandas as pd
 
-from ethoscribe.ethogram import duration_summary, time_budget, transition_matrix
+from ethoscribe.ethogram import duration_summary, pool_time_budgets, transition_matrix
 from ethoscribe.plots.ethogram import (
     duration_figure,
     ethogram_raster,
@@ -37,11 +37,11 @@ STATS_COLUMNS = (
 )  # fmt: skip
 
 
-def quality_section(ws: Workspace, labels: pd.DataFrame) -> Section | None:
+def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Section | None:
     """Cleaning quality per keypoint and session, from ``quality.csv`` (None if there is none).
 
-    The share of invalid frames per session is taken from the labels (frames without a motif)
-    when ``quality.csv`` does not carry it.
+    The share of invalid frames per session is taken from ``labels`` (frames without a motif)
+    when ``quality.csv`` does not carry it (files of older versions).
     """
     path = ws.path / "quality.csv"
     if not path.is_file():
@@ -52,6 +52,8 @@ def quality_section(ws: Workspace, labels: pd.DataFrame) -> Section | None:
         return Section("Data quality", text)
     text = "Fractions of frames missing, masked and filled by cleaning (see quality.csv)."
     if "frac_invalid_frames" not in table.columns:
+        if labels is None:
+            labels = ws.state_labels()
         unlabelled = (labels["state"] < 0).groupby([labels["session"], labels["animal"]]).mean()
         unlabelled = unlabelled.rename("frac_invalid_frames").reset_index()
         table = table.merge(unlabelled.astype({"session": str, "animal": str}), how="left")
@@ -90,7 +92,6 @@ def model_section(ws: Workspace) -> Section:
 
 
 def ethogram_sections(
-    labels: pd.DataFrame,
     bouts: pd.DataFrame,
     budgets: pd.DataFrame,
     groups: Mapping[str, str] | None = None,
@@ -112,7 +113,7 @@ def ethogram_sections(
         )
     ]
     by = ("group",) if groups else ()
-    pooled = time_budget(labels, by=by, groups=groups)
+    pooled = pool_time_budgets(budgets, by=by, groups=groups)
     sections.append(
         Section(
             "Time budgets",
@@ -130,7 +131,7 @@ def ethogram_sections(
             [("Bout durations", duration_summary(bouts, by=by, groups=groups))],
         )
     )
-    sections.append(_transition_section(labels, bouts))
+    sections.append(_transition_section(bouts, budgets))
     return sections
 
 
@@ -144,7 +145,7 @@ def _thinned(bouts: pd.DataFrame, seed: int) -> tuple[pd.DataFrame, str]:
     return bouts[keep], note
 
 
-def _transition_section(labels: pd.DataFrame, bouts: pd.DataFrame) -> Section:
+def _transition_section(bouts: pd.DataFrame, budgets: pd.DataFrame) -> Section:
     title = "Transitions"
     matrix = transition_matrix(bouts)
     if not np.isfinite(matrix.to_numpy(np.float64)).any():
@@ -153,7 +154,7 @@ def _transition_section(labels: pd.DataFrame, bouts: pd.DataFrame) -> Section:
         "Probability that a bout of one motif is directly followed by a bout of another, pooled "
         "over sessions (bouts separated by invalid frames are not linked)."
     )
-    figures = [transition_heatmap(matrix), transition_diagram(matrix, time_budget(labels, by=()))]
+    figures = [transition_heatmap(matrix), transition_diagram(matrix, pool_time_budgets(budgets))]
     return Section(title, text, figures, [("Transition probabilities", matrix.reset_index())])
 
 

@@ -124,7 +124,7 @@ def discover(
         decoded = _decode(out, prepared, model, jobs, client, force, progress)
         summary = _summary(model, table, seed, report)
         summary["fit_frames"] = fit_frames  # the sample's budget; n_training_frames its size
-        _write_workspace(out, table, model, decoded, quality, report, summary)
+        tables = _write_workspace(out, table, model, decoded, quality, report, summary)
     except EthoscribeError:
         # Bad input in a folder this run made: leave nothing behind. (An interrupted run keeps
         # its cache, so the next run resumes.)
@@ -132,7 +132,7 @@ def discover(
             shutil.rmtree(out, ignore_errors=True)
         raise
     ws = Workspace(out)
-    write_ethogram_report(ws, out / "report.html")
+    write_ethogram_report(ws, out / "report.html", tables)
     return ws
 
 
@@ -256,13 +256,13 @@ def label_sessions(
         decoded = _decode(out, prepared, model, jobs, client, force, progress)
         summary = _summary(model, table, model.random_state, None)
         summary["labelled_with"] = str(source)
-        _write_workspace(out, table, model, decoded, quality, None, summary, journal)
+        tables = _write_workspace(out, table, model, decoded, quality, None, summary, journal)
     except EthoscribeError:
         if created:
             shutil.rmtree(out, ignore_errors=True)
         raise
     ws = Workspace(out)
-    write_ethogram_report(ws, out / "report.html")
+    write_ethogram_report(ws, out / "report.html", tables)
     return ws
 
 
@@ -303,8 +303,10 @@ def _write_workspace(
     report: Any,
     summary: dict,
     journal: Sequence[dict] = (),
-) -> None:
-    """Move a finished run's files into ``out``, one session at a time for per-frame tables."""
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Move a finished run's files into ``out``, one session at a time for per-frame tables.
+
+    Returns the bouts and per-session time budgets written (for the report)."""
     stage = Staging(out)
     try:
         write_table(table, stage.path("sessions.csv"))
@@ -335,8 +337,10 @@ def _write_workspace(
         cur = Curation.from_journal(journal, {k: motif_name(k) for k in range(model.n_states_)})
         needs = any(r.get("op") == "split" for r in journal)
         with atomic_table_writer(stage.path("labels.parquet")) as write_labels:
-            write_ethogram_tables(out, _named(decoded, cur, needs, stage, write_labels), stage)
+            named = _named(decoded, cur, needs, stage, write_labels)
+            tables = write_ethogram_tables(out, named, stage)
         stage.commit(last=WORKSPACE_FILE)
+        return tables
     except BaseException:
         stage.abort()
         raise
