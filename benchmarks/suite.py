@@ -323,17 +323,44 @@ def stage_reference(n: int, data: Path) -> dict:
 
 
 def stage_matmul(n: int, data: Path) -> dict:
+    """Matrix product throughput with every core and with one thread (the EM kernels run
+    one thread per fit, so the one-thread figure is their ceiling)."""
+    from threadpoolctl import threadpool_limits
+
     a = np.random.default_rng(0).normal(size=(2000, 2000))
-    a @ a
-    t = time.perf_counter()
-    for _ in range(5):
+
+    def rate() -> float:
         a @ a
-    seconds = (time.perf_counter() - t) / 5
-    return {"matmul_gflop_per_s": 2 * 2000**3 / seconds / 1e9}
+        t = time.perf_counter()
+        for _ in range(5):
+            a @ a
+        return 2 * 2000**3 / ((time.perf_counter() - t) / 5) / 1e9
+
+    every = rate()
+    with threadpool_limits(1):
+        one = rate()
+    return {"matmul_gflop_per_s": every, "matmul_1thread_gflop_per_s": one}
+
+
+def stage_label_session(n: int, data: Path) -> dict:
+    """Labelling a new session end to end (clean + features + Viterbi + posteriors + minimum
+    bout) with a model fitted on another session; n frames (s00 repeated as needed)."""
+    from ethoscribe.io import read_pose
+    from ethoscribe.segment.model import BehaviourModel
+
+    files = _sessions(data)
+    model = BehaviourModel(n_states=7).fit([read_pose(files[0], fps=30)])
+    new = read_pose(files[-1], fps=30)
+    model.label([new.replace(coords=new.coords[:2000], confidence=new.confidence[:2000])])
+    t = time.perf_counter()
+    labels = model.label([new])
+    seconds = time.perf_counter() - t
+    return {"frames_labelled": len(labels), "frames_per_s": len(labels) / seconds,
+            "seconds_labelling": seconds}  # fmt: skip
 
 
 STAGES = {name[6:]: f for name, f in globals().items() if name.startswith("stage_")}
-NEEDS_DATA = {"read", "clean", "features", "discover", "discover_k7", "reference"}
+NEEDS_DATA = {"read", "clean", "features", "discover", "discover_k7", "reference", "label_session"}
 
 
 # --- running ----------------------------------------------------------------------------------
@@ -423,7 +450,7 @@ def _markdown(rows: list[dict]) -> str:
     """The results as a Markdown table: one row per stage and size."""
     order = {name: i for i, name in enumerate(STAGES)}
     rows = sorted(rows, key=lambda r: (order.get(r["stage"], 99), r["frames"]))
-    lines = [
+    lines: list[str] = [
         "| stage | frames | wall s | cpu s | peak MB | scaling exponent | figures |",
         "|---|---:|---:|---:|---:|---:|---|",
     ]
