@@ -243,16 +243,9 @@ def write_table(
     2,y
     """
     path = Path(path)
-    kind = _table_kind(path)
     arrow = _to_arrow(table, index)
-    with atomic_write(path, "wb") as fh:
-        if kind == "parquet":
-            # Dictionary pages pay off for names, not for measurements: encoding only text
-            # columns so halves both write and read time of large pose tables.
-            text = [f.name for f in arrow.schema if _is_text(f.type)]
-            pq.write_table(arrow, fh, use_dictionary=text)
-        else:
-            _write_csv(arrow, fh)
+    with atomic_table_writer(path) as write:
+        write(arrow)
     return path
 
 
@@ -327,6 +320,8 @@ def atomic_table_writer(path: str | os.PathLike[str]) -> Iterator[Callable[[Any]
             _write_csv(arrow, fh, header="written" not in state)
         else:
             if "writer" not in state:
+                # Dictionary pages pay off for names, not for measurements: encoding only text
+                # columns halves both write and read time of large pose tables.
                 text = [f.name for f in schema if _is_text(f.type)]
                 state["writer"] = pq.ParquetWriter(fh, schema, use_dictionary=text)
             state["writer"].write_table(arrow)
