@@ -73,6 +73,9 @@ def test_discover_writes_the_documented_files(workspace):
     assert summary["seed"] == 0 and summary["n_states"] == 4
     assert {"ethoscribe", "numpy", "hmmlearn", "ruptures"} <= set(summary["versions"])
     assert "animal-welfare" in summary["caution"]
+    # What the run was made with: the fitting sample's budget and the covariance floor.
+    assert summary["fit_frames"] == 1_000_000
+    assert summary["covariance_floor"] == pytest.approx(1e-3)
     assert not list(p.glob(".incoming-*")), "staging folder left behind"
 
 

@@ -289,6 +289,8 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
         "n_sessions": len(table),
         "n_frames": int(table["n_frames"].sum()),
         "n_training_frames": model.n_training_frames_,
+        # Added to every state covariance's diagonal after each M-step: no singular covariance.
+        "covariance_floor": getattr(model.segmenter_, "covariance_floor_", None),
         "stability": None if report is None else report.summary,
         "caution": CAUTION,
     }
