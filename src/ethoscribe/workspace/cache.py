@@ -141,10 +141,12 @@ def cache_model(model: BehaviourModel, root: str | Path) -> tuple[str, str]:
         write_bundle(tmp, meta, arrays)
         key = file_digest(tmp / "model.json")[:24]
         final = models / key
-        if final.is_dir():
-            shutil.rmtree(tmp)
-        else:
+        try:
             os.replace(tmp, final)
+        except OSError:  # already there (a rerun, or a parallel run of the same fit)
+            if not (final / "model.json").is_file():
+                raise
+            shutil.rmtree(tmp, ignore_errors=True)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
@@ -176,7 +178,8 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     done = Path(f"{base}.json")
     if not job.get("force") and done.is_file():
         info = read_json(done)
-        paths = [info.get("labels"), *info.get("features", [])] if isinstance(info, dict) else []
+        ok = isinstance(info, dict) and isinstance(info.get("features"), list)
+        paths = [info.get("labels"), *info["features"]] if ok else []
         # Entries name files beside them, nothing else (a hand-edited entry is recomputed).
         plain = paths and all(isinstance(p, str) and p == Path(p).name for p in paths)
         if plain and all((folder / p).is_file() for p in paths):
