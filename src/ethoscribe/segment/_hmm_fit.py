@@ -21,6 +21,7 @@ from ethoscribe.segment._hmm_gaussian import (
     gaussian_m_step,
     repair_covariances,
 )
+from ethoscribe.segment.base import is_int, is_real
 
 _CONTROLLER: ThreadpoolController | None = None
 T = TypeVar("T")
@@ -89,53 +90,45 @@ def one_thread():
     return _CONTROLLER.limit(limits=1)
 
 
-def _is_int(v: Any) -> bool:
-    return isinstance(v, (int, np.integer)) and not isinstance(v, bool)
-
-
-def _is_num(v: Any) -> bool:
-    return isinstance(v, (int, float, np.number)) and not isinstance(v, bool) and np.isfinite(v)
-
-
 def check_hmm_params(model: Any) -> None:
     """Validate the constructor parameters of a GaussianHMM; raise InputError naming the fix."""
     m = model
-    fps_ok = _is_num(m.fps) and m.fps > 0
+    fps_ok = is_real(m.fps) and m.fps > 0
     rules = [
-        ("n_states", _is_int(m.n_states) and m.n_states >= 1, "an int >= 1"),
+        ("n_states", is_int(m.n_states) and m.n_states >= 1, "an int >= 1"),
         ("covariance_type", m.covariance_type in COVARIANCE_TYPES, f"one of {COVARIANCE_TYPES}"),
         ("fps", fps_ok, "> 0"),
         (
             "expected_bout_s",
             m.expected_bout_s is None
-            or (fps_ok and _is_num(m.expected_bout_s) and m.expected_bout_s * m.fps > 1),
+            or (fps_ok and is_real(m.expected_bout_s) and m.expected_bout_s * m.fps > 1),
             "None or longer than one frame (> 1/fps seconds)",
         ),
         (
             "persistence_strength",
-            _is_num(m.persistence_strength) and m.persistence_strength >= 0,
+            is_real(m.persistence_strength) and m.persistence_strength >= 0,
             ">= 0",
         ),
-        ("n_restarts", _is_int(m.n_restarts) and m.n_restarts >= 1, "an int >= 1"),
-        ("n_iter", _is_int(m.n_iter) and m.n_iter >= 1, "an int >= 1"),
-        ("tol", _is_num(m.tol) and m.tol >= 0, ">= 0"),
-        ("min_covar", _is_num(m.min_covar) and m.min_covar > 0, "> 0 (a covariance floor)"),
+        ("n_restarts", is_int(m.n_restarts) and m.n_restarts >= 1, "an int >= 1"),
+        ("n_iter", is_int(m.n_iter) and m.n_iter >= 1, "an int >= 1"),
+        ("tol", is_real(m.tol) and m.tol >= 0, ">= 0"),
+        ("min_covar", is_real(m.min_covar) and m.min_covar > 0, "> 0 (a covariance floor)"),
         ("init", m.init in ("kmeans", "random"), "'kmeans' or 'random'"),
-        ("init_candidates", _is_int(m.init_candidates) and m.init_candidates >= 1, "an int >= 1"),
+        ("init_candidates", is_int(m.init_candidates) and m.init_candidates >= 1, "an int >= 1"),
         (
             "fit_max_frames",
-            m.fit_max_frames is None or (_is_int(m.fit_max_frames) and m.fit_max_frames >= 100),
+            m.fit_max_frames is None or (is_int(m.fit_max_frames) and m.fit_max_frames >= 100),
             "None or an int >= 100",
         ),
         ("engine", m.engine in ("fast", "hmmlearn"), "'fast' or 'hmmlearn'"),
         (
             "n_jobs",
-            getattr(m, "n_jobs", None) is None or (_is_int(m.n_jobs) and m.n_jobs >= 1),
+            getattr(m, "n_jobs", None) is None or (is_int(m.n_jobs) and m.n_jobs >= 1),
             "None or an int >= 1",
         ),
         (
             "random_state",
-            m.random_state is None or (_is_int(m.random_state) and m.random_state >= 0),
+            m.random_state is None or (is_int(m.random_state) and m.random_state >= 0),
             "None or an int >= 0",
         ),
     ]
@@ -207,6 +200,29 @@ def representative_blocks(
             starts.append(off + begin)
             stops.append(off + begin + size)
     return np.array(starts, dtype=np.int64), np.array(stops, dtype=np.int64)
+
+
+def take_blocks(
+    X: np.ndarray,
+    lengths: np.ndarray,
+    max_frames: int | None,
+    block_frames: int,
+    rng: np.random.Generator,
+) -> tuple[np.ndarray, np.ndarray]:
+    """The rows of :func:`representative_blocks` and their lengths (``X`` itself if all).
+
+    Examples
+    --------
+    >>> X = np.arange(100.0)[:, None]
+    >>> sub, n = take_blocks(X, np.array([50, 50]), 20, 10, np.random.default_rng(0))
+    >>> sub.shape, n.tolist()
+    ((20, 1), [10, 10])
+    """
+    starts, stops = representative_blocks(lengths, max_frames, block_frames, rng)
+    sub = (stops - starts).astype(np.int64)
+    if sub.sum() == len(X):
+        return X, sub
+    return np.concatenate([X[a:b] for a, b in zip(starts, stops, strict=True)]), sub
 
 
 def _row_view(X: np.ndarray) -> np.ndarray:
@@ -370,13 +386,7 @@ def screened_start(
     Returns the parameters of the best candidate (as ``run_em`` returns them).
     """
     block = max(30, round(SCREEN_BLOCK_S * model.fps))
-    starts, stops = representative_blocks(lengths, SCREEN_FRAMES, block, rng)
-    sub = (stops - starts).astype(np.int64)
-    Xs = (
-        X
-        if sub.sum() == len(X)
-        else np.concatenate([X[a:b] for a, b in zip(starts, stops, strict=True)])
-    )
+    Xs, sub = take_blocks(X, lengths, SCREEN_FRAMES, block, rng)
     trans_counts = persistence * len(Xs) * sticky
     best = None
     for _ in range(int(model.init_candidates)):

@@ -10,10 +10,9 @@ import inspect
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-import numpy as np
-
 from ethoscribe.errors import InputError
 from ethoscribe.features import FeaturePipeline
+from ethoscribe.segment.base import int_between, is_real
 from ethoscribe.segment.changepoint import ChangePointSegmenter
 from ethoscribe.segment.hmm import GaussianHMM
 
@@ -32,24 +31,6 @@ _SET_BY_MODEL = {
     "changepoint": {"n_motifs", "fps", "random_state"},
     "prediction_error": {"n_motifs", "fps", "random_state"},
 }
-
-
-def _is_int(v: Any) -> bool:
-    return isinstance(v, int | np.integer) and not isinstance(v, bool | np.bool_)
-
-
-def _is_number(v: Any) -> bool:
-    """A finite real number (JSON int or float; not a bool)."""
-    if not isinstance(v, int | float | np.integer | np.floating) or isinstance(v, bool | np.bool_):
-        return False
-    try:
-        return bool(np.isfinite(float(v)))
-    except OverflowError:  # an integer too large for a float
-        return False
-
-
-def _int_in(v: Any, low: int, high: int) -> bool:
-    return _is_int(v) and low <= v <= high
 
 
 def _show(v: Any) -> str:
@@ -74,7 +55,7 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
     if method not in METHODS:
         problems.append(f"'params.method' must be one of {METHODS}, got {_show(method)}")
     n = params.get("n_states", "auto")
-    if n != "auto" and not _int_in(n, 1, MAX_SAVED_STATES):
+    if n != "auto" and not int_between(n, 1, MAX_SAVED_STATES):
         problems.append(
             f"'params.n_states' must be 'auto' or an integer from 1 to {MAX_SAVED_STATES}, "
             f"got {_show(n)}"
@@ -83,7 +64,7 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
     if (
         not isinstance(rng, list | tuple)
         or len(rng) != 2
-        or not all(_int_in(v, 1, MAX_SAVED_STATES) for v in rng)
+        or not all(int_between(v, 1, MAX_SAVED_STATES) for v in rng)
         or rng[0] > rng[1]
     ):
         problems.append(
@@ -91,10 +72,10 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
             f"{MAX_SAVED_STATES}, got {_show(rng)}"
         )
     bout = params.get("min_bout_s", 0.5)
-    if not _is_number(bout) or bout < 0:
+    if not is_real(bout) or bout < 0:
         problems.append(f"'params.min_bout_s' must be a number >= 0 seconds, got {_show(bout)}")
     seed = params.get("random_state", 0)
-    if seed is not None and not _int_in(seed, 0, 2**63 - 1):
+    if seed is not None and not int_between(seed, 0, 2**63 - 1):
         problems.append(f"'params.random_state' must be an integer >= 0, got {_show(seed)}")
     if not isinstance(params.get("progress", False), bool):
         problems.append(f"'params.progress' must be true or false, got {_show(params['progress'])}")
@@ -126,7 +107,7 @@ def _check_selection_meta(selection: Any) -> list[str]:
     if not isinstance(selection, Mapping):
         return [f"'selection' must be an object or null, got {_show(selection)}"]
     problems = []
-    if not _int_in(selection.get("best"), 1, MAX_SAVED_STATES):
+    if not int_between(selection.get("best"), 1, MAX_SAVED_STATES):
         problems.append(
             f"'selection.best' must be an integer from 1 to {MAX_SAVED_STATES}, "
             f"got {_show(selection.get('best'))}"
@@ -165,13 +146,13 @@ def check_meta(meta: Mapping[str, Any], model_keys: Iterable[str]) -> None:
             f"unknown segmenter kind {_show(kind)} ('segmenter_kind' must be one of "
             f"{sorted(SEGMENTERS)})"
         )
-    if not _int_in(meta["n_states"], 1, MAX_SAVED_STATES):
+    if not int_between(meta["n_states"], 1, MAX_SAVED_STATES):
         problems.append(
             f"'n_states' must be an integer from 1 to {MAX_SAVED_STATES}, "
             f"got {_show(meta['n_states'])}"
         )
     fps = meta["fps"]
-    if not _is_number(fps) or not 0 < fps <= MAX_SAVED_FPS:
+    if not is_real(fps) or not 0 < fps <= MAX_SAVED_FPS:
         problems.append(
             f"'fps' must be a number of frames per second in (0, {MAX_SAVED_FPS:g}], "
             f"got {_show(fps)}"
@@ -193,7 +174,7 @@ def check_meta(meta: Mapping[str, Any], model_keys: Iterable[str]) -> None:
         problems.append(
             f"'training_sessions' must be a list of session names, got {_show(sessions)}"
         )
-    if not _int_in(meta["n_training_frames"], 0, 2**63 - 1):
+    if not int_between(meta["n_training_frames"], 0, 2**63 - 1):
         problems.append(
             f"'n_training_frames' must be an integer >= 0, got {_show(meta['n_training_frames'])}"
         )

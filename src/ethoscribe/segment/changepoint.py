@@ -21,7 +21,7 @@ import ruptures as rpt
 from sklearn.base import BaseEstimator
 
 from ethoscribe.errors import InputError
-from ethoscribe.segment.base import check_fitted, check_X_lengths, split_by_lengths
+from ethoscribe.segment.base import check_fitted, check_X_lengths, is_real, split_by_lengths
 from ethoscribe.segment.motifs import (
     SEGMENT_COLUMNS,
     cluster_segments,
@@ -473,7 +473,7 @@ class ChangePointSegmenter(BaseEstimator):
             if not (isinstance(v, int | np.integer) and not isinstance(v, bool) and 1 <= v <= high):
                 problems.append(f"'{name}' must be an integer from 1 to {high}, got {v!r:.60}")
         noise = meta.get("noise_variance")
-        if not (_positive_number(noise) or (_finite_number(noise) and noise == 0)):
+        if not (is_real(noise) and noise >= 0):
             problems.append(f"'noise_variance' must be a number >= 0, got {noise!r:.60}")
         needed = ["mean", "scale", "penalty", "boundaries", "boundary_counts"]
         needed += [f"segments/{c}" for c in SEGMENT_COLUMNS]
@@ -517,15 +517,6 @@ class ChangePointSegmenter(BaseEstimator):
             det = _with_prefix(arrays, "detector/")
             obj.detector_ = PredictionErrorBoundaries.from_state(meta["detector"], det)
         return obj
-
-
-def _finite_number(v: object) -> bool:
-    if not isinstance(v, int | float | np.integer | np.floating) or isinstance(v, bool):
-        return False
-    try:
-        return bool(np.isfinite(float(v)))
-    except OverflowError:  # an integer too large for a float
-        return False
 
 
 def _with_prefix(arrays: dict[str, np.ndarray], prefix: str) -> dict[str, np.ndarray]:

@@ -39,14 +39,14 @@ from ethoscribe.segment._hmm_fit import (
     in_threads,
     initial_means,
     one_thread,
-    representative_blocks,
     run_em,
     screened_start,
     sticky_transmat,
+    take_blocks,
 )
 from ethoscribe.segment._hmm_gaussian import GaussianEmission
 from ethoscribe.segment._hmm_kernels import forward_backward_log, forward_filter_log, viterbi_log
-from ethoscribe.segment.base import check_fitted, check_X_lengths
+from ethoscribe.segment.base import check_fitted, check_X_lengths, int_between, is_real
 from ethoscribe.segment.postprocess import order_states_by_occupancy
 
 FORMAT_VERSION = 1
@@ -212,11 +212,7 @@ class GaussianHMM:
         seeds = np.random.SeedSequence(self.random_state).spawn(self.n_restarts + 1)
         block = max(100, round(60.0 * self.fps))
         rng_blocks = np.random.default_rng(seeds[0])
-        starts, stops = representative_blocks(lengths, self.fit_max_frames, block, rng_blocks)
-        fit_lengths = (stops - starts).astype(np.int64)
-        whole = fit_lengths.sum() == len(X)
-        blocks = zip(starts, stops, strict=True)
-        X_fit = X if whole else np.concatenate([X[a:b] for a, b in blocks])
+        X_fit, fit_lengths = take_blocks(X, lengths, self.fit_max_frames, block, rng_blocks)
         needed = frames_needed(K, X.shape[1], self.covariance_type)
         if len(X_fit) < needed:
             per_state = needed // K
@@ -410,13 +406,13 @@ class GaussianHMM:
         check_hmm_params(model)
         problems = []
         rules = {
-            "n_states": (_int_between(meta.get("n_states"), 1, _MAX_STATES), "an int >= 1"),
-            "n_features": (_int_between(meta.get("n_features"), 1, _MAX_FEATURES), "an int >= 1"),
-            "n_iter": (_int_between(meta.get("n_iter"), 0, 2**31), "an int >= 0"),
-            "n_fit_frames": (_int_between(meta.get("n_fit_frames"), 0, 2**62), "an int >= 0"),
-            "log_likelihood": (_real(meta.get("log_likelihood")), "a number"),
+            "n_states": (int_between(meta.get("n_states"), 1, _MAX_STATES), "an int >= 1"),
+            "n_features": (int_between(meta.get("n_features"), 1, _MAX_FEATURES), "an int >= 1"),
+            "n_iter": (int_between(meta.get("n_iter"), 0, 2**31), "an int >= 0"),
+            "n_fit_frames": (int_between(meta.get("n_fit_frames"), 0, 2**62), "an int >= 0"),
+            "log_likelihood": (is_real(meta.get("log_likelihood")), "a number"),
             "covariance_floor": (
-                _real(meta.get("covariance_floor")) and meta["covariance_floor"] > 0,
+                is_real(meta.get("covariance_floor")) and meta["covariance_floor"] > 0,
                 "a number > 0",
             ),
             "converged": (isinstance(meta.get("converged"), bool | np.bool_), "true or false"),
@@ -452,21 +448,6 @@ class GaussianHMM:
 
 _MAX_STATES = 1000  # a saved state count beyond this is damage, not a model
 _MAX_FEATURES = 100_000
-
-
-def _int_between(v: Any, low: int, high: int) -> bool:
-    ok = isinstance(v, int | np.integer) and not isinstance(v, bool | np.bool_)
-    return ok and low <= v <= high
-
-
-def _real(v: Any) -> bool:
-    """A finite number (a huge JSON integer does not fit a float: not one)."""
-    if not isinstance(v, int | float | np.integer | np.floating) or isinstance(v, bool | np.bool_):
-        return False
-    try:
-        return bool(np.isfinite(float(v)))
-    except OverflowError:
-        return False
 
 
 def _check_fitted_arrays(fitted: dict[str, np.ndarray]) -> None:

@@ -40,7 +40,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError
-from ethoscribe.segment._hmm_fit import in_threads, representative_blocks
+from ethoscribe.segment._hmm_fit import in_threads, take_blocks
 from ethoscribe.segment.base import check_X_lengths
 from ethoscribe.segment.hmm import GaussianHMM, frames_needed
 
@@ -370,10 +370,8 @@ def choose_n_states(
     """
     X, lengths = check_X_lengths(X, lengths)
     rng = np.random.default_rng(random_state)
-    if max_frames is not None and len(X) > max_frames:
-        starts, stops = representative_blocks(lengths, max_frames, max_frames, rng)
-        X = np.concatenate([X[a:b] for a, b in zip(starts, stops, strict=True)])
-        lengths = (stops - starts).astype(np.int64)
+    # One block per session (blocks as long as the whole budget), as many sessions as fit.
+    X, lengths = take_blocks(X, lengths, max_frames, max_frames or len(X), rng)
     params = {**dict(model_params or {}), **QUICK_FIT}
     heldout = "sessions" if len(lengths) >= 2 else "blocks"
     return select_n_states(

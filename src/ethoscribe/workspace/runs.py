@@ -19,7 +19,7 @@ from ethoscribe.io._atomic import atomic_table_writer, atomic_write_json, write_
 from ethoscribe.io._safe import read_json
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
-from ethoscribe.segment._hmm_fit import representative_blocks
+from ethoscribe.segment._hmm_fit import representative_blocks, take_blocks
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
 from ethoscribe.segment.stability import stability_report
@@ -108,7 +108,7 @@ def discover(
     try:
         client = connect(scheduler)
         prepared, quality, table = _prepare(out, plan, cleaning, jobs, client, force, progress)
-        sample = _training_sample(prepared, fit_frames, seed)
+        sample = _training_sample(prepared, table, fit_frames, seed)
         model = BehaviourModel(
             cleaning=cleaning,
             features={"origin": origin, "axis": axis},
@@ -163,7 +163,7 @@ def _prepare(
 
 
 def _training_sample(
-    prepared: Sequence[dict[str, Any]], max_frames: int | None, seed: int
+    prepared: Sequence[dict[str, Any]], table: pd.DataFrame, max_frames: int | None, seed: int
 ) -> list[PoseTracks]:
     """Cleaned sessions to fit on: all of them, or blocks from each, ``max_frames`` in all.
 
@@ -172,13 +172,12 @@ def _training_sample(
     of a recording is represented while memory is bounded by the sample plus one session. Five
     minutes: long enough that the slowest feature filters (seconds) barely feel the block edges.
     """
-    rows = [read_json(i["row"]) for i in prepared]
-    lengths = np.array([int(r["n_frames"]) for r in rows], dtype=np.int64)
+    lengths = table["n_frames"].to_numpy(np.int64)  # the sessions table, in ``prepared`` order
     if max_frames is None or lengths.sum() <= max_frames:
         return [load_prepared(i)[0] for i in prepared]
     if max_frames < 1:
         raise InputError(f"fit_frames must be a positive number of frames; got {max_frames}")
-    block = max(1, round(300 * float(rows[0]["fps"])))
+    block = max(1, round(300 * float(table["fps"].iloc[0])))
     starts, stops = representative_blocks(lengths, max_frames, block, np.random.default_rng(seed))
     offsets = np.cumsum(lengths) - lengths
     owner = np.searchsorted(offsets, starts, side="right") - 1
@@ -375,12 +374,8 @@ def _stability(
     bouts) is measured to about a percent.
     """
     X, lengths = stack_valid(feats)
-    starts, stops = representative_blocks(
-        lengths, STABILITY_FRAMES, max(100, round(60 * model.fps_)), np.random.default_rng(seed)
-    )
-    if (stops - starts).sum() < len(X):
-        X = np.concatenate([X[a:b] for a, b in zip(starts, stops, strict=True)])
-        lengths = (stops - starts).astype(np.int64)
+    block = max(100, round(60 * model.fps_))
+    X, lengths = take_blocks(X, lengths, STABILITY_FRAMES, block, np.random.default_rng(seed))
     params = model.segmenter_.get_params()
 
     def make(s: int) -> GaussianHMM:
