@@ -13,9 +13,9 @@ PACKAGE = Path(__file__).resolve().parents[1] / "src" / "ethoscribe"
 
 # Lowest first. A module may import its own layer or any layer before it.
 LAYERS = [
-    {"errors", "pose"},
+    {"errors", "checks", "pose"},
     {"io"},
-    {"clean", "_clean_kernels", "geometry", "dynamics"},
+    {"clean", "geometry", "filters"},
     {"features", "postures"},
     {"simulate"},
     {"segment"},

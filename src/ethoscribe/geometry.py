@@ -336,7 +336,7 @@ def angular_velocity(
     angles : array, shape (F,) or (F, C)
     fps : float
     window_s : float
-        Fitting window in seconds (see ``dynamics.derivative``).
+        Fitting window in seconds (see ``filters.derivative``).
     causal : bool
         Use past frames only (trailing fit).
 
@@ -347,6 +347,6 @@ def angular_velocity(
     >>> bool(np.allclose(w, 2.0))
     True
     """
-    from ethoscribe.dynamics import derivative  # dynamics never imports geometry: no cycle
+    from ethoscribe.filters import derivative  # filters never imports geometry: no cycle
 
     return derivative(unwrap_angles(angles), fps, window_s=window_s, causal=causal)

@@ -12,6 +12,7 @@ from typing import Any, TypeVar
 import numpy as np
 from threadpoolctl import ThreadpoolController
 
+from ethoscribe.checks import is_int, is_real
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_gaussian import (
     COVARIANCE_TYPES,
@@ -21,7 +22,6 @@ from ethoscribe.segment._hmm_gaussian import (
     gaussian_m_step,
     repair_covariances,
 )
-from ethoscribe.segment.base import is_int, is_real
 
 _CONTROLLER: ThreadpoolController | None = None
 T = TypeVar("T")

@@ -10,9 +10,9 @@ import inspect
 from collections.abc import Iterable, Mapping
 from typing import Any
 
+from ethoscribe.checks import int_between, is_real
 from ethoscribe.errors import InputError
 from ethoscribe.features import FeaturePipeline
-from ethoscribe.segment.base import int_between, is_real
 from ethoscribe.segment.changepoint import ChangePointSegmenter
 from ethoscribe.segment.hmm import GaussianHMM
 

@@ -20,8 +20,9 @@ import pandas as pd
 import ruptures as rpt
 from sklearn.base import BaseEstimator
 
+from ethoscribe.checks import is_real
 from ethoscribe.errors import InputError
-from ethoscribe.segment.base import check_fitted, check_X_lengths, is_real, split_by_lengths
+from ethoscribe.segment.inputs import check_fitted, check_X_lengths, split_by_lengths
 from ethoscribe.segment.motifs import (
     SEGMENT_COLUMNS,
     cluster_segments,

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 from tqdm.auto import tqdm
 
+from ethoscribe.checks import int_between, is_real
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_fit import (
     check_hmm_params,
@@ -46,7 +47,7 @@ from ethoscribe.segment._hmm_fit import (
 )
 from ethoscribe.segment._hmm_gaussian import GaussianEmission
 from ethoscribe.segment._hmm_kernels import forward_backward_log, forward_filter_log, viterbi_log
-from ethoscribe.segment.base import check_fitted, check_X_lengths, int_between, is_real
+from ethoscribe.segment.inputs import check_fitted, check_X_lengths
 from ethoscribe.segment.postprocess import order_states_by_occupancy
 
 FORMAT_VERSION = 1

@@ -20,9 +20,9 @@ from ethoscribe.errors import EthoscribeError, InputError
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.pose import PoseTracks, check_same_body_plan
 from ethoscribe.segment._model_meta import METHODS, RESAVE, SEGMENTERS, check_meta, known_keys
-from ethoscribe.segment.base import check_fitted, split_by_lengths
 from ethoscribe.segment.changepoint import ChangePointSegmenter
 from ethoscribe.segment.hmm import GaussianHMM
+from ethoscribe.segment.inputs import check_fitted, split_by_lengths
 from ethoscribe.segment.postprocess import enforce_min_bout
 from ethoscribe.segment.select import choose_n_states
 

@@ -39,7 +39,7 @@ from scipy.signal import find_peaks
 from sklearn.base import BaseEstimator
 
 from ethoscribe.errors import InputError
-from ethoscribe.segment.base import check_fitted, check_X_lengths, split_by_lengths
+from ethoscribe.segment.inputs import check_fitted, check_X_lengths, split_by_lengths
 
 AUTO_THRESHOLD = 4.0
 UPPER_SD_QUANTILE = 0.8413447460685429  # Phi(1): median to this quantile = 1 SD if normal

@@ -41,8 +41,8 @@ from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_fit import in_threads, take_blocks
-from ethoscribe.segment.base import check_X_lengths
 from ethoscribe.segment.hmm import GaussianHMM, frames_needed
+from ethoscribe.segment.inputs import check_X_lengths
 
 RANGE_TOLERANCE = 0.01
 ELBOW_FRACTION = 0.2

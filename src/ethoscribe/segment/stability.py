@@ -20,7 +20,7 @@ from tqdm.auto import tqdm
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_fit import in_threads
 from ethoscribe.segment.agreement import adjusted_rand, match_states
-from ethoscribe.segment.base import check_X_lengths
+from ethoscribe.segment.inputs import check_X_lengths
 
 
 @dataclass(frozen=True)

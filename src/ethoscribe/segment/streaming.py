@@ -15,8 +15,8 @@ import numpy as np
 
 from ethoscribe.clean import StreamingCleaner
 from ethoscribe.errors import InputError
-from ethoscribe.segment.base import check_fitted
 from ethoscribe.segment.hmm import GaussianHMM
+from ethoscribe.segment.inputs import check_fitted
 from ethoscribe.segment.streaming_hmm import HMMFilter
 
 

@@ -11,7 +11,7 @@ import numpy as np
 
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_gaussian import GaussianEmission
-from ethoscribe.segment.base import check_fitted
+from ethoscribe.segment.inputs import check_fitted
 
 
 class HMMFilter:

@@ -10,7 +10,8 @@ import pandas as pd
 import pytest
 from scipy import signal as sps
 
-from ethoscribe.dynamics import (
+from ethoscribe.errors import InputError
+from ethoscribe.filters import (
     CausalBandPower,
     TrailingDerivative,
     TrailingStd,
@@ -19,7 +20,6 @@ from ethoscribe.dynamics import (
     fill_gaps,
     rolling_std,
 )
-from ethoscribe.errors import InputError
 
 
 def test_derivative_taps_are_the_savitzky_golay_table():

@@ -1,328 +1,38 @@
-"""Egocentric posture and movement features: ``PoseTracks`` in, one ``FeatureSet`` per animal out.
-
-Per frame, each animal's keypoints are put in its own body frame (origin at a keypoint or the
-centroid; x along the tail-to-head axis; in 3-D heights kept). Postures are projected on
-principal components fitted over all sessions; speeds are in the tracks' units per second;
-band amplitudes describe rhythm; with several animals, social features describe the nearest
-other animal.
-
-Two column sets (``<u>`` = the tracks' units, e.g. ``cm``). ``feature_set="compact"``
-(default), for segmentation::
-
-    posture_pc<i>                       egocentric posture on principal component i
-    log_centroid_speed_<u>_s            log(speed of the keypoint centroid + c)
-    log_turning_speed_rad_s             log(|turning rate of the body axis| + c)
-    log_posture_speed_<u>_s             log(speed of the posture in component space + c)
-    log_posture_band_<f>hz              log(RMS amplitude of the whole posture, summed over the
-                                        components, in the one-octave band around f Hz + c)
-
-Why: a Gaussian HMM models each state by a mean and a covariance, so every column should be
-informative, low in noise and roughly Gaussian within a behaviour. Speeds and amplitudes are
-skewed over orders of magnitude (still 1-5 mm/s, walking 100-300 mm/s); their logarithm is
-close to Gaussian within a behaviour, and the offset ``c`` (``log_offset_``, the 5 % quantile
-over the fitted frames, about the tracking-noise floor) keeps noise at rest from spreading
-over many log units. One amplitude per band for the whole posture finds a rhythm in whichever
-component it lives. On the simulated example study this set (16 columns) gave an adjusted
-Rand index with the truth of 0.84 against 0.67 for the detailed set (41 columns; the same
-7-state HMM), and an EM iteration cost 3.6x less.
-Signed velocities (zero mean in every behaviour, heavy tails when walking) and one speed per
-keypoint (dominated by tracking jitter) are left out: with them walking was split in two and
-resting, scanning and freezing merged.
-
-``feature_set="detailed"``, for inspection and custom models (linear units)::
-
-    posture_pc<i>                       egocentric posture on principal component i
-    centroid_speed_<u>_s                speed of the keypoint centroid
-    forward_velocity_<u>_s, lateral_velocity_<u>_s   centroid velocity in the body frame
-    heading_velocity_rad_s              turning rate of the body axis
-    <keypoint>_ego_speed_<u>_s          keypoint speed in the body frame (origin keypoint left out)
-    height_<keypoint>_<u>               3-D only: coordinate along the vertical axis
-    posture_pc<i>_band_<f>hz            RMS amplitude of pc i in the one-octave band around f Hz
-    posture_pc<i>_std_<w>s, centroid_speed_<u>_s_std_<w>s   rolling std over w seconds
-
-Social columns (both sets; the three distances log-transformed in the compact set)::
-
-    dist_to_nearest_<u>, head_to_nearest_body_<u>, nearest_head_to_body_<u>,
-    facing_nearest_cos/_sin, nearest_heading_cos/_sin, nearest_approach_speed_<u>_s
-
-Social columns describe the nearest other animal (by centroid), so sessions whose animals have
-other ids still share one column set.
-"""
+"""``FeaturePipeline``: egocentric posture and movement features fitted across sessions."""
 
 from __future__ import annotations
 
 import warnings
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
-from functools import partial
-from types import MappingProxyType
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 from sklearn.base import BaseEstimator
 
-from ethoscribe.dynamics import (
-    CausalBandPower,
-    TrailingDerivative,
-    TrailingStd,
-    band_filters,
-    band_power,
-    derivative,
-    rolling_std,
-)
 from ethoscribe.errors import InputError, NotFittedError
+from ethoscribe.features.motion import (
+    FeatureStream,
+    _centroid,
+    _check_rate,
+    _Motion,
+    _pair_lengths,
+)
+from ethoscribe.features.saved import (
+    _FITTED_ARRAYS,
+    _FITTED_META,
+    pipeline_from_state,
+    pipeline_state,
+)
+from ethoscribe.features.sets import FeatureSet
+from ethoscribe.filters import derivative
 from ethoscribe.geometry import (
     heading_angle,
     horizontal_axes,
     procrustes_align,
     rotate_to_axis,
     travel_alignment,
-    unwrap_angles,
 )
 from ethoscribe.pose import PoseTracks, check_same_body_plan
-
-if TYPE_CHECKING:
-    import pandas as pd
-
-
-@dataclass(frozen=True, eq=False)
-class FeatureSet:
-    """Features of one animal in one session.
-
-    Parameters
-    ----------
-    values : array, shape (F, n_features)
-        float64; rows of invalid frames are NaN.
-    columns : tuple of str
-        Feature names, one per column.
-    valid : array, shape (F,)
-        True where every feature of the frame is finite.
-    session, animal : str
-    fps : float
-    meta : mapping
-        Units, whether causal / standardised, origin and axis used.
-
-    Examples
-    --------
-    >>> fs = FeatureSet(np.zeros((3, 1)), ("a",), np.ones(3, bool), "s", "m", 30.0)
-    >>> fs.to_frame().shape
-    (3, 6)
-    """
-
-    values: np.ndarray
-    columns: tuple[str, ...]
-    valid: np.ndarray
-    session: str
-    animal: str
-    fps: float
-    meta: Mapping[str, Any] = field(default_factory=dict)
-
-    def __post_init__(self) -> None:
-        values = np.asarray(self.values, dtype=np.float64)
-        valid = np.asarray(self.valid)
-        columns = tuple(str(c) for c in self.columns)
-        where = f"features of session '{self.session}', animal '{self.animal}'"
-        if values.ndim != 2 or values.shape[1] != len(columns):
-            msg = f"{where}: values must be (frames, {len(columns)} columns); got {values.shape}"
-            raise InputError(msg)
-        if valid.dtype != bool or valid.shape != (len(values),):
-            msg = (
-                f"{where}: valid must be a bool array of shape ({len(values)},); got {valid.shape}"
-            )
-            raise InputError(msg)
-        if (valid & ~np.isfinite(values).all(1)).any():
-            raise InputError(f"{where}: frames marked valid contain NaN or infinite values")
-        values.setflags(write=False)
-        valid.setflags(write=False)
-        for name, v in (("values", values), ("valid", valid), ("columns", columns)):
-            object.__setattr__(self, name, v)
-        object.__setattr__(self, "session", str(self.session))
-        object.__setattr__(self, "animal", str(self.animal))
-        object.__setattr__(self, "fps", float(self.fps))
-        object.__setattr__(self, "meta", MappingProxyType(dict(self.meta)))
-
-    @property
-    def n_frames(self) -> int:
-        return self.values.shape[0]
-
-    @property
-    def n_features(self) -> int:
-        return self.values.shape[1]
-
-    def to_frame(self) -> pd.DataFrame:
-        """A pandas DataFrame: ``session, animal, frame, time_s, valid`` then one column per
-        feature."""
-        import pandas as pd
-
-        frames = np.arange(self.n_frames)
-        head = {
-            "session": self.session,
-            "animal": self.animal,
-            "frame": frames,
-            "time_s": frames / self.fps,
-            "valid": self.valid,
-        }
-        body = pd.DataFrame(self.values, columns=list(self.columns))
-        return pd.concat([pd.DataFrame(head), body], axis=1)
-
-
-class _Motion:
-    """Features of one animal over time; when causal it carries filter state between chunks,
-    so a recording can be fed whole or one frame at a time with the same result."""
-
-    def __init__(self, pipe: FeaturePipeline, fps: float) -> None:
-        self.pipe = pipe
-        d, k = pipe.n_dims_, len(pipe.keypoints_)
-        n_small = d + 1 + int(pipe.social_)
-        bc = pipe._band_components
-        compact = pipe.feature_set == "compact"
-        n_shape = pipe.n_components_ if compact else k * d  # channels of the posture speed
-        w_std = max(1, round(pipe.variability_window_s * fps))
-        vw, freqs = pipe.velocity_window_s, tuple(pipe.frequencies)
-        if pipe.causal:
-            self.d_small = TrailingDerivative(n_small, fps, vw).process
-            self.d_ego = TrailingDerivative(n_shape, fps, vw).process
-            self.bands = CausalBandPower(bc, fps, freqs).process if bc and freqs else None
-            self.stds = None if compact else TrailingStd(bc + 1, w_std).process
-        else:
-            self.d_small = self.d_ego = partial(derivative, fps=fps, window_s=vw)
-            bands = partial(band_power, fps=fps, frequencies=freqs, sum_channels=compact)
-            self.bands = bands if bc and freqs else None
-            self.stds = None if compact else partial(rolling_std, window_frames=w_std)
-        self._last_heading: tuple[float, float] | None = None  # (raw, unwrapped), causal only
-
-    def _unwrap(self, heading: np.ndarray) -> np.ndarray:
-        if not self.pipe.causal:
-            return unwrap_angles(heading)
-        prev = self._last_heading
-        if prev is None:
-            out = unwrap_angles(heading)
-        else:
-            out = unwrap_angles(np.concatenate([[prev[0]], heading]))[1:] + (prev[1] - prev[0])
-        finite = np.flatnonzero(np.isfinite(heading))
-        if finite.size:
-            self._last_heading = (float(heading[finite[-1]]), float(out[finite[-1]]))
-        return out
-
-    def __call__(self, geo: tuple, social: np.ndarray | None) -> np.ndarray:
-        """Raw features of a chunk, shape (F, n_features): linear, before the log transform
-        and standardisation of ``FeaturePipeline._finish``."""
-        p = self.pipe
-        centroid, heading, ego = geo
-        n, d = ego.shape[0], ego.shape[2]
-        bc = p._band_components
-        out = np.empty((n, len(p.columns_)))
-        col = 0
-
-        def put(block: np.ndarray) -> None:
-            nonlocal col
-            block = block.reshape(n, -1)
-            out[:, col : col + block.shape[1]] = block
-            col += block.shape[1]
-
-        pcs = ego.reshape(n, -1) @ p.pca_components_.T - p.pca_components_ @ p.pca_mean_
-        put(pcs)
-        small = [centroid, self._unwrap(heading)[:, None]]
-        rates = self.d_small(np.hstack(small + ([social[:, :1]] if social is not None else [])))
-        speed = np.linalg.norm(rates[:, :d], axis=1)
-        if p.feature_set == "compact":
-            put(np.column_stack([speed, np.abs(rates[:, d])]))
-            put(np.linalg.norm(self.d_ego(pcs), axis=1))
-            if self.bands is not None:  # amplitude of the whole posture in each band
-                power = self.bands(pcs[:, :bc])
-                put(np.sqrt(power.sum(axis=1) if power.shape[1] > 1 else power[:, 0]))
-        else:
-            self._detailed(put, rates, speed, heading, ego, pcs)
-        if social is not None:
-            put(social)
-            put(-rates[:, d + 1])
-        return out
-
-    def _detailed(self, put, rates, speed, heading, ego, pcs) -> None:
-        """The per-keypoint columns of ``feature_set="detailed"``."""
-        p = self.pipe
-        n, k, d = ego.shape
-        bc = p._band_components
-        h = list(horizontal_axes(d, p.up_axis))
-        c, s = np.cos(heading), np.sin(heading)
-        vx, vy = rates[:, h[0]], rates[:, h[1]]
-        put(np.column_stack([speed, vx * c + vy * s, vy * c - vx * s, rates[:, d]]))
-        ego_rate = self.d_ego(ego.reshape(n, -1)).reshape(n, k, d)
-        keep = p._speed_keypoints
-        put(_point_norms(ego_rate if len(keep) == k else ego_rate[:, keep]))
-        if d == 3:
-            put(ego[:, :, "xyz".index(p.up_axis)])
-        if self.bands is not None:
-            put(np.sqrt(self.bands(pcs[:, :bc])))
-        put(self.stds(np.column_stack([pcs[:, :bc], speed])))
-
-
-class FeatureStream:
-    """Online causal features: push one frame of all animals, get one feature row per animal.
-
-    Made by ``FeaturePipeline.stream``; rows equal those of ``transform`` on the whole
-    recording. State is a few filter states and trailing buffers per animal.
-    """
-
-    def __init__(self, pipeline: FeaturePipeline, n_animals: int, fps: float) -> None:
-        self.pipeline, self.n_animals, self.fps = pipeline, n_animals, fps
-        self.columns = pipeline.columns_
-        self.n_frames = 0
-        self._motions = [_Motion(pipeline, fps) for _ in range(n_animals)]
-
-    def push(self, coords: np.ndarray) -> np.ndarray:
-        """Features of the next frame.
-
-        Parameters
-        ----------
-        coords : array, shape (n_animals, n_keypoints, n_dims)
-            NaN marks a missing keypoint.
-
-        Returns
-        -------
-        array, shape (n_animals, n_features)
-            NaN rows where the frame is invalid (e.g. not enough history yet).
-        """
-        p = self.pipeline
-        X = np.asarray(coords, dtype=np.float64)
-        expected = (self.n_animals, len(p.keypoints_), p.n_dims_)
-        if X.shape != expected or np.isinf(X).any():
-            msg = (
-                f"frame {self.n_frames}: expected finite-or-NaN coordinates of shape {expected} "
-                f"(animals, keypoints, dims); got shape {X.shape}"
-            )
-            raise InputError(msg)
-        rows = p._compute(X[None], self._motions)
-        self.n_frames += 1
-        return np.vstack([p._finish(r)[0] for r in rows])
-
-
-def _check_rate(frequencies: Sequence[float], fps: float, where: str) -> None:
-    """Every band must lie below the Nyquist frequency of this frame rate."""
-    try:
-        for f in frequencies:
-            band_filters(float(f), fps)
-    except InputError as exc:
-        raise InputError(f"{where}: {exc}") from None
-
-
-def _centroid(X: np.ndarray) -> np.ndarray:
-    """Mean of the keypoints (F, K, D) -> (F, D); NaN if any is missing."""
-    return np.einsum("fkd->fd", X) / X.shape[1]  # einsum: ~6x faster than mean over axis 1
-
-
-def _point_norms(a: np.ndarray) -> np.ndarray:
-    """Lengths of vectors (F, K, D) -> (F, K)."""
-    if a.shape[-1] == 2 and a.flags.c_contiguous:
-        return np.abs(a.view(np.complex128)[..., 0])
-    return np.sqrt(np.einsum("fkd,fkd->fk", a, a))
-
-
-def _pair_lengths(points: np.ndarray) -> np.ndarray:
-    """Mean distance between every two keypoints over frames (n, K, D) -> (K, K)."""
-    dist = np.linalg.norm(points[:, :, None] - points[:, None], axis=-1)
-    ok = np.isfinite(dist)
-    return np.where(ok, dist, 0.0).sum(0) / np.maximum(ok.sum(0), 1)
 
 
 def _accumulate(acc: list | None, X: np.ndarray, full: bool) -> list | None:
@@ -348,30 +58,6 @@ def _accumulate(acc: list | None, X: np.ndarray, full: bool) -> list | None:
 
 # Quantile of a magnitude (speed, amplitude) used as its log offset: the noise floor (below).
 LOG_OFFSET_QUANTILE = 0.05
-
-_FITTED_ARRAYS = (
-    "log_offset_",
-    "mean_posture_",
-    "pca_mean_",
-    "pca_components_",
-    "explained_variance_",
-    "explained_variance_ratio_",
-    "scaler_mean_",
-    "scaler_scale_",
-)
-_FITTED_META = (
-    "origin_",
-    "axis_",
-    "axis_report_",
-    "axis_details_",
-    "keypoints_",
-    "n_dims_",
-    "units_",
-    "fps_",
-    "social_",
-    "n_components_",
-    "columns_",
-)
 
 
 class FeaturePipeline(BaseEstimator):
@@ -1012,122 +698,11 @@ class FeaturePipeline(BaseEstimator):
     # --- persistence ---------------------------------------------------------------------
     def to_state(self) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
         """JSON-able parameters and fitted metadata, plus the fitted arrays (no pickle)."""
-        self._check_fitted()
-        from ethoscribe import __version__
-
-        params = self.get_params()
-        params["frequencies"] = [float(f) for f in self.frequencies]
-        params["axis"] = None if self.axis is None else list(self.axis)
-        fitted = {k: getattr(self, k) for k in _FITTED_META}
-        for k in ("axis_", "keypoints_", "columns_"):
-            fitted[k] = list(fitted[k])
-        meta = {"estimator": "FeaturePipeline", "version": __version__, "params": params}
-        meta["fitted"] = fitted
-        arrays = {k: np.array(getattr(self, k), dtype=np.float64) for k in _FITTED_ARRAYS}
-        return meta, arrays
+        return pipeline_state(self)
 
     @classmethod
     def from_state(
         cls, meta: Mapping[str, Any], arrays: Mapping[str, np.ndarray]
     ) -> FeaturePipeline:
         """Rebuild a fitted pipeline from ``to_state`` output."""
-        try:
-            if meta["estimator"] != "FeaturePipeline":
-                raise KeyError("estimator")
-            params = dict(meta["params"])
-            fitted = dict(meta["fitted"])
-            arrays = dict(arrays)
-            if "feature_set" not in params:  # saved before feature sets: the detailed one
-                params["feature_set"] = "detailed"
-                arrays.setdefault("log_offset_", np.zeros(len(fitted["columns_"])))
-            missing = [k for k in (*_FITTED_META,) if k not in fitted]
-            missing += [k for k in _FITTED_ARRAYS if k not in arrays]
-        except (KeyError, TypeError) as exc:
-            raise InputError(f"not a FeaturePipeline state (missing {exc})") from None
-        if missing:
-            raise InputError(
-                f"FeaturePipeline state lacks {missing}; save it again with to_state()"
-            )
-        unknown = sorted(set(params) - set(cls._get_param_names()))
-        if unknown:
-            raise InputError(
-                f"FeaturePipeline state: unknown parameters {unknown[:5]}; valid: "
-                f"{cls._get_param_names()}"
-            )
-        for k in ("frequencies", "axis"):  # saved as JSON lists
-            if isinstance(params.get(k), list):
-                params[k] = tuple(params[k])
-        pipe = cls(**params)
-        pipe._check_params()  # InputError naming each bad parameter
-        _check_fitted_meta(fitted)
-        for k in ("axis_", "keypoints_", "columns_"):
-            fitted[k] = tuple(fitted[k])
-        for k, v in fitted.items():
-            setattr(pipe, k, v)
-        try:
-            for k in _FITTED_ARRAYS:
-                setattr(pipe, k, np.array(arrays[k], dtype=np.float64))
-        except (TypeError, ValueError) as exc:
-            raise InputError(f"FeaturePipeline state: arrays must hold numbers ({exc})") from None
-        n, m = len(pipe.columns_), pipe.n_components_
-        n_kp, n_dims = len(pipe.keypoints_), pipe.n_dims_
-        shapes = {
-            "scaler_mean_": (n,), "scaler_scale_": (n,), "log_offset_": (n,),
-            "pca_mean_": (n_kp * n_dims,), "pca_components_": (m, n_kp * n_dims),
-            "explained_variance_": (m,), "mean_posture_": (n_kp, n_dims),
-        }  # fmt: skip
-        wrong = [
-            f"{k} {getattr(pipe, k).shape} (expected {shape})"
-            for k, shape in shapes.items()
-            if getattr(pipe, k).shape != shape
-        ]
-        if wrong:
-            raise InputError(
-                "FeaturePipeline state is inconsistent: array shapes do not match the columns, "
-                f"keypoints and components: {'; '.join(wrong)}"
-            )
-        return pipe
-
-
-def _check_fitted_meta(fitted: Mapping[str, Any]) -> None:
-    """Types of the saved fitted fields of a FeaturePipeline (an InputError names each)."""
-
-    def names(v: Any) -> bool:
-        return isinstance(v, list | tuple) and all(isinstance(x, str) for x in v)
-
-    kps = fitted["keypoints_"]
-    n_comp, fps = fitted["n_components_"], fitted["fps_"]
-    rules = {
-        "keypoints_": names(kps) and len(kps) >= 2 and len(set(kps)) == len(kps),
-        "columns_": names(fitted["columns_"]) and len(fitted["columns_"]) >= 1,
-        "axis_": names(fitted["axis_"]) and len(fitted["axis_"]) == 2,
-        "origin_": fitted["origin_"] is None or isinstance(fitted["origin_"], str),
-        "axis_report_": isinstance(fitted["axis_report_"], str),
-        "axis_details_": isinstance(fitted["axis_details_"], Mapping),
-        "n_dims_": fitted["n_dims_"] in (2, 3) and not isinstance(fitted["n_dims_"], bool),
-        "units_": isinstance(fitted["units_"], str),
-        "social_": isinstance(fitted["social_"], bool | np.bool_),
-        "n_components_": isinstance(n_comp, int | np.integer)
-        and not isinstance(n_comp, bool)
-        and 1 <= n_comp <= 100_000,
-        "fps_": fps is None
-        or (
-            isinstance(fps, int | float | np.number)
-            and not isinstance(fps, bool)
-            and 0 < fps <= 1e6
-        ),
-    }
-    bad = [k for k, ok in rules.items() if not ok]
-    if not bad and isinstance(kps, list | tuple):
-        named = [*fitted["axis_"], *([fitted["origin_"]] if fitted["origin_"] else [])]
-        bad = (
-            [f"axis_/origin_ (names {named} not all in keypoints_)"]
-            if set(named) - set(kps)
-            else []
-        )
-    if bad:
-        shown = ", ".join(f"{k}={fitted.get(k)!r:.60}" for k in bad if k in fitted) or bad[0]
-        raise InputError(
-            f"FeaturePipeline state has fields of the wrong type or value: {shown}; save it "
-            "again with to_state()"
-        )
+        return pipeline_from_state(cls, meta, arrays)

@@ -1,4 +1,4 @@
-"""What every segmenter shares: input checks over concatenated sessions, and the fitted check.
+"""Input checks every segmenter shares: stacked sessions (X, lengths), and the fitted check.
 
 Many sessions go in as one matrix ``X`` (valid frames of each session, stacked) plus ``lengths``
 (frames per session), as hmmlearn does, so that no segment or state straddles two sessions.
@@ -11,33 +11,6 @@ from collections.abc import Sequence
 import numpy as np
 
 from ethoscribe.errors import InputError, NotFittedError
-
-
-# --- plain values from saved files (JSON numbers) ----------------------------------------
-def is_int(v: object) -> bool:
-    """An integer, not a bool (JSON ``true`` is not a count)."""
-    return isinstance(v, int | np.integer) and not isinstance(v, bool | np.bool_)
-
-
-def int_between(v: object, low: int, high: int) -> bool:
-    """An integer (see :func:`is_int`) with ``low <= v <= high``."""
-    return is_int(v) and low <= v <= high  # type: ignore[operator]
-
-
-def is_real(v: object) -> bool:
-    """A finite real number, not a bool; a JSON integer too large for a float is not one.
-
-    Examples
-    --------
-    >>> is_real(1.5), is_real(True), is_real(float("nan")), is_real(10**400)
-    (True, False, False, False)
-    """
-    if not isinstance(v, int | float | np.integer | np.floating) or isinstance(v, bool | np.bool_):
-        return False
-    try:
-        return bool(np.isfinite(float(v)))
-    except OverflowError:
-        return False
 
 
 def check_X_lengths(

@@ -1,0 +1,187 @@
+"""Cleaning settings and the checks of their values (seconds and physical units, never frames)."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import asdict, dataclass, fields
+from typing import Any
+
+import numpy as np
+
+from ethoscribe.clean import _kernels as kern
+from ethoscribe.errors import InputError
+
+MM_PER_UNIT = {"mm": 1.0, "cm": 10.0, "m": 1000.0}
+SMOOTHERS = ("savgol", "median")
+AUTO_SPEED_QUANTILE, AUTO_SPEED_FACTOR = 0.99, 2.0
+# Cost per second of overriding the tracker's left/right labels, in units of the pair's squared
+# separation; an exchange costs ~2 separations^2 of displacement at each end, so exchanges of up
+# to ~4 / SWAP_PRIOR_PER_S = 10 s are repaired in batch (half that causally).
+SWAP_PRIOR_PER_S = 0.4
+
+
+def _positive(name: str, value: Any, allow_zero: bool = False) -> float:
+    ok = isinstance(value, (int, float, np.number)) and not isinstance(value, bool)
+    v = float(value) if ok else float("nan")
+    if not np.isfinite(v) or v < 0 or (v == 0 and not allow_zero):
+        need = "a non-negative" if allow_zero else "a positive"
+        raise InputError(f"{name} must be {need} number; got {value!r}")
+    return v
+
+
+@dataclass(frozen=True)
+class CleanParams:
+    """Settings of ``clean``; every step can be switched off with ``None``.
+
+    Parameters
+    ----------
+    min_confidence : float or None
+        Points with confidence below this are masked; NaN confidence (unknown) never is. 0.5 is
+        where a tracker rates a point more likely present than absent; confidence scales differ
+        between trackers, so the default is lenient and relies on the speed test for confident
+        errors. Cut-offs of 0.6-0.9 are common practice for some trackers.
+    max_speed : "auto", float or None
+        Speed bound in units per second for the jump test. ``"auto"`` = 2 x the 99th percentile
+        of the frame-to-frame speeds of all points after confidence masking, pooled over keypoints
+        and animals (sound while fewer than ~0.5 % of frames hold jumps); the value used is in
+        ``QualityReport.params["max_speed"]``.
+    max_gap_s : float
+        Gaps of at most this many seconds are filled (0: none); longer gaps stay NaN.
+    swap_pairs : sequence of (str, str)
+        Left/right keypoint names whose labels the tracker may exchange.
+    smooth : "savgol", "median" or None
+        Savitzky-Golay polynomial smoothing or running median.
+    smooth_window_s, smooth_order : float, int
+        Window in seconds (made an odd frame count), polynomial order (Savitzky-Golay).
+    px_per_unit, unit : float or None, str
+        Pixels per ``unit`` ("mm", "cm", "m") to calibrate pixel tracks; physical tracks are
+        converted to ``unit``.
+    target_fps : float or None
+        Resample to this frame rate at the end.
+
+    Examples
+    --------
+    >>> p = CleanParams(swap_pairs=[("left_ear", "right_ear")], smooth="median")
+    >>> CleanParams.from_dict(p.to_dict()) == p
+    True
+    """
+
+    min_confidence: float | None = 0.5
+    max_speed: float | str | None = "auto"
+    max_gap_s: float = 0.5
+    swap_pairs: Sequence[tuple[str, str]] = ()
+    smooth: str | None = "savgol"
+    smooth_window_s: float = 0.2
+    smooth_order: int = 2
+    px_per_unit: float | None = None
+    unit: str = "mm"
+    target_fps: float | None = None
+
+    def __post_init__(self) -> None:
+        conf = self.min_confidence
+        if conf is not None and not 0 <= _positive("min_confidence", conf, True) <= 1:
+            raise InputError(f"min_confidence must lie in [0, 1] or be None; got {conf!r}")
+        if conf is not None:
+            object.__setattr__(self, "min_confidence", float(conf))
+        speed = self.max_speed
+        if speed is not None and not (isinstance(speed, str) and speed == "auto"):
+            if isinstance(speed, str):
+                raise InputError(f"max_speed must be 'auto', None or a number; got {speed!r}")
+            object.__setattr__(self, "max_speed", _positive("max_speed (units/s)", speed))
+        gap = 0.0 if self.max_gap_s is None else _positive("max_gap_s", self.max_gap_s, True)
+        object.__setattr__(self, "max_gap_s", gap)
+        object.__setattr__(self, "swap_pairs", _check_pairs(self.swap_pairs))
+        if self.smooth is not None and self.smooth not in SMOOTHERS:
+            raise InputError(f"smooth must be one of {SMOOTHERS} or None; got {self.smooth!r}")
+        _positive("smooth_window_s", self.smooth_window_s)
+        order = self.smooth_order
+        if not isinstance(order, (int, np.integer)) or isinstance(order, bool) or order < 0:
+            raise InputError(f"smooth_order must be a non-negative integer; got {order!r}")
+        object.__setattr__(self, "smooth_order", int(order))
+        object.__setattr__(self, "smooth_window_s", float(self.smooth_window_s))
+        for name in ("px_per_unit", "target_fps"):  # plain floats keep to_dict() JSON-able
+            if getattr(self, name) is not None:
+                object.__setattr__(self, name, _positive(name, getattr(self, name)))
+        if self.unit not in MM_PER_UNIT:
+            raise InputError(f"unit must be one of {list(MM_PER_UNIT)}; got {self.unit!r}")
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-able dict (swap pairs as lists)."""
+        d = asdict(self)
+        d["swap_pairs"] = [list(p) for p in self.swap_pairs]
+        return d
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> CleanParams:
+        """Rebuild from ``to_dict()`` output; unknown keys are an error."""
+        known = [f.name for f in fields(cls)]
+        unknown = sorted(set(d) - set(known))
+        if unknown:
+            raise InputError(f"unknown cleaning parameters {unknown}; known: {known}")
+        return cls(**d)
+
+
+def _check_pairs(pairs: Any) -> tuple[tuple[str, str], ...]:
+    out = []
+    for pair in pairs or ():
+        if isinstance(pair, str) or len(pair) != 2 or pair[0] == pair[1]:
+            raise InputError(
+                f"swap_pairs must hold pairs of two different keypoint names, e.g. "
+                f"[('left_ear', 'right_ear')]; got {pair!r}"
+            )
+        out.append((str(pair[0]), str(pair[1])))
+    names = [n for p in out for n in p]
+    twice = sorted({n for n in names if names.count(n) > 1})
+    if twice:
+        raise InputError(f"keypoints {twice} appear in more than one swap pair; use each once")
+    return tuple(out)
+
+
+def _pair_index(keypoints: Sequence[str], swap_pairs: Any) -> np.ndarray:
+    """(P, 2) int64 indices of declared pairs; a clear error names unknown keypoints."""
+    pairs, kps = _check_pairs(swap_pairs), list(keypoints)
+    unknown = [n for p in pairs for n in p if n not in kps]
+    if unknown:
+        raise InputError(f"swap_pairs name unknown keypoints {unknown}; known keypoints: {kps}")
+    return np.array([[kps.index(a), kps.index(b)] for a, b in pairs], np.int64).reshape(-1, 2)
+
+
+def _partner(n_kp: int, pairs: np.ndarray) -> np.ndarray:
+    partner = np.full(n_kp, -1, np.int64)
+    partner[pairs[:, 0]], partner[pairs[:, 1]] = pairs[:, 1], pairs[:, 0]
+    return partner
+
+
+def _coords(coords: Any) -> np.ndarray:
+    """A float64 copy, shape-checked, with a point missing in every dim if missing in one."""
+    x = np.array(coords, dtype=np.float64)
+    if x.ndim != 4 or x.shape[-1] not in (2, 3):
+        raise InputError(
+            f"coords must have shape (frames, animals, keypoints, dims) with dims 2 or 3; "
+            f"got shape {x.shape}"
+        )
+    kern.normalise_missing(x)
+    return x
+
+
+def _fps(fps: Any) -> float:
+    return _positive("fps (frames per second)", fps)
+
+
+def _gap_frames(max_gap_s: float, fps: float) -> int:
+    return int(np.floor(_positive("max_gap_s", max_gap_s, True) * fps + 1e-9))
+
+
+def _window_frames(method: str, window_s: float, order: int, fps: float) -> int:
+    """Odd frame count of a smoothing window; checks it can smooth at all."""
+    n = round(_positive("smooth_window_s", window_s) * fps)
+    n += 1 - n % 2
+    need = order + 2 if method == "savgol" else 3
+    if n < need:
+        what = f"a polynomial of order {order}" if method == "savgol" else "a running median"
+        raise InputError(
+            f"smoothing window {window_s:g} s at {fps:g} fps is {n} frame(s), but {what} needs "
+            f"at least {need} frames to smooth; use smooth_window_s >= {need / fps:.3g}"
+            + (" or a lower smooth_order" if method == "savgol" else "")
+        )
+    return n

@@ -1,0 +1,239 @@
+"""``clean`` (all steps in order, batch or causal) and the frame-by-frame ``StreamingCleaner``."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import fields, replace
+from typing import Any
+
+import numpy as np
+
+from ethoscribe.clean import _kernels as kern
+from ethoscribe.clean.params import (
+    AUTO_SPEED_FACTOR,
+    AUTO_SPEED_QUANTILE,
+    SWAP_PRIOR_PER_S,
+    CleanParams,
+    _coords,
+    _fps,
+    _gap_frames,
+    _pair_index,
+    _window_frames,
+)
+from ethoscribe.clean.report import QualityReport, _report
+from ethoscribe.clean.steps import (
+    _calibration,
+    _fill_gaps_inplace,
+    _mask_confidence_inplace,
+    _mask_jumps_inplace,
+    _resolve_speed,
+    _run_causal,
+    _settings,
+    _smooth_inplace,
+    calibrate,
+    resample,
+)
+from ethoscribe.errors import InputError
+from ethoscribe.pose import PoseTracks
+
+
+def clean(
+    tracks: PoseTracks,
+    params: CleanParams | Mapping[str, Any] | None = None,
+    causal: bool = False,
+    **overrides: Any,
+) -> tuple[PoseTracks, QualityReport]:
+    """Run calibrate -> confidence -> jumps -> swaps -> gaps -> smoothing -> resampling.
+
+    Parameters
+    ----------
+    tracks : PoseTracks
+    params : CleanParams or its ``to_dict()``, optional; ``overrides`` replace single fields
+        (``max_gap_s=0.3``).
+    causal : bool
+        Use past frames only: jump test forwards only, gaps held for up to ``max_gap_s``, trailing
+        smoothing, no resampling. ``max_speed="auto"`` is still estimated from the whole
+        recording (a calibration constant); ``StreamingCleaner`` needs it as a number.
+
+    Returns
+    -------
+    cleaned : PoseTracks (confidence NaN where filled or missing); report : QualityReport
+
+    Examples
+    --------
+    >>> t = PoseTracks(np.random.default_rng(0).normal(size=(90, 1, 2, 2)), keypoints=["a", "b"],
+    ...                fps=30, units="mm")
+    >>> cleaned, report = clean(t, max_gap_s=0.2)
+    >>> cleaned.coords.shape, report.per_keypoint.shape[0]
+    ((90, 1, 2, 2), 2)
+    """
+    if not isinstance(tracks, PoseTracks):
+        raise InputError(f"clean() takes a PoseTracks; got {type(tracks).__name__}")
+    known = [f.name for f in fields(CleanParams)]
+    unknown = sorted(set(overrides) - set(known))
+    try:
+        p = CleanParams.from_dict(params) if isinstance(params, Mapping) else params
+        p = CleanParams() if p is None else p
+        if not isinstance(p, CleanParams):
+            raise InputError(f"params must be a CleanParams or a dict; got {type(p).__name__}")
+        if unknown:
+            raise InputError(f"unknown cleaning parameters {unknown}; known: {known}")
+        return _clean(tracks, replace(p, **overrides), bool(causal))
+    except InputError as exc:
+        msg = str(exc)
+        msg = msg if msg.startswith("session") else f"session '{tracks.session}': {msg}"
+        raise InputError(msg) from None
+
+
+def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks, QualityReport]:
+    cal = calibrate(tracks, p.px_per_unit, p.unit)
+    fps = cal.fps
+    if causal and p.target_fps is not None:
+        raise InputError(
+            "causal cleaning cannot resample (it needs future frames); set "
+            "target_fps=None and resample afterwards"
+        )
+    pairs = _pair_index(cal.keypoints, p.swap_pairs)
+    width = _window_frames(p.smooth, p.smooth_window_s, p.smooth_order, fps) if p.smooth else 0
+    max_gap = _gap_frames(p.max_gap_s, fps)
+    x, conf = _coords(cal.coords), np.array(cal.confidence)
+    raw_missing = np.isnan(x[..., 0])
+    if causal:
+        probe = x.copy()  # the check of confidence, and what "auto" speed sees
+        _mask_confidence_inplace(probe, conf, p.min_confidence)
+        max_speed = _resolve_speed(p.max_speed, probe, fps)
+        del probe
+        smooth_spec = (p.smooth, width, p.smooth_order) if p.smooth else None
+        settings = _settings(
+            x.shape, fps, p.min_confidence, max_speed, pairs, True, max_gap, smooth_spec
+        )
+        flags, swapped = _run_causal(x, conf, settings)
+        low, jumps, filled = (
+            (flags & f) > 0 for f in (kern.FLAG_LOW_CONFIDENCE, kern.FLAG_JUMP, kern.FLAG_FILLED)
+        )
+    else:
+        low = _mask_confidence_inplace(x, conf, p.min_confidence)
+        max_speed = _resolve_speed(p.max_speed, x, fps)
+        jumps = _mask_jumps_inplace(x, fps, max_speed, pairs, False)
+        swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps)
+        filled = _fill_gaps_inplace(x, max_gap)
+        if p.smooth:
+            _smooth_inplace(x, p.smooth, width, p.smooth_order)
+    conf[np.isnan(x[..., 0]) | filled] = np.nan  # only measured points keep a confidence
+    fps_out = fps if p.target_fps is None else float(p.target_fps)
+    if p.target_fps is not None:
+        x, conf = resample(x, fps, fps_out), resample(conf, fps, fps_out)
+    rule = f"auto: {AUTO_SPEED_FACTOR:g} x {AUTO_SPEED_QUANTILE:.0%} quantile of point speeds"
+    if p.max_speed is None:
+        rule = "off: no jump test"
+    elif p.max_speed != "auto":
+        rule = "given"
+    elif max_speed is None:
+        rule = "auto: too few consecutive points, jump test skipped"
+    resolved = {
+        **p.to_dict(),
+        "max_speed": max_speed,
+        "max_speed_rule": rule,
+        "causal": causal,
+        "smooth_window_frames": width,
+        "max_gap_frames": max_gap,
+        "units": cal.units,
+        "fps_in": fps,
+        "fps_out": fps_out,
+    }
+    out = cal.replace(coords=x, confidence=conf, fps=fps_out, meta={"cleaning": resolved})
+    masks = {
+        "frac_missing_raw": raw_missing,
+        "frac_low_confidence": low,
+        "frac_jumps": jumps,
+        "frac_filled": filled,
+    }
+    return out, _report(cal, out, masks, swapped, p.swap_pairs, resolved)
+
+
+class StreamingCleaner:
+    """Causal cleaning one frame at a time; reproduces ``clean(..., causal=True)`` exactly.
+
+    Parameters
+    ----------
+    params : CleanParams
+        ``max_speed`` must be a number or None: ``"auto"`` needs the whole recording, so take
+        ``report.params["max_speed"]`` from ``clean`` of a pilot recording. No ``target_fps``.
+    keypoints : sequence of str; fps : float; n_animals, n_dims : int
+    units : str
+        Units of the pushed coordinates (``"px"`` is calibrated with ``params.px_per_unit``).
+
+    Examples
+    --------
+    >>> sc = StreamingCleaner(CleanParams(max_speed=500.0), ["nose", "tail"], fps=30, units="mm")
+    >>> sc.push(np.zeros((1, 2, 2)), np.ones((1, 2))).shape
+    (1, 2, 2)
+    """
+
+    def __init__(
+        self,
+        params: CleanParams | None,
+        keypoints: Sequence[str],
+        fps: float,
+        n_animals: int = 1,
+        n_dims: int = 2,
+        units: str = "px",
+    ) -> None:
+        p = params if params is not None else CleanParams()
+        if p.max_speed == "auto":
+            raise InputError(
+                "streaming cleaning needs a fixed max_speed (units per second): 'auto' uses the "
+                "whole recording. Run clean() on a pilot recording and pass "
+                "max_speed=report.params['max_speed'], or set max_speed=None."
+            )
+        if p.target_fps is not None:
+            raise InputError("streaming cleaning cannot resample; set target_fps=None")
+        self.params, self.keypoints, self.fps = p, tuple(keypoints), _fps(fps)
+        self._divisor, self.units = _calibration(units, p.px_per_unit, p.unit, "the stream")
+        self.shape = (int(n_animals), len(self.keypoints), int(n_dims))
+        if self.shape[0] < 1 or self.shape[1] < 1 or self.shape[2] not in (2, 3):
+            raise InputError(
+                f"a stream needs >= 1 animal, >= 1 keypoint and 2 or 3 dims; got "
+                f"n_animals={n_animals}, {len(self.keypoints)} keypoints, n_dims={n_dims}"
+            )
+        pairs = _pair_index(self.keypoints, p.swap_pairs)
+        width = _window_frames(p.smooth, p.smooth_window_s, p.smooth_order, fps) if p.smooth else 0
+        smooth_spec = (p.smooth, width, p.smooth_order) if p.smooth else None
+        self._settings = _settings(
+            (1, *self.shape),
+            self.fps,
+            p.min_confidence,
+            p.max_speed,
+            pairs,
+            True,
+            _gap_frames(p.max_gap_s, self.fps),
+            smooth_spec,
+        )
+        self._state = kern.CausalState(*self.shape, pairs.shape[0], self._settings.coef.shape[0])
+
+    @property
+    def n_frames_seen(self) -> int:
+        return self._state.t
+
+    def push(self, coords: np.ndarray, confidence: np.ndarray | None = None) -> np.ndarray:
+        """Clean the next frame: coords (A, K, D), confidence (A, K) -> cleaned (A, K, D)."""
+        x = np.array(coords, dtype=np.float64)
+        if x.shape != self.shape:
+            raise InputError(
+                f"frame {self._state.t}: coords must have shape {self.shape} "
+                f"(animals, keypoints, dims); got {x.shape}"
+            )
+        if np.isinf(x).any():
+            raise InputError(f"frame {self._state.t}: coordinates contain infinite values")
+        if confidence is None:
+            c = np.where(np.isfinite(x).all(axis=-1), 1.0, np.nan)
+        else:
+            c = np.array(confidence, dtype=np.float64)
+            if c.shape != self.shape[:2]:
+                raise InputError(
+                    f"frame {self._state.t}: confidence must have shape "
+                    f"{self.shape[:2]}; got {c.shape}"
+                )
+        x = x[None] / self._divisor if self._divisor != 1.0 else x[None]
+        self._state.run(self._settings, x, c[None])
+        return x[0]

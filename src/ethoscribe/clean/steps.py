@@ -1,0 +1,379 @@
+"""The cleaning steps, each a pure function on ``coords (frames, animals, keypoints, dims)``."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from ethoscribe.clean import _kernels as kern
+from ethoscribe.clean.params import (
+    AUTO_SPEED_FACTOR,
+    AUTO_SPEED_QUANTILE,
+    MM_PER_UNIT,
+    SMOOTHERS,
+    SWAP_PRIOR_PER_S,
+    _coords,
+    _fps,
+    _gap_frames,
+    _pair_index,
+    _partner,
+    _positive,
+    _window_frames,
+)
+from ethoscribe.errors import InputError
+from ethoscribe.pose import PoseTracks
+
+
+def calibrate(tracks: PoseTracks, px_per_unit: float | None = None, unit: str = "mm") -> PoseTracks:
+    """Convert pixel tracks to physical units (or physical tracks to ``unit``).
+
+    Pixel tracks without ``px_per_unit`` are returned unchanged (still ``"px"``). The factor is
+    recorded in ``meta["calibration"]``.
+
+    Examples
+    --------
+    >>> t = PoseTracks(np.full((2, 1, 1, 2), 50.0), keypoints=["nose"], fps=30)
+    >>> c = calibrate(t, px_per_unit=5.0, unit="mm")
+    >>> c.units, float(c.coords[0, 0, 0, 0])
+    ('mm', 10.0)
+    """
+    divisor, units = _calibration(tracks.units, px_per_unit, unit, f"session '{tracks.session}'")
+    if divisor == 1.0 and units == tracks.units:
+        return tracks
+    cal = {"from": tracks.units, "to": units, "divisor": divisor}
+    return tracks.replace(coords=tracks.coords / divisor, units=units, meta={"calibration": cal})
+
+
+def _calibration(units: str, px_per_unit: float | None, unit: str, where: str) -> tuple[float, str]:
+    """Divisor turning ``units`` into the output units, and those units."""
+    if unit not in MM_PER_UNIT:
+        raise InputError(f"unit must be one of {list(MM_PER_UNIT)}; got {unit!r}")
+    if units == "px":
+        if px_per_unit is None:
+            return 1.0, "px"
+        return _positive("px_per_unit", px_per_unit), unit
+    if px_per_unit is not None:
+        raise InputError(
+            f"{where} is already in {units}; px_per_unit applies only to pixel tracks. "
+            "Drop px_per_unit (set it to None)."
+        )
+    if units not in MM_PER_UNIT:
+        raise InputError(f"units must be 'px' or one of {list(MM_PER_UNIT)}; got {units!r}")
+    return MM_PER_UNIT[unit] / MM_PER_UNIT[units], unit
+
+
+def mask_low_confidence(
+    coords: np.ndarray, confidence: np.ndarray | None, min_confidence: float | None = 0.5
+) -> tuple[np.ndarray, np.ndarray]:
+    """Set points with confidence below ``min_confidence`` to NaN (NaN confidence is kept).
+
+    Parameters
+    ----------
+    coords : array (F, A, K, D); confidence : array (F, A, K) or None
+
+    Returns
+    -------
+    coords : array (F, A, K, D); masked : bool array (F, A, K)
+
+    Examples
+    --------
+    >>> x, m = mask_low_confidence(np.ones((2, 1, 2, 2)), np.array([[[0.9, 0.1]], [[np.nan, 1]]]))
+    >>> m[:, 0].tolist()
+    [[False, True], [False, False]]
+    """
+    x = _coords(coords)
+    return x, _mask_confidence_inplace(x, confidence, min_confidence)
+
+
+def _mask_confidence_inplace(x: np.ndarray, confidence: Any, thr: float | None) -> np.ndarray:
+    present = ~np.isnan(x[..., 0])
+    if thr is None or confidence is None:
+        return np.zeros(present.shape, bool)
+    conf = np.asarray(confidence, dtype=np.float64)
+    if conf.shape != x.shape[:3]:
+        raise InputError(f"confidence must have shape {x.shape[:3]}; got {conf.shape}")
+    with np.errstate(invalid="ignore"):
+        masked = present & (conf < thr)  # NaN < thr is False: unknown confidence is kept
+    n_present = int(present.sum())
+    if n_present and not (present & ~masked).any():
+        median = float(np.median(conf[present]))
+        raise InputError(
+            f"all {n_present} tracked points have confidence below min_confidence={thr:g} "
+            f"(median confidence {median:.3g}); lower min_confidence (e.g. to {median:.2g}) or "
+            "check that confidence is on a 0-1 scale"
+        )
+    x[masked] = np.nan
+    return masked
+
+
+def estimate_max_speed(coords: np.ndarray, fps: float) -> float | None:
+    """The ``"auto"`` speed bound: 2 x the 99th percentile of frame-to-frame point speeds.
+
+    Speeds (units per second) of all keypoints and animals are pooled; ``None`` if fewer than 10
+    consecutive pairs of points exist.
+
+    Examples
+    --------
+    >>> x = np.arange(200.0).reshape(-1, 1, 1, 1).repeat(2, axis=-1)  # moves 1.414 per frame
+    >>> round(estimate_max_speed(x, fps=10), 3)
+    28.284
+    """
+    x, fps = np.asarray(coords, dtype=np.float64), _fps(fps)
+    if x.ndim != 4 or x.shape[0] < 2:
+        raise InputError(
+            f"coords must have shape (frames >= 2, animals, keypoints, dims); got {x.shape}"
+        )
+    speed = kern.step_speeds(x, fps)
+    if speed.size < 10:
+        return None
+    return AUTO_SPEED_FACTOR * float(np.quantile(speed, AUTO_SPEED_QUANTILE))
+
+
+def _resolve_speed(max_speed: Any, x: np.ndarray, fps: float) -> float | None:
+    if max_speed == "auto":
+        return estimate_max_speed(x, fps)
+    return None if max_speed is None else _positive("max_speed", max_speed)
+
+
+def mask_jumps(
+    coords: np.ndarray,
+    fps: float,
+    max_speed: float | str | None = "auto",
+    keypoints: Sequence[str] = (),
+    swap_pairs: Sequence[tuple[str, str]] = (),
+    causal: bool = False,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Mask points that would need a speed above ``max_speed`` (units per second) to reach.
+
+    Each point is compared with the last accepted point of its keypoint (allowing ``max_speed``
+    times the time elapsed), or of its declared partner (a swap is left to ``repair_swaps``).
+    Batch mode masks what both a forward and a backward pass reject (a first point, which one
+    pass cannot judge, counts as rejected there), so a jump to an outlier and back masks the
+    outlier only, never its neighbours. ``causal=True`` runs the forward pass only.
+
+    Parameters
+    ----------
+    coords : array (F, A, K, D); fps : float
+    max_speed : "auto" (see ``estimate_max_speed``), float or None (no masking)
+    keypoints, swap_pairs : names, needed only when pairs are declared
+
+    Returns
+    -------
+    coords : array (F, A, K, D); masked : bool array (F, A, K)
+
+    Examples
+    --------
+    >>> x = np.zeros((5, 1, 1, 2)); x[2] = 100.0
+    >>> mask_jumps(x, fps=10, max_speed=50.0)[1][:, 0, 0].tolist()
+    [False, False, True, False, False]
+    """
+    x, fps = _coords(coords), _fps(fps)
+    pairs = _pair_index(keypoints, swap_pairs) if swap_pairs else np.zeros((0, 2), np.int64)
+    return x, _mask_jumps_inplace(x, fps, _resolve_speed(max_speed, x, fps), pairs, causal)
+
+
+def _mask_jumps_inplace(x, fps, max_speed, pairs, causal) -> np.ndarray:
+    if max_speed is None:
+        return np.zeros(x.shape[:3], bool)
+    partner, step = _partner(x.shape[2], pairs), max_speed / fps
+    forward = kern.jump_pass(x, partner, step, True)
+    masked = forward == kern.JUMP_REJECTED
+    if not causal:  # rejected by one pass, and rejected or without reference in the other
+        backward = kern.jump_pass(x, partner, step, False)
+        masked &= backward > 0
+        masked |= (forward == kern.JUMP_UNJUDGED) & (backward == kern.JUMP_REJECTED)
+    x[masked] = np.nan
+    return masked
+
+
+def repair_swaps(
+    coords: np.ndarray,
+    confidence: np.ndarray | None,
+    keypoints: Sequence[str],
+    swap_pairs: Sequence[tuple[str, str]],
+    fps: float,
+    causal: bool = False,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Undo left/right label exchanges of declared keypoint pairs.
+
+    Per frame and pair there are two assignments: as labelled, or exchanged. Between frames where
+    both points are seen, an assignment costs the squared displacement of the assigned points
+    (divided by the frames elapsed); the exchanged one also costs ``SWAP_PRIOR_PER_S / fps``
+    squared separations per frame, so the tracker's labels win unless continuity clearly says
+    otherwise, and a wrong choice cannot persist. The cheapest sequence is found by a two-state
+    Viterbi recursion (``causal=True``: the forward recursion only, deciding each frame from
+    the past). A frame with one point seen follows the last frame with both.
+
+    Returns
+    -------
+    coords : array (F, A, K, D); confidence : array (F, A, K) (exchanged along with coords);
+    swapped : bool array (F, A, P), frames where pair p was exchanged
+
+    Examples
+    --------
+    >>> x = np.array([[0, 0], [10, 0]] * 2 + [[10, 0], [0, 0]], float).reshape(3, 1, 2, 2)
+    >>> y, _, s = repair_swaps(x, None, ["left", "right"], [("left", "right")], fps=30)
+    >>> s[:, 0, 0].tolist(), y[2, 0, 0].tolist()
+    ([False, False, True], [0.0, 0.0])
+    """
+    x = _coords(coords)
+    conf = np.full(x.shape[:3], np.nan) if confidence is None else np.array(confidence, float)
+    if conf.shape != x.shape[:3]:
+        raise InputError(f"confidence must have shape {x.shape[:3]}; got {conf.shape}")
+    pairs, fps = _pair_index(keypoints, swap_pairs), _fps(fps)
+    if causal:
+        settings = _settings(x.shape, fps, pairs=pairs, repair=True)
+        swapped = _run_causal(x, conf, settings)[1]
+    else:
+        swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps)
+    return x, conf, swapped
+
+
+def fill_gaps(
+    coords: np.ndarray, fps: float, max_gap_s: float = 0.5, causal: bool = False
+) -> tuple[np.ndarray, np.ndarray]:
+    """Fill gaps of at most ``max_gap_s`` seconds; longer gaps and the ends stay NaN.
+
+    Batch: linear interpolation in time between the valid points on either side. Causal: the
+    last valid point is held for up to ``max_gap_s`` (also at the start of a longer gap, which is
+    not yet known to be long).
+
+    Returns
+    -------
+    coords : array (F, A, K, D); filled : bool array (F, A, K)
+
+    Examples
+    --------
+    >>> x = np.array([0.0, np.nan, np.nan, 3.0])[:, None, None, None].repeat(2, axis=-1)
+    >>> fill_gaps(x, fps=10, max_gap_s=0.2)[0][:, 0, 0, 0].tolist()
+    [0.0, 1.0, 2.0, 3.0]
+    """
+    x, fps = _coords(coords), _fps(fps)
+    max_gap = _gap_frames(max_gap_s, fps)
+    if causal:
+        flags = _run_causal(x, None, _settings(x.shape, max_gap=max_gap))[0]
+        return x, (flags & kern.FLAG_FILLED) > 0
+    return x, _fill_gaps_inplace(x, max_gap)
+
+
+def _fill_gaps_inplace(x: np.ndarray, max_gap: int) -> np.ndarray:
+    filled = np.zeros(x.shape[:3], bool)
+    if max_gap <= 0:
+        return filled
+    missing = np.isnan(x[..., 0])
+    for a, k in zip(*np.nonzero(missing.any(axis=0)), strict=True):  # series with gaps only
+        have = np.flatnonzero(~missing[:, a, k])
+        gaps = np.flatnonzero(missing[:, a, k])
+        after = np.searchsorted(have, gaps)  # index in `have` of the next valid frame
+        inner = (after > 0) & (after < have.size)
+        gaps, after = gaps[inner], after[inner]
+        p, q = have[after - 1], have[after]
+        short = q - p - 1 <= max_gap
+        t, p, q = gaps[short], p[short], q[short]
+        y = x[:, a, k]
+        w = ((t - p) / (q - p))[:, None]
+        y[t] = y[p] + w * (y[q] - y[p])
+        filled[t, a, k] = True
+    return filled
+
+
+def smooth(
+    coords: np.ndarray,
+    fps: float,
+    method: str = "savgol",
+    window_s: float = 0.2,
+    order: int = 2,
+    causal: bool = False,
+) -> np.ndarray:
+    """NaN-aware smoothing over a window of ``window_s`` seconds (an odd number of frames).
+
+    ``"savgol"``: Savitzky-Golay polynomial of ``order``, each run of valid frames on its own
+    (equal to ``scipy.signal.savgol_filter(..., mode="interp")`` on a run without gaps).
+    ``"median"``: median of the valid points in the centred window. Missing points stay missing.
+    ``causal=True``: the end point of a fit to the trailing run (Savitzky-Golay) or the median
+    of the trailing window.
+
+    Examples
+    --------
+    >>> x = np.arange(10.0)[:, None, None, None].repeat(2, axis=-1) ** 2  # a parabola
+    >>> bool(np.allclose(smooth(x, fps=25, window_s=0.2), x))
+    True
+    """
+    x, fps = _coords(coords), _fps(fps)
+    if method not in SMOOTHERS:
+        raise InputError(f"smoothing method must be one of {SMOOTHERS}; got {method!r}")
+    width = _window_frames(method, window_s, order, fps)
+    if causal:
+        _run_causal(x, None, _settings(x.shape, smooth=(method, width, order)))
+        return x
+    _smooth_inplace(x, method, width, order)
+    return x
+
+
+def _smooth_inplace(x: np.ndarray, method: str, width: int, order: int) -> None:
+    for a in range(x.shape[1]):  # loop over series: memory stays at one keypoint's track
+        for k in range(x.shape[2]):
+            y = np.ascontiguousarray(x[:, a, k])
+            valid = ~np.isnan(y[:, 0])
+            if not valid.any():
+                continue
+            if method == "savgol":
+                x[:, a, k] = kern.savgol_series(y, valid, width, order)
+            else:
+                x[:, a, k] = kern.median_series(y, valid, width)
+
+
+def resample(values: np.ndarray, fps: float, target_fps: float) -> np.ndarray:
+    """Linear interpolation in time to ``target_fps``, frames on axis 0 (any trailing shape).
+
+    Output frame j is at time j / target_fps, up to the last input frame. A value next to a NaN
+    is NaN unless it falls exactly on a valid frame: nothing is interpolated across a gap.
+
+    Examples
+    --------
+    >>> resample(np.array([0.0, 1.0, np.nan, 3.0]), fps=1, target_fps=2).tolist()
+    [0.0, 0.5, 1.0, nan, nan, nan, 3.0]
+    """
+    v, fps, target = np.asarray(values, dtype=np.float64), _fps(fps), _fps(target_fps)
+    n_out = int(np.floor((v.shape[0] - 1) * target / fps + 1e-9)) + 1
+    pos = np.arange(n_out) * (fps / target)
+    near = np.rint(pos)
+    pos = np.where(np.abs(pos - near) < 1e-9, near, pos)  # exact hits must not see a NaN beyond
+    out = np.empty((n_out, *v.shape[1:]))
+    for lo in range(0, n_out, 1 << 16):  # chunks keep the temporaries small
+        p = pos[lo : lo + (1 << 16)]
+        i0 = np.minimum(p.astype(np.int64), v.shape[0] - 1)
+        i1 = np.minimum(i0 + 1, v.shape[0] - 1)
+        w = (p - i0).reshape((-1,) + (1,) * (v.ndim - 1))
+        out[lo : lo + p.size] = np.where(w == 0, v[i0], v[i0] * (1 - w) + v[i1] * w)
+    return out
+
+
+def _settings(
+    shape, fps=1.0, min_conf=None, max_speed=None, pairs=None, repair=False, max_gap=0, smooth=None
+) -> kern.CausalSettings:
+    """Causal-kernel settings; every step is off unless given."""
+    pairs = np.zeros((0, 2), np.int64) if pairs is None else pairs
+    kind, coef = kern.SMOOTH_OFF, np.zeros((1, 1))
+    if smooth:
+        method, width, order = smooth
+        kind = kern.SMOOTH_SAVGOL if method == "savgol" else kern.SMOOTH_MEDIAN
+        coef = kern.trailing_weights(width, order) if method == "savgol" else np.zeros((width, 1))
+    return kern.CausalSettings(
+        -1.0 if min_conf is None else float(min_conf),
+        -1.0 if max_speed is None else max_speed / fps,
+        _partner(shape[2], pairs),
+        pairs if repair else np.zeros((0, 2), np.int64),
+        SWAP_PRIOR_PER_S / fps,
+        int(max_gap),
+        kind,
+        coef,
+    )
+
+
+def _run_causal(x: np.ndarray, conf: np.ndarray | None, settings: kern.CausalSettings):
+    conf = np.full(x.shape[:3], np.nan) if conf is None else conf
+    state = kern.CausalState(*x.shape[1:], settings.pairs.shape[0], settings.coef.shape[0])
+    return state.run(settings, x, conf)

@@ -1,0 +1,184 @@
+"""Features of one animal over time (batch or causal), the online ``FeatureStream``, and the
+small array helpers they share with the pipeline."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from functools import partial
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from ethoscribe.errors import InputError
+from ethoscribe.filters import (
+    CausalBandPower,
+    TrailingDerivative,
+    TrailingStd,
+    band_filters,
+    band_power,
+    derivative,
+    rolling_std,
+)
+from ethoscribe.geometry import horizontal_axes, unwrap_angles
+
+if TYPE_CHECKING:
+    from ethoscribe.features.pipeline import FeaturePipeline
+
+
+class _Motion:
+    """Features of one animal over time; when causal it carries filter state between chunks,
+    so a recording can be fed whole or one frame at a time with the same result."""
+
+    def __init__(self, pipe: FeaturePipeline, fps: float) -> None:
+        self.pipe = pipe
+        d, k = pipe.n_dims_, len(pipe.keypoints_)
+        n_small = d + 1 + int(pipe.social_)
+        bc = pipe._band_components
+        compact = pipe.feature_set == "compact"
+        n_shape = pipe.n_components_ if compact else k * d  # channels of the posture speed
+        w_std = max(1, round(pipe.variability_window_s * fps))
+        vw, freqs = pipe.velocity_window_s, tuple(pipe.frequencies)
+        if pipe.causal:
+            self.d_small = TrailingDerivative(n_small, fps, vw).process
+            self.d_ego = TrailingDerivative(n_shape, fps, vw).process
+            self.bands = CausalBandPower(bc, fps, freqs).process if bc and freqs else None
+            self.stds = None if compact else TrailingStd(bc + 1, w_std).process
+        else:
+            self.d_small = self.d_ego = partial(derivative, fps=fps, window_s=vw)
+            bands = partial(band_power, fps=fps, frequencies=freqs, sum_channels=compact)
+            self.bands = bands if bc and freqs else None
+            self.stds = None if compact else partial(rolling_std, window_frames=w_std)
+        self._last_heading: tuple[float, float] | None = None  # (raw, unwrapped), causal only
+
+    def _unwrap(self, heading: np.ndarray) -> np.ndarray:
+        if not self.pipe.causal:
+            return unwrap_angles(heading)
+        prev = self._last_heading
+        if prev is None:
+            out = unwrap_angles(heading)
+        else:
+            out = unwrap_angles(np.concatenate([[prev[0]], heading]))[1:] + (prev[1] - prev[0])
+        finite = np.flatnonzero(np.isfinite(heading))
+        if finite.size:
+            self._last_heading = (float(heading[finite[-1]]), float(out[finite[-1]]))
+        return out
+
+    def __call__(self, geo: tuple, social: np.ndarray | None) -> np.ndarray:
+        """Raw features of a chunk, shape (F, n_features): linear, before the log transform
+        and standardisation of ``FeaturePipeline._finish``."""
+        p = self.pipe
+        centroid, heading, ego = geo
+        n, d = ego.shape[0], ego.shape[2]
+        bc = p._band_components
+        out = np.empty((n, len(p.columns_)))
+        col = 0
+
+        def put(block: np.ndarray) -> None:
+            nonlocal col
+            block = block.reshape(n, -1)
+            out[:, col : col + block.shape[1]] = block
+            col += block.shape[1]
+
+        pcs = ego.reshape(n, -1) @ p.pca_components_.T - p.pca_components_ @ p.pca_mean_
+        put(pcs)
+        small = [centroid, self._unwrap(heading)[:, None]]
+        rates = self.d_small(np.hstack(small + ([social[:, :1]] if social is not None else [])))
+        speed = np.linalg.norm(rates[:, :d], axis=1)
+        if p.feature_set == "compact":
+            put(np.column_stack([speed, np.abs(rates[:, d])]))
+            put(np.linalg.norm(self.d_ego(pcs), axis=1))
+            if self.bands is not None:  # amplitude of the whole posture in each band
+                power = self.bands(pcs[:, :bc])
+                put(np.sqrt(power.sum(axis=1) if power.shape[1] > 1 else power[:, 0]))
+        else:
+            self._detailed(put, rates, speed, heading, ego, pcs)
+        if social is not None:
+            put(social)
+            put(-rates[:, d + 1])
+        return out
+
+    def _detailed(self, put, rates, speed, heading, ego, pcs) -> None:
+        """The per-keypoint columns of ``feature_set="detailed"``."""
+        p = self.pipe
+        n, k, d = ego.shape
+        bc = p._band_components
+        h = list(horizontal_axes(d, p.up_axis))
+        c, s = np.cos(heading), np.sin(heading)
+        vx, vy = rates[:, h[0]], rates[:, h[1]]
+        put(np.column_stack([speed, vx * c + vy * s, vy * c - vx * s, rates[:, d]]))
+        ego_rate = self.d_ego(ego.reshape(n, -1)).reshape(n, k, d)
+        keep = p._speed_keypoints
+        put(_point_norms(ego_rate if len(keep) == k else ego_rate[:, keep]))
+        if d == 3:
+            put(ego[:, :, "xyz".index(p.up_axis)])
+        if self.bands is not None:
+            put(np.sqrt(self.bands(pcs[:, :bc])))
+        put(self.stds(np.column_stack([pcs[:, :bc], speed])))
+
+
+class FeatureStream:
+    """Online causal features: push one frame of all animals, get one feature row per animal.
+
+    Made by ``FeaturePipeline.stream``; rows equal those of ``transform`` on the whole
+    recording. State is a few filter states and trailing buffers per animal.
+    """
+
+    def __init__(self, pipeline: FeaturePipeline, n_animals: int, fps: float) -> None:
+        self.pipeline, self.n_animals, self.fps = pipeline, n_animals, fps
+        self.columns = pipeline.columns_
+        self.n_frames = 0
+        self._motions = [_Motion(pipeline, fps) for _ in range(n_animals)]
+
+    def push(self, coords: np.ndarray) -> np.ndarray:
+        """Features of the next frame.
+
+        Parameters
+        ----------
+        coords : array, shape (n_animals, n_keypoints, n_dims)
+            NaN marks a missing keypoint.
+
+        Returns
+        -------
+        array, shape (n_animals, n_features)
+            NaN rows where the frame is invalid (e.g. not enough history yet).
+        """
+        p = self.pipeline
+        X = np.asarray(coords, dtype=np.float64)
+        expected = (self.n_animals, len(p.keypoints_), p.n_dims_)
+        if X.shape != expected or np.isinf(X).any():
+            msg = (
+                f"frame {self.n_frames}: expected finite-or-NaN coordinates of shape {expected} "
+                f"(animals, keypoints, dims); got shape {X.shape}"
+            )
+            raise InputError(msg)
+        rows = p._compute(X[None], self._motions)
+        self.n_frames += 1
+        return np.vstack([p._finish(r)[0] for r in rows])
+
+
+def _check_rate(frequencies: Sequence[float], fps: float, where: str) -> None:
+    """Every band must lie below the Nyquist frequency of this frame rate."""
+    try:
+        for f in frequencies:
+            band_filters(float(f), fps)
+    except InputError as exc:
+        raise InputError(f"{where}: {exc}") from None
+
+
+def _centroid(X: np.ndarray) -> np.ndarray:
+    """Mean of the keypoints (F, K, D) -> (F, D); NaN if any is missing."""
+    return np.einsum("fkd->fd", X) / X.shape[1]  # einsum: ~6x faster than mean over axis 1
+
+
+def _point_norms(a: np.ndarray) -> np.ndarray:
+    """Lengths of vectors (F, K, D) -> (F, K)."""
+    if a.shape[-1] == 2 and a.flags.c_contiguous:
+        return np.abs(a.view(np.complex128)[..., 0])
+    return np.sqrt(np.einsum("fkd,fkd->fk", a, a))
+
+
+def _pair_lengths(points: np.ndarray) -> np.ndarray:
+    """Mean distance between every two keypoints over frames (n, K, D) -> (K, K)."""
+    dist = np.linalg.norm(points[:, :, None] - points[:, None], axis=-1)
+    ok = np.isfinite(dist)
+    return np.where(ok, dist, 0.0).sum(0) / np.maximum(ok.sum(0), 1)
