@@ -105,3 +105,93 @@ def test_the_console_script_runs():
         check=False,
     )
     assert done.returncode == 0 and done.stdout.startswith("ethoscribe ")
+
+
+def _wide_and_nwb(study: Path, folder: Path) -> tuple[Path, Path]:
+    """The study's sessions as wide tables (confidence under 'likelihood') and as two-animal
+    NWB files written by ``write_nwb``."""
+    import numpy as np
+
+    from ethoscribe.io import read_tidy, write_nwb
+
+    wide, nwb = folder / "wide", folder / "nwb"
+    wide.mkdir()
+    nwb.mkdir()
+    for name in ("session_03", "session_11"):
+        t = read_tidy(study / f"{name}.parquet", fps=30.0)
+        cols = {}
+        for k, kp in enumerate(t.keypoints):
+            cols[f"{kp}_x"], cols[f"{kp}_y"] = t.coords[:, 0, k, 0], t.coords[:, 0, k, 1]
+            cols[f"{kp}_likelihood"] = t.confidence[:, 0, k]
+        pd.DataFrame(cols).to_csv(wide / f"{name}.csv", index=False)
+        pair = t.replace(
+            coords=np.concatenate([t.coords, t.coords[::-1]], axis=1),
+            confidence=np.concatenate([t.confidence, t.confidence[::-1]], axis=1),
+            animals=["m1", "m2"],
+        )
+        write_nwb(pair, nwb / f"{name}.nwb")
+    return wide, nwb
+
+
+def test_discover_reads_wide_tables_and_two_animal_nwb_files(study, tmp_path, capsys):
+    wide, nwb = _wide_and_nwb(study, tmp_path)
+    common = ["--states", "2", "--quiet", "--jobs", "1", "--axis", "tail_base,nose"]
+    out = tmp_path / "wide_run"
+    code = main(
+        ["discover", str(wide), "--format", "wide", "--pattern", "{keypoint}_{axis}",
+         "--reader-option", "confidence_axis=likelihood", "--fps", "30", "--out", str(out),
+         "--swap-pairs", "left_ear:right_ear", "--max-gap-s", "0.3", "--smooth-window-s", "0.3",
+         "--max-speed", "3000", *common]
+    )  # fmt: skip
+    assert code == 0, capsys.readouterr().err
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["reading"] == {
+        "formats": ["wide"],
+        "options": {"pattern": "{keypoint}_{axis}", "confidence_axis": "likelihood"},
+    }
+    used = summary["cleaning"]["used"]
+    assert used["swap_pairs_used"] == [["left_ear", "right_ear"]]
+    assert (used["max_gap_s"], used["smooth_window_s"], used["max_speed"]) == (0.3, 0.3, 3000.0)
+    assert summary["cleaning"]["swap_pairs_source"] == "given"
+
+    out = tmp_path / "nwb_run"
+    assert main(["discover", str(nwb), "--out", str(out), *common]) == 0, capsys.readouterr().err
+    sessions = pd.read_csv(out / "sessions.csv")
+    assert sessions["n_animals"].tolist() == [2, 2]
+    labels = pd.read_parquet(out / "labels.parquet", columns=["animal"])
+    assert sorted(labels["animal"].unique()) == ["m1", "m2"]
+    cleaning = json.loads((out / "summary.json").read_text())["cleaning"]
+    # Left/right pairs proposed from the keypoint names, and said so.
+    assert cleaning["swap_pairs_source"] == "automatic (from keypoint names)"
+    assert ["left_ear", "right_ear"] in cleaning["swap_pairs_used"]
+
+    out = tmp_path / "no_swap"
+    assert main(["discover", str(nwb), "--out", str(out), "--no-auto-swap", *common]) == 0
+    assert json.loads((out / "summary.json").read_text())["cleaning"]["swap_pairs_used"] == []
+
+
+def test_messages_name_command_line_options(tmp_path, capsys):
+    from ethoscribe.cli import command_line_message
+
+    assert command_line_message("pass fps=... (frames per second)") == (
+        "pass --fps ... (frames per second)"
+    )
+    assert command_line_message("resample with cleaning={'target_fps': ...}") == (
+        "resample with --target-fps ..."
+    )
+    assert command_line_message("use smooth_window_s >= 0.3") == "use --smooth-window-s >= 0.3"
+    assert "--replace-curation" in command_line_message("or pass replace_curation=True (the")
+    with pytest.raises(SystemExit) as stop:
+        main(["discover", str(tmp_path), "--out", str(tmp_path / "o"), "--fps", "1e9"])
+    assert stop.value.code == 2
+    assert "--fps 1e9 is not a camera frame rate" in capsys.readouterr().err
+
+
+def test_an_unwritable_out_is_one_line_and_exit_2(study, tmp_path, capsys):
+    target = tmp_path / "a_file"
+    target.write_text("mine")
+    code = main(["discover", str(study / "session_03.parquet"), "--manifest",
+                 str(study / "manifest.csv"), "--out", str(target / "run"), "--quiet"])  # fmt: skip
+    err = capsys.readouterr().err
+    assert code == 2 and err.count("\n") == 1 and "error:" in err, err
+    assert target.read_text() == "mine"

@@ -86,8 +86,7 @@ def test_time_stamps_with_a_gap_and_3d_in_mm(tmp_path):
 
 def test_several_containers(tmp_path):
     _external_file(tmp_path / "two.nwb", np.arange(5) / 10.0, containers=("ratB", "ratA"))
-    with pytest.raises(InputError, match=r"several PoseEstimation containers \['ratA', 'ratB'\]"):
-        read_nwb(tmp_path / "two.nwb")
+    assert read_nwb(tmp_path / "two.nwb").animals == ("ratA", "ratB")  # all by default
     both = read_nwb(tmp_path / "two.nwb", pose_estimation="all")
     assert both.animals == ("ratA", "ratB")
     assert read_nwb(tmp_path / "two.nwb", pose_estimation="ratB").animals == ("ratB",)

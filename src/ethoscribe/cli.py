@@ -3,12 +3,21 @@
 from __future__ import annotations
 
 import argparse
+import json
+import math
+import re
 import sys
+import warnings
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 from ethoscribe import __version__
 from ethoscribe.errors import EthoscribeError
+
+# Far above any camera (high-speed cameras record up to ~10^5 frames per second); a larger
+# number is a slip (a time step, a frame count) and would make every window absurd.
+MAX_FPS = 1_000_000
 
 
 def _states(value: str) -> int | str:
@@ -34,19 +43,147 @@ def _axis(value: str) -> tuple[str, str]:
     return parts[0], parts[1]
 
 
+def _positive(option: str) -> Any:
+    def parse(value: str) -> float:
+        try:
+            number = float(value)
+        except ValueError:
+            number = float("nan")
+        if not math.isfinite(number) or number <= 0:
+            raise argparse.ArgumentTypeError(f"{option} takes a positive number; got {value!r}")
+        return number
+
+    return parse
+
+
+def _non_negative(option: str) -> Any:
+    def parse(value: str) -> float:
+        try:
+            number = float(value)
+        except ValueError:
+            number = float("nan")
+        if not math.isfinite(number) or number < 0:
+            raise argparse.ArgumentTypeError(f"{option} takes a number >= 0; got {value!r}")
+        return number
+
+    return parse
+
+
+def _fps(value: str) -> float:
+    number = _positive("--fps")(value)
+    if number > MAX_FPS:
+        raise argparse.ArgumentTypeError(
+            f"--fps {value} is not a camera frame rate (at most {MAX_FPS:,} frames per second); "
+            "give frames per second, e.g. --fps 30"
+        )
+    return number
+
+
+def _pairs(value: str) -> tuple[tuple[str, str], ...] | str:
+    text = value.strip()
+    if text.lower() in ("auto", "none"):
+        return "auto" if text.lower() == "auto" else ()
+    pairs = []
+    for item in text.split(","):
+        parts = [p.strip() for p in item.split(":")]
+        if len(parts) != 2 or not all(parts) or parts[0] == parts[1]:
+            raise argparse.ArgumentTypeError(
+                "--swap-pairs takes LEFT:RIGHT keypoint pairs separated by commas, e.g. "
+                f"fore_l:fore_r,hind_l:hind_r (or 'auto' or 'none'); got {value!r}"
+            )
+        pairs.append((parts[0], parts[1]))
+    return tuple(pairs)
+
+
+def _max_speed(value: str) -> float | str | None:
+    if value.strip().lower() in ("auto", "none"):
+        return "auto" if value.strip().lower() == "auto" else None
+    try:
+        return _positive("--max-speed")(value)
+    except argparse.ArgumentTypeError:
+        raise argparse.ArgumentTypeError(
+            f"--max-speed takes a speed in units per second, 'auto' or 'none'; got {value!r}"
+        ) from None
+
+
+def _mapping(option: str) -> Any:
+    def parse(value: str) -> dict[str, str]:
+        out = {}
+        for item in value.split(","):
+            key, sep, name = (t.strip() for t in item.partition("="))
+            if not sep or not key or not name:
+                raise argparse.ArgumentTypeError(
+                    f"{option} takes ROLE=COLUMN pairs separated by commas, e.g. "
+                    f"confidence=likelihood,x=nose_x; got {value!r}"
+                )
+            out[key] = name
+        return out
+
+    return parse
+
+
+def _option(value: str) -> tuple[str, Any]:
+    key, sep, text = value.partition("=")
+    if not sep or not key.strip():
+        raise argparse.ArgumentTypeError(
+            f"--reader-option takes NAME=VALUE (e.g. units=mm); got {value!r}"
+        )
+    try:
+        parsed: Any = json.loads(text)
+    except ValueError:
+        parsed = text
+    return key.strip().replace("-", "_"), parsed
+
+
 def _add_reading_options(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "inputs",
         nargs="*",
         type=Path,
         metavar="POSE_FILE_OR_FOLDER",
-        help="tidy-table pose files (CSV/Parquet) or folders of them",
+        help="pose files (tidy or wide CSV/Parquet tables, NWB) or folders of them",
     )
     p.add_argument(
         "--manifest", type=Path, help="session manifest CSV (session, path, fps, group, ...)"
     )
-    p.add_argument("--fps", type=float, help="frame rate for files whose manifest row gives none")
+    p.add_argument("--fps", type=_fps, help="frame rate for files whose manifest row gives none")
     p.add_argument("--quiet", action="store_true", help="no progress bars")
+    r = p.add_argument_group("reading")
+    r.add_argument(
+        "--format",
+        help="reader for every file: tidy (one row per frame and keypoint), wide (one row per "
+        "frame), nwb, or a reader of an installed package (default: by file suffix)",
+    )
+    r.add_argument(
+        "--pattern",
+        help='wide tables: how columns are named, e.g. "{keypoint}_{axis}" or '
+        '"{animal}.{keypoint}.{axis}"',
+    )
+    r.add_argument("--frame-column", help="wide tables: the column of frame numbers")
+    r.add_argument("--time-column", help="wide tables: the column of times")
+    r.add_argument(
+        "--time-unit",
+        choices=["s", "ms"],
+        help="unit of the time column (checked against --fps; default: s)",
+    )
+    r.add_argument(
+        "--columns",
+        type=_mapping("--columns"),
+        help="tidy tables: which column holds what, e.g. confidence=likelihood,x=pos_x",
+    )
+    r.add_argument(
+        "--containers",
+        help="NWB files: pose-estimation containers to read as animals, NAME,NAME or 'all' "
+        "(default: all)",
+    )
+    r.add_argument(
+        "--reader-option",
+        type=_option,
+        action="append",
+        default=[],
+        metavar="NAME=VALUE",
+        help="any other option of the reader (repeatable)",
+    )
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -65,7 +202,7 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument(
         "--axis", type=_axis, help="body axis as FROM,TO keypoints (tail side to head side)"
     )
-    d.add_argument("--min-confidence", type=float, help="mask points below this tracker confidence")
+    _add_cleaning_options(d)
     d.add_argument("--states", type=_states, default="auto", help="number of motifs, or 'auto'")
     d.add_argument(
         "--method",
@@ -74,6 +211,12 @@ def build_parser() -> argparse.ArgumentParser:
         help="Gaussian HMM (default) or change points clustered into motifs",
     )
     d.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    d.add_argument(
+        "--replace-curation",
+        action="store_true",
+        help="allow a new discovery in a workspace whose motifs were already named (the old "
+        "names are kept aside)",
+    )
     _add_batch_options(d)
     d.add_argument(
         "--fit-frames",
@@ -108,6 +251,104 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--duration", type=float, default=240.0, help="seconds per session")
     s.add_argument("--seed", type=int, default=0)
     return parser
+
+
+def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
+    c = p.add_argument_group("cleaning")
+    c.add_argument(
+        "--min-confidence",
+        type=_non_negative("--min-confidence"),
+        help="mask points below this tracker confidence (default 0.5)",
+    )
+    c.add_argument(
+        "--swap-pairs",
+        type=_pairs,
+        help="left/right keypoints the tracker may exchange, LEFT:RIGHT,LEFT:RIGHT (default: "
+        "pairs read from the keypoint names, such as left_ear/right_ear or fore_l/fore_r)",
+    )
+    c.add_argument(
+        "--no-auto-swap",
+        action="store_true",
+        help="do not pair keypoints by their names (repair only --swap-pairs, if given)",
+    )
+    c.add_argument(
+        "--max-gap-s",
+        type=_non_negative("--max-gap-s"),
+        help="fill gaps of at most this many seconds (default 0.5; 0: none)",
+    )
+    c.add_argument(
+        "--max-speed",
+        type=_max_speed,
+        default=argparse.SUPPRESS,
+        help="speed bound of the jump test in units per second, 'auto' (default) or 'none'",
+    )
+    c.add_argument(
+        "--smooth",
+        choices=["savgol", "median", "none"],
+        help="smoothing: savgol (default), median or none",
+    )
+    c.add_argument(
+        "--smooth-window-s",
+        type=_positive("--smooth-window-s"),
+        help="smoothing window in seconds (default 0.2)",
+    )
+    c.add_argument(
+        "--smooth-order",
+        type=int,
+        help="polynomial order of savgol smoothing (default 2)",
+    )
+    c.add_argument(
+        "--px-per-unit",
+        type=_positive("--px-per-unit"),
+        help="calibration for pixel tracks: pixels per --unit (a manifest's px_per_unit "
+        "column sets it per session instead)",
+    )
+    c.add_argument(
+        "--unit", choices=["mm", "cm", "m"], help="physical unit of the output (default mm)"
+    )
+    c.add_argument(
+        "--target-fps", type=_fps, help="resample every session to this frame rate at the end"
+    )
+
+
+def _cleaning(args: argparse.Namespace) -> dict[str, Any]:
+    """The cleaning fields given on the command line (others keep their defaults)."""
+    given = {
+        "min_confidence": args.min_confidence,
+        "max_gap_s": args.max_gap_s,
+        "smooth_window_s": args.smooth_window_s,
+        "smooth_order": args.smooth_order,
+        "px_per_unit": args.px_per_unit,
+        "unit": args.unit,
+        "target_fps": args.target_fps,
+    }
+    out = {k: v for k, v in given.items() if v is not None}
+    if hasattr(args, "max_speed"):  # given ("none" is None)
+        out["max_speed"] = args.max_speed
+    if args.smooth is not None:
+        out["smooth"] = None if args.smooth == "none" else args.smooth
+    if args.swap_pairs is not None:
+        out["swap_pairs"] = args.swap_pairs
+    elif args.no_auto_swap:
+        out["swap_pairs"] = ()
+    return out
+
+
+def _reader_options(args: argparse.Namespace) -> dict[str, Any]:
+    """The reader options given on the command line."""
+    given = {
+        "pattern": args.pattern,
+        "frame_column": args.frame_column,
+        "time_column": args.time_column,
+        "time_unit": args.time_unit,
+        "columns": args.columns,
+    }
+    out = {k: v for k, v in given.items() if v is not None}
+    if args.containers is not None:
+        names = [n.strip() for n in args.containers.split(",") if n.strip()]
+        out["pose_estimation"] = "all" if names == ["all"] else names
+    out.update(dict(args.reader_option))
+    return out
 
 
 def _add_batch_options(p: argparse.ArgumentParser) -> None:
@@ -152,7 +393,6 @@ def _run(args: argparse.Namespace) -> str:
             fps=args.fps,
             origin=args.origin,
             axis=args.axis,
-            min_confidence=args.min_confidence,
             states=args.states,
             method=args.method,
             seed=args.seed,
@@ -161,6 +401,10 @@ def _run(args: argparse.Namespace) -> str:
             scheduler=args.scheduler,
             force=args.force,
             fit_frames=args.fit_frames,
+            format=args.format,
+            reader_options=_reader_options(args),
+            cleaning=_cleaning(args),
+            replace_curation=args.replace_curation,
         )
         return ws.describe()
     if args.command == "label":
@@ -174,6 +418,8 @@ def _run(args: argparse.Namespace) -> str:
             jobs=args.jobs,
             scheduler=args.scheduler,
             force=args.force,
+            format=args.format,
+            reader_options=_reader_options(args),
         )
         return ws.describe()
     if args.command == "compare":
@@ -197,16 +443,67 @@ def _run(args: argparse.Namespace) -> str:
     raise AssertionError(args.command)
 
 
+# Python argument names in library messages, and the command-line options that set them.
+_OPTIONS = {
+    "fps": "--fps", "jobs": "--jobs", "format": "--format", "pattern": "--pattern",
+    "frame_column": "--frame-column", "time_column": "--time-column",
+    "time_unit": "--time-unit", "columns": "--columns", "pose_estimation": "--containers",
+    "min_confidence": "--min-confidence", "max_gap_s": "--max-gap-s",
+    "max_speed": "--max-speed", "swap_pairs": "--swap-pairs", "smooth": "--smooth",
+    "smooth_window_s": "--smooth-window-s", "smooth_order": "--smooth-order",
+    "px_per_unit": "--px-per-unit", "unit": "--unit", "target_fps": "--target-fps",
+    "fit_frames": "--fit-frames", "states": "--states", "n_states": "--states",
+    "seed": "--seed", "random_state": "--seed", "method": "--method", "origin": "--origin",
+    "axis": "--axis", "replace_curation": "--replace-curation", "force": "--force",
+    "scheduler": "--scheduler", "manifest": "--manifest", "out": "--out",
+}  # fmt: skip
+_ASSIGNMENT = re.compile(r"\b(" + "|".join(_OPTIONS) + r")=(True|\.\.\.|[^\s,;)]+)?")
+_NESTED = re.compile(r"\bcleaning=\{'(\w+)': ([^}]*)\}")
+_COMPARED = re.compile(r"\b(" + "|".join(_OPTIONS) + r")(?= *(?:>=|<=|must|takes))")
+
+
+def command_line_message(message: str) -> str:
+    """A library message with Python argument names replaced by the command-line options
+    (``fps=...`` -> ``--fps ...``, ``cleaning={'target_fps': ...}`` -> ``--target-fps ...``).
+
+    Examples
+    --------
+    >>> command_line_message("pass fps=... (frames per second)")
+    'pass --fps ... (frames per second)'
+    """
+
+    def flag(name: str, value: str | None) -> str:
+        option = _OPTIONS.get(name, "--" + name.replace("_", "-"))
+        return option if value in (None, "", "True") else f"{option} {value}"
+
+    message = _NESTED.sub(lambda m: flag(m.group(1), m.group(2)), message)
+    message = _ASSIGNMENT.sub(lambda m: flag(m.group(1), m.group(2)), message)
+    return _COMPARED.sub(lambda m: _OPTIONS[m.group(1)], message)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``ethoscribe`` command; returns the exit code."""
     args = build_parser().parse_args(argv)
+    where = f"ethoscribe {args.command}"
+
+    def show(message: Any, category: Any, *_: Any, **__: Any) -> None:
+        text = command_line_message(str(message))
+        print(f"{where}: warning: {text}", file=sys.stderr)
+
     try:
-        message = _run(args)
+        with warnings.catch_warnings():
+            warnings.showwarning = show
+            message = _run(args)
     except EthoscribeError as exc:
-        print(f"ethoscribe {args.command}: error: {exc}", file=sys.stderr)
+        print(f"{where}: error: {command_line_message(str(exc))}", file=sys.stderr)
+        return 2
+    except OSError as exc:  # a full disk, a read-only folder, --out naming a file ...
+        what = exc.strerror or type(exc).__name__
+        name = f" {exc.filename}" if exc.filename else ""
+        print(f"{where}: error: cannot write or read{name}: {what}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        print(f"ethoscribe {args.command}: interrupted; finished outputs are kept", file=sys.stderr)
+        print(f"{where}: interrupted; finished outputs are kept", file=sys.stderr)
         return 130
     print(message)
     return 0

@@ -263,3 +263,52 @@ def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
                 f"session '{s.session}' is {s.n_dims}-D but session '{ref.session}' is "
                 f"{ref.n_dims}-D; a study must not mix 2-D and 3-D tracks"
             )
+
+
+# A side token: "left"/"right" or a lone "l"/"r", bounded by the name's start or end, a separator
+# or a change of case ("fore_l", "L_ear", "earL", "leftEar", "left-ear").
+_SIDE_TOKEN = re.compile(
+    r"(?:(?:^|(?<=[_\-.\s0-9]))(left|right|Left|Right|LEFT|RIGHT|l|r|L|R)"
+    r"|(?<=[a-z0-9])(Left|Right|LEFT|RIGHT|L|R))"
+    r"(?=$|[_\-.\s0-9]|[A-Z])"
+)
+_MIRROR = {
+    "left": "right", "right": "left", "Left": "Right", "Right": "Left",
+    "LEFT": "RIGHT", "RIGHT": "LEFT", "l": "r", "r": "l", "L": "R", "R": "L",
+}  # fmt: skip
+
+
+def propose_swap_pairs(keypoints: Sequence[str]) -> tuple[tuple[str, str], ...]:
+    """Left/right keypoint pairs read from the names (``left_ear``/``right_ear``, ``fore_l``/
+    ``fore_r``, ``L_ear``/``R_ear``, ``earL``/``earR``, ``leftEar``/``rightEar``).
+
+    A name is paired when exactly one of its words is a side word (``left``, ``right``, or a lone
+    ``l``/``r``/``L``/``R`` set off by a separator or a change of case) and the name with that
+    word mirrored is also a keypoint. Pairs come left side first, in keypoint order.
+
+    Examples
+    --------
+    >>> propose_swap_pairs(["nose", "left_ear", "right_ear", "fore_l", "fore_r", "tail"])
+    (('left_ear', 'right_ear'), ('fore_l', 'fore_r'))
+    >>> propose_swap_pairs(["lip", "rump", "tail_base"])
+    ()
+    """
+    names = [str(k) for k in keypoints]
+    present = set(names)
+    pairs: list[tuple[str, str]] = []
+    used: set[str] = set()
+    for name in names:
+        hits = list(_SIDE_TOKEN.finditer(name))
+        if len(hits) != 1 or name in used:
+            continue
+        m = hits[0]
+        word = m.group(1) or m.group(2)
+        mirror = name[: m.start()] + _MIRROR[word] + name[m.end() :]
+        if mirror == name or mirror not in present or mirror in used:
+            continue
+        if len(list(_SIDE_TOKEN.finditer(mirror))) != 1:
+            continue
+        left_first = word.lower() in ("left", "l")
+        pairs.append((name, mirror) if left_first else (mirror, name))
+        used.update((name, mirror))
+    return tuple(pairs)

@@ -10,6 +10,7 @@ import numpy as np
 
 from ethoscribe.clean import _kernels as kern
 from ethoscribe.errors import InputError
+from ethoscribe.pose import propose_swap_pairs
 
 MM_PER_UNIT = {"mm": 1.0, "cm": 10.0, "m": 1000.0}
 SMOOTHERS = ("savgol", "median")
@@ -47,8 +48,11 @@ class CleanParams:
         ``QualityReport.params["max_speed"]``.
     max_gap_s : float
         Gaps of at most this many seconds are filled (0: none); longer gaps stay NaN.
-    swap_pairs : sequence of (str, str)
-        Left/right keypoint names whose labels the tracker may exchange.
+    swap_pairs : sequence of (str, str) or "auto"
+        Left/right keypoint names whose labels the tracker may exchange. ``"auto"``: the pairs
+        :func:`~ethoscribe.pose.propose_swap_pairs` reads from the keypoint names (``left_ear``/
+        ``right_ear``, ``fore_l``/``fore_r`` ...); the pairs used are in
+        ``QualityReport.params["swap_pairs_used"]``.
     smooth : "savgol", "median" or None
         Savitzky-Golay polynomial smoothing or running median.
     smooth_window_s, smooth_order : float, int
@@ -69,7 +73,7 @@ class CleanParams:
     min_confidence: float | None = 0.5
     max_speed: float | str | None = "auto"
     max_gap_s: float = 0.5
-    swap_pairs: Sequence[tuple[str, str]] = ()
+    swap_pairs: Sequence[tuple[str, str]] | str = ()
     smooth: str | None = "savgol"
     smooth_window_s: float = 0.2
     smooth_order: int = 2
@@ -108,7 +112,8 @@ class CleanParams:
     def to_dict(self) -> dict[str, Any]:
         """JSON-able dict (swap pairs as lists)."""
         d = asdict(self)
-        d["swap_pairs"] = [list(p) for p in self.swap_pairs]
+        if not isinstance(self.swap_pairs, str):
+            d["swap_pairs"] = [list(p) for p in self.swap_pairs]
         return d
 
     @classmethod
@@ -121,7 +126,14 @@ class CleanParams:
         return cls(**d)
 
 
-def _check_pairs(pairs: Any) -> tuple[tuple[str, str], ...]:
+def _check_pairs(pairs: Any) -> tuple[tuple[str, str], ...] | str:
+    if isinstance(pairs, str) and pairs == "auto":
+        return "auto"
+    if isinstance(pairs, str):
+        raise InputError(
+            f"swap_pairs must be 'auto' or pairs of keypoint names, e.g. "
+            f"[('left_ear', 'right_ear')]; got {pairs!r}"
+        )
     out = []
     for pair in pairs or ():
         if isinstance(pair, str) or len(pair) != 2 or pair[0] == pair[1]:
@@ -137,9 +149,15 @@ def _check_pairs(pairs: Any) -> tuple[tuple[str, str], ...]:
     return tuple(out)
 
 
+def resolve_swap_pairs(swap_pairs: Any, keypoints: Sequence[str]) -> tuple[tuple[str, str], ...]:
+    """The pairs ``swap_pairs`` stands for among ``keypoints`` ("auto": read from the names)."""
+    pairs = _check_pairs(swap_pairs)
+    return propose_swap_pairs(keypoints) if isinstance(pairs, str) else pairs
+
+
 def _pair_index(keypoints: Sequence[str], swap_pairs: Any) -> np.ndarray:
     """(P, 2) int64 indices of declared pairs; a clear error names unknown keypoints."""
-    pairs, kps = _check_pairs(swap_pairs), list(keypoints)
+    pairs, kps = resolve_swap_pairs(swap_pairs, keypoints), list(keypoints)
     unknown = [n for p in pairs for n in p if n not in kps]
     if unknown:
         raise InputError(f"swap_pairs name unknown keypoints {unknown}; known keypoints: {kps}")

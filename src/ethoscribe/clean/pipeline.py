@@ -19,6 +19,7 @@ from ethoscribe.clean.params import (
     _gap_frames,
     _pair_index,
     _window_frames,
+    resolve_swap_pairs,
 )
 from ethoscribe.clean.report import QualityReport, _report
 from ethoscribe.clean.steps import (
@@ -93,7 +94,8 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
             "causal cleaning cannot resample (it needs future frames); set "
             "target_fps=None and resample afterwards"
         )
-    pairs = _pair_index(cal.keypoints, p.swap_pairs)
+    pair_names = resolve_swap_pairs(p.swap_pairs, cal.keypoints)
+    pairs = _pair_index(cal.keypoints, pair_names)
     width = _window_frames(p.smooth, p.smooth_window_s, p.smooth_order, fps) if p.smooth else 0
     max_gap = _gap_frames(p.max_gap_s, fps)
     x, conf = _coords(cal.coords), np.array(cal.confidence)
@@ -134,6 +136,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         **p.to_dict(),
         "max_speed": max_speed,
         "max_speed_rule": rule,
+        "swap_pairs_used": [list(q) for q in pair_names],
         "causal": causal,
         "smooth_window_frames": width,
         "max_gap_frames": max_gap,
@@ -148,7 +151,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "frac_jumps": jumps,
         "frac_filled": filled,
     }
-    return out, _report(cal, out, masks, swapped, p.swap_pairs, resolved)
+    return out, _report(cal, out, masks, swapped, pair_names, resolved)
 
 
 class StreamingCleaner:

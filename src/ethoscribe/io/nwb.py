@@ -60,7 +60,7 @@ def read_nwb(
         The ``.nwb`` file.
     pose_estimation : str, list of str or "all", optional
         Which ``PoseEstimation`` container(s) to read; each becomes one animal (sorted by name).
-        Needed only when the file holds several.
+        Default: all of them (as ``write_nwb`` writes one container per animal).
     fps : float, optional
         Overrides the rate stored in the file (or estimated from its time stamps).
     session : str, optional
@@ -114,12 +114,7 @@ def _choose(path: Path, found: list[Any], wanted: str | Sequence[str] | None) ->
     if not by_name:
         raise InputError(f"{path}: holds no PoseEstimation container (ndx-pose); no pose tracks")
     if wanted is None:
-        if len(by_name) > 1:
-            raise InputError(
-                f"{path}: holds several PoseEstimation containers {list(by_name)}; pass "
-                "pose_estimation='name' for one, or a list (or 'all') to read them as animals"
-            )
-        return list(by_name.values())
+        return list(by_name.values())  # every container, one animal each (sorted by name)
     names = list(by_name) if wanted == "all" else [wanted] if isinstance(wanted, str) else wanted
     missing = [n for n in names if n not in by_name]
     if missing or not names:

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import importlib
+import importlib.util
 import inspect
 import os
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -20,14 +22,48 @@ from ethoscribe.pose import PoseTracks, check_same_body_plan
 Reader = Callable[..., PoseTracks]
 
 
+ENTRY_POINT_GROUP = "ethoscribe.readers"
+
+
 @dataclass(frozen=True)
 class _Entry:
     func: Reader
     suffixes: tuple[str, ...]
+    origin: str = "run time"  # "built in", "entry point" or "run time"
 
 
 _READERS: dict[str, _Entry] = {}
 _BY_SUFFIX: dict[str, str] = {}
+_ENTRY_POINTS_LOADED = False
+
+
+def _load_entry_points() -> None:
+    """Register the readers other packages declare in the ``ethoscribe.readers`` group.
+
+    An entry point ``name = "package.module:reader"`` makes format ``name`` available in every
+    process, worker processes included. The reader may carry a ``suffixes`` attribute (e.g.
+    ``(".trk",)``); it is never the default for a suffix (choose it with ``format=name``).
+    """
+    global _ENTRY_POINTS_LOADED
+    if _ENTRY_POINTS_LOADED:
+        return
+    _ENTRY_POINTS_LOADED = True
+    from importlib.metadata import entry_points
+
+    for ep in entry_points(group=ENTRY_POINT_GROUP):
+        if ep.name in _READERS:
+            continue
+        try:
+            func = ep.load()
+        except Exception as exc:  # a broken plug-in must not break the built-in readers
+            msg = f"reader {ep.name!r} of entry point {ep.value!r} cannot be loaded ({exc})"
+            _BROKEN[ep.name] = msg
+            continue
+        suffixes = tuple(getattr(func, "suffixes", ()))
+        _register(ep.name, suffixes, func, False, "entry point")
+
+
+_BROKEN: dict[str, str] = {}
 
 
 def _suffix(s: str) -> str:
@@ -56,26 +92,124 @@ def register_reader(
     --------
     >>> register_reader("tidy", [".csv", ".parquet", ".pq"], read_tidy)
     """
-    if not name or not callable(func):
+    _register(name, suffixes, func, default_for_suffixes, "run time")
+
+
+def _register(name: str, suffixes: Sequence[str], func: Reader, default: bool, origin: str) -> None:
+    if not isinstance(name, str) or not name or not callable(func):
         raise InputError(f"register_reader needs a format name and a callable; got {name!r}")
-    entry = _Entry(func, tuple(_suffix(s) for s in suffixes))
+    if isinstance(suffixes, str):
+        suffixes = [suffixes]
+    entry = _Entry(func, tuple(_suffix(s) for s in suffixes), origin)
     _READERS[name] = entry
-    if default_for_suffixes:
+    if default:
         _BY_SUFFIX.update(dict.fromkeys(entry.suffixes, name))
 
 
 def available_formats() -> dict[str, tuple[str, ...]]:
-    """Format names and the suffixes each reads, e.g. ``{"tidy": (".csv", ...), ...}``."""
+    """Format names and the suffixes each reads, e.g. ``{"tidy": (".csv", ...), ...}``.
+
+    Includes readers of installed packages that declare the ``ethoscribe.readers`` entry point.
+    """
+    _load_entry_points()
     return {name: e.suffixes for name, e in _READERS.items()}
+
+
+def _known(format: str, where: Any) -> str:
+    if format not in _READERS:
+        _load_entry_points()
+    if format not in _READERS:
+        broken = f" ({_BROKEN[format]})" if format in _BROKEN else ""
+        raise InputError(
+            f"unknown format {format!r} for {where}{broken}; known formats: {sorted(_READERS)}"
+        )
+    return format
+
+
+def format_for(path: str | os.PathLike[str], format: str | None = None) -> str:
+    """The format name that reads ``path``: ``format`` if given (checked), else by suffix."""
+    return _format_for(Path(path), format)
+
+
+def reader_function(format: str) -> Reader:
+    """The reader registered for ``format``."""
+    return _READERS[_known(format, "reader")].func
+
+
+def reader_options(format: str) -> list[str]:
+    """Option names the reader of ``format`` takes (``None`` of them: it takes ``**options``)."""
+    params = inspect.signature(_READERS[_known(format, "reader options")].func).parameters
+    return [p for i, p in enumerate(params) if i > 0]
+
+
+def check_reader_options(format: str, options: Mapping[str, Any], where: Any = "") -> None:
+    """Refuse options the reader of ``format`` does not take, before reading any file."""
+    func = _READERS[_known(format, where or "reader options")].func
+    params = inspect.signature(func).parameters
+    if any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params.values()):
+        return
+    unknown = sorted(set(options) - set(params))
+    if unknown:
+        known = [p for i, p in enumerate(params) if i > 0]
+        at = f"{where}: " if where else ""
+        raise InputError(
+            f"{at}the {format} reader has no option(s) {unknown}; its options are {known}"
+        )
+
+
+def reader_reference(format: str) -> dict[str, Any]:
+    """How a worker process finds the reader of ``format``: its name, origin and import path.
+
+    Built-in readers and entry-point readers are found by name in every process. A reader
+    registered at run time travels as ``module:qualname`` when that can be imported in a fresh
+    process; otherwise ``importable`` is False and parallel runs must refuse it.
+    """
+    entry = _READERS[_known(format, "reader")]
+    module = getattr(entry.func, "__module__", None)
+    qualname = getattr(entry.func, "__qualname__", "")
+    importable = entry.origin != "run time" or (
+        bool(module) and module != "__main__" and "<" not in qualname and _imports(module)
+    )
+    return {
+        "format": format,
+        "origin": entry.origin,
+        "target": f"{module}:{qualname}" if module else None,
+        "suffixes": list(entry.suffixes),
+        "importable": importable,
+    }
+
+
+def _imports(module: str) -> bool:
+    spec = importlib.util.find_spec(module) if module else None
+    return spec is not None and spec.origin not in (None, "built-in")
+
+
+def use_reader(reference: Mapping[str, Any]) -> None:
+    """Make the reader of :func:`reader_reference` available in this (worker) process."""
+    name = reference["format"]
+    if name in _READERS:
+        return
+    _load_entry_points()
+    if name in _READERS:
+        return
+    target = reference.get("target")
+    if reference.get("importable") and target:
+        module, _, qualname = target.partition(":")
+        obj: Any = importlib.import_module(module)
+        for part in qualname.split("."):
+            obj = getattr(obj, part)
+        _register(name, reference.get("suffixes", ()), obj, False, "run time")
+        return
+    raise InputError(
+        f"the reader {name!r} was registered at run time in another process and cannot be found "
+        "here; run with jobs=1, define the reader in an importable module, or declare "
+        f"it in the {ENTRY_POINT_GROUP!r} entry-point group of a package"
+    )
 
 
 def _format_for(path: Path, format: str | None) -> str:
     if format is not None:
-        if format not in _READERS:
-            raise InputError(
-                f"unknown format {format!r} for {path}; known formats: {sorted(_READERS)}"
-            )
-        return format
+        return _known(format, path)
     name = _BY_SUFFIX.get(path.suffix.lower())
     if name is None:
         raise InputError(
@@ -103,16 +237,8 @@ def read_pose(
     if path.is_dir():
         raise InputError(f"{path}: is a folder; use read_folder() to read every file in it")
     name = _format_for(path, format)
-    func = _READERS[name].func
-    params = inspect.signature(func).parameters
-    takes_any = any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params.values())
-    unknown = sorted(set(options) - set(params)) if not takes_any else []
-    if unknown:
-        known = [p for p in params if p != next(iter(params))]
-        raise InputError(
-            f"{path}: the {name} reader has no option(s) {unknown}; its options are {known}"
-        )
-    return func(path, **options)
+    check_reader_options(name, options, path)
+    return _READERS[name].func(path, **options)
 
 
 def pose_files(
@@ -196,6 +322,6 @@ def read_folder(
     return sessions
 
 
-register_reader("tidy", [".csv", ".parquet", ".pq"], read_tidy)
-register_reader("wide", [".csv", ".parquet", ".pq"], read_wide, default_for_suffixes=False)
-register_reader("nwb", [".nwb"], read_nwb)
+_register("tidy", [".csv", ".parquet", ".pq"], read_tidy, True, "built in")
+_register("wide", [".csv", ".parquet", ".pq"], read_wide, False, "built in")
+_register("nwb", [".nwb"], read_nwb, True, "built in")

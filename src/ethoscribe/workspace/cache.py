@@ -41,6 +41,7 @@ from ethoscribe.workspace.reading import read_planned, session_row
 CACHE_FOLDER = Path("cache") / "cleaned"
 MODELS_FOLDER = Path("cache") / "models"
 LABELLED_FOLDER = Path("cache") / "labelled"
+CLEANING_USED = "cleaning_used"  # key of the resolved cleaning values in a cache row file
 
 
 def file_digest(path: str | Path) -> str:
@@ -53,9 +54,18 @@ def file_digest(path: str | Path) -> str:
 
 
 def cache_key(entry: dict[str, Any], cleaning: dict[str, Any]) -> str:
-    """Key of one session's cleaned tracks: input bytes + reading + cleaning + version."""
+    """Key of one session's cleaned tracks: input bytes + reading + cleaning + version.
+
+    Reading covers the session name (two names that make one cache file name, ``x y`` and
+    ``x_y``, get two keys), the reader, its options, fps and calibration.
+    """
+    reader = entry.get("reader") or {}
     recipe = {
         "file": file_digest(entry["path"]),
+        "session": entry["session"],
+        "format": entry.get("format"),
+        "reader": reader.get("target"),
+        "options": entry.get("options", {}),
         "fps": entry["fps"],
         "px_per_unit": entry["px_per_unit"],
         "units": entry["units"],
@@ -101,8 +111,10 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
             session=np.array(cleaned.session),
             meta=np.array(json.dumps(jsonable(dict(cleaned.meta)), default=str)),
         )
-    # Written last: its presence says the session's cache entry is complete.
-    atomic_write_json(info["row"], jsonable(session_row(entry, tracks)))
+    # Written last: its presence says the session's cache entry is complete. It carries the
+    # cleaning values resolved for this session (automatic swap pairs, speed bound ...).
+    row = {**session_row(entry, tracks), CLEANING_USED: report.params}
+    atomic_write_json(info["row"], jsonable(row))
     return {**info, "reused": False}
 
 
@@ -124,7 +136,10 @@ def load_prepared(info: dict[str, Any]) -> tuple[PoseTracks, pd.DataFrame, dict[
     except (KeyError, TypeError, ValueError) as exc:
         msg = f"{info['tracks']}: a damaged cache entry ({exc}); rerun with --force"
         raise WorkspaceError(msg) from None
-    return tracks, pd.read_parquet(info["quality"]), read_json(info["row"])
+    row = read_json(info["row"])
+    if isinstance(row, dict):
+        row.pop(CLEANING_USED, None)
+    return tracks, pd.read_parquet(info["quality"]), row
 
 
 def cache_model(model: BehaviourModel, root: str | Path) -> tuple[str, str]:

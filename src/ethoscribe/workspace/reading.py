@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+import inspect
+import os
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -10,69 +12,161 @@ import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
 
-from ethoscribe.clean import calibrate
+from ethoscribe.clean import CleanParams, calibrate
 from ethoscribe.errors import InputError
-from ethoscribe.io import pose_files, read_manifest, read_pose
+from ethoscribe.io import pose_files, read_manifest, read_pose, validate_manifest
+from ethoscribe.io.registry import (
+    check_reader_options,
+    format_for,
+    reader_function,
+    reader_reference,
+    use_reader,
+)
+from ethoscribe.io.registry import (
+    reader_options as options_of,
+)
 from ethoscribe.pose import PoseTracks, check_same_body_plan
 
 
+def as_path(value: Any, argument: str) -> Path:
+    """``value`` as a path; a clear ``TypeError`` naming ``argument`` for anything else."""
+    if isinstance(value, (str, os.PathLike)) and str(value) != "":
+        return Path(value).expanduser()
+    what = "an empty string" if isinstance(value, str) else type(value).__name__
+    raise TypeError(f"{argument} must be a path (str or pathlib.Path); got {what}")
+
+
+def as_paths(values: Any, argument: str) -> list[Path]:
+    """One path or a sequence of paths as a list; a plain string is one path, not its letters."""
+    if values is None:
+        return []
+    if isinstance(values, (str, os.PathLike)):
+        return [as_path(values, argument)]
+    if isinstance(values, pd.DataFrame) or not isinstance(values, Sequence):
+        raise TypeError(
+            f"{argument} must be a path or a list of paths (files or folders); "
+            f"got {type(values).__name__}"
+        )
+    return [as_path(v, f"{argument}[{i}]") for i, v in enumerate(values)]
+
+
+def _manifest_table(manifest: Any, require_paths: bool) -> pd.DataFrame:
+    if isinstance(manifest, pd.DataFrame):
+        base = manifest.attrs.get("base_folder", Path.cwd())
+        source = manifest.attrs.get("manifest", "manifest table")
+        return validate_manifest(manifest, base, source, require_paths=require_paths)
+    return read_manifest(as_path(manifest, "manifest"), require_paths=require_paths)
+
+
 def plan_sessions(
-    inputs: Sequence[str | Path],
-    manifest: str | Path | None = None,
+    inputs: Sequence[str | Path] | str | Path | None,
+    manifest: str | Path | pd.DataFrame | None = None,
     fps: float | None = None,
+    format: str | None = None,
+    reader_options: Mapping[str, Any] | None = None,
 ) -> list[dict[str, Any]]:
-    """What to read for each session, without reading it: path, name, fps, calibration, metadata.
+    """What to read for each session, without reading it: path, name, reader, fps, calibration.
 
     Sessions come from ``inputs`` (files or folders) or, when there are none, from the manifest's
-    paths; the manifest gives per-session fps, calibration and columns such as group or subject.
+    paths; the manifest (a CSV or a table) gives per-session fps, calibration and columns such
+    as group or subject. A file's manifest row is the one whose ``path`` is that file (rows
+    without a path are matched by file name without suffix); the row's ``session`` names it.
+    ``format`` picks the reader (default: by suffix) and ``reader_options`` go to it.
     """
-    table = read_manifest(manifest, require_paths=not inputs) if manifest is not None else None
-    if inputs:
+    paths = as_paths(inputs, "inputs")
+    options = dict(reader_options or {})
+    for reserved in ("fps", "session"):
+        if reserved in options:
+            raise InputError(
+                f"reader option {reserved!r} is set per session; give it as --{reserved} "
+                f"({reserved}=...) or in the manifest instead"
+            )
+    table = _manifest_table(manifest, require_paths=not paths) if manifest is not None else None
+    source = "" if table is None else table.attrs.get("manifest", "manifest")
+    if paths:
         # A manifest kept beside the pose files is not a session.
-        skip = {Path(manifest).resolve()} if manifest is not None else set()
-        files = [f for f in pose_files(list(inputs)) if Path(f).resolve() not in skip]
+        skip = {Path(manifest).resolve()} if isinstance(manifest, (str, os.PathLike)) else set()
+        files = [f for f in pose_files(paths, format) if Path(f).resolve() not in skip]
     elif table is not None:
         files = [Path(p) for p in table["path"]]
     else:
         raise InputError(
             "no pose files given: name files or folders, or a manifest with a path column"
         )
-    rows = {} if table is None else {str(r["session"]): r for _, r in table.iterrows()}
+    rows = [] if table is None else [r for _, r in table.iterrows()]
+    matched = _manifest_rows(files, rows)
     plan = []
-    for path in files:
-        name = Path(path).stem
-        row = rows.get(name)
-        if table is not None and row is None and inputs:
+    for path, row in zip(files, matched, strict=True):
+        resolved = str(Path(path).resolve())
+        if table is not None and row is None and paths:
             raise InputError(
-                f"{path}: session '{name}' is not in the manifest {manifest}; add a row for it "
-                "(the session column must equal the file name without its suffix)"
+                f"{path}: this file is not in the manifest {source}; add a row whose path is "
+                "this file (its session column then names the session)"
             )
+        name = Path(path).stem if row is None else str(row["session"])
         extra = (
             {}
             if row is None
             else {k: v for k, v in row.items() if k not in ("session", "path") and _filled(v)}
         )
         px = _row_value(row, "px_per_unit", None)
+        fmt = format_for(path, format)
+        file_options = dict(options)
+        units = _row_value(row, "units", None)
+        takes_units = _takes_any(fmt) or "units" in options_of(fmt)
+        if units is not None and px is None and units != "px" and takes_units:
+            file_options["units"] = str(units)  # the file is already in these units
+        check_reader_options(fmt, file_options, path)
         plan.append(
             {
-                "path": str(Path(path).resolve()),
+                "path": resolved,
                 "session": name,
                 "fps": _row_value(row, "fps", fps),
                 "px_per_unit": None if px is None else float(px),
-                "units": str(_row_value(row, "units", "mm")),
+                "units": str(units or "mm"),
                 "meta": extra,
+                "format": fmt,
+                "options": file_options,
+                "reader": reader_reference(fmt),
             }
         )
     names = [e["session"] for e in plan]
     dup = sorted({n for n in names if names.count(n) > 1})
     if dup:
-        raise InputError(f"several files give the same session name {dup}; rename the files")
+        raise InputError(
+            f"several files give the same session name {dup}; rename the files or name them "
+            "apart in a manifest (its session column)"
+        )
     return plan
+
+
+def _manifest_rows(files: Sequence[Path], rows: list[Any]) -> list[Any]:
+    """The manifest row of each file: the row whose path is the file, else (for rows no file
+    claims by path) the row whose session is the file name without its suffix."""
+    by_path = {str(Path(r["path"]).resolve()): i for i, r in enumerate(rows) if r["path"]}
+    found = [by_path.get(str(Path(f).resolve())) for f in files]
+    claimed = {i for i in found if i is not None}
+    by_name = {str(r["session"]): i for i, r in enumerate(rows) if i not in claimed}
+    found = [
+        by_name.get(Path(f).stem) if i is None else i for f, i in zip(files, found, strict=True)
+    ]
+    return [None if i is None else rows[i] for i in found]
 
 
 def read_planned(entry: dict[str, Any]) -> PoseTracks:
     """Read one session of :func:`plan_sessions`, calibrated, with its manifest metadata."""
-    tracks = read_pose(entry["path"], fps=entry["fps"], session=entry["session"])
+    if "reader" in entry:
+        use_reader(entry["reader"])
+    fmt = entry.get("format")
+    options = dict(entry.get("options", {}))
+    accepted = options_of(fmt) if fmt is not None else ["fps", "session"]
+    takes_any = fmt is not None and _takes_any(fmt)
+    for key in ("fps", "session"):
+        if takes_any or key in accepted:
+            options[key] = entry[key]
+    tracks = read_pose(entry["path"], format=fmt, **options)
+    if tracks.session != entry["session"]:
+        tracks = tracks.replace(session=entry["session"])
     if entry["px_per_unit"] is not None:
         tracks = calibrate(tracks, entry["px_per_unit"], entry["units"])
     return tracks.replace(meta=entry["meta"])
@@ -100,17 +194,19 @@ def sessions_table(rows: Sequence[dict[str, Any]]) -> pd.DataFrame:
 
 
 def read_sessions(
-    inputs: Sequence[str | Path],
-    manifest: str | Path | None = None,
+    inputs: Sequence[str | Path] | str | Path | None,
+    manifest: str | Path | pd.DataFrame | None = None,
     fps: float | None = None,
     progress: bool = True,
+    format: str | None = None,
+    reader_options: Mapping[str, Any] | None = None,
 ) -> tuple[list[PoseTracks], pd.DataFrame]:
     """Read pose files (or the manifest's paths) with per-session fps and calibration.
 
     Returns the tracks and a sessions table (one row per session: ``session, source, fps,
     n_frames, duration_s, n_animals, units`` and every manifest column).
     """
-    plan = plan_sessions(inputs, manifest, fps)
+    plan = plan_sessions(inputs, manifest, fps, format, reader_options)
     sessions = [
         read_planned(e) for e in tqdm(plan, desc="reading", unit="session", disable=not progress)
     ]
@@ -128,3 +224,75 @@ def _row_value(row: Any, column: str, default: Any) -> Any:
     if row is None or column not in row.index or not _filled(row[column]):
         return default
     return row[column]
+
+
+def _takes_any(fmt: str) -> bool:
+    params = inspect.signature(reader_function(fmt)).parameters.values()
+    return any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params)
+
+
+def check_readers_portable(plan: Sequence[dict[str, Any]]) -> None:
+    """Refuse, before any work, a reader that worker processes could not find."""
+    for entry in plan:
+        ref = entry.get("reader") or {}
+        if ref and not ref.get("importable", True):
+            raise InputError(
+                f"the reader {ref['format']!r} was registered at run time from code that worker "
+                f"processes cannot import ({ref.get('target')}); run with jobs=1, "
+                "move the reader into an importable module, or declare it in the "
+                "'ethoscribe.readers' entry-point group of a package"
+            )
+
+
+def discovery_cleaning(
+    cleaning: CleanParams | Mapping[str, Any] | None, min_confidence: float | None = None
+) -> CleanParams:
+    """The cleaning settings of a batch run: ``cleaning`` over the defaults, swap pairs "auto"
+    unless given, ``min_confidence`` (when not None) over both."""
+    if isinstance(cleaning, CleanParams):
+        params = cleaning.to_dict()
+    elif cleaning is None or isinstance(cleaning, Mapping):
+        params = {"swap_pairs": "auto", **dict(cleaning or {})}
+    else:
+        raise TypeError(
+            f"cleaning must be a CleanParams, a dict of its fields or None; got "
+            f"{type(cleaning).__name__}"
+        )
+    if min_confidence is not None:
+        params["min_confidence"] = min_confidence
+    return CleanParams.from_dict(params)
+
+
+def cleaning_summary(
+    settings: Mapping[str, Any], used: Sequence[Any], table: pd.DataFrame
+) -> dict[str, Any]:
+    """The cleaning settings asked for and the values used (one value when every session used
+    the same, else one per session), for ``summary.json``."""
+    per_session = [u for u in used if isinstance(u, dict)]
+    sessions = [str(s) for s in table["session"]]
+    values: dict[str, Any] = {}
+    for key in dict.fromkeys(k for u in per_session for k in u):
+        seen = [u.get(key) for u in per_session]
+        if all(v == seen[0] for v in seen):
+            values[key] = seen[0]
+        else:
+            values[key] = dict(zip(sessions, seen, strict=False))
+    pairs = values.get("swap_pairs_used")
+    return {
+        "settings": dict(settings),
+        "used": values,
+        "swap_pairs_used": pairs,
+        "swap_pairs_source": "automatic (from keypoint names)"
+        if settings.get("swap_pairs") == "auto"
+        else "given",
+    }
+
+
+def reading_summary(plan: Sequence[dict[str, Any]]) -> dict[str, Any]:
+    """Reader and reader options of a run, for ``summary.json``."""
+    formats = sorted({str(e.get("format")) for e in plan})
+    options = [e.get("options", {}) for e in plan]
+    return {
+        "formats": formats,
+        "options": options[0] if all(o == options[0] for o in options) else options,
+    }

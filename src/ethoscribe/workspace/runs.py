@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import shutil
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -25,13 +25,14 @@ from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
 from ethoscribe.segment.stability import stability_report
 from ethoscribe.workspace.cache import (
     CACHE_FOLDER,
+    CLEANING_USED,
     cache_model,
     decode_session,
     load_prepared,
     prepare_session,
 )
 from ethoscribe.workspace.compare import write_ethogram_report
-from ethoscribe.workspace.executor import connect, map_sessions
+from ethoscribe.workspace.executor import connect, default_jobs, map_sessions
 from ethoscribe.workspace.files import load_features, load_model
 from ethoscribe.workspace.folder import (
     CAUTION,
@@ -48,7 +49,15 @@ from ethoscribe.workspace.folder import (
     versions,
     write_ethogram_tables,
 )
-from ethoscribe.workspace.reading import plan_sessions, sessions_table
+from ethoscribe.workspace.reading import (
+    as_path,
+    check_readers_portable,
+    cleaning_summary,
+    discovery_cleaning,
+    plan_sessions,
+    reading_summary,
+    sessions_table,
+)
 
 STABILITY_FRAMES = 200_000
 
@@ -71,14 +80,25 @@ def discover(
     force: bool = False,
     replace_curation: bool = False,
     fit_frames: int | None = 1_000_000,
+    format: str | None = None,
+    reader_options: Mapping[str, Any] | None = None,
+    cleaning: CleanParams | Mapping[str, Any] | None = None,
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
     Parameters
     ----------
-    inputs : files or folders of pose files (or none, with a manifest that lists paths)
+    inputs : a file or folder of pose files, a list of them (or none, with a manifest that
+        lists paths)
     out : the workspace folder
-    manifest : CSV with per-session fps, calibration, group, subject ...
+    manifest : CSV (or table) with per-session fps, calibration, group, subject ...
+    min_confidence : shorthand for ``cleaning={"min_confidence": ...}``
+    format : reader name ("tidy", "wide", "nwb" or a registered one; default by suffix)
+    reader_options : options of that reader, e.g. ``{"pattern": "{keypoint}_{axis}"}``
+    cleaning : :class:`~ethoscribe.clean.CleanParams` or a dict of its fields; unset fields
+        take their defaults, except ``swap_pairs``, which defaults to ``"auto"`` (left/right
+        pairs read from the keypoint names; pass ``()`` to switch repair off). Every value used
+        is recorded in ``summary.json`` under ``cleaning``.
     jobs : worker processes for the per-session work (None: every CPU)
     scheduler : a Dask scheduler address or ``dask.distributed.Client`` to run it on
         (the workspace folder must then be on a file system the workers share)
@@ -98,16 +118,16 @@ def discover(
     ``features/``; cleaned sessions are cached in ``cache/``. If the run fails in a folder it
     created, the folder is removed: nothing half-written is left.
     """
-    out = Path(out)
+    out = as_path(out, "out")
     _refuse_to_overwrite_curation(out, replace_curation)
-    plan = plan_sessions(inputs, manifest, fps)
-    cleaning = CleanParams.from_dict(
-        {} if min_confidence is None else {"min_confidence": min_confidence}
-    ).to_dict()
+    plan = plan_sessions(inputs, manifest, fps, format, reader_options)
+    cleaning = discovery_cleaning(cleaning, min_confidence).to_dict()
     created = not out.exists()
     try:
         client = connect(scheduler)
-        prepared, quality, table = _prepare(out, plan, cleaning, jobs, client, force, progress)
+        prepared, quality, table, used = _prepare(
+            out, plan, cleaning, jobs, client, force, progress
+        )
         sample = _training_sample(prepared, table, fit_frames, seed)
         model = BehaviourModel(
             cleaning=cleaning,
@@ -124,6 +144,8 @@ def discover(
         decoded = _decode(out, prepared, model, jobs, client, force, progress)
         summary = _summary(model, table, seed, report)
         summary["fit_frames"] = fit_frames  # the sample's budget; n_training_frames its size
+        summary["cleaning"] = cleaning_summary(cleaning, used, table)
+        summary["reading"] = reading_summary(plan)
         tables = _write_workspace(out, table, model, decoded, quality, report, summary)
     except EthoscribeError:
         # Bad input in a folder this run made: leave nothing behind. (An interrupted run keeps
@@ -144,12 +166,15 @@ def _prepare(
     client: Any,
     force: bool,
     progress: bool,
-) -> tuple[list[dict[str, Any]], list[pd.DataFrame], pd.DataFrame]:
+) -> tuple[list[dict[str, Any]], list[pd.DataFrame], pd.DataFrame, list[Any]]:
     """Read and clean every session (in parallel, through the cache).
 
-    Returns where each cleaned session lies, the quality tables and the sessions table; the
-    tracks themselves stay on disk until a step needs them.
+    Returns where each cleaned session lies, the quality tables, the sessions table and the
+    cleaning values each session used; the tracks stay on disk until a step needs them.
     """
+    parallel = client is not None or ((default_jobs() if jobs is None else jobs) > 1)
+    if parallel and len(plan) > 1:
+        check_readers_portable(plan)
     work = [
         {"entry": e, "cleaning": cleaning, "cache": str(out / CACHE_FOLDER), "force": force}
         for e in plan
@@ -159,7 +184,9 @@ def _prepare(
         desc="reading and cleaning",
     )  # fmt: skip
     quality = [pd.read_parquet(i["quality"]) for i in infos]
-    return infos, quality, sessions_table([read_json(i["row"]) for i in infos])
+    rows = [read_json(i["row"]) for i in infos]
+    used = [r.pop(CLEANING_USED, None) for r in rows]
+    return infos, quality, sessions_table(rows), used
 
 
 def _training_sample(
@@ -229,6 +256,8 @@ def label_sessions(
     jobs: int | None = 1,
     scheduler: Any = None,
     force: bool = False,
+    format: str | None = None,
+    reader_options: Mapping[str, Any] | None = None,
 ) -> Workspace:
     """Label new sessions with the model of workspace ``source`` (same states, same names).
 
@@ -236,25 +265,29 @@ def label_sessions(
     the scientist gave, including merges and splits. Sessions are read, cleaned and labelled
     one by one (in ``jobs`` processes or on a Dask ``scheduler``), through ``out``'s cache.
     """
-    source = Path(source)
+    source = as_path(source, "source")
     if (source / "model").is_dir() and (source / WORKSPACE_FILE).is_file():
         ws = Workspace(source)
         model, journal = ws.model(), ws.journal()
     else:  # a bare model/ folder
         model, journal = load_model(source), []
-    out = Path(out)
+    out = as_path(out, "out")
     if out.resolve() == source.resolve():
         raise WorkspaceError(f"{out}: write the new cohort's labels to a folder of its own")
     _refuse_to_overwrite_curation(out, False)
-    plan = plan_sessions(inputs, manifest, fps)
+    plan = plan_sessions(inputs, manifest, fps, format, reader_options)
     created = not out.exists()
     try:
         client = connect(scheduler)
         cleaning = model.cleaning_.to_dict()
-        prepared, quality, table = _prepare(out, plan, cleaning, jobs, client, force, progress)
+        prepared, quality, table, used = _prepare(
+            out, plan, cleaning, jobs, client, force, progress
+        )
         decoded = _decode(out, prepared, model, jobs, client, force, progress)
         summary = _summary(model, table, model.random_state, None)
         summary["labelled_with"] = str(source)
+        summary["cleaning"] = cleaning_summary(cleaning, used, table)
+        summary["reading"] = reading_summary(plan)
         tables = _write_workspace(out, table, model, decoded, quality, None, summary, journal)
     except EthoscribeError:
         if created:

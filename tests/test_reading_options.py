@@ -1,0 +1,243 @@
+"""Readers and reader options reach batch runs: registry, entry points, workers, cache keys.
+
+Also the cleaning options of a batch run (automatic left/right swap pairs) and the manifest rows
+found by path.
+"""
+
+from __future__ import annotations
+
+import sys
+import textwrap
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from ethoscribe.clean import CleanParams, clean
+from ethoscribe.errors import InputError
+from ethoscribe.io import register_reader, registry, write_tidy
+from ethoscribe.pose import PoseTracks, propose_swap_pairs
+from ethoscribe.workspace.cache import cache_key, prepare_session
+from ethoscribe.workspace.executor import map_sessions
+from ethoscribe.workspace.reading import plan_sessions, read_planned
+
+
+def _tracks(n=40, session="s", keypoints=("nose", "left_ear", "right_ear")) -> PoseTracks:
+    rng = np.random.default_rng(0)  # seed 0
+    coords = np.cumsum(rng.normal(size=(n, 1, len(keypoints), 2)), axis=0)
+    return PoseTracks(coords, keypoints=keypoints, fps=30, session=session)
+
+
+def test_swap_pairs_are_read_from_keypoint_names():
+    names = [
+        "nose",
+        "left_ear",
+        "right_ear",
+        "fore_l",
+        "fore_r",
+        "L_eye",
+        "R_eye",
+        "earL",
+        "earR",
+        "leftPaw",
+        "rightPaw",
+        "Left Hip",
+        "Right Hip",
+        "tail",
+        "lip",
+        "rump",
+    ]
+    assert propose_swap_pairs(names) == (
+        ("left_ear", "right_ear"), ("fore_l", "fore_r"), ("L_eye", "R_eye"), ("earL", "earR"),
+        ("leftPaw", "rightPaw"), ("Left Hip", "Right Hip"),
+    )  # fmt: skip
+    # Words that merely contain l or r, or a side without its mirror, are not paired.
+    assert propose_swap_pairs(["lip", "rump", "ear", "left_only", "tail_base"]) == ()
+    assert propose_swap_pairs(["right_ear", "left_ear"]) == (("left_ear", "right_ear"),)
+
+
+def test_auto_swap_pairs_are_resolved_and_reported_by_clean():
+    t = _tracks()
+    _, report = clean(t, CleanParams(swap_pairs="auto"))
+    assert report.params["swap_pairs"] == "auto"
+    assert report.params["swap_pairs_used"] == [["left_ear", "right_ear"]]
+    assert list(report.swaps_per_pair) == ["left_ear/right_ear"]
+    assert CleanParams.from_dict(CleanParams(swap_pairs="auto").to_dict()).swap_pairs == "auto"
+    with pytest.raises(InputError, match="swap_pairs must be 'auto' or pairs"):
+        CleanParams(swap_pairs="left_ear")
+
+
+def _reader_module(folder: Path) -> None:
+    """A package installed in ``folder`` whose reader is declared as an entry point."""
+    (folder / "plainreader.py").write_text(
+        textwrap.dedent(
+            """
+            import shutil, tempfile
+            from pathlib import Path
+            from ethoscribe.io import read_tidy
+
+            def read_plain(path, fps=None, session=None):
+                copy = Path(tempfile.mkdtemp()) / "copy.parquet"
+                shutil.copyfile(path, copy)
+                return read_tidy(copy, fps=fps, session=session or Path(path).stem)
+
+            read_plain.suffixes = (".plain",)
+            """
+        )
+    )
+    info = folder / "plainreader-1.0.dist-info"
+    info.mkdir()
+    (info / "METADATA").write_text("Metadata-Version: 2.1\nName: plainreader\nVersion: 1.0\n")
+    (info / "entry_points.txt").write_text("[ethoscribe.readers]\nplain = plainreader:read_plain\n")
+
+
+@pytest.fixture()
+def plugin(tmp_path, monkeypatch):
+    site = tmp_path / "site"
+    site.mkdir()
+    _reader_module(site)
+    monkeypatch.syspath_prepend(str(site))
+    monkeypatch.setattr(registry, "_ENTRY_POINTS_LOADED", False)
+    yield
+    registry._READERS.pop("plain", None)
+    sys.modules.pop("plainreader", None)
+
+
+def _files(folder: Path, suffix: str, n: int = 2) -> list[Path]:
+    paths = []
+    for i in range(n):
+        p = folder / f"m{i}.parquet"
+        write_tidy(_tracks(session=f"m{i}"), p)
+        if suffix != ".parquet":
+            p = p.rename(p.with_suffix(suffix))
+        paths.append(p)
+    return paths
+
+
+def test_an_entry_point_reader_is_found_by_spawned_workers(plugin, tmp_path):
+    # The reader file is Parquet under another suffix; only the plug-in knows ".plain".
+    files = _files(tmp_path, ".plain")
+    assert "plain" in registry.available_formats()
+    plan = plan_sessions(files, format="plain")
+    assert plan[0]["reader"]["origin"] == "entry point"
+    cache = tmp_path / "cache"
+    jobs = [{"entry": e, "cleaning": CleanParams().to_dict(), "cache": str(cache)} for e in plan]
+    done = map_sessions(prepare_session, jobs, jobs=2, progress=False)  # spawned workers
+    assert [Path(d["tracks"]).is_file() for d in done] == [True, True]
+
+
+def read_module_level(path, fps=None, session=None):
+    """A reader in an importable module (this test file), registered at run time."""
+    from ethoscribe.io import read_tidy
+
+    return read_tidy(path, fps=fps, session=session)
+
+
+def test_a_reader_registered_at_run_time_works_in_workers_or_is_refused(tmp_path):
+    files = _files(tmp_path, ".parquet")
+
+    def local_reader(path, fps=None, session=None):  # not importable by a fresh process
+        return read_module_level(path, fps=fps, session=session)
+
+    register_reader("local_only", [".parquet"], local_reader, default_for_suffixes=False)
+    register_reader("module_level", [".parquet"], read_module_level, default_for_suffixes=False)
+    try:
+        from ethoscribe.workspace.runs import _prepare
+
+        plan = plan_sessions(files, format="local_only")
+        assert not plan[0]["reader"]["importable"]
+        with pytest.raises(InputError, match=r"registered at run time.*jobs=1"):
+            _prepare(tmp_path / "ws", plan, CleanParams().to_dict(), 2, None, False, False)
+        # One process: the reader is right here.
+        infos, *_ = _prepare(tmp_path / "ws", plan, CleanParams().to_dict(), 1, None, False, False)
+        assert len(infos) == 2
+        # A reader living in an importable module travels to spawned workers by name.
+        plan = plan_sessions(files, format="module_level")
+        assert plan[0]["reader"]["importable"]
+        infos, *_ = _prepare(tmp_path / "ws2", plan, CleanParams().to_dict(), 2, None, False, False)
+        assert len(infos) == 2
+    finally:
+        registry._READERS.pop("local_only", None)
+        registry._READERS.pop("module_level", None)
+
+
+def test_reader_and_options_are_part_of_the_cache_key(tmp_path):
+    p = tmp_path / "m.csv"
+    t = _tracks()
+    cols = {f"{k}_{a}": t.coords[:, 0, i, d] for i, k in enumerate(t.keypoints)
+            for d, a in enumerate("xy")}  # fmt: skip
+    pd.DataFrame(cols).to_csv(p, index=False)
+    a = plan_sessions([p], fps=30, format="wide", reader_options={"pattern": "{keypoint}_{axis}"})
+    b = plan_sessions(
+        [p],
+        fps=30,
+        format="wide",
+        reader_options={"pattern": "{keypoint}_{axis}", "keypoints": ["nose"]},
+    )
+    cleaning = CleanParams().to_dict()
+    assert cache_key(a[0], cleaning) != cache_key(b[0], cleaning)
+    assert read_planned(b[0]).keypoints == ("nose",)
+    with pytest.raises(InputError, match=r"the wide reader has no option\(s\) \['colour'\]"):
+        plan_sessions([p], fps=30, format="wide", reader_options={"colour": "red"})
+    with pytest.raises(InputError, match="unknown format 'widest'"):
+        plan_sessions([p], fps=30, format="widest")
+
+
+def test_cache_names_that_collide_get_their_own_entries(tmp_path):
+    # "x y" and "x_y" make one cache file stem; same bytes, so only the name tells them apart.
+    (tmp_path / "a").mkdir()
+    write_tidy(_tracks(), tmp_path / "a" / "x y.parquet")
+    write_tidy(_tracks(), tmp_path / "x_y.parquet")
+    plan = plan_sessions([tmp_path / "a" / "x y.parquet", tmp_path / "x_y.parquet"])
+    cleaning = CleanParams().to_dict()
+    assert cache_key(plan[0], cleaning) != cache_key(plan[1], cleaning)
+
+
+def test_manifest_rows_are_found_by_path_and_name_the_session(tmp_path):
+    # Two files with one stem in two folders, named apart by the manifest.
+    for group in ("a", "b"):
+        (tmp_path / group).mkdir()
+        write_tidy(_tracks(), tmp_path / group / "mouse.parquet")
+    pd.DataFrame(
+        {
+            "session": ["day1_mouse", "day2_mouse"],
+            "path": ["a/mouse.parquet", "b/mouse.parquet"],
+            "fps": [25.0, 50.0],
+            "group": ["control", "treated"],
+            "px_per_unit": [2.0, 4.0],
+            "units": ["mm", "mm"],
+        }
+    ).to_csv(tmp_path / "manifest.csv", index=False)
+    plan = plan_sessions(
+        [tmp_path / "b" / "mouse.parquet", tmp_path / "a" / "mouse.parquet"],
+        tmp_path / "manifest.csv",
+    )
+    assert [e["session"] for e in plan] == ["day2_mouse", "day1_mouse"]
+    assert [e["fps"] for e in plan] == [50.0, 25.0]
+    assert [e["meta"]["group"] for e in plan] == ["treated", "control"]
+    t = read_planned(plan[0])
+    assert t.session == "day2_mouse" and t.fps == 50.0 and t.units == "mm"
+    np.testing.assert_allclose(t.coords, _tracks().coords / 4.0)
+    # A manifest given as a table works the same way.
+    table = pd.read_csv(tmp_path / "manifest.csv")
+    table.attrs["base_folder"] = str(tmp_path)
+    assert [e["session"] for e in plan_sessions(None, table)] == ["day1_mouse", "day2_mouse"]
+    # A file the manifest does not list is refused, naming it.
+    write_tidy(_tracks(), tmp_path / "other.parquet")
+    with pytest.raises(InputError, match=r"other\.parquet: this file is not in the manifest"):
+        plan_sessions([tmp_path / "other.parquet"], tmp_path / "manifest.csv")
+
+
+@pytest.mark.parametrize(
+    ("value", "argument"),
+    [(pd.DataFrame(), "inputs"), (3, "inputs"), ([None], r"inputs\[0\]")],
+)
+def test_a_non_path_where_a_path_is_expected_is_a_type_error(value, argument):
+    with pytest.raises(TypeError, match=f"{argument} must be a path"):
+        plan_sessions(value)
+
+
+def test_a_plain_string_is_one_path(tmp_path):
+    write_tidy(_tracks(), tmp_path / "m.parquet")
+    assert [e["session"] for e in plan_sessions(str(tmp_path / "m.parquet"))] == ["m"]
