@@ -1,0 +1,108 @@
+"""The two pipelines every source goes through, on the same tracks.
+
+``ethoscribe``: ``BehaviourModel(random_state=seed)`` with every other parameter at its
+default (automatic state count, default cleaning, features and minimum bout), fitted on all
+sessions of the source at once and then labelling them (``fit`` then ``label``, the calls
+``ethoscribe.workspace.discover`` makes; the bench skips discover's files and stability
+refits, which do not change the labels). The ``state`` column is scored.
+
+``reference``: what a user would write with the general libraries, one line per step:
+confidence below 0.5 -> missing (common practice); gaps filled by linear interpolation over
+frames (pandas ``interpolate``, both directions); horizontal coordinates centred on the mean
+of the keypoints in each frame (heights, in 3-D, kept); scikit-learn ``PCA`` (8 components,
+or fewer when there are fewer coordinates) fitted on all frames of the source; the speed of
+the keypoints' mean (units per second) as one more column; ``StandardScaler``; then hmmlearn
+``GaussianHMM(n_components=<true number of behaviours>, covariance_type="full", n_iter=50,
+random_state=seed)`` fitted on all sequences (``lengths``) and decoded (Viterbi). Every frame
+is scored. It is given the true number of behaviours, which ethoscribe is not.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+import warnings
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from benchmarks.validity.sources import Source
+
+
+def run_ethoscribe(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.ndarray], dict]:
+    """Labels per (session, animal) and facts of the fit (states chosen, seconds, warnings)."""
+    from ethoscribe.segment.model import BehaviourModel
+
+    t, cpu = time.perf_counter(), time.process_time()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        model = BehaviourModel(random_state=seed).fit(src.sessions)
+        table = model.label(src.sessions)
+    seconds, cpu = time.perf_counter() - t, time.process_time() - cpu
+    labels = {}
+    for (session, animal), part in table.groupby(["session", "animal"], sort=False):
+        state = np.full(len(src.truth[(session, animal)]), -1, dtype=np.int64)
+        state[part["frame"].to_numpy()] = part["state"].to_numpy()
+        labels[(str(session), str(animal))] = state
+    info = {
+        "seconds": seconds,
+        "cpu_seconds": cpu,
+        "n_states_model": int(model.n_states_),
+        "params": model.get_params(),
+        "warnings": sorted({str(w.message)[:300] for w in caught}),
+    }
+    return labels, info
+
+
+def reference_features(tracks_coords: np.ndarray, confidence: np.ndarray, fps: float) -> np.ndarray:
+    """Per-frame columns of one animal: centred coordinates then the centroid speed.
+
+    tracks_coords : (frames, keypoints, dims); confidence : (frames, keypoints)
+    Returns (frames, keypoints * dims + 1); keypoints never seen stay NaN (filled with 0 later).
+    """
+    xyz = np.where((confidence >= 0.5)[..., None] | np.isnan(confidence)[..., None],
+                   tracks_coords, np.nan)  # fmt: skip
+    n, k, d = xyz.shape
+    wide = pd.DataFrame(xyz.reshape(n, k * d)).interpolate(limit_direction="both")
+    xyz = wide.to_numpy().reshape(n, k, d)
+    centre = np.nanmean(xyz, axis=1)
+    ego = xyz.copy()
+    ego[..., :2] -= centre[:, None, :2]  # heights (3-D) kept
+    speed = np.r_[0.0, np.linalg.norm(np.diff(centre, axis=0), axis=1) * fps]
+    return np.column_stack([ego.reshape(n, k * d), np.nan_to_num(speed)])
+
+
+def run_reference(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.ndarray], dict]:
+    from hmmlearn.hmm import GaussianHMM
+    from sklearn.decomposition import PCA
+    from sklearn.preprocessing import StandardScaler
+
+    t, cpu = time.perf_counter(), time.process_time()
+    keys, parts = [], []
+    for s in src.sessions:
+        for a, animal in enumerate(s.animals):
+            parts.append(reference_features(s.coords[:, a], s.confidence[:, a], s.fps))
+            keys.append((s.session, animal))
+    lengths = [len(p) for p in parts]
+    raw = np.nan_to_num(np.vstack(parts))
+    pcs = PCA(n_components=min(8, raw.shape[1] - 1), random_state=seed).fit_transform(raw[:, :-1])
+    X = StandardScaler().fit_transform(np.column_stack([pcs, raw[:, -1]]))
+    k = src.n_behaviours
+    hmm = GaussianHMM(n_components=k, covariance_type="full", n_iter=50, random_state=seed)
+    logging.getLogger("hmmlearn").setLevel(logging.ERROR)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        hmm.fit(X, lengths)
+        state = hmm.predict(X, lengths)
+    seconds, cpu = time.perf_counter() - t, time.process_time() - cpu
+    labels = dict(zip(keys, np.split(state, np.cumsum(lengths)[:-1]), strict=True))
+    info: dict[str, Any] = {
+        "seconds": seconds,
+        "cpu_seconds": cpu,
+        "n_states_model": k,
+        "params": {"pca_components": int(pcs.shape[1]), "n_components": k,
+                   "covariance_type": "full", "n_iter": 50, "random_state": seed},  # fmt: skip
+        "converged": bool(hmm.monitor_.converged),
+    }
+    return labels, info

@@ -1,0 +1,136 @@
+"""Sources of the validation bench: each a loader returning tracks, per-frame truth and fps.
+
+A loader is registered with :func:`source` under a plain name and returns a :class:`Source`.
+Pose sources give ``PoseTracks`` read as ``ethoscribe.workspace.discover`` reads them; sensor
+and single-series sources are turned into tracks by :func:`channels_as_heights` (see there),
+so that both pipelines (ethoscribe and the plain reference) take the same input.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ethoscribe.pose import PoseTracks
+
+
+@dataclass
+class Source:
+    """Tracks and truth of one bench source.
+
+    ``truth`` maps (session, animal) to an int array with one entry per frame of that
+    session: the true behaviour's code, or -1 where the truth gives no label (left out of
+    every score). ``behaviours`` names the codes. ``details`` says what was loaded (package,
+    dataset, sizes, trimming) and is written to the results JSON.
+    """
+
+    name: str
+    kind: str
+    sessions: list[PoseTracks]
+    truth: dict[tuple[str, str], np.ndarray]
+    behaviours: list[str]
+    details: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def fps(self) -> float:
+        return float(self.sessions[0].fps)
+
+    @property
+    def n_frames(self) -> int:
+        return int(sum(s.n_frames * s.n_animals for s in self.sessions))
+
+    @property
+    def n_behaviours(self) -> int:
+        codes = np.concatenate([v[v >= 0] for v in self.truth.values()])
+        return int(len(np.unique(codes)))
+
+
+LOADERS: dict[str, Callable[..., Source]] = {}
+DESCRIPTIONS: dict[str, str] = {}
+
+
+def source(name: str, description: str):
+    """Register a loader ``f(seed) -> Source`` under ``name``."""
+
+    def register(func: Callable[..., Source]) -> Callable[..., Source]:
+        LOADERS[name] = func
+        DESCRIPTIONS[name] = description
+        return func
+
+    return register
+
+
+# Frame rate below which a source is interpolated up (see ``upsample``): ethoscribe's default
+# band amplitudes go up to 8 Hz and need frames well above 16 Hz.
+MIN_FPS = 25.0
+
+
+def channels_as_heights(
+    channels: np.ndarray, fps: float, session: str, names: list[str], scale: Mapping | None = None
+) -> PoseTracks:
+    """Sensor channels as 3-D tracks: channel c is keypoint ``names[c]``, its value the height.
+
+    Each channel becomes one keypoint standing at a fixed place on a circle of radius 20
+    (x, y in mm) with the channel's value as its height z; one more keypoint, ``base``, stays
+    at the centre at height 0 (so a single series still has two keypoints). Rotations about the vertical
+    (ethoscribe's body frame) and horizontal centring (the reference) then leave the values
+    untouched, with their signs, whatever body axis is chosen. Values are standardised per
+    channel with ``scale`` (mean and sd pooled over the whole source, so differences between
+    activities stay) and multiplied by 10 so that they are millimetre-sized numbers.
+
+    channels : (frames, C) float array
+    """
+    x = np.asarray(channels, dtype=np.float64)
+    if scale is not None:
+        x = (x - scale["mean"]) / scale["sd"] * 10.0
+    n, c = x.shape
+    angle = 2 * math.pi * np.arange(c) / c
+    coords = np.zeros((n, 1, c + 1, 3))  # the last keypoint, "base", stays at the centre
+    coords[:, 0, :c, 0] = 20 * np.cos(angle)
+    coords[:, 0, :c, 1] = 20 * np.sin(angle)
+    coords[:, 0, :c, 2] = x
+    confidence = np.ones((n, 1, c + 1))
+    confidence[:, 0, :c][~np.isfinite(x)] = np.nan
+    return PoseTracks(
+        coords=coords, confidence=confidence, keypoints=[*names, "base"], fps=fps,
+        units="mm", session=session,
+    )  # fmt: skip
+
+
+def pooled_scale(series: list[np.ndarray]) -> dict[str, np.ndarray]:
+    """Per-channel mean and sd over every frame of every series (NaN ignored)."""
+    x = np.concatenate(series)
+    sd = np.nanstd(x, axis=0)
+    return {"mean": np.nanmean(x, axis=0), "sd": np.where(sd > 0, sd, 1.0)}
+
+
+def upsample_factor(fps: float) -> int:
+    """Integer factor that lifts ``fps`` to at least :data:`MIN_FPS` (1 if already there)."""
+    return max(1, math.ceil(MIN_FPS / fps - 1e-9))
+
+
+def upsample(series: np.ndarray, labels: np.ndarray, factor: int) -> tuple[np.ndarray, np.ndarray]:
+    """Linear interpolation of ``series`` (frames, C) to ``factor`` times the rate; labels of
+    the new frames are those of the nearest original frame before them (repetition)."""
+    if factor == 1:
+        return series, labels
+    n = len(series)
+    t_new = np.arange(n * factor) / factor
+    t_old = np.arange(n)
+    cols = [np.interp(t_new, t_old, series[:, c]) for c in range(series.shape[1])]
+    return np.stack(cols, 1), np.repeat(labels, factor)
+
+
+def _import_all() -> None:
+    # Registration order is the table's row order.
+    from benchmarks.validity.sources import own_simulator  # noqa: F401
+    from benchmarks.validity.sources import independent  # noqa: F401
+    from benchmarks.validity.sources import real_activity  # noqa: F401
+    from benchmarks.validity.sources import aeon_series  # noqa: F401
+
+
+_import_all()
