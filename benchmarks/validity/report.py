@@ -25,8 +25,7 @@ def _cell(result: dict | None, key: str, fmt: str) -> str:
 
 
 def _mean(sources: dict, pipeline: str, key: str) -> float:
-    values = [r[pipeline][key] for r in sources.values()
-              if pipeline in r and key in r[pipeline]]  # fmt: skip
+    values = [r[pipeline][key] for r in sources.values() if pipeline in r and key in r[pipeline]]
     return sum(values) / len(values) if values else float("nan")
 
 
@@ -46,18 +45,24 @@ def markdown(doc: dict) -> str:
         if "error" in r:
             lines.append(f"| {name} | {r['error']} |" + " |" * (len(head) - 2))
             continue
-        cells = [name, r["kind"], f"{r['frames']:,d}", f"{r['fps']:g}", str(r["n_behaviours"])]
+        cells = [name, r["kind"], f"{r['frames']:,d}", str(r["fps"]), str(r["n_behaviours"])]
         for _, key, fmt in COLUMNS:
-            cells.append(f"{_cell(r.get('ethoscribe'), key, fmt)} / "
-                         f"{_cell(r.get('reference'), key, fmt)}")  # fmt: skip
+            cells.append(
+                f"{_cell(r.get('ethoscribe'), key, fmt)} / {_cell(r.get('reference'), key, fmt)}"
+            )
         lines.append("| " + " | ".join(cells) + " |")
     ok = {k: r for k, r in sources.items() if "error" not in r}
+    e, ref = "ethoscribe", "reference"
     means = [
-        f"mean over {len(ok)} sources: ARI {_mean(ok, 'ethoscribe', 'ari'):.2f} / "
-        f"{_mean(ok, 'reference', 'ari'):.2f}, boundary F1 {_mean(ok, 'ethoscribe', 'boundary_f1'):.2f}"
-        f" / {_mean(ok, 'reference', 'boundary_f1'):.2f}, matched accuracy "
-        f"{_mean(ok, 'ethoscribe', 'accuracy'):.2f} / {_mean(ok, 'reference', 'accuracy'):.2f}"
+        f"mean over {len(ok)} sources (ethoscribe / reference): "
+        f"ARI {_mean(ok, e, 'ari'):.2f} / {_mean(ok, ref, 'ari'):.2f}, "
+        f"boundary F1 {_mean(ok, e, 'boundary_f1'):.2f} / {_mean(ok, ref, 'boundary_f1'):.2f}, "
+        f"matched accuracy {_mean(ok, e, 'accuracy'):.2f} / {_mean(ok, ref, 'accuracy'):.2f}"
     ]
-    failed = [f"{k} ({p}): {r[p]['error'].splitlines()[0][:200]}" for k, r in ok.items()
-              for p in ("ethoscribe", "reference") if "error" in r.get(p, {})]  # fmt: skip
+    failed = [
+        f"{k} ({p}): {r[p]['error'].splitlines()[0][:200]}"
+        for k, r in ok.items()
+        for p in ("ethoscribe", "reference")
+        if "error" in r.get(p, {})
+    ]
     return "\n".join(lines + [""] + means + [f"failed: {f}" for f in failed])

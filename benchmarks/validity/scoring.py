@@ -13,7 +13,8 @@ the pipeline left unscored.
   wrong frames.
 - ``boundary_f1`` (with precision and recall) within ``margin_s`` (0.2 s): frames the truth
   leaves unlabelled are removed from both sequences first (a change across such a gap counts
-  at the join); unscored predicted frames take the last scored state before them, so a run
+  at the join); the margin in frames follows each unit's frame rate (at least one frame);
+  unscored predicted frames take the last scored state before them, so a run
   of unscored frames makes no boundary by itself. Boundaries are matched one-to-one within
   the margin, pooled over units (micro average), with ``ethoscribe.segment.agreement``.
 - ``unscored_pct``: share of truth-labelled frames that the pipeline left unscored.
@@ -83,10 +84,13 @@ def unit_boundaries(truth: np.ndarray, found: np.ndarray) -> tuple[np.ndarray, n
 def score_units(
     truth: Mapping[tuple[str, str], np.ndarray],
     found: Mapping[tuple[str, str], np.ndarray],
-    fps: float,
+    fps: float | Mapping[tuple[str, str], float],
     margin_s: float = 0.2,
 ) -> dict[str, float]:
-    """Every score of the module doc over all units (same keys in ``truth`` and ``found``)."""
+    """Every score of the module doc over all units (same keys in ``truth`` and ``found``).
+
+    ``fps``: one frame rate, or one per unit (the margin in frames follows each unit's rate).
+    """
     keys: Sequence[tuple[str, str]] = sorted(truth)
     missing = [k for k in keys if k not in found or len(found[k]) != len(truth[k])]
     if missing:
@@ -95,11 +99,12 @@ def score_units(
     f = np.concatenate([np.asarray(found[k], dtype=np.int64) for k in keys])
     labelled = t >= 0
     both = labelled & (f >= 0)
-    margin = max(1, round(margin_s * fps))
+    rate = fps if isinstance(fps, Mapping) else dict.fromkeys(keys, fps)
+    margins = {k: max(1, round(margin_s * rate[k])) for k in keys}
     counts = np.zeros(3, dtype=np.int64)
     for k in keys:
         tb, fb = unit_boundaries(np.asarray(truth[k]), np.asarray(found[k]))
-        s = boundary_f1(tb, fb, margin)
+        s = boundary_f1(tb, fb, margins[k])
         counts += (s.n_true, s.n_predicted, s.n_matched)
     precision = counts[2] / counts[1] if counts[1] else 1.0
     recall = counts[2] / counts[0] if counts[0] else 1.0
@@ -114,10 +119,10 @@ def score_units(
         "boundary_recall": float(recall),
         "boundaries_true": int(counts[0]),
         "boundaries_found": int(counts[1]),
-        "margin_frames": int(margin),
+        "margin_frames": sorted({int(m) for m in margins.values()}),
         "unscored_pct": float(100 * (1 - both.sum() / max(labelled.sum(), 1))),
-        "states_found": int(len(np.unique(f[both]))),
-        "states_true": int(len(np.unique(t[labelled]))),
+        "states_found": len(np.unique(f[both])),
+        "states_true": len(np.unique(t[labelled])),
         "frames_scored": int(both.sum()),
         "frames_labelled": int(labelled.sum()),
     }

@@ -36,8 +36,14 @@ class Source:
     details: dict[str, Any] = field(default_factory=dict)
 
     @property
-    def fps(self) -> float:
-        return float(self.sessions[0].fps)
+    def unit_fps(self) -> dict[tuple[str, str], float]:
+        """Frame rate of every (session, animal) unit."""
+        return {(s.session, a): float(s.fps) for s in self.sessions for a in s.animals}
+
+    @property
+    def fps_text(self) -> str:
+        rates = sorted({float(s.fps) for s in self.sessions})
+        return f"{rates[0]:g}" if len(rates) == 1 else f"{rates[0]:g}-{rates[-1]:g}"
 
     @property
     def n_frames(self) -> int:
@@ -46,7 +52,7 @@ class Source:
     @property
     def n_behaviours(self) -> int:
         codes = np.concatenate([v[v >= 0] for v in self.truth.values()])
-        return int(len(np.unique(codes)))
+        return len(np.unique(codes))
 
 
 LOADERS: dict[str, Callable[..., Source]] = {}
@@ -76,11 +82,11 @@ def channels_as_heights(
 
     Each channel becomes one keypoint standing at a fixed place on a circle of radius 20
     (x, y in mm) with the channel's value as its height z; one more keypoint, ``base``, stays
-    at the centre at height 0 (so a single series still has two keypoints). Rotations about the vertical
-    (ethoscribe's body frame) and horizontal centring (the reference) then leave the values
-    untouched, with their signs, whatever body axis is chosen. Values are standardised per
-    channel with ``scale`` (mean and sd pooled over the whole source, so differences between
-    activities stay) and multiplied by 10 so that they are millimetre-sized numbers.
+    at the centre at height 0 (so a single series still has two keypoints). Rotations about
+    the vertical (ethoscribe's body frame) and horizontal centring (the reference) then
+    leave the values untouched, with their signs, whatever body axis is chosen. Values are
+    standardised per channel with ``scale`` (mean and sd pooled over the whole source, so
+    differences between activities stay) and multiplied by 10: millimetre-sized numbers.
 
     channels : (frames, C) float array
     """
@@ -96,9 +102,13 @@ def channels_as_heights(
     confidence = np.ones((n, 1, c + 1))
     confidence[:, 0, :c][~np.isfinite(x)] = np.nan
     return PoseTracks(
-        coords=coords, confidence=confidence, keypoints=[*names, "base"], fps=fps,
-        units="mm", session=session,
-    )  # fmt: skip
+        coords=coords,
+        confidence=confidence,
+        keypoints=[*names, "base"],
+        fps=fps,
+        units="mm",
+        session=session,
+    )
 
 
 def pooled_scale(series: list[np.ndarray]) -> dict[str, np.ndarray]:
@@ -126,11 +136,11 @@ def upsample(series: np.ndarray, labels: np.ndarray, factor: int) -> tuple[np.nd
 
 
 def _import_all() -> None:
+    import importlib
+
     # Registration order is the table's row order.
-    from benchmarks.validity.sources import own_simulator  # noqa: F401
-    from benchmarks.validity.sources import independent  # noqa: F401
-    from benchmarks.validity.sources import real_activity  # noqa: F401
-    from benchmarks.validity.sources import aeon_series  # noqa: F401
+    for module in ("own_simulator", "independent", "real_activity", "aeon_series"):
+        importlib.import_module(f"benchmarks.validity.sources.{module}")
 
 
 _import_all()

@@ -16,7 +16,6 @@ Install: ``pip install --no-deps aeon==1.6.0 Deprecated``.
 from __future__ import annotations
 
 import numpy as np
-
 from benchmarks.validity.sources import (
     Source,
     channels_as_heights,
@@ -38,8 +37,14 @@ def _datasets():
     return datasets
 
 
-def _from_series(name: str, parts: list[tuple[str, np.ndarray, np.ndarray]], fps: float,
-                 channel_names: list[str], behaviours: list[str], details: dict) -> Source:  # fmt: skip
+def _from_series(
+    name: str,
+    parts: list[tuple[str, np.ndarray, np.ndarray]],
+    fps: float,
+    channel_names: list[str],
+    behaviours: list[str],
+    details: dict,
+) -> Source:
     factor = upsample_factor(fps)
     scale = pooled_scale([x for _, x, _ in parts])
     sessions, truth = [], {}
@@ -52,8 +57,11 @@ def _from_series(name: str, parts: list[tuple[str, np.ndarray, np.ndarray]], fps
     return Source(name, details.pop("kind"), sessions, truth, behaviours, details)
 
 
-@source("basic_motions", "UEA BasicMotions (aeon): real smartwatch IMU, 4 activities, trials "
-        "concatenated in a seeded order")  # fmt: skip
+@source(
+    "basic_motions",
+    "UEA BasicMotions (aeon): real smartwatch IMU, 4 activities, trials "
+    "concatenated in a seeded order",
+)
 def basic_motions(seed: int = 0) -> Source:
     datasets = _datasets()
     parts, names = [], None
@@ -94,17 +102,22 @@ def _tssb(name: str, loader: str, dataset: str) -> Source:
         "note": "no frame rate: one period taken as one second",
         "sessions": [name],
     }
-    return _from_series(name, [(name, x, labels)], float(period), ["value"], behaviours,
-                        details)  # fmt: skip
+    return _from_series(name, [(name, x, labels)], float(period), ["value"], behaviours, details)
 
 
 @source("tssb_electric_devices", "TSSB ElectricDevices (aeon): 11,532 values, 5 segments")
 def electric_devices(seed: int = 0) -> Source:
-    return _tssb("tssb_electric_devices", "load_electric_devices_segmentation",
-                 "TSSB ElectricDevices (Ermshaus, Schaefer & Leser 2023; UCR archive)")  # fmt: skip
+    return _tssb(
+        "tssb_electric_devices",
+        "load_electric_devices_segmentation",
+        "TSSB ElectricDevices (Ermshaus, Schaefer & Leser 2023; UCR archive)",
+    )
 
 
 @source("tssb_gun_point", "TSSB GunPoint (aeon): 1,875 values, 2 segments (a known hard case)")
 def gun_point(seed: int = 0) -> Source:
-    return _tssb("tssb_gun_point", "load_gun_point_segmentation",
-                 "TSSB GunPoint (Ermshaus, Schaefer & Leser 2023; UCR archive)")  # fmt: skip
+    return _tssb(
+        "tssb_gun_point",
+        "load_gun_point_segmentation",
+        "TSSB GunPoint (Ermshaus, Schaefer & Leser 2023; UCR archive)",
+    )

@@ -1,4 +1,4 @@
-"""A second simulator, designed independently of ethoscribe's (``benchmarks.validity.independent_sim``).
+"""A second simulator, designed independently of ethoscribe's (``independent_sim``).
 
 Only its command and its files are used here, never its code:
 ``python -m benchmarks.validity.independent_sim --out DIR`` writes tidy pose files, a
@@ -16,29 +16,45 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-
 from benchmarks.validity.sources import Source, source
+
 from ethoscribe.workspace.reading import read_sessions
 
 REPO = Path(__file__).resolve().parents[3]
-# Where the study is written; the bench sets it under its --out folder.
+# Where studies are written; the bench sets it under its --out folder.
 DATA_DIR: list[Path] = [REPO / "results" / "validity" / "independent_sim_data"]
-EXTRA_ARGS: list[str] = []
+# Trimmed for a quick bench: 6 sessions of 2 minutes (the command's default is 8 of 4 minutes).
+SESSIONS, DURATION_S = 6, 120
+
+
+def _args(seed: int) -> list[str]:
+    return ["--sessions", str(SESSIONS), "--duration-s", str(DURATION_S), "--seed", str(seed)]
 
 
 def generate(folder: Path, seed: int) -> None:
     """Run the independent simulator's command into ``folder`` (once; kept for reruns)."""
     if (folder / "manifest.csv").exists():
         return
+    folder.parent.mkdir(parents=True, exist_ok=True)
     if importlib_missing():
         raise RuntimeError(
             "benchmarks.validity.independent_sim is not in this checkout yet: "
             "update the branch (git rebase main) and rerun"
         )
-    cmd = [sys.executable, "-m", "benchmarks.validity.independent_sim", "--out", str(folder),
-           *EXTRA_ARGS]  # fmt: skip
-    env = {**os.environ, "PYTHONPATH": os.pathsep.join(filter(None, [str(REPO), str(REPO / "src"),
-           os.environ.get("PYTHONPATH", "")]))}  # fmt: skip
+    cmd = [
+        sys.executable,
+        "-m",
+        "benchmarks.validity.independent_sim",
+        "--out",
+        str(folder),
+        *_args(seed),
+    ]
+    env = {
+        **os.environ,
+        "PYTHONPATH": os.pathsep.join(
+            filter(None, [str(REPO), str(REPO / "src"), os.environ.get("PYTHONPATH", "")])
+        ),
+    }
     done = subprocess.run(cmd, cwd=REPO, env=env, capture_output=True, text=True, check=False)
     if done.returncode != 0:
         raise RuntimeError(f"{' '.join(cmd)} failed: {done.stderr.strip()[-800:]}")
@@ -50,10 +66,12 @@ def importlib_missing() -> bool:
     return importlib.util.find_spec("benchmarks.validity.independent_sim") is None
 
 
-@source("independent_sim", "independently designed simulator (another body plan, rhythmic "
-        "behaviours, tracker failures)")  # fmt: skip
+@source(
+    "independent_sim",
+    "independently designed simulator (another body plan, rhythmic behaviours, tracker failures)",
+)
 def independent(seed: int = 0) -> Source:
-    folder = DATA_DIR[0]
+    folder = DATA_DIR[0] / f"seed{seed}_{SESSIONS}x{DURATION_S}s"
     generate(folder, seed)
     manifest = folder / "manifest.csv"
     table = pd.read_csv(manifest)
@@ -73,11 +91,13 @@ def independent(seed: int = 0) -> Source:
             labels[frames[ok]] = part["behaviour"].astype(str).map(code).to_numpy()[ok]
             truth[(s.session, a)] = labels
     details = {
-        "command": "python -m benchmarks.validity.independent_sim --out DIR " + " ".join(EXTRA_ARGS),
+        "command": "python -m benchmarks.validity.independent_sim --out DIR "
+        + " ".join(_args(seed)),
         "sessions": [s.session for s in sessions],
         "fps": sorted({s.fps for s in sessions}),
         "keypoints": len(sessions[0].keypoints),
         "dims": sessions[0].n_dims,
     }
-    return Source("independent_sim", "simulated (independent)", sessions, truth, behaviours,
-                  details)  # fmt: skip
+    return Source(
+        "independent_sim", "simulated (independent)", sessions, truth, behaviours, details
+    )

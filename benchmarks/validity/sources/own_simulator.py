@@ -11,8 +11,8 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-
 from benchmarks.validity.sources import Source, source
+
 from ethoscribe.workspace.reading import read_sessions
 
 ROOT = Path(__file__).resolve().parents[3] / "example_sessions"

