@@ -1,12 +1,14 @@
 """Checks of plain values (numbers read from JSON, options given by users) for every layer.
 
 ``bool`` is an ``int`` in Python and JSON ``true`` would pass a plain ``isinstance`` test; these
-checks refuse it. Kept free of any other ethoscribe import so the lowest layers can use them.
+checks refuse it. Nothing of ethoscribe is imported but its errors: the lowest layers use them.
 """
 
 from __future__ import annotations
 
 import numpy as np
+
+from ethoscribe.errors import InputError
 
 
 def is_int(v: object) -> bool:
@@ -33,3 +35,30 @@ def is_real(v: object) -> bool:
         return bool(np.isfinite(float(v)))
     except OverflowError:
         return False
+
+
+def seed_from(random_state: object, name: str = "random_state") -> int | None:
+    """The integer seed a fit uses: an int as given, None as None, or one draw from a generator.
+
+    A ``numpy.random.Generator`` (or legacy ``RandomState``) gives a new seed at each call, so
+    refits with the same generator differ, as scikit-learn does; the drawn seed is what a
+    fitted model records.
+
+    Examples
+    --------
+    >>> seed_from(3), seed_from(None), seed_from(np.random.default_rng(0)) >= 0
+    (3, None, True)
+    """
+    if random_state is None:
+        return None
+    if isinstance(random_state, np.random.Generator):
+        return int(random_state.integers(2**63 - 1))
+    if isinstance(random_state, np.random.RandomState):
+        return int(random_state.randint(2**31 - 1))
+    if is_int(random_state) and random_state >= 0:  # type: ignore[operator]
+        return int(random_state)  # type: ignore[call-overload]
+    msg = (
+        f"{name} must be an integer >= 0, None or a numpy.random.Generator; "
+        f"got {random_state!r:.60}"
+    )
+    raise InputError(msg)

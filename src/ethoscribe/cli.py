@@ -14,6 +14,7 @@ from typing import Any
 
 from ethoscribe import __version__
 from ethoscribe.errors import EthoscribeError
+from ethoscribe.segment.registry import get_segmenter, segmenter_names
 
 # Far above any camera (high-speed cameras record up to ~10^5 frames per second); a larger
 # number is a slip (a time step, a frame count) and would make every window absurd.
@@ -206,9 +207,9 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--states", type=_states, default="auto", help="number of motifs, or 'auto'")
     d.add_argument(
         "--method",
-        choices=["hmm", "changepoint", "prediction_error"],
+        choices=segmenter_names(),
         default="hmm",
-        help="Gaussian HMM (default) or change points clustered into motifs",
+        help="; ".join(f"{n}: {get_segmenter(n).summary}" for n in segmenter_names()),
     )
     d.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     d.add_argument(

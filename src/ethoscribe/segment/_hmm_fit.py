@@ -128,8 +128,10 @@ def check_hmm_params(model: Any) -> None:
         ),
         (
             "random_state",
-            m.random_state is None or (is_int(m.random_state) and m.random_state >= 0),
-            "None or an int >= 0",
+            m.random_state is None
+            or (is_int(m.random_state) and m.random_state >= 0)
+            or isinstance(m.random_state, np.random.Generator | np.random.RandomState),
+            "None, an int >= 0 or a numpy.random.Generator",
         ),
     ]
     problems = [

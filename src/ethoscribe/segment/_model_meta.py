@@ -13,10 +13,7 @@ from typing import Any
 from ethoscribe.checks import int_between, is_real
 from ethoscribe.errors import InputError
 from ethoscribe.features import FeaturePipeline
-from ethoscribe.segment.changepoint import ChangePointSegmenter
-from ethoscribe.segment.hmm import GaussianHMM
-
-METHODS = ("hmm", "changepoint", "prediction_error")
+from ethoscribe.segment.registry import get_segmenter, segmenter_names, spec_of_estimator
 
 RESAVE = (
     "The file was edited by hand, is damaged or comes from another program; save the model "
@@ -24,13 +21,6 @@ RESAVE = (
 )
 MAX_SAVED_STATES = 1000  # more states than anyone names: a damaged or hostile file
 MAX_SAVED_FPS = 1e6  # frames per second; beyond any camera, so a damaged number
-SEGMENTERS = {"GaussianHMM": GaussianHMM, "ChangePointSegmenter": ChangePointSegmenter}
-# Segmenter options that _make_segmenter sets itself (a saved duplicate could not be refitted).
-_SET_BY_MODEL = {
-    "hmm": {"n_states", "fps", "random_state"},
-    "changepoint": {"n_motifs", "fps", "random_state"},
-    "prediction_error": {"n_motifs", "fps", "random_state"},
-}
 
 
 def _show(v: Any) -> str:
@@ -52,8 +42,9 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
     if unknown:
         problems.append(f"'params' has unknown keys {unknown[:5]}")
     method = params.get("method", "hmm")
-    if method not in METHODS:
-        problems.append(f"'params.method' must be one of {METHODS}, got {_show(method)}")
+    methods = segmenter_names()
+    if not isinstance(method, str) or method not in methods:
+        problems.append(f"'params.method' must be one of {list(methods)}, got {_show(method)}")
     n = params.get("n_states", "auto")
     if n != "auto" and not int_between(n, 1, MAX_SAVED_STATES):
         problems.append(
@@ -89,10 +80,11 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
         if unknown:
             problems.append(f"'params.features' has unknown FeaturePipeline options {unknown[:5]}")
     segmenter = params.get("segmenter")
-    if isinstance(segmenter, Mapping) and method in METHODS:
-        cls = GaussianHMM if method == "hmm" else ChangePointSegmenter
-        reserved = _SET_BY_MODEL[method]
-        bad = sorted((set(segmenter) - known_keys(cls)) | (set(segmenter) & reserved))
+    if isinstance(segmenter, Mapping) and isinstance(method, str) and method in methods:
+        spec = get_segmenter(method)
+        cls = spec.cls
+        # Options the model sets itself: a saved duplicate could not be refitted.
+        bad = sorted((set(segmenter) - known_keys(cls)) | (set(segmenter) & spec.reserved))
         if bad:
             problems.append(
                 f"'params.segmenter' has options {bad[:5]} that {cls.__name__} does not take "
@@ -141,10 +133,10 @@ def check_meta(meta: Mapping[str, Any], model_keys: Iterable[str]) -> None:
         if not isinstance(meta[name], Mapping):
             problems.append(f"'{name}' must be an object, got {_show(meta[name])}")
     kind = meta["segmenter_kind"]
-    if not isinstance(kind, str) or kind not in SEGMENTERS:
+    if not isinstance(kind, str) or not spec_of_estimator(kind):
+        known = sorted({get_segmenter(m).cls.__name__ for m in segmenter_names()})
         problems.append(
-            f"unknown segmenter kind {_show(kind)} ('segmenter_kind' must be one of "
-            f"{sorted(SEGMENTERS)})"
+            f"unknown segmenter kind {_show(kind)} ('segmenter_kind' must be one of {known})"
         )
     if not int_between(meta["n_states"], 1, MAX_SAVED_STATES):
         problems.append(

@@ -20,7 +20,7 @@ import pandas as pd
 import ruptures as rpt
 from sklearn.base import BaseEstimator
 
-from ethoscribe.checks import is_real
+from ethoscribe.checks import is_real, seed_from
 from ethoscribe.errors import InputError
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths, split_by_lengths
 from ethoscribe.segment.motifs import (
@@ -285,7 +285,8 @@ class ChangePointSegmenter(BaseEstimator):
     n_motifs : "auto" or int
         Motif count ("auto": lowest BIC up to ``max_motifs``).
     max_motifs : int
-    random_state : int
+    random_state : int, numpy.random.Generator or None
+        Seed of the motif clustering; a generator gives one seed per fit (``random_seed_``).
 
     Examples
     --------
@@ -305,7 +306,7 @@ class ChangePointSegmenter(BaseEstimator):
         fps: float = 30.0,
         n_motifs: int | str = "auto",
         max_motifs: int = 12,
-        random_state: int = 0,
+        random_state: int | np.random.Generator | None = 0,
     ) -> None:
         self.method = method
         self.penalty = penalty
@@ -386,9 +387,13 @@ class ChangePointSegmenter(BaseEstimator):
         self.penalty_ = np.array([self._penalty_for(n) for n in lengths])
         self.boundaries_ = self._session_boundaries(xs, lengths)
         desc, table = describe_segments(xs, self.boundaries_, self.fps, lengths)
+        seed = seed_from(self.random_state)
+        if seed is None:  # unseeded: a fresh seed, recorded
+            seed = int(np.random.default_rng().integers(2**31 - 1))
         _, self.motif_params_ = cluster_segments(
-            desc, self.n_motifs, self.max_motifs, self.random_state, weights=table["duration_s"]
+            desc, self.n_motifs, self.max_motifs, seed, weights=table["duration_s"]
         )
+        self.random_seed_ = seed
         self.n_motifs_ = len(self.motif_params_["weights"])
         self.n_states_ = self.n_motifs_
         self.segments_ = motif_table(table, motif_probabilities(desc, self.motif_params_))
@@ -418,6 +423,17 @@ class ChangePointSegmenter(BaseEstimator):
         seg = self.predict_segments(X, lengths)
         return np.repeat(seg["motif"].to_numpy(), (seg["stop"] - seg["start"]).to_numpy())
 
+    def predict_proba(self, X: np.ndarray, lengths: np.ndarray | None = None) -> np.ndarray:
+        """Hard state rows, shape (n_frames, n_states_): 1 for the frame's motif, 0 elsewhere.
+
+        The motif of a whole segment is chosen at once, so a frame has no posterior of its own;
+        ``predict_segments`` gives each segment's motif probability.
+        """
+        states = self.predict(X, lengths)
+        out = np.zeros((len(states), self.n_states_))
+        out[np.arange(len(states)), states] = 1.0
+        return out
+
     def boundaries(self, X: np.ndarray, lengths: np.ndarray | None = None) -> list[np.ndarray]:
         """Boundaries (first frames of new segments) of each session of new data."""
         return self._prepare(X, lengths)[2]
@@ -427,7 +443,7 @@ class ChangePointSegmenter(BaseEstimator):
         check_fitted(self, "motif_params_")
         meta = {
             "kind": "ethoscribe.ChangePointSegmenter",
-            "params": self.get_params(),
+            "params": {**self.get_params(), "random_state": self.random_seed_},
             "versions": {"ethoscribe": _version("ethoscribe"), "ruptures": rpt.__version__},
             "n_features_in": int(self.n_features_in_),
             "n_motifs": int(self.n_motifs_),
@@ -504,6 +520,7 @@ class ChangePointSegmenter(BaseEstimator):
             )
         obj.n_features_in_ = D
         obj.noise_variance_ = float(noise)
+        obj.random_seed_ = obj.random_state
         obj.motif_params_ = _with_prefix(arrays, "motif/")
         obj.n_motifs_ = obj.n_states_ = int(meta["n_motifs"])
         weights = obj.motif_params_.get("weights")

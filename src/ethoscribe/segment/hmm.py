@@ -29,9 +29,10 @@ from importlib.metadata import version
 from typing import Any
 
 import numpy as np
+from sklearn.base import BaseEstimator
 from tqdm.auto import tqdm
 
-from ethoscribe.checks import int_between, is_real
+from ethoscribe.checks import int_between, is_real, seed_from
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_fit import (
     check_hmm_params,
@@ -82,7 +83,21 @@ def frames_needed(n_states: int, n_features: int, covariance_type: str = "full")
     return int(n_states) * per_state
 
 
-class GaussianHMM:
+def parameter_count(n_states: int, n_features: int, covariance_type: str = "full") -> int:
+    """Free parameters of a Gaussian HMM: start (K-1) + transitions K(K-1) + means KD +
+    covariances (KD(D+1)/2 full, KD diagonal), as hmmlearn counts them for its BIC.
+
+    Examples
+    --------
+    >>> parameter_count(2, 1)
+    7
+    """
+    K, D = int(n_states), int(n_features)
+    cov = K * D * (D + 1) // 2 if covariance_type == "full" else K * D
+    return (K - 1) + K * (K - 1) + K * D + cov
+
+
+class GaussianHMM(BaseEstimator):
     """Gaussian HMM segmenter (scikit-learn conventions; ``__init__`` only stores parameters).
 
     Parameters
@@ -129,7 +144,9 @@ class GaussianHMM:
     n_jobs : int or None
         Threads for the restarts (None: every CPU). Each restart has its own seed, so the
         result does not depend on it.
-    random_state : int or None
+    random_state : int, numpy.random.Generator or None
+        Seed of the restarts and subsamples; a generator gives one seed per fit
+        (``random_seed_``, what :meth:`to_state` records).
     progress : bool
         Show a progress bar over restarts and iterations.
 
@@ -138,7 +155,7 @@ class GaussianHMM:
     means_ (K, D), covars_ (K, D, D), startprob_ (K,), transmat_ (K, K), n_states_,
     n_features_in_, log_likelihood_ (per frame of the fit data, best restart),
     restart_log_likelihoods_ (n_restarts,), n_iter_, converged_, covariance_floor_,
-    n_fit_frames_.
+    n_fit_frames_, random_seed_.
 
     Examples
     --------
@@ -185,24 +202,9 @@ class GaussianHMM:
         self.random_state = random_state
         self.progress = progress
 
-    _PARAMS = (
-        "n_states", "covariance_type", "expected_bout_s", "fps", "persistence_strength",
-        "n_restarts", "n_iter", "tol", "min_covar", "init", "init_candidates", "fit_max_frames",
-        "engine", "random_state", "progress", "n_jobs",
-    )  # fmt: skip
-
-    def get_params(self, deep: bool = True) -> dict[str, Any]:
-        """The constructor parameters (JSON-able)."""
-        return {name: getattr(self, name) for name in self._PARAMS}
-
-    def set_params(self, **params: Any) -> GaussianHMM:
-        """Set constructor parameters; unknown names raise InputError."""
-        unknown = sorted(set(params) - set(self._PARAMS))
-        if unknown:
-            raise InputError(f"unknown GaussianHMM parameters {unknown}; valid: {self._PARAMS}")
-        for name, value in params.items():
-            setattr(self, name, value)
-        return self
+    # The state-count choice reads these from the class (see segment.select).
+    frames_needed = staticmethod(frames_needed)
+    parameter_count = staticmethod(parameter_count)
 
     # ----------------------------------------------------------------------------- fitting
     def fit(self, X: np.ndarray, lengths: Sequence[int] | np.ndarray | None = None) -> GaussianHMM:
@@ -210,7 +212,8 @@ class GaussianHMM:
         check_hmm_params(self)
         X, lengths = check_X_lengths(X, lengths)
         K = int(self.n_states)
-        seeds = np.random.SeedSequence(self.random_state).spawn(self.n_restarts + 1)
+        seed = seed_from(self.random_state)
+        seeds = np.random.SeedSequence(seed).spawn(self.n_restarts + 1)
         block = max(100, round(60.0 * self.fps))
         rng_blocks = np.random.default_rng(seeds[0])
         X_fit, fit_lengths = take_blocks(X, lengths, self.fit_max_frames, block, rng_blocks)
@@ -286,6 +289,7 @@ class GaussianHMM:
         self.converged_ = bool(best["converged"])
         self.covariance_floor_ = float(self.min_covar)
         self.n_fit_frames_ = int(n_fit)
+        self.random_seed_ = seed
         return self
 
     # ---------------------------------------------------------------------------- decoding
@@ -348,11 +352,9 @@ class GaussianHMM:
         return self.decode(X, lengths)[1]
 
     def n_parameters(self) -> int:
-        """Free parameters: start (K-1) + transitions K(K-1) + means KD + covariances."""
+        """Free parameters of the fitted model (:func:`parameter_count`)."""
         check_fitted(self, "means_")
-        K, D = self.n_states_, self.n_features_in_
-        cov = K * D * (D + 1) // 2 if self.covariance_type == "full" else K * D
-        return (K - 1) + K * (K - 1) + K * D + cov
+        return parameter_count(self.n_states_, self.n_features_in_, self.covariance_type)
 
     def bic(self, X: np.ndarray, lengths=None) -> float:
         """Bayesian information criterion ``-2 log L + n_parameters * log(n_frames)``."""
@@ -366,7 +368,7 @@ class GaussianHMM:
             "kind": "ethoscribe.GaussianHMM",
             "format_version": FORMAT_VERSION,
             "ethoscribe_version": version("ethoscribe"),
-            "params": self.get_params(),
+            "params": {**self.get_params(), "random_state": self.random_seed_},
             "n_states": self.n_states_,
             "n_features": self.n_features_in_,
             "log_likelihood": self.log_likelihood_,
@@ -403,7 +405,11 @@ class GaussianHMM:
         params = meta.get("params")
         if not isinstance(params, Mapping):
             raise InputError(f"GaussianHMM state: 'params' must be an object, got {params!r:.60}")
-        model = cls().set_params(**params)  # unknown names: InputError
+        unknown = sorted(set(params) - set(cls._get_param_names()))
+        if unknown:
+            valid = cls._get_param_names()
+            raise InputError(f"GaussianHMM state: unknown parameters {unknown}; valid: {valid}")
+        model = cls(**params)
         check_hmm_params(model)
         problems = []
         rules = {
@@ -444,6 +450,7 @@ class GaussianHMM:
         model.converged_ = bool(meta["converged"])
         model.covariance_floor_ = float(meta["covariance_floor"])
         model.n_fit_frames_ = int(meta["n_fit_frames"])
+        model.random_seed_ = model.random_state
         return model
 
 

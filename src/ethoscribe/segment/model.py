@@ -12,18 +12,19 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from sklearn.base import BaseEstimator
 from tqdm.auto import tqdm
 
 from ethoscribe import __version__
+from ethoscribe.checks import seed_from
 from ethoscribe.clean import CleanParams, QualityReport, clean
 from ethoscribe.errors import EthoscribeError, InputError
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.pose import PoseTracks, check_same_body_plan
-from ethoscribe.segment._model_meta import METHODS, RESAVE, SEGMENTERS, check_meta, known_keys
-from ethoscribe.segment.changepoint import ChangePointSegmenter
-from ethoscribe.segment.hmm import GaussianHMM
+from ethoscribe.segment._model_meta import RESAVE, check_meta, known_keys
 from ethoscribe.segment.inputs import check_fitted, split_by_lengths
 from ethoscribe.segment.postprocess import enforce_min_bout
+from ethoscribe.segment.registry import get_segmenter
 from ethoscribe.segment.select import choose_n_states
 
 FORMAT_VERSION = 1
@@ -51,7 +52,7 @@ def stack_valid(features: Sequence[FeatureSet]) -> tuple[np.ndarray, np.ndarray]
     return np.concatenate(parts), lengths
 
 
-class BehaviourModel:
+class BehaviourModel(BaseEstimator):
     """Cleaning + egocentric features + unsupervised segmentation, fitted across sessions.
 
     Parameters
@@ -60,14 +61,17 @@ class BehaviourModel:
         Cleaning parameters (see :class:`ethoscribe.clean.CleanParams`).
     features : dict, optional
         Keyword parameters of :class:`ethoscribe.features.FeaturePipeline`.
-    method : {"hmm", "changepoint", "prediction_error"}
-        Gaussian HMM over frames, or change points (penalised search or prediction-error peaks)
-        whose segments are clustered into motifs.
+    method : str
+        A registered segmentation method (:mod:`ethoscribe.segment.registry`): "hmm" (Gaussian
+        HMM over frames), "changepoint" or "prediction_error" (change points, by penalised
+        search or prediction-error peaks, whose segments are clustered into motifs), or a
+        method registered by a plugin.
     n_states : int or "auto"
         Number of states (motifs); "auto" chooses it from ``state_range``: for the HMM the
         elbow of the held-out log-likelihood per frame, from quick fits on a subsample
         (:func:`ethoscribe.segment.select.choose_n_states`), then the chosen count is fitted
-        in full; for change points the BIC of the segment clustering.
+        in full; for change points the BIC of the segment clustering (each method declares
+        how, in the registry).
     state_range : (int, int)
         Smallest and largest state count tried when ``n_states="auto"``. (3, 12): from the
         fewest states with a transition structure worth describing to more motifs than are
@@ -79,8 +83,9 @@ class BehaviourModel:
         2-8 Hz shows only 1-4 cycles in it, so shorter "bouts" are mostly frames of a
         transition between two behaviours; on the simulated studies (2 % of true bouts
         shorter) it raised the precision of boundaries from 0.6 to 0.85 at equal agreement.
-    random_state : int
-        Seed of every random choice (initialisations, subsamples).
+    random_state : int, numpy.random.Generator or None
+        Seed of every random choice (initialisations, subsamples). A generator gives one seed
+        per fit (``random_seed_``, what a saved model records).
     progress : bool
         Show progress bars.
 
@@ -101,7 +106,7 @@ class BehaviourModel:
         state_range: tuple[int, int] = (3, 12),
         segmenter: dict | None = None,
         min_bout_s: float = 0.5,
-        random_state: int = 0,
+        random_state: int | np.random.Generator | None = 0,
         progress: bool = False,
     ) -> None:
         self.cleaning = cleaning
@@ -114,10 +119,18 @@ class BehaviourModel:
         self.random_state = random_state
         self.progress = progress
 
-    def get_params(self) -> dict[str, Any]:
+    def saved_params(self) -> dict[str, Any]:
+        """JSON-able constructor parameters, as saved models and ``summary.json`` record them.
+
+        ``progress`` is left out (it changes no result); a generator ``random_state`` is
+        recorded as the seed the fit drew from it.
+        """
         cleaning = (
             self.cleaning.to_dict() if isinstance(self.cleaning, CleanParams) else self.cleaning
         )
+        seed = self.random_state
+        if not (seed is None or isinstance(seed, int | np.integer)):
+            seed = getattr(self, "random_seed_", None)
         return {
             "cleaning": cleaning,
             "features": self.features,
@@ -126,13 +139,12 @@ class BehaviourModel:
             "state_range": list(self.state_range),
             "segmenter": self.segmenter,
             "min_bout_s": self.min_bout_s,
-            "random_state": self.random_state,
+            "random_state": seed,
         }
 
     # --- fitting --------------------------------------------------------------------------
     def _check_params(self) -> None:
-        if self.method not in METHODS:
-            raise InputError(f"method must be one of {METHODS}; got {self.method!r}")
+        get_segmenter(self.method)  # InputError naming the registered methods
         if self.n_states != "auto":
             if not isinstance(self.n_states, (int, np.integer)) or self.n_states < 1:
                 raise InputError(
@@ -151,15 +163,9 @@ class BehaviourModel:
             return self.cleaning
         return CleanParams.from_dict(self.cleaning or {})
 
-    def _make_segmenter(self, n_states: int | str, fps: float, seed: int) -> Any:
-        extra = dict(self.segmenter or {})
-        if self.method == "hmm":
-            return GaussianHMM(n_states=n_states, fps=fps, random_state=seed, **extra)
-        # Change points: with n_states="auto" the segment clustering picks the count by BIC.
-        method = "prediction_error" if self.method == "prediction_error" else "kernel"
-        extra.setdefault("method", method)
-        extra.setdefault("max_motifs", self.state_range[1])
-        return ChangePointSegmenter(n_motifs=n_states, fps=fps, random_state=seed, **extra)
+    def _make_segmenter(self, n_states: int | str, fps: float, seed: int | None) -> Any:
+        spec = get_segmenter(self.method)
+        return spec.build(n_states, fps, seed, self.segmenter, self.state_range[1])
 
     def fit(self, sessions: Sequence[PoseTracks]) -> BehaviourModel:
         """Fit cleaning-resolved features and the segmenter on all ``sessions`` at once."""
@@ -192,21 +198,24 @@ class BehaviourModel:
         feats = pipeline.fit_transform(cleaned)
         X, lengths = stack_valid(feats)
         fps_value = cleaned[0].fps
+        seed = seed_from(self.random_state)
         selection = None
         n_states = self.n_states
-        if n_states == "auto" and self.method == "hmm":
+        if n_states == "auto" and get_segmenter(self.method).auto_states == "heldout":
             lo, hi = self.state_range
             selection = choose_n_states(
                 X,
                 lengths,
                 candidates=range(lo, hi + 1),
                 model_params={"fps": fps_value, **(self.segmenter or {})},
-                random_state=self.random_state,
+                random_state=seed,
                 progress=self.progress,
+                method=self.method,
             )
             n_states = int(selection.best)
-        segmenter = self._make_segmenter(n_states, fps_value, self.random_state)
+        segmenter = self._make_segmenter(n_states, fps_value, seed)
         segmenter.fit(X, lengths)
+        self.random_seed_ = seed
         self.cleaning_ = params
         self.features_ = pipeline
         self.segmenter_ = segmenter
@@ -318,9 +327,9 @@ class BehaviourModel:
         self, X: np.ndarray, lengths: np.ndarray
     ) -> tuple[np.ndarray, np.ndarray]:
         seg = self.segmenter_
-        if isinstance(seg, GaussianHMM):
+        if get_segmenter(self.method).posteriors:
             return seg.predict(X, lengths), seg.predict_proba(X, lengths)
-        states = seg.predict(X, lengths)
+        states = seg.predict(X, lengths)  # hard labels: probability 1 (the registry says so)
         prob = np.zeros((len(states), self.n_states_))
         prob[np.arange(len(states)), states] = 1.0
         return states, prob
@@ -335,7 +344,7 @@ class BehaviourModel:
             "kind": "ethoscribe.BehaviourModel",
             "format_version": FORMAT_VERSION,
             "ethoscribe_version": __version__,
-            "params": self.get_params(),
+            "params": self.saved_params(),
             "cleaning": self.cleaning_.to_dict(),
             "features": f_meta,
             "segmenter_kind": type(self.segmenter_).__name__,
@@ -401,10 +410,17 @@ class BehaviourModel:
 
         model.cleaning_ = CleanParams.from_dict(meta["cleaning"])
         model.features_ = FeaturePipeline.from_state(meta["features"], pick("features/"))
-        model.segmenter_ = SEGMENTERS[kind].from_state(meta["segmenter"], pick("segmenter/"))
+        cls = get_segmenter(model.method).cls
+        if kind != cls.__name__:
+            raise InputError(
+                f"'segmenter_kind' {kind!r} is not the estimator of method {model.method!r} "
+                f"({cls.__name__}). {RESAVE}"
+            )
+        model.segmenter_ = cls.from_state(meta["segmenter"], pick("segmenter/"))
         selection = meta["selection"]
         model.selection_ = None if selection is None else _FixedSelection.from_json(selection)
         model.n_states_ = int(meta["n_states"])
+        model.random_seed_ = model.random_state
         model.fps_ = float(meta["fps"])
         model.keypoints_ = tuple(meta["keypoints"])
         model.n_dims_ = int(meta["n_dims"])

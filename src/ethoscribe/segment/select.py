@@ -41,15 +41,15 @@ from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_fit import in_threads, take_blocks
-from ethoscribe.segment.hmm import GaussianHMM, frames_needed
 from ethoscribe.segment.inputs import check_X_lengths
+from ethoscribe.segment.registry import get_segmenter
 
 RANGE_TOLERANCE = 0.01
 ELBOW_FRACTION = 0.2
 RULES = ("one_se", "elbow")
-# The quick path of ``choose_n_states`` (used by BehaviourModel with n_states="auto").
+# The quick path of ``choose_n_states`` (used by BehaviourModel with n_states="auto"); the
+# quick fitting options are the method's ``quick_options`` in the registry.
 QUICK_MAX_FRAMES = 100_000
-QUICK_FIT = {"n_restarts": 1, "n_iter": 50, "init_candidates": 4, "fit_max_frames": None}
 
 
 @dataclass(frozen=True)
@@ -182,8 +182,9 @@ def select_n_states(
     progress: bool = False,
     block_frames: int | None = None,
     rule: str = "one_se",
+    method: str = "hmm",
 ) -> StateCountSelection:
-    """Fit a GaussianHMM for each candidate state count and pick one (rule in the module doc).
+    """Fit a model for each candidate state count and pick one (rule in the module doc).
 
     Parameters
     ----------
@@ -204,6 +205,11 @@ def select_n_states(
         Block length for ``heldout="blocks"`` (default: n_frames/20 within [50, 3000]).
     rule : {"one_se", "elbow"}
         How the held-out curve is read (module doc); ignored with ``criterion="bic"``.
+    method : str
+        A registered method whose state count is chosen this way (``auto_states="heldout"``
+        in :mod:`ethoscribe.segment.registry`; its estimator scores held-out sessions). Its
+        class may declare ``frames_needed(k, n_features, covariance_type)`` (fewer frames skip
+        a candidate) and ``parameter_count(k, n_features, covariance_type)``.
 
     Examples
     --------
@@ -228,9 +234,23 @@ def select_n_states(
             f"of {RULES}; got criterion={criterion!r}, heldout={heldout!r}, rule={rule!r}"
         )
         raise InputError(msg)
-    params = dict(model_params or {})
-    if "n_states" in params:
-        raise InputError("model_params must not contain n_states: the candidates set it")
+    spec = get_segmenter(method)
+    if spec.auto_states != "heldout":
+        msg = f"method {method!r} does not choose its state count from held-out likelihood"
+        raise InputError(msg)
+    cls = spec.cls
+    params = {**spec.options, **dict(model_params or {})}
+    if spec.state_param in params:
+        msg = f"model_params must not contain {spec.state_param}: the candidates set it"
+        raise InputError(msg)
+
+    def make(k: int) -> Any:
+        return cls(**{spec.state_param: k, **params})
+
+    def needed_frames(k: int) -> int:
+        rule = getattr(cls, "frames_needed", None)
+        return 0 if rule is None else rule(k, n_features, covariance_type)
+
     params["random_state"] = random_state
     params.setdefault("progress", False)
     n_jobs = params.pop("n_jobs", None)  # threads over the candidate fits, not inside each
@@ -243,9 +263,9 @@ def select_n_states(
         n_units = (units["stop"] - units["start"]).to_numpy(np.int64)
         # Each fold's model is fitted on the other fold: the smaller training part decides.
         fit_frames = min(int(n_units[units["fold"].to_numpy() != f].sum()) for f in (0, 1))
-    feasible = [k for k in cands if fit_frames >= frames_needed(k, n_features, covariance_type)]
+    feasible = [k for k in cands if fit_frames >= needed_frames(k)]
     if not feasible:
-        needed = frames_needed(cands[0], n_features, covariance_type)
+        needed = needed_frames(cands[0])
         msg = (
             f"none of the candidate state counts {cands} can be fitted: even {cands[0]} states "
             f"of {covariance_type} covariance over {n_features} features need {needed} frames "
@@ -258,7 +278,7 @@ def select_n_states(
     if criterion == "bic":
         rows = []
         for k in tqdm(feasible, desc="state counts", disable=not progress):
-            m = GaussianHMM(n_states=k, **params).fit(X, lengths)
+            m = make(k).fit(X, lengths)
             ll = m.score(X, lengths)
             rows.append((k, np.nan, m.bic(X, lengths), ll / len(X), m.n_parameters()))
         table = pd.DataFrame(rows, columns=["n_states", "heldout_ll_per_frame", "bic",
@@ -267,7 +287,7 @@ def select_n_states(
         for col in ("heldout_gap", "heldout_gap_se", "tolerance", "heldout_gain"):
             table[col] = np.nan
         table["within_tolerance"] = table["n_states"] == best
-        table = _with_skipped(table, cands, n_features, params)
+        table = _with_skipped(table, cands, n_features, params, cls)
         return StateCountSelection(table, best, criterion, heldout, rule, skipped)
     ll_units = np.zeros((len(feasible), len(units)))
     bic = np.zeros(len(feasible))
@@ -279,7 +299,7 @@ def select_n_states(
         _, k, f = job
         X_tr, len_tr = _take(X, units[units["fold"] != f])
         X_te, len_te = _take(X, units[units["fold"] == f])
-        m = GaussianHMM(n_states=k, **params).fit(X_tr, len_tr)
+        m = make(k).fit(X_tr, len_tr)
         bar.update(1)
         return m.score_per_session(X_te, len_te), m.score(X_tr, len_tr), len(X_tr), m.n_parameters()
 
@@ -303,28 +323,28 @@ def select_n_states(
             "heldout_gain": chosen["gain"],
             "bic": bic,
             "train_ll_per_frame": train,
-            "n_parameters": [_n_parameters(k, n_features, params) for k in feasible],
+            "n_parameters": [_n_parameters(cls, k, n_features, params) for k in feasible],
         }
     )
-    table = _with_skipped(table, cands, n_features, params)
+    table = _with_skipped(table, cands, n_features, params, cls)
     return StateCountSelection(table, int(chosen["best"]), criterion, heldout, rule, skipped)
 
 
 def _with_skipped(
-    table: pd.DataFrame, cands: list[int], n_features: int, params: Mapping[str, Any]
+    table: pd.DataFrame, cands: list[int], n_features: int, params: Mapping[str, Any], cls: type
 ) -> pd.DataFrame:
     """The table of the fitted candidates with a NaN row for each skipped one (``fitted``)."""
     fitted = set(table["n_states"])
     out = table.set_index("n_states").reindex(cands).reset_index()
     out["within_tolerance"] = out["within_tolerance"].fillna(False).astype(bool)
-    out["n_parameters"] = [_n_parameters(k, n_features, params) for k in cands]
+    out["n_parameters"] = [_n_parameters(cls, k, n_features, params) for k in cands]
     out["fitted"] = [k in fitted for k in cands]
     return out
 
 
-def _n_parameters(k: int, d: int, params: Mapping[str, Any]) -> int:
-    cov = k * d * (d + 1) // 2 if params.get("covariance_type", "full") == "full" else k * d
-    return (k - 1) + k * (k - 1) + k * d + cov
+def _n_parameters(cls: type, k: int, d: int, params: Mapping[str, Any]) -> float:
+    count = getattr(cls, "parameter_count", None)
+    return np.nan if count is None else count(k, d, params.get("covariance_type", "full"))
 
 
 def choose_n_states(
@@ -335,6 +355,7 @@ def choose_n_states(
     random_state: int | None = 0,
     progress: bool = False,
     max_frames: int | None = QUICK_MAX_FRAMES,
+    method: str = "hmm",
 ) -> StateCountSelection:
     """The automatic state count of ``BehaviourModel``: the held-out elbow, fitted quickly.
 
@@ -344,8 +365,9 @@ def choose_n_states(
     - on a representative subsample of at most ``max_frames`` frames: one contiguous block
       from every session, its length proportional to the session's (whole sessions when the
       data are small);
-    - each candidate with ``QUICK_FIT``: one restart (of 4 screened starting points), at most
-      50 EM iterations, on every frame of its training fold;
+    - each candidate with the method's ``quick_options`` (registry); for the HMM one restart
+      (of 4 screened starting points), at most 50 EM iterations, on every frame of its
+      training fold;
     - folds of whole sessions (alternating blocks inside the one session when there is one);
       ``rule="elbow"`` (module doc).
 
@@ -355,9 +377,9 @@ def choose_n_states(
 
     Parameters
     ----------
-    X, lengths, candidates, random_state, progress : as :func:`select_n_states`.
+    X, lengths, candidates, random_state, progress, method : as :func:`select_n_states`.
     model_params : mapping, optional
-        GaussianHMM parameters of the final model (``QUICK_FIT`` overrides its fitting effort).
+        Parameters of the final model (the quick options override its fitting effort).
     max_frames : int or None
         Subsample size (None: every frame).
 
@@ -372,8 +394,9 @@ def choose_n_states(
     rng = np.random.default_rng(random_state)
     # One block per session (blocks as long as the whole budget), as many sessions as fit.
     X, lengths = take_blocks(X, lengths, max_frames, max_frames or len(X), rng)
-    params = {**dict(model_params or {}), **QUICK_FIT}
+    params = {**dict(model_params or {}), **get_segmenter(method).quick_options}
     heldout = "sessions" if len(lengths) >= 2 else "blocks"
     return select_n_states(
-        X, lengths, candidates, "heldout", heldout, params, random_state, progress, rule="elbow"
-    )
+        X, lengths, candidates, "heldout", heldout, params, random_state, progress,
+        rule="elbow", method=method,
+    )  # fmt: skip

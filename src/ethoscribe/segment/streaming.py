@@ -15,9 +15,8 @@ import numpy as np
 
 from ethoscribe.clean import StreamingCleaner
 from ethoscribe.errors import InputError
-from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.inputs import check_fitted
-from ethoscribe.segment.streaming_hmm import HMMFilter
+from ethoscribe.segment.registry import get_segmenter, segmenter_names
 
 
 class LiveLabel(NamedTuple):
@@ -29,13 +28,14 @@ class LiveLabel(NamedTuple):
 
 
 class StreamingLabeller:
-    """Label a session frame by frame with a fitted model (causal features, Gaussian HMM).
+    """Label a session frame by frame with a fitted model (causal features, and a method that
+    can filter frame by frame: ``streaming`` in the registry, the Gaussian HMM among built-ins).
 
     Parameters
     ----------
     model : fitted BehaviourModel
-        Fitted with ``features={"causal": True}`` (every feature from past frames only), an HMM
-        segmenter, and a numeric ``max_speed`` in its cleaning (an automatic bound needs the
+        Fitted with ``features={"causal": True}`` (every feature from past frames only), a
+        streaming method, and a numeric ``max_speed`` in its cleaning (an automatic bound needs the
         whole recording).
     n_animals : int
         Animals per frame.
@@ -48,8 +48,13 @@ class StreamingLabeller:
 
     def __init__(self, model, n_animals: int = 1) -> None:
         check_fitted(model, "segmenter_")
-        if not isinstance(model.segmenter_, GaussianHMM):
-            raise InputError("streaming labelling needs a model fitted with method='hmm'")
+        spec = get_segmenter(model.method)
+        if spec.streaming is None:
+            live = [n for n in segmenter_names() if get_segmenter(n).streaming is not None]
+            raise InputError(
+                f"method {model.method!r} cannot label frames as they arrive; fit the model "
+                f"with a method that can: {live}"
+            )
         if not model.features_.causal:
             raise InputError(
                 "this model's features look at future frames; fit it with "
@@ -66,7 +71,7 @@ class StreamingLabeller:
             units=model.features_.units_,
         )
         self.features = model.features_.stream(self.n_animals)
-        self.filters = [HMMFilter(model.segmenter_) for _ in range(self.n_animals)]
+        self.filters = [spec.live(model.segmenter_) for _ in range(self.n_animals)]
 
     def push(self, coords: np.ndarray, confidence: np.ndarray | None = None) -> list[LiveLabel]:
         """Add one frame ``coords (animals, keypoints, dims)``; return one label per animal."""

@@ -20,8 +20,8 @@ from ethoscribe.io._safe import read_json
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
 from ethoscribe.segment._hmm_fit import representative_blocks, take_blocks
-from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
+from ethoscribe.segment.registry import get_segmenter
 from ethoscribe.segment.stability import stability_report
 from ethoscribe.workspace.cache import (
     CACHE_FOLDER,
@@ -108,7 +108,7 @@ def discover(
         about five minutes from every session; None: all). Memory then grows with this
         sample plus the largest session, not with the study. 1,000,000 frames (9 h at 30 fps)
         holds many thousands of bouts of every common behaviour, and the model fit itself
-        works on a subsample of 200,000 frames (``GaussianHMM.fit_max_frames``).
+        works on a subsample of 200,000 frames (the HMM's ``fit_max_frames``).
 
     Reading and cleaning, then features and decoding, run per session in worker processes
     (or on the Dask cluster); the fit runs here, on the sample.
@@ -138,7 +138,7 @@ def discover(
             progress=progress,
         ).fit_cleaned(sample, quality)
         report = None
-        if stability and method == "hmm":
+        if stability and get_segmenter(method).stability:
             report = _stability(model, model.featurise_cleaned(sample), seed, progress)
         del sample
         decoded = _decode(out, prepared, model, jobs, client, force, progress)
@@ -410,9 +410,11 @@ def _stability(
     block = max(100, round(60 * model.fps_))
     X, lengths = take_blocks(X, lengths, STABILITY_FRAMES, block, np.random.default_rng(seed))
     params = model.segmenter_.get_params()
+    quick = get_segmenter(model.method).stability_options
+    cls = type(model.segmenter_)
 
-    def make(s: int) -> GaussianHMM:
-        return GaussianHMM(**{**params, "random_state": s, "n_restarts": 1, "progress": False})
+    def make(s: int) -> Any:
+        return cls(**{**params, **quick, "random_state": s})
 
     return stability_report(make, X, lengths, seeds=(seed, seed + 1, seed + 2), split_halves=True)
 
