@@ -26,6 +26,7 @@ from ethoscribe.workspace import Workspace, compare, write_ethogram_report
 from ethoscribe.workspace.folder import CAUTION, append_journal
 
 FPS = 10.0
+PLANNED = "time_budget:digging,bout_rate:digging"
 N_FRAMES = 1500
 SEED = 11
 SHARES = {"control": (0.2, 0.4, 0.4), "treated": (0.3, 0.35, 0.35)}  # motif_01 planted +50%
@@ -114,11 +115,12 @@ def write_manifest(path: Path, groups: dict[str, str], column: str = "group") ->
 
 @pytest.fixture(scope="module")
 def compared(tmp_path_factory):
-    """One comparison of the curated workspace (motif_01 renamed 'digging'), shared by tests."""
+    """One comparison of the curated workspace (motif_01 renamed 'digging'), shared by tests;
+    the time budget and bout rate of digging are the planned comparisons."""
     folder = make_workspace(tmp_path_factory.mktemp("study") / "ws")
     rename_motif(folder, "motif_01", "digging")
     out = folder.parent / "comparison"
-    summary = compare(folder, out, seed=3)
+    summary = compare(folder, out, seed=3, planned=PLANNED)
     return folder, out, summary
 
 
@@ -138,6 +140,7 @@ def test_planted_time_budget_difference_is_found(compared):
     stats = pd.read_csv(out / "group_stats.csv")
     row = stats[(stats["metric"] == "time_budget") & (stats["motif"] == "digging")].iloc[0]
     assert row["q_value"] < 0.05  # recovery of the planted +50% (invented data)
+    assert row["analysis"] == "planned" and row["correction"] == "Holm over 2 planned tests"
     assert (row["group_a"], row["group_b"]) == ("control", "treated")
     assert row["mean_b"] / row["mean_a"] == pytest.approx(1.5, abs=0.2)
 
@@ -154,9 +157,24 @@ def test_p_and_q_values_match_reference_libraries(compared):
     )
     row = stats[(stats["metric"] == "time_budget") & (stats["motif"] == "digging")].iloc[0]
     assert row["p_value"] == pytest.approx(ref.pvalue)  # scipy.stats.permutation_test, exact
-    ok = stats["p_value"].notna()
-    bh = multipletests(stats.loc[ok, "p_value"], method="fdr_bh")[1]
-    np.testing.assert_allclose(stats.loc[ok, "q_value"], bh)  # statsmodels multipletests
+    planned = stats[stats["analysis"] == "planned"]
+    assert len(planned) == 2 and list(planned.index) == [0, 1]  # planned rows come first
+    holm = multipletests(planned["p_value"], method="holm")[1]
+    np.testing.assert_allclose(planned["q_value"], holm)  # statsmodels multipletests, Holm
+    explore = stats[(stats["analysis"] == "exploratory") & stats["testable"]]
+    families = {"time_budget", "bout_rate", "bout_duration", "transitions"}
+    assert set(explore["family"]) == families
+    for family, rows in explore.groupby("family"):
+        bh = multipletests(rows["p_value"], method="fdr_bh")[1]
+        # statsmodels multipletests: Benjamini-Hochberg within each family on its own
+        np.testing.assert_allclose(rows["q_value"], bh, err_msg=family)
+        assert (
+            rows["correction"] == f"Benjamini-Hochberg within {family} ({len(rows)} tests)"
+        ).all()
+    untestable = stats[~stats["testable"]]
+    assert untestable["p_value"].isna().all() and untestable["q_value"].isna().all()
+    assert untestable["note"].astype(str).str.startswith("not testable").all()
+    assert not untestable["significant"].any()
 
 
 def test_curated_names_reach_every_table(compared):
@@ -190,7 +208,12 @@ def test_report_opens_offline_with_figures_and_caution(compared):
     for title in ("Data quality", "The model&#x27;s choices", "Ethogram", "Time budgets"):
         assert title in page
     assert "Bout durations" in page and "Transitions" in page and "Group differences" in page
-    assert (out / "report.html").stat().st_size < 12e6
+    # the group differences come first, planned comparisons before the exploratory families
+    assert page.index("Group differences") < page.index("Data quality")
+    assert page.index("Planned comparisons (confirmatory)") < page.index("Exploratory tests")
+    assert "How the tests were corrected" in page
+    assert "<pre>" not in page and "href='metadata.json'" in page  # parameters as a table
+    assert (out / "report.html").stat().st_size < 2e6
 
 
 def test_groups_from_a_manifest_with_another_column(tmp_path):
@@ -288,7 +311,28 @@ def test_command_line_compare(tmp_path, capsys):
     assert main(args) == 0
     printed = capsys.readouterr().out
     assert printed.startswith("Compared 16 sessions") and CAUTION in printed
+    assert "No planned comparisons were given (--primary)" in printed
     assert (tmp_path / "out" / "report.html").is_file()
+    rename_motif(folder, "motif_01", "digging")
+    args = [*args[:2], "--out", str(tmp_path / "out2"), "--primary", PLANNED]
+    assert main(args) == 0
+    printed = capsys.readouterr().out
+    assert "Planned (confirmatory, Holm over 2 tests): time_budget of 'digging'" in printed
+    assert "Exploratory (Benjamini-Hochberg within each family" in printed
+
+
+def test_planned_comparison_names_are_checked(tmp_path, capsys):
+    folder = make_workspace(tmp_path / "ws")
+    with pytest.raises(InputError, match=r"no motif 'digging'.*motif_01.*after curation"):
+        compare(folder, tmp_path / "out", planned="time_budget:digging")
+    with pytest.raises(InputError, match="not METRIC:MOTIF"):
+        compare(folder, tmp_path / "out", planned="digging")
+    with pytest.raises(InputError, match="no metric 'speed'"):
+        compare(folder, tmp_path / "out", planned="speed:motif_01")
+    assert not (tmp_path / "out").exists()
+    args = ["compare", str(folder), "--out", str(tmp_path / "out"), "--primary", "x:y"]
+    assert main(args) == 2
+    assert "no metric 'x'" in capsys.readouterr().err
 
 
 def test_command_line_reports_a_missing_group_column(tmp_path, capsys):

@@ -20,7 +20,7 @@ LAYERS = [
     {"simulate"},
     {"segment"},
     {"ethogram", "curation", "label_table", "transitions"},
-    {"stats", "effects"},
+    {"stats", "effects", "multiplicity"},
     {"plots"},
     {"report", "workspace"},
     {"widgets", "cli", "__main__"},

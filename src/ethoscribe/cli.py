@@ -244,6 +244,13 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument(
         "--paired", action="store_true", help="paired design: subjects under each condition"
     )
+    c.add_argument(
+        "--primary",
+        metavar="METRIC:MOTIF,...",
+        help="the comparisons the study planned, tested as the confirmatory set with Holm's "
+        "correction (curated motif names), e.g. --primary time_budget:digging,bout_rate:digging; "
+        "every other test is exploratory (Benjamini-Hochberg within each family of metrics)",
+    )
     c.add_argument("--seed", type=int, default=0)
 
     s = sub.add_parser("simulate", help="write simulated example sessions (invented animals)")
@@ -432,6 +439,7 @@ def _run(args: argparse.Namespace) -> str:
             test=args.test,
             paired=args.paired,
             seed=args.seed,
+            planned=args.primary,
         )
         return result
     if args.command == "simulate":

@@ -2,13 +2,16 @@
 
 ``session_metrics`` turns labels and bouts into one long table (one value per recording, metric
 and motif); ``compare_groups`` tests every metric x motif between every pair of groups with a
-permutation or rank test, effect sizes with bootstrap intervals, and Benjamini-Hochberg q-values
-over all its tests together. The tests and effect sizes themselves live in
-:mod:`ethoscribe.effects` (re-exported here), which also explains when permutation tests are exact.
+permutation or rank test, with effect sizes and bootstrap intervals. Planned comparisons are
+Holm-corrected together; every other test is exploratory and Benjamini-Hochberg-corrected within
+its family of measurements (:mod:`ethoscribe.multiplicity`). The tests and effect sizes themselves
+live in :mod:`ethoscribe.effects` (re-exported here), which also explains when permutation tests
+are exact.
 """
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from itertools import combinations
 from math import comb
 
@@ -25,6 +28,8 @@ from ethoscribe.effects import (
     cliffs_delta_rows,
     hedges_g,
     hedges_g_rows,
+    holm,
+    permutation_omnibus,
     permutation_test,
 )
 from ethoscribe.errors import InputError
@@ -36,6 +41,7 @@ from ethoscribe.ethogram import (
     time_budget,
     transition_table,
 )
+from ethoscribe.multiplicity import FAMILY_ORDER, adjust, parse_planned
 
 __all__ = [
     "COMPARISON_COLUMNS",
@@ -47,15 +53,20 @@ __all__ = [
     "cliffs_delta",
     "compare_groups",
     "hedges_g",
+    "holm",
+    "parse_planned",
+    "permutation_omnibus",
     "permutation_test",
     "session_metrics",
 ]
 
 METRIC_COLUMNS = ("session", "animal", "group", "subject", "metric", "motif", "value")
 COMPARISON_COLUMNS = (
-    "metric", "motif", "group_a", "group_b", "n_a", "n_b", "mean_a", "mean_b", "effect_size",
-    "cliffs_delta", "ci_low", "ci_high", "p_value", "q_value", "test", "significant",
+    "analysis", "family", "metric", "motif", "group_a", "group_b", "n_a", "n_b", "mean_a",
+    "mean_b", "effect_size", "cliffs_delta", "ci_low", "ci_high", "p_value", "q_value",
+    "correction", "significant", "testable", "test",
 )  # fmt: skip
+NOT_TESTABLE = "not testable: "
 
 
 def _design(sessions: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
@@ -124,7 +135,8 @@ def _pair(x, y, paired, test, n_resamples, n_bootstrap, exact_threshold, seed) -
         "mean_b": y.mean() if len(y) else np.nan,
     }
     if min(len(x), len(y)) < 2:
-        return {**row, "test": test, "floor": np.nan, "note": "fewer than 2 values in a group"}
+        note = NOT_TESTABLE + "fewer than 2 values in a group"
+        return {**row, "p_value": np.nan, "test": test, "floor": np.nan, "note": note}
     total = 2 ** len(x) if paired else comb(len(x) + len(y), len(x))
     row["floor"] = min(1.0, 2 / total)
     g, delta = (
@@ -134,7 +146,7 @@ def _pair(x, y, paired, test, n_resamples, n_bootstrap, exact_threshold, seed) -
     low, high = bootstrap_ci(x, y, "hedges_g", n_bootstrap, paired=paired, random_state=seed)
     row.update(effect_size=g, cliffs_delta=delta, ci_low=low, ci_high=high, note="")
     if np.ptp(np.r_[x, y]) == 0 or (paired and not np.any(x - y)):
-        return {**row, "p_value": 1.0, "test": test, "note": "no variation"}
+        return {**row, "p_value": np.nan, "test": test, "note": NOT_TESTABLE + "no variation"}
     if test == "rank":
         res = sps.wilcoxon(x, y) if paired else sps.mannwhitneyu(x, y, alternative="two-sided")
         name = "wilcoxon signed-rank" if paired else "mann-whitney u"
@@ -152,23 +164,7 @@ def _omnibus(samples: list[np.ndarray], paired: bool, test: str, n_resamples: in
     if test == "rank":
         res = sps.friedmanchisquare(*samples) if paired else sps.kruskal(*samples)
         return float(res.pvalue)
-    rng = np.random.default_rng(seed)
-    if paired:  # permute conditions within subjects; SS between condition means
-        w = np.column_stack(samples)
-        null = rng.permuted(np.broadcast_to(w, (n_resamples, *w.shape)), axis=2).mean(axis=1)
-        obs = w.mean(axis=0)[None]
-    else:  # SS between group means, monotone in F when the total SS is fixed
-        x = np.concatenate(samples)
-        sizes = np.array([len(s) for s in samples])
-        perm = rng.permuted(np.tile(x, (n_resamples, 1)), axis=1)
-        cuts = np.r_[0, np.cumsum(sizes)[:-1]]
-        null = np.add.reduceat(perm, cuts, axis=1) / sizes
-        obs = (np.add.reduceat(x, cuts) / sizes)[None]
-    weight = 1.0 if paired else sizes[None]
-    grand = np.concatenate(samples).mean()  # unchanged by any relabelling
-    observed = (weight * (obs - grand) ** 2).sum()
-    hits = np.count_nonzero((weight * (null - grand) ** 2).sum(axis=1) >= observed * (1 - 1e-12))
-    return (hits + 1) / (n_resamples + 1)
+    return permutation_omnibus(samples, paired, n_resamples, seed)
 
 
 def _pairs(groups: list[str], reference: str | None) -> list[tuple[str, str]]:
@@ -193,6 +189,7 @@ def compare_groups(
     exact_threshold: int = EXACT_THRESHOLD,
     reference: str | None = None,
     random_state: int = 0,
+    planned: str | Sequence[str | tuple[str, str]] | None = None,
 ) -> pd.DataFrame:
     """Compare every metric x motif between every pair of groups.
 
@@ -214,16 +211,23 @@ def compare_groups(
         Level for ``significant`` (``q_value < alpha``).
     reference : str, optional
         A control group placed as ``group_b`` in every pair it is in.
+    planned : str or list, optional
+        The comparisons the study planned, ``"time_budget:digging,bout_rate:digging"`` or a list
+        of ``(metric, motif)`` (see :func:`ethoscribe.multiplicity.parse_planned`): tested for
+        every pair of groups and Holm-corrected together; every other test is exploratory.
 
     Returns
     -------
     DataFrame
-        ``metric, motif, group_a, group_b, n_a, n_b, mean_a, mean_b, effect_size, cliffs_delta,
-        ci_low, ci_high, p_value, q_value, test, significant`` (+ ``omnibus_p, omnibus_test`` for
-        > 2 groups) and ``note``. Effects are ``a`` minus ``b``: Hedges' g (paired: of the
-        differences) with its percentile bootstrap interval, and Cliff's delta. q-values are
-        Benjamini-Hochberg over every row. ``attrs["warnings"]`` lists design problems, such as
-        groups too small for any test to reach ``alpha``.
+        ``COMPARISON_COLUMNS`` (+ ``omnibus_p, omnibus_test`` for > 2 groups, unadjusted) and
+        ``note``; planned rows first, then the families (time budget, bout rate, bout duration,
+        transitions). Effects are ``a`` minus ``b``: Hedges' g (paired: of the differences)
+        with its percentile bootstrap interval, and Cliff's delta. ``q_value`` is the adjusted
+        p-value named in ``correction``: Holm over the planned tests, Benjamini-Hochberg within
+        the family for the exploratory ones. Tests without variation are ``testable=False``
+        with NaN p and are not counted. ``attrs["warnings"]`` lists design problems, such as
+        groups too small for any test to reach ``alpha``; ``attrs["alpha"]`` the level.
+        :func:`~ethoscribe.multiplicity.family_summary` counts the tests per family.
     """
     need = ["metric", "motif", "value", by] + ([subject_column] if paired else [])
     check_columns(metrics, need, "the metrics table")
@@ -274,9 +278,13 @@ def compare_groups(
             rows.append(
                 {"metric": metric, "motif": motif, "group_a": ga, "group_b": gb, **stats, **extra}
             )
-    out = pd.DataFrame(rows)
-    out["q_value"] = benjamini_hochberg(out["p_value"].to_numpy(np.float64))
-    out["significant"] = out["q_value"] < alpha
+    out = adjust(pd.DataFrame(rows), parse_planned(planned), alpha)
+    family_rank = {f: i for i, f in enumerate(FAMILY_ORDER)}
+    out = out.assign(
+        _first=out["analysis"] != "planned",
+        _family=out["family"].map(family_rank).fillna(len(family_rank)),
+    ).sort_values(["_first", "_family", "metric", "motif"], kind="stable")
+    out = out.drop(columns=["_first", "_family"]).reset_index(drop=True)
     warnings = []
     blocked = out["floor"] > alpha
     if blocked.any():
@@ -286,9 +294,10 @@ def compare_groups(
             f"{int(blocked.sum())} of {len(out)} comparisons cannot reach p < {alpha} with their "
             f"group sizes (smallest reachable p {out['floor'][blocked].min():.3g}); add sessions"
         )
-    if (out["note"] == "fewer than 2 values in a group").any():
-        warnings.append("some comparisons have fewer than 2 values in a group (p is NaN)")
+    if out["note"].str.endswith("fewer than 2 values in a group").any():
+        warnings.append("some comparisons have fewer than 2 values in a group (not testable)")
     omnibus = ["omnibus_p", "omnibus_test"] if len(groups) > 2 else []
     out = out.reindex(columns=[*COMPARISON_COLUMNS, *omnibus, "note"])
     out.attrs["warnings"] = warnings
+    out.attrs["alpha"] = alpha
     return out

@@ -102,25 +102,32 @@ def quality_figure(
             row=1,
             col=1,
         )
+    # sessions as horizontal bars: their names stay whole and readable
     fig.add_trace(
         go.Bar(
-            x=list(invalid.index),
-            y=invalid.to_numpy(),
+            y=[str(s) for s in invalid.index],
+            x=invalid.to_numpy(),
+            orientation="h",
             name="invalid frames (any keypoint missing)",
             marker_color="#5c5c5c",
-            hovertemplate="%{x}: %{y:.1%}<extra>invalid frames</extra>",
+            hovertemplate="%{y}: %{x:.1%}<extra>invalid frames</extra>",
         ),
         row=1,
         col=2,
     )
     fig.update_layout(
         barmode="group",
-        title="Cleaning quality",
-        legend={"orientation": "h", "y": -0.2},
-        margin={"t": 70},
+        title={"text": "Cleaning quality", "x": 0},
+        # legend between the title and the plots: never over an axis title
+        legend={"orientation": "h", "x": 0, "y": 1.02, "yanchor": "bottom"},
+        margin={"t": 120},
+        height=max(450, 160 + 16 * len(invalid)),
     )
-    fig.update_yaxes(tickformat=".0%", rangemode="tozero")
+    # ".1~%": 0.5 % steps print as 0.5%, 1%, 1.5% (".0%" printed 0%, 1%, 1%, 2%)
+    fig.update_yaxes(tickformat=".1~%", rangemode="tozero", row=1, col=1)
+    fig.update_xaxes(tickformat=".1~%", rangemode="tozero", row=1, col=2)
     fig.update_yaxes(title_text="fraction of frames", row=1, col=1)
+    fig.update_yaxes(autorange="reversed", automargin=True, type="category", row=1, col=2)
     fig.update_xaxes(title_text="keypoint", row=1, col=1)
-    fig.update_xaxes(title_text="session", row=1, col=2)
+    fig.update_xaxes(title_text="invalid frames", row=1, col=2)
     return fig

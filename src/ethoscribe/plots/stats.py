@@ -8,10 +8,13 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
+from plotly.subplots import make_subplots
 
 from ethoscribe.errors import InputError
 
-__all__ = ["group_difference_figure"]
+__all__ = ["group_difference_figure", "planned_values_figure"]
+
+GROUP_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9")
 
 NEEDED = (
     "metric",
@@ -32,8 +35,9 @@ def group_difference_figure(
 ) -> go.Figure:
     """Forest plot of Hedges' g (group a minus group b) with their intervals, one row per test.
 
-    Filled markers are significant after Benjamini-Hochberg (``significant``); every row's
-    q-value is printed beside it.
+    Filled markers are significant after their correction (``significant``); every row's
+    adjusted p-value (``q_value``) is printed in a column right of the plot. Rows without an
+    effect size (not testable) are left out.
 
     Parameters
     ----------
@@ -42,7 +46,7 @@ def group_difference_figure(
     metrics : list of str, optional
         Show only these metrics.
     max_rows : int, optional
-        Show only the rows with the smallest q-values (the title says how many are hidden).
+        Show only the rows with the smallest adjusted p (the title says how many are hidden).
 
     Examples
     --------
@@ -57,24 +61,20 @@ def group_difference_figure(
         msg = f"the group statistics lack columns {missing}; pass compare_groups() output"
         raise InputError(msg)
     table = group_stats if metrics is None else group_stats[group_stats["metric"].isin(metrics)]
-    title = "Group differences: Hedges' g (a - b), 95% bootstrap intervals; filled: significant"
+    table = table[np.isfinite(table["effect_size"].to_numpy(np.float64))]
+    title = "Hedges' g (a - b) with 95% bootstrap intervals; filled: adjusted p < alpha"
     if max_rows is not None and len(table) > max_rows:
-        title += f" ({len(table) - max_rows} rows with larger q hidden)"
+        title += f"<br><sup>{max_rows} smallest adjusted p shown, {len(table) - max_rows} more in "
+        title += "group_stats.csv</sup>"
         table = table.nsmallest(max_rows, "q_value")
-    table = table.sort_values(["metric", "motif", "group_a", "group_b"], ascending=False)
+    table = table.sort_values(["q_value", "metric", "motif"], kind="stable")
     label = (
-        table["metric"]
-        + " | "
-        + table["motif"].astype(str)
-        + " ("
-        + table["group_a"]
-        + " vs "
-        + table["group_b"]
-        + ")"
-    )
+        table["metric"] + " | " + table["motif"].astype(str)
+        + " (" + table["group_a"] + " vs " + table["group_b"] + ")"
+    ).tolist()  # fmt: skip
     fig = go.Figure()
     for flag, colour, symbol, name in (
-        (True, SIGNIFICANT_COLOUR, "circle", "q < alpha"),
+        (True, SIGNIFICANT_COLOUR, "circle", "adjusted p < alpha"),
         (False, OTHER_COLOUR, "circle-open", "not significant"),
     ):
         rows = (table["significant"].fillna(False).astype(bool) == flag).to_numpy()
@@ -82,8 +82,8 @@ def group_difference_figure(
         fig.add_trace(
             go.Scatter(
                 x=g,
-                y=label[rows],
-                mode="markers+text",
+                y=[t for t, r in zip(label, rows, strict=True) if r],
+                mode="markers",
                 name=name,
                 marker={"color": colour, "symbol": symbol, "size": 9},
                 error_x={
@@ -93,16 +93,84 @@ def group_difference_figure(
                     "array": table["ci_high"].to_numpy(np.float64)[rows] - g,
                     "arrayminus": g - table["ci_low"].to_numpy(np.float64)[rows],
                 },
-                text=[f"q={q:.2g}" for q in table["q_value"].to_numpy(np.float64)[rows]],
-                textposition="middle right",
-                hovertemplate="%{y}<br>g = %{x:.2f}<br>%{text}<extra></extra>",
+                customdata=table["q_value"].to_numpy(np.float64)[rows],
+                hovertemplate="%{y}<br>g = %{x:.2f}<br>adjusted p = %{customdata:.2g}"
+                "<extra></extra>",
             )
         )
+    # adjusted p in a column of its own right of the plot, never over a marker
+    for text, q in zip(label, table["q_value"].to_numpy(np.float64), strict=True):
+        fig.add_annotation(
+            x=1.0, xref="paper", xanchor="left", xshift=8, y=text, yref="y", showarrow=False,
+            text=f"{q:.2g}", font={"size": 11, "color": "#444"},
+        )  # fmt: skip
+    fig.add_annotation(
+        x=1.0, xref="paper", xanchor="left", xshift=8, y=1.0, yref="paper", yanchor="bottom",
+        showarrow=False, text="<b>adj. p</b>", font={"size": 11},
+    )  # fmt: skip
     fig.add_vline(x=0, line={"color": "grey", "dash": "dot"})
     fig.update_layout(
-        title=title,
-        height=160 + 24 * len(table),
-        xaxis={"title": "Hedges' g"},
-        yaxis={"type": "category"},
+        title={"text": title, "x": 0, "xanchor": "left"},
+        height=170 + 24 * len(table),
+        xaxis={"title": "Hedges' g", "zeroline": False},
+        yaxis={"type": "category", "automargin": True, "autorange": "reversed"},
+        legend={"orientation": "h", "x": 0, "xanchor": "left", "y": 1.0, "yanchor": "bottom"},
+        margin={"r": 70, "t": 110},
     )
     return fig
+
+
+def planned_values_figure(metrics: pd.DataFrame, planned: pd.DataFrame) -> go.Figure:
+    """One panel per planned comparison: every session's value by group, and the group means.
+
+    ``metrics``: the long table of ``session_metrics`` (``metric, motif, group, value``);
+    ``planned``: the planned rows of ``compare_groups`` (their adjusted p goes in the titles).
+
+    Examples
+    --------
+    >>> m = pd.DataFrame({"session": list("abcd"), "metric": "time_budget", "motif": "dig",
+    ...     "group": ["x", "x", "y", "y"], "value": [0.1, 0.2, 0.3, 0.4]})
+    >>> p = pd.DataFrame({"metric": ["time_budget"], "motif": ["dig"], "q_value": [0.3]})
+    >>> len(planned_values_figure(m, p).data)
+    2
+    """
+    tests = planned[["metric", "motif"]].drop_duplicates()
+    n = max(len(tests), 1)
+    titles = []
+    for _, t in tests.iterrows():
+        q = planned.loc[
+            (planned["metric"] == t["metric"]) & (planned["motif"] == t["motif"]), "q_value"
+        ].min()
+        titles.append(f"{t['metric']} of {t['motif']}<br><sup>Holm-adjusted p = {q:.2g}</sup>")
+    fig = make_subplots(rows=1, cols=n, subplot_titles=titles, horizontal_spacing=0.12)
+    groups = sorted(metrics["group"].astype(str).unique())
+    for k, (_, t) in enumerate(tests.iterrows()):
+        rows = metrics[(metrics["metric"] == t["metric"]) & (metrics["motif"] == t["motif"])]
+        for i, g in enumerate(groups):
+            part = rows[rows["group"].astype(str) == g]
+            fig.add_trace(
+                go.Box(
+                    x=[g] * len(part), y=part["value"], name=g, boxpoints="all", jitter=0.35,
+                    pointpos=0, marker={"color": GROUP_COLOURS[i % len(GROUP_COLOURS)], "size": 7},
+                    line={"width": 1}, fillcolor="rgba(0,0,0,0)", showlegend=False,
+                    text=part.get("session"), boxmean=True,
+                    hovertemplate="%{text}: %{y:.3g}<extra>" + g + "</extra>",
+                ),
+                row=1, col=k + 1,
+            )  # fmt: skip
+        fig.update_yaxes(title_text=_axis_title(t["metric"]), rangemode="tozero", row=1, col=k + 1)
+    fig.update_layout(
+        title={"text": "Planned comparisons: one point per session (dashed: group mean)", "x": 0},
+        height=420, margin={"t": 110},
+    )  # fmt: skip
+    return fig
+
+
+def _axis_title(metric: str) -> str:
+    return {
+        "time_budget": "fraction of valid time",
+        "bout_rate_per_min": "bouts per minute",
+        "mean_bout_s": "mean bout (s)",
+        "median_bout_s": "median bout (s)",
+        "transition": "P(next motif)",
+    }.get(metric, metric)

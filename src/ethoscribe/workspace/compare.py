@@ -11,6 +11,7 @@ the files are moved into place together with ``metadata.json`` last.
 
 from __future__ import annotations
 
+import os
 from collections import Counter
 from pathlib import Path
 from typing import Any
@@ -22,8 +23,9 @@ from ethoscribe.errors import InputError
 from ethoscribe.ethogram import bout_table, time_budget, transition_table
 from ethoscribe.io import read_manifest
 from ethoscribe.io._atomic import atomic_write_json, atomic_write_text, write_table
+from ethoscribe.multiplicity import family_summary, headline
 from ethoscribe.report import Section, render_report
-from ethoscribe.stats import EXACT_THRESHOLD, compare_groups, session_metrics
+from ethoscribe.stats import EXACT_THRESHOLD, compare_groups, parse_planned, session_metrics
 from ethoscribe.workspace.folder import CAUTION, Staging, Workspace, jsonable, now, versions
 from ethoscribe.workspace.report_sections import (
     ethogram_sections,
@@ -36,6 +38,11 @@ ALPHA = 0.05
 N_BOOTSTRAP = 2000
 TESTS = ("permutation", "rank")
 METADATA_FILE = "metadata.json"
+MULTIPLE_TESTING = (
+    "planned comparisons: Holm over the planned set (confirmatory); every other test "
+    "exploratory: Benjamini-Hochberg within its family (time_budget, bout_rate, bout_duration, "
+    "transitions); tests without variation are not testable and not counted"
+)
 
 
 def compare(
@@ -47,6 +54,7 @@ def compare(
     paired: bool = False,
     seed: int = 0,
     n_resamples: int = 10_000,
+    planned: str | list | None = None,
 ) -> str:
     """Compare groups of sessions of a workspace; write tables and a report into ``out``.
 
@@ -66,6 +74,11 @@ def compare(
     paired, seed, n_resamples
         Paired design; random seed of permutations and bootstraps; Monte Carlo resamples when
         an exact permutation test would need more than 50 000 arrangements.
+    planned : str or list, optional
+        The comparisons the study planned, e.g. ``"time_budget:digging,bout_rate:digging"``
+        (curated motif names; ``--primary`` on the command line): Holm-corrected together as
+        the confirmatory set. Every other test is exploratory, Benjamini-Hochberg-corrected
+        within its family (time budget, bout rate, bout duration, transitions).
 
     Returns
     -------
@@ -82,6 +95,7 @@ def compare(
     Compared 16 sessions in 2 groups of 'group' (enriched: 8, standard: 8) ...
     """
     _check_options(by, test, n_resamples, seed)
+    planned = parse_planned(planned)
     ws = Workspace(workspace_dir)
     out = _output_folder(out, ws)
     labels = ws.labels()
@@ -90,7 +104,7 @@ def compare(
     metrics = session_metrics(labels, bouts, design)
     stats = compare_groups(
         metrics, by="group", test=test, paired=paired, alpha=ALPHA, n_resamples=n_resamples,
-        n_bootstrap=N_BOOTSTRAP, random_state=seed,
+        n_bootstrap=N_BOOTSTRAP, random_state=seed, planned=planned,
     )  # fmt: skip
     groups = dict(zip(design["session"], design["group"], strict=True))
     budgets = time_budget(labels)
@@ -105,14 +119,15 @@ def compare(
         "by": by, "test": test, "paired": paired, "seed": seed, "n_resamples": n_resamples,
         "n_bootstrap": N_BOOTSTRAP, "alpha": ALPHA, "exact_threshold": EXACT_THRESHOLD,
         "manifest": None if manifest is None else str(Path(manifest).resolve()),
-        "multiple_testing": "Benjamini-Hochberg over every row of group_stats",
+        "planned": [f"{m}:{t}" for m, t in planned],
+        "multiple_testing": MULTIPLE_TESTING,
     }  # fmt: skip
     meta = _metadata(ws, options, design, stats)
-    sections = [
-        s for s in (quality_section(ws, labels), model_section(ws)) if s is not None
-    ] + ethogram_sections(bouts, budgets, groups, seed)
-    sections.append(group_section(stats, ALPHA))
-    page = render_report(f"Group comparison by {by!r}: {ws.path.name}", sections, meta)
+    sections = [group_section(stats, ALPHA, metrics)]
+    sections += [s for s in (quality_section(ws, labels), model_section(ws)) if s is not None]
+    sections += ethogram_sections(bouts, budgets, groups, seed)
+    title = f"Group comparison by {by!r}: {ws.path.name}"
+    page = render_report(title, sections, meta, parameters_link=METADATA_FILE)
     _write_outputs(out, tables, meta, page)
     return _summary(design, stats, labels, by, test, paired, out)
 
@@ -158,7 +173,8 @@ def write_ethogram_report(
         "seeds": {"discovery": ws.summary.get("seed")},
         "journal": _journal_summary(ws),
     }
-    page = render_report(f"Ethogram: {ws.path.name}", sections, jsonable(params))
+    link = Path(os.path.relpath(ws.path / "summary.json", Path(path).parent)).as_posix()
+    page = render_report(f"Ethogram: {ws.path.name}", sections, jsonable(params), link)
     return atomic_write_text(path, page)
 
 
@@ -304,7 +320,9 @@ def _metadata(ws: Workspace, options: dict, design: pd.DataFrame, stats: pd.Data
                 k: summary.get(k) for k in ("n_states", "n_sessions", "n_frames", "created")
             },
             "journal": _journal_summary(ws),
-            "n_tests": len(stats),
+            "n_tests": int(stats["testable"].sum()),
+            "n_not_testable": int((~stats["testable"]).sum()),
+            "families": family_summary(stats, ALPHA).to_dict(orient="records"),
             "warnings": list(stats.attrs.get("warnings") or []),
             "caution": CAUTION,
         }
@@ -335,24 +353,15 @@ def _summary(
     paired: bool,
     out: Path,
 ) -> str:
-    """The paragraph ``compare`` returns: groups, tests, the smallest q, notes, the caution."""
+    """The paragraph ``compare`` returns: groups, planned tests, families, notes, the caution."""
     counts = design.groupby("group")["session"].nunique()
     sizes = ", ".join(f"{g}: {n}" for g, n in counts.items())
     motifs = sorted(set(labels["motif"].astype(str)) - {""})
     kind = f"{'paired ' if paired else ''}{test} tests"
-    n_sig = int(stats["significant"].sum())
     text = (
         f"Compared {len(design)} sessions in {len(counts)} groups of {by!r} ({sizes}) over "
-        f"{len(motifs)} motifs: {len(stats)} {kind}, {n_sig} with q < {ALPHA} "
-        "(Benjamini-Hochberg)"
+        f"{len(motifs)} motifs with {kind}. {headline(stats, ALPHA)}"
     )
-    best = stats.dropna(subset=["q_value"]).sort_values("q_value", kind="stable").head(1)
-    if len(best):
-        r = best.iloc[0]
-        text += (
-            f"; smallest q: {r['metric']} of {r['motif']!r} ({r['group_a']} vs {r['group_b']}: "
-            f"Hedges' g = {r['effect_size']:.2f}, q = {r['q_value']:.2g})"
-        )
     warnings = stats.attrs.get("warnings") or []
-    text += ". " + (" ".join(w.rstrip(".") + "." for w in warnings) + " " if warnings else "")
+    text += " " + (" ".join(w.rstrip(".") + "." for w in warnings) + " " if warnings else "")
     return f"{text}Tables, metadata.json and report.html are in {out}. {CAUTION}"

@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from ethoscribe.ethogram import duration_summary, pool_time_budgets, transition_matrix
+from ethoscribe.multiplicity import family_summary, headline
 from ethoscribe.plots.ethogram import (
     duration_figure,
     ethogram_raster,
@@ -24,17 +25,14 @@ from ethoscribe.plots.ethogram import (
 )
 from ethoscribe.plots.model import stability_figure, state_count_figure
 from ethoscribe.plots.quality import BARS, quality_figure
-from ethoscribe.plots.stats import group_difference_figure
+from ethoscribe.plots.stats import group_difference_figure, planned_values_figure
 from ethoscribe.report import Section
 from ethoscribe.workspace.folder import Workspace
 
 RASTER_BARS = 6000  # bars drawn in the ethogram raster before rows are resampled
 DURATION_POINTS = 2000  # bout durations per motif drawn in the box plot
 TOP_ROWS = 25  # rows of the statistics table shown in the report
-STATS_COLUMNS = (
-    "metric", "motif", "group_a", "group_b", "n_a", "n_b", "mean_a", "mean_b", "effect_size",
-    "ci_low", "ci_high", "p_value", "q_value", "test",
-)  # fmt: skip
+FOREST_ROWS = 30  # exploratory tests drawn in the forest plot
 
 
 def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Section | None:
@@ -158,21 +156,61 @@ def _transition_section(bouts: pd.DataFrame, budgets: pd.DataFrame) -> Section:
     return Section(title, text, figures, [("Transition probabilities", matrix.reset_index())])
 
 
-def group_section(stats: pd.DataFrame, alpha: float) -> Section:
-    """Forest plot of the effect sizes and the tests with the smallest q-values."""
-    n_sig = int(stats["significant"].sum())
+def group_section(
+    stats: pd.DataFrame, alpha: float, metrics: pd.DataFrame | None = None
+) -> Section:
+    """Group differences: planned tests first, how tests were corrected, then the exploratory
+    families (forest plot of the smallest adjusted p-values and a table)."""
+    planned = stats[stats["analysis"] == "planned"]
     text = (
-        f"{n_sig} of {len(stats)} comparisons have q < {alpha} (Benjamini-Hochberg over all "
-        "rows). Effects are group a minus group b: Hedges' g with a 95% percentile bootstrap "
-        "interval. A small q is a reason to look at the bouts, not a finding by itself."
+        "Planned comparisons are the confirmatory tests a study names before it looks at the "
+        "data (--primary); they are corrected together with Holm's method (Holm 1979). Every "
+        "other test is exploratory, as is common practice in confirmatory research: corrected "
+        "with Benjamini-Hochberg (1995) within its family of measurements (time budget, bout "
+        "rate, bout duration, transitions), it is a reason to look at the bouts, not a finding. "
+        "Tests whose values do not vary are listed as not testable and are not counted. Effects "
+        "are group a minus group b: Hedges' g with a 95% percentile bootstrap interval."
     )
     warnings = stats.attrs.get("warnings") or []
     if warnings:
         text += " Design notes: " + " ".join(warnings)
-    top = stats.sort_values(["q_value", "p_value"], kind="stable").head(TOP_ROWS)
-    return Section(
-        "Group differences",
-        text,
-        [group_difference_figure(stats, max_rows=40)],
-        [(f"Smallest q-values (group_stats.csv has all {len(stats)})", top[list(STATS_COLUMNS)])],
+    tables = [("How the tests were corrected", family_summary(stats, alpha))]
+    figures = []
+    if len(planned):
+        tables.insert(0, ("Planned comparisons (confirmatory)", shown_tests(planned)))
+        if metrics is not None:
+            figures.append(planned_values_figure(metrics, planned))
+    explore = stats[(stats["analysis"] != "planned") & stats["testable"]]
+    if len(explore):
+        figures.append(group_difference_figure(explore, max_rows=FOREST_ROWS))
+        top = explore.sort_values(["q_value", "p_value"], kind="stable").head(TOP_ROWS)
+        caption = f"Exploratory tests with the smallest q (group_stats.csv has all {len(stats)})"
+        tables.append((caption, shown_tests(top)))
+    return Section("Group differences", headline(stats, alpha), figures, tables, note=text)
+
+
+def _g(v: float) -> str:
+    return "" if not np.isfinite(v) else f"{v:.3g}"
+
+
+def shown_tests(rows: pd.DataFrame) -> pd.DataFrame:
+    """Test rows as a compact table for the page (group_stats.csv keeps every column)."""
+    return pd.DataFrame(
+        {
+            "family": rows["family"],
+            "metric": rows["metric"],
+            "motif": rows["motif"].astype(str),
+            "a vs b": rows["group_a"] + " vs " + rows["group_b"],
+            "n": rows["n_a"].astype(int).astype(str) + " / " + rows["n_b"].astype(int).astype(str),
+            "mean a": rows["mean_a"].map(_g),
+            "mean b": rows["mean_b"].map(_g),
+            "Hedges' g [95% CI]": [
+                f"{_g(g)} [{_g(lo)}, {_g(hi)}]" if np.isfinite(g) else ""
+                for g, lo, hi in zip(
+                    rows["effect_size"], rows["ci_low"], rows["ci_high"], strict=True
+                )
+            ],
+            "p": rows["p_value"].map(_g),
+            "adjusted p": rows["q_value"].map(_g),
+        }
     )
