@@ -162,7 +162,7 @@ DUNE_VOLE = BodyPlan(
         "approaching": {"scanning": 0.5, "walking": 0.3, "grooming": 0.2},
     },
     groups=("standard", "enriched"),
-    group_effects={"enriched": GroupEffect("digging", time_budget_ratio=1.5)},
+    group_effects={"enriched": GroupEffect("digging", time_budget_ratio=1.8, duration_ratio=1.3)},
     arena=(400.0, 400.0),
     wall_margin=50.0,
     noise=TrackingNoise(
