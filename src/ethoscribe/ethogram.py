@@ -39,6 +39,7 @@ from ethoscribe.transitions import (
     transition_entropy,
     transition_matrix,
     transition_table,
+    transitions_above_chance,
 )
 
 __all__ = [
@@ -59,6 +60,7 @@ __all__ = [
     "transition_entropy",
     "transition_matrix",
     "transition_table",
+    "transitions_above_chance",
     "with_groups",
 ]
 

@@ -12,6 +12,7 @@ from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
+from scipy import stats as sps
 
 from ethoscribe.errors import InputError
 from ethoscribe.label_table import GroupSpec, check_columns, grouping_keys, with_groups
@@ -182,3 +183,71 @@ def transition_entropy(matrix: pd.DataFrame) -> TransitionEntropy:
     stationary = pd.Series(pi, index=matrix.index)
     rate = float(np.nansum(pi * rows.to_numpy())) if k else float("nan")
     return TransitionEntropy(rows, stationary, rate)
+
+
+def transitions_above_chance(
+    data: pd.DataFrame, alpha: float = 0.05, max_iter: int = 1000
+) -> pd.DataFrame:
+    """Which transitions happen more often than chance, with a test per transition.
+
+    Chance is the quasi-independence model of the pooled count matrix: the next motif does not
+    depend on the current one, except that a motif never follows itself (the diagonal is a
+    structural zero). Its expected counts keep every motif's outgoing and incoming totals and are
+    fitted by iterative proportional fitting (Bishop, Fienberg & Holland 1975, Discrete
+    Multivariate Analysis, ch. 5; from memory) -- the maximum-likelihood fit of a Poisson model
+    with row and column effects on the off-diagonal cells. Each observed count is tested against
+    its expected share of the row's transitions with a one-sided binomial test, and the p-values
+    are Benjamini-Hochberg-corrected over all off-diagonal cells.
+
+    Parameters
+    ----------
+    data : DataFrame
+        A bout table or a transition table (see :func:`transition_matrix`).
+    alpha : float
+        Level for ``above_chance`` (``q_value < alpha`` and more transitions than expected).
+
+    Returns
+    -------
+    DataFrame
+        ``from_motif, to_motif, count, n_from, probability, expected_probability, ratio,
+        p_value, q_value, above_chance``, one row per off-diagonal pair of motifs with outgoing
+        transitions (``ratio`` = observed / expected count).
+
+    Examples
+    --------
+    >>> t = pd.DataFrame({"from_motif": ["a", "a", "b", "b", "c", "c"],
+    ...                   "to_motif": ["b", "c", "a", "c", "a", "b"],
+    ...                   "count": [40, 2, 30, 30, 20, 20]})
+    >>> r = transitions_above_chance(t)
+    >>> r.loc[r["above_chance"], ["from_motif", "to_motif"]].values.tolist()
+    [['a', 'b'], ['c', 'a']]
+    """
+    counts = transition_matrix(data, counts=True)
+    n = counts.to_numpy(np.float64)
+    off = ~np.eye(len(n), dtype=bool)
+    rows, cols = n.sum(axis=1), n.sum(axis=0)
+    expected = off.astype(np.float64)
+    for _ in range(max_iter):  # iterative proportional fitting with a zero diagonal
+        with np.errstate(invalid="ignore", divide="ignore"):
+            expected *= np.nan_to_num(rows / expected.sum(axis=1))[:, None]
+            expected *= np.nan_to_num(cols / expected.sum(axis=0))[None, :]
+        if np.allclose(expected.sum(axis=1), rows, rtol=1e-10, atol=1e-9):
+            break
+    out = []
+    motifs = [str(m) for m in counts.index]
+    for i, j in zip(*np.nonzero(off & (rows[:, None] > 0)), strict=True):
+        p0 = expected[i, j] / rows[i]
+        p = float(sps.binom.sf(n[i, j] - 1, rows[i], p0)) if p0 > 0 else float(n[i, j] == 0)
+        out.append(
+            (motifs[i], motifs[j], int(n[i, j]), int(rows[i]), n[i, j] / rows[i], p0,
+             n[i, j] / expected[i, j] if expected[i, j] > 0 else np.nan, min(p, 1.0))
+        )  # fmt: skip
+    columns = [
+        "from_motif", "to_motif", "count", "n_from", "probability", "expected_probability",
+        "ratio", "p_value",
+    ]  # fmt: skip
+    table = pd.DataFrame(out, columns=columns)
+    p = table["p_value"].to_numpy(np.float64)
+    table["q_value"] = sps.false_discovery_control(p) if len(p) else p
+    table["above_chance"] = (table["q_value"] < alpha) & (table["ratio"] > 1)
+    return table

@@ -13,14 +13,18 @@ import numpy as np
 import pandas as pd
 import plotly.colors
 import plotly.graph_objects as go
+from scipy.cluster import hierarchy
+from scipy.spatial.distance import squareform
 
 from ethoscribe.errors import InputError
 from ethoscribe.ethogram import FpsSpec, GroupSpec, bout_table, transition_matrix, with_groups
+from ethoscribe.transitions import transitions_above_chance
 
 __all__ = [
     "duration_figure",
     "ethogram_raster",
     "motif_colours",
+    "motif_order",
     "time_budget_figure",
     "transition_diagram",
     "transition_heatmap",
@@ -210,87 +214,134 @@ def transition_heatmap(matrix: pd.DataFrame, title: str = "Transition probabilit
     return fig
 
 
+def motif_order(matrix: pd.DataFrame) -> list[str]:
+    """Motifs ordered so that those that often follow one another sit side by side.
+
+    Average-linkage clustering (scipy, with optimal leaf ordering) of the distance
+    ``1 - S / max(S)`` where ``S = (P + P.T) / 2`` is the symmetrised transition probability.
+
+    Examples
+    --------
+    >>> m = pd.DataFrame([[0, .1, .9], [.1, 0, .9], [.5, .5, 0]], index=list("abc"),
+    ...                  columns=list("abc"))
+    >>> motif_order(m)[1]
+    'c'
+    """
+    names = [str(m) for m in matrix.index]
+    if len(names) < 3:
+        return names
+    p = np.nan_to_num(matrix.to_numpy(np.float64))
+    sim = (p + p.T) / 2
+    dist = 1 - sim / sim.max() if sim.max() > 0 else np.ones_like(sim)
+    np.fill_diagonal(dist, 0.0)
+    tree = hierarchy.linkage(
+        squareform(dist, checks=False), method="average", optimal_ordering=True
+    )
+    return [names[k] for k in hierarchy.leaves_list(tree)]
+
+
 def transition_diagram(
     transitions: pd.DataFrame,
     budgets: pd.DataFrame | Mapping[str, float] | None = None,
     min_probability: float = 0.05,
+    alpha: float = 0.05,
 ) -> go.Figure:
-    """Motifs on a circle, sized by time budget, arrows as wide as the transition probability.
+    """Arc diagram of the transitions that happen more often than chance.
 
-    ``transitions`` is a square transition matrix or a transition table; ``budgets`` a mapping
-    motif -> fraction or a pooled ``time_budget(..., by=())`` table. Arrows below
-    ``min_probability`` are left out.
+    Motifs sit on a line in :func:`motif_order` (those that often follow one another side by
+    side), sized by their share of time. An arc is drawn for each transition above chance
+    (:func:`ethoscribe.ethogram.transitions_above_chance`: binomial test against the
+    quasi-independence model, Benjamini-Hochberg q < ``alpha``): above the line from left to
+    right, below it from right to left, as wide as the probability, labelled with the
+    probability and how many times chance it is.
+
+    ``transitions`` is a bout table, a transition table with counts, or the output of
+    ``transitions_above_chance``; a probability matrix (no counts, so no test) draws every
+    transition of at least ``min_probability`` and says so in the title. ``budgets``: a mapping
+    motif -> fraction or a pooled ``time_budget(..., by=())`` table.
     """
-    is_table = "from_motif" in transitions.columns
-    matrix = transition_matrix(transitions) if is_table else transitions
-    motifs = [str(m) for m in matrix.index]
+    tested = "above_chance" in transitions.columns
+    is_matrix = not tested and "from_motif" not in transitions.columns
+    is_matrix = is_matrix and "motif" not in transitions.columns
+    if is_matrix:
+        matrix = transitions
+        p = np.nan_to_num(matrix.to_numpy(np.float64))
+        idx = [(i, j) for i, j in zip(*np.nonzero(p >= min_probability), strict=True) if i != j]
+        names = [str(m) for m in matrix.index]
+        arcs = pd.DataFrame(
+            [(names[i], names[j], p[i, j], np.nan) for i, j in idx],
+            columns=["from_motif", "to_motif", "probability", "ratio"],
+        )
+        what = f"transitions with probability >= {min_probability} (untested: no counts given)"
+    else:
+        table = transitions if tested else transitions_above_chance(transitions, alpha)
+        matrix = transition_matrix(table[["from_motif", "to_motif", "count"]])
+        arcs = table[table["above_chance"]]
+        what = (
+            f"transitions above chance (binomial test against independence, BH q < {alpha}); "
+            "label: probability (x chance)"
+        )
+    order = motif_order(matrix)
+    pos = {m: k for k, m in enumerate(order)}
     if isinstance(budgets, pd.DataFrame):
         _need(budgets, ("motif", "fraction"), "the time-budget table")
         budgets = budgets.groupby("motif")["fraction"].mean().to_dict()
-    share = np.array([float((budgets or {}).get(m, 1.0)) for m in motifs])
-    size = 18 + 42 * np.sqrt(share / share.max()) if share.max() > 0 else np.full(len(motifs), 30)
-    angle = np.pi / 2 - 2 * np.pi * np.arange(len(motifs)) / max(len(motifs), 1)
-    x, y = np.cos(angle), np.sin(angle)
-    colours = motif_colours(motifs)
+    share = np.array([float((budgets or {}).get(m, 1.0)) for m in order])
+    size = 14 + 36 * np.sqrt(share / share.max()) if share.max() > 0 else np.full(len(order), 26)
+    colours = motif_colours(order)
     fig = go.Figure()
-    mid_x, mid_y, mid_text = [], [], []
-    p = np.nan_to_num(matrix.to_numpy(np.float64))
-    for i, j in zip(*np.nonzero(p >= max(min_probability, 1e-12)), strict=True):
-        if i == j:
-            continue
-        dx, dy = x[j] - x[i], y[j] - y[i]
-        norm = np.hypot(dx, dy) or 1.0
-        ox, oy = -dy / norm * 0.04, dx / norm * 0.04  # a->b and b->a side by side
+    label_x, label_y, label_text = [], [], []
+    for _, a in arcs.iterrows():
+        x0, x1 = pos[a["from_motif"]], pos[a["to_motif"]]
+        sign = 1.0 if x1 > x0 else -1.0  # left to right above the line, back below it
+        height = sign * (0.35 + 0.3 * abs(x1 - x0))
+        t = np.linspace(0, np.pi, 40)
+        xs = (x0 + x1) / 2 - (x1 - x0) / 2 * np.cos(t)
+        ys = height * np.sin(t)
+        width = 1 + 7 * float(a["probability"])
+        fig.add_trace(
+            go.Scatter(
+                x=xs, y=ys, mode="lines", line={"width": width, "color": "rgba(60,60,60,0.45)"},
+                hoverinfo="skip", showlegend=False,
+            )
+        )  # fmt: skip
         fig.add_annotation(
-            x=x[j] + ox,
-            y=y[j] + oy,
-            ax=x[i] + ox,
-            ay=y[i] + oy,
-            xref="x",
-            yref="y",
-            axref="x",
-            ayref="y",
-            showarrow=True,
-            arrowhead=2,
-            arrowsize=1,
-            arrowwidth=1 + 6 * p[i, j],
-            arrowcolor="rgba(60, 60, 60, 0.6)",
-            standoff=size[j] / 2,
-            startstandoff=size[i] / 2,
-            text="",
-        )
-        mid_x.append((x[i] + x[j]) / 2 + ox)
-        mid_y.append((y[i] + y[j]) / 2 + oy)
-        mid_text.append(f"{motifs[i]} -> {motifs[j]}: {p[i, j]:.2f}")
+            x=xs[-1], y=ys[-1], ax=xs[-4], ay=ys[-4], xref="x", yref="y", axref="x", ayref="y",
+            showarrow=True, arrowhead=2, arrowsize=1.2, arrowwidth=max(1.5, width / 2),
+            arrowcolor="rgba(60,60,60,0.8)", standoff=size[pos[a["to_motif"]]] / 2, text="",
+        )  # fmt: skip
+        ratio = "" if not np.isfinite(a["ratio"]) else f" (x{a['ratio']:.1f})"
+        label_x.append((x0 + x1) / 2)
+        label_y.append(height)
+        label_text.append(f"{a['probability']:.2f}{ratio}")
+    for x, y, text in zip(label_x, label_y, label_text, strict=True):
+        fig.add_annotation(
+            x=x, y=y, text=text, showarrow=False, font={"size": 11, "color": "#222"},
+            bgcolor="rgba(255,255,255,0.9)",
+        )  # fmt: skip
+    crowded = len(order) > 9
     fig.add_trace(
         go.Scatter(
-            x=mid_x,
-            y=mid_y,
-            mode="markers",
-            hovertext=mid_text,
-            hoverinfo="text",
-            marker={"size": 8, "opacity": 0},
-            showlegend=False,
+            x=list(range(len(order))), y=[0.0] * len(order), mode="markers",
+            marker={"size": size, "color": [colours[m] for m in order],
+                    "line": {"width": 1, "color": "#333"}},
+            hovertext=[f"{m}: {v:.1%} of time" for m, v in zip(order, share, strict=True)],
+            hoverinfo="text", showlegend=False,
         )
-    )
-    fig.add_trace(
-        go.Scatter(
-            x=x,
-            y=y,
-            mode="markers+text",
-            text=motifs,
-            textposition="middle center",
-            marker={"size": size, "color": [colours[m] for m in motifs], "line": {"width": 1}},
-            hovertext=[f"{m}: {s:.1%} of time" for m, s in zip(motifs, share, strict=True)],
-            hoverinfo="text",
-            showlegend=False,
-        )
-    )
-    hidden = {"visible": False, "range": [-1.4, 1.4]}
+    )  # fmt: skip
+    for k, m in enumerate(order):  # labels in a band of their own, staggered when crowded
+        low = crowded and k % 2
+        fig.add_annotation(
+            x=k, y=0, yref="y", showarrow=False, text=m, yshift=-(size[k] / 2 + 12 + 14 * low),
+            font={"size": 12}, bgcolor="rgba(255,255,255,0.8)",
+        )  # fmt: skip
+    reach = max([abs(y) for y in label_y] + [0.5]) + 0.35
     fig.update_layout(
-        title="Transitions between motifs",
-        xaxis=hidden,
-        yaxis={**hidden, "scaleanchor": "x"},
+        title={"text": f"Transitions between motifs<br><sup>{what}</sup>", "x": 0},
+        xaxis={"visible": False, "range": [-0.7, len(order) - 0.3]},
+        yaxis={"visible": False, "range": [-reach - 0.3, reach]},
         plot_bgcolor="white",
+        height=int(260 + 110 * reach),
+        margin={"t": 90, "b": 20},
     )
     return fig

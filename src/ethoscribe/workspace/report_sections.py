@@ -14,7 +14,12 @@ from types import SimpleNamespace
 import numpy as np
 import pandas as pd
 
-from ethoscribe.ethogram import duration_summary, pool_time_budgets, transition_matrix
+from ethoscribe.ethogram import (
+    duration_summary,
+    pool_time_budgets,
+    transition_matrix,
+    transition_table,
+)
 from ethoscribe.multiplicity import family_summary, headline
 from ethoscribe.plots.ethogram import (
     duration_figure,
@@ -27,6 +32,7 @@ from ethoscribe.plots.model import stability_figure, state_count_figure
 from ethoscribe.plots.quality import BARS, quality_figure
 from ethoscribe.plots.stats import group_difference_figure, planned_values_figure
 from ethoscribe.report import Section
+from ethoscribe.transitions import transitions_above_chance
 from ethoscribe.workspace.folder import Workspace
 
 RASTER_BARS = 6000  # bars drawn in the ethogram raster before rows are resampled
@@ -150,10 +156,26 @@ def _transition_section(bouts: pd.DataFrame, budgets: pd.DataFrame) -> Section:
         return Section(title, "No bout is directly followed by another motif's bout.")
     text = (
         "Probability that a bout of one motif is directly followed by a bout of another, pooled "
-        "over sessions (bouts separated by invalid frames are not linked)."
+        "over sessions (bouts separated by invalid frames are not linked). The diagram keeps "
+        "the transitions that happen more often than if the next motif did not depend on the "
+        "current one (tested per transition; the table lists every test)."
     )
-    figures = [transition_heatmap(matrix), transition_diagram(matrix, pool_time_budgets(budgets))]
-    return Section(title, text, figures, [("Transition probabilities", matrix.reset_index())])
+    tests = transitions_above_chance(transition_table(bouts, by=()))
+    figures = [
+        transition_heatmap(matrix),
+        transition_diagram(tests, pool_time_budgets(budgets)),
+    ]
+    shown = tests.sort_values(["above_chance", "q_value"], ascending=[False, True], kind="stable")
+    shown = shown.assign(
+        probability=shown["probability"].round(3),
+        expected_probability=shown["expected_probability"].round(3),
+        ratio=shown["ratio"].round(2),
+    )
+    tables = [
+        ("Transition probabilities (row: from, column: to)", matrix.round(3).reset_index()),
+        ("Transitions against chance", shown),
+    ]
+    return Section(title, text, figures, tables)
 
 
 def group_section(
