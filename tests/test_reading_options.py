@@ -241,3 +241,83 @@ def test_a_non_path_where_a_path_is_expected_is_a_type_error(value, argument):
 def test_a_plain_string_is_one_path(tmp_path):
     write_tidy(_tracks(), tmp_path / "m.parquet")
     assert [e["session"] for e in plan_sessions(str(tmp_path / "m.parquet"))] == ["m"]
+
+
+def _tidy_rows(t: PoseTracks, first: int, time_scale: float | None = None) -> pd.DataFrame:
+    n, _, k, _ = t.coords.shape
+    frame = np.repeat(np.arange(first, first + n), k)
+    table = pd.DataFrame(
+        {
+            "frame": frame,
+            "keypoint": np.tile(list(t.keypoints), n),
+            "x": t.coords[:, 0, :, 0].ravel(),
+            "y": t.coords[:, 0, :, 1].ravel(),
+            "likelihood": np.tile(np.linspace(0.6, 0.99, k), n),
+        }
+    )
+    if time_scale is not None:
+        table.insert(1, "time", table.pop("frame") / 30.0 * time_scale)
+    return table
+
+
+def test_a_time_column_in_milliseconds_is_refused_or_read_with_its_unit(tmp_path):
+    from ethoscribe.io import read_tidy
+
+    p = tmp_path / "ms.csv"
+    _tidy_rows(_tracks(n=120), 0, time_scale=1000.0).to_csv(p, index=False)
+    with pytest.warns(UserWarning, match=r"column\(s\) \['likelihood'\] hold numbers in \[0, 1\]"):
+        with pytest.raises(InputError, match=r"1000 frames per step.*time_unit='ms'"):
+            read_tidy(p, fps=30)
+    with pytest.warns(UserWarning, match="likelihood"):
+        with pytest.raises(InputError, match=r"0\.03 frames per second.*time_unit='ms'"):
+            read_tidy(p)
+    t = read_tidy(p, time_unit="ms", columns={"confidence": "likelihood"})
+    assert t.fps == 30.0 and t.n_frames == 120  # 4 s at 30 fps, not 4,000 s
+    np.testing.assert_allclose(t.confidence[0, 0], np.linspace(0.6, 0.99, 3))
+    with pytest.raises(InputError, match=r"names column\(s\) \['score'\] that the file"):
+        read_tidy(p, time_unit="ms", columns={"confidence": "score"})
+
+
+def test_a_wide_table_says_when_a_confidence_is_ignored_and_maps_it(tmp_path):
+    from ethoscribe.io import read_wide
+
+    t = _tracks(n=60)
+    cols = {}
+    for i, k in enumerate(t.keypoints):
+        cols[f"{k}_x"], cols[f"{k}_y"] = t.coords[:, 0, i, 0], t.coords[:, 0, i, 1]
+        cols[f"{k}_p"] = np.linspace(0.1, 0.9, 60)
+    pd.DataFrame(cols).to_csv(tmp_path / "w.csv", index=False)
+    with pytest.warns(UserWarning, match=r"confidence_axis='p'"):
+        read_wide(tmp_path / "w.csv", fps=30)
+    back = read_wide(tmp_path / "w.csv", fps=30, columns={"confidence": "p"})
+    np.testing.assert_allclose(back.confidence[:, 0, 0], np.linspace(0.1, 0.9, 60))
+
+
+def test_batch_tables_keep_the_input_frame_numbers(tmp_path):
+    """Frames numbered from 1000 with frame 1005 dropped by the tracker: the label table,
+    the bouts and the features keep those numbers, and 1005 is a gap, not renumbered."""
+    from ethoscribe.workspace import Workspace, discover
+
+    rng = np.random.default_rng(3)  # seed 3
+    keypoints = ("nose", "neck", "tail")
+    for s in range(2):
+        body = np.array([[0.0, 0.0], [5.0, 0.0], [10.0, 0.0]])
+        coords = np.cumsum(rng.normal(size=(300, 1, 3, 2)), axis=0) + body
+        table = _tidy_rows(PoseTracks(coords, keypoints=keypoints, fps=30, session="s"), 1000)
+        table = table[table["frame"] != 1005].rename(columns={"likelihood": "confidence"})
+        table.to_csv(tmp_path / f"rec{s}.csv", index=False)
+    out = tmp_path / "ws"
+    files = [tmp_path / "rec0.csv", tmp_path / "rec1.csv"]
+    discover(files, out, fps=30, states=2, axis=("tail", "nose"), progress=False,
+             stability=False, jobs=1)  # fmt: skip
+    labels = pd.read_parquet(out / "labels.parquet")
+    first = labels[labels["session"] == "rec0"]
+    assert first["frame"].iloc[0] == 1000 and first["frame"].iloc[-1] == 1299
+    assert first["time_s"].iloc[0] == pytest.approx(1000 / 30)
+    # The dropped frame keeps its place (a gap, here short enough to be filled): 300 rows.
+    assert first["frame"].tolist() == list(range(1000, 1300))
+    bouts = pd.read_csv(out / "bouts.csv")
+    assert bouts["start_frame"].min() >= 1000 and bouts["stop_frame"].max() <= 1300
+    assert pd.read_csv(out / "sessions.csv")["first_frame"].tolist() == [1000, 1000]
+    feats = Workspace(out).features()
+    assert feats.groupby("session")["frame"].min().tolist() == [1000, 1000]

@@ -467,6 +467,7 @@ _OPTIONS = {
     "scheduler": "--scheduler", "manifest": "--manifest", "out": "--out",
 }  # fmt: skip
 _ASSIGNMENT = re.compile(r"\b(" + "|".join(_OPTIONS) + r")=(True|\.\.\.|[^\s,;)]+)?")
+_BOTH = re.compile(r"pass ([^()]*?) \(command line: ([^)]*)\)")
 _NESTED = re.compile(r"\bcleaning=\{'(\w+)': ([^}]*)\}")
 _COMPARED = re.compile(r"\b(" + "|".join(_OPTIONS) + r")(?= *(?:>=|<=|must|takes))")
 
@@ -483,8 +484,10 @@ def command_line_message(message: str) -> str:
 
     def flag(name: str, value: str | None) -> str:
         option = _OPTIONS.get(name, "--" + name.replace("_", "-"))
+        value = None if value is None else value.strip("'\"")
         return option if value in (None, "", "True") else f"{option} {value}"
 
+    message = _BOTH.sub(r"pass \2", message)
     message = _NESTED.sub(lambda m: flag(m.group(1), m.group(2)), message)
     message = _ASSIGNMENT.sub(lambda m: flag(m.group(1), m.group(2)), message)
     return _COMPARED.sub(lambda m: _OPTIONS[m.group(1)], message)

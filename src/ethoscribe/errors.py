@@ -25,3 +25,7 @@ class WorkspaceError(EthoscribeError):
 
 class UnsafeFileError(EthoscribeError):
     """A file would need code execution (pickle) or points outside its folder: refused."""
+
+
+class InputWarning(UserWarning):
+    """Input that was read, but may not have been read as meant (the message says how to say)."""

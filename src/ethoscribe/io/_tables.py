@@ -9,7 +9,9 @@ from __future__ import annotations
 import csv
 import json
 import os
-from dataclasses import dataclass, field
+import warnings
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -20,7 +22,7 @@ import pyarrow.compute as pc
 import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io._atomic import TABLE_SUFFIXES
 from ethoscribe.pose import PoseTracks
 
@@ -36,6 +38,11 @@ class TableInfo:
     kind: str
     columns: tuple[str, ...]
     metadata: dict[str, Any] = field(default_factory=dict)
+    renamed: dict[str, str] = field(default_factory=dict)  # role -> the file's column name
+
+    def source(self, name: str) -> str:
+        """The file's name of column ``name`` (a role given by a column mapping, or itself)."""
+        return self.renamed.get(name, name)
 
     def row(self, i: int) -> str:
         """Human location of data row ``i`` (0-based): a line for CSV, a row for Parquet."""
@@ -104,6 +111,40 @@ def table_info(path: Path) -> TableInfo:
     return TableInfo(path, kind, columns, metadata)
 
 
+def map_columns(
+    info: TableInfo, mapping: Mapping[str, str] | None, roles: Sequence[str]
+) -> TableInfo:
+    """``info`` with the file's columns known by the roles ``mapping`` gives them.
+
+    ``mapping`` is ``{role: column}``, e.g. ``{"confidence": "likelihood", "x": "pos_x"}``; a
+    column already named like a mapped role is then ignored.
+    """
+    if not mapping:
+        return info
+    if not isinstance(mapping, Mapping):
+        raise InputError(
+            f"{info.path}: columns must map roles to column names, e.g. "
+            f"{{'confidence': 'likelihood'}}; got {type(mapping).__name__}"
+        )
+    unknown = sorted(set(mapping) - set(roles))
+    if unknown:
+        raise InputError(
+            f"{info.path}: columns= names unknown role(s) {unknown}; the roles are {list(roles)}"
+        )
+    missing = sorted(c for c in mapping.values() if c not in info.columns)
+    if missing:
+        raise InputError(
+            f"{info.path}: columns= names column(s) {missing} that the file does not have; "
+            f"its columns are {list(info.columns)[:30]}"
+        )
+    by_column = {str(c): str(r) for r, c in mapping.items()}
+    if len(by_column) != len(mapping):
+        raise InputError(f"{info.path}: columns= gives one column several roles: {dict(mapping)}")
+    shadowed = set(mapping) - set(mapping.values())
+    renamed = [by_column.get(c, f"{c} (not used)" if c in shadowed else c) for c in info.columns]
+    return replace(info, columns=tuple(renamed), renamed={**info.renamed, **dict(mapping)})
+
+
 def require_columns(info: TableInfo, needed: list[str], purpose: str) -> None:
     """Raise listing the missing columns, the columns found and near misses."""
     missing = [c for c in needed if c not in info.columns]
@@ -126,6 +167,18 @@ def read_columns(
 
     Columns in ``whole`` stored as integers without gaps come back as int64 instead.
     """
+    if info.renamed:  # a column mapping: read the file's columns, hand them back by role
+        src = info.source
+        values, text_cols = read_columns(
+            replace(info, renamed={}, columns=tuple(src(c) for c in info.columns)),
+            [src(c) for c in numbers],
+            [src(c) for c in texts],
+            whole=tuple(src(c) for c in whole),
+        )
+        return (
+            {c: values[src(c)] for c in numbers},
+            {c: text_cols[src(c)] for c in texts},
+        )
     if info.kind == "csv":
         table = _read_csv(info, numbers, texts)
         n_rows, read = table.num_rows, table.select
@@ -305,6 +358,33 @@ def integer_frames(values: np.ndarray, name: str, info: TableInfo) -> np.ndarray
             f"{values[i]:g}. If these are times in seconds, name the column 'time'."
         )
     return values.astype(np.int64)
+
+
+def confidence_lookalikes(info: TableInfo, known: Sequence[str], limit: int = 6) -> list[str]:
+    """Numeric columns outside ``known`` whose every filled value lies in [0, 1]: a tracker's
+    confidence under another name, perhaps (``likelihood``, ``score``, ``p``)."""
+    found = []
+    for column in [c for c in info.columns if c not in known][:limit]:
+        try:
+            values, _ = read_columns(info, [column], [])
+        except InputError:  # text, or unreadable: not a confidence
+            continue
+        v = values[column]
+        v = v[np.isfinite(v)]
+        if v.size and v.min() >= 0 and v.max() <= 1 and np.unique(v[:10_000]).size > 2:
+            found.append(column)
+    return found
+
+
+def warn_unmapped_confidence(info: TableInfo, columns: list[str], fix: str) -> None:
+    """Say that columns looking like a confidence are not read as one, and how to use them."""
+    if not columns:
+        return
+    msg = (
+        f"{info.path}: no confidence column was read, but column(s) {columns} hold numbers in "
+        f"[0, 1] like a tracker's confidence; they are ignored. To use one: {fix}"
+    )
+    warnings.warn(msg, InputWarning, stacklevel=3)
 
 
 def check_confidence(values: np.ndarray, name: str, info: TableInfo) -> None:

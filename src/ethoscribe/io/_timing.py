@@ -12,6 +12,58 @@ import numpy as np
 
 from ethoscribe.errors import InputError
 
+TIME_UNITS = {"s": 1.0, "ms": 1e-3}
+# A time step of this many frames (or more) at the given rate is a unit slip, not dropped frames.
+UNIT_SLIP_FRAMES = 50
+# Derived rates below this need the unit said out loud (milliseconds read as seconds give 0.03).
+SLOWEST_UNSAID_FPS = 1.0
+
+
+def seconds(times: np.ndarray, unit: str | None, where: str | os.PathLike[str]) -> np.ndarray:
+    """Times in ``unit`` ("s" or "ms"; None: seconds) as seconds."""
+    if unit is None or unit == "s":
+        return times
+    if unit not in TIME_UNITS:
+        raise InputError(
+            f"{where}: time_unit must be one of {list(TIME_UNITS)} (seconds or milliseconds); "
+            f"got {unit!r}"
+        )
+    return times * TIME_UNITS[unit]
+
+
+def check_time_unit(
+    steps: np.ndarray,
+    fps: float | None,
+    unit: str | None,
+    where: str | os.PathLike[str],
+    column: str = "time",
+) -> None:
+    """Refuse time stamps whose unit cannot be what the frame rate says.
+
+    ``steps`` are positive time steps between frames (seconds, after ``unit``). With ``fps``:
+    a typical step of ``UNIT_SLIP_FRAMES`` frames or more is a unit slip (milliseconds read as
+    seconds step 1000 frames at a time). Without it: a derived rate below 1 frame per second
+    must have its unit given (``time_unit="s"``).
+    """
+    steps = steps[np.isfinite(steps) & (steps > 0)]
+    if not steps.size:
+        return
+    step = float(np.median(steps))
+    if fps is not None and step * fps >= UNIT_SLIP_FRAMES:
+        raise InputError(
+            f"{where}: column '{column}' advances by {step:.6g} s per row (median), which at "
+            f"{fps:g} fps is {step * fps:.0f} frames per step; check the '{column}' column: if "
+            "the times are in milliseconds pass time_unit='ms', otherwise check the frame rate "
+            "(fps=...)"
+        )
+    if fps is None and unit is None and 1.0 / step < SLOWEST_UNSAID_FPS:
+        raise InputError(
+            f"{where}: column '{column}' advances by {step:.6g} per row (median), which read "
+            f"as seconds is {1.0 / step:.3g} frames per second; check the '{column}' column: if "
+            "the times are in milliseconds pass time_unit='ms', if they are seconds pass "
+            "time_unit='s' (or fps=...)"
+        )
+
 
 def require_two_frames(n_frames: int, where: str | os.PathLike[str]) -> None:
     """Movement needs at least two frames."""

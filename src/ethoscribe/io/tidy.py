@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import os
+from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
@@ -22,22 +23,29 @@ from ethoscribe.io._tables import (
     check_confidence,
     check_file,
     check_fps,
+    confidence_lookalikes,
     integer_frames,
     make_tracks,
+    map_columns,
     read_columns,
     require_columns,
     table_info,
     text_codes,
+    warn_unmapped_confidence,
 )
 from ethoscribe.io._timing import (
+    SLOWEST_UNSAID_FPS,
     check_frame_span,
+    check_time_unit,
     frames_from_times,
     require_two_frames,
+    seconds,
     snap_rate,
 )
 from ethoscribe.pose import PoseTracks
 
 _OPTIONAL = ("z", "confidence")
+_ROLES = ("frame", "time", "keypoint", "animal", "x", "y", "z", "confidence")
 
 
 def read_tidy(
@@ -46,6 +54,8 @@ def read_tidy(
     session: str | None = None,
     units: str | None = None,
     keypoints: list[str] | None = None,
+    columns: Mapping[str, str] | None = None,
+    time_unit: str | None = None,
 ) -> PoseTracks:
     """Read a tidy table (``.csv``, ``.parquet``, ``.pq``) into ``PoseTracks``.
 
@@ -62,12 +72,22 @@ def read_tidy(
         Coordinate units; defaults to the file's record (Parquet from ``write_tidy``) or "px".
     keypoints : list of str, optional
         Keep only these keypoints, in this order.
+    columns : mapping, optional
+        Which column holds what when the names differ: ``{"confidence": "likelihood",
+        "x": "pos_x", "keypoint": "bodypart"}`` (roles: frame, time, keypoint, animal, x, y, z,
+        confidence). Without a confidence column, numeric columns in [0, 1] are named in an
+        ``InputWarning``.
+    time_unit : "s" or "ms", optional
+        Unit of the ``time`` column (default seconds). Time steps that cannot be seconds at the
+        given ``fps`` (or rates below 1 frame per second without ``time_unit``) are refused.
 
     Returns
     -------
     PoseTracks
         coords (frames, animals, keypoints, dims). Frames count from the first frame in the file;
-        ``meta["first_frame"]`` keeps its original number and ``meta["source"]`` the path.
+        ``meta["first_frame"]`` keeps its original number (batch runs number their tables from
+        it) and ``meta["source"]`` the path. Frames missing inside the file are all-missing
+        frames, never renumbered.
 
     Examples
     --------
@@ -81,7 +101,7 @@ def read_tidy(
     """
     path = check_file(path)
     fps = check_fps(fps, path)
-    info = table_info(path)
+    info = map_columns(table_info(path), columns, _ROLES)
     time_col = "frame" if "frame" in info.columns else "time"
     require_columns(info, [time_col, "keypoint", "x", "y"], "a tidy pose table")
     if fps is None:
@@ -92,6 +112,11 @@ def read_tidy(
     numbers = [c for c in numbers if c not in skip]
     texts = [c for c in ("keypoint", "animal") if c in info.columns]
     values, text_cols = read_columns(info, numbers, texts, whole=("frame",))
+    if "time" in values:
+        values["time"] = seconds(values["time"], time_unit, info.path)
+    if "confidence" not in values:
+        fix = "pass columns={'confidence': NAME} (command line: --columns confidence=NAME)"
+        warn_unmapped_confidence(info, confidence_lookalikes(info, _ROLES), fix)
 
     kp_codes, kp_names = text_codes(text_cols["keypoint"], "keypoint", info)
     if "animal" in text_cols:
@@ -103,9 +128,10 @@ def read_tidy(
         an_codes = an_codes[keep] if an_codes.ndim else an_codes
         values = {c: v[keep] for c, v in values.items()}
 
-    frames, fps, extra = _frames(info, values, fps)
+    frames, fps, extra = _frames(info, values, fps, time_unit)
     n_frames = int(frames.max()) + 1
-    check_frame_span(n_frames, frames.size, extra["first_frame"], info.path, time_col)
+    per_frame = max(len(kp_names) * len(an_names), 1)  # rows of one frame: count frames
+    check_frame_span(n_frames, frames.size // per_frame, extra["first_frame"], info.path, time_col)
     shape = (n_frames, len(an_names), len(kp_names))
     flat = (frames * shape[1] + an_codes) * shape[2] + kp_codes
     _check_complete(info, flat, shape, kp_names, an_names, extra["first_frame"])
@@ -160,13 +186,14 @@ def _select_keypoints(
 
 
 def _frames(
-    info: TableInfo, values: dict[str, np.ndarray], fps: float | None
+    info: TableInfo, values: dict[str, np.ndarray], fps: float | None, time_unit: str | None
 ) -> tuple[np.ndarray, float, dict[str, float | int]]:
     """0-based frame of every row, the frame rate and timing metadata."""
     if "frame" not in values:
         times = values["time"]
         _no_empty_times(info, times)
         unique, inverse = np.unique(times, return_inverse=True)
+        check_time_unit(np.diff(unique), fps, time_unit, info.path, info.source("time"))
         frames, fps, t0 = frames_from_times(unique, fps, info.path)
         first = round(t0 * fps)
         return frames[inverse], fps, {"first_frame": first, "start_time_s": t0}
@@ -177,6 +204,9 @@ def _frames(
     require_two_frames(n_frames, info.path)
     if fps is None and "time" in values:
         fps = _fps_from_frame_times(info, frames, values["time"], first)
+        if time_unit is None and fps < SLOWEST_UNSAID_FPS:
+            step = 1.0 / fps
+            check_time_unit(np.array([step]), None, None, info.path, info.source("time"))
     if fps is None:
         raise InputError(
             f"{info.path}: the frame rate is unknown: the table has a 'frame' column but no "

@@ -9,7 +9,8 @@ from __future__ import annotations
 
 import os
 import re
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -19,16 +20,20 @@ from ethoscribe.io._tables import (
     check_confidence,
     check_file,
     check_fps,
+    confidence_lookalikes,
     integer_frames,
     make_tracks,
     read_columns,
     require_columns,
     table_info,
+    warn_unmapped_confidence,
 )
 from ethoscribe.io._timing import (
     check_frame_span,
+    check_time_unit,
     frames_from_times,
     require_two_frames,
+    seconds,
 )
 from ethoscribe.pose import PoseTracks
 
@@ -82,6 +87,8 @@ def read_wide(
     session: str | None = None,
     units: str = "px",
     keypoints: list[str] | None = None,
+    columns: Mapping[str, str] | None = None,
+    time_unit: str | None = None,
 ) -> PoseTracks:
     """Read a wide table (one row per frame) whose columns follow ``pattern``.
 
@@ -105,6 +112,13 @@ def read_wide(
         Without ``{animal}`` in the pattern: the animal's id. With it: read only this animal.
     session, units, keypoints
         Session name (default: file stem), coordinate units, keypoints to keep (in order).
+    columns : mapping, optional
+        The command line's column mapping in wide terms: ``{"confidence": "likelihood"}`` sets
+        ``confidence_axis``, ``{"x": "X", "y": "Y"}`` the axes, ``{"frame": ...}`` /
+        ``{"time": ...}`` the timing columns. Without confidence columns, an ``InputWarning``
+        names axis words whose columns hold numbers in [0, 1].
+    time_unit : "s" or "ms", optional
+        Unit of ``time_column`` (default seconds); checked against ``fps`` as ``read_tidy`` does.
 
     Returns
     -------
@@ -123,6 +137,9 @@ def read_wide(
     """
     path = check_file(path)
     fps = check_fps(fps, path)
+    axes, confidence_axis, frame_column, time_column = _mapped(
+        path, columns, axes, confidence_axis, frame_column, time_column
+    )
     if len(axes) not in (2, 3):
         raise InputError(f"axes must name 2 or 3 axes (x, y[, z]); got {list(axes)}")
     info = table_info(path)
@@ -132,7 +149,9 @@ def read_wide(
     animals, kp_names, n_dims = _layout(info, found, axes, animal, "{animal}" in pattern, keypoints)
     whole = (frame_column,) if frame_column is not None else ()
     values, _ = read_columns(info, [*timing, *found.values()], [], whole=whole)
-    frames, fps, extra = _frames(info, values, fps, frame_column, time_column)
+    if time_column is not None:
+        values[time_column] = seconds(values[time_column], time_unit, info.path)
+    frames, fps, extra = _frames(info, values, fps, frame_column, time_column, time_unit)
     n_frames = int(frames[-1]) + 1
     timing_column = frame_column or time_column or "row order"
     check_frame_span(n_frames, len(frames), extra["first_frame"], info.path, timing_column)
@@ -148,6 +167,8 @@ def read_wide(
         elif axes.index(axis) < n_dims:
             coords[frames, i, j, axes.index(axis)] = values[column]
     has_conf = any(axis == confidence_axis for _, _, axis in found)
+    if not has_conf:
+        _warn_lookalike(info, pattern, ignored, kp_names)
     return make_tracks(
         path,
         coords=coords,
@@ -236,6 +257,7 @@ def _frames(
     fps: float | None,
     frame_column: str | None,
     time_column: str | None,
+    time_unit: str | None = None,
 ) -> tuple[np.ndarray, float, dict[str, float | int]]:
     """0-based frame of each row, frame rate and timing metadata."""
     n_rows = len(next(iter(values.values())))
@@ -249,6 +271,7 @@ def _frames(
             i = int(np.flatnonzero(np.isnan(times))[0])
             raise InputError(f"{info.path}: column '{time_column}' is empty at {info.row(i)}")
         _increasing(info, times, time_column)
+        check_time_unit(np.diff(times), fps, time_unit, info.path, time_column)
         frames, fps, t0 = frames_from_times(times, fps, info.path, time_column)
         return frames, fps, {"first_frame": round(t0 * fps), "start_time_s": t0}
     else:
@@ -260,6 +283,64 @@ def _frames(
             "time_column=... if the table has times in seconds"
         )
     return frames, fps, {"first_frame": first}
+
+
+_ROLES = ("frame", "time", "x", "y", "z", "confidence")
+
+
+def _mapped(
+    path: Any,
+    columns: Mapping[str, str] | None,
+    axes: Sequence[str],
+    confidence_axis: str | None,
+    frame_column: str | None,
+    time_column: str | None,
+) -> tuple[tuple[str, ...], str | None, str | None, str | None]:
+    """Axes, confidence axis and timing columns after a ``columns`` mapping."""
+    axes = tuple(axes)
+    if not columns:
+        return axes, confidence_axis, frame_column, time_column
+    if not isinstance(columns, Mapping):
+        raise InputError(
+            f"{path}: columns must map roles to names, e.g. {{'confidence': 'likelihood'}}; "
+            f"got {type(columns).__name__}"
+        )
+    unknown = sorted(set(columns) - set(_ROLES))
+    if unknown:
+        raise InputError(
+            f"{path}: columns= names unknown role(s) {unknown}; for wide tables the roles are "
+            f"{list(_ROLES)} (x/y/z/confidence name the axis word in the column names)"
+        )
+    axes = tuple(columns.get(a, axes[i]) if i < len(axes) else a for i, a in
+                 enumerate(("x", "y", "z")[: len(axes)]))  # fmt: skip
+    return (
+        axes,
+        columns.get("confidence", confidence_axis),
+        columns.get("frame", frame_column),
+        columns.get("time", time_column),
+    )
+
+
+def _warn_lookalike(
+    info: TableInfo, pattern: str, ignored: list[str], keypoints: list[str]
+) -> None:
+    """Name axis words of ignored columns that look like a confidence (one per keypoint)."""
+    regex = re.compile(pattern_regex(pattern, ("AXISWORD",), None).pattern.replace(
+        "AXISWORD", "[A-Za-z0-9]+"))  # fmt: skip
+    words: dict[str, list[str]] = {}
+    for column in ignored:
+        m = regex.fullmatch(column)
+        if m and m.group("keypoint") in keypoints:
+            words.setdefault(m.group("axis"), []).append(column)
+    candidates = [cols[0] for cols in words.values()]
+    looks = confidence_lookalikes(info, [c for c in info.columns if c not in candidates])
+    if looks:
+        word = next(w for w, cols in words.items() if cols[0] == looks[0])
+        fix = (
+            f"pass confidence_axis={word!r} (command line: --columns confidence={word}) so "
+            f"that columns like {looks[0]!r} are read as confidence"
+        )
+        warn_unmapped_confidence(info, looks, fix)
 
 
 def _increasing(info: TableInfo, values: np.ndarray, column: str) -> None:

@@ -13,6 +13,7 @@ reads them back from the cache, so a cached rerun gives exactly the files of the
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import hashlib
 import json
@@ -114,6 +115,7 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
     # Written last: its presence says the session's cache entry is complete. It carries the
     # cleaning values resolved for this session (automatic swap pairs, speed bound ...).
     row = {**session_row(entry, tracks), CLEANING_USED: report.params}
+    row["first_frame"] = first_frame(cleaned)  # at the cleaned rate, as the labels count
     atomic_write_json(info["row"], jsonable(row))
     return {**info, "reused": False}
 
@@ -201,8 +203,12 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
             return _absolute(info, folder)
     tracks, _, _ = load_prepared(prepared)
     model = _cached_model(job["model"], job["model_key"])
-    feats = model.featurise_cleaned([tracks])
-    labels = model.label_features(feats)
+    first = first_frame(tracks)
+    feats = [
+        dataclasses.replace(f, meta={**f.meta, "first_frame": first})
+        for f in model.featurise_cleaned([tracks])
+    ]
+    labels = input_frame_numbers(model.label_features(feats), first, tracks.fps)
     write_table(labels, f"{base}.labels.parquet")
     names = []
     for i, f in enumerate(feats):
@@ -211,6 +217,29 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     info = {"session": tracks.session, "labels": f"{base.name}.labels.parquet", "features": names}
     atomic_write_json(done, info)  # last: its presence says the entry is complete
     return _absolute(info, folder)
+
+
+def first_frame(tracks: PoseTracks) -> int:
+    """The input's number of the first frame of (cleaned) tracks, at their frame rate.
+
+    Readers keep it in ``meta["first_frame"]`` (frames numbered from 1 or 1000, or a dropped
+    first frame); resampled tracks count it at the new rate.
+    """
+    first = tracks.meta.get("first_frame", 0)
+    first = int(first) if isinstance(first, (int, float, np.integer, np.floating)) else 0
+    cleaning = tracks.meta.get("cleaning") or {}
+    fps_in, fps_out = cleaning.get("fps_in"), cleaning.get("fps_out")
+    if fps_in and fps_out and fps_in != fps_out:
+        first = round(first * float(fps_out) / float(fps_in))
+    return first
+
+
+def input_frame_numbers(labels: pd.DataFrame, first: int, fps: float) -> pd.DataFrame:
+    """Label rows numbered as the input numbers its frames (and timed from that frame)."""
+    if first:
+        labels["frame"] = labels["frame"].to_numpy(np.int64) + first
+        labels["time_s"] = labels["frame"].to_numpy(np.float64) / fps
+    return labels
 
 
 def _absolute(info: dict[str, Any], folder: Path) -> dict[str, Any]:

@@ -135,6 +135,7 @@ def save_features(path: Path, f: FeatureSet) -> None:
             session=np.array(f.session),
             animal=np.array(f.animal),
             fps=np.array(f.fps),
+            first_frame=np.array(int(f.meta.get("first_frame", 0)), dtype=np.int64),
         )
 
 
@@ -165,8 +166,18 @@ def load_features(path: Path) -> FeatureSet:
         session=str(z["session"]),
         animal=str(z["animal"]),
         fps=float(z["fps"]),
-        meta={},
+        meta={"first_frame": _first_frame(z)},
     )
+
+
+def _first_frame(z: Any) -> int:
+    """The input's number of a feature file's first frame (0 in files from before it was kept)."""
+    if "first_frame" not in z:
+        return 0
+    value = z["first_frame"]
+    if value.ndim != 0 or value.dtype.kind not in "iu":
+        return 0
+    return int(value)
 
 
 def load_model(folder: Path) -> BehaviourModel:

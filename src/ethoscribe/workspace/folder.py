@@ -130,11 +130,15 @@ def write_ethogram_tables(
 
 
 def features_table(feats: Sequence[FeatureSet]) -> pd.DataFrame:
-    """Feature sets as one table: ``session, animal, frame`` + feature columns."""
+    """Feature sets as one table: ``session, animal, frame`` + feature columns.
+
+    Frames carry the input's numbers (``meta["first_frame"]`` onwards), as the label tables do.
+    """
     parts = []
     for f in feats:
         frame = pd.DataFrame(f.values, columns=list(f.columns))
-        frame.insert(0, "frame", np.arange(len(frame)))
+        first = int(f.meta.get("first_frame", 0))
+        frame.insert(0, "frame", np.arange(first, first + len(frame)))
         frame.insert(0, "animal", f.animal)
         frame.insert(0, "session", f.session)
         parts.append(frame)

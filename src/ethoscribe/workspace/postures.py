@@ -29,7 +29,7 @@ import pandas as pd
 from ethoscribe.clean import calibrate, clean
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.io._atomic import atomic_write
-from ethoscribe.io._safe import safe_child
+from ethoscribe.io._safe import loads_json, safe_child
 from ethoscribe.postures import (
     egocentric_postures,
     mean_postures,
@@ -84,6 +84,14 @@ def _row(ws: Workspace, session: str) -> dict[str, Any]:
         known = table["session"].astype(str).tolist()
         raise InputError(f"no session {session!r} in {ws.path / 'sessions.csv'}; known: {known}")
     return rows.iloc[0].to_dict()
+
+
+def _first_frames(sessions: pd.DataFrame) -> dict[str, int]:
+    """Each session's first input frame number (0 for workspaces made before it was kept)."""
+    if "first_frame" not in sessions:
+        return {}
+    values = pd.to_numeric(sessions["first_frame"], errors="coerce").fillna(0).astype(np.int64)
+    return dict(zip(sessions["session"].astype(str), values.tolist(), strict=True))
 
 
 def _key(source: Path, model: BehaviourModel) -> str:
@@ -148,7 +156,13 @@ def compute_session_postures(
     source = source_file(ws, session)
     fps = row.get("fps")
     fps = float(fps) if fps is not None and np.isfinite(fps) else None
-    (tracks,), _ = read_sessions([source], fps=fps, progress=False)
+    fmt = row.get("format")
+    fmt = fmt if isinstance(fmt, str) and fmt else None
+    options = row.get("reader_options")
+    options = loads_json(options, "sessions.csv") if isinstance(options, str) and options else {}
+    (tracks,), _ = read_sessions(
+        [source], fps=fps, progress=False, format=fmt, reader_options=options
+    )
     px = row.get("px_per_unit")
     if px is not None and not (isinstance(px, float) and np.isnan(px)):
         tracks = calibrate(tracks, float(px), str(row.get("units") or "mm"))
@@ -283,6 +297,7 @@ class PostureLibrary:
     def set_states(self, frame_states: pd.DataFrame, n_states: int) -> None:
         """Sum postures per state; ``frame_states`` has ``session, animal, frame, state``."""
         groups = frame_states.groupby(["session", "animal"], sort=False).indices
+        first = _first_frames(self.ws.sessions)
         frames = frame_states["frame"].to_numpy(np.int64)
         states = frame_states["state"].to_numpy(np.int64)
         sums = counts = None
@@ -294,8 +309,8 @@ class PostureLibrary:
                 missing.append(f"{session}: {exc}")
                 continue
             a = p.animals.index(str(animal)) if str(animal) in p.animals else 0
-            f = frames[rows]
-            ok = f < len(p.coords)
+            f = frames[rows] - first.get(str(session), 0)  # input frame numbers -> rows
+            ok = (f >= 0) & (f < len(p.coords))
             s, c = posture_sums(p.coords[f[ok], a], states[rows][ok], n_states)
             sums, counts = (s, c) if sums is None else (sums + s, counts + c)
             if not self.keypoints:

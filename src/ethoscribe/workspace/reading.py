@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import inspect
+import json
 import os
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -183,6 +184,9 @@ def session_row(entry: dict[str, Any], tracks: PoseTracks) -> dict[str, Any]:
         "duration_s": tracks.duration_s,
         "n_animals": tracks.n_animals,
         "units": tracks.units,
+        "first_frame": int(tracks.meta.get("first_frame", 0) or 0),
+        "format": entry.get("format") or "",
+        "reader_options": json.dumps(entry.get("options") or {}, sort_keys=True),
     }
 
 
