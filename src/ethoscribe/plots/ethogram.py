@@ -173,14 +173,23 @@ def time_budget_figure(budgets: pd.DataFrame, groups: GroupSpec = None) -> go.Fi
     fig.update_layout(
         title="Time budget (one point per session)",
         boxmode="group",
-        yaxis={"title": "fraction of valid time", "rangemode": "tozero"},
+        yaxis={"title": "share of valid time", "rangemode": "tozero", "tickformat": ".1~%"},
         xaxis={"title": "motif", "categoryorder": "category ascending"},
+        legend={"orientation": "h", "x": 0, "y": 1.0, "yanchor": "bottom", "title": "group"},
+        margin={"t": 100},
     )
     return fig
 
 
-def duration_figure(bouts: pd.DataFrame, log_scale: bool = True) -> go.Figure:
-    """Distribution of bout durations per motif (box plots)."""
+def duration_figure(
+    bouts: pd.DataFrame, log_scale: bool = True, min_bout_s: float | None = None
+) -> go.Figure:
+    """Distribution of bout durations per motif (box plots).
+
+    With ``min_bout_s``, a dashed line marks the shortest bout the labelling allows; bouts cut
+    by a gap or a recording edge (``cut_before``/``cut_after``) can be shorter, so pass the
+    uncut ones to compare them with it.
+    """
     _need(bouts, ("motif", "duration_s"), "the bout table")
     fig = go.Figure()
     for motif, colour in motif_colours(bouts["motif"]).items():
@@ -191,6 +200,19 @@ def duration_figure(bouts: pd.DataFrame, log_scale: bool = True) -> go.Figure:
         showlegend=False,
         yaxis={"title": "duration (s)", "type": "log" if log_scale else "linear"},
     )
+    positive = bouts["duration_s"][bouts["duration_s"] > 0]
+    if log_scale and len(positive):
+        # 1-2-5 ticks written out in full (plotly's own log ticks repeat digits: 5 6 7 8 9 1 2)
+        lo, hi = np.floor(np.log10(positive.min())), np.ceil(np.log10(positive.max()))
+        ticks = [m * 10.0**e for e in range(int(lo), int(hi) + 1) for m in (1, 2, 5)]
+        fig.update_yaxes(tickvals=ticks, ticktext=[f"{t:g}" for t in ticks])
+    if min_bout_s:
+        fig.add_hline(y=min_bout_s, line_dash="dash", line_color="#666")
+        fig.add_annotation(  # annotations on a log axis take log10 positions
+            x=1, xref="paper", xanchor="right", yanchor="top", showarrow=False,
+            y=np.log10(min_bout_s) if log_scale else min_bout_s, yref="y",
+            text=f"minimum bout {min_bout_s:g} s", font={"size": 11, "color": "#444"},
+        )  # fmt: skip
     return fig
 
 

@@ -11,6 +11,8 @@ from typing import Any
 import numpy as np
 import plotly.graph_objects as go
 
+from ethoscribe.segment.stability import HIGH_AGREEMENT, LOW_AGREEMENT
+
 
 def state_count_figure(selection: Any) -> go.Figure:
     """Held-out log-likelihood per frame (or BIC) against the number of states, chosen K marked.
@@ -74,7 +76,7 @@ def state_count_figure(selection: Any) -> go.Figure:
     return fig
 
 
-def stability_figure(report: Any) -> go.Figure:
+def stability_figure(report: Any, names: dict[int, str] | None = None) -> go.Figure:
     """Per-state Jaccard agreement between seeds and between split halves, threshold marked.
 
     Parameters
@@ -82,6 +84,9 @@ def stability_figure(report: Any) -> go.Figure:
     report : StabilityReport
         ``table`` with ``state, jaccard_seeds_mean, jaccard_seeds_min, jaccard_halves`` and
         ``summary`` with ``ari_seeds_mean, ari_halves, reproducible_jaccard``.
+    names : dict, optional
+        State -> motif name, so the bars carry the names used in every other table (default
+        ``motif_01`` for state 0, as the workspace names them before curation).
 
     Examples
     --------
@@ -94,7 +99,7 @@ def stability_figure(report: Any) -> go.Figure:
     2
     """
     table, summary = report.table, report.summary
-    names = [f"state {int(s)}" for s in table["state"]]
+    names = [(names or {}).get(int(s), f"motif_{int(s) + 1:02d}") for s in table["state"]]
     mean = table["jaccard_seeds_mean"].to_numpy(dtype=float)
     low = mean - table["jaccard_seeds_min"].to_numpy(dtype=float)
     fig = go.Figure()
@@ -105,10 +110,11 @@ def stability_figure(report: Any) -> go.Figure:
         )
     )  # fmt: skip
     fig.add_trace(go.Bar(x=names, y=table["jaccard_halves"], name="between split halves"))
-    fig.add_hline(
-        y=summary.get("reproducible_jaccard", 0.5), line_dash="dot",
-        annotation_text="reproducible above", annotation_position="top left",
-    )  # fmt: skip
+    for level, text in ((HIGH_AGREEMENT, "high"), (LOW_AGREEMENT, "low below")):
+        fig.add_hline(
+            y=level, line_dash="dot", line_color="#666",
+            annotation_text=f"{text} {level}", annotation_position="bottom right",
+        )  # fmt: skip
     fig.update_layout(
         barmode="group",
         title=(
@@ -117,5 +123,7 @@ def stability_figure(report: Any) -> go.Figure:
         ),
         yaxis={"title": "Jaccard of matched states", "range": [0, 1.05]},
         template="plotly_white",
+        legend={"orientation": "h", "x": 0, "y": 1.0, "yanchor": "bottom"},
+        margin={"t": 100},
     )
     return fig

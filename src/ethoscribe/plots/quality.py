@@ -119,8 +119,8 @@ def quality_figure(
         barmode="group",
         title={"text": "Cleaning quality", "x": 0},
         # legend between the title and the plots: never over an axis title
-        legend={"orientation": "h", "x": 0, "y": 1.02, "yanchor": "bottom"},
-        margin={"t": 120},
+        legend={"orientation": "h", "x": 0, "y": 1.1, "yanchor": "bottom"},
+        margin={"t": 150},
         height=max(450, 160 + 16 * len(invalid)),
     )
     # ".1~%": 0.5 % steps print as 0.5%, 1%, 1.5% (".0%" printed 0%, 1%, 1%, 2%)

@@ -169,3 +169,39 @@ def stability_report(
         "reproducible_jaccard": float(reproducible_jaccard),
     }
     return StabilityReport(table, summary, pd.DataFrame(ari, index=seeds, columns=seeds))
+
+
+HIGH_AGREEMENT, LOW_AGREEMENT = 0.8, 0.6
+
+
+def reproducibility_grades(
+    table: pd.DataFrame, high: float = HIGH_AGREEMENT, low: float = LOW_AGREEMENT
+) -> pd.DataFrame:
+    """Grade each state's reproducibility from its Jaccard agreements (a stability table).
+
+    The grade uses the weaker of the mean agreement between seeds and the split-half agreement:
+    ``high`` at or above ``high`` (0.8), ``moderate`` from ``low`` (0.6) to ``high``, ``low``
+    below ``low``; ``flag`` says why a state needs a look (low split-half agreement: the two
+    halves of the study do not find the same state; low agreement between seeds: refits do not).
+
+    Examples
+    --------
+    >>> t = pd.DataFrame({"state": [0, 1, 2], "jaccard_seeds_mean": [.95, .9, .7],
+    ...                   "jaccard_halves": [.9, .55, .75]})
+    >>> reproducibility_grades(t)[["grade", "flag"]].values.tolist()
+    [['high', ''], ['low', 'low split-half agreement (0.55 < 0.6)'], ['moderate', '']]
+    """
+    seeds = table["jaccard_seeds_mean"].to_numpy(np.float64)
+    halves = table["jaccard_halves"].to_numpy(np.float64)
+    worst = np.fmin(seeds, halves)
+    grade = np.where(worst >= high, "high", np.where(worst >= low, "moderate", "low"))
+    grade = np.where(np.isnan(worst), "not measured", grade)
+    flags = []
+    for s, h in zip(seeds, halves, strict=True):
+        why = []
+        if h < low:
+            why.append(f"low split-half agreement ({h:.2f} < {low})")
+        if s < low:
+            why.append(f"low agreement between seeds ({s:.2f} < {low})")
+        flags.append("; ".join(why))
+    return table.assign(grade=grade, flag=flags)

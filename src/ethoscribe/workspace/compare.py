@@ -125,7 +125,7 @@ def compare(
     meta = _metadata(ws, options, design, stats)
     sections = [group_section(stats, ALPHA, metrics)]
     sections += [s for s in (quality_section(ws, labels), model_section(ws)) if s is not None]
-    sections += ethogram_sections(bouts, budgets, groups, seed)
+    sections += ethogram_sections(bouts, budgets, groups, seed, _min_bout(ws))
     title = f"Group comparison by {by!r}: {ws.path.name}"
     page = render_report(title, sections, meta, parameters_link=METADATA_FILE)
     _write_outputs(out, tables, meta, page)
@@ -163,7 +163,7 @@ def write_ethogram_report(
         if all(lookup.get(s, "") for s in names):
             groups = {s: lookup[s] for s in names}
     sections = [s for s in (quality_section(ws), model_section(ws)) if s is not None]
-    sections += ethogram_sections(bouts, budgets, groups, 0)
+    sections += ethogram_sections(bouts, budgets, groups, 0, _min_bout(ws))
     sections.append(Section("Group statistics", "Run 'ethoscribe compare' for group tests."))
     params = {
         "created": now(),
@@ -176,6 +176,11 @@ def write_ethogram_report(
     link = Path(os.path.relpath(ws.path / "summary.json", Path(path).parent)).as_posix()
     page = render_report(f"Ethogram: {ws.path.name}", sections, jsonable(params), link)
     return atomic_write_text(path, page)
+
+
+def _min_bout(ws: Workspace) -> float | None:
+    value = (ws.summary.get("parameters") or {}).get("min_bout_s")
+    return float(value) if isinstance(value, (int, float)) and value > 0 else None
 
 
 # --- checks -------------------------------------------------------------------------------

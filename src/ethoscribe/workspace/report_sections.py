@@ -32,6 +32,11 @@ from ethoscribe.plots.model import stability_figure, state_count_figure
 from ethoscribe.plots.quality import BARS, quality_figure
 from ethoscribe.plots.stats import group_difference_figure, planned_values_figure
 from ethoscribe.report import Section
+from ethoscribe.segment.stability import (
+    HIGH_AGREEMENT,
+    LOW_AGREEMENT,
+    reproducibility_grades,
+)
 from ethoscribe.transitions import transitions_above_chance
 from ethoscribe.workspace.folder import Workspace
 
@@ -39,6 +44,7 @@ RASTER_BARS = 6000  # bars drawn in the ethogram raster before rows are resample
 DURATION_POINTS = 2000  # bout durations per motif drawn in the box plot
 TOP_ROWS = 25  # rows of the statistics table shown in the report
 FOREST_ROWS = 30  # exploratory tests drawn in the forest plot
+CHOICE_COLUMNS = ("n_states", "heldout_ll_per_frame", "train_ll_per_frame", "bic", "fitted")
 
 
 def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Section | None:
@@ -82,17 +88,34 @@ def model_section(ws: Workspace) -> Section:
         table = pd.DataFrame(choice["table"])
         pick = SimpleNamespace(table=table, best=choice["best"], criterion=choice["criterion"])
         figures.append(state_count_figure(pick))
-        tables.append(("Candidate numbers of states", table))
+        shown = [c for c in CHOICE_COLUMNS if c in table.columns]
+        tables.append(("Candidate numbers of states", table[shown or list(table.columns)]))
     stability = summary.get("stability")
-    if stability:
-        path = ws.path / "stability.csv"
-        if path.is_file():
-            report = SimpleNamespace(table=pd.read_csv(path), summary=stability)
-            figures.append(stability_figure(report))
+    path = ws.path / "stability.csv"
+    if stability and path.is_file():
+        names = _state_names(ws)
+        per_state = reproducibility_grades(pd.read_csv(path))
+        figures.append(stability_figure(SimpleNamespace(table=per_state, summary=stability), names))
+        per_state.insert(0, "motif", [names.get(int(s), "") for s in per_state["state"]])
+        low = per_state.loc[per_state["grade"] == "low", "motif"].tolist()
+        text += (
+            f" Reproducibility per motif is graded on the weaker of the mean Jaccard agreement "
+            f"between seeds and the split-half agreement: high from {HIGH_AGREEMENT}, moderate "
+            f"from {LOW_AGREEMENT}, low below. "
+            + (f"Low, look at these before naming them: {', '.join(low)}." if low else "")
+        )
+        keep = ["motif", "occupancy", "jaccard_seeds_mean", "jaccard_halves", "grade", "flag"]
+        tables.append(("Reproducibility per motif", per_state[[c for c in keep if c in per_state]]))
+    elif stability:
         tables.append(("Stability across seeds and split halves", pd.DataFrame([stability])))
     else:
         text += " No stability check was run."
     return Section("The model's choices", text, figures, tables)
+
+
+def _state_names(ws: Workspace) -> dict[int, str]:
+    """State -> current motif name (curated when the journal renamed it)."""
+    return {int(k): str(v) for k, v in ws.curation().names.items()}
 
 
 def ethogram_sections(
@@ -100,6 +123,7 @@ def ethogram_sections(
     budgets: pd.DataFrame,
     groups: Mapping[str, str] | None = None,
     seed: int = 0,
+    min_bout_s: float | None = None,
 ) -> list[Section]:
     """Raster, time budgets, bout durations and transitions (current motif names).
 
@@ -126,12 +150,15 @@ def ethogram_sections(
             [("Pooled over sessions" + (" by group" if groups else ""), pooled)],
         )
     )
-    shown, note = _thinned(bouts, seed)
+    cut = [c for c in ("cut_before", "cut_after") if c in bouts.columns]
+    uncut = bouts[~bouts[cut].any(axis=1)] if cut else bouts
+    shown, note = _thinned(uncut, seed)
     sections.append(
         Section(
             "Bout durations",
-            "Bout durations per motif, including bouts cut by a gap or a recording edge." + note,
-            [duration_figure(shown)],
+            "Durations of the bouts not cut by a gap or a recording edge (cut bouts can be "
+            "shorter than the minimum bout; the table counts every bout)." + note,
+            [duration_figure(shown, min_bout_s=min_bout_s)],
             [("Bout durations", duration_summary(bouts, by=by, groups=groups))],
         )
     )
