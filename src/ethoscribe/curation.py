@@ -35,7 +35,8 @@ import numpy as np
 import pandas as pd
 
 from ethoscribe.errors import InputError
-from ethoscribe.ethogram import LABEL_COLUMNS, check_columns
+from ethoscribe.ethogram import LABEL_COLUMNS, bout_table, check_columns
+from ethoscribe.segment.postprocess import enforce_min_bout
 
 UNASSIGNED = "unassigned"
 KEYS = ("session", "animal", "frame")
@@ -162,6 +163,21 @@ def _assign(model: Mapping[str, Any], values: np.ndarray) -> np.ndarray:
     z = (values - np.asarray(model["offset"])) / np.asarray(model["scale"])
     c = np.asarray(model["centres"], dtype=np.float64)
     return ((z**2).sum(1)[:, None] - 2 * z @ c.T + (c**2).sum(1)).argmin(axis=1)
+
+
+def _along_time(rows: pd.DataFrame, halves: np.ndarray, min_frames: int) -> np.ndarray:
+    """``halves`` (0/1 per row of a motif) with stretches shorter than ``min_frames`` inside
+    each bout of the motif joined to a neighbouring stretch (never across bouts)."""
+    order = np.lexsort((rows["frame"].to_numpy(), rows["animal"].astype(str).to_numpy(),
+                        rows["session"].astype(str).to_numpy()))  # fmt: skip
+    frame = rows["frame"].to_numpy(np.int64)[order]
+    key = (rows["session"].astype(str) + "\0" + rows["animal"].astype(str)).to_numpy()[order]
+    new_bout = np.r_[True, (np.diff(frame) != 1) | (key[1:] != key[:-1])]
+    lengths = np.diff(np.r_[np.flatnonzero(new_bout), len(frame)])
+    smoothed = enforce_min_bout(halves[order], min_frames, lengths=lengths)
+    out = np.empty_like(halves)
+    out[order] = smoothed
+    return out
 
 
 def fit_split(values: np.ndarray, columns: Sequence[str], random_state: int = 0) -> dict:
@@ -343,13 +359,18 @@ class Curation:
         *,
         columns: Sequence[str] | None = None,
         random_state: int = 0,
+        min_frames: int = 1,
         time: str | None = None,
     ) -> dict[str, Any]:
-        """Split ``motif`` in two by 2-means on its frames' features.
+        """Split ``motif`` in two by 2-means on its frames' features, then along time.
 
         ``features`` has ``session, animal, frame`` and feature columns (``columns``; default
         every numeric column that is not a label column). ``labels`` are the labels the current
-        naming applies to. ``names[0]`` goes to the larger cluster.
+        naming applies to. ``names[0]`` goes to the larger cluster. With ``min_frames`` > 1 the
+        split also respects time: within each bout of the motif, a stretch given to one half
+        that is shorter than ``min_frames`` joins its neighbouring stretch (as the minimum bout
+        does for the model's labels), so the halves are contiguous runs, not a flicker. The
+        value is kept in the record, so replaying the journal gives the same split.
         """
         _known(self._names, motif)
         for name in names:
@@ -360,11 +381,51 @@ class Curation:
         current = self.apply(labels, features)
         rows = current[current["motif"] == motif]
         model = fit_split(_feature_values(rows, features, columns), columns, random_state)
+        if int(min_frames) > 1:
+            model["min_frames"] = int(min_frames)
         model["parent_states"] = sorted(k for k, v in self._names.items() if v == motif)
         model["new_states"] = [self._next_state, self._next_state + 1]
         self._next_state += 2
         rec = {"op": "split", "motif": motif, "names": list(names), "frames_assignment": model}
         return self._edit({**rec, "time": time or _now()})
+
+    def preview_split(
+        self,
+        motif: str,
+        names: Sequence[str],
+        labels: pd.DataFrame,
+        features: pd.DataFrame,
+        **options: Any,
+    ) -> pd.DataFrame:
+        """Bout statistics of the two halves a :meth:`split` would make, before it is kept.
+
+        Takes the arguments of :meth:`split` (``columns``, ``random_state``, ``min_frames``);
+        nothing is journaled. Returns one row per half (then the parent, for comparison):
+        ``motif, n_frames, share_of_parent, n_bouts, median_bout_s, mean_bout_s,
+        short_bouts`` (``short_bouts``: uncut bouts under ``min_frames``).
+
+        Examples
+        --------
+        >>> lab = pd.DataFrame({"session": "s", "animal": "a", "frame": range(8),
+        ...     "time_s": np.arange(8) / 4, "state": 0, "motif": "m", "probability": 1.0})
+        >>> feat = lab[["session", "animal", "frame"]].assign(speed=[0, 0, 0, 5, 0, 0, 5, 5.0])
+        >>> p = Curation.from_labels(lab).preview_split("m", ["a", "b"], lab, feat, min_frames=2)
+        >>> p[["motif", "n_frames", "n_bouts"]].values.tolist()
+        [['a', 6, 1], ['b', 2, 1], ['m', 8, 1]]
+        """
+        trial = copy.deepcopy(self)
+        trial.split(motif, names, labels, features, **options)
+        after = trial.apply(labels, features)
+        before = self.apply(labels, features)
+        min_frames = int(options.get("min_frames", 1))
+        rows = []
+        for name, table in ((n, after) for n in names):
+            rows.append(_bout_stats(name, table, min_frames))
+        rows.append(_bout_stats(motif, before, min_frames))
+        out = pd.DataFrame(rows)
+        parent = out["n_frames"].iloc[-1]
+        out.insert(2, "share_of_parent", out["n_frames"] / parent if parent else np.nan)
+        return out
 
     def undo(self, *, time: str | None = None) -> dict[str, Any]:
         """Revert the latest edit still in effect."""
@@ -405,7 +466,10 @@ class Curation:
                 motif = self._journal[index]["motif"]
                 raise InputError(f"the split of {motif!r} needs the feature table: pass features")
             values = _feature_values(labels[mask], features, model["columns"])
-            state[mask] = np.asarray(model["new_states"])[_assign(model, values)]
+            halves = _assign(model, values)
+            if model.get("min_frames", 1) > 1:
+                halves = _along_time(labels[mask], halves, int(model["min_frames"]))
+            state[mask] = np.asarray(model["new_states"])[halves]
         ids = np.array(sorted(self._names), dtype=np.int64)
         valid = state >= 0
         pos = np.searchsorted(ids, state[valid]).clip(0, max(len(ids) - 1, 0))
@@ -418,6 +482,25 @@ class Curation:
         out = labels.copy()
         out["state"], out["motif"] = state, motif
         return out
+
+
+def _bout_stats(name: str, labels: pd.DataFrame, min_frames: int) -> dict[str, Any]:
+    rows = labels[labels["motif"] == name]
+    if rows.empty:
+        return {"motif": name, "n_frames": 0, "n_bouts": 0, "median_bout_s": np.nan,
+                "mean_bout_s": np.nan, "short_bouts": 0}  # fmt: skip
+    keys = labels.loc[labels["session"].isin(rows["session"].unique())]
+    bouts = bout_table(keys)
+    bouts = bouts[bouts["motif"] == name]
+    uncut = ~(bouts["cut_before"] | bouts["cut_after"])
+    return {
+        "motif": name,
+        "n_frames": len(rows),
+        "n_bouts": len(bouts),
+        "median_bout_s": float(bouts["duration_s"].median()),
+        "mean_bout_s": float(bouts["duration_s"].mean()),
+        "short_bouts": int((uncut & (bouts["n_frames"] < min_frames)).sum()),
+    }
 
 
 def split_motif(

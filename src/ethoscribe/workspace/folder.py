@@ -338,12 +338,32 @@ class Workspace:
                 features = self.features()
             if op == "split":
                 kwargs = {"labels": labels, "features": features, **kwargs}
+                kwargs.setdefault("min_frames", self.min_bout_frames())
             record = getattr(cur, op)(**kwargs)
             append_journal(self.path / JOURNAL_FILE, record)  # the edit is safe from here on
             with self._replay_errors():
                 named = cur.apply(labels, features)
             write_ethogram_tables(self.path, named)
         return record
+
+    def min_bout_frames(self) -> int:
+        """The model's minimum bout in frames (at the slowest session's frame rate; 1 if none)."""
+        seconds = (self.summary.get("parameters") or {}).get("min_bout_s")
+        path = self.path / "sessions.csv"
+        if not isinstance(seconds, (int, float)) or seconds <= 0 or not path.is_file():
+            return 1
+        fps = pd.read_csv(path, usecols=["fps"])["fps"].to_numpy(np.float64)
+        fps = fps[np.isfinite(fps) & (fps > 0)]
+        return max(1, round(float(seconds) * float(fps.min()))) if len(fps) else 1
+
+    def preview_split(self, motif: str, names: Sequence[str]) -> pd.DataFrame:
+        """Bout statistics of the halves a split would make (see
+        :meth:`ethoscribe.curation.Curation.preview_split`); nothing is kept."""
+        cur = self.curation()
+        labels, features = self.state_labels(), self.features()
+        return cur.preview_split(
+            motif, list(names), labels, features, min_frames=self.min_bout_frames()
+        )
 
     def rename_motif(self, motif: str, name: str) -> dict[str, Any]:
         """Give ``motif`` a new ``name`` (journaled)."""
