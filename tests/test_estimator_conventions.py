@@ -16,6 +16,7 @@ import pytest
 from sklearn.base import BaseEstimator, clone
 
 from ethoscribe.clean import CleanParams
+from ethoscribe.errors import InputError
 from ethoscribe.features import FeaturePipeline
 from ethoscribe.io import read_tidy
 from ethoscribe.segment.changepoint import ChangePointSegmenter
@@ -116,3 +117,24 @@ def test_feature_pipeline_fit_transform_equals_fit_then_transform(sessions):
         assert a.columns == b.columns
         np.testing.assert_array_equal(a.values, b.values)
         np.testing.assert_array_equal(a.valid, b.valid)
+
+
+def test_every_saved_state_has_the_shared_header_and_older_layouts_still_load(sessions):
+    model = BehaviourModel(method="prediction_error", n_states=2, random_state=7).fit(sessions)
+    meta, arrays = model.to_state()
+    for part in (meta, meta["features"], meta["segmenter"], meta["segmenter"]["detector"]):
+        assert part["kind"].startswith("ethoscribe.") and part["format_version"] == 1
+    # As written before the header was shared: the pipeline named by "estimator"/"version",
+    # the change-point parts without a format_version.
+    old = {**meta, "features": dict(meta["features"]), "segmenter": dict(meta["segmenter"])}
+    for key in ("kind", "format_version", "ethoscribe_version"):
+        old["features"].pop(key)
+    old["features"] |= {"estimator": "FeaturePipeline", "version": "0.1.0"}
+    old["segmenter"].pop("format_version")
+    old["segmenter"]["detector"] = {
+        k: v for k, v in meta["segmenter"]["detector"].items() if k != "format_version"
+    }
+    back = BehaviourModel.from_state(old, arrays)
+    np.testing.assert_array_equal(back.label(sessions)["state"], model.label(sessions)["state"])
+    with pytest.raises(InputError, match="format version"):
+        GaussianHMM.from_state({"kind": "ethoscribe.GaussianHMM", "format_version": 2}, {})

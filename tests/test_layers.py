@@ -13,7 +13,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "src" / "ethoscribe"
 
 # Lowest first. A module may import its own layer or any layer before it.
 LAYERS = [
-    {"errors", "checks", "pose"},
+    {"errors", "checks", "pose", "saved_state"},
     {"io"},
     {"clean", "geometry", "filters"},
     {"features", "postures"},

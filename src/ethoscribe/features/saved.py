@@ -8,10 +8,12 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ethoscribe.errors import InputError
+from ethoscribe.saved_state import check_header, header
 
 if TYPE_CHECKING:
     from ethoscribe.features.pipeline import FeaturePipeline
 
+KIND, FORMAT_VERSION = "ethoscribe.FeaturePipeline", 1
 _FITTED_ARRAYS = (
     "log_offset_",
     "mean_posture_",
@@ -40,16 +42,13 @@ _FITTED_META = (
 def pipeline_state(pipe: FeaturePipeline) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
     """JSON-able parameters and fitted metadata, plus the fitted arrays (no pickle)."""
     pipe._check_fitted()
-    from ethoscribe import __version__
-
     params = pipe.get_params()
     params["frequencies"] = [float(f) for f in pipe.frequencies]
     params["axis"] = None if pipe.axis is None else list(pipe.axis)
     fitted = {k: getattr(pipe, k) for k in _FITTED_META}
     for k in ("axis_", "keypoints_", "columns_"):
         fitted[k] = list(fitted[k])
-    meta = {"estimator": "FeaturePipeline", "version": __version__, "params": params}
-    meta["fitted"] = fitted
+    meta = {**header(KIND, FORMAT_VERSION), "params": params, "fitted": fitted}
     arrays = {k: np.array(getattr(pipe, k), dtype=np.float64) for k in _FITTED_ARRAYS}
     return meta, arrays
 
@@ -58,9 +57,9 @@ def pipeline_from_state(
     cls: type[FeaturePipeline], meta: Mapping[str, Any], arrays: Mapping[str, np.ndarray]
 ) -> FeaturePipeline:
     """Rebuild a fitted pipeline from ``to_state`` output."""
+    # Saved before the shared header: {"estimator": "FeaturePipeline", "version": ...}.
+    check_header(meta, KIND, FORMAT_VERSION, "FeaturePipeline state", {"estimator": KIND[11:]})
     try:
-        if meta["estimator"] != "FeaturePipeline":
-            raise KeyError("estimator")
         params = dict(meta["params"])
         fitted = dict(meta["fitted"])
         arrays = dict(arrays)

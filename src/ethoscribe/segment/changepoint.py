@@ -12,7 +12,6 @@ sides; each window keeps the changes in its own core. The penalty uses the whole
 
 from __future__ import annotations
 
-from importlib import metadata
 from typing import Any
 
 import numpy as np
@@ -22,6 +21,7 @@ from sklearn.base import BaseEstimator
 
 from ethoscribe.checks import is_real, seed_from
 from ethoscribe.errors import InputError
+from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths, split_by_lengths
 from ethoscribe.segment.motifs import (
     SEGMENT_COLUMNS,
@@ -37,6 +37,8 @@ SEGMENTER_METHODS = (*CHANGE_POINT_METHODS, "prediction_error")
 PENALTY_SCALE = 2.0
 DEFAULT_JUMP = {"kernel": 1, "pelt": 5, "binseg": 1}
 MAD_TO_SD = 1.482602218505602  # 1 / Phi^-1(3/4): MAD of a normal sample -> its SD
+
+FORMAT_VERSION = 1  # layout of to_state()
 
 
 def robust_noise_variance(
@@ -442,9 +444,9 @@ class ChangePointSegmenter(BaseEstimator):
         """JSON-able parameters and metadata, and the fitted arrays (no pickle)."""
         check_fitted(self, "motif_params_")
         meta = {
-            "kind": "ethoscribe.ChangePointSegmenter",
+            **header("ethoscribe.ChangePointSegmenter", FORMAT_VERSION),
             "params": {**self.get_params(), "random_state": self.random_seed_},
-            "versions": {"ethoscribe": _version("ethoscribe"), "ruptures": rpt.__version__},
+            "versions": {"ruptures": rpt.__version__},
             "n_features_in": int(self.n_features_in_),
             "n_motifs": int(self.n_motifs_),
             "noise_variance": self.noise_variance_,
@@ -470,9 +472,8 @@ class ChangePointSegmenter(BaseEstimator):
         Parameters, counts and array shapes are checked, so a damaged or hand-edited state is
         an ``InputError`` naming the field instead of a ``TypeError`` or ``KeyError``.
         """
-        kind = meta.get("kind") if isinstance(meta, dict) else type(meta).__name__
-        if kind != "ethoscribe.ChangePointSegmenter":
-            raise InputError(f"not a saved change-point segmenter (kind={kind!r})")
+        what = "change-point state"
+        check_header(meta, "ethoscribe.ChangePointSegmenter", FORMAT_VERSION, what)
         params = meta.get("params")
         if not isinstance(params, dict):
             raise InputError(f"change-point state: 'params' must be an object, got {params!r:.60}")
@@ -539,10 +540,3 @@ class ChangePointSegmenter(BaseEstimator):
 
 def _with_prefix(arrays: dict[str, np.ndarray], prefix: str) -> dict[str, np.ndarray]:
     return {k[len(prefix) :]: np.asarray(v) for k, v in arrays.items() if k.startswith(prefix)}
-
-
-def _version(name: str) -> str:
-    try:
-        return metadata.version(name)
-    except metadata.PackageNotFoundError:
-        return "unknown"

@@ -25,7 +25,6 @@ means, so refits with the same seed and data give identical arrays.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from importlib.metadata import version
 from typing import Any
 
 import numpy as np
@@ -34,6 +33,7 @@ from tqdm.auto import tqdm
 
 from ethoscribe.checks import int_between, is_real, seed_from
 from ethoscribe.errors import InputError
+from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._hmm_fit import (
     check_hmm_params,
     distinct_rows_at_least,
@@ -365,9 +365,7 @@ class GaussianHMM(BaseEstimator):
         """JSON-able parameters and metadata, plus the fitted arrays (no pickle)."""
         check_fitted(self, "means_")
         meta = {
-            "kind": "ethoscribe.GaussianHMM",
-            "format_version": FORMAT_VERSION,
-            "ethoscribe_version": version("ethoscribe"),
+            **header("ethoscribe.GaussianHMM", FORMAT_VERSION),
             "params": {**self.get_params(), "random_state": self.random_seed_},
             "n_states": self.n_states_,
             "n_features": self.n_features_in_,
@@ -390,18 +388,7 @@ class GaussianHMM(BaseEstimator):
         The parameters, the summary numbers and the arrays are checked (types, shapes, finite
         probabilities) so a damaged or hand-edited state is an ``InputError`` naming the field.
         """
-        if (
-            not isinstance(meta, Mapping)
-            or meta.get("kind") != "ethoscribe.GaussianHMM"
-            or meta.get("format_version") != FORMAT_VERSION
-        ):
-            kind = meta.get("kind") if isinstance(meta, Mapping) else type(meta).__name__
-            fmt = meta.get("format_version") if isinstance(meta, Mapping) else None
-            msg = (
-                f"not a GaussianHMM state of format 1 (kind={kind!r}, format={fmt!r}); save it "
-                "again with this ethoscribe"
-            )
-            raise InputError(msg)
+        check_header(meta, "ethoscribe.GaussianHMM", FORMAT_VERSION, "GaussianHMM state")
         params = meta.get("params")
         if not isinstance(params, Mapping):
             raise InputError(f"GaussianHMM state: 'params' must be an object, got {params!r:.60}")

@@ -15,12 +15,12 @@ import pandas as pd
 from sklearn.base import BaseEstimator
 from tqdm.auto import tqdm
 
-from ethoscribe import __version__
 from ethoscribe.checks import seed_from
 from ethoscribe.clean import CleanParams, QualityReport, clean
 from ethoscribe.errors import EthoscribeError, InputError
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.pose import PoseTracks, check_same_body_plan
+from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._model_meta import RESAVE, check_meta, known_keys
 from ethoscribe.segment.inputs import check_fitted, split_by_lengths
 from ethoscribe.segment.postprocess import enforce_min_bout
@@ -341,9 +341,7 @@ class BehaviourModel(BaseEstimator):
         f_meta, f_arrays = self.features_.to_state()
         s_meta, s_arrays = self.segmenter_.to_state()
         meta = {
-            "kind": "ethoscribe.BehaviourModel",
-            "format_version": FORMAT_VERSION,
-            "ethoscribe_version": __version__,
+            **header("ethoscribe.BehaviourModel", FORMAT_VERSION),
             "params": self.saved_params(),
             "cleaning": self.cleaning_.to_dict(),
             "features": f_meta,
@@ -374,15 +372,7 @@ class BehaviourModel(BaseEstimator):
                 f"model.json must hold a JSON object (a mapping of fields); got "
                 f"{type(meta).__name__}. {RESAVE}"
             )
-        if meta.get("kind") != "ethoscribe.BehaviourModel":
-            raise InputError(f"not an ethoscribe behaviour model (kind={meta.get('kind')!r})")
-        if meta.get("format_version") != FORMAT_VERSION:
-            raise InputError(
-                f"this model was saved in format version {meta.get('format_version')!r} by "
-                f"ethoscribe {meta.get('ethoscribe_version')}; this ethoscribe ({__version__}) "
-                f"reads version {FORMAT_VERSION}. Refit the model or install the matching "
-                "ethoscribe."
-            )
+        check_header(meta, "ethoscribe.BehaviourModel", FORMAT_VERSION, "model.json")
         check_meta(meta, known_keys(cls))
         try:
             return cls._rebuild(meta, arrays)

@@ -39,6 +39,7 @@ from scipy.signal import find_peaks
 from sklearn.base import BaseEstimator
 
 from ethoscribe.errors import InputError
+from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths, split_by_lengths
 
 AUTO_THRESHOLD = 4.0
@@ -47,6 +48,8 @@ NULL_FRAMES = (5000, 30000)
 NULL_BURN_IN = 200
 NULL_SEED = 0
 _CHUNK_BLOCKS = 2048  # blocks per batched solve: bounds memory at ~2048 * m * m floats
+
+FORMAT_VERSION = 1  # layout of to_state()
 
 
 def _lagged(x: np.ndarray, order: int) -> tuple[np.ndarray, np.ndarray]:
@@ -368,7 +371,7 @@ class PredictionErrorBoundaries(BaseEstimator):
         """JSON-able parameters and fitted arrays (no pickle)."""
         check_fitted(self, "coef_")
         meta = {
-            "kind": "ethoscribe.PredictionErrorBoundaries",
+            **header("ethoscribe.PredictionErrorBoundaries", FORMAT_VERSION),
             "params": self.get_params(),
             "n_features_in": int(self.n_features_in_),
             "surprise_center": self.surprise_center_,
@@ -387,8 +390,8 @@ class PredictionErrorBoundaries(BaseEstimator):
         cls, meta: dict[str, Any], arrays: dict[str, np.ndarray]
     ) -> PredictionErrorBoundaries:
         """Rebuild a fitted detector saved by :meth:`to_state`."""
-        if meta.get("kind") != "ethoscribe.PredictionErrorBoundaries":
-            raise InputError(f"not a saved prediction-error detector (kind={meta.get('kind')!r})")
+        what = "prediction-error state"
+        check_header(meta, "ethoscribe.PredictionErrorBoundaries", FORMAT_VERSION, what)
         obj = cls(**meta["params"])
         for name in ("mean", "scale", "coef", "residual_variance"):
             setattr(obj, f"{name}_", np.asarray(arrays[name], dtype=np.float64))

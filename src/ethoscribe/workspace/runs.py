@@ -10,7 +10,6 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ethoscribe import __version__
 from ethoscribe.clean import CleanParams
 from ethoscribe.curation import Curation
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
@@ -19,6 +18,7 @@ from ethoscribe.io._atomic import atomic_table_writer, atomic_write_json, write_
 from ethoscribe.io._safe import read_json
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
+from ethoscribe.saved_state import header
 from ethoscribe.segment._hmm_fit import representative_blocks, take_blocks
 from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
 from ethoscribe.segment.registry import get_segmenter
@@ -354,12 +354,7 @@ def _write_workspace(
         atomic_write_json(stage.path("summary.json"), jsonable(summary))
         atomic_write_json(
             stage.path(WORKSPACE_FILE),
-            {
-                "kind": "ethoscribe.workspace",
-                "format_version": FORMAT_VERSION,
-                "created": summary["created"],
-                "ethoscribe_version": __version__,
-            },
+            {**header("ethoscribe.workspace", FORMAT_VERSION), "created": summary["created"]},
         )
         for record in journal:
             append_journal(stage.path(JOURNAL_FILE), record)
