@@ -96,11 +96,14 @@ def _in_use(folder: Path, what: str) -> WorkspaceError:
 
 
 @contextmanager
-def hold(folder: str | os.PathLike[str], what: str = "workspace") -> Iterator[dict | None]:
+def hold(
+    folder: str | os.PathLike[str], what: str = "workspace", wait_s: float = 0.0
+) -> Iterator[dict | None]:
     """Hold the lock of ``folder`` for writing; a second holder gets a clear ``WorkspaceError``.
 
     Yields the owner record a previous holder left behind when it ended without releasing
-    (it crashed or was killed), or None.
+    (it crashed or was killed), or None. ``wait_s``: how long to wait for a holder that is
+    expected to finish soon (the workbench's table writer holds it for milliseconds).
 
     Examples
     --------
@@ -110,7 +113,7 @@ def hold(folder: str | os.PathLike[str], what: str = "workspace") -> Iterator[di
     None
     """
     folder = Path(folder)
-    lock = FileLock(str(folder / LOCK_FILE), timeout=0)
+    lock = FileLock(str(folder / LOCK_FILE), timeout=max(0.0, wait_s), poll_interval=0.02)
     try:
         lock.acquire()
     except Timeout:

@@ -1,55 +1,58 @@
-"""Curation edits of the workbench state: checked in memory at once, written to disk behind.
+"""Curation edits of the workbench state: confirmed once their journal line is on disk.
 
-An edit is applied to the in-memory :class:`~ethoscribe.curation.Curation` (the same rules the
-workspace uses, so a bad edit is refused with the same message) and then written through
-:meth:`Workspace.edit` by a writer process (:class:`~ethoscribe.workspace.edit_worker.
-EditWriter`), in order. If a write fails, the names are reloaded from disk and the message says
-so. Splits need the features and are written before the click returns.
+An edit is checked against the journal on disk and appended to it, fsynced, under the workspace
+lock (:meth:`Workspace.journal_edit`, milliseconds) before the workbench shows it as done: an
+edit seen on screen survives a kernel that dies a moment later. Checking against the disk, not a
+copy in memory, also means an edit always follows the ones saved before it (from this
+workbench, another one, or a script). The ethogram tables that follow from the journal are
+rewritten behind, by a worker process (:class:`~ethoscribe.workspace.edit_worker.TableWriter`).
 """
 
 from __future__ import annotations
 
 from typing import Any
 
-from ethoscribe.errors import EthoscribeError, InputError
+from ethoscribe.errors import EthoscribeError
+
+EDIT_OPS = ("rename", "merge", "split", "unassign", "undo", "redo")
 
 
 class CurationEdits:
     """Editing methods of :class:`~ethoscribe.widgets.state.WorkbenchState` (a mixin)."""
 
+    #: How long an edit waits for the workspace lock (the table writer holds it for
+    #: milliseconds; a discover run or another editor holds it longer: the edit is refused).
+    lock_wait_s = 5.0
+
     # --- editing --------------------------------------------------------------------------
     def edit(self, op: str, **kwargs: Any) -> bool:
         """Apply one curation edit (``rename``, ``merge``, ``split``, ``unassign``, ``undo``,
-        ``redo``); a bad one leaves a message and changes nothing. Returns success."""
-        if self._check_writes():
-            return False  # an earlier edit failed on disk: the user sees that first
-        try:
-            if op == "split":
-                self.flush(quiet=True)
-                self.ws.edit("split", **kwargs)
-                self.curation = self.ws.curation()
-            elif op in ("rename", "merge", "unassign", "undo", "redo"):
-                record = getattr(self.curation, op)(**kwargs)
-                self._write(op, kwargs)
-            else:
-                raise InputError(
-                    f"unknown edit {op!r}; use rename, merge, split, unassign, undo or redo"
-                )
-        except EthoscribeError as exc:
-            self.say("error", str(exc))
+        ``redo``); it is on disk when this returns True. A bad or refused one leaves a message
+        and changes nothing."""
+        self._check_writes()
+        if op not in EDIT_OPS:
+            self.say("error", f"unknown edit {op!r}; use {', '.join(EDIT_OPS)}")
             return False
-        if op != "split":
-            kwargs = {**kwargs, **{k: record[k] for k in ("undid", "redid") if k in record}}
+        try:
+            record, self.curation = self.ws.journal_edit(op, kwargs, wait_s=self.lock_wait_s)
+        except EthoscribeError as exc:
+            self.curation = self.ws.curation()  # what is on disk is what is shown
+            self._after_edit(None, {})
+            self.say("error", _refused(op, exc))
+            return False
+        kwargs = {**kwargs, **{k: record[k] for k in ("undid", "redid") if k in record}}
+        self._write_tables()
         self._after_edit(op, kwargs)
         return True
 
-    def _after_edit(self, op: str, kwargs: dict[str, Any]) -> None:
+    def _after_edit(self, op: str | None, kwargs: dict[str, Any]) -> None:
         self._prepare_states()
-        renamed = {"rename": kwargs.get("name"), "merge": kwargs.get("into")}.get(op)
+        renamed = {"rename": kwargs.get("name"), "merge": kwargs.get("into")}.get(op or "")
         if op == "split":
             renamed = (kwargs.get("names") or [None])[0]
         self._keep_selection(renamed)
-        self.say("ok", _describe(op, kwargs))
+        if op is not None:
+            self.say("ok", _describe(op, kwargs))
         self._emit("names", "motif")
 
     def _keep_selection(self, prefer: str | None) -> None:
@@ -57,44 +60,43 @@ class CurationEdits:
         if self.motif not in self.motifs:
             self.motif = prefer if prefer in self.motifs else (self.motifs or [None])[0]
 
-    def _write(self, op: str, kwargs: dict[str, Any]) -> None:
+    def _write_tables(self) -> None:
         if self._writer is not None:
-            self._writer.submit(op, kwargs)
-            return
-        try:
-            self.ws.edit(op, **kwargs)
-        except EthoscribeError:
-            self.curation = self.ws.curation()  # the memory must not run ahead of the disk
-            raise
+            self._writer.request()
+        else:
+            self.ws.update_tables()
 
     def _check_writes(self) -> bool:
-        """Reload the names from disk if a queued edit failed there; True if one did."""
+        """Report a table rewrite that failed (the edits themselves are saved); True if one did."""
         failures = self._writer.failures() if self._writer is not None else []
         if not failures:
             return False
-        problems = "; ".join(failures)
-        self.curation = self.ws.curation()
-        self._prepare_states()
-        self._keep_selection(None)
         self.say(
             "error",
-            f"an edit could not be saved ({problems}); the names saved on disk are shown again",
+            f"the edits are saved in journal.jsonl, but the ethogram tables could not be "
+            f"rewritten ({'; '.join(failures)}); they are rewritten by the next edit or by "
+            "Save ethogram",
         )
-        self._emit("names", "motif")
         return True
 
     def flush(self, quiet: bool = False) -> None:
-        """Wait until every edit is on disk (journal and tables)."""
+        """Wait until the ethogram tables follow every edit (the edits are on disk already)."""
         if self._writer is not None:
             self._writer.wait()
         if not quiet:
             self._check_writes()
 
     def close(self) -> None:
-        """Finish writing the edits and stop the writer process."""
+        """Finish rewriting the tables and stop the writer process."""
         if self._writer is not None:
-            self._writer.wait()
             self._writer.close()
+
+
+def _refused(op: str, exc: EthoscribeError) -> str:
+    text = str(exc)
+    if " is in use by " in text:
+        return f"the {op} was not saved: {text}"
+    return text
 
 
 def _describe(op: str, kw: dict[str, Any]) -> str:

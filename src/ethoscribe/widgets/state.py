@@ -4,12 +4,10 @@ Panels read this object and call its methods; it never touches a widget. Everyth
 prepared when the workbench opens (state runs, per-state posture sums) so that selecting, naming
 and merging motifs only recombine small tables.
 
-Edits are checked and applied in memory at once (the same :class:`~ethoscribe.curation.Curation`
-rules the workspace uses), and then written through :meth:`Workspace.edit` on a background
-thread in order: the journal line and the rewritten tables land on disk a moment later, and
-:meth:`WorkbenchState.flush` waits for them (saving, comparing and splitting flush first). If a
-write fails (say another program holds the workspace), the names are reloaded from disk and the
-message says so.
+An edit is shown as done only once its journal line is on disk (see
+:mod:`ethoscribe.widgets.editing`); the ethogram tables follow a moment later, rewritten by a
+worker process, and :meth:`WorkbenchState.flush` waits for them (saving and comparing flush
+first). An edit refused on disk (another program holds the workspace) changes nothing on screen.
 """
 
 from __future__ import annotations
@@ -35,7 +33,7 @@ from ethoscribe.workspace.browsing import (
     neighbour_counts,
     state_runs,
 )
-from ethoscribe.workspace.edit_worker import EditWriter
+from ethoscribe.workspace.edit_worker import TableWriter
 from ethoscribe.workspace.export import save_ethogram
 from ethoscribe.workspace.postures import PostureLibrary
 from ethoscribe.workspace.video import VideoFrames, video_file
@@ -71,7 +69,8 @@ class WorkbenchState(CurationEdits):
     skeleton : sequence of (str, str), optional
         Keypoint pairs to draw as bones (default: see ``ethoscribe.workspace.postures``).
     write_behind : bool
-        Write edits on a background thread (True) or before ``edit`` returns (False).
+        Rewrite the ethogram tables in a worker process (True) or before ``edit`` returns
+        (False). Either way the edit itself is on disk before ``edit`` returns.
 
     Examples
     --------
@@ -94,7 +93,9 @@ class WorkbenchState(CurationEdits):
         self.stability = pd.read_csv(stability) if stability.is_file() else None
         self.curation = self.ws.curation()
         self._labels = self.ws.state_labels()
-        self._writer = EditWriter(self.ws.path) if write_behind else None
+        self._writer = TableWriter(self.ws.path) if write_behind else None
+        if self._writer is not None and not self.ws.exports_current():
+            self._writer.request()  # an earlier session ended before its tables were rewritten
         self._listeners: dict[str, list[Callable[[], None]]] = defaultdict(list)
         self._views: dict[Any, dict[Any, Any]] = {}
         self._state_key: frozenset[int] | None = None
@@ -191,7 +192,7 @@ class WorkbenchState(CurationEdits):
             keep &= table["stability"] >= self.min_stability
         keep &= table["motif"] != UNASSIGNED
         column = SORT_KEYS[self.sort_by]
-        ascending = not self.descending if column != "motif" else self.descending is False
+        ascending = True if column == "motif" else not self.descending  # names read A to Z
         rows = table[keep].sort_values([column, "motif"], ascending=[ascending, True])
         return rows.reset_index(drop=True)
 

@@ -26,7 +26,15 @@ from ethoscribe.io._atomic import atomic_write_json, atomic_write_text, write_ta
 from ethoscribe.multiplicity import family_summary, headline
 from ethoscribe.report import Section, render_report
 from ethoscribe.stats import EXACT_THRESHOLD, compare_groups, parse_planned, session_metrics
-from ethoscribe.workspace.folder import CAUTION, Staging, Workspace, jsonable, now, versions
+from ethoscribe.workspace.folder import (
+    CAUTION,
+    Staging,
+    Workspace,
+    check_output_folder,
+    jsonable,
+    now,
+    versions,
+)
 from ethoscribe.workspace.report_sections import (
     ethogram_sections,
     group_section,
@@ -201,6 +209,7 @@ def _output_folder(out: str | Path, ws: Workspace) -> Path:
     out = Path(out)
     if out.exists() and not out.is_dir():
         raise InputError(f"--out {out} is a file; give a folder for the comparison outputs")
+    check_output_folder(out, "comparison")  # never another workspace or a folder of other files
     if out.exists() and out.resolve() == ws.path.resolve():
         msg = f"--out {out} is the workspace itself; write the comparison to a folder of its own"
         raise InputError(f"{msg}, e.g. {ws.path / 'comparison'}")

@@ -1,137 +1,124 @@
-"""A writer process that applies journaled edits to one workspace, in order.
+"""A writer process that keeps a workspace's ethogram tables up to date behind the workbench.
 
-The workbench shows an edit at once and leaves the disk work -- the journal line and the
-rewritten ethogram tables, seconds of pandas work on a million frames -- to this process, so the
-notebook kernel stays free to redraw. It reads one JSON object per line on standard input,
-``{"id": 1, "op": "rename", "kwargs": {"motif": "motif_01", "name": "walking"}}``, calls
-:meth:`Workspace.edit` and answers one line per edit on standard output,
-``{"id": 1, "ok": true}`` or ``{"id": 1, "ok": false, "error": "..."}``. It stops when its
-input closes, after the edits already sent.
+An edit is saved when its journal line is on disk: the workbench appends it itself, under the
+workspace lock, before it shows the edit as done (:meth:`Workspace.journal_edit`, milliseconds).
+Rewriting the ethogram tables that follow from the journal (``labels.csv``, ``bouts.csv``, ...:
+seconds of pandas work on a million frames) is left to one worker process, so the notebook
+kernel stays free to redraw. The worker runs :meth:`Workspace.update_tables`, which reads the
+journal when it starts: one queued rewrite serves every edit saved before it, so a burst of
+edits costs at most two rewrites. If the kernel dies, no edit is lost: the tables are brought up
+to date by the next rewrite, edit, save or :meth:`Workspace.repair`.
 
-:class:`EditWriter` starts it and talks to it (JSON only, nothing pickled).
+The worker is a ``concurrent.futures.ProcessPoolExecutor`` of one spawned process (only a
+folder path goes to it; nothing a user shares is pickled). Its only hand-written addition is a
+watchdog: a spawned worker whose parent is killed otherwise waits for work forever (seen with
+SIGKILL on Python 3.11), so it ends itself once its parent is gone.
 """
 
 from __future__ import annotations
 
-import json
+import multiprocessing
 import os
-import subprocess
-import sys
-import tempfile
 import threading
+import time
+from concurrent.futures import Future, ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
-from typing import Any
 
 from ethoscribe.workspace.folder import Workspace
 
 
-def serve(path: str, stdin=None, stdout=None) -> None:
-    """Apply the edits read from ``stdin`` to the workspace at ``path`` until input ends."""
-    stdin, stdout = stdin or sys.stdin, stdout or sys.stdout
+def update_tables(path: str) -> bool:
+    """Bring the tables of the workspace at ``path`` up to its journal (run in the worker)."""
+    return Workspace(path).update_tables()
+
+
+def _start_worker(parent: int) -> None:
     if hasattr(os, "nice"):
         os.nice(10)  # the notebook kernel redrawing comes first; the disk can wait a moment
-    ws = Workspace(path)
-    for line in stdin:
-        if not line.strip():
-            continue
-        request = json.loads(line)
-        answer: dict[str, Any] = {"id": request.get("id"), "ok": True}
-        try:
-            ws.edit(request["op"], **request.get("kwargs", {}))
-        except Exception as exc:  # every failure goes back to the workbench as text
-            answer = {"id": request.get("id"), "ok": False, "error": f"{exc}"}
-        stdout.write(json.dumps(answer) + "\n")
-        stdout.flush()
+
+    def watch() -> None:
+        while os.getppid() == parent:
+            time.sleep(1.0)
+        os._exit(0)  # the kernel is gone: nothing is left to serve (the journal is on disk)
+
+    threading.Thread(target=watch, daemon=True).start()
 
 
-class EditWriter:
-    """Sends edits to an :func:`serve` process and keeps track of their answers.
+class TableWriter:
+    """Rewrites a workspace's ethogram tables in a worker process, on request.
 
     Examples
     --------
-    >>> writer = EditWriter("study_ws")  # doctest: +SKIP
-    >>> writer.submit("rename", {"motif": "motif_01", "name": "walking"})  # doctest: +SKIP
+    >>> writer = TableWriter("study_ws")  # doctest: +SKIP
+    >>> writer.request()  # after a journal_edit  # doctest: +SKIP
     >>> writer.wait(); writer.failures()  # doctest: +SKIP
     []
     """
 
     def __init__(self, path: str | Path) -> None:
         self.path = str(Path(path).resolve())
-        self._proc: subprocess.Popen | None = None
-        self._sent = self._answered = 0
+        self._pool: ProcessPoolExecutor | None = None
+        self._queued: Future | None = None
+        self._futures: list[Future] = []
         self._errors: list[str] = []
-        self._ops: dict[int, str] = {}
-        self._done = threading.Condition()
-        self._log = tempfile.TemporaryFile(mode="w+")
+        self._guard = threading.Lock()
 
-    def _start(self) -> subprocess.Popen:
-        if self._proc is not None and self._proc.poll() is not None:
-            self._proc = None  # it stopped (its failure was reported): start a new one
-        if self._proc is None:
-            command = [sys.executable, "-m", "ethoscribe.workspace.edit_worker", self.path]
-            self._proc = subprocess.Popen(
-                command,
-                stdin=subprocess.PIPE,
-                stdout=subprocess.PIPE,
-                stderr=self._log,
-                text=True,
-                bufsize=1,
+    def _executor(self) -> ProcessPoolExecutor:
+        if self._pool is None:
+            self._pool = ProcessPoolExecutor(
+                max_workers=1,
+                mp_context=multiprocessing.get_context("spawn"),
+                initializer=_start_worker,
+                initargs=(os.getpid(),),
             )
-            threading.Thread(target=self._read, args=(self._proc,), daemon=True).start()
-        return self._proc
+        return self._pool
 
-    def submit(self, op: str, kwargs: dict[str, Any]) -> None:
-        """Queue one edit (returns at once)."""
-        proc = self._start()
-        with self._done:
-            self._sent += 1
-            self._ops[self._sent] = op
-            line = json.dumps({"id": self._sent, "op": op, "kwargs": kwargs}) + "\n"
-        try:
-            proc.stdin.write(line)
-            proc.stdin.flush()
-        except (BrokenPipeError, OSError):
-            self._stopped()
-
-    def _read(self, proc: subprocess.Popen) -> None:
-        for line in proc.stdout:
-            answer = json.loads(line)
-            with self._done:
-                self._answered += 1
-                if not answer.get("ok"):
-                    op = self._ops.get(answer.get("id"), "edit")
-                    self._errors.append(f"{op}: {answer.get('error')}")
-                self._done.notify_all()
-        self._stopped()
-
-    def _stopped(self) -> None:
-        with self._done:
-            lost = self._sent - self._answered
-            if lost > 0:
-                self._log.seek(0)
-                tail = self._log.read()[-500:].strip()
-                self._errors.append(f"the edit writer stopped with {lost} edit(s) unsaved: {tail}")
-                self._answered = self._sent
-            self._done.notify_all()
+    def request(self) -> None:
+        """Ask for the tables to follow the journal as it is now (returns at once)."""
+        with self._guard:
+            queued = self._queued
+            if queued is not None and not queued.running() and not queued.done():
+                return  # it has not started: it will read the journal with this edit in it
+            try:
+                future = self._executor().submit(update_tables, self.path)
+            except (BrokenProcessPool, RuntimeError):
+                self._pool = None  # the worker died (killed, out of memory): start a new one
+                future = self._executor().submit(update_tables, self.path)
+            self._queued = future
+            self._futures.append(future)
 
     def wait(self) -> None:
-        """Block until every submitted edit has been answered."""
-        with self._done:
-            self._done.wait_for(lambda: self._answered >= self._sent)
+        """Block until every requested rewrite has finished; failures are kept for
+        :meth:`failures`."""
+        with self._guard:
+            futures, self._futures = self._futures, []
+        for future in futures:
+            self._collect(future)
 
     def failures(self) -> list[str]:
-        """Messages of failed edits since the last call."""
-        with self._done:
-            out, self._errors = self._errors, []
+        """Messages of failed rewrites since the last call (finished ones only)."""
+        with self._guard:
+            done = [f for f in self._futures if f.done()]
+            self._futures = [f for f in self._futures if not f.done()]
+        for future in done:
+            self._collect(future)
+        out, self._errors = self._errors, []
         return out
 
+    def _collect(self, future: Future) -> None:
+        try:
+            future.result()
+        except BrokenProcessPool:
+            with self._guard:
+                self._pool = None  # the next request starts a new worker
+            self._errors.append("the table writer process stopped unexpectedly")
+        except Exception as exc:  # every failure goes back to the workbench as text
+            self._errors.append(f"{exc}")
+
     def close(self) -> None:
-        """Let the process finish the queued edits and stop."""
-        if self._proc is not None:
-            self._proc.stdin.close()
-            self._proc.wait(timeout=120)
-            self._proc = None
-
-
-if __name__ == "__main__":
-    serve(sys.argv[1])
+        """Finish the requested rewrites and stop the worker."""
+        self.wait()
+        if self._pool is not None:
+            self._pool.shutdown(wait=True)
+            self._pool = None

@@ -35,6 +35,7 @@ WORKSPACE_FILE = "workspace.json"
 JOURNAL_FILE = "journal.jsonl"
 EXPORTS_STATE = ".exports-state.json"
 TABLES = ("labels.csv", "bouts.csv", "transitions.csv", "time_budget.csv")
+TABLES_STAGING = ".tables-"  # where a table rewrite computes without the lock (old ones swept)
 MAX_STATES = 1000  # a summary claiming more states is damaged (names are built per state)
 
 
@@ -236,6 +237,7 @@ def remove_leftovers(root: Path) -> list[str]:
         else:
             continue
         notes.append(f"removed {p.name}, left by a save that was interrupted")
+    notes += _remove_old_folders(root, TABLES_STAGING)
     notes += _remove_cache_leftovers(root / "cache")
     model = root / "model"
     if model.is_dir() and not model.is_symlink():
@@ -243,6 +245,16 @@ def remove_leftovers(root: Path) -> list[str]:
             if p.is_file() and _is_partial(p, ("model.json", "arrays.npz")):
                 p.unlink(missing_ok=True)
                 notes.append(f"removed model/{p.name}, left by a save that was interrupted")
+    return notes
+
+
+def _remove_old_folders(root: Path, prefix: str, min_age_s: float = 3600.0) -> list[str]:
+    # Table rewrites compute without the lock: only folders no live writer can still own go.
+    limit, notes = time.time() - min_age_s, []
+    for p in sorted(root.glob(prefix + "*")):
+        if p.is_dir() and not p.is_symlink() and p.lstat().st_mtime < limit:
+            shutil.rmtree(p, ignore_errors=True)
+            notes.append(f"removed {p.name}, left by a table rewrite that was interrupted")
     return notes
 
 
@@ -315,16 +327,17 @@ def check_links(root: Path) -> None:
 class Staging:
     """Files are written into a hidden folder beside the target and moved in one by one."""
 
-    def __init__(self, out: Path):
+    def __init__(self, out: Path, held: bool = False):
         out.mkdir(parents=True, exist_ok=True)
         self.out = out
         self._retired: list[tuple[str, str]] = []
         # A folder already holding a workspace (or a killed run's leftovers) is locked until
         # commit or abort: its editor and this run exclude each other. A new folder is not.
+        # ``held``: the caller holds the lock already (a whole run, from its start).
         self._held = ExitStack()
         ours = (WORKSPACE_FILE, locking.LOCK_FILE, ".incoming-", ".old-")
-        locked = any(p.name.startswith(ours) for p in out.iterdir())
-        if locked:
+        locked = held or any(p.name.startswith(ours) for p in out.iterdir())
+        if locked and not held:
             what = "workspace" if (out / WORKSPACE_FILE).exists() else "folder"
             self._held.enter_context(locking.hold(out, what))
         try:

@@ -27,7 +27,10 @@ by a killed edit are brought up to date by :meth:`Workspace.repair` or the next 
 from __future__ import annotations
 
 import datetime as _dt
+import os
 import platform
+import shutil
+import tempfile
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
@@ -50,6 +53,10 @@ from ethoscribe.workspace.files import (
     EXPORTS_STATE,
     JOURNAL_FILE,
     MAX_STATES,
+    OWN_FILES,
+    OWN_FOLDERS,
+    TABLES,
+    TABLES_STAGING,
     append_journal,
     check_links,
     journal_fingerprint,
@@ -148,6 +155,89 @@ def features_table(feats: Sequence[FeatureSet]) -> pd.DataFrame:
 def table_json(table: pd.DataFrame) -> dict[str, list]:
     """A table as JSON-able columns (NaN as null)."""
     return table.astype(object).where(table.notna(), None).to_dict(orient="list")
+
+
+# --- output folders -------------------------------------------------------------------------
+# Names only a run of ethoscribe leaves (its lock, staging folders): proof a folder is ours.
+RUN_MARKS = (locking.LOCK_FILE, locking.OWNER_FILE, ".incoming-", ".old-", TABLES_STAGING)
+COMPARISON_FILE = "metadata.json"
+
+
+def check_output_folder(
+    out: str | Path, kind: str = "workspace", inputs: Sequence[str | Path] = ()
+) -> Path:
+    """Refuse an ``--out`` folder that a run would clobber; return it as a Path.
+
+    A run writes only into a new or empty folder, a folder of the same kind it wrote before
+    (``kind``: ``"workspace"`` holds ``workspace.json``, ``"comparison"`` holds
+    ``metadata.json``) or one an interrupted run left; never into a folder holding other files,
+    an input folder, or (a comparison) a workspace.
+    """
+    out = Path(out)
+    option = "--out"
+    if out.exists() and not out.is_dir():
+        raise InputError(f"{option} {out} is a file; give a folder (a new one is created)")
+    real = out.resolve()
+    for given in inputs:
+        p = Path(given).expanduser().resolve()
+        if p == real or (p.is_file() and p.parent == real):
+            msg = (
+                f"{option} {out} is where the input {given} is; write the results to a folder "
+                "of their own (the outputs would mix with, or be read as, pose files)"
+            )
+            raise InputError(msg)
+    if not out.is_dir():
+        return out
+    names = sorted(p.name for p in out.iterdir())
+    marker = WORKSPACE_FILE if kind == "workspace" else COMPARISON_FILE
+    if kind != "workspace" and WORKSPACE_FILE in names:
+        msg = (
+            f"{option} {out} is an ethoscribe workspace; a {kind} goes to a folder of its own "
+            f"(e.g. {out / kind}), so the workspace's tables are not replaced"
+        )
+        raise InputError(msg)
+    if marker in names:
+        return out
+    # A run killed while moving its files in (marker not yet back) leaves only names of its
+    # own, beside its lock or staging folder: such a folder is resumed, a user's is not.
+    ours = kind == "workspace" and any(n.startswith((*RUN_MARKS, EXPORTS_STATE)) for n in names)
+    own = (*RUN_MARKS, "cache", *((*OWN_FILES, *OWN_FOLDERS, "journal-before-") if ours else ()))
+    foreign = [n for n in names if not n.startswith(own)]
+    if foreign:
+        shown = ", ".join(foreign[:3]) + (
+            f" and {len(foreign) - 3} more" if len(foreign) > 3 else ""
+        )
+        msg = (
+            f"{option} {out} holds files ethoscribe did not write ({shown}) and is not an "
+            f"ethoscribe {kind} folder; choose a new or empty folder (nothing there is overwritten)"
+        )
+        raise InputError(msg)
+    return out
+
+
+@contextmanager
+def hold_output(out: Path, inputs: Sequence[str | Path] = ()) -> Iterator[bool]:
+    """Check ``out`` (:func:`check_output_folder`), create it and hold its lock for a whole run.
+
+    Yields whether this run created the folder. The lock is taken before any work, so a second
+    run or an edit meets a clear 'in use by' message at once, not after minutes of reading. If
+    the run fails on bad input in a folder it created, the folder is removed: nothing
+    half-written is left (an interrupted run keeps its cache, so the next run resumes).
+    """
+    check_output_folder(out, "workspace", inputs)
+    try:
+        out.mkdir(parents=True)
+        created = True
+    except FileExistsError:
+        created = False
+    what = "workspace" if (out / WORKSPACE_FILE).exists() else "folder"
+    with locking.hold(out, what):
+        try:
+            yield created
+        except EthoscribeError:
+            if created and not (out / WORKSPACE_FILE).exists():  # a committed run is kept
+                shutil.rmtree(out, ignore_errors=True)
+            raise
 
 
 # --- an existing workspace ----------------------------------------------------------------
@@ -309,13 +399,13 @@ class Workspace:
 
     # editing
     @contextmanager
-    def lock(self) -> Iterator[None]:
+    def lock(self, wait_s: float = 0.0, tidy: bool = True) -> Iterator[None]:
         """Hold the workspace for editing; a second process is told the holder's pid, host and
-        start time. A crashed holder does not block; what it left is cleaned up and noted in
-        :attr:`recovery`."""
-        with locking.hold(self.path, "workspace") as stale:
+        start time. A crashed holder does not block; what it left is cleaned up (``tidy``) and
+        noted in :attr:`recovery`. ``wait_s``: wait that long for a short-lived holder."""
+        with locking.hold(self.path, "workspace", wait_s) as stale:
             self._stale = stale
-            self.recovery = remove_leftovers(self.path)
+            self.recovery = remove_leftovers(self.path) if tidy else []
             if stale is not None:
                 who = locking.describe_owner(stale)
                 self.recovery.insert(0, f"an earlier editor ({who}) ended without closing")
@@ -364,6 +454,55 @@ class Workspace:
         return cur.preview_split(
             motif, list(names), labels, features, min_frames=self.min_bout_frames()
         )
+
+    def journal_edit(
+        self, op: str, kwargs: dict[str, Any], wait_s: float = 0.0
+    ) -> tuple[dict[str, Any], Curation]:
+        """Check one edit against the journal on disk and append it (fsynced); tables later.
+
+        The journal is replayed under the lock, so an edit is checked against every edit saved
+        before it, by whichever process. Returns the journal record and the naming it leads to.
+        The ethogram tables then lag behind: :meth:`update_tables` (or :meth:`repair`, or the
+        next :meth:`edit`) brings them up to date. This takes milliseconds (a split: seconds).
+        """
+        if op not in EDITS:
+            raise WorkspaceError(f"unknown edit {op!r}; known edits: {sorted(EDITS)}")
+        with self.lock(wait_s, tidy=False):
+            cur = self.curation()
+            if op == "split":
+                kwargs = {"labels": self.state_labels(), "features": self.features(), **kwargs}
+                kwargs.setdefault("min_frames", self.min_bout_frames())
+            record = getattr(cur, op)(**kwargs)
+            append_journal(self.path / JOURNAL_FILE, record)  # the edit is safe from here on
+        return record, cur
+
+    def update_tables(self, wait_s: float = 30.0) -> bool:
+        """Rewrite the ethogram tables if they lag behind the journal; True if they did.
+
+        The tables are computed and written into a hidden folder without the lock (seconds on
+        a large study), then moved in under the lock (milliseconds) only if the journal has not
+        changed meanwhile -- else they are computed again. Edits are never held up for long.
+        """
+        journal = self.path / JOURNAL_FILE
+        while not self.exports_current():
+            seen = journal_fingerprint(journal)
+            cur = self.curation()
+            features = self.features() if self._needs_features(cur) else None
+            with self._replay_errors():
+                named = cur.apply(self.state_labels(), features)
+            folder = Path(tempfile.mkdtemp(prefix=TABLES_STAGING, dir=self.path))
+            try:
+                write_ethogram_tables(folder, named)
+                with self.lock(wait_s, tidy=False):
+                    if journal_fingerprint(journal) != seen:
+                        continue  # an edit came in meanwhile: compute again
+                    for name in TABLES:
+                        os.replace(folder / name, self.path / name)
+                    atomic_write_json(self.path / EXPORTS_STATE, seen)
+                    return True
+            finally:
+                shutil.rmtree(folder, ignore_errors=True)
+        return False
 
     def rename_motif(self, motif: str, name: str) -> dict[str, Any]:
         """Give ``motif`` a new ``name`` (journaled)."""

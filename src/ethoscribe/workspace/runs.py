@@ -12,7 +12,7 @@ import pandas as pd
 
 from ethoscribe.clean import CleanParams
 from ethoscribe.curation import Curation
-from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
+from ethoscribe.errors import InputError, WorkspaceError
 from ethoscribe.features import FeatureSet
 from ethoscribe.io._atomic import atomic_table_writer, atomic_write_json, write_table
 from ethoscribe.io._safe import read_json
@@ -43,6 +43,7 @@ from ethoscribe.workspace.folder import (
     Workspace,
     append_journal,
     features_table,
+    hold_output,
     jsonable,
     now,
     table_json,
@@ -51,6 +52,7 @@ from ethoscribe.workspace.folder import (
 )
 from ethoscribe.workspace.reading import (
     as_path,
+    as_paths,
     check_readers_portable,
     cleaning_summary,
     discovery_cleaning,
@@ -119,11 +121,11 @@ def discover(
     created, the folder is removed: nothing half-written is left.
     """
     out = as_path(out, "out")
-    _refuse_to_overwrite_curation(out, replace_curation)
-    plan = plan_sessions(inputs, manifest, fps, format, reader_options)
-    cleaning = discovery_cleaning(cleaning, min_confidence).to_dict()
-    created = not out.exists()
-    try:
+    # One lock from start to end, checked before any work.
+    with hold_output(out, as_paths(inputs, "inputs")):
+        _refuse_to_overwrite_curation(out, replace_curation)
+        plan = plan_sessions(inputs, manifest, fps, format, reader_options)
+        cleaning = discovery_cleaning(cleaning, min_confidence).to_dict()
         client = connect(scheduler)
         prepared, quality, table, used = _prepare(
             out, plan, cleaning, jobs, client, force, progress
@@ -147,15 +149,9 @@ def discover(
         summary["cleaning"] = cleaning_summary(cleaning, used, table)
         summary["reading"] = reading_summary(plan)
         tables = _write_workspace(out, table, model, decoded, quality, report, summary)
-    except EthoscribeError:
-        # Bad input in a folder this run made: leave nothing behind. (An interrupted run keeps
-        # its cache, so the next run resumes.)
-        if created:
-            shutil.rmtree(out, ignore_errors=True)
-        raise
-    ws = Workspace(out)
-    write_ethogram_report(ws, out / "report.html", tables)
-    return ws
+        ws = Workspace(out)
+        write_ethogram_report(ws, out / "report.html", tables)
+        return ws
 
 
 def _prepare(
@@ -274,10 +270,10 @@ def label_sessions(
     out = as_path(out, "out")
     if out.resolve() == source.resolve():
         raise WorkspaceError(f"{out}: write the new cohort's labels to a folder of its own")
-    _refuse_to_overwrite_curation(out, False)
-    plan = plan_sessions(inputs, manifest, fps, format, reader_options)
-    created = not out.exists()
-    try:
+    # One lock from start to end, checked before any work.
+    with hold_output(out, as_paths(inputs, "inputs")):
+        _refuse_to_overwrite_curation(out, False)
+        plan = plan_sessions(inputs, manifest, fps, format, reader_options)
         client = connect(scheduler)
         cleaning = model.cleaning_.to_dict()
         prepared, quality, table, used = _prepare(
@@ -289,13 +285,9 @@ def label_sessions(
         summary["cleaning"] = cleaning_summary(cleaning, used, table)
         summary["reading"] = reading_summary(plan)
         tables = _write_workspace(out, table, model, decoded, quality, None, summary, journal)
-    except EthoscribeError:
-        if created:
-            shutil.rmtree(out, ignore_errors=True)
-        raise
-    ws = Workspace(out)
-    write_ethogram_report(ws, out / "report.html", tables)
-    return ws
+        ws = Workspace(out)
+        write_ethogram_report(ws, out / "report.html", tables)
+        return ws
 
 
 def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any) -> dict:
@@ -341,7 +333,7 @@ def _write_workspace(
     """Move a finished run's files into ``out``, one session at a time for per-frame tables.
 
     Returns the bouts and per-session time budgets written (for the report)."""
-    stage = Staging(out)
+    stage = Staging(out, held=True)  # the run holds the lock from its start
     try:
         write_table(table, stage.path("sessions.csv"))
         if quality:
