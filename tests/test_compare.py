@@ -285,9 +285,14 @@ def test_existing_output_folder_is_left_alone_on_bad_input(tmp_path):
     out = tmp_path / "out"
     out.mkdir()
     (out / "notes.txt").write_text("mine")
-    with pytest.raises(InputError, match="genotype"):
+    # A folder of the user's own files is refused before anything is read or written.
+    with pytest.raises(InputError, match=r"holds files ethoscribe did not write \(notes.txt\)"):
         compare(folder, out, by="genotype")
     assert [p.name for p in out.iterdir()] == ["notes.txt"]
+    (out / "notes.txt").unlink()
+    with pytest.raises(InputError, match="genotype"):
+        compare(folder, out, by="genotype")
+    assert list(out.iterdir()) == []
     with pytest.raises(InputError, match="folder of its own"):
         compare(folder, folder)
     with pytest.raises(WorkspaceError, match="not an ethoscribe workspace"):

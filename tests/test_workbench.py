@@ -141,6 +141,19 @@ def test_rename_reaches_journal_and_tables(wb, folder):
     pd.testing.assert_frame_equal(wb.state.bouts, expected, check_dtype=False)
 
 
+def test_enter_in_the_name_box_renames(wb, folder):
+    wb.state.select_motif("motif_03")
+    wb.desk.name.value = "by_enter"
+    wb.desk.name._handle_custom_msg({"event": "submit"}, [])  # what the box sends on Enter
+    assert wb.state.message == ("ok", "Renamed 'motif_03' to 'by_enter'.")
+    assert Workspace(folder).journal()[-1]["name"] == "by_enter"
+    wb.state.select_motif("motif_01")
+    wb.desk.merge_with.value = ("by_enter",)
+    wb.desk.merge_into.value = "joined"
+    wb.desk.merge_into._handle_custom_msg({"event": "submit"}, [])
+    assert wb.state.motifs == ["joined", "motif_02"]
+
+
 BAD_INPUT = [
     (lambda wb: _rename(wb, ""), "a motif name must be a non-empty string"),
     (lambda wb: _rename(wb, "motif_03"), "already taken"),
@@ -204,7 +217,11 @@ def test_sort_and_filter_the_motif_list(viewer):
     assert counts == sorted(counts, reverse=True)
     wb.motif_list.largest.value = False
     assert wb.state.motif_table()["n_bouts"].tolist() == sorted(counts)
-    wb.motif_list.sort.value = "name"
+    wb.motif_list.largest.value = True
+    wb.motif_list.sort.value = "name"  # names read A to Z; "largest first" does not apply
+    assert [v for _, v in wb.motif_list.list.options] == ["motif_01", "motif_02", "motif_03"]
+    assert wb.motif_list.largest.disabled
+    wb.motif_list.largest.value = False
     assert [v for _, v in wb.motif_list.list.options] == ["motif_01", "motif_02", "motif_03"]
     share = wb.state.motif_table()["time_share"].min()
     wb.motif_list.min_share.value = float(share) + 1e-6
@@ -212,6 +229,7 @@ def test_sort_and_filter_the_motif_list(viewer):
     assert wb.motif_list.min_stability.disabled  # no stability check in this workspace
     wb.motif_list.min_share.value = 0.0
     wb.motif_list.sort.value = "time share"
+    assert not wb.motif_list.largest.disabled
     wb.motif_list.largest.value = True
     assert len(wb.motif_list.list.options) == 3
 
@@ -304,23 +322,45 @@ def test_save_writes_exports_and_report(wb, folder):
     assert "resting_like" in (folder / "report.html").read_text()
 
 
-def test_edits_written_behind_and_a_failed_write_reloads_the_names(writing_behind, folder):
+def test_edits_are_on_disk_when_shown_and_tables_follow_behind(writing_behind, folder):
     wb = writing_behind
     _rename(wb, "first")
-    wb.state.flush()
+    # Confirmed on screen means journaled: the line is there before any table is rewritten.
+    assert wb.state.message == ("ok", "Renamed 'motif_01' to 'first'.")
     assert Workspace(folder).journal()[-1]["name"] == "first"
     wb.desk.undo.click()
     wb.state.flush()
-    with Workspace(folder).lock():  # another program holds the workspace
+    assert Workspace(folder).exports_current()
+    assert "first" not in set(pd.read_csv(folder / "bouts.csv")["motif"])
+    wb.state.lock_wait_s = 0.2
+    with Workspace(folder).lock():  # another program holds the workspace: refused at once
         _rename(wb, "never_saved")
-        assert wb.state.motif == "never_saved"
-        wb.state.flush()
     kind, text = wb.state.message
-    assert kind == "error" and "could not be saved" in text and "in use" in text
+    assert kind == "error" and "was not saved" in text and "in use" in text
     assert wb.state.motifs == ["motif_01", "motif_02", "motif_03"]
+    assert wb.desk.name.value == "never_saved"  # kept, so it can be tried again
     _rename(wb, "saved_now")
     wb.state.flush()
     assert Workspace(folder).journal()[-1]["name"] == "saved_now"
+    assert "saved_now" in set(pd.read_csv(folder / "bouts.csv")["motif"])
+
+
+def test_an_edit_follows_the_edits_saved_by_another_workbench(writing_behind, folder):
+    # Two workbenches on one workspace (a notebook cell run twice): each edit is checked
+    # against the journal on disk, so a merge right after a rename finds the new name.
+    wb, other = writing_behind, Workbench(folder, write_behind=False)
+    try:
+        other.state.select_motif("motif_02")
+        _rename(other, "digging?")
+        wb.state.select_motif("motif_01")
+        wb.desk.merge_with.value = ("motif_03",)
+        assert wb.state.edit("merge", motifs=["digging?", "motif_01"], into="digging?")
+        assert wb.state.motifs == ["digging?", "motif_03"], wb.state.message
+        wb.state.flush()
+        assert [r["op"] for r in Workspace(folder).journal()] == ["rename", "merge"]
+        assert set(pd.read_csv(folder / "bouts.csv")["motif"]) == {"digging?", "motif_03"}
+    finally:
+        other.close()
 
 
 def test_code_methods_print_the_message(wb, capsys):

@@ -20,6 +20,28 @@ from ethoscribe.segment.registry import get_segmenter, segmenter_names
 # number is a slip (a time step, a frame count) and would make every window absurd.
 MAX_FPS = 1_000_000
 
+EXAMPLES = {
+    "discover": """example:
+  ethoscribe discover example_sessions --manifest example_sessions/manifest.csv --out results
+  ethoscribe discover tracks/ --fps 30 --states 8 --out results   # no manifest, fixed count""",
+    "label": """example:
+  ethoscribe label results new_cohort/ --manifest new_cohort/manifest.csv --out new_results""",
+    "compare": """example:
+  ethoscribe compare results --out results/comparison --primary time_budget:digging
+  ethoscribe compare results --by condition --paired --out results/by_condition""",
+    "simulate": """example:
+  ethoscribe simulate --out my_example --sessions 4 --duration 120""",
+}
+
+
+class _Examples(argparse.HelpFormatter):
+    """Wraps the description as usual but keeps the epilog's example lines as written."""
+
+    def _fill_text(self, text: str, width: int, indent: str) -> str:
+        if text.startswith("example:"):
+            return "".join(indent + line for line in text.splitlines(keepends=True))
+        return super()._fill_text(text, width, indent)
+
 
 def _states(value: str) -> int | str:
     if value == "auto":
@@ -147,7 +169,11 @@ def _add_reading_options(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--manifest", type=Path, help="session manifest CSV (session, path, fps, group, ...)"
     )
-    p.add_argument("--fps", type=_fps, help="frame rate for files whose manifest row gives none")
+    p.add_argument(
+        "--fps",
+        type=_fps,
+        help="frame rate (frames per second) for files whose manifest row gives none",
+    )
     p.add_argument("--quiet", action="store_true", help="no progress bars")
     r = p.add_argument_group("reading")
     r.add_argument(
@@ -192,13 +218,27 @@ def build_parser() -> argparse.ArgumentParser:
         prog="ethoscribe",
         description="From keypoint tracks to a named ethogram. Outputs support, not replace, "
         "expert review and the local animal-welfare and ethics rules.",
+        epilog="Run 'ethoscribe COMMAND --help' for a command's options and an example.",
     )
     parser.add_argument("--version", action="version", version=f"ethoscribe {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
 
-    d = sub.add_parser("discover", help="clean, featurise and segment sessions into motifs")
+    d = sub.add_parser(
+        "discover",
+        help="clean, featurise and segment sessions into motifs",
+        description="Read pose files, clean them, compute body-frame features and find the "
+        "recurring motifs; write a workspace folder (tables, report, model).",
+        epilog=EXAMPLES["discover"],
+        formatter_class=_Examples,
+    )
     _add_reading_options(d)
-    d.add_argument("--out", type=Path, required=True, help="output folder (a workspace)")
+    d.add_argument(
+        "--out",
+        type=Path,
+        required=True,
+        help="output folder: new, empty or an earlier workspace (a folder of other files is "
+        "refused)",
+    )
     d.add_argument("--origin", help="keypoint at the body centre (default: centroid)")
     d.add_argument(
         "--axis", type=_axis, help="body axis as FROM,TO keypoints (tail side to head side)"
@@ -227,20 +267,43 @@ def build_parser() -> argparse.ArgumentParser:
         "frame; default 1000000)",
     )
 
-    lab = sub.add_parser("label", help="label new sessions with a saved model (same motif names)")
+    lab = sub.add_parser(
+        "label",
+        help="label new sessions with a saved model (same motif names)",
+        description="Label new sessions with the model and the curated motif names of a "
+        "workspace; write a new workspace.",
+        epilog=EXAMPLES["label"],
+        formatter_class=_Examples,
+    )
     lab.add_argument("model", type=Path, help="a workspace folder or its model/ folder")
     _add_reading_options(lab)
-    lab.add_argument("--out", type=Path, required=True, help="output folder")
+    lab.add_argument(
+        "--out", type=Path, required=True, help="output folder: new, empty or an earlier workspace"
+    )
     _add_batch_options(lab)
 
-    c = sub.add_parser("compare", help="group statistics and the HTML report of a discover folder")
+    c = sub.add_parser(
+        "compare",
+        help="group statistics and the HTML report of a discover folder",
+        description="Compare groups of sessions (time budgets, bout rates and durations, "
+        "transitions) and write the tables and report.html into a folder of their own.",
+        epilog=EXAMPLES["compare"],
+        formatter_class=_Examples,
+    )
     c.add_argument("workspace", type=Path, help="folder written by 'ethoscribe discover'")
     c.add_argument(
         "--manifest", type=Path, help="CSV with a session column and the grouping column"
     )
-    c.add_argument("--out", type=Path, required=True, help="output folder")
+    c.add_argument(
+        "--out", type=Path, required=True, help="output folder: new, empty or an earlier comparison"
+    )
     c.add_argument("--by", default="group", help="grouping column of the manifest (default: group)")
-    c.add_argument("--test", choices=["permutation", "rank"], default="permutation")
+    c.add_argument(
+        "--test",
+        choices=["permutation", "rank"],
+        default="permutation",
+        help="permutation test of the difference in means (default) or a rank test",
+    )
     c.add_argument(
         "--paired", action="store_true", help="paired design: subjects under each condition"
     )
@@ -251,13 +314,26 @@ def build_parser() -> argparse.ArgumentParser:
         "correction (curated motif names), e.g. --primary time_budget:digging,bout_rate:digging; "
         "every other test is exploratory (Benjamini-Hochberg within each family of metrics)",
     )
-    c.add_argument("--seed", type=int, default=0)
+    c.add_argument(
+        "--seed", type=int, default=0, help="random seed of permutations and bootstraps (default 0)"
+    )
 
-    s = sub.add_parser("simulate", help="write simulated example sessions (invented animals)")
-    s.add_argument("--out", type=Path, required=True)
-    s.add_argument("--sessions", type=int, default=8, help="sessions per group")
-    s.add_argument("--duration", type=float, default=240.0, help="seconds per session")
-    s.add_argument("--seed", type=int, default=0)
+    s = sub.add_parser(
+        "simulate",
+        help="write simulated example sessions (invented animals)",
+        description="Write pose files of simulated sessions (an invented rodent, two groups) "
+        "with a manifest and the true behaviour of every frame, to try ethoscribe on.",
+        epilog=EXAMPLES["simulate"],
+        formatter_class=_Examples,
+    )
+    s.add_argument(
+        "--out", type=Path, required=True, help="folder for the pose files and manifest.csv"
+    )
+    s.add_argument("--sessions", type=int, default=8, help="sessions per group (default 8)")
+    s.add_argument(
+        "--duration", type=float, default=240.0, help="seconds per session (default 240)"
+    )
+    s.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     return parser
 
 

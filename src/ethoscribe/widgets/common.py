@@ -15,6 +15,24 @@ from ethoscribe.errors import EthoscribeError
 MESSAGE_COLOURS = {"ok": "#1b6e3a", "info": "#444444", "error": "#a4262c"}
 MESSAGE_BACKGROUNDS = {"ok": "#e9f5ee", "info": "#f3f3f3", "error": "#fdecea"}
 LABEL_STYLE = {"description_width": "initial"}
+# Rows of panels wrap onto the next line when the notebook is narrow (a laptop with the file
+# browser open) instead of running off the right edge.
+FLOW = {"flex_flow": "row wrap", "align_items": "flex-start"}
+
+
+def flow(children: list, **layout: str) -> w.HBox:
+    """A row of panels that wraps when the page is too narrow for it."""
+    return w.HBox(children, layout=w.Layout(**FLOW, **layout))
+
+
+def on_enter(box: w.Text, action: Callable[[], Any]) -> None:
+    """Call ``action()`` when Enter is pressed in ``box`` (not when it merely loses focus)."""
+
+    def message(_, content, buffers) -> None:
+        if content.get("event") == "submit":  # what the text box sends on Enter
+            action()
+
+    box.on_msg(message)
 
 
 class LazyDrawing:

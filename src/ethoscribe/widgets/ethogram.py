@@ -5,16 +5,17 @@ from __future__ import annotations
 
 import ipywidgets as w
 import numpy as np
+import plotly.graph_objects as go
 
 from ethoscribe.plots.ethogram import ethogram_raster, motif_colours
 from ethoscribe.plots.motifs import posture_figure
 from ethoscribe.postures import evenly_spaced_frames
-from ethoscribe.widgets.common import LazyDrawing, figure_widget, heading, note, redraw
+from ethoscribe.widgets.common import LazyDrawing, figure_widget, flow, heading, note, redraw
 from ethoscribe.widgets.state import WorkbenchState
 
 RASTER_BARS = 3000  # above this many bouts a session's raster is drawn from samples
 CLOSEUP_FRAMES = 90  # frames of a bout the close-up steps through (evenly spaced)
-RASTER_WIDTH = 1100
+RASTER_WIDTH = 880  # fits a 1366 px laptop screen with the file browser open
 
 
 class EthogramPage(LazyDrawing):
@@ -27,7 +28,9 @@ class EthogramPage(LazyDrawing):
         sessions = state.sessions["session"].astype(str).tolist()
         self.session = w.Dropdown(options=sessions, value=state.session, description="Session")
         self.session.add_class("ethoscribe-session")
-        self.raster = figure_widget(self._raster_fig(), "ethoscribe-raster")
+        # Drawn when the page is first shown: opening the workbench does not wait for it.
+        self.raster = figure_widget(go.Figure(), "ethoscribe-raster")
+        self._dirty = True
         self.bouts = w.Select(options=[], rows=9, layout=w.Layout(width="300px"))
         self.bouts.add_class("ethoscribe-bout-list")
         self.bouts.add_class("ethoscribe-motif-list")  # the same monospace list style
@@ -55,7 +58,7 @@ class EthogramPage(LazyDrawing):
         self._list_bouts()
         self.widget = w.VBox(
             [
-                w.HBox(
+                flow(
                     [
                         self.session,
                         note(
@@ -65,7 +68,7 @@ class EthogramPage(LazyDrawing):
                     ]
                 ),
                 self.raster,
-                w.HBox(
+                flow(
                     [
                         w.VBox([self.bouts_title, self.bouts], layout=w.Layout(width="320px")),
                         w.VBox([self.closeup, w.HBox([self.play, self.step]), self.info]),

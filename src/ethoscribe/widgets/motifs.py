@@ -18,9 +18,11 @@ from ethoscribe.widgets.common import (
     LazyDrawing,
     button,
     figure_widget,
+    flow,
     heading,
     message_html,
     note,
+    on_enter,
     redraw,
 )
 from ethoscribe.widgets.state import SORT_KEYS, WorkbenchState
@@ -82,11 +84,13 @@ class MotifList:
             disabled=not has_stability,
         )
         for slider in (self.min_share, self.min_median, self.min_stability):
-            slider.style = {"description_width": "165px"}
-            slider.layout = w.Layout(width="360px")
-        self.sort.layout = w.Layout(width="250px")
+            slider.style = {"description_width": "150px"}
+            slider.layout = w.Layout(width="355px")
+        self.sort.layout = w.Layout(width="225px")
+        self.largest.layout = w.Layout(width="auto")
+        self.largest.disabled = state.sort_by == "name"
         rows = int(np.clip(len(state.motifs), 6, 14))
-        self.list = w.Select(options=[], rows=rows, layout=w.Layout(width="360px"))
+        self.list = w.Select(options=[], rows=rows, layout=w.Layout(width="355px"))
         self.list.add_class("ethoscribe-motif-list")
         self.count = note("")
         self._quiet = False
@@ -103,7 +107,7 @@ class MotifList:
             [
                 w.HTML(LIST_STYLE),
                 heading("Motifs"),
-                w.HBox([self.sort, self.largest]),
+                w.HBox([self.sort, self.largest], layout=w.Layout(align_items="center")),
                 self.min_share,
                 self.min_median,
                 self.min_stability,
@@ -114,11 +118,12 @@ class MotifList:
                 self.list,
                 self.count,
             ],
-            layout=w.Layout(width="375px", margin="0 12px 0 0"),
+            layout=w.Layout(width="365px", margin="0 12px 0 0", flex="0 0 auto"),
         )
         self.refresh()
 
     def _order(self, _=None) -> None:
+        self.largest.disabled = self.sort.value == "name"  # names always read A to Z
         self.state.set_order(
             self.sort.value,
             self.largest.value,
@@ -292,9 +297,11 @@ class CurationDesk:
         self.title = heading("")
         self.name = w.Text(placeholder="new name", layout=wide)
         self.name.add_class("ethoscribe-rename-text")
+        on_enter(self.name, lambda: self.rename.click())
         self.merge_with = w.SelectMultiple(options=[], rows=4, layout=wide)
         self.merge_with.add_class("ethoscribe-merge-with")
         self.merge_into = w.Text(placeholder="name of the merged motif", layout=wide)
+        on_enter(self.merge_into, lambda: self.merge.click())
         self.split_names = [
             w.Text(placeholder="larger part", layout=w.Layout(width="125px")),
             w.Text(placeholder="smaller part", layout=w.Layout(width="125px")),
@@ -313,16 +320,19 @@ class CurationDesk:
         state.on("names", self.refresh)
         state.on("message", self._show_message)
         lab = lambda text: w.HTML(f"<div style='width:90px;font-size:13px'>{text}</div>")  # noqa: E731
+        row = lambda *items: flow(list(items))  # noqa: E731
         self.widget = w.VBox(
             [
                 self.title,
-                w.HBox([lab("Name"), self.name, self.rename]),
-                w.HBox([lab("Merge with"), self.merge_with, w.VBox([self.merge_into, self.merge])]),
-                w.HBox([lab("Split into"), *self.split_names, self.split]),
-                w.HBox([lab(""), self.unassign, self.undo, self.redo]),
+                row(lab("Name"), self.name, self.rename),
+                row(lab("Merge with"), self.merge_with, w.VBox([self.merge_into, self.merge])),
+                row(lab("Split into"), *self.split_names, self.split),
+                row(lab(""), self.unassign, self.undo, self.redo),
                 self.message,
             ],
-            layout=w.Layout(border="1px solid #ddd", padding="6px 10px", width="720px"),
+            layout=w.Layout(
+                border="1px solid #ddd", padding="6px 10px", width="auto", max_width="720px"
+            ),
         )
         self.widget.add_class("ethoscribe-curation")
         self.refresh()

@@ -9,7 +9,15 @@ import ipywidgets as w
 import pandas as pd
 
 from ethoscribe.plots.stats import group_difference_figure
-from ethoscribe.widgets.common import button, figure_widget, heading, note, redraw, table_html
+from ethoscribe.widgets.common import (
+    LazyDrawing,
+    button,
+    figure_widget,
+    heading,
+    note,
+    redraw,
+    table_html,
+)
 from ethoscribe.widgets.state import WorkbenchState
 from ethoscribe.workspace.report_sections import model_section, quality_section
 
@@ -23,13 +31,27 @@ SESSION_COLUMNS = (
     "n_animals",
     "units",
 )
-FIGURE_WIDTH = 900
+FIGURE_WIDTH = 880  # fits a 1366 px laptop screen with the file browser open
 
 
-class StudyPage:
-    """Sessions, cleaning quality per keypoint and session, state count and stability."""
+class StudyPage(LazyDrawing):
+    """Sessions, cleaning quality per keypoint and session, state count and stability.
+
+    Built the first time the page is shown (its figures take a second or two), not when the
+    workbench opens.
+    """
+
+    visible = False
 
     def __init__(self, state: WorkbenchState) -> None:
+        self.state = state
+        self.widget = w.VBox([note("Loading the study overview ...")])
+        self._dirty = True
+
+    def draw(self) -> None:
+        self.widget.children = self._parts(self.state)
+
+    def _parts(self, state: WorkbenchState) -> list[w.Widget]:
         ws = state.ws
         sessions = state.sessions[[c for c in state.sessions.columns if c in SESSION_COLUMNS]]
         parts: list[w.Widget] = [heading("Sessions"), w.HTML(table_html(sessions, 50))]
@@ -45,7 +67,7 @@ class StudyPage:
         parts += [self._figure(f, "ethoscribe-model") for f in model.figures]
         for caption, table in model.tables:
             parts += [note(html.escape(caption)), w.HTML(table_html(table))]
-        self.widget = w.VBox(parts)
+        return parts
 
     @staticmethod
     def _figure(fig, css: str):

@@ -10,7 +10,7 @@ from typing import Any
 
 import ipywidgets as w
 
-from ethoscribe.widgets.common import button, message_html, note
+from ethoscribe.widgets.common import button, flow, message_html, note
 from ethoscribe.widgets.ethogram import EthogramPage
 from ethoscribe.widgets.motifs import CurationDesk, MotifList, MotifPortrait
 from ethoscribe.widgets.state import WorkbenchState
@@ -46,7 +46,7 @@ class Workbench(w.VBox):
         self.ethogram = EthogramPage(state)
         self.study = StudyPage(state)
         self.groups = GroupPage(state)
-        self.closer = w.Dropdown(options=[], layout=w.Layout(width="280px"))
+        self.closer = w.Dropdown(options=[], layout=w.Layout(width="280px", max_width="100%"))
         self.closer_button = button("Play it", "ethoscribe-closer-button", self._closer, state.say)
         self.save_button = button(
             "Save ethogram", "ethoscribe-save-button", self.state.save, state.say, "success"
@@ -75,32 +75,35 @@ class Workbench(w.VBox):
     # --- layout ---------------------------------------------------------------------------
     def _header(self) -> w.Widget:
         s = self.state.summary
-        name = html.escape(self.state.ws.path.resolve().name)
+        folder = self.state.ws.path.resolve()
+        name, where = html.escape(folder.name), html.escape(str(folder), quote=True)
         facts = (
             f"{s.get('n_sessions')} sessions · {s.get('n_frames'):,} frames · "
-            f"{len(self.state.motifs)} motifs · {html.escape(str(self.state.ws.path.resolve()))}"
+            f"{len(self.state.motifs)} motifs"
         )
         title = w.HTML(
-            f"<div style='font-size:18px;font-weight:600'>ethoscribe workbench: {name}</div>"
-            f"<div style='color:#555;font-size:12px'>{facts}</div>"
+            f"<div style='font-size:18px;font-weight:600' title='{where}'>ethoscribe workbench: "
+            f"{name}</div><div style='color:#555;font-size:12px'>{facts}</div>"
         )
         bar = w.HBox(
             [title, self.save_button],
-            layout=w.Layout(justify_content="space-between", align_items="center"),
+            layout=w.Layout(
+                justify_content="space-between", align_items="center", flex_flow="row wrap"
+            ),
         )
         return w.VBox([bar, self.message], layout=w.Layout(padding="4px 2px 8px 2px"))
 
     def _motif_page(self) -> w.Widget:
         p = self.portrait
-        top = w.HBox([self.motif_list.widget, p.centre, p.right])
+        top = flow([self.motif_list.widget, p.centre, p.right])
         closer = w.VBox(
             [
                 p.neighbours,
                 note("Watch an example bout move, with its video if the session has one:"),
-                w.HBox([self.closer, self.closer_button]),
+                flow([self.closer, self.closer_button]),
             ]
         )
-        middle = w.HBox([p.examples, closer])
+        middle = flow([p.examples, closer])
         return w.VBox([top, middle, self.desk.widget])
 
     # --- bindings -------------------------------------------------------------------------
@@ -121,6 +124,7 @@ class Workbench(w.VBox):
         page = PAGES[change["new"]] if change["new"] is not None else ""
         self.portrait.set_visible(page == "Motifs")
         self.ethogram.set_visible(page == "Ethogram")
+        self.study.set_visible(page == "Study")
 
     def _to_ethogram(self) -> None:
         self.tabs.selected_index = PAGES.index("Ethogram")

@@ -159,7 +159,14 @@ def table_json(table: pd.DataFrame) -> dict[str, list]:
 
 # --- output folders -------------------------------------------------------------------------
 # Names only a run of ethoscribe leaves (its lock, staging folders): proof a folder is ours.
-RUN_MARKS = (locking.LOCK_FILE, locking.OWNER_FILE, ".incoming-", ".old-", TABLES_STAGING)
+RUN_MARKS = (
+    locking.LOCK_FILE,
+    locking.OWNER_FILE,
+    f".{locking.OWNER_FILE}.",  # its temporary file, while it is being written
+    ".incoming-",
+    ".old-",
+    TABLES_STAGING,
+)
 COMPARISON_FILE = "metadata.json"
 
 

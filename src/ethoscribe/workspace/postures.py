@@ -56,12 +56,15 @@ class SessionPostures:
     units: str
 
 
-def source_file(ws: Workspace, session: str, column: str = "source") -> Path:
+def source_file(
+    ws: Workspace, session: str, column: str = "source", table: pd.DataFrame | None = None
+) -> Path:
     """The file named in ``sessions.csv`` for ``session`` (``source`` or e.g. ``video``).
 
     A relative path is tried from the current folder, the workspace's parent and the workspace.
+    ``table``: ``sessions.csv`` already read (it is read otherwise).
     """
-    row = _row(ws, session)
+    row = _row(ws, session, table)
     value = row.get(column)
     if value is None or (isinstance(value, float) and np.isnan(value)) or not str(value).strip():
         raise InputError(f"{ws.path / 'sessions.csv'}: session '{session}' has no {column!r}")
@@ -77,8 +80,8 @@ def source_file(ws: Workspace, session: str, column: str = "source") -> Path:
     raise InputError(msg)
 
 
-def _row(ws: Workspace, session: str) -> dict[str, Any]:
-    table = ws.sessions
+def _row(ws: Workspace, session: str, table: pd.DataFrame | None = None) -> dict[str, Any]:
+    table = ws.sessions if table is None else table
     rows = table[table["session"].astype(str) == str(session)]
     if rows.empty:
         known = table["session"].astype(str).tolist()
@@ -148,12 +151,16 @@ def _save(path: Path, p: SessionPostures, key: str) -> None:
 
 
 def compute_session_postures(
-    ws: Workspace, session: str, model: BehaviourModel | None = None
+    ws: Workspace,
+    session: str,
+    model: BehaviourModel | None = None,
+    table: pd.DataFrame | None = None,
 ) -> SessionPostures:
     """Read, clean and turn one session into body-frame keypoints (no cache involved)."""
     model = ws.model() if model is None else model
-    row = _row(ws, session)
-    source = source_file(ws, session)
+    table = ws.sessions if table is None else table
+    row = _row(ws, session, table)
+    source = source_file(ws, session, table=table)
     fps = row.get("fps")
     fps = float(fps) if fps is not None and np.isfinite(fps) else None
     fmt = row.get("format")
@@ -182,9 +189,14 @@ def compute_session_postures(
 
 
 def session_postures(
-    ws: Workspace, session: str, model: BehaviourModel | None = None
+    ws: Workspace,
+    session: str,
+    model: BehaviourModel | None = None,
+    table: pd.DataFrame | None = None,
 ) -> SessionPostures:
     """Body-frame keypoints of ``session``, from ``postures/`` or computed and cached there.
+
+    ``table``: ``sessions.csv`` already read (it is read otherwise).
 
     Examples
     --------
@@ -194,12 +206,13 @@ def session_postures(
     """
     path = _cache_path(ws, session)
     model = ws.model() if model is None else model
-    key = _key(source_file(ws, session), model)
+    table = ws.sessions if table is None else table
+    key = _key(source_file(ws, session, table=table), model)
     if path.is_file():
         cached = _load(path, key)
         if cached is not None:
             return cached
-    fresh = compute_session_postures(ws, session, model)
+    fresh = compute_session_postures(ws, session, model, table)
     _save(path, fresh, key)
     return fresh
 
@@ -276,6 +289,7 @@ class PostureLibrary:
         self.edges: tuple[tuple[str, str], ...] = ()
         self.edges_note = ""
         self._sums = self._counts = None
+        self._table: pd.DataFrame | None = None  # sessions.csv, read once
 
     @property
     def available(self) -> bool:
@@ -287,8 +301,8 @@ class PostureLibrary:
             self._cache.move_to_end(session)
             return self._cache[session]
         if self._model is None:
-            self._model = self.ws.model()
-        p = session_postures(self.ws, session, self._model)
+            self._model, self._table = self.ws.model(), self.ws.sessions
+        p = session_postures(self.ws, session, self._model, self._table)
         self._cache[session] = p
         while len(self._cache) > self._max:
             self._cache.popitem(last=False)
