@@ -106,7 +106,7 @@ def _start_discover(study: Path, out: Path, *extra: str) -> subprocess.Popen:
 def _wait_until_locked(out: Path, run: subprocess.Popen, timeout: float = 120.0) -> None:
     deadline = time.monotonic() + timeout
     while time.monotonic() < deadline and run.poll() is None:
-        if locking.holder(out) is not None if out.is_dir() else False:
+        if out.is_dir() and locking.holder(out):  # locked, and the owner record written
             return
         time.sleep(0.05)
     raise AssertionError(f"the run never held {out}: {run.communicate()}")
