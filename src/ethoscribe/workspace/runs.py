@@ -34,6 +34,7 @@ from ethoscribe.workspace.cache import (
 from ethoscribe.workspace.compare import write_ethogram_report
 from ethoscribe.workspace.executor import connect, default_jobs, map_sessions
 from ethoscribe.workspace.files import load_features, load_model
+from ethoscribe.workspace.fits import fit_digest, fit_or_reuse, ticking
 from ethoscribe.workspace.folder import (
     CAUTION,
     FORMAT_VERSION,
@@ -131,18 +132,31 @@ def discover(
             out, plan, cleaning, jobs, client, force, progress
         )
         sample = _training_sample(prepared, table, fit_frames, seed)
-        model = BehaviourModel(
-            cleaning=cleaning,
-            features={"origin": origin, "axis": axis},
-            method=method,
-            n_states=states,
-            random_state=seed,
-            progress=progress,
-        ).fit_cleaned(sample, quality)
-        report = None
-        if stability and get_segmenter(method).stability:
-            report = _stability(model, model.featurise_cleaned(sample), seed, progress)
-        del sample
+
+        def fit() -> tuple[BehaviourModel, Any]:
+            with ticking("fitting the model", progress):
+                model = BehaviourModel(
+                    cleaning=cleaning,
+                    features={"origin": origin, "axis": axis},
+                    method=method,
+                    n_states=states,
+                    random_state=seed,
+                    progress=progress,
+                ).fit_cleaned(sample, quality)
+            report = None
+            if stability and get_segmenter(method).stability:
+                with ticking("checking stability (refits)", progress):
+                    report = _stability(model, model.featurise_cleaned(sample), seed, progress)
+            return model, report
+
+        # An unchanged rerun reuses the fit (same sample, parameters, seed and versions).
+        settings = {"cleaning": cleaning, "origin": origin, "axis": axis, "method": method,
+                    "states": states, "seed": seed, "stability": stability,
+                    "versions": versions()}  # fmt: skip
+        digest = fit_digest(sample, quality, settings)
+        model, report, _ = fit_or_reuse(out, digest, fit, force)
+        model.set_params(progress=progress)
+        sample.clear()  # memory for the decoding that follows
         decoded = _decode(out, prepared, model, jobs, client, force, progress)
         summary = _summary(model, table, seed, report)
         summary["fit_frames"] = fit_frames  # the sample's budget; n_training_frames its size
