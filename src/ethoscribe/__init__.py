@@ -20,6 +20,7 @@ __all__ = [
     "NotFittedError",
     "PoseTracks",
     "__version__",
+    "new_study",
     "workbench",
 ]
 
@@ -35,6 +36,21 @@ def workbench(path: str | PathLike[str], skeleton: Sequence[tuple[str, str]] | N
     >>> import ethoscribe
     >>> ethoscribe.workbench("study_ws")  # doctest: +SKIP
     """
-    # The one way in from the package root to the workbench layer, loaded on first call only.
+    # The ways in from the package root to the workbench layer, loaded on first call only.
     widgets = importlib.import_module("ethoscribe.widgets")
     return widgets.workbench(path, skeleton)
+
+
+def new_study(folder: str | PathLike[str] = "") -> Any:
+    """A panel to discover motifs in a folder of pose files, then open the workbench on them.
+
+    For people who prefer not to write code: choose the files (or a manifest), the frame rate
+    and units, check what would be read and the automatic body axis, and press Discover.
+
+    Examples
+    --------
+    >>> import ethoscribe
+    >>> ethoscribe.new_study("my_pose_files")  # doctest: +SKIP
+    """
+    widgets = importlib.import_module("ethoscribe.widgets")
+    return widgets.new_study(folder)

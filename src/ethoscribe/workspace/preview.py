@@ -1,0 +1,60 @@
+"""A look at a study before discovering it: what would be read, and what would be chosen.
+
+:func:`preview_study` plans the sessions as ``discover`` would (files or a manifest, frame rate,
+calibration), reads and cleans the first few, and fits the feature pipeline's automatic choices
+on them -- the body axis (from the direction of travel) and the origin -- so that a person can
+see and correct them before a long run. Nothing is written.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from ethoscribe.clean import clean
+from ethoscribe.features import FeaturePipeline
+from ethoscribe.workspace.reading import discovery_cleaning, plan_sessions, read_planned
+
+
+def preview_study(
+    inputs: Sequence[str | Path] | str | Path | None,
+    manifest: str | Path | pd.DataFrame | None = None,
+    fps: float | None = None,
+    reader_options: Mapping[str, Any] | None = None,
+    n_read: int = 2,
+) -> dict[str, Any]:
+    """Sessions, keypoints, frame rate, units and the automatic body axis of a study.
+
+    Returns a dict: ``sessions`` (names), ``keypoints``, ``animals``, ``fps``, ``units``,
+    ``axis`` (tail side, head side), ``origin``, ``axis_text`` (how the axis was chosen) and
+    ``warnings`` (e.g. an unreliable automatic axis), from the first ``n_read`` sessions.
+
+    Examples
+    --------
+    >>> info = preview_study("example_sessions", "example_sessions/manifest.csv")  # doctest: +SKIP
+    >>> info["axis"]  # doctest: +SKIP
+    ('tail_base', 'nose')
+    """
+    plan = plan_sessions(inputs, manifest, fps, reader_options=reader_options)
+    tracks = [read_planned(entry) for entry in plan[: max(1, n_read)]]
+    cleaning = discovery_cleaning(None, None)
+    cleaned = [clean(t, cleaning)[0] for t in tracks]
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        pipe = FeaturePipeline().fit(cleaned)
+    first = tracks[0]
+    return {
+        "sessions": [entry["session"] for entry in plan],
+        "keypoints": list(first.keypoints),
+        "animals": list(first.animals),
+        "fps": float(first.fps),
+        "units": str(first.units),
+        "axis": tuple(pipe.axis_),
+        "origin": pipe.origin_ or "centroid",
+        "axis_text": str(pipe.axis_report_),
+        "warnings": [str(w.message) for w in caught if issubclass(w.category, UserWarning)],
+    }

@@ -1,0 +1,52 @@
+"""The new-study panel, driven from Python as a person would click it: choose a folder, check
+the files (sessions, keypoints, the automatic body axis shown), discover, get the workbench.
+
+Data: two simulated sessions of the package's invented animals (dune voles), a few seconds each;
+the bundled body plan's axis runs tail_base -> nose.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+import ethoscribe
+from _reliability_data import write_study
+from ethoscribe.widgets import NewStudy, Workbench
+from ethoscribe.workspace import Workspace
+
+
+def test_from_a_folder_of_pose_files_to_the_workbench(tmp_path):
+    study = write_study(tmp_path / "study")
+    panel = ethoscribe.new_study(study)
+    assert isinstance(panel, NewStudy)
+    panel.run.click()  # nothing checked yet and no results folder: a message, no traceback
+    assert "ethoscribe-note-error" in panel.message.value
+    panel.check.click()
+    assert "ethoscribe-note-ok" in panel.message.value, panel.message.value
+    assert "2 sessions (session_01, session_02)" in panel.found.value
+    assert "chosen automatically" in panel.found.value
+    tail, head = panel.preview["axis"]
+    assert panel.tail.options[0] == (f"automatic ({tail})", "automatic")
+    assert panel.head.options[0] == (f"automatic ({head})", "automatic")
+    assert ("nose", "nose") in panel.head.options and panel.out.value.endswith("study_results")
+    panel.tail.value = "tail_base"  # one end only: refused clearly
+    panel.run.click()
+    assert "choose both ends of the body axis" in panel.message.value
+    panel.head.value = "nose"
+    panel.states.value = 3
+    panel.out.value = str(tmp_path / "results")
+    panel.run.click()
+    assert "ethoscribe-note-ok" in panel.message.value, panel.message.value
+    ws = Workspace(tmp_path / "results")
+    assert ws.summary["n_states"] == 3 and ws.summary["features"]["axis"] == ["tail_base", "nose"]
+    assert isinstance(panel.workbench, Workbench) and panel.result.children == (panel.workbench,)
+    panel.workbench.close()
+
+
+def test_a_folder_without_pose_files_is_a_message(tmp_path):
+    (tmp_path / "empty").mkdir()
+    panel = NewStudy(tmp_path / "empty")
+    panel.check.click()
+    assert "ethoscribe-note-error" in panel.message.value
+    with pytest.raises(ethoscribe.InputError):
+        panel._check()
