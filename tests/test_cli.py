@@ -133,6 +133,7 @@ def _wide_and_nwb(study: Path, folder: Path) -> tuple[Path, Path]:
     return wide, nwb
 
 
+@pytest.mark.slow
 def test_discover_reads_wide_tables_and_two_animal_nwb_files(study, tmp_path, capsys):
     wide, nwb = _wide_and_nwb(study, tmp_path)
     common = ["--states", "2", "--quiet", "--jobs", "1", "--axis", "tail_base,nose"]

@@ -154,6 +154,7 @@ def _check_after_kill(ws_path: Path, acks: list[str], reference: dict) -> list[s
     return notes
 
 
+@pytest.mark.slow
 def test_edit_session_survives_counted_kills(ctx, base, reference, tmp_path):
     calls = reference["calls"]
     points = np.unique(np.linspace(1, calls, COUNTED_EDIT_KILLS).round().astype(int))
@@ -174,6 +175,7 @@ def test_edit_session_survives_counted_kills(ctx, base, reference, tmp_path):
     assert survived == len(points) >= COUNTED_EDIT_KILLS - 2
 
 
+@pytest.mark.slow
 def test_edit_session_survives_timed_kills(ctx, base, reference, tmp_path):
     rng = np.random.default_rng(20240501)  # seed printed with the figures
     delays = rng.uniform(0.0, reference["duration"], TIMED_EDIT_KILLS)

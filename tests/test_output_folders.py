@@ -112,6 +112,7 @@ def _wait_until_locked(out: Path, run: subprocess.Popen, timeout: float = 120.0)
     raise AssertionError(f"the run never held {out}: {run.communicate()}")
 
 
+@pytest.mark.slow
 def test_two_runs_into_one_new_folder_the_second_is_refused(study, tmp_path):
     out = tmp_path / "new"
     first = _start_discover(study, out)
@@ -130,6 +131,7 @@ def test_two_runs_into_one_new_folder_the_second_is_refused(study, tmp_path):
     assert Workspace(out).summary["n_states"] == 3  # the first run's result is whole
 
 
+@pytest.mark.slow
 def test_an_edit_during_a_forced_rerun_is_refused_clearly(study, base, tmp_path):
     ws = shutil.copytree(base, tmp_path / "ws")
     state = WorkbenchState(ws, write_behind=False)

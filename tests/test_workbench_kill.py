@@ -26,7 +26,10 @@ import pytest
 from _reliability_data import run_discover, write_study
 from ethoscribe.workspace import Workspace
 
-pytestmark = pytest.mark.skipif(sys.platform == "win32", reason="SIGKILL and process groups")
+pytestmark = [
+    pytest.mark.skipif(sys.platform == "win32", reason="SIGKILL and process groups"),
+    pytest.mark.slow,
+]
 
 KERNEL = """
 import sys

@@ -236,7 +236,7 @@ def transitions_above_chance(
     out = []
     motifs = [str(m) for m in counts.index]
     for i, j in zip(*np.nonzero(off & (rows[:, None] > 0)), strict=True):
-        p0 = expected[i, j] / rows[i]
+        p0 = min(expected[i, j] / rows[i], 1.0)  # IPF can overshoot 1 by rounding: sf is NaN
         p = float(sps.binom.sf(n[i, j] - 1, rows[i], p0)) if p0 > 0 else float(n[i, j] == 0)
         out.append(
             (motifs[i], motifs[j], int(n[i, j]), int(rows[i]), n[i, j] / rows[i], p0,
