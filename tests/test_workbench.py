@@ -401,3 +401,26 @@ def test_skeleton_choice():
     assert edges == (("p", "r"), ("q", "r")) and "tree" in note
     with pytest.raises(ethoscribe.InputError, match="unknown keypoints"):
         skeleton_for(["a"], [("a", "z")])
+
+
+def test_preview_split_shows_the_halves_before_anything_is_kept(wb, folder):
+    wb.state.select_motif("motif_01")
+    for box, name in zip(wb.desk.split_names, ("part_a", "part_b"), strict=True):
+        box.value = name
+    wb.desk.preview.click()
+    shown = wb.desk.split_preview.value
+    assert "part_a" in shown and "part_b" in shown and "median_bout_s" in shown, shown
+    assert Workspace(folder).journal() == [] and "part_a" not in wb.state.motifs
+
+
+def test_suggested_merges_shown_when_the_model_gives_them(folder):
+    # The hook for a model with a state tree: summary.json lists groups of close states.
+    summary = json.loads((folder / "summary.json").read_text())
+    summary["suggested_merges"] = [[0, 2], [1]]
+    (folder / "summary.json").write_text(json.dumps(summary))
+    bench = Workbench(folder, write_behind=False)
+    try:
+        assert "Suggested merges" in bench.motif_list.suggested.value
+        assert "motif_01 + motif_03" in bench.motif_list.suggested.value
+    finally:
+        bench.close()

@@ -3,6 +3,8 @@ curation desk (rename, merge, split, set aside, undo, redo)."""
 
 from __future__ import annotations
 
+import html
+
 import ipywidgets as w
 import numpy as np
 
@@ -24,6 +26,7 @@ from ethoscribe.widgets.common import (
     note,
     on_enter,
     redraw,
+    table_html,
 )
 from ethoscribe.widgets.state import SORT_KEYS, WorkbenchState
 
@@ -93,6 +96,8 @@ class MotifList:
         self.list = w.Select(options=[], rows=rows, layout=w.Layout(width="355px"))
         self.list.add_class("ethoscribe-motif-list")
         self.count = note("")
+        self.suggested = w.HTML()  # the model's suggested merges, when its state tree gives any
+        self.suggested.add_class("ethoscribe-suggested-merges")
         self._quiet = False
         self.sort.observe(self._order, "value")
         self.largest.observe(self._order, "value")
@@ -117,6 +122,7 @@ class MotifList:
                 ),
                 self.list,
                 self.count,
+                self.suggested,
             ],
             layout=w.Layout(width="365px", margin="0 12px 0 0", flex="0 0 auto"),
         )
@@ -150,6 +156,15 @@ class MotifList:
         self.count.value = (
             f"<div style='color:#555;font-size:12px;line-height:1.4'>{len(options)} of {total} "
             f"motifs shown; median bout duration in seconds; {about}</div>"
+        )
+        groups = self.state.suggested_merges()
+        self.suggested.value = (
+            ""
+            if not groups
+            else note(
+                "Suggested merges (motifs the model finds close): "
+                + "; ".join(" + ".join(html.escape(m) for m in g) for g in groups)
+            ).value
         )
 
     def _show_selection(self) -> None:
@@ -309,6 +324,11 @@ class CurationDesk:
         self.rename = button("Rename", "ethoscribe-rename-button", self._rename, say, "primary")
         self.merge = button("Merge", "ethoscribe-merge-button", self._merge, say)
         self.split = button("Split in two", "ethoscribe-split-button", self._split, say)
+        self.preview = button(
+            "Preview split", "ethoscribe-preview-split-button", self._preview, say
+        )
+        self.split_preview = w.HTML()
+        self.split_preview.add_class("ethoscribe-split-preview")
         self.unassign = button(
             "Set aside as unassigned", "ethoscribe-unassign-button", self._unassign, say
         )
@@ -326,7 +346,8 @@ class CurationDesk:
                 self.title,
                 row(lab("Name"), self.name, self.rename),
                 row(lab("Merge with"), self.merge_with, w.VBox([self.merge_into, self.merge])),
-                row(lab("Split into"), *self.split_names, self.split),
+                row(lab("Split into"), *self.split_names, self.preview, self.split),
+                self.split_preview,
                 row(lab(""), self.unassign, self.undo, self.redo),
                 self.message,
             ],
@@ -369,8 +390,22 @@ class CurationDesk:
         motif = self._need_motif()
         names = [t.value.strip() for t in self.split_names]
         if motif and self.state.edit("split", motif=motif, names=names):
+            self.split_preview.value = ""
             for t in self.split_names:
                 t.value = ""
+
+    def _preview(self) -> None:
+        """Bout statistics of the two halves, before the split is kept."""
+        motif = self._need_motif()
+        typed = [t.value.strip() for t in self.split_names]
+        names = [name or f"{motif}_{part}" for name, part in zip(typed, "ab", strict=True)]
+        table = self.state.preview_split(motif, names) if motif else None
+        if table is not None:
+            caption = (
+                f"If {motif} were split (along its features, then along time: stretches shorter "
+                "than the minimum bout join their neighbour), its halves would be:"
+            )
+            self.split_preview.value = note(caption).value + table_html(table)
 
     def _unassign(self) -> None:
         motif = self._need_motif()

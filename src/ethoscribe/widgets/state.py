@@ -272,6 +272,32 @@ class WorkbenchState(CurationEdits):
         inside = rows[(rows["start_s"] <= time_s) & (rows["start_s"] + rows["duration_s"] > time_s)]
         return None if inside.empty else inside.iloc[0].to_dict()
 
+    def preview_split(self, motif: str, names: list[str]) -> pd.DataFrame | None:
+        """Bout statistics of the halves splitting ``motif`` would make (nothing is kept);
+        None, with a message, if the split cannot be made."""
+        try:
+            table = self.ws.preview_split(motif, names)
+        except EthoscribeError as exc:
+            self.say("error", str(exc))
+            return None
+        self.say("info", f"Preview of splitting {motif!r}; press 'Split in two' to keep it.")
+        return table
+
+    def suggested_merges(self) -> list[list[str]]:
+        """Groups of motifs the model suggests merging (its state tree), if it gives any.
+
+        Read from ``summary.json`` (``suggested_merges``: lists of state ids) when discovery
+        recorded a state tree; empty otherwise.
+        """
+        groups = self.summary.get("suggested_merges") or []
+        names = self.curation.names
+        out = []
+        for group in groups if isinstance(groups, list) else []:
+            shown = sorted({names[s] for s in group if isinstance(s, int) and s in names})
+            if len(shown) >= 2:
+                out.append(shown)
+        return out
+
     # --- postures and video ---------------------------------------------------------------
     def examples(self, motif: str, n_examples: int = 4) -> list[dict[str, Any]]:
         """Example bouts of ``motif`` from different sessions (longest uncut first)."""
