@@ -13,10 +13,11 @@ from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError, NotFittedError
 from ethoscribe.segment import hmm as hmm_module
-from ethoscribe.segment._hmm_fit import representative_blocks, run_em
+from ethoscribe.segment._hmm_fit import run_em
 from ethoscribe.segment.agreement import adjusted_rand
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.postprocess import runs
+from ethoscribe.segment.sampling import representative_blocks
 from test_hmm_sampling import sample_sticky_hmm
 
 FAST = {"n_restarts": 2, "n_iter": 60}

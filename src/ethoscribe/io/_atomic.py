@@ -82,7 +82,7 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
         with suppress(FileNotFoundError):
             tmp.unlink()
         raise
-    _sync_folder(path.parent)
+    sync_folder(path.parent)
 
 
 @contextmanager
@@ -129,10 +129,10 @@ def atomic_write(
         with suppress(FileNotFoundError):
             os.unlink(tmp_name)
         raise
-    _sync_folder(path.parent)
+    sync_folder(path.parent)
 
 
-def _sync_folder(folder: Path) -> None:
+def sync_folder(folder: Path) -> None:
     # Makes the rename itself durable on POSIX; not possible (nor needed) on Windows.
     with suppress(OSError, AttributeError):
         fd = os.open(folder, os.O_RDONLY)

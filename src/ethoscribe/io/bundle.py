@@ -14,7 +14,6 @@ save removes the hidden copy.
 
 from __future__ import annotations
 
-import hashlib
 import os
 import re
 import shutil
@@ -27,19 +26,12 @@ import numpy as np
 from ethoscribe.errors import EthoscribeError, InputError, UnsafeFileError
 from ethoscribe.io._atomic import atomic_write, atomic_write_json
 from ethoscribe.io._safe import MAX_JSON_BYTES, load_npz, read_json
+from ethoscribe.system import file_digest
 
 META_FILE = "model.json"
 ARRAYS_FILE = "arrays.npz"
 MAX_META_BYTES = MAX_JSON_BYTES
 _DIGEST = re.compile(r"^[0-9a-f]{64}$")
-
-
-def _digest(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
 
 
 def _kept_name(digest: str) -> str:
@@ -62,7 +54,7 @@ def _keep_previous(folder: Path) -> None:
     if digest is None or not arrays.is_file() or arrays.is_symlink():
         return
     kept = folder / _kept_name(digest)
-    if kept.exists() or _digest(arrays) != digest:  # already kept by an interrupted save
+    if kept.exists() or file_digest(arrays) != digest:  # already kept by an interrupted save
         return
     try:
         os.link(arrays, kept)
@@ -91,7 +83,9 @@ def write_bundle(folder: str | Path, meta: dict[str, Any], arrays: dict[str, np.
     _keep_previous(folder)
     with atomic_write(folder / ARRAYS_FILE, "wb") as fh:
         np.savez(fh, **{k: np.asarray(v) for k, v in arrays.items()})
-    atomic_write_json(folder / META_FILE, {**meta, "arrays_sha256": _digest(folder / ARRAYS_FILE)})
+    atomic_write_json(
+        folder / META_FILE, {**meta, "arrays_sha256": file_digest(folder / ARRAYS_FILE)}
+    )
     for old in folder.glob(".arrays-*.npz"):
         with suppress(OSError):
             old.unlink()
@@ -118,14 +112,14 @@ def read_bundle(folder: str | Path) -> tuple[dict[str, Any], dict[str, np.ndarra
     if expected is not None:
         if not isinstance(expected, str) or not _DIGEST.match(expected):
             raise InputError(f"{meta_path}: 'arrays_sha256' is not a sha256 digest: {expected!r}")
-        if expected != _digest(arrays_path):
+        if expected != file_digest(arrays_path):
             arrays_path = _previous_arrays(folder, expected, arrays_path, meta_path)
     return meta, load_npz(arrays_path)
 
 
 def _previous_arrays(folder: Path, expected: str, arrays_path: Path, meta_path: Path) -> Path:
     kept = folder / _kept_name(expected)
-    if kept.is_file() and not kept.is_symlink() and _digest(kept) == expected:
+    if kept.is_file() and not kept.is_symlink() and file_digest(kept) == expected:
         return kept  # a save over this model was interrupted: the previous model is intact
     raise InputError(
         f"{arrays_path}: does not match {meta_path.name} (digest differs): the save was "

@@ -3,8 +3,6 @@ the sticky transition matrix and the hmmlearn reference path."""
 
 from __future__ import annotations
 
-import itertools
-import os
 from collections.abc import Callable, Iterable
 from concurrent.futures import ThreadPoolExecutor
 from typing import Any, TypeVar
@@ -22,6 +20,8 @@ from ethoscribe.segment._hmm_gaussian import (
     gaussian_m_step,
     repair_covariances,
 )
+from ethoscribe.segment.sampling import take_blocks
+from ethoscribe.system import available_cpus
 
 _CONTROLLER: ThreadpoolController | None = None
 T = TypeVar("T")
@@ -42,10 +42,7 @@ SCREEN_BLOCK_S = 10.0
 def n_threads(n_jobs: int | None) -> int:
     """Threads for independent fits: ``n_jobs``, or every CPU this process may use (None)."""
     if n_jobs is None:
-        try:
-            return max(1, len(os.sched_getaffinity(0)))
-        except AttributeError:  # pragma: no cover - not Linux
-            return max(1, os.cpu_count() or 1)
+        return available_cpus()
     if int(n_jobs) < 1:
         raise InputError(f"n_jobs must be at least 1 (or None for every CPU); got {n_jobs!r}")
     return int(n_jobs)
@@ -159,72 +156,6 @@ def sticky_transmat(n_states: int, expected_bout_s: float | None, fps: float) ->
     out = np.full((n_states, n_states), (1.0 - stay) / (n_states - 1))
     np.fill_diagonal(out, stay)
     return out
-
-
-def representative_blocks(
-    lengths: np.ndarray, max_frames: int | None, block_frames: int, rng: np.random.Generator
-) -> tuple[np.ndarray, np.ndarray]:
-    """Whole contiguous blocks from every session, about ``max_frames`` frames in total.
-
-    Each session gets a share of the budget proportional to its length (largest remainder,
-    at least ``min(length, 10)`` frames). The share is cut into ``m = ceil(share/block_frames)``
-    equal blocks, and one block is placed at a uniformly random offset inside each of ``m``
-    equal slices of the session, so early and late behaviour are both represented. Blocks
-    never overlap and never straddle sessions; they become separate sequences for EM.
-
-    Returns
-    -------
-    starts, stops : int64 arrays of frame indices into the concatenated matrix.
-
-    Examples
-    --------
-    >>> a, b = representative_blocks(np.array([50, 50]), None, 10, np.random.default_rng(0))
-    >>> a.tolist(), b.tolist()
-    ([0, 50], [50, 100])
-    """
-    lengths = np.asarray(lengths, dtype=np.int64)
-    offsets = np.cumsum(lengths) - lengths
-    total = int(lengths.sum())
-    if max_frames is None or total <= max_frames:
-        return offsets.copy(), offsets + lengths
-    exact = max_frames * lengths / total
-    share = np.floor(exact).astype(np.int64)
-    extra = max_frames - int(share.sum())
-    share[np.argsort(share - exact, kind="stable")[:extra]] += 1
-    share = np.clip(np.maximum(share, np.minimum(lengths, 10)), 1, lengths)
-    starts, stops = [], []
-    for off, n, q in zip(offsets, lengths, share, strict=True):
-        m = int(-(-q // block_frames))
-        size = int(q // m)
-        edges = np.linspace(0, n, m + 1).astype(np.int64)
-        for lo, hi in itertools.pairwise(edges):
-            begin = lo + int(rng.integers(0, hi - lo - size + 1))
-            starts.append(off + begin)
-            stops.append(off + begin + size)
-    return np.array(starts, dtype=np.int64), np.array(stops, dtype=np.int64)
-
-
-def take_blocks(
-    X: np.ndarray,
-    lengths: np.ndarray,
-    max_frames: int | None,
-    block_frames: int,
-    rng: np.random.Generator,
-) -> tuple[np.ndarray, np.ndarray]:
-    """The rows of :func:`representative_blocks` and their lengths (``X`` itself if all).
-
-    Examples
-    --------
-    >>> X = np.arange(100.0)[:, None]
-    >>> sub, n = take_blocks(X, np.array([50, 50]), 20, 10, np.random.default_rng(0))
-    >>> sub.shape, n.tolist()
-    ((20, 1), [10, 10])
-    """
-    starts, stops = representative_blocks(lengths, max_frames, block_frames, rng)
-    sub = (stops - starts).astype(np.int64)
-    if sub.sum() == len(X):
-        return X, sub
-    return np.concatenate([X[a:b] for a, b in zip(starts, stops, strict=True)]), sub
 
 
 def _row_view(X: np.ndarray) -> np.ndarray:

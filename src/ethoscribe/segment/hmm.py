@@ -16,7 +16,7 @@ poor optimum (0.5-0.7 nats per frame below the best, agreement with the truth 0.
 instead of 0.81) in 3 of 8 seeds, 8 screened starts in 1 of 8 and 16 in none.
 
 Large data: EM runs on a representative subsample of whole contiguous blocks drawn from every
-session (``_hmm_fit.representative_blocks``); decoding always covers every frame.
+session (``sampling.representative_blocks``); decoding always covers every frame.
 
 After fitting, states are ordered by decreasing occupancy (time budget), ties by lexicographic
 means, so refits with the same seed and data give identical arrays.
@@ -44,12 +44,12 @@ from ethoscribe.segment._hmm_fit import (
     run_em,
     screened_start,
     sticky_transmat,
-    take_blocks,
 )
 from ethoscribe.segment._hmm_gaussian import GaussianEmission
 from ethoscribe.segment._hmm_kernels import forward_backward_log, forward_filter_log, viterbi_log
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths
 from ethoscribe.segment.postprocess import order_states_by_occupancy
+from ethoscribe.segment.sampling import take_blocks
 
 FORMAT_VERSION = 1
 _DECODE_BATCH = 2**18  # frames decoded together (bounds the T x K work buffers)
@@ -138,7 +138,7 @@ class GaussianHMM(BaseEstimator):
         Fit on a representative subsample of about this many frames when the data are larger:
         every session gives a share proportional to its length, as contiguous blocks of at
         most 60 s placed at random inside equal slices of the session (see
-        ``_hmm_fit.representative_blocks``). ``None``: always fit on everything.
+        ``sampling.representative_blocks``). ``None``: always fit on everything.
     engine : {"fast", "hmmlearn"}
         Own numba/BLAS kernels, or hmmlearn's EM (reference path). Decoding is always fast.
     n_jobs : int or None

@@ -40,9 +40,10 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError
-from ethoscribe.segment._hmm_fit import in_threads, take_blocks
+from ethoscribe.segment._hmm_fit import in_threads
 from ethoscribe.segment.inputs import check_X_lengths
 from ethoscribe.segment.registry import get_segmenter
+from ethoscribe.segment.sampling import take_blocks
 
 RANGE_TOLERANCE = 0.01
 ELBOW_FRACTION = 0.2

@@ -22,7 +22,7 @@ import pandas as pd
 
 from ethoscribe.curation import UNASSIGNED
 from ethoscribe.errors import EthoscribeError, InputError
-from ethoscribe.io._safe import safe_child
+from ethoscribe.io import safe_child
 from ethoscribe.postures import evenly_spaced_frames, example_bouts
 from ethoscribe.widgets.editing import CurationEdits
 from ethoscribe.workspace import Workspace, compare

@@ -21,8 +21,7 @@ import pandas as pd
 
 from ethoscribe.errors import InputError
 from ethoscribe.ethogram import bout_table, time_budget, transition_table
-from ethoscribe.io import read_manifest
-from ethoscribe.io._atomic import atomic_write_json, atomic_write_text, write_table
+from ethoscribe.io import atomic_write_json, atomic_write_text, read_manifest, write_table
 from ethoscribe.multiplicity import family_summary, headline
 from ethoscribe.report import Section, render_report
 from ethoscribe.stats import EXACT_THRESHOLD, compare_groups, parse_planned, session_metrics

@@ -8,7 +8,6 @@ a serial run writes; a progress bar counts finished sessions.
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from multiprocessing import get_context
@@ -17,16 +16,14 @@ from typing import Any, TypeVar
 from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError
+from ethoscribe.system import available_cpus
 
 T = TypeVar("T")
 
 
 def default_jobs() -> int:
     """Worker processes to use by default: the CPUs this process may run on."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # pragma: no cover - not Linux
-        return max(1, os.cpu_count() or 1)
+    return available_cpus()
 
 
 def connect(scheduler: Any) -> Any:

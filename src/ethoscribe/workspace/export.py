@@ -23,8 +23,7 @@ import pandas as pd
 
 from ethoscribe.ethogram import bout_table, duration_summary, time_budget, transition_matrix
 from ethoscribe.ethogram import transition_table as transitions_of
-from ethoscribe.io._atomic import write_table
-from ethoscribe.io._safe import safe_child
+from ethoscribe.io import safe_child, write_table
 from ethoscribe.workspace.compare import write_ethogram_report
 from ethoscribe.workspace.folder import Workspace
 

@@ -25,9 +25,7 @@ import numpy as np
 
 from ethoscribe.errors import EthoscribeError, InputError, UnsafeFileError, WorkspaceError
 from ethoscribe.features import FeatureSet
-from ethoscribe.io import locking
-from ethoscribe.io._atomic import _sync_folder, atomic_write
-from ethoscribe.io._safe import load_npz, loads_json
+from ethoscribe.io import atomic_write, load_npz, loads_json, locking, sync_folder
 from ethoscribe.io.bundle import read_bundle
 from ethoscribe.segment.model import BehaviourModel
 
@@ -78,7 +76,7 @@ def append_journal(path: Path, record: dict[str, Any]) -> None:
     finally:
         os.close(fd)
     if new:
-        _sync_folder(path.parent)
+        sync_folder(path.parent)
 
 
 def _last_byte(fd: int, path: Path) -> bytes:

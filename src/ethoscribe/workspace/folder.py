@@ -45,9 +45,7 @@ from ethoscribe.curation import Curation
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.ethogram import bout_table, time_budget, time_budgets_joined, transition_table
 from ethoscribe.features import FeatureSet
-from ethoscribe.io import locking
-from ethoscribe.io._atomic import atomic_table_writer, atomic_write_json, write_table
-from ethoscribe.io._safe import read_json
+from ethoscribe.io import atomic_table_writer, atomic_write_json, locking, read_json, write_table
 from ethoscribe.segment.model import BehaviourModel, motif_name
 from ethoscribe.workspace.files import (
     EXPORTS_STATE,

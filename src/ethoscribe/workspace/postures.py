@@ -28,8 +28,7 @@ import pandas as pd
 
 from ethoscribe.clean import calibrate, clean
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
-from ethoscribe.io._atomic import atomic_write
-from ethoscribe.io._safe import loads_json, safe_child
+from ethoscribe.io import atomic_write, loads_json, safe_child
 from ethoscribe.postures import (
     egocentric_postures,
     mean_postures,

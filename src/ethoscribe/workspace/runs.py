@@ -14,14 +14,13 @@ from ethoscribe.clean import CleanParams
 from ethoscribe.curation import Curation
 from ethoscribe.errors import InputError, WorkspaceError
 from ethoscribe.features import FeatureSet
-from ethoscribe.io._atomic import atomic_table_writer, atomic_write_json, write_table
-from ethoscribe.io._safe import read_json
+from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, write_table
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
 from ethoscribe.saved_state import header
-from ethoscribe.segment._hmm_fit import representative_blocks, take_blocks
 from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
 from ethoscribe.segment.registry import get_segmenter
+from ethoscribe.segment.sampling import representative_blocks, take_blocks
 from ethoscribe.segment.stability import stability_report
 from ethoscribe.workspace.cache import (
     CACHE_FOLDER,
@@ -205,7 +204,7 @@ def _training_sample(
     """Cleaned sessions to fit on: all of them, or blocks from each, ``max_frames`` in all.
 
     Blocks of about five minutes are drawn from every session, spread over its length
-    (:func:`~ethoscribe.segment._hmm_fit.representative_blocks`), so each animal and each part
+    (:func:`~ethoscribe.segment.sampling.representative_blocks`), so each animal and each part
     of a recording is represented while memory is bounded by the sample plus one session. Five
     minutes: long enough that the slowest feature filters (seconds) barely feel the block edges.
     """
