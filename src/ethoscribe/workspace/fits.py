@@ -26,8 +26,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ethoscribe.errors import EthoscribeError
-from ethoscribe.io._atomic import atomic_write_json, write_table
-from ethoscribe.io._safe import read_json
+from ethoscribe.io import atomic_write_json, read_json, write_table
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
 from ethoscribe.segment.model import BehaviourModel
