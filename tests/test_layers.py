@@ -16,7 +16,7 @@ LAYERS = [
     {"errors", "checks", "pose", "saved_state", "system"},
     {"io"},
     {"clean", "geometry", "filters"},
-    {"features", "postures"},
+    {"features", "postures", "missing_keypoints"},
     {"simulate"},
     {"segment"},
     {"ethogram", "curation", "label_table", "transitions"},

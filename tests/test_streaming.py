@@ -30,8 +30,9 @@ def test_streamed_posteriors_equal_offline_forward_filtering(fitted):
     model, tracks = fitted
     # Offline reference: causal cleaning, causal features, then the HMM's forward filter
     # (GaussianHMM.filter, itself checked against the textbook recursions and hmmlearn).
+    # Lost keypoints are filled per frame in both paths (the model's keypoint filler).
     cleaned, _ = clean(tracks, model.cleaning_, causal=True)
-    [feats] = model.features_.transform(cleaned)
+    [feats] = model.featurise_cleaned([cleaned])
     offline = model.segmenter_.filter(feats.values[feats.valid])
     live = StreamingLabeller(model)
     streamed, valid, times = [], [], []

@@ -57,7 +57,7 @@ def test_discover_writes_the_documented_files(workspace):
     ]:
         assert (p / name).is_file(), name
     labels = pd.read_csv(p / "labels.csv", keep_default_na=False, na_values=[""])
-    assert list(labels.columns) == LABEL_COLUMNS
+    assert list(labels.columns) == [*LABEL_COLUMNS, "body_seen"]  # fraction of keypoints seen
     assert set(labels["session"]) == {"session_01", "session_02", "session_09"}
     assert (labels.groupby("session").size() == 2700).all()
     invalid = labels["state"] == -1

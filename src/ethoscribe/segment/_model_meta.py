@@ -65,6 +65,11 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
     bout = params.get("min_bout_s", 0.5)
     if not is_real(bout) or bout < 0:
         problems.append(f"'params.min_bout_s' must be a number >= 0 seconds, got {_show(bout)}")
+    seen = params.get("min_body_seen", 0.6)
+    if seen is not None and (not is_real(seen) or not 0 < seen <= 1):
+        problems.append(
+            f"'params.min_body_seen' must be a fraction in (0, 1] or null, got {_show(seen)}"
+        )
     seed = params.get("random_state", 0)
     if seed is not None and not int_between(seed, 0, 2**63 - 1):
         problems.append(f"'params.random_state' must be an integer >= 0, got {_show(seed)}")
@@ -129,6 +134,8 @@ def check_meta(meta: Mapping[str, Any], model_keys: Iterable[str]) -> None:
     if missing:
         raise InputError(f"the model file (model.json) lacks the fields {missing}. {RESAVE}")
     problems = _check_params_meta(meta["params"], model_keys)
+    if meta.get("filler") is not None and not isinstance(meta["filler"], Mapping):
+        problems.append(f"'filler' must be an object or null, got {_show(meta['filler'])}")
     for name in ("cleaning", "features", "segmenter"):
         if not isinstance(meta[name], Mapping):
             problems.append(f"'{name}' must be an object, got {_show(meta[name])}")

@@ -76,6 +76,9 @@ class StreamingLabeller:
     def push(self, coords: np.ndarray, confidence: np.ndarray | None = None) -> list[LiveLabel]:
         """Add one frame ``coords (animals, keypoints, dims)``; return one label per animal."""
         cleaned = self.cleaner.push(coords, confidence)
+        filler = getattr(self.model, "filler_", None)
+        if filler is not None and not np.isfinite(cleaned).all():
+            cleaned = np.stack([filler.transform(c[None])[0][0] for c in cleaned])
         rows = self.features.push(cleaned)
         out = []
         for row, live in zip(rows, self.filters, strict=True):

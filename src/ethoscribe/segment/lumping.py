@@ -1,0 +1,281 @@
+"""Fine states grouped into behaviour-level motifs: metastable sets of the state dynamics.
+
+A rhythmic behaviour whose posture alternates inside a bout (strokes switching sides, a gait
+cycle) is found by a frame-level model as several states that alternate within every bout:
+phases, not behaviours. Over a lag of about one bout such states mix with one another far
+faster than they are left for another behaviour, so they form one *metastable set* of the
+transition dynamics. This module finds those sets:
+
+1. ``P``, the transition matrix between fine states, is made reversible by symmetrising the
+   flux (``F = diag(pi) P``, ``(F + F^T) / 2``, rows renormalised) so its eigenvalues are real.
+2. Eigenvalues ``lambda_i`` of ``P`` give implied time scales ``-lag / ln|lambda_i|``: how long
+   the i-th slowest exchange takes. Exchanges slower than ``min_timescale_s`` are between
+   behaviours; faster ones happen within a behaviour. The number of behaviour-level motifs is
+   the number of time scales above that limit (always at least one).
+3. PCCA+ (Deuflhard & Weber 2005, Linear Algebra Appl. 398, 161-184; the inner simplex
+   algorithm of Weber & Galliat 2002 as its start): the leading eigenvectors are mapped
+   linearly onto memberships ``chi`` (n_fine, n_sets) that sum to one per state; each fine
+   state goes to its largest membership.
+4. The coarse-grained transition matrix ``(chi^T D chi)^-1 chi^T D P chi`` (``D = diag(pi)``).
+
+:func:`merge_tree` records the order in which sets join as the number of sets falls (a tree
+the workbench can cut at any level), and :func:`suggested_merges` gives, for pairs of states,
+the evidence: how often they alternate and how similar their postures are.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ethoscribe.errors import InputError
+
+
+def stationary_distribution(P: np.ndarray) -> np.ndarray:
+    """Left eigenvector of ``P`` for eigenvalue 1, normalised to sum 1 (clipped at 0)."""
+    values, vectors = np.linalg.eig(P.T)
+    v = np.abs(np.real(vectors[:, np.argmin(np.abs(values - 1.0))]))
+    return v / v.sum()
+
+
+def symmetrised(P: np.ndarray, pi: np.ndarray | None = None) -> np.ndarray:
+    """Reversible transition matrix with the same stationary distribution: rows of the
+    symmetrised flux ``(diag(pi) P + (diag(pi) P)^T) / 2`` renormalised."""
+    P = np.asarray(P, dtype=np.float64)
+    pi = stationary_distribution(P) if pi is None else np.asarray(pi, dtype=np.float64)
+    flux = pi[:, None] * P
+    flux = 0.5 * (flux + flux.T)
+    rows = flux.sum(1, keepdims=True)
+    return np.where(rows > 0, flux / np.where(rows > 0, rows, 1.0), np.eye(len(P)))
+
+
+def reversible_eigen(P: np.ndarray, pi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Eigenvalues (descending) and right eigenvectors of a reversible ``P``.
+
+    Uses the symmetric form ``D^1/2 P D^-1/2``; the first eigenvector is constant 1.
+    """
+    s = np.sqrt(np.maximum(pi, 1e-300))
+    sym = s[:, None] * P / s[None, :]
+    values, vectors = np.linalg.eigh(0.5 * (sym + sym.T))
+    order = np.argsort(values)[::-1]
+    values, vectors = values[order], vectors[:, order] / s[:, None]
+    vectors /= vectors[:, :1].mean()  # first right eigenvector: all ones
+    return values, vectors
+
+
+def pcca_memberships(vectors: np.ndarray, n_sets: int) -> np.ndarray:
+    """Memberships (n, n_sets) from the leading ``n_sets`` right eigenvectors (PCCA+ start:
+    the inner simplex algorithm picks one representative state per set, the memberships are
+    the eigenvector coordinates in that simplex; small negatives are clipped, rows sum to 1)."""
+    X = vectors[:, :n_sets]
+    n = len(X)
+    if n_sets == 1:
+        return np.ones((n, 1))
+    rest = X[:, 1:].copy()
+    index = [int(np.argmax(np.linalg.norm(rest, axis=1)))]
+    rest = rest - rest[index[0]]
+    for _ in range(1, n_sets):
+        dist = np.linalg.norm(rest, axis=1)
+        j = int(np.argmax(dist))
+        index.append(j)
+        direction = rest[j] / max(dist[j], 1e-300)
+        rest = rest - np.outer(rest @ direction, direction)
+    chi = X @ np.linalg.pinv(X[index])
+    chi = np.clip(chi, 0.0, None)
+    sums = chi.sum(1, keepdims=True)
+    return np.where(sums > 0, chi / np.where(sums > 0, sums, 1.0), 1.0 / n_sets)
+
+
+def coarse_transitions(P: np.ndarray, pi: np.ndarray, chi: np.ndarray) -> np.ndarray:
+    """Coarse-grained transition matrix ``(chi^T D chi)^-1 chi^T D P chi``."""
+    D = pi[:, None]
+    return np.linalg.solve(chi.T @ (D * chi), chi.T @ (D * (P @ chi)))
+
+
+@dataclass(frozen=True)
+class Lumping:
+    """Fine states grouped into sets (behaviour-level motifs).
+
+    Attributes
+    ----------
+    assignment : (n_fine,) int, the set of each fine state (sets numbered by first fine state)
+    memberships : (n_fine, n_sets) PCCA+ memberships
+    eigenvalues : (n_fine,) of the reversible transition matrix at ``lag`` frames
+    timescales_s : (n_fine - 1,) implied time scales of the non-stationary eigenvalues
+    coarse : (n_sets, n_sets) coarse-grained transition matrix at ``lag`` frames
+    lag : int, frames; reason : str
+    """
+
+    assignment: np.ndarray
+    memberships: np.ndarray
+    eigenvalues: np.ndarray
+    timescales_s: np.ndarray
+    coarse: np.ndarray
+    lag: int
+    reason: str
+
+    @property
+    def n_sets(self) -> int:
+        return int(self.memberships.shape[1])
+
+
+def lump_states(
+    transmat: np.ndarray,
+    fps: float,
+    n_sets: int | None = None,
+    lag_s: float = 0.5,
+    min_timescale_s: float = 1.0,
+) -> Lumping:
+    """Group the fine states of a transition matrix (per frame) into metastable sets.
+
+    Parameters
+    ----------
+    transmat : (n, n) row-stochastic, per frame
+    fps : float
+    n_sets : int, optional
+        Number of sets; None: the time-scale rule of the module doc.
+    lag_s : float
+        Lag (seconds) at which the dynamics are looked at; ``P = transmat ** lag``.
+    min_timescale_s : float
+        Implied time scales longer than this count as exchanges between behaviours.
+
+    Examples
+    --------
+    >>> P = np.array([[.80, .15, .04, .01], [.15, .80, .01, .04],
+    ...               [.04, .01, .80, .15], [.01, .04, .15, .80]])
+    >>> lump_states(P, fps=1, n_sets=2, lag_s=1).assignment.tolist()
+    [0, 0, 1, 1]
+    """
+    T = np.asarray(transmat, dtype=np.float64)
+    if T.ndim != 2 or T.shape[0] != T.shape[1] or not np.allclose(T.sum(1), 1, atol=1e-6):
+        raise InputError(f"lump_states needs a square row-stochastic matrix; got shape {T.shape}")
+    lag = max(1, round(lag_s * fps))
+    P = np.linalg.matrix_power(T, lag)
+    pi = stationary_distribution(P)
+    R = symmetrised(P, pi)
+    values, vectors = reversible_eigen(R, pi)
+    with np.errstate(divide="ignore"):
+        scales = -lag / fps / np.log(np.clip(np.abs(values[1:]), 1e-300, 1 - 1e-15))
+    n = len(T)
+    if n_sets is None:
+        slow = int((scales > min_timescale_s).sum())
+        n_sets = max(1, min(n, slow + 1))
+        reason = (
+            f"{n_sets} set(s): {slow} implied time scale(s) above {min_timescale_s:g} s at a lag "
+            f"of {lag / fps:g} s (exchanges slower than that are between behaviours)"
+        )
+    else:
+        if not 1 <= int(n_sets) <= n:
+            raise InputError(f"n_sets must be between 1 and {n}; got {n_sets}")
+        n_sets = int(n_sets)
+        reason = f"{n_sets} set(s) as asked"
+    chi = pcca_memberships(vectors, n_sets)
+    crisp = chi.argmax(1)
+    # number the sets by their first fine state; drop sets that own no state
+    order = []
+    for s in crisp:
+        if s not in order:
+            order.append(int(s))
+    chi = chi[:, order]
+    chi /= chi.sum(1, keepdims=True)
+    assignment = np.array([order.index(int(s)) for s in crisp], dtype=np.int64)
+    coarse = coarse_transitions(R, pi, chi)
+    return Lumping(assignment, chi, values, scales, coarse, lag, reason)
+
+
+def merge_tree(transmat: np.ndarray, fps: float, lag_s: float = 0.5) -> list[dict]:
+    """Assignments of the fine states for every number of sets from n down to 1.
+
+    Returns a list of ``{"n_sets", "assignment", "timescale_s"}`` (the implied time scale of
+    the exchange that is given up when going from ``n_sets`` to ``n_sets - 1``), JSON-able.
+    """
+    T = np.asarray(transmat, dtype=np.float64)
+    n = len(T)
+    levels = []
+    for k in range(n, 0, -1):
+        lump = lump_states(T, fps, n_sets=k, lag_s=lag_s)
+        scale = float(lump.timescales_s[k - 2]) if k >= 2 else float("inf")
+        levels.append(
+            {
+                "n_sets": k,
+                "assignment": lump.assignment.tolist(),
+                "timescale_s": scale if np.isfinite(scale) else None,
+            }
+        )
+    return levels
+
+
+def alternation_counts(labels: np.ndarray, n_states: int, window: int) -> np.ndarray:
+    """How often two states follow each other within ``window`` frames (n, n), symmetric.
+
+    Counted on the run-length encoding: runs ``a, b`` that touch, and runs ``a, x, b`` with a
+    middle run shorter than ``window`` (a brief visit elsewhere inside one bout).
+    """
+    lab = np.asarray(labels)
+    lab = lab[lab >= 0]
+    counts = np.zeros((n_states, n_states))
+    if len(lab) < 2:
+        return counts
+    change = np.flatnonzero(np.diff(lab)) + 1
+    starts = np.concatenate([[0], change])
+    runs = lab[starts]
+    lengths = np.diff(np.concatenate([starts, [len(lab)]]))
+    np.add.at(counts, (runs[:-1], runs[1:]), 1)
+    short = lengths[1:-1] < window
+    np.add.at(counts, (runs[:-2][short], runs[2:][short]), 1)
+    np.fill_diagonal(counts, 0)
+    return counts + counts.T
+
+
+def suggested_merges(
+    labels: np.ndarray,
+    means: np.ndarray,
+    transmat: np.ndarray,
+    fps: float,
+    lag_s: float = 0.5,
+    top: int = 10,
+) -> list[dict]:
+    """Pairs of states worth merging, with the evidence, best first.
+
+    Parameters
+    ----------
+    labels : (F,) state per frame (-1 unscored), sessions back to back
+    means : (n, D) state means in the feature space (posture similarity)
+    transmat : (n, n) per-frame transition matrix
+    fps, lag_s : as in :func:`lump_states`
+    top : number of pairs returned
+
+    Returns
+    -------
+    list of dict: ``states`` (a, b), ``alternations`` (times they follow one another within
+    ``lag_s``), ``alternation_share`` (of the bouts of the rarer state), ``distance`` (between
+    their means, in standard units), ``same_set_levels`` (how many levels of the merge tree
+    keep them together) and ``score`` (the share of alternation over 1 + distance).
+    """
+    n = len(transmat)
+    window = max(1, round(lag_s * fps))
+    counts = alternation_counts(labels, n, window)
+    lab = np.asarray(labels)
+    lab = lab[lab >= 0]
+    bouts = np.bincount(lab[np.concatenate([[True], lab[1:] != lab[:-1]])], minlength=n)
+    tree = merge_tree(transmat, fps, lag_s)
+    means = np.asarray(means, dtype=np.float64)
+    out = []
+    for a in range(n):
+        for b in range(a + 1, n):
+            share = counts[a, b] / max(1, min(bouts[a], bouts[b]))
+            dist = float(np.linalg.norm(means[a] - means[b]) / np.sqrt(means.shape[1]))
+            together = sum(lv["assignment"][a] == lv["assignment"][b] for lv in tree)
+            out.append(
+                {
+                    "states": (a, b),
+                    "alternations": int(counts[a, b]),
+                    "alternation_share": float(share),
+                    "distance": dist,
+                    "same_set_levels": int(together),
+                    "score": float(share / (1.0 + dist)),
+                }
+            )
+    out.sort(key=lambda d: -d["score"])
+    return out[:top]
