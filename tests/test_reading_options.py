@@ -321,3 +321,21 @@ def test_batch_tables_keep_the_input_frame_numbers(tmp_path):
     assert pd.read_csv(out / "sessions.csv")["first_frame"].tolist() == [1000, 1000]
     feats = Workspace(out).features()
     assert feats.groupby("session")["frame"].min().tolist() == [1000, 1000]
+
+
+def test_a_frame_rate_no_camera_has_is_refused_before_smoothing():
+    # 1e9 fps made a 200-million-frame smoothing window (a crash inside the least-squares fit).
+    with pytest.raises(InputError, match=r"200000001 frames.*check the frame rate"):
+        clean(_tracks().replace(fps=1e9))
+
+
+def test_motif_name_lists_refuse_a_plain_string():
+    from ethoscribe.curation import Curation
+
+    cur = Curation({0: "m", 1: "n"})
+    with pytest.raises(InputError, match=r"motifs must be a list of motif names.*the string 'm'"):
+        cur.merge("m", into="x")
+    with pytest.raises(InputError, match=r"names must be a list of motif names.*the string 'ab'"):
+        cur.split("m", "ab", pd.DataFrame(), pd.DataFrame())
+    with pytest.raises(InputError, match=r"names must hold 2 new names"):
+        cur.split("m", ["a"], pd.DataFrame(), pd.DataFrame())

@@ -343,7 +343,8 @@ class Curation:
 
     def merge(self, motifs: Sequence[str], into: str, *, time: str | None = None) -> dict:
         """Name all states of ``motifs`` ``into`` (a new name or one of theirs)."""
-        rec = {"op": "merge", "motifs": list(motifs), "into": into, "time": time or _now()}
+        motifs = name_list(motifs, "motifs", "merge")
+        rec = {"op": "merge", "motifs": motifs, "into": into, "time": time or _now()}
         return self._edit(rec)
 
     def unassign(self, motif: str, *, time: str | None = None) -> dict[str, Any]:
@@ -373,6 +374,7 @@ class Curation:
         value is kept in the record, so replaying the journal gives the same split.
         """
         _known(self._names, motif)
+        names = name_list(names, "names", "split", count=2)
         for name in names:
             _new_name(self._names, name, {motif})
         if columns is None:
@@ -501,6 +503,29 @@ def _bout_stats(name: str, labels: pd.DataFrame, min_frames: int) -> dict[str, A
         "mean_bout_s": float(bouts["duration_s"].mean()),
         "short_bouts": int((uncut & (bouts["n_frames"] < min_frames)).sum()),
     }
+
+
+def name_list(values: Any, argument: str, function: str, count: int | None = None) -> list[str]:
+    """A list of motif names; a plain string (whose letters would become names) is refused.
+
+    Examples
+    --------
+    >>> name_list(["rest", "groom"], "names", "split", count=2)
+    ['rest', 'groom']
+    """
+    if isinstance(values, str) or not isinstance(values, (list, tuple)):
+        example = "['fast walk', 'slow walk']" if count == 2 else "['m1', 'm2']"
+        got = f"the string {values!r}" if isinstance(values, str) else type(values).__name__
+        raise InputError(f"{function}: {argument} must be a list of motif names, e.g. "
+                         f"{example}; got {got}")  # fmt: skip
+    names = [v for v in values]
+    if not all(isinstance(v, str) for v in names):
+        raise InputError(f"{function}: {argument} must be motif names (text); got {names!r}")
+    if count is not None and len(names) != count:
+        raise InputError(
+            f"{function}: {argument} must hold {count} new names (one per part); got {names!r}"
+        )
+    return names
 
 
 def split_motif(

@@ -190,6 +190,10 @@ def _gap_frames(max_gap_s: float, fps: float) -> int:
     return int(np.floor(_positive("max_gap_s", max_gap_s, True) * fps + 1e-9))
 
 
+# A longer smoothing window means a frame rate no camera has (0.2 s at 500,000 fps): a slip.
+MAX_WINDOW_FRAMES = 100_001
+
+
 def _window_frames(method: str, window_s: float, order: int, fps: float) -> int:
     """Odd frame count of a smoothing window; checks it can smooth at all."""
     n = round(_positive("smooth_window_s", window_s) * fps)
@@ -201,5 +205,11 @@ def _window_frames(method: str, window_s: float, order: int, fps: float) -> int:
             f"smoothing window {window_s:g} s at {fps:g} fps is {n} frame(s), but {what} needs "
             f"at least {need} frames to smooth; use smooth_window_s >= {need / fps:.3g}"
             + (" or a lower smooth_order" if method == "savgol" else "")
+        )
+    if n > MAX_WINDOW_FRAMES:
+        raise InputError(
+            f"smoothing window {window_s:g} s at {fps:g} fps is {n} frames (at most "
+            f"{MAX_WINDOW_FRAMES} are supported); check the frame rate (fps=...), which looks "
+            "far too high, or shorten smooth_window_s"
         )
     return n

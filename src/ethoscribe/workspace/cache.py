@@ -21,6 +21,7 @@ import os
 import re
 import shutil
 import tempfile
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -97,8 +98,12 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
     info = {"tracks": f"{base}.npz", "quality": f"{base}.quality.parquet", "row": f"{base}.json"}
     if not job.get("force") and all(Path(p).is_file() for p in info.values()):
         return {**info, "reused": True}
-    tracks = read_planned(entry)
-    cleaned, report = clean(tracks, CleanParams.from_dict(cleaning))
+    # Warnings (a confidence column left unread ...) travel back with the result, so that a
+    # worker's say reaches the user once, through the parent process.
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        tracks = read_planned(entry)
+        cleaned, report = clean(tracks, CleanParams.from_dict(cleaning))
     write_table(report.to_frame(), info["quality"])
     with atomic_write(info["tracks"], "wb") as fh:
         np.savez(
@@ -117,7 +122,8 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
     row = {**session_row(entry, tracks), CLEANING_USED: report.params}
     row["first_frame"] = first_frame(cleaned)  # at the cleaned rate, as the labels count
     atomic_write_json(info["row"], jsonable(row))
-    return {**info, "reused": False}
+    said = [[type(w.message).__name__, str(w.message)] for w in caught]
+    return {**info, "reused": False, "warnings": said}
 
 
 def load_prepared(info: dict[str, Any]) -> tuple[PoseTracks, pd.DataFrame, dict[str, Any]]:

@@ -8,7 +8,10 @@ a serial run writes; a progress bar counts finished sessions.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+import contextlib
+import signal
+import threading
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from multiprocessing import get_context
 from typing import Any, TypeVar
@@ -80,16 +83,52 @@ def map_sessions(
                 out.append(func(item))
                 bar.update()
             return out
-        # "spawn": a forked child would inherit BLAS/numba thread state and can deadlock.
-        with ProcessPoolExecutor(min(jobs, len(items)), mp_context=get_context("spawn")) as pool:
-            futures = {pool.submit(func, item): i for i, item in enumerate(items)}
-            results: list[Any] = [None] * len(items)
-            for future in as_completed(futures):
-                results[futures[future]] = future.result()
-                bar.update()
-            return results
+        return _on_processes(func, items, min(jobs, len(items)), bar)
     finally:
         bar.close()
+
+
+def _on_processes(func: Callable[..., T], items: list[Any], jobs: int, bar: Any) -> list[T]:
+    """``func`` over ``items`` in ``jobs`` spawned processes that leave Ctrl-C to this one.
+
+    Workers ignore SIGINT (a Ctrl-C reaches the whole process group): the interrupt is this
+    process's to handle, and it stops the workers, instead of every worker printing its own
+    traceback while it starts.
+    """
+    # "spawn": a forked child would inherit BLAS/numba thread state and can deadlock.
+    pool = ProcessPoolExecutor(jobs, mp_context=get_context("spawn"), initializer=_no_interrupts)
+    try:
+        with _interrupts_ignored():  # workers start now, and keep ignoring from their first line
+            futures = {pool.submit(func, item): i for i, item in enumerate(items)}
+        results: list[Any] = [None] * len(items)
+        for future in as_completed(futures):
+            results[futures[future]] = future.result()
+            bar.update()
+    except BaseException:
+        # Stop the workers first (shutdown forgets them), so that nothing waits for their work.
+        for process in list((getattr(pool, "_processes", None) or {}).values()):
+            process.terminate()
+        pool.shutdown(wait=False, cancel_futures=True)
+        raise
+    pool.shutdown()
+    return results
+
+
+def _no_interrupts() -> None:
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+@contextlib.contextmanager
+def _interrupts_ignored() -> Iterator[None]:
+    """Ignore SIGINT in this (main) thread for the block; a child started meanwhile inherits it."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def _on_dask(func: Callable[..., T], items: list[Any], client: Any, bar: Any) -> list[T]:

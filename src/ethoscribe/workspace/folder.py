@@ -41,7 +41,7 @@ import pandas as pd
 import pyarrow as pa
 
 from ethoscribe import __version__
-from ethoscribe.curation import Curation
+from ethoscribe.curation import Curation, name_list
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.ethogram import bout_table, time_budget, time_budgets_joined, transition_table
 from ethoscribe.features import FeatureSet
@@ -515,11 +515,11 @@ class Workspace:
 
     def merge_motifs(self, motifs: Sequence[str], into: str) -> dict[str, Any]:
         """Give all ``motifs`` one name ``into`` (journaled)."""
-        return self.edit("merge", motifs=list(motifs), into=into)
+        return self.edit("merge", motifs=name_list(motifs, "motifs", "merge_motifs"), into=into)
 
     def split_motif(self, motif: str, names: Sequence[str]) -> dict[str, Any]:
         """Split ``motif`` in two by re-clustering its frames' features (journaled)."""
-        return self.edit("split", motif=motif, names=list(names))
+        return self.edit("split", motif=motif, names=name_list(names, "names", "split_motif"))
 
     def unassign_motif(self, motif: str) -> dict[str, Any]:
         """Mark ``motif`` as unassigned (journaled)."""

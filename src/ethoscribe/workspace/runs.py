@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import shutil
+import warnings
 from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -12,7 +13,7 @@ import pandas as pd
 
 from ethoscribe.clean import CleanParams
 from ethoscribe.curation import Curation
-from ethoscribe.errors import InputError, WorkspaceError
+from ethoscribe.errors import InputError, InputWarning, WorkspaceError
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, write_table
 from ethoscribe.io.bundle import write_bundle
@@ -192,6 +193,10 @@ def _prepare(
         prepare_session, work, jobs=jobs, client=client, progress=progress,
         desc="reading and cleaning",
     )  # fmt: skip
+    for info in infos:
+        for kind, text in info.get("warnings", []):
+            category = InputWarning if kind == "InputWarning" else UserWarning
+            warnings.warn(text, category, stacklevel=3)
     quality = [pd.read_parquet(i["quality"]) for i in infos]
     rows = [read_json(i["row"]) for i in infos]
     used = [r.pop(CLEANING_USED, None) for r in rows]
