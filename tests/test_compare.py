@@ -147,7 +147,7 @@ def test_planted_time_budget_difference_is_found(compared):
 
 def test_p_and_q_values_match_reference_libraries(compared):
     _, out, _ = compared
-    stats = pd.read_csv(out / "group_stats.csv")
+    stats = pd.read_parquet(out / "group_stats.parquet")  # full precision (the CSV is rounded)
     metrics = pd.read_csv(out / "session_metrics.csv", dtype={"session": str})
     budget = metrics[(metrics["metric"] == "time_budget") & (metrics["motif"] == "digging")]
     a = budget.loc[budget["group"] == "control", "value"].to_numpy()
@@ -349,3 +349,18 @@ def test_command_line_reports_a_missing_group_column(tmp_path, capsys):
     assert "ethoscribe compare: error:" in err and "no grouping column 'group'" in err
     assert "housing" in err and "Traceback" not in err
     assert not (tmp_path / "out").exists()
+
+
+def test_csv_tables_are_rounded_to_what_the_measurement_supports(compared):
+    _, out, _ = compared
+    stats_csv = pd.read_csv(out / "group_stats.csv")
+    stats = pd.read_parquet(out / "group_stats.parquet")
+    # six significant digits in the CSV, full precision in Parquet
+    np.testing.assert_allclose(stats_csv["p_value"], stats["p_value"], rtol=5e-6)
+    lines = (out / "bouts.csv").read_text().splitlines()
+    at = lines[0].split(",").index("duration_s")
+    seconds = [row.split(",")[at] for row in lines[1:]]
+    assert all(len(s.partition(".")[2]) <= 4 for s in seconds)  # 0.1 ms
+    fractions = pd.read_csv(out / "time_budget.csv", dtype=str)["fraction"]
+    digits = fractions.str.replace(r"^0\.0*|\.|e.*$", "", regex=True).str.len()
+    assert digits.max() <= 6

@@ -56,3 +56,19 @@ def test_diagram_draws_only_transitions_above_chance_in_a_tree_order():
     order = motif_order(pd.DataFrame(np.eye(3)[[1, 0, 2]] * 0.5 + 0.1, index=list("abc"),
                                      columns=list("abc")))  # fmt: skip
     assert sorted(order) == ["a", "b", "c"]
+
+
+@pytest.mark.parametrize(
+    "rows",
+    [
+        [("a", "b", 5)],  # b is never left
+        [("a", "b", 5), ("b", "a", 3)],  # two motifs: nothing else could follow
+        [("a", "b", 5), ("a", "c", 0), ("c", "a", 2)],  # c is never entered
+        [("a", "b", 0), ("b", "c", 0), ("c", "a", 0)],  # nothing observed
+    ],
+)
+def test_sparse_tables_give_valid_p_values(rows):
+    table = pd.DataFrame(rows, columns=["from_motif", "to_motif", "count"])
+    out = transitions_above_chance(table)
+    assert out["p_value"].between(0, 1).all() and out["q_value"].between(0, 1).all()
+    assert not out["above_chance"].any()  # nothing here beats chance

@@ -239,3 +239,38 @@ def prepare_runs(labels: pd.DataFrame, fps: FpsSpec) -> Runs:
         state,
         prob,
     )
+
+
+SECONDS_DECIMALS = 4  # 0.1 ms: finer than the frame interval of any video (10 kHz)
+SIGNIFICANT_DIGITS = 6  # shares, probabilities, statistics: beyond any measurement's precision
+
+
+def csv_rounded(table: pd.DataFrame) -> pd.DataFrame:
+    """A copy of ``table`` with floats rounded to what the measurements support, for CSV files.
+
+    Columns in seconds (names ending ``_s``, or ``seconds``) keep 4 decimals (0.1 ms); every
+    other float column keeps 6 significant digits (0.9333333333333332 -> 0.933333). Integers,
+    text and missing values are unchanged. Parquet files keep full precision.
+
+    Examples
+    --------
+    >>> t = pd.DataFrame({"duration_s": [0.9333333333333332], "fraction": [0.123456789], "n": [3]})
+    >>> csv_rounded(t).values.tolist()
+    [[0.9333, 0.123457, 3.0]]
+    """
+    out = table.copy()
+    for name in out.columns:
+        column = out[name]
+        if not pd.api.types.is_float_dtype(column.dtype):
+            continue
+        values = column.to_numpy(np.float64)
+        if str(name).endswith("_s") or name == "seconds":
+            out[name] = np.round(values, SECONDS_DECIMALS)
+            continue
+        with np.errstate(all="ignore"):  # zeros, NaN and subnormals fall back to the value
+            magnitude = np.floor(np.log10(np.abs(values)))
+            digits = np.where(np.isfinite(magnitude), SIGNIFICANT_DIGITS - 1 - magnitude, 0)
+            scale = 10.0**digits
+            rounded = np.round(values * scale) / scale
+        out[name] = np.where(np.isfinite(rounded), rounded, values)
+    return out

@@ -228,15 +228,17 @@ def transitions_above_chance(
     rows, cols = n.sum(axis=1), n.sum(axis=0)
     expected = off.astype(np.float64)
     for _ in range(max_iter):  # iterative proportional fitting with a zero diagonal
-        with np.errstate(invalid="ignore", divide="ignore"):
-            expected *= np.nan_to_num(rows / expected.sum(axis=1))[:, None]
-            expected *= np.nan_to_num(cols / expected.sum(axis=0))[None, :]
+        for axis, total in ((1, rows), (0, cols)):
+            have = expected.sum(axis=axis)
+            factor = np.divide(total, have, out=np.zeros_like(total), where=have > 0)
+            expected *= factor[:, None] if axis == 1 else factor[None, :]
         if np.allclose(expected.sum(axis=1), rows, rtol=1e-10, atol=1e-9):
             break
     out = []
     motifs = [str(m) for m in counts.index]
     for i, j in zip(*np.nonzero(off & (rows[:, None] > 0)), strict=True):
         p0 = min(expected[i, j] / rows[i], 1.0)  # IPF can overshoot 1 by rounding: sf is NaN
+        # a transition chance cannot produce (p0 = 0) is not above chance when never seen
         p = float(sps.binom.sf(n[i, j] - 1, rows[i], p0)) if p0 > 0 else float(n[i, j] == 0)
         out.append(
             (motifs[i], motifs[j], int(n[i, j]), int(rows[i]), n[i, j] / rows[i], p0,

@@ -22,6 +22,7 @@ import pandas as pd
 from ethoscribe.errors import InputError
 from ethoscribe.ethogram import bout_table, time_budget, transition_table
 from ethoscribe.io import atomic_write_json, atomic_write_text, read_manifest, write_table
+from ethoscribe.label_table import csv_rounded
 from ethoscribe.multiplicity import family_summary, headline
 from ethoscribe.report import Section, render_report
 from ethoscribe.stats import EXACT_THRESHOLD, compare_groups, parse_planned, session_metrics
@@ -346,7 +347,7 @@ def _write_outputs(out: Path, tables: dict, meta: dict, page: str) -> None:
     stage = Staging(out)
     try:
         for name, (table, parquet) in tables.items():
-            write_table(table, stage.path(f"{name}.csv"))
+            write_table(csv_rounded(table), stage.path(f"{name}.csv"))
             if parquet:
                 write_table(table, stage.path(f"{name}.parquet"))
         atomic_write_text(stage.path("report.html"), page)

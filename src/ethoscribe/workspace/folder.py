@@ -46,6 +46,7 @@ from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.ethogram import bout_table, time_budget, time_budgets_joined, transition_table
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_table_writer, atomic_write_json, locking, read_json, write_table
+from ethoscribe.label_table import csv_rounded
 from ethoscribe.segment.model import BehaviourModel, motif_name
 from ethoscribe.workspace.files import (
     EXPORTS_STATE,
@@ -116,7 +117,7 @@ def write_ethogram_tables(
     bouts, budgets, recordings = [], [], []
     with atomic_table_writer(path("labels.csv")) as write_labels:
         for part in parts:
-            write_labels(part)
+            write_labels(csv_rounded(part))
             bouts.append(bout_table(part))
             budgets.append(time_budget(part))
             recordings.append(part[["session", "animal"]].drop_duplicates())
@@ -127,9 +128,9 @@ def write_ethogram_tables(
     budget = budgets[0]
     if len(budgets) > 1:
         budget = time_budgets_joined(budgets, pd.concat(recordings))
-    write_table(bouts_all, path("bouts.csv"))
-    write_table(transition_table(bouts_all), path("transitions.csv"))
-    write_table(budget, path("time_budget.csv"))
+    write_table(csv_rounded(bouts_all), path("bouts.csv"))
+    write_table(csv_rounded(transition_table(bouts_all)), path("transitions.csv"))
+    write_table(csv_rounded(budget), path("time_budget.csv"))
     atomic_write_json(path(EXPORTS_STATE), journal_fingerprint(path(JOURNAL_FILE)))
     return bouts_all, budget
 
