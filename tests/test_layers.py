@@ -13,7 +13,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "src" / "ethoscribe"
 
 # Lowest first. A module may import its own layer or any layer before it.
 LAYERS = [
-    {"errors", "checks", "pose", "saved_state", "system"},
+    {"errors", "checks", "pose", "saved_state", "system", "body_plans"},
     {"io"},
     {"clean", "geometry", "filters"},
     {"features", "postures", "missing_keypoints"},
@@ -93,3 +93,14 @@ def test_no_package_imports_another_packages_private_module():
                 if parts[0] == "ethoscribe" and private and parts[1] != _top(path):
                     problems.append(f"{rel} imports {node.module}")
     assert not problems, "private modules used across packages:\n" + "\n".join(problems)
+
+
+def test_production_code_never_imports_the_simulator():
+    # Only the simulator itself, and the command that writes example sessions, use it.
+    allowed = {"simulate", "cli"}
+    users = [
+        str(path.relative_to(PACKAGE))
+        for path in sorted(PACKAGE.rglob("*.py"))
+        if _top(path) not in allowed and "simulate" in _imported(ast.parse(path.read_text()))
+    ]
+    assert not users, f"modules importing ethoscribe.simulate: {users}"

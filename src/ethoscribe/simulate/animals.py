@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ethoscribe.body_plans import DUNE_VOLE as DECLARED_VOLE
+from ethoscribe.body_plans import GLASS_MINNOW as DECLARED_MINNOW
 from ethoscribe.errors import InputError
 from ethoscribe.simulate.plan import (
     Behaviour,
@@ -18,10 +20,7 @@ from ethoscribe.simulate.plan import (
     TrackingNoise,
 )
 
-VOLE_KEYPOINTS = (
-    "nose", "left_ear", "right_ear", "neck", "left_forepaw", "right_forepaw",
-    "body_centre", "left_hindpaw", "right_hindpaw", "tail_base",
-)  # fmt: skip
+VOLE_KEYPOINTS = DECLARED_VOLE.keypoints
 
 
 def _vole_posture(nose, ear, neck, forepaw, hindpaw, tail, centre=(0.0, 0.0)):
@@ -116,23 +115,8 @@ DUNE_VOLE = BodyPlan(
         "open arena at ~2.5 px/mm"
     ),
     keypoints=VOLE_KEYPOINTS,
-    skeleton=(
-        ("nose", "left_ear"),
-        ("nose", "right_ear"),
-        ("left_ear", "neck"),
-        ("right_ear", "neck"),
-        ("neck", "body_centre"),
-        ("neck", "left_forepaw"),
-        ("neck", "right_forepaw"),
-        ("body_centre", "left_hindpaw"),
-        ("body_centre", "right_hindpaw"),
-        ("body_centre", "tail_base"),
-    ),
-    swap_pairs=(
-        ("left_ear", "right_ear"),
-        ("left_forepaw", "right_forepaw"),
-        ("left_hindpaw", "right_hindpaw"),
-    ),
+    skeleton=DECLARED_VOLE.skeleton,
+    swap_pairs=DECLARED_VOLE.swap_pairs,
     origin="body_centre",
     axis=("tail_base", "neck"),
     dims=2,
@@ -180,10 +164,7 @@ DUNE_VOLE = BodyPlan(
     subject_prefix="vole",
 )
 
-FISH_KEYPOINTS = (
-    "snout", "head", "left_fin", "right_fin", "dorsal_fin", "trunk", "rear_trunk",
-    "tail_stem", "tail_tip",
-)  # fmt: skip
+FISH_KEYPOINTS = DECLARED_MINNOW.keypoints
 _FISH_FORWARD = {"snout": 16.0, "head": 10.0, "left_fin": 7.0, "right_fin": 7.0,
                  "dorsal_fin": 0.0, "trunk": 0.0, "rear_trunk": -6.0, "tail_stem": -11.0,
                  "tail_tip": -17.0}  # fmt: skip
@@ -219,17 +200,8 @@ GLASS_MINNOW = BodyPlan(
         "240 x 160 x 100 mm tank"
     ),
     keypoints=FISH_KEYPOINTS,
-    skeleton=(
-        ("snout", "head"),
-        ("head", "trunk"),
-        ("trunk", "rear_trunk"),
-        ("rear_trunk", "tail_stem"),
-        ("tail_stem", "tail_tip"),
-        ("head", "left_fin"),
-        ("head", "right_fin"),
-        ("trunk", "dorsal_fin"),
-    ),
-    swap_pairs=(("left_fin", "right_fin"),),
+    skeleton=DECLARED_MINNOW.skeleton,
+    swap_pairs=DECLARED_MINNOW.swap_pairs,
     origin="trunk",
     axis=("tail_stem", "head"),
     dims=3,

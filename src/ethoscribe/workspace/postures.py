@@ -8,9 +8,10 @@ pipeline (:func:`ethoscribe.postures.egocentric_postures`). The result is saved 
 ``postures/<session>.npz`` (float32, written atomically) with a provenance key; a cache whose key
 no longer matches the source file or the model is recomputed.
 
-Skeletons to draw: :func:`skeleton_for` takes the user's edges, else the edges of a bundled
-simulated body plan whose keypoints match exactly, else the minimum spanning tree of the mean
-keypoint distances (:func:`ethoscribe.postures.minimum_spanning_skeleton`).
+Skeletons to draw: :func:`skeleton_for` takes the user's edges, else the edges of a declared
+body plan (:mod:`ethoscribe.body_plans`) whose keypoints match exactly, else the minimum
+spanning tree of the mean keypoint distances
+(:func:`ethoscribe.postures.minimum_spanning_skeleton`).
 """
 
 from __future__ import annotations
@@ -26,6 +27,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ethoscribe.body_plans import body_plan_for
 from ethoscribe.clean import calibrate, clean
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.io import atomic_write, loads_json, safe_child
@@ -229,7 +231,8 @@ def skeleton_for(
 ) -> tuple[tuple[tuple[str, str], ...], str]:
     """Edges to draw between keypoints, and a sentence saying where they came from.
 
-    ``skeleton`` (the user's) wins; then a bundled body plan with exactly these keypoints; then
+    ``skeleton`` (the user's) wins; then a declared body plan with exactly these keypoints
+    (:mod:`ethoscribe.body_plans`, the bundled example animals among them); then
     the minimum spanning tree of the mean keypoint distances of ``postures`` (N, K, D).
     """
     names = tuple(str(k) for k in keypoints)
@@ -241,11 +244,9 @@ def skeleton_for(
                 f"skeleton names unknown keypoints {unknown}; keypoints: {list(names)}"
             )
         return edges, "skeleton given by the user"
-    from ethoscribe.simulate import BODY_PLANS  # body plans of the bundled simulated animals
-
-    for plan in BODY_PLANS.values():
-        if set(plan.keypoints) == set(names):
-            return tuple(plan.skeleton), f"skeleton of the '{plan.name}' body plan"
+    plan = body_plan_for(names)  # declared by the user, or a bundled example animal
+    if plan is not None:
+        return plan.skeleton, f"skeleton of the '{plan.name}' body plan"
     if postures is None:
         raise InputError("no skeleton given and no postures to derive one from")
     edges = minimum_spanning_skeleton(postures, names)
