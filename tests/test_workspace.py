@@ -248,3 +248,27 @@ def test_repair_removes_old_temporary_files_of_interrupted_runs_from_the_cache(w
     notes = ws.repair()
     assert not old.exists() and fresh.exists()  # a live run may still own the fresh one
     assert any(".a.npz.x1.tmp" in n for n in notes)
+
+
+def test_a_discovery_for_streaming_labels_as_the_stream_does(study, tmp_path):
+    # discover(causal=True) (the command line's --for-streaming): the saved labels of a session
+    # are those StreamingLabeller gives frame by frame, on >= 99 % of frames (the docs' promise).
+    from ethoscribe.segment.streaming import StreamingLabeller
+    from ethoscribe.workspace import read_sessions
+
+    ws = discover(
+        [study], tmp_path / "live", manifest=study / "manifest.csv", states=3,
+        stability=False, progress=False, causal=True,
+    )  # fmt: skip
+    model = ws.model()
+    assert model.causal and isinstance(model.cleaning_.max_speed, float)
+    [tracks], _ = read_sessions(
+        [study / "session_09.parquet"], study / "manifest.csv", progress=False
+    )
+    live = StreamingLabeller(model)
+    streamed = [live.push(tracks.coords[t], tracks.confidence[t])[0].state for t in range(2700)]
+    saved = ws.state_labels()
+    saved = saved[saved["session"] == "session_09"]["state"].to_numpy()
+    agree = float(np.mean(np.array(streamed) == saved))
+    print(f"\ndiscover(causal=True): streamed vs saved labels agree on {agree:.2%} of frames")
+    assert agree >= 0.99

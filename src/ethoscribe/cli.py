@@ -266,6 +266,12 @@ def build_parser() -> argparse.ArgumentParser:
         help="fit on at most this many frames, in blocks from every session ('all': every "
         "frame; default 1000000)",
     )
+    d.add_argument(
+        "--for-streaming",
+        action="store_true",
+        help="fit a model for closed-loop labelling: clean and compute features from past "
+        "frames only and label with the forward filter, so offline labels match streamed ones",
+    )
 
     lab = sub.add_parser(
         "label",
@@ -489,6 +495,7 @@ def _run(args: argparse.Namespace) -> str:
             reader_options=_reader_options(args),
             cleaning=_cleaning(args),
             replace_curation=args.replace_curation,
+            causal=args.for_streaming,
         )
         return ws.describe()
     if args.command == "label":
@@ -540,6 +547,7 @@ _OPTIONS = {
     "fit_frames": "--fit-frames", "states": "--states", "n_states": "--states",
     "seed": "--seed", "random_state": "--seed", "method": "--method", "origin": "--origin",
     "axis": "--axis", "replace_curation": "--replace-curation", "force": "--force",
+    "causal": "--for-streaming",
     "scheduler": "--scheduler", "manifest": "--manifest", "out": "--out",
 }  # fmt: skip
 _ASSIGNMENT = re.compile(r"\b(" + "|".join(_OPTIONS) + r")=(True|\.\.\.|[^\s,;)]+)?")

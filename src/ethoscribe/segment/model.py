@@ -98,6 +98,14 @@ class BehaviourModel(BaseEstimator):
         per fit (``random_seed_``, what a saved model records).
     progress : bool
         Show progress bars.
+    causal : bool
+        Fit and label through the causal path, for a model meant for closed-loop use
+        (:class:`~ethoscribe.segment.streaming.StreamingLabeller`): causal cleaning (past frames
+        only), causal features, and labels from the forward filter ``P(state_t | frames up to
+        t)`` with no minimum-bout merge (it would need future frames). An automatic speed bound
+        is fixed at fitting time (median over the training sessions), as streaming needs a
+        number. Offline labels of such a model then agree with streamed labels on >= 99 % of
+        frames (tests/test_streaming.py). Needs a method that can stream (the HMM).
 
     Examples
     --------
@@ -119,6 +127,7 @@ class BehaviourModel(BaseEstimator):
         min_body_seen: float | None = 0.6,
         random_state: int | np.random.Generator | None = 0,
         progress: bool = False,
+        causal: bool = False,
     ) -> None:
         self.cleaning = cleaning
         self.features = features
@@ -130,6 +139,7 @@ class BehaviourModel(BaseEstimator):
         self.min_body_seen = min_body_seen
         self.random_state = random_state
         self.progress = progress
+        self.causal = causal
 
     def saved_params(self) -> dict[str, Any]:
         """JSON-able constructor parameters, as saved models and ``summary.json`` record them.
@@ -153,6 +163,7 @@ class BehaviourModel(BaseEstimator):
             "min_bout_s": self.min_bout_s,
             "min_body_seen": self.min_body_seen,
             "random_state": seed,
+            "causal": bool(self.causal),
         }
 
     # --- fitting --------------------------------------------------------------------------
@@ -179,6 +190,14 @@ class BehaviourModel(BaseEstimator):
                 f"got {seen!r}"
             )
 
+        if not isinstance(self.causal, bool | np.bool_):
+            raise InputError(f"causal must be True or False; got {self.causal!r}")
+        if self.causal and get_segmenter(self.method).streaming is None:
+            raise InputError(
+                f"causal=True needs a method that labels frames as they arrive; {self.method!r} "
+                "cannot (use method='hmm')"
+            )
+
     def _clean_params(self) -> CleanParams:
         if isinstance(self.cleaning, CleanParams):
             return self.cleaning
@@ -195,12 +214,16 @@ class BehaviourModel(BaseEstimator):
         check_same_body_plan(sessions)
         params = self._clean_params()
         rates = sorted({float(s.fps) for s in sessions})
-        auto_rate = len(rates) > 1 and params.target_fps is None
+        auto_rate = len(rates) > 1 and params.target_fps is None and not self.causal
         if auto_rate:
             # Sessions filmed at several rates: all resampled to the lowest one (no detail is
             # invented), and labels mapped back to every session's own frames (label()).
             params = replace(params, target_fps=rates[0])
         cleaned, quality = self._clean_all(sessions, params)
+        if self.causal and params.max_speed == "auto":
+            # Streaming needs one fixed bound: the median of the sessions' automatic ones.
+            params = replace(params, max_speed=_fixed_speed(cleaned))
+            cleaned, quality = self._clean_all(sessions, params)
         self._fit_cleaned(cleaned, quality, params)
         self.labels_at_input_rate_ = auto_rate
         return self
@@ -229,8 +252,11 @@ class BehaviourModel(BaseEstimator):
                 f"sessions have different frame rates {sorted(fps)}; resample them to one rate "
                 "with cleaning={'target_fps': ...}"
             )
+        if self.causal:
+            params = _causal_cleaning(cleaned, params)
         sessions = cleaned
-        pipeline = FeaturePipeline(**(self.features or {}))
+        options = {**(self.features or {}), **({"causal": True} if self.causal else {})}
+        pipeline = FeaturePipeline(**options)
         self.filler_ = None
         if self.min_body_seen is not None:
             up = (self.features or {}).get("up_axis", "z")
@@ -274,7 +300,7 @@ class BehaviourModel(BaseEstimator):
     ) -> tuple[list[PoseTracks], list[QualityReport]]:
         out, reports = [], []
         for s in tqdm(sessions, desc="cleaning", unit="session", disable=not self.progress):
-            cleaned, report = clean(s, params)
+            cleaned, report = clean(s, params, causal=bool(self.causal))
             out.append(cleaned)
             reports.append(report)
         return out, reports
@@ -338,7 +364,7 @@ class BehaviourModel(BaseEstimator):
             X, lengths = np.zeros((0, 0)), np.zeros(0, dtype=np.int64)
             states, prob = np.zeros(0, dtype=np.int64), np.zeros((0, self.n_states_))
         min_frames = round(self.min_bout_s * self.fps_)
-        if min_frames > 1:
+        if min_frames > 1 and not self.causal:
             states = enforce_min_bout(states, min_frames, lengths=lengths, probabilities=prob)
         # Posterior of the label given; clipped because scaled recursions round to 1 + 1e-15.
         prob = np.clip(np.take_along_axis(prob, states[:, None], axis=1)[:, 0], 0.0, 1.0)
@@ -375,6 +401,9 @@ class BehaviourModel(BaseEstimator):
         self, X: np.ndarray, lengths: np.ndarray
     ) -> tuple[np.ndarray, np.ndarray]:
         seg = self.segmenter_
+        if self.causal:  # what streaming gives: the forward filter's most probable state
+            prob = _filtered(self.method, seg, X, lengths)
+            return np.argmax(prob, axis=1), prob
         if get_segmenter(self.method).posteriors:
             return seg.predict(X, lengths), seg.predict_proba(X, lengths)
         states = seg.predict(X, lengths)  # hard labels: probability 1 (the registry says so)
@@ -502,6 +531,40 @@ class BehaviourModel(BaseEstimator):
         if problems:
             raise InputError("the model file is inconsistent: " + "; ".join(problems) + ".")
         return model
+
+
+def _fixed_speed(cleaned: Sequence[PoseTracks]) -> float | None:
+    """Median of the speed bounds the sessions' automatic cleaning resolved (None: none)."""
+    speeds = [s.meta.get("cleaning", {}).get("max_speed") for s in cleaned]
+    speeds = [float(v) for v in speeds if v is not None]
+    return float(np.median(speeds)) if speeds else None
+
+
+def _causal_cleaning(cleaned: Sequence[PoseTracks], params: CleanParams) -> CleanParams:
+    """Cleaning of a causal model: tracks cleaned causally, and a fixed speed bound."""
+    batch = [s.session for s in cleaned if not s.meta.get("cleaning", {}).get("causal", False)]
+    if batch:
+        raise InputError(
+            f"causal=True needs tracks cleaned with clean(..., causal=True); session "
+            f"'{batch[0]}' was cleaned in batch"
+        )
+    if params.target_fps is not None:
+        raise InputError("causal=True cannot resample; set cleaning target_fps=None")
+    if params.max_speed == "auto":
+        params = replace(params, max_speed=_fixed_speed(cleaned))
+    return params
+
+
+def _filtered(method: str, seg: Any, X: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """Forward-filtered posteriors of every frame, each session from its own start."""
+    if hasattr(seg, "filter"):
+        return seg.filter(X, lengths)
+    spec, out, start = get_segmenter(method), [], 0
+    for n in lengths:
+        live = spec.live(seg)
+        out.extend(live.push(x) for x in X[start : start + n])
+        start += n
+    return np.asarray(out, dtype=np.float64).reshape(len(X), -1)
 
 
 def _at_input_rate(

@@ -88,13 +88,16 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
 
     ``job`` holds ``entry`` (from :func:`~ethoscribe.workspace.reading.plan_sessions`),
     ``cleaning`` (a :class:`~ethoscribe.clean.CleanParams` dict), ``cache`` (folder) and
-    ``force`` (recompute even when cached). Runs in worker processes: arguments and result are
+    ``force`` (recompute even when cached), optionally ``causal`` (clean from past frames
+    only, for a model meant for streaming). Runs in worker processes: arguments and result are
     small; the arrays go through the cache folder.
     """
     entry, cleaning = job["entry"], job["cleaning"]
+    causal = bool(job.get("causal", False))  # past frames only (a model for streaming)
     folder = Path(job["cache"])
     folder.mkdir(parents=True, exist_ok=True)
-    base = folder / f"{_stem(entry['session'])}-{cache_key(entry, cleaning)}"
+    recipe = {**cleaning, "causal": True} if causal else cleaning
+    base = folder / f"{_stem(entry['session'])}-{cache_key(entry, recipe)}"
     info = {"tracks": f"{base}.npz", "quality": f"{base}.quality.parquet", "row": f"{base}.json"}
     if not job.get("force") and all(Path(p).is_file() for p in info.values()):
         return {**info, "reused": True}
@@ -103,7 +106,7 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         tracks = read_planned(entry)
-        cleaned, report = clean(tracks, CleanParams.from_dict(cleaning))
+        cleaned, report = clean(tracks, CleanParams.from_dict(cleaning), causal=causal)
     write_table(report.to_frame(), info["quality"])
     with atomic_write(info["tracks"], "wb") as fh:
         np.savez(

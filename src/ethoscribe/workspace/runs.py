@@ -86,6 +86,7 @@ def discover(
     format: str | None = None,
     reader_options: Mapping[str, Any] | None = None,
     cleaning: CleanParams | Mapping[str, Any] | None = None,
+    causal: bool = False,
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
@@ -112,6 +113,11 @@ def discover(
         sample plus the largest session, not with the study. 1,000,000 frames (9 h at 30 fps)
         holds many thousands of bouts of every common behaviour, and the model fit itself
         works on a subsample of 200,000 frames (the HMM's ``fit_max_frames``).
+    causal : fit a model meant for closed-loop labelling
+        (:class:`~ethoscribe.segment.streaming.StreamingLabeller`): causal cleaning with a
+        fixed speed bound (the median of the sessions' automatic ones), causal features and
+        forward-filtered labels (``BehaviourModel(causal=True)``). The workspace's labels are
+        then those streaming gives, on >= 99 % of frames.
 
     Reading and cleaning, then features and decoding, run per session in worker processes
     (or on the Dask cluster); the fit runs here, on the sample.
@@ -129,8 +135,15 @@ def discover(
         cleaning = discovery_cleaning(cleaning, min_confidence).to_dict()
         client = connect(scheduler)
         prepared, quality, table, used = _prepare(
-            out, plan, cleaning, jobs, client, force, progress
+            out, plan, cleaning, jobs, client, force, progress, causal
         )
+        if causal and cleaning.get("max_speed") == "auto":
+            # Streaming needs one speed bound: clean again with the sessions' median.
+            speeds = [u["max_speed"] for u in used if u and u.get("max_speed") is not None]
+            cleaning = {**cleaning, "max_speed": float(np.median(speeds)) if speeds else None}
+            prepared, quality, table, used = _prepare(
+                out, plan, cleaning, jobs, client, force, progress, causal
+            )
         sample = _training_sample(prepared, table, fit_frames, seed)
 
         def fit() -> tuple[BehaviourModel, Any]:
@@ -142,6 +155,7 @@ def discover(
                     n_states=states,
                     random_state=seed,
                     progress=progress,
+                    causal=causal,
                 ).fit_cleaned(sample, quality)
             report = None
             if stability and get_segmenter(method).stability:
@@ -152,7 +166,7 @@ def discover(
         # An unchanged rerun reuses the fit (same sample, parameters, seed and versions).
         settings = {"cleaning": cleaning, "origin": origin, "axis": axis, "method": method,
                     "states": states, "seed": seed, "stability": stability,
-                    "versions": versions()}  # fmt: skip
+                    "causal": causal, "versions": versions()}  # fmt: skip
         digest = fit_digest(sample, quality, settings)
         model, report, _ = fit_or_reuse(out, digest, fit, force)
         model.set_params(progress=progress)
@@ -176,6 +190,7 @@ def _prepare(
     client: Any,
     force: bool,
     progress: bool,
+    causal: bool = False,
 ) -> tuple[list[dict[str, Any]], list[pd.DataFrame], pd.DataFrame, list[Any]]:
     """Read and clean every session (in parallel, through the cache).
 
@@ -186,7 +201,13 @@ def _prepare(
     if parallel and len(plan) > 1:
         check_readers_portable(plan)
     work = [
-        {"entry": e, "cleaning": cleaning, "cache": str(out / CACHE_FOLDER), "force": force}
+        {
+            "entry": e,
+            "cleaning": cleaning,
+            "cache": str(out / CACHE_FOLDER),
+            "force": force,
+            "causal": causal,
+        }
         for e in plan
     ]
     infos = map_sessions(
@@ -295,7 +316,7 @@ def label_sessions(
         client = connect(scheduler)
         cleaning = model.cleaning_.to_dict()
         prepared, quality, table, used = _prepare(
-            out, plan, cleaning, jobs, client, force, progress
+            out, plan, cleaning, jobs, client, force, progress, bool(model.causal)
         )
         decoded = _decode(out, prepared, model, jobs, client, force, progress)
         summary = _summary(model, table, model.random_state, None)
