@@ -193,8 +193,22 @@ def duration_figure(
     _need(bouts, ("motif", "duration_s"), "the bout table")
     fig = go.Figure()
     for motif, colour in motif_colours(bouts["motif"]).items():
-        durations = bouts.loc[bouts["motif"] == motif, "duration_s"]
-        fig.add_trace(go.Box(y=durations, name=motif, marker={"color": colour}, boxpoints=False))
+        d = bouts.loc[bouts["motif"] == motif, "duration_s"].to_numpy(np.float64)
+        d = d[np.isfinite(d)]
+        if not len(d):
+            continue
+        # box statistics computed here (as plotly would: linear quartiles, whiskers to the last
+        # value within 1.5 IQR), so the figure holds 5 numbers per motif, not every bout
+        q1, median, q3 = np.percentile(d, [25, 50, 75])
+        iqr = q3 - q1
+        low, high = d[d >= q1 - 1.5 * iqr].min(), d[d <= q3 + 1.5 * iqr].max()
+        fig.add_trace(
+            go.Box(
+                x=[motif], q1=[q1], median=[median], q3=[q3], lowerfence=[low], upperfence=[high],
+                name=motif, marker={"color": colour}, boxpoints=False,
+                hovertemplate=f"{motif}: {len(d)} bouts<extra></extra>",
+            )
+        )  # fmt: skip
     fig.update_layout(
         title="Bout durations",
         showlegend=False,

@@ -1,9 +1,10 @@
 """The parts of a workspace's HTML reports: data quality, the model's choices, the ethogram, and
 the group differences.
 
-Figures come from :mod:`ethoscribe.plots`; this module picks what goes on the page and thins the
-largest figures (raster, bout durations) so that a report of a big study stays a few megabytes.
-The tables written beside the report always keep every row.
+Figures come from :mod:`ethoscribe.plots`; this module picks what goes on the page and keeps the
+figures' data small whatever the study's size (the raster is resampled above RASTER_BARS bars,
+bout-duration boxes carry their five statistics, not the bouts), so that a report stays under
+2 MB. The tables written beside the report always keep every row.
 """
 
 from __future__ import annotations
@@ -41,7 +42,6 @@ from ethoscribe.transitions import transitions_above_chance
 from ethoscribe.workspace.folder import Workspace
 
 RASTER_BARS = 6000  # bars drawn in the ethogram raster before rows are resampled
-DURATION_POINTS = 2000  # bout durations per motif drawn in the box plot
 TOP_ROWS = 25  # rows of the statistics table shown in the report
 FOREST_ROWS = 30  # exploratory tests drawn in the forest plot
 CHOICE_COLUMNS = ("n_states", "heldout_ll_per_frame", "train_ll_per_frame", "bic", "fitted")
@@ -122,7 +122,7 @@ def ethogram_sections(
     bouts: pd.DataFrame,
     budgets: pd.DataFrame,
     groups: Mapping[str, str] | None = None,
-    seed: int = 0,
+    seed: int = 0,  # kept for callers; nothing on these pages is random any more
     min_bout_s: float | None = None,
 ) -> list[Section]:
     """Raster, time budgets, bout durations and transitions (current motif names).
@@ -152,28 +152,17 @@ def ethogram_sections(
     )
     cut = [c for c in ("cut_before", "cut_after") if c in bouts.columns]
     uncut = bouts[~bouts[cut].any(axis=1)] if cut else bouts
-    shown, note = _thinned(uncut, seed)
     sections.append(
         Section(
             "Bout durations",
             "Durations of the bouts not cut by a gap or a recording edge (cut bouts can be "
-            "shorter than the minimum bout; the table counts every bout)." + note,
-            [duration_figure(shown, min_bout_s=min_bout_s)],
+            "shorter than the minimum bout; the table counts every bout).",
+            [duration_figure(uncut, min_bout_s=min_bout_s)],
             [("Bout durations", duration_summary(bouts, by=by, groups=groups))],
         )
     )
     sections.append(_transition_section(bouts, budgets))
     return sections
-
-
-def _thinned(bouts: pd.DataFrame, seed: int) -> tuple[pd.DataFrame, str]:
-    """At most DURATION_POINTS bouts per motif (a seeded random subset) for the box plot."""
-    counts = bouts.groupby("motif")["motif"].transform("size").to_numpy()
-    if counts.max(initial=0) <= DURATION_POINTS:
-        return bouts, ""
-    keep = np.random.default_rng(seed).random(len(bouts)) < DURATION_POINTS / counts
-    note = f" The box plot draws a random {DURATION_POINTS} bouts per motif; the table all."
-    return bouts[keep], note
 
 
 def _transition_section(bouts: pd.DataFrame, budgets: pd.DataFrame) -> Section:
