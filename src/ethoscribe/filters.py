@@ -372,6 +372,10 @@ def band_power(
 def _trailing_std(ext: np.ndarray, w: int, min_count: int, start: int) -> np.ndarray:
     """Std over finite values of windows ``ext[i-w+1 : i+1]`` for rows i >= start: cumulative
     sums restarted every block and shifted by a value of the block to limit cancellation."""
+    # Kept instead of pandas' rolling std, which gives the same values (to 7e-8 on 200,000
+    # frames x 9 columns around 1000 with 5 % missing; tests/test_filters.py checks it): the
+    # causal TrailingStd must carry its window from chunk to chunk and equal the batch result,
+    # so one function serves both; it was also 1.3-1.4x faster than pandas there.
     out = np.empty((len(ext) - start, ext.shape[1]))
     block = max(4096, 8 * w)  # short sums: variance error ~ eps * block * spread**2
     for s in range(start, len(ext), block):
