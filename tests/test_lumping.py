@@ -55,3 +55,23 @@ def test_states_alternating_within_bouts_are_suggested_first():
     means = np.array([[0.0, 0.0], [0.5, 0.0], [3.0, 3.0]])
     best = suggested_merges(labels, means, T, fps=10.0, lag_s=1.0)[0]
     assert best["states"] == (0, 1) and best["alternation_share"] > 1
+
+
+def test_the_model_keeps_its_state_tree_and_suggests_merges():
+    from ethoscribe.segment.model import BehaviourModel
+    from ethoscribe.simulate import simulate_session
+
+    tracks = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    model = BehaviourModel(n_states=5, segmenter={"n_restarts": 1, "n_iter": 30}).fit(tracks)
+    tree = model.state_tree_
+    assert [lv["n_sets"] for lv in tree["levels"]] == [5, 4, 3, 2, 1]
+    assert len(tree["suggested_assignment"]) == 5 and tree["reason"]
+    for group in model.merge_groups():
+        assert len(group) >= 2 and set(group) <= set(range(5))
+    pairs = model.suggested_merges(model.label(tracks), top=3)
+    assert len(pairs) == 3 and pairs[0]["score"] >= pairs[-1]["score"]
+    meta, arrays = model.to_state()
+    again = BehaviourModel.from_state(meta, arrays)
+    assert again.state_tree_ == tree and again.merge_groups() == model.merge_groups()
+    meta["state_tree"] = {"levels": "damaged"}  # advice only: dropped, not refused
+    assert BehaviourModel.from_state(meta, arrays).state_tree_ is None

@@ -258,7 +258,8 @@ def suggested_merges(
     counts = alternation_counts(labels, n, window)
     lab = np.asarray(labels)
     lab = lab[lab >= 0]
-    bouts = np.bincount(lab[np.concatenate([[True], lab[1:] != lab[:-1]])], minlength=n)
+    starts = np.concatenate([[True], lab[1:] != lab[:-1]])[: len(lab)]
+    bouts = np.bincount(lab[starts], minlength=n)
     tree = merge_tree(transmat, fps, lag_s)
     means = np.asarray(means, dtype=np.float64)
     out = []

@@ -25,6 +25,7 @@ from ethoscribe.pose import PoseTracks, check_same_body_plan
 from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._model_meta import RESAVE, check_meta, known_keys
 from ethoscribe.segment.inputs import check_fitted, split_by_lengths
+from ethoscribe.segment.lumping import lump_states, merge_tree, suggested_merges
 from ethoscribe.segment.postprocess import enforce_min_bout
 from ethoscribe.segment.registry import get_segmenter
 from ethoscribe.segment.select import choose_n_states
@@ -282,6 +283,7 @@ class BehaviourModel(BaseEstimator):
             n_states = int(selection.best)
         segmenter = self._make_segmenter(n_states, fps_value, seed)
         segmenter.fit(X, lengths)
+        self.state_tree_ = _state_tree(segmenter, fps_value)
         self.random_seed_ = seed
         self.cleaning_ = params
         self.features_ = pipeline
@@ -397,6 +399,43 @@ class BehaviourModel(BaseEstimator):
         labels.insert(5, "motif", names[labels["state"].to_numpy() + 1])
         return labels
 
+    def suggested_merges(self, labels: pd.DataFrame | None = None, top: int = 10) -> list[dict]:
+        """Pairs of states worth merging into one behaviour-level motif, with the evidence.
+
+        Parameters
+        ----------
+        labels : DataFrame, optional
+            A label table of this model (:meth:`label`); gives how often two states alternate
+            within half a second. Without it only the state tree and posture distance count.
+        top : int
+
+        Returns
+        -------
+        list of dict (best first): ``states`` (a, b), ``alternations``,
+        ``alternation_share``, ``distance`` (between state means, standard units),
+        ``same_set_levels`` (levels of :attr:`state_tree_` that keep them together), ``score``
+        (see :func:`ethoscribe.segment.lumping.suggested_merges`).
+        """
+        check_fitted(self, "segmenter_")
+        seg = self.segmenter_
+        if not hasattr(seg, "transmat_"):
+            return []
+        state = np.zeros(0, dtype=np.int64)
+        if labels is not None:
+            state = labels["state"].to_numpy(dtype=np.int64)
+        return suggested_merges(state, seg.means_, seg.transmat_, self.fps_, LAG_S, top)
+
+    def merge_groups(self) -> list[list[int]]:
+        """Groups of states (2 or more) of the metastable sets chosen by the time-scale rule
+        (:func:`ethoscribe.segment.lumping.lump_states`): suggestions, labels are unchanged."""
+        tree = getattr(self, "state_tree_", None)
+        if not tree:
+            return []
+        groups: dict[int, list[int]] = {}
+        for k, g in enumerate(tree["suggested_assignment"]):
+            groups.setdefault(g, []).append(k)
+        return [v for v in groups.values() if len(v) >= 2]
+
     def _states_and_probability(
         self, X: np.ndarray, lengths: np.ndarray
     ) -> tuple[np.ndarray, np.ndarray]:
@@ -432,6 +471,7 @@ class BehaviourModel(BaseEstimator):
             "n_training_frames": self.n_training_frames_,
             "selection": None if self.selection_ is None else _selection_to_json(self.selection_),
             "labels_at_input_rate": bool(getattr(self, "labels_at_input_rate_", False)),
+            "state_tree": getattr(self, "state_tree_", None),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -497,6 +537,7 @@ class BehaviourModel(BaseEstimator):
         selection = meta["selection"]
         model.selection_ = None if selection is None else _FixedSelection.from_json(selection)
         model.labels_at_input_rate_ = meta.get("labels_at_input_rate") is True
+        model.state_tree_ = _checked_tree(meta.get("state_tree"), int(meta["n_states"]))
         model.n_states_ = int(meta["n_states"])
         model.random_seed_ = model.random_state
         model.fps_ = float(meta["fps"])
@@ -565,6 +606,45 @@ def _filtered(method: str, seg: Any, X: np.ndarray, lengths: np.ndarray) -> np.n
         out.extend(live.push(x) for x in X[start : start + n])
         start += n
     return np.asarray(out, dtype=np.float64).reshape(len(X), -1)
+
+
+LAG_S = 0.5  # lag of the state tree: about one short bout (the minimum bout)
+MIN_TIMESCALE_S = 1.0  # exchanges slower than this are between behaviours
+
+
+def _state_tree(segmenter: Any, fps: float) -> dict | None:
+    """Merge tree of the fitted states (PCCA+ sets at every level), JSON-able; None without a
+    transition matrix (change-point segmenters)."""
+    transmat = getattr(segmenter, "transmat_", None)
+    if transmat is None or len(transmat) < 2:
+        return None
+    lump = lump_states(transmat, fps, lag_s=LAG_S, min_timescale_s=MIN_TIMESCALE_S)
+    return {
+        "lag_s": LAG_S,
+        "min_timescale_s": MIN_TIMESCALE_S,
+        "timescales_s": [float(t) if np.isfinite(t) else None for t in lump.timescales_s],
+        "suggested_n_sets": lump.n_sets,
+        "suggested_assignment": lump.assignment.tolist(),
+        "reason": lump.reason,
+        "levels": merge_tree(transmat, fps, LAG_S),
+    }
+
+
+def _checked_tree(tree: Any, n_states: int) -> dict | None:
+    """A saved state tree if it is well formed for ``n_states`` states; otherwise None (the
+    tree is advice only, so a damaged one is dropped rather than refused)."""
+    try:
+        levels = tree["levels"]
+        ok = all(
+            len(lv["assignment"]) == n_states
+            and all(isinstance(a, int) and 0 <= a < lv["n_sets"] for a in lv["assignment"])
+            for lv in levels
+        )
+        chosen = tree["suggested_assignment"]
+        ok = ok and len(chosen) == n_states and all(isinstance(a, int) for a in chosen)
+    except (KeyError, TypeError):
+        return None
+    return tree if ok else None
 
 
 def _at_input_rate(

@@ -355,6 +355,9 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
         # Added to every state covariance's diagonal after each M-step: no singular covariance.
         "covariance_floor": getattr(model.segmenter_, "covariance_floor_", None),
         "stability": None if report is None else report.summary,
+        # States that alternate within bouts (PCCA+ sets of the transition matrix): advice.
+        "state_tree": getattr(model, "state_tree_", None),
+        "suggested_merges": model.merge_groups(),
         "caution": CAUTION,
     }
 
