@@ -28,6 +28,7 @@ from ethoscribe.io import bundle as bundle_module
 from ethoscribe.io import read_manifest, read_tidy, write_tidy
 from ethoscribe.io._safe import load_npz
 from ethoscribe.io.bundle import read_bundle
+from ethoscribe.system import file_digest
 from ethoscribe.workspace import Workspace, discover
 from ethoscribe.workspace.files import append_journal
 
@@ -80,7 +81,7 @@ def _npy(array: np.ndarray) -> bytes:
 def _set_digest(folder: Path) -> None:
     # An attacker rewrites the digest too, so that only the content checks can stop them.
     meta = json.loads((folder / "model.json").read_text())
-    meta["arrays_sha256"] = bundle_module._digest(folder / "arrays.npz")
+    meta["arrays_sha256"] = file_digest(folder / "arrays.npz")
     (folder / "model.json").write_text(json.dumps(meta))
 
 

@@ -13,6 +13,7 @@ import json
 import os
 import re
 import zipfile
+from collections.abc import Callable
 from pathlib import Path, PurePosixPath
 from typing import Any
 
@@ -138,7 +139,9 @@ def _member_header(zf: zipfile.ZipFile, info: zipfile.ZipInfo, where: str) -> tu
         return shape, fortran, dtype, fh.tell()
 
 
-def _check_member(zf: zipfile.ZipFile, info: zipfile.ZipInfo, where: str) -> None:
+def _check_member(
+    zf: zipfile.ZipFile, info: zipfile.ZipInfo, where: str, max_values: Any = None
+) -> None:
     name = info.filename
     if info.file_size > MAX_ARRAY_BYTES:
         raise UnsafeFileError(f"{where}: member {name!r} claims {info.file_size} bytes; refused")
@@ -153,7 +156,16 @@ def _check_member(zf: zipfile.ZipFile, info: zipfile.ZipInfo, where: str) -> Non
             "plain numbers or text; refused (ethoscribe files hold only numbers and text)"
         )
         raise UnsafeFileError(msg)
-    expected = int(np.prod(shape, dtype=object)) * dtype.itemsize
+    count = int(np.prod(shape, dtype=object))
+    if callable(max_values):
+        max_values = max_values(name[:-4])
+    if max_values is not None and count > max_values:
+        msg = (
+            f"{where}: member {name!r} declares shape {shape} ({count} values), more than the "
+            f"sizes its description declares allow ({max_values}); refused before reading it"
+        )
+        raise UnsafeFileError(msg)
+    expected = count * dtype.itemsize
     if header + expected != info.file_size:
         msg = (
             f"{where}: member {name!r} declares shape {shape} of {dtype} ({expected} bytes) but "
@@ -162,8 +174,14 @@ def _check_member(zf: zipfile.ZipFile, info: zipfile.ZipInfo, where: str) -> Non
         raise UnsafeFileError(msg)
 
 
-def load_npz(path: str | os.PathLike[str]) -> dict[str, np.ndarray]:
+def load_npz(
+    path: str | os.PathLike[str], max_values: int | Callable[[str], int] | None = None
+) -> dict[str, np.ndarray]:
     """Every array of an ``.npz`` archive, checked before loading (see the module docstring).
+
+    ``max_values`` (a number, or a function of the member name) bounds the number of values of
+    each member, from its header, before any memory is allocated (a small archive may declare
+    gigabytes of zeros).
 
     Returns
     -------
@@ -191,9 +209,10 @@ def load_npz(path: str | os.PathLike[str]) -> dict[str, np.ndarray]:
             if len(set(names)) != len(names) or not all(n.endswith(".npy") for n in names):
                 msg = f"{where}: not an array archive (repeated or non-.npy members {names[:10]})"
                 raise InputError(msg)
+            for info in members:  # every header first: nothing is allocated for a hostile one
+                _check_member(zf, info, where, max_values)
             arrays = {}
             for info in members:
-                _check_member(zf, info, where)
                 with zf.open(info) as fh:
                     arrays[info.filename[:-4]] = np.lib.format.read_array(fh, allow_pickle=False)
             return arrays

@@ -17,6 +17,7 @@ from __future__ import annotations
 import os
 import re
 import shutil
+from collections.abc import Callable
 from contextlib import suppress
 from pathlib import Path
 from typing import Any
@@ -92,8 +93,13 @@ def write_bundle(folder: str | Path, meta: dict[str, Any], arrays: dict[str, np.
     return folder
 
 
-def read_bundle(folder: str | Path) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
+def read_bundle(
+    folder: str | Path, max_values: Callable[[dict[str, Any]], Any] | None = None
+) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
     """Read a folder written by :func:`write_bundle`; refuse anything that would need pickle.
+
+    ``max_values(meta)`` (optional) gives the most values any array may hold, from the sizes
+    ``model.json`` declares; larger members are refused from their headers, before loading.
 
     Raises ``InputError`` for a damaged or incomplete folder and ``UnsafeFileError`` for links,
     object arrays, archive members with path-like names or implausible sizes.
@@ -114,7 +120,8 @@ def read_bundle(folder: str | Path) -> tuple[dict[str, Any], dict[str, np.ndarra
             raise InputError(f"{meta_path}: 'arrays_sha256' is not a sha256 digest: {expected!r}")
         if expected != file_digest(arrays_path):
             arrays_path = _previous_arrays(folder, expected, arrays_path, meta_path)
-    return meta, load_npz(arrays_path)
+    bound = None if max_values is None else max_values(meta)
+    return meta, load_npz(arrays_path, bound)
 
 
 def _previous_arrays(folder: Path, expected: str, arrays_path: Path, meta_path: Path) -> Path:

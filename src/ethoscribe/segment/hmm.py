@@ -428,6 +428,7 @@ class GaussianHMM(BaseEstimator):
         except (TypeError, ValueError) as exc:
             raise InputError(f"GaussianHMM state: arrays must hold numbers ({exc})") from None
         _check_fitted_arrays(fitted)
+        _check_covariance_type(model.covariance_type, fitted["covars"])
         model.means_, model.covars_ = fitted["means"], fitted["covars"]
         model.startprob_, model.transmat_ = fitted["startprob"], fitted["transmat"]
         model.restart_log_likelihoods_ = restarts
@@ -443,6 +444,21 @@ class GaussianHMM(BaseEstimator):
 
 _MAX_STATES = 1000  # a saved state count beyond this is damage, not a model
 _MAX_FEATURES = 100_000
+
+
+def _check_covariance_type(covariance_type: str, covars: np.ndarray) -> None:
+    """The saved covariances must be of the declared type: a "diag" model stores diagonal
+    matrices, so full ones under covariance_type "diag" are an edit that would change labels."""
+    if covariance_type != "diag":
+        return
+    off = covars * (1.0 - np.eye(covars.shape[1]))[None]
+    if np.any(off != 0):
+        k = int(np.argmax(np.abs(off).reshape(len(covars), -1).max(axis=1)))
+        raise InputError(
+            f"GaussianHMM state: covariance_type is 'diag' but array 'covars' holds full "
+            f"matrices (state {k} has off-diagonal values); the arrays must agree with every "
+            "declared parameter: the file was edited by hand or is damaged"
+        )
 
 
 def _check_fitted_arrays(fitted: dict[str, np.ndarray]) -> None:

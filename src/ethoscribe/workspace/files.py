@@ -16,7 +16,7 @@ import os
 import shutil
 import tempfile
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from contextlib import ExitStack
 from pathlib import Path
 from typing import Any
@@ -179,6 +179,52 @@ def _first_frame(z: Any) -> int:
     return int(value)
 
 
+def declared_size_bound(meta: dict[str, Any]) -> Callable[[str], int]:
+    """The most values each array of a saved model may hold, from the sizes ``model.json``
+    declares, checked before the arrays are loaded.
+
+    No parameter array is larger than states x size x size for the largest declared size
+    (features, keypoints x dims, components, restarts); the change-point segments and boundaries
+    are bounded by the declared training frames.
+    """
+    sizes: list[int] = [1]
+    frames: list[int] = [1]
+
+    def add(value: Any) -> None:
+        if isinstance(value, int) and not isinstance(value, bool) and 0 < value < 10**7:
+            sizes.append(value)
+        elif isinstance(value, (list, tuple)) and len(value) < 10**7:
+            sizes.append(len(value))
+
+    def walk(node: Any, depth: int = 0) -> None:
+        if depth > 6 or not isinstance(node, dict):
+            return
+        for key, value in node.items():
+            if "frames" in key and isinstance(value, int) and not isinstance(value, bool):
+                frames.append(min(max(value, 1), MAX_DECLARED_FRAMES))
+            elif key.startswith("n_") or key in ("keypoints", "keypoints_", "columns_"):
+                add(value)
+            walk(value, depth + 1)
+
+    walk(meta)
+    keypoints, dims = meta.get("keypoints"), meta.get("n_dims")
+    if isinstance(keypoints, list) and isinstance(dims, int) and 0 < dims < 4:
+        sizes.append(len(keypoints) * dims)
+    big = max(sizes)
+    states = meta.get("n_states")
+    states = states if isinstance(states, int) and 0 < states < 10**4 else 1
+    structural, per_frame = states * big * big + 64, max(frames) + 64
+
+    def bound(name: str) -> int:
+        by_frame = name.startswith(("segmenter/boundaries", "segmenter/segments/"))
+        return per_frame if by_frame else structural
+
+    return bound
+
+
+MAX_DECLARED_FRAMES = 200_000_000  # more training frames than any study: damage, not data
+
+
 def load_model(folder: Path) -> BehaviourModel:
     """The model saved in ``folder``; any malformed content is an ``InputError`` naming it.
 
@@ -186,7 +232,7 @@ def load_model(folder: Path) -> BehaviourModel:
     content of the wrong shape or type (a hand-edited or foreign file) is reported here instead
     of surfacing as a bare ``KeyError`` or ``TypeError``.
     """
-    meta, arrays = read_bundle(folder)
+    meta, arrays = read_bundle(folder, declared_size_bound)
     try:
         model = BehaviourModel.from_state(meta, arrays)
     except EthoscribeError as exc:
