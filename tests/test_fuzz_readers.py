@@ -7,7 +7,9 @@ frame numbers, confidence outside [0, 1]. Written as CSV or Parquet, each table 
 reader must either return tracks that satisfy the data model's invariants or raise
 ``InputError`` with a message naming the file. Any other exception is a bug.
 
-CI runs a bounded, derandomised number of examples. For a longer local run::
+CI runs a bounded, derandomised number of examples: 200 per test in the default run, and
+the ``slow`` tests (run in CI's second step) add 1,200 more, with column mappings and time
+units among them. For a longer local run::
 
     ETHOSCRIBE_FUZZ_EXAMPLES=20000 python -m pytest tests/test_fuzz_readers.py -q -s
 
@@ -17,6 +19,7 @@ CI runs a bounded, derandomised number of examples. For a longer local run::
 from __future__ import annotations
 
 import os
+import warnings
 from collections import Counter
 from pathlib import Path
 
@@ -26,11 +29,12 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io import read_manifest, read_tidy, read_wide
 from ethoscribe.pose import PoseTracks
 
 LONG_RUN = "ETHOSCRIBE_FUZZ_EXAMPLES" in os.environ
+SLOW_EXAMPLES = 400  # per slow test: three of them make 1,200 examples beyond the 600 above
 EXAMPLES = int(os.environ.get("ETHOSCRIBE_FUZZ_EXAMPLES", "200"))
 FUZZ = settings(
     max_examples=EXAMPLES,
@@ -39,6 +43,8 @@ FUZZ = settings(
     suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large],
     database=None,
 )
+
+SLOW_FUZZ = settings(FUZZ, max_examples=max(EXAMPLES, SLOW_EXAMPLES))
 
 # Plain names (the round-trip check applies) and odd ones (blank, reserved-looking, unicode).
 PLAIN = st.text(
@@ -61,7 +67,8 @@ GOOD_FPS = 30.0
 def tally():
     counts: Counter = Counter()
     yield counts
-    print(f"\nfuzzed readers ({EXAMPLES} examples per test): {dict(sorted(counts.items()))}")
+    total = sum(counts.values())
+    print(f"\nfuzzed readers ({total} examples): {dict(sorted(counts.items()))}")
 
 
 @pytest.fixture(scope="module")
@@ -215,7 +222,12 @@ def _write(table: pd.DataFrame, path: Path) -> bool:
 
 def _outcome(read, path: Path, truth: tuple | None, tally: Counter, kind: str) -> None:
     try:
-        tracks = read()
+        with warnings.catch_warnings(record=True) as said:
+            warnings.simplefilter("always", InputWarning)
+            tracks = read()
+        if said:  # a warning names the file too (e.g. a column that looks like a confidence)
+            assert all(path.name in str(w.message) for w in said), [str(w.message) for w in said]
+            tally[f"{kind}: warned"] += 1
     except InputError as exc:
         assert truth is None, f"a sound table was refused: {exc}"
         assert path.name in str(exc), str(exc)  # the message names the file
@@ -281,3 +293,55 @@ def test_manifest_reader_gives_a_table_or_an_input_error(cells, header, folder, 
         return
     assert table["session"].is_unique and (table["session"] != "").all()
     tally["manifest: table"] += 1
+
+
+# --- the slow run: more examples, and the reading options of the command line --------------
+ROLES = ("frame", "keypoint", "x", "y", "confidence", "animal")
+
+
+@pytest.mark.slow
+@SLOW_FUZZ
+@given(case=tidy_tables(), suffix=st.sampled_from([".csv", ".parquet"]))
+def test_tidy_reader_long_run(case, suffix, folder, tally):
+    test_tidy_reader_gives_tracks_or_an_input_error.hypothesis.inner_test(
+        case, suffix, folder, tally
+    )
+
+
+@pytest.mark.slow
+@SLOW_FUZZ
+@given(case=wide_tables(), suffix=st.sampled_from([".csv", ".parquet"]))
+def test_wide_reader_long_run(case, suffix, folder, tally):
+    test_wide_reader_gives_tracks_or_an_input_error.hypothesis.inner_test(
+        case, suffix, folder, tally
+    )
+
+
+@pytest.mark.slow
+@SLOW_FUZZ
+@given(
+    case=tidy_tables(),
+    renamed=st.sets(st.sampled_from(ROLES)),
+    time_in_ms=st.booleans(),
+    suffix=st.sampled_from([".csv", ".parquet"]),
+)
+def test_tidy_reader_with_a_column_mapping_and_time_unit(
+    case, renamed, time_in_ms, suffix, folder, tally
+):
+    """Columns under other names, read through ``columns=``, give what the plain names give;
+    frame numbers turned into times in milliseconds give it with ``time_unit="ms"``."""
+    table, fps, truth = case
+    table = table.copy()
+    options: dict = {"fps": fps}
+    if time_in_ms and "frame" in table and pd.api.types.is_integer_dtype(table["frame"]):
+        table["time"] = table.pop("frame") * (1000.0 / GOOD_FPS)
+        options = {"fps": GOOD_FPS if fps is not None else None, "time_unit": "ms"}
+    mapping = {r: f"col {r}" for r in renamed if r in table.columns}
+    table = table.rename(columns={r: c for r, c in mapping.items()})
+    if mapping:
+        options["columns"] = mapping
+    path = folder / f"mapped{suffix}"
+    if not _write(table, path):
+        tally["mapped: unwritable table"] += 1
+        return
+    _outcome(lambda: read_tidy(path, **options), path, truth, tally, "mapped")
