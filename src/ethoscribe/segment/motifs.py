@@ -15,9 +15,9 @@ Clustering: a Gaussian mixture with diagonal covariances on the centred descript
 units; feed descriptions of standardised features). Each segment weighs by its duration, so motifs
 follow the time budget. scikit-learn's ``GaussianMixture`` takes no sample weights (and repeated
 copies of a segment form spurious tight clusters), so :func:`fit_weighted_mixture` runs the same
-EM with weights (start: weighted k-means, k-means++ seeding); with equal weights it matches
-``GaussianMixture`` (tests/test_motifs.py). Weights are scaled to mean 1, so the log-likelihood
-counts segments. The number of motifs is the candidate with the lowest
+EM with weights (start: scikit-learn's weighted k-means from k-means++ seeds); with equal
+weights it matches ``GaussianMixture`` (tests/test_motifs.py). Weights are scaled to mean 1,
+so the log-likelihood counts segments. The number of motifs is the candidate with the lowest
 ``BIC(k) = -2 * sum_i w_i log p(d_i) + (2 * k * n_desc + k - 1) * log(n_segments)``; a count
 leaving a motif with fewer than 2 segments is not eligible, variances have a floor of 0.05, and
 the search stops after 3 counts in a row worse than the best.
@@ -32,6 +32,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from scipy.ndimage import uniform_filter1d
+from sklearn.cluster import KMeans
 
 from ethoscribe.errors import InputError
 
@@ -198,13 +199,9 @@ def _kmeans_start(z: np.ndarray, w: np.ndarray, k: int, rng: np.random.Generator
         d2 = ((z[:, None, :] - np.array(centers)[None]) ** 2).sum(axis=2).min(axis=1)
         p = w * d2
         centers.append(z[rng.choice(len(z), p=p / p.sum())] if p.sum() > 0 else z[0])
-    c = np.array(centers)
-    for _ in range(20):
-        labels = ((z[:, None, :] - c[None]) ** 2).sum(axis=2).argmin(axis=1)
-        onehot = np.eye(k)[labels] * w[:, None]
-        size = onehot.sum(axis=0)
-        c = np.where(size[:, None] > 0, onehot.T @ z / np.maximum(size, 1e-12)[:, None], c)
-    return np.eye(k)[labels]
+    # Lloyd steps by scikit-learn's weighted k-means from these k-means++ centres.
+    km = KMeans(k, init=np.array(centers), n_init=1, max_iter=20, tol=0.0, algorithm="lloyd")
+    return np.eye(k)[km.fit(z, sample_weight=w).labels_]
 
 
 def fit_weighted_mixture(
