@@ -371,7 +371,7 @@ def test_report_fractions_summary_and_figure(scenario):
     _, walk = clean(tracks, swap_pairs=[("left_ear", "right_ear")])
     fig = quality_figure([report, walk.to_frame()])
     assert len(fig.data) == 6
-    assert list(fig.data[-1].x) == ["tiny", "walk"]
+    assert list(fig.data[-1].y) == ["tiny", "walk"]  # sessions as horizontal bars
     assert list(fig.data[0].x) == ["nose", "tail", "left_ear", "right_ear", "tail_base"]
     with pytest.raises(InputError, match="QualityReport"):
         quality_figure([42])

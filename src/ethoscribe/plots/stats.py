@@ -159,6 +159,8 @@ def planned_values_figure(metrics: pd.DataFrame, planned: pd.DataFrame) -> go.Fi
                 row=1, col=k + 1,
             )  # fmt: skip
         fig.update_yaxes(title_text=_axis_title(t["metric"]), rangemode="tozero", row=1, col=k + 1)
+        if t["metric"] == "time_budget":
+            fig.update_yaxes(tickformat=".1~%", row=1, col=k + 1)
     fig.update_layout(
         title={"text": "Planned comparisons: one point per session (dashed: group mean)", "x": 0},
         height=420, margin={"t": 110},
@@ -168,7 +170,7 @@ def planned_values_figure(metrics: pd.DataFrame, planned: pd.DataFrame) -> go.Fi
 
 def _axis_title(metric: str) -> str:
     return {
-        "time_budget": "fraction of valid time",
+        "time_budget": "share of valid time",
         "bout_rate_per_min": "bouts per minute",
         "mean_bout_s": "mean bout (s)",
         "median_bout_s": "median bout (s)",
