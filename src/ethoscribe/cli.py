@@ -324,6 +324,8 @@ def build_parser() -> argparse.ArgumentParser:
         "--seed", type=int, default=0, help="random seed of permutations and bootstraps (default 0)"
     )
 
+    _add_expert_commands(sub)
+
     s = sub.add_parser(
         "simulate",
         help="write simulated example sessions (invented animals)",
@@ -441,6 +443,27 @@ def _reader_options(args: argparse.Namespace) -> dict[str, Any]:
     return out
 
 
+def _add_expert_commands(sub: argparse._SubParsersAction) -> None:
+    a = sub.add_parser("agreement", help="compare the motifs with an expert's coding")
+    a.add_argument("workspace", type=Path, help="folder written by 'ethoscribe discover'")
+    a.add_argument(
+        "expert", type=Path, help="CSV/Parquet coding: session,frame,behaviour or "
+        "session,behaviour,start_s,stop_s",
+    )  # fmt: skip
+    a.add_argument("--out", type=Path, required=True, help="output folder")
+    a.add_argument(
+        "--tolerance-s", type=float, default=0.2,
+        help="how far apart boundaries may be and still match (seconds, default 0.2)",
+    )  # fmt: skip
+    le = sub.add_parser("learn", help="learn an expert's behaviours from coded sessions")
+    le.add_argument("workspace", type=Path, help="folder written by 'ethoscribe discover'")
+    le.add_argument("expert", type=Path, help="CSV/Parquet coding (as for agreement)")
+    le.add_argument(
+        "--no-evaluation", action="store_true", help="skip the leave-one-session-out scores"
+    )
+    le.add_argument("--seed", type=int, default=0)
+
+
 def _add_batch_options(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--jobs",
@@ -525,6 +548,16 @@ def _run(args: argparse.Namespace) -> str:
             planned=args.primary,
         )
         return result
+    if args.command in ("agreement", "learn"):
+        from ethoscribe.workspace import expert
+
+        if args.command == "agreement":
+            result = expert.agreement(args.workspace, args.expert, args.out, args.tolerance_s)
+            return expert.describe_agreement(result, args.out)
+        learned = expert.learn(
+            args.workspace, args.expert, evaluate=not args.no_evaluation, random_state=args.seed
+        )
+        return expert.describe_learning(learned, args.workspace)
     if args.command == "simulate":
         from ethoscribe.simulate import write_example_sessions
 

@@ -18,6 +18,7 @@ from ethoscribe.widgets.common import (
     redraw,
     table_html,
 )
+from ethoscribe.widgets.expert import ExpertSection
 from ethoscribe.widgets.state import WorkbenchState
 from ethoscribe.workspace.report_sections import model_section, quality_section
 
@@ -67,6 +68,8 @@ class StudyPage(LazyDrawing):
         parts += [self._figure(f, "ethoscribe-model") for f in model.figures]
         for caption, table in model.tables:
             parts += [note(html.escape(caption)), w.HTML(table_html(table))]
+        self.expert = ExpertSection(state)
+        parts.append(self.expert.widget)
         return parts
 
     @staticmethod

@@ -12,6 +12,8 @@ This is the only module that knows the folder layout::
     model/             the fitted model (model.json + arrays.npz, no pickle)
     features/          per-session features (npz), used to split motifs
     journal.jsonl      every curation edit, appended; names are derived by replaying it
+    learned/           an expert's behaviours learned by 'ethoscribe learn' (see
+                       ethoscribe.workspace.learned_labels); its labels then fill ``motif``
     .exports-state.json  which journal the ethogram tables reflect (stale after a crash mid-edit)
     .lock, .lock-owner.json  the edit lock and who holds it (see ethoscribe.io.locking)
 
@@ -68,6 +70,7 @@ from ethoscribe.workspace.files import WORKSPACE_FILE as WORKSPACE_FILE
 from ethoscribe.workspace.files import Staging as Staging
 from ethoscribe.workspace.files import jsonable as jsonable
 from ethoscribe.workspace.files import save_features as save_features
+from ethoscribe.workspace.learned_labels import with_learned
 
 FORMAT_VERSION = 1
 CAUTION = (
@@ -355,7 +358,7 @@ class Workspace:
         cur = self.curation()
         features = self.features() if self._needs_features(cur) else None
         with self._replay_errors():
-            return cur.apply(self.state_labels(), features)
+            return with_learned(self.path, cur.apply(self.state_labels(), features))
 
     def exports_current(self) -> bool:
         """Whether the ethogram tables reflect the journal (False after a crash mid-edit)."""
@@ -380,7 +383,7 @@ class Workspace:
                 features = self.features() if self._needs_features(cur) else None
                 with self._replay_errors():
                     labels = cur.apply(self.state_labels(), features)
-                write_ethogram_tables(self.path, labels)
+                write_ethogram_tables(self.path, with_learned(self.path, labels))
                 notes.append("rewrote the ethogram tables, which lagged behind the journal")
         return notes
 
@@ -439,7 +442,7 @@ class Workspace:
             append_journal(self.path / JOURNAL_FILE, record)  # the edit is safe from here on
             with self._replay_errors():
                 named = cur.apply(labels, features)
-            write_ethogram_tables(self.path, named)
+            write_ethogram_tables(self.path, with_learned(self.path, named))
         return record
 
     def min_bout_frames(self) -> int:

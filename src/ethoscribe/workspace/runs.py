@@ -33,6 +33,7 @@ from ethoscribe.workspace.cache import (
 )
 from ethoscribe.workspace.compare import write_ethogram_report
 from ethoscribe.workspace.executor import connect, default_jobs, map_sessions
+from ethoscribe.workspace.expert import carry_learned
 from ethoscribe.workspace.files import load_features, load_model
 from ethoscribe.workspace.fits import fit_digest, fit_or_reuse, ticking
 from ethoscribe.workspace.folder import (
@@ -297,7 +298,9 @@ def label_sessions(
     """Label new sessions with the model of workspace ``source`` (same states, same names).
 
     The curation journal of ``source`` is copied, so the new cohort carries the motif names
-    the scientist gave, including merges and splits. Sessions are read, cleaned and labelled
+    the scientist gave, including merges and splits. A classifier learned from an expert's
+    coding (``ethoscribe learn``) is carried too: ``motif`` then names the expert's behaviours
+    and the discovered motifs stay in ``discovered_motif``. Sessions are read, cleaned and labelled
     one by one (in ``jobs`` processes or on a Dask ``scheduler``), through ``out``'s cache.
     """
     source = as_path(source, "source")
@@ -325,6 +328,7 @@ def label_sessions(
         summary["reading"] = reading_summary(plan)
         tables = _write_workspace(out, table, model, decoded, quality, None, summary, journal)
         ws = Workspace(out)
+        tables = carry_learned(source, ws, locked=True) or tables  # the expert's names
         write_ethogram_report(ws, out / "report.html", tables)
         return ws
 

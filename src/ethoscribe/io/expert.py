@@ -1,0 +1,300 @@
+"""An expert's coding of behaviour, read from CSV or Parquet and checked against the sessions.
+
+Two layouts are read (the columns decide which; other columns are ignored):
+
+- **per frame**: ``session, frame, behaviour`` (optional ``animal``, ``time_s``, ``fps``);
+  frames are 0-based as in the pose files.
+- **bouts**: ``session, behaviour, start_s, stop_s`` (optional ``animal``, ``fps``); a bout
+  covers the frames ``round(start_s * fps)`` up to, not including, ``round(stop_s * fps)``.
+
+Time the file does not cover, and rows whose behaviour is blank, are *not coded*: they are left
+out of every comparison and never become a behaviour of their own. Problems name the file and
+the row (the line of a CSV file, counting the header as line 1; the row number of a Parquet
+file, counting from 1) and say how to fix them.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ethoscribe.errors import InputError
+
+FRAME_COLUMNS = ("session", "frame", "behaviour")
+BOUT_COLUMNS = ("session", "behaviour", "start_s", "stop_s")
+CODED_COLUMNS = ["session", "animal", "frame", "behaviour"]
+
+
+@dataclass(frozen=True)
+class CodedSession:
+    """What the coding is checked against: a session's frame rate, length and animals."""
+
+    fps: float
+    n_frames: int
+    animals: tuple[str, ...] = ()
+
+
+def read_expert_coding(
+    path: str | os.PathLike[str], sessions: Mapping[str, CodedSession]
+) -> pd.DataFrame:
+    """Read an expert's coding and return one row per coded frame.
+
+    Parameters
+    ----------
+    path : CSV or Parquet file, per frame or as bouts (see the module docstring)
+    sessions : ``session name -> CodedSession``; every session of the file must be one of them
+
+    Returns
+    -------
+    DataFrame ``session, animal, frame, behaviour``, sorted, one row per coded frame. ``animal``
+    comes from the file, or is the session's only animal when the file has no such column.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> f = pathlib.Path(tempfile.mkdtemp()) / "coding.csv"
+    >>> _ = f.write_text("session,behaviour,start_s,stop_s\\ns1,rest,0,0.1\\n")
+    >>> read_expert_coding(f, {"s1": CodedSession(30.0, 300, ("animal0",))})["frame"].tolist()
+    [0, 1, 2]
+    """
+    path = Path(path)
+    table = _read(path)
+    line0 = 2 if path.suffix.lower() != ".parquet" else 1
+    if set(FRAME_COLUMNS) <= set(table.columns):
+        return _per_frame(path, table, sessions, line0)
+    if set(BOUT_COLUMNS) <= set(table.columns):
+        return _bouts(path, table, sessions, line0)
+    msg = (
+        f"{path}: an expert coding needs the columns {', '.join(FRAME_COLUMNS)} (one row per "
+        f"frame) or {', '.join(BOUT_COLUMNS)} (one row per bout); found {list(table.columns)}"
+    )
+    raise InputError(msg)
+
+
+def _read(path: Path) -> pd.DataFrame:
+    if not path.is_file():
+        raise InputError(f"{path}: no such expert coding file")
+    suffix = path.suffix.lower()
+    try:
+        if suffix == ".parquet":
+            table = pd.read_parquet(path)
+        elif suffix in (".csv", ".txt", ".tsv"):
+            table = pd.read_csv(path, sep="\t" if suffix == ".tsv" else ",", dtype=str)
+        else:
+            raise InputError(f"{path}: an expert coding is read from .csv or .parquet files")
+    except InputError:
+        raise
+    except (OSError, ValueError) as exc:
+        raise InputError(f"{path}: cannot be read as a table ({exc})") from None
+    table.columns = [str(c).strip() for c in table.columns]
+    return table.reset_index(drop=True)
+
+
+def _text(table: pd.DataFrame, column: str) -> pd.Series:
+    values = table[column]
+    blank = values.isna()
+    return values.astype(str).str.strip().where(~blank, "")
+
+
+def _numbers(path: Path, table: pd.DataFrame, column: str, line0: int) -> np.ndarray:
+    values = pd.to_numeric(table[column], errors="coerce").to_numpy(float)
+    given = table[column].notna().to_numpy() & (_text(table, column) != "").to_numpy()
+    bad = np.flatnonzero(given & ~np.isfinite(values)) if len(values) else []
+    if len(bad):
+        i = int(bad[0])
+        found = table[column].iloc[i]
+        msg = f"{path}: row {i + line0}: column '{column}' must be a number, found {found!r}"
+        raise InputError(msg)
+    return values
+
+
+def _sessions_and_animals(
+    path: Path, table: pd.DataFrame, sessions: Mapping[str, CodedSession], line0: int
+) -> tuple[pd.Series, pd.Series]:
+    names = _text(table, "session")
+    unknown = ~names.isin(list(sessions))
+    if unknown.any():
+        i = int(np.flatnonzero(unknown.to_numpy())[0])
+        known = ", ".join(sorted(sessions)[:8]) + (" ..." if len(sessions) > 8 else "")
+        msg = (
+            f"{path}: row {i + line0}: session {names.iloc[i]!r} is not in the workspace "
+            f"(its sessions: {known}); fix the name or code only the workspace's sessions"
+        )
+        raise InputError(msg)
+    if "animal" in table.columns:
+        animals = _text(table, "animal")
+        for i, (s, a) in enumerate(zip(names, animals, strict=True)):
+            known_animals = sessions[s].animals
+            if known_animals and a not in known_animals:
+                msg = (
+                    f"{path}: row {i + line0}: animal {a!r} is not in session {s!r} (its "
+                    f"animals: {', '.join(known_animals)})"
+                )
+                raise InputError(msg)
+        return names, animals
+    animals = []
+    for i, s in enumerate(names):
+        known_animals = sessions[s].animals
+        if len(known_animals) > 1:
+            msg = (
+                f"{path}: row {i + line0}: session {s!r} has several animals "
+                f"({', '.join(known_animals)}); add an 'animal' column saying whose behaviour "
+                "each row codes"
+            )
+            raise InputError(msg)
+        animals.append(known_animals[0] if known_animals else "")
+    return names, pd.Series(animals, index=table.index, dtype=object)
+
+
+def _check_fps(
+    path: Path, table: pd.DataFrame, names: pd.Series, sessions: Mapping, line0: int
+) -> None:
+    if "fps" not in table.columns:
+        return
+    fps = _numbers(path, table, "fps", line0)
+    expected = np.array([sessions[s].fps for s in names], dtype=float)
+    bad = np.flatnonzero(np.isfinite(fps) & (np.abs(fps - expected) > 1e-6 * expected))
+    if len(bad):
+        i = int(bad[0])
+        msg = (
+            f"{path}: row {i + line0}: coded at {fps[i]:g} fps but session {names.iloc[i]!r} "
+            f"runs at {expected[i]:g} fps; convert the coding to the session's frame rate"
+        )
+        raise InputError(msg)
+
+
+def _per_frame(
+    path: Path, table: pd.DataFrame, sessions: Mapping[str, CodedSession], line0: int
+) -> pd.DataFrame:
+    names, animals = _sessions_and_animals(path, table, sessions, line0)
+    _check_fps(path, table, names, sessions, line0)
+    frame = _numbers(path, table, "frame", line0)
+    fps = np.array([sessions[s].fps for s in names], dtype=float)
+    n_frames = np.array([sessions[s].n_frames for s in names], dtype=np.int64)
+    bad = np.flatnonzero(~np.isfinite(frame) | (frame != np.round(frame)))
+    if len(bad):
+        i = int(bad[0])
+        found = table["frame"].iloc[i]
+        msg = f"{path}: row {i + line0}: 'frame' must be a whole frame number, found {found!r}"
+        raise InputError(msg)
+    frame = frame.astype(np.int64)
+    bad = np.flatnonzero((frame < 0) | (frame >= n_frames))
+    if len(bad):
+        i = int(bad[0])
+        msg = (
+            f"{path}: row {i + line0}: frame {frame[i]} is outside session {names.iloc[i]!r} "
+            f"(frames 0 to {n_frames[i] - 1} at {fps[i]:g} fps); was it coded at another frame "
+            "rate, or from frame 1?"
+        )
+        raise InputError(msg)
+    if "time_s" in table.columns:
+        t = _numbers(path, table, "time_s", line0)
+        bad = np.flatnonzero(np.isfinite(t) & (np.abs(t - frame / fps) > 0.5 / fps))
+        if len(bad):
+            i = int(bad[0])
+            msg = (
+                f"{path}: row {i + line0}: time_s {t[i]:g} does not match frame {frame[i]} at "
+                f"the session's {fps[i]:g} fps ({frame[i] / fps[i]:g} s); the coding was made at "
+                "another frame rate: convert it first"
+            )
+            raise InputError(msg)
+    coded = pd.DataFrame(
+        {
+            "session": names,
+            "animal": animals,
+            "frame": frame,
+            "behaviour": _text(table, "behaviour"),
+        }
+    )
+    coded["row"] = np.arange(len(coded)) + line0
+    dup = coded.duplicated(["session", "animal", "frame"], keep=False)
+    if dup.any():
+        rows = coded.loc[dup].sort_values(["session", "animal", "frame", "row"])
+        first = rows.iloc[0]
+        other = rows.iloc[1]
+        msg = (
+            f"{path}: rows {first['row']} and {other['row']}: frame {first['frame']} of session "
+            f"{first['session']!r} is coded twice; keep one row per frame"
+        )
+        raise InputError(msg)
+    return _finish(coded[coded["behaviour"] != ""])
+
+
+def _bouts(
+    path: Path, table: pd.DataFrame, sessions: Mapping[str, CodedSession], line0: int
+) -> pd.DataFrame:
+    names, animals = _sessions_and_animals(path, table, sessions, line0)
+    _check_fps(path, table, names, sessions, line0)
+    start, stop = (_numbers(path, table, c, line0) for c in ("start_s", "stop_s"))
+    fps = np.array([sessions[s].fps for s in names], dtype=float)
+    n_frames = np.array([sessions[s].n_frames for s in names], dtype=np.int64)
+    behaviour = _text(table, "behaviour")
+    for i in range(len(table)):
+        where = f"{path}: row {i + line0}"
+        if not (np.isfinite(start[i]) and np.isfinite(stop[i])):
+            raise InputError(f"{where}: a bout needs both start_s and stop_s")
+        if stop[i] <= start[i]:
+            raise InputError(f"{where}: stop_s {stop[i]:g} is not after start_s {start[i]:g}")
+        duration = n_frames[i] / fps[i]
+        if start[i] < -0.5 / fps[i] or stop[i] > duration + 0.5 / fps[i]:
+            msg = (
+                f"{where}: bout {start[i]:g}-{stop[i]:g} s is outside session "
+                f"{names.iloc[i]!r} (0-{duration:g} s at {fps[i]:g} fps); was it coded at "
+                "another frame rate, or on another recording?"
+            )
+            raise InputError(msg)
+    bouts = pd.DataFrame(
+        {
+            "session": names,
+            "animal": animals,
+            "behaviour": behaviour,
+            "start": np.clip(np.round(start * fps), 0, n_frames).astype(np.int64),
+            "stop": np.clip(np.round(stop * fps), 0, n_frames).astype(np.int64),
+            "row": np.arange(len(table)) + line0,
+        }
+    )
+    bouts = bouts.sort_values(["session", "animal", "start", "row"], kind="stable")
+    same = (bouts["session"] == bouts["session"].shift()) & (
+        bouts["animal"] == bouts["animal"].shift()
+    )
+    overlap = same & (bouts["start"] < bouts["stop"].shift())
+    if overlap.any():
+        j = int(np.flatnonzero(overlap.to_numpy())[0])
+        a, b = bouts.iloc[j - 1], bouts.iloc[j]
+        msg = (
+            f"{path}: rows {a['row']} and {b['row']} overlap in session {a['session']!r} "
+            f"({a['behaviour']} until frame {a['stop']}, {b['behaviour']} from frame "
+            f"{b['start']}); one frame has one behaviour: shorten one of the bouts"
+        )
+        raise InputError(msg)
+    bouts = bouts[(bouts["behaviour"] != "") & (bouts["stop"] > bouts["start"])]
+    lengths = (bouts["stop"] - bouts["start"]).to_numpy()
+    coded = pd.DataFrame(
+        {
+            "session": np.repeat(bouts["session"].to_numpy(object), lengths),
+            "animal": np.repeat(bouts["animal"].to_numpy(object), lengths),
+            "frame": _ranges(bouts["start"].to_numpy(), lengths),
+            "behaviour": np.repeat(bouts["behaviour"].to_numpy(object), lengths),
+        }
+    )
+    return _finish(coded)
+
+
+def _ranges(starts: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """Concatenated ``arange(start, start + length)`` for every bout."""
+    if not len(lengths):
+        return np.zeros(0, dtype=np.int64)
+    offsets = np.repeat(starts - np.cumsum(lengths) + lengths, lengths)
+    return (np.arange(int(lengths.sum())) + offsets).astype(np.int64)
+
+
+def _finish(coded: pd.DataFrame) -> pd.DataFrame:
+    out = coded[CODED_COLUMNS].sort_values(["session", "animal", "frame"], kind="stable")
+    return out.reset_index(drop=True).astype(
+        {"session": str, "animal": str, "behaviour": str, "frame": np.int64}
+    )

@@ -1,0 +1,192 @@
+"""Reading an expert's coding (per frame or bouts), and the agreement figures against
+scikit-learn, scipy and ruptures."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from ruptures.metrics import precision_recall
+from scipy.optimize import linear_sum_assignment
+from sklearn.metrics import adjusted_rand_score, normalized_mutual_info_score
+from sklearn.metrics.cluster import contingency_matrix
+
+from ethoscribe.errors import InputError
+from ethoscribe.io.expert import CodedSession, read_expert_coding
+from ethoscribe.segment.expert_agreement import UNSCORED, expert_agreement
+
+SESSIONS = {
+    "s1": CodedSession(30.0, 300, ("animal0",)),
+    "s2": CodedSession(30.0, 150, ("animal0",)),
+}
+
+
+def _write(tmp_path, text, name="coding.csv"):
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+def test_bouts_become_frames_and_uncoded_time_is_left_out(tmp_path):
+    path = _write(
+        tmp_path,
+        "session,behaviour,start_s,stop_s\ns1,rest,0,1\ns1,walk,2,2.5\ns2,rest,0.5,1\n",
+    )
+    coded = read_expert_coding(path, SESSIONS)
+    s1 = coded[coded["session"] == "s1"]
+    assert s1["frame"].tolist() == list(range(30)) + list(range(60, 75))
+    assert set(coded["behaviour"]) == {"rest", "walk"}  # no "not coded" behaviour
+    assert (coded["animal"] == "animal0").all()
+    assert coded[coded["session"] == "s2"]["frame"].tolist() == list(range(15, 30))
+
+
+def test_per_frame_coding_and_parquet(tmp_path):
+    table = pd.DataFrame(
+        {"session": ["s1"] * 4, "frame": [0, 1, 2, 5], "behaviour": ["a", "a", None, "b"]}
+    )
+    table.to_parquet(tmp_path / "c.parquet")
+    coded = read_expert_coding(tmp_path / "c.parquet", SESSIONS)
+    assert coded["frame"].tolist() == [0, 1, 5]  # the blank row is "not coded"
+    assert coded["behaviour"].tolist() == ["a", "a", "b"]
+
+
+def test_bouts_and_frames_layouts_agree_on_the_example_truth():
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1] / "example_sessions" / "truth"
+    frames = pd.read_parquet(root / "frames.parquet")
+    frames = frames[frames["session"].isin(["session_01", "session_02"])]
+    bouts = pd.read_csv(root / "bouts.csv")
+    bouts = bouts[bouts["session"].isin(["session_01", "session_02"])]
+    known = {s: CodedSession(30.0, 9000, ("animal0",)) for s in ["session_01", "session_02"]}
+    with pytest.MonkeyPatch.context() as mp:
+        import tempfile
+
+        folder = Path(tempfile.mkdtemp())
+        mp.chdir(folder)
+        frames.to_parquet("frames.parquet")
+        bouts.assign(stop_s=bouts["start_s"] + bouts["duration_s"]).to_csv("bouts.csv")
+        a = read_expert_coding("frames.parquet", known)
+        b = read_expert_coding("bouts.csv", known)
+    pd.testing.assert_frame_equal(a, b)
+    assert len(a) == 18000
+
+
+@pytest.mark.parametrize(
+    ("text", "message"),
+    [
+        ("session,behaviour,start_s,stop_s\ns1,a,0,2\ns1,b,1.5,3\n", "rows 2 and 3 overlap"),
+        (
+            "session,behaviour,start_s,stop_s\ns1,a,0,2\ns1,b,9,12\n",
+            "row 3: bout 9-12 s is outside",
+        ),
+        ("session,behaviour,start_s,stop_s\ns1,a,0,2\ns9,b,0,1\n", "row 3: session 's9'"),
+        ("session,behaviour,start_s,stop_s\ns1,a,2,1\n", "row 2: stop_s 1 is not after"),
+        ("session,behaviour,start_s,stop_s,fps\ns1,a,0,1,25\n", "row 2: coded at 25 fps"),
+        ("session,frame,behaviour\ns1,0,a\ns1,300,a\n", "row 3: frame 300 is outside"),
+        ("session,frame,behaviour\ns1,0,a\ns1,0,b\n", "rows 2 and 3: frame 0"),
+        ("session,frame,behaviour,time_s\ns1,10,a,0.4\n", "row 2: time_s 0.4 does not match"),
+        ("session,frame,behaviour\ns1,x,a\n", "row 2: column 'frame' must be a number"),
+        ("session,animal,frame,behaviour\ns1,mouse,0,a\n", "row 2: animal 'mouse'"),
+        ("who,what\n1,2\n", "needs the columns"),
+    ],
+)
+def test_clear_errors_name_the_row(tmp_path, text, message):
+    with pytest.raises(InputError, match=message):
+        read_expert_coding(_write(tmp_path, text), SESSIONS)
+
+
+def test_several_animals_need_an_animal_column(tmp_path):
+    pairs = {"s1": CodedSession(30.0, 300, ("animal0", "animal1"))}
+    with pytest.raises(InputError, match="add an 'animal' column"):
+        read_expert_coding(_write(tmp_path, "session,frame,behaviour\ns1,0,a\n"), pairs)
+
+
+# --- agreement ----------------------------------------------------------------------------
+def _frames(seed=0, n=3000):
+    """Two sessions of blocky expert behaviours and motifs that split, merge and miss some."""
+    rng = np.random.default_rng(seed)
+    parts = []
+    for session, frames in (("s1", n), ("s2", n // 2)):
+        lengths = rng.integers(20, 120, frames // 20)
+        behaviour = np.repeat(rng.integers(0, 4, len(lengths)), lengths)[:frames]
+        motif = behaviour.copy()
+        motif[(behaviour == 1) & (rng.random(frames) < 0.3)] = 4  # walking split in two
+        motif[behaviour == 3] = 2  # two behaviours in one motif
+        shift = rng.integers(-3, 4)
+        motif = np.roll(motif, shift)  # boundaries a few frames off
+        names = np.array([f"m{k}" for k in range(5)], dtype=object)[motif]
+        names[rng.random(frames) < 0.03] = ""  # unscored frames
+        keep = np.ones(frames, bool)
+        keep[frames // 3 : frames // 3 + 200] = False  # a stretch the expert did not code
+        parts.append(
+            pd.DataFrame(
+                {
+                    "session": session,
+                    "animal": "a",
+                    "frame": np.arange(frames),
+                    "behaviour": np.array(list("wxyz"), dtype=object)[behaviour],
+                    "motif": names,
+                    "fps": 30.0,
+                }
+            )[keep]
+        )
+    return pd.concat(parts, ignore_index=True)
+
+
+def test_agreement_equals_reference_libraries():
+    frames = _frames()
+    result = expert_agreement(frames, tolerance_s=0.2).summary
+    b = frames["behaviour"].to_numpy()
+    m = np.where(frames["motif"] == "", UNSCORED, frames["motif"])
+    # scikit-learn adjusted_rand_score / normalized_mutual_info_score, unscored as a label
+    assert result["ari"] == pytest.approx(adjusted_rand_score(b, m), abs=1e-12)
+    assert result["nmi"] == pytest.approx(normalized_mutual_info_score(b, m), abs=1e-12)
+    # Hungarian one-to-one (scipy linear_sum_assignment) on the scored motifs only
+    scored = m != UNSCORED
+    table = contingency_matrix(b, m)
+    motif_names = np.unique(m)
+    cols_scored = motif_names != UNSCORED
+    r, c = linear_sum_assignment(table[:, cols_scored], maximize=True)
+    assert result["matched_accuracy"] == pytest.approx(
+        table[:, cols_scored][r, c].sum() / len(b), abs=1e-12
+    )
+    # purity: majority behaviour of each scored motif (Manning et al. 2008, ch. 16.3)
+    purity = sum(pd.Series(b[m == k]).value_counts().iloc[0] for k in np.unique(m[scored]))
+    assert result["purity"] == pytest.approx(purity / len(b), abs=1e-12)
+    assert result["frames_unscored"] == int((~scored).sum())
+    assert result["frames_compared"] == len(frames)
+    # boundaries: ruptures.metrics.precision_recall per stretch of coded frames (its margin
+    # is exclusive: |t - p| < margin, so our 6 frames inclusive is its 7), matches summed
+    tp = n_true = n_pred = 0
+    for _, g in frames.groupby("session"):
+        cuts = np.flatnonzero(np.diff(g["frame"].to_numpy()) != 1) + 1
+        for a, z in zip(np.r_[0, cuts], np.r_[cuts, len(g)], strict=True):
+            bb = g["behaviour"].to_numpy()[a:z]
+            mm = g["motif"].replace("", UNSCORED).to_numpy()[a:z]
+            true = [*list(np.flatnonzero(bb[1:] != bb[:-1]) + 1), len(bb)]
+            pred = [*list(np.flatnonzero(mm[1:] != mm[:-1]) + 1), len(bb)]
+            if len(true) > 1 and len(pred) > 1:
+                p, rc = precision_recall(true, pred, margin=7)
+                tp += round(p * (len(pred) - 1))
+                assert round(p * (len(pred) - 1)) == pytest.approx(rc * (len(true) - 1))
+            n_true, n_pred = n_true + len(true) - 1, n_pred + len(pred) - 1
+    assert result["precision"] == pytest.approx(tp / n_pred)
+    assert result["recall"] == pytest.approx(tp / n_true)
+
+
+def test_per_behaviour_table_says_which_motifs_to_merge():
+    result = expert_agreement(_frames())
+    per = result.per_behaviour.set_index("behaviour")
+    assert per.loc["x", "motifs_sharing"] == "m1;m4"  # the split behaviour
+    assert per.loc["x", "merged_f1"] > per.loc["x", "best_f1"]
+    conf = result.confusion
+    assert conf["frames"].sum() == result.summary["frames_compared"]
+    # seconds are frames / fps
+    assert np.allclose(conf["seconds"], conf["frames"] / 30.0)
+    assert result.matrix.columns[-1] == UNSCORED
+
+
+def test_agreement_refuses_nothing_to_compare():
+    with pytest.raises(InputError, match="no coded frame"):
+        expert_agreement(_frames().iloc[:0])

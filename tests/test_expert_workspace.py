@@ -1,0 +1,124 @@
+"""Expert coding end to end on trimmed example sessions (simulated animals, their truth as the
+"expert"): agreement files equal to an independent computation, learn, label a new cohort."""
+
+from __future__ import annotations
+
+import json
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.optimize import linear_sum_assignment
+from sklearn.metrics import adjusted_rand_score, normalized_mutual_info_score
+from sklearn.metrics.cluster import contingency_matrix
+
+from _example_study import EXAMPLES, trimmed_study
+from ethoscribe.cli import main
+from ethoscribe.io.bundle import read_bundle
+from ethoscribe.workspace import Workspace, discover, expert, label_sessions
+
+SESSIONS = ["session_01", "session_02", "session_09"]
+N_FRAMES = 1800  # one minute of each
+
+
+@pytest.fixture(scope="module")
+def study(tmp_path_factory):
+    root = tmp_path_factory.mktemp("expert")
+    data = trimmed_study(root / "data", SESSIONS, N_FRAMES)
+    ws = discover(
+        [], root / "ws", manifest=data / "manifest.csv", states=5, progress=False,
+        stability=False, seed=0,
+    )  # fmt: skip
+    truth = pd.read_parquet(EXAMPLES / "truth" / "frames.parquet")
+    truth = truth[truth["session"].isin(SESSIONS) & (truth["frame"] < N_FRAMES)]
+    truth = truth.astype({"session": str, "animal": str, "behaviour": str})
+    truth.to_csv(root / "truth.csv", index=False)
+    coded = truth[truth["session"].isin(SESSIONS[:2])]
+    coded.to_csv(root / "coded.csv", index=False)
+    return {"root": root, "data": data, "ws": ws, "truth": truth}
+
+
+def test_agreement_files_equal_an_independent_computation(study):
+    out = study["root"] / "agreement"
+    main([
+        "agreement", str(study["ws"].path), str(study["root"] / "truth.csv"), "--out", str(out),
+    ])  # fmt: skip
+    record = json.loads((out / "agreement.json").read_text())
+    labels = pd.read_csv(
+        study["ws"].path / "labels.csv", dtype={"motif": str}, keep_default_na=False
+    )
+    both = study["truth"].merge(labels, on=["session", "animal", "frame"])
+    b = both["behaviour"].to_numpy()
+    m = np.where(both["motif"] == "", "(unscored)", both["motif"])
+    # reference: scikit-learn adjusted_rand_score / normalized_mutual_info_score
+    assert record["ari"] == pytest.approx(adjusted_rand_score(b, m), abs=1e-12)
+    assert record["nmi"] == pytest.approx(normalized_mutual_info_score(b, m), abs=1e-12)
+    # reference: scipy linear_sum_assignment on the scored motifs' contingency table
+    table = contingency_matrix(b, m)
+    scored = np.unique(m) != "(unscored)"
+    r, c = linear_sum_assignment(table[:, scored], maximize=True)
+    assert record["matched_accuracy"] == pytest.approx(table[:, scored][r, c].sum() / len(b))
+    assert record["frames_compared"] == len(study["truth"])
+    assert record["frames_unscored"] == int((~np.isin(m, np.unique(m)[scored])).sum())
+    confusion = pd.read_csv(out / "confusion.csv")
+    assert confusion["frames"].sum() == len(b)
+    assert np.allclose(confusion["seconds"], confusion["frames"] / 30.0)
+    per = pd.read_csv(out / "per_behaviour.csv")
+    assert set(per["behaviour"]) == set(b)
+    assert "plotly" in (out / "report.html").read_text()
+
+
+def test_learn_then_label_a_new_cohort(study, tmp_path):
+    ws: Workspace = study["ws"]
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = expert.learn(ws, study["root"] / "coded.csv", max_iter=40)
+    # one minute per session: some behaviours have few bouts, and the learner says so
+    assert any("coded bouts" in str(w.message) for w in caught)
+    assert result.evaluation["coded_sessions"] == SESSIONS[:2]
+    assert 0.0 <= result.evaluation["accuracy"] <= 1.0
+    assert {"precision", "recall", "f1", "coded_seconds", "coded_bouts"} <= set(
+        result.per_behaviour.columns
+    )
+    meta, arrays = read_bundle(ws.path / "learned" / "classifier")
+    assert meta["kind"] == "ethoscribe.BehaviourClassifier"
+    assert all(not a.dtype.hasobject for a in arrays.values())
+    labels = ws.labels()
+    assert {"discovered_motif", "discovered_probability"} <= set(labels.columns)
+    assert set(labels["motif"]) - {""} <= set(study["truth"]["behaviour"])
+    on_disk = pd.read_csv(ws.path / "labels.csv", keep_default_na=False)
+    assert set(on_disk["motif"]) - {""} <= set(study["truth"]["behaviour"])
+    bouts = pd.read_csv(ws.path / "bouts.csv")
+    assert set(bouts["motif"]) <= set(study["truth"]["behaviour"])
+    journal = (ws.path / "learned" / "journal.jsonl").read_text().splitlines()
+    assert json.loads(journal[-1])["op"] == "learn"
+    suggested = expert.uncertain_bouts(ws, 5)
+    assert len(suggested) == 5 and suggested["mean_probability"].is_monotonic_increasing
+    # the unseen session: learned labels beat chance by far on it
+    truth = study["truth"]
+    unseen = truth[truth["session"] == SESSIONS[2]].merge(labels, on=["session", "animal", "frame"])
+    assert (unseen["behaviour"] == unseen["motif"]).mean() > 0.6
+
+    new = label_sessions(
+        ws.path, [], tmp_path / "cohort", manifest=study["data"] / "manifest.csv", progress=False
+    )
+    cohort = new.labels()
+    assert set(cohort["motif"]) - {""} <= set(study["truth"]["behaviour"])
+    assert "discovered_motif" in cohort.columns
+    same = cohort.merge(labels, on=["session", "animal", "frame"], suffixes=("", "_src"))
+    assert (same["motif"] == same["motif_src"]).all()  # same classifier, same features
+    # a curation edit keeps the learned names in the tables
+    motif = str(ws.curation().motifs[0])
+    ws.rename_motif(motif, "renamed")
+    after = pd.read_csv(ws.path / "labels.csv", keep_default_na=False)
+    assert set(after["motif"]) - {""} <= set(study["truth"]["behaviour"])
+    assert "renamed" in set(after["discovered_motif"])
+
+
+def test_learn_command_line_and_bad_coding(study, tmp_path, capsys):
+    bad = tmp_path / "bad.csv"
+    bad.write_text("session,behaviour,start_s,stop_s\nsession_77,rest,0,1\n")
+    assert main(["learn", str(study["ws"].path), str(bad)]) == 2
+    assert "row 2: session 'session_77'" in capsys.readouterr().err
+    assert main(["agreement", str(study["ws"].path), str(bad), "--out", str(tmp_path / "a")]) == 2
