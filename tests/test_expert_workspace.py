@@ -25,6 +25,7 @@ N_FRAMES = 1800  # one minute of each
 @pytest.fixture(scope="module")
 def study(tmp_path_factory):
     root = tmp_path_factory.mktemp("expert")
+    (root / "data").mkdir()
     data = trimmed_study(root / "data", SESSIONS, N_FRAMES)
     ws = discover(
         [], root / "ws", manifest=data / "manifest.csv", states=5, progress=False,

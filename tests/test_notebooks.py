@@ -16,8 +16,9 @@ ROOT = Path(__file__).resolve().parents[1]
 NOTEBOOKS = sorted((ROOT / "notebooks").glob("*.ipynb"))
 
 
-def test_the_three_notebooks_exist_without_outputs():
+def test_the_notebooks_exist_without_outputs():
     assert [p.name for p in NOTEBOOKS] == [
+        "expert_coding.ipynb",
         "group_comparison.ipynb",
         "new_cohort.ipynb",
         "quickstart.ipynb",

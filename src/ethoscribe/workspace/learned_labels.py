@@ -71,3 +71,14 @@ def with_learned(folder: str | Path, named: pd.DataFrame) -> pd.DataFrame:
     result["motif"] = behaviour
     result["probability"] = out["_learned_probability"].to_numpy(float)
     return result
+
+
+def retire_learned(folder: str | Path, stamp: str) -> Path | None:
+    """Move ``learned/`` aside (``learned-before-STAMP``) after a run that made new states: the
+    classifier learned from the old features no longer applies. Returns where it went."""
+    learned = Path(folder) / LEARNED_FOLDER
+    if not learned.is_dir():
+        return None
+    target = Path(folder) / f"{LEARNED_FOLDER}-before-{stamp}"
+    learned.replace(target)
+    return target

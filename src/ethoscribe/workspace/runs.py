@@ -52,6 +52,7 @@ from ethoscribe.workspace.folder import (
     versions,
     write_ethogram_tables,
 )
+from ethoscribe.workspace.learned_labels import retire_learned
 from ethoscribe.workspace.reading import (
     as_path,
     as_paths,
@@ -178,6 +179,7 @@ def discover(
         summary["cleaning"] = cleaning_summary(cleaning, used, table)
         summary["reading"] = reading_summary(plan)
         tables = _write_workspace(out, table, model, decoded, quality, report, summary)
+        retire_learned(out, now().replace(":", ""))  # learned from the old states' features
         ws = Workspace(out)
         write_ethogram_report(ws, out / "report.html", tables)
         return ws
@@ -327,6 +329,7 @@ def label_sessions(
         summary["cleaning"] = cleaning_summary(cleaning, used, table)
         summary["reading"] = reading_summary(plan)
         tables = _write_workspace(out, table, model, decoded, quality, None, summary, journal)
+        retire_learned(out, now().replace(":", ""))  # the source's classifier, if any, follows
         ws = Workspace(out)
         tables = carry_learned(source, ws, locked=True) or tables  # the expert's names
         write_ethogram_report(ws, out / "report.html", tables)
