@@ -25,7 +25,8 @@ from ethoscribe import __version__
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_kernels import forward_backward_log, viterbi_log
 from ethoscribe.segment._trees import TreeEnsemble
-from ethoscribe.segment.base import check_fitted, is_real
+from ethoscribe.checks import is_real
+from ethoscribe.segment.inputs import check_fitted
 from ethoscribe.segment.postprocess import enforce_min_bout, runs
 
 FORMAT_VERSION = 1
