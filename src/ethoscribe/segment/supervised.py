@@ -22,10 +22,10 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from ethoscribe import __version__
+from ethoscribe.checks import is_real
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_kernels import forward_backward_log, viterbi_log
 from ethoscribe.segment._trees import TreeEnsemble
-from ethoscribe.checks import is_real
 from ethoscribe.segment.inputs import check_fitted
 from ethoscribe.segment.postprocess import enforce_min_bout, runs
 
