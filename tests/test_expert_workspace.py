@@ -123,3 +123,23 @@ def test_learn_command_line_and_bad_coding(study, tmp_path, capsys):
     assert main(["learn", str(study["ws"].path), str(bad)]) == 2
     assert "row 2: session 'session_77'" in capsys.readouterr().err
     assert main(["agreement", str(study["ws"].path), str(bad), "--out", str(tmp_path / "a")]) == 2
+
+
+def test_workbench_expert_section(study):
+    """The study page's expert section (runs after the learning test above, in file order)."""
+    from ethoscribe.widgets.expert import N_SUGGESTED, ExpertSection
+    from ethoscribe.widgets.state import WorkbenchState
+
+    state = WorkbenchState(study["ws"].path, write_behind=False)
+    section = ExpertSection(state)
+    section.coding.value = str(study["root"] / "truth.csv")
+    section.check_agreement()
+    assert "ARI" in section.agreement.children[0].value
+    assert (study["ws"].path / "agreement" / "agreement.json").is_file()
+    assert "Learned behaviours" in section.learned.value
+    assert len(section.pick.options) == N_SUGGESTED
+    section.pick.value = 1
+    assert "No video" in section.frames.children[0].value
+    section.coding.value = str(study["root"] / "missing.csv")
+    section.agree_button.click()  # a bad path becomes a message, not a traceback
+    assert state.message[0] == "error" and "missing.csv" in state.message[1]

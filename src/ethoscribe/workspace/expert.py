@@ -23,8 +23,7 @@ import pandas as pd
 from ethoscribe.errors import InputError, WorkspaceError
 from ethoscribe.ethogram import bout_table
 from ethoscribe.features import FeatureSet
-from ethoscribe.io._atomic import atomic_write_json, atomic_write_text, write_table
-from ethoscribe.io._safe import read_json
+from ethoscribe.io import atomic_write_json, atomic_write_text, read_json, write_table
 from ethoscribe.io.bundle import read_bundle, write_bundle
 from ethoscribe.io.expert import CodedSession, read_expert_coding
 from ethoscribe.plots.agreement import confusion_heatmap
