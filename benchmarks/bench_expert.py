@@ -93,7 +93,7 @@ def main(argv: list[str] | None = None) -> int:
                      "fit_s": fit_s})  # fmt: skip
         print(f"coded {k}: accuracy {acc:.3f}, macro F1 {macro:.3f} ({fit_s:.1f} s)", flush=True)
     curve = pd.DataFrame(rows)
-    print(curve.round(3).to_markdown(index=False))
+    print(curve.round(3).to_string(index=False))
     return 0
 
 
