@@ -143,13 +143,19 @@ def test_transform_one_featureset_per_animal_and_invalid_frames_kept():
     assert not first.valid[200] and np.isnan(first.values[200]).all()
     assert np.isfinite(first.values[first.valid]).all()
     assert first.valid.sum() > 380
-    assert not sets[1].valid[200]  # its partner's features (social) are undefined there
+    # Its partner's position (social features) is undefined there: the animal's own features
+    # still count, the social ones take the fitted mean (0 after standardising).
+    assert sets[1].valid[200]
+    assert (sets[1].values[200, -8:] == 0).all() and np.isfinite(sets[1].values[200]).all()
     alone = FeaturePipeline(social=False).fit_transform([tracks])
     assert alone[1].valid[200] and not alone[0].valid[200]
     assert "log_dist_to_nearest_cm" in pipe.columns_ and "facing_nearest_cos" in pipe.columns_
     again = pipe.transform(tracks)
     np.testing.assert_array_equal(again[0].values, first.values)
-    stacked = np.vstack([f.values[f.valid] for f in sets])
+    # Standardised over the fitted frames: those with every feature measured (frames whose
+    # partner was missing carry the social features' fitted mean, exactly 0, and were not fitted).
+    measured = [f.valid & ~(f.values[:, -8:] == 0).all(1) for f in sets]
+    stacked = np.vstack([f.values[m] for f, m in zip(sets, measured, strict=True)])
     np.testing.assert_allclose(stacked.mean(0), 0.0, atol=1e-9)  # standardised over fit data
     np.testing.assert_allclose(stacked.std(0), 1.0, atol=1e-9)
     frame = first.to_frame()
@@ -267,7 +273,9 @@ def test_stream_reproduces_causal_transform(align):
         np.testing.assert_array_equal(np.isnan(rows[a]), np.isnan(expected[a].values))
         np.testing.assert_allclose(rows[a], expected[a].values, atol=1e-9, equal_nan=True)
     assert not expected[0].valid[:3].any() and expected[0].valid[20:100].all()
-    assert not expected[0].valid[100:104].any()  # the partner's missing neck: social undefined
+    # The partner's missing neck leaves the social features undefined: own features still count.
+    assert expected[0].valid[100:104].all()
+    assert (expected[0].values[100:104, -8:] == 0).all()
 
 
 def test_state_round_trip_rebuilds_an_identical_pipeline(tmp_path):

@@ -15,7 +15,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "src" / "ethoscribe"
 LAYERS = [
     {"errors", "checks", "pose", "saved_state", "system", "body_plans"},
     {"io"},
-    {"clean", "geometry", "filters"},
+    {"clean", "geometry", "filters", "track_pieces"},
     {"features", "postures", "missing_keypoints"},
     {"simulate"},
     {"segment"},

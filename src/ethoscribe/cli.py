@@ -204,6 +204,12 @@ def _add_reading_options(p: argparse.ArgumentParser) -> None:
         "(default: all)",
     )
     r.add_argument(
+        "--join-tracks",
+        action="store_true",
+        help="chain a tracker's track pieces (track0, track1 ...) into animals by continuity "
+        "(the joins are listed in sessions.csv); default: each piece is an animal",
+    )
+    r.add_argument(
         "--reader-option",
         type=_option,
         action="append",
@@ -516,6 +522,7 @@ def _run(args: argparse.Namespace) -> str:
             fit_frames=args.fit_frames,
             format=args.format,
             reader_options=_reader_options(args),
+            join_tracks=args.join_tracks,
             cleaning=_cleaning(args),
             replace_curation=args.replace_curation,
             causal=args.for_streaming,
@@ -534,6 +541,7 @@ def _run(args: argparse.Namespace) -> str:
             force=args.force,
             format=args.format,
             reader_options=_reader_options(args),
+            join_tracks=args.join_tracks,
         )
         return ws.describe()
     if args.command == "compare":

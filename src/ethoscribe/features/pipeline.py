@@ -60,6 +60,9 @@ def _accumulate(acc: list | None, X: np.ndarray, full: bool) -> list | None:
 LOG_OFFSET_QUANTILE = 0.05
 
 
+N_SOCIAL_FEATURES = 8  # the last columns of a social pipeline (see ``_columns``)
+
+
 class FeaturePipeline(BaseEstimator):
     """Egocentric posture and movement features fitted across sessions (scikit-learn style).
 
@@ -624,8 +627,24 @@ class FeaturePipeline(BaseEstimator):
             raw -= self.scaler_mean_
             raw /= self.scaler_scale_
         valid = np.isfinite(raw).all(1)
+        if self.social_ and not valid.all():
+            valid = self._without_partner(raw, valid)
         raw[~valid] = np.nan
         return raw, valid
+
+    def _without_partner(self, raw: np.ndarray, valid: np.ndarray) -> np.ndarray:
+        """Frames whose own features are whole but whose social ones are missing (no other
+        animal in view: it left the arena, or its track ended) stay valid: their social
+        features take the fitted mean ("nothing known about a partner"), so an animal alone
+        is still scored on its own movement."""
+        k = N_SOCIAL_FEATURES
+        own = np.isfinite(raw[:, :-k]).all(1)
+        alone = own & ~valid
+        if alone.any():
+            neutral = np.zeros(k) if self.standardise else self.scaler_mean_[-k:]
+            part = raw[alone, -k:]
+            raw[alone, -k:] = np.where(np.isfinite(part), part, neutral)
+        return valid | alone
 
     def _sets(self, tracks: PoseTracks, raws: list[np.ndarray]) -> list[FeatureSet]:
         meta = {

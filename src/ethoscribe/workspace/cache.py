@@ -68,6 +68,7 @@ def cache_key(entry: dict[str, Any], cleaning: dict[str, Any]) -> str:
         "format": entry.get("format"),
         "reader": reader.get("target"),
         "options": entry.get("options", {}),
+        "join_tracks": entry.get("join_tracks", False),
         "fps": entry["fps"],
         "px_per_unit": entry["px_per_unit"],
         "units": entry["units"],

@@ -27,6 +27,7 @@ from ethoscribe.io.registry import (
     reader_options as options_of,
 )
 from ethoscribe.pose import PoseTracks, check_same_body_plan
+from ethoscribe.track_pieces import join_track_pieces
 
 
 def as_path(value: Any, argument: str) -> Path:
@@ -65,6 +66,7 @@ def plan_sessions(
     fps: float | None = None,
     format: str | None = None,
     reader_options: Mapping[str, Any] | None = None,
+    join_tracks: bool = False,
 ) -> list[dict[str, Any]]:
     """What to read for each session, without reading it: path, name, reader, fps, calibration.
 
@@ -73,6 +75,8 @@ def plan_sessions(
     as group or subject. A file's manifest row is the one whose ``path`` is that file (rows
     without a path are matched by file name without suffix); the row's ``session`` names it.
     ``format`` picks the reader (default: by suffix) and ``reader_options`` go to it.
+    ``join_tracks`` chains a tracker's track pieces into animals by continuity
+    (:func:`~ethoscribe.track_pieces.join_track_pieces`; the joins are reported per session).
     """
     paths = as_paths(inputs, "inputs")
     options = dict(reader_options or {})
@@ -129,6 +133,7 @@ def plan_sessions(
                 "format": fmt,
                 "options": file_options,
                 "reader": reader_reference(fmt),
+                "join_tracks": bool(join_tracks),
             }
         )
     names = [e["session"] for e in plan]
@@ -168,6 +173,8 @@ def read_planned(entry: dict[str, Any]) -> PoseTracks:
     tracks = read_pose(entry["path"], format=fmt, **options)
     if tracks.session != entry["session"]:
         tracks = tracks.replace(session=entry["session"])
+    if entry.get("join_tracks") and tracks.n_animals > 1:
+        tracks, _ = join_track_pieces(tracks)
     if entry["px_per_unit"] is not None:
         tracks = calibrate(tracks, entry["px_per_unit"], entry["units"])
     return tracks.replace(meta=entry["meta"])
@@ -185,6 +192,7 @@ def session_row(entry: dict[str, Any], tracks: PoseTracks) -> dict[str, Any]:
         "n_animals": tracks.n_animals,
         "units": tracks.units,
         "first_frame": int(tracks.meta.get("first_frame", 0) or 0),
+        "track_joins": json.dumps(list(tracks.meta.get("track_joins", []))),
         "format": entry.get("format") or "",
         "reader_options": json.dumps(entry.get("options") or {}, sort_keys=True),
     }

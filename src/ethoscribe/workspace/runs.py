@@ -89,6 +89,7 @@ def discover(
     reader_options: Mapping[str, Any] | None = None,
     cleaning: CleanParams | Mapping[str, Any] | None = None,
     causal: bool = False,
+    join_tracks: bool = False,
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
@@ -101,6 +102,9 @@ def discover(
     min_confidence : shorthand for ``cleaning={"min_confidence": ...}``
     format : reader name ("tidy", "wide", "nwb" or a registered one; default by suffix)
     reader_options : options of that reader, e.g. ``{"pattern": "{keypoint}_{axis}"}``
+    join_tracks : chain a tracker's track pieces (``track0``, ``track1`` ...) into animals by
+        continuity; the joins are listed per session in ``sessions.csv`` (``track_joins``).
+        Without it, each piece is an animal of its own.
     cleaning : :class:`~ethoscribe.clean.CleanParams` or a dict of its fields; unset fields
         take their defaults, except ``swap_pairs``, which defaults to ``"auto"`` (left/right
         pairs read from the keypoint names; pass ``()`` to switch repair off). Every value used
@@ -133,7 +137,7 @@ def discover(
     # One lock from start to end, checked before any work.
     with hold_output(out, as_paths(inputs, "inputs")):
         _refuse_to_overwrite_curation(out, replace_curation)
-        plan = plan_sessions(inputs, manifest, fps, format, reader_options)
+        plan = plan_sessions(inputs, manifest, fps, format, reader_options, join_tracks)
         cleaning = discovery_cleaning(cleaning, min_confidence).to_dict()
         client = connect(scheduler)
         prepared, quality, table, used = _prepare(
@@ -296,6 +300,7 @@ def label_sessions(
     force: bool = False,
     format: str | None = None,
     reader_options: Mapping[str, Any] | None = None,
+    join_tracks: bool = False,
 ) -> Workspace:
     """Label new sessions with the model of workspace ``source`` (same states, same names).
 
@@ -317,7 +322,7 @@ def label_sessions(
     # One lock from start to end, checked before any work.
     with hold_output(out, as_paths(inputs, "inputs")):
         _refuse_to_overwrite_curation(out, False)
-        plan = plan_sessions(inputs, manifest, fps, format, reader_options)
+        plan = plan_sessions(inputs, manifest, fps, format, reader_options, join_tracks)
         client = connect(scheduler)
         cleaning = model.cleaning_.to_dict()
         prepared, quality, table, used = _prepare(
