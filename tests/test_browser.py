@@ -50,6 +50,15 @@ BAD_OUTPUT = ("Error displaying widget", "Loading widget", "Traceback")
 VIEWPORT = {"width": 1366, "height": 768}  # a common laptop screen
 WAIT_MS = 180_000  # ceiling of every wait for an element: generous, the waits end on the event
 
+# At least N plotly figures drawn (an SVG of non-zero size) on the workbench's visible page.
+FIGURES_DRAWN = """(n) => {
+  const bench = document.querySelector('.ethoscribe-workbench');
+  if (!bench) return false;
+  const drawn = [...bench.querySelectorAll('.js-plotly-plot .main-svg')].filter(
+    (svg) => svg.getBoundingClientRect().width > 0);
+  return new Set(drawn.map((svg) => svg.closest('.js-plotly-plot'))).size >= n;
+}"""
+
 # Parts of the workbench wider than it (cut off at the right edge), as [class, overflow px].
 OVERFLOW = """(bench) => {
   const edge = bench.getBoundingClientRect().right + 1;
@@ -228,13 +237,17 @@ def test_quickstart_in_jupyterlab_rename_and_save(lab, tmp_path):
             expect(bench).to_be_visible()
             expect(page.get_by_text("Saved the ethogram in").first).to_be_visible()
             _wait_idle(page, WAIT_MS)
-            expect(bench.locator(".ethoscribe-posture .main-svg").first).to_be_visible()
-            expect(bench.locator(".ethoscribe-examples .main-svg").first).to_be_visible()
-            expect(bench.locator(".ethoscribe-durations .main-svg").first).to_be_visible()
+            # A 768 px screen shows part of the workbench at once: bring its top into view, then
+            # wait for the Motifs page's five figures (posture, examples, shares, durations,
+            # neighbours) to be drawn.
+            bench.evaluate("el => el.scrollIntoView({block: 'start'})")
+            page.wait_for_function(FIGURES_DRAWN, arg=5, timeout=WAIT_MS)
             assert bench.evaluate(OVERFLOW) == [], "cut off at 1366 px"
             expect(bench.get_by_text("largest first")).to_be_visible()
-            _screenshot(bench, tmp_path)
-            motif = bench.locator(".ethoscribe-curation").inner_text().split("\n")[0]
+            _screenshot(page, bench, tmp_path)
+            desk = bench.locator(".ethoscribe-curation")
+            desk.scroll_into_view_if_needed()
+            motif = desk.inner_text().split("\n")[0]
             motif = re.sub(r"^Curate\s+", "", motif).strip()
             assert re.fullmatch(r"motif_\d\d", motif), motif
 
@@ -260,14 +273,21 @@ def test_quickstart_in_jupyterlab_rename_and_save(lab, tmp_path):
             for text in texts:
                 for bad in BAD_OUTPUT:
                     assert bad not in text, f"an output shows {bad!r}: {text[:300]}"
+        except Exception:
+            folder = Path(os.environ.get("ETHOSCRIBE_ARTIFACTS", tmp_path))
+            folder.mkdir(parents=True, exist_ok=True)
+            page.screenshot(path=str(folder / "page-at-failure.png"))  # what the user saw
+            raise
         finally:
             browser.close()
 
 
-def _screenshot(bench, tmp_path: Path) -> None:
+def _screenshot(page, bench, tmp_path: Path) -> None:
+    """The workbench as a laptop screen shows it (its top, 1366 px wide)."""
     folder = Path(os.environ.get("ETHOSCRIBE_ARTIFACTS", tmp_path))
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / "workbench.png"
+    bench.evaluate("el => el.scrollIntoView({block: 'start'})")
     bench.screenshot(path=str(path))
     assert path.stat().st_size > 10_000
     if os.environ.get("ETHOSCRIBE_UPDATE_SCREENSHOT") == "1":

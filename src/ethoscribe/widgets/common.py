@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import asyncio
 import html
 from collections.abc import Callable
 from typing import Any
@@ -25,12 +26,36 @@ def flow(children: list, **layout: str) -> w.HBox:
     return w.HBox(children, layout=w.Layout(**FLOW, **layout))
 
 
+SETTLE_S = 0.3
+
+
 def on_enter(box: w.Text, action: Callable[[], Any]) -> None:
-    """Call ``action()`` when Enter is pressed in ``box`` (not when it merely loses focus)."""
+    """Call ``action()`` when Enter is pressed in ``box`` (not when it merely loses focus).
+
+    The browser sends a box's keystrokes one update at a time and holds the rest until the
+    kernel answers, while the Enter message goes at once: in a notebook it can arrive before
+    the last letters (seen in the browser test: 'b' of 'browser_named'). So the action waits
+    until the box's value has not changed for ``SETTLE_S`` (at most 10 s).
+    """
+    changes = [0]
+    box.observe(lambda _: changes.__setitem__(0, changes[0] + 1), "value")
 
     def message(_, content, buffers) -> None:
-        if content.get("event") == "submit":  # what the text box sends on Enter
+        if content.get("event") != "submit":  # what the text box sends on Enter
+            return
+        try:
+            loop = asyncio.get_running_loop()
+        except RuntimeError:  # driven from Python (no kernel loop): the value is final
             action()
+            return
+
+        def settled(seen: int, tries: int) -> None:
+            if changes[0] != seen and tries > 0:
+                loop.call_later(SETTLE_S, settled, changes[0], tries - 1)
+            else:
+                action()
+
+        loop.call_later(SETTLE_S, settled, changes[0], int(10 / SETTLE_S))
 
     box.on_msg(message)
 

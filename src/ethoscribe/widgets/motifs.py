@@ -76,7 +76,7 @@ class MotifList:
             min=0.0,
             max=max(top_median, 0.5),
             step=0.05,
-            description="Median bout at least (s)",
+            description="Median bout (s) at least",
         )
         self.min_stability = w.FloatSlider(
             value=0.0,
@@ -87,7 +87,7 @@ class MotifList:
             disabled=not has_stability,
         )
         for slider in (self.min_share, self.min_median, self.min_stability):
-            slider.style = {"description_width": "150px"}
+            slider.style = {"description_width": "165px"}
             slider.layout = w.Layout(width="355px")
         self.sort.layout = w.Layout(width="225px")
         self.largest.layout = w.Layout(width="auto")

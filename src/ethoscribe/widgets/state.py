@@ -358,7 +358,7 @@ class WorkbenchState(CurationEdits):
         except EthoscribeError as exc:
             self.say("error", f"could not save: {exc}")
             return None
-        folder = self.ws.path.resolve()
+        folder = self.ws.path  # as the user named it (the header's tooltip has the full path)
         self.say(
             "ok",
             f"Saved the ethogram in {folder}: exports/ (labels, bouts, transitions, time "
