@@ -50,7 +50,7 @@ ELBOW_FRACTION = 0.2
 RULES = ("one_se", "elbow")
 # The quick path of ``choose_n_states`` (used by BehaviourModel with n_states="auto"); the
 # quick fitting options are the method's ``quick_options`` in the registry.
-QUICK_MAX_FRAMES = 100_000
+QUICK_MAX_FRAMES = 20_000
 
 
 @dataclass(frozen=True)
@@ -367,14 +367,15 @@ def choose_n_states(
       from every session, its length proportional to the session's (whole sessions when the
       data are small);
     - each candidate with the method's ``quick_options`` (registry); for the HMM one restart
-      (of 4 screened starting points), at most 50 EM iterations, on every frame of its
+      (of 2 screened starting points), at most 25 EM iterations, on every frame of its
       training fold;
     - folds of whole sessions (alternating blocks inside the one session when there is one);
       ``rule="elbow"`` (module doc).
 
-    On the simulated example study (16 sessions, 118k valid frames, candidates 3-12) the 20
-    quick fits took 25-30 s of CPU together; one full fit (4 restarts) of one candidate took
-    about 13 s.
+    20,000 frames (10,000 per fold, hundreds of bouts) and short fits keep this a fixed cost of
+    a few seconds (benchmarks/bench_speed.py): on the 54,000-frame example study the 20 quick
+    fits took 8 s of CPU (24 s with 100,000 frames, 50 iterations and 4 starting points) and
+    chose 6 states (6 before).
 
     Parameters
     ----------

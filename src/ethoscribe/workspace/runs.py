@@ -64,7 +64,7 @@ from ethoscribe.workspace.reading import (
     sessions_table,
 )
 
-STABILITY_FRAMES = 200_000
+STABILITY_FRAMES = 30_000
 
 
 def discover(
@@ -444,8 +444,8 @@ def _stability(
     """Agreement between refits (seeds, halves of the sessions) on the training sample.
 
     Refits and comparisons use at most ``STABILITY_FRAMES`` of it (blocks from every session):
-    each refit would subsample as much anyway, and agreement over 200,000 frames (thousands of
-    bouts) is measured to about a percent.
+    short refits (the registry's ``stability_options``) on 30,000 frames (hundreds of bouts of
+    every common behaviour) keep it a fixed cost of a few seconds (benchmarks/bench_speed.py).
     """
     X, lengths = stack_valid(feats)
     block = max(100, round(60 * model.fps_))
