@@ -60,6 +60,7 @@ from ethoscribe.workspace.reading import (
     cleaning_summary,
     discovery_cleaning,
     plan_sessions,
+    read_planned,
     reading_summary,
     sessions_table,
 )
@@ -323,6 +324,7 @@ def label_sessions(
     with hold_output(out, as_paths(inputs, "inputs")):
         _refuse_to_overwrite_curation(out, False)
         plan = plan_sessions(inputs, manifest, fps, format, reader_options, join_tracks)
+        _check_units(plan, model)  # before any heavy work: one file read
         client = connect(scheduler)
         cleaning = model.cleaning_.to_dict()
         prepared, quality, table, used = _prepare(
@@ -339,6 +341,25 @@ def label_sessions(
         tables = carry_learned(source, ws, locked=True) or tables  # the expert's names
         write_ethogram_report(ws, out / "report.html", tables)
         return ws
+
+
+def _check_units(plan: Sequence[dict[str, Any]], model: BehaviourModel) -> None:
+    """Refuse, with the fix, new sessions whose coordinates are not in the model's units."""
+    wanted = getattr(model.features_, "units_", None)
+    if not plan or wanted is None:
+        return
+    cleaning = model.cleaning_
+    for entry in plan[:1]:  # the others are checked as they are read
+        units = read_planned(entry).units
+        if units == "px" and cleaning.px_per_unit is not None:
+            units = cleaning.unit  # the model's calibration converts them
+        if units != wanted:
+            msg = (
+                f"{entry['path']}: coordinates in '{units}' but the model was fitted on tracks "
+                f"in '{wanted}'; give this cohort's calibration in its manifest (columns "
+                f"px_per_unit and units, as for discovery), or write the files in {wanted}"
+            )
+            raise InputError(msg)
 
 
 def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any) -> dict:
