@@ -71,3 +71,15 @@ def test_bad_requests_are_explained(four_states):
         select_n_states(X, lengths, candidates=[2], criterion="aic")
     with pytest.raises(InputError, match="candidates"):
         select_n_states(X, lengths, candidates=[])
+
+
+def test_split_half_agreement_is_recorded_beside_the_curve():
+    # Two well separated regimes: both halves' models find the same 2 states (ARI 1 checked
+    # with scikit-learn's adjusted_rand_score inside agreement.adjusted_rand); at 1 state the
+    # labelings are constant, which scikit-learn scores 1 as well.
+    rng = np.random.default_rng(0)
+    X = rng.normal(0, 1, (1200, 1)) + 8 * (np.arange(1200)[:, None] // 100 % 2)
+    sel = select_n_states(X, [300] * 4, candidates=[1, 2], model_params={"n_restarts": 1})
+    ari = sel.table.set_index("n_states")["split_half_ari"]
+    assert ari[2] == pytest.approx(1.0)
+    assert ari[1] == pytest.approx(1.0)

@@ -41,6 +41,7 @@ from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError
 from ethoscribe.segment._hmm_fit import in_threads
+from ethoscribe.segment.agreement import adjusted_rand
 from ethoscribe.segment.inputs import check_X_lengths
 from ethoscribe.segment.registry import get_segmenter
 from ethoscribe.segment.sampling import take_blocks
@@ -59,10 +60,12 @@ class StateCountSelection:
 
     ``table``: one row per candidate with ``n_states, heldout_ll_per_frame, heldout_gap,
     heldout_gap_se, tolerance, within_tolerance, heldout_gain, bic, train_ll_per_frame,
-    n_parameters`` (held-out columns are NaN with ``criterion="bic"``; with "heldout", ``bic``
-    is the mean over folds of the BIC on each fold's training part; ``heldout_gain`` is the
-    gain per added state of the held-out curve's concave envelope, which the elbow rule
-    reads), and ``fitted``: False for a candidate skipped because its fits would have fewer
+    n_parameters, split_half_ari`` (held-out columns are NaN with ``criterion="bic"``; with
+    "heldout", ``bic`` is the mean over folds of the BIC on each fold's training part;
+    ``heldout_gain`` is the gain per added state of the held-out curve's concave envelope,
+    which the elbow rule reads; ``split_half_ari`` is the adjusted Rand index between the
+    labels the two folds' models, fitted on disjoint halves, give every frame: how reproducible
+    the K states are, recorded beside the curve, not yet read by a rule), and ``fitted``: False for a candidate skipped because its fits would have fewer
     frames than its states can support (:func:`ethoscribe.segment.hmm.frames_needed`; its
     other columns are NaN, except ``n_parameters``). ``best``: the chosen K;
     ``rule``: how the held-out curve was read ("one_se" or "elbow"); ``skipped``: the
@@ -285,7 +288,7 @@ def select_n_states(
         table = pd.DataFrame(rows, columns=["n_states", "heldout_ll_per_frame", "bic",
                                             "train_ll_per_frame", "n_parameters"])  # fmt: skip
         best = int(table["n_states"][int(np.argmin(table["bic"]))])
-        for col in ("heldout_gap", "heldout_gap_se", "tolerance", "heldout_gain"):
+        for col in ("heldout_gap", "heldout_gap_se", "tolerance", "heldout_gain", "split_half_ari"):
             table[col] = np.nan
         table["within_tolerance"] = table["n_states"] == best
         table = _with_skipped(table, cands, n_features, params, cls)
@@ -296,18 +299,23 @@ def select_n_states(
     jobs = [(i, k, f) for i, k in enumerate(feasible) for f in (0, 1)]
     bar = tqdm(total=len(jobs), desc="state counts x folds", disable=not progress)
 
-    def fit_fold(job: tuple[int, int, int]) -> tuple[np.ndarray, float, int, int]:
+    def fit_fold(job: tuple[int, int, int]) -> tuple[np.ndarray, float, int, int, np.ndarray]:
         _, k, f = job
         X_tr, len_tr = _take(X, units[units["fold"] != f])
         X_te, len_te = _take(X, units[units["fold"] == f])
         m = make(k).fit(X_tr, len_tr)
         bar.update(1)
-        return m.score_per_session(X_te, len_te), m.score(X_tr, len_tr), len(X_tr), m.n_parameters()
+        # Every frame labelled by this fold's model: the two folds' labelings are compared.
+        labels = m.predict(X, lengths)
+        ll_te = m.score_per_session(X_te, len_te)
+        return ll_te, m.score(X_tr, len_tr), len(X_tr), m.n_parameters(), labels
 
     # The fits are independent (each seeded alike): on threads, results equal a serial loop.
-    for (i, _, f), (ll_te, ll_tr, n_tr, n_par) in zip(
+    fold_labels: dict[tuple[int, int], np.ndarray] = {}
+    for (i, _, f), (ll_te, ll_tr, n_tr, n_par, labels) in zip(
         jobs, in_threads(fit_fold, jobs, n_jobs), strict=True
     ):
+        fold_labels[i, f] = labels
         ll_units[i, (units["fold"] == f).to_numpy()] = ll_te
         train[i] += ll_tr / len(X)  # both folds together cover every frame once
         bic[i] += 0.5 * (-2 * ll_tr + n_par * np.log(n_tr))
@@ -325,6 +333,11 @@ def select_n_states(
             "bic": bic,
             "train_ll_per_frame": train,
             "n_parameters": [_n_parameters(cls, k, n_features, params) for k in feasible],
+            # Split-half agreement: ARI between the labels the two folds' models (fitted on
+            # disjoint halves) give every frame; high when the K states are reproducible.
+            "split_half_ari": [
+                adjusted_rand(fold_labels[i, 0], fold_labels[i, 1]) for i in range(len(feasible))
+            ],
         }
     )
     table = _with_skipped(table, cands, n_features, params, cls)
