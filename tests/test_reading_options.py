@@ -339,3 +339,19 @@ def test_motif_name_lists_refuse_a_plain_string():
         cur.split("m", "ab", pd.DataFrame(), pd.DataFrame())
     with pytest.raises(InputError, match=r"names must hold 2 new names"):
         cur.split("m", ["a"], pd.DataFrame(), pd.DataFrame())
+
+
+def test_rows_sorted_by_keypoint_read_as_rows_sorted_by_frame(tmp_path):
+    from ethoscribe.io import read_tidy
+
+    t = _tracks(n=50)
+    write_tidy(t, tmp_path / "by_frame.csv")
+    rows = pd.read_csv(tmp_path / "by_frame.csv")
+    rows.sort_values(["keypoint", "frame"]).to_csv(tmp_path / "by_keypoint.csv", index=False)
+    back = read_tidy(tmp_path / "by_keypoint.csv")
+    # The same points under every name (keypoints come in the order the file first names them).
+    assert sorted(back.keypoints) == sorted(t.keypoints)
+    for k in t.keypoints:
+        np.testing.assert_array_equal(
+            back.coords[:, :, back.keypoints.index(k)], t.coords[:, :, t.keypoints.index(k)]
+        )
