@@ -263,18 +263,25 @@ class Curation:
 
     @classmethod
     def from_journal(
-        cls, records: Sequence[Mapping[str, Any]], names: Mapping[int, str] | None = None
+        cls,
+        records: Sequence[Mapping[str, Any]],
+        names: Mapping[int, str] | None = None,
+        where: Sequence[str] | None = None,
     ) -> Curation:
         """Replay a journal (as from :attr:`history`); stored ``after`` summaries are checked.
 
-        A journal kept without its ``start`` record needs the initial ``names``.
+        A journal kept without its ``start`` record needs the initial ``names``. ``where``
+        names each record in error messages (e.g. ``"journal.jsonl: line 3"``); by default
+        ``"journal record i"``.
         """
         records = [copy.deepcopy(dict(r)) for r in records]
+        if where is None or len(where) != len(records):
+            where = [f"journal record {i}" for i in range(len(records))]
         if records and records[0].get("op") == "start":
             try:
                 start = {int(k): v for k, v in records[0]["names"].items()}
             except (KeyError, TypeError, ValueError, AttributeError):
-                raise InputError("journal record 0: 'names' must map state ids to names") from None
+                raise InputError(f"{where[0]}: 'names' must map state ids to names") from None
             if names is not None and dict(names) != start:
                 msg = f"the journal starts from names {start}, not the given {dict(names)}"
                 raise InputError(msg)
@@ -287,10 +294,10 @@ class Curation:
             try:
                 cur._replay(record)
             except InputError as exc:
-                raise InputError(f"journal record {i} ({record.get('op')!r}): {exc}") from None
+                raise InputError(f"{where[i]} ({record.get('op')!r}): {exc}") from None
             after = record.get("after")
             if after is not None and after != _summary(cur._names):
-                msg = f"journal record {i}: replay gives {_summary(cur._names)}, journal says"
+                msg = f"{where[i]}: replay gives {_summary(cur._names)}, journal says"
                 raise InputError(f"{msg} {after}; the journal was damaged or edited by hand")
         return cur
 

@@ -95,11 +95,17 @@ def read_journal(path: Path) -> tuple[list[dict[str, Any]], list[str]]:
 
     A line cut short by a crash is reported and skipped; all complete edits survive.
     """
+    records, problems, _ = read_journal_lines(path)
+    return records, problems
+
+
+def read_journal_lines(path: Path) -> tuple[list[dict[str, Any]], list[str], list[int]]:
+    """As :func:`read_journal`, plus the 1-based line number of each record kept."""
     if not path.exists():
-        return [], []
+        return [], [], []
     if path.is_symlink():
         raise UnsafeFileError(f"{path}: is a symbolic link; a journal must be a plain file")
-    records, problems = [], []
+    records, problems, numbers = [], [], []
     text = path.read_bytes().decode("utf-8", errors="replace")
     for number, line in enumerate(text.splitlines(), start=1):
         if not line.strip():
@@ -113,7 +119,8 @@ def read_journal(path: Path) -> tuple[list[dict[str, Any]], list[str]]:
             problems.append(f"{path}: line {number} is not an edit record and was skipped")
             continue
         records.append(record)
-    return records, problems
+        numbers.append(number)
+    return records, problems, numbers
 
 
 def journal_fingerprint(path: Path) -> dict[str, Any]:

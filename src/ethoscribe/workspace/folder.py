@@ -64,6 +64,7 @@ from ethoscribe.workspace.files import (
     load_features,
     load_model,
     read_journal,
+    read_journal_lines,
     remove_leftovers,
 )
 from ethoscribe.workspace.files import WORKSPACE_FILE as WORKSPACE_FILE
@@ -319,8 +320,11 @@ class Workspace:
 
     def curation(self) -> Curation:
         """The current naming, replayed from the journal."""
+        path = self.path / JOURNAL_FILE
+        records, _, numbers = read_journal_lines(path)
+        where = [f"{path}: line {n}" for n in numbers]
         with self._replay_errors():
-            return Curation.from_journal(self.journal(), self.default_names())
+            return Curation.from_journal(records, self.default_names(), where=where)
 
     @contextmanager
     def _replay_errors(self) -> Iterator[None]:
