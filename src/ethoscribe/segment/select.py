@@ -65,8 +65,9 @@ class StateCountSelection:
     ``heldout_gain`` is the gain per added state of the held-out curve's concave envelope,
     which the elbow rule reads; ``split_half_ari`` is the adjusted Rand index between the
     labels the two folds' models, fitted on disjoint halves, give every frame: how reproducible
-    the K states are, recorded beside the curve, not yet read by a rule), and ``fitted``: False for a candidate skipped because its fits would have fewer
-    frames than its states can support (:func:`ethoscribe.segment.hmm.frames_needed`; its
+    the K states are, recorded beside the curve, not yet read by a rule), and ``fitted``:
+    False for a candidate skipped because its fits would have fewer frames than its states
+    can support (:func:`ethoscribe.segment.hmm.frames_needed`; its
     other columns are NaN, except ``n_parameters``). ``best``: the chosen K;
     ``rule``: how the held-out curve was read ("one_se" or "elbow"); ``skipped``: the
     candidates not fitted.
