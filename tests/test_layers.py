@@ -75,9 +75,7 @@ def test_nothing_imports_widgets_or_cli():
 
 
 # Modules still importing another package's private module, each with its reason.
-PRIVATE_IMPORTS_LEFT = {
-    "workspace/cache.py",  # io._atomic/io._safe; being changed by the reading work, switch after
-}
+PRIVATE_IMPORTS_LEFT: set[str] = set()
 
 
 def test_no_package_imports_another_packages_private_module():

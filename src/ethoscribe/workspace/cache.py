@@ -31,11 +31,18 @@ import pandas as pd
 from ethoscribe import __version__
 from ethoscribe.clean import CleanParams, clean
 from ethoscribe.errors import WorkspaceError
-from ethoscribe.io._atomic import atomic_write, atomic_write_json, write_table
-from ethoscribe.io._safe import load_npz, loads_json, read_json
+from ethoscribe.io import (
+    atomic_write,
+    atomic_write_json,
+    load_npz,
+    loads_json,
+    read_json,
+    write_table,
+)
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
 from ethoscribe.segment.model import BehaviourModel
+from ethoscribe.system import file_digest
 from ethoscribe.workspace.files import load_model, save_features
 from ethoscribe.workspace.folder import jsonable
 from ethoscribe.workspace.reading import read_planned, session_row
@@ -44,15 +51,6 @@ CACHE_FOLDER = Path("cache") / "cleaned"
 MODELS_FOLDER = Path("cache") / "models"
 LABELLED_FOLDER = Path("cache") / "labelled"
 CLEANING_USED = "cleaning_used"  # key of the resolved cleaning values in a cache row file
-
-
-def file_digest(path: str | Path) -> str:
-    """SHA-256 of a file's bytes."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
 
 
 def cache_key(entry: dict[str, Any], cleaning: dict[str, Any]) -> str:
