@@ -54,10 +54,15 @@ def test_default_model_recovers_the_simulated_behaviours():
     # 7 behaviours are simulated; scanning and freezing share one posture
     assert 6 <= model.n_states_ <= 9
     ari = adjusted_rand_score(valid["state_true"], valid["state"])  # scikit-learn
+    # Frames with every keypoint seen: the frames this check scored before lost keypoints were
+    # filled (then the only scored frames); the filled frames are held to their own bound below.
+    whole = valid[valid["body_seen"] >= 1]
+    ari_whole = adjusted_rand_score(whole["state_true"], whole["state"])  # scikit-learn
     f1, precision, recall = boundary_score(labels, truth, margin_frames=round(0.2 * model.fps_))
-    print(f"states {model.n_states_}, ARI {ari:.3f}, boundary F1 {f1:.3f} ({precision:.3f}, "
-          f"{recall:.3f})")  # fmt: skip
-    assert ari >= 0.8
+    print(f"states {model.n_states_}, ARI {ari:.3f} (whole body seen {ari_whole:.3f}), "
+          f"boundary F1 {f1:.3f} ({precision:.3f}, {recall:.3f})")  # fmt: skip
+    assert ari_whole >= 0.8
+    assert ari >= 0.75
     assert f1 >= 0.7
     # every simulated behaviour is the majority of one state, except freezing (see above)
     majority = valid.groupby("state")["behaviour"].agg(lambda b: b.value_counts().idxmax())
