@@ -27,7 +27,6 @@ an empty numba cache, then again with the cache it left; the difference is the c
 from __future__ import annotations
 
 import argparse
-import functools
 import json
 import os
 import shutil
@@ -38,27 +37,7 @@ import time
 from pathlib import Path
 
 import numpy as np
-
-STAGES: dict[str, list[float]] = {}
-_ACTIVE: list[str] = []
-
-
-def _timed(name: str, func):
-    @functools.wraps(func)
-    def wrapper(*args, **kwargs):
-        if _ACTIVE:
-            return func(*args, **kwargs)
-        _ACTIVE.append(name)
-        wall, cpu = time.perf_counter(), time.process_time()
-        try:
-            return func(*args, **kwargs)
-        finally:
-            acc = STAGES.setdefault(name, [0.0, 0.0])
-            acc[0] += time.perf_counter() - wall
-            acc[1] += time.process_time() - cpu
-            _ACTIVE.pop()
-
-    return wrapper
+from benchmarks.bench_discover import STAGES, _timed  # one stage timer for both benchmarks
 
 
 def _instrument() -> None:
