@@ -111,6 +111,26 @@ def table_info(path: Path) -> TableInfo:
     return TableInfo(path, kind, columns, metadata)
 
 
+def check_role_mapping(
+    path: Any, mapping: Any, roles: Sequence[str], targets: str, note: str = ""
+) -> None:
+    """Refuse a ``columns`` mapping that is not ``{role: name}`` over the known ``roles``.
+
+    ``targets`` says what the mapping's values name (e.g. "column names"); ``note`` is added
+    after the list of roles.
+    """
+    if not isinstance(mapping, Mapping):
+        raise InputError(
+            f"{path}: columns must map roles to {targets}, e.g. "
+            f"{{'confidence': 'likelihood'}}; got {type(mapping).__name__}"
+        )
+    unknown = sorted(set(mapping) - set(roles))
+    if unknown:
+        raise InputError(
+            f"{path}: columns= names unknown role(s) {unknown}; the roles are {list(roles)}{note}"
+        )
+
+
 def map_columns(
     info: TableInfo, mapping: Mapping[str, str] | None, roles: Sequence[str]
 ) -> TableInfo:
@@ -121,16 +141,7 @@ def map_columns(
     """
     if not mapping:
         return info
-    if not isinstance(mapping, Mapping):
-        raise InputError(
-            f"{info.path}: columns must map roles to column names, e.g. "
-            f"{{'confidence': 'likelihood'}}; got {type(mapping).__name__}"
-        )
-    unknown = sorted(set(mapping) - set(roles))
-    if unknown:
-        raise InputError(
-            f"{info.path}: columns= names unknown role(s) {unknown}; the roles are {list(roles)}"
-        )
+    check_role_mapping(info.path, mapping, roles, "column names")
     missing = sorted(c for c in mapping.values() if c not in info.columns)
     if missing:
         raise InputError(

@@ -20,6 +20,7 @@ from ethoscribe.io._tables import (
     check_confidence,
     check_file,
     check_fps,
+    check_role_mapping,
     confidence_lookalikes,
     integer_frames,
     make_tracks,
@@ -300,17 +301,10 @@ def _mapped(
     axes = tuple(axes)
     if not columns:
         return axes, confidence_axis, frame_column, time_column
-    if not isinstance(columns, Mapping):
-        raise InputError(
-            f"{path}: columns must map roles to names, e.g. {{'confidence': 'likelihood'}}; "
-            f"got {type(columns).__name__}"
-        )
-    unknown = sorted(set(columns) - set(_ROLES))
-    if unknown:
-        raise InputError(
-            f"{path}: columns= names unknown role(s) {unknown}; for wide tables the roles are "
-            f"{list(_ROLES)} (x/y/z/confidence name the axis word in the column names)"
-        )
+    check_role_mapping(
+        path, columns, _ROLES, "names",
+        " (wide tables: x/y/z/confidence name the axis word in the column names)",
+    )  # fmt: skip
     axes = tuple(columns.get(a, axes[i]) if i < len(axes) else a for i, a in
                  enumerate(("x", "y", "z")[: len(axes)]))  # fmt: skip
     return (
