@@ -63,8 +63,14 @@ def _commit() -> dict:
     return {"commit": git("rev-parse", "HEAD"), "dirty": bool(git("status", "--porcelain", "src"))}
 
 
-def run_source(name: str, seed: int, margin_s: float) -> dict:
-    """Load one source, run both pipelines, score them; errors are recorded, not raised."""
+def run_source(
+    name: str, seed: int, margin_s: float, params: dict | None = None, reference: dict | None = None
+) -> dict:
+    """Load one source, run both pipelines, score them; errors are recorded, not raised.
+
+    ``params`` are ``BehaviourModel`` parameters other than the defaults (a variant under
+    study); ``reference`` is an earlier run's reference result for this source, reused instead
+    of rerunning the reference (it does not depend on ethoscribe's code)."""
     out: dict = {"description": DESCRIPTIONS[name]}
     t = time.perf_counter()
     try:
@@ -81,10 +87,13 @@ def run_source(name: str, seed: int, margin_s: float) -> dict:
         n_behaviours=src.n_behaviours,
         load_seconds=time.perf_counter() - t,
     )
-    for label, runner in (
-        ("ethoscribe", pipelines.run_ethoscribe),
-        ("reference", pipelines.run_reference),
-    ):
+    runners = [("ethoscribe", lambda src, seed: pipelines.run_ethoscribe(src, seed, params))]
+    if reference is None:
+        runners.append(("reference", pipelines.run_reference))
+    else:
+        out["reference"] = {**reference, "reused": True}
+        print(f"  {name} / reference: reused, ARI {reference.get('ari', float('nan')):.3f}")
+    for label, runner in runners:
         try:
             found, info = runner(src, seed)
             out[label] = {**score_units(src.truth, found, src.unit_fps, margin_s), **info}
@@ -112,6 +121,22 @@ def main(argv: list[str] | None = None) -> int:
     )
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--margin-s", type=float, default=0.2, help="boundary margin (s)")
+    parser.add_argument(
+        "--params",
+        default=None,
+        help="JSON object of BehaviourModel parameters to try instead of the defaults, "
+        "e.g. '{\"min_bout_s\": 1.0}' (a variant; the defaults are what the table records)",
+    )
+    parser.add_argument(
+        "--reuse-reference",
+        nargs="?",
+        const="",
+        default=None,
+        metavar="JSON",
+        help="take each source's reference result from this validity.json (default: "
+        "<out>/validity.json, else the recorded table) instead of rerunning it; the reference "
+        "does not depend on ethoscribe's code: same seed and sources, about half the time",
+    )
     parser.add_argument("--table", action="store_true", help="print the recorded table only")
     parser.add_argument("--list", action="store_true", help="list the sources")
     args = parser.parse_args(argv)
@@ -126,6 +151,14 @@ def main(argv: list[str] | None = None) -> int:
     args.out.mkdir(parents=True, exist_ok=True)
     independent_source.DATA_DIR[0] = args.out / "independent_sim_data"
     previous = json.loads(path.read_text()) if path.exists() else {"sources": {}}
+    params = json.loads(args.params) if args.params else None
+    if params is not None and not isinstance(params, dict):
+        parser.error("--params must be a JSON object")
+    earlier = previous.get("sources", {})
+    if args.reuse_reference:
+        earlier = json.loads(Path(args.reuse_reference).read_text())["sources"]
+    elif args.reuse_reference == "" and not earlier:
+        earlier = json.loads(RECORDED.read_text())["sources"]
     names = args.source or list(LOADERS)
     meta = {
         "date_utc": datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M"),
@@ -136,13 +169,20 @@ def main(argv: list[str] | None = None) -> int:
         "python": platform.python_version(),
         "cpus": os.cpu_count(),
         "command": " ".join(["python -m benchmarks.validity", *sys.argv[1:]]),
+        "params": params,
     }
     results = previous.get("sources", {})
     start = time.perf_counter()
     for name in names:
         print(f"{name}: {DESCRIPTIONS[name]}", flush=True)
         t = time.perf_counter()
-        results[name] = {**run_source(name, args.seed, args.margin_s), "run": meta}
+        reference = None
+        if args.reuse_reference is not None:
+            reference = earlier.get(name, {}).get("reference")
+            if reference is not None and "error" in reference:
+                reference = None
+        result = run_source(name, args.seed, args.margin_s, params, reference)
+        results[name] = {**result, "run": meta}
         results[name]["seconds_total"] = time.perf_counter() - t
     doc = {"meta": meta, "sources": {k: results[k] for k in LOADERS if k in results}}
     doc["meta"]["seconds_this_run"] = time.perf_counter() - start

@@ -32,16 +32,24 @@ import pandas as pd
 from benchmarks.validity.sources import Source
 
 
-def run_ethoscribe(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.ndarray], dict]:
-    """Labels per (session, animal) and facts of the fit (states chosen, seconds, warnings)."""
+def run_ethoscribe(
+    src: Source, seed: int, params: dict | None = None
+) -> tuple[dict[tuple[str, str], np.ndarray], dict]:
+    """Labels per (session, animal) and facts of the fit (states chosen, seconds, warnings).
+
+    ``params``: ``BehaviourModel`` parameters other than the defaults (a variant under study)."""
     from ethoscribe.segment.model import BehaviourModel
 
     rates = sorted({float(s.fps) for s in src.sessions})
-    cleaning = {"target_fps": rates[0]} if len(rates) > 1 else None
+    params = dict(params or {})
+    cleaning = dict(params.pop("cleaning", None) or {})
+    if len(rates) > 1:
+        cleaning["target_fps"] = rates[0]
     t, cpu = time.perf_counter(), time.process_time()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        model = BehaviourModel(cleaning=cleaning, random_state=seed).fit(src.sessions)
+        model = BehaviourModel(cleaning=cleaning or None, random_state=seed, **params)
+        model.fit(src.sessions)
         table = model.label(src.sessions)
     seconds, cpu = time.perf_counter() - t, time.process_time() - cpu
     native = {s.session: float(s.fps) for s in src.sessions}
@@ -49,7 +57,7 @@ def run_ethoscribe(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.nda
     for (session, animal), part in table.groupby(["session", "animal"], sort=False):
         key = (str(session), str(animal))
         n = len(src.truth[key])
-        rate = rates[0] if cleaning else native[key[0]]
+        rate = rates[0] if len(rates) > 1 else native[key[0]]
         # Labels of the resampled frames nearest in time to each native frame.
         nearest = np.rint(np.arange(n) / native[key[0]] * rate).astype(np.int64)
         state = np.full(len(part), -1, dtype=np.int64)
