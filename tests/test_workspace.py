@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 from _example_study import trimmed_study
-from ethoscribe.errors import InputError, WorkspaceError
+from ethoscribe.errors import InputError, JournalWarning, WorkspaceError
 from ethoscribe.io import read_tidy
 from ethoscribe.workspace import Workspace, discover, read_journal
 from ethoscribe.workspace.runs import label_sessions
@@ -144,7 +144,12 @@ def test_edits_are_journaled_and_replayed(study, workspace, tmp_path):
         fh.write('{"op": "rename", "motif": "moving", "na')
     records, problems = read_journal(ws.path / "journal.jsonl")
     assert len(records) == 3 and len(problems) == 1 and "line 4" in problems[0]
-    assert "resting" in set(Workspace(ws.path).labels()["motif"])
+    # ... and told to the user, who would otherwise lose that edit without knowing
+    with pytest.warns(JournalWarning, match=r"journal\.jsonl: line 4 .*skipped"):
+        assert "resting" in set(Workspace(ws.path).labels()["motif"])
+    assert "1 journal line(s) skipped" in Workspace(ws.path).describe()
+    journal = ws.path / "journal.jsonl"
+    journal.write_text("\n".join(journal.read_text().splitlines()[:3]) + "\n")  # the user's fix
 
     # A new cohort labelled with this workspace's model gets the curated names.
     cohort = label_sessions(

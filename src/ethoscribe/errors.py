@@ -29,3 +29,7 @@ class UnsafeFileError(EthoscribeError):
 
 class InputWarning(UserWarning):
     """Input that was read, but may not have been read as meant (the message says how to say)."""
+
+
+class JournalWarning(UserWarning):
+    """Lines of a workspace's edit journal that could not be read and were skipped."""

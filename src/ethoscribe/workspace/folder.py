@@ -33,6 +33,7 @@ import os
 import platform
 import shutil
 import tempfile
+import warnings
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
@@ -44,7 +45,7 @@ import pyarrow as pa
 
 from ethoscribe import __version__
 from ethoscribe.curation import Curation, name_list
-from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
+from ethoscribe.errors import EthoscribeError, InputError, JournalWarning, WorkspaceError
 from ethoscribe.ethogram import bout_table, time_budget, time_budgets_joined, transition_table
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_table_writer, atomic_write_json, locking, read_json, write_table
@@ -321,7 +322,16 @@ class Workspace:
     def curation(self) -> Curation:
         """The current naming, replayed from the journal."""
         path = self.path / JOURNAL_FILE
-        records, _, numbers = read_journal_lines(path)
+        records, problems, numbers = read_journal_lines(path)
+        for problem in problems:
+            # Shown once per process (same text, same place): the edits on the other lines
+            # count; this one is lost unless the user restores it.
+            warnings.warn(
+                f"{problem}; the edits on the other lines are applied (repair or delete that "
+                "line to stop this warning)",
+                JournalWarning,
+                stacklevel=2,
+            )
         where = [f"{path}: line {n}" for n in numbers]
         with self._replay_errors():
             return Curation.from_journal(records, self.default_names(), where=where)
@@ -402,12 +412,18 @@ class Workspace:
             stale = self._stale
         return stale
 
+    def journal_problems(self) -> list[str]:
+        """Lines of ``journal.jsonl`` that were skipped as incomplete or damaged (one note each)."""
+        return read_journal(self.path / JOURNAL_FILE)[1]
+
     def describe(self) -> str:
         s = self.summary
+        skipped = self.journal_problems()
+        note = f" {len(skipped)} journal line(s) skipped: {'; '.join(skipped)}." if skipped else ""
         return (
             f"workspace {self.path}: {s['n_sessions']} sessions, {s['n_frames']} frames, "
             f"{s['n_states']} motifs; files: labels.csv, bouts.csv, transitions.csv, "
-            f"time_budget.csv, quality.csv, summary.json, model/. {CAUTION}"
+            f"time_budget.csv, quality.csv, summary.json, model/.{note} {CAUTION}"
         )
 
     # editing
