@@ -52,7 +52,9 @@ def quality_figure(
 
     Left: per keypoint, the fractions of frames missing in the raw data, masked for low
     confidence, masked as jumps, filled, and missing after cleaning (mean over sessions and
-    animals). Right: the fraction of invalid frames (any keypoint missing) per session.
+    animals). Right, per session: the fraction of frames with some keypoint still missing
+    after cleaning (the model fills those when enough of the body was seen) and, when the table
+    has ``frac_unscored_frames`` (from the labels), the fraction left without a label.
 
     Parameters
     ----------
@@ -83,12 +85,15 @@ def quality_figure(
     by_keypoint = table.groupby("keypoint", sort=False)[list(BARS)].mean()
     per_animal = table.drop_duplicates(["session", "animal"])
     invalid = per_animal.groupby("session", sort=False)["frac_invalid_frames"].mean()
+    unscored = None
+    if "frac_unscored_frames" in per_animal.columns:
+        unscored = per_animal.groupby("session", sort=False)["frac_unscored_frames"].mean()
 
     fig = make_subplots(
         rows=1,
         cols=2,
         column_widths=[0.72, 0.28],
-        subplot_titles=("Per keypoint (mean over sessions and animals)", "Invalid frames"),
+        subplot_titles=("Per keypoint (mean over sessions and animals)", "Frames per session"),
     )
     for column, (label, colour) in BARS.items():
         fig.add_trace(
@@ -103,25 +108,29 @@ def quality_figure(
             col=1,
         )
     # sessions as horizontal bars: their names stay whole and readable
-    fig.add_trace(
-        go.Bar(
-            y=[str(s) for s in invalid.index],
-            x=invalid.to_numpy(),
-            orientation="h",
-            name="invalid frames (any keypoint missing)",
-            marker_color="#5c5c5c",
-            hovertemplate="%{y}: %{x:.1%}<extra>invalid frames</extra>",
-        ),
-        row=1,
-        col=2,
-    )
+    per_session = [("some keypoint missing after cleaning", invalid, "#8c8c8c")]
+    if unscored is not None:
+        per_session.append(("left unscored (too little of the body seen)", unscored, "#2e294e"))
+    for label, values, colour in per_session:
+        fig.add_trace(
+            go.Bar(
+                y=[str(s) for s in values.index],
+                x=values.to_numpy(),
+                orientation="h",
+                name=label,
+                marker_color=colour,
+                hovertemplate="%{y}: %{x:.1%}<extra>" + label + "</extra>",
+            ),
+            row=1,
+            col=2,
+        )
     fig.update_layout(
         barmode="group",
         title={"text": "Cleaning quality", "x": 0},
         # legend between the title and the plots: never over an axis title
         legend={"orientation": "h", "x": 0, "y": 1.1, "yanchor": "bottom"},
         margin={"t": 150},
-        height=max(450, 160 + 16 * len(invalid)),
+        height=max(450, 160 + 16 * len(per_session) * len(invalid)),
     )
     # ".1~%": 0.5 % steps print as 0.5%, 1%, 1.5% (".0%" printed 0%, 1%, 1%, 2%)
     fig.update_yaxes(tickformat=".1~%", rangemode="tozero", row=1, col=1)
@@ -129,5 +138,5 @@ def quality_figure(
     fig.update_yaxes(title_text="fraction of frames", row=1, col=1)
     fig.update_yaxes(autorange="reversed", automargin=True, type="category", row=1, col=2)
     fig.update_xaxes(title_text="keypoint", row=1, col=1)
-    fig.update_xaxes(title_text="invalid frames", row=1, col=2)
+    fig.update_xaxes(title_text="fraction of frames", row=1, col=2)
     return fig

@@ -60,15 +60,21 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     if any(c not in table.columns for c in ("session", "animal", "keypoint", *BARS)):
         text = f"{path.name} has columns {list(table.columns)}; too old to draw, see the file."
         return Section("Data quality", text)
-    text = "Fractions of frames missing, masked and filled by cleaning (see quality.csv)."
-    if "frac_invalid_frames" not in table.columns:
-        if labels is None:
-            labels = ws.state_labels()
-        unlabelled = (labels["state"] < 0).groupby([labels["session"], labels["animal"]]).mean()
-        unlabelled = unlabelled.rename("frac_invalid_frames").reset_index()
-        table = table.merge(unlabelled.astype({"session": str, "animal": str}), how="left")
-        text += " Invalid frames: the share of frames left without a motif label."
-    per_session = table.groupby("session")[[*BARS, "frac_invalid_frames"]].mean().reset_index()
+    text = (
+        "Fractions of frames missing, masked and filled by cleaning (see quality.csv). A frame "
+        "with some keypoint still missing after cleaning is scored when enough of the body was "
+        "seen (its lost keypoints are filled from the posture model); only the frames left "
+        "unscored have no motif."
+    )
+    if labels is None:
+        labels = ws.state_labels()
+    unlabelled = (labels["state"] < 0).groupby([labels["session"], labels["animal"]]).mean()
+    unlabelled = unlabelled.rename("frac_unscored_frames").reset_index()
+    table = table.merge(unlabelled.astype({"session": str, "animal": str}), how="left")
+    if "frac_invalid_frames" not in table.columns:  # files of older versions
+        table["frac_invalid_frames"] = table["frac_unscored_frames"]
+    shares = [*BARS, "frac_invalid_frames", "frac_unscored_frames"]
+    per_session = table.groupby("session")[shares].mean().reset_index()
     return Section("Data quality", text, [quality_figure(table)], [("Per session", per_session)])
 
 
