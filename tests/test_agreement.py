@@ -82,7 +82,10 @@ def test_boundaries_from_labels_and_f1():
     assert (score.n_matched, score.recall) == (2, 1.0)
     assert score.precision == pytest.approx(2 / 3) and score.f1 == pytest.approx(0.8)
     empty = boundary_f1([], [], 3)
-    assert (empty.precision, empty.recall) == (1.0, 1.0)
+    assert (empty.precision, empty.recall, empty.f1) == (1.0, 1.0, 1.0)
+    # nothing predicted: precision 0, as scikit-learn's precision_score(zero_division=0)
+    missed = boundary_f1([10, 20], [], 3)
+    assert (missed.precision, missed.recall, missed.f1) == (0.0, 0.0, 0.0)
     # each boundary is used once: two predictions near one true boundary count once
     assert boundary_f1([10], [9, 11], 2).n_matched == 1
 

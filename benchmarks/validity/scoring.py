@@ -35,6 +35,7 @@ from ethoscribe.segment.agreement import (
     match_states,
     normalized_mutual_info,
 )
+from ethoscribe.segment.boundaries import scores_from_counts
 
 
 def matched_accuracy(truth: np.ndarray, found: np.ndarray) -> float:
@@ -106,9 +107,8 @@ def score_units(
         tb, fb = unit_boundaries(np.asarray(truth[k]), np.asarray(found[k]))
         s = boundary_f1(tb, fb, margins[k])
         counts += (s.n_true, s.n_predicted, s.n_matched)
-    precision = counts[2] / counts[1] if counts[1] else 1.0
-    recall = counts[2] / counts[0] if counts[0] else 1.0
-    f1 = 2 * precision * recall / (precision + recall) if precision + recall > 0 else 0.0
+    pooled = scores_from_counts(*(int(c) for c in counts))
+    f1, precision, recall = pooled["f1"], pooled["precision"], pooled["recall"]
     scored = both.any()
     return {
         "ari": adjusted_rand(t, f) if scored else float("nan"),

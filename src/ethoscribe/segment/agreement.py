@@ -15,6 +15,7 @@ import pandas as pd
 from scipy.optimize import linear_sum_assignment
 
 from ethoscribe.errors import InputError
+from ethoscribe.segment.boundaries import boundary_scores
 
 
 def _pair(labels_a: np.ndarray, labels_b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -144,10 +145,10 @@ class BoundaryScore:
 def boundary_f1(true_boundaries, predicted, margin_frames: int) -> BoundaryScore:
     """Match boundaries one-to-one within ``margin_frames`` and score them.
 
-    A true and a predicted boundary match when ``|t - p| <= margin_frames``; each is used at
-    most once. A left-to-right greedy pass over the sorted lists gives the maximum number of
-    matches for such equal-width windows. With nothing predicted precision is 1; with nothing
-    to find recall is 1.
+    The one scoring rule of the package (:func:`ethoscribe.segment.boundaries.boundary_scores`):
+    a true and a predicted boundary match when ``|t - p| <= margin_frames``, each used at most
+    once, as many matches as possible. With nothing predicted precision is 0; with nothing to
+    find recall is 1; with neither all three scores are 1.
 
     Examples
     --------
@@ -155,19 +156,11 @@ def boundary_f1(true_boundaries, predicted, margin_frames: int) -> BoundaryScore
     >>> (s.n_matched, round(s.precision, 3), s.recall)
     (2, 0.667, 1.0)
     """
-    t = np.sort(np.asarray(true_boundaries, dtype=np.int64).ravel())
-    p = np.sort(np.asarray(predicted, dtype=np.int64).ravel())
     if margin_frames < 0:
         raise InputError(f"margin_frames must be >= 0, got {margin_frames}")
-    i = j = matched = 0
-    while i < len(t) and j < len(p):  # loop over boundaries, not frames
-        if abs(int(t[i]) - int(p[j])) <= margin_frames:
-            matched, i, j = matched + 1, i + 1, j + 1
-        elif p[j] < t[i]:
-            j += 1
-        else:
-            i += 1
-    precision = matched / len(p) if len(p) else 1.0
-    recall = matched / len(t) if len(t) else 1.0
-    f1 = 2 * precision * recall / (precision + recall) if precision + recall > 0 else 0.0
-    return BoundaryScore(precision, recall, f1, len(t), len(p), matched)
+    t = np.asarray(true_boundaries, dtype=np.int64).ravel()
+    p = np.asarray(predicted, dtype=np.int64).ravel()
+    s = boundary_scores(t, p, margin_frames)
+    return BoundaryScore(
+        s["precision"], s["recall"], s["f1"], s["n_true"], s["n_predicted"], s["n_matched"]
+    )

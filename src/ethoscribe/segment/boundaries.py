@@ -117,10 +117,15 @@ def boundary_scores(
     t_idx, _ = match_boundaries(true, predicted, margin)
     n_true = len(np.ravel(true))
     n_pred = len(np.ravel(predicted))
-    return _scores(n_true, n_pred, len(t_idx))
+    return scores_from_counts(n_true, n_pred, len(t_idx))
 
 
-def _scores(n_true: int, n_pred: int, n_matched: int) -> dict[str, float]:
+def scores_from_counts(n_true: int, n_pred: int, n_matched: int) -> dict[str, float]:
+    """Precision, recall and F1 from boundary counts (pooled over sessions by summing counts).
+
+    With no detections precision is 0; with no true boundaries recall is 1; with neither, all
+    three scores are 1.
+    """
     if n_true == 0 and n_pred == 0:
         precision = recall = 1.0
     else:
@@ -163,7 +168,7 @@ def pooled_boundary_scores(
         n_true += len(np.ravel(t))
         n_pred += len(np.ravel(p))
         n_matched += len(match_boundaries(t, p, margin)[0])
-    return _scores(n_true, n_pred, n_matched)
+    return scores_from_counts(n_true, n_pred, n_matched)
 
 
 def hausdorff(true: Sequence[int] | np.ndarray, predicted: Sequence[int] | np.ndarray) -> float:

@@ -34,6 +34,7 @@ from sklearn.metrics import adjusted_rand_score, normalized_mutual_info_score
 
 from ethoscribe.errors import InputError
 from ethoscribe.segment.agreement import boundary_f1
+from ethoscribe.segment.boundaries import scores_from_counts
 
 UNSCORED = "(unscored)"
 FRAME_COLUMNS = ("session", "animal", "frame", "behaviour", "motif", "fps")
@@ -196,7 +197,4 @@ def _boundaries(
         total["n_true"] += s.n_true
         total["n_predicted"] += s.n_predicted
         total["n_matched"] += s.n_matched
-    p = total["n_matched"] / total["n_predicted"] if total["n_predicted"] else 1.0
-    r = total["n_matched"] / total["n_true"] if total["n_true"] else 1.0
-    f1 = 2 * p * r / (p + r) if p + r > 0 else 0.0
-    return {**total, "precision": float(p), "recall": float(r), "f1": float(f1)}
+    return scores_from_counts(total["n_true"], total["n_predicted"], total["n_matched"])
