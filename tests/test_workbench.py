@@ -7,6 +7,7 @@ The workspace comes from the package's simulator (4 invented voles, 20 s each, s
 from __future__ import annotations
 
 import json
+import os
 import shutil
 import subprocess
 import sys
@@ -20,9 +21,9 @@ from plotly.callbacks import Points
 import ethoscribe
 from ethoscribe.ethogram import bout_table
 from ethoscribe.simulate import simulate_study, write_study
-from ethoscribe.widgets import Workbench
+from ethoscribe.widgets import Workbench, WorkbenchState
 from ethoscribe.workspace import Workspace, discover
-from ethoscribe.workspace.postures import session_postures, skeleton_for
+from ethoscribe.workspace.postures import skeleton_for
 
 SEED = 3
 
@@ -38,9 +39,7 @@ def built(tmp_path_factory) -> Path:
         table.to_csv(study / "manifest.csv", index=False)
     ws = discover([study], root / "ws", manifest=study / "manifest.csv", states=3,
                   stability=False, progress=False)  # fmt: skip
-    model = ws.model()
-    for session in ws.sessions["session"]:  # cached once; every copy below has them
-        session_postures(ws, session, model)
+    assert len(list((root / "ws" / "postures").glob("*.npz"))) == len(ws.sessions)  # cached
     return root / "ws"
 
 
@@ -98,6 +97,45 @@ def test_import_stays_light():
     code = "import sys, ethoscribe; print('ipywidgets' in sys.modules, 'plotly' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.split() == ["False", "False"]
+
+
+def test_opening_shows_its_first_screen_before_importing_plotly_widgets(folder):
+    # plotly's widget module takes 1.5-2 s to import (nbformat, jsonschema): the first screen
+    # does without it; the figures are made right after, or when code asks for one.
+    code = (
+        "import sys, ethoscribe\n"
+        f"wb = ethoscribe.workbench({str(folder)!r})\n"
+        "print('plotly.basewidget' in sys.modules, wb.portrait.slots['posture'].created)\n"
+        "wb.portrait.posture\n"
+        "print('plotly.basewidget' in sys.modules, wb.portrait.slots['posture'].created)\n"
+        "wb.close()\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.split() == ["False", "False", "True", "True"]
+
+
+def test_postures_cached_at_discover_and_recomputed_when_a_source_changes(folder, monkeypatch):
+    from ethoscribe.workspace import postures
+
+    made = []
+    compute = postures.compute_session_postures
+    monkeypatch.setattr(
+        postures,
+        "compute_session_postures",
+        lambda ws, session, *a, **k: made.append(session) or compute(ws, session, *a, **k),
+    )
+    state = WorkbenchState(folder, write_behind=False)
+    assert state.postures.available and made == []  # discover cached every session's
+    state.close()
+    source = postures.source_file(Workspace(folder), "session_02")
+    before = source.stat()
+    try:
+        os.utime(source, ns=(before.st_atime_ns, before.st_mtime_ns + 10**9))
+        state = WorkbenchState(folder, write_behind=False)
+        assert state.postures.available and made == ["session_02"]  # only the changed one
+        state.close()
+    finally:
+        os.utime(source, ns=(before.st_atime_ns, before.st_mtime_ns))  # other tests share it
 
 
 def test_opens_with_motifs_figures_and_cached_postures(folder):

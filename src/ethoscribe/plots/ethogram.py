@@ -13,8 +13,6 @@ import numpy as np
 import pandas as pd
 import plotly.colors
 import plotly.graph_objects as go
-from scipy.cluster import hierarchy
-from scipy.spatial.distance import squareform
 
 from ethoscribe.errors import InputError
 from ethoscribe.ethogram import FpsSpec, GroupSpec, bout_table, transition_matrix, with_groups
@@ -263,6 +261,9 @@ def motif_order(matrix: pd.DataFrame) -> list[str]:
     >>> motif_order(m)[1]
     'c'
     """
+    from scipy.cluster import hierarchy  # here: scipy.cluster takes ~0.2 s to import
+    from scipy.spatial.distance import squareform
+
     names = [str(m) for m in matrix.index]
     if len(names) < 3:
         return names

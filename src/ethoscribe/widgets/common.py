@@ -60,6 +60,20 @@ def on_enter(box: w.Text, action: Callable[[], Any]) -> None:
     box.on_msg(message)
 
 
+def after_display(action: Callable[[], Any]) -> None:
+    """Call ``action()`` once the running cell has finished (and shown its output).
+
+    In a notebook the kernel's event loop runs it after the cell, so what the cell displays
+    is on screen first. Without a running loop (plain Python) nothing is scheduled: what
+    ``action`` would make is made when first used.
+    """
+    try:
+        loop = asyncio.get_running_loop()
+    except RuntimeError:
+        return
+    loop.call_soon(action)
+
+
 class LazyDrawing:
     """Redraw only what is on screen: a page hidden behind another tab redraws when shown."""
 
@@ -80,6 +94,72 @@ class LazyDrawing:
         if visible and self._dirty:
             self._dirty = False
             self.draw()
+
+
+class FigureSlot(w.Box):
+    """The place of one plotly figure; its ``FigureWidget`` is made when first needed.
+
+    plotly's widget module takes 1.5-2 s to import in a fresh kernel (its renderers import
+    nbformat and jsonschema), more than the rest of the workbench's first screen. So a slot
+    shows a short note in a box of the figure's size until :attr:`figure` is first read (the
+    workbench reads it right after its first screen is shown); from then on :meth:`draw`
+    redraws the figure in place.
+
+    Parameters
+    ----------
+    make : callable returning a ``plotly.graph_objects.Figure``
+        Builds the figure from the current state (called at creation and on each draw).
+    css : str
+        CSS class of the FigureWidget (for tests and styling).
+    width, height : int
+        Size of the box before the figure is made (pixels).
+    on_created : callable, optional
+        Called with the new FigureWidget and after each redraw (e.g. to bind clicks).
+    """
+
+    def __init__(
+        self,
+        make: Callable[[], go.Figure],
+        css: str,
+        width: int,
+        height: int,
+        on_created: Callable[[Any], None] | None = None,
+    ) -> None:
+        waiting = note("drawing ...")
+        size = {"width": f"{width}px", "max_width": "100%", "min_height": f"{height}px"}
+        super().__init__([waiting], layout=w.Layout(**size))
+        self.add_class(f"{css}-slot")
+        self.make, self.css, self._on_created = make, css, on_created
+        self._figure: Any = None
+
+    @property
+    def created(self) -> bool:
+        return self._figure is not None
+
+    @property
+    def figure(self) -> go.FigureWidget:
+        """The FigureWidget (made, and shown in the slot, on first use)."""
+        if self._figure is None:
+            self._figure = figure_widget(self.make(), self.css)
+            self.layout.min_height = None
+            self.children = (self._figure,)
+            if self._on_created is not None:
+                self._on_created(self._figure)
+        return self._figure
+
+    def show(self) -> None:
+        """Make the figure, or redraw it if it was made."""
+        if self._figure is None:
+            self.figure  # noqa: B018 - made on first use
+        else:
+            self.draw()
+
+    def draw(self) -> None:
+        """Redraw from the current state (nothing to do before the figure is made)."""
+        if self._figure is not None:
+            redraw(self._figure, self.make())
+            if self._on_created is not None:
+                self._on_created(self._figure)
 
 
 def figure_widget(fig: go.Figure, css: str) -> go.FigureWidget:

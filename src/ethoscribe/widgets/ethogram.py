@@ -5,12 +5,11 @@ from __future__ import annotations
 
 import ipywidgets as w
 import numpy as np
-import plotly.graph_objects as go
 
 from ethoscribe.plots.ethogram import ethogram_raster, motif_colours
 from ethoscribe.plots.motifs import posture_figure
 from ethoscribe.postures import evenly_spaced_frames
-from ethoscribe.widgets.common import LazyDrawing, figure_widget, flow, heading, note, redraw
+from ethoscribe.widgets.common import FigureSlot, LazyDrawing, flow, heading, note
 from ethoscribe.widgets.state import WorkbenchState
 
 RASTER_BARS = 3000  # above this many bouts a session's raster is drawn from samples
@@ -28,14 +27,19 @@ class EthogramPage(LazyDrawing):
         sessions = state.sessions["session"].astype(str).tolist()
         self.session = w.Dropdown(options=sessions, value=state.session, description="Session")
         self.session.add_class("ethoscribe-session")
-        # Drawn when the page is first shown: opening the workbench does not wait for it.
-        self.raster = figure_widget(go.Figure(), "ethoscribe-raster")
+        # Made when the page is first shown: opening the workbench does not wait for them.
+        n_rows = max(state.session_bouts(state.session)["animal"].nunique(), 1)
+        self.raster_slot = FigureSlot(
+            self._raster_fig, "ethoscribe-raster", RASTER_WIDTH, 170 + 45 * n_rows,
+            self._hook_clicks,
+        )  # fmt: skip
         self._dirty = True
         self.bouts = w.Select(options=[], rows=9, layout=w.Layout(width="300px"))
         self.bouts.add_class("ethoscribe-bout-list")
         self.bouts.add_class("ethoscribe-motif-list")  # the same monospace list style
         self.bouts_title = heading("")
-        self.closeup = figure_widget(self._closeup_fig(None, 0), "ethoscribe-closeup")
+        self.closeup_slot = FigureSlot(self._current_closeup, "ethoscribe-closeup", 360, 360)
+        self._step = 0
         self.play = w.Play(value=0, min=0, max=0, interval=100, description="play")
         self.step = w.IntSlider(
             value=0, min=0, max=0, description="frame", layout=w.Layout(width="300px")
@@ -47,7 +51,6 @@ class EthogramPage(LazyDrawing):
         self._postures: np.ndarray | None = None
         self._span = 1.0
         self._quiet = False
-        self._hook_clicks()
         self.session.observe(lambda c: state.select_session(c["new"]), "value")
         self.bouts.observe(self._picked, "value")
         self.step.observe(lambda c: self.show_step(c["new"]), "value")
@@ -67,11 +70,11 @@ class EthogramPage(LazyDrawing):
                         ),
                     ]
                 ),
-                self.raster,
+                self.raster_slot,
                 flow(
                     [
                         w.VBox([self.bouts_title, self.bouts], layout=w.Layout(width="320px")),
-                        w.VBox([self.closeup, w.HBox([self.play, self.step]), self.info]),
+                        w.VBox([self.closeup_slot, w.HBox([self.play, self.step]), self.info]),
                         self.video,
                     ]
                 ),
@@ -111,8 +114,12 @@ class EthogramPage(LazyDrawing):
         )
         return fig
 
-    def _hook_clicks(self) -> None:
-        for trace in self.raster.data:
+    # The figures as FigureWidgets (each made on first use).
+    raster = property(lambda self: self.raster_slot.figure)
+    closeup = property(lambda self: self.closeup_slot.figure)
+
+    def _hook_clicks(self, raster) -> None:
+        for trace in raster.data:
             if trace.type == "bar":
                 trace.on_click(self._clicked, append=False)
 
@@ -128,8 +135,8 @@ class EthogramPage(LazyDrawing):
             self.state.select_bout(bout)
 
     def draw(self) -> None:
-        redraw(self.raster, self._raster_fig())
-        self._hook_clicks()
+        self.raster_slot.show()
+        self.closeup_slot.show()
         self._list_bouts()
 
     def _session_changed(self) -> None:
@@ -173,6 +180,10 @@ class EthogramPage(LazyDrawing):
             self.state.select_bout(self._rows[change["new"]])
 
     # --- close-up --------------------------------------------------------------------------
+    def _current_closeup(self):
+        shown = self._postures is not None and self._step < len(self._postures)
+        return self._closeup_fig(self._postures[self._step] if shown else None, self._step)
+
     def _closeup_fig(self, posture, step: int):
         lib = self.state.postures
         if posture is None or not lib.available:
@@ -225,7 +236,8 @@ class EthogramPage(LazyDrawing):
     def show_step(self, step: int) -> None:
         if self._postures is None or step >= len(self._postures):
             return
-        redraw(self.closeup, self._closeup_fig(self._postures[step], step))
+        self._step = step
+        self.closeup_slot.show()
         bout = self.state.bout
         time_s = bout["start_s"] + (self._frames[step] - bout["start_frame"]) * (
             bout["duration_s"] / max(bout["n_frames"], 1)

@@ -17,15 +17,14 @@ from ethoscribe.plots.motifs import (
     session_share_figure,
 )
 from ethoscribe.widgets.common import (
+    FigureSlot,
     LazyDrawing,
     button,
-    figure_widget,
     flow,
     heading,
     message_html,
     note,
     on_enter,
-    redraw,
     table_html,
 )
 from ethoscribe.widgets.state import SORT_KEYS, WorkbenchState
@@ -185,19 +184,35 @@ class MotifPortrait(LazyDrawing):
         self.state = state
         lib = state.postures
         self._span = self._common_span()
-        self.posture = figure_widget(self._posture_fig(), "ethoscribe-posture")
-        self.strip = figure_widget(self._strip_fig(), "ethoscribe-examples")
-        self.shares = figure_widget(self._shares_fig(), "ethoscribe-shares")
-        self.durations = figure_widget(self._durations_fig(), "ethoscribe-durations")
-        self.neighbours = figure_widget(self._neighbours_fig(), "ethoscribe-neighbours")
+        # Figures are made right after the first screen is shown (see FigureSlot).
+        self.slots = {
+            "posture": FigureSlot(self._posture_fig, "ethoscribe-posture", 360, 360),
+            "strip": FigureSlot(self._strip_fig, "ethoscribe-examples", 720, 360),
+            "shares": FigureSlot(self._shares_fig, "ethoscribe-shares", 420, 250),
+            "durations": FigureSlot(self._durations_fig, "ethoscribe-durations", 420, 250),
+            "neighbours": FigureSlot(self._neighbours_fig, "ethoscribe-neighbours", 440, 250),
+        }
         self.video = w.HBox([], layout=w.Layout(align_items="center"))
         self.skeleton_note = note(lib.edges_note if lib.available else (lib.problem or ""))
         state.on("motif", self.request_draw)
         state.on("names", self.request_draw)
         self.draw_video()
-        self.centre = w.VBox([self.posture, self.skeleton_note])
-        self.right = w.VBox([self.shares, self.durations])
-        self.examples = w.VBox([self.strip, self.video])
+        slot = self.slots
+        self.centre = w.VBox([slot["posture"], self.skeleton_note])
+        self.right = w.VBox([slot["shares"], slot["durations"]])
+        self.examples = w.VBox([slot["strip"], self.video])
+
+    # The figures as FigureWidgets (each made on first use).
+    posture = property(lambda self: self.slots["posture"].figure)
+    strip = property(lambda self: self.slots["strip"].figure)
+    shares = property(lambda self: self.slots["shares"].figure)
+    durations = property(lambda self: self.slots["durations"].figure)
+    neighbours = property(lambda self: self.slots["neighbours"].figure)
+
+    def make_figures(self) -> None:
+        """Make every figure of the portrait (it shows notes until then)."""
+        for slot in self.slots.values():
+            slot.figure  # noqa: B018 - made on first use
 
     def _common_span(self) -> float | None:
         lib = self.state.postures
@@ -264,11 +279,8 @@ class MotifPortrait(LazyDrawing):
         return fig
 
     def draw(self) -> None:
-        redraw(self.posture, self._posture_fig())
-        redraw(self.strip, self._strip_fig())
-        redraw(self.shares, self._shares_fig())
-        redraw(self.durations, self._durations_fig())
-        redraw(self.neighbours, self._neighbours_fig())
+        for slot in self.slots.values():
+            slot.draw()
         self.draw_video()
 
     def draw_video(self) -> None:

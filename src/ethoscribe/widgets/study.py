@@ -10,12 +10,12 @@ import pandas as pd
 
 from ethoscribe.plots.stats import group_difference_figure
 from ethoscribe.widgets.common import (
+    FigureSlot,
     LazyDrawing,
     button,
     figure_widget,
     heading,
     note,
-    redraw,
     table_html,
 )
 from ethoscribe.widgets.expert import ExpertSection
@@ -96,7 +96,7 @@ class GroupPage:
         if not columns:
             self.run.disabled = True
         self.summary = w.HTML()
-        self.figure = figure_widget(self._figure(), "ethoscribe-groups")
+        self.figure_slot = FigureSlot(self._figure, "ethoscribe-groups", FIGURE_WIDTH, 220)
         self.table = w.HTML()
         state.on("comparison", self.draw)
         hint = (
@@ -113,10 +113,12 @@ class GroupPage:
                 note(hint),
                 w.HBox([self.by, self.test, self.run]),
                 self.summary,
-                self.figure,
+                self.figure_slot,
                 self.table,
             ]
         )
+
+    figure = property(lambda self: self.figure_slot.figure)  # made on first use
 
     def _run(self) -> None:
         if self.by.value:
@@ -154,7 +156,7 @@ class GroupPage:
             f"<div style='font-size:13px;line-height:1.5;max-width:{FIGURE_WIDTH}px'>"
             f"{html.escape(result['summary'])}</div>"
         )
-        redraw(self.figure, self._figure())
+        self.figure_slot.show()
         stats: pd.DataFrame = result["stats"]
         cols = [
             c

@@ -10,7 +10,8 @@ from typing import Any
 
 import ipywidgets as w
 
-from ethoscribe.widgets.common import button, flow, message_html, note
+from ethoscribe.errors import EthoscribeError
+from ethoscribe.widgets.common import after_display, button, flow, message_html, note
 from ethoscribe.widgets.ethogram import EthogramPage
 from ethoscribe.widgets.motifs import CurationDesk, MotifList, MotifPortrait
 from ethoscribe.widgets.state import WorkbenchState
@@ -71,6 +72,14 @@ class Workbench(w.VBox):
         self.tabs.observe(self._page_shown, "selected_index")
         super().__init__([self._header(), self.tabs], layout=w.Layout(width="100%"))
         self.add_class("ethoscribe-workbench")
+        after_display(self._make_figures)
+
+    def _make_figures(self) -> None:
+        """The Motifs page's figures, made once its first screen is on view (see FigureSlot)."""
+        try:
+            self.portrait.make_figures()
+        except EthoscribeError as exc:  # e.g. a source file gone: say so, keep the page
+            self.state.say("error", f"could not draw the motif's figures: {exc}")
 
     # --- layout ---------------------------------------------------------------------------
     def _header(self) -> w.Widget:
@@ -98,7 +107,7 @@ class Workbench(w.VBox):
         top = flow([self.motif_list.widget, p.centre, p.right])
         closer = w.VBox(
             [
-                p.neighbours,
+                p.slots["neighbours"],
                 note("Watch an example bout move, with its video if the session has one:"),
                 flow([self.closer, self.closer_button]),
             ]
@@ -125,6 +134,8 @@ class Workbench(w.VBox):
         self.portrait.set_visible(page == "Motifs")
         self.ethogram.set_visible(page == "Ethogram")
         self.study.set_visible(page == "Study")
+        if page == "Groups":
+            self.groups.figure_slot.show()
 
     def _to_ethogram(self) -> None:
         self.tabs.selected_index = PAGES.index("Ethogram")

@@ -218,6 +218,24 @@ def session_postures(
     return fresh
 
 
+def cache_postures(ws: Workspace, model: BehaviourModel | None = None) -> dict[str, str]:
+    """Compute and cache every session's postures (``discover`` and ``label`` call it).
+
+    The workbench then opens on cached postures instead of reading every source file again.
+    Returns ``{session: problem}`` for sessions whose postures could not be made (their source
+    file gone, say); the workbench names them when it opens.
+    """
+    model = ws.model() if model is None else model
+    table = ws.sessions
+    problems = {}
+    for session in table["session"].astype(str):
+        try:
+            session_postures(ws, session, model, table)
+        except EthoscribeError as exc:
+            problems[session] = str(exc)
+    return problems
+
+
 def cached_postures(ws: Workspace, session: str) -> SessionPostures | None:
     """The cached postures of ``session`` without checking them against the source (fast)."""
     path = _cache_path(ws, session)

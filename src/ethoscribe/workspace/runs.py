@@ -53,6 +53,7 @@ from ethoscribe.workspace.folder import (
     write_ethogram_tables,
 )
 from ethoscribe.workspace.learned_labels import retire_learned
+from ethoscribe.workspace.postures import cache_postures
 from ethoscribe.workspace.reading import (
     as_path,
     as_paths,
@@ -187,6 +188,8 @@ def discover(
         retire_learned(out, now().replace(":", ""))  # learned from the old states' features
         ws = Workspace(out)
         write_ethogram_report(ws, out / "report.html", tables)
+        with ticking("postures for the workbench", progress):
+            cache_postures(ws, model)  # the workbench opens on them
         return ws
 
 
@@ -340,6 +343,8 @@ def label_sessions(
         ws = Workspace(out)
         tables = carry_learned(source, ws, locked=True) or tables  # the expert's names
         write_ethogram_report(ws, out / "report.html", tables)
+        with ticking("postures for the workbench", progress):
+            cache_postures(ws, model)  # the workbench opens on them
         return ws
 
 
