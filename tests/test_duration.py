@@ -1,13 +1,17 @@
 """Minimum-duration decoding: with d = 1 it is the HMM (hmmlearn 0.3.3 as the reference);
-with d > 1 it equals brute-force enumeration of every path that keeps the duration rule."""
+with d > 1 it equals brute-force enumeration of every path that keeps the duration rule, and
+hmmlearn run on the explicitly built expanded chain (K x d states, tied emissions)."""
 
 from __future__ import annotations
 
 import itertools
 
 import numpy as np
-from hmmlearn.hmm import CategoricalHMM
+import pytest
+from hmmlearn.hmm import CategoricalHMM, GaussianHMM
+from scipy.stats import norm
 
+from ethoscribe.errors import InputError
 from ethoscribe.segment.duration import forward_backward, viterbi
 
 START = np.array([0.8, 0.2])
@@ -15,38 +19,56 @@ TRANS = np.array([[0.6, 0.4], [0.5, 0.5]])
 EMIT = np.array([[0.2, 0.4, 0.4], [0.5, 0.4, 0.1]])
 
 
-def _reference() -> CategoricalHMM:
-    hmm = CategoricalHMM(n_components=2, init_params="", params="")
-    hmm.startprob_, hmm.transmat_, hmm.emissionprob_ = START, TRANS, EMIT
+def _reference(start=START, trans=TRANS, emit=EMIT) -> CategoricalHMM:
+    hmm = CategoricalHMM(n_components=len(start), init_params="", params="")
+    hmm.startprob_, hmm.transmat_, hmm.emissionprob_ = start, trans, emit
     return hmm
+
+
+def _log_b(emit: np.ndarray, obs: np.ndarray) -> np.ndarray:
+    return np.log(emit[:, obs].T)
 
 
 def test_one_frame_minimum_is_the_hmm():
     # Jurafsky & Martin's ice-cream HMM (parameters from memory): observations 3 1 3 give
     # P(O) = 0.028562 and the Viterbi path HOT COLD HOT with probability 0.0128.
     obs = np.array([2, 0, 2])
-    logE = np.log(EMIT[:, obs].T)
-    post, ll = forward_backward(logE, TRANS, START, 1)
-    path, best = viterbi(logE, TRANS, START, 1)
-    np.testing.assert_allclose(np.exp(ll), 0.028562, atol=1e-6)
+    post = forward_backward(_log_b(EMIT, obs), START, TRANS, 1)
+    path, best = viterbi(_log_b(EMIT, obs), START, TRANS, 1)
+    np.testing.assert_allclose(np.exp(post.log_likelihood), 0.028562, atol=1e-6)
     np.testing.assert_array_equal(path, [0, 1, 0])
     np.testing.assert_allclose(np.exp(best), 0.0128, atol=1e-6)
+
+
+def test_one_frame_minimum_equals_hmmlearn_on_many_sequences():
     rng = np.random.default_rng(0)
-    obs = rng.integers(0, 3, 200)
-    logE = np.log(EMIT[:, obs].T)
-    post, ll = forward_backward(logE, TRANS, START, 1)
-    hmm = _reference()  # hmmlearn: score, posteriors and Viterbi path
-    np.testing.assert_allclose(ll, hmm.score(obs[:, None]), rtol=1e-10)
-    np.testing.assert_allclose(post, hmm.predict_proba(obs[:, None]), atol=1e-10)
-    path, best = viterbi(logE, TRANS, START, 1)
-    ref_best, ref_path = hmm.decode(obs[:, None], algorithm="viterbi")
+    K = 4
+    start = rng.dirichlet(np.ones(K))
+    trans = rng.dirichlet(np.ones(K), size=K) * 0.3 + 0.7 * np.eye(K)
+    emit = rng.dirichlet(np.ones(6), size=K)
+    lengths = np.array([200, 1, 57, 3])
+    obs = rng.integers(0, 6, lengths.sum())
+    post = forward_backward(_log_b(emit, obs), start, trans, 1, lengths)
+    path, best = viterbi(_log_b(emit, obs), start, trans, 1, lengths)
+    hmm = _reference(start, trans, emit)  # hmmlearn 0.3.3: score, posteriors, Viterbi path
+    np.testing.assert_allclose(post.gamma, hmm.predict_proba(obs[:, None], lengths), atol=1e-12)
+    np.testing.assert_allclose(
+        post.log_likelihood.sum(), hmm.score(obs[:, None], lengths), rtol=1e-12
+    )
+    ref_best, ref_path = hmm.decode(obs[:, None], lengths, algorithm="viterbi")
     np.testing.assert_array_equal(path, ref_path)
-    np.testing.assert_allclose(best, ref_best, rtol=1e-10)
+    np.testing.assert_allclose(best.sum(), ref_best, rtol=1e-12)
 
 
-def _feasible(path: tuple[int, ...], d: int) -> bool:
-    runs = [len(list(g)) for _, g in itertools.groupby(path)]
-    return all(r >= d for r in runs[:-1])  # the last bout may be cut by the end
+def _runs(path) -> list[int]:
+    return [len(list(g)) for _, g in itertools.groupby(path)]
+
+
+def _feasible(path: tuple[int, ...], d: int, complete: bool) -> bool:
+    runs = _runs(path)
+    if len(runs) == 1:
+        return True  # a sequence shorter than d is one bout
+    return all(r >= d for r in (runs if complete else runs[:-1]))
 
 
 def _path_probability(path, obs, d) -> float:
@@ -64,20 +86,106 @@ def _path_probability(path, obs, d) -> float:
     return p
 
 
-def test_minimum_duration_equals_brute_force():
+@pytest.mark.parametrize("complete", [True, False])
+@pytest.mark.parametrize("n_frames", [7, 2])
+def test_minimum_duration_equals_brute_force(complete, n_frames):
+    # Reference: every state path of the sequence enumerated; those breaking the rule dropped.
     rng = np.random.default_rng(1)
-    obs = rng.integers(0, 3, 7)
-    logE = np.log(EMIT[:, obs].T)
+    obs = rng.integers(0, 3, n_frames)
+    logE = _log_b(EMIT, obs)
     for d in (2, 3):
-        paths = [p for p in itertools.product(range(2), repeat=7) if _feasible(p, d)]
+        paths = [
+            p for p in itertools.product(range(2), repeat=n_frames) if _feasible(p, d, complete)
+        ]
         probs = np.array([_path_probability(p, obs, d) for p in paths])
-        post, ll = forward_backward(logE, TRANS, START, d)
-        np.testing.assert_allclose(np.exp(ll), probs.sum(), rtol=1e-10)
-        marg = np.zeros((7, 2))
+        post = forward_backward(logE, START, TRANS, d, last_bout_complete=complete)
+        np.testing.assert_allclose(np.exp(post.log_likelihood), probs.sum(), rtol=1e-12)
+        marg = np.zeros((n_frames, 2))
         for p, w in zip(paths, probs, strict=True):
-            marg[np.arange(7), p] += w
-        np.testing.assert_allclose(post, marg / probs.sum(), atol=1e-12)
-        path, best = viterbi(logE, TRANS, START, d)
-        np.testing.assert_allclose(np.exp(best), probs.max(), rtol=1e-10)
+            marg[np.arange(n_frames), p] += w
+        np.testing.assert_allclose(post.gamma, marg / probs.sum(), atol=1e-13)
+        path, best = viterbi(logE, START, TRANS, d, last_bout_complete=complete)
+        np.testing.assert_allclose(np.exp(best), probs.max(), rtol=1e-12)
         np.testing.assert_array_equal(path, paths[int(probs.argmax())])
-        assert _feasible(tuple(path), d)
+        assert _feasible(tuple(path), d, complete)
+
+
+def _expanded(start, trans, emit, d):
+    """The chain of (state, age) sub-states written out: sub-state k * d + j."""
+    K = len(start)
+    big = np.zeros((K * d, K * d))
+    for k in range(K):
+        for j in range(d - 1):
+            big[k * d + j, k * d + j + 1] = 1.0
+        for m in range(K):
+            big[k * d + d - 1, m * d + (d - 1 if m == k else 0)] = trans[k, m]
+    big_start = np.zeros(K * d)
+    big_start[::d] = start
+    return big_start, big, np.repeat(emit, d, axis=0)
+
+
+def test_minimum_duration_equals_hmmlearn_on_the_expanded_chain():
+    # Reference: hmmlearn's GaussianHMM on the K*d-state chain built by hand (each sub-state
+    # with its state's mean and variance), posteriors summed over each state's ages. hmmlearn
+    # lets a path end in any sub-state, which is last_bout_complete=False here. Continuous
+    # observations: no two paths tie.
+    rng = np.random.default_rng(2)
+    K, d = 3, 4
+    start = rng.dirichlet(np.ones(K))
+    trans = rng.dirichlet(np.ones(K), size=K) * 0.4 + 0.6 * np.eye(K)
+    means, sds = np.array([-1.0, 0.0, 1.5]), np.array([0.7, 1.0, 0.8])
+    lengths = np.array([300, 2, 41])
+    x = rng.normal(size=lengths.sum()) * 1.5
+    big_start, big_trans, _ = _expanded(start, trans, np.eye(K), d)
+    hmm = GaussianHMM(n_components=K * d, covariance_type="diag", init_params="", params="")
+    hmm.startprob_, hmm.transmat_ = big_start, big_trans
+    hmm.means_ = np.repeat(means, d)[:, None]
+    hmm.covars_ = np.repeat(sds**2, d)[:, None]
+    ref_post = hmm.predict_proba(x[:, None], lengths).reshape(-1, K, d).sum(axis=2)
+    ref_best, ref_path = hmm.decode(x[:, None], lengths, algorithm="viterbi")
+    log_b = norm.logpdf(x[:, None], means, sds)  # scipy.stats
+    post = forward_backward(log_b, start, trans, d, lengths, last_bout_complete=False)
+    path, best = viterbi(log_b, start, trans, d, lengths, last_bout_complete=False)
+    np.testing.assert_allclose(post.gamma, ref_post, atol=1e-11)
+    np.testing.assert_allclose(
+        post.log_likelihood.sum(), hmm.score(x[:, None], lengths), rtol=1e-12
+    )
+    np.testing.assert_array_equal(path, ref_path // d)
+    np.testing.assert_allclose(best.sum(), ref_best, rtol=1e-12)
+
+
+def test_every_bout_keeps_the_minimum_and_probabilities_follow_the_labels():
+    rng = np.random.default_rng(3)
+    K, d = 5, 6
+    trans = np.full((K, K), 0.05 / (K - 1)) + 0.95 * np.eye(K) - 0.05 / (K - 1) * np.eye(K)
+    log_b = rng.normal(size=(2000, K)) * 3.0  # noisy evidence: plain Viterbi makes short bouts
+    lengths = np.array([1500, 4, 496])
+    path, _ = viterbi(log_b, np.full(K, 1 / K), trans, d, lengths)
+    post = forward_backward(log_b, np.full(K, 1 / K), trans, d, lengths)
+    bounds = np.cumsum(lengths)
+    for piece in np.split(path, bounds[:-1]):
+        runs = _runs(piece)
+        assert len(runs) == 1 or min(runs) >= d
+    np.testing.assert_allclose(post.gamma.sum(axis=1), 1.0, atol=1e-12)
+    own = post.gamma[np.arange(len(path)), path]
+    assert np.quantile(own, 0.01) > 0.05  # the labels are probable under their own model
+
+
+def test_extreme_emissions_do_not_collapse():
+    # A frame only state 1 can explain, right after state 0 was entered: no path keeping the
+    # rule explains it better than 1e-400, which underflows a plain scaled recursion.
+    log_b = np.zeros((12, 2))
+    log_b[4:, 1] = -2000.0
+    log_b[5, :] = [-2000.0, 0.0]
+    post = forward_backward(log_b, np.array([0.5, 0.5]), np.full((2, 2), 0.5), 4)
+    assert np.isfinite(post.gamma).all()
+    np.testing.assert_allclose(post.gamma.sum(axis=1), 1.0)
+
+
+def test_bad_arguments_are_named():
+    with pytest.raises(InputError, match="min_frames"):
+        viterbi(np.zeros((3, 2)), START, TRANS, 0)
+    with pytest.raises(InputError, match="min_frames"):
+        forward_backward(np.zeros((3, 2)), START, TRANS, 2.5)
+    with pytest.raises(InputError, match="lengths"):
+        viterbi(np.zeros((3, 2)), START, TRANS, 2, np.array([2, 2]))

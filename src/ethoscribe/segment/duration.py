@@ -8,128 +8,163 @@ HMM's ``a_lk``, ``l != k``) and left only from ``(k, d-1)``, which keeps itself 
 Each bout therefore lasts at least ``d`` frames; beyond that its duration stays geometric, as
 in the HMM (an explicit-duration / semi-Markov model with a shifted geometric duration, Yu
 2010, Artificial Intelligence 174, 215-243). With ``d = 1`` it is exactly the HMM: the same
-forward pass, likelihood and Viterbi path.
+forward pass, likelihood, posteriors and Viterbi path.
 
-Posteriors of the expanded model, summed over each state's sub-states, give every frame the
-probability of its state under the duration rule, so the decoded label and its probability
-come from one model.
+By default a sequence must also end at age ``d-1``, so its last bout is complete too and every
+bout of a sequence is at least ``d`` frames long; a sequence shorter than ``d`` frames is one
+bout. Viterbi on the chain gives the labels; forward-backward on the same chain, summed over
+each state's sub-states, gives every frame the probability of its state under the duration
+rule, so the decoded label and its probability come from one model.
+
+Cost: ``O(T K (K + d))`` time and ``O(T K)`` memory (numba kernels in ``_duration_kernels``).
+Emission likelihoods below ``MIN_RELATIVE_LIKELIHOOD`` times the best state's in the same
+frame are raised to it: the duration rule can force a path through a frame that every allowed
+sub-state explains this badly, and the floor keeps the scaled recursion's normaliser above
+``MIN_RELATIVE_LIKELIHOOD / (K^2 d)`` (no underflow to zero). It changes nothing a decision
+could see.
 """
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 
 from ethoscribe.errors import InputError
+from ethoscribe.segment._duration_kernels import md_forward, md_posteriors, md_viterbi
+from ethoscribe.segment._hmm_kernels import _check_chain, _row_max
+
+MIN_RELATIVE_LIKELIHOOD = 1e-250
 
 
-def _check(log_emission: np.ndarray, transmat: np.ndarray, startprob: np.ndarray, d: int):
-    E = np.asarray(log_emission, dtype=np.float64)
-    A = np.asarray(transmat, dtype=np.float64)
-    pi = np.asarray(startprob, dtype=np.float64)
-    K = A.shape[0]
-    if E.ndim != 2 or E.shape[1] != K or A.shape != (K, K) or pi.shape != (K,):
-        msg = (
-            f"minimum-duration decoding needs log emissions (T, K), a (K, K) transition matrix "
-            f"and K start probabilities; got {E.shape}, {A.shape}, {pi.shape}"
-        )
-        raise InputError(msg)
-    if int(d) < 1:
+class DurationPosteriors(NamedTuple):
+    """gamma : (T, K) state posteriors per frame; log_likelihood : (n_sequences,) log of the
+    probability of each sequence summed over the paths that keep the duration rule."""
+
+    gamma: np.ndarray
+    log_likelihood: np.ndarray
+
+
+def _prepare(log_emission, startprob, transmat, min_frames, lengths, last_bout_complete):
+    if isinstance(min_frames, bool) or not isinstance(min_frames, int | np.integer):
+        raise InputError(f"min_frames must be a whole number of frames >= 1; got {min_frames!r}")
+    d = int(min_frames)
+    if d < 1:
         raise InputError(f"min_frames must be >= 1; got {d}")
-    return E, A, pi, int(d)
+    log_emission, startprob, transmat, starts, ends = _check_chain(
+        log_emission, startprob, transmat, lengths
+    )
+    complete = (ends - starts >= d) & bool(last_bout_complete)
+    return log_emission, startprob, transmat, starts, ends, complete, d
+
+
+def _relative_log_emission(log_emission: np.ndarray, overwrite: bool) -> tuple[np.ndarray, ...]:
+    """``max(log_b - frame max, log MIN_RELATIVE_LIKELIHOOD)`` and the frame maxima."""
+    frame_max = _row_max(log_emission)
+    out = log_emission if overwrite else np.empty_like(log_emission)
+    np.subtract(log_emission, frame_max[:, None], out=out)
+    np.maximum(out, np.log(MIN_RELATIVE_LIKELIHOOD), out=out)
+    return out, frame_max
 
 
 def forward_backward(
-    log_emission: np.ndarray, transmat: np.ndarray, startprob: np.ndarray, min_frames: int
-) -> tuple[np.ndarray, float]:
-    """Posterior of each state per frame (T, K) and the log-likelihood, under the minimum
-    bout duration (scaled forward-backward over the K x d sub-states)."""
-    E, A, pi, d = _check(log_emission, transmat, startprob, min_frames)
-    T, K = E.shape
-    if T == 0:
-        return np.zeros((0, K)), 0.0
-    shift = E.max(1, keepdims=True)
-    B = np.exp(E - shift)  # (T, K), scaled emissions
-    off = A * (1 - np.eye(K))  # entries from other states
-    stay = np.diag(A).copy()
-    alpha = np.zeros((T, K, d))
-    scale = np.zeros(T)
-    a = np.zeros((K, d))
-    a[:, 0] = pi * B[0]
-    c = a.sum()
-    alpha[0] = a / c
-    scale[0] = c
-    for t in range(1, T):
-        prev = alpha[t - 1]
-        a = np.empty((K, d))
-        last = prev[:, d - 1]
-        if d == 1:
-            a[:, 0] = last @ A
-        else:
-            a[:, 0] = last @ off
-            a[:, 1:] = prev[:, :-1]
-            a[:, d - 1] += last * stay
-        a *= B[t][:, None]
-        c = a.sum()
-        alpha[t] = a / c
-        scale[t] = c
-    beta = np.ones((K, d))
-    post = np.zeros((T, K))
-    post[T - 1] = alpha[T - 1].sum(1)
-    for t in range(T - 2, -1, -1):
-        nb = beta * B[t + 1][:, None]  # (K, d) at t+1, times emission
-        b = np.empty((K, d))
-        if d == 1:
-            b[:, 0] = A @ nb[:, 0]
-        else:
-            b[:, :-1] = nb[:, 1:]
-            b[:, d - 1] = off @ nb[:, 0] + stay * nb[:, d - 1]
-        beta = b / scale[t + 1]
-        post[t] = (alpha[t] * beta).sum(1)
-    post /= post.sum(1, keepdims=True)
-    return post, float(np.log(scale).sum() + shift.sum())
+    log_emission: np.ndarray,
+    startprob: np.ndarray,
+    transmat: np.ndarray,
+    min_frames: int,
+    lengths: np.ndarray | None = None,
+    last_bout_complete: bool = True,
+    overwrite: bool = False,
+) -> DurationPosteriors:
+    """State posteriors per frame under the minimum bout duration, and log-likelihoods.
+
+    Parameters
+    ----------
+    log_emission : array (T, K)
+        ``log P(obs_t | state k)``.
+    startprob : array (K,); transmat : array (K, K), rows sum to one.
+    min_frames : int
+        Shortest bout ``d`` (frames); 1 is the plain HMM.
+    lengths : int array (n_sequences,), optional
+        Sequences stacked along the frame axis; no bout crosses a boundary.
+    last_bout_complete : bool
+        Require the last bout of a sequence to be ``d`` frames long too (sequences shorter
+        than ``d`` are one bout either way).
+    overwrite : bool
+        Reuse ``log_emission`` as a work buffer (its content is destroyed).
+
+    Returns
+    -------
+    DurationPosteriors
+        ``gamma (T, K)`` (rows sum to one), ``log_likelihood (n_sequences,)``.
+
+    Examples
+    --------
+    >>> log_b = np.log([[.9, .1], [.1, .9], [.9, .1]])
+    >>> post = forward_backward(log_b, np.array([.5, .5]), np.full((2, 2), .5), 3)
+    >>> post.gamma.round(3).tolist()  # one bout of 3 frames: state 0 or state 1
+    [[0.9, 0.1], [0.9, 0.1], [0.9, 0.1]]
+    """
+    log_emission, startprob, transmat, starts, ends, complete, d = _prepare(
+        log_emission, startprob, transmat, min_frames, lengths, last_bout_complete
+    )
+    b, frame_max = _relative_log_emission(log_emission, overwrite)
+    np.exp(b, out=b)
+    trans_in, stay = _entry_matrix(transmat, d)
+    entry, last = np.empty_like(b), np.empty_like(b)
+    scale, z = np.empty(len(b)), np.empty(len(starts))
+    md_forward(b, startprob, trans_in, stay, d, starts, ends, complete, entry, last, scale, z)
+    md_posteriors(b, trans_in, stay, d, starts, ends, complete, scale, entry, last)
+    with np.errstate(divide="ignore"):
+        log_scale = np.log(scale) + frame_max
+        log_likelihood = np.add.reduceat(log_scale, starts) + np.log(z)
+    return DurationPosteriors(entry, log_likelihood)
 
 
 def viterbi(
-    log_emission: np.ndarray, transmat: np.ndarray, startprob: np.ndarray, min_frames: int
-) -> tuple[np.ndarray, float]:
-    """Most probable state path (T,) with every bout at least ``min_frames`` long (except
-    a bout cut by the end of the sequence), and its log-probability."""
-    E, A, pi, d = _check(log_emission, transmat, startprob, min_frames)
-    T, K = E.shape
-    if T == 0:
-        return np.zeros(0, dtype=np.int64), 0.0
+    log_emission: np.ndarray,
+    startprob: np.ndarray,
+    transmat: np.ndarray,
+    min_frames: int,
+    lengths: np.ndarray | None = None,
+    last_bout_complete: bool = True,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Most probable state path with every bout at least ``min_frames`` long.
+
+    Parameters are those of :func:`forward_backward`.
+
+    Returns
+    -------
+    path : int64 array (T,); log_prob : array (n_sequences,) joint log-probability of each
+    sequence with its path (-inf when no path keeps the rule).
+
+    Examples
+    --------
+    >>> log_b = np.log([[.9, .1], [.9, .1], [.01, .99], [.9, .1], [.9, .1]])
+    >>> sticky = np.array([[.9, .1], [.1, .9]])
+    >>> viterbi(log_b, np.array([.5, .5]), sticky, 1)[0].tolist()
+    [0, 0, 1, 0, 0]
+    >>> viterbi(log_b, np.array([.5, .5]), sticky, 2)[0].tolist()
+    [0, 0, 0, 0, 0]
+    """
+    log_emission, startprob, transmat, starts, ends, complete, d = _prepare(
+        log_emission, startprob, transmat, min_frames, lengths, last_bout_complete
+    )
+    log_b, frame_max = _relative_log_emission(log_emission, overwrite=False)
+    trans_in, stay = _entry_matrix(transmat, d)
     with np.errstate(divide="ignore"):
-        logA, logpi = np.log(A), np.log(pi)
-    logoff = np.where(np.eye(K, dtype=bool), -np.inf, logA) if d > 1 else logA
-    logstay = np.diag(logA).copy()
-    delta = np.full((K, d), -np.inf)
-    delta[:, 0] = logpi + E[0]
-    entry_from = np.zeros((T, K), dtype=np.int32)  # best previous state on entering k at t
-    kept = np.zeros((T, K), dtype=bool)  # (k, d-1) at t came from (k, d-1) (not (k, d-2))
-    for t in range(1, T):
-        cand = delta[:, d - 1][:, None] + logoff  # (from l, to k)
-        entry_from[t] = cand.argmax(0)
-        new = np.empty((K, d))
-        new[:, 0] = cand.max(0)
-        if d > 1:
-            new[:, 1:] = delta[:, :-1]
-            selfish = delta[:, d - 1] + logstay
-            kept[t] = selfish > new[:, d - 1]
-            new[:, d - 1] = np.maximum(new[:, d - 1], selfish)
-        new += E[t][:, None]
-        delta = new
-    # a sequence may end inside a bout's minimum: any sub-state is a valid end
-    k, j = np.unravel_index(np.argmax(delta), delta.shape)
-    best = float(delta[k, j])
-    path = np.empty(T, dtype=np.int64)
-    for t in range(T - 1, -1, -1):
-        path[t] = k
-        if t == 0:
-            break
-        if j == 0:
-            k, j = int(entry_from[t, k]), d - 1
-        elif j == d - 1 and d > 1 and kept[t, k]:
-            pass
-        else:
-            j -= 1
-    return path, best
+        log_start, log_in, log_stay = np.log(startprob), np.log(trans_in), np.log(stay)
+    path = np.empty(len(log_b), dtype=np.int64)
+    best = np.empty(len(starts))
+    md_viterbi(log_b, log_start, log_in, log_stay, d, starts, ends, complete, path, best)
+    return path, best + np.add.reduceat(frame_max, starts)
+
+
+def _entry_matrix(transmat: np.ndarray, d: int) -> tuple[np.ndarray, np.ndarray]:
+    """Transitions into age 0 (the diagonal removed when d > 1) and the self-transitions."""
+    stay = np.ascontiguousarray(np.diag(transmat))
+    if d == 1:
+        return transmat, stay
+    trans_in = transmat.copy()
+    np.fill_diagonal(trans_in, 0.0)
+    return trans_in, stay
