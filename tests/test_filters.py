@@ -13,11 +13,13 @@ from scipy import signal as sps
 from ethoscribe.errors import InputError
 from ethoscribe.filters import (
     CausalBandPower,
+    CausalLowPass,
     TrailingDerivative,
     TrailingStd,
     band_power,
     derivative,
     fill_gaps,
+    lowpass,
     rolling_std,
 )
 
@@ -171,14 +173,34 @@ def test_online_filters_give_the_same_numbers_in_any_chunks(sizes):
         TrailingDerivative(2, 30.0, 0.2).process(x),
         CausalBandPower(2, 30.0, [1.0, 4.0]).process(x),
         TrailingStd(2, 6).process(x),
+        CausalLowPass(2, 30.0, 2.0).process(x),
     ]
     parts = [TrailingDerivative(2, 30.0, 0.2), CausalBandPower(2, 30.0, [1.0, 4.0])]
-    parts.append(TrailingStd(2, 6))
+    parts += [TrailingStd(2, 6), CausalLowPass(2, 30.0, 2.0)]
     bounds = np.cumsum([0, *sizes])
     for ref, op in zip(whole, parts, strict=True):
         out = np.concatenate([op.process(x[a:b]) for a, b in itertools.pairwise(bounds)])
         np.testing.assert_allclose(out, ref, atol=1e-12)
         np.testing.assert_array_equal(np.isnan(out), np.isnan(ref))
+
+
+def test_lowpass_is_scipys_butterworth_both_ways():
+    # Reference: scipy.signal butter + sosfiltfilt (offline) and sosfilt started at rest on the
+    # first value, sosfilt_zi * x[0] (causal); gaps are bridged and masked again.
+    rng = np.random.default_rng(6)  # seed 6
+    x = np.cumsum(rng.normal(size=(500, 3)), axis=0)
+    sos = sps.butter(2, 1.5, "lowpass", fs=30.0, output="sos")
+    offline = sps.sosfiltfilt(sos, x, axis=0, padlen=min(499, max(15, int(2 * 30 / 1.5))))
+    np.testing.assert_allclose(lowpass(x, 30.0, 1.5), offline, atol=1e-10)
+    zi = sps.sosfilt_zi(sos)[:, :, None] * x[0]
+    causal = sps.sosfilt(sos, x, axis=0, zi=zi)[0]
+    np.testing.assert_allclose(lowpass(x, 30.0, 1.5, causal=True), causal, atol=1e-10)
+    gappy = x.copy()
+    gappy[100:110, 1] = np.nan
+    out = lowpass(gappy, 30.0, 1.5)
+    assert np.isnan(out[100:110, 1]).all() and np.isfinite(np.delete(out, slice(100, 110), 0)).all()
+    with pytest.raises(InputError, match="Nyquist"):
+        lowpass(x, 10.0, 5.0)
 
 
 def test_bad_parameters_raise_input_errors():

@@ -6,9 +6,10 @@ missing frame, fills gaps before filtering (linear interpolation offline, last v
 forward when causal) and puts NaN back on the missing frames afterwards.
 
 Causal versions use past frames only. They are small stateful objects (``TrailingDerivative``,
-``CausalBandPower``, ``TrailingStd``) whose ``process`` takes the signal in chunks of any length:
-feeding one frame at a time gives the same numbers as feeding the whole recording (bit for bit
-for the derivative and band power, to rounding for the rolling std).
+``CausalBandPower``, ``CausalLowPass``, ``TrailingStd``) whose ``process`` takes the signal in
+chunks of any length: feeding one frame at a time gives the same numbers as feeding the whole
+recording (bit for bit for the derivative, band power and low-pass, to rounding for the
+rolling std).
 """
 
 from __future__ import annotations
@@ -367,6 +368,102 @@ def band_power(
     np.maximum(out, 0.0, out=out)
     out[missing] = np.nan
     return out
+
+
+def lowpass_filter(cutoff_hz: float, fps: float, order: int = 2) -> np.ndarray:
+    """Butterworth low-pass at ``cutoff_hz`` as second-order sections (cut-off below Nyquist)."""
+    f = _check_positive(cutoff_hz, "cutoff_hz")
+    if f >= fps / 2:
+        msg = (
+            f"low-pass cut-off {f:g} Hz is at or above the Nyquist frequency {fps / 2:g} Hz of "
+            f"{fps:g} fps; use a longer window or a higher frame rate"
+        )
+        raise InputError(msg)
+    return sps.butter(order, f, "lowpass", fs=fps, output="sos")
+
+
+@njit(cache=True)
+def _lowpass_kernel(x, sos, unit, z, started, out):
+    """Cascaded sections over x (n, C) gap-filled; unit (s, 2) state at rest for input 1;
+    z (C, s, 2) and started (C,) are the carried state (updated in place); out (n, C)."""
+    for c in range(x.shape[1]):
+        t0 = 0
+        if not started[c]:
+            while t0 < x.shape[0] and not np.isfinite(x[t0, c]):
+                out[t0, c] = np.nan
+                t0 += 1
+            if t0 == x.shape[0]:
+                continue
+            started[c] = True  # start at rest on the first finite value: no step transient
+            z[c] = unit * x[t0, c]
+        zc = z[c]
+        for t in range(t0, x.shape[0]):
+            out[t, c] = _biquads(sos, zc, x[t, c])
+
+
+class CausalLowPass:
+    """Online Butterworth low-pass (one-way, past frames only), filter state carried over.
+
+    Each channel starts at rest at its first finite value (NaN before); gaps are bridged by
+    the last finite value and masked again in the output. Same recursion as scipy's
+    ``sosfilt`` (direct form II transposed).
+    """
+
+    def __init__(self, n_channels: int, fps: float, cutoff_hz: float, order: int = 2) -> None:
+        self.sos = lowpass_filter(cutoff_hz, _check_positive(fps, "fps"), order)
+        self._unit = sps.sosfilt_zi(self.sos)
+        self._z = np.zeros((n_channels, *self._unit.shape))
+        self._started = np.zeros(n_channels, dtype=np.bool_)
+        self._last = np.full(n_channels, np.nan)
+
+    def process(self, chunk: np.ndarray) -> np.ndarray:
+        """Low-passed next frames, shape (n, n_channels)."""
+        x = _as_2d(chunk)
+        filled, self._last = _forward_fill(x, self._last)
+        out = np.empty_like(x)
+        _lowpass_kernel(
+            np.ascontiguousarray(filled), self.sos, self._unit, self._z, self._started, out
+        )
+        out[~np.isfinite(x)] = np.nan
+        return out
+
+
+def lowpass(
+    signal: np.ndarray, fps: float, cutoff_hz: float, causal: bool = False, order: int = 2
+) -> np.ndarray:
+    """Butterworth low-pass of each channel: zero-phase (``sosfiltfilt``) offline, one-way
+    (``sosfilt``, past frames only) when causal.
+
+    Parameters
+    ----------
+    signal : array, shape (F,) or (F, C)
+        NaN marks missing frames (filled, then masked again).
+    fps, cutoff_hz : float
+        Frame rate and cut-off (Hz, below Nyquist).
+    causal : bool
+    order : int
+        Butterworth order (offline the response is applied twice: squared magnitude).
+
+    Returns
+    -------
+    array of the signal's shape.
+
+    Examples
+    --------
+    >>> t = np.arange(600) / 30
+    >>> y = lowpass(1 + np.sin(2 * np.pi * 5 * t), 30, 1.0)
+    >>> bool(np.abs(y[60:-60] - 1).max() < 0.01)
+    True
+    """
+    x = _as_2d(signal)
+    fps = _check_positive(fps, "fps")
+    if causal:
+        return CausalLowPass(x.shape[1], fps, cutoff_hz, order).process(x).reshape(np.shape(signal))
+    sos = lowpass_filter(cutoff_hz, fps, order)
+    pad = min(len(x) - 1, max(3 * (2 * len(sos) + 1), int(2 * fps / cutoff_hz)))
+    out = sps.sosfiltfilt(sos, _interp_fill(x), axis=0, padlen=pad) if len(x) > 1 else x.copy()
+    out[~np.isfinite(x)] = np.nan
+    return out.reshape(np.shape(signal))
 
 
 def _trailing_std(ext: np.ndarray, w: int, min_count: int, start: int) -> np.ndarray:

@@ -16,6 +16,14 @@ Two column sets (``<u>`` = the tracks' units, e.g. ``cm``). ``feature_set="compa
     log_posture_band_<f>hz              log(RMS amplitude of the whole posture, summed over the
                                         components, in the one-octave band around f Hz + c)
 
+Band centres: by default 0.5, 1, 2, 4 and 8 Hz, those whose band ends at or below 95 % of the
+Nyquist frequency (all from 24 fps; 0.5-2 Hz at 10 fps; ``frequencies_``). Options (off by
+default): ``posture_window_s`` / ``speed_window_s`` replace the posture components / speeds by
+their average over about that many seconds (``..._mean_<w>s``: one level for every phase of a
+rhythm); in 3-D ``vertical="separate"`` takes the centroid's height out of the posture (the
+components describe the shape) and adds ``log_height_<u>`` (above the floor, the 1 % quantile)
+and ``log_vertical_speed_<u>_s`` (the centroid speed is then horizontal).
+
 Why: a Gaussian HMM models each state by a mean and a covariance, so every column should be
 informative, low in noise and roughly Gaussian within a behaviour. Speeds and amplitudes are
 skewed over orders of magnitude (still 1-5 mm/s, walking 100-300 mm/s); their logarithm is

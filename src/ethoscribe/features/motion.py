@@ -12,11 +12,13 @@ import numpy as np
 from ethoscribe.errors import InputError
 from ethoscribe.filters import (
     CausalBandPower,
+    CausalLowPass,
     TrailingDerivative,
     TrailingStd,
     band_filters,
     band_power,
     derivative,
+    lowpass,
     rolling_std,
 )
 from ethoscribe.geometry import horizontal_axes, unwrap_angles
@@ -37,7 +39,20 @@ class _Motion:
         compact = pipe.feature_set == "compact"
         n_shape = pipe.n_components_ if compact else k * d  # channels of the posture speed
         w_std = max(1, round(pipe.variability_window_s * fps))
-        vw, freqs = pipe.velocity_window_s, tuple(pipe.frequencies)
+        vw, freqs = pipe.velocity_window_s, tuple(pipe.frequencies_)
+        # Windowed means (compact set): a low-pass at the -3 dB point of a w-second average.
+        self.posture_mean = self.speed_mean = None
+        n_speeds = 4 if pipe._separate_heights else 3
+        for name, channels in (("posture", pipe.n_components_), ("speed", n_speeds)):
+            w = getattr(pipe, f"{name}_window_s")
+            if not compact or w is None:
+                continue
+            cut = MOVING_AVERAGE_CUTOFF / float(w)
+            if pipe.causal:
+                smooth = CausalLowPass(channels, fps, cut).process
+            else:
+                smooth = partial(lowpass, fps=fps, cutoff_hz=cut)
+            setattr(self, f"{name}_mean", smooth)
         if pipe.causal:
             self.d_small = TrailingDerivative(n_small, fps, vw).process
             self.d_ego = TrailingDerivative(n_shape, fps, vw).process
@@ -80,17 +95,27 @@ class _Motion:
             col += block.shape[1]
 
         pcs = ego.reshape(n, -1) @ p.pca_components_.T - p.pca_components_ @ p.pca_mean_
-        put(pcs)
+        put(pcs if self.posture_mean is None else self.posture_mean(pcs))
         small = [centroid, self._unwrap(heading)[:, None]]
         rates = self.d_small(np.hstack(small + ([social[:, :1]] if social is not None else [])))
-        speed = np.linalg.norm(rates[:, :d], axis=1)
         if p.feature_set == "compact":
-            put(np.column_stack([speed, np.abs(rates[:, d])]))
-            put(np.linalg.norm(self.d_ego(pcs), axis=1))
+            moving = rates[:, :d]
+            if p._separate_heights:  # horizontal speed here; vertical speed and height below
+                up = "xyz".index(p.up_axis)
+                moving = rates[:, list(horizontal_axes(d, p.up_axis))]
+            speeds = [np.linalg.norm(moving, axis=1), np.abs(rates[:, d])]
+            speeds += [np.linalg.norm(self.d_ego(pcs), axis=1)]
+            if p._separate_heights:
+                speeds += [np.abs(rates[:, up])]
+            speeds = np.column_stack(speeds)
+            put(speeds if self.speed_mean is None else self.speed_mean(speeds))
+            if p._separate_heights:
+                put(np.maximum(centroid[:, up] - p.height_floor_, 0.0))
             if self.bands is not None:  # amplitude of the whole posture in each band
                 power = self.bands(pcs[:, :bc])
                 put(np.sqrt(power.sum(axis=1) if power.shape[1] > 1 else power[:, 0]))
         else:
+            speed = np.linalg.norm(rates[:, :d], axis=1)
             self._detailed(put, rates, speed, heading, ego, pcs)
         if social is not None:
             put(social)
@@ -154,6 +179,11 @@ class FeatureStream:
         rows = p._compute(X[None], self._motions)
         self.n_frames += 1
         return np.vstack([p._finish(r)[0] for r in rows])
+
+
+# Cut-off of a low-pass standing for a w-second moving average: 0.443 / w Hz, the frequency at
+# which a moving average's response |sin(pi f w) / (pi f w)| falls to 1/sqrt(2) (-3 dB).
+MOVING_AVERAGE_CUTOFF = 0.443
 
 
 def _check_rate(frequencies: Sequence[float], fps: float, where: str) -> None:

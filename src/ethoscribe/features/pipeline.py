@@ -11,6 +11,7 @@ from sklearn.base import BaseEstimator
 
 from ethoscribe.errors import InputError, NotFittedError
 from ethoscribe.features.motion import (
+    MOVING_AVERAGE_CUTOFF,
     FeatureStream,
     _centroid,
     _check_rate,
@@ -59,6 +60,30 @@ def _accumulate(acc: list | None, X: np.ndarray, full: bool) -> list | None:
 # Quantile of a magnitude (speed, amplitude) used as its log offset: the noise floor (below).
 LOG_OFFSET_QUANTILE = 0.05
 
+# Band centres (Hz) of the automatic band amplitudes: one octave apart, from rhythms slower than a
+# stride (0.5 Hz) to fast gait, tremor-free grooming and wing or fin beats at the low end (8 Hz).
+DEFAULT_FREQUENCIES = (0.5, 1.0, 2.0, 4.0, 8.0)
+# An automatic band is used only if its upper edge (f * sqrt 2) stays at or below this fraction of
+# the Nyquist frequency: a 5 % margin, i.e. at least 2.1 frames per cycle of the fastest movement
+# in the band, where a digital Butterworth band-pass is still a band-pass. Every default band
+# fits at 24 fps and above (8 Hz: edge 11.3 Hz <= 0.95 * 12 Hz); 10 fps keeps 0.5-2 Hz.
+BAND_EDGE_MARGIN = 0.95
+# Quantile of the body centroid's height taken as the floor in 3-D (vertical="separate").
+HEIGHT_FLOOR_QUANTILE = 0.01
+
+
+def automatic_frequencies(fps: float) -> tuple[float, ...]:
+    """The default band centres whose band fits below the Nyquist frequency of ``fps`` with
+    the BAND_EDGE_MARGIN.
+
+    Examples
+    --------
+    >>> automatic_frequencies(10.0)
+    (0.5, 1.0, 2.0)
+    """
+    top = BAND_EDGE_MARGIN * float(fps) / 2
+    return tuple(f for f in DEFAULT_FREQUENCIES if f * np.sqrt(2) <= top)
+
 
 N_SOCIAL_FEATURES = 8  # the last columns of a social pipeline (see ``_columns``)
 
@@ -84,8 +109,12 @@ class FeaturePipeline(BaseEstimator):
         posture (fitted), which uses all keypoints and is steadier when the axis points jitter.
     n_components : int
         Posture principal components kept (fewer if postures span fewer dimensions).
-    frequencies : sequence of float
-        Centre frequencies (Hz) of the band amplitudes.
+    frequencies : sequence of float, optional
+        Centre frequencies (Hz) of the band amplitudes. None (default): of 0.5, 1, 2, 4 and 8
+        Hz, those whose one-octave band ends at or below 95 % of the Nyquist frequency of the
+        slowest fitted session (all five from 24 fps; 0.5-2 Hz at 10 fps), with a warning
+        naming the bands left out; used bands in ``frequencies_``. A given list is used as is
+        and every band must lie below the Nyquist frequency of every session.
     feature_set : {"compact", "detailed"}
         Column set (module doc): "compact" (default) is lean and log-scaled for segmentation;
         "detailed" has one column per keypoint and per component, in linear units.
@@ -94,6 +123,23 @@ class FeaturePipeline(BaseEstimator):
         set); None: all kept components.
     velocity_window_s, variability_window_s : float
         Derivative fitting window and rolling-std window, in seconds.
+    posture_window_s : float, optional
+        Compact set: the posture columns are the components averaged over about this many
+        seconds (``posture_pc<i>_mean_<w>s``) instead of their instantaneous values, so the
+        phases of a rhythmic movement share one posture. The average is a Butterworth low-pass
+        (order 2) with cut-off 0.443 / w Hz, the -3 dB point of a w-second moving average;
+        zero-phase offline, one-way when causal. None (default): instantaneous.
+    speed_window_s : float, optional
+        Compact set: the speeds (centroid, turning, posture; and vertical) averaged the same
+        way before their logarithm (``..._mean_<w>s``), so a speed that rises and falls within
+        every cycle of a gait is one level. None (default): instantaneous.
+    vertical : {"posture", "separate"}
+        3-D only. "posture" (default): heights stay in the body frame, so the posture
+        components see the body's height above the floor. "separate": postures come from the
+        shape (the centroid's height removed from every keypoint) and the height of the body
+        centroid above its floor (the 1 % quantile over the fitted frames) and the vertical
+        speed are columns of their own (compact: ``log_height_<u>``, ``log_vertical_speed_<u>_s``;
+        the centroid speed is then horizontal).
     social : bool
         Add features of the nearest other animal when the fitted sessions have several animals.
     causal : bool
@@ -109,6 +155,8 @@ class FeaturePipeline(BaseEstimator):
     pca_mean_, pca_components_, explained_variance_, explained_variance_ratio_ : posture PCA
         (eigh of the ddof-1 covariance of all valid postures; largest loading positive)
     scaler_mean_, scaler_scale_ : (n_features,) standardisation (constant features: scale 1)
+    frequencies_ : tuple of float, band centres used (given, or chosen for the frame rate)
+    height_floor_ : float or None, 3-D floor of the centroid's height (vertical="separate")
     columns_, keypoints_, n_dims_, units_, fps_, social_, n_components_
 
     A frame is valid when every feature is finite; invalid frames stay in the output as NaN
@@ -134,11 +182,14 @@ class FeaturePipeline(BaseEstimator):
         up_axis: str = "z",
         align: str = "rotate",
         n_components: int = 8,
-        frequencies: Sequence[float] = (0.5, 1, 2, 4, 8),
+        frequencies: Sequence[float] | None = None,
         feature_set: str = "compact",
         band_components: int | None = None,
         velocity_window_s: float = 0.1,
         variability_window_s: float = 0.5,
+        posture_window_s: float | None = None,
+        speed_window_s: float | None = None,
+        vertical: str = "posture",
         social: bool = True,
         causal: bool = False,
         standardise: bool = True,
@@ -153,6 +204,9 @@ class FeaturePipeline(BaseEstimator):
         self.band_components = band_components
         self.velocity_window_s = velocity_window_s
         self.variability_window_s = variability_window_s
+        self.posture_window_s = posture_window_s
+        self.speed_window_s = speed_window_s
+        self.vertical = vertical
         self.social = social
         self.causal = causal
         self.standardise = standardise
@@ -163,6 +217,10 @@ class FeaturePipeline(BaseEstimator):
         if self.band_components is None:
             return self.n_components_
         return min(int(self.band_components), self.n_components_)
+
+    @property
+    def _separate_heights(self) -> bool:
+        return self.vertical == "separate" and self.n_dims_ == 3
 
     @property
     def _origin_index(self) -> int | None:
@@ -209,20 +267,32 @@ class FeaturePipeline(BaseEstimator):
                 continue
             if isinstance(v, bool) or not isinstance(v, int | np.integer) or v < low:
                 bad.append(f"{name} must be an integer >= {low}; got {v!r}")
+        if self.vertical not in ("posture", "separate"):
+            bad.append(f"vertical must be 'posture' or 'separate'; got {self.vertical!r}")
         try:
-            freqs = np.asarray(self.frequencies, dtype=np.float64)
-            ok = freqs.ndim == 1 and np.isfinite(freqs).all() and (freqs > 0).all()
-            ok = ok and len(np.unique(freqs)) == len(freqs)
+            ok = self.frequencies is None
+            if not ok:
+                freqs = np.asarray(self.frequencies, dtype=np.float64)
+                ok = freqs.ndim == 1 and np.isfinite(freqs).all() and (freqs > 0).all()
+                ok = ok and len(np.unique(freqs)) == len(freqs)
         except (TypeError, ValueError):
             ok = False
         if not ok:
             bad.append(
-                f"frequencies must be distinct positive numbers (Hz); got {self.frequencies!r}"
+                "frequencies must be None (chosen for the frame rate) or distinct positive "
+                f"numbers (Hz); got {self.frequencies!r}"
             )
-        for name in ("velocity_window_s", "variability_window_s"):
+        for name in ("velocity_window_s", "variability_window_s", "posture_window_s"):
             v = getattr(self, name)
+            if name == "posture_window_s" and v is None:
+                continue
             if isinstance(v, bool) or not isinstance(v, int | float) or not 0 < v < np.inf:
                 bad.append(f"{name} must be a positive number of seconds; got {v!r}")
+        v = self.speed_window_s
+        if v is not None and (
+            isinstance(v, bool) or not isinstance(v, int | float) or not 0 < v < np.inf
+        ):
+            bad.append(f"speed_window_s must be a positive number of seconds or None; got {v!r}")
         for name in ("social", "causal", "standardise"):
             if not isinstance(getattr(self, name), bool | np.bool_):
                 bad.append(f"{name} must be True or False; got {getattr(self, name)!r}")
@@ -320,8 +390,45 @@ class FeaturePipeline(BaseEstimator):
             raise InputError(msg)
 
     def _motions(self, fps: float, n_animals: int, where: str) -> list[_Motion]:
-        _check_rate(self.frequencies, fps, where)
+        self._check_rate(fps, where)
         return [_Motion(self, fps) for _ in range(n_animals)]
+
+    def _check_rate(self, fps: float, where: str) -> None:
+        """The fitted bands and windows must fit below the Nyquist frequency of ``fps``."""
+        if self.frequencies is None and self.frequencies_:
+            where = (
+                f"{where} (the bands {list(self.frequencies_)} Hz were chosen for the frame "
+                "rate of the fitted sessions; refit on sessions at this rate)"
+            )
+        _check_rate(self.frequencies_, fps, where)
+        for name in ("posture_window_s", "speed_window_s"):
+            w = getattr(self, name)
+            if w is not None and MOVING_AVERAGE_CUTOFF / w >= fps / 2:
+                msg = (
+                    f"{where}: {name}={w:g} is shorter than two frames at {fps:g} fps; use "
+                    "a longer window"
+                )
+                raise InputError(msg)
+
+    def _choose_frequencies(self, sessions: list[PoseTracks]) -> None:
+        """``frequencies_``: the given bands (checked) or those that fit the slowest rate."""
+        slowest = min(s.fps for s in sessions)
+        if self.frequencies is not None:
+            self.frequencies_ = tuple(float(f) for f in self.frequencies)
+            return
+        self.frequencies_ = automatic_frequencies(slowest)
+        left = [f for f in DEFAULT_FREQUENCIES if f not in self.frequencies_]
+        if left:
+            used = ", ".join(f"{f:g}" for f in self.frequencies_) or "none"
+            warnings.warn(
+                f"at {slowest:g} fps the band amplitudes around {', '.join(f'{f:g}' for f in left)}"
+                f" Hz do not fit below the Nyquist frequency ({slowest / 2:g} Hz, with a "
+                f"{round(100 * (1 - BAND_EDGE_MARGIN))} % margin); bands used: {used} Hz. "
+                "Rhythms faster than the top band are not described; film at a higher rate "
+                "to see them",
+                UserWarning,
+                stacklevel=4,
+            )
 
     # --- fitting -------------------------------------------------------------------------
     def fit(self, sessions: Sequence[PoseTracks]) -> FeaturePipeline:
@@ -365,8 +472,9 @@ class FeaturePipeline(BaseEstimator):
                 "session; pass social=False or fit single- and multi-animal sessions apart"
             )
             raise InputError(msg)
+        self._choose_frequencies(sessions)
         for s in sessions:
-            _check_rate(self.frequencies, s.fps, f"session '{s.session}'")
+            self._check_rate(s.fps, f"session '{s.session}'")
         self.axis_, self.axis_report_, self.axis_details_ = self._choose_axis(sessions)
         if self.align == "procrustes":
             self._fit_reference(sessions)
@@ -440,11 +548,19 @@ class FeaturePipeline(BaseEstimator):
 
     def _fit_pca(self, sessions: list[PoseTracks]) -> None:
         """Posture PCA via eigh of the covariance (ddof 1) of valid egocentric postures."""
-        acc = None
+        acc, heights = None, []
         for s in sessions:
             for a in range(s.n_animals):
-                ego = self._geometry(s.coords[:, a])[2].reshape(s.n_frames, -1)
-                acc = _accumulate(acc, ego, full=True)
+                centroid, _, ego = self._geometry(s.coords[:, a])
+                acc = _accumulate(acc, ego.reshape(s.n_frames, -1), full=True)
+                if self._separate_heights:
+                    step = max(1, s.n_frames * s.n_animals * len(sessions) // 200_000)
+                    heights.append(centroid[::step, "xyz".index(self.up_axis)])
+        self.height_floor_ = None
+        if heights:
+            h = np.concatenate(heights)
+            h = h[np.isfinite(h)]
+            self.height_floor_ = float(np.quantile(h, HEIGHT_FLOOR_QUANTILE)) if h.size else 0.0
         if acc is None or acc[0] < 2:
             msg = (
                 "fewer than 2 frames have all keypoints present; posture components need "
@@ -470,10 +586,20 @@ class FeaturePipeline(BaseEstimator):
     def _column_names(self) -> tuple[str, ...]:
         u, us = self.units_, f"{self.units_}_s"
         pcs = [f"posture_pc{i + 1}" for i in range(self.n_components_)]
-        bands = [f"{float(f):g}hz" for f in self.frequencies] if self._band_components else []
+        bands = [f"{float(f):g}hz" for f in self.frequencies_] if self._band_components else []
         if self.feature_set == "compact":
-            cols = [*pcs, f"log_centroid_speed_{us}", "log_turning_speed_rad_s"]
-            cols += [f"log_posture_speed_{us}"] + [f"log_posture_band_{b}" for b in bands]
+            pw, sw = self.posture_window_s, self.speed_window_s
+            mean = f"_mean_{float(pw):g}s" if pw is not None else ""
+            smean = f"_mean_{float(sw):g}s" if sw is not None else ""
+            cols = [f"{pc}{mean}" for pc in pcs]
+            speeds = [f"log_centroid_speed_{us}", "log_turning_speed_rad_s"]
+            speeds += [f"log_posture_speed_{us}"]
+            if self._separate_heights:
+                speeds += [f"log_vertical_speed_{us}"]
+            cols += [f"{c}{smean}" for c in speeds]
+            if self._separate_heights:
+                cols += [f"log_height_{u}"]
+            cols += [f"log_posture_band_{b}" for b in bands]
         else:
             lead = pcs[: self._band_components]
             cols = [*pcs, f"centroid_speed_{us}", f"forward_velocity_{us}"]
@@ -573,6 +699,10 @@ class FeaturePipeline(BaseEstimator):
         """Centroid (F, D), heading (F,) and egocentric keypoints (F, K, D) of one animal."""
         h = list(horizontal_axes(X.shape[-1], self.up_axis))
         centroid = _centroid(X)
+        if self._separate_heights:  # the shape: the centroid's height taken off every keypoint
+            up = "xyz".index(self.up_axis)
+            X = X.copy()
+            X[..., up] -= centroid[:, None, up]
         origin = centroid if self.origin_ is None else X[:, self._origin_index]
         i, j = self._axis_index
         if (align or self.align) == "rotate":
@@ -711,7 +841,7 @@ class FeaturePipeline(BaseEstimator):
         if fps is None:
             msg = "the fitted sessions had different frame rates; pass fps=... to stream"
             raise InputError(msg)
-        _check_rate(self.frequencies, float(fps), f"stream at {fps} fps")
+        self._check_rate(float(fps), f"stream at {fps} fps")
         return FeatureStream(self, int(n_animals), float(fps))
 
     # --- persistence ---------------------------------------------------------------------

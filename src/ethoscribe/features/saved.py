@@ -36,17 +36,23 @@ _FITTED_META = (
     "social_",
     "n_components_",
     "columns_",
+    "frequencies_",
+    "height_floor_",
 )
+# Parameters added after the first saved states, with the value that reproduces those states
+# (a later change of the default must not change what an old saved pipeline computes).
+_ADDED_PARAMS = {"posture_window_s": None, "speed_window_s": None, "vertical": "posture"}
 
 
 def pipeline_state(pipe: FeaturePipeline) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
     """JSON-able parameters and fitted metadata, plus the fitted arrays (no pickle)."""
     pipe._check_fitted()
     params = pipe.get_params()
-    params["frequencies"] = [float(f) for f in pipe.frequencies]
+    if pipe.frequencies is not None:
+        params["frequencies"] = [float(f) for f in pipe.frequencies]
     params["axis"] = None if pipe.axis is None else list(pipe.axis)
     fitted = {k: getattr(pipe, k) for k in _FITTED_META}
-    for k in ("axis_", "keypoints_", "columns_"):
+    for k in ("axis_", "keypoints_", "columns_", "frequencies_"):
         fitted[k] = list(fitted[k])
     meta = {**header(KIND, FORMAT_VERSION), "params": params, "fitted": fitted}
     arrays = {k: np.array(getattr(pipe, k), dtype=np.float64) for k in _FITTED_ARRAYS}
@@ -66,6 +72,11 @@ def pipeline_from_state(
         if "feature_set" not in params:  # saved before feature sets: the detailed one
             params["feature_set"] = "detailed"
             arrays.setdefault("log_offset_", np.zeros(len(fitted["columns_"])))
+        for k, v in _ADDED_PARAMS.items():
+            params.setdefault(k, v)
+        if "frequencies_" not in fitted:  # saved before automatic bands: the given list
+            fitted["frequencies_"] = list(params.get("frequencies", []))
+        fitted.setdefault("height_floor_", None)
         missing = [k for k in (*_FITTED_META,) if k not in fitted]
         missing += [k for k in _FITTED_ARRAYS if k not in arrays]
     except (KeyError, TypeError) as exc:
@@ -86,6 +97,7 @@ def pipeline_from_state(
     _check_fitted_meta(fitted)
     for k in ("axis_", "keypoints_", "columns_"):
         fitted[k] = tuple(fitted[k])
+    fitted["frequencies_"] = tuple(float(f) for f in fitted["frequencies_"])
     for k, v in fitted.items():
         setattr(pipe, k, v)
     try:
@@ -131,6 +143,17 @@ def _check_fitted_meta(fitted: Mapping[str, Any]) -> None:
         "n_dims_": fitted["n_dims_"] in (2, 3) and not isinstance(fitted["n_dims_"], bool),
         "units_": isinstance(fitted["units_"], str),
         "social_": isinstance(fitted["social_"], bool | np.bool_),
+        "frequencies_": isinstance(fitted["frequencies_"], list | tuple)
+        and all(
+            isinstance(f, int | float) and not isinstance(f, bool) and 0 < f < np.inf
+            for f in fitted["frequencies_"]
+        ),
+        "height_floor_": fitted["height_floor_"] is None
+        or (
+            isinstance(fitted["height_floor_"], int | float)
+            and not isinstance(fitted["height_floor_"], bool)
+            and np.isfinite(fitted["height_floor_"])
+        ),
         "n_components_": isinstance(n_comp, int | np.integer)
         and not isinstance(n_comp, bool)
         and 1 <= n_comp <= 100_000,
