@@ -189,3 +189,29 @@ def test_bad_arguments_are_named():
         forward_backward(np.zeros((3, 2)), START, TRANS, 2.5)
     with pytest.raises(InputError, match="lengths"):
         viterbi(np.zeros((3, 2)), START, TRANS, 2, np.array([2, 2]))
+
+
+def test_gaussian_hmm_labels_with_a_minimum_bout():
+    from ethoscribe.segment.hmm import GaussianHMM as OwnHMM
+
+    rng = np.random.default_rng(4)
+    K, D = 3, 2
+    means = rng.normal(0, 1.5, (K, D))
+    covars = np.stack([np.eye(D) * v for v in (0.5, 1.0, 0.8)])
+    trans = np.full((K, K), 0.1 / (K - 1)) + np.eye(K) * (0.9 - 0.1 / (K - 1))
+    own = OwnHMM(n_states=K, fps=30.0)
+    own.means_, own.covars_, own.startprob_, own.transmat_ = means, covars, np.full(K, 1 / K), trans
+    own.n_states_, own.n_features_in_ = K, D
+    lengths = np.array([400, 7, 93])
+    X = rng.normal(size=(lengths.sum(), D)) * 1.5
+    ref = GaussianHMM(n_components=K, covariance_type="full", init_params="", params="")
+    ref.startprob_, ref.transmat_, ref.means_, ref.covars_ = own.startprob_, trans, means, covars
+    labels, proba = own.predict_min_duration(X, lengths, 1)
+    # hmmlearn 0.3.3 with the same parameters: Viterbi path and posteriors of the plain HMM
+    np.testing.assert_array_equal(labels, ref.predict(X, lengths))
+    np.testing.assert_allclose(proba, ref.predict_proba(X, lengths), atol=1e-10)
+    labels, proba = own.predict_min_duration(X, lengths, 10)
+    for piece in np.split(labels, np.cumsum(lengths)[:-1]):
+        runs = _runs(piece)
+        assert len(runs) == 1 or min(runs) >= 10
+    assert len(set(labels[400:407])) == 1  # a session shorter than the minimum: one bout

@@ -5,6 +5,7 @@ Data: short sessions of the package's own simulator (invented dune voles), seeds
 
 from __future__ import annotations
 
+import copy
 import io
 import json
 
@@ -56,8 +57,9 @@ def test_label_table_contract(fitted, sessions):
     assert valid["probability"].between(0.0, 1.0).all()
 
 
-def test_minimum_bout_duration_holds_in_the_labels(fitted, sessions):
-    labels = fitted.label(sessions)
+@pytest.mark.parametrize("decoding", ["min_duration", "merge"])
+def test_minimum_bout_duration_holds_in_the_labels(fitted, sessions, decoding):
+    labels = _with(fitted, decoding=decoding).label(sessions)
     shortest = round(fitted.min_bout_s * fitted.fps_)
     for _, part in labels.groupby("session"):
         state = part["state"].to_numpy()
@@ -67,6 +69,44 @@ def test_minimum_bout_duration_holds_in_the_labels(fitted, sessions):
         # bouts cut by the recording's ends or by invalid frames (-1) may be shorter
         inside = (runs["state"].shift(1) >= 0) & (runs["state"].shift(-1) >= 0)
         assert (runs.loc[inside & (runs["state"] >= 0), "size"] >= shortest).all()
+
+
+def _with(model: BehaviourModel, **params) -> BehaviourModel:
+    """A copy of a fitted model with other labelling parameters."""
+    out = copy.deepcopy(model)
+    return out.set_params(**params)
+
+
+def _low_share(labels: pd.DataFrame) -> float:
+    """Share of scored frames whose own label has probability < 0.01."""
+    scored = labels[labels["state"] >= 0]
+    return float((scored["probability"] < 0.01).mean())
+
+
+def test_probability_is_that_of_the_final_label(fitted, sessions):
+    chain = _with(fitted, decoding="min_duration").label(sessions)
+    merged = _with(fitted, decoding="merge").label(sessions)
+    print("share < 0.01: min_duration", _low_share(chain), "merge", _low_share(merged))
+    # the minimum-duration chain's posteriors back its own labels (the kernels are checked
+    # against hmmlearn in test_duration.py); merged frames keep posteriors of other labels
+    assert _low_share(chain) < 0.002 < _low_share(merged)
+    assert chain["probability"].mean() > merged["probability"].mean()
+    # without a minimum bout both decodings are the plain HMM
+    pd.testing.assert_frame_equal(
+        _with(fitted, min_bout_s=0.0, decoding="min_duration").label(sessions),
+        _with(fitted, min_bout_s=0.0, decoding="merge").label(sessions),
+    )
+
+
+def test_models_saved_before_the_decoding_option_keep_merging(fitted):
+    meta, arrays = _with(fitted, decoding="min_duration").to_state()
+    assert meta["params"]["decoding"] == "min_duration"
+    assert BehaviourModel.from_state(meta, arrays).decoding == "min_duration"
+    older = {**meta, "params": {k: v for k, v in meta["params"].items() if k != "decoding"}}
+    assert BehaviourModel.from_state(older, arrays).decoding == "merge"
+    bad = {**meta, "params": {**meta["params"], "decoding": "smooth"}}
+    with pytest.raises(InputError, match="decoding"):
+        BehaviourModel.from_state(bad, arrays)
 
 
 def test_state_round_trip_through_json_and_npz(fitted, sessions):
@@ -108,6 +148,7 @@ def test_bad_parameters_and_unfitted_use_are_explained(sessions):
         ({"method": "magic"}, "method"),
         ({"state_range": (5, 2)}, "state_range"),
         ({"min_bout_s": -1.0}, "min_bout_s"),
+        ({"decoding": "smooth"}, "decoding"),
     ):
         with pytest.raises(InputError, match=text):
             BehaviourModel(**params).fit(sessions)

@@ -65,6 +65,11 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
     bout = params.get("min_bout_s", 0.5)
     if not is_real(bout) or bout < 0:
         problems.append(f"'params.min_bout_s' must be a number >= 0 seconds, got {_show(bout)}")
+    decoding = params.get("decoding", "merge")
+    if decoding not in ("min_duration", "merge"):
+        problems.append(
+            f"'params.decoding' must be 'min_duration' or 'merge', got {_show(decoding)}"
+        )
     seen = params.get("min_body_seen", 0.6)
     if seen is not None and (not is_real(seen) or not 0 < seen <= 1):
         problems.append(

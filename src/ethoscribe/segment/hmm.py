@@ -34,6 +34,7 @@ from tqdm.auto import tqdm
 from ethoscribe.checks import int_between, is_real, seed_from
 from ethoscribe.errors import InputError
 from ethoscribe.saved_state import check_header, header
+from ethoscribe.segment import duration
 from ethoscribe.segment._hmm_fit import (
     check_hmm_params,
     distinct_rows_at_least,
@@ -350,6 +351,37 @@ class GaussianHMM(BaseEstimator):
     def predict(self, X: np.ndarray, lengths=None) -> np.ndarray:
         """Most probable state path (Viterbi), int labels (n_frames,)."""
         return self.decode(X, lengths)[1]
+
+    def predict_min_duration(
+        self, X: np.ndarray, lengths=None, min_frames: int = 1
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Labels whose every bout lasts at least ``min_frames``, and their posteriors.
+
+        Viterbi and forward-backward on the minimum-duration chain of this HMM
+        (:mod:`ethoscribe.segment.duration`): each state must be held ``min_frames`` frames
+        before the fitted transition probabilities apply. A session shorter than
+        ``min_frames`` is one bout. With ``min_frames=1`` this is :meth:`predict` and
+        :meth:`predict_proba`.
+
+        Returns
+        -------
+        labels : int64 array (n_frames,)
+        proba : array (n_frames, K)
+            ``P(state_t | whole session, every bout >= min_frames)``; the labels' own column
+            is the probability of the final label under the model that chose it.
+        """
+        check_fitted(self, "means_")
+        labels = np.empty(len(X), dtype=np.int64)
+        proba = np.empty((len(X), self.n_states_))
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
+            labels[a:b] = duration.viterbi(log_b, self.startprob_, self.transmat_, min_frames, sub)[
+                0
+            ]
+            post = duration.forward_backward(
+                log_b, self.startprob_, self.transmat_, min_frames, sub, overwrite=True
+            )
+            proba[a:b] = post.gamma
+        return labels, proba
 
     def n_parameters(self) -> int:
         """Free parameters of the fitted model (:func:`parameter_count`)."""

@@ -31,6 +31,7 @@ from ethoscribe.segment.registry import get_segmenter
 from ethoscribe.segment.select import choose_n_states
 
 FORMAT_VERSION = 1
+DECODINGS = ("min_duration", "merge")
 
 
 def motif_name(state: int) -> str:
@@ -82,10 +83,19 @@ class BehaviourModel(BaseEstimator):
     segmenter : dict, optional
         Extra keyword parameters of the segmenter (e.g. ``expected_bout_s`` for the HMM).
     min_bout_s : float
-        Shorter bouts are merged into a neighbour in the final labels. 0.5 s: a rhythm of
-        2-8 Hz shows only 1-4 cycles in it, so shorter "bouts" are mostly frames of a
-        transition between two behaviours; on the simulated studies (2 % of true bouts
-        shorter) it raised the precision of boundaries from 0.6 to 0.85 at equal agreement.
+        Shortest bout of the final labels (see ``decoding``). 0.5 s: a rhythm of 2-8 Hz shows
+        only 1-4 cycles in it, so shorter "bouts" are mostly frames of a transition between
+        two behaviours; on the simulated studies (2 % of true bouts shorter) it raised the
+        precision of boundaries from 0.6 to 0.85 at equal agreement. 0: no minimum.
+    decoding : {"min_duration", "merge"}
+        How the minimum bout is kept. "min_duration": the HMM decodes under the rule itself
+        (:mod:`ethoscribe.segment.duration`: each state is held ``min_bout_s`` before the
+        fitted transition probabilities apply; Viterbi gives the labels, forward-backward on
+        the same model their ``probability``). "merge": plain Viterbi, then bouts shorter than
+        ``min_bout_s`` are merged into a neighbour (``postprocess.enforce_min_bout``), and the
+        ``probability`` of a merged frame is the plain HMM's posterior of a label it did not
+        choose (often near 0). Methods without posteriors over a state chain (change points)
+        always merge; causal models never apply the minimum (it needs future frames).
     min_body_seen : float or None
         Smallest fraction of keypoints a frame must show to be scored. Keypoints lost in such
         a frame are filled with their expected position given the visible ones, under a
@@ -125,6 +135,7 @@ class BehaviourModel(BaseEstimator):
         state_range: tuple[int, int] = (3, 12),
         segmenter: dict | None = None,
         min_bout_s: float = 0.5,
+        decoding: str = "merge",
         min_body_seen: float | None = 0.6,
         random_state: int | np.random.Generator | None = 0,
         progress: bool = False,
@@ -137,6 +148,7 @@ class BehaviourModel(BaseEstimator):
         self.state_range = state_range
         self.segmenter = segmenter
         self.min_bout_s = min_bout_s
+        self.decoding = decoding
         self.min_body_seen = min_body_seen
         self.random_state = random_state
         self.progress = progress
@@ -162,6 +174,7 @@ class BehaviourModel(BaseEstimator):
             "state_range": list(self.state_range),
             "segmenter": self.segmenter,
             "min_bout_s": self.min_bout_s,
+            "decoding": self.decoding,
             "min_body_seen": self.min_body_seen,
             "random_state": seed,
             "causal": bool(self.causal),
@@ -182,6 +195,8 @@ class BehaviourModel(BaseEstimator):
             )
         if not np.isfinite(self.min_bout_s) or self.min_bout_s < 0:
             raise InputError(f"min_bout_s must be >= 0 seconds; got {self.min_bout_s!r}")
+        if self.decoding not in DECODINGS:
+            raise InputError(f"decoding must be one of {list(DECODINGS)}; got {self.decoding!r}")
         seen = self.min_body_seen
         if seen is not None and (
             isinstance(seen, bool) or not isinstance(seen, int | float) or not 0 < seen <= 1
@@ -359,15 +374,13 @@ class BehaviourModel(BaseEstimator):
     def label_features(self, feats: Sequence[FeatureSet]) -> pd.DataFrame:
         """Label already computed feature sets (see :meth:`label`)."""
         check_fitted(self, "segmenter_")
+        min_frames = round(self.min_bout_s * self.fps_)
         if any(f.valid.any() for f in feats):
             X, lengths = stack_valid(feats)
-            states, prob = self._states_and_probability(X, lengths)
+            states, prob = self._states_and_probability(X, lengths, min_frames)
         else:  # nothing to decode (e.g. one session, all invalid): every frame stays -1
             X, lengths = np.zeros((0, 0)), np.zeros(0, dtype=np.int64)
             states, prob = np.zeros(0, dtype=np.int64), np.zeros((0, self.n_states_))
-        min_frames = round(self.min_bout_s * self.fps_)
-        if min_frames > 1 and not self.causal:
-            states = enforce_min_bout(states, min_frames, lengths=lengths, probabilities=prob)
         # Posterior of the label given; clipped because scaled recursions round to 1 + 1e-15.
         prob = np.clip(np.take_along_axis(prob, states[:, None], axis=1)[:, 0], 0.0, 1.0)
         tables = []
@@ -437,17 +450,25 @@ class BehaviourModel(BaseEstimator):
         return [v for v in groups.values() if len(v) >= 2]
 
     def _states_and_probability(
-        self, X: np.ndarray, lengths: np.ndarray
+        self, X: np.ndarray, lengths: np.ndarray, min_frames: int
     ) -> tuple[np.ndarray, np.ndarray]:
+        """Labels (n_frames,) and state probabilities (n_frames, K) of the stacked frames,
+        every bout at least ``min_frames`` long (except in causal models)."""
         seg = self.segmenter_
         if self.causal:  # what streaming gives: the forward filter's most probable state
             prob = _filtered(self.method, seg, X, lengths)
             return np.argmax(prob, axis=1), prob
+        chain = getattr(seg, "predict_min_duration", None)
+        if min_frames > 1 and self.decoding == "min_duration" and chain is not None:
+            return chain(X, lengths, min_frames)
         if get_segmenter(self.method).posteriors:
-            return seg.predict(X, lengths), seg.predict_proba(X, lengths)
-        states = seg.predict(X, lengths)  # hard labels: probability 1 (the registry says so)
-        prob = np.zeros((len(states), self.n_states_))
-        prob[np.arange(len(states)), states] = 1.0
+            states, prob = seg.predict(X, lengths), seg.predict_proba(X, lengths)
+        else:
+            states = seg.predict(X, lengths)  # hard labels: probability 1 (the registry says so)
+            prob = np.zeros((len(states), self.n_states_))
+            prob[np.arange(len(states)), states] = 1.0
+        if min_frames > 1:
+            states = enforce_min_bout(states, min_frames, lengths=lengths, probabilities=prob)
         return states, prob
 
     # --- persistence (arrays + JSON; written by ethoscribe.io.bundle) ---------------------
@@ -511,6 +532,8 @@ class BehaviourModel(BaseEstimator):
     def _rebuild(cls, meta: Mapping[str, Any], arrays: Mapping[str, np.ndarray]) -> BehaviourModel:
         """``from_state`` after ``_check_meta``: build the parts and check they agree."""
         params = dict(meta["params"])
+        # Models saved before the decoding option merged short bouts: they keep doing so.
+        params.setdefault("decoding", "merge")
         if "state_range" in params:
             params["state_range"] = tuple(params["state_range"])
         model = cls(**params)
