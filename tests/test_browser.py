@@ -59,6 +59,29 @@ FIGURES_DRAWN = """(n) => {
   return new Set(drawn.map((svg) => svg.closest('.js-plotly-plot'))).size >= n;
 }"""
 
+# Marks drawn in the figure of CSS class ``css``: markers and bars (plotly's ``.point``) and
+# lines with a path. Axes alone (an empty figure) count none.
+MARKS = """(css) => {
+  const fig = document.querySelector('.ethoscribe-workbench .' + css);
+  if (!fig) return 0;
+  return [...fig.querySelectorAll('.main-svg .point, .main-svg path.js-line')].filter(
+    (el) => el.tagName !== 'path' || (el.getAttribute('d') || '').length > 2).length;
+}"""
+MOTIF_FIGURES = (
+    "ethoscribe-posture",
+    "ethoscribe-examples",
+    "ethoscribe-shares",
+    "ethoscribe-durations",
+    "ethoscribe-neighbours",
+)
+
+
+def _wait_marks(page, figures=MOTIF_FIGURES) -> None:
+    """Every one of ``figures`` has drawn marks (not only its axes)."""
+    for css in figures:
+        page.wait_for_function(f"() => ({MARKS})('{css}') > 0", timeout=WAIT_MS)
+
+
 # Parts of the workbench wider than it (cut off at the right edge), as [class, overflow px].
 OVERFLOW = """(bench) => {
   const edge = bench.getBoundingClientRect().right + 1;
@@ -242,6 +265,7 @@ def test_quickstart_in_jupyterlab_rename_and_save(lab, tmp_path):
             # neighbours) to be drawn.
             bench.evaluate("el => el.scrollIntoView({block: 'start'})")
             page.wait_for_function(FIGURES_DRAWN, arg=5, timeout=WAIT_MS)
+            _wait_marks(page)  # the example bouts and neighbours drew empty axes once
             assert bench.evaluate(OVERFLOW) == [], "cut off at 1366 px"
             expect(bench.get_by_text("largest first")).to_be_visible()
             _screenshot(page, bench, tmp_path)
@@ -257,6 +281,9 @@ def test_quickstart_in_jupyterlab_rename_and_save(lab, tmp_path):
             box.press("Enter")  # Enter renames, as the Rename button does
             note = bench.locator(".ethoscribe-message .ethoscribe-note-ok")
             expect(note).to_contain_text(f"Renamed '{motif}' to '{NEW_NAME}'")
+            expect(bench.locator(".ethoscribe-neighbours")).to_contain_text(NEW_NAME)
+            expect(bench.locator(".ethoscribe-examples")).to_contain_text(NEW_NAME)
+            _wait_marks(page)  # redrawn under the new name, with their marks
             bench.locator(".ethoscribe-save-button").click()
             expect(note).to_contain_text("Saved the ethogram in")
 

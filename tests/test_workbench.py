@@ -462,3 +462,25 @@ def test_suggested_merges_shown_when_the_model_gives_them(folder):
         assert "motif_01 + motif_03" in bench.motif_list.suggested.value
     finally:
         bench.close()
+
+
+def test_example_frames_are_tracked_ones_and_empty_views_say_so(viewer, monkeypatch):
+    from ethoscribe.plots.motifs import bout_strip_figure, neighbour_figure
+
+    state = viewer.state
+    bout = state.examples(state.motif)[0]
+    every = state.postures.frames(
+        bout["session"], bout["animal"], np.arange(bout["start_frame"], bout["stop_frame"])
+    )
+    holes = every.copy()
+    holes[::2] = np.nan  # every other frame untracked
+    monkeypatch.setattr(state.postures, "frames", lambda *a: holes)
+    shown = state.bout_postures(bout, 7)
+    assert len(shown) == 7 and np.isfinite(shown).all()
+    monkeypatch.setattr(state.postures, "frames", lambda *a: np.full_like(every, np.nan))
+    untracked = state.bout_postures(bout, 7)
+    keypoints, edges = state.postures.keypoints, state.postures.edges
+    fig = bout_strip_figure([("a bout", untracked)], keypoints, edges)
+    assert [a.text for a in fig.layout.annotations].count("not tracked") == len(untracked)
+    fig = neighbour_figure(pd.Series(dtype=float), pd.Series({"motif_01": 1.0}), "motif_02")
+    assert [a.text for a in fig.layout.annotations] == ["no motif comes before it"]

@@ -189,8 +189,9 @@ def bout_strip_figure(
     index = _edge_index(keypoints, edges)
     points = np.concatenate([np.asarray(f, np.float64)[..., :2].reshape(-1, 2) for _, f in bouts])
     points = points[np.isfinite(points).all(1)]
-    hx = float(np.abs(points[:, 0]).max()) * 1.05 if len(points) else 1.0
-    hy = float(np.abs(points[:, 1]).max()) * 1.05 if len(points) else 1.0
+    hx = float(np.abs(points[:, 0]).max()) * 1.05 if len(points) else 0.0
+    hy = float(np.abs(points[:, 1]).max()) * 1.05 if len(points) else 0.0
+    hx, hy = hx or 1.0, hy or hx or 1.0  # nothing tracked, or every point at the origin
     step_x, step_y = 2.1 * hx, 2.0 * hy + 0.45 * hx  # room for the caption above each row
     n_cols = max(len(f) for _, f in bouts)
     xs, ys, px, py, names, notes = [], [], [], [], [], []
@@ -200,6 +201,18 @@ def bout_strip_figure(
             bx, by = _bones(posture, index, dx=i * step_x, dy=-row * step_y)
             xs.append(bx)
             ys.append(by)
+            if not np.isfinite(posture[:, :2]).any():  # nothing to draw: say why
+                notes.append(
+                    dict(
+                        text="not tracked",
+                        x=i * step_x,
+                        y=-row * step_y,
+                        xref="x",
+                        yref="y",
+                        showarrow=False,
+                        font={"size": 10, "color": "#888888"},
+                    )
+                )
         px.append((F[:, :, 0] + (np.arange(len(F)) * step_x)[:, None]).ravel())
         py.append(F[:, :, 1].ravel() - row * step_y)
         names += list(keypoints) * len(F)
@@ -268,6 +281,7 @@ def neighbour_figure(
     data: list = []
     colours = colours or {}
     layout: dict = {}
+    notes: list[dict] = []
     for n, (shares, label) in enumerate(((before, "comes before it"), (after, "comes after it"))):
         top = shares.sort_values(ascending=True).tail(6)
         suffix = "" if n == 0 else "2"
@@ -291,12 +305,25 @@ def neighbour_figure(
             **GRID,
         }
         layout[f"yaxis{suffix}"] = {"anchor": f"x{suffix}", "automargin": True}
+        if top.empty:  # e.g. every bout of the motif starts or ends a recording
+            notes.append(
+                {
+                    "text": f"no motif {label}",
+                    "showarrow": False,
+                    "x": sum(layout[f"xaxis{suffix}"]["domain"]) / 2,
+                    "y": 0.5,
+                    "xref": "paper",
+                    "yref": "paper",
+                    "font": {"size": 11, "color": "#888888"},
+                }
+            )
     return _figure(
         data,
         f"Neighbours of {motif}",
         440,
         250,
         margin={"l": 90, "r": 20, "t": 50, "b": 50},
+        annotations=notes,
         **layout,
     )
 

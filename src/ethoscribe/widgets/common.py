@@ -162,6 +162,22 @@ class FigureSlot(w.Box):
                 self._on_created(self._figure)
 
 
+def blank_figure(text: str, width: int, height: int) -> go.Figure:
+    """A figure with no axes that only says ``text`` (in place of a figure not drawn)."""
+    note = {"text": text, "showarrow": False, "x": 0.5, "y": 0.5, "xref": "paper", "yref": "paper"}
+    hidden = {"visible": False}
+    return go.Figure(
+        layout={
+            "width": width,
+            "height": height,
+            "template": "plotly_white",
+            "xaxis": hidden,
+            "yaxis": hidden,
+            "annotations": [{**note, "font": {"size": 13, "color": "#555555"}}],
+        }
+    )
+
+
 def figure_widget(fig: go.Figure, css: str) -> go.FigureWidget:
     """A FigureWidget of ``fig`` carrying the CSS class ``css`` (for tests and styling)."""
     widget = go.FigureWidget(fig)

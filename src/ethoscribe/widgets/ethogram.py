@@ -9,12 +9,20 @@ import numpy as np
 from ethoscribe.plots.ethogram import ethogram_raster, motif_colours
 from ethoscribe.plots.motifs import posture_figure
 from ethoscribe.postures import evenly_spaced_frames
-from ethoscribe.widgets.common import FigureSlot, LazyDrawing, flow, heading, note
+from ethoscribe.widgets.common import (
+    FigureSlot,
+    LazyDrawing,
+    blank_figure,
+    flow,
+    heading,
+    note,
+)
 from ethoscribe.widgets.state import WorkbenchState
 
 RASTER_BARS = 3000  # above this many bouts a session's raster is drawn from samples
 CLOSEUP_FRAMES = 90  # frames of a bout the close-up steps through (evenly spaced)
 RASTER_WIDTH = 880  # fits a 1366 px laptop screen with the file browser open
+RASTER_MARGIN = {"l": 140, "r": 20, "t": 50, "b": 125}  # the bottom holds two legend rows
 
 
 class EthogramPage(LazyDrawing):
@@ -30,7 +38,7 @@ class EthogramPage(LazyDrawing):
         # Made when the page is first shown: opening the workbench does not wait for them.
         n_rows = max(state.session_bouts(state.session)["animal"].nunique(), 1)
         self.raster_slot = FigureSlot(
-            self._raster_fig, "ethoscribe-raster", RASTER_WIDTH, 170 + 45 * n_rows,
+            self._raster_fig, "ethoscribe-raster", RASTER_WIDTH, 225 + 45 * n_rows,
             self._hook_clicks,
         )  # fmt: skip
         self._dirty = True
@@ -46,7 +54,7 @@ class EthogramPage(LazyDrawing):
         )
         w.jslink((self.play, "value"), (self.step, "value"))
         self.video = w.Image(format="png", layout=w.Layout(width="360px", display="none"))
-        self.info = note("Click a bout in the raster, or pick one from the list.")
+        self.info = note("")
         self._frames: np.ndarray | None = None
         self._postures: np.ndarray | None = None
         self._span = 1.0
@@ -105,12 +113,14 @@ class EthogramPage(LazyDrawing):
                 hoverinfo="skip",
                 showlegend=False,
             )
+        # The legend goes under the axis title (70 px below the plot), in rows of its own.
+        plot_height = 45 * n_rows + 50
         fig.update_layout(
             width=RASTER_WIDTH,
-            height=170 + 45 * n_rows,
+            height=plot_height + RASTER_MARGIN["t"] + RASTER_MARGIN["b"],
             template="plotly_white",
-            margin={"l": 140, "r": 20, "t": 50, "b": 45},
-            legend={"orientation": "h", "y": -0.35},
+            margin=RASTER_MARGIN,
+            legend={"orientation": "h", "y": -70 / plot_height, "yanchor": "top", "x": 0},
         )
         return fig
 
@@ -187,15 +197,12 @@ class EthogramPage(LazyDrawing):
     def _closeup_fig(self, posture, step: int):
         lib = self.state.postures
         if posture is None or not lib.available:
-            text = lib.problem if not lib.available else "no bout chosen yet"
-            return posture_figure(
-                np.zeros((len(lib.keypoints) or 1, 2)),
-                lib.keypoints or ["-"],
-                [],
-                title=text or "",
-                width=360,
-                height=360,
+            text = (
+                lib.problem
+                if not lib.available
+                else "Click a bout in the ethogram above,<br>or pick one from the list."
             )
+            return blank_figure(text or "", 360, 360)
         bout = self.state.bout
         title = f"{bout['motif']}: {bout['session']}, frame {int(self._frames[step])}"
         colour = motif_colours([*self.state.curation.names.values()]).get(bout["motif"], "#0072B2")

@@ -19,6 +19,7 @@ from ethoscribe.plots.motifs import (
 from ethoscribe.widgets.common import (
     FigureSlot,
     LazyDrawing,
+    blank_figure,
     button,
     flow,
     heading,
@@ -199,7 +200,8 @@ class MotifPortrait(LazyDrawing):
         self.draw_video()
         slot = self.slots
         self.centre = w.VBox([slot["posture"], self.skeleton_note])
-        self.right = w.VBox([slot["shares"], slot["durations"]])
+        # Side by side when this pair wraps below the list (a laptop with the file browser open)
+        self.right = flow([slot["shares"], slot["durations"]])
         self.examples = w.VBox([slot["strip"], self.video])
 
     # The figures as FigureWidgets (each made on first use).
@@ -232,7 +234,7 @@ class MotifPortrait(LazyDrawing):
     def _posture_fig(self):
         lib, motif = self.state.postures, self.state.motif or ""
         if not lib.available or not motif:
-            return _empty(lib.problem or "no motif selected", 360, 360)
+            return blank_figure(lib.problem or "no motif selected", 360, 360)
         return posture_figure(
             lib.mean_posture(self._states()),
             lib.keypoints,
@@ -246,7 +248,7 @@ class MotifPortrait(LazyDrawing):
     def _strip_fig(self):
         lib, motif = self.state.postures, self.state.motif or ""
         if not lib.available or not motif:
-            return _empty(lib.problem or "no motif selected", 720, 200)
+            return blank_figure(lib.problem or "no motif selected", 720, 200)
         rows = [
             (self.state.bout_caption(b), self.state.bout_postures(b, 7))
             for b in self.state.examples(motif)
@@ -297,21 +299,6 @@ class MotifPortrait(LazyDrawing):
                 shown = [w.VBox([caption, w.HBox(images)])]
                 break
         self.video.children = shown
-
-
-def _empty(text: str, width: int, height: int):
-    import plotly.graph_objects as go
-
-    fig = go.Figure()
-    fig.add_annotation(text=text, showarrow=False, x=0.5, y=0.5, xref="paper", yref="paper")
-    fig.update_layout(
-        width=width,
-        height=height,
-        template="plotly_white",
-        xaxis={"visible": False},
-        yaxis={"visible": False},
-    )
-    return fig
 
 
 class CurationDesk:

@@ -309,9 +309,17 @@ class WorkbenchState(CurationEdits):
         return view[key]
 
     def bout_postures(self, bout: dict[str, Any], n_shown: int) -> np.ndarray:
-        """Body-frame postures (n, K, D) of ``n_shown`` evenly spaced frames of ``bout``."""
-        frames = evenly_spaced_frames(int(bout["start_frame"]), int(bout["stop_frame"]), n_shown)
-        return self.postures.frames(bout["session"], bout["animal"], frames)
+        """Body-frame postures (n, K, D) of ``n_shown`` evenly spaced frames of ``bout``.
+
+        The frames are spread over those of the bout where some keypoint was tracked (a frame
+        with none would draw nothing); over all of them if none was.
+        """
+        start, stop = int(bout["start_frame"]), int(bout["stop_frame"])
+        every = self.postures.frames(bout["session"], bout["animal"], np.arange(start, stop))
+        tracked = np.flatnonzero(np.isfinite(every).any(axis=(1, 2)))
+        if not len(tracked):
+            return every[evenly_spaced_frames(0, len(every), n_shown)]
+        return every[tracked[evenly_spaced_frames(0, len(tracked), n_shown)]]
 
     def bout_caption(self, bout: dict[str, Any]) -> str:
         animal = "" if self._single_animal else f" {bout['animal']}"

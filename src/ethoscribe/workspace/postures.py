@@ -308,6 +308,7 @@ class PostureLibrary:
         self.edges_note = ""
         self._sums = self._counts = None
         self._table: pd.DataFrame | None = None  # sessions.csv, read once
+        self._first: dict[str, int] = {}  # each session's first input frame number
 
     @property
     def available(self) -> bool:
@@ -329,7 +330,7 @@ class PostureLibrary:
     def set_states(self, frame_states: pd.DataFrame, n_states: int) -> None:
         """Sum postures per state; ``frame_states`` has ``session, animal, frame, state``."""
         groups = frame_states.groupby(["session", "animal"], sort=False).indices
-        first = _first_frames(self.ws.sessions)
+        self._first = first = _first_frames(self.ws.sessions)
         frames = frame_states["frame"].to_numpy(np.int64)
         states = frame_states["state"].to_numpy(np.int64)
         sums = counts = None
@@ -365,8 +366,9 @@ class PostureLibrary:
         return mean_postures(self._sums, self._counts, [ids])[0]
 
     def frames(self, session: str, animal: str, frames: np.ndarray) -> np.ndarray:
-        """Body-frame postures (n, K, D) of ``frames`` of one recording."""
+        """Body-frame postures (n, K, D) of ``frames`` (input frame numbers) of one recording."""
         p = self.session(str(session))
         a = p.animals.index(str(animal)) if str(animal) in p.animals else 0
-        f = np.clip(np.asarray(frames, dtype=np.int64), 0, len(p.coords) - 1)
+        f = np.asarray(frames, dtype=np.int64) - self._first.get(str(session), 0)  # -> rows
+        f = np.clip(f, 0, len(p.coords) - 1)
         return p.coords[f, a].astype(np.float64)
