@@ -83,3 +83,21 @@ def test_split_half_agreement_is_recorded_beside_the_curve():
     ari = sel.table.set_index("n_states")["split_half_ari"]
     assert ari[2] == pytest.approx(1.0)
     assert ari[1] == pytest.approx(1.0)
+
+
+def test_early_stop_chooses_what_the_whole_search_chooses(four_states):
+    # invented data with 4 true states: the elbow of every candidate 2..9 and of the search that
+    # stops two candidates past the elbow are the same count, and the larger ones are not fitted
+    X, _, lengths = four_states
+    args = dict(candidates=range(2, 10), model_params=FAST, rule="elbow")
+    full = select_n_states(X, lengths, **args)
+    early = select_n_states(X, lengths, stop_after=2, **args)
+    assert full.best == early.best == 4
+    # rounds hold one candidate per two threads: with more cores a round may fit one more
+    left = early.not_needed
+    assert full.not_needed == () and left and left == tuple(range(left[0], 10)) and left[0] >= 7
+    table = early.table.set_index("n_states")
+    assert not table.loc[list(left), "fitted"].any() and table.loc[2:6, "fitted"].all()
+    shared = full.table.set_index("n_states").loc[2:6, "heldout_ll_per_frame"]
+    np.testing.assert_allclose(table.loc[2:6, "heldout_ll_per_frame"], shared)
+    assert early.reason.startswith("4 states: the elbow") and "not fitted" in early.reason

@@ -15,12 +15,14 @@ from ethoscribe.segment.stability import HIGH_AGREEMENT, LOW_AGREEMENT
 
 
 def state_count_figure(selection: Any) -> go.Figure:
-    """Held-out log-likelihood per frame (or BIC) against the number of states, chosen K marked.
+    """Held-out log-likelihood per frame (or BIC, or the eigenvalue gap of grouped states)
+    against the number of states, chosen K marked.
 
     Parameters
     ----------
     selection : StateCountSelection
-        ``table`` with ``n_states`` and ``heldout_ll_per_frame``/``bic`` columns, ``best``,
+        ``table`` with ``n_states`` and ``heldout_ll_per_frame``/``bic`` columns (criterion
+        "heldout"/"bic") or ``eigen_gap``/``eigenvalue`` (criterion "eigen_gap"), ``best``,
         ``criterion``.
 
     Examples
@@ -53,6 +55,16 @@ def state_count_figure(selection: Any) -> go.Figure:
                 )
             )  # fmt: skip
         y_title = "log-likelihood per frame"
+    elif selection.criterion == "eigen_gap":
+        y = table["eigen_gap"].to_numpy(dtype=float)
+        fig.add_trace(go.Scatter(x=k, y=y, mode="lines+markers", name="eigenvalue gap"))
+        fig.add_trace(
+            go.Scatter(
+                x=k, y=table["eigenvalue"], mode="lines+markers", name="eigenvalue",
+                line={"dash": "dash"}, opacity=0.6,
+            )
+        )  # fmt: skip
+        y_title = "gap below the n-th eigenvalue (higher: better separated sets)"
     else:
         y = table["bic"].to_numpy(dtype=float)
         fig.add_trace(go.Scatter(x=k, y=y, mode="lines+markers", name="BIC"))

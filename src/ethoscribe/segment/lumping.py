@@ -184,6 +184,64 @@ def lump_states(
     return Lumping(assignment, chi, values, scales, coarse, lag, reason)
 
 
+def eigen_gap_sets(
+    transmat: np.ndarray, fps: float, lag_s: float, candidates: range | list[int]
+) -> tuple[int, list[dict]]:
+    """Number of metastable sets at the largest gap of the eigenvalue spectrum.
+
+    The eigenvalues ``1 = lambda_1 >= lambda_2 >= ...`` of the reversible transition matrix at
+    a lag of ``lag_s`` seconds (as :func:`lump_states` computes them) are ``exp(-lag / t_i)``
+    for the implied time scales ``t_i``: exchanges much slower than the lag (between
+    behaviours) sit near 1, exchanges faster than it (phases alternating within a bout) near 0.
+    ``n`` sets are well separated when ``lambda_n - lambda_(n+1)`` is large (the spectral gap
+    that PCCA+ asks for, Deuflhard & Weber 2005, section 2). The chosen ``n`` is the candidate
+    with the largest gap. A gap needs an eigenvalue below it, so candidates run up to one less
+    than the number of states (keeping every state is not measured against anything: a
+    spectrum cut at the last state would always show a gap to zero there).
+
+    Returns
+    -------
+    n : int
+    table : list of dict, one per candidate: ``n_states`` (sets), ``eigenvalue`` (``lambda_n``),
+        ``next_eigenvalue``, ``eigen_gap``, ``timescale_s`` (of ``lambda_n``; None for n = 1 or
+        an eigenvalue <= 0).
+
+    Examples
+    --------
+    >>> P = np.array([[.80, .15, .04, .01], [.15, .80, .01, .04],
+    ...               [.04, .01, .80, .15], [.01, .04, .15, .80]])
+    >>> eigen_gap_sets(P, fps=1.0, lag_s=1.0, candidates=[1, 2, 3])[0]
+    2
+    """
+    T = np.asarray(transmat, dtype=np.float64)
+    n_states = len(T)
+    cands = [int(k) for k in candidates if 1 <= int(k) < n_states]
+    if not cands:
+        raise InputError(
+            f"eigen_gap_sets: no candidate set count between 1 and {n_states - 1} (one less "
+            f"than the {n_states} states); got {list(candidates)}"
+        )
+    lag = max(1, round(lag_s * fps))
+    P = np.linalg.matrix_power(T, lag)
+    pi = stationary_distribution(P)
+    values = reversible_eigen(symmetrised(P, pi), pi)[0]
+    table = []
+    for k in cands:
+        lam, nxt = float(values[k - 1]), float(values[k])
+        scale = -lag / fps / np.log(lam) if k > 1 and 0 < lam < 1 else None
+        table.append(
+            {
+                "n_states": k,
+                "eigenvalue": lam,
+                "next_eigenvalue": nxt,
+                "eigen_gap": lam - nxt,
+                "timescale_s": None if scale is None else float(scale),
+            }
+        )
+    best = max(table, key=lambda row: row["eigen_gap"])["n_states"]
+    return int(best), table
+
+
 def merge_tree(transmat: np.ndarray, fps: float, lag_s: float = 0.5) -> list[dict]:
     """Assignments of the fine states for every number of sets from n down to 1.
 

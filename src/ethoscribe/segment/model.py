@@ -109,6 +109,10 @@ class BehaviourModel(BaseEstimator):
         per fit (``random_seed_``, what a saved model records).
     progress : bool
         Show progress bars.
+    state_count_options : dict, optional
+        Options of the automatic state count (:func:`ethoscribe.segment.select.choose_n_states`
+        for the HMM: ``max_frames``, ``stop_after``; e.g. ``{"stop_after": None}`` fits every
+        candidate of ``state_range`` instead of stopping two past the elbow).
     causal : bool
         Fit and label through the causal path, for a model meant for closed-loop use
         (:class:`~ethoscribe.segment.streaming.StreamingLabeller`): causal cleaning (past frames
@@ -140,6 +144,7 @@ class BehaviourModel(BaseEstimator):
         random_state: int | np.random.Generator | None = 0,
         progress: bool = False,
         causal: bool = False,
+        state_count_options: dict | None = None,
     ) -> None:
         self.cleaning = cleaning
         self.features = features
@@ -153,6 +158,7 @@ class BehaviourModel(BaseEstimator):
         self.random_state = random_state
         self.progress = progress
         self.causal = causal
+        self.state_count_options = state_count_options
 
     def saved_params(self) -> dict[str, Any]:
         """JSON-able constructor parameters, as saved models and ``summary.json`` record them.
@@ -178,6 +184,7 @@ class BehaviourModel(BaseEstimator):
             "min_body_seen": self.min_body_seen,
             "random_state": seed,
             "causal": bool(self.causal),
+            "state_count_options": self.state_count_options,
         }
 
     # --- fitting --------------------------------------------------------------------------
@@ -206,6 +213,13 @@ class BehaviourModel(BaseEstimator):
                 f"got {seen!r}"
             )
 
+        allowed = {"max_frames", "stop_after"}
+        options = self.state_count_options
+        if options is not None and (not isinstance(options, Mapping) or set(options) - allowed):
+            raise InputError(
+                f"state_count_options must be a dict with keys among {sorted(allowed)}; "
+                f"got {options!r}"
+            )
         if not isinstance(self.causal, bool | np.bool_):
             raise InputError(f"causal must be True or False; got {self.causal!r}")
         if self.causal and get_segmenter(self.method).streaming is None:
@@ -221,7 +235,8 @@ class BehaviourModel(BaseEstimator):
 
     def _make_segmenter(self, n_states: int | str, fps: float, seed: int | None) -> Any:
         spec = get_segmenter(self.method)
-        return spec.build(n_states, fps, seed, self.segmenter, self.state_range[1])
+        lo, hi = self.state_range
+        return spec.build(n_states, fps, seed, self.segmenter, hi, lo)
 
     def fit(self, sessions: Sequence[PoseTracks]) -> BehaviourModel:
         """Fit cleaning-resolved features and the segmenter on all ``sessions`` at once."""
@@ -294,10 +309,13 @@ class BehaviourModel(BaseEstimator):
                 random_state=seed,
                 progress=self.progress,
                 method=self.method,
+                **(self.state_count_options or {}),
             )
             n_states = int(selection.best)
         segmenter = self._make_segmenter(n_states, fps_value, seed)
         segmenter.fit(X, lengths)
+        if selection is None:  # a segmenter that chose its own count may show how
+            selection = getattr(segmenter, "selection_", None)
         self.state_tree_ = _state_tree(segmenter, fps_value)
         self.random_seed_ = seed
         self.cleaning_ = params
@@ -360,7 +378,10 @@ class BehaviourModel(BaseEstimator):
         Returns
         -------
         DataFrame with columns ``session, animal, frame, time_s, state, motif, probability,
-        body_seen``; unscored frames have state -1, motif "" and probability NaN.
+        body_seen``; unscored frames have state -1, motif "" and probability NaN. When the
+        states are groups of finer states (``method="grouped_hmm"``) a ``fine_state`` column
+        gives the fine state of every frame (-1 where unscored); :attr:`state_tree_`
+        ``["fine_assignment"]`` maps fine states to the labelled ones.
         ``body_seen`` is the fraction of keypoints seen in the frame after cleaning (lost ones
         are filled when it is at least ``min_body_seen``).
         """
@@ -383,34 +404,49 @@ class BehaviourModel(BaseEstimator):
             states, prob = np.zeros(0, dtype=np.int64), np.zeros((0, self.n_states_))
         # Posterior of the label given; clipped because scaled recursions round to 1 + 1e-15.
         prob = np.clip(np.take_along_axis(prob, states[:, None], axis=1)[:, 0], 0.0, 1.0)
+        fine = self._fine_states(X, lengths)
         tables = []
-        parts = split_by_lengths(states, lengths), split_by_lengths(prob, lengths)
+        parts = [split_by_lengths(states, lengths), split_by_lengths(prob, lengths)]
+        if fine is not None:
+            parts.append(split_by_lengths(fine, lengths))
         nonempty = iter(zip(*parts, strict=True))
         for f in feats:
             n = len(f.valid)
             state = np.full(n, -1, dtype=np.int64)
             p = np.full(n, np.nan)
+            fine_state = np.full(n, -1, dtype=np.int64)
             if f.valid.any():
-                s_part, p_part = next(nonempty)
+                s_part, p_part, *f_part = next(nonempty)
                 state[f.valid] = s_part
                 p[f.valid] = p_part
-            tables.append(
-                pd.DataFrame(
-                    {
-                        "session": f.session,
-                        "animal": f.animal,
-                        "frame": np.arange(n),
-                        "time_s": np.arange(n) / f.fps,
-                        "state": state,
-                        "probability": p,
-                        "body_seen": f.meta.get("body_seen", np.where(f.valid, 1.0, np.nan)),
-                    }
-                )
-            )
+                if f_part:
+                    fine_state[f.valid] = f_part[0]
+            columns = {
+                "session": f.session,
+                "animal": f.animal,
+                "frame": np.arange(n),
+                "time_s": np.arange(n) / f.fps,
+                "state": state,
+                "probability": p,
+                "body_seen": f.meta.get("body_seen", np.where(f.valid, 1.0, np.nan)),
+            }
+            if fine is not None:
+                columns["fine_state"] = fine_state
+            tables.append(pd.DataFrame(columns))
         labels = pd.concat(tables, ignore_index=True)
         names = np.array([""] + [motif_name(k) for k in range(self.n_states_)], dtype=object)
         labels.insert(5, "motif", names[labels["state"].to_numpy() + 1])
         return labels
+
+    def _fine_states(self, X: np.ndarray, lengths: np.ndarray) -> np.ndarray | None:
+        """Fine state of every valid frame when the labels are groups of fine states (a
+        segmenter with ``predict_fine``, e.g. ``method="grouped_hmm"``); None otherwise."""
+        seg = self.segmenter_
+        if self.causal or not hasattr(seg, "predict_fine"):
+            return None
+        if len(X) == 0:
+            return np.zeros(0, dtype=np.int64)
+        return np.asarray(seg.predict_fine(X, lengths), dtype=np.int64)
 
     def suggested_merges(self, labels: pd.DataFrame | None = None, top: int = 10) -> list[dict]:
         """Pairs of states worth merging into one behaviour-level motif, with the evidence.
@@ -437,6 +473,35 @@ class BehaviourModel(BaseEstimator):
         if labels is not None:
             state = labels["state"].to_numpy(dtype=np.int64)
         return suggested_merges(state, seg.means_, seg.transmat_, self.fps_, LAG_S, top)
+
+    def cut_tree(self, labels: pd.DataFrame, n_sets: int | None = None) -> np.ndarray:
+        """The ``state`` column of ``labels`` at a coarser level of :attr:`state_tree_`.
+
+        Parameters
+        ----------
+        labels : DataFrame
+            A label table of this model (:meth:`label`).
+        n_sets : int, optional
+            Level of the tree (number of sets); None: the level the time-scale rule suggests
+            (``state_tree_["suggested_assignment"]``).
+
+        Returns
+        -------
+        int array (n_frames,): the set of each frame's state (-1 where unscored).
+        """
+        tree = getattr(self, "state_tree_", None)
+        if not tree:
+            raise InputError("this model has no state tree (its method has no transitions)")
+        if n_sets is None:
+            assignment = tree["suggested_assignment"]
+        else:
+            found = [lv["assignment"] for lv in tree["levels"] if lv["n_sets"] == n_sets]
+            if not found:
+                have = sorted(lv["n_sets"] for lv in tree["levels"])
+                raise InputError(f"n_sets must be one of the tree's levels {have}; got {n_sets!r}")
+            assignment = found[0]
+        state = labels["state"].to_numpy(dtype=np.int64)
+        return np.where(state >= 0, np.r_[np.asarray(assignment, dtype=np.int64), -1][state], -1)
 
     def merge_groups(self) -> list[list[int]]:
         """Groups of states (2 or more) of the metastable sets chosen by the time-scale rule
@@ -650,6 +715,22 @@ def _state_tree(segmenter: Any, fps: float) -> dict | None:
         "suggested_assignment": lump.assignment.tolist(),
         "reason": lump.reason,
         "levels": merge_tree(transmat, fps, LAG_S),
+        **_fine_tree(segmenter, fps),
+    }
+
+
+def _fine_tree(segmenter: Any, fps: float) -> dict:
+    """The level below the labelled states, for segmenters whose states group finer ones:
+    the group of every fine state and the fine states' own merge tree (at the grouping lag)."""
+    fine, assignment = getattr(segmenter, "fine_", None), getattr(segmenter, "assignment_", None)
+    if fine is None or assignment is None:
+        return {}
+    lag = segmenter._lag_s()
+    return {
+        "fine_assignment": [int(a) for a in assignment],
+        "fine_lag_s": lag,
+        "fine_reason": str(getattr(segmenter, "group_reason_", "")),
+        "fine_levels": merge_tree(fine.transmat_, fps, lag),
     }
 
 
@@ -701,14 +782,22 @@ def _with_seen(
 class _FixedSelection:
     """A state-count choice without a curve (change points, or a reloaded model)."""
 
-    def __init__(self, best: int, table: pd.DataFrame | None = None, criterion: str = "bic"):
+    def __init__(
+        self,
+        best: int,
+        table: pd.DataFrame | None = None,
+        criterion: str = "bic",
+        reason: str = "",
+    ):
         self.best = int(best)
         self.table = table if table is not None else pd.DataFrame()
         self.criterion = criterion
+        self.reason = reason
 
     @classmethod
     def from_json(cls, d: dict[str, Any]) -> _FixedSelection:
-        return cls(d["best"], pd.DataFrame(d["table"]), d.get("criterion", ""))
+        reason = d.get("reason", "")
+        return cls(d["best"], pd.DataFrame(d["table"]), d.get("criterion", ""), str(reason or ""))
 
 
 def _selection_to_json(selection: Any) -> dict[str, Any]:
@@ -716,5 +805,6 @@ def _selection_to_json(selection: Any) -> dict[str, Any]:
     return {
         "best": int(selection.best),
         "criterion": str(getattr(selection, "criterion", "")),
+        "reason": str(getattr(selection, "reason", "")),
         "table": table.astype(object).where(table.notna(), None).to_dict(orient="list"),
     }

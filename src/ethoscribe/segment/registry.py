@@ -13,8 +13,8 @@ the streaming labeller and the command line read this registry, so a new method 
 
 Examples
 --------
->>> sorted(segmenter_names())[:2]
-['changepoint', 'hmm']
+>>> segmenter_names()[:2]
+('hmm', 'changepoint')
 >>> get_segmenter("hmm").auto_states
 'heldout'
 """
@@ -80,6 +80,8 @@ class SegmenterSpec:
         given "auto"), None: a number of states is required.
     max_states_param : str or None
         Constructor parameter that receives the top of ``BehaviourModel.state_range``.
+    min_states_param : str or None
+        Constructor parameter that receives the bottom of ``BehaviourModel.state_range``.
     quick_options : mapping
         Options of the quick candidate fits of ``auto_states="heldout"`` (less effort: the
         count is read from the shape of the curve, then fitted in full).
@@ -100,6 +102,7 @@ class SegmenterSpec:
     options: Mapping[str, Any] = field(default_factory=dict)
     auto_states: str | None = None
     max_states_param: str | None = None
+    min_states_param: str | None = None
     quick_options: Mapping[str, Any] = field(default_factory=dict)
     stability: bool = True
     stability_options: Mapping[str, Any] = field(default_factory=dict)
@@ -137,6 +140,7 @@ class SegmenterSpec:
         random_state: Any,
         options: Mapping[str, Any] | None = None,
         max_states: int | None = None,
+        min_states: int | None = None,
     ) -> Any:
         """An unfitted segmenter of this method.
 
@@ -157,6 +161,8 @@ class SegmenterSpec:
         params = {**self.options, **options}
         if self.max_states_param is not None and max_states is not None:
             params.setdefault(self.max_states_param, max_states)
+        if self.min_states_param is not None and min_states is not None:
+            params.setdefault(self.min_states_param, min_states)
         params.update({self.state_param: n_states, "fps": fps, "random_state": random_state})
         return self.cls(**params)
 
@@ -263,5 +269,18 @@ register(
         options={"method": "prediction_error"},
         auto_states="own",
         max_states_param="max_motifs",
+    )
+)
+register(
+    SegmenterSpec(
+        "grouped_hmm",
+        "ethoscribe.segment.grouped_hmm:GroupedHMM",
+        "Gaussian HMM with many fine states, grouped into behaviours (PCCA+ sets)",
+        auto_states="own",
+        max_states_param="max_states",
+        min_states_param="min_states",
+        options={"n_restarts": 2},
+        stability_options={"n_restarts": 1, "n_iter": 30, "init_candidates": 2, "progress": False},
+        posteriors=True,
     )
 )

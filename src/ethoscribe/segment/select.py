@@ -40,7 +40,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError
-from ethoscribe.segment._hmm_fit import in_threads
+from ethoscribe.segment._hmm_fit import in_threads, n_threads
 from ethoscribe.segment.agreement import adjusted_rand
 from ethoscribe.segment.inputs import check_X_lengths
 from ethoscribe.segment.registry import get_segmenter
@@ -52,6 +52,11 @@ RULES = ("one_se", "elbow")
 # The quick path of ``choose_n_states`` (used by BehaviourModel with n_states="auto"); the
 # quick fitting options are the method's ``quick_options`` in the registry.
 QUICK_MAX_FRAMES = 20_000
+# Early stop of the quick path: two candidates past the elbow both adding less than the elbow
+# fraction. One would stop at the first small gain of a noisy curve (quick fits of one
+# restart sometimes stop in a poorer optimum, under the envelope); two past it is the least
+# that tells a flat stretch from one poor fit.
+STOP_AFTER = 2
 
 
 @dataclass(frozen=True)
@@ -70,7 +75,9 @@ class StateCountSelection:
     can support (:func:`ethoscribe.segment.hmm.frames_needed`; its
     other columns are NaN, except ``n_parameters``). ``best``: the chosen K;
     ``rule``: how the held-out curve was read ("one_se" or "elbow"); ``skipped``: the
-    candidates not fitted.
+    candidates not fitted (too few frames for them); ``not_needed``: the candidates above the
+    elbow left unfitted by early stopping (``stop_after``); ``reason``: why ``best``, one
+    sentence.
     """
 
     table: pd.DataFrame
@@ -79,6 +86,8 @@ class StateCountSelection:
     heldout: str
     rule: str = "one_se"
     skipped: tuple[int, ...] = ()
+    not_needed: tuple[int, ...] = ()
+    reason: str = ""
 
 
 def _units(lengths: np.ndarray, heldout: str, block_frames: int | None, rng) -> pd.DataFrame:
@@ -188,6 +197,7 @@ def select_n_states(
     block_frames: int | None = None,
     rule: str = "one_se",
     method: str = "hmm",
+    stop_after: int | None = None,
 ) -> StateCountSelection:
     """Fit a model for each candidate state count and pick one (rule in the module doc).
 
@@ -210,6 +220,15 @@ def select_n_states(
         Block length for ``heldout="blocks"`` (default: n_frames/20 within [50, 3000]).
     rule : {"one_se", "elbow"}
         How the held-out curve is read (module doc); ignored with ``criterion="bic"``.
+    stop_after : int or None
+        With ``rule="elbow"``: fit the candidates smallest first and stop once the elbow of
+        the curve so far lies ``stop_after`` candidates below the last one fitted (each of
+        them added less than the elbow fraction of the largest gain per state); the larger
+        candidates, the costliest fits, are then left out (``not_needed``). The elbow reads
+        the concave envelope of the curve, so a larger candidate would move it only if its
+        held-out gain, averaged per state over the whole stretch from the elbow, reached the
+        elbow fraction of the largest gain again, although the ``stop_after`` candidates in
+        between each stayed below it. None: fit every candidate.
     method : str
         A registered method whose state count is chosen this way (``auto_states="heldout"``
         in :mod:`ethoscribe.segment.registry`; its estimator scores held-out sessions). Its
@@ -312,15 +331,31 @@ def select_n_states(
         return ll_te, m.score(X_tr, len_tr), len(X_tr), m.n_parameters(), labels
 
     # The fits are independent (each seeded alike): on threads, results equal a serial loop.
+    # With ``stop_after`` candidates are fitted in rounds, smallest first (one candidate's two
+    # folds per pair of threads), until the elbow is settled.
     fold_labels: dict[tuple[int, int], np.ndarray] = {}
-    for (i, _, f), (ll_te, ll_tr, n_tr, n_par, labels) in zip(
-        jobs, in_threads(fit_fold, jobs, n_jobs), strict=True
-    ):
-        fold_labels[i, f] = labels
-        ll_units[i, (units["fold"] == f).to_numpy()] = ll_te
-        train[i] += ll_tr / len(X)  # both folds together cover every frame once
-        bic[i] += 0.5 * (-2 * ll_tr + n_par * np.log(n_tr))
+    per_round = len(jobs) if stop_after is None else 2 * max(1, n_threads(n_jobs) // 2)
+    done = 0
+    while done < len(jobs):
+        batch = jobs[done : done + per_round]
+        done += len(batch)
+        for (i, _, f), (ll_te, ll_tr, n_tr, n_par, labels) in zip(
+            batch, in_threads(fit_fold, batch, n_jobs), strict=True
+        ):
+            fold_labels[i, f] = labels
+            ll_units[i, (units["fold"] == f).to_numpy()] = ll_te
+            train[i] += ll_tr / len(X)  # both folds together cover every frame once
+            bic[i] += 0.5 * (-2 * ll_tr + n_par * np.log(n_tr))
+        fitted = done // 2
+        if stop_after is not None and done < len(jobs) and fitted >= 2:
+            at = elbow(ll_units[:fitted].sum(axis=1) / n_units.sum(), feasible[:fitted])
+            if fitted - 1 - at >= stop_after:
+                break
     bar.close()
+    fitted = done // 2
+    ll_units, bic, train = ll_units[:fitted], bic[:fitted], train[:fitted]
+    not_needed = tuple(feasible[fitted:])
+    feasible = feasible[:fitted]
     chosen = _choose(ll_units, n_units, feasible, rule)
     table = pd.DataFrame(
         {
@@ -342,7 +377,34 @@ def select_n_states(
         }
     )
     table = _with_skipped(table, cands, n_features, params, cls)
-    return StateCountSelection(table, int(chosen["best"]), criterion, heldout, rule, skipped)
+    reason = _reason(table, int(chosen["best"]), rule, stop_after, not_needed)
+    return StateCountSelection(
+        table, int(chosen["best"]), criterion, heldout, rule, skipped, not_needed, reason
+    )
+
+
+def _reason(
+    table: pd.DataFrame, best: int, rule: str, stop_after: int | None, not_needed: tuple
+) -> str:
+    """One sentence saying why ``best`` was chosen (shown beside the curve)."""
+    if rule == "one_se":
+        text = f"{best} states: the fewest within one standard error of the best held-out fit"
+    else:
+        gains = table.set_index("n_states")["heldout_gain"]
+        top = float(np.nanmax(gains.to_numpy(dtype=float))) if gains.notna().any() else np.nan
+        after = gains[gains.index > best].dropna()
+        text = f"{best} states: the elbow of the held-out curve"
+        if len(after) and np.isfinite(top) and top > 0:
+            text += (
+                f" (one more state adds {100 * float(after.iloc[0]) / top:.0f} % of the largest "
+                f"gain per state, below {100 * ELBOW_FRACTION:.0f} %)"
+            )
+    if not_needed:
+        text += (
+            f"; {', '.join(map(str, not_needed))} not fitted: the {stop_after} candidates after "
+            "the elbow already added less than that"
+        )
+    return text
 
 
 def _with_skipped(
@@ -371,6 +433,7 @@ def choose_n_states(
     progress: bool = False,
     max_frames: int | None = QUICK_MAX_FRAMES,
     method: str = "hmm",
+    stop_after: int | None = STOP_AFTER,
 ) -> StateCountSelection:
     """The automatic state count of ``BehaviourModel``: the held-out elbow, fitted quickly.
 
@@ -398,6 +461,9 @@ def choose_n_states(
         Parameters of the final model (the quick options override its fitting effort).
     max_frames : int or None
         Subsample size (None: every frame).
+    stop_after : int or None
+        Stop once the elbow lies this many fitted candidates below the last (see
+        :func:`select_n_states`); None: fit every candidate.
 
     Examples
     --------
@@ -414,5 +480,5 @@ def choose_n_states(
     heldout = "sessions" if len(lengths) >= 2 else "blocks"
     return select_n_states(
         X, lengths, candidates, "heldout", heldout, params, random_state, progress,
-        rule="elbow", method=method,
+        rule="elbow", method=method, stop_after=stop_after,
     )  # fmt: skip

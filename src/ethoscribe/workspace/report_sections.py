@@ -44,7 +44,10 @@ from ethoscribe.workspace.folder import Workspace
 RASTER_BARS = 6000  # bars drawn in the ethogram raster before rows are resampled
 TOP_ROWS = 25  # rows of the statistics table shown in the report
 FOREST_ROWS = 30  # exploratory tests drawn in the forest plot
-CHOICE_COLUMNS = ("n_states", "heldout_ll_per_frame", "train_ll_per_frame", "bic", "fitted")
+CHOICE_COLUMNS = (
+    "n_states", "heldout_ll_per_frame", "train_ll_per_frame", "bic", "fitted", "split_half_ari",
+    "eigenvalue", "eigen_gap", "timescale_s",
+)  # fmt: skip
 
 
 def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Section | None:
@@ -94,6 +97,8 @@ def model_section(ws: Workspace) -> Section:
         table = pd.DataFrame(choice["table"])
         pick = SimpleNamespace(table=table, best=choice["best"], criterion=choice["criterion"])
         figures.append(state_count_figure(pick))
+        if choice.get("reason"):
+            text += f" Why: {choice['reason']}."
         shown = [c for c in CHOICE_COLUMNS if c in table.columns]
         tables.append(("Candidate numbers of states", table[shown or list(table.columns)]))
     stability = summary.get("stability")

@@ -380,6 +380,7 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
         else {
             "best": int(selection.best),
             "criterion": str(selection.criterion),
+            "reason": str(getattr(selection, "reason", "")),
             "table": table_json(selection.table),
         },
         "features": {

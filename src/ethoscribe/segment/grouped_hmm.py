@@ -1,0 +1,310 @@
+"""Behaviour-level states: a fine Gaussian HMM whose states are grouped into metastable sets.
+
+A frame-level HMM describes a rhythmic behaviour as several states that alternate within
+every bout (the phases of a stroke or a gait cycle). :class:`GroupedHMM` fits one such fine
+model with many states (the top of ``BehaviourModel.state_range``), then groups its states by
+PCCA+ (:mod:`ethoscribe.segment.lumping`) into sets that exchange frames slowly at a lag of
+about one bout: behaviours. Its labels are the sets; the fine states stay available
+(:meth:`GroupedHMM.predict_fine`, the ``fine_state`` column of ``BehaviourModel.label``).
+
+The number of sets, when not given, is read from the spectral gap of the fine transition
+matrix at that lag (:func:`ethoscribe.segment.lumping.eigen_gap_sets`). This needs one fit
+instead of two quick fits per candidate count, and it reads the count from the dynamics
+(which states mix within bouts), not from how much likelihood another Gaussian adds.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sklearn.base import BaseEstimator
+
+from ethoscribe.errors import InputError
+from ethoscribe.saved_state import check_header, header
+from ethoscribe.segment.hmm import GaussianHMM, frames_needed
+from ethoscribe.segment.inputs import check_fitted, check_X_lengths
+from ethoscribe.segment.lumping import eigen_gap_sets, lump_states, stationary_distribution
+from ethoscribe.segment.select import StateCountSelection
+
+FORMAT_VERSION = 1
+_HMM_PARAMS = (
+    "covariance_type", "expected_bout_s", "persistence_strength", "n_restarts", "n_iter", "tol",
+    "min_covar", "init", "init_candidates", "fit_max_frames", "n_jobs", "engine", "progress",
+)  # fmt: skip
+
+
+class GroupedHMM(BaseEstimator):
+    """Fine Gaussian HMM states grouped into behaviour-level sets (PCCA+ at one bout's lag).
+
+    Parameters
+    ----------
+    n_states : int or "auto"
+        Number of behaviour-level sets. "auto": the largest eigenvalue gap of the fine
+        transition matrix at ``group_lag_s`` among ``min_states..fine states``.
+    max_states : int
+        Fine states fitted (fewer when the frames cannot support that many full
+        covariances, :func:`ethoscribe.segment.hmm.frames_needed`).
+    min_states : int
+        Fewest sets the automatic count may choose.
+    group_lag_s : float or None
+        Lag (seconds) at which the fine dynamics are grouped: about one bout, so phases that
+        alternate within a bout have mixed and behaviours have not. None: the HMM's
+        ``expected_bout_s`` (1 s by default), the bout length its transition prior expects.
+    covariance_type, expected_bout_s, fps, persistence_strength, n_restarts, n_iter, tol,
+    min_covar, init, init_candidates, fit_max_frames, n_jobs, engine, random_state, progress
+        As :class:`ethoscribe.segment.hmm.GaussianHMM` (the fine model).
+
+    Attributes
+    ----------
+    fine_ : the fitted fine GaussianHMM; assignment_ (n_fine,) set of each fine state;
+    n_states_ (sets), n_fine_states_, n_features_in_; transmat_ (n_states_, n_states_) per
+    frame between sets, startprob_, means_ (occupancy-weighted fine means); selection_ (the
+    eigen-gap table, or None when ``n_states`` was given); group_reason_.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(0)
+    >>> blocks = [rng.normal(m, 0.3, (40, 1)) for m in [0, 1, 0, 1, 6, 7, 6, 7] * 6]
+    >>> model = GroupedHMM(n_states=2, max_states=4, fps=10, n_restarts=1).fit(np.vstack(blocks))
+    >>> model.n_fine_states_, model.n_states_
+    (4, 2)
+    """
+
+    def __init__(
+        self,
+        n_states: int | str = "auto",
+        max_states: int = 12,
+        min_states: int = 2,
+        group_lag_s: float | None = None,
+        covariance_type: str = "full",
+        expected_bout_s: float | None = 1.0,
+        fps: float = 30.0,
+        persistence_strength: float = 0.5,
+        n_restarts: int = 2,
+        n_iter: int = 100,
+        tol: float = 1e-4,
+        min_covar: float = 1e-3,
+        init: str = "kmeans",
+        init_candidates: int = 8,
+        fit_max_frames: int | None = 200_000,
+        n_jobs: int | None = None,
+        engine: str = "fast",
+        random_state: int | None = 0,
+        progress: bool = False,
+    ):
+        self.n_states = n_states
+        self.max_states = max_states
+        self.min_states = min_states
+        self.group_lag_s = group_lag_s
+        self.covariance_type = covariance_type
+        self.expected_bout_s = expected_bout_s
+        self.fps = fps
+        self.persistence_strength = persistence_strength
+        self.n_restarts = n_restarts
+        self.n_iter = n_iter
+        self.tol = tol
+        self.min_covar = min_covar
+        self.init = init
+        self.init_candidates = init_candidates
+        self.fit_max_frames = fit_max_frames
+        self.n_jobs = n_jobs
+        self.engine = engine
+        self.random_state = random_state
+        self.progress = progress
+
+    # ----------------------------------------------------------------------------- checks
+    def _check(self) -> None:
+        auto = self.n_states == "auto"
+        ints = [("max_states", self.max_states), ("min_states", self.min_states)]
+        if not auto:
+            ints.append(("n_states", self.n_states))
+        for name, value in ints:
+            if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
+                msg = f"GroupedHMM: {name} must be a positive integer; got {value!r}"
+                if name == "n_states":
+                    msg += " (or 'auto')"
+                raise InputError(msg)
+        if not auto and self.n_states > self.max_states:
+            raise InputError(
+                f"GroupedHMM: n_states={self.n_states} sets cannot be made from "
+                f"max_states={self.max_states} fine states; raise max_states"
+            )
+        lag = self.group_lag_s
+        if lag is not None and not (isinstance(lag, int | float) and np.isfinite(lag) and lag > 0):
+            raise InputError(f"GroupedHMM: group_lag_s must be > 0 seconds or None; got {lag!r}")
+
+    def _lag_s(self) -> float:
+        if self.group_lag_s is not None:
+            return float(self.group_lag_s)
+        return float(self.expected_bout_s) if self.expected_bout_s else 1.0
+
+    # ---------------------------------------------------------------------------- fitting
+    def fit(self, X: np.ndarray, lengths: Sequence[int] | np.ndarray | None = None) -> GroupedHMM:
+        """Fit the fine HMM on ``X (n_frames, n_features)`` and group its states."""
+        self._check()
+        X, lengths = check_X_lengths(X, lengths)
+        n_fit = len(X) if self.fit_max_frames is None else min(len(X), int(self.fit_max_frames))
+        n_fine = int(self.max_states)
+        while n_fine > 1 and frames_needed(n_fine, X.shape[1], self.covariance_type) > n_fit:
+            n_fine -= 1  # as many fine states as the frames support
+        if self.n_states != "auto":
+            n_fine = max(n_fine, int(self.n_states))  # the fine fit then says what is missing
+        options = {name: getattr(self, name) for name in _HMM_PARAMS}
+        fine = GaussianHMM(n_states=n_fine, fps=self.fps, random_state=self.random_state, **options)
+        fine.fit(X, lengths)
+        self.fine_ = fine
+        self.selection_ = None
+        lag_s = self._lag_s()
+        if self.n_states == "auto" and n_fine < 2:
+            n_sets = 1
+        elif self.n_states == "auto":
+            lo = min(int(self.min_states), n_fine - 1)
+            best, table = eigen_gap_sets(fine.transmat_, self.fps, lag_s, range(lo, n_fine))
+            gaps = sorted((row["eigen_gap"] for row in table), reverse=True)
+            reason = (
+                f"{best} behaviours: the largest gap of the eigenvalues of the {n_fine} fine "
+                f"states' transitions at a lag of {lag_s:g} s ({gaps[0]:.2f}"
+                + (f"; next largest {gaps[1]:.2f})" if len(gaps) > 1 else ")")
+            )
+            self.selection_ = StateCountSelection(
+                pd.DataFrame(table), best, "eigen_gap", "", "eigen_gap", reason=reason
+            )
+            n_sets = best
+        else:
+            n_sets = int(self.n_states)
+        lump = lump_states(fine.transmat_, self.fps, n_sets=n_sets, lag_s=lag_s)
+        self.group_reason_ = (
+            f"{lump.n_sets} set(s) of {n_fine} fine states at a lag of {lag_s:g} s"
+            + (" (largest eigenvalue gap)" if self.n_states == "auto" else " (as asked)")
+        )
+        self._set_groups(lump.assignment)
+        return self
+
+    def _set_groups(self, assignment: np.ndarray) -> None:
+        """Set-level arrays from the fine model and the set of each fine state."""
+        fine = self.fine_
+        assignment = np.asarray(assignment, dtype=np.int64)
+        n_sets = int(assignment.max()) + 1
+        onehot = np.zeros((len(assignment), n_sets))
+        onehot[np.arange(len(assignment)), assignment] = 1.0
+        pi = stationary_distribution(fine.transmat_)
+        weight = onehot * pi[:, None]  # (fine, sets): occupancy of each fine state in its set
+        occupancy = np.maximum(weight.sum(0), 1e-300)
+        self.assignment_ = assignment
+        self._onehot = onehot
+        # Per-frame transitions between sets: flux between their fine states over occupancy.
+        self.transmat_ = (weight.T @ fine.transmat_ @ onehot) / occupancy[:, None]
+        self.transmat_ /= self.transmat_.sum(1, keepdims=True)
+        self.startprob_ = fine.startprob_ @ onehot
+        self.means_ = (weight.T @ fine.means_) / occupancy[:, None]
+        self.n_states_ = n_sets
+        self.n_fine_states_ = int(fine.n_states_)
+        self.n_features_in_ = int(fine.n_features_in_)
+        self.covariance_floor_ = fine.covariance_floor_
+        self.random_seed_ = fine.random_seed_
+
+    # ---------------------------------------------------------------------------- applying
+    def predict_fine(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Fine state of every frame (Viterbi of the fine model), int (n_frames,)."""
+        check_fitted(self, "fine_")
+        return self.fine_.predict(X, lengths)
+
+    def predict(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Set of every frame: the set of its fine Viterbi state, int (n_frames,)."""
+        return self.assignment_[self.predict_fine(X, lengths)]
+
+    def predict_proba(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Posterior of every set (sum of its fine states' posteriors), (n_frames, n_states_)."""
+        check_fitted(self, "fine_")
+        return self.fine_.predict_proba(X, lengths) @ self._onehot
+
+    def filter(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Causal posteriors of the sets, (n_frames, n_states_)."""
+        check_fitted(self, "fine_")
+        return self.fine_.filter(X, lengths) @ self._onehot
+
+    def score(self, X: np.ndarray, lengths=None) -> float:
+        """Log-likelihood of ``X`` under the fine model."""
+        check_fitted(self, "fine_")
+        return self.fine_.score(X, lengths)
+
+    def score_per_session(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        check_fitted(self, "fine_")
+        return self.fine_.score_per_session(X, lengths)
+
+    def n_parameters(self) -> int:
+        check_fitted(self, "fine_")
+        return self.fine_.n_parameters()
+
+    # ------------------------------------------------------------------------- persistence
+    def to_state(self) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
+        """JSON-able parameters, the set of each fine state, and the fine model's state."""
+        check_fitted(self, "fine_")
+        fine_meta, fine_arrays = self.fine_.to_state()
+        selection = self.selection_
+        meta = {
+            **header("ethoscribe.GroupedHMM", FORMAT_VERSION),
+            "params": {**self.get_params(), "random_state": self.random_seed_},
+            "n_states": self.n_states_,
+            "n_features": self.n_features_in_,
+            "assignment": self.assignment_.tolist(),
+            "reason": self.group_reason_,
+            "selection": None
+            if selection is None
+            else {
+                "best": int(selection.best),
+                "reason": selection.reason,
+                "table": selection.table.to_dict(orient="list"),
+            },
+            "fine": fine_meta,
+        }
+        return meta, {f"fine/{k}": v for k, v in fine_arrays.items()}
+
+    @classmethod
+    def from_state(cls, meta: dict[str, Any], arrays: dict[str, np.ndarray]) -> GroupedHMM:
+        """Rebuild the fitted model written by :meth:`to_state` (fields checked first)."""
+        check_header(meta, "ethoscribe.GroupedHMM", FORMAT_VERSION, "GroupedHMM state")
+        params = meta.get("params")
+        if not isinstance(params, Mapping):
+            raise InputError(f"GroupedHMM state: 'params' must be an object, got {params!r:.60}")
+        unknown = sorted(set(params) - set(cls._get_param_names()))
+        if unknown:
+            raise InputError(f"GroupedHMM state: unknown parameters {unknown}")
+        model = cls(**params)
+        model._check()
+        fine_meta = meta.get("fine")
+        if not isinstance(fine_meta, Mapping):
+            raise InputError("GroupedHMM state: 'fine' must be the fine model's state (an object)")
+        prefix = "fine/"
+        fine_arrays = {k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)}
+        fine = GaussianHMM.from_state(dict(fine_meta), fine_arrays)
+        assignment = meta.get("assignment")
+        n_sets = meta.get("n_states")
+        ok = (
+            isinstance(assignment, list)
+            and len(assignment) == fine.n_states_
+            and isinstance(n_sets, int)
+            and all(isinstance(a, int) and 0 <= a < n_sets for a in assignment)
+            and set(assignment) == set(range(n_sets))
+        )
+        if not ok:
+            raise InputError(
+                f"GroupedHMM state: 'assignment' must list, for each of the {fine.n_states_} "
+                f"fine states, its set (integers covering 0..n_states-1); got {assignment!r:.80}"
+            )
+        model.fine_ = fine
+        model._set_groups(np.array(assignment))
+        model.group_reason_ = str(meta.get("reason", ""))
+        saved = meta.get("selection")
+        model.selection_ = None
+        if isinstance(saved, Mapping) and "table" in saved:
+            table = pd.DataFrame(saved["table"])
+            model.selection_ = StateCountSelection(
+                table, int(saved["best"]), "eigen_gap", "", "eigen_gap",
+                reason=str(saved.get("reason", "")),
+            )  # fmt: skip
+        model.random_seed_ = model.random_state
+        return model

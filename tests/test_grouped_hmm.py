@@ -1,0 +1,160 @@
+"""Behaviour-level states: the eigenvalue-gap count and the grouped HMM (method "grouped_hmm").
+
+Outside references: eigenvalues from ``scipy.linalg.eigvals``; agreement from scikit-learn's
+``adjusted_rand_score``; the 4-state matrix and its eigenvalues 1, .90, .68, .62 are the
+deeptime 0.5.0 PCCA+ example recorded in tests/test_lumping.py.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.linalg
+from sklearn.metrics import adjusted_rand_score
+
+from ethoscribe.errors import InputError
+from ethoscribe.segment.grouped_hmm import GroupedHMM
+from ethoscribe.segment.lumping import eigen_gap_sets
+
+P4 = np.array(
+    [[0.80, 0.15, 0.04, 0.01], [0.15, 0.80, 0.01, 0.04],
+     [0.04, 0.01, 0.80, 0.15], [0.01, 0.04, 0.15, 0.80]]
+)  # fmt: skip
+
+
+def _block_matrix(sizes: list[int], leave: float) -> np.ndarray:
+    """Symmetric transition matrix: uniform mixing inside each block, ``leave`` spread evenly
+    over the states of the other blocks."""
+    n = sum(sizes)
+    block = np.repeat(np.arange(len(sizes)), sizes)
+    P = np.zeros((n, n))
+    for i in range(n):
+        same = block == block[i]
+        P[i, same] = (1 - leave) / same.sum()
+        P[i, ~same] = leave / (~same).sum()
+    return P
+
+
+def test_eigen_gap_of_the_published_four_state_example():
+    best, table = eigen_gap_sets(P4, fps=1.0, lag_s=1.0, candidates=[1, 2, 3, 4])
+    # deeptime's eigenvalues of this matrix (tests/test_lumping.py): 1, .90, .68, .62; the
+    # largest gap is below the second, so 2 sets, as deeptime's PCCA+ groups them. 4 sets
+    # (every state) has no eigenvalue below it to measure a gap against: not a candidate.
+    assert best == 2
+    gaps = {row["n_states"]: row["eigen_gap"] for row in table}
+    assert sorted(gaps) == [1, 2, 3]
+    np.testing.assert_allclose([gaps[1], gaps[2], gaps[3]], [0.10, 0.22, 0.06], atol=1e-10)
+
+
+def test_eigen_gap_finds_the_blocks_of_a_block_diagonal_chain():
+    P = _block_matrix([3, 2, 4], leave=0.02)
+    # scipy: eigenvalues of the block chain; 1 and two slow ones near 1, the rest 0.
+    reference = np.sort(np.real(scipy.linalg.eigvals(P)))[::-1]
+    best, table = eigen_gap_sets(P, fps=1.0, lag_s=1.0, candidates=range(2, 9))
+    assert best == 3
+    ours = [row["eigenvalue"] for row in table]  # lambda_2 .. lambda_8
+    np.testing.assert_allclose(ours, reference[1:8], atol=1e-10)
+    # a lag of 5 frames raises every eigenvalue to the 5th power (scipy on P^5 agrees)
+    _, lagged = eigen_gap_sets(P, fps=1.0, lag_s=5.0, candidates=[3])
+    np.testing.assert_allclose(lagged[0]["eigenvalue"], reference[2] ** 5, rtol=1e-8)
+
+
+def test_eigen_gap_refuses_candidates_outside_the_states():
+    with pytest.raises(InputError, match="no candidate"):
+        eigen_gap_sets(P4, fps=1.0, lag_s=1.0, candidates=[4, 5])
+
+
+def _rhythmic_sequence(seed: int, n_bouts: int = 60):
+    """Three behaviours: two rhythmic (postures alternating every 4 frames inside a bout),
+    one still. Bouts of 60-120 frames at 20 fps."""
+    rng = np.random.default_rng(seed)
+    postures = {0: [(0.0, 0.0), (2.0, 0.0)], 1: [(0.0, 6.0), (2.0, 6.0)], 2: [(8.0, 3.0)]}
+    X, truth, phase = [], [], []
+    for b in range(n_bouts):
+        behaviour = b % 3
+        n = int(rng.integers(60, 121))
+        for t in range(n):
+            p = postures[behaviour][(t // 4) % len(postures[behaviour])]
+            X.append(rng.normal(p, 0.3))
+            truth.append(behaviour)
+            phase.append(2 * behaviour + (t // 4) % len(postures[behaviour]))
+    return np.array(X), np.array(truth), np.array(phase)
+
+
+def test_grouped_hmm_labels_behaviours_and_keeps_the_phases():
+    X, truth, phase = _rhythmic_sequence(0)
+    model = GroupedHMM(max_states=5, min_states=2, fps=20.0, n_restarts=1, random_state=0)
+    model.fit(X, [len(X)])
+    assert model.n_fine_states_ == 5 and model.n_states_ == 3
+    # scikit-learn's ARI: the sets are the behaviours, the fine states their phases
+    grouped = adjusted_rand_score(truth, model.predict(X))
+    assert grouped > 0.95
+    # the fine states follow the phases (the sticky prior of 1-s bouts slows them down)
+    assert adjusted_rand_score(phase, model.predict_fine(X)) > 0.6
+    assert adjusted_rand_score(truth, model.predict_fine(X)) < grouped
+    prob = model.predict_proba(X)
+    assert prob.shape == (len(X), 3)
+    np.testing.assert_allclose(prob.sum(1), 1.0, atol=1e-9)
+    np.testing.assert_allclose(model.transmat_.sum(1), 1.0)
+    table = model.selection_.table
+    assert model.selection_.criterion == "eigen_gap" and model.selection_.best == 3
+    assert table.loc[table["eigen_gap"].idxmax(), "n_states"] == 3
+
+
+def test_grouped_hmm_with_a_given_count_and_its_saved_state():
+    X, _, _ = _rhythmic_sequence(1, n_bouts=30)
+    model = GroupedHMM(n_states=3, max_states=5, fps=20.0, n_restarts=1).fit(X)
+    assert model.selection_ is None and model.n_states_ == 3
+    meta, arrays = model.to_state()
+    again = GroupedHMM.from_state(meta, arrays)
+    np.testing.assert_array_equal(again.predict(X), model.predict(X))
+    np.testing.assert_array_equal(again.assignment_, model.assignment_)
+    meta["assignment"] = [0] * len(model.assignment_)
+    with pytest.raises(InputError, match="assignment"):
+        GroupedHMM.from_state(meta, arrays)
+    with pytest.raises(InputError, match="max_states"):
+        GroupedHMM(n_states=6, max_states=5).fit(X)
+
+
+def test_behaviour_model_gives_both_levels_and_saves_them():
+    from ethoscribe.segment.model import BehaviourModel
+    from ethoscribe.simulate import simulate_session
+
+    tracks = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    model = BehaviourModel(
+        method="grouped_hmm", state_range=(2, 6), segmenter={"n_restarts": 1, "n_iter": 30}
+    ).fit(tracks)
+    labels = model.label(tracks)
+    scored = labels[labels["state"] >= 0]
+    assignment = model.state_tree_["fine_assignment"]
+    assert len(assignment) == model.segmenter_.n_fine_states_ == 6
+    assert scored["state"].max() < model.n_states_ <= 6
+    assert (scored["fine_state"] >= 0).all() and (labels["fine_state"] < 6).all()
+    # the fine level is a refinement: every fine state falls mostly in its own group
+    mapped = np.asarray(assignment)[scored["fine_state"].to_numpy()]
+    assert (mapped == scored["state"].to_numpy()).mean() > 0.9
+    assert model.selection_.criterion == "eigen_gap"
+    meta, arrays = model.to_state()
+    again = BehaviourModel.from_state(meta, arrays)
+    assert again.n_states_ == model.n_states_ and again.state_tree_ == model.state_tree_
+    np.testing.assert_array_equal(again.label(tracks)["state"], labels["state"])
+
+
+def test_the_tree_cut_maps_states_to_their_sets():
+    import pandas as pd
+
+    from ethoscribe.segment.lumping import merge_tree
+    from ethoscribe.segment.model import BehaviourModel
+
+    # The published 4-state example (deeptime's PCCA+ puts 0, 1 and 2, 3 together at 2 sets)
+    model = BehaviourModel()
+    model.state_tree_ = {
+        "levels": merge_tree(P4, fps=1.0, lag_s=1.0),
+        "suggested_assignment": [0, 0, 1, 1],
+    }
+    labels = pd.DataFrame({"state": [0, 1, 2, 3, -1]})
+    assert model.cut_tree(labels).tolist() == [0, 0, 1, 1, -1]
+    assert model.cut_tree(labels, n_sets=2).tolist() == [0, 0, 1, 1, -1]
+    assert model.cut_tree(labels, n_sets=4).tolist() == [0, 1, 2, 3, -1]
+    with pytest.raises(InputError, match="levels"):
+        model.cut_tree(labels, n_sets=7)
