@@ -171,15 +171,29 @@ def test_every_bout_keeps_the_minimum_and_probabilities_follow_the_labels():
     assert np.quantile(own, 0.01) > 0.05  # the labels are probable under their own model
 
 
-def test_extreme_emissions_do_not_collapse():
-    # A frame only state 1 can explain, right after state 0 was entered: no path keeping the
-    # rule explains it better than 1e-400, which underflows a plain scaled recursion.
-    log_b = np.zeros((12, 2))
-    log_b[4:, 1] = -2000.0
-    log_b[5, :] = [-2000.0, 0.0]
-    post = forward_backward(log_b, np.array([0.5, 0.5]), np.full((2, 2), 0.5), 4)
-    assert np.isfinite(post.gamma).all()
-    np.testing.assert_allclose(post.gamma.sum(axis=1), 1.0)
+def test_frames_the_rule_forces_to_explain_badly():
+    # Bouts of evidence (10 frames) shorter than the minimum (25) with sharp states: every
+    # path keeping the rule crosses frames its state explains ~800 nats worse than the other,
+    # far below the smallest double. Reference: hmmlearn's log-space GaussianHMM on the
+    # expanded chain (as above), with free ends.
+    K, d = 2, 25
+    start, trans = np.array([0.5, 0.5]), np.array([[0.9, 0.1], [0.2, 0.8]])
+    means, sds = np.array([-1.0, 1.0]), np.array([0.05, 0.05])
+    x = np.tile(np.repeat([-1.0, 1.0], 10), 8) + np.random.default_rng(5).normal(0, 0.05, 160)
+    big_start, big_trans, _ = _expanded(start, trans, np.eye(K), d)
+    hmm = GaussianHMM(n_components=K * d, covariance_type="diag", init_params="", params="")
+    hmm.startprob_, hmm.transmat_ = big_start, big_trans
+    hmm.means_, hmm.covars_ = np.repeat(means, d)[:, None], np.repeat(sds**2, d)[:, None]
+    log_b = norm.logpdf(x[:, None], means, sds)  # scipy.stats
+    post = forward_backward(log_b, start, trans, d, last_bout_complete=False)
+    path, _ = viterbi(log_b, start, trans, d, last_bout_complete=False)
+    ref = hmm.predict_proba(x[:, None]).reshape(-1, K, d).sum(axis=2)
+    np.testing.assert_allclose(post.gamma, ref, atol=1e-9)
+    np.testing.assert_allclose(post.log_likelihood[0], hmm.score(x[:, None]), rtol=1e-12)
+    np.testing.assert_array_equal(path, hmm.predict(x[:, None]) // d)
+    complete = forward_backward(log_b, start, trans, d)
+    assert np.isfinite(complete.gamma).all()
+    np.testing.assert_allclose(complete.gamma.sum(axis=1), 1.0)
 
 
 def test_bad_arguments_are_named():

@@ -52,6 +52,21 @@ def run_ethoscribe(
         model.fit(src.sessions)
         table = model.label(src.sessions)
     seconds, cpu = time.perf_counter() - t, time.process_time() - cpu
+    labels = native_labels(src, table)
+    info = {
+        "seconds": seconds,
+        "cpu_seconds": cpu,
+        "n_states_model": int(model.n_states_),
+        "params": model.get_params(),
+        "warnings": sorted({str(w.message)[:300] for w in caught}),
+    }
+    return labels, info
+
+
+def native_labels(src: Source, table: pd.DataFrame) -> dict[tuple[str, str], np.ndarray]:
+    """The ``state`` column of a label table per (session, animal), on each unit's native
+    frames (the label of the resampled frame nearest in time when the rates were mixed)."""
+    rates = sorted({float(s.fps) for s in src.sessions})
     native = {s.session: float(s.fps) for s in src.sessions}
     labels = {}
     for (session, animal), part in table.groupby(["session", "animal"], sort=False):
@@ -63,14 +78,7 @@ def run_ethoscribe(
         state = np.full(len(part), -1, dtype=np.int64)
         state[part["frame"].to_numpy()] = part["state"].to_numpy()
         labels[key] = state[np.clip(nearest, 0, len(part) - 1)]
-    info = {
-        "seconds": seconds,
-        "cpu_seconds": cpu,
-        "n_states_model": int(model.n_states_),
-        "params": model.get_params(),
-        "warnings": sorted({str(w.message)[:300] for w in caught}),
-    }
-    return labels, info
+    return labels
 
 
 def reference_features(tracks_coords: np.ndarray, confidence: np.ndarray, fps: float) -> np.ndarray:

@@ -5,16 +5,16 @@ at age 0, ages one step per frame with probability 1 and, at age ``d-1`` ("at le
 stays with ``A[k, k]`` or enters another state ``l`` with ``A[k, l]``. With ``d = 1`` the single
 age is both the entry and the last one, and the chain is the HMM itself.
 
-Per frame each recursion costs ``K^2`` (entries) plus ``K * d`` (ages), arrays are laid out
-(age, state) so inner loops run over contiguous states. Forward-backward is scaled as in
-``_hmm_kernels`` (emissions divided by the frame maximum, forward variables normalised per
-frame). The forward pass keeps only the age-0 and age-(d-1) variables of every frame
-(``T x K`` each, not ``T x K x d``); the backward pass rebuilds the young ages of frame ``t``
-from the entries of frames ``t - j`` and the emissions in between, since a young age is
-deterministic. The posterior of frame ``t`` overwrites the entry variables of frame ``t``,
-which no later (earlier-in-time) step reads.
+Per frame each recursion costs ``K^2`` (entries) plus ``K * d`` (ages); arrays are laid out
+(age, state) so inner loops run over contiguous states. Everything runs in log space, the
+variables shifted by their maximum every frame (the shifts are kept): a young age adds the
+frame's log emission (no exponential), so only entries and last ages need ``exp``/``log``.
+The forward pass keeps the age-0 and age-(d-1) variables of every frame (``T x K`` each, not
+``T x K x d``); the backward pass needs only those, because sub-state (j, k) at frame t is
+(0, k) at frame t - j: the posterior of state k at t is that of its last age at t plus those
+of entering k in the d - 1 frames up to t.
 
-``ends_complete[s]`` says whether sequence ``s`` must end at age ``d-1`` (its last bout is
+``complete[s]`` says whether sequence ``s`` must end at age ``d-1`` (its last bout is
 also at least ``d`` frames long); it is False for sequences shorter than ``d``, which are then
 one bout.
 """
@@ -26,124 +26,174 @@ from numba import njit
 
 
 @njit(cache=True, fastmath=False, nogil=True)
+def _log_mat_vec(log_v, mat, out, tmp):  # pragma: no cover
+    """``out[k] = log sum_i exp(log_v[i]) mat[i, k]`` with one exp per ``i`` (max shifted)."""
+    n = log_v.shape[0]
+    m = -np.inf
+    for i in range(n):
+        if log_v[i] > m:
+            m = log_v[i]
+    out[:] = 0.0
+    if m == -np.inf:
+        out[:] = -np.inf
+        return
+    for i in range(n):
+        tmp[i] = np.exp(log_v[i] - m)
+    for i in range(n):  # i outer, k inner: contiguous rows
+        e_i = tmp[i]
+        row = mat[i]
+        for k in range(out.shape[0]):
+            out[k] += e_i * row[k]
+    for k in range(out.shape[0]):
+        out[k] = np.log(out[k]) + m if out[k] > 0.0 else -np.inf
+
+
+@njit(cache=True, fastmath=False, nogil=True)
+def _log_add(a, b):  # pragma: no cover
+    if a < b:
+        a, b = b, a
+    if b == -np.inf:
+        return a
+    return a + np.log1p(np.exp(b - a))
+
+
+@njit(cache=True, fastmath=False, nogil=True)
+def _shift_to_max(values):  # pragma: no cover
+    """Subtract the largest finite value from ``values`` (d, K) and return it (0 if none)."""
+    m = -np.inf
+    for j in range(values.shape[0]):
+        for k in range(values.shape[1]):
+            if values[j, k] > m:
+                m = values[j, k]
+    if m == -np.inf:
+        return 0.0
+    for j in range(values.shape[0]):
+        for k in range(values.shape[1]):
+            values[j, k] -= m
+    return m
+
+
+@njit(cache=True, fastmath=False, nogil=True)
 def md_forward(
-    b, startprob, trans_in, stay, d, starts, ends, complete, entry, last, scale, z
+    log_b, log_start, trans_in, log_stay, d, starts, ends, complete, entry, last, shift, log_z
 ):  # pragma: no cover
-    """Scaled forward pass; ``entry[t]``, ``last[t]`` are age 0 and age d-1 (normalised).
+    """Forward pass in log space. ``entry[t]``, ``last[t]``: log forward variables of age 0
+    and age d-1 minus ``shift[t]``; ``log_z[s]``: log-likelihood of sequence ``s``.
 
     ``trans_in`` is the transition matrix with a zero diagonal for ``d > 1`` (entries come
-    from other states only) and the full matrix for ``d = 1``; ``stay`` its diagonal.
-    ``z[s]`` is the probability mass (in the scaled units) of the allowed end sub-states.
+    from other states only) and the full matrix for ``d = 1``; ``log_stay`` its log diagonal.
     """
-    n_states = b.shape[1]
-    cur = np.zeros((d, n_states))  # forward variables of frame t, before normalising
+    n_states = log_b.shape[1]
+    cur = np.empty((d, n_states))
     inflow = np.empty(n_states)
-    factor = np.empty(n_states)
+    tmp = np.empty(n_states)
     for s in range(starts.shape[0]):
         t0, t1 = starts[s], ends[s]
-        cur[:] = 0.0
+        cur[:] = -np.inf
         for k in range(n_states):
-            cur[0, k] = startprob[k] * b[t0, k]
-        inv = 1.0
+            cur[0, k] = log_start[k] + log_b[t0, k]
+        total = 0.0
         for t in range(t0, t1):
-            total = 0.0
-            if t == t0:
-                for k in range(n_states):
-                    total += cur[0, k]
-            else:  # the previous frame's normalisation is folded into this frame's factor
-                b_t = b[t]
-                for k in range(n_states):
-                    factor[k] = b_t[k] * inv
-                prev_last = cur[d - 1]
-                inflow[:] = 0.0
-                for i in range(n_states):  # i outer, k inner: contiguous rows
-                    a_i = prev_last[i]
-                    row = trans_in[i]
-                    for k in range(n_states):
-                        inflow[k] += a_i * row[k]
+            lb = log_b[t]
+            if t > t0:
+                _log_mat_vec(cur[d - 1], trans_in, inflow, tmp)
                 if d > 1:
                     for k in range(n_states):
-                        v = (prev_last[k] * stay[k] + cur[d - 2, k]) * factor[k]
-                        cur[d - 1, k] = v
-                        total += v
+                        cur[d - 1, k] = _log_add(cur[d - 1, k] + log_stay[k], cur[d - 2, k]) + lb[k]
                     for j in range(d - 2, 0, -1):
-                        older, young = cur[j - 1], cur[j]
                         for k in range(n_states):
-                            v = older[k] * factor[k]
-                            young[k] = v
-                            total += v
+                            cur[j, k] = cur[j - 1, k] + lb[k]
                 for k in range(n_states):
-                    v = inflow[k] * factor[k]
-                    cur[0, k] = v
-                    total += v
-            scale[t] = total
-            inv = 1.0 / total if total > 0.0 else 0.0
-            e_t, l_t = entry[t], last[t]
+                    cur[0, k] = inflow[k] + lb[k]
+            total += _shift_to_max(cur)
+            shift[t] = total
+            entry[t] = cur[0]
+            last[t] = cur[d - 1]
+        acc = -np.inf
+        for j in range(d - 1 if complete[s] else 0, d):
             for k in range(n_states):
-                e_t[k] = cur[0, k] * inv
-                l_t[k] = cur[d - 1, k] * inv
-        acc = 0.0
-        for k in range(n_states):
-            acc += cur[d - 1, k] * inv
-        z[s] = acc if complete[s] else 1.0
+                acc = _log_add(acc, cur[j, k])
+        log_z[s] = acc + total
 
 
 @njit(cache=True, fastmath=False, nogil=True)
 def md_posteriors(
-    b, trans_in, stay, d, starts, ends, complete, scale, entry, last
+    log_b, trans_in, log_stay, d, starts, ends, complete, entry, last, shift, log_z, gamma
 ):  # pragma: no cover
-    """Backward pass; writes the state posteriors (summed over ages) into ``entry``."""
-    n_states = b.shape[1]
+    """Backward pass in log space; ``gamma[t, k]`` = posterior of state k at t (all ages).
+
+    A young age is deterministic: sub-state (j, k) at t is (0, k) at t - j, so the posterior
+    of state k at t is that of its last age at t plus those of entering k at t - d + 2 .. t.
+    Only ages 0 and d-1 need posteriors: 2K exponentials per frame.
+    """
+    n_states = log_b.shape[1]
     beta = np.empty((d, n_states))
-    w = np.empty((d, n_states))
-    p = np.empty(n_states)
-    gamma = np.empty(n_states)
+    v = np.empty(n_states)
+    out = np.empty(n_states)
+    tmp = np.empty(n_states)
     for s in range(starts.shape[0]):
         t0, t1 = starts[s], ends[s]
         for j in range(d):
-            value = 1.0 if (j == d - 1 or not complete[s]) else 0.0
+            value = 0.0 if (j == d - 1 or not complete[s]) else -np.inf
             for k in range(n_states):
                 beta[j, k] = value
+        gamma[t0:t1] = 0.0
+        back = 0.0  # sum of the shifts taken out of beta
         for t in range(t1 - 1, t0 - 1, -1):
             if t < t1 - 1:
-                inv = 1.0 / scale[t + 1] if scale[t + 1] > 0.0 else 0.0
-                b_next = b[t + 1]
-                for j in range(d):
-                    for k in range(n_states):
-                        w[j, k] = beta[j, k] * b_next[k] * inv
-                w0 = w[0]
-                for i in range(n_states):  # beta_t(last, i) = sum_k A_in[i, k] w(0, k) + ...
-                    row = trans_in[i]
-                    acc = 0.0
-                    for k in range(n_states):
-                        acc += row[k] * w0[k]
-                    beta[d - 1, i] = acc
-                if d > 1:
-                    for i in range(n_states):
-                        beta[d - 1, i] += stay[i] * w[d - 1, i]
-                    for j in range(d - 1):
-                        beta[j] = w[j + 1]
-            # posterior: the last age from `last`, young ages rebuilt from earlier entries
-            last_t = last[t]
-            for k in range(n_states):
-                gamma[k] = last_t[k] * beta[d - 1, k]
-                p[k] = 1.0
-            for j in range(d - 1):
-                u = t - j
-                if u < t0:
-                    break
-                e_u, b_u = entry[u], b[u]
-                inv_u = 1.0 / scale[u] if scale[u] > 0.0 else 0.0
+                lb = log_b[t + 1]
                 for k in range(n_states):
-                    gamma[k] += e_u[k] * p[k] * beta[j, k]
-                    p[k] *= b_u[k] * inv_u
+                    v[k] = beta[0, k] + lb[k]
+                _log_mat_vec_rows(v, trans_in, out, tmp)
+                if d > 1:
+                    for k in range(n_states):
+                        out[k] = _log_add(out[k], log_stay[k] + lb[k] + beta[d - 1, k])
+                    for j in range(d - 1):
+                        for k in range(n_states):
+                            beta[j, k] = beta[j + 1, k] + lb[k]
+                for k in range(n_states):
+                    beta[d - 1, k] = out[k]
+                back += _shift_to_max(beta)
+            offset = shift[t] + back - log_z[s]
+            g_t = gamma[t]
+            for k in range(n_states):
+                g_t[k] += np.exp(last[t, k] + beta[d - 1, k] + offset)
+            if d > 1:
+                stop = min(t + d - 1, t1)
+                for k in range(n_states):
+                    p = np.exp(entry[t, k] + beta[0, k] + offset)
+                    if p > 0.0:
+                        for u in range(t, stop):
+                            gamma[u, k] += p
+        for t in range(t0, t1):  # rows sum to one up to rounding: make it exact
+            g_t = gamma[t]
             total = 0.0
             for k in range(n_states):
-                total += gamma[k]
+                total += g_t[k]
             inv = 1.0 / total if total > 0.0 else 0.0
-            out = entry[t]  # entry[t] is read above for the last time
             for k in range(n_states):
-                out[k] = gamma[k] * inv
+                g_t[k] *= inv
+
+
+@njit(cache=True, fastmath=False, nogil=True)
+def _log_mat_vec_rows(log_v, mat, out, tmp):  # pragma: no cover
+    """``out[i] = log sum_k mat[i, k] exp(log_v[k])`` with one exp per ``k``."""
+    n = log_v.shape[0]
+    m = -np.inf
+    for k in range(n):
+        if log_v[k] > m:
+            m = log_v[k]
+    if m == -np.inf:
+        out[:] = -np.inf
+        return
+    for k in range(n):
+        tmp[k] = np.exp(log_v[k] - m)
+    for i in range(out.shape[0]):
+        row = mat[i]
+        acc = 0.0
+        for k in range(n):
+            acc += row[k] * tmp[k]
+        out[i] = np.log(acc) + m if acc > 0.0 else -np.inf
 
 
 @njit(cache=True, fastmath=False, nogil=True)

@@ -17,11 +17,9 @@ each state's sub-states, gives every frame the probability of its state under th
 rule, so the decoded label and its probability come from one model.
 
 Cost: ``O(T K (K + d))`` time and ``O(T K)`` memory (numba kernels in ``_duration_kernels``).
-Emission likelihoods below ``MIN_RELATIVE_LIKELIHOOD`` times the best state's in the same
-frame are raised to it: the duration rule can force a path through a frame that every allowed
-sub-state explains this badly, and the floor keeps the scaled recursion's normaliser above
-``MIN_RELATIVE_LIKELIHOOD / (K^2 d)`` (no underflow to zero). It changes nothing a decision
-could see.
+Forward-backward runs in log space (about ``10 K`` exponentials or logarithms per frame): the
+duration rule can force a path through frames its states explain very badly, and the scaled
+recursion of an ordinary HMM then loses the states that matter below the smallest double.
 """
 
 from __future__ import annotations
@@ -33,8 +31,6 @@ import numpy as np
 from ethoscribe.errors import InputError
 from ethoscribe.segment._duration_kernels import md_forward, md_posteriors, md_viterbi
 from ethoscribe.segment._hmm_kernels import _check_chain, _row_max
-
-MIN_RELATIVE_LIKELIHOOD = 1e-250
 
 
 class DurationPosteriors(NamedTuple):
@@ -59,11 +55,10 @@ def _prepare(log_emission, startprob, transmat, min_frames, lengths, last_bout_c
 
 
 def _relative_log_emission(log_emission: np.ndarray, overwrite: bool) -> tuple[np.ndarray, ...]:
-    """``max(log_b - frame max, log MIN_RELATIVE_LIKELIHOOD)`` and the frame maxima."""
+    """``log_b - frame max`` (smaller numbers, same decisions) and the frame maxima."""
     frame_max = _row_max(log_emission)
     out = log_emission if overwrite else np.empty_like(log_emission)
     np.subtract(log_emission, frame_max[:, None], out=out)
-    np.maximum(out, np.log(MIN_RELATIVE_LIKELIHOOD), out=out)
     return out, frame_max
 
 
@@ -108,17 +103,17 @@ def forward_backward(
     log_emission, startprob, transmat, starts, ends, complete, d = _prepare(
         log_emission, startprob, transmat, min_frames, lengths, last_bout_complete
     )
-    b, frame_max = _relative_log_emission(log_emission, overwrite)
-    np.exp(b, out=b)
+    log_b, frame_max = _relative_log_emission(log_emission, overwrite)
     trans_in, stay = _entry_matrix(transmat, d)
-    entry, last = np.empty_like(b), np.empty_like(b)
-    scale, z = np.empty(len(b)), np.empty(len(starts))
-    md_forward(b, startprob, trans_in, stay, d, starts, ends, complete, entry, last, scale, z)
-    md_posteriors(b, trans_in, stay, d, starts, ends, complete, scale, entry, last)
     with np.errstate(divide="ignore"):
-        log_scale = np.log(scale) + frame_max
-        log_likelihood = np.add.reduceat(log_scale, starts) + np.log(z)
-    return DurationPosteriors(entry, log_likelihood)
+        log_start, log_stay = np.log(startprob), np.log(stay)
+    entry, last, gamma = np.empty_like(log_b), np.empty_like(log_b), np.empty_like(log_b)
+    shift, log_z = np.empty(len(log_b)), np.empty(len(starts))
+    args = (d, starts, ends, complete, entry, last, shift, log_z)
+    md_forward(log_b, log_start, trans_in, log_stay, *args)
+    md_posteriors(log_b, trans_in, log_stay, *args, gamma)
+    log_likelihood = log_z + np.add.reduceat(frame_max, starts)
+    return DurationPosteriors(gamma, log_likelihood)
 
 
 def viterbi(
