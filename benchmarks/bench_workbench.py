@@ -9,6 +9,12 @@ runs, including the figure updates it sends -- and the background disk write of 
 
     python benchmarks/bench_workbench.py              # ~1-2 minutes, most of it building
     python benchmarks/bench_workbench.py --sessions 12   # quick look (~100k frames)
+    python benchmarks/bench_workbench.py --open results  # cold opens of a workspace
+
+``--open`` times what a user waits for in a fresh kernel, in fresh processes (``--repeats``):
+``import ethoscribe; ethoscribe.workbench(path)`` until the first screen is built (motif list,
+names, counts, the curation desk), then until the Motifs page's figures are made (the
+workbench makes them right after its first screen is shown).
 
 Prints one line per interaction: median and worst wall time of the repeats and the median CPU
 time of the kernel's thread, in milliseconds (on a shared machine the CPU time is the steadier
@@ -21,6 +27,8 @@ import argparse
 import json
 import shutil
 import statistics
+import subprocess
+import sys
 import tempfile
 import time
 from pathlib import Path
@@ -104,10 +112,48 @@ def timed(label: str, actions, repeats: int = 5) -> None:
     )
 
 
+# One cold open, in a fresh process: seconds to the first screen, then to the figures.
+# One cold open, in a fresh process: wall and CPU seconds (the process's own, imports
+# included) to the first screen, then to the figures.
+COLD_OPEN = """
+import sys, time
+import IPython  # a notebook kernel has it loaded before any cell runs
+start, start_cpu = time.perf_counter(), time.process_time()
+import ethoscribe
+wb = ethoscribe.workbench(sys.argv[1])
+first = (time.perf_counter() - start, time.process_time() - start_cpu)
+getattr(wb.portrait, "make_figures", lambda: None)()  # made in the constructor before
+figures = (time.perf_counter() - start, time.process_time() - start_cpu)
+print(*first, *figures)
+wb.close()
+"""
+
+
+def cold_opens(path: Path, repeats: int) -> None:
+    """Median and worst of ``repeats`` cold opens of the workspace ``path``."""
+    rows = []
+    for _ in range(repeats):
+        out = subprocess.run(
+            [sys.executable, "-c", COLD_OPEN, str(path)], capture_output=True, text=True, check=True
+        )
+        rows.append([float(v) for v in out.stdout.split()])
+    for label, col in (("first screen", 0), ("figures made", 2)):
+        wall, cpu = [r[col] for r in rows], [r[col + 1] for r in rows]
+        print(
+            f"{label:<14} wall median {statistics.median(wall):5.2f} s, worst {max(wall):5.2f} s"
+            f" | cpu median {statistics.median(cpu):5.2f} s ({repeats} fresh processes)"
+        )
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sessions", type=int, default=112)
+    parser.add_argument("--open", type=Path, help="only time cold opens of this workspace")
+    parser.add_argument("--repeats", type=int, default=5)
     args = parser.parse_args()
+    if args.open is not None:
+        cold_opens(args.open, args.repeats)
+        return
     from ethoscribe.widgets import Workbench
 
     with tempfile.TemporaryDirectory() as tmp:

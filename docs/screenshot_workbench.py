@@ -47,6 +47,15 @@ from test_browser import (  # noqa: E402 - the test's server helpers
 NOTEBOOK_CODE = 'import ethoscribe\nethoscribe.workbench("results")'
 WIDTH = 1366
 FIGURES = MOTIF_FIGURES
+# Every figure on the page shown has marks, or says why it has none (an annotation).
+PAGE_DRAWN = """() => {
+  const page = document.querySelector(
+    '.ethoscribe-pages .widget-tab-contents > :not(.lm-mod-hidden)');
+  if (!page) return false;
+  const plots = [...page.querySelectorAll('.js-plotly-plot')];
+  return plots.every((p) => p.querySelector('.main-svg .point, .main-svg path.js-line,'
+                                            + ' .main-svg .annotation'));
+}"""
 
 
 def build(root: Path, workspace: Path | None) -> None:
@@ -123,7 +132,7 @@ def _panels(page, bench, folder: Path) -> None:
     for i, name in enumerate(("ethogram", "study", "groups"), start=1):
         tabs.nth(i).click()
         _wait_idle(page, WAIT_MS)
-        page.wait_for_timeout(3000)  # the page draws after its tab is shown
+        page.wait_for_function(PAGE_DRAWN, timeout=WAIT_MS)  # its figures arrive after it
         page.screenshot(path=str(folder / f"screen_{name}.png"))
         # The whole page: a window as tall as it (JupyterLab scrolls inside its panels).
         tall = bench.evaluate("el => el.getBoundingClientRect().height")

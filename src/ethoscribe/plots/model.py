@@ -123,9 +123,10 @@ def stability_figure(report: Any, names: dict[int, str] | None = None) -> go.Fig
     )  # fmt: skip
     fig.add_trace(go.Bar(x=names, y=table["jaccard_halves"], name="between split halves"))
     for level, text in ((HIGH_AGREEMENT, "high"), (LOW_AGREEMENT, "low below")):
+        # the labels right of the plot (its margin), never over a bar
         fig.add_hline(
             y=level, line_dash="dot", line_color="#666",
-            annotation_text=f"{text} {level}", annotation_position="bottom right",
+            annotation_text=f"{text} {level}", annotation_position="right",
         )  # fmt: skip
     fig.update_layout(
         barmode="group",
@@ -136,6 +137,6 @@ def stability_figure(report: Any, names: dict[int, str] | None = None) -> go.Fig
         yaxis={"title": "Jaccard of matched states", "range": [0, 1.05]},
         template="plotly_white",
         legend={"orientation": "h", "x": 0, "y": 1.0, "yanchor": "bottom"},
-        margin={"t": 100},
+        margin={"t": 100, "r": 110},
     )
     return fig

@@ -126,11 +126,18 @@ def quality_figure(
         )
     fig.update_layout(
         barmode="group",
-        title={"text": "Cleaning quality", "x": 0},
-        # legend between the title and the plots: never over an axis title
+        # the title at the very top, the legend between it and the plots (up to four rows at
+        # a laptop's 880 px): never over the title or an axis title
+        title={
+            "text": "Cleaning quality",
+            "x": 0,
+            "y": 0.99,
+            "yref": "container",
+            "yanchor": "top",
+        },
         legend={"orientation": "h", "x": 0, "y": 1.1, "yanchor": "bottom"},
-        margin={"t": 150},
-        height=max(450, 160 + 16 * len(per_session) * len(invalid)),
+        margin={"t": 190},
+        height=max(490, 200 + 16 * len(per_session) * len(invalid)),
     )
     # ".1~%": 0.5 % steps print as 0.5%, 1%, 1.5% (".0%" printed 0%, 1%, 1%, 2%)
     fig.update_yaxes(tickformat=".1~%", rangemode="tozero", row=1, col=1)
