@@ -65,6 +65,11 @@ def main() -> None:
     causal = timed("fit (causal)", FeaturePipeline(causal=True).fit, [tracks])
     timed("transform (causal)", causal.transform, tracks)
     timed("fit_transform (procrustes)", FeaturePipeline(align="procrustes").fit_transform, [tracks])
+    windows = {"posture_window_s": 1.0, "speed_window_s": 1.0}  # windowed means (options)
+    windowed = timed("fit (offline, windowed)", FeaturePipeline(**windows).fit, [tracks])
+    timed("transform (offline, windowed)", windowed.transform, tracks)
+    causal_windowed = FeaturePipeline(causal=True, **windows).fit([tracks])
+    timed("transform (causal, windowed)", causal_windowed.transform, tracks)
     stream = causal.stream(1)
     frames = tracks.coords[:1000]
     wall = time.perf_counter()

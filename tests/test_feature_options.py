@@ -101,7 +101,12 @@ def test_windowed_posture_is_scipys_low_pass_of_the_components():
 
 
 @pytest.mark.parametrize(
-    "options", [{"posture_window_s": 0.5, "speed_window_s": 2.0}, {"vertical": "separate"}]
+    "options",
+    [
+        {"posture_window_s": 0.5, "speed_window_s": 2.0},
+        {"vertical": "separate"},
+        {"scale_by_size": True},
+    ],
 )
 def test_windowed_and_3d_features_stream_like_the_causal_transform(options):
     from tests.test_features import walking
@@ -160,9 +165,9 @@ def test_3d_height_is_its_own_feature_and_postures_come_from_the_shape():
     centroid = tracks.coords[:, 0, :, 2].mean(1)
     floor = np.quantile(centroid, 0.01)  # numpy.quantile: the 1 % quantile is the floor
     assert pipe.height_floor_ == pytest.approx(floor, rel=1e-12)
-    j = col["log_height_cm"]
-    above = np.exp(fs.values[:, j]) - pipe.log_offset_[j]
-    np.testing.assert_allclose(above, np.maximum(centroid - floor, 0), atol=1e-9)
+    above = fs.values[:, col["height_cm"]]
+    np.testing.assert_allclose(above, centroid - floor, atol=1e-9)
+    assert np.corrcoef(above, height)[0, 1] > 0.999  # the height carries the raising
     # Vertical speed |d height / dt| = 3 * 2 pi 0.2 |cos| (analytic); horizontal speed: the
     # centroid (1.5 cm ahead of the body's origin) circles at radius 21.5 at 0.3 rad/s.
     j, k = col["log_vertical_speed_cm_s"], col["log_centroid_speed_cm_s"]
@@ -218,3 +223,24 @@ def test_options_are_checked_and_saved(tmp_path):
             FeaturePipeline(**bad).fit([tracks])
     with pytest.raises(InputError, match=r"posture_window_s=0\.01 is shorter than two frames"):
         FeaturePipeline(posture_window_s=0.01).fit([tracks])
+
+
+def test_animals_of_two_sizes_share_postures_when_scaled_by_size():
+    # The same invented animal, and a copy 1.5 times larger (scaled about each frame's
+    # centroid): scaled by size, their postures are the same; unscaled they differ by 1.5x.
+    from tests.test_features import walking
+
+    small = walking(n=400, seed=31, session="small")
+    centre = small.coords.mean(axis=2, keepdims=True)
+    large = small.replace(coords=centre + 1.5 * (small.coords - centre), session="large")
+    kw = {"axis": ("tail_base", "nose"), "standardise": False, "n_components": 3}
+    pipe = FeaturePipeline(scale_by_size=True, **kw).fit([small, large])
+    # Typical size: the median of the two animals' sizes (RMS keypoint distance from the
+    # centroid, numpy), the larger one 1.5 times the smaller.
+    r = np.sqrt(((small.coords[:, 0] - centre[:, 0]) ** 2).sum(-1).mean(-1))
+    assert pipe.body_size_ == pytest.approx(np.median([np.median(r), 1.5 * np.median(r)]))
+    a, b = pipe.transform(small)[0].values, pipe.transform(large)[0].values
+    np.testing.assert_allclose(a[:, :3], b[:, :3], atol=1e-9)
+    plain = FeaturePipeline(**kw).fit([small, large])
+    pa, pb = plain.transform(small)[0].values, plain.transform(large)[0].values
+    assert not np.allclose(pa[:, :3], pb[:, :3], atol=0.1)

@@ -21,8 +21,11 @@ Nyquist frequency (all from 24 fps; 0.5-2 Hz at 10 fps; ``frequencies_``). Optio
 default): ``posture_window_s`` / ``speed_window_s`` replace the posture components / speeds by
 their average over about that many seconds (``..._mean_<w>s``: one level for every phase of a
 rhythm); in 3-D ``vertical="separate"`` takes the centroid's height out of the posture (the
-components describe the shape) and adds ``log_height_<u>`` (above the floor, the 1 % quantile)
-and ``log_vertical_speed_<u>_s`` (the centroid speed is then horizontal).
+components describe the shape) and adds ``height_<u>`` (of the centroid above the floor, the
+1 % quantile; linear, as heights vary by a factor of a few, not by orders of magnitude) and
+``log_vertical_speed_<u>_s`` (the centroid speed is then horizontal); ``scale_by_size=True``
+brings every animal's posture to the typical body size (individuals of several sizes share
+one posture space). benchmarks/README.md has the validation bench with each option.
 
 Why: a Gaussian HMM models each state by a mean and a covariance, so every column should be
 informative, low in noise and roughly Gaussian within a behaviour. Speeds and amplitudes are

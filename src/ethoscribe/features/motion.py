@@ -64,6 +64,11 @@ class _Motion:
             self.bands = bands if bc and freqs else None
             self.stds = None if compact else partial(rolling_std, window_frames=w_std)
         self._last_heading: tuple[float, float] | None = None  # (raw, unwrapped), causal only
+        self.body_scale = None
+        if pipe.body_size_ is not None:
+            from ethoscribe.features.pipeline import BodyScale
+
+            self.body_scale = BodyScale(pipe).scale
 
     def _unwrap(self, heading: np.ndarray) -> np.ndarray:
         if not self.pipe.causal:
@@ -84,6 +89,8 @@ class _Motion:
         p = self.pipe
         centroid, heading, ego = geo
         n, d = ego.shape[0], ego.shape[2]
+        if self.body_scale is not None:
+            ego = ego * self.body_scale(ego)[:, None, None]
         bc = p._band_components
         out = np.empty((n, len(p.columns_)))
         col = 0
@@ -110,7 +117,7 @@ class _Motion:
             speeds = np.column_stack(speeds)
             put(speeds if self.speed_mean is None else self.speed_mean(speeds))
             if p._separate_heights:
-                put(np.maximum(centroid[:, up] - p.height_floor_, 0.0))
+                put(centroid[:, up] - p.height_floor_)
             if self.bands is not None:  # amplitude of the whole posture in each band
                 power = self.bands(pcs[:, :bc])
                 put(np.sqrt(power.sum(axis=1) if power.shape[1] > 1 else power[:, 0]))

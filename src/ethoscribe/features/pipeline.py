@@ -36,6 +36,41 @@ from ethoscribe.geometry import (
 from ethoscribe.pose import PoseTracks, check_same_body_plan
 
 
+def _radius(ego: np.ndarray) -> np.ndarray:
+    """RMS distance of the keypoints (F, K, D) from their centroid, per frame (F,)."""
+    centred = ego - np.einsum("fkd->fd", ego)[:, None] / ego.shape[1]
+    return np.sqrt(np.einsum("fkd,fkd->f", centred, centred) / ego.shape[1])
+
+
+def _body_size(X: np.ndarray) -> float:
+    """Median RMS keypoint distance from the centroid over the frames (F, K, D) seen."""
+    r = _radius(X[:: max(1, len(X) // 20_000)])
+    r = r[np.isfinite(r)]
+    return float(np.median(r)) if r.size else np.nan
+
+
+class BodyScale:
+    """Factor that brings one animal's keypoints to the typical body size: ``body_size_`` /
+    its own size (offline: the median over the chunk it is given, the whole session; causal:
+    the mean over every frame seen so far, carried from chunk to chunk)."""
+
+    def __init__(self, pipe: FeaturePipeline) -> None:
+        self.typical, self.causal = pipe.body_size_, pipe.causal
+        self._sum, self._count = 0.0, 0
+
+    def scale(self, ego: np.ndarray) -> np.ndarray:
+        r = _radius(ego)
+        ok = np.isfinite(r)
+        if not self.causal:
+            size = np.median(r[ok]) if ok.any() else np.nan
+            return np.full(len(r), self.typical / size if size > 0 else np.nan)
+        sums = self._sum + np.cumsum(np.where(ok, r, 0.0))
+        counts = self._count + np.cumsum(ok)
+        self._sum, self._count = float(sums[-1]), int(counts[-1])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(sums > 0, self.typical * counts / sums, np.nan)
+
+
 def _accumulate(acc: list | None, X: np.ndarray, full: bool) -> list | None:
     """Add the finite rows of ``X`` to running [count, mean, scatter] (Chan et al. pairwise
     update), block by block; scatter is the full matrix or, with ``full=False``, its diagonal."""
@@ -138,8 +173,14 @@ class FeaturePipeline(BaseEstimator):
         components see the body's height above the floor. "separate": postures come from the
         shape (the centroid's height removed from every keypoint) and the height of the body
         centroid above its floor (the 1 % quantile over the fitted frames) and the vertical
-        speed are columns of their own (compact: ``log_height_<u>``, ``log_vertical_speed_<u>_s``;
-        the centroid speed is then horizontal).
+        speed are columns of their own (compact: ``height_<u>``, linear, and
+        ``log_vertical_speed_<u>_s``; the centroid speed is then horizontal).
+    scale_by_size : bool
+        Divide each animal's egocentric keypoints by its body size (the median over the
+        session's frames of the RMS distance of its keypoints from their centroid; causal: the
+        mean over the frames so far) and multiply by the fitted typical size ``body_size_``
+        (the median over fitted animals), so animals of different sizes share one posture
+        space; posture speed and band amplitudes follow, the centroid speed stays absolute.
     social : bool
         Add features of the nearest other animal when the fitted sessions have several animals.
     causal : bool
@@ -157,6 +198,7 @@ class FeaturePipeline(BaseEstimator):
     scaler_mean_, scaler_scale_ : (n_features,) standardisation (constant features: scale 1)
     frequencies_ : tuple of float, band centres used (given, or chosen for the frame rate)
     height_floor_ : float or None, 3-D floor of the centroid's height (vertical="separate")
+    body_size_ : float or None, typical body size (scale_by_size=True)
     columns_, keypoints_, n_dims_, units_, fps_, social_, n_components_
 
     A frame is valid when every feature is finite; invalid frames stay in the output as NaN
@@ -190,6 +232,7 @@ class FeaturePipeline(BaseEstimator):
         posture_window_s: float | None = None,
         speed_window_s: float | None = None,
         vertical: str = "posture",
+        scale_by_size: bool = False,
         social: bool = True,
         causal: bool = False,
         standardise: bool = True,
@@ -207,6 +250,7 @@ class FeaturePipeline(BaseEstimator):
         self.posture_window_s = posture_window_s
         self.speed_window_s = speed_window_s
         self.vertical = vertical
+        self.scale_by_size = scale_by_size
         self.social = social
         self.causal = causal
         self.standardise = standardise
@@ -293,7 +337,7 @@ class FeaturePipeline(BaseEstimator):
             isinstance(v, bool) or not isinstance(v, int | float) or not 0 < v < np.inf
         ):
             bad.append(f"speed_window_s must be a positive number of seconds or None; got {v!r}")
-        for name in ("social", "causal", "standardise"):
+        for name in ("social", "causal", "standardise", "scale_by_size"):
             if not isinstance(getattr(self, name), bool | np.bool_):
                 bad.append(f"{name} must be True or False; got {getattr(self, name)!r}")
         if bad:
@@ -549,9 +593,15 @@ class FeaturePipeline(BaseEstimator):
     def _fit_pca(self, sessions: list[PoseTracks]) -> None:
         """Posture PCA via eigh of the covariance (ddof 1) of valid egocentric postures."""
         acc, heights = None, []
+        self.body_size_ = None
+        if self.scale_by_size:
+            sizes = [_body_size(s.coords[:, a]) for s in sessions for a in range(s.n_animals)]
+            self.body_size_ = float(np.nanmedian(sizes)) if np.isfinite(sizes).any() else None
         for s in sessions:
             for a in range(s.n_animals):
                 centroid, _, ego = self._geometry(s.coords[:, a])
+                if self.body_size_ is not None:
+                    ego = ego * BodyScale(self).scale(ego)[:, None, None]
                 acc = _accumulate(acc, ego.reshape(s.n_frames, -1), full=True)
                 if self._separate_heights:
                     step = max(1, s.n_frames * s.n_animals * len(sessions) // 200_000)
@@ -598,7 +648,7 @@ class FeaturePipeline(BaseEstimator):
                 speeds += [f"log_vertical_speed_{us}"]
             cols += [f"{c}{smean}" for c in speeds]
             if self._separate_heights:
-                cols += [f"log_height_{u}"]
+                cols += [f"height_{u}"]
             cols += [f"log_posture_band_{b}" for b in bands]
         else:
             lead = pcs[: self._band_components]

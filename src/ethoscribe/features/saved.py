@@ -38,10 +38,16 @@ _FITTED_META = (
     "columns_",
     "frequencies_",
     "height_floor_",
+    "body_size_",
 )
 # Parameters added after the first saved states, with the value that reproduces those states
 # (a later change of the default must not change what an old saved pipeline computes).
-_ADDED_PARAMS = {"posture_window_s": None, "speed_window_s": None, "vertical": "posture"}
+_ADDED_PARAMS = {
+    "posture_window_s": None,
+    "speed_window_s": None,
+    "vertical": "posture",
+    "scale_by_size": False,
+}
 
 
 def pipeline_state(pipe: FeaturePipeline) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
@@ -77,6 +83,7 @@ def pipeline_from_state(
         if "frequencies_" not in fitted:  # saved before automatic bands: the given list
             fitted["frequencies_"] = list(params.get("frequencies", []))
         fitted.setdefault("height_floor_", None)
+        fitted.setdefault("body_size_", None)
         missing = [k for k in (*_FITTED_META,) if k not in fitted]
         missing += [k for k in _FITTED_ARRAYS if k not in arrays]
     except (KeyError, TypeError) as exc:
@@ -147,6 +154,12 @@ def _check_fitted_meta(fitted: Mapping[str, Any]) -> None:
         and all(
             isinstance(f, int | float) and not isinstance(f, bool) and 0 < f < np.inf
             for f in fitted["frequencies_"]
+        ),
+        "body_size_": fitted["body_size_"] is None
+        or (
+            isinstance(fitted["body_size_"], int | float)
+            and not isinstance(fitted["body_size_"], bool)
+            and 0 < fitted["body_size_"] < np.inf
         ),
         "height_floor_": fitted["height_floor_"] is None
         or (
