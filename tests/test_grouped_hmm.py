@@ -158,3 +158,21 @@ def test_the_tree_cut_maps_states_to_their_sets():
     assert model.cut_tree(labels, n_sets=4).tolist() == [0, 1, 2, 3, -1]
     with pytest.raises(InputError, match="levels"):
         model.cut_tree(labels, n_sets=7)
+
+
+def test_grouping_the_elbow_model_by_its_time_scales():
+    # The held-out elbow picks the fine states (here the phases: 5 postures); the time-scale
+    # rule then joins states exchanged faster than 1 s (the 4-frame phases at 20 fps).
+    X, truth, _ = _rhythmic_sequence(2)
+    model = GroupedHMM(
+        fine_states="elbow", group_rule="time_scales", max_states=6, min_states=2, fps=20.0,
+        n_restarts=1, random_state=0,
+    ).fit(X, [len(X) // 2, len(X) - len(X) // 2])  # fmt: skip
+    assert model.selection_.criterion == "heldout"  # the elbow's curve, with both reasons
+    assert "elbow" in model.selection_.reason and "time scale" in model.selection_.reason
+    assert model.n_states_ <= model.n_fine_states_
+    assert adjusted_rand_score(truth, model.predict(X)) > 0.95  # scikit-learn's ARI
+    with pytest.raises(InputError, match="group_rule"):
+        GroupedHMM(group_rule="spectral").fit(X)
+    with pytest.raises(InputError, match="fine_states"):
+        GroupedHMM(fine_states="many").fit(X)

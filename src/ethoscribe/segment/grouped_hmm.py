@@ -16,6 +16,7 @@ instead of two quick fits per candidate count, and it reads the count from the d
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -27,7 +28,7 @@ from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment.hmm import GaussianHMM, frames_needed
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths
 from ethoscribe.segment.lumping import eigen_gap_sets, lump_states, stationary_distribution
-from ethoscribe.segment.select import StateCountSelection
+from ethoscribe.segment.select import StateCountSelection, choose_n_states
 
 FORMAT_VERSION = 1
 _HMM_PARAMS = (
@@ -53,6 +54,17 @@ class GroupedHMM(BaseEstimator):
         Lag (seconds) at which the fine dynamics are grouped: about one bout, so phases that
         alternate within a bout have mixed and behaviours have not. None: the HMM's
         ``expected_bout_s`` (1 s by default), the bout length its transition prior expects.
+    fine_states : int, "elbow" or None
+        Fine states fitted: None: ``max_states``; "elbow": the held-out elbow of quick fits
+        from ``min_states`` to ``max_states`` (:func:`ethoscribe.segment.select.choose_n_states`,
+        what ``method="hmm"`` labels with), so the sets group that model's states.
+    group_rule : {"eigen_gap", "time_scales"}
+        How many sets when ``n_states="auto"``: the largest eigenvalue gap (at least one merge),
+        or one set per implied time scale longer than ``min_timescale_s``, plus one
+        (:func:`ethoscribe.segment.lumping.lump_states`; may keep every fine state).
+    min_timescale_s : float
+        Exchanges slower than this are between behaviours (``group_rule="time_scales"``);
+        1 s, as the model's state tree.
     covariance_type, expected_bout_s, fps, persistence_strength, n_restarts, n_iter, tol,
     min_covar, init, init_candidates, fit_max_frames, n_jobs, engine, random_state, progress
         As :class:`ethoscribe.segment.hmm.GaussianHMM` (the fine model).
@@ -79,6 +91,9 @@ class GroupedHMM(BaseEstimator):
         max_states: int = 12,
         min_states: int = 2,
         group_lag_s: float | None = None,
+        fine_states: int | str | None = None,
+        group_rule: str = "eigen_gap",
+        min_timescale_s: float = 1.0,
         covariance_type: str = "full",
         expected_bout_s: float | None = 1.0,
         fps: float = 30.0,
@@ -99,6 +114,9 @@ class GroupedHMM(BaseEstimator):
         self.max_states = max_states
         self.min_states = min_states
         self.group_lag_s = group_lag_s
+        self.fine_states = fine_states
+        self.group_rule = group_rule
+        self.min_timescale_s = min_timescale_s
         self.covariance_type = covariance_type
         self.expected_bout_s = expected_bout_s
         self.fps = fps
@@ -132,6 +150,20 @@ class GroupedHMM(BaseEstimator):
                 f"GroupedHMM: n_states={self.n_states} sets cannot be made from "
                 f"max_states={self.max_states} fine states; raise max_states"
             )
+        fine = self.fine_states
+        if (
+            fine is not None
+            and fine != "elbow"
+            and (isinstance(fine, bool) or not isinstance(fine, int | np.integer) or fine < 1)
+        ):
+            raise InputError(
+                f"GroupedHMM: fine_states must be a positive integer, 'elbow' or None; got {fine!r}"
+            )
+        if self.group_rule not in ("eigen_gap", "time_scales"):
+            raise InputError(
+                f"GroupedHMM: group_rule must be 'eigen_gap' or 'time_scales'; got "
+                f"{self.group_rule!r}"
+            )
         lag = self.group_lag_s
         if lag is not None and not (isinstance(lag, int | float) and np.isfinite(lag) and lag > 0):
             raise InputError(f"GroupedHMM: group_lag_s must be > 0 seconds or None; got {lag!r}")
@@ -146,42 +178,65 @@ class GroupedHMM(BaseEstimator):
         """Fit the fine HMM on ``X (n_frames, n_features)`` and group its states."""
         self._check()
         X, lengths = check_X_lengths(X, lengths)
-        n_fit = len(X) if self.fit_max_frames is None else min(len(X), int(self.fit_max_frames))
-        n_fine = int(self.max_states)
-        while n_fine > 1 and frames_needed(n_fine, X.shape[1], self.covariance_type) > n_fit:
-            n_fine -= 1  # as many fine states as the frames support
-        if self.n_states != "auto":
-            n_fine = max(n_fine, int(self.n_states))  # the fine fit then says what is missing
         options = {name: getattr(self, name) for name in _HMM_PARAMS}
+        n_fine, elbow = self._fine_count(X, lengths, options)
         fine = GaussianHMM(n_states=n_fine, fps=self.fps, random_state=self.random_state, **options)
         fine.fit(X, lengths)
         self.fine_ = fine
         self.selection_ = None
         lag_s = self._lag_s()
-        if self.n_states == "auto" and n_fine < 2:
-            n_sets = 1
-        elif self.n_states == "auto":
+        origin = "chosen by the held-out elbow" if elbow is not None else "fitted"
+        if self.n_states != "auto":
+            n_sets, reason = int(self.n_states), f"{int(self.n_states)} sets as asked"
+        elif n_fine < 2:
+            n_sets, reason = 1, "1 set: a single fine state"
+        elif self.group_rule == "time_scales":
+            lump = lump_states(
+                fine.transmat_, self.fps, lag_s=lag_s, min_timescale_s=self.min_timescale_s
+            )
+            n_sets = lump.n_sets
+            reason = f"{n_sets} behaviours of {n_fine} fine states ({origin}): {lump.reason}"
+        else:
             lo = min(int(self.min_states), n_fine - 1)
             best, table = eigen_gap_sets(fine.transmat_, self.fps, lag_s, range(lo, n_fine))
             gaps = sorted((row["eigen_gap"] for row in table), reverse=True)
             reason = (
                 f"{best} behaviours: the largest gap of the eigenvalues of the {n_fine} fine "
-                f"states' transitions at a lag of {lag_s:g} s ({gaps[0]:.2f}"
+                f"states' ({origin}) transitions at a lag of {lag_s:g} s ({gaps[0]:.2f}"
                 + (f"; next largest {gaps[1]:.2f})" if len(gaps) > 1 else ")")
             )
             self.selection_ = StateCountSelection(
                 pd.DataFrame(table), best, "eigen_gap", "", "eigen_gap", reason=reason
             )
             n_sets = best
-        else:
-            n_sets = int(self.n_states)
+        if self.selection_ is None and elbow is not None:
+            self.selection_ = replace(elbow, reason=f"{elbow.reason}; {reason}")
         lump = lump_states(fine.transmat_, self.fps, n_sets=n_sets, lag_s=lag_s)
-        self.group_reason_ = (
-            f"{lump.n_sets} set(s) of {n_fine} fine states at a lag of {lag_s:g} s"
-            + (" (largest eigenvalue gap)" if self.n_states == "auto" else " (as asked)")
-        )
+        self.group_reason_ = reason
         self._set_groups(lump.assignment)
         return self
+
+    def _fine_count(
+        self, X: np.ndarray, lengths: np.ndarray, options: dict
+    ) -> tuple[int, StateCountSelection | None]:
+        """Number of fine states, and the held-out elbow choice when ``fine_states="elbow"``."""
+        n_fit = len(X) if self.fit_max_frames is None else min(len(X), int(self.fit_max_frames))
+        top = int(self.max_states)
+        while top > 1 and frames_needed(top, X.shape[1], self.covariance_type) > n_fit:
+            top -= 1  # no more fine states than the frames support
+        elbow = None
+        if self.fine_states == "elbow":
+            lo = min(int(self.min_states), top)
+            params = {"fps": self.fps, **{k: v for k, v in options.items() if k != "progress"}}
+            elbow = choose_n_states(
+                X, lengths, range(lo, top + 1), params, self.random_state, self.progress
+            )
+            n_fine = int(elbow.best)
+        else:
+            n_fine = top if self.fine_states is None else int(self.fine_states)
+        if self.n_states != "auto":
+            n_fine = max(n_fine, int(self.n_states))  # the fine fit then says what is missing
+        return n_fine, elbow
 
     def _set_groups(self, assignment: np.ndarray) -> None:
         """Set-level arrays from the fine model and the set of each fine state."""
