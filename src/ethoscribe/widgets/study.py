@@ -100,8 +100,9 @@ class GroupPage:
         self.table = w.HTML()
         state.on("comparison", self.draw)
         hint = (
-            "Compares every motif's time budget, bout rate and durations between the groups "
-            "(one value per session), with Benjamini-Hochberg q-values. Results are written to "
+            "Compares every motif's time budget, bout rate, bout durations and transitions "
+            "between the groups (one value per session), with Benjamini-Hochberg q-values "
+            "within each of these families of tests. Results are written to "
             "comparison_&lt;column&gt;/ in the workspace."
             if columns
             else "sessions.csv has no column that splits the sessions into groups; give a "

@@ -104,15 +104,17 @@ class Workbench(w.VBox):
 
     def _motif_page(self) -> w.Widget:
         p = self.portrait
-        top = flow([self.motif_list.widget, p.centre, p.right])
+        # "Play it" sits under the posture, near the top: the Ethogram page it opens is
+        # shorter, and from low on this page the notebook would show only its empty end.
         closer = w.VBox(
             [
-                p.slots["neighbours"],
                 note("Watch an example bout move, with its video if the session has one:"),
                 flow([self.closer, self.closer_button]),
-            ]
+            ],
+            layout=w.Layout(max_width="380px", margin="6px 0 0 0"),
         )
-        middle = flow([p.examples, closer])
+        top = flow([self.motif_list.widget, w.VBox([p.centre, closer]), p.right])
+        middle = flow([p.examples, p.slots["neighbours"]])
         return w.VBox([top, middle, self.desk.widget])
 
     # --- bindings -------------------------------------------------------------------------
