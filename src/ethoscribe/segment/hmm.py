@@ -353,14 +353,16 @@ class GaussianHMM(BaseEstimator):
         return self.decode(X, lengths)[1]
 
     def predict_min_duration(
-        self, X: np.ndarray, lengths=None, min_frames: int = 1
+        self, X: np.ndarray, lengths=None, min_frames: int = 1, outlier_share: float = 0.0
     ) -> tuple[np.ndarray, np.ndarray]:
         """Labels whose every bout lasts at least ``min_frames``, and their posteriors.
 
         Viterbi and forward-backward on the minimum-duration chain of this HMM
         (:mod:`ethoscribe.segment.duration`): each state must be held ``min_frames`` frames
         before the fitted transition probabilities apply. A session shorter than
-        ``min_frames`` is one bout. With ``min_frames=1`` this is :meth:`predict` and
+        ``min_frames`` is one bout. ``outlier_share`` > 0 takes that share of frames to be
+        uninformative (:func:`ethoscribe.segment.duration.with_outlier_frames`). With
+        ``min_frames=1`` and ``outlier_share=0`` this is :meth:`predict` and
         :meth:`predict_proba`.
 
         Returns
@@ -373,13 +375,12 @@ class GaussianHMM(BaseEstimator):
         check_fitted(self, "means_")
         labels = np.empty(len(X), dtype=np.int64)
         proba = np.empty((len(X), self.n_states_))
+        start, trans = self.startprob_, self.transmat_
         for a, b, sub, log_b in self._log_emission_batches(X, lengths):
-            labels[a:b] = duration.viterbi(log_b, self.startprob_, self.transmat_, min_frames, sub)[
-                0
-            ]
-            post = duration.forward_backward(
-                log_b, self.startprob_, self.transmat_, min_frames, sub, overwrite=True
-            )
+            if outlier_share > 0:
+                log_b = duration.with_outlier_frames(log_b, outlier_share)
+            labels[a:b] = duration.viterbi(log_b, start, trans, min_frames, sub)[0]
+            post = duration.forward_backward(log_b, start, trans, min_frames, sub, overwrite=True)
             proba[a:b] = post.gamma
         return labels, proba
 

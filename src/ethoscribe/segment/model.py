@@ -24,6 +24,7 @@ from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
 from ethoscribe.pose import PoseTracks, check_same_body_plan
 from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._model_meta import RESAVE, check_meta, known_keys
+from ethoscribe.segment.duration import OUTLIER_SHARE
 from ethoscribe.segment.inputs import check_fitted, split_by_lengths
 from ethoscribe.segment.lumping import lump_states, merge_tree, suggested_merges
 from ethoscribe.segment.postprocess import enforce_min_bout
@@ -90,12 +91,14 @@ class BehaviourModel(BaseEstimator):
     decoding : {"min_duration", "merge"}
         How the minimum bout is kept. "min_duration": the HMM decodes under the rule itself
         (:mod:`ethoscribe.segment.duration`: each state is held ``min_bout_s`` before the
-        fitted transition probabilities apply; Viterbi gives the labels, forward-backward on
-        the same model their ``probability``). "merge": plain Viterbi, then bouts shorter than
-        ``min_bout_s`` are merged into a neighbour (``postprocess.enforce_min_bout``), and the
-        ``probability`` of a merged frame is the plain HMM's posterior of a label it did not
-        choose (often near 0). Methods without posteriors over a state chain (change points)
-        always merge; causal models never apply the minimum (it needs future frames).
+        fitted transition probabilities apply, and 5 % of frames may be uninformative, so a
+        burst shorter than the minimum can be absorbed rather than stretched; Viterbi gives
+        the labels, forward-backward on the same model their ``probability``). "merge": plain
+        Viterbi, then bouts shorter than ``min_bout_s`` are merged into a neighbour
+        (``postprocess.enforce_min_bout``), and the ``probability`` of a merged frame is the
+        plain HMM's posterior of a label it did not choose (often near 0). Methods without
+        posteriors over a state chain (change points) always merge; causal models never apply
+        the minimum (it needs future frames).
     min_body_seen : float or None
         Smallest fraction of keypoints a frame must show to be scored. Keypoints lost in such
         a frame are filled with their expected position given the visible ones, under a
@@ -525,7 +528,7 @@ class BehaviourModel(BaseEstimator):
             return np.argmax(prob, axis=1), prob
         chain = getattr(seg, "predict_min_duration", None)
         if min_frames > 1 and self.decoding == "min_duration" and chain is not None:
-            return chain(X, lengths, min_frames)
+            return chain(X, lengths, min_frames, OUTLIER_SHARE)
         if get_segmenter(self.method).posteriors:
             states, prob = seg.predict(X, lengths), seg.predict_proba(X, lengths)
         else:
