@@ -4,7 +4,9 @@ Decoding and the minimum bout act only when labelling, so every variant of them 
 fit of the default model: the bench's sources and scores (``benchmarks.validity``), the
 ethoscribe pipeline's defaults (``random_state=seed``, the lowest rate where rates are mixed),
 then ``label`` once per variant. Besides the bench's scores it reports the share of scored
-frames whose own label has probability < 0.01 and the mean of that probability.
+frames whose own label has probability < 0.01 and the mean of that probability; in brackets,
+that share for the same labels under the minimum-duration chain of the same bout without
+outlier frames (would the chain's posteriors suit merged labels?).
 
 Usage: python -m benchmarks.bench_labelling [--source NAME ...] [--out results/labelling]
        (about as long as one bench run without the reference: 3-6 min of CPU)
