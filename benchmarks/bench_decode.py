@@ -18,6 +18,7 @@ import tempfile
 
 import numpy as np
 
+from ethoscribe.segment.duration import OUTLIER_SHARE
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.postprocess import enforce_min_bout
 
@@ -53,7 +54,7 @@ def merged(hmm: GaussianHMM, X: np.ndarray, lengths: np.ndarray):
 
 
 def chain(hmm: GaussianHMM, X: np.ndarray, lengths: np.ndarray):
-    return hmm.predict_min_duration(X, lengths, MIN_FRAMES)
+    return hmm.predict_min_duration(X, lengths, MIN_FRAMES, OUTLIER_SHARE)  # as the model does
 
 
 def own_share(labels: np.ndarray, proba: np.ndarray) -> float:
