@@ -35,7 +35,7 @@ from _reliability_data import (
     write_study,
 )
 from ethoscribe.curation import Curation
-from ethoscribe.errors import WorkspaceError
+from ethoscribe.errors import JournalWarning, WorkspaceError
 from ethoscribe.io._safe import read_json
 from ethoscribe.workspace import Workspace, read_journal
 
@@ -202,7 +202,8 @@ def test_torn_journal_line_does_not_swallow_the_next_edit(base, tmp_path):
     ws.rename_motif("motif_01", "resting")
     with open(ws.path / "journal.jsonl", "a") as fh:
         fh.write('{"op": "rename", "motif": "motif_02", "na')
-    ws.rename_motif("motif_02", "walking")
+    with pytest.warns(JournalWarning, match="line 2"):  # the user is told the line was lost
+        ws.rename_motif("motif_02", "walking")
     records, problems = read_journal(ws.path / "journal.jsonl")
     assert [r.get("name") for r in records] == ["resting", "walking"]
     assert len(problems) == 1 and "line 2" in problems[0]
