@@ -137,6 +137,7 @@ def test_behaviour_model_gives_both_levels_and_saves_them():
     meta, arrays = model.to_state()
     again = BehaviourModel.from_state(meta, arrays)
     assert again.n_states_ == model.n_states_ and again.state_tree_ == model.state_tree_
+    assert again.selection_.reason == model.selection_.reason != ""
     np.testing.assert_array_equal(again.label(tracks)["state"], labels["state"])
 
 
@@ -176,3 +177,34 @@ def test_grouping_the_elbow_model_by_its_time_scales():
         GroupedHMM(group_rule="spectral").fit(X)
     with pytest.raises(InputError, match="fine_states"):
         GroupedHMM(fine_states="many").fit(X)
+
+
+def test_discover_with_grouped_states_writes_both_levels(tmp_path):
+    # the bundled example sessions (invented voles), trimmed; whole discover run incl. report
+    from _example_study import trimmed_study
+    from ethoscribe.workspace import discover, label_sessions
+    from ethoscribe.workspace.files import load_model
+
+    (tmp_path / "study").mkdir()
+    study = trimmed_study(tmp_path / "study", ["session_01", "session_09"], 1800)
+    ws = discover(
+        [study], tmp_path / "ws", manifest=study / "manifest.csv", method="grouped_hmm",
+        stability=True, progress=False,
+    )  # fmt: skip
+    summary = ws.summary
+    choice = summary["state_count_choice"]
+    assert choice["criterion"] == "eigen_gap" and choice["reason"].startswith(
+        f"{summary['n_states']} behaviours"
+    )
+    assert "fine_assignment" in summary["state_tree"]
+    labels = ws.state_labels()
+    assert "fine_state" in labels.columns
+    assert labels["state"].max() < summary["n_states"]
+    assert (ws.path / "report.html").is_file()
+    model = load_model(ws.path / "model")
+    assert model.n_states_ == summary["n_states"]
+    new = label_sessions(
+        ws.path, [study / "session_09.parquet"], tmp_path / "new", manifest=study / "manifest.csv",
+        progress=False,
+    )  # fmt: skip
+    assert new.state_labels()["motif"].isin(labels["motif"]).all()
