@@ -6,6 +6,7 @@ The workspace comes from the package's simulator (4 invented voles, 20 s each, s
 
 from __future__ import annotations
 
+import asyncio
 import json
 import os
 import shutil
@@ -112,6 +113,23 @@ def test_opening_shows_its_first_screen_before_importing_plotly_widgets(folder):
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.split() == ["False", "False", "True", "True"]
+
+
+def test_figures_are_made_once_the_cell_has_run(folder):
+    # In a notebook the kernel's event loop runs the cell; the figures follow it.
+    async def cell():
+        wb = Workbench(folder, write_behind=False)
+        made_in_cell = [s.created for s in wb.portrait.slots.values()]
+        await asyncio.sleep(0)  # the cell ends: the loop runs what it scheduled
+        return wb, made_in_cell
+
+    wb, made_in_cell = asyncio.run(cell())
+    try:
+        assert not any(made_in_cell)
+        assert all(s.created for s in wb.portrait.slots.values())
+        assert len(wb.portrait.slots["neighbours"].children[0].data) == 2  # the figure, shown
+    finally:
+        wb.close()
 
 
 def test_postures_cached_at_discover_and_recomputed_when_a_source_changes(folder, monkeypatch):

@@ -4,6 +4,7 @@ Study and Groups -- all bound to one :class:`~ethoscribe.widgets.state.Workbench
 from __future__ import annotations
 
 import html
+import traceback
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -80,6 +81,9 @@ class Workbench(w.VBox):
             self.portrait.make_figures()
         except EthoscribeError as exc:  # e.g. a source file gone: say so, keep the page
             self.state.say("error", f"could not draw the motif's figures: {exc}")
+        except Exception as exc:  # run by the event loop: nobody else would show it
+            traceback.print_exc()
+            self.state.say("error", f"could not draw the motif's figures: {exc!r}")
 
     # --- layout ---------------------------------------------------------------------------
     def _header(self) -> w.Widget:
