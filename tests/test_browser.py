@@ -3,7 +3,8 @@
 Runs the quickstart notebook in a private JupyterLab server on a laptop-sized window (1366 x 768,
 file browser open), checks that the workbench fits its width (nothing cut off at the right),
 renames a motif by typing into the rendered widget and pressing Enter, clicks Save, and checks
-the saved ethogram on disk carries the new name, that the plotly figures rendered and that no
+the saved ethogram on disk carries the new name, that the Motifs page's five plotly figures drew
+marks (points, bars, lines: not only their axes), before and after the rename, and that no
 output shows a widget error. Every wait is for an element or a state, with a generous ceiling
 (a loaded 2-core machine is slow), never a fixed sleep. A screenshot of the workbench as it
 opens (example sessions, before any test edit) is written to ``$ETHOSCRIBE_ARTIFACTS`` (default:
