@@ -154,9 +154,9 @@ def rigid_body_raised_and_lowered(
 def test_3d_height_is_its_own_feature_and_postures_come_from_the_shape():
     tracks, height = rigid_body_raised_and_lowered()
     kw = {"axis": ("tail_base", "nose"), "standardise": False, "n_components": 3}
-    old = FeaturePipeline(**kw).fit([tracks])
+    old = FeaturePipeline(vertical="posture", **kw).fit([tracks])
     assert old.explained_variance_ratio_[0] > 0.99  # heights in the posture: PC1 is the height
-    pipe = FeaturePipeline(vertical="separate", **kw).fit([tracks])
+    pipe = FeaturePipeline(**kw).fit([tracks])  # vertical="separate", the default
     # A rigid body has no shape change: what is left is the tracking noise (0.01 cm per
     # coordinate, 18 coordinates: total variance 18e-4), against the height's variance 4.5.
     assert pipe.explained_variance_.sum() < 18e-4 * 1.2
@@ -202,7 +202,7 @@ def test_options_are_checked_and_saved(tmp_path):
         loaded.transform(tracks)[0].values, pipe.transform(tracks)[0].values
     )
     # A state saved before these options existed computes what it computed then.
-    old = FeaturePipeline().fit([tracks])
+    old = FeaturePipeline(vertical="posture").fit([tracks])
     meta, arrays = old.to_state()
     for k in ("posture_window_s", "speed_window_s", "vertical"):
         del meta["params"][k]

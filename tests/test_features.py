@@ -174,15 +174,19 @@ def test_features_do_not_change_when_the_arena_is_turned():
         np.testing.assert_allclose(a.values, b.values, atol=1e-7, err_msg=f"{dims}-D {align}")
 
 
-def test_3d_heights_are_kept_under_rotation_about_z():
+@pytest.mark.parametrize("vertical", ["posture", "separate"])
+def test_3d_heights_are_kept_under_rotation_about_z(vertical):
     # Invented 3-D animal: height columns equal the raw z coordinates, whatever the heading.
     tracks = walking(n=300, seed=7, dims=3)
-    pipe = FeaturePipeline(standardise=False, axis=("tail_base", "nose"), **DETAILED)
-    fs = pipe.fit([tracks]).transform(turned(tracks, 2.0))[0]
+    pipe = FeaturePipeline(standardise=False, axis=("tail_base", "nose"), vertical=vertical)
+    fs = pipe.set_params(**DETAILED).fit([tracks]).transform(turned(tracks, 2.0))[0]
     cols = [pipe.columns_.index(f"height_{k}_cm") for k in NAMES]
     ok = fs.valid
     np.testing.assert_allclose(fs.values[ok][:, cols], tracks.coords[ok, 0, :, 2], atol=1e-12)
-    np.testing.assert_allclose(pipe.mean_posture_[:, 2], tracks.coords[:, 0, :, 2].mean(0))
+    z = tracks.coords[:, 0, :, 2]
+    if vertical == "separate":  # the shape: heights relative to the centroid's
+        z = z - z.mean(1, keepdims=True)
+    np.testing.assert_allclose(pipe.mean_posture_[:, 2], z.mean(0), atol=1e-12)
 
 
 def _rhythm(freq: float, seed: int, session: str) -> PoseTracks:

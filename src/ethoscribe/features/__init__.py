@@ -17,15 +17,19 @@ Two column sets (``<u>`` = the tracks' units, e.g. ``cm``). ``feature_set="compa
                                         components, in the one-octave band around f Hz + c)
 
 Band centres: by default 0.5, 1, 2, 4 and 8 Hz, those whose band ends at or below 95 % of the
-Nyquist frequency (all from 24 fps; 0.5-2 Hz at 10 fps; ``frequencies_``). Options (off by
-default): ``posture_window_s`` / ``speed_window_s`` replace the posture components / speeds by
-their average over about that many seconds (``..._mean_<w>s``: one level for every phase of a
-rhythm); in 3-D ``vertical="separate"`` takes the centroid's height out of the posture (the
-components describe the shape) and adds ``height_<u>`` (of the centroid above the floor, the
-1 % quantile; linear, as heights vary by a factor of a few, not by orders of magnitude) and
-``log_vertical_speed_<u>_s`` (the centroid speed is then horizontal); ``scale_by_size=True``
-brings every animal's posture to the typical body size (individuals of several sizes share
-one posture space). benchmarks/README.md has the validation bench with each option.
+Nyquist frequency (all from 24 fps; 0.5-2 Hz at 10 fps; ``frequencies_``). In 3-D, by default
+(``vertical="separate"``), postures are the body's shape (the centroid's height taken off
+every keypoint), with two more columns::
+
+    height_<u>                          height of the centroid above the floor (its 1 % quantile)
+    log_vertical_speed_<u>_s            log(|vertical speed of the centroid| + c)
+
+and the centroid speed is horizontal (``vertical="posture"`` keeps heights in the posture).
+Options (off by default): ``posture_window_s`` / ``speed_window_s`` replace the posture
+components / speeds by their average over about that many seconds (``..._mean_<w>s``: one
+level for every phase of a rhythm); ``scale_by_size=True`` brings every animal's posture to
+the typical body size (individuals of several sizes share one posture space).
+benchmarks/README.md has the validation bench with each option.
 
 Why: a Gaussian HMM models each state by a mean and a covariance, so every column should be
 informative, low in noise and roughly Gaussian within a behaviour. Speeds and amplitudes are

@@ -123,15 +123,16 @@ class _Motion:
                 put(np.sqrt(power.sum(axis=1) if power.shape[1] > 1 else power[:, 0]))
         else:
             speed = np.linalg.norm(rates[:, :d], axis=1)
-            self._detailed(put, rates, speed, heading, ego, pcs)
+            self._detailed(put, rates, speed, (centroid, heading, ego), pcs)
         if social is not None:
             put(social)
             put(-rates[:, d + 1])
         return out
 
-    def _detailed(self, put, rates, speed, heading, ego, pcs) -> None:
+    def _detailed(self, put, rates, speed, geo, pcs) -> None:
         """The per-keypoint columns of ``feature_set="detailed"``."""
         p = self.pipe
+        centroid, heading, ego = geo
         n, k, d = ego.shape
         bc = p._band_components
         h = list(horizontal_axes(d, p.up_axis))
@@ -141,8 +142,9 @@ class _Motion:
         ego_rate = self.d_ego(ego.reshape(n, -1)).reshape(n, k, d)
         keep = p._speed_keypoints
         put(_point_norms(ego_rate if len(keep) == k else ego_rate[:, keep]))
-        if d == 3:
-            put(ego[:, :, "xyz".index(p.up_axis)])
+        if d == 3:  # heights above the floor of the world, also when postures are shapes
+            up = "xyz".index(p.up_axis)
+            put(ego[:, :, up] + centroid[:, None, up] if p._separate_heights else ego[:, :, up])
         if self.bands is not None:
             put(np.sqrt(self.bands(pcs[:, :bc])))
         put(self.stds(np.column_stack([pcs[:, :bc], speed])))

@@ -168,13 +168,14 @@ class FeaturePipeline(BaseEstimator):
         Compact set: the speeds (centroid, turning, posture; and vertical) averaged the same
         way before their logarithm (``..._mean_<w>s``), so a speed that rises and falls within
         every cycle of a gait is one level. None (default): instantaneous.
-    vertical : {"posture", "separate"}
-        3-D only. "posture" (default): heights stay in the body frame, so the posture
-        components see the body's height above the floor. "separate": postures come from the
-        shape (the centroid's height removed from every keypoint) and the height of the body
-        centroid above its floor (the 1 % quantile over the fitted frames) and the vertical
-        speed are columns of their own (compact: ``height_<u>``, linear, and
-        ``log_vertical_speed_<u>_s``; the centroid speed is then horizontal).
+    vertical : {"separate", "posture"}
+        3-D only. "separate" (default): postures come from the shape (the centroid's height
+        removed from every keypoint), and the height of the body centroid above its floor (the
+        1 % quantile over the fitted frames) and the vertical speed are columns of their own
+        (compact: ``height_<u>``, linear, and ``log_vertical_speed_<u>_s``; the centroid speed
+        is then horizontal). "posture" (the only way before this option): heights stay in the
+        body frame, so the posture components see the body's height above the floor (on the
+        example fish the first component was 99.4 % height).
     scale_by_size : bool
         Divide each animal's egocentric keypoints by its body size (the median over the
         session's frames of the RMS distance of its keypoints from their centroid; causal: the
@@ -231,7 +232,7 @@ class FeaturePipeline(BaseEstimator):
         variability_window_s: float = 0.5,
         posture_window_s: float | None = None,
         speed_window_s: float | None = None,
-        vertical: str = "posture",
+        vertical: str = "separate",
         scale_by_size: bool = False,
         social: bool = True,
         causal: bool = False,
