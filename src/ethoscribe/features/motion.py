@@ -64,11 +64,7 @@ class _Motion:
             self.bands = bands if bc and freqs else None
             self.stds = None if compact else partial(rolling_std, window_frames=w_std)
         self._last_heading: tuple[float, float] | None = None  # (raw, unwrapped), causal only
-        self.body_scale = None
-        if pipe.body_size_ is not None:
-            from ethoscribe.features.pipeline import BodyScale
-
-            self.body_scale = BodyScale(pipe).scale
+        self.body_scale = None if pipe.body_size_ is None else BodyScale(pipe).scale
 
     def _unwrap(self, heading: np.ndarray) -> np.ndarray:
         if not self.pipe.causal:
@@ -148,6 +144,41 @@ class _Motion:
         if self.bands is not None:
             put(np.sqrt(self.bands(pcs[:, :bc])))
         put(self.stds(np.column_stack([pcs[:, :bc], speed])))
+
+
+def _radius(ego: np.ndarray) -> np.ndarray:
+    """RMS distance of the keypoints (F, K, D) from their centroid, per frame (F,)."""
+    centred = ego - np.einsum("fkd->fd", ego)[:, None] / ego.shape[1]
+    return np.sqrt(np.einsum("fkd,fkd->f", centred, centred) / ego.shape[1])
+
+
+def _body_size(X: np.ndarray) -> float:
+    """Median RMS keypoint distance from the centroid over the frames (F, K, D) seen."""
+    r = _radius(X[:: max(1, len(X) // 20_000)])
+    r = r[np.isfinite(r)]
+    return float(np.median(r)) if r.size else np.nan
+
+
+class BodyScale:
+    """Factor that brings one animal's keypoints to the typical body size: ``body_size_`` /
+    its own size (offline: the median over the chunk it is given, the whole session; causal:
+    the mean over every frame seen so far, carried from chunk to chunk)."""
+
+    def __init__(self, pipe: FeaturePipeline) -> None:
+        self.typical, self.causal = pipe.body_size_, pipe.causal
+        self._sum, self._count = 0.0, 0
+
+    def scale(self, ego: np.ndarray) -> np.ndarray:
+        r = _radius(ego)
+        ok = np.isfinite(r)
+        if not self.causal:
+            size = np.median(r[ok]) if ok.any() else np.nan
+            return np.full(len(r), self.typical / size if size > 0 else np.nan)
+        sums = self._sum + np.cumsum(np.where(ok, r, 0.0))
+        counts = self._count + np.cumsum(ok)
+        self._sum, self._count = float(sums[-1]), int(counts[-1])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(sums > 0, self.typical * counts / sums, np.nan)
 
 
 class FeatureStream:
