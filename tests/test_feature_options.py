@@ -213,6 +213,10 @@ def test_options_are_checked_and_saved(tmp_path):
     np.testing.assert_array_equal(
         loaded.transform(tracks)[0].values, old.transform(tracks)[0].values
     )
+    meta, arrays = pipe.to_state()
+    meta["fitted"]["height_floor_"] = None
+    with pytest.raises(InputError, match=r"lacks \['height_floor_'\]"):
+        FeaturePipeline.from_state(meta, arrays)
     for bad, match in (
         ({"vertical": "up"}, "vertical must be"),
         ({"posture_window_s": 0}, "posture_window_s"),

@@ -102,6 +102,17 @@ def pipeline_from_state(
     pipe = cls(**params)
     pipe._check_params()  # InputError naming each bad parameter
     _check_fitted_meta(fitted)
+    needs = {
+        "height_floor_": params.get("vertical") == "separate" and fitted["n_dims_"] == 3,
+        "body_size_": bool(params.get("scale_by_size")),
+    }
+    lacking = [k for k, needed in needs.items() if needed and fitted[k] is None]
+    if lacking:
+        raise InputError(
+            f"FeaturePipeline state lacks {lacking} for its parameters (vertical="
+            f"{params.get('vertical')!r}, scale_by_size={params.get('scale_by_size')!r}); "
+            "save it again with to_state()"
+        )
     for k in ("axis_", "keypoints_", "columns_"):
         fitted[k] = tuple(fitted[k])
     fitted["frequencies_"] = tuple(float(f) for f in fitted["frequencies_"])
