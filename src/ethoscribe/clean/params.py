@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import asdict, dataclass, fields
 from typing import Any
@@ -9,7 +10,7 @@ from typing import Any
 import numpy as np
 
 from ethoscribe.clean import _kernels as kern
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.pose import propose_swap_pairs
 
 MM_PER_UNIT = {"mm": 1.0, "cm": 10.0, "m": 1000.0}
@@ -195,17 +196,28 @@ MAX_WINDOW_FRAMES = 100_001
 
 
 def _window_frames(method: str, window_s: float, order: int, fps: float) -> int:
-    """Odd frame count of a smoothing window; checks it can smooth at all."""
+    """Odd frame count of a smoothing window, widened to the shortest that smooths at all.
+
+    At low frame rates a window given in seconds can be too few frames for the smoother (the
+    default 0.2 s is 3 frames at 10 fps, and a polynomial of order 2 through 3 points changes
+    nothing): it is widened to the smallest odd count that smooths, with a warning saying so,
+    rather than refusing data that are merely slow.
+    """
     n = round(_positive("smooth_window_s", window_s) * fps)
     n += 1 - n % 2
     need = order + 2 if method == "savgol" else 3
+    need += 1 - need % 2
     if n < need:
         what = f"a polynomial of order {order}" if method == "savgol" else "a running median"
-        raise InputError(
+        warnings.warn(
             f"smoothing window {window_s:g} s at {fps:g} fps is {n} frame(s), but {what} needs "
-            f"at least {need} frames to smooth; use smooth_window_s >= {need / fps:.3g}"
-            + (" or a lower smooth_order" if method == "savgol" else "")
+            f"at least {need} frames to smooth: {need} frames ({need / fps:.3g} s) are used "
+            f"(set smooth_window_s >= {need / fps:.3g} to say so"
+            + (", or a lower smooth_order)" if method == "savgol" else ")"),
+            InputWarning,
+            stacklevel=3,
         )
+        n = need
     if n > MAX_WINDOW_FRAMES:
         raise InputError(
             f"smoothing window {window_s:g} s at {fps:g} fps is {n} frames (at most "
