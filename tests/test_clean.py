@@ -332,7 +332,9 @@ def test_input_errors_name_the_problem_and_the_fix():
     with pytest.raises(InputError, match=r"s1.*\['left_paw'\].*known keypoints.*'nose'"):
         clean(tracks, swap_pairs=[("left_paw", "right_ear")])
     # too few frames at a low rate: widened to the shortest window that smooths, and said
-    with pytest.warns(InputWarning, match=r"order 2 needs at least 5 frames to smooth: 5 frames \(0.5 s\) are used"):
+    with pytest.warns(
+        InputWarning, match=r"needs at least 5 frames to smooth: 5 frames \(0.5 s\) are used"
+    ):
         assert smooth(x, fps=10, window_s=0.2, order=2).shape == x.shape
     with pytest.raises(InputError, match="must be a positive"):
         smooth(x, fps=30, window_s=-1)
