@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from hmmlearn.hmm import CategoricalHMM, GaussianHMM
 from scipy.special import logsumexp
-from scipy.stats import norm
+from scipy.stats import geom, norm
 
 from ethoscribe.errors import InputError
 from ethoscribe.segment.duration import forward_backward, viterbi, with_outlier_frames
@@ -261,3 +261,30 @@ def test_outlier_frames_let_a_short_burst_be_absorbed():
     assert _runs(absorbed) == [80]
     post = forward_backward(robust, START, trans, 20)
     assert post.gamma[40:46, 0].min() > 0.9
+
+
+@pytest.mark.parametrize("n_first", [4, 5, 9])
+def test_bout_durations_are_the_hmms_geometric_truncated_at_the_minimum(n_first):
+    # A bout of the chain lasts n >= d frames with probability a^(n-d) (1 - a): the HMM's own
+    # geometric duration (scipy.stats.geom with p = 1 - a) conditioned on lasting >= d, which
+    # by memorylessness is the geometric shifted by d - 1, so the fitted self-transitions need
+    # no renormalising. Emissions that allow one path only make the likelihood that path's.
+    d, n_frames = 4, 15
+    start = np.array([0.7, 0.2, 0.1])
+    trans = np.array([[0.9, 0.06, 0.04], [0.1, 0.85, 0.05], [0.3, 0.3, 0.4]])
+    states = np.r_[np.zeros(n_first, dtype=int), np.ones(n_frames - n_first, dtype=int)]
+    log_b = np.full((n_frames, 3), -np.inf)
+    log_b[np.arange(n_frames), states] = 0.0
+
+    a0, a1 = trans[0, 0], trans[1, 1]
+    expected = (
+        start[0]
+        * geom.pmf(n_first, 1 - a0) / geom.sf(d - 1, 1 - a0)  # first bout lasts n_first
+        * trans[0, 1] / (1 - a0)  # leaves to state 1
+        * geom.sf(n_frames - n_first - 1, 1 - a1) / geom.sf(d - 1, 1 - a1)  # second still on
+    )  # fmt: skip
+    post = forward_backward(log_b, start, trans, d)
+    np.testing.assert_allclose(np.exp(post.log_likelihood), expected, rtol=1e-12)
+    path, best = viterbi(log_b, start, trans, d)
+    np.testing.assert_array_equal(path, states)
+    np.testing.assert_allclose(np.exp(best), expected, rtol=1e-12)
