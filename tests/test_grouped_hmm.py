@@ -208,3 +208,95 @@ def test_discover_with_grouped_states_writes_both_levels(tmp_path):
         progress=False,
     )  # fmt: skip
     assert new.state_labels()["motif"].isin(labels["motif"]).all()
+
+
+def test_unit_overlap_is_the_bhattacharyya_coefficient():
+    from scipy.spatial.distance import euclidean
+
+    from ethoscribe.segment.lumping import unit_overlap
+
+    share = np.random.default_rng(3).dirichlet(np.ones(5), size=4)
+    overlap = unit_overlap(share)
+    for a in range(4):
+        for b in range(4):
+            # Hellinger distance via scipy: ||sqrt p - sqrt q||^2 = 2 - 2 BC
+            hell2 = euclidean(np.sqrt(share[a]), np.sqrt(share[b])) ** 2
+            assert overlap[a, b] == pytest.approx(1 - hell2 / 2, abs=1e-12)
+
+
+def test_join_across_units_pairs_are_mutual_nearest_neighbours():
+    from sklearn.neighbors import NearestNeighbors
+
+    from ethoscribe.segment.lumping import join_across_units
+
+    rng = np.random.default_rng(4)
+    means = rng.normal(size=(7, 3))
+    # states 0-2 used in unit 0 only, 3-5 in unit 1 only, 6 in both
+    share = np.array([[1, 0]] * 3 + [[0, 1]] * 3 + [[0.5, 0.5]], dtype=float)
+    assignment, pairs = join_across_units(means, share)
+    # reference: scikit-learn's nearest neighbour of each state among the other unit's states
+    a_side, b_side = np.arange(3), np.arange(3, 6)
+    to_b = NearestNeighbors(n_neighbors=1).fit(means[b_side]).kneighbors(means[a_side])[1][:, 0]
+    to_a = NearestNeighbors(n_neighbors=1).fit(means[a_side]).kneighbors(means[b_side])[1][:, 0]
+    expected = [(int(a), int(b_side[to_b[a]])) for a in a_side if to_a[to_b[a]] == a]
+    assert sorted(pairs) == expected and len(expected) >= 1
+    for a, b in pairs:
+        assert assignment[a] == assignment[b]
+    assert len(np.unique(assignment)) == 7 - len(pairs)
+    # the shared state is never joined; one unit only: nothing to join
+    assert all(6 not in p for p in pairs)
+    assert join_across_units(means, np.ones((7, 1)))[1] == []
+
+
+def test_lumped_transitions_match_the_counted_group_sequence():
+    from ethoscribe.segment.lumping import lumped_transitions
+
+    T = np.array([[0.7, 0.2, 0.1, 0.0], [0.1, 0.6, 0.2, 0.1], [0.0, 0.3, 0.6, 0.1],
+                  [0.2, 0.0, 0.3, 0.5]])  # fmt: skip
+    groups = np.array([0, 0, 1, 2])
+    rng = np.random.default_rng(5)
+    n = 200_000
+    u = rng.random(n)
+    cum = T.cumsum(1)
+    s = np.empty(n, dtype=int)
+    s[0] = 0
+    for t in range(1, n):
+        s[t] = min(int(np.searchsorted(cum[s[t - 1]], u[t])), 3)
+    g = groups[s]
+    counted = np.zeros((3, 3))
+    np.add.at(counted, (g[:-1], g[1:]), 1)
+    counted /= counted.sum(1, keepdims=True)
+    # frequencies counted on a simulated stationary chain (Monte Carlo, 200,000 steps)
+    np.testing.assert_allclose(lumped_transitions(T, groups), counted, atol=0.01)
+
+
+def _two_unit_sequence(seed: int):
+    """Three behaviours in two units; behaviour 0's posture differs between the units."""
+    rng = np.random.default_rng(seed)
+    X, truth, lengths = [], [], []
+    for unit in range(2):
+        postures = {0: (1.5 * unit, 0.0), 1: (0.0, 6.0), 2: (6.0, 3.0)}
+        n_unit = 0
+        for _ in range(30):
+            behaviour = int(rng.integers(3))
+            n = int(rng.integers(40, 81))
+            X.append(rng.normal(postures[behaviour], 0.2, (n, 2)))
+            truth += [behaviour] * n
+            n_unit += n
+        lengths.append(n_unit)
+    return np.vstack(X), np.array(truth), lengths
+
+
+def test_grouped_hmm_joins_one_behaviour_seen_in_two_units():
+    X, truth, lengths = _two_unit_sequence(6)
+    kw = dict(n_states=3, max_states=4, fps=20.0, n_restarts=1, random_state=0)
+    joined = GroupedHMM(join="units", **kw).fit(X, lengths)
+    plain = GroupedHMM(**kw).fit(X, lengths)
+    fine = joined.predict_fine(X, lengths)
+    assert adjusted_rand_score(truth, fine) < 0.99  # behaviour 0 is two fine states
+    assert len(joined.joined_) == 1
+    # scikit-learn's ARI against the simulated behaviours
+    assert adjusted_rand_score(truth, joined.predict(X, lengths)) > 0.95
+    assert adjusted_rand_score(truth, plain.predict(X, lengths)) < 0.9
+    with pytest.raises(InputError, match="join"):
+        GroupedHMM(join="posture").fit(X, lengths)

@@ -27,7 +27,13 @@ from ethoscribe.errors import InputError
 from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment.hmm import GaussianHMM, frames_needed
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths
-from ethoscribe.segment.lumping import eigen_gap_sets, lump_states, stationary_distribution
+from ethoscribe.segment.lumping import (
+    eigen_gap_sets,
+    join_across_units,
+    lump_states,
+    lumped_transitions,
+    stationary_distribution,
+)
 from ethoscribe.segment.select import StateCountSelection, choose_n_states
 
 FORMAT_VERSION = 1
@@ -65,6 +71,11 @@ class GroupedHMM(BaseEstimator):
     min_timescale_s : float
         Exchanges slower than this are between behaviours (``group_rule="time_scales"``);
         1 s, as the model's state tree.
+    join : {None, "units"}
+        "units": before grouping, join fine states that are one behaviour seen in different
+        units (the sequences of ``lengths``: sessions, animals), used apart and mutual
+        nearest neighbours in posture (:func:`ethoscribe.segment.lumping.join_across_units`);
+        transitions alone cannot join states that never meet. None: group by transitions only.
     covariance_type, expected_bout_s, fps, persistence_strength, n_restarts, n_iter, tol,
     min_covar, init, init_candidates, fit_max_frames, n_jobs, engine, random_state, progress
         As :class:`ethoscribe.segment.hmm.GaussianHMM` (the fine model).
@@ -94,6 +105,7 @@ class GroupedHMM(BaseEstimator):
         fine_states: int | str | None = None,
         group_rule: str = "eigen_gap",
         min_timescale_s: float = 1.0,
+        join: str | None = None,
         covariance_type: str = "full",
         expected_bout_s: float | None = 1.0,
         fps: float = 30.0,
@@ -117,6 +129,7 @@ class GroupedHMM(BaseEstimator):
         self.fine_states = fine_states
         self.group_rule = group_rule
         self.min_timescale_s = min_timescale_s
+        self.join = join
         self.covariance_type = covariance_type
         self.expected_bout_s = expected_bout_s
         self.fps = fps
@@ -164,6 +177,8 @@ class GroupedHMM(BaseEstimator):
                 f"GroupedHMM: group_rule must be 'eigen_gap' or 'time_scales'; got "
                 f"{self.group_rule!r}"
             )
+        if self.join not in (None, "units"):
+            raise InputError(f"GroupedHMM: join must be None or 'units'; got {self.join!r}")
         lag = self.group_lag_s
         if lag is not None and not (isinstance(lag, int | float) and np.isfinite(lag) and lag > 0):
             raise InputError(f"GroupedHMM: group_lag_s must be > 0 seconds or None; got {lag!r}")
@@ -186,19 +201,24 @@ class GroupedHMM(BaseEstimator):
         self.selection_ = None
         lag_s = self._lag_s()
         origin = "chosen by the held-out elbow" if elbow is not None else "fitted"
+        base, transmat, joined = self._joined(X, lengths)
+        n_base = len(transmat)
+        if joined:
+            origin += "; " + ", ".join(f"{a}+{b}" for a, b in joined) + " joined across units"
         if self.n_states != "auto":
-            n_sets, reason = int(self.n_states), f"{int(self.n_states)} sets as asked"
-        elif n_fine < 2:
+            n_sets = min(int(self.n_states), n_base)
+            reason = f"{n_sets} sets as asked"
+        elif n_base < 2:
             n_sets, reason = 1, "1 set: a single fine state"
         elif self.group_rule == "time_scales":
             lump = lump_states(
-                fine.transmat_, self.fps, lag_s=lag_s, min_timescale_s=self.min_timescale_s
+                transmat, self.fps, lag_s=lag_s, min_timescale_s=self.min_timescale_s
             )
             n_sets = lump.n_sets
             reason = f"{n_sets} behaviours of {n_fine} fine states ({origin}): {lump.reason}"
         else:
-            lo = min(int(self.min_states), n_fine - 1)
-            best, table = eigen_gap_sets(fine.transmat_, self.fps, lag_s, range(lo, n_fine))
+            lo = min(int(self.min_states), n_base - 1)
+            best, table = eigen_gap_sets(transmat, self.fps, lag_s, range(lo, n_base))
             gaps = sorted((row["eigen_gap"] for row in table), reverse=True)
             reason = (
                 f"{best} behaviours: the largest gap of the eigenvalues of the {n_fine} fine "
@@ -211,10 +231,28 @@ class GroupedHMM(BaseEstimator):
             n_sets = best
         if self.selection_ is None and elbow is not None:
             self.selection_ = replace(elbow, reason=f"{elbow.reason}; {reason}")
-        lump = lump_states(fine.transmat_, self.fps, n_sets=n_sets, lag_s=lag_s)
+        lump = lump_states(transmat, self.fps, n_sets=n_sets, lag_s=lag_s)
+        self.joined_ = joined
         self.group_reason_ = reason
-        self._set_groups(lump.assignment)
+        self._set_groups(lump.assignment[base])
         return self
+
+    def _joined(
+        self, X: np.ndarray, lengths: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray, list[tuple[int, int]]]:
+        """Group of every fine state after joining across units, the transition matrix between
+        the groups, and the joined pairs (no join: every fine state its own group)."""
+        fine = self.fine_
+        n = int(fine.n_states_)
+        if self.join != "units" or len(lengths) < 2 or n < 2:
+            return np.arange(n), fine.transmat_, []
+        posterior = fine.predict_proba(X, lengths)
+        unit = np.repeat(np.arange(len(lengths)), lengths)
+        share = np.zeros((n, len(lengths)))
+        np.add.at(share.T, unit, posterior)
+        share /= np.maximum(share.sum(1, keepdims=True), 1e-300)
+        base, pairs = join_across_units(fine.means_, share)
+        return base, lumped_transitions(fine.transmat_, base), pairs
 
     def _fine_count(
         self, X: np.ndarray, lengths: np.ndarray, options: dict
@@ -307,6 +345,7 @@ class GroupedHMM(BaseEstimator):
             "n_features": self.n_features_in_,
             "assignment": self.assignment_.tolist(),
             "reason": self.group_reason_,
+            "joined": [list(p) for p in getattr(self, "joined_", [])],
             "selection": None
             if selection is None
             else {
@@ -353,6 +392,8 @@ class GroupedHMM(BaseEstimator):
         model.fine_ = fine
         model._set_groups(np.array(assignment))
         model.group_reason_ = str(meta.get("reason", ""))
+        joined = meta.get("joined", [])
+        model.joined_ = [(int(a), int(b)) for a, b in joined] if isinstance(joined, list) else []
         saved = meta.get("selection")
         model.selection_ = None
         if isinstance(saved, Mapping) and "table" in saved:

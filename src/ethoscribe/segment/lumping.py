@@ -338,3 +338,67 @@ def suggested_merges(
             )
     out.sort(key=lambda d: -d["score"])
     return out[:top]
+
+
+def unit_overlap(share: np.ndarray) -> np.ndarray:
+    """Bhattacharyya coefficient between the states' distributions over units, (n, n).
+
+    ``share`` (n_states, n_units): how the frames of each state are spread over the units
+    (sessions, animals; rows sum to 1). 1: two states used in the same proportions in every
+    unit; 0: never in the same unit.
+    """
+    root = np.sqrt(np.clip(np.asarray(share, dtype=np.float64), 0.0, None))
+    return root @ root.T
+
+
+def join_across_units(
+    means: np.ndarray, share: np.ndarray, max_overlap: float = 0.5
+) -> tuple[np.ndarray, list[tuple[int, int]]]:
+    """Join states that are one behaviour seen in different units (sessions, animals).
+
+    A behaviour whose posture differs between individuals may be fitted as one state per
+    individual. Those states never hand over to each other, so no grouping by transitions
+    joins them. Two states are joined when (1) they are used apart: their distributions over
+    the units overlap less than they differ (Bhattacharyya coefficient of the unit shares,
+    :func:`unit_overlap`, below ``max_overlap`` = 0.5, halfway between the same use (1) and
+    disjoint use (0)), and (2) they are mutual nearest neighbours in posture among the states
+    used apart from them: each one's closest (Euclidean distance between the means, in the
+    feature space the model was fitted in) such state is the other. This is the
+    mutual-nearest-neighbour matching between batches (Haghverdi et al. 2018, Nat.
+    Biotechnol. 36, 421-427) with units as batches and states as the populations shared by
+    them; it needs no distance threshold.
+
+    Returns
+    -------
+    assignment : (n,) int, the joined group of every state (groups numbered by first state)
+    pairs : list of the joined (a, b), a < b
+    """
+    means = np.asarray(means, dtype=np.float64)
+    n = len(means)
+    apart = unit_overlap(share) < max_overlap
+    np.fill_diagonal(apart, False)
+    dist = np.sqrt(((means[:, None, :] - means[None, :, :]) ** 2).sum(-1))
+    dist = np.where(apart, dist, np.inf)
+    nearest = np.where(np.isfinite(dist).any(1), dist.argmin(1), -1)
+    pairs = [(a, int(nearest[a])) for a in range(n) if a < nearest[a] and nearest[nearest[a]] == a]
+    parent = list(range(n))
+    for a, b in pairs:  # a state has one nearest, so the pairs are disjoint
+        parent[b] = a
+    order: list[int] = []
+    for p in parent:
+        if p not in order:
+            order.append(p)
+    return np.array([order.index(p) for p in parent], dtype=np.int64), pairs
+
+
+def lumped_transitions(transmat: np.ndarray, assignment: np.ndarray) -> np.ndarray:
+    """Per-frame transition matrix between groups of states: the stationary flux between
+    their states over the group's occupancy (exact for the group sequence when the chain is
+    stationary and the states within a group are exchangeable)."""
+    T = np.asarray(transmat, dtype=np.float64)
+    assignment = np.asarray(assignment, dtype=np.int64)
+    onehot = np.zeros((len(T), int(assignment.max()) + 1))
+    onehot[np.arange(len(T)), assignment] = 1.0
+    pi = stationary_distribution(T)
+    flux = onehot.T @ (pi[:, None] * T) @ onehot
+    return flux / np.maximum(flux.sum(1, keepdims=True), 1e-300)
