@@ -246,6 +246,13 @@ def test_join_across_units_pairs_are_mutual_nearest_neighbours():
     # the shared state is never joined; one unit only: nothing to join
     assert all(6 not in p for p in pairs)
     assert join_across_units(means, np.ones((7, 1)))[1] == []
+    # mutual=False: every unit-specific state joins its scikit-learn nearest in the other unit
+    loose, nearest_pairs = join_across_units(means, share, mutual=False)
+    expected = {(int(a), int(b_side[to_b[a]])) for a in a_side}
+    expected |= {(int(a_side[to_a[i]]), int(b)) for i, b in enumerate(b_side)}
+    assert set(nearest_pairs) == expected
+    for a, b in nearest_pairs:
+        assert loose[a] == loose[b]
 
 
 def test_lumped_transitions_match_the_counted_group_sequence():

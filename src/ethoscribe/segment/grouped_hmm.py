@@ -75,7 +75,9 @@ class GroupedHMM(BaseEstimator):
         "units": before grouping, join fine states that are one behaviour seen in different
         units (the sequences of ``lengths``: sessions, animals), used apart and mutual
         nearest neighbours in posture (:func:`ethoscribe.segment.lumping.join_across_units`);
-        transitions alone cannot join states that never meet. None: group by transitions only.
+        transitions alone cannot join states that never meet. "units_nearest": every state
+        used apart from others joins its nearest such state (not only mutual pairs). None:
+        group by transitions only.
     covariance_type, expected_bout_s, fps, persistence_strength, n_restarts, n_iter, tol,
     min_covar, init, init_candidates, fit_max_frames, n_jobs, engine, random_state, progress
         As :class:`ethoscribe.segment.hmm.GaussianHMM` (the fine model).
@@ -177,8 +179,10 @@ class GroupedHMM(BaseEstimator):
                 f"GroupedHMM: group_rule must be 'eigen_gap' or 'time_scales'; got "
                 f"{self.group_rule!r}"
             )
-        if self.join not in (None, "units"):
-            raise InputError(f"GroupedHMM: join must be None or 'units'; got {self.join!r}")
+        if self.join not in (None, "units", "units_nearest"):
+            raise InputError(
+                f"GroupedHMM: join must be None, 'units' or 'units_nearest'; got {self.join!r}"
+            )
         lag = self.group_lag_s
         if lag is not None and not (isinstance(lag, int | float) and np.isfinite(lag) and lag > 0):
             raise InputError(f"GroupedHMM: group_lag_s must be > 0 seconds or None; got {lag!r}")
@@ -244,14 +248,14 @@ class GroupedHMM(BaseEstimator):
         the groups, and the joined pairs (no join: every fine state its own group)."""
         fine = self.fine_
         n = int(fine.n_states_)
-        if self.join != "units" or len(lengths) < 2 or n < 2:
+        if self.join is None or len(lengths) < 2 or n < 2:
             return np.arange(n), fine.transmat_, []
         posterior = fine.predict_proba(X, lengths)
         unit = np.repeat(np.arange(len(lengths)), lengths)
         share = np.zeros((n, len(lengths)))
         np.add.at(share.T, unit, posterior)
         share /= np.maximum(share.sum(1, keepdims=True), 1e-300)
-        base, pairs = join_across_units(fine.means_, share)
+        base, pairs = join_across_units(fine.means_, share, mutual=self.join == "units")
         return base, lumped_transitions(fine.transmat_, base), pairs
 
     def _fine_count(

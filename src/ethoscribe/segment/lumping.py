@@ -352,7 +352,7 @@ def unit_overlap(share: np.ndarray) -> np.ndarray:
 
 
 def join_across_units(
-    means: np.ndarray, share: np.ndarray, max_overlap: float = 0.5
+    means: np.ndarray, share: np.ndarray, max_overlap: float = 0.5, mutual: bool = True
 ) -> tuple[np.ndarray, list[tuple[int, int]]]:
     """Join states that are one behaviour seen in different units (sessions, animals).
 
@@ -366,7 +366,9 @@ def join_across_units(
     feature space the model was fitted in) such state is the other. This is the
     mutual-nearest-neighbour matching between batches (Haghverdi et al. 2018, Nat.
     Biotechnol. 36, 421-427) with units as batches and states as the populations shared by
-    them; it needs no distance threshold.
+    them; it needs no distance threshold. ``mutual=False``: every state used apart from
+    others joins its nearest such state (groups are the connected pairs), also when that
+    state's own nearest is a third one.
 
     Returns
     -------
@@ -380,15 +382,25 @@ def join_across_units(
     dist = np.sqrt(((means[:, None, :] - means[None, :, :]) ** 2).sum(-1))
     dist = np.where(apart, dist, np.inf)
     nearest = np.where(np.isfinite(dist).any(1), dist.argmin(1), -1)
-    pairs = [(a, int(nearest[a])) for a in range(n) if a < nearest[a] and nearest[nearest[a]] == a]
+    if mutual:
+        pairs = [
+            (a, int(nearest[a])) for a in range(n) if a < nearest[a] and nearest[nearest[a]] == a
+        ]
+    else:
+        pairs = sorted({tuple(sorted((a, int(nearest[a])))) for a in range(n) if nearest[a] >= 0})
     parent = list(range(n))
-    for a, b in pairs:  # a state has one nearest, so the pairs are disjoint
-        parent[b] = a
-    order: list[int] = []
-    for p in parent:
-        if p not in order:
-            order.append(p)
-    return np.array([order.index(p) for p in parent], dtype=np.int64), pairs
+
+    def root(a: int) -> int:
+        while parent[a] != a:
+            a = parent[a]
+        return a
+
+    for a, b in pairs:
+        ra, rb = root(a), root(b)
+        parent[max(ra, rb)] = min(ra, rb)
+    roots = [root(a) for a in range(n)]
+    order = sorted(set(roots))
+    return np.array([order.index(r) for r in roots], dtype=np.int64), pairs
 
 
 def lumped_transitions(transmat: np.ndarray, assignment: np.ndarray) -> np.ndarray:
