@@ -106,8 +106,16 @@ def _on_processes(func: Callable[..., T], items: list[Any], jobs: int, bar: Any)
             bar.update()
     except BaseException:
         # Stop the workers first (shutdown forgets them), so that nothing waits for their work.
-        for process in list((getattr(pool, "_processes", None) or {}).values()):
+        processes = list((getattr(pool, "_processes", None) or {}).values())
+        for process in processes:
             process.terminate()
+        for process in processes:
+            process.join(5)
+        # Work still queued for the dead workers must not hold the exit: the queue's feeder
+        # thread is joined when the interpreter exits, and nobody will read what it holds.
+        queue = getattr(pool, "_call_queue", None)
+        if queue is not None:
+            queue.cancel_join_thread()
         pool.shutdown(wait=False, cancel_futures=True)
         raise
     pool.shutdown()
