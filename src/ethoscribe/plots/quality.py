@@ -108,9 +108,9 @@ def quality_figure(
             col=1,
         )
     # sessions as horizontal bars: their names stay whole and readable
-    per_session = [("some keypoint missing after cleaning", invalid, "#8c8c8c")]
+    per_session = [("some keypoint missing after cleaning", invalid, "#2a9d8f")]
     if unscored is not None:
-        per_session.append(("left unscored (too little of the body seen)", unscored, "#2e294e"))
+        per_session.append(("left unscored (too little of the body seen)", unscored, "#8e3b74"))
     for label, values, colour in per_session:
         fig.add_trace(
             go.Bar(
