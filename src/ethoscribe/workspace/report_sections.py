@@ -77,8 +77,21 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     if "frac_invalid_frames" not in table.columns:  # files of older versions
         table["frac_invalid_frames"] = table["frac_unscored_frames"]
     shares = [*BARS, "frac_invalid_frames", "frac_unscored_frames"]
-    per_session = table.groupby("session")[shares].mean().reset_index()
-    return Section("Data quality", text, [quality_figure(table)], [("Per session", per_session)])
+    per_session = table.groupby("session")[shares].mean()
+    # Percent of frames, one decimal: what counts of missing frames support; headers in words
+    headers = {
+        "frac_missing_raw": "missing raw",
+        "frac_low_confidence": "low confidence",
+        "frac_jumps": "jumps",
+        "frac_filled": "filled",
+        "frac_missing_after": "missing after",
+        "frac_invalid_frames": "any keypoint missing",
+        "frac_unscored_frames": "unscored",
+    }
+    shown = (100 * per_session).round(1).rename(columns=headers)
+    shown = shown.reset_index()
+    caption = "Per session, % of frames (keypoint columns: mean over keypoints; see quality.csv)"
+    return Section("Data quality", text, [quality_figure(table)], [(caption, shown)])
 
 
 def model_section(ws: Workspace) -> Section:
