@@ -502,3 +502,75 @@ def test_example_frames_are_tracked_ones_and_empty_views_say_so(viewer, monkeypa
     assert [a.text for a in fig.layout.annotations].count("not tracked") == len(untracked)
     fig = neighbour_figure(pd.Series(dtype=float), pd.Series({"motif_01": 1.0}), "motif_02")
     assert [a.text for a in fig.layout.annotations] == ["no motif comes before it"]
+
+
+# A hand-made nested tree over 5 states a..e: b+d join first, then a+e, then c joins b+d.
+HAND_TREE = [
+    {"n_sets": 5, "assignment": [0, 1, 2, 3, 4]},
+    {"n_sets": 4, "assignment": [0, 1, 2, 1, 3]},
+    {"n_sets": 3, "assignment": [0, 1, 2, 1, 0]},
+    {"n_sets": 2, "assignment": [0, 1, 1, 1, 0]},
+    {"n_sets": 1, "assignment": [0, 0, 0, 0, 0]},
+]
+
+
+def test_state_tree_leaf_order_and_joins_match_scipy_dendrogram():
+    from scipy.cluster.hierarchy import dendrogram
+
+    from ethoscribe.plots.motifs import state_tree_figure, tree_joins
+
+    names = dict(enumerate("abcde"))
+    leaves, joins = tree_joins(HAND_TREE, names)
+    assert joins == [([1, 3], 4), ([0, 4], 3), ([5, 2], 2), ([6, 7], 1)]
+    # The same tree as a scipy linkage (rows: left, right, height, size); reference for the
+    # leaf order: scipy.cluster.hierarchy.dendrogram, which draws Z[i, 0] left of Z[i, 1].
+    Z = np.array([[1, 3, 1, 2], [0, 4, 2, 2], [5, 2, 3, 3], [6, 7, 4, 5]], dtype=float)
+    reference = dendrogram(Z, no_plot=True)["leaves"]
+    assert leaves == [names[i] for i in reference] == ["a", "e", "b", "d", "c"]
+    fig = state_tree_figure(HAND_TREE, names)
+    assert list(fig.layout.xaxis.ticktext) == leaves
+    y = [v for v in fig.data[0].y]
+    flat = [(a, b) for a, b in zip(y[0::3], y[1::3], strict=True) if a == b]
+    assert len(flat) == len(joins)  # one horizontal line per join
+    assert sorted(a for a, _ in flat) == [1.0, 2.0, 3.0, 4.0]  # at n_states - n_sets
+
+
+def test_state_tree_merged_motifs_are_one_leaf_and_levels_need_not_nest():
+    from ethoscribe.plots.motifs import tree_joins
+
+    names = {0: "walk", 1: "rest", 2: "walk", 3: "groom", 4: "rest"}
+    leaves, joins = tree_joins(HAND_TREE, names)
+    assert sorted(leaves) == ["groom", "rest", "walk"] and len(joins) == 2
+    crossed = [HAND_TREE[0], {"n_sets": 2, "assignment": [0, 1, 0, 1, 1]}]  # no one-set level
+    leaves, joins = tree_joins(crossed, dict(enumerate("abcde")))
+    assert sorted(leaves) == list("abcde") and joins[-1][1] == 1
+
+
+def test_motifs_page_draws_the_state_tree_and_nothing_without_one(folder):
+    summary = json.loads((folder / "summary.json").read_text())
+    n = len(Workspace(folder).curation().names)
+    levels = [
+        {"n_sets": k, "assignment": [min(s, k - 1) for s in range(n)]} for k in range(n, 0, -1)
+    ]
+    summary["state_tree"] = {"levels": levels}
+    (folder / "summary.json").write_text(json.dumps(summary))
+    bench = Workbench(folder, write_behind=False)
+    try:
+        slot = bench.motif_list.tree
+        assert not slot.created and bench.motif_list.tree_box.layout.display is None
+        bench._make_figures()  # what runs after the first screen
+        assert slot.created
+        shown = list(slot.figure.layout.xaxis.ticktext)
+        assert sorted(shown) == bench.state.motifs
+        assert "joined lower are closer" in bench.motif_list.tree_box.children[0].value
+    finally:
+        bench.close()
+    summary["state_tree"] = None  # an older saved model, or a change-point method
+    (folder / "summary.json").write_text(json.dumps(summary))
+    bench = Workbench(folder, write_behind=False)
+    try:
+        bench._make_figures()
+        assert bench.motif_list.tree_box.layout.display == "none"
+        assert not bench.motif_list.tree.created
+    finally:
+        bench.close()

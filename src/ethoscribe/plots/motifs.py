@@ -409,3 +409,128 @@ def session_share_figure(shares: pd.DataFrame, motif: str, colour: str = "#0072B
         250,
         yaxis={"tickformat": ".0%", "rangemode": "tozero", **GRID},
     )
+
+
+TREE_NOTE = "motifs joined lower are closer: they alternate within bouts and look alike"
+
+
+def _majority(values: list[int]) -> int:
+    """The most common value (the smallest on a tie)."""
+    counts = np.bincount(np.asarray(values, dtype=np.int64))
+    return int(np.argmax(counts))
+
+
+def tree_joins(
+    levels: list[dict], names: dict[int, str]
+) -> tuple[list[str], list[tuple[list[int], int]]]:
+    """Leaf order and joins of the motifs in a model's state tree.
+
+    Parameters
+    ----------
+    levels : list of dict
+        ``state_tree["levels"]`` of a fitted model: ``{"n_sets", "assignment"}`` per level,
+        ``assignment`` giving the set of every state id.
+    names : dict
+        ``state id -> motif name`` (current curated names). States sharing a name are one
+        leaf; a leaf's set at a level is the set most of its states are in.
+
+    Returns
+    -------
+    leaves : motif names in drawing order (each join's members side by side)
+    joins : ``(clusters, n_sets)`` in the order they happen, ``clusters`` the cluster ids
+        joined (leaves are ``0 .. len(leaves) - 1`` in first-seen order, join ``j`` makes
+        cluster ``len(leaves) + j``) and ``n_sets`` the number of sets of the level where
+        they join. The levels need not nest: clusters join when most of their states share a
+        set, and stay joined.
+    """
+    motifs: dict[str, list[int]] = {}
+    for state, name in sorted(names.items()):
+        motifs.setdefault(name, []).append(int(state))
+    order = list(motifs)
+    members = {i: [i] for i in range(len(order))}  # cluster id -> leaf indices
+    current = list(members)
+    joins: list[tuple[list[int], int]] = []
+    n_states = min((len(lv["assignment"]) for lv in levels), default=0)
+    for level in sorted(levels, key=lambda lv: -int(lv["n_sets"])):
+        sets = level["assignment"]
+
+        def set_of(leaf: int, sets=sets) -> int:
+            return _majority([sets[s] for s in motifs[order[leaf]] if s < n_states] or [0])
+
+        by_set: dict[int, list[int]] = {}
+        for cluster in current:
+            by_set.setdefault(_majority([set_of(i) for i in members[cluster]]), []).append(cluster)
+        for group in by_set.values():
+            if len(group) < 2:
+                continue
+            group.sort(key=lambda c: min(members[c]))
+            new = len(members)
+            members[new] = [i for c in group for i in members[c]]
+            joins.append((group, int(level["n_sets"])))
+            current = [c for c in current if c not in group] + [new]
+    if len(current) > 1:  # a tree without its one-set level: join the rest on top
+        top = min((int(lv["n_sets"]) for lv in levels), default=2) - 1
+        current.sort(key=lambda c: min(members[c]))
+        members[len(members)] = [i for c in current for i in members[c]]
+        joins.append((current, top))
+    root = max(members)
+    leaves = [order[i] for i in members[root]]
+    return leaves, joins
+
+
+def state_tree_figure(levels: list[dict], names: dict[int, str], width: int = 355) -> go.Figure:
+    """The motifs as leaves of the model's state tree, joined level by level (a dendrogram).
+
+    Leaves sit at height 0 in the order of :func:`tree_joins`; a join is a horizontal line at
+    the height ``n_states - n_sets`` of its level, over the clusters it joins (so motifs
+    joined lower are closer). See :func:`tree_joins` for ``levels`` and ``names``.
+    """
+    leaves, joins = tree_joins(levels, names)
+    n_leaves = len(leaves)
+    first = [name for _, name in sorted(names.items())]
+    seen = list(dict.fromkeys(first))
+    x = {seen.index(name): float(pos) for pos, name in enumerate(leaves)}
+    y = dict.fromkeys(range(n_leaves), 0.0)
+    top_sets = max((int(lv["n_sets"]) for lv in levels), default=n_leaves)
+    xs: list[float | None] = []
+    ys: list[float | None] = []
+    for j, (group, n_sets) in enumerate(joins):
+        h = float(top_sets - n_sets)
+        for c in group:
+            xs += [x[c], x[c], None]
+            ys += [y[c], h, None]
+        xs += [min(x[c] for c in group), max(x[c] for c in group), None]
+        ys += [h, h, None]
+        x[n_leaves + j] = float(np.mean([x[c] for c in group]))
+        y[n_leaves + j] = h
+    heights = sorted({float(top_sets - n) for _, n in joins})
+    fig = go.Figure(
+        go.Scatter(
+            x=xs, y=ys, mode="lines", line={"color": "#555555", "width": 2}, hoverinfo="skip"
+        )
+    )
+    fig.update_layout(
+        width=width,
+        height=230,
+        template="plotly_white",
+        margin={"l": 50, "r": 10, "t": 10, "b": 10},
+        showlegend=False,
+        xaxis={
+            "tickmode": "array",
+            "tickvals": list(range(n_leaves)),
+            "ticktext": leaves,
+            "range": [-0.5, n_leaves - 0.5],
+            "showgrid": False,
+            "zeroline": False,
+            "fixedrange": True,
+        },
+        yaxis={
+            "title": "groups left",
+            "tickmode": "array",
+            "tickvals": heights,
+            "ticktext": [str(top_sets - int(h)) for h in heights],
+            "zeroline": False,
+            "fixedrange": True,
+        },
+    )
+    return fig

@@ -10,11 +10,13 @@ import numpy as np
 
 from ethoscribe.plots.ethogram import motif_colours
 from ethoscribe.plots.motifs import (
+    TREE_NOTE,
     bout_strip_figure,
     duration_histogram,
     neighbour_figure,
     posture_figure,
     session_share_figure,
+    state_tree_figure,
 )
 from ethoscribe.widgets.common import (
     FigureSlot,
@@ -98,6 +100,9 @@ class MotifList:
         self.count = note("")
         self.suggested = w.HTML()  # the model's suggested merges, when its state tree gives any
         self.suggested.add_class("ethoscribe-suggested-merges")
+        # The model's state tree over the motifs; made after the first screen (see FigureSlot).
+        self.tree = FigureSlot(self._tree_fig, "ethoscribe-state-tree", 355, 230)
+        self.tree_box = w.VBox([note(TREE_NOTE), self.tree])
         self._quiet = False
         self.sort.observe(self._order, "value")
         self.largest.observe(self._order, "value")
@@ -123,6 +128,7 @@ class MotifList:
                 self.list,
                 self.count,
                 self.suggested,
+                self.tree_box,
             ],
             layout=w.Layout(width="365px", margin="0 12px 0 0", flex="0 0 auto"),
         )
@@ -166,6 +172,20 @@ class MotifList:
                 + "; ".join(" + ".join(html.escape(m) for m in g) for g in groups)
             ).value
         )
+        has_tree = self.state.state_tree() is not None
+        self.tree_box.layout.display = None if has_tree else "none"
+        self.tree.draw()
+
+    def make_figures(self) -> None:
+        """Make the state tree's figure, if the model kept a tree (it shows a note until then)."""
+        if self.state.state_tree() is not None:
+            self.tree.figure  # noqa: B018 - made on first use
+
+    def _tree_fig(self):
+        tree = self.state.state_tree()
+        if tree is None:
+            return blank_figure("the model kept no state tree", 355, 230)
+        return state_tree_figure(*tree)
 
     def _show_selection(self) -> None:
         values = [v for _, v in self.list.options]

@@ -298,6 +298,18 @@ class WorkbenchState(CurationEdits):
                 out.append(shown)
         return out
 
+    def state_tree(self) -> tuple[list[dict], dict[int, str]] | None:
+        """The model's state tree levels and the current ``state id -> motif name`` of the
+        motifs in it (set-aside states left out); None when the model kept no tree (older
+        saved models, change-point methods) or it has fewer than two motifs."""
+        tree = self.summary.get("state_tree")
+        levels = tree.get("levels") if isinstance(tree, dict) else None
+        if not isinstance(levels, list) or not levels:
+            return None
+        n_states = min(len(lv.get("assignment") or []) for lv in levels)
+        names = {s: m for s, m in self.curation.names.items() if m != UNASSIGNED and s < n_states}
+        return (levels, names) if len(set(names.values())) >= 2 else None
+
     # --- postures and video ---------------------------------------------------------------
     def examples(self, motif: str, n_examples: int = 4) -> list[dict[str, Any]]:
         """Example bouts of ``motif`` from different sessions (longest uncut first)."""

@@ -79,6 +79,7 @@ class Workbench(w.VBox):
         """The Motifs page's figures, made once its first screen is on view (see FigureSlot)."""
         try:
             self.portrait.make_figures()
+            self.motif_list.make_figures()
         except EthoscribeError as exc:  # e.g. a source file gone: say so, keep the page
             self.state.say("error", f"could not draw the motif's figures: {exc}")
         except Exception as exc:  # run by the event loop: nobody else would show it
