@@ -7,6 +7,8 @@ deeptime 0.5.0 PCCA+ example recorded in tests/test_lumping.py.
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 import scipy.linalg
@@ -173,6 +175,11 @@ def test_grouping_the_elbow_model_by_its_time_scales():
     assert "elbow" in model.selection_.reason and "time scale" in model.selection_.reason
     assert model.n_states_ <= model.n_fine_states_
     assert adjusted_rand_score(truth, model.predict(X)) > 0.95  # scikit-learn's ARI
+    # Its saved state is strict JSON (candidates the early stop never fitted have no values)
+    # and reloads the same choice, criterion included.
+    meta, arrays = model.to_state()
+    again = GroupedHMM.from_state(json.loads(json.dumps(meta, allow_nan=False)), arrays)
+    assert (again.selection_.criterion, again.selection_.best) == ("heldout", model.selection_.best)
     with pytest.raises(InputError, match="group_rule"):
         GroupedHMM(group_rule="spectral").fit(X)
     with pytest.raises(InputError, match="fine_states"):

@@ -34,7 +34,12 @@ from ethoscribe.segment.lumping import (
     lumped_transitions,
     stationary_distribution,
 )
-from ethoscribe.segment.select import StateCountSelection, choose_n_states
+from ethoscribe.segment.select import (
+    StateCountSelection,
+    choose_n_states,
+    selection_from_json,
+    selection_to_json,
+)
 
 FORMAT_VERSION = 1
 _HMM_PARAMS = (
@@ -350,13 +355,7 @@ class GroupedHMM(BaseEstimator):
             "assignment": self.assignment_.tolist(),
             "reason": self.group_reason_,
             "joined": [list(p) for p in getattr(self, "joined_", [])],
-            "selection": None
-            if selection is None
-            else {
-                "best": int(selection.best),
-                "reason": selection.reason,
-                "table": selection.table.to_dict(orient="list"),
-            },
+            "selection": None if selection is None else selection_to_json(selection),
             "fine": fine_meta,
         }
         return meta, {f"fine/{k}": v for k, v in fine_arrays.items()}
@@ -401,10 +400,7 @@ class GroupedHMM(BaseEstimator):
         saved = meta.get("selection")
         model.selection_ = None
         if isinstance(saved, Mapping) and "table" in saved:
-            table = pd.DataFrame(saved["table"])
-            model.selection_ = StateCountSelection(
-                table, int(saved["best"]), "eigen_gap", "", "eigen_gap",
-                reason=str(saved.get("reason", "")),
-            )  # fmt: skip
+            # states saved before the criterion was recorded held the eigenvalue-gap table
+            model.selection_ = selection_from_json(saved, criterion="eigen_gap")
         model.random_seed_ = model.random_state
         return model

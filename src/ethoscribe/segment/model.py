@@ -29,7 +29,7 @@ from ethoscribe.segment.inputs import check_fitted, split_by_lengths
 from ethoscribe.segment.lumping import lump_states, merge_tree, suggested_merges
 from ethoscribe.segment.postprocess import enforce_min_bout
 from ethoscribe.segment.registry import get_segmenter
-from ethoscribe.segment.select import choose_n_states
+from ethoscribe.segment.select import choose_n_states, selection_from_json, selection_to_json
 
 FORMAT_VERSION = 1
 DECODINGS = ("min_duration", "merge")
@@ -558,7 +558,7 @@ class BehaviourModel(BaseEstimator):
             "n_dims": self.n_dims_,
             "training_sessions": self.training_sessions_,
             "n_training_frames": self.n_training_frames_,
-            "selection": None if self.selection_ is None else _selection_to_json(self.selection_),
+            "selection": None if self.selection_ is None else selection_to_json(self.selection_),
             "labels_at_input_rate": bool(getattr(self, "labels_at_input_rate_", False)),
             "state_tree": getattr(self, "state_tree_", None),
         }
@@ -626,7 +626,7 @@ class BehaviourModel(BaseEstimator):
             filler = KeypointFiller.from_state(filler, pick("filler/"))
         model.filler_ = filler
         selection = meta["selection"]
-        model.selection_ = None if selection is None else _FixedSelection.from_json(selection)
+        model.selection_ = None if selection is None else selection_from_json(selection)
         model.labels_at_input_rate_ = meta.get("labels_at_input_rate") is True
         model.state_tree_ = _checked_tree(meta.get("state_tree"), int(meta["n_states"]))
         model.n_states_ = int(meta["n_states"])
@@ -780,34 +780,3 @@ def _with_seen(
     """Feature sets (sessions in order, animals within) with ``meta['body_seen']`` (F,)."""
     seen = [s[:, a] for _, s in filled for a in range(s.shape[1])]
     return [replace(f, meta={**f.meta, "body_seen": v}) for f, v in zip(feats, seen, strict=True)]
-
-
-class _FixedSelection:
-    """A state-count choice without a curve (change points, or a reloaded model)."""
-
-    def __init__(
-        self,
-        best: int,
-        table: pd.DataFrame | None = None,
-        criterion: str = "bic",
-        reason: str = "",
-    ):
-        self.best = int(best)
-        self.table = table if table is not None else pd.DataFrame()
-        self.criterion = criterion
-        self.reason = reason
-
-    @classmethod
-    def from_json(cls, d: dict[str, Any]) -> _FixedSelection:
-        reason = d.get("reason", "")
-        return cls(d["best"], pd.DataFrame(d["table"]), d.get("criterion", ""), str(reason or ""))
-
-
-def _selection_to_json(selection: Any) -> dict[str, Any]:
-    table = getattr(selection, "table", pd.DataFrame())
-    return {
-        "best": int(selection.best),
-        "criterion": str(getattr(selection, "criterion", "")),
-        "reason": str(getattr(selection, "reason", "")),
-        "table": table.astype(object).where(table.notna(), None).to_dict(orient="list"),
-    }

@@ -90,6 +90,28 @@ class StateCountSelection:
     reason: str = ""
 
 
+def selection_to_json(selection: Any) -> dict[str, Any]:
+    """A state-count choice as JSON (missing values of unfitted candidates become null)."""
+    table = getattr(selection, "table", pd.DataFrame())
+    return {
+        "best": int(selection.best),
+        "criterion": str(getattr(selection, "criterion", "")),
+        "reason": str(getattr(selection, "reason", "")),
+        "table": table.astype(object).where(table.notna(), None).to_dict(orient="list"),
+    }
+
+
+def selection_from_json(d: Mapping[str, Any], criterion: str = "") -> StateCountSelection:
+    """The choice written by :func:`selection_to_json` (``criterion`` if it has none)."""
+    return StateCountSelection(
+        pd.DataFrame(d["table"]),
+        int(d["best"]),
+        str(d.get("criterion") or criterion),
+        "",
+        reason=str(d.get("reason") or ""),
+    )
+
+
 def _units(lengths: np.ndarray, heldout: str, block_frames: int | None, rng) -> pd.DataFrame:
     """Held-out units ``start, stop, fold`` in frames of the concatenated matrix."""
     offsets = np.cumsum(lengths) - lengths
