@@ -533,6 +533,9 @@ def test_state_tree_leaf_order_and_joins_match_scipy_dendrogram():
     flat = [(a, b) for a, b in zip(y[0::3], y[1::3], strict=True) if a == b]
     assert len(flat) == len(joins)  # one horizontal line per join
     assert sorted(a for a, _ in flat) == [1.0, 2.0, 3.0, 4.0]  # at n_states - n_sets
+    dots = fig.data[1]  # one hover dot per join, over the middle of what it joins
+    assert list(dots.y) == [1.0, 2.0, 3.0, 4.0] and dots.x[0] == 2.5  # b, d at 2, 3
+    assert dots.text[0].startswith("b, d<br>") and dots.text[-1].startswith("a, e, b, d, c")
 
 
 def test_state_tree_merged_motifs_are_one_leaf_and_levels_need_not_nest():

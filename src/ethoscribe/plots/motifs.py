@@ -494,8 +494,12 @@ def state_tree_figure(levels: list[dict], names: dict[int, str], width: int = 35
     top_sets = max((int(lv["n_sets"]) for lv in levels), default=n_leaves)
     xs: list[float | None] = []
     ys: list[float | None] = []
+    members = {i: [leaves[int(x[i])]] for i in range(n_leaves)}  # cluster -> motif names
+    hover: list[str] = []
     for j, (group, n_sets) in enumerate(joins):
         h = float(top_sets - n_sets)
+        members[n_leaves + j] = [m for c in group for m in members[c]]
+        hover.append(f"{', '.join(members[n_leaves + j])}<br>one group at {n_sets} groups")
         for c in group:
             xs += [x[c], x[c], None]
             ys += [y[c], h, None]
@@ -507,6 +511,17 @@ def state_tree_figure(levels: list[dict], names: dict[int, str], width: int = 35
     fig = go.Figure(
         go.Scatter(
             x=xs, y=ys, mode="lines", line={"color": "#555555", "width": 2}, hoverinfo="skip"
+        )
+    )
+    # a dot on every join tells, on hover, which motifs it joins and at which level
+    fig.add_trace(
+        go.Scatter(
+            x=[x[n_leaves + j] for j in range(len(joins))],
+            y=[y[n_leaves + j] for j in range(len(joins))],
+            mode="markers",
+            marker={"color": "#555555", "size": 7},
+            text=hover,
+            hovertemplate="%{text}<extra></extra>",
         )
     )
     fig.update_layout(
