@@ -2,7 +2,10 @@
 
 Outside references: eigenvalues from ``scipy.linalg.eigvals``; agreement from scikit-learn's
 ``adjusted_rand_score``; the 4-state matrix and its eigenvalues 1, .90, .68, .62 are the
-deeptime 0.5.0 PCCA+ example recorded in tests/test_lumping.py.
+deeptime 0.5.0 PCCA+ example recorded in tests/test_lumping.py. Phases of one rhythm:
+distances from ``scipy.spatial.distance.mahalanobis``, groups from
+``scipy.sparse.csgraph.connected_components``, the exchange lift against a worked example and
+transitions counted on a simulated chain.
 """
 
 from __future__ import annotations
@@ -314,3 +317,170 @@ def test_grouped_hmm_joins_one_behaviour_seen_in_two_units():
     assert adjusted_rand_score(truth, plain.predict(X, lengths)) < 0.9
     with pytest.raises(InputError, match="join"):
         GroupedHMM(join="posture").fit(X, lengths)
+
+
+# --- phases of one rhythm (group_rule="phases") -------------------------------------------
+
+
+def test_exchange_lift_against_a_worked_example_and_a_simulated_chain():
+    from ethoscribe.segment.lumping import exchange_lift
+
+    # Worked by hand: P is doubly stochastic, so pi = (1/3, 1/3, 1/3); state 0 is left with flux
+    # 1/3 * 0.1, by chance half of it to each other state (1/60). Exchange 0-1 observed
+    # 2 * 1/3 * 0.08, expected 2/60: lift 1.6. Exchange 0-2: 2 * 1/3 * 0.02 over
+    # 1/60 + (1/3 * 0.04) / 2: 0.571.
+    P = np.array([[0.90, 0.08, 0.02], [0.08, 0.90, 0.02], [0.02, 0.02, 0.96]])
+    lift = exchange_lift(P)
+    np.testing.assert_allclose(lift[0, 1], 1.6, rtol=1e-9)
+    np.testing.assert_allclose(lift[0, 2], (2 / 150) / (1 / 60 + 1 / 150), rtol=1e-9)
+    np.testing.assert_allclose(lift, lift.T)
+    assert np.all(np.diag(lift) == 0)
+    # A non-symmetric chain: the lift from transitions counted on a simulated chain (Monte
+    # Carlo, 200,000 steps; exits of each state split by chance in proportion to the
+    # occupancy counted), stationary distribution from scipy.linalg.eig's left eigenvector.
+    T = np.array([[0.7, 0.2, 0.1, 0.0], [0.1, 0.6, 0.2, 0.1], [0.0, 0.3, 0.6, 0.1],
+                  [0.2, 0.0, 0.3, 0.5]])  # fmt: skip
+    values, left = scipy.linalg.eig(T, left=True, right=False)
+    pi = np.abs(np.real(left[:, np.argmin(np.abs(values - 1))]))
+    pi /= pi.sum()
+    rng = np.random.default_rng(3)
+    n = 200_000
+    u, cum = rng.random(n), T.cumsum(1)
+    s = np.empty(n, dtype=int)
+    s[0] = 0
+    for t in range(1, n):
+        s[t] = min(int(np.searchsorted(cum[s[t - 1]], u[t])), 3)
+    counts = np.zeros((4, 4))
+    np.add.at(counts, (s[:-1], s[1:]), 1)
+    exits = counts.sum(1) - np.diag(counts)
+    chance = exits[:, None] * pi[None, :] / (1 - pi)[:, None]
+    off = ~np.eye(4, dtype=bool)
+    counted = np.where(off, (counts + counts.T) / np.where(off, chance + chance.T, 1), 0)
+    np.testing.assert_allclose(exchange_lift(T), counted, rtol=0.05, atol=0.01)
+
+
+def test_mean_distance_is_scipys_mahalanobis_under_the_pooled_covariance():
+    from scipy.spatial.distance import mahalanobis
+
+    from ethoscribe.segment.lumping import mean_distance
+
+    rng = np.random.default_rng(4)
+    means = rng.normal(size=(3, 4))
+    A = rng.normal(size=(3, 4, 4))
+    covars = A @ A.transpose(0, 2, 1) + np.eye(4)
+    cols = [1, 3]
+    got = mean_distance(means, covars, cols)
+    for i, j in [(0, 1), (0, 2), (1, 2)]:
+        pooled = 0.5 * (covars[i] + covars[j])[np.ix_(cols, cols)]
+        want = mahalanobis(means[i, cols], means[j, cols], np.linalg.inv(pooled))  # scipy
+        np.testing.assert_allclose(got[i, j], want, rtol=1e-10)
+        assert got[j, i] == got[i, j]
+    assert np.all(mean_distance(means, covars, []) == 0)
+
+
+def test_pair_components_are_scipys_connected_components():
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    from ethoscribe.segment.lumping import pair_components
+
+    pairs = [(5, 6), (5, 7), (6, 8), (2, 3), (8, 7)]
+    graph = coo_matrix((np.ones(len(pairs)), tuple(np.array(pairs).T)), shape=(10, 10))
+    n, want = connected_components(graph, directed=False)  # scipy
+    got = pair_components(10, pairs)
+    assert got.max() + 1 == n
+    assert adjusted_rand_score(want, got) == 1.0  # same partition (scikit-learn)
+    assert got.tolist() == [0, 1, 2, 2, 3, 4, 4, 4, 4, 5]  # numbered by first state
+
+
+def test_join_phases_joins_a_cycle_of_phases_and_nothing_else():
+    from ethoscribe.segment.lumping import join_phases
+
+    # States 0-3: one gait in four phases (each hands over to the next, held 0.2 s at 20 fps),
+    # same band amplitude (column 1); state 4 a still posture held 5 s, state 5 another still
+    # posture with the same (low) band amplitude, exchanged with 4 more than by chance.
+    fps, n = 20.0, 6
+    T = np.full((n, n), 0.002)
+    for a, b in [(0, 1), (1, 2), (2, 3), (3, 0)]:
+        T[a, b] = 0.25 - 0.002 * (n - 2)
+    T[4, 5] = T[5, 4] = 0.008
+    np.fill_diagonal(T, 0.0)
+    np.fill_diagonal(T, 1.0 - T.sum(1))
+    means = np.array([[0, 3], [1, 3], [2, 3], [1, 3.1], [5, 0], [8, 0.1]], dtype=float)
+    covars = np.repeat(np.eye(2)[None] * 0.25, n, axis=0)
+    assignment, pairs = join_phases(T, means, covars, [1], fps)
+    assert assignment.tolist() == [0, 0, 0, 0, 1, 2]
+    assert {p["states"] for p in pairs} == {(0, 1), (1, 2), (2, 3), (0, 3)}
+    assert all(p["lift"] > 1 and p["distance"] < 1 and max(p["stay_s"]) <= 1 for p in pairs)
+    # no phase-free columns: nothing is joined
+    assert join_phases(T, means, covars, [], fps)[0].tolist() == list(range(n))
+    # the gait's phases with different band amplitudes are different rhythms: kept apart
+    means[2:4, 1] = 6.0
+    assert join_phases(T, means, covars, [1], fps)[0].tolist() == [0, 0, 1, 1, 2, 3]
+
+
+def _gait_sequence(seed: int, n_bouts: int = 45, half: int = 6):
+    """Two gaits and a still posture, bouts of 80-160 frames at 20 fps. In a gait, column 0
+    swings between -2 and 2 every ``half`` frames (the phases); column 1 tells the behaviours
+    apart and does not change with the phase."""
+    rng = np.random.default_rng(seed)
+    X, truth, phase = [], [], []
+    for b in range(n_bouts):
+        behaviour = b % 3
+        n = int(rng.integers(80, 161))
+        side = (np.arange(n) // half) % 2
+        if behaviour == 2:
+            mean = np.column_stack([np.full(n, 8.0), np.full(n, 2.5)])
+            ph = np.full(n, 4)
+        else:
+            mean = np.column_stack([np.where(side, 2.0, -2.0), np.full(n, 5.0 * behaviour)])
+            ph = 2 * behaviour + side
+        X.append(mean + rng.normal(0, 0.3, (n, 2)))
+        truth += [behaviour] * n
+        phase += list(ph)
+    return np.vstack(X), np.array(truth), np.array(phase)
+
+
+def test_grouped_hmm_joins_only_phases():
+    X, truth, phase = _gait_sequence(0)
+    # No sticky 1-s prior: on a sequence this short it makes the fine fit cover both phases of
+    # a gait with one two-humped state (a copy per stretch of bouts) instead of one per phase.
+    kw = dict(max_states=5, min_states=2, fps=20.0, n_restarts=1, random_state=0)
+    kw["expected_bout_s"] = None
+    model = GroupedHMM(group_rule="phases", steady_columns=[1], **kw).fit(X)
+    # scikit-learn's ARI: the fine states are the phases, the sets the behaviours
+    assert adjusted_rand_score(phase, model.predict_fine(X)) > 0.95
+    assert model.n_fine_states_ == 5 and model.n_states_ == 3
+    assert adjusted_rand_score(truth, model.predict(X)) > 0.95
+    assert len(model.phases_) == 2 and "phases of one rhythm" in model.group_reason_
+    # column 0 as the "phase-free" one: the phases differ there, so nothing is joined
+    apart = GroupedHMM(group_rule="phases", steady_columns=[0], **kw).fit(X)
+    assert apart.n_states_ == apart.n_fine_states_ == 5
+    meta, arrays = model.to_state()
+    again = GroupedHMM.from_state(json.loads(json.dumps(meta, allow_nan=False)), arrays)
+    np.testing.assert_array_equal(again.predict(X), model.predict(X))
+    with pytest.raises(InputError, match="steady_columns"):
+        GroupedHMM(group_rule="phases", **kw).fit(X)
+    with pytest.raises(InputError, match="steady_columns"):
+        GroupedHMM(group_rule="phases", steady_columns="band", **kw).fit(X)
+
+
+def test_behaviour_model_fills_in_the_band_columns_as_phase_free():
+    from ethoscribe.segment.model import BehaviourModel, steady_columns
+    from ethoscribe.simulate import simulate_session
+
+    tracks = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    model = BehaviourModel(
+        method="grouped_hmm",
+        state_range=(2, 6),
+        segmenter={"fine_states": "elbow", "group_rule": "phases", "n_restarts": 1, "n_iter": 30},
+    ).fit(tracks)
+    columns = model.features_.columns_
+    cols = model.segmenter_.steady_columns
+    assert cols == steady_columns(columns) and len(cols) > 0
+    assert all("_band_" in columns[c] for c in cols)
+    labels = model.label(tracks)
+    assert (labels["state"] >= 0).all() and labels["state"].max() < model.n_states_
+    meta, arrays = model.to_state()
+    again = BehaviourModel.from_state(json.loads(json.dumps(meta, allow_nan=False)), arrays)
+    np.testing.assert_array_equal(again.label(tracks)["state"], labels["state"])

@@ -30,8 +30,10 @@ from ethoscribe.segment.inputs import check_fitted, check_X_lengths
 from ethoscribe.segment.lumping import (
     eigen_gap_sets,
     join_across_units,
+    join_phases,
     lump_states,
     lumped_transitions,
+    pair_components,
     stationary_distribution,
 )
 from ethoscribe.segment.select import (
@@ -69,10 +71,17 @@ class GroupedHMM(BaseEstimator):
         Fine states fitted: None: ``max_states``; "elbow": the held-out elbow of quick fits
         from ``min_states`` to ``max_states`` (:func:`ethoscribe.segment.select.choose_n_states`,
         what ``method="hmm"`` labels with), so the sets group that model's states.
-    group_rule : {"eigen_gap", "time_scales"}
+    group_rule : {"eigen_gap", "time_scales", "phases"}
         How many sets when ``n_states="auto"``: the largest eigenvalue gap (at least one merge),
         or one set per implied time scale longer than ``min_timescale_s``, plus one
-        (:func:`ethoscribe.segment.lumping.lump_states`; may keep every fine state).
+        (:func:`ethoscribe.segment.lumping.lump_states`; may keep every fine state), or
+        "phases": only fine states that are phases of one rhythm are joined (they alternate
+        more than by chance, their ``steady_columns`` cannot tell them apart and each is held
+        at most 1 s; :func:`ethoscribe.segment.lumping.join_phases`), every other state stays
+        a behaviour of its own.
+    steady_columns : sequence of int, optional
+        Columns of ``X`` that do not change with the phase of a rhythm (band amplitudes), for
+        ``group_rule="phases"``; ``BehaviourModel`` fills them in from the feature names.
     min_timescale_s : float
         Exchanges slower than this are between behaviours (``group_rule="time_scales"``);
         1 s, as the model's state tree.
@@ -113,6 +122,7 @@ class GroupedHMM(BaseEstimator):
         group_rule: str = "eigen_gap",
         min_timescale_s: float = 1.0,
         join: str | None = None,
+        steady_columns: Sequence[int] | None = None,
         covariance_type: str = "full",
         expected_bout_s: float | None = 1.0,
         fps: float = 30.0,
@@ -137,6 +147,7 @@ class GroupedHMM(BaseEstimator):
         self.group_rule = group_rule
         self.min_timescale_s = min_timescale_s
         self.join = join
+        self.steady_columns = steady_columns
         self.covariance_type = covariance_type
         self.expected_bout_s = expected_bout_s
         self.fps = fps
@@ -179,10 +190,26 @@ class GroupedHMM(BaseEstimator):
             raise InputError(
                 f"GroupedHMM: fine_states must be a positive integer, 'elbow' or None; got {fine!r}"
             )
-        if self.group_rule not in ("eigen_gap", "time_scales"):
+        if self.group_rule not in ("eigen_gap", "time_scales", "phases"):
             raise InputError(
-                f"GroupedHMM: group_rule must be 'eigen_gap' or 'time_scales'; got "
+                f"GroupedHMM: group_rule must be 'eigen_gap', 'time_scales' or 'phases'; got "
                 f"{self.group_rule!r}"
+            )
+        cols = self.steady_columns
+        if cols is not None and (
+            isinstance(cols, str | bytes)
+            or not all(isinstance(c, int | np.integer) and not isinstance(c, bool) for c in cols)
+            or any(c < 0 for c in cols)
+        ):
+            raise InputError(
+                f"GroupedHMM: steady_columns must be a list of column indices (integers >= 0); "
+                f"got {cols!r:.80}"
+            )
+        if self.group_rule == "phases" and self.n_states == "auto" and cols is None:
+            raise InputError(
+                "GroupedHMM: group_rule='phases' needs steady_columns, the indices of the columns "
+                "that do not change with a rhythm's phase (band amplitudes); BehaviourModel "
+                "fills them in from the feature names"
             )
         if self.join not in (None, "units", "units_nearest"):
             raise InputError(
@@ -219,6 +246,9 @@ class GroupedHMM(BaseEstimator):
             reason = f"{n_sets} sets as asked"
         elif n_base < 2:
             n_sets, reason = 1, "1 set: a single fine state"
+        elif self.group_rule == "phases":
+            self._group_phases(X, base, joined, n_fine, origin, elbow)
+            return self
         elif self.group_rule == "time_scales":
             lump = lump_states(
                 transmat, self.fps, lag_s=lag_s, min_timescale_s=self.min_timescale_s
@@ -245,6 +275,41 @@ class GroupedHMM(BaseEstimator):
         self.group_reason_ = reason
         self._set_groups(lump.assignment[base])
         return self
+
+    def _group_phases(
+        self,
+        X: np.ndarray,
+        base: np.ndarray,
+        joined: list[tuple[int, int]],
+        n_fine: int,
+        origin: str,
+        elbow: StateCountSelection | None,
+    ) -> None:
+        """Sets of ``group_rule="phases"``: fine states joined where they are phases of one
+        rhythm (and across units when ``join`` asked for it); every other state alone."""
+        fine = self.fine_
+        cols = [int(c) for c in self.steady_columns or [] if int(c) < X.shape[1]]
+        _, phases = join_phases(fine.transmat_, fine.means_, fine.covars_, cols, self.fps)
+        pairs = [p["states"] for p in phases]
+        pairs += [(a, b) for a in range(n_fine) for b in range(a + 1, n_fine) if base[a] == base[b]]
+        assignment = pair_components(n_fine, pairs)
+        n_sets = int(assignment.max()) + 1
+        if phases:
+            joins = ", ".join(
+                f"{a}+{b} (exchange {p['lift']:.1f}x chance, {p['distance']:.2f} SD apart)"
+                for p in phases
+                for a, b in [p["states"]]
+            )
+            said = f"phases of one rhythm joined: {joins}"
+        else:
+            said = "no two fine states are phases of one rhythm"
+        reason = f"{n_sets} behaviours of {n_fine} fine states ({origin}): {said}"
+        self.joined_ = joined
+        self.phases_ = phases
+        self.group_reason_ = reason
+        if elbow is not None:
+            self.selection_ = replace(elbow, reason=f"{elbow.reason}; {reason}")
+        self._set_groups(assignment)
 
     def _joined(
         self, X: np.ndarray, lengths: np.ndarray

@@ -25,6 +25,7 @@ the evidence: how often they alternate and how similar their postures are.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -414,3 +415,147 @@ def lumped_transitions(transmat: np.ndarray, assignment: np.ndarray) -> np.ndarr
     pi = stationary_distribution(T)
     flux = onehot.T @ (pi[:, None] * T) @ onehot
     return flux / np.maximum(flux.sum(1, keepdims=True), 1e-300)
+
+
+def exchange_lift(transmat: np.ndarray) -> np.ndarray:
+    """How many times more often two states hand over to each other than by chance, (n, n).
+
+    With ``pi`` the stationary distribution and ``F = diag(pi) P`` the stationary flux, state
+    ``i`` is left with flux ``e_i = pi_i (1 - P_ii)``. By chance (every exit going to the other
+    states in proportion to their occupancy) ``e_i pi_j / (1 - pi_i)`` of it would go to ``j``.
+    The lift is the observed exchange in both directions over that chance exchange:
+    ``(F_ij + F_ji) / (e_i pi_j / (1 - pi_i) + e_j pi_i / (1 - pi_j))``; > 1: the two hand over
+    to each other more than to the rest (alternating phases of one movement, or neighbours in
+    a behavioural sequence). Symmetric; the diagonal is 0.
+
+    Examples
+    --------
+    >>> P = np.array([[.90, .08, .02], [.08, .90, .02], [.02, .02, .96]])
+    >>> exchange_lift(P).round(2)[0].tolist()
+    [0.0, 1.6, 0.57]
+    """
+    T = np.asarray(transmat, dtype=np.float64)
+    pi = stationary_distribution(T)
+    flux = pi[:, None] * T
+    leave = pi * (1.0 - np.diag(T))
+    chance = leave[:, None] * pi[None, :] / np.maximum(1.0 - pi, 1e-300)[:, None]
+    observed = flux + flux.T
+    expected = chance + chance.T
+    lift = np.where(expected > 0, observed / np.where(expected > 0, expected, 1.0), 0.0)
+    np.fill_diagonal(lift, 0.0)
+    return lift
+
+
+def mean_distance(means: np.ndarray, covars: np.ndarray, columns: Sequence[int]) -> np.ndarray:
+    """Mahalanobis distance between every two states' means on ``columns``, (n, n).
+
+    The metric is the two states' covariances averaged (restricted to ``columns``): the
+    distance between the means in pooled standard deviations, the mean term of the
+    Bhattacharyya distance (``sqrt(8 x`` that term``)``). Below 1, the two means lie within one
+    pooled standard deviation of each other on those columns.
+    """
+    means = np.asarray(means, dtype=np.float64)
+    covars = np.asarray(covars, dtype=np.float64)
+    idx = np.asarray(list(columns), dtype=np.int64)
+    n = len(means)
+    out = np.zeros((n, n))
+    if not len(idx):
+        return out
+    sub = covars[:, idx[:, None], idx[None, :]]
+    for i in range(n):
+        for j in range(i + 1, n):
+            diff = means[i, idx] - means[j, idx]
+            pooled = 0.5 * (sub[i] + sub[j])
+            out[i, j] = out[j, i] = float(np.sqrt(max(diff @ np.linalg.solve(pooled, diff), 0.0)))
+    return out
+
+
+def pair_components(n: int, pairs: Sequence[tuple[int, int]]) -> np.ndarray:
+    """Group of every one of ``n`` items when the ``pairs`` are joined (connected components),
+    groups numbered by their first item."""
+    parent = list(range(n))
+
+    def root(a: int) -> int:
+        while parent[a] != a:
+            a = parent[a]
+        return a
+
+    for a, b in pairs:
+        ra, rb = root(int(a)), root(int(b))
+        parent[max(ra, rb)] = min(ra, rb)
+    roots = [root(a) for a in range(n)]
+    order = sorted(set(roots))
+    return np.array([order.index(r) for r in roots], dtype=np.int64)
+
+
+# A pair of states is two phases of one rhythm when they hand over to each other more than by
+# chance (lift > 1), their phase-free columns cannot tell them apart (means within one pooled
+# standard deviation) and each is held no longer than half a cycle of the slowest rhythm the
+# features describe (the 0.5-Hz band: 1 s). The first two limits are the points where the
+# evidence turns; the third follows from the band frequencies. None was tuned on the bench.
+PHASE_MIN_LIFT = 1.0
+PHASE_MAX_DISTANCE = 1.0
+PHASE_MAX_S = 1.0
+
+
+def join_phases(
+    transmat: np.ndarray,
+    means: np.ndarray,
+    covars: np.ndarray,
+    steady_columns: Sequence[int],
+    fps: float,
+    min_lift: float = PHASE_MIN_LIFT,
+    max_distance: float = PHASE_MAX_DISTANCE,
+    max_phase_s: float = PHASE_MAX_S,
+) -> tuple[np.ndarray, list[dict]]:
+    """Join states that are phases of one rhythmic behaviour, and leave every other state alone.
+
+    A frame-level model splits a rhythmic movement (a gait, strokes switching sides) into states
+    that differ in instantaneous posture and alternate within every bout; what stays the same
+    across its phases are the phase-free columns (``steady_columns``: the band amplitudes, each
+    band's power smoothed over about two of its cycles). Two states are joined when all hold:
+
+    1. they alternate: they hand over to each other more often than by chance
+       (:func:`exchange_lift` > ``min_lift`` = 1);
+    2. they are one rhythm: their means on the phase-free columns lie within ``max_distance`` = 1
+       pooled standard deviation (:func:`mean_distance`), so those columns cannot tell them
+       apart;
+    3. they are phases, not bouts: each state's mean stay ``1 / (1 - P_ii)`` frames is at most
+       ``max_phase_s`` (1 s: half a cycle of the slowest band, 0.5 Hz). Two still postures that
+       follow each other (sitting and lying) share low band amplitudes but are held for
+       seconds, so they stay apart.
+
+    Joined pairs are chained (a cycle of four phases that each hand over to the next is one
+    group). Distinct rhythmic behaviours differ in their band amplitudes, so they are not
+    joined, and a model whose states are behaviours already has no such pair: it is left as
+    it is.
+
+    Returns
+    -------
+    assignment : (n,) int, the group of every state (numbered by first state)
+    pairs : list of dict, one per joined pair: ``states`` (a, b), ``lift``, ``distance``,
+    ``stay_s`` (the two mean stays, seconds)
+    """
+    T = np.asarray(transmat, dtype=np.float64)
+    n = len(T)
+    lift = exchange_lift(T)
+    dist = mean_distance(means, covars, steady_columns)
+    stay = 1.0 / np.maximum(1.0 - np.diag(T), 1e-300) / float(fps)
+    pairs = []
+    if len(list(steady_columns)):
+        for a in range(n):
+            for b in range(a + 1, n):
+                if (
+                    lift[a, b] > min_lift
+                    and dist[a, b] < max_distance
+                    and max(stay[a], stay[b]) <= max_phase_s
+                ):
+                    pairs.append(
+                        {
+                            "states": (a, b),
+                            "lift": float(lift[a, b]),
+                            "distance": float(dist[a, b]),
+                            "stay_s": (float(stay[a]), float(stay[b])),
+                        }
+                    )
+    return pair_components(n, [p["states"] for p in pairs]), pairs

@@ -57,6 +57,18 @@ def stack_valid(features: Sequence[FeatureSet]) -> tuple[np.ndarray, np.ndarray]
     return np.concatenate(parts), lengths
 
 
+def steady_columns(columns: Sequence[str]) -> list[int]:
+    """Indices of the feature columns that do not change with the phase of a rhythm: the band
+    amplitudes (``..._band_<f>hz``: each band's power smoothed over about two of its cycles).
+
+    Examples
+    --------
+    >>> steady_columns(["posture_pc1", "log_centroid_speed_mm_s", "log_posture_band_2hz"])
+    [2]
+    """
+    return [i for i, name in enumerate(columns) if "_band_" in str(name)]
+
+
 class BehaviourModel(BaseEstimator):
     """Cleaning + egocentric features + unsupervised segmentation, fitted across sessions.
 
@@ -83,6 +95,8 @@ class BehaviourModel(BaseEstimator):
         usually named; each candidate costs two quick fits.
     segmenter : dict, optional
         Extra keyword parameters of the segmenter (e.g. ``expected_bout_s`` for the HMM).
+        With ``method="grouped_hmm"`` and ``{"group_rule": "phases"}`` the phase-free columns
+        (``steady_columns``) are the band amplitudes unless given (:func:`steady_columns`).
     min_bout_s : float
         Shortest bout of the final labels (see ``decoding``). 0.5 s: a rhythm of 2-8 Hz shows
         only 1-4 cycles in it, so shorter "bouts" are mostly frames of a transition between
@@ -236,10 +250,16 @@ class BehaviourModel(BaseEstimator):
             return self.cleaning
         return CleanParams.from_dict(self.cleaning or {})
 
-    def _make_segmenter(self, n_states: int | str, fps: float, seed: int | None) -> Any:
+    def _make_segmenter(
+        self, n_states: int | str, fps: float, seed: int | None, columns: Sequence[str] = ()
+    ) -> Any:
         spec = get_segmenter(self.method)
         lo, hi = self.state_range
-        return spec.build(n_states, fps, seed, self.segmenter, hi, lo)
+        options = dict(self.segmenter or {})
+        if options.get("group_rule") == "phases" and options.get("steady_columns") is None:
+            # Phases of one rhythm share what does not change with the phase: band amplitudes.
+            options["steady_columns"] = steady_columns(columns)
+        return spec.build(n_states, fps, seed, options, hi, lo)
 
     def fit(self, sessions: Sequence[PoseTracks]) -> BehaviourModel:
         """Fit cleaning-resolved features and the segmenter on all ``sessions`` at once."""
@@ -315,7 +335,7 @@ class BehaviourModel(BaseEstimator):
                 **(self.state_count_options or {}),
             )
             n_states = int(selection.best)
-        segmenter = self._make_segmenter(n_states, fps_value, seed)
+        segmenter = self._make_segmenter(n_states, fps_value, seed, feats[0].columns)
         segmenter.fit(X, lengths)
         if selection is None:  # a segmenter that chose its own count may show how
             selection = getattr(segmenter, "selection_", None)
