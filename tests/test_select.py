@@ -7,7 +7,7 @@ import pytest
 
 from ethoscribe.errors import InputError
 from ethoscribe.plots.model import state_count_figure
-from ethoscribe.segment.select import _choose, select_n_states
+from ethoscribe.segment.select import _choose, choose_n_states, kneedle, select_n_states
 from test_hmm_sampling import sample_sticky_hmm
 
 FAST = {"n_restarts": 2, "n_iter": 50}
@@ -101,3 +101,41 @@ def test_early_stop_chooses_what_the_whole_search_chooses(four_states):
     shared = full.table.set_index("n_states").loc[2:6, "heldout_ll_per_frame"]
     np.testing.assert_allclose(table.loc[2:6, "heldout_ll_per_frame"], shared)
     assert early.reason.startswith("4 states: the elbow") and "not fitted" in early.reason
+
+
+def test_kneedle_finds_the_knee_of_the_papers_figure_2():
+    # Satopaa, Albrecht, Irwin & Raghavan (2011), "Finding a 'Kneedle' in a haystack", Figure 2:
+    # ten points of a concave increasing curve, x evenly spaced on [0, 1]; the knee is at
+    # x = 0.222 (y = 1.897), the values as reproduced in the kneed package's documentation
+    # (KneeLocator(x, y, S=1.0, curve="concave", direction="increasing").knee == 0.222).
+    x = np.linspace(0, 1, 10)
+    y = np.array([-5.0, 0.263, 1.897, 2.692, 3.163, 3.475, 3.696, 3.861, 3.989, 4.091])
+    at = kneedle(y, x)
+    assert round(x[at], 3) == 0.222 and y[at] == 1.897
+    # by hand: the scaled difference y_n - x_n at the knee, 6.897 / 9.091 - 2 / 9 = 0.5365
+    # (largest), beats the neighbours 0.4679 and 0.5128
+    # a straight line has no knee (Kneedle's threshold is never crossed): its last point
+    assert kneedle(2.0 * x, x) == len(x) - 1
+    # a curve whose best fit is its first point: the smallest candidate
+    assert kneedle(np.array([-1.0, -2.0, -1.5, -3.0]), [3, 4, 5, 6]) == 0
+
+
+def test_kneedle_reads_the_envelope_up_to_the_best_fit():
+    # invented held-out curve that rises to K=6 and then falls (more states only lose):
+    # Kneedle reads K=3..6; its envelope values scaled to [0, 1] are 0, .75, .95, 1 against
+    # x = 0, 1/3, 2/3, 1, largest difference (.4167) at K=4
+    curve = np.array([-10.0, -7.0, -6.2, -6.0, -6.5, -8.0])
+    assert [3, 4, 5, 6, 7, 8][kneedle(curve, [3, 4, 5, 6, 7, 8])] == 4
+
+
+def test_kneedle_rule_and_held_out_blocks_through_the_quick_search(four_states):
+    X, _, lengths = four_states
+    sel = choose_n_states(
+        X, lengths, candidates=range(2, 9), model_params=FAST, rule="kneedle", heldout="blocks"
+    )
+    assert sel.rule == "kneedle" and sel.heldout == "blocks"
+    assert sel.best == 4 and "knee" in sel.reason
+    with pytest.raises(InputError, match="heldout must be 'sessions' or 'blocks'"):
+        choose_n_states(X, lengths, candidates=[2, 3], heldout="animals")
+    with pytest.raises(InputError, match="rule"):
+        choose_n_states(X, lengths, candidates=[2, 3], rule="knee")

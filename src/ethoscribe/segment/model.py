@@ -128,7 +128,8 @@ class BehaviourModel(BaseEstimator):
         Show progress bars.
     state_count_options : dict, optional
         Options of the automatic state count (:func:`ethoscribe.segment.select.choose_n_states`
-        for the HMM: ``max_frames``, ``stop_after``; e.g. ``{"stop_after": None}`` fits every
+        for the HMM: ``max_frames``, ``stop_after``, ``rule`` ("elbow", "kneedle", "one_se"),
+        ``heldout`` ("sessions", "blocks"); e.g. ``{"stop_after": None}`` fits every
         candidate of ``state_range`` instead of stopping two past the elbow).
     causal : bool
         Fit and label through the causal path, for a model meant for closed-loop use
@@ -230,7 +231,7 @@ class BehaviourModel(BaseEstimator):
                 f"got {seen!r}"
             )
 
-        allowed = {"max_frames", "stop_after"}
+        allowed = {"max_frames", "stop_after", "rule", "heldout"}
         options = self.state_count_options
         if options is not None and (not isinstance(options, Mapping) or set(options) - allowed):
             raise InputError(

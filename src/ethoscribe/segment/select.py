@@ -24,6 +24,16 @@ Two rules read the held-out curve ``ll(K)`` (log-likelihood per frame):
   which two share a posture; 12 choices over seeds and session subsets) the gains up to the
   7th state were at least 21 % of the largest, those beyond the 8th at most 18 %, and the
   count chosen was 7 (8 times) or 8 (4 times).
+- ``rule="kneedle"``: the knee of the curve by Kneedle (Satopaa, Albrecht, Irwin & Raghavan
+  2011, "Finding a 'Kneedle' in a haystack", ICDCS workshops), with sensitivity ``S = 1``
+  as the paper recommends. Kneedle smooths the curve first; here the smoothing is the
+  concave envelope (as for the elbow), kept up to its maximum (Kneedle reads an increasing
+  curve; past the maximum more states only lose). Both axes are scaled to [0, 1], the knee
+  is the K where the scaled curve lies farthest above the diagonal from its first to its
+  last point, provided the difference falls by ``S`` times the mean step of the scaled K
+  after it (else no knee: the curve rises as a straight line, and the maximum is chosen).
+  Unlike the elbow it reads no fixed fraction: the knee is relative to the whole rise of
+  the curve over the candidates.
 
 With ``criterion="bic"`` the K of minimum BIC on all data is chosen.
 """
@@ -48,7 +58,9 @@ from ethoscribe.segment.sampling import take_blocks
 
 RANGE_TOLERANCE = 0.01
 ELBOW_FRACTION = 0.2
-RULES = ("one_se", "elbow")
+RULES = ("one_se", "elbow", "kneedle")
+# Kneedle's sensitivity: 1, the value Satopaa et al. (2011) recommend and use.
+KNEEDLE_SENSITIVITY = 1.0
 # The quick path of ``choose_n_states`` (used by BehaviourModel with n_states="auto"); the
 # quick fitting options are the method's ``quick_options`` in the registry.
 QUICK_MAX_FRAMES = 20_000
@@ -187,6 +199,34 @@ def elbow(curve: np.ndarray, cands: Sequence[int], fraction: float = ELBOW_FRACT
     return int(small[0]) if len(small) else len(cands) - 1
 
 
+def kneedle(
+    curve: np.ndarray, cands: Sequence[int], sensitivity: float = KNEEDLE_SENSITIVITY
+) -> int:
+    """Index of the knee of a held-out curve by Kneedle (see the module doc, ``rule="kneedle"``).
+
+    The curve is replaced by its concave envelope, cut at the envelope's maximum, and both
+    axes are scaled to [0, 1]; the knee is the first point of largest difference ``y - x``
+    between the scaled curve and the diagonal, if the difference drops by ``sensitivity``
+    times the mean step of the scaled x after it (the paper's threshold), else the maximum.
+
+    Examples
+    --------
+    >>> kneedle(np.array([-9.0, -6.0, -4.0, -3.8, -3.7]), [2, 3, 4, 5, 6])
+    2
+    """
+    k = np.asarray(cands, dtype=np.float64)
+    env = concave_envelope(k, np.asarray(curve, dtype=np.float64))
+    top = int(np.argmax(env))  # the first K of the highest envelope
+    if top == 0:
+        return 0
+    x = (k[: top + 1] - k[0]) / (k[top] - k[0])
+    y = (env[: top + 1] - env[0]) / (env[top] - env[0])
+    diff = y - x
+    knee = int(np.argmax(diff))
+    threshold = diff[knee] - sensitivity * float(np.mean(np.diff(x)))
+    return knee if (diff[knee + 1 :] < threshold).any() else top
+
+
 def _choose(
     ll_units: np.ndarray, n_units: np.ndarray, cands: list[int], rule: str = "one_se"
 ) -> dict[str, np.ndarray]:
@@ -203,7 +243,10 @@ def _choose(
     ok = gap <= tol
     k = np.asarray(cands, dtype=np.float64)
     gain = np.r_[np.nan, np.diff(concave_envelope(k, curve)) / np.diff(k)] if len(k) else k
-    best = cands[int(np.argmax(ok))] if rule == "one_se" else cands[elbow(curve, cands)]
+    if rule == "one_se":
+        best = cands[int(np.argmax(ok))]
+    else:
+        best = cands[(kneedle if rule == "kneedle" else elbow)(curve, cands)]
     return {"curve": curve, "gap": gap, "se": se, "tol": tol, "ok": ok, "gain": gain, "best": best}
 
 
@@ -240,13 +283,17 @@ def select_n_states(
         Seed of the fold split and of every model.
     block_frames : int, optional
         Block length for ``heldout="blocks"`` (default: n_frames/20 within [50, 3000]).
-    rule : {"one_se", "elbow"}
+    rule : {"one_se", "elbow", "kneedle"}
         How the held-out curve is read (module doc); ignored with ``criterion="bic"``.
     stop_after : int or None
         With ``rule="elbow"``: fit the candidates smallest first and stop once the elbow of
         the curve so far lies ``stop_after`` candidates below the last one fitted (each of
         them added less than the elbow fraction of the largest gain per state); the larger
-        candidates, the costliest fits, are then left out (``not_needed``). The elbow reads
+        candidates, the costliest fits, are then left out (``not_needed``). With
+        ``rule="kneedle"`` the same, once the highest held-out fit so far lies ``stop_after``
+        candidates below the last one fitted (Kneedle reads the curve up to its maximum, but
+        scales it by the whole rise, so a later candidate above the best would move the
+        knee; the early stop assumes none comes after ``stop_after`` lower ones). The elbow reads
         the concave envelope of the curve, so a larger candidate would move it only if its
         held-out gain, averaged per state over the whole stretch from the elbow, reached the
         elbow fraction of the largest gain again, although the ``stop_after`` candidates in
@@ -370,7 +417,9 @@ def select_n_states(
             bic[i] += 0.5 * (-2 * ll_tr + n_par * np.log(n_tr))
         fitted = done // 2
         if stop_after is not None and done < len(jobs) and fitted >= 2:
-            at = elbow(ll_units[:fitted].sum(axis=1) / n_units.sum(), feasible[:fitted])
+            so_far = ll_units[:fitted].sum(axis=1) / n_units.sum()
+            # Kneedle reads the curve up to its maximum: stop once that lies stop_after back.
+            at = int(np.argmax(so_far)) if rule == "kneedle" else elbow(so_far, feasible[:fitted])
             if fitted - 1 - at >= stop_after:
                 break
     bar.close()
@@ -411,6 +460,11 @@ def _reason(
     """One sentence saying why ``best`` was chosen (shown beside the curve)."""
     if rule == "one_se":
         text = f"{best} states: the fewest within one standard error of the best held-out fit"
+    elif rule == "kneedle":
+        text = (
+            f"{best} states: the knee of the held-out curve (Kneedle: farthest above the line "
+            "from the first candidate to the best fit)"
+        )
     else:
         gains = table.set_index("n_states")["heldout_gain"]
         top = float(np.nanmax(gains.to_numpy(dtype=float))) if gains.notna().any() else np.nan
@@ -422,9 +476,11 @@ def _reason(
                 f"gain per state, below {100 * ELBOW_FRACTION:.0f} %)"
             )
     if not_needed:
+        after = "fitted less well than the best" if rule == "kneedle" else "added less than that"
+        where = "the best fit" if rule == "kneedle" else "the elbow"
         text += (
             f"; {', '.join(map(str, not_needed))} not fitted: the {stop_after} candidates after "
-            "the elbow already added less than that"
+            f"{where} already {after}"
         )
     return text
 
@@ -456,6 +512,8 @@ def choose_n_states(
     max_frames: int | None = QUICK_MAX_FRAMES,
     method: str = "hmm",
     stop_after: int | None = STOP_AFTER,
+    rule: str = "elbow",
+    heldout: str = "sessions",
 ) -> StateCountSelection:
     """The automatic state count of ``BehaviourModel``: the held-out elbow, fitted quickly.
 
@@ -486,6 +544,15 @@ def choose_n_states(
     stop_after : int or None
         Stop once the elbow lies this many fitted candidates below the last (see
         :func:`select_n_states`); None: fit every candidate.
+    rule : {"elbow", "kneedle", "one_se"}
+        How the held-out curve is read (module doc).
+    heldout : {"sessions", "blocks"}
+        Held-out units. "sessions": whole sequences (sessions, or animals of a session) are
+        held out, so the curve asks how well states found in some animals fit others; with few
+        sequences that differ (in body size, posture or tracking) the curve falls after a few
+        states, whatever the behaviours. "blocks": blocks alternating inside every sequence
+        (about n_frames/20 frames each), so both folds see every animal and the curve asks how
+        well states found at some times fit other times. One sequence always uses blocks.
 
     Examples
     --------
@@ -499,8 +566,11 @@ def choose_n_states(
     # One block per session (blocks as long as the whole budget), as many sessions as fit.
     X, lengths = take_blocks(X, lengths, max_frames, max_frames or len(X), rng)
     params = {**dict(model_params or {}), **get_segmenter(method).quick_options}
-    heldout = "sessions" if len(lengths) >= 2 else "blocks"
+    if heldout not in ("sessions", "blocks"):
+        raise InputError(f"heldout must be 'sessions' or 'blocks'; got {heldout!r}")
+    if len(lengths) < 2:
+        heldout = "blocks"
     return select_n_states(
         X, lengths, candidates, "heldout", heldout, params, random_state, progress,
-        rule="elbow", method=method, stop_after=stop_after,
+        rule=rule, method=method, stop_after=stop_after,
     )  # fmt: skip
