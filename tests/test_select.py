@@ -139,3 +139,11 @@ def test_kneedle_rule_and_held_out_blocks_through_the_quick_search(four_states):
         choose_n_states(X, lengths, candidates=[2, 3], heldout="animals")
     with pytest.raises(InputError, match="rule"):
         choose_n_states(X, lengths, candidates=[2, 3], rule="knee")
+
+
+def test_model_takes_the_rule_and_held_out_units_as_state_count_options():
+    from ethoscribe.segment.model import BehaviourModel
+
+    BehaviourModel(state_count_options={"rule": "kneedle", "heldout": "blocks"})._check_params()
+    with pytest.raises(InputError, match="state_count_options"):
+        BehaviourModel(state_count_options={"criterion": "bic"})._check_params()
