@@ -32,7 +32,7 @@ def test_unchanged_rerun_reuses_the_fit(tmp_path, monkeypatch):
     def no_fit(*args, **kwargs):
         raise AssertionError("the model was fitted again")
 
-    monkeypatch.setattr(BehaviourModel, "fit_cleaned", no_fit)
+    monkeypatch.setattr(BehaviourModel, "fit_transform_cleaned", no_fit)
     again = _run(study, first).path
     assert_same_contents(workspace_contents(again), before)
     assert (again / "stability.csv").read_bytes() == stability

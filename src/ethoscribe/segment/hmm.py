@@ -39,6 +39,7 @@ from ethoscribe.segment._hmm_fit import (
     check_hmm_params,
     distinct_rows_at_least,
     fit_with_hmmlearn,
+    floor_probabilities,
     in_threads,
     initial_means,
     one_thread,
@@ -208,11 +209,24 @@ class GaussianHMM(BaseEstimator):
     parameter_count = staticmethod(parameter_count)
 
     # ----------------------------------------------------------------------------- fitting
-    def fit(self, X: np.ndarray, lengths: Sequence[int] | np.ndarray | None = None) -> GaussianHMM:
-        """Fit by EM on ``X (n_frames, n_features)`` of sessions with ``lengths``."""
+    def fit(
+        self,
+        X: np.ndarray,
+        lengths: Sequence[int] | np.ndarray | None = None,
+        init_models: Sequence[GaussianHMM] = (),
+    ) -> GaussianHMM:
+        """Fit by EM on ``X (n_frames, n_features)`` of sessions with ``lengths``.
+
+        ``init_models``: fitted models of the same state and feature counts (e.g. the
+        automatic state count's quick fits of the chosen count). Each adds a restart that
+        starts EM from its parameters (means, covariances, start and transition
+        probabilities; own EM, whatever the ``engine``) beside the ``n_restarts`` usual ones;
+        from a good start it needs few iterations. The best log-likelihood of all wins.
+        """
         check_hmm_params(self)
         X, lengths = check_X_lengths(X, lengths)
         K = int(self.n_states)
+        starts = [_start_from(m, K, X.shape[1]) for m in init_models]
         seed = seed_from(self.random_state)
         seeds = np.random.SeedSequence(seed).spawn(self.n_restarts + 1)
         block = max(100, round(60.0 * self.fps))
@@ -243,9 +257,19 @@ class GaussianHMM(BaseEstimator):
         trans_counts = (
             0.0 if self.expected_bout_s is None else self.persistence_strength * n_fit / K * sticky
         )
-        bar = tqdm(total=self.n_restarts, desc="HMM restarts", disable=not self.progress)
+        n_runs = self.n_restarts + len(starts)
+        bar = tqdm(total=n_runs, desc="HMM restarts", disable=not self.progress)
 
         def restart(r: int) -> dict[str, Any]:
+            if r >= self.n_restarts:  # warm start: EM from a fitted model's parameters
+                given = starts[r - self.n_restarts]
+                start = {**given, "means": given["means"] - offset}
+                res = run_em(
+                    self, X_fit, fit_lengths, start["means"], sticky, start_counts,
+                    trans_counts, bar, start=start,
+                )  # fmt: skip
+                bar.update(1)
+                return res
             rng = np.random.default_rng(seeds[r + 1])
             if self.engine == "hmmlearn":
                 res = fit_with_hmmlearn(
@@ -273,7 +297,7 @@ class GaussianHMM(BaseEstimator):
         with one_thread():  # small products: one thread is faster (see one_thread)
             # hmmlearn's own loops hold the GIL: its restarts run one after another.
             jobs = 1 if self.engine == "hmmlearn" else self.n_jobs
-            results = in_threads(restart, range(self.n_restarts), jobs)
+            results = in_threads(restart, range(n_runs), jobs)
         bar.close()
         lls = np.array([res["log_likelihood"] for res in results])
         best = results[int(np.argmax(lls))]
@@ -476,6 +500,26 @@ class GaussianHMM(BaseEstimator):
 
 
 _MAX_STATES = 1000  # a saved state count beyond this is damage, not a model
+
+
+def _start_from(model: GaussianHMM, n_states: int, n_features: int) -> dict[str, np.ndarray]:
+    """The fitted parameters of ``model`` as a starting point of EM (copies)."""
+    check_fitted(model, "means_")
+    if model.means_.shape != (n_states, n_features):
+        msg = (
+            f"init_models must have {n_states} states of {n_features} features; got a model "
+            f"with means of shape {model.means_.shape}"
+        )
+        raise InputError(msg)
+    start, trans = floor_probabilities(model.startprob_, model.transmat_)
+    return {
+        "means": np.array(model.means_, dtype=np.float64),
+        "covars": np.array(model.covars_, dtype=np.float64),
+        "startprob": start,
+        "transmat": trans,
+    }
+
+
 _MAX_FEATURES = 100_000
 
 

@@ -130,7 +130,11 @@ class BehaviourModel(BaseEstimator):
         Options of the automatic state count (:func:`ethoscribe.segment.select.choose_n_states`
         for the HMM: ``max_frames``, ``stop_after``, ``rule`` ("elbow", "kneedle", "one_se"),
         ``heldout`` ("sessions", "blocks"); e.g. ``{"stop_after": None}`` fits every
-        candidate of ``state_range`` instead of stopping two past the elbow).
+        candidate of ``state_range`` instead of stopping two past the elbow), and
+        ``warm_start``: True adds to the final fit two restarts started from the count's two
+        quick fits of the chosen count (``GaussianHMM.fit(..., init_models=...)``). Off by
+        default: on the validation bench (seed 0) it did not pay (see benchmarks/README.md,
+        "Fast by default").
     causal : bool
         Fit and label through the causal path, for a model meant for closed-loop use
         (:class:`~ethoscribe.segment.streaming.StreamingLabeller`): causal cleaning (past frames
@@ -231,7 +235,7 @@ class BehaviourModel(BaseEstimator):
                 f"got {seen!r}"
             )
 
-        allowed = {"max_frames", "stop_after", "rule", "heldout"}
+        allowed = {"max_frames", "stop_after", "rule", "heldout", "warm_start"}
         options = self.state_count_options
         if options is not None and (not isinstance(options, Mapping) or set(options) - allowed):
             raise InputError(
@@ -291,13 +295,22 @@ class BehaviourModel(BaseEstimator):
         Batch runs clean each session in its own worker (and cache the result), then fit here
         on the cleaned tracks, or on a representative sample of them.
         """
-        self._fit_cleaned(cleaned, quality, self._clean_params())
-        self.labels_at_input_rate_ = False
+        self.fit_transform_cleaned(cleaned, quality)
         return self
+
+    def fit_transform_cleaned(
+        self, cleaned: Sequence[PoseTracks], quality: Sequence[QualityReport] = ()
+    ) -> list[FeatureSet]:
+        """:meth:`fit_cleaned`, returning the training sessions' features: what
+        :meth:`featurise_cleaned` gives for ``cleaned`` afterwards, without computing them
+        again (one feature set per session and animal)."""
+        feats = self._fit_cleaned(cleaned, quality, self._clean_params())
+        self.labels_at_input_rate_ = False
+        return feats
 
     def _fit_cleaned(
         self, cleaned: Sequence[PoseTracks], quality: Sequence[QualityReport], params: CleanParams
-    ) -> None:
+    ) -> list[FeatureSet]:
         self._check_params()
         cleaned = list(cleaned)
         check_same_body_plan(cleaned)
@@ -323,6 +336,9 @@ class BehaviourModel(BaseEstimator):
         seed = seed_from(self.random_state)
         selection = None
         n_states = self.n_states
+        count_options = dict(self.state_count_options or {})
+        warm = count_options.pop("warm_start", False)
+        starts: Sequence[Any] = ()
         if n_states == "auto" and get_segmenter(self.method).auto_states == "heldout":
             lo, hi = self.state_range
             selection = choose_n_states(
@@ -333,11 +349,16 @@ class BehaviourModel(BaseEstimator):
                 random_state=seed,
                 progress=self.progress,
                 method=self.method,
-                **(self.state_count_options or {}),
+                **count_options,
             )
             n_states = int(selection.best)
+            if warm and get_segmenter(self.method).warm_start:
+                starts = getattr(selection, "fold_models", {}).get(n_states, ())
         segmenter = self._make_segmenter(n_states, fps_value, seed, feats[0].columns)
-        segmenter.fit(X, lengths)
+        if starts:  # the count's two quick fits of this count start restarts of their own
+            segmenter.fit(X, lengths, init_models=starts)
+        else:
+            segmenter.fit(X, lengths)
         if selection is None:  # a segmenter that chose its own count may show how
             selection = getattr(segmenter, "selection_", None)
         self.state_tree_ = _state_tree(segmenter, fps_value)
@@ -353,6 +374,7 @@ class BehaviourModel(BaseEstimator):
         self.quality_ = list(quality)
         self.training_sessions_ = [s.session for s in sessions]
         self.n_training_frames_ = int(lengths.sum())
+        return feats
 
     def _clean_all(
         self, sessions: Sequence[PoseTracks], params: CleanParams

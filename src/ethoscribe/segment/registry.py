@@ -93,6 +93,9 @@ class SegmenterSpec:
     streaming : callable or "module:function" or None
         Makes a frame-by-frame filter from a fitted segmenter (``push(row) -> posterior``,
         ``n_states``); None: no live labelling.
+    warm_start : bool
+        With ``auto_states="heldout"``: the estimator's ``fit(X, lengths, init_models=...)``
+        starts from fitted models of the same count (the quick fits of the chosen count).
     """
 
     name: str
@@ -108,6 +111,7 @@ class SegmenterSpec:
     stability_options: Mapping[str, Any] = field(default_factory=dict)
     posteriors: bool = False
     streaming: Callable[[Any], Any] | str | None = None
+    warm_start: bool = False
 
     def __post_init__(self) -> None:
         if not isinstance(self.name, str) or not self.name.isidentifier():
@@ -247,6 +251,7 @@ register(
         stability_options={"n_restarts": 1, "n_iter": 30, "init_candidates": 2, "progress": False},
         posteriors=True,
         streaming="ethoscribe.segment.streaming_hmm:HMMFilter",
+        warm_start=True,
     )
 )
 register(

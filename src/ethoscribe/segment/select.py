@@ -42,7 +42,7 @@ from __future__ import annotations
 
 import itertools
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -100,6 +100,12 @@ class StateCountSelection:
     skipped: tuple[int, ...] = ()
     not_needed: tuple[int, ...] = ()
     reason: str = ""
+    # The two folds' fitted models of every fitted candidate (held-out path only), kept so that
+    # the final fit can start from them and the stability check can reuse them as its split
+    # halves. Not saved: ``selection_to_json`` writes the table and the choice only.
+    fold_models: Mapping[int, tuple[Any, Any]] = field(
+        default_factory=dict, repr=False, compare=False
+    )
 
 
 def selection_to_json(selection: Any) -> dict[str, Any]:
@@ -388,7 +394,7 @@ def select_n_states(
     jobs = [(i, k, f) for i, k in enumerate(feasible) for f in (0, 1)]
     bar = tqdm(total=len(jobs), desc="state counts x folds", disable=not progress)
 
-    def fit_fold(job: tuple[int, int, int]) -> tuple[np.ndarray, float, int, int, np.ndarray]:
+    def fit_fold(job: tuple[int, int, int]) -> tuple[np.ndarray, float, int, int, np.ndarray, Any]:
         _, k, f = job
         X_tr, len_tr = _take(X, units[units["fold"] != f])
         X_te, len_te = _take(X, units[units["fold"] == f])
@@ -397,21 +403,23 @@ def select_n_states(
         # Every frame labelled by this fold's model: the two folds' labelings are compared.
         labels = m.predict(X, lengths)
         ll_te = m.score_per_session(X_te, len_te)
-        return ll_te, m.score(X_tr, len_tr), len(X_tr), m.n_parameters(), labels
+        return ll_te, m.score(X_tr, len_tr), len(X_tr), m.n_parameters(), labels, m
 
     # The fits are independent (each seeded alike): on threads, results equal a serial loop.
     # With ``stop_after`` candidates are fitted in rounds, smallest first (one candidate's two
     # folds per pair of threads), until the elbow is settled.
     fold_labels: dict[tuple[int, int], np.ndarray] = {}
+    models: dict[tuple[int, int], Any] = {}
     per_round = len(jobs) if stop_after is None else 2 * max(1, n_threads(n_jobs) // 2)
     done = 0
     while done < len(jobs):
         batch = jobs[done : done + per_round]
         done += len(batch)
-        for (i, _, f), (ll_te, ll_tr, n_tr, n_par, labels) in zip(
+        for (i, _, f), (ll_te, ll_tr, n_tr, n_par, labels, model) in zip(
             batch, in_threads(fit_fold, batch, n_jobs), strict=True
         ):
             fold_labels[i, f] = labels
+            models[i, f] = model
             ll_units[i, (units["fold"] == f).to_numpy()] = ll_te
             train[i] += ll_tr / len(X)  # both folds together cover every frame once
             bic[i] += 0.5 * (-2 * ll_tr + n_par * np.log(n_tr))
@@ -449,9 +457,11 @@ def select_n_states(
     )
     table = _with_skipped(table, cands, n_features, params, cls)
     reason = _reason(table, int(chosen["best"]), rule, stop_after, not_needed)
+    fold_models = {k: (models[i, 0], models[i, 1]) for i, k in enumerate(feasible)}
     return StateCountSelection(
-        table, int(chosen["best"]), criterion, heldout, rule, skipped, not_needed, reason
-    )
+        table, int(chosen["best"]), criterion, heldout, rule, skipped, not_needed, reason,
+        fold_models,
+    )  # fmt: skip
 
 
 def _reason(

@@ -67,6 +67,8 @@ def stability_report(
     reproducible_jaccard: float = 0.5,
     progress: bool = False,
     n_jobs: int | None = None,
+    reference: Any = None,
+    half_models: Sequence[Any] = (),
 ) -> StabilityReport:
     """Refit with several seeds (and on two halves of the sessions) and compare the labelings.
 
@@ -86,6 +88,13 @@ def stability_report(
     n_jobs : int or None
         Threads for the refits (None: every CPU); ``make_model`` must then be safe to call
         from several threads (a GaussianHMM is: its kernels release the GIL).
+    reference : fitted segmenter, optional
+        Used as the first seed's fit instead of a refit (e.g. the model being checked, so the
+        table lists its own states).
+    half_models : two fitted segmenters, optional
+        Models already fitted on two disjoint halves of the sessions (e.g. the two folds of
+        the automatic state count's held-out fits of this count), used instead of refitting
+        on two halves (with ``split_halves``).
 
     Examples
     --------
@@ -101,19 +110,28 @@ def stability_report(
     seeds = [int(s) for s in seeds]
     if not seeds:
         raise InputError("seeds must contain at least one seed")
-    jobs = len(seeds) + (2 if split_halves else 0)
-    bar = tqdm(total=jobs, desc="stability fits", disable=not progress)
+    half_models = list(half_models)
+    if half_models and len(half_models) != 2:
+        raise InputError(f"half_models must be two fitted models; got {len(half_models)}")
     halves = list(_halves(lengths, np.random.default_rng(seeds[0]))) if split_halves else []
+    work: list[Any] = [(s, None, None) for s in seeds] + [(seeds[0], i, n) for i, n in halves]
+    if reference is not None:
+        work[0] = reference
+    if split_halves and half_models:
+        work[len(seeds) :] = half_models
+    bar = tqdm(total=len(work), desc="stability fits", disable=not progress)
 
-    def refit(job: tuple[int, np.ndarray | None, np.ndarray | None]) -> tuple[Any, np.ndarray]:
-        seed, idx, sub_lengths = job
-        model = make_model(seed)
-        model = model.fit(X, lengths) if idx is None else model.fit(X[idx], sub_lengths)
+    def refit(job: Any) -> tuple[Any, np.ndarray]:
+        if isinstance(job, tuple):
+            seed, idx, sub_lengths = job
+            model = make_model(seed)
+            model = model.fit(X, lengths) if idx is None else model.fit(X[idx], sub_lengths)
+        else:  # a model fitted already: it only labels
+            model = job
         bar.update(1)
         return model, np.asarray(model.predict(X, lengths))
 
     # Independent seeded fits: on threads (n_jobs) they give what a serial loop gives.
-    work = [(s, None, None) for s in seeds] + [(seeds[0], i, n) for i, n in halves]
     fits = in_threads(refit, work, n_jobs)
     labels = [lab for _, lab in fits[: len(seeds)]]
     n_states = _n_states(fits[0][0], labels[0])

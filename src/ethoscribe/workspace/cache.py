@@ -189,7 +189,9 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     """Features and labels of one cleaned session under a cached model, or the cached result.
 
     ``job`` holds ``prepared`` (what :func:`prepare_session` returned), ``model`` and
-    ``model_key`` (from :func:`cache_model`), ``cache`` (the workspace folder) and ``force``.
+    ``model_key`` (from :func:`cache_model`), ``cache`` (the workspace folder) and ``force``,
+    optionally ``features`` (the session's feature sets under that model, when the caller has
+    them: not computed again).
     Writes the session's label table (state ids, default names) as Parquet and one feature
     file per animal; returns their paths. Runs in worker processes, like
     :func:`prepare_session`.
@@ -212,9 +214,12 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     tracks, _, _ = load_prepared(prepared)
     model = _cached_model(job["model"], job["model_key"])
     first = first_frame(tracks)
+    # ``features``: this session's features under this model, already computed by the fit
+    # from the same cleaned tracks (a run in one process); otherwise computed here.
+    given = job.get("features")
     feats = [
         dataclasses.replace(f, meta={**f.meta, "first_frame": first})
-        for f in model.featurise_cleaned([tracks])
+        for f in (given if given is not None else model.featurise_cleaned([tracks]))
     ]
     labels = input_frame_numbers(model.label_features(feats), first, tracks.fps)
     write_table(labels, f"{base}.labels.parquet")

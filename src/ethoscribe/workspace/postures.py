@@ -19,7 +19,7 @@ from __future__ import annotations
 import json
 import os
 from collections import OrderedDict
-from collections.abc import Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -31,6 +31,7 @@ from ethoscribe.body_plans import body_plan_for
 from ethoscribe.clean import calibrate, clean
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.io import atomic_write, loads_json, safe_child
+from ethoscribe.pose import PoseTracks
 from ethoscribe.postures import (
     egocentric_postures,
     mean_postures,
@@ -156,9 +157,16 @@ def compute_session_postures(
     session: str,
     model: BehaviourModel | None = None,
     table: pd.DataFrame | None = None,
+    cleaned: Callable[[], PoseTracks] | None = None,
 ) -> SessionPostures:
-    """Read, clean and turn one session into body-frame keypoints (no cache involved)."""
+    """Read, clean and turn one session into body-frame keypoints (no cache involved).
+
+    ``cleaned``: gives the session already cleaned with the model's cleaning (discovery's
+    own cleaned copy), instead of reading and cleaning its source file again.
+    """
     model = ws.model() if model is None else model
+    if cleaned is not None:
+        return _postures_of(str(session), cleaned(), model)
     table = ws.sessions if table is None else table
     row = _row(ws, session, table)
     source = source_file(ws, session, table=table)
@@ -183,8 +191,16 @@ def compute_session_postures(
             f"{int(n_frames)}; the file changed since the workspace was made"
         )
         raise WorkspaceError(msg)
+    return _postures_of(str(session), cleaned, model, ego)
+
+
+def _postures_of(
+    session: str, cleaned: PoseTracks, model: BehaviourModel, ego: np.ndarray | None = None
+) -> SessionPostures:
+    if ego is None:
+        ego = egocentric_postures(cleaned, model.features_)
     return SessionPostures(
-        str(session), ego.astype(np.float32), tuple(cleaned.animals), tuple(cleaned.keypoints),
+        session, ego.astype(np.float32), tuple(cleaned.animals), tuple(cleaned.keypoints),
         float(cleaned.fps), str(cleaned.units),
     )  # fmt: skip
 
@@ -194,10 +210,12 @@ def session_postures(
     session: str,
     model: BehaviourModel | None = None,
     table: pd.DataFrame | None = None,
+    cleaned: Callable[[], PoseTracks] | None = None,
 ) -> SessionPostures:
     """Body-frame keypoints of ``session``, from ``postures/`` or computed and cached there.
 
-    ``table``: ``sessions.csv`` already read (it is read otherwise).
+    ``table``: ``sessions.csv`` already read (it is read otherwise). ``cleaned``: see
+    :func:`compute_session_postures`.
 
     Examples
     --------
@@ -213,24 +231,31 @@ def session_postures(
         cached = _load(path, key)
         if cached is not None:
             return cached
-    fresh = compute_session_postures(ws, session, model, table)
+    fresh = compute_session_postures(ws, session, model, table, cleaned)
     _save(path, fresh, key)
     return fresh
 
 
-def cache_postures(ws: Workspace, model: BehaviourModel | None = None) -> dict[str, str]:
+def cache_postures(
+    ws: Workspace,
+    model: BehaviourModel | None = None,
+    cleaned: Mapping[str, Callable[[], PoseTracks]] | None = None,
+) -> dict[str, str]:
     """Compute and cache every session's postures (``discover`` and ``label`` call it).
 
     The workbench then opens on cached postures instead of reading every source file again.
-    Returns ``{session: problem}`` for sessions whose postures could not be made (their source
-    file gone, say); the workbench names them when it opens.
+    ``cleaned``: per session, a function giving it already cleaned with the model's cleaning
+    (the run's own cleaned copies: no second reading and cleaning). Returns
+    ``{session: problem}`` for sessions whose postures could not be made (their source file
+    gone, say); the workbench names them when it opens.
     """
     model = ws.model() if model is None else model
     table = ws.sessions
+    cleaned = cleaned or {}
     problems = {}
     for session in table["session"].astype(str):
         try:
-            session_postures(ws, session, model, table)
+            session_postures(ws, session, model, table, cleaned.get(session))
         except EthoscribeError as exc:
             problems[session] = str(exc)
     return problems

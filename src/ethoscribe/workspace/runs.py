@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import shutil
 import warnings
 from collections.abc import Iterator, Mapping, Sequence
@@ -153,6 +154,9 @@ def discover(
                 out, plan, cleaning, jobs, client, force, progress, causal
             )
         sample = _training_sample(prepared, table, fit_frames, seed)
+        # The fit's features of whole sessions, kept for labelling them in this process.
+        in_process = client is None and (default_jobs() if jobs is None else jobs) == 1
+        fitted_features: dict[str, list[FeatureSet]] = {}
 
         def fit() -> tuple[BehaviourModel, Any]:
             with ticking("fitting the model", progress):
@@ -164,11 +168,14 @@ def discover(
                     random_state=seed,
                     progress=progress,
                     causal=causal,
-                ).fit_cleaned(sample, quality)
+                )
+                feats = model.fit_transform_cleaned(sample, quality)
+            if in_process:
+                fitted_features.update(_whole_sessions(feats, table))
             report = None
             if stability and get_segmenter(method).stability:
                 with ticking("checking stability (refits)", progress):
-                    report = _stability(model, model.featurise_cleaned(sample), seed, progress)
+                    report = _stability(model, feats, seed, progress)
             return model, report
 
         # An unchanged rerun reuses the fit (same sample, parameters, seed and versions).
@@ -179,7 +186,10 @@ def discover(
         model, report, _ = fit_or_reuse(out, digest, fit, force)
         model.set_params(progress=progress)
         sample.clear()  # memory for the decoding that follows
-        decoded = _decode(out, prepared, model, jobs, client, force, progress)
+        decoded = _decode(
+            out, prepared, model, jobs, client, force, progress, fitted_features, table
+        )
+        fitted_features.clear()
         summary = _summary(model, table, seed, report)
         summary["fit_frames"] = fit_frames  # the sample's budget; n_training_frames its size
         summary["cleaning"] = cleaning_summary(cleaning, used, table)
@@ -189,7 +199,7 @@ def discover(
         ws = Workspace(out)
         write_ethogram_report(ws, out / "report.html", tables)
         with ticking("postures for the workbench", progress):
-            cache_postures(ws, model)  # the workbench opens on them
+            cache_postures(ws, model, _cleaned_loaders(prepared, table, causal))
         return ws
 
 
@@ -235,6 +245,22 @@ def _prepare(
     return infos, quality, sessions_table(rows), used
 
 
+def _cleaned_loaders(
+    prepared: Sequence[dict[str, Any]], table: pd.DataFrame, causal: bool
+) -> dict[str, Any]:
+    """Per session, a function loading the run's cleaned copy (postures are made from it
+    rather than from the source file read and cleaned again). Causal runs clean otherwise
+    than the postures do (from past frames only): none."""
+    if causal:
+        return {}
+    sessions = table["session"].astype(str)  # the sessions table, in ``prepared`` order
+    return {s: functools.partial(_load_tracks, i) for s, i in zip(sessions, prepared, strict=True)}
+
+
+def _load_tracks(info: dict[str, Any]) -> PoseTracks:
+    return load_prepared(info)[0]
+
+
 def _training_sample(
     prepared: Sequence[dict[str, Any]], table: pd.DataFrame, max_frames: int | None, seed: int
 ) -> list[PoseTracks]:
@@ -272,6 +298,18 @@ def _training_sample(
     return sample
 
 
+def _whole_sessions(
+    feats: Sequence[FeatureSet], table: pd.DataFrame
+) -> dict[str, list[FeatureSet]]:
+    """The feature sets of each session fitted whole (a training sample of blocks names its
+    pieces ``session [a:b]``, which match no session of ``table``)."""
+    by_session: dict[str, list[FeatureSet]] = {}
+    for f in feats:
+        by_session.setdefault(str(f.session), []).append(f)
+    names = set(table["session"].astype(str))
+    return {s: v for s, v in by_session.items() if s in names}
+
+
 def _decode(
     out: Path,
     prepared: Sequence[dict[str, Any]],
@@ -280,13 +318,23 @@ def _decode(
     client: Any,
     force: bool,
     progress: bool,
+    features: Mapping[str, list[FeatureSet]] | None = None,
+    table: pd.DataFrame | None = None,
 ) -> list[dict[str, Any]]:
-    """Features and labels of every session under ``model``, per session in parallel."""
+    """Features and labels of every session under ``model``, per session in parallel.
+
+    ``features``: feature sets already computed under ``model`` by session name (``table``,
+    the sessions table in ``prepared`` order, names them), used instead of computing them
+    again (in this process only: arrays are not sent to workers)."""
     folder, key = cache_model(model, out)
     work = [
         {"prepared": p, "model": folder, "model_key": key, "cache": str(out), "force": force}
         for p in prepared
     ]
+    if features and table is not None:
+        for job, session in zip(work, table["session"].astype(str), strict=True):
+            if session in features:
+                job["features"] = features[session]
     return map_sessions(
         decode_session, work, jobs=jobs, client=client, progress=progress, desc="labelling"
     )
@@ -344,7 +392,7 @@ def label_sessions(
         tables = carry_learned(source, ws, locked=True) or tables  # the expert's names
         write_ethogram_report(ws, out / "report.html", tables)
         with ticking("postures for the workbench", progress):
-            cache_postures(ws, model)  # the workbench opens on them
+            cache_postures(ws, model, _cleaned_loaders(prepared, table, bool(model.causal)))
         return ws
 
 
@@ -473,6 +521,12 @@ def _stability(
     Refits and comparisons use at most ``STABILITY_FRAMES`` of it (blocks from every session):
     short refits (the registry's ``stability_options``) on 30,000 frames (hundreds of bouts of
     every common behaviour) keep it a fixed cost of a few seconds (benchmarks/bench_speed.py).
+
+    Nothing is fitted twice: the first seed's labels are the model's own (so the table lists
+    the model's states, the motifs' states), and the split halves are the automatic state
+    count's two held-out fits of the chosen count when its folds were halves of the sessions
+    (the same design: sessions shuffled and dealt alternately into two halves, a quick fit on
+    each, every frame labelled by both). Only the other seeds are refitted.
     """
     X, lengths = stack_valid(feats)
     block = max(100, round(60 * model.fps_))
@@ -484,7 +538,19 @@ def _stability(
     def make(s: int) -> Any:
         return cls(**{**params, **quick, "random_state": s})
 
-    return stability_report(make, X, lengths, seeds=(seed, seed + 1, seed + 2), split_halves=True)
+    return stability_report(
+        make, X, lengths, seeds=(seed, seed + 1, seed + 2), split_halves=True,
+        reference=model.segmenter_, half_models=_count_halves(model),
+    )  # fmt: skip
+
+
+def _count_halves(model: BehaviourModel) -> tuple[Any, ...]:
+    """The automatic state count's two held-out fits of the chosen count, when its folds were
+    halves of the sessions (what the stability check's split halves are); else none."""
+    selection = getattr(model, "selection_", None)
+    if getattr(selection, "heldout", "") != "sessions":
+        return ()
+    return tuple(getattr(selection, "fold_models", {}).get(model.n_states_, ()))
 
 
 def _refuse_to_overwrite_curation(out: Path, allowed: bool) -> None:
