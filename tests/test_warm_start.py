@@ -101,3 +101,40 @@ def test_stability_with_a_given_reference_and_halves():
     np.testing.assert_allclose(report.table["occupancy"], share)
     with pytest.raises(InputError, match="half_models must be two"):
         stability_report(make, X, lengths, half_models=halves[:1])
+
+
+def test_other_restarts_are_the_losing_fits_as_models():
+    X, _, lengths = sample_sticky_hmm(seed=9, n_states=K, lengths=(500, 500))
+    model = GaussianHMM(K, n_restarts=3, random_state=2).fit(X, lengths)
+    others = model.other_restarts()
+    lls = np.sort(model.restart_log_likelihoods_)[::-1]
+    assert len(others) == 2
+    for other, ll in zip(others, lls[1:], strict=True):
+        # hmmlearn 0.3.3 scores the restart's parameters as its recorded log-likelihood
+        ref = ReferenceHMM(K, covariance_type="full", implementation="scaling", init_params="")
+        ref.startprob_, ref.transmat_ = other.startprob_, other.transmat_
+        ref.means_, ref.covars_ = other.means_, other.covars_
+        assert ref.score(X, lengths) / len(X) == pytest.approx(ll, abs=1e-9)
+        assert other.log_likelihood_ == pytest.approx(ll)
+    assert GaussianHMM.from_state(*model.to_state()).other_restarts() == []  # not saved
+
+
+def test_stability_uses_given_seed_fits_in_place_of_refits():
+    X, _, lengths = sample_sticky_hmm(seed=10, n_states=K, lengths=(400,) * 4)
+    final = GaussianHMM(K, n_restarts=2, random_state=5).fit(X, lengths)
+    [other] = final.other_restarts()
+    fitted = []
+
+    def make(seed):
+        fitted.append(seed)
+        return GaussianHMM(K, n_restarts=1, n_iter=30, random_state=seed)
+
+    report = stability_report(
+        make, X, lengths, seeds=(0, 1, 2), split_halves=False, reference=final,
+        seed_models=[other],
+    )  # fmt: skip
+    assert fitted == [2]
+    # scikit-learn's ARI between the model and its other restart
+    assert report.pairwise_ari.iloc[0, 1] == pytest.approx(
+        adjusted_rand_score(final.predict(X, lengths), other.predict(X, lengths))
+    )

@@ -69,6 +69,7 @@ def stability_report(
     n_jobs: int | None = None,
     reference: Any = None,
     half_models: Sequence[Any] = (),
+    seed_models: Sequence[Any] = (),
 ) -> StabilityReport:
     """Refit with several seeds (and on two halves of the sessions) and compare the labelings.
 
@@ -95,6 +96,10 @@ def stability_report(
         Models already fitted on two disjoint halves of the sessions (e.g. the two folds of
         the automatic state count's held-out fits of this count), used instead of refitting
         on two halves (with ``split_halves``).
+    seed_models : fitted segmenters, optional
+        Fits of all of ``X``'s data from other random starts (e.g. the restarts of the model
+        that lost to its best), used in place of the refits with ``seeds[1]``, ``seeds[2]``
+        ... (as many as given).
 
     Examples
     --------
@@ -117,6 +122,8 @@ def stability_report(
     work: list[Any] = [(s, None, None) for s in seeds] + [(seeds[0], i, n) for i, n in halves]
     if reference is not None:
         work[0] = reference
+    for i, given in enumerate(list(seed_models)[: len(seeds) - 1]):
+        work[1 + i] = given
     if split_halves and half_models:
         work[len(seeds) :] = half_models
     bar = tqdm(total=len(work), desc="stability fits", disable=not progress)

@@ -523,10 +523,12 @@ def _stability(
     every common behaviour) keep it a fixed cost of a few seconds (benchmarks/bench_speed.py).
 
     Nothing is fitted twice: the first seed's labels are the model's own (so the table lists
-    the model's states, the motifs' states), and the split halves are the automatic state
-    count's two held-out fits of the chosen count when its folds were halves of the sessions
-    (the same design: sessions shuffled and dealt alternately into two halves, a quick fit on
-    each, every frame labelled by both). Only the other seeds are refitted.
+    the model's states, the motifs' states); the second seed is the model's other restart (a
+    full fit of the same data from another random start: what a refit with another seed is,
+    with more effort), and the split halves are the automatic state count's two held-out fits
+    of the chosen count when its folds were halves of the sessions (the same design: sessions
+    shuffled and dealt alternately into two halves, a quick fit on each, every frame labelled
+    by both). Only the remaining seeds are refitted (one with the default two restarts).
     """
     X, lengths = stack_valid(feats)
     block = max(100, round(60 * model.fps_))
@@ -541,6 +543,7 @@ def _stability(
     return stability_report(
         make, X, lengths, seeds=(seed, seed + 1, seed + 2), split_halves=True,
         reference=model.segmenter_, half_models=_count_halves(model),
+        seed_models=getattr(model.segmenter_, "other_restarts", list)(),
     )  # fmt: skip
 
 
