@@ -484,3 +484,50 @@ def test_behaviour_model_fills_in_the_band_columns_as_phase_free():
     meta, arrays = model.to_state()
     again = BehaviourModel.from_state(json.loads(json.dumps(meta, allow_nan=False)), arrays)
     np.testing.assert_array_equal(again.label(tracks)["state"], labels["state"])
+
+
+def test_behaviour_model_join_phases_labels_the_joined_states(monkeypatch):
+    # The rule itself is checked above against scipy; here the plumbing of the option: which
+    # states the rule joins is fixed (fitted states 0 and 1), the labels must be the joined
+    # Viterbi path with the minimum bout applied after joining, and must survive saving.
+    import ethoscribe.segment.model as model_module
+    from ethoscribe.segment.model import BehaviourModel, stack_valid
+    from ethoscribe.segment.postprocess import enforce_min_bout
+    from ethoscribe.simulate import simulate_session
+
+    def fake_join(transmat, means, covars, columns, fps):
+        assert columns and fps == 30.0
+        groups = np.r_[0, np.arange(len(transmat) - 1)]
+        return groups, [{"states": (0, 1), "lift": 3.0, "distance": 0.2, "stay_s": (0.3, 0.4)}]
+
+    monkeypatch.setattr(model_module, "join_phases", fake_join)
+    tracks = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    kw = dict(n_states=4, segmenter={"n_restarts": 1, "n_iter": 30})
+    plain = BehaviourModel(join_phases=False, **kw).fit(tracks)
+    model = BehaviourModel(**kw).fit(tracks)  # join_phases=True: the default
+    assert plain.phase_groups_ is None and "fine_state" not in plain.label(tracks)
+    assert model.phase_groups_ == [0, 0, 1, 2] and model.n_states_ == 3
+    labels = model.label(tracks)
+    feats, _ = model.transform_features(tracks)
+    X, lengths = stack_valid(feats)
+    seg = model.segmenter_
+    fine, prob = seg.predict(X, lengths), seg.predict_proba(X, lengths)
+    g = np.array(model.phase_groups_)
+    onehot = np.eye(3)[g]
+    want = enforce_min_bout(g[fine], 15, lengths=lengths, probabilities=prob @ onehot)
+    np.testing.assert_array_equal(labels["state"].to_numpy(), want)
+    np.testing.assert_array_equal(labels["fine_state"].to_numpy(), fine)
+    assert len(model.state_tree_["fine_assignment"]) == 4
+    assert all(len(lv["assignment"]) == 3 for lv in model.state_tree_["levels"])
+    assert {m["states"] for m in model.suggested_merges(labels)} <= {
+        (a, b) for a in range(3) for b in range(a + 1, 3)
+    }
+    meta, arrays = model.to_state()
+    again = BehaviourModel.from_state(json.loads(json.dumps(meta, allow_nan=False)), arrays)
+    assert again.phase_groups_ == model.phase_groups_ and again.n_states_ == 3
+    np.testing.assert_array_equal(again.label(tracks)["state"], labels["state"])
+    meta["phase_groups"] = [0, 0, 0, 5]
+    with pytest.raises(InputError, match="phase_groups"):
+        BehaviourModel.from_state(meta, arrays)
+    with pytest.raises(InputError, match="join_phases"):
+        BehaviourModel(join_phases="yes").fit(tracks)

@@ -21,6 +21,11 @@ transition dynamics. This module finds those sets:
 :func:`merge_tree` records the order in which sets join as the number of sets falls (a tree
 the workbench can cut at any level), and :func:`suggested_merges` gives, for pairs of states,
 the evidence: how often they alternate and how similar their postures are.
+
+:func:`join_phases` is the narrower rule ``BehaviourModel`` applies by default: it joins only
+states that are phases of one rhythm (they alternate more than by chance, their band
+amplitudes cannot tell them apart, each is held at most half a cycle of the slowest band) and
+leaves every other state alone, so short behaviours exchanged as fast as phases stay apart.
 """
 
 from __future__ import annotations
