@@ -531,3 +531,27 @@ def test_behaviour_model_join_phases_labels_the_joined_states(monkeypatch):
         BehaviourModel.from_state(meta, arrays)
     with pytest.raises(InputError, match="join_phases"):
         BehaviourModel(join_phases="yes").fit(tracks)
+
+
+def test_stability_check_compares_the_labelled_states_when_phases_are_joined(monkeypatch):
+    # Refits and the model's own segmenter must label as the model does (phases joined), so the
+    # stability table lists the model's labelled states, the motifs' states.
+    import ethoscribe.segment.model as model_module
+    from ethoscribe.segment.model import BehaviourModel, PhaseJoined, labels_like_model
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.workspace.runs import _stability
+
+    def fake_join(transmat, means, covars, columns, fps):
+        groups = np.r_[0, np.arange(len(transmat) - 1)]
+        return groups, [{"states": (0, 1), "lift": 3.0, "distance": 0.2, "stay_s": (0.3, 0.4)}]
+
+    monkeypatch.setattr(model_module, "join_phases", fake_join)
+    tracks = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    model = BehaviourModel(n_states=4, segmenter={"n_restarts": 1, "n_iter": 30}).fit(tracks)
+    feats, _ = model.transform_features(tracks)
+    report = _stability(model, feats, seed=0, progress=False)
+    assert report.table["state"].tolist() == [0, 1, 2] and report.summary["n_states"] == 3
+    own = labels_like_model(model, model.segmenter_, own=True)
+    assert isinstance(own, PhaseJoined) and own.n_states_ == 3
+    plain = BehaviourModel(n_states=4, join_phases=False, segmenter={"n_restarts": 1}).fit(tracks)
+    assert labels_like_model(plain, plain.segmenter_, own=True) is plain.segmenter_

@@ -25,6 +25,7 @@ from ethoscribe.pose import PoseTracks, check_same_body_plan
 from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._model_meta import RESAVE, check_meta, known_keys
 from ethoscribe.segment.duration import OUTLIER_SHARE
+from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.inputs import check_fitted, split_by_lengths
 from ethoscribe.segment.lumping import (
     join_phases,
@@ -835,6 +836,56 @@ def _filtered(method: str, seg: Any, X: np.ndarray, lengths: np.ndarray) -> np.n
         out.extend(live.push(x) for x in X[start : start + n])
         start += n
     return np.asarray(out, dtype=np.float64).reshape(len(X), -1)
+
+
+class PhaseJoined:
+    """A segmenter labelling as ``BehaviourModel(join_phases=True)`` does: its fitted states
+    with phases of one rhythm joined (:func:`ethoscribe.segment.lumping.join_phases`), for refits
+    that must label like the model (the stability check). ``groups``: the joined state of every
+    fitted state, for a segmenter fitted already; otherwise found when :meth:`fit` runs."""
+
+    def __init__(self, segmenter: Any, steady: Sequence[int], groups: Sequence[int] | None = None):
+        self.segmenter = segmenter
+        self.steady = list(steady)
+        self.groups = None if groups is None else np.asarray(groups, dtype=np.int64)
+        if groups is None and hasattr(segmenter, "transmat_"):
+            self.groups = self._find()
+
+    def _find(self) -> np.ndarray | None:
+        seg = self.segmenter
+        groups, pairs = join_phases(
+            seg.transmat_, seg.means_, seg.covars_, self.steady, float(seg.fps)
+        )
+        return groups if pairs else None
+
+    def fit(self, X: np.ndarray, lengths: Any = None) -> PhaseJoined:
+        self.segmenter.fit(X, lengths)
+        self.groups = self._find()
+        return self
+
+    def predict(self, X: np.ndarray, lengths: Any = None) -> np.ndarray:
+        states = np.asarray(self.segmenter.predict(X, lengths), dtype=np.int64)
+        return states if self.groups is None else self.groups[states]
+
+    @property
+    def n_states_(self) -> int:
+        if self.groups is None:
+            return int(self.segmenter.n_states_)
+        return int(self.groups.max()) + 1
+
+
+def labels_like_model(model: BehaviourModel, segmenter: Any, own: bool = False) -> Any:
+    """``segmenter`` (fitted or not) labelling as ``model`` does: wrapped in
+    :class:`PhaseJoined` when the model joins phases, as it is otherwise. ``own``: it is the
+    model's own segmenter, whose joined states are the model's labelled states."""
+    steady = steady_columns(model.features_.columns_)
+    if own:
+        groups = getattr(model, "phase_groups_", None)
+        return segmenter if groups is None else PhaseJoined(segmenter, steady, groups)
+    causal = model.causal or bool((model.features or {}).get("causal"))
+    if not model.join_phases or causal or not isinstance(segmenter, GaussianHMM):
+        return segmenter
+    return PhaseJoined(segmenter, steady)
 
 
 def _joined_arrays(segmenter: Any, groups: Sequence[int]) -> tuple[np.ndarray, np.ndarray]:

@@ -20,7 +20,7 @@ from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, wri
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
 from ethoscribe.saved_state import header
-from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
+from ethoscribe.segment.model import BehaviourModel, labels_like_model, motif_name, stack_valid
 from ethoscribe.segment.registry import get_segmenter
 from ethoscribe.segment.sampling import representative_blocks, take_blocks
 from ethoscribe.segment.stability import stability_report
@@ -538,12 +538,16 @@ def _stability(
     cls = type(model.segmenter_)
 
     def make(s: int) -> Any:
-        return cls(**{**params, **quick, "random_state": s})
+        # every refit labels as the model does (phases of one rhythm joined, when it joins)
+        return labels_like_model(model, cls(**{**params, **quick, "random_state": s}))
 
+    halves = tuple(labels_like_model(model, m) for m in _count_halves(model))
+    others = getattr(model.segmenter_, "other_restarts", list)()
+    restarts = [labels_like_model(model, m) for m in others]
     return stability_report(
         make, X, lengths, seeds=(seed, seed + 1, seed + 2), split_halves=True,
-        reference=model.segmenter_, half_models=_count_halves(model),
-        seed_models=getattr(model.segmenter_, "other_restarts", list)(),
+        reference=labels_like_model(model, model.segmenter_, own=True), half_models=halves,
+        seed_models=restarts,
     )  # fmt: skip
 
 
@@ -553,7 +557,8 @@ def _count_halves(model: BehaviourModel) -> tuple[Any, ...]:
     selection = getattr(model, "selection_", None)
     if getattr(selection, "heldout", "") != "sessions":
         return ()
-    return tuple(getattr(selection, "fold_models", {}).get(model.n_states_, ()))
+    # the fitted count: with phases joined the model labels fewer states than it fitted
+    return tuple(getattr(selection, "fold_models", {}).get(int(model.segmenter_.n_states_), ()))
 
 
 def _refuse_to_overwrite_curation(out: Path, allowed: bool) -> None:
