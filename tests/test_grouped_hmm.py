@@ -13,6 +13,7 @@ from __future__ import annotations
 import json
 
 import numpy as np
+import pandas as pd
 import pytest
 import scipy.linalg
 from sklearn.metrics import adjusted_rand_score
@@ -555,3 +556,36 @@ def test_stability_check_compares_the_labelled_states_when_phases_are_joined(mon
     assert isinstance(own, PhaseJoined) and own.n_states_ == 3
     plain = BehaviourModel(n_states=4, join_phases=False, segmenter={"n_restarts": 1}).fit(tracks)
     assert labels_like_model(plain, plain.segmenter_, own=True) is plain.segmenter_
+
+
+def test_discover_with_joined_phases_saves_reloads_and_labels_new_sessions(tmp_path, monkeypatch):
+    # Which states join is fixed (fitted 0 and 1); the workspace must keep the labelled states
+    # (model file, stability table, labelling new sessions) consistent.
+    import ethoscribe.segment.model as model_module
+    from _example_study import trimmed_study
+    from ethoscribe.workspace import discover, label_sessions
+    from ethoscribe.workspace.files import load_model
+
+    def fake_join(transmat, means, covars, columns, fps):
+        groups = np.r_[0, np.arange(len(transmat) - 1)]
+        return groups, [{"states": (0, 1), "lift": 3.0, "distance": 0.2, "stay_s": (0.3, 0.4)}]
+
+    monkeypatch.setattr(model_module, "join_phases", fake_join)
+    (tmp_path / "study").mkdir()
+    study = trimmed_study(tmp_path / "study", ["session_01", "session_09"], 1800)
+    ws = discover(
+        [study], tmp_path / "ws", manifest=study / "manifest.csv", states=4, stability=True,
+        progress=False,
+    )  # fmt: skip
+    summary = ws.summary
+    assert summary["n_states"] == 3 and summary["state_tree"]["fine_assignment"] == [0, 0, 1, 2]
+    labels = ws.state_labels()
+    assert labels["state"].max() == 2 and labels["fine_state"].max() == 3
+    assert pd.read_csv(ws.path / "stability.csv")["state"].tolist() == [0, 1, 2]
+    model = load_model(ws.path / "model")
+    assert model.n_states_ == 3 and model.phase_groups_ == [0, 0, 1, 2]
+    new = label_sessions(
+        ws.path, [study / "session_09.parquet"], tmp_path / "new", manifest=study / "manifest.csv",
+        progress=False,
+    )  # fmt: skip
+    assert new.state_labels()["motif"].isin(labels["motif"]).all()

@@ -252,6 +252,9 @@ def load_model(folder: Path) -> BehaviourModel:
         )
         raise InputError(msg) from None
     n_seg = getattr(model.segmenter_, "n_states_", model.n_states_)
+    groups = getattr(model, "phase_groups_", None)
+    if groups is not None:  # phases of one rhythm joined: fewer labelled states than fitted
+        n_seg = max(groups) + 1
     if model.n_states_ != n_seg or not 1 <= model.n_states_ <= MAX_STATES:
         msg = (
             f"{folder / 'model.json'}: n_states is {model.n_states_!r} but the segmenter has "
