@@ -589,3 +589,24 @@ def test_discover_with_joined_phases_saves_reloads_and_labels_new_sessions(tmp_p
         progress=False,
     )  # fmt: skip
     assert new.state_labels()["motif"].isin(labels["motif"]).all()
+
+
+def test_expert_classifier_inputs_keep_every_fitted_state_when_phases_are_joined(monkeypatch):
+    import ethoscribe.segment.model as model_module
+    from ethoscribe.segment.model import BehaviourModel
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.workspace.expert import classifier_inputs
+
+    def fake_join(transmat, means, covars, columns, fps):
+        groups = np.r_[0, np.arange(len(transmat) - 1)]
+        return groups, [{"states": (0, 1), "lift": 3.0, "distance": 0.2, "stay_s": (0.3, 0.4)}]
+
+    monkeypatch.setattr(model_module, "join_phases", fake_join)
+    tracks = [simulate_session(duration_s=40, seed=3, session="s3")[0]]
+    model = BehaviourModel(n_states=4, segmenter={"n_restarts": 1, "n_iter": 20}).fit(tracks)
+    feats, _ = model.transform_features(tracks)
+    [inputs] = classifier_inputs(model, feats)
+    assert model.n_states_ == 3
+    assert inputs.shape == (len(feats[0].valid), feats[0].values.shape[1] + 4)
+    valid = feats[0].valid
+    np.testing.assert_allclose(inputs[valid, -4:].sum(1), 1.0, atol=1e-9)  # posteriors

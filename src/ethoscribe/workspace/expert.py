@@ -157,15 +157,16 @@ def recording_features(ws: Workspace) -> list[FeatureSet]:
 def classifier_inputs(model: BehaviourModel, feats: Sequence[FeatureSet]) -> list[np.ndarray]:
     """Per recording: the model's features, then the HMM's state posteriors (NaN where invalid).
 
-    Returns one array ``(frames, n_features + n_states)`` per feature set (the posterior block
-    is absent when the model's segmenter is not an HMM).
+    Returns one array ``(frames, n_features + n_fitted_states)`` per feature set (the posterior
+    block is absent when the model's segmenter is not an HMM).
     """
     seg = model.segmenter_
     out = []
     for f in feats:
         blocks = [np.asarray(f.values, dtype=np.float64)]
         if isinstance(seg, GaussianHMM):
-            post = np.full((len(f.valid), model.n_states_), np.nan)
+            # every fitted state's posterior (phases of one rhythm, when joined, stay apart)
+            post = np.full((len(f.valid), int(seg.n_states_)), np.nan)
             if f.valid.any():
                 post[f.valid] = seg.predict_proba(f.values[f.valid], [int(f.valid.sum())])
             blocks.append(post)
