@@ -235,8 +235,8 @@ class KeypointFiller(BaseEstimator):
         if not arrays or any(a.ndim != 3 for a in arrays):
             raise InputError("KeypointFiller.fit needs arrays of shape (frames, keypoints, dims)")
         k, d = arrays[0].shape[1:]
-        usable = [a[self._usable(a)] for a in arrays]
-        total = sum(len(a) for a in usable)
+        usable = [np.flatnonzero(self._usable(a)) for a in arrays]  # frame indices
+        total = sum(len(i) for i in usable)
         if total < 3:
             msg = (
                 f"KeypointFiller: only {total} frame(s) show at least {self.min_body_seen:.0%} "
@@ -244,7 +244,12 @@ class KeypointFiller(BaseEstimator):
             )
             raise InputError(msg)
         step = max(1, total // self.max_frames)
-        X = np.concatenate(usable)[::step]
+        # Every step-th usable frame of all arrays in a row, taken without copying the rest:
+        # array j's share starts at the first multiple of step at or after its offset.
+        offsets = np.cumsum([0] + [len(i) for i in usable[:-1]])
+        X = np.concatenate(
+            [a[i[(-off) % step :: step]] for a, i, off in zip(arrays, usable, offsets, strict=True)]
+        )
         complete = np.isfinite(X).all((1, 2))
         start = X[complete] if complete.sum() >= 3 else X
         shape = np.nanmean(start - np.nanmean(start, axis=1, keepdims=True), axis=0)
