@@ -100,10 +100,28 @@ def test_windowed_posture_is_scipys_low_pass_of_the_components():
     assert level.values[inner, k].std() < 0.1 * raw.std()
 
 
+def test_band_window_averages_the_band_power_as_scipys_butterworth():
+    tracks = swaying(3.0, 30.0, 4, n_s=40.0)
+    kw = {"origin": "mid", "axis": ("tail_base", "mid"), "n_components": 2, "standardise": False}
+    plain = FeaturePipeline(**kw).fit([tracks])
+    windowed = FeaturePipeline(band_window_s=2.0, **kw).fit([tracks])
+    assert windowed.columns_[-1].endswith("_mean_2s") and "_band_" in windowed.columns_[-1]
+    j = len(plain.columns_) - 1
+    col, wcol = plain.transform(tracks)[0].values[:, j], windowed.transform(tracks)[0].values[:, j]
+    # undo log(sqrt(power) + offset) of each pipeline: the band power before and after
+    power = (np.exp(col) - plain.log_offset_[j]) ** 2
+    got = (np.exp(wcol) - windowed.log_offset_[j]) ** 2
+    sos = sps.butter(2, 0.443 / 2.0, "lowpass", fs=30.0, output="sos")  # scipy reference
+    pad = min(len(power) - 1, int(2 * 30 / (0.443 / 2.0)))  # as the posture window test
+    expected = np.maximum(sps.sosfiltfilt(sos, power, padlen=pad), 0)
+    np.testing.assert_allclose(got, expected, rtol=1e-6, atol=1e-9)
+
+
 @pytest.mark.parametrize(
     "options",
     [
         {"posture_window_s": 0.5, "speed_window_s": 2.0},
+        {"band_window_s": 2.0},
         {"vertical": "separate"},
         {"scale_by_size": True},
     ],

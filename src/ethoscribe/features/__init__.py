@@ -27,7 +27,8 @@ every keypoint), with two more columns::
 and the centroid speed is horizontal (``vertical="posture"`` keeps heights in the posture).
 Options (off by default): ``posture_window_s`` / ``speed_window_s`` replace the posture
 components / speeds by their average over about that many seconds (``..._mean_<w>s``: one
-level for every phase of a rhythm); ``scale_by_size=True`` brings every animal's posture to
+level for every phase of a rhythm); ``band_window_s`` averages the band powers over about
+that many seconds as well; ``scale_by_size=True`` brings every animal's posture to
 the typical body size (individuals of several sizes share one posture space).
 benchmarks/README.md has the validation bench with each option.
 

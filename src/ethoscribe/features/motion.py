@@ -41,11 +41,13 @@ class _Motion:
         w_std = max(1, round(pipe.variability_window_s * fps))
         vw, freqs = pipe.velocity_window_s, tuple(pipe.frequencies_)
         # Windowed means (compact set): a low-pass at the -3 dB point of a w-second average.
-        self.posture_mean = self.speed_mean = None
+        self.posture_mean = self.speed_mean = self.band_mean = None
         n_speeds = 4 if pipe._separate_heights else 3
-        for name, channels in (("posture", pipe.n_components_), ("speed", n_speeds)):
-            w = getattr(pipe, f"{name}_window_s")
-            if not compact or w is None:
+        n_bands = len(freqs) if bc else 0
+        windows = (("posture", pipe.n_components_), ("speed", n_speeds), ("band", n_bands))
+        for name, channels in windows:
+            w = getattr(pipe, f"{name}_window_s", None)
+            if not compact or w is None or not channels:
                 continue
             cut = MOVING_AVERAGE_CUTOFF / float(w)
             if pipe.causal:
@@ -116,7 +118,10 @@ class _Motion:
                 put(centroid[:, up] - p.height_floor_)
             if self.bands is not None:  # amplitude of the whole posture in each band
                 power = self.bands(pcs[:, :bc])
-                put(np.sqrt(power.sum(axis=1) if power.shape[1] > 1 else power[:, 0]))
+                power = power.sum(axis=1) if power.shape[1] > 1 else power[:, 0]
+                if self.band_mean is not None:  # averaged over the bout-scale window too
+                    power = np.maximum(self.band_mean(power), 0.0)
+                put(np.sqrt(power))
         else:
             speed = np.linalg.norm(rates[:, :d], axis=1)
             self._detailed(put, rates, speed, (centroid, heading, ego), pcs)

@@ -135,6 +135,12 @@ class FeaturePipeline(BaseEstimator):
         Compact set: the speeds (centroid, turning, posture; and vertical) averaged the same
         way before their logarithm (``..._mean_<w>s``), so a speed that rises and falls within
         every cycle of a gait is one level. None (default): instantaneous.
+    band_window_s : float, optional
+        Compact set: the band powers averaged over about this many seconds as well (the same
+        low-pass as ``speed_window_s``, after their own smoothing over about two cycles of each
+        band; ``log_posture_band_<f>hz_mean_<w>s``), so a rhythm's amplitude is one level over a
+        bout instead of fluctuating from one estimate of two cycles to the next. None
+        (default): two cycles of each band only.
     vertical : {"separate", "posture"}
         3-D only. "separate" (default): postures come from the shape (the centroid's height
         removed from every keypoint), and the height of the body centroid above its floor (the
@@ -199,6 +205,7 @@ class FeaturePipeline(BaseEstimator):
         variability_window_s: float = 0.5,
         posture_window_s: float | None = None,
         speed_window_s: float | None = None,
+        band_window_s: float | None = None,
         vertical: str = "separate",
         scale_by_size: bool = False,
         social: bool = True,
@@ -217,6 +224,7 @@ class FeaturePipeline(BaseEstimator):
         self.variability_window_s = variability_window_s
         self.posture_window_s = posture_window_s
         self.speed_window_s = speed_window_s
+        self.band_window_s = band_window_s
         self.vertical = vertical
         self.scale_by_size = scale_by_size
         self.social = social
@@ -300,11 +308,12 @@ class FeaturePipeline(BaseEstimator):
                 continue
             if isinstance(v, bool) or not isinstance(v, int | float) or not 0 < v < np.inf:
                 bad.append(f"{name} must be a positive number of seconds; got {v!r}")
-        v = self.speed_window_s
-        if v is not None and (
-            isinstance(v, bool) or not isinstance(v, int | float) or not 0 < v < np.inf
-        ):
-            bad.append(f"speed_window_s must be a positive number of seconds or None; got {v!r}")
+        for name in ("speed_window_s", "band_window_s"):
+            v = getattr(self, name)
+            if v is not None and (
+                isinstance(v, bool) or not isinstance(v, int | float) or not 0 < v < np.inf
+            ):
+                bad.append(f"{name} must be a positive number of seconds or None; got {v!r}")
         for name in ("social", "causal", "standardise", "scale_by_size"):
             if not isinstance(getattr(self, name), bool | np.bool_):
                 bad.append(f"{name} must be True or False; got {getattr(self, name)!r}")
@@ -413,7 +422,7 @@ class FeaturePipeline(BaseEstimator):
                 "rate of the fitted sessions; refit on sessions at this rate)"
             )
         _check_rate(self.frequencies_, fps, where)
-        for name in ("posture_window_s", "speed_window_s"):
+        for name in ("posture_window_s", "speed_window_s", "band_window_s"):
             w = getattr(self, name)
             if w is not None and MOVING_AVERAGE_CUTOFF / w >= fps / 2:
                 msg = (
@@ -617,7 +626,9 @@ class FeaturePipeline(BaseEstimator):
             cols += [f"{c}{smean}" for c in speeds]
             if self._separate_heights:
                 cols += [f"height_{u}"]
-            cols += [f"log_posture_band_{b}" for b in bands]
+            bw = self.band_window_s
+            bmean = f"_mean_{float(bw):g}s" if bw is not None else ""
+            cols += [f"log_posture_band_{b}{bmean}" for b in bands]
         else:
             lead = pcs[: self._band_components]
             cols = [*pcs, f"centroid_speed_{us}", f"forward_velocity_{us}"]

@@ -45,6 +45,7 @@ _FITTED_META = (
 _ADDED_PARAMS = {
     "posture_window_s": None,
     "speed_window_s": None,
+    "band_window_s": None,
     "vertical": "posture",
     "scale_by_size": False,
 }
