@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from ethoscribe.errors import InputError
@@ -147,3 +148,25 @@ def test_model_takes_the_rule_and_held_out_units_as_state_count_options():
     BehaviourModel(state_count_options={"rule": "kneedle", "heldout": "blocks"})._check_params()
     with pytest.raises(InputError, match="state_count_options"):
         BehaviourModel(state_count_options={"criterion": "bic"})._check_params()
+
+
+def test_reason_says_when_the_held_out_curve_only_falls():
+    # hand-made per-unit log-likelihoods for K = 3, 4, 5 (2 units of 100 frames) that fall with
+    # every added state, as on the simulated pairs: the elbow has nothing to read, and the
+    # reason says the smallest count was kept because no larger one fitted better
+    from ethoscribe.segment.select import _reason
+
+    n = np.full(2, 100)
+    ll = np.array([[-3500.0, -3600.0], [-3700.0, -3650.0], [-4300.0, -4400.0]])
+    chosen = _choose(ll, n, [3, 4, 5], "elbow")
+    assert chosen["best"] == 3
+    table = pd.DataFrame(
+        {
+            "n_states": [3, 4, 5],
+            "heldout_ll_per_frame": chosen["curve"],
+            "heldout_gain": chosen["gain"],
+        }
+    )
+    text = _reason(table, 3, "elbow", 2, (6, 7))
+    assert text.startswith("3 states: the smallest candidate") and "falls" in text
+    assert "after the best fit already fitted less well" in text

@@ -468,7 +468,15 @@ def _reason(
     table: pd.DataFrame, best: int, rule: str, stop_after: int | None, not_needed: tuple
 ) -> str:
     """One sentence saying why ``best`` was chosen (shown beside the curve)."""
-    if rule == "one_se":
+    curve = table.set_index("n_states")["heldout_ll_per_frame"].dropna()
+    falls = rule != "one_se" and len(curve) > 1 and curve.idxmax() == curve.index[0] == best
+    if falls:
+        # No larger count fitted the held-out units better: there was no elbow or knee to read.
+        text = (
+            f"{best} states: the smallest candidate, as no larger count fitted the held-out data "
+            "better (the held-out curve falls from its first point)"
+        )
+    elif rule == "one_se":
         text = f"{best} states: the fewest within one standard error of the best held-out fit"
     elif rule == "kneedle":
         text = (
@@ -486,8 +494,9 @@ def _reason(
                 f"gain per state, below {100 * ELBOW_FRACTION:.0f} %)"
             )
     if not_needed:
-        after = "fitted less well than the best" if rule == "kneedle" else "added less than that"
-        where = "the best fit" if rule == "kneedle" else "the elbow"
+        kneedle_or_falls = rule == "kneedle" or falls
+        after = "fitted less well than the best" if kneedle_or_falls else "added less than that"
+        where = "the best fit" if kneedle_or_falls else "the elbow"
         text += (
             f"; {', '.join(map(str, not_needed))} not fitted: the {stop_after} candidates after "
             f"{where} already {after}"
