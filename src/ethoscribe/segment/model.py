@@ -398,7 +398,9 @@ class BehaviourModel(BaseEstimator):
             self.n_states_ = max(self.phase_groups_) + 1
             self.state_tree_ = _phase_tree(segmenter, self.phase_groups_, fps_value)
             if selection is not None:
-                joined = ", ".join(f"{a}+{b}" for a, b in (p["states"] for p in self.phase_pairs_))
+                pairs = [p["states"] for p in self.phase_pairs_]
+                groups = self.phase_groups_
+                joined = ", ".join(f"fitted {a}+{b} as {groups[a]}" for a, b in pairs)
                 self.selection_ = replace(
                     selection,
                     reason=f"{selection.reason}; {self.n_states_} states labelled: phases of one "
