@@ -256,10 +256,13 @@ def _g(v: float) -> str:
 
 
 def shown_tests(rows: pd.DataFrame) -> pd.DataFrame:
-    """Test rows as a compact table for the page (group_stats.csv keeps every column)."""
+    """Test rows as a compact table for the page (group_stats.csv keeps every column).
+
+    The family is left out: the metric names it, and it would push the adjusted p off a
+    laptop-width page.
+    """
     return pd.DataFrame(
         {
-            "family": rows["family"],
             "metric": rows["metric"],
             "motif": rows["motif"].astype(str),
             "a vs b": rows["group_a"] + " vs " + rows["group_b"],
