@@ -1,5 +1,6 @@
-"""Reuse of the automatic state count's fits: the final fit started from them, and the
-stability check's split halves taken from them."""
+"""Reuse of fitted models: the final fit started from the automatic state count's fits (an
+option), the losing restarts of a fit as models, and a stability report comparing models it is
+given (discover's own check refits instead: see test_discover_reuse)."""
 
 from __future__ import annotations
 
@@ -122,7 +123,7 @@ def test_other_restarts_are_the_losing_fits_as_models():
 def test_stability_uses_given_seed_fits_in_place_of_refits():
     X, _, lengths = sample_sticky_hmm(seed=10, n_states=K, lengths=(400,) * 4)
     final = GaussianHMM(K, n_restarts=2, random_state=5).fit(X, lengths)
-    [other] = final.other_restarts()
+    other = GaussianHMM(K, n_restarts=2, random_state=6).fit(X, lengths)  # another seed's fit
     fitted = []
 
     def make(seed):
@@ -134,7 +135,28 @@ def test_stability_uses_given_seed_fits_in_place_of_refits():
         seed_models=[other],
     )  # fmt: skip
     assert fitted == [2]
-    # scikit-learn's ARI between the model and its other restart
+    # scikit-learn's ARI between the model and the other seed's fit
     assert report.pairwise_ari.iloc[0, 1] == pytest.approx(
         adjusted_rand_score(final.predict(X, lengths), other.predict(X, lengths))
     )
+
+
+def test_stability_refits_on_the_given_frames_and_compares_on_the_sample():
+    X_fit, _, len_fit = sample_sticky_hmm(seed=11, n_states=K, lengths=(300,) * 6)
+    X, lengths = X_fit[::2], np.full(6, 150)  # the comparison's sample: every other frame
+
+    def make(seed):
+        return GaussianHMM(K, n_restarts=1, n_iter=30, random_state=seed)
+
+    report = stability_report(make, X, lengths, seeds=(0, 1), fit_on=(X_fit, len_fit))
+    full = [make(s).fit(X_fit, len_fit).predict(X, lengths) for s in (0, 1)]
+    order = np.random.default_rng(0).permutation(6)  # sessions shuffled with the first seed
+    halves = []
+    for part in (np.sort(order[0::2]), np.sort(order[1::2])):
+        rows = np.concatenate([np.arange(300 * s, 300 * s + 300) for s in part])
+        halves.append(make(0).fit(X_fit[rows], len_fit[part]).predict(X, lengths))
+    # scikit-learn's ARI of the refits' labels of the sample
+    assert report.pairwise_ari.iloc[0, 1] == pytest.approx(adjusted_rand_score(*full))
+    assert report.summary["ari_halves"] == pytest.approx(adjusted_rand_score(*halves))
+    with pytest.raises(InputError, match="fit_on has 1 features"):
+        stability_report(make, X, lengths, fit_on=(X_fit[:, :1], len_fit))

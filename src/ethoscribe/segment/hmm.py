@@ -310,8 +310,7 @@ class GaussianHMM(BaseEstimator):
         self.n_features_in_ = X.shape[1]
         self.log_likelihood_ = float(best["log_likelihood"])
         self.restart_log_likelihoods_ = lls
-        # Every restart's parameters, for this session only (not saved): the stability check
-        # compares the best restart with the others (see other_restarts).
+        # Every restart's parameters, for this session only (not saved; see other_restarts).
         self._restarts = [{**res, "means": res["means"] + offset} for res in results]
         self.n_iter_ = int(best["n_iter"])
         self.converged_ = bool(best["converged"])
@@ -324,8 +323,11 @@ class GaussianHMM(BaseEstimator):
         """The restarts of the last fit that lost to the best one, as fitted models (best
         first); empty for a model loaded from a file (they are not saved).
 
-        They are fits of the same data from other random starts: how well they agree with the
-        model tells how reproducible its states are (the stability check uses them).
+        They are fits of the same data from other random starts, but selected for losing: they
+        sit in poorer optima more often than another seed's best fit does, so their agreement
+        with the model understates how reproducible its states are (the stability check refits
+        with another seed instead; benchmarks/README.md, "Is the stability check a fair
+        measurement?").
         """
         check_fitted(self, "means_")
         runs = getattr(self, "_restarts", [])

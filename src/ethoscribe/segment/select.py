@@ -101,8 +101,9 @@ class StateCountSelection:
     not_needed: tuple[int, ...] = ()
     reason: str = ""
     # The two folds' fitted models of every fitted candidate (held-out path only), kept so that
-    # the final fit can start from them and the stability check can reuse them as its split
-    # halves. Not saved: ``selection_to_json`` writes the table and the choice only.
+    # the final fit can start from them (state_count_options warm_start). Quick fits: not the
+    # stability check's split halves (they agree less than full fits of the halves). Not
+    # saved: ``selection_to_json`` writes the table and the choice only.
     fold_models: Mapping[int, tuple[Any, Any]] = field(
         default_factory=dict, repr=False, compare=False
     )

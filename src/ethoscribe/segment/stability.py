@@ -70,6 +70,7 @@ def stability_report(
     reference: Any = None,
     half_models: Sequence[Any] = (),
     seed_models: Sequence[Any] = (),
+    fit_on: tuple[np.ndarray, Sequence[int] | np.ndarray] | None = None,
 ) -> StabilityReport:
     """Refit with several seeds (and on two halves of the sessions) and compare the labelings.
 
@@ -93,13 +94,22 @@ def stability_report(
         Used as the first seed's fit instead of a refit (e.g. the model being checked, so the
         table lists its own states).
     half_models : two fitted segmenters, optional
-        Models already fitted on two disjoint halves of the sessions (e.g. the two folds of
-        the automatic state count's held-out fits of this count), used instead of refitting
-        on two halves (with ``split_halves``).
+        Models already fitted on two disjoint halves of the sessions, used instead of
+        refitting on two halves (with ``split_halves``). Fit them as the reference was: the
+        automatic state count's quick fold fits (one restart, 25 iterations, 10,000 frames)
+        agree less than full fits of the same halves (benchmarks/README.md, "Is the stability
+        check a fair measurement?").
     seed_models : fitted segmenters, optional
-        Fits of all of ``X``'s data from other random starts (e.g. the restarts of the model
-        that lost to its best), used in place of the refits with ``seeds[1]``, ``seeds[2]``
-        ... (as many as given).
+        Fits of all of the data with other seeds, used in place of the refits with
+        ``seeds[1]``, ``seeds[2]`` ... (as many as given). They should be fitted as the
+        reference was, each the best of its own restarts: a restart that lost to the
+        reference's best (``GaussianHMM.other_restarts``) is not another seed's fit but one
+        selected for a poorer optimum, and it agrees less (benchmarks/README.md, "Is the
+        stability check a fair measurement?").
+    fit_on : (X_fit, lengths_fit), optional
+        The frames the refits are fitted on (e.g. every training frame of the model, of which
+        ``X`` is a sample for the comparisons); the split halves are then halves of these
+        sessions. Default: ``X`` and ``lengths``.
 
     Examples
     --------
@@ -118,7 +128,13 @@ def stability_report(
     half_models = list(half_models)
     if half_models and len(half_models) != 2:
         raise InputError(f"half_models must be two fitted models; got {len(half_models)}")
-    halves = list(_halves(lengths, np.random.default_rng(seeds[0]))) if split_halves else []
+    fit_X, fit_lengths = (X, lengths) if fit_on is None else check_X_lengths(*fit_on)
+    if fit_X.shape[1] != X.shape[1]:
+        raise InputError(
+            f"fit_on has {fit_X.shape[1]} features but X has {X.shape[1]}; pass the same columns"
+        )
+    rng = np.random.default_rng(seeds[0])
+    halves = list(_halves(fit_lengths, rng)) if split_halves else []
     work: list[Any] = [(s, None, None) for s in seeds] + [(seeds[0], i, n) for i, n in halves]
     if reference is not None:
         work[0] = reference
@@ -132,7 +148,10 @@ def stability_report(
         if isinstance(job, tuple):
             seed, idx, sub_lengths = job
             model = make_model(seed)
-            model = model.fit(X, lengths) if idx is None else model.fit(X[idx], sub_lengths)
+            if idx is None:
+                model = model.fit(fit_X, fit_lengths)
+            else:
+                model = model.fit(fit_X[idx], sub_lengths)
         else:  # a model fitted already: it only labels
             model = job
         bar.update(1)
