@@ -610,3 +610,82 @@ def test_expert_classifier_inputs_keep_every_fitted_state_when_phases_are_joined
     assert inputs.shape == (len(feats[0].valid), feats[0].values.shape[1] + 4)
     valid = feats[0].valid
     np.testing.assert_allclose(inputs[valid, -4:].sum(1), 1.0, atol=1e-9)  # posteriors
+
+
+def test_unit_shares_match_pandas_groupby_sums():
+    from ethoscribe.segment.lumping import unit_shares
+
+    rng = np.random.default_rng(8)
+    lengths = [40, 25, 35]
+    posterior = rng.dirichlet(np.ones(4), size=sum(lengths))
+    posterior[:, 3] = 0.0  # a state with no frame: a row of zeros, not NaN
+    share = unit_shares(posterior, lengths)
+    # reference: pandas, the expected frames of each state summed per unit, over the state's total
+    unit = np.repeat(np.arange(3), lengths)
+    sums = pd.DataFrame(posterior).groupby(unit).sum().T.to_numpy()
+    want = sums / np.where(sums.sum(1, keepdims=True) > 0, sums.sum(1, keepdims=True), 1.0)
+    np.testing.assert_allclose(share, want, atol=1e-12)
+    assert share[3].tolist() == [0.0, 0.0, 0.0]
+
+
+def test_behaviour_model_join_units_labels_the_joined_states(monkeypatch):
+    # The rule (join_across_units) is checked above against scikit-learn; here the plumbing of
+    # BehaviourModel(join_units=True): which states it joins is fixed (fitted 0 and 2), composed
+    # with the phase join (fitted 0 and 1) through the same phase_groups_ / fine_state labels.
+    import ethoscribe.segment.model as model_module
+    from ethoscribe.segment.lumping import unit_overlap
+    from ethoscribe.segment.model import BehaviourModel, PhaseJoined, labels_like_model, stack_valid
+    from ethoscribe.segment.postprocess import enforce_min_bout
+    from ethoscribe.simulate import simulate_session
+
+    seen = {}
+
+    def fake_units(means, share, max_overlap=0.5, mutual=True):
+        seen["share"] = share
+        assert mutual and share.shape == (len(means), 2)  # two sessions: two units
+        np.testing.assert_allclose(share.sum(1), 1.0)
+        groups = np.r_[0, 1, 0, np.arange(2, len(means) - 1)]
+        return groups, [(0, 2)]
+
+    def fake_phases(transmat, means, covars, columns, fps):
+        groups = np.r_[0, np.arange(len(transmat) - 1)]
+        return groups, [{"states": (0, 1), "lift": 3.0, "distance": 0.2, "stay_s": (0.3, 0.4)}]
+
+    monkeypatch.setattr(model_module, "join_across_units", fake_units)
+    tracks = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    kw = dict(n_states=4, segmenter={"n_restarts": 1, "n_iter": 30})
+    units = BehaviourModel(join_phases=False, join_units=True, **kw).fit(tracks)
+    assert units.phase_groups_ == [0, 1, 0, 2] and units.n_states_ == 3
+    assert units.phase_pairs_ == [] and [p["states"] for p in units.unit_pairs_] == [[0, 2]]
+    overlap = unit_overlap(seen["share"])[0, 2]
+    assert units.unit_pairs_[0]["overlap"] == pytest.approx(overlap)
+    assert "different units" in units.state_tree_["fine_reason"]
+    labels = units.label(tracks)
+    feats, _ = units.transform_features(tracks)
+    X, lengths = stack_valid(feats)
+    seg = units.segmenter_
+    fine, prob = seg.predict(X, lengths), seg.predict_proba(X, lengths)
+    g = np.array(units.phase_groups_)
+    want = enforce_min_bout(g[fine], 15, lengths=lengths, probabilities=prob @ np.eye(3)[g])
+    np.testing.assert_array_equal(labels["state"].to_numpy(), want)
+    np.testing.assert_array_equal(labels["fine_state"].to_numpy(), fine)
+    meta, arrays = units.to_state()
+    again = BehaviourModel.from_state(json.loads(json.dumps(meta, allow_nan=False)), arrays)
+    assert again.phase_groups_ == units.phase_groups_ and again.unit_pairs_ == units.unit_pairs_
+    assert again.join_units is True
+    np.testing.assert_array_equal(again.label(tracks)["state"], labels["state"])
+    # refits for the stability check join across units too (they see the units when fitted)
+    refit = labels_like_model(units, type(seg)(n_states=4, fps=30.0, n_restarts=1, n_iter=30))
+    assert isinstance(refit, PhaseJoined) and refit.fit(X, lengths).n_states_ == 3
+    # composed with the phase join: 0+1 (phases) and 0+2 (units) are one labelled state
+    monkeypatch.setattr(model_module, "join_phases", fake_phases)
+    both = BehaviourModel(join_units=True, **kw).fit(tracks)
+    assert both.phase_groups_ == [0, 0, 0, 1] and both.n_states_ == 2
+    assert "phases of one rhythm" in both.state_tree_["fine_reason"]
+    assert "different units" in both.state_tree_["fine_reason"]
+    # one unit: nothing to join across (the real rule)
+    monkeypatch.undo()
+    one = BehaviourModel(join_phases=False, join_units=True, **kw).fit(tracks[:1])
+    assert one.phase_groups_ is None and one.unit_pairs_ == []
+    with pytest.raises(InputError, match="join_units"):
+        BehaviourModel(join_units="yes").fit(tracks)

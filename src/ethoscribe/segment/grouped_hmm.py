@@ -35,6 +35,7 @@ from ethoscribe.segment.lumping import (
     lumped_transitions,
     pair_components,
     stationary_distribution,
+    unit_shares,
 )
 from ethoscribe.segment.select import (
     StateCountSelection,
@@ -320,11 +321,7 @@ class GroupedHMM(BaseEstimator):
         n = int(fine.n_states_)
         if self.join is None or len(lengths) < 2 or n < 2:
             return np.arange(n), fine.transmat_, []
-        posterior = fine.predict_proba(X, lengths)
-        unit = np.repeat(np.arange(len(lengths)), lengths)
-        share = np.zeros((n, len(lengths)))
-        np.add.at(share.T, unit, posterior)
-        share /= np.maximum(share.sum(1, keepdims=True), 1e-300)
+        share = unit_shares(fine.predict_proba(X, lengths), lengths)
         base, pairs = join_across_units(fine.means_, share, mutual=self.join == "units")
         return base, lumped_transitions(fine.transmat_, base), pairs
 

@@ -357,6 +357,20 @@ def unit_overlap(share: np.ndarray) -> np.ndarray:
     return root @ root.T
 
 
+def unit_shares(posterior: np.ndarray, lengths: Sequence[int]) -> np.ndarray:
+    """How the frames of each state are spread over the units, (n_states, n_units).
+
+    ``posterior`` (n_frames, n_states): every frame's state probabilities, the units'
+    sequences back to back with ``lengths`` frames each. Row ``k`` is the expected number of
+    frames of state ``k`` in each unit over its total (a state with no frame: all zeros).
+    """
+    posterior = np.asarray(posterior, dtype=np.float64)
+    unit = np.repeat(np.arange(len(lengths)), np.asarray(lengths, dtype=np.int64))
+    share = np.zeros((posterior.shape[1], len(lengths)))
+    np.add.at(share.T, unit, posterior)
+    return share / np.maximum(share.sum(1, keepdims=True), 1e-300)
+
+
 def join_across_units(
     means: np.ndarray, share: np.ndarray, max_overlap: float = 0.5, mutual: bool = True
 ) -> tuple[np.ndarray, list[tuple[int, int]]]:

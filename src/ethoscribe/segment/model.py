@@ -26,14 +26,18 @@ from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._model_meta import RESAVE, check_meta, known_keys
 from ethoscribe.segment.duration import OUTLIER_SHARE
 from ethoscribe.segment.hmm import GaussianHMM
-from ethoscribe.segment.inputs import check_fitted, split_by_lengths
+from ethoscribe.segment.inputs import check_fitted, check_X_lengths, split_by_lengths
 from ethoscribe.segment.lumping import (
+    join_across_units,
     join_phases,
     lump_states,
     lumped_transitions,
     merge_tree,
+    pair_components,
     stationary_distribution,
     suggested_merges,
+    unit_overlap,
+    unit_shares,
 )
 from ethoscribe.segment.postprocess import enforce_min_bout
 from ethoscribe.segment.registry import get_segmenter
@@ -141,6 +145,17 @@ class BehaviourModel(BaseEstimator):
         (benchmarks/README.md) joining changed only the two sources with rhythmic phases and
         raised them there (BasicMotions ARI 0.59 -> 0.74, two seeds); every other source kept
         identical labels.
+    join_units : bool
+        Also label as one state two fitted states that are one behaviour seen in different
+        units (the fitted sequences: sessions x animals), composed with ``join_phases`` (HMM
+        methods; not in causal models): two states used apart (Bhattacharyya coefficient of
+        their shares of the units' frames below 0.5) that are mutual nearest neighbours in
+        posture among the states used apart from them
+        (:func:`ethoscribe.segment.lumping.join_across_units`, the rule of
+        ``method="grouped_hmm"``'s ``join="units"``). The joined states go through the same
+        ``phase_groups_`` / ``fine_state`` mechanism, and :attr:`unit_pairs_` lists the pairs
+        with their evidence. With one unit nothing is joined. Off by default (see
+        benchmarks/README.md, "One behaviour in different units joined after the fit").
     random_state : int, numpy.random.Generator or None
         Seed of every random choice (initialisations, subsamples). A generator gives one seed
         per fit (``random_seed_``, what a saved model records).
@@ -184,6 +199,7 @@ class BehaviourModel(BaseEstimator):
         decoding: str = "merge",
         min_body_seen: float | None = 0.6,
         join_phases: bool = True,
+        join_units: bool = False,
         random_state: int | np.random.Generator | None = 0,
         progress: bool = False,
         causal: bool = False,
@@ -199,6 +215,7 @@ class BehaviourModel(BaseEstimator):
         self.decoding = decoding
         self.min_body_seen = min_body_seen
         self.join_phases = join_phases
+        self.join_units = join_units
         self.random_state = random_state
         self.progress = progress
         self.causal = causal
@@ -227,6 +244,7 @@ class BehaviourModel(BaseEstimator):
             "decoding": self.decoding,
             "min_body_seen": self.min_body_seen,
             "join_phases": bool(self.join_phases),
+            "join_units": bool(self.join_units),
             "random_state": seed,
             "causal": bool(self.causal),
             "state_count_options": self.state_count_options,
@@ -251,6 +269,8 @@ class BehaviourModel(BaseEstimator):
             raise InputError(f"decoding must be one of {list(DECODINGS)}; got {self.decoding!r}")
         if not isinstance(self.join_phases, bool | np.bool_):
             raise InputError(f"join_phases must be True or False; got {self.join_phases!r}")
+        if not isinstance(self.join_units, bool | np.bool_):
+            raise InputError(f"join_units must be True or False; got {self.join_units!r}")
         seen = self.min_body_seen
         if seen is not None and (
             isinstance(seen, bool) or not isinstance(seen, int | float) or not 0 < seen <= 1
@@ -386,7 +406,9 @@ class BehaviourModel(BaseEstimator):
             segmenter.fit(X, lengths)
         if selection is None:  # a segmenter that chose its own count may show how
             selection = getattr(segmenter, "selection_", None)
-        self.phase_groups_, self.phase_pairs_ = self._phase_groups(segmenter, feats[0].columns)
+        self.phase_groups_, self.phase_pairs_, self.unit_pairs_ = self._phase_groups(
+            segmenter, feats[0].columns, X, lengths
+        )
         self.random_seed_ = seed
         self.cleaning_ = params
         self.features_ = pipeline
@@ -396,15 +418,17 @@ class BehaviourModel(BaseEstimator):
         self.state_tree_ = _state_tree(segmenter, fps_value)
         if self.phase_groups_ is not None:
             self.n_states_ = max(self.phase_groups_) + 1
-            self.state_tree_ = _phase_tree(segmenter, self.phase_groups_, fps_value)
+            self.state_tree_ = _phase_tree(
+                segmenter,
+                self.phase_groups_,
+                fps_value,
+                _joined_said(self.phase_groups_, self.phase_pairs_, self.unit_pairs_),
+            )
             if selection is not None:
-                pairs = [p["states"] for p in self.phase_pairs_]
-                groups = self.phase_groups_
-                joined = ", ".join(f"fitted {a}+{b} as {groups[a]}" for a, b in pairs)
+                said = _joined_said(self.phase_groups_, self.phase_pairs_, self.unit_pairs_)
                 self.selection_ = replace(
                     selection,
-                    reason=f"{selection.reason}; {self.n_states_} states labelled: phases of one "
-                    f"rhythm joined ({joined})",
+                    reason=f"{selection.reason}; {self.n_states_} states labelled: {said}",
                 )
         self.fps_ = fps_value
         self.keypoints_ = tuple(sessions[0].keypoints)
@@ -415,36 +439,25 @@ class BehaviourModel(BaseEstimator):
         return feats
 
     def _phase_groups(
-        self, segmenter: Any, columns: Sequence[str]
-    ) -> tuple[list[int] | None, list[dict]]:
-        """Labelled state of every fitted state when ``join_phases`` joins some (None when
-        nothing is joined, the option is off, the model is causal or the segmenter has no
-        Gaussian states and transitions), and the joined pairs with their evidence."""
+        self, segmenter: Any, columns: Sequence[str], X: np.ndarray, lengths: np.ndarray
+    ) -> tuple[list[int] | None, list[dict], list[dict]]:
+        """Labelled state of every fitted state when ``join_phases`` / ``join_units`` join some
+        (None when nothing is joined, both options are off, the model is causal or the
+        segmenter has no Gaussian states and transitions), and the joined pairs with their
+        evidence: phases of one rhythm, and one behaviour in different units."""
         causal = self.causal or bool((self.features or {}).get("causal"))
         needed = ("transmat_", "means_", "covars_")
-        if not self.join_phases or causal or hasattr(segmenter, "fine_"):
-            return None, []
+        if not (self.join_phases or self.join_units) or causal or hasattr(segmenter, "fine_"):
+            return None, [], []
         if not all(hasattr(segmenter, a) for a in needed):
-            return None, []
-        assignment, pairs = join_phases(
-            segmenter.transmat_,
-            segmenter.means_,
-            segmenter.covars_,
+            return None, [], []
+        return joined_states(
+            segmenter,
             steady_columns(columns),
-            float(segmenter.fps),
+            X if self.join_units else None,
+            lengths,
+            phases=bool(self.join_phases),
         )
-        if not pairs:
-            return None, []
-        saved = [
-            {
-                "states": [int(a) for a in p["states"]],
-                "lift": p["lift"],
-                "distance": p["distance"],
-                "stay_s": list(p["stay_s"]),
-            }
-            for p in pairs
-        ]
-        return [int(a) for a in assignment], saved
 
     def _to_labelled(self, states: np.ndarray, prob: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Fitted states and their probabilities mapped to the labelled (phase-joined) ones."""
@@ -696,6 +709,7 @@ class BehaviourModel(BaseEstimator):
             "state_tree": getattr(self, "state_tree_", None),
             "phase_groups": getattr(self, "phase_groups_", None),
             "phase_pairs": getattr(self, "phase_pairs_", []),
+            "unit_pairs": getattr(self, "unit_pairs_", []),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -771,6 +785,8 @@ class BehaviourModel(BaseEstimator):
         )
         pairs = meta.get("phase_pairs") or []
         model.phase_pairs_ = list(pairs) if isinstance(pairs, list) else []
+        pairs = meta.get("unit_pairs") or []
+        model.unit_pairs_ = list(pairs) if isinstance(pairs, list) else []
         model.random_seed_ = model.random_state
         model.fps_ = float(meta["fps"])
         model.keypoints_ = tuple(meta["keypoints"])
@@ -844,25 +860,38 @@ class PhaseJoined:
     """A segmenter labelling as ``BehaviourModel(join_phases=True)`` does: its fitted states
     with phases of one rhythm joined (:func:`ethoscribe.segment.lumping.join_phases`), for refits
     that must label like the model (the stability check). ``groups``: the joined state of every
-    fitted state, for a segmenter fitted already; otherwise found when :meth:`fit` runs."""
+    fitted state, for a segmenter fitted already; otherwise found when :meth:`fit` runs.
+    ``units``: as ``join_units=True``, also join states that are one behaviour in different
+    units (found in :meth:`fit`, which sees the units; a segmenter given fitted joins phases
+    only). ``phases``: as ``join_phases``."""
 
-    def __init__(self, segmenter: Any, steady: Sequence[int], groups: Sequence[int] | None = None):
+    def __init__(
+        self,
+        segmenter: Any,
+        steady: Sequence[int],
+        groups: Sequence[int] | None = None,
+        units: bool = False,
+        phases: bool = True,
+    ):
         self.segmenter = segmenter
         self.steady = list(steady)
+        self.units = units
+        self.phases = phases
         self.groups = None if groups is None else np.asarray(groups, dtype=np.int64)
         if groups is None and hasattr(segmenter, "transmat_"):
-            self.groups = self._find()
+            self.groups = self._find(None, None)
 
-    def _find(self) -> np.ndarray | None:
-        seg = self.segmenter
-        groups, pairs = join_phases(
-            seg.transmat_, seg.means_, seg.covars_, self.steady, float(seg.fps)
-        )
-        return groups if pairs else None
+    def _find(self, X: np.ndarray | None, lengths: Any) -> np.ndarray | None:
+        if X is not None and self.units:
+            X, lengths = check_X_lengths(X, lengths)
+        else:
+            X = None
+        groups, _, _ = joined_states(self.segmenter, self.steady, X, lengths, self.phases)
+        return None if groups is None else np.asarray(groups, dtype=np.int64)
 
     def fit(self, X: np.ndarray, lengths: Any = None) -> PhaseJoined:
         self.segmenter.fit(X, lengths)
-        self.groups = self._find()
+        self.groups = self._find(X, lengths)
         return self
 
     def predict(self, X: np.ndarray, lengths: Any = None) -> np.ndarray:
@@ -885,9 +914,79 @@ def labels_like_model(model: BehaviourModel, segmenter: Any, own: bool = False) 
         groups = getattr(model, "phase_groups_", None)
         return segmenter if groups is None else PhaseJoined(segmenter, steady, groups)
     causal = model.causal or bool((model.features or {}).get("causal"))
-    if not model.join_phases or causal or not isinstance(segmenter, GaussianHMM):
+    units = bool(getattr(model, "join_units", False))
+    if not (model.join_phases or units) or causal or not isinstance(segmenter, GaussianHMM):
         return segmenter
-    return PhaseJoined(segmenter, steady)
+    return PhaseJoined(segmenter, steady, units=units, phases=bool(model.join_phases))
+
+
+def joined_states(
+    segmenter: Any,
+    steady: Sequence[int],
+    X: np.ndarray | None,
+    lengths: Any,
+    phases: bool = True,
+) -> tuple[list[int] | None, list[dict], list[dict]]:
+    """Labelled state of every fitted state of ``segmenter`` (Gaussian states, transitions),
+    with the pairs joined and their evidence; None when nothing is joined.
+
+    ``phases``: join phases of one rhythm (:func:`ethoscribe.segment.lumping.join_phases` on the
+    ``steady`` columns). ``X`` given (the fitted frames, ``lengths`` per unit): also join states
+    that are one behaviour in different units (:func:`ethoscribe.segment.lumping.
+    join_across_units`, shares of the units' frames from the state posteriors). The two sets
+    of pairs are joined together (connected components).
+    """
+    n = int(segmenter.n_states_)
+    phase_pairs: list[dict] = []
+    if phases:
+        _, found = join_phases(
+            segmenter.transmat_, segmenter.means_, segmenter.covars_, steady, float(segmenter.fps)
+        )
+        phase_pairs = [
+            {
+                "states": [int(a) for a in p["states"]],
+                "lift": p["lift"],
+                "distance": p["distance"],
+                "stay_s": list(p["stay_s"]),
+            }
+            for p in found
+        ]
+    unit_pairs: list[dict] = []
+    if X is not None and lengths is not None and len(lengths) >= 2 and n >= 2:
+        share = unit_shares(segmenter.predict_proba(X, lengths), lengths)
+        _, found = join_across_units(segmenter.means_, share, mutual=True)
+        overlap = unit_overlap(share)
+        means = np.asarray(segmenter.means_, dtype=np.float64)
+        unit_pairs = [
+            {
+                "states": [int(a), int(b)],
+                "overlap": float(overlap[a, b]),
+                "distance": float(np.linalg.norm(means[a] - means[b])),
+            }
+            for a, b in found
+        ]
+    pairs = [tuple(p["states"]) for p in phase_pairs + unit_pairs]
+    if not pairs:
+        return None, [], []
+    return [int(a) for a in pair_components(n, pairs)], phase_pairs, unit_pairs
+
+
+def _joined_said(
+    groups: Sequence[int], phase_pairs: Sequence[dict], unit_pairs: Sequence[dict]
+) -> str:
+    """What was joined, in words: ``phases of one rhythm joined (fitted 4+5 as 4)`` and / or
+    ``one behaviour in different units joined (fitted 1+3 as 1)``."""
+    said = []
+    for pairs, what in (
+        (phase_pairs, "phases of one rhythm joined"),
+        (unit_pairs, "one behaviour in different units joined"),
+    ):
+        if pairs:
+            joined = ", ".join(
+                f"fitted {a}+{b} as {groups[a]}" for p in pairs for a, b in [p["states"]]
+            )
+            said.append(f"{what} ({joined})")
+    return "; ".join(said)
 
 
 def _joined_arrays(segmenter: Any, groups: Sequence[int]) -> tuple[np.ndarray, np.ndarray]:
@@ -900,7 +999,12 @@ def _joined_arrays(segmenter: Any, groups: Sequence[int]) -> tuple[np.ndarray, n
     return means, lumped_transitions(segmenter.transmat_, g)
 
 
-def _phase_tree(segmenter: Any, groups: Sequence[int], fps: float) -> dict | None:
+def _phase_tree(
+    segmenter: Any,
+    groups: Sequence[int],
+    fps: float,
+    reason: str = "phases of one rhythm joined (join_phases)",
+) -> dict | None:
     """State tree of the phase-joined states, with the fitted states as its fine level."""
     _, transmat = _joined_arrays(segmenter, groups)
     tree = _state_tree(_Transitions(transmat), fps) if len(transmat) >= 2 else None
@@ -910,7 +1014,7 @@ def _phase_tree(segmenter: Any, groups: Sequence[int], fps: float) -> dict | Non
         **tree,
         "fine_assignment": [int(a) for a in groups],
         "fine_lag_s": LAG_S,
-        "fine_reason": "phases of one rhythm joined (join_phases)",
+        "fine_reason": reason,
         "fine_levels": merge_tree(segmenter.transmat_, fps, LAG_S),
     }
 
