@@ -123,9 +123,9 @@ def model_section(ws: Workspace) -> Section:
         per_state.insert(0, "motif", [names.get(int(s), "") for s in per_state["state"]])
         low = per_state.loc[per_state["grade"] == "low", "motif"].tolist()
         text += (
-            f" Reproducibility per motif is graded on the weaker of the mean Jaccard agreement "
-            f"between seeds and the split-half agreement: high from {HIGH_AGREEMENT}, moderate "
-            f"from {LOW_AGREEMENT}, low below. "
+            f" Reproducibility per motif is graded on the weaker of two Jaccard agreements, "
+            f"with a full refit under another seed and between full fits of two halves of the "
+            f"sessions: high from {HIGH_AGREEMENT}, moderate from {LOW_AGREEMENT}, low below. "
             + (f"Low, look at these before naming them: {', '.join(low)}." if low else "")
         )
         keep = ["motif", "occupancy", "jaccard_seeds_mean", "jaccard_halves", "grade", "flag"]
