@@ -420,7 +420,7 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
     return {
         "created": now(),
         "versions": versions(),
-        "parameters": model.get_params(),
+        "parameters": model.saved_params(),
         "seed": seed,
         "n_states": model.n_states_,
         "state_count_choice": None
