@@ -257,8 +257,7 @@ class BehaviourModel(BaseEstimator):
             "join_units": bool(self.join_units),
             "random_state": seed,
             "causal": bool(self.causal),
-            # the count's options in effect, defaults included (they are not the function's)
-            "state_count_options": {**COUNT_DEFAULTS, **(self.state_count_options or {})},
+            "state_count_options": self.state_count_options,
         }
 
     # --- fitting --------------------------------------------------------------------------

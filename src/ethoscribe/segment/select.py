@@ -115,6 +115,9 @@ def selection_to_json(selection: Any) -> dict[str, Any]:
     return {
         "best": int(selection.best),
         "criterion": str(getattr(selection, "criterion", "")),
+        # how the curve was made and read: the defaults may change, the record must not
+        "heldout": str(getattr(selection, "heldout", "")),
+        "rule": str(getattr(selection, "rule", "")),
         "reason": str(getattr(selection, "reason", "")),
         "table": table.astype(object).where(table.notna(), None).to_dict(orient="list"),
     }
@@ -126,7 +129,8 @@ def selection_from_json(d: Mapping[str, Any], criterion: str = "") -> StateCount
         pd.DataFrame(d["table"]),
         int(d["best"]),
         str(d.get("criterion") or criterion),
-        "",
+        str(d.get("heldout") or ""),
+        rule=str(d.get("rule") or ""),
         reason=str(d.get("reason") or ""),
     )
 

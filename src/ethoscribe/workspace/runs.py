@@ -428,6 +428,8 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
         else {
             "best": int(selection.best),
             "criterion": str(selection.criterion),
+            "heldout": str(getattr(selection, "heldout", "")),
+            "rule": str(getattr(selection, "rule", "")),
             "reason": str(getattr(selection, "reason", "")),
             "table": table_json(selection.table),
         },
