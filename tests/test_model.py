@@ -130,10 +130,10 @@ def test_refit_with_the_same_seed_is_identical(fitted, sessions):
     pd.testing.assert_frame_equal(again.label(sessions), fitted.label(sessions))
 
 
-def test_automatic_state_count_reads_the_knee_of_the_heldout_blocks(sessions):
+def test_automatic_state_count_reads_the_elbow_of_the_heldout_blocks(sessions):
     model = BehaviourModel(state_range=(2, 4), segmenter=QUICK).fit(sessions)
     table = model.selection_.table
-    assert (model.selection_.rule, model.selection_.heldout) == ("kneedle", "blocks")
+    assert (model.selection_.rule, model.selection_.heldout) == ("elbow", "blocks")
     assert table["n_states"].tolist() == [2, 3, 4]
     # joined states (phases, units) can only lower the labelled count below the fitted one
     assert 2 <= model.n_states_ <= model.selection_.best <= 4
@@ -141,7 +141,7 @@ def test_automatic_state_count_reads_the_knee_of_the_heldout_blocks(sessions):
     meta, _ = model.to_state()
     saved = json.loads(json.dumps(meta))["selection"]
     # the selection records how the count was read, whatever the defaults become
-    assert (saved["rule"], saved["heldout"]) == ("kneedle", "blocks")
+    assert (saved["rule"], saved["heldout"]) == ("elbow", "blocks")
     assert saved["best"] == model.selection_.best
 
 

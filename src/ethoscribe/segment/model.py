@@ -45,9 +45,9 @@ from ethoscribe.segment.select import choose_n_states, selection_from_json, sele
 
 FORMAT_VERSION = 1
 # The automatic count's defaults (see ``state_count_options``): held-out blocks, so both folds see
-# every animal, read by the Kneedle rule; with join_units they scored best on the validation
-# bench as a whole (benchmarks/README.md, "One behaviour in different units joined after the fit").
-COUNT_DEFAULTS = {"heldout": "blocks", "rule": "kneedle"}
+# every animal (read by the elbow rule); with join_units they scored best on the validation bench
+# as a whole (benchmarks/README.md, "One behaviour in different units joined after the fit").
+COUNT_DEFAULTS = {"heldout": "blocks"}
 DECODINGS = ("min_duration", "merge")
 
 
@@ -158,13 +158,12 @@ class BehaviourModel(BaseEstimator):
         (:func:`ethoscribe.segment.lumping.join_across_units`, the rule of
         ``method="grouped_hmm"``'s ``join="units"``). The joined states go through the same
         ``phase_groups_`` / ``fine_state`` mechanism, and :attr:`unit_pairs_` lists the pairs
-        with their evidence. With one unit nothing is joined. On by default, with the count's
-        held-out blocks and Kneedle rule (``state_count_options``): on the validation bench
+        with their evidence. With one unit nothing is joined. On by default, with the count on
+        held-out blocks (``state_count_options``): on the validation bench
         (benchmarks/README.md, "One behaviour in different units joined after the fit", two
-        seeds) the three together raised mean ARI 0.517 -> 0.567 and 0.544 -> 0.559 and
-        boundary F1 0.442 -> 0.461 and 0.438 -> 0.451 over the elbow on held-out sessions
-        (pairs 0.51 -> 0.76, independent simulator 0.57 / 0.62 -> 0.83 / 0.82); the fish fell
-        at seed 0 (0.81 -> 0.72) and GunPoint to chance (0.09 -> 0.01).
+        seeds) the two together raised mean ARI 0.517 -> 0.570 and 0.544 -> 0.567 over the
+        count on held-out sessions (pairs 0.51 -> 0.76, independent simulator 0.57 / 0.62 ->
+        0.83 / 0.82); the fish fell at seed 0 (0.81 -> 0.72, 0.82 at seed 1).
     random_state : int, numpy.random.Generator or None
         Seed of every random choice (initialisations, subsamples). A generator gives one seed
         per fit (``random_seed_``, what a saved model records).
@@ -173,8 +172,8 @@ class BehaviourModel(BaseEstimator):
     state_count_options : dict, optional
         Options of the automatic state count (:func:`ethoscribe.segment.select.choose_n_states`
         for the HMM: ``max_frames``, ``stop_after``, ``rule`` ("elbow", "kneedle", "one_se"),
-        ``heldout`` ("sessions", "blocks"; defaults here ``"blocks"`` and ``"kneedle"``,
-        :data:`COUNT_DEFAULTS`); e.g. ``{"stop_after": None}`` fits every
+        ``heldout`` ("sessions", "blocks"; default here ``"blocks"``, :data:`COUNT_DEFAULTS`);
+        e.g. ``{"stop_after": None}`` fits every
         candidate of ``state_range`` instead of stopping two past the elbow), and
         ``warm_start``: True adds to the final fit two restarts started from the count's two
         quick fits of the chosen count (``GaussianHMM.fit(..., init_models=...)``). Off by
