@@ -408,19 +408,7 @@ def join_across_units(
         ]
     else:
         pairs = sorted({tuple(sorted((a, int(nearest[a])))) for a in range(n) if nearest[a] >= 0})
-    parent = list(range(n))
-
-    def root(a: int) -> int:
-        while parent[a] != a:
-            a = parent[a]
-        return a
-
-    for a, b in pairs:
-        ra, rb = root(a), root(b)
-        parent[max(ra, rb)] = min(ra, rb)
-    roots = [root(a) for a in range(n)]
-    order = sorted(set(roots))
-    return np.array([order.index(r) for r in roots], dtype=np.int64), pairs
+    return pair_components(n, pairs), pairs
 
 
 def lumped_transitions(transmat: np.ndarray, assignment: np.ndarray) -> np.ndarray:
