@@ -154,6 +154,7 @@ def test_discover_reads_wide_tables_and_two_animal_nwb_files(study, tmp_path, ca
     assert used["swap_pairs_used"] == [["left_ear", "right_ear"]]
     assert (used["max_gap_s"], used["smooth_window_s"], used["max_speed"]) == (0.3, 0.3, 3000.0)
     assert summary["cleaning"]["swap_pairs_source"] == "given"
+    assert summary["stability"] is not None  # checked by default
 
     out = tmp_path / "nwb_run"
     assert main(["discover", str(nwb), "--out", str(out), *common]) == 0, capsys.readouterr().err
@@ -167,8 +168,11 @@ def test_discover_reads_wide_tables_and_two_animal_nwb_files(study, tmp_path, ca
     assert ["left_ear", "right_ear"] in cleaning["swap_pairs_used"]
 
     out = tmp_path / "no_swap"
-    assert main(["discover", str(nwb), "--out", str(out), "--no-auto-swap", *common]) == 0
-    assert json.loads((out / "summary.json").read_text())["cleaning"]["swap_pairs_used"] == []
+    args = ["discover", str(nwb), "--out", str(out), "--no-auto-swap", "--no-stability-check"]
+    assert main([*args, *common]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["cleaning"]["swap_pairs_used"] == [] and summary["stability"] is None
+    assert (out / "report.html").exists() and not (out / "stability.csv").exists()
 
 
 def test_messages_name_command_line_options(tmp_path, capsys):

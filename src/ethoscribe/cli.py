@@ -273,6 +273,12 @@ def build_parser() -> argparse.ArgumentParser:
         "frame; default 1000000)",
     )
     d.add_argument(
+        "--no-stability-check",
+        action="store_true",
+        help="skip refitting under another seed and on two halves of the sessions (about two "
+        "more fits; the report then grades no motif's reproducibility)",
+    )
+    d.add_argument(
         "--for-streaming",
         action="store_true",
         help="fit a model for closed-loop labelling: clean and compute features from past "
@@ -526,6 +532,7 @@ def _run(args: argparse.Namespace) -> str:
             cleaning=_cleaning(args),
             replace_curation=args.replace_curation,
             causal=args.for_streaming,
+            stability=not args.no_stability_check,
         )
         return ws.describe()
     if args.command == "label":
