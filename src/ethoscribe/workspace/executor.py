@@ -111,15 +111,41 @@ def _on_processes(func: Callable[..., T], items: list[Any], jobs: int, bar: Any)
             process.terminate()
         for process in processes:
             process.join(5)
+            if process.is_alive():
+                process.kill()
         # Work still queued for the dead workers must not hold the exit: the queue's feeder
         # thread is joined when the interpreter exits, and nobody will read what it holds.
         queue = getattr(pool, "_call_queue", None)
         if queue is not None:
             queue.cancel_join_thread()
+        manager = getattr(pool, "_executor_manager_thread", None)
         pool.shutdown(wait=False, cancel_futures=True)
+        _release_at_exit(manager)
         raise
     pool.shutdown()
     return results
+
+
+def _release_at_exit(manager: threading.Thread | None, timeout: float = 10.0) -> None:
+    """Let the interpreter exit even if the pool's manager thread does not finish.
+
+    The standard library joins every pool's manager thread, without a timeout, when the
+    interpreter exits; after its workers were killed it sometimes never finishes (seen under
+    load after a Ctrl-C), and the exit hung. Its workers are dead and its work cancelled, so
+    nothing is lost by not waiting for it.
+    """
+    if manager is None:
+        return
+    manager.join(timeout)
+    if manager.is_alive():
+        import concurrent.futures.process as cfp
+
+        getattr(cfp, "_threads_wakeups", {}).pop(manager, None)  # the pool's exit hook
+        locks = getattr(threading, "_shutdown_locks", None)  # the wait for non-daemon threads
+        lock = getattr(manager, "_tstate_lock", None)
+        if locks is not None and lock is not None:
+            with threading._shutdown_locks_lock:  # type: ignore[attr-defined]
+                locks.discard(lock)
 
 
 def _no_interrupts() -> None:
