@@ -154,15 +154,20 @@ def _no_interrupts() -> None:
 
 @contextlib.contextmanager
 def _interrupts_ignored() -> Iterator[None]:
-    """Ignore SIGINT in this (main) thread for the block; a child started meanwhile inherits it."""
-    if threading.current_thread() is not threading.main_thread():
+    """Hold SIGINT back in this (main) thread for the block: a child started meanwhile inherits
+    the blocked mask (and ignores SIGINT from its initializer on), and a Ctrl-C that arrives
+    during the block stays pending and is raised here when it ends. Ignoring it instead (as
+    before) lost a Ctrl-C pressed while a slow worker was still starting: the run went on."""
+    if threading.current_thread() is not threading.main_thread() or not hasattr(
+        signal, "pthread_sigmask"
+    ):
         yield
         return
-    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    previous = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
     try:
         yield
     finally:
-        signal.signal(signal.SIGINT, previous)
+        signal.pthread_sigmask(signal.SIG_SETMASK, previous)
 
 
 def _on_dask(func: Callable[..., T], items: list[Any], client: Any, bar: Any) -> list[T]:
