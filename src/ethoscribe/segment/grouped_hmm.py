@@ -33,6 +33,7 @@ from ethoscribe.segment.lumping import (
     join_phases,
     lump_states,
     lumped_transitions,
+    membership,
     pair_components,
     stationary_distribution,
     unit_shares,
@@ -351,9 +352,8 @@ class GroupedHMM(BaseEstimator):
         """Set-level arrays from the fine model and the set of each fine state."""
         fine = self.fine_
         assignment = np.asarray(assignment, dtype=np.int64)
-        n_sets = int(assignment.max()) + 1
-        onehot = np.zeros((len(assignment), n_sets))
-        onehot[np.arange(len(assignment)), assignment] = 1.0
+        onehot = membership(assignment)
+        n_sets = onehot.shape[1]
         pi = stationary_distribution(fine.transmat_)
         weight = onehot * pi[:, None]  # (fine, sets): occupancy of each fine state in its set
         occupancy = np.maximum(weight.sum(0), 1e-300)

@@ -411,14 +411,26 @@ def join_across_units(
     return pair_components(n, pairs), pairs
 
 
+def membership(assignment: Sequence[int] | np.ndarray) -> np.ndarray:
+    """(n_states, n_groups) 0/1 matrix: row ``i`` marks the group of state ``i``.
+
+    Examples
+    --------
+    >>> membership([0, 1, 0]).tolist()
+    [[1.0, 0.0], [0.0, 1.0], [1.0, 0.0]]
+    """
+    assignment = np.asarray(assignment, dtype=np.int64)
+    onehot = np.zeros((len(assignment), int(assignment.max()) + 1))
+    onehot[np.arange(len(assignment)), assignment] = 1.0
+    return onehot
+
+
 def lumped_transitions(transmat: np.ndarray, assignment: np.ndarray) -> np.ndarray:
     """Per-frame transition matrix between groups of states: the stationary flux between
     their states over the group's occupancy (exact for the group sequence when the chain is
     stationary and the states within a group are exchangeable)."""
     T = np.asarray(transmat, dtype=np.float64)
-    assignment = np.asarray(assignment, dtype=np.int64)
-    onehot = np.zeros((len(T), int(assignment.max()) + 1))
-    onehot[np.arange(len(T)), assignment] = 1.0
+    onehot = membership(assignment)
     pi = stationary_distribution(T)
     flux = onehot.T @ (pi[:, None] * T) @ onehot
     return flux / np.maximum(flux.sum(1, keepdims=True), 1e-300)

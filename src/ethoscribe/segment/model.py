@@ -32,6 +32,7 @@ from ethoscribe.segment.lumping import (
     join_phases,
     lump_states,
     lumped_transitions,
+    membership,
     merge_tree,
     pair_components,
     stationary_distribution,
@@ -474,9 +475,7 @@ class BehaviourModel(BaseEstimator):
         if groups is None:
             return states, prob
         g = np.asarray(groups, dtype=np.int64)
-        onehot = np.zeros((len(g), int(g.max()) + 1))
-        onehot[np.arange(len(g)), g] = 1.0
-        return g[np.asarray(states, dtype=np.int64)], np.asarray(prob) @ onehot
+        return g[np.asarray(states, dtype=np.int64)], np.asarray(prob) @ membership(g)
 
     def _clean_all(
         self, sessions: Sequence[PoseTracks], params: CleanParams
@@ -1001,9 +1000,7 @@ def _joined_said(
 def _joined_arrays(segmenter: Any, groups: Sequence[int]) -> tuple[np.ndarray, np.ndarray]:
     """Means (occupancy-weighted) and per-frame transitions of the phase-joined states."""
     g = np.asarray(groups, dtype=np.int64)
-    onehot = np.zeros((len(g), int(g.max()) + 1))
-    onehot[np.arange(len(g)), g] = 1.0
-    weight = onehot * stationary_distribution(segmenter.transmat_)[:, None]
+    weight = membership(g) * stationary_distribution(segmenter.transmat_)[:, None]
     means = (weight.T @ segmenter.means_) / np.maximum(weight.sum(0), 1e-300)[:, None]
     return means, lumped_transitions(segmenter.transmat_, g)
 
