@@ -425,17 +425,13 @@ class BehaviourModel(BaseEstimator):
         self.segmenter_ = segmenter
         self.selection_ = selection
         self.n_states_ = int(segmenter.n_states_)
-        self.state_tree_ = _state_tree(segmenter, fps_value)
-        if self.phase_groups_ is not None:
+        if self.phase_groups_ is None:
+            self.state_tree_ = _state_tree(segmenter, fps_value)
+        else:
             self.n_states_ = max(self.phase_groups_) + 1
-            self.state_tree_ = _phase_tree(
-                segmenter,
-                self.phase_groups_,
-                fps_value,
-                _joined_said(self.phase_groups_, self.phase_pairs_, self.unit_pairs_),
-            )
+            said = _joined_said(self.phase_groups_, self.phase_pairs_, self.unit_pairs_)
+            self.state_tree_ = _phase_tree(segmenter, self.phase_groups_, fps_value, said)
             if selection is not None:
-                said = _joined_said(self.phase_groups_, self.phase_pairs_, self.unit_pairs_)
                 self.selection_ = replace(
                     selection,
                     reason=f"{selection.reason}; {self.n_states_} states labelled: {said}",
@@ -1005,12 +1001,7 @@ def _joined_arrays(segmenter: Any, groups: Sequence[int]) -> tuple[np.ndarray, n
     return means, lumped_transitions(segmenter.transmat_, g)
 
 
-def _phase_tree(
-    segmenter: Any,
-    groups: Sequence[int],
-    fps: float,
-    reason: str = "phases of one rhythm joined (join_phases)",
-) -> dict | None:
+def _phase_tree(segmenter: Any, groups: Sequence[int], fps: float, reason: str) -> dict | None:
     """State tree of the phase-joined states, with the fitted states as its fine level."""
     _, transmat = _joined_arrays(segmenter, groups)
     tree = _state_tree(_Transitions(transmat), fps) if len(transmat) >= 2 else None
