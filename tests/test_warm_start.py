@@ -1,6 +1,6 @@
 """Reuse of fitted models: the final fit started from the automatic state count's fits (an
-option), the losing restarts of a fit as models, and a stability report comparing models it is
-given (discover's own check refits instead: see test_discover_reuse)."""
+option) and a stability report comparing models it is given (discover's own check refits
+instead: see test_discover_reuse)."""
 
 from __future__ import annotations
 
@@ -102,22 +102,6 @@ def test_stability_with_a_given_reference_and_halves():
     np.testing.assert_allclose(report.table["occupancy"], share)
     with pytest.raises(InputError, match="half_models must be two"):
         stability_report(make, X, lengths, half_models=halves[:1])
-
-
-def test_other_restarts_are_the_losing_fits_as_models():
-    X, _, lengths = sample_sticky_hmm(seed=9, n_states=K, lengths=(500, 500))
-    model = GaussianHMM(K, n_restarts=3, random_state=2).fit(X, lengths)
-    others = model.other_restarts()
-    lls = np.sort(model.restart_log_likelihoods_)[::-1]
-    assert len(others) == 2
-    for other, ll in zip(others, lls[1:], strict=True):
-        # hmmlearn 0.3.3 scores the restart's parameters as its recorded log-likelihood
-        ref = ReferenceHMM(K, covariance_type="full", implementation="scaling", init_params="")
-        ref.startprob_, ref.transmat_ = other.startprob_, other.transmat_
-        ref.means_, ref.covars_ = other.means_, other.covars_
-        assert ref.score(X, lengths) / len(X) == pytest.approx(ll, abs=1e-9)
-        assert other.log_likelihood_ == pytest.approx(ll)
-    assert GaussianHMM.from_state(*model.to_state()).other_restarts() == []  # not saved
 
 
 def test_stability_uses_given_seed_fits_in_place_of_refits():

@@ -28,7 +28,7 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
-from sklearn.base import BaseEstimator, clone
+from sklearn.base import BaseEstimator
 from tqdm.auto import tqdm
 
 from ethoscribe.checks import int_between, is_real, seed_from
@@ -310,48 +310,12 @@ class GaussianHMM(BaseEstimator):
         self.n_features_in_ = X.shape[1]
         self.log_likelihood_ = float(best["log_likelihood"])
         self.restart_log_likelihoods_ = lls
-        # Every restart's parameters, for this session only (not saved; see other_restarts).
-        self._restarts = [{**res, "means": res["means"] + offset} for res in results]
         self.n_iter_ = int(best["n_iter"])
         self.converged_ = bool(best["converged"])
         self.covariance_floor_ = float(self.min_covar)
         self.n_fit_frames_ = int(n_fit)
         self.random_seed_ = seed
         return self
-
-    def other_restarts(self) -> list[GaussianHMM]:
-        """The restarts of the last fit that lost to the best one, as fitted models (best
-        first); empty for a model loaded from a file (they are not saved).
-
-        They are fits of the same data from other random starts, but selected for losing: they
-        sit in poorer optima more often than another seed's best fit does, so their agreement
-        with the model understates how reproducible its states are (the stability check refits
-        with another seed instead; benchmarks/README.md, "Is the stability check a fair
-        measurement?").
-        """
-        check_fitted(self, "means_")
-        runs = getattr(self, "_restarts", [])
-        if not runs:
-            return []
-        order = np.argsort(-np.array([r["log_likelihood"] for r in runs]), kind="stable")
-        out = []
-        for i in order[1:]:
-            res, model = runs[i], clone(self)
-            keep = order_states_by_occupancy(res["occupancy"], res["means"])
-            model.means_, model.covars_ = res["means"][keep], res["covars"][keep]
-            model.startprob_ = res["startprob"][keep]
-            model.transmat_ = res["transmat"][np.ix_(keep, keep)]
-            model.n_states_, model.n_features_in_ = self.n_states_, self.n_features_in_
-            model.log_likelihood_ = float(res["log_likelihood"])
-            model.restart_log_likelihoods_ = np.array([res["log_likelihood"]])
-            model.n_iter_, model.converged_ = int(res["n_iter"]), bool(res["converged"])
-            model.covariance_floor_, model.n_fit_frames_ = (
-                self.covariance_floor_,
-                self.n_fit_frames_,
-            )
-            model.random_seed_ = self.random_seed_
-            out.append(model)
-        return out
 
     # ---------------------------------------------------------------------------- decoding
     def _prepare(self, X, lengths):

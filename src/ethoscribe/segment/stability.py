@@ -103,7 +103,7 @@ def stability_report(
         Fits of all of the data with other seeds, used in place of the refits with
         ``seeds[1]``, ``seeds[2]`` ... (as many as given). They should be fitted as the
         reference was, each the best of its own restarts: a restart that lost to the
-        reference's best (``GaussianHMM.other_restarts``) is not another seed's fit but one
+        reference's best (one of its losing restarts) is not another seed's fit but one
         selected for a poorer optimum, and it agrees less (benchmarks/README.md, "Is the
         stability check a fair measurement?").
     fit_on : (X_fit, lengths_fit), optional
