@@ -46,23 +46,16 @@ def test_ctrl_c_while_workers_run_leaves_no_worker_tracebacks(tmp_path):
     assert err.strip() == "interrupted", err  # before: one traceback per worker
 
 
-def test_an_interrupted_pool_whose_manager_thread_hangs_does_not_hold_the_exit():
-    # The hang once seen under load after a Ctrl-C: the standard library joins a process
-    # pool's manager thread at exit without a timeout. A thread that never finishes stands in
-    # for it; after the release the interpreter must exit at once, not after 30 s.
-    code = textwrap.dedent(
-        f"""
-        import sys, threading, time
-        sys.path[:0] = [{str(SRC)!r}]
-        import concurrent.futures.process as cfp
-        from ethoscribe.workspace.executor import _release_at_exit
-        stuck = threading.Thread(target=time.sleep, args=(30,))
-        stuck.start()
-        cfp._threads_wakeups[stuck] = None  # as a pool registers its manager thread
-        _release_at_exit(stuck, timeout=0.1)
-        """
-    )
-    start = time.monotonic()
-    done = subprocess.run([sys.executable, "-c", code], timeout=25, capture_output=True)
-    assert done.returncode == 0, done.stderr
-    assert time.monotonic() - start < 20
+@pytest.mark.skipif(sys.platform == "win32", reason="SIGINT to oneself is POSIX")
+def test_a_ctrl_c_while_workers_start_is_not_lost():
+    # Workers start inside this block (they must not see SIGINT); a Ctrl-C arriving then was
+    # ignored, and the run went on (the hang of the test above under load). It must still
+    # raise KeyboardInterrupt here (Python's own SIGINT handler, per the signal module docs):
+    # at the block's end, or at once when another thread of the process takes the signal.
+    from ethoscribe.workspace.executor import _interrupts_ignored
+
+    with pytest.raises(KeyboardInterrupt):
+        with _interrupts_ignored():
+            os.kill(os.getpid(), signal.SIGINT)
+            time.sleep(0.1)
+        time.sleep(1)

@@ -118,34 +118,10 @@ def _on_processes(func: Callable[..., T], items: list[Any], jobs: int, bar: Any)
         queue = getattr(pool, "_call_queue", None)
         if queue is not None:
             queue.cancel_join_thread()
-        manager = getattr(pool, "_executor_manager_thread", None)
         pool.shutdown(wait=False, cancel_futures=True)
-        _release_at_exit(manager)
         raise
     pool.shutdown()
     return results
-
-
-def _release_at_exit(manager: threading.Thread | None, timeout: float = 10.0) -> None:
-    """Let the interpreter exit even if the pool's manager thread does not finish.
-
-    The standard library joins every pool's manager thread, without a timeout, when the
-    interpreter exits; after its workers were killed it sometimes never finishes (seen under
-    load after a Ctrl-C), and the exit hung. Its workers are dead and its work cancelled, so
-    nothing is lost by not waiting for it.
-    """
-    if manager is None:
-        return
-    manager.join(timeout)
-    if manager.is_alive():
-        import concurrent.futures.process as cfp
-
-        getattr(cfp, "_threads_wakeups", {}).pop(manager, None)  # the pool's exit hook
-        locks = getattr(threading, "_shutdown_locks", None)  # the wait for non-daemon threads
-        lock = getattr(manager, "_tstate_lock", None)
-        if locks is not None and lock is not None:
-            with threading._shutdown_locks_lock:  # type: ignore[attr-defined]
-                locks.discard(lock)
 
 
 def _no_interrupts() -> None:
@@ -154,10 +130,12 @@ def _no_interrupts() -> None:
 
 @contextlib.contextmanager
 def _interrupts_ignored() -> Iterator[None]:
-    """Hold SIGINT back in this (main) thread for the block: a child started meanwhile inherits
-    the blocked mask (and ignores SIGINT from its initializer on), and a Ctrl-C that arrives
-    during the block stays pending and is raised here when it ends. Ignoring it instead (as
-    before) lost a Ctrl-C pressed while a slow worker was still starting: the run went on."""
+    """Block SIGINT in this (main) thread for the block: a child started meanwhile inherits the
+    blocked mask (and ignores SIGINT from its initializer on), and a Ctrl-C that arrives
+    during the block is not lost: it stays pending and is raised when the block ends, or is
+    raised at once when another thread of this process (BLAS, progress bars) takes it.
+    Ignoring it instead (as before) lost a Ctrl-C pressed while a slow worker was still
+    starting: the run went on."""
     if threading.current_thread() is not threading.main_thread() or not hasattr(
         signal, "pthread_sigmask"
     ):
