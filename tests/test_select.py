@@ -33,6 +33,8 @@ def test_heldout_sessions_pick_the_true_count(four_states):
     fig = state_count_figure(sel)
     assert any(t.name == "chosen: 4 states" for t in fig.data)
     assert fig.layout.shapes[0].x0 == 4  # the vertical marker
+    # the title names the criterion in words, not by its option value
+    assert "held-out likelihood, held-out sessions" in fig.layout.title.text
 
 
 def test_blocks_inside_one_session_and_bic(four_states):
@@ -45,6 +47,7 @@ def test_blocks_inside_one_session_and_bic(four_states):
     assert bic.best == 4 and bic.table["heldout_ll_per_frame"].isna().all()
     assert bic.table.set_index("n_states")["bic"].idxmin() == 4
     assert "BIC" in state_count_figure(bic).layout.yaxis.title.text
+    assert "held-out blocks" in state_count_figure(one).layout.title.text
 
 
 def test_rule_prefers_the_smaller_count_within_one_standard_error():

@@ -79,13 +79,23 @@ def state_count_figure(selection: Any) -> go.Figure:
         )  # fmt: skip
     fig.add_vline(x=best, line_dash="dot", opacity=0.5)
     fig.update_layout(
-        title=f"Number of states ({selection.criterion}): {best} chosen",
+        title=f"Number of states ({_criterion_words(selection)}): {best} chosen",
         xaxis_title="number of states",
         yaxis_title=y_title,
         template="plotly_white",
         xaxis={"dtick": 1},
     )
     return fig
+
+
+def _criterion_words(selection: Any) -> str:
+    """The count's criterion in words for a title (the option names are not English)."""
+    if selection.criterion == "heldout":
+        unit = getattr(selection, "heldout", "")
+        return "held-out likelihood" + (f", held-out {unit}" if unit else "")
+    return {"eigen_gap": "eigenvalue gap", "bic": "BIC"}.get(
+        selection.criterion, selection.criterion
+    )
 
 
 def stability_figure(report: Any, names: dict[int, str] | None = None) -> go.Figure:
