@@ -5,6 +5,7 @@ Usage (from the repository root)::
     python -m benchmarks.bench_speed                     # 54,000 frames (own_voles) and 1e6
     python -m benchmarks.bench_speed --sizes 54000       # the small study only
     python -m benchmarks.bench_speed --compile           # first-run numba compile cost only
+    python -m benchmarks.bench_speed --sizes 54000 --no-compile --no-reference  # stages only
 
 Studies: 54,000 frames are the bench's ``own_voles`` source (six example sessions of 9,000
 frames); 1,000,000 frames are simulated once by the package's simulator (ten sessions of
@@ -96,7 +97,7 @@ def _ari(src, labels: dict) -> tuple[float, float]:
     return float(adjusted_rand_score(t[keep], f[keep])), float(1 - keep.sum() / (t >= 0).sum())
 
 
-def run_size(n_frames: int, data: Path, seed: int) -> dict:
+def run_size(n_frames: int, data: Path, seed: int, reference: bool = True) -> dict:
     from benchmarks.validity.pipelines import run_reference
 
     from ethoscribe.workspace import discover
@@ -123,9 +124,7 @@ def run_size(n_frames: int, data: Path, seed: int) -> dict:
     ari, unscored = _ari(src, labels)
     n_states = int(ws.summary["n_states"])
     shutil.rmtree(out, ignore_errors=True)
-    ref_labels, ref = run_reference(src, seed)
-    ref_ari, _ = _ari(src, ref_labels)
-    return {
+    mine = {
         "frames": frames,
         "discover_wall_s": wall,
         "discover_cpu_s": cpu,
@@ -133,6 +132,13 @@ def run_size(n_frames: int, data: Path, seed: int) -> dict:
         "discover_unscored": unscored,
         "discover_states": n_states,
         "stages": {k: [round(v[0], 2), round(v[1], 2)] for k, v in STAGES.items()},
+    }
+    if not reference:
+        return mine
+    ref_labels, ref = run_reference(src, seed)
+    ref_ari, _ = _ari(src, ref_labels)
+    return {
+        **mine,
         "reference_wall_s": ref["seconds"],
         "reference_cpu_s": ref["cpu_seconds"],
         "reference_ari": ref_ari,
@@ -184,6 +190,9 @@ def main(argv=None) -> int:
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--compile", action="store_true", help="measure the compile cost only")
     parser.add_argument("--no-compile", action="store_true", help="skip the compile cost")
+    parser.add_argument(
+        "--no-reference", action="store_true", help="time discover and its stages only"
+    )
     parser.add_argument("--json", type=Path, help="also write the results here")
     args = parser.parse_args(argv)
     results: dict = {"load_average": os.getloadavg()}
@@ -198,15 +207,19 @@ def main(argv=None) -> int:
     if not args.compile:
         _instrument()
         for n in args.sizes:
-            r = run_size(n, args.data, args.seed)
+            r = run_size(n, args.data, args.seed, reference=not args.no_reference)
             results[str(n)] = r
+            ratio = (
+                f" | reference {r['reference_wall_s']:.1f} s ({r['reference_cpu_s']:.1f} s CPU), "
+                f"ARI {r['reference_ari']:.2f} | ratio {r['ratio_wall']:.2f}x wall, "
+                f"{r['ratio_cpu']:.2f}x CPU"
+                if "reference_ari" in r
+                else ""
+            )
             print(
                 f"{r['frames']:>9,d} frames: discover {r['discover_wall_s']:.1f} s wall "
                 f"({r['discover_cpu_s']:.1f} s CPU), ARI {r['discover_ari']:.2f}, "
-                f"{r['discover_states']} states, {r['discover_unscored']:.1%} unscored | "
-                f"reference {r['reference_wall_s']:.1f} s ({r['reference_cpu_s']:.1f} s CPU), "
-                f"ARI {r['reference_ari']:.2f} | ratio {r['ratio_wall']:.2f}x wall, "
-                f"{r['ratio_cpu']:.2f}x CPU",
+                f"{r['discover_states']} states, {r['discover_unscored']:.1%} unscored{ratio}",
                 flush=True,
             )
             stages = ", ".join(f"{k} {w:.1f}/{c:.1f}" for k, (w, c) in r["stages"].items())

@@ -71,6 +71,7 @@ def stability_report(
     half_models: Sequence[Any] = (),
     seed_models: Sequence[Any] = (),
     fit_on: tuple[np.ndarray, Sequence[int] | np.ndarray] | None = None,
+    make_half_model: Callable[[int], Any] | None = None,
 ) -> StabilityReport:
     """Refit with several seeds (and on two halves of the sessions) and compare the labelings.
 
@@ -110,6 +111,11 @@ def stability_report(
         The frames the refits are fitted on (e.g. every training frame of the model, of which
         ``X`` is a sample for the comparisons); the split halves are then halves of these
         sessions. Default: ``X`` and ``lengths``.
+    make_half_model : callable seed -> unfitted segmenter, optional
+        Makes the split halves' models (default ``make_model``), e.g. one that subsamples a
+        half to half the frames the reference fit uses (a fit on a subsample of each half
+        measured what fits of every frame of the halves measure: benchmarks/README.md, "Fast
+        by default").
 
     Examples
     --------
@@ -144,14 +150,15 @@ def stability_report(
         work[len(seeds) :] = half_models
     bar = tqdm(total=len(work), desc="stability fits", disable=not progress)
 
+    make_half = make_model if make_half_model is None else make_half_model
+
     def refit(job: Any) -> tuple[Any, np.ndarray]:
         if isinstance(job, tuple):
             seed, idx, sub_lengths = job
-            model = make_model(seed)
             if idx is None:
-                model = model.fit(fit_X, fit_lengths)
+                model = make_model(seed).fit(fit_X, fit_lengths)
             else:
-                model = model.fit(fit_X[idx], sub_lengths)
+                model = make_half(seed).fit(fit_X[idx], sub_lengths)
         else:  # a model fitted already: it only labels
             model = job
         bar.update(1)
