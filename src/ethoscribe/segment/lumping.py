@@ -578,3 +578,108 @@ def join_phases(
                         }
                     )
     return pair_components(n, [p["states"] for p in pairs]), pairs
+
+
+# Points of the ridgeline searched for the mixture's maxima: a mode narrower than 1/1000 of the
+# path between two state means is far below any feature's resolution.
+RIDGELINE_POINTS = 1001
+
+
+def ridgeline_modes(
+    mean_a: np.ndarray,
+    cov_a: np.ndarray,
+    mean_b: np.ndarray,
+    cov_b: np.ndarray,
+    weight_a: float = 0.5,
+    n_points: int = RIDGELINE_POINTS,
+) -> int:
+    """Number of modes of the two-Gaussian mixture ``w N(mean_a, cov_a) + (1 - w) N(mean_b,
+    cov_b)``, in any dimension.
+
+    Every critical point of such a mixture lies on its *ridgeline* (Ray & Lindsay 2005, "The
+    topography of multivariate normal mixtures", Ann. Statist. 33, 2042-2065, Theorem 1)
+    ``x*(t) = [(1 - t) S_a^-1 + t S_b^-1]^-1 [(1 - t) S_a^-1 m_a + t S_b^-1 m_b]``, t in [0, 1],
+    and the modes are the local maxima of the mixture's density along it (their Theorem 2 and
+    Corollary 1 for two components); the density is evaluated at ``n_points`` values of t.
+    One mode: the two components are one cluster that a Gaussian model split in two.
+
+    Examples
+    --------
+    >>> I = np.eye(1)
+    >>> ridgeline_modes(np.zeros(1), I, np.full(1, 1.9), I), ridgeline_modes(np.zeros(1), I,
+    ...     np.full(1, 2.1), I)
+    (1, 2)
+    """
+    m_a, m_b = (np.asarray(m, dtype=np.float64).ravel() for m in (mean_a, mean_b))
+    s_a, s_b = (np.atleast_2d(np.asarray(s, dtype=np.float64)) for s in (cov_a, cov_b))
+    if not 0 < weight_a < 1:
+        raise InputError(f"weight_a must be in (0, 1); got {weight_a!r}")
+    p_a, p_b = np.linalg.inv(s_a), np.linalg.inv(s_b)
+    t = np.linspace(0.0, 1.0, int(n_points))[:, None, None]
+    precision = (1 - t) * p_a + t * p_b
+    rhs = ((1 - t) * (p_a @ m_a)[:, None] + t * (p_b @ m_b)[:, None])[..., 0]
+    x = np.linalg.solve(precision, rhs[..., None])[..., 0]  # (n_points, D)
+
+    def log_density(mean: np.ndarray, cov: np.ndarray) -> np.ndarray:
+        chol = np.linalg.cholesky(cov)
+        z = np.linalg.solve(chol, (x - mean).T)
+        log_det = 2.0 * np.log(np.diag(chol)).sum()
+        return -0.5 * ((z**2).sum(0) + log_det + len(mean) * np.log(2 * np.pi))
+
+    h = np.logaddexp(
+        np.log(weight_a) + log_density(m_a, s_a), np.log1p(-weight_a) + log_density(m_b, s_b)
+    )
+    rising = np.diff(h) > 0
+    # a maximum: rising then not rising, plus the ends when the path leaves them downhill
+    inner = int((rising[:-1] & ~rising[1:]).sum())
+    return inner + int(not rising[0]) + int(rising[-1])
+
+
+def join_modes(
+    transmat: np.ndarray,
+    means: np.ndarray,
+    covars: np.ndarray,
+    fps: float,
+    min_lift: float = PHASE_MIN_LIFT,
+    max_part_s: float = PHASE_MAX_S,
+) -> tuple[np.ndarray, list[dict]]:
+    """Join states that are parts of one cluster of frames, and leave every other state alone.
+
+    A Gaussian HMM fits a cluster of frames that is not Gaussian (a movement whose vigour
+    varies, a waveform's parts) with several states that alternate inside every bout. Two
+    states are joined when all hold:
+
+    1. they alternate: :func:`exchange_lift` > ``min_lift`` = 1 (more than by chance), as in
+       :func:`join_phases`;
+    2. they are one mode: the mixture of their two Gaussians, weighted by their occupancy,
+       has a single mode (:func:`ridgeline_modes`). Two behaviours, however close, are two
+       modes of the frames; this has no threshold to choose;
+    3. they are parts, not bouts: each state's mean stay ``1 / (1 - P_ii)`` frames is at most
+       ``max_part_s`` (1 s, the limit of :func:`join_phases`). Two states held for seconds
+       that share one mode (a still posture inside a broad moving one) stay apart.
+
+    Joined pairs are chained. Returns the group of every state and the joined pairs
+    (``states``, ``lift``, ``stay_s``).
+    """
+    T = np.asarray(transmat, dtype=np.float64)
+    means = np.asarray(means, dtype=np.float64)
+    covars = np.asarray(covars, dtype=np.float64)
+    n = len(T)
+    lift = exchange_lift(T)
+    pi = stationary_distribution(T)
+    stay = 1.0 / np.maximum(1.0 - np.diag(T), 1e-300) / float(fps)
+    pairs = []
+    for a in range(n):
+        for b in range(a + 1, n):
+            if not (lift[a, b] > min_lift and max(stay[a], stay[b]) <= max_part_s):
+                continue
+            w = float(pi[a] / (pi[a] + pi[b]))
+            if 0 < w < 1 and ridgeline_modes(means[a], covars[a], means[b], covars[b], w) == 1:
+                pairs.append(
+                    {
+                        "states": (a, b),
+                        "lift": float(lift[a, b]),
+                        "stay_s": [float(stay[a]), float(stay[b])],
+                    }
+                )
+    return pair_components(n, [p["states"] for p in pairs]), pairs

@@ -30,6 +30,7 @@ from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths, split_by_lengths
 from ethoscribe.segment.lumping import (
     join_across_units,
+    join_modes,
     join_phases,
     lump_states,
     lumped_transitions,
@@ -167,6 +168,15 @@ class BehaviourModel(BaseEstimator):
         seeds) the two together raised mean ARI 0.517 -> 0.570 and 0.544 -> 0.567 over the
         count on held-out sessions (pairs 0.51 -> 0.76, independent simulator 0.57 / 0.62 ->
         0.83 / 0.82); the fish fell at seed 0 (0.81 -> 0.72, 0.82 at seed 1).
+    join_modes : bool
+        Also label as one state two fitted states that are parts of one cluster of frames,
+        composed with ``join_phases`` and ``join_units`` (HMM methods; not in causal models):
+        they alternate more than by chance, each is held at most 1 s, and the mixture of their
+        two Gaussians has a single mode (:func:`ethoscribe.segment.lumping.join_modes`; the
+        ridgeline of Ray & Lindsay 2005). No pair of fitted states on the simulated sources
+        of the validation bench is one mode; BasicMotions' badminton, fitted as three states of
+        different vigour, is (benchmarks/README.md, "Parts of one mode joined"). Joined
+        states go through ``phase_groups_`` / ``fine_state``; :attr:`mode_pairs_` lists them.
     frame_weight : float or "autocorrelation"
         How much one frame counts when labelling (HMM method, not in causal models): every
         frame's emission log-likelihood is multiplied by it before Viterbi and the posteriors
@@ -225,6 +235,7 @@ class BehaviourModel(BaseEstimator):
         min_body_seen: float | None = 0.6,
         join_phases: bool = True,
         join_units: bool = True,
+        join_modes: bool = False,
         frame_weight: float | str = 1.0,
         random_state: int | np.random.Generator | None = 0,
         progress: bool = False,
@@ -242,6 +253,7 @@ class BehaviourModel(BaseEstimator):
         self.min_body_seen = min_body_seen
         self.join_phases = join_phases
         self.join_units = join_units
+        self.join_modes = join_modes
         self.frame_weight = frame_weight
         self.random_state = random_state
         self.progress = progress
@@ -272,6 +284,7 @@ class BehaviourModel(BaseEstimator):
             "min_body_seen": self.min_body_seen,
             "join_phases": bool(self.join_phases),
             "join_units": bool(self.join_units),
+            "join_modes": bool(self.join_modes),
             "frame_weight": self.frame_weight,
             "random_state": seed,
             "causal": bool(self.causal),
@@ -299,6 +312,8 @@ class BehaviourModel(BaseEstimator):
             raise InputError(f"join_phases must be True or False; got {self.join_phases!r}")
         if not isinstance(self.join_units, bool | np.bool_):
             raise InputError(f"join_units must be True or False; got {self.join_units!r}")
+        if not isinstance(self.join_modes, bool | np.bool_):
+            raise InputError(f"join_modes must be True or False; got {self.join_modes!r}")
         weight = self.frame_weight
         if weight != FRAME_WEIGHT_AUTO and (
             isinstance(weight, bool)
@@ -448,8 +463,8 @@ class BehaviourModel(BaseEstimator):
             segmenter.fit(X, lengths)
         if selection is None:  # a segmenter that chose its own count may show how
             selection = getattr(segmenter, "selection_", None)
-        self.phase_groups_, self.phase_pairs_, self.unit_pairs_ = self._phase_groups(
-            segmenter, feats[0].columns, X, lengths
+        self.phase_groups_, self.phase_pairs_, self.unit_pairs_, self.mode_pairs_ = (
+            self._phase_groups(segmenter, feats[0].columns, X, lengths)
         )
         self.frame_weight_, self.frame_time_s_ = self._frame_weight(segmenter, X, lengths)
         self.random_seed_ = seed
@@ -462,7 +477,9 @@ class BehaviourModel(BaseEstimator):
             self.state_tree_ = _state_tree(segmenter, fps_value)
         else:
             self.n_states_ = max(self.phase_groups_) + 1
-            said = _joined_said(self.phase_groups_, self.phase_pairs_, self.unit_pairs_)
+            said = _joined_said(
+                self.phase_groups_, self.phase_pairs_, self.unit_pairs_, self.mode_pairs_
+            )
             self.state_tree_ = _phase_tree(segmenter, self.phase_groups_, fps_value, said)
             if selection is not None:
                 self.selection_ = replace(
@@ -490,23 +507,30 @@ class BehaviourModel(BaseEstimator):
 
     def _phase_groups(
         self, segmenter: Any, columns: Sequence[str], X: np.ndarray, lengths: np.ndarray
-    ) -> tuple[list[int] | None, list[dict], list[dict]]:
-        """Labelled state of every fitted state when ``join_phases`` / ``join_units`` join some
-        (None when nothing is joined, both options are off, the model is causal or the
-        segmenter has no Gaussian states and transitions), and the joined pairs with their
-        evidence: phases of one rhythm, and one behaviour in different units."""
+    ) -> tuple[list[int] | None, list[dict], list[dict], list[dict]]:
+        """Labelled state of every fitted state when ``join_phases`` / ``join_units`` /
+        ``join_modes`` join some (None when nothing is joined, the options are off, the model
+        is causal or the segmenter has no Gaussian states and transitions), and the joined
+        pairs with their evidence: phases of one rhythm, one behaviour in different units,
+        parts of one mode."""
         causal = self.causal or bool((self.features or {}).get("causal"))
         needed = ("transmat_", "means_", "covars_")
-        if not (self.join_phases or self.join_units) or causal or hasattr(segmenter, "fine_"):
-            return None, [], []
+        modes = bool(getattr(self, "join_modes", False))
+        if (
+            not (self.join_phases or self.join_units or modes)
+            or causal
+            or hasattr(segmenter, "fine_")
+        ):
+            return None, [], [], []
         if not all(hasattr(segmenter, a) for a in needed):
-            return None, [], []
+            return None, [], [], []
         return joined_states(
             segmenter,
             steady_columns(columns),
             X if self.join_units else None,
             lengths,
             phases=bool(self.join_phases),
+            modes=modes,
         )
 
     def _to_labelled(self, states: np.ndarray, prob: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -762,6 +786,7 @@ class BehaviourModel(BaseEstimator):
             "phase_groups": getattr(self, "phase_groups_", None),
             "phase_pairs": getattr(self, "phase_pairs_", []),
             "unit_pairs": getattr(self, "unit_pairs_", []),
+            "mode_pairs": getattr(self, "mode_pairs_", []),
             "frame_weight": float(getattr(self, "frame_weight_", 1.0)),
             "frame_time_s": getattr(self, "frame_time_s_", None),
         }
@@ -841,6 +866,8 @@ class BehaviourModel(BaseEstimator):
         model.phase_pairs_ = list(pairs) if isinstance(pairs, list) else []
         pairs = meta.get("unit_pairs") or []
         model.unit_pairs_ = list(pairs) if isinstance(pairs, list) else []
+        pairs = meta.get("mode_pairs") or []
+        model.mode_pairs_ = list(pairs) if isinstance(pairs, list) else []
         model.random_seed_ = model.random_state
         # Models saved before the option weighted every frame as one independent frame.
         model.frame_weight_ = _checked_weight(meta.get("frame_weight", 1.0))
@@ -938,11 +965,13 @@ class PhaseJoined:
         groups: Sequence[int] | None = None,
         units: bool = False,
         phases: bool = True,
+        modes: bool = False,
     ):
         self.segmenter = segmenter
         self.steady = list(steady)
         self.units = units
         self.phases = phases
+        self.modes = modes
         self.groups = None if groups is None else np.asarray(groups, dtype=np.int64)
         if groups is None and hasattr(segmenter, "transmat_"):
             self.groups = self._find(None, None)
@@ -952,7 +981,7 @@ class PhaseJoined:
             X, lengths = check_X_lengths(X, lengths)
         else:
             X = None
-        groups, _, _ = joined_states(self.segmenter, self.steady, X, lengths, self.phases)
+        groups, *_ = joined_states(self.segmenter, self.steady, X, lengths, self.phases, self.modes)
         return None if groups is None else np.asarray(groups, dtype=np.int64)
 
     def fit(self, X: np.ndarray, lengths: Any = None) -> PhaseJoined:
@@ -981,9 +1010,14 @@ def labels_like_model(model: BehaviourModel, segmenter: Any, own: bool = False) 
         return segmenter if groups is None else PhaseJoined(segmenter, steady, groups)
     causal = model.causal or bool((model.features or {}).get("causal"))
     units = bool(getattr(model, "join_units", False))
-    if not (model.join_phases or units) or causal or not isinstance(segmenter, GaussianHMM):
+    modes = bool(getattr(model, "join_modes", False))
+    if (
+        not (model.join_phases or units or modes)
+        or causal
+        or not isinstance(segmenter, GaussianHMM)
+    ):
         return segmenter
-    return PhaseJoined(segmenter, steady, units=units, phases=bool(model.join_phases))
+    return PhaseJoined(segmenter, steady, units=units, phases=bool(model.join_phases), modes=modes)
 
 
 def joined_states(
@@ -992,15 +1026,17 @@ def joined_states(
     X: np.ndarray | None,
     lengths: Any,
     phases: bool = True,
-) -> tuple[list[int] | None, list[dict], list[dict]]:
+    modes: bool = False,
+) -> tuple[list[int] | None, list[dict], list[dict], list[dict]]:
     """Labelled state of every fitted state of ``segmenter`` (Gaussian states, transitions),
     with the pairs joined and their evidence; None when nothing is joined.
 
     ``phases``: join phases of one rhythm (:func:`ethoscribe.segment.lumping.join_phases` on the
     ``steady`` columns). ``X`` given (the fitted frames, ``lengths`` per unit): also join states
     that are one behaviour in different units (:func:`ethoscribe.segment.lumping.
-    join_across_units`, shares of the units' frames from the state posteriors). The two sets
-    of pairs are joined together (connected components).
+    join_across_units`, shares of the units' frames from the state posteriors). ``modes``:
+    also join parts of one mode (:func:`ethoscribe.segment.lumping.join_modes`). The sets of
+    pairs are joined together (connected components).
     """
     n = int(segmenter.n_states_)
     phase_pairs: list[dict] = []
@@ -1031,14 +1067,27 @@ def joined_states(
             }
             for a, b in found
         ]
-    pairs = [tuple(p["states"]) for p in phase_pairs + unit_pairs]
+    mode_pairs: list[dict] = []
+    if modes:
+        _, found = join_modes(
+            segmenter.transmat_, segmenter.means_, segmenter.covars_, float(segmenter.fps)
+        )
+        mode_pairs = [
+            {"states": [int(a) for a in p["states"]], "lift": p["lift"], "stay_s": p["stay_s"]}
+            for p in found
+        ]
+    pairs = [tuple(p["states"]) for p in phase_pairs + unit_pairs + mode_pairs]
     if not pairs:
-        return None, [], []
-    return [int(a) for a in pair_components(n, pairs)], phase_pairs, unit_pairs
+        return None, [], [], []
+    groups = [int(a) for a in pair_components(n, pairs)]
+    return groups, phase_pairs, unit_pairs, mode_pairs
 
 
 def _joined_said(
-    groups: Sequence[int], phase_pairs: Sequence[dict], unit_pairs: Sequence[dict]
+    groups: Sequence[int],
+    phase_pairs: Sequence[dict],
+    unit_pairs: Sequence[dict],
+    mode_pairs: Sequence[dict] = (),
 ) -> str:
     """What was joined, in words: ``phases of one rhythm joined (fitted 4+5 as 4)`` and / or
     ``one behaviour in different units joined (fitted 1+3 as 1)``."""
@@ -1046,6 +1095,7 @@ def _joined_said(
     for pairs, what in (
         (phase_pairs, "phases of one rhythm joined"),
         (unit_pairs, "one behaviour in different units joined"),
+        (mode_pairs, "parts of one mode joined"),
     ):
         if pairs:
             joined = ", ".join(
