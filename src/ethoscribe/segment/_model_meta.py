@@ -70,12 +70,6 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
         problems.append(
             f"'params.decoding' must be 'min_duration' or 'merge', got {_show(decoding)}"
         )
-    weight = params.get("frame_weight", 1.0)
-    if weight != "autocorrelation" and (not is_real(weight) or not 0 < weight <= 1):
-        problems.append(
-            f"'params.frame_weight' must be a number in (0, 1] or 'autocorrelation', "
-            f"got {_show(weight)}"
-        )
     seen = params.get("min_body_seen", 0.6)
     if seen is not None and (not is_real(seen) or not 0 < seen <= 1):
         problems.append(

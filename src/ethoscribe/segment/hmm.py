@@ -324,16 +324,11 @@ class GaussianHMM(BaseEstimator):
         emission = GaussianEmission(self.means_, self.covars_, self.covariance_type)
         return X, lengths, emission
 
-    def _log_emission_batches(self, X, lengths, weight: float = 1.0):
-        """Emission log-likelihoods per batch of sessions, times ``weight`` (a tempered
-        likelihood: each frame counts as ``weight`` independent frames; see
-        :mod:`ethoscribe.segment.correlation`)."""
+    def _log_emission_batches(self, X, lengths):
         X, lengths, emission = self._prepare(X, lengths)
-        weight = _checked_weight(weight)
         with one_thread():
             for a, b, sub in _batches(lengths):
-                log_b = emission.log_likelihood(X[a:b])
-                yield a, b, sub, (log_b if weight == 1.0 else log_b * weight)
+                yield a, b, sub, emission.log_likelihood(X[a:b])
 
     def score(self, X: np.ndarray, lengths: Sequence[int] | np.ndarray | None = None) -> float:
         """Total log-likelihood ``log P(X)`` of all sessions."""
@@ -359,41 +354,30 @@ class GaussianHMM(BaseEstimator):
             out[a:b] = forward_filter_log(log_b, self.startprob_, self.transmat_, sub)[0]
         return out
 
-    def predict_proba(self, X: np.ndarray, lengths=None, weight: float = 1.0) -> np.ndarray:
-        """Smoothed posteriors ``P(state_t | whole session)``, shape (n_frames, K).
-
-        ``weight`` (0, 1]: every frame's emission log-likelihood is multiplied by it (each
-        frame counts as ``weight`` independent frames; :mod:`ethoscribe.segment.correlation`).
-        """
+    def predict_proba(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Smoothed posteriors ``P(state_t | whole session)``, shape (n_frames, K)."""
         check_fitted(self, "means_")
         out = np.empty((len(X), self.n_states_))
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths, weight):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
             post = forward_backward_log(log_b, self.startprob_, self.transmat_, sub, True)
             out[a:b] = post.gamma
         return out
 
-    def decode(self, X: np.ndarray, lengths=None, weight: float = 1.0) -> tuple[float, np.ndarray]:
-        """Viterbi: ``(joint log-probability of the best paths, labels (n_frames,))``;
-        ``weight`` as in :meth:`predict_proba`."""
+    def decode(self, X: np.ndarray, lengths=None) -> tuple[float, np.ndarray]:
+        """Viterbi: ``(joint log-probability of the best paths, labels (n_frames,))``."""
         labels = np.empty(len(X), dtype=np.int64)
         logprob = 0.0
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths, weight):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
             labels[a:b], best = viterbi_log(log_b, self.startprob_, self.transmat_, sub)
             logprob += float(best.sum())
         return logprob, labels
 
-    def predict(self, X: np.ndarray, lengths=None, weight: float = 1.0) -> np.ndarray:
-        """Most probable state path (Viterbi), int labels (n_frames,); ``weight`` as in
-        :meth:`predict_proba`."""
-        return self.decode(X, lengths, weight)[1]
+    def predict(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Most probable state path (Viterbi), int labels (n_frames,)."""
+        return self.decode(X, lengths)[1]
 
     def predict_min_duration(
-        self,
-        X: np.ndarray,
-        lengths=None,
-        min_frames: int = 1,
-        outlier_share: float = 0.0,
-        weight: float = 1.0,
+        self, X: np.ndarray, lengths=None, min_frames: int = 1, outlier_share: float = 0.0
     ) -> tuple[np.ndarray, np.ndarray]:
         """Labels whose every bout lasts at least ``min_frames``, and their posteriors.
 
@@ -401,8 +385,7 @@ class GaussianHMM(BaseEstimator):
         (:mod:`ethoscribe.segment.duration`): each state must be held ``min_frames`` frames
         before the fitted transition probabilities apply. A session shorter than
         ``min_frames`` is one bout. ``outlier_share`` > 0 takes that share of frames to be
-        uninformative (:func:`ethoscribe.segment.duration.with_outlier_frames`); ``weight`` as
-        in :meth:`predict_proba` (applied before the outlier term). With
+        uninformative (:func:`ethoscribe.segment.duration.with_outlier_frames`). With
         ``min_frames=1`` and ``outlier_share=0`` this is :meth:`predict` and
         :meth:`predict_proba`.
 
@@ -417,7 +400,7 @@ class GaussianHMM(BaseEstimator):
         labels = np.empty(len(X), dtype=np.int64)
         proba = np.empty((len(X), self.n_states_))
         start, trans = self.startprob_, self.transmat_
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths, weight):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
             if outlier_share > 0:
                 log_b = duration.with_outlier_frames(log_b, outlier_share)
             labels[a:b] = duration.viterbi(log_b, start, trans, min_frames, sub)[0]
@@ -517,15 +500,6 @@ class GaussianHMM(BaseEstimator):
 
 
 _MAX_STATES = 1000  # a saved state count beyond this is damage, not a model
-
-
-def _checked_weight(weight: float) -> float:
-    """A frame weight in (0, 1] as a float; InputError otherwise."""
-    if isinstance(weight, bool) or not isinstance(weight, int | float | np.floating | np.integer):
-        raise InputError(f"weight must be a number in (0, 1]; got {weight!r}")
-    if not (np.isfinite(weight) and 0 < weight <= 1):
-        raise InputError(f"weight must be a number in (0, 1]; got {weight!r}")
-    return float(weight)
 
 
 def _start_from(model: GaussianHMM, n_states: int, n_features: int) -> dict[str, np.ndarray]:

@@ -24,7 +24,6 @@ from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
 from ethoscribe.pose import PoseTracks, check_same_body_plan
 from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._model_meta import RESAVE, check_meta, known_keys
-from ethoscribe.segment.correlation import residual_time
 from ethoscribe.segment.duration import OUTLIER_SHARE
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths, split_by_lengths
@@ -52,7 +51,6 @@ FORMAT_VERSION = 1
 # as a whole (benchmarks/README.md, "One behaviour in different units joined after the fit").
 COUNT_DEFAULTS = {"heldout": "blocks"}
 DECODINGS = ("min_duration", "merge")
-FRAME_WEIGHT_AUTO = "autocorrelation"
 
 
 def motif_name(state: int) -> str:
@@ -180,19 +178,6 @@ class BehaviourModel(BaseEstimator):
         (0.72 / 0.74 -> 0.81) and one series (0.25 -> 0.23) changed (benchmarks/README.md,
         "Parts of one mode joined"). Joined states go through ``phase_groups_`` /
         ``fine_state``; :attr:`mode_pairs_` lists them.
-    frame_weight : float or "autocorrelation"
-        How much one frame counts when labelling (HMM method, not in causal models): every
-        frame's emission log-likelihood is multiplied by it before Viterbi and the posteriors
-        (the fit is unchanged). 1: every frame is an independent observation, as the Gaussian
-        HMM assumes. "autocorrelation": ``1 / tau``, where ``tau`` is the integrated
-        autocorrelation time (frames, Sokal's window) of the training frames' residuals from
-        their decoded state's mean, whitened by its covariance
-        (:mod:`ethoscribe.segment.correlation`): windowed features make successive frames far
-        from independent, so ``tau`` frames hold about one frame's information, and a short
-        run of frames leaning to another state no longer adds up to a switch. The value used is
-        :attr:`frame_weight_` (and ``frame_time_s_``, ``tau`` in seconds). A number in (0, 1]:
-        that weight. On the validation bench it did not pay (benchmarks/README.md, "Frames
-        weighted by the residuals' autocorrelation"), so the default stays 1.
     random_state : int, numpy.random.Generator or None
         Seed of every random choice (initialisations, subsamples). A generator gives one seed
         per fit (``random_seed_``, what a saved model records).
@@ -239,7 +224,6 @@ class BehaviourModel(BaseEstimator):
         join_phases: bool = True,
         join_units: bool = True,
         join_modes: bool = True,
-        frame_weight: float | str = 1.0,
         random_state: int | np.random.Generator | None = 0,
         progress: bool = False,
         causal: bool = False,
@@ -257,7 +241,6 @@ class BehaviourModel(BaseEstimator):
         self.join_phases = join_phases
         self.join_units = join_units
         self.join_modes = join_modes
-        self.frame_weight = frame_weight
         self.random_state = random_state
         self.progress = progress
         self.causal = causal
@@ -288,7 +271,6 @@ class BehaviourModel(BaseEstimator):
             "join_phases": bool(self.join_phases),
             "join_units": bool(self.join_units),
             "join_modes": bool(self.join_modes),
-            "frame_weight": self.frame_weight,
             "random_state": seed,
             "causal": bool(self.causal),
             "state_count_options": self.state_count_options,
@@ -317,20 +299,6 @@ class BehaviourModel(BaseEstimator):
             raise InputError(f"join_units must be True or False; got {self.join_units!r}")
         if not isinstance(self.join_modes, bool | np.bool_):
             raise InputError(f"join_modes must be True or False; got {self.join_modes!r}")
-        weight = self.frame_weight
-        if weight != FRAME_WEIGHT_AUTO and (
-            isinstance(weight, bool)
-            or not isinstance(weight, int | float | np.floating | np.integer)
-            or not (np.isfinite(weight) and 0 < weight <= 1)
-        ):
-            raise InputError(
-                f"frame_weight must be a number in (0, 1] or {FRAME_WEIGHT_AUTO!r}; got {weight!r}"
-            )
-        if weight != 1 and (self.method != "hmm" or self.causal):
-            raise InputError(
-                f"frame_weight={weight!r} needs method='hmm' without causal=True (it reweights "
-                "the Gaussian HMM's offline decoding); use frame_weight=1"
-            )
         seen = self.min_body_seen
         if seen is not None and (
             isinstance(seen, bool) or not isinstance(seen, int | float) or not 0 < seen <= 1
@@ -469,7 +437,6 @@ class BehaviourModel(BaseEstimator):
         self.phase_groups_, self.phase_pairs_, self.unit_pairs_, self.mode_pairs_ = (
             self._phase_groups(segmenter, feats[0].columns, X, lengths)
         )
-        self.frame_weight_, self.frame_time_s_ = self._frame_weight(segmenter, X, lengths)
         self.random_seed_ = seed
         self.cleaning_ = params
         self.features_ = pipeline
@@ -496,17 +463,6 @@ class BehaviourModel(BaseEstimator):
         self.training_sessions_ = [s.session for s in sessions]
         self.n_training_frames_ = int(lengths.sum())
         return feats
-
-    def _frame_weight(
-        self, segmenter: Any, X: np.ndarray, lengths: np.ndarray
-    ) -> tuple[float, float | None]:
-        """The weight of one frame in decoding (``frame_weight``) and, when measured, the
-        residuals' integrated autocorrelation time in seconds."""
-        if self.frame_weight != FRAME_WEIGHT_AUTO:
-            return float(self.frame_weight), None
-        states = segmenter.predict(X, lengths)
-        tau = residual_time(X, lengths, states, segmenter.means_, segmenter.covars_)
-        return 1.0 / tau, tau / float(segmenter.fps)
 
     def _phase_groups(
         self, segmenter: Any, columns: Sequence[str], X: np.ndarray, lengths: np.ndarray
@@ -662,9 +618,7 @@ class BehaviourModel(BaseEstimator):
         if len(X) == 0:
             return np.zeros(0, dtype=np.int64)
         if joined:  # the fitted states under the phase-joined labels
-            weight = getattr(self, "frame_weight_", 1.0)
-            weighted = {"weight": weight} if weight != 1.0 else {}
-            return np.asarray(seg.predict(X, lengths, **weighted), dtype=np.int64)
+            return np.asarray(seg.predict(X, lengths), dtype=np.int64)
         return np.asarray(seg.predict_fine(X, lengths), dtype=np.int64)
 
     def suggested_merges(self, labels: pd.DataFrame | None = None, top: int = 10) -> list[dict]:
@@ -747,13 +701,11 @@ class BehaviourModel(BaseEstimator):
             prob = _filtered(self.method, seg, X, lengths)
             return np.argmax(prob, axis=1), prob
         chain = getattr(seg, "predict_min_duration", None)
-        weighted = {"weight": w} if (w := getattr(self, "frame_weight_", 1.0)) != 1.0 else {}
         if min_frames > 1 and self.decoding == "min_duration" and chain is not None:
             # joined phases only merge neighbouring bouts, each already >= the minimum
-            return self._to_labelled(*chain(X, lengths, min_frames, OUTLIER_SHARE, **weighted))
+            return self._to_labelled(*chain(X, lengths, min_frames, OUTLIER_SHARE))
         if get_segmenter(self.method).posteriors:
-            states = seg.predict(X, lengths, **weighted)
-            prob = seg.predict_proba(X, lengths, **weighted)
+            states, prob = seg.predict(X, lengths), seg.predict_proba(X, lengths)
             # phases joined before the minimum bout: a phase is shorter than a bout
             states, prob = self._to_labelled(states, prob)
         else:
@@ -790,8 +742,6 @@ class BehaviourModel(BaseEstimator):
             "phase_pairs": getattr(self, "phase_pairs_", []),
             "unit_pairs": getattr(self, "unit_pairs_", []),
             "mode_pairs": getattr(self, "mode_pairs_", []),
-            "frame_weight": float(getattr(self, "frame_weight_", 1.0)),
-            "frame_time_s": getattr(self, "frame_time_s_", None),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -872,10 +822,6 @@ class BehaviourModel(BaseEstimator):
         pairs = meta.get("mode_pairs") or []
         model.mode_pairs_ = list(pairs) if isinstance(pairs, list) else []
         model.random_seed_ = model.random_state
-        # Models saved before the option weighted every frame as one independent frame.
-        model.frame_weight_ = _checked_weight(meta.get("frame_weight", 1.0))
-        time_s = meta.get("frame_time_s")
-        model.frame_time_s_ = float(time_s) if isinstance(time_s, int | float) else None
         model.fps_ = float(meta["fps"])
         model.keypoints_ = tuple(meta["keypoints"])
         model.n_dims_ = int(meta["n_dims"])
@@ -908,14 +854,6 @@ class BehaviourModel(BaseEstimator):
         if problems:
             raise InputError("the model file is inconsistent: " + "; ".join(problems) + ".")
         return model
-
-
-def _checked_weight(weight: Any) -> float:
-    """A saved frame weight: a number in (0, 1]; refused otherwise (labels depend on it)."""
-    ok = isinstance(weight, int | float) and not isinstance(weight, bool)
-    if not (ok and np.isfinite(weight) and 0 < weight <= 1):
-        raise InputError(f"'frame_weight' must be a number in (0, 1]; got {weight!r:.40}. {RESAVE}")
-    return float(weight)
 
 
 def _fixed_speed(cleaned: Sequence[PoseTracks]) -> float | None:
