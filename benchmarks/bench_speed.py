@@ -6,6 +6,8 @@ Usage (from the repository root)::
     python -m benchmarks.bench_speed --sizes 54000       # the small study only
     python -m benchmarks.bench_speed --compile           # first-run numba compile cost only
     python -m benchmarks.bench_speed --sizes 54000 --no-compile --no-reference  # stages only
+    python -m benchmarks.bench_speed --sizes 54000 --no-reference \
+        --segmenter '{"screening": "once"}'   # a variant of the default method's options
 
 Studies: 54,000 frames are the bench's ``own_voles`` source (six example sessions of 9,000
 frames); 1,000,000 frames are simulated once by the package's simulator (ten sessions of
@@ -20,6 +22,10 @@ truth over the frames each labels. The ratio is reference seconds / discover sec
 same run; the machine may be shared, so CPU seconds are printed beside wall seconds.
 The stages inside discover (state count, final fit, stability, labelling) are timed by
 wrapping the library calls.
+
+``--segmenter``: options (JSON) added to the default method's own options for this run
+(every fit of ``discover`` gets them: the state count's, the final and the stability refits),
+to time a variant against the defaults without editing code.
 
 ``--compile``: the numba compile cost of a first run: a small discover in a fresh process with
 an empty numba cache, then again with the cache it left; the difference is the compile cost.
@@ -55,6 +61,16 @@ def _instrument() -> None:
         (runs, "_write_workspace", "write"),
     ]:
         setattr(owner, attr, _timed(name, getattr(owner, attr)))
+
+
+def _with_options(options: dict) -> None:
+    """Add ``options`` to the default method's registered options (this process only)."""
+    from dataclasses import replace
+
+    from ethoscribe.segment.registry import get_segmenter, register
+
+    spec = get_segmenter("hmm")
+    register(replace(spec, options={**spec.options, **options}), replace=True)
 
 
 def _study(data: Path, n_frames: int) -> Path:
@@ -194,7 +210,12 @@ def main(argv=None) -> int:
         "--no-reference", action="store_true", help="time discover and its stages only"
     )
     parser.add_argument("--json", type=Path, help="also write the results here")
+    parser.add_argument(
+        "--segmenter", type=json.loads, default={}, help="JSON options of the default method"
+    )
     args = parser.parse_args(argv)
+    if args.segmenter:
+        _with_options(args.segmenter)
     results: dict = {"load_average": os.getloadavg()}
     results["compile"] = c = compile_cost() if args.compile or not args.no_compile else None
     if c:

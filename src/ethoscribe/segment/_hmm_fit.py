@@ -37,6 +37,7 @@ _EMPTY_FRAMES = 1.0  # a state with less expected frames than this is re-seeded
 SCREEN_ITER = 10
 SCREEN_FRAMES = 20_000
 SCREEN_BLOCK_S = 10.0
+SCREENINGS = ("each_restart", "once")  # GaussianHMM(screening=...): see screened_starts
 
 
 def n_threads(n_jobs: int | None) -> int:
@@ -112,6 +113,11 @@ def check_hmm_params(model: Any) -> None:
         ("min_covar", is_real(m.min_covar) and m.min_covar > 0, "> 0 (a covariance floor)"),
         ("init", m.init in ("kmeans", "random"), "'kmeans' or 'random'"),
         ("init_candidates", is_int(m.init_candidates) and m.init_candidates >= 1, "an int >= 1"),
+        (
+            "screening",
+            getattr(m, "screening", "each_restart") in SCREENINGS,
+            f"one of {SCREENINGS}",
+        ),
         (
             "fit_max_frames",
             m.fit_max_frames is None or (is_int(m.fit_max_frames) and m.fit_max_frames >= 100),
@@ -316,10 +322,11 @@ def screened_start(
     likelihoods are comparable. ``persistence`` is the prior weight per state and frame
     (``trans_counts = persistence * n_frames * sticky``).
 
-    Returns the parameters of the best candidate (as ``run_em`` returns them).
+    Returns the parameters of the best candidate (as ``run_em`` returns them). This is the
+    screening of every restart (``screening="each_restart"``); ``screened_starts`` screens
+    once for all restarts.
     """
-    block = max(30, round(SCREEN_BLOCK_S * model.fps))
-    Xs, sub = take_blocks(X, lengths, SCREEN_FRAMES, block, rng)
+    Xs, sub = _screening_sample(model, X, lengths, rng)
     trans_counts = persistence * len(Xs) * sticky
     best = None
     for _ in range(int(model.init_candidates)):
@@ -328,6 +335,75 @@ def screened_start(
         if best is None or res["log_likelihood"] > best["log_likelihood"]:
             best = res
     return best
+
+
+def screened_starts(
+    model, X, lengths, K, sticky, start_counts, persistence, rng, bar, n_keep, n_jobs=1
+) -> list[dict[str, Any]]:
+    """The ``n_keep`` best of ``model.init_candidates`` distinct starting points after one
+    shared screening (``screening="once"``), best first.
+
+    The candidates are drawn and screened as in ``screened_start`` (same subsample, same
+    short runs, same random stream: with ``n_keep=1`` the best is the one ``screened_start``
+    returns), but once for the whole fit: each restart continues one of the best screened
+    candidates instead of screening ``init_candidates`` of its own. This is the "several
+    short runs, then the best few run to convergence" form of the short-runs strategy
+    (Biernacki, Celeux & Govaert 2003): a fit of ``n_restarts`` restarts screens
+    ``init_candidates`` starts instead of ``n_restarts * init_candidates``.
+
+    Candidates whose initial means are the same states as an earlier candidate's (k-means
+    from another seed often ends in the same partition; compared up to the order of the
+    states) are dropped before their short run: EM from them is the same computation, and a
+    restart continuing a copy would only repeat another. So fewer than ``n_keep`` may be
+    returned when the candidates hold fewer distinct starts. The short runs are independent
+    and run on up to ``n_jobs`` threads (the result does not depend on it).
+    """
+    Xs, sub = _screening_sample(model, X, lengths, rng)
+    trans_counts = persistence * len(Xs) * sticky
+    starts: list[np.ndarray] = []
+    for _ in range(int(model.init_candidates)):
+        means = initial_means(Xs, K, model.init, rng)
+        if not any(same_states(means, other) for other in starts):
+            starts.append(means)
+
+    def short_run(means: np.ndarray) -> dict[str, Any]:
+        return run_em(model, Xs, sub, means, sticky, start_counts, trans_counts, bar, SCREEN_ITER)
+
+    results = in_threads(short_run, starts, n_jobs)
+    # best first; equal likelihoods keep the order of drawing (as screened_start's strict >)
+    order = sorted(range(len(results)), key=lambda i: -results[i]["log_likelihood"])
+    return [results[i] for i in order[: int(n_keep)]]
+
+
+def same_states(a: np.ndarray, b: np.ndarray, rtol: float = 1e-7) -> bool:
+    """Whether two sets of state means (K, D) are equal up to the order of the states.
+
+    Each row of ``a`` is matched to its nearest row of ``b`` (a permutation is required:
+    every row of ``b`` matched once); equal within ``rtol`` of the largest absolute mean.
+
+    Examples
+    --------
+    >>> same_states(np.array([[0.0, 1.0], [2.0, 3.0]]), np.array([[2.0, 3.0], [0.0, 1.0]]))
+    True
+    >>> same_states(np.array([[0.0, 1.0], [2.0, 3.0]]), np.array([[2.0, 3.0], [0.0, 1.5]]))
+    False
+    """
+    a, b = np.asarray(a, dtype=np.float64), np.asarray(b, dtype=np.float64)
+    if a.shape != b.shape:
+        return False
+    tol = rtol * max(1.0, float(np.abs(a).max(initial=0.0)), float(np.abs(b).max(initial=0.0)))
+    dist = np.abs(a[:, None, :] - b[None, :, :]).max(axis=2)  # (K, K) largest coordinate gap
+    nearest = dist.argmin(axis=1)
+    return len(np.unique(nearest)) == len(a) and bool(
+        (dist[np.arange(len(a)), nearest] <= tol).all()
+    )
+
+
+def _screening_sample(model, X, lengths, rng):
+    """The screening subsample: at most ``SCREEN_FRAMES`` frames in blocks of
+    ``SCREEN_BLOCK_S`` seconds from every session."""
+    block = max(30, round(SCREEN_BLOCK_S * model.fps))
+    return take_blocks(X, lengths, SCREEN_FRAMES, block, rng)
 
 
 def _reseed(X, empty, reseeds, old, new, global_cov, sticky, covariance_type):

@@ -48,7 +48,8 @@ from ethoscribe.segment.select import (
 FORMAT_VERSION = 1
 _HMM_PARAMS = (
     "covariance_type", "expected_bout_s", "persistence_strength", "n_restarts", "n_iter", "tol",
-    "min_covar", "init", "init_candidates", "fit_max_frames", "n_jobs", "engine", "progress",
+    "min_covar", "init", "init_candidates", "screening", "fit_max_frames", "n_jobs", "engine",
+    "progress",
 )  # fmt: skip
 
 
@@ -95,7 +96,8 @@ class GroupedHMM(BaseEstimator):
         used apart from others joins its nearest such state (not only mutual pairs). None:
         group by transitions only.
     covariance_type, expected_bout_s, fps, persistence_strength, n_restarts, n_iter, tol,
-    min_covar, init, init_candidates, fit_max_frames, n_jobs, engine, random_state, progress
+    min_covar, init, init_candidates, screening, fit_max_frames, n_jobs, engine, random_state,
+    progress
         As :class:`ethoscribe.segment.hmm.GaussianHMM` (the fine model).
 
     Attributes
@@ -135,6 +137,7 @@ class GroupedHMM(BaseEstimator):
         min_covar: float = 1e-3,
         init: str = "kmeans",
         init_candidates: int = 8,
+        screening: str = "each_restart",
         fit_max_frames: int | None = 200_000,
         n_jobs: int | None = None,
         engine: str = "fast",
@@ -160,6 +163,7 @@ class GroupedHMM(BaseEstimator):
         self.min_covar = min_covar
         self.init = init
         self.init_candidates = init_candidates
+        self.screening = screening
         self.fit_max_frames = fit_max_frames
         self.n_jobs = n_jobs
         self.engine = engine

@@ -45,6 +45,7 @@ from ethoscribe.segment._hmm_fit import (
     one_thread,
     run_em,
     screened_start,
+    screened_starts,
     sticky_transmat,
 )
 from ethoscribe.segment._hmm_gaussian import GaussianEmission
@@ -136,6 +137,13 @@ class GaussianHMM(BaseEstimator):
         (``_hmm_fit.screened_start``). 1: no screening, EM starts from one set of initial
         means. The default 8 costs less than one full restart (80 iterations on 20,000
         frames against 10-50 on up to 200,000) and made poor optima rarer (module doc).
+    screening : {"each_restart", "once"}
+        "each_restart": every restart screens ``init_candidates`` starting points of its own
+        and continues its best. "once": one screening of ``init_candidates`` for the whole
+        fit, and the restarts continue its ``n_restarts`` best distinct candidates
+        (``_hmm_fit.screened_starts``; copies of a candidate are dropped, so fewer restarts
+        run when fewer distinct starts were drawn): ``n_restarts`` times less screening.
+        With one restart both give the same fit.
     fit_max_frames : int or None
         Fit on a representative subsample of about this many frames when the data are larger:
         every session gives a share proportional to its length, as contiguous blocks of at
@@ -156,7 +164,8 @@ class GaussianHMM(BaseEstimator):
     ----------
     means_ (K, D), covars_ (K, D, D), startprob_ (K,), transmat_ (K, K), n_states_,
     n_features_in_, log_likelihood_ (per frame of the fit data, best restart),
-    restart_log_likelihoods_ (n_restarts,), n_iter_, converged_, covariance_floor_,
+    restart_log_likelihoods_ (n_restarts, or fewer with ``screening="once"``; then one per
+    ``init_models``), n_iter_, converged_, covariance_floor_,
     n_fit_frames_, random_seed_.
 
     Examples
@@ -181,6 +190,7 @@ class GaussianHMM(BaseEstimator):
         min_covar: float = 1e-3,
         init: str = "kmeans",
         init_candidates: int = 8,
+        screening: str = "each_restart",
         fit_max_frames: int | None = 200_000,
         n_jobs: int | None = None,
         engine: str = "fast",
@@ -198,6 +208,7 @@ class GaussianHMM(BaseEstimator):
         self.min_covar = min_covar
         self.init = init
         self.init_candidates = init_candidates
+        self.screening = screening
         self.fit_max_frames = fit_max_frames
         self.n_jobs = n_jobs
         self.engine = engine
@@ -257,12 +268,25 @@ class GaussianHMM(BaseEstimator):
         trans_counts = (
             0.0 if self.expected_bout_s is None else self.persistence_strength * n_fit / K * sticky
         )
-        n_runs = self.n_restarts + len(starts)
-        bar = tqdm(total=n_runs, desc="HMM restarts", disable=not self.progress)
+        persistence = 0.0 if self.expected_bout_s is None else (self.persistence_strength / K)
+        bar = tqdm(
+            total=self.n_restarts + len(starts), desc="HMM restarts", disable=not self.progress
+        )
+        n_usual, screened = self.n_restarts, []
+        if self.engine == "fast" and self.init_candidates > 1 and self.screening == "once":
+            # one screening for every restart, on restart 0's random stream
+            with one_thread():
+                screened = screened_starts(
+                    self, X_fit, fit_lengths, K, sticky, start_counts, persistence,
+                    np.random.default_rng(seeds[1]), bar, self.n_restarts, self.n_jobs,
+                )  # fmt: skip
+            n_usual = len(screened)
+            bar.total = n_usual + len(starts)
+        n_runs = n_usual + len(starts)
 
         def restart(r: int) -> dict[str, Any]:
-            if r >= self.n_restarts:  # warm start: EM from a fitted model's parameters
-                given = starts[r - self.n_restarts]
+            if r >= n_usual:  # warm start: EM from a fitted model's parameters
+                given = starts[r - n_usual]
                 start = {**given, "means": given["means"] - offset}
                 res = run_em(
                     self, X_fit, fit_lengths, start["means"], sticky, start_counts,
@@ -271,14 +295,16 @@ class GaussianHMM(BaseEstimator):
                 bar.update(1)
                 return res
             rng = np.random.default_rng(seeds[r + 1])
-            if self.engine == "hmmlearn":
+            if screened:  # continue the r-th best candidate of the shared screening
+                res = run_em(
+                    self, X_fit, fit_lengths, screened[r]["means"], sticky, start_counts,
+                    trans_counts, bar, start=screened[r],
+                )  # fmt: skip
+            elif self.engine == "hmmlearn":
                 res = fit_with_hmmlearn(
                     self, X_fit, fit_lengths, sticky, start_counts, trans_counts, rng
                 )
             elif self.init_candidates > 1:
-                persistence = (
-                    0.0 if self.expected_bout_s is None else (self.persistence_strength / K)
-                )
                 start = screened_start(
                     self, X_fit, fit_lengths, K, sticky, start_counts, persistence, rng, bar
                 )
