@@ -1,5 +1,5 @@
-"""Cheaper screenings of starting points (``GaussianHMM(screening="once" | "halving")``)
-against the screening of every restart, hmmlearn's EM from the same starts and the truth."""
+"""Screening of starting points once per fit (``GaussianHMM(screening="once")``) against
+the screening of every restart, hmmlearn's EM from the same starts and the truth."""
 
 from __future__ import annotations
 
@@ -9,14 +9,7 @@ from hmmlearn.hmm import GaussianHMM as ReferenceHMM
 from sklearn.metrics import adjusted_rand_score
 
 from ethoscribe.errors import InputError
-from ethoscribe.segment._hmm_fit import (
-    initial_means,
-    run_em,
-    same_states,
-    screened_start,
-    screened_starts,
-    sticky_transmat,
-)
+from ethoscribe.segment._hmm_fit import same_states, screened_starts, sticky_transmat
 from ethoscribe.segment.hmm import GaussianHMM
 from test_hmm_sampling import sample_sticky_hmm
 
@@ -88,53 +81,12 @@ def test_restarts_continue_the_best_screened_candidates_as_hmmlearn_would():
         assert ll == pytest.approx(ref.score(X, lengths) / len(X), abs=1e-5)
 
 
-@pytest.mark.parametrize("screening", ["each_restart", "once", "halving"])
-def test_every_screening_recovers_the_states(screening):
+def test_once_recovers_the_states():
     X, truth, lengths = sample_sticky_hmm(seed=14, n_states=4, lengths=(1500, 1500))
-    m = GaussianHMM(4, n_restarts=2, screening=screening, random_state=0).fit(X, lengths)
-    # agreement with the true states, scikit-learn's adjusted Rand index
-    assert adjusted_rand_score(truth, m.predict(X, lengths)) > 0.95
-
-
-def test_halving_cuts_nothing_from_two_candidates():
-    X, _, lengths = _overlapping(15)
-    fits = [
-        GaussianHMM(5, n_restarts=2, init_candidates=2, screening=s, random_state=2).fit(X, lengths)
-        for s in ("each_restart", "halving")
-    ]
-    assert np.array_equal(fits[0].restart_log_likelihoods_, fits[1].restart_log_likelihoods_)
-    assert np.array_equal(fits[0].means_, fits[1].means_)
-
-
-def test_halving_continues_the_best_quarter_of_the_half_runs():
-    X, _, lengths = _overlapping(16)
-    X = X - X.mean(axis=0)
-    K, lengths = 5, np.asarray(lengths)
-    sticky, start_counts = sticky_transmat(K, 1.0, 30.0), np.full(K, 1.0 / K)
-    model = GaussianHMM(K, init_candidates=8, screening="halving")
-    chosen = screened_start(
-        model, X, lengths, K, sticky, start_counts, 0.1, np.random.default_rng(1), _NoBar()
-    )
-    # By hand: every candidate of the same stream, 5 iterations; the best 2 of 8 run 10
-    # iterations from their start; the better of those two is the choice (the screening
-    # sample is every frame here, 2,400 < 20,000: drawing it takes nothing from the stream).
-    rng = np.random.default_rng(1)
-    trans_counts = 0.1 * len(X) * sticky
-    starts = [initial_means(X, K, "kmeans", rng) for _ in range(8)]
-    half = [run_em(model, X, lengths, m, sticky, start_counts, trans_counts, _NoBar(), 5)
-            for m in starts]  # fmt: skip
-    best_two = np.argsort([-h["log_likelihood"] for h in half], kind="stable")[:2]
-    full = [run_em(model, X, lengths, starts[i], sticky, start_counts, trans_counts, _NoBar(), 10)
-            for i in best_two]  # fmt: skip
-    assert chosen["log_likelihood"] == pytest.approx(
-        max(f["log_likelihood"] for f in full), abs=1e-4
-    )
-    # and the plain screening of the same candidates can only do as well or better
-    plain = GaussianHMM(K, init_candidates=8)
-    every = screened_start(
-        plain, X, lengths, K, sticky, start_counts, 0.1, np.random.default_rng(1), _NoBar()
-    )
-    assert every["log_likelihood"] >= chosen["log_likelihood"] - 1e-4
+    for screening in ("each_restart", "once"):
+        m = GaussianHMM(4, n_restarts=2, screening=screening, random_state=0).fit(X, lengths)
+        # agreement with the true states, scikit-learn's adjusted Rand index
+        assert adjusted_rand_score(truth, m.predict(X, lengths)) > 0.95
 
 
 def test_copies_of_a_candidate_are_screened_once():

@@ -37,13 +37,7 @@ _EMPTY_FRAMES = 1.0  # a state with less expected frames than this is re-seeded
 SCREEN_ITER = 10
 SCREEN_FRAMES = 20_000
 SCREEN_BLOCK_S = 10.0
-SCREENINGS = ("each_restart", "once", "halving")  # GaussianHMM(screening=...)
-# screening="halving": every candidate gets SCREEN_ITER // 2 iterations, the best quarter (at
-# least 2) the rest. On four bench sources (own_voles, own_pairs, real_hapt, basic_motions;
-# seed 0, the final fit's 8 pools of 8 candidates) the best candidate after 10 iterations was
-# among the best two after 5 in 8 of 8 pools, after 3 in 6 of 8 (the cut is put where the
-# ranking held).
-HALVING_KEEP = 4  # keep 1 of this many candidates at the cut
+SCREENINGS = ("each_restart", "once")  # GaussianHMM(screening=...): see screened_starts
 
 
 def n_threads(n_jobs: int | None) -> int:
@@ -331,38 +325,9 @@ def screened_start(
     Returns the parameters of the best candidate (as ``run_em`` returns them). This is the
     screening of every restart (``screening="each_restart"``); ``screened_starts`` screens
     once for all restarts.
-
-    ``screening="halving"``: successive halving (Jamieson & Talwalkar 2016, "Non-stochastic
-    best arm identification and hyperparameter optimization") with one cut: the same
-    candidates, subsample and random stream, but each candidate gets ``SCREEN_ITER // 2``
-    iterations, and only the best ``1 / HALVING_KEEP`` of them (at least 2) go on to
-    ``SCREEN_ITER`` (resumed where they stopped; one that stopped by ``tol`` is kept as it
-    is). With 2 candidates (the state count's quick fits) nothing is cut.
     """
     Xs, sub = _screening_sample(model, X, lengths, rng)
     trans_counts = persistence * len(Xs) * sticky
-    n = int(model.init_candidates)
-    keep = max(2, n // HALVING_KEEP)
-    if getattr(model, "screening", "each_restart") == "halving" and keep < n:
-        # the same random stream: run_em draws nothing, so drawing every start first is equal
-        starts = [initial_means(Xs, K, model.init, rng) for _ in range(n)]
-        half = SCREEN_ITER // 2
-        firsts = [
-            run_em(model, Xs, sub, m, sticky, start_counts, trans_counts, bar, half) for m in starts
-        ]
-        order = sorted(range(n), key=lambda i: -firsts[i]["log_likelihood"])
-        best = None
-        for i in sorted(order[:keep]):  # in drawing order: ties go to the earlier candidate
-            if firsts[i]["converged"]:  # stopped by tol: as the full short run would
-                res = firsts[i]
-            else:
-                res = run_em(
-                    model, Xs, sub, firsts[i]["means"], sticky, start_counts, trans_counts,
-                    bar, SCREEN_ITER - half, start=firsts[i],
-                )  # fmt: skip
-            if best is None or res["log_likelihood"] > best["log_likelihood"]:
-                best = res
-        return best
     best = None
     for _ in range(int(model.init_candidates)):
         means = initial_means(Xs, K, model.init, rng)

@@ -137,15 +137,13 @@ class GaussianHMM(BaseEstimator):
         (``_hmm_fit.screened_start``). 1: no screening, EM starts from one set of initial
         means. The default 8 costs less than one full restart (80 iterations on 20,000
         frames against 10-50 on up to 200,000) and made poor optima rarer (module doc).
-    screening : {"each_restart", "once", "halving"}
+    screening : {"each_restart", "once"}
         "each_restart": every restart screens ``init_candidates`` starting points of its own
         and continues its best. "once": one screening of ``init_candidates`` for the whole
         fit, and the restarts continue its ``n_restarts`` best distinct candidates
         (``_hmm_fit.screened_starts``; copies of a candidate are dropped, so fewer restarts
         run when fewer distinct starts were drawn): ``n_restarts`` times less screening.
-        With one restart both give the same fit. "halving": as "each_restart", but every
-        candidate first gets 5 iterations and only the best quarter (at least 2) the other 5
-        (``_hmm_fit.screened_start``; nothing is cut with 2 candidates).
+        With one restart both give the same fit.
     fit_max_frames : int or None
         Fit on a representative subsample of about this many frames when the data are larger:
         every session gives a share proportional to its length, as contiguous blocks of at
