@@ -249,6 +249,12 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument(
         "--axis", type=_axis, help="body axis as FROM,TO keypoints (tail side to head side)"
     )
+    d.add_argument(
+        "--no-social",
+        action="store_true",
+        help="no features of the nearest other animal (needed when single- and multi-animal "
+        "sessions are fitted together)",
+    )
     _add_cleaning_options(d)
     d.add_argument("--states", type=_states, default="auto", help="number of motifs, or 'auto'")
     d.add_argument(
@@ -533,6 +539,7 @@ def _run(args: argparse.Namespace) -> str:
             replace_curation=args.replace_curation,
             causal=args.for_streaming,
             stability=not args.no_stability_check,
+            social=not args.no_social,
         )
         return ws.describe()
     if args.command == "label":
@@ -595,7 +602,7 @@ _OPTIONS = {
     "fit_frames": "--fit-frames", "states": "--states", "n_states": "--states",
     "seed": "--seed", "random_state": "--seed", "method": "--method", "origin": "--origin",
     "axis": "--axis", "replace_curation": "--replace-curation", "force": "--force",
-    "causal": "--for-streaming",
+    "causal": "--for-streaming", "social": "--no-social",
     "scheduler": "--scheduler", "manifest": "--manifest", "out": "--out",
 }  # fmt: skip
 _ASSIGNMENT = re.compile(r"\b(" + "|".join(_OPTIONS) + r")=(True|\.\.\.|[^\s,;)]+)?")
@@ -617,7 +624,8 @@ def command_line_message(message: str) -> str:
     def flag(name: str, value: str | None) -> str:
         option = _OPTIONS.get(name, "--" + name.replace("_", "-"))
         value = None if value is None else value.strip("'\"")
-        return option if value in (None, "", "True") else f"{option} {value}"
+        bare = value in (None, "", "True") or (option.startswith("--no-") and value == "False")
+        return option if bare else f"{option} {value}"
 
     message = _BOTH.sub(r"pass \2", message)
     message = _NESTED.sub(lambda m: flag(m.group(1), m.group(2)), message)

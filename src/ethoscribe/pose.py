@@ -8,6 +8,7 @@ Everything downstream takes and returns these objects or plain arrays.
 
 from __future__ import annotations
 
+import difflib
 import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
@@ -240,6 +241,39 @@ class PoseTracks:
         )
 
 
+def match_keypoint_order(
+    sessions: Sequence[PoseTracks], keypoints: Sequence[str] | None = None
+) -> list[PoseTracks]:
+    """Sessions whose keypoints are ``keypoints`` (default: the first session's) in another
+    order, put in that order.
+
+    Readers keep each file's order (first appearance in a table, the series of an NWB
+    container), so one study exported by different tools can list the same keypoints
+    differently; sessions with other keypoint sets are returned unchanged for
+    :func:`check_same_body_plan` to refuse.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> a = PoseTracks(np.zeros((2, 1, 2, 2)), np.ones((2, 1, 2)), ["nose", "tail"], fps=30)
+    >>> b = PoseTracks(np.zeros((2, 1, 2, 2)), np.ones((2, 1, 2)), ["tail", "nose"], fps=30)
+    >>> [s.keypoints for s in match_keypoint_order([a, b])]
+    [('nose', 'tail'), ('nose', 'tail')]
+    """
+    if not sessions:
+        return []
+    ref = tuple(sessions[0].keypoints if keypoints is None else keypoints)
+    out = []
+    for s in sessions:
+        if tuple(s.keypoints) != ref and sorted(s.keypoints) == sorted(ref):
+            order = [s.keypoints.index(k) for k in ref]
+            s = s.replace(
+                coords=s.coords[:, :, order], confidence=s.confidence[:, :, order], keypoints=ref
+            )
+        out.append(s)
+    return out
+
+
 def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
     """Raise if sessions of one study differ in keypoint names or dimensionality.
 
@@ -253,10 +287,14 @@ def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
         if tuple(s.keypoints) != tuple(ref.keypoints):
             missing = sorted(set(ref.keypoints) - set(s.keypoints))
             extra = sorted(set(s.keypoints) - set(ref.keypoints))
+            source = s.meta.get("source")
+            file = f" in {source}" if source else ""
+            alike = {e: difflib.get_close_matches(e, missing, n=1) for e in extra}
+            hint = "".join(f" '{e}' looks like '{m[0]}': rename it." for e, m in alike.items() if m)
             raise InputError(
                 f"session '{s.session}' has different keypoints from session '{ref.session}' "
-                f"(missing {missing}, extra {extra}, or another order). All sessions of one "
-                "study must share one keypoint set; rename or drop keypoints when reading."
+                f"(missing {missing}, extra {extra}, or another order){file}. All sessions of one "
+                f"study must share one keypoint set; rename or drop keypoints when reading.{hint}"
             )
         if s.n_dims != ref.n_dims:
             raise InputError(

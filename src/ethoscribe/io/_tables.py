@@ -142,6 +142,11 @@ def map_columns(
     if not mapping:
         return info
     check_role_mapping(info.path, mapping, roles, "column names")
+    # A study's files may differ: a file that already names a role's column by the role
+    # (``confidence``) reads it so, whatever the mapping says for the others.
+    mapping = {r: c for r, c in mapping.items() if c in info.columns or r not in info.columns}
+    if not mapping:
+        return info
     missing = sorted(c for c in mapping.values() if c not in info.columns)
     if missing:
         raise InputError(

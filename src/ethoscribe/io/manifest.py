@@ -18,7 +18,13 @@ from tqdm.auto import tqdm
 from ethoscribe.errors import InputError
 from ethoscribe.io._tables import check_file
 from ethoscribe.io.registry import read_pose
-from ethoscribe.pose import UNITS, PoseTracks, check_file_name, check_same_body_plan
+from ethoscribe.pose import (
+    UNITS,
+    PoseTracks,
+    check_file_name,
+    check_same_body_plan,
+    match_keypoint_order,
+)
 
 REQUIRED = ("session", "path")
 OPTIONAL = ("fps", "group", "subject", "condition", "px_per_unit", "units", "video")
@@ -250,6 +256,7 @@ def load_study(
             msg = f"{source}: row {i + 1} (session '{row['session']}'): {exc}"
             raise InputError(msg) from None
         sessions.append(tracks.replace(meta=_session_meta(row, extras, source, i)))
+    sessions = match_keypoint_order(sessions)
     try:
         check_same_body_plan(sessions)
     except InputError as exc:

@@ -17,7 +17,7 @@ from ethoscribe.errors import InputError
 from ethoscribe.io.nwb import read_nwb
 from ethoscribe.io.tidy import read_tidy
 from ethoscribe.io.wide import read_wide
-from ethoscribe.pose import PoseTracks, check_same_body_plan
+from ethoscribe.pose import PoseTracks, check_same_body_plan, match_keypoint_order
 
 Reader = Callable[..., PoseTracks]
 
@@ -318,6 +318,7 @@ def read_folder(
         read_pose(f, format=format, **options)
         for f in tqdm(files, desc="reading sessions", unit="file", disable=not progress)
     ]
+    sessions = match_keypoint_order(sessions)
     check_same_body_plan(sessions)
     return sessions
 

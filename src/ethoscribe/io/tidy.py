@@ -103,6 +103,13 @@ def read_tidy(
     fps = check_fps(fps, path)
     info = map_columns(table_info(path), columns, _ROLES)
     time_col = "frame" if "frame" in info.columns else "time"
+    if "keypoint" not in info.columns and _looks_wide(info.columns):
+        raise InputError(
+            f"{info.path}: no 'keypoint' column, but columns such as {_looks_wide(info.columns)} "
+            "look like a wide table (one row per frame); pass format='wide', "
+            "pattern='{keypoint}_{axis}' (command line: --format wide --pattern "
+            "'{keypoint}_{axis}'); the tables of one run must all be tidy or all wide"
+        )
     require_columns(info, [time_col, "keypoint", "x", "y"], "a tidy pose table")
     if fps is None:
         fps = check_fps(info.metadata.get("fps"), path)
@@ -149,6 +156,18 @@ def read_tidy(
         session=session if session is not None else path.stem,
         meta={"source": str(path), "source_format": "tidy", **extra},
     )
+
+
+def _looks_wide(columns: tuple[str, ...]) -> list[str]:
+    """Up to three columns named like a keypoint's axis (``nose_x``, ``Nose.y``), when at
+    least two keypoints have both an x and a y column."""
+    stems = {}
+    for c in columns:
+        head, sep, axis = str(c).rpartition("_") if "_" in str(c) else str(c).rpartition(".")
+        if sep and head and axis.lower() in ("x", "y"):
+            stems.setdefault(head, []).append(str(c))
+    both = [cols for cols in stems.values() if len(cols) >= 2]
+    return [c for cols in both for c in cols][:3] if len(both) >= 2 else []
 
 
 def _scatter(

@@ -21,7 +21,7 @@ from ethoscribe.clean import CleanParams, QualityReport, clean
 from ethoscribe.errors import EthoscribeError, InputError
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
-from ethoscribe.pose import PoseTracks, check_same_body_plan
+from ethoscribe.pose import PoseTracks, check_same_body_plan, match_keypoint_order
 from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._model_meta import RESAVE, check_meta, known_keys
 from ethoscribe.segment.duration import OUTLIER_SHARE
@@ -342,7 +342,7 @@ class BehaviourModel(BaseEstimator):
     def fit(self, sessions: Sequence[PoseTracks]) -> BehaviourModel:
         """Fit cleaning-resolved features and the segmenter on all ``sessions`` at once."""
         self._check_params()
-        sessions = list(sessions)
+        sessions = match_keypoint_order(sessions)
         check_same_body_plan(sessions)
         params = self._clean_params()
         rates = sorted({float(s.fps) for s in sessions})
@@ -385,13 +385,13 @@ class BehaviourModel(BaseEstimator):
         self, cleaned: Sequence[PoseTracks], quality: Sequence[QualityReport], params: CleanParams
     ) -> list[FeatureSet]:
         self._check_params()
-        cleaned = list(cleaned)
+        cleaned = match_keypoint_order(cleaned)
         check_same_body_plan(cleaned)
         fps = {s.fps for s in cleaned}
         if len(fps) > 1:
             raise InputError(
-                f"sessions have different frame rates {sorted(fps)}; resample them to one rate "
-                "with cleaning={'target_fps': ...}"
+                f"sessions have different frame rates {sorted(fps)}; resample them to one rate, "
+                f"e.g. the lowest, with cleaning={{'target_fps': {min(fps):g}}}"
             )
         if self.causal:
             params = _causal_cleaning(cleaned, params)
@@ -516,7 +516,7 @@ class BehaviourModel(BaseEstimator):
     ) -> tuple[list[FeatureSet], list[QualityReport]]:
         """Clean and featurise ``sessions`` exactly as at fitting time."""
         check_fitted(self, "segmenter_")
-        sessions = list(sessions)
+        sessions = match_keypoint_order(sessions, self.keypoints_)
         for s in sessions:
             self._check_body_plan(s)
         cleaned, quality = self._clean_all(sessions, self.cleaning_)
@@ -525,6 +525,7 @@ class BehaviourModel(BaseEstimator):
     def featurise_cleaned(self, cleaned: Sequence[PoseTracks]) -> list[FeatureSet]:
         """Features of sessions already cleaned with :attr:`cleaning_` (one set per animal)."""
         check_fitted(self, "segmenter_")
+        cleaned = match_keypoint_order(cleaned, self.keypoints_)
         for s in cleaned:
             self._check_body_plan(s)
         filled = [fill_tracks(getattr(self, "filler_", None), s) for s in cleaned]

@@ -31,7 +31,7 @@ from ethoscribe.body_plans import body_plan_for
 from ethoscribe.clean import calibrate, clean
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
 from ethoscribe.io import atomic_write, loads_json, safe_child
-from ethoscribe.pose import PoseTracks
+from ethoscribe.pose import PoseTracks, match_keypoint_order
 from ethoscribe.postures import (
     egocentric_postures,
     mean_postures,
@@ -183,6 +183,7 @@ def compute_session_postures(
     if px is not None and not (isinstance(px, float) and np.isnan(px)):
         tracks = calibrate(tracks, float(px), str(row.get("units") or "mm"))
     cleaned, _ = clean(tracks, model.cleaning_)
+    (cleaned,) = match_keypoint_order([cleaned], model.keypoints_)
     ego = egocentric_postures(cleaned, model.features_)
     n_frames = row.get("n_frames")
     if n_frames is not None and len(ego) != int(n_frames) and not model.cleaning_.target_fps:
@@ -197,6 +198,7 @@ def compute_session_postures(
 def _postures_of(
     session: str, cleaned: PoseTracks, model: BehaviourModel, ego: np.ndarray | None = None
 ) -> SessionPostures:
+    (cleaned,) = match_keypoint_order([cleaned], model.keypoints_)
     if ego is None:
         ego = egocentric_postures(cleaned, model.features_)
     return SessionPostures(

@@ -26,7 +26,7 @@ from ethoscribe.io.registry import (
 from ethoscribe.io.registry import (
     reader_options as options_of,
 )
-from ethoscribe.pose import PoseTracks, check_same_body_plan
+from ethoscribe.pose import PoseTracks, check_same_body_plan, match_keypoint_order
 from ethoscribe.track_pieces import join_track_pieces
 
 
@@ -100,6 +100,10 @@ def plan_sessions(
         )
     rows = [] if table is None else [r for _, r in table.iterrows()]
     matched = _manifest_rows(files, rows)
+    # Files of several formats (tables beside NWB files): an option goes to the readers that
+    # take it (``--columns`` to the tables), and is refused only when no reader takes it.
+    formats = {format_for(f, format) for f in files}
+    taken = set().union(*(_accepted(f) for f in formats)) if len(formats) > 1 else set()
     plan = []
     for path, row in zip(files, matched, strict=True):
         resolved = str(Path(path).resolve())
@@ -116,7 +120,8 @@ def plan_sessions(
         )
         px = _row_value(row, "px_per_unit", None)
         fmt = format_for(path, format)
-        file_options = dict(options)
+        accepted = _accepted(fmt)
+        file_options = {k: v for k, v in options.items() if k not in taken or {k, "*"} & accepted}
         units = _row_value(row, "units", None)
         takes_units = _takes_any(fmt) or "units" in options_of(fmt)
         if units is not None and px is None and units != "px" and takes_units:
@@ -144,6 +149,11 @@ def plan_sessions(
             "apart in a manifest (its session column)"
         )
     return plan
+
+
+def _accepted(fmt: str) -> set[str]:
+    """Option names the reader of ``fmt`` takes (every name when it takes ``**options``)."""
+    return {"*"} if _takes_any(fmt) else set(options_of(fmt))
 
 
 def _manifest_rows(files: Sequence[Path], rows: list[Any]) -> list[Any]:
@@ -222,6 +232,7 @@ def read_sessions(
     sessions = [
         read_planned(e) for e in tqdm(plan, desc="reading", unit="session", disable=not progress)
     ]
+    sessions = match_keypoint_order(sessions)
     check_same_body_plan(sessions)
     return sessions, sessions_table(
         [session_row(e, t) for e, t in zip(plan, sessions, strict=True)]

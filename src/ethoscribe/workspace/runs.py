@@ -93,6 +93,7 @@ def discover(
     cleaning: CleanParams | Mapping[str, Any] | None = None,
     causal: bool = False,
     join_tracks: bool = False,
+    social: bool = True,
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
@@ -108,6 +109,9 @@ def discover(
     join_tracks : chain a tracker's track pieces (``track0``, ``track1`` ...) into animals by
         continuity; the joins are listed per session in ``sessions.csv`` (``track_joins``).
         Without it, each piece is an animal of its own.
+    social : add features of the nearest other animal when sessions have several animals
+        (every session must then have two or more); False for a study that mixes single- and
+        multi-animal sessions
     cleaning : :class:`~ethoscribe.clean.CleanParams` or a dict of its fields; unset fields
         take their defaults, except ``swap_pairs``, which defaults to ``"auto"`` (left/right
         pairs read from the keypoint names; pass ``()`` to switch repair off). Every value used
@@ -154,6 +158,7 @@ def discover(
                 out, plan, cleaning, jobs, client, force, progress, causal
             )
         sample = _training_sample(prepared, table, fit_frames, seed)
+        no_social = {"social": False}  # set only when off: earlier fits keep their digest
         # The fit's features of whole sessions, kept for labelling them in this process.
         in_process = client is None and (default_jobs() if jobs is None else jobs) == 1
         fitted_features: dict[str, list[FeatureSet]] = {}
@@ -162,7 +167,7 @@ def discover(
             with ticking("fitting the model", progress):
                 model = BehaviourModel(
                     cleaning=cleaning,
-                    features={"origin": origin, "axis": axis},
+                    features={"origin": origin, "axis": axis, **({} if social else no_social)},
                     method=method,
                     n_states=states,
                     random_state=seed,
@@ -181,7 +186,8 @@ def discover(
         # An unchanged rerun reuses the fit (same sample, parameters, seed and versions).
         settings = {"cleaning": cleaning, "origin": origin, "axis": axis, "method": method,
                     "states": states, "seed": seed, "stability": stability,
-                    "causal": causal, "versions": versions()}  # fmt: skip
+                    "causal": causal, "versions": versions(),
+                    **({} if social else no_social)}  # fmt: skip
         digest = fit_digest(sample, quality, settings)
         model, report, _ = fit_or_reuse(out, digest, fit, force)
         model.set_params(progress=progress)

@@ -1,0 +1,127 @@
+"""Another lab's exports: keypoints in another order, mixed formats and column names,
+wide tables given as tidy ones, misspelled keypoints, mixed single- and multi-animal sessions."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from ethoscribe.cli import command_line_message
+from ethoscribe.errors import InputError
+from ethoscribe.io import load_study, read_folder, read_tidy, write_nwb, write_tidy
+from ethoscribe.pose import PoseTracks, match_keypoint_order
+from ethoscribe.workspace.reading import plan_sessions
+
+KEYPOINTS = ("nose", "neck", "tail")
+
+
+def _tracks(seed=0, n=20, keypoints=KEYPOINTS, animals=1):
+    rng = np.random.default_rng(seed)  # seeds 0 and 1
+    coords = rng.normal(size=(n, animals, len(keypoints), 2))
+    return PoseTracks(coords, keypoints=list(keypoints), fps=30, session=f"s{seed}")
+
+
+def _tidy(tracks, order):
+    """Rows frame by frame with the keypoints in ``order`` (as another tool writes them)."""
+    rows = []
+    for f in range(tracks.n_frames):
+        for k in order:
+            x, y = tracks.coords[f, 0, tracks.keypoint_index(k)]
+            rows.append({"frame": f, "keypoint": k, "x": x, "y": y, "confidence": 0.9})
+    return pd.DataFrame(rows)
+
+
+def test_sessions_with_keypoints_in_another_order_are_read_in_the_first_ones_order(tmp_path):
+    a, b = _tracks(0), _tracks(1)
+    _tidy(a, KEYPOINTS).to_csv(tmp_path / "a.csv", index=False)
+    table = _tidy(b, ("tail", "nose", "neck"))
+    table.to_csv(tmp_path / "b.csv", index=False)
+    assert read_tidy(tmp_path / "b.csv", fps=30).keypoints == ("tail", "nose", "neck")
+    first, second = read_folder(tmp_path, fps=30, progress=False)
+    assert first.keypoints == second.keypoints == KEYPOINTS
+    # Reference: the file's own rows of each keypoint, pivoted by pandas.
+    for k, name in enumerate(KEYPOINTS):
+        rows = table[table["keypoint"] == name].sort_values("frame")
+        np.testing.assert_allclose(second.coords[:, 0, k, 0], rows["x"].to_numpy())
+        np.testing.assert_allclose(second.coords[:, 0, k, 1], rows["y"].to_numpy())
+    manifest = tmp_path / "m.csv"
+    manifest.write_text("session,path,fps\nm1,a.csv,30\nm2,b.csv,30\n")
+    assert [s.keypoints for s in load_study(manifest, progress=False)] == [KEYPOINTS] * 2
+
+
+def test_match_keypoint_order_leaves_other_keypoint_sets_to_the_check():
+    a, c = _tracks(0), _tracks(1, keypoints=("nose", "neck"))
+    assert match_keypoint_order([a, c])[1] is c
+    (moved,) = match_keypoint_order([a], keypoints=("tail", "neck", "nose"))
+    np.testing.assert_array_equal(moved.coords[:, :, ::-1], a.coords)
+
+
+def test_a_misspelled_keypoint_names_the_file_and_the_likely_name(tmp_path):
+    a, b = _tracks(0), _tracks(1)
+    _tidy(a, KEYPOINTS).to_csv(tmp_path / "a.csv", index=False)
+    bad = _tidy(b, KEYPOINTS).replace({"keypoint": {"nose": "nsoe"}})
+    bad.to_csv(tmp_path / "b.csv", index=False)
+    with pytest.raises(
+        InputError, match=r"session 'b' .* in \S+b\.csv\..*'nsoe' looks like 'nose'"
+    ):
+        read_folder(tmp_path, fps=30, progress=False)
+
+
+def test_a_wide_table_read_as_tidy_says_how_to_read_it(tmp_path):
+    wide = pd.DataFrame({"Frame": [0, 1], "Nose_x": [1.0, 2], "Nose_y": [3.0, 4],
+                         "Tail Base_x": [5.0, 6], "Tail Base_y": [7.0, 8]})  # fmt: skip
+    wide.to_csv(tmp_path / "w.csv", index=False)
+    with pytest.raises(InputError, match=r"w\.csv: no 'keypoint' column.*format='wide'"):
+        read_tidy(tmp_path / "w.csv", fps=30)
+
+
+def test_a_column_mapping_spares_files_that_already_name_the_column(tmp_path):
+    a = _tracks(0)
+    _tidy(a, KEYPOINTS).to_csv(tmp_path / "a.csv", index=False)
+    other = _tidy(a, KEYPOINTS).rename(columns={"confidence": "likelihood"})
+    other["likelihood"] = 0.4
+    other.to_csv(tmp_path / "b.csv", index=False)
+    mapping = {"confidence": "likelihood"}
+    assert np.all(read_tidy(tmp_path / "a.csv", fps=30, columns=mapping).confidence == 0.9)
+    assert np.all(read_tidy(tmp_path / "b.csv", fps=30, columns=mapping).confidence == 0.4)
+
+
+def test_table_options_go_to_the_tables_of_a_study_with_nwb_files(tmp_path):
+    pytest.importorskip("ndx_pose")
+    a = _tracks(0)
+    _tidy(a, KEYPOINTS).to_csv(tmp_path / "a.csv", index=False)
+    write_nwb(_tracks(1), tmp_path / "b.nwb")
+    options = {"columns": {"confidence": "likelihood"}}
+    plan = plan_sessions([tmp_path], fps=30, reader_options=options)
+    by_format = {e["format"]: e["options"] for e in plan}
+    assert by_format == {"tidy": options, "nwb": {}}
+    with pytest.raises(InputError, match="has no option"):  # taken by no reader: refused
+        plan_sessions([tmp_path], fps=30, reader_options={"pattern": "{keypoint}_{axis}"})
+
+
+def test_command_line_messages_name_the_options_that_exist():
+    text = "pass social=False or fit single- and multi-animal sessions apart"
+    assert command_line_message(text).startswith("pass --no-social or")
+    text = "resample them to one rate, e.g. the lowest, with cleaning={'target_fps': 25}"
+    assert command_line_message(text).endswith("with --target-fps 25")
+
+
+def test_discover_without_social_features_fits_single_and_paired_sessions(tmp_path):
+    from ethoscribe.workspace import discover
+
+    rng = np.random.default_rng(5)  # seed 5
+    body = np.array([[10.0, 0.0], [5.0, 0.0], [0.0, 0.0]])
+    for name, animals in (("single", 1), ("pair", 2)):
+        coords = np.cumsum(rng.normal(size=(300, animals, 3, 2)), axis=0) + body
+        write_tidy(PoseTracks(coords, keypoints=KEYPOINTS, fps=30), tmp_path / f"{name}.csv")
+    files = [tmp_path / "single.csv", tmp_path / "pair.csv"]
+    with pytest.raises(InputError, match="social=False"):
+        discover(files, tmp_path / "ws0", fps=30, states=2, progress=False, stability=False,
+                 axis=("tail", "nose"))  # fmt: skip
+    discover(files, tmp_path / "ws", fps=30, states=2, progress=False, stability=False,
+              axis=("tail", "nose"), social=False)  # fmt: skip
+    labels = pd.read_parquet(tmp_path / "ws" / "labels.parquet")
+    assert sorted(labels.groupby("session")["animal"].nunique().items()) == [
+        ("pair", 2), ("single", 1)
+    ]  # fmt: skip
