@@ -125,3 +125,34 @@ def test_discover_without_social_features_fits_single_and_paired_sessions(tmp_pa
     assert sorted(labels.groupby("session")["animal"].nunique().items()) == [
         ("pair", 2), ("single", 1)
     ]  # fmt: skip
+
+
+def test_agreement_maps_the_coding_onto_resampled_labels(tmp_path):
+    """Sessions at 30 and 60 fps resampled to 30: a coding made at each file's own frame rate
+    is compared on the labels' frames (frame g at 30 fps starts at g / 30 s, inside input
+    frame 2g at 60 fps), not on equal frame numbers."""
+    from ethoscribe.workspace import discover
+    from ethoscribe.workspace.expert import agreement, read_coding
+
+    rng = np.random.default_rng(6)  # seed 6
+    body = np.array([[10.0, 0.0], [5.0, 0.0], [0.0, 0.0]])
+    rows = []
+    for name, fps in (("slow", 30), ("fast", 60)):
+        n = 10 * fps  # 10 s each
+        coords = np.cumsum(rng.normal(size=(n, 1, 3, 2)), axis=0) + body
+        write_tidy(PoseTracks(coords, keypoints=KEYPOINTS, fps=fps), tmp_path / f"{name}.csv")
+        half = n // 2
+        rows.append(pd.DataFrame({"session": name, "frame": np.arange(n),
+                                  "behaviour": ["a"] * half + ["b"] * (n - half)}))  # fmt: skip
+    pd.concat(rows).to_csv(tmp_path / "coding.csv", index=False)
+    (tmp_path / "m.csv").write_text("session,path,fps\nslow,slow.csv,30\nfast,fast.csv,60\n")
+    ws = tmp_path / "ws"
+    discover([], ws, manifest=tmp_path / "m.csv", states=2, progress=False, stability=False,
+             axis=("tail", "nose"), cleaning={"target_fps": 30})  # fmt: skip
+    coded = read_coding(ws, tmp_path / "coding.csv")
+    fast = coded[coded["session"] == "fast"]
+    assert fast["frame"].tolist() == list(range(300))  # 10 s at 30 fps
+    assert (fast["behaviour"] == "a").sum() == 150  # input frames 0-299 of 600: the first 5 s
+    result = agreement(ws, tmp_path / "coding.csv", tmp_path / "agreement")
+    assert result.summary["frames_compared"] == 600 and result.summary["frames_unscored"] == 0
+    assert result.summary["seconds_compared"] == pytest.approx(20.0)

@@ -54,7 +54,50 @@ def read_coding(workspace: str | Path | Workspace, expert: str | Path) -> pd.Dat
         str(r.session): CodedSession(float(r.fps), int(r.n_frames), animals.get(str(r.session), ()))
         for r in sessions.itertuples()
     }
-    return read_expert_coding(expert, known)
+    coded = read_expert_coding(expert, known)
+    return _on_label_frames(coded, {k: c.fps for k, c in known.items()}, label_fps(ws))
+
+
+def label_fps(ws: Workspace) -> float | None:
+    """Frame rate of the workspace's labels: the model's (``--target-fps`` when discovery
+    resampled the sessions), or None when they keep every session's own rate."""
+    fps = getattr(ws.model(), "fps_", None)
+    return None if fps is None else float(fps)
+
+
+def _on_label_frames(
+    coded: pd.DataFrame, input_fps: dict[str, float], fps: float | None
+) -> pd.DataFrame:
+    """The coding (frames at each session's input rate) on the labels' frames at ``fps``.
+
+    Each label frame takes the behaviour coded at the input frame covering its start time
+    (frame ``g`` starts at ``g / fps`` s, inside input frame ``floor(g * input_fps / fps)``).
+    """
+    if fps is None:
+        return coded
+    parts = []
+    for (session, animal), g in coded.groupby(["session", "animal"], sort=False):
+        ratio = input_fps[str(session)] / fps
+        if abs(ratio - 1) < 1e-9:
+            parts.append(g)
+            continue
+        src = g["frame"].to_numpy(np.int64)
+        first = int(np.ceil(src.min() / ratio - 1e-9))
+        frames = np.arange(first, int(np.floor(src.max() / ratio + 1e-9)) + 1, dtype=np.int64)
+        covering = np.floor(frames * ratio + 1e-9).astype(np.int64)
+        behaviour = pd.Series(g["behaviour"].to_numpy(object), index=src).reindex(covering)
+        keep = behaviour.notna().to_numpy()
+        parts.append(
+            pd.DataFrame(
+                {
+                    "session": session,
+                    "animal": animal,
+                    "frame": frames[keep],
+                    "behaviour": behaviour.to_numpy(object)[keep],
+                }
+            )
+        )
+    return pd.concat(parts, ignore_index=True) if parts else coded
 
 
 # --- agreement ----------------------------------------------------------------------------
@@ -87,7 +130,8 @@ def agreement(
         validate="one_to_one",
     )
     fps = ws.sessions.set_index("session")["fps"].astype(float)
-    frames["fps"] = frames["session"].map(fps).to_numpy(float)
+    rate = label_fps(ws)  # the labels' rate when discovery resampled (--target-fps)
+    frames["fps"] = frames["session"].map(fps).to_numpy(float) if rate is None else rate
     frames["motif"] = frames["motif"].fillna("")
     result = expert_agreement(frames, tolerance_s)
     out = Path(out)
