@@ -156,3 +156,42 @@ def test_agreement_maps_the_coding_onto_resampled_labels(tmp_path):
     result = agreement(ws, tmp_path / "coding.csv", tmp_path / "agreement")
     assert result.summary["frames_compared"] == 600 and result.summary["frames_unscored"] == 0
     assert result.summary["seconds_compared"] == pytest.approx(20.0)
+
+
+def test_mixed_units_name_the_sessions_in_pixels():
+    from ethoscribe.features import FeaturePipeline
+
+    a, b = _tracks(0), _tracks(1)
+    a = a.replace(units="mm")
+    with pytest.raises(InputError, match=r"mix units \['mm', 'px'\].*\['s1'\] are in pixels"):
+        FeaturePipeline().fit([a, b])
+
+
+def test_the_axis_hint_reads_as_the_command_line_option():
+    text = "unreliable automatic body axis: ...; pass axis=(tail_side, head_side)"
+    assert command_line_message(text).endswith("pass --axis tail_side,head_side")
+
+
+def test_manifest_rows_naming_absent_files_are_said_when_a_folder_is_given(tmp_path):
+    from ethoscribe.errors import InputWarning
+
+    write_tidy(_tracks(0), tmp_path / "a.csv")
+    (tmp_path / "m.csv").write_text("session,path,fps\na,a.csv,30\nb,b.csv,30\n")
+    with pytest.warns(InputWarning, match=r"1 row\(s\) name a file that does not exist.*'b'"):
+        plan = plan_sessions([tmp_path], manifest=tmp_path / "m.csv")
+    assert [e["session"] for e in plan] == ["a"]
+
+
+def test_a_session_shorter_than_one_bout_is_said(tmp_path):
+    from ethoscribe.errors import InputWarning
+    from ethoscribe.workspace import discover
+
+    rng = np.random.default_rng(7)  # seed 7
+    body = np.array([[10.0, 0.0], [5.0, 0.0], [0.0, 0.0]])
+    for name, n in (("long", 300), ("short", 6)):
+        coords = np.cumsum(rng.normal(size=(n, 1, 3, 2)), axis=0) + body
+        write_tidy(PoseTracks(coords, keypoints=KEYPOINTS, fps=30), tmp_path / f"{name}.csv")
+    files = [tmp_path / "long.csv", tmp_path / "short.csv"]
+    with pytest.warns(InputWarning, match=r"'short' \(0\.2 s\) last less than one bout"):
+        discover(files, tmp_path / "ws", fps=30, states=2, progress=False, stability=False,
+                 axis=("tail", "nose"))  # fmt: skip

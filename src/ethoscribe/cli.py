@@ -607,6 +607,7 @@ _OPTIONS = {
 }  # fmt: skip
 _ASSIGNMENT = re.compile(r"\b(" + "|".join(_OPTIONS) + r")=(True|\.\.\.|[^\s,;)]+)?")
 _BOTH = re.compile(r"pass ([^()]*?) \(command line: ([^)]*)\)")
+_PAIR = re.compile(r"\b(axis)=\((\w+), (\w+)\)")
 _NESTED = re.compile(r"\bcleaning=\{'(\w+)': ([^}]*)\}")
 _COMPARED = re.compile(r"\b(" + "|".join(_OPTIONS) + r")(?= *(?:>=|<=|must|takes))")
 
@@ -628,6 +629,7 @@ def command_line_message(message: str) -> str:
         return option if bare else f"{option} {value}"
 
     message = _BOTH.sub(r"pass \2", message)
+    message = _PAIR.sub(lambda m: f"{_OPTIONS[m.group(1)]} {m.group(2)},{m.group(3)}", message)
     message = _NESTED.sub(lambda m: flag(m.group(1), m.group(2)), message)
     message = _ASSIGNMENT.sub(lambda m: flag(m.group(1), m.group(2)), message)
     return _COMPARED.sub(lambda m: _OPTIONS[m.group(1)], message)

@@ -331,7 +331,17 @@ class FeaturePipeline(BaseEstimator):
         check_same_body_plan(sessions)
         units = sorted({s.units for s in sessions})
         if len(units) > 1:
-            msg = f"sessions mix units {units}; calibrate all sessions to one unit before fitting"
+            pixels = sorted({s.session.split(" [")[0] for s in sessions if s.units == "px"})
+            fix = (
+                f"; sessions {pixels[:5]} are in pixels: give their px_per_unit (and units) in "
+                "the manifest, or the units of files already calibrated"
+                if pixels
+                else ""
+            )
+            msg = (
+                f"sessions mix units {units}; calibrate all sessions to one unit before "
+                f"fitting{fix}"
+            )
             raise InputError(msg)
         return sessions
 

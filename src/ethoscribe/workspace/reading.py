@@ -5,6 +5,7 @@ from __future__ import annotations
 import inspect
 import json
 import os
+import warnings
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -14,7 +15,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ethoscribe.clean import CleanParams, calibrate
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io import pose_files, read_manifest, read_pose, validate_manifest
 from ethoscribe.io.registry import (
     check_reader_options,
@@ -100,6 +101,7 @@ def plan_sessions(
         )
     rows = [] if table is None else [r for _, r in table.iterrows()]
     matched = _manifest_rows(files, rows)
+    _warn_absent_files(rows, matched, source)
     # Files of several formats (tables beside NWB files): an option goes to the readers that
     # take it (``--columns`` to the tables), and is refused only when no reader takes it.
     formats = {format_for(f, format) for f in files}
@@ -149,6 +151,24 @@ def plan_sessions(
             "apart in a manifest (its session column)"
         )
     return plan
+
+
+def _warn_absent_files(rows: list[Any], matched: list[Any], source: str) -> None:
+    """Say which manifest rows name a file that does not exist (left out of a run that was
+    given files or folders; a run from the manifest alone refuses them)."""
+    used = {r.name for r in matched if r is not None}
+    absent = [
+        f"session '{r['session']}' ({r['path']})"
+        for r in rows
+        if r.name not in used and _filled(r.get("path")) and not Path(r["path"]).exists()
+    ]
+    if absent:
+        warnings.warn(
+            f"{source}: {len(absent)} row(s) name a file that does not exist and are left out: "
+            f"{', '.join(absent[:5])}; correct the path or remove the row",
+            InputWarning,
+            stacklevel=3,
+        )
 
 
 def _accepted(fmt: str) -> set[str]:

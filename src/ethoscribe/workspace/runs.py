@@ -248,7 +248,23 @@ def _prepare(
     quality = [pd.read_parquet(i["quality"]) for i in infos]
     rows = [read_json(i["row"]) for i in infos]
     used = [r.pop(CLEANING_USED, None) for r in rows]
+    _warn_short_sessions(rows)
     return infos, quality, sessions_table(rows), used
+
+
+def _warn_short_sessions(rows: Sequence[dict[str, Any]]) -> None:
+    """Say which sessions are shorter than one bout (the model's minimum bout)."""
+    shortest = float(BehaviourModel().min_bout_s)
+    short = [f"'{r['session']}' ({r['duration_s']:.2g} s)" for r in rows
+             if float(r["duration_s"]) < shortest]  # fmt: skip
+    if short:
+        warnings.warn(
+            f"session(s) {', '.join(short[:5])} last less than one bout ({shortest:g} s): each "
+            "is a single bout cut at both ends, and says little about time budgets or "
+            "transitions; leave them out or use longer recordings",
+            InputWarning,
+            stacklevel=3,
+        )
 
 
 def _cleaned_loaders(
