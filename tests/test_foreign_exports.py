@@ -195,3 +195,14 @@ def test_a_session_shorter_than_one_bout_is_said(tmp_path):
     with pytest.warns(InputWarning, match=r"'short' \(0\.2 s\) last less than one bout"):
         discover(files, tmp_path / "ws", fps=30, states=2, progress=False, stability=False,
                  axis=("tail", "nose"))  # fmt: skip
+
+
+def test_capitalised_columns_get_a_ready_column_mapping(tmp_path):
+    a = _tidy(_tracks(0), KEYPOINTS).rename(columns={"frame": "Frame", "x": "X", "y": "Y"})
+    a.to_csv(tmp_path / "a.csv", index=False)
+    with pytest.raises(InputError, match=r"missing column\(s\) \['frame', 'x', 'y'\]") as info:
+        read_tidy(tmp_path / "a.csv", fps=30)
+    assert "--columns frame=Frame,x=X,y=Y" in command_line_message(str(info.value))
+    mapping = {"frame": "Frame", "x": "X", "y": "Y"}
+    t = read_tidy(tmp_path / "a.csv", fps=30, columns=mapping)
+    np.testing.assert_allclose(t.coords, _tracks(0).coords)  # the tracks written above

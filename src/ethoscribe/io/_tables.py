@@ -168,6 +168,10 @@ def require_columns(info: TableInfo, needed: list[str], purpose: str) -> None:
         return
     near = {c: f for c in missing for f in info.columns if f.strip().lower() == c and f != c}
     hints = "".join(f" Column '{f}' looks like '{c}': rename it." for c, f in near.items())
+    if near:
+        python = ", ".join(f"'{c}': '{f}'" for c, f in near.items())
+        cli = ",".join(f"{c}={f}" for c, f in near.items())
+        hints += f" Or pass columns={{{python}}} (command line: --columns {cli})."
     if len(info.columns) == 1 and any(s in info.columns[0] for s in ";\t|"):
         hints += " The header looks separated by ';', tab or '|': save it comma-separated."
     raise InputError(

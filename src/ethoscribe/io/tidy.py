@@ -102,7 +102,8 @@ def read_tidy(
     path = check_file(path)
     fps = check_fps(fps, path)
     info = map_columns(table_info(path), columns, _ROLES)
-    time_col = "frame" if "frame" in info.columns else "time"
+    lower = {str(c).strip().lower() for c in info.columns}
+    time_col = "frame" if "frame" in info.columns or "time" not in lower else "time"
     if "keypoint" not in info.columns and _looks_wide(info.columns):
         raise InputError(
             f"{info.path}: no 'keypoint' column, but columns such as {_looks_wide(info.columns)} "
