@@ -206,3 +206,20 @@ def test_capitalised_columns_get_a_ready_column_mapping(tmp_path):
     mapping = {"frame": "Frame", "x": "X", "y": "Y"}
     t = read_tidy(tmp_path / "a.csv", fps=30, columns=mapping)
     np.testing.assert_allclose(t.coords, _tracks(0).coords)  # the tracks written above
+
+
+def test_boundary_f1_is_said_not_measurable_without_boundaries_inside_coded_stretches():
+    from ethoscribe.segment.expert_agreement import expert_agreement
+    from ethoscribe.workspace.expert import describe_agreement
+
+    frames = pd.DataFrame({"session": "s", "animal": "a", "fps": 10.0,
+                           "frame": [*range(0, 20), *range(30, 50)],
+                           "behaviour": ["walk"] * 20 + ["rest"] * 20,
+                           "motif": (["m1"] * 10 + ["m2"] * 10) * 2})  # fmt: skip
+    result = expert_agreement(frames, 0.2)
+    assert result.summary["boundaries_expert"] == 0
+    assert "boundary F1 not measurable" in describe_agreement(result, "out")
+    frames["frame"] = range(40)  # one stretch: the walk -> rest change is a boundary inside it
+    result = expert_agreement(frames, 0.2)
+    assert result.summary["boundaries_expert"] == 1
+    assert "boundary F1 0." in describe_agreement(result, "out")

@@ -514,11 +514,17 @@ def uncertain_bouts(workspace: str | Path | Workspace, n: int = 10) -> pd.DataFr
 # --- one-paragraph descriptions for the command line ------------------------------------------
 def describe_agreement(result: ExpertAgreement, out: str | Path) -> str:
     s = result.summary
+    boundaries = (
+        f"boundary F1 {s['boundary_f1']:.3f} (precision {s['precision']:.3f}, recall "
+        f"{s['recall']:.3f}, within {s['tolerance_s']:g} s)"
+        if s.get("boundaries_expert", 1)
+        else "boundary F1 not measurable (the coding changes behaviour only across uncoded "
+        "time: no boundary inside its coded stretches)"
+    )
     return (
         f"agreement of {s['frames_compared']} coded frames ({s['frames_unscored']} unscored): "
         f"ARI {s['ari']:.3f}, NMI {s['nmi']:.3f}, matched accuracy {s['matched_accuracy']:.3f}, "
-        f"purity {s['purity']:.3f}, boundary F1 {s['boundary_f1']:.3f} (precision "
-        f"{s['precision']:.3f}, recall {s['recall']:.3f}, within {s['tolerance_s']:g} s); "
+        f"purity {s['purity']:.3f}, {boundaries}; "
         f"files: {Path(out) / 'agreement.json'}, confusion.csv, per_behaviour.csv, report.html"
     )
 
