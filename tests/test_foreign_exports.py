@@ -223,3 +223,35 @@ def test_boundary_f1_is_said_not_measurable_without_boundaries_inside_coded_stre
     result = expert_agreement(frames, 0.2)
     assert result.summary["boundaries_expert"] == 1
     assert "boundary F1 0." in describe_agreement(result, "out")
+
+
+def _wide(tracks, word):
+    cols = {"frame": np.arange(tracks.n_frames)}
+    for k, name in enumerate(tracks.keypoints):
+        cols[f"{name}_x"], cols[f"{name}_y"] = tracks.coords[:, 0, k].T
+        cols[f"{name}_{word}"] = np.full(tracks.n_frames, 0.7 if word == "likelihood" else 0.3)
+    return pd.DataFrame(cols)
+
+
+def test_a_manifest_format_column_reads_tidy_and_wide_tables_as_one_study(tmp_path):
+    from ethoscribe.io import read_wide
+
+    a, b = _tracks(0), _tracks(1)
+    _tidy(a, KEYPOINTS).rename(columns={"confidence": "likelihood"}).to_csv(
+        tmp_path / "a.csv", index=False
+    )
+    _wide(b, "confidence").to_csv(tmp_path / "b.csv", index=False)
+    (tmp_path / "m.csv").write_text("session,path,fps,format\na,a.csv,30,\nb,b.csv,30,wide\n")
+    options = {"columns": {"confidence": "likelihood"}, "frame_column": "frame"}
+    plan = plan_sessions([], manifest=tmp_path / "m.csv", reader_options=options)
+    assert [e["format"] for e in plan] == ["tidy", "wide"]
+    assert plan[0]["options"] == {"columns": {"confidence": "likelihood"}}  # no frame_column
+    # The wide file names its confidence 'confidence', not the mapped 'likelihood': read so.
+    t = read_wide(tmp_path / "b.csv", fps=30, frame_column="frame", columns=options["columns"])
+    np.testing.assert_allclose(t.confidence, 0.3)
+    np.testing.assert_allclose(t.coords, b.coords)
+    _wide(b, "likelihood").to_csv(tmp_path / "c.csv", index=False)
+    t = read_wide(tmp_path / "c.csv", fps=30, frame_column="frame", columns=options["columns"])
+    np.testing.assert_allclose(t.confidence, 0.7)
+    studied = load_study(tmp_path / "m.csv", progress=False, columns=options["columns"])
+    assert [s.meta["source_format"] for s in studied] == ["tidy", "wide"]

@@ -251,7 +251,9 @@ def load_study(
         if row.get("units") and not np.isfinite(row.get("px_per_unit", np.nan)):
             options["units"] = row["units"]  # the file is already in these units
         try:
-            tracks = read_pose(row["path"], format=format, session=row["session"], **options)
+            own = row.get("format")  # a manifest's format column: this row's reader
+            fmt = own if isinstance(own, str) and own.strip() else format
+            tracks = read_pose(row["path"], format=fmt, session=row["session"], **options)
         except InputError as exc:
             msg = f"{source}: row {i + 1} (session '{row['session']}'): {exc}"
             raise InputError(msg) from None

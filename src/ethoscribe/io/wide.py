@@ -138,6 +138,7 @@ def read_wide(
     """
     path = check_file(path)
     fps = check_fps(fps, path)
+    own_confidence = confidence_axis
     axes, confidence_axis, frame_column, time_column = _mapped(
         path, columns, axes, confidence_axis, frame_column, time_column
     )
@@ -147,6 +148,11 @@ def read_wide(
     timing = [c for c in (frame_column, time_column) if c is not None]
     require_columns(info, timing, "frame timing")
     found, ignored = _match_columns(info, pattern, axes, confidence_axis, timing, animal)
+    if confidence_axis != own_confidence and not any(k[2] == confidence_axis for k in found):
+        # A study's files may differ: this one names its confidence by the usual word.
+        again = _match_columns(info, pattern, axes, own_confidence, timing, animal)
+        if any(k[2] == own_confidence for k in again[0]):
+            (found, ignored), confidence_axis = again, own_confidence
     animals, kp_names, n_dims = _layout(info, found, axes, animal, "{animal}" in pattern, keypoints)
     whole = (frame_column,) if frame_column is not None else ()
     values, _ = read_columns(info, [*timing, *found.values()], [], whole=whole)

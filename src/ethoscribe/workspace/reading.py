@@ -104,10 +104,15 @@ def plan_sessions(
     _warn_absent_files(rows, matched, source)
     # Files of several formats (tables beside NWB files): an option goes to the readers that
     # take it (``--columns`` to the tables), and is refused only when no reader takes it.
-    formats = {format_for(f, format) for f in files}
+    # A manifest's ``format`` column names the reader of its row (a study of tidy and wide
+    # tables); otherwise ``format``, or the file's suffix.
+    chosen = [
+        format_for(f, _row_value(r, "format", format)) for f, r in zip(files, matched, strict=True)
+    ]
+    formats = set(chosen)
     taken = set().union(*(_accepted(f) for f in formats)) if len(formats) > 1 else set()
     plan = []
-    for path, row in zip(files, matched, strict=True):
+    for path, row, fmt in zip(files, matched, chosen, strict=True):
         resolved = str(Path(path).resolve())
         if table is not None and row is None and paths:
             raise InputError(
@@ -121,7 +126,6 @@ def plan_sessions(
             else {k: v for k, v in row.items() if k not in ("session", "path") and _filled(v)}
         )
         px = _row_value(row, "px_per_unit", None)
-        fmt = format_for(path, format)
         accepted = _accepted(fmt)
         file_options = {k: v for k, v in options.items() if k not in taken or {k, "*"} & accepted}
         units = _row_value(row, "units", None)
