@@ -255,3 +255,15 @@ def test_a_manifest_format_column_reads_tidy_and_wide_tables_as_one_study(tmp_pa
     np.testing.assert_allclose(t.confidence, 0.7)
     studied = load_study(tmp_path / "m.csv", progress=False, columns=options["columns"])
     assert [s.meta["source_format"] for s in studied] == ["tidy", "wide"]
+
+
+def test_mixed_frame_rates_are_refused_before_reading_and_leave_no_folder(tmp_path, monkeypatch):
+    from ethoscribe.workspace import discover, runs
+
+    for name, fps in (("slow", 30), ("fast", 60)):
+        write_tidy(_tracks(0, n=2 * fps).replace(fps=fps), tmp_path / f"{name}.csv")
+    (tmp_path / "m.csv").write_text("session,path,fps\nslow,slow.csv,30\nfast,fast.csv,60\n")
+    monkeypatch.setattr(runs, "_prepare", None)  # reading would call it: it must not be reached
+    with pytest.raises(InputError, match=r"\[30\.0, 60\.0\].*'target_fps': 30\}"):
+        discover([], tmp_path / "ws", manifest=tmp_path / "m.csv", progress=False)
+    assert not (tmp_path / "ws").exists()

@@ -146,6 +146,7 @@ def discover(
         _refuse_to_overwrite_curation(out, replace_curation)
         plan = plan_sessions(inputs, manifest, fps, format, reader_options, join_tracks)
         cleaning = discovery_cleaning(cleaning, min_confidence).to_dict()
+        _refuse_mixed_rates(plan, cleaning)
         client = connect(scheduler)
         prepared, quality, table, used = _prepare(
             out, plan, cleaning, jobs, client, force, progress, causal
@@ -250,6 +251,17 @@ def _prepare(
     used = [r.pop(CLEANING_USED, None) for r in rows]
     _warn_short_sessions(rows)
     return infos, quality, sessions_table(rows), used
+
+
+def _refuse_mixed_rates(plan: Sequence[dict[str, Any]], cleaning: dict[str, Any]) -> None:
+    """Refuse, before reading, sessions whose given frame rates differ with no common rate
+    to resample to (the fit would refuse them after every session was read and cleaned)."""
+    rates = sorted({float(e["fps"]) for e in plan if e.get("fps") is not None})
+    if len(rates) > 1 and not cleaning.get("target_fps"):
+        raise InputError(
+            f"sessions have different frame rates {rates}; resample them to one rate, e.g. "
+            f"the lowest, with cleaning={{'target_fps': {rates[0]:g}}}"
+        )
 
 
 def _warn_short_sessions(rows: Sequence[dict[str, Any]]) -> None:
