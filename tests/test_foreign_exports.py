@@ -267,3 +267,18 @@ def test_mixed_frame_rates_are_refused_before_reading_and_leave_no_folder(tmp_pa
     with pytest.raises(InputError, match=r"\[30\.0, 60\.0\].*'target_fps': 30\}"):
         discover([], tmp_path / "ws", manifest=tmp_path / "m.csv", progress=False)
     assert not (tmp_path / "ws").exists()
+
+
+def test_an_expert_coding_with_capitalised_columns_says_which_to_rename(tmp_path):
+    from ethoscribe.io.expert import CodedSession, read_expert_coding
+
+    coding = pd.DataFrame({"Session": ["s"], "Behaviour": ["walk"], "start_s": [0.0],
+                           "stop_s": [1.0]})  # fmt: skip
+    coding.to_csv(tmp_path / "coding.csv", index=False)
+    sessions = {"s": CodedSession(30.0, 60, ("animal0",))}
+    with pytest.raises(InputError, match=r"Column 'Session' looks like 'session': rename it"):
+        read_expert_coding(tmp_path / "coding.csv", sessions)
+    coding.columns = [c.lower() for c in coding.columns]
+    coding.to_csv(tmp_path / "coding.csv", index=False)
+    coded = read_expert_coding(tmp_path / "coding.csv", sessions)
+    assert coded["frame"].tolist() == list(range(30))  # 0 to 1 s at 30 fps: frames 0-29

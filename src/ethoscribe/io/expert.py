@@ -73,6 +73,10 @@ def read_expert_coding(
         f"{path}: an expert coding needs the columns {', '.join(FRAME_COLUMNS)} (one row per "
         f"frame) or {', '.join(BOUT_COLUMNS)} (one row per bout); found {list(table.columns)}"
     )
+    wanted = dict.fromkeys([*FRAME_COLUMNS, *BOUT_COLUMNS, "animal"])
+    near = [(str(f), c) for c in wanted for f in table.columns if str(f).strip().lower() == c]
+    msg += "".join(f". Column '{f}' looks like '{c}': rename it" for f, c in near if f != c)
+    msg += "." if any(f != c for f, c in near) else ""
     raise InputError(msg)
 
 
