@@ -282,3 +282,30 @@ def test_an_expert_coding_with_capitalised_columns_says_which_to_rename(tmp_path
     coding.to_csv(tmp_path / "coding.csv", index=False)
     coded = read_expert_coding(tmp_path / "coding.csv", sessions)
     assert coded["frame"].tolist() == list(range(30))  # 0 to 1 s at 30 fps: frames 0-29
+
+
+def test_label_reorders_keypoints_and_names_a_misspelled_one(tmp_path):
+    from ethoscribe.workspace import discover, label_sessions
+
+    rng = np.random.default_rng(8)  # seed 8
+    body = np.array([[10.0, 0.0], [5.0, 0.0], [0.0, 0.0]])
+    coords = np.cumsum(rng.normal(size=(300, 1, 3, 2)), axis=0) + body
+    tracks = PoseTracks(coords, keypoints=KEYPOINTS, fps=30, session="rec")
+    write_tidy(tracks, tmp_path / "rec.csv")
+    discover([tmp_path / "rec.csv"], tmp_path / "ws", fps=30, states=2, progress=False,
+             stability=False, axis=("tail", "nose"))  # fmt: skip
+    new = tmp_path / "new"
+    new.mkdir()
+    _tidy(tracks, ("tail", "nose", "neck")).to_csv(new / "rec.csv", index=False)
+    label_sessions(tmp_path / "ws", [new / "rec.csv"], tmp_path / "out", fps=30, progress=False)
+    # The same recording with its keypoints listed in another order: the same labels.
+    a = pd.read_parquet(tmp_path / "ws" / "labels.parquet")
+    b = pd.read_parquet(tmp_path / "out" / "labels.parquet")
+    assert b["state"].tolist() == a["state"].tolist()
+    _tidy(tracks, KEYPOINTS).replace({"keypoint": {"nose": "nsoe"}}).to_csv(
+        new / "rec.csv", index=False
+    )
+    with pytest.raises(InputError, match=r"missing \['nose'\], extra \['nsoe'\].*rename it"):
+        label_sessions(tmp_path / "ws", [new / "rec.csv"], tmp_path / "out2", fps=30,
+                       progress=False)  # fmt: skip
+    assert not (tmp_path / "out2").exists()

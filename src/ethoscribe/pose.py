@@ -274,6 +274,18 @@ def match_keypoint_order(
     return out
 
 
+def misspelling_hint(missing: Sequence[str], extra: Sequence[str]) -> str:
+    """Sentences naming extra keypoints that look like missing ones (a misspelling).
+
+    Examples
+    --------
+    >>> misspelling_hint(["Snout"], ["Snuot"])
+    " 'Snuot' looks like 'Snout': rename it."
+    """
+    alike = {e: difflib.get_close_matches(e, list(missing), n=1) for e in extra}
+    return "".join(f" '{e}' looks like '{m[0]}': rename it." for e, m in alike.items() if m)
+
+
 def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
     """Raise if sessions of one study differ in keypoint names or dimensionality.
 
@@ -289,8 +301,7 @@ def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
             extra = sorted(set(s.keypoints) - set(ref.keypoints))
             source = s.meta.get("source")
             file = f" in {source}" if source else ""
-            alike = {e: difflib.get_close_matches(e, missing, n=1) for e in extra}
-            hint = "".join(f" '{e}' looks like '{m[0]}': rename it." for e, m in alike.items() if m)
+            hint = misspelling_hint(missing, extra)
             raise InputError(
                 f"session '{s.session}' has different keypoints from session '{ref.session}' "
                 f"(missing {missing}, extra {extra}, or another order){file}. All sessions of one "
