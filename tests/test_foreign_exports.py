@@ -309,3 +309,23 @@ def test_label_reorders_keypoints_and_names_a_misspelled_one(tmp_path):
         label_sessions(tmp_path / "ws", [new / "rec.csv"], tmp_path / "out2", fps=30,
                        progress=False)  # fmt: skip
     assert not (tmp_path / "out2").exists()
+
+
+def test_manifest_columns_spelt_otherwise_are_named_with_the_fix(tmp_path):
+    from ethoscribe.errors import InputWarning
+    from ethoscribe.io import read_manifest
+
+    write_tidy(_tracks(0), tmp_path / "a.csv")
+    (tmp_path / "m.csv").write_text("Session,Path\na,a.csv\n")
+    with pytest.raises(InputError, match=r"Column 'Session' looks like 'session': rename it"):
+        read_manifest(tmp_path / "m.csv")
+    (tmp_path / "m.csv").write_text("session;path\na;a.csv\n")
+    with pytest.raises(InputError, match="separated by ';'"):
+        read_manifest(tmp_path / "m.csv")
+    (tmp_path / "m.csv").write_text("session,path\na,.\\\\a.csv\n")
+    with pytest.raises(InputError, match=r"Write paths with '/'"):
+        read_manifest(tmp_path / "m.csv")
+    (tmp_path / "m.csv").write_text("session,path,FPS\na,a.csv,30\n")
+    with pytest.warns(InputWarning, match=r"'FPS' looks like 'fps'"):
+        table = read_manifest(tmp_path / "m.csv")
+    assert "fps" not in table.columns and table["FPS"].tolist() == [30]

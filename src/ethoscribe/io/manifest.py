@@ -8,6 +8,7 @@ manifest's own folder. Rows are counted from 1 below the header.
 from __future__ import annotations
 
 import os
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -15,7 +16,7 @@ import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io._tables import check_file
 from ethoscribe.io.registry import read_pose
 from ethoscribe.pose import (
@@ -75,11 +76,21 @@ def validate_manifest(
     if not require_paths and "path" not in table.columns:
         table = table.assign(path="")
     missing = [c for c in REQUIRED if c not in table.columns]
+    known = (*REQUIRED, *OPTIONAL, "format")
+    alike = {c: k for c in table.columns for k in known
+             if c != k and c.lower() == k and k not in table.columns}  # fmt: skip
+    hints = "".join(f" Column '{c}' looks like '{k}': rename it." for c, k in alike.items())
     if missing:
+        if len(table.columns) == 1 and any(s in table.columns[0] for s in ";\t|"):
+            hints += " The header looks separated by ';', tab or '|': save it comma-separated."
         raise InputError(
             f"{source}: missing column(s) {missing}; found {list(table.columns)}. A manifest "
             f"needs {list(REQUIRED)} and may have {list(OPTIONAL)} and columns of your own."
+            f"{hints}"
         )
+    if alike:
+        msg = f"{source}: read as columns of your own, not as the manifest's:{hints}"
+        warnings.warn(msg, InputWarning, stacklevel=3)
     if table.empty:
         raise InputError(f"{source}: has column names but no sessions; add one row per session")
     text = {c: table[c].map(_cell) for c in table.columns}
@@ -146,6 +157,7 @@ def _check_files(source: str, table: pd.DataFrame, base: Path) -> None:
             + "; ".join(bad[:5])
             + ("; ..." if len(bad) > 5 else "")
             + f". Relative paths are read from the manifest's folder {base}."
+            + (" Write paths with '/' (not '\\')." if any("\\" in b for b in bad) else "")
         )
 
 
