@@ -329,3 +329,14 @@ def test_manifest_columns_spelt_otherwise_are_named_with_the_fix(tmp_path):
     with pytest.warns(InputWarning, match=r"'FPS' looks like 'fps'"):
         table = read_manifest(tmp_path / "m.csv")
     assert "fps" not in table.columns and table["FPS"].tolist() == [30]
+
+
+def test_frame_numbers_going_up_by_two_are_said(tmp_path):
+    from ethoscribe.errors import InputWarning
+
+    table = _tidy(_tracks(0), KEYPOINTS)
+    table["frame"] *= 2
+    table.to_csv(tmp_path / "a.csv", index=False)
+    with pytest.warns(InputWarning, match=r"go up by 2 \(only one frame in 2 has rows\)"):
+        t = read_tidy(tmp_path / "a.csv", fps=60)
+    assert t.n_frames == 39 and np.isnan(t.coords[1::2]).all()  # 20 numbered frames, 19 between

@@ -9,13 +9,14 @@ from __future__ import annotations
 
 import json
 import os
+import warnings
 from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io._atomic import write_table
 from ethoscribe.io._tables import (
     METADATA_KEY,
@@ -140,6 +141,15 @@ def read_tidy(
     n_frames = int(frames.max()) + 1
     per_frame = max(len(kp_names) * len(an_names), 1)  # rows of one frame: count frames
     check_frame_span(n_frames, frames.size // per_frame, extra["first_frame"], info.path, time_col)
+    step = int(np.gcd.reduce(frames))  # 0-based frame numbers: 1 unless all share a factor
+    if step > 1:  # every frame between two numbered ones is empty: a subsampled export?
+        warnings.warn(
+            f"{info.path}: frame numbers go up by {step} (only one frame in {step} has rows), "
+            f"so the frames between are read as lost; if the tracks were subsampled, number "
+            f"their frames 0, 1, 2 ... and give their own rate (fps=...)",
+            InputWarning,
+            stacklevel=2,
+        )
     shape = (n_frames, len(an_names), len(kp_names))
     flat = (frames * shape[1] + an_codes) * shape[2] + kp_codes
     _check_complete(info, flat, shape, kp_names, an_names, extra["first_frame"])
