@@ -7,6 +7,7 @@ fitted segmenter. New cohorts therefore get the same state ids, hence the same m
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import replace
 from typing import Any
@@ -18,7 +19,7 @@ from tqdm.auto import tqdm
 
 from ethoscribe.checks import seed_from
 from ethoscribe.clean import CleanParams, QualityReport, clean
-from ethoscribe.errors import EthoscribeError, InputError
+from ethoscribe.errors import EthoscribeError, InputError, InputWarning
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
 from ethoscribe.pose import (
@@ -28,6 +29,7 @@ from ethoscribe.pose import (
     misspelling_hint,
 )
 from ethoscribe.saved_state import check_header, header
+from ethoscribe.segment._hmm_gaussian import GaussianEmission
 from ethoscribe.segment._model_meta import RESAVE, check_meta, known_keys
 from ethoscribe.segment.duration import OUTLIER_SHARE
 from ethoscribe.segment.hmm import GaussianHMM
@@ -56,6 +58,13 @@ FORMAT_VERSION = 1
 # as a whole (benchmarks/README.md, "One behaviour in different units joined after the fit").
 COUNT_DEFAULTS = {"heldout": "blocks"}
 DECODINGS = ("min_duration", "merge")
+# How well a saved model explains new frames (``BehaviourModel.fit_shares``). The threshold is
+# the 1st percentile of the training frames' log-likelihood under their best state, so a frame
+# from the training distribution falls below it with probability 1 %. A session is flagged at
+# ten times that: frames come in bouts (about a second), so a 100 s session holds some 100
+# independent draws, and Binomial(100, 0.01) exceeds 10 of them with probability < 1e-7.
+POOR_FIT_PERCENTILE = 1.0
+POOR_FIT_WARN_SHARE = 0.10
 
 
 def motif_name(state: int) -> str:
@@ -467,6 +476,7 @@ class BehaviourModel(BaseEstimator):
         self.quality_ = list(quality)
         self.training_sessions_ = [s.session for s in sessions]
         self.n_training_frames_ = int(lengths.sum())
+        self.poor_fit_threshold_ = poor_fit_threshold(segmenter, X)
         return feats
 
     def _phase_groups(
@@ -569,6 +579,10 @@ class BehaviourModel(BaseEstimator):
         sessions = list(sessions)
         feats, _ = self.transform_features(sessions)
         labels = self.label_features(feats)
+        for text in poor_fit_messages(
+            self.fit_shares(feats), getattr(self, "poor_fit_threshold_", None)
+        ):
+            warnings.warn(text, InputWarning, stacklevel=2)
         if getattr(self, "labels_at_input_rate_", False):
             labels = _at_input_rate(labels, sessions, self.fps_)
         return labels
@@ -618,6 +632,37 @@ class BehaviourModel(BaseEstimator):
         names = np.array([""] + [motif_name(k) for k in range(self.n_states_)], dtype=object)
         labels.insert(5, "motif", names[labels["state"].to_numpy() + 1])
         return labels
+
+    def fit_shares(self, feats: Sequence[FeatureSet]) -> list[dict[str, Any]]:
+        """How well the model explains each session's frames, one record per session.
+
+        A frame is poorly explained when its log-likelihood under its best state (the Gaussian
+        state that explains it best) is below :attr:`poor_fit_threshold_`, the 1st percentile
+        of the training frames' own: under a well-fitting model about 1 % of a new session's
+        frames are, far more means the new frames are unlike the training ones (e.g. larger
+        animals or another camera scale). Records: ``session``, ``n_frames`` (scored frames,
+        all animals), ``n_poor`` and ``share`` (n_poor / n_frames; None without frames).
+        Empty when the model has no threshold (saved before it was kept, or a method
+        without Gaussian states).
+        """
+        check_fitted(self, "segmenter_")
+        threshold = getattr(self, "poor_fit_threshold_", None)
+        if threshold is None:
+            return []
+        counts: dict[str, list[int]] = {}
+        for f in feats:
+            n, poor = counts.setdefault(str(f.session), [0, 0]), 0
+            if f.valid.any():
+                ll = best_state_log_likelihood(self.segmenter_, f.values[f.valid])
+                if ll is None:
+                    return []
+                poor = int(np.count_nonzero(ll < threshold))
+            n[0] += int(np.count_nonzero(f.valid))
+            n[1] += poor
+        return [
+            {"session": s, "n_frames": n, "n_poor": k, "share": k / n if n else None}
+            for s, (n, k) in counts.items()
+        ]
 
     def _fine_states(self, X: np.ndarray, lengths: np.ndarray) -> np.ndarray | None:
         """Fine state of every valid frame when the labels are groups of fine states (a
@@ -753,6 +798,7 @@ class BehaviourModel(BaseEstimator):
             "phase_pairs": getattr(self, "phase_pairs_", []),
             "unit_pairs": getattr(self, "unit_pairs_", []),
             "mode_pairs": getattr(self, "mode_pairs_", []),
+            "poor_fit_threshold": getattr(self, "poor_fit_threshold_", None),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -839,6 +885,17 @@ class BehaviourModel(BaseEstimator):
         model.quality_ = []
         model.training_sessions_ = list(meta["training_sessions"])
         model.n_training_frames_ = int(meta["n_training_frames"])
+        # Models saved before the threshold was kept: no check of new sessions' fit.
+        threshold = meta.get("poor_fit_threshold")
+        if threshold is not None and (
+            isinstance(threshold, bool)
+            or not isinstance(threshold, int | float)
+            or not np.isfinite(threshold)
+        ):
+            raise InputError(
+                f"'poor_fit_threshold' must be a number or null, got {threshold!r}. {RESAVE}"
+            )
+        model.poor_fit_threshold_ = None if threshold is None else float(threshold)
         # The parts must describe the same body plan and state count as the summary fields.
         problems = []
         if model.features_.keypoints_ != model.keypoints_:
@@ -865,6 +922,56 @@ class BehaviourModel(BaseEstimator):
         if problems:
             raise InputError("the model file is inconsistent: " + "; ".join(problems) + ".")
         return model
+
+
+def best_state_log_likelihood(segmenter: Any, X: np.ndarray) -> np.ndarray | None:
+    """Per frame, ``max_k log N(x | mean_k, cov_k)``: the log-density of the fitted Gaussian
+    state that explains the frame best (the fine states of a grouped model), shape (n,);
+    None for a segmenter without Gaussian states."""
+    seg = getattr(segmenter, "fine_", segmenter)
+    means, covars = getattr(seg, "means_", None), getattr(seg, "covars_", None)
+    kind = getattr(seg, "covariance_type", None)
+    if means is None or covars is None or kind not in ("full", "diag"):
+        return None
+    if np.ndim(covars) != 3:
+        return None
+    X = np.asarray(X, dtype=np.float64)
+    if not len(X):
+        return np.zeros(0)
+    return GaussianEmission(means, covars, kind).log_likelihood(X).max(axis=1)
+
+
+def poor_fit_threshold(segmenter: Any, X: np.ndarray) -> float | None:
+    """The 1st percentile (``POOR_FIT_PERCENTILE``) of the training frames' best-state
+    log-likelihood (:func:`best_state_log_likelihood`); None without Gaussian states."""
+    ll = best_state_log_likelihood(segmenter, X)
+    if ll is None or not len(ll):
+        return None
+    return float(np.percentile(ll, POOR_FIT_PERCENTILE))
+
+
+def poor_fit_messages(shares: Sequence[Mapping[str, Any]], threshold: float | None) -> list[str]:
+    """One warning line per session explained far worse than the training frames (share of
+    poorly explained frames above ``POOR_FIT_WARN_SHARE``), or one line saying the check could
+    not run (a model saved without its threshold)."""
+    if threshold is None:
+        return [
+            "the model holds no fit threshold (saved before it was kept, or its method has no "
+            "Gaussian states), so how well it explains the new sessions is not checked; refit "
+            "it to have the check"
+        ]
+    out = []
+    for r in shares:
+        share = r.get("share")
+        if share is not None and share > POOR_FIT_WARN_SHARE:
+            out.append(
+                f"session '{r['session']}': the model explains {share:.0%} of its frames worse "
+                f"than the worst 1 % of its own training frames, so its labels are not to be "
+                f"trusted; likely the body size or camera scale differs from training (check "
+                f"units and px_per_unit in the manifest), or the behaviour is new: refit "
+                f'including these sessions, or fit with features={{"scale_by_size": true}}'
+            )
+    return out
 
 
 def _fixed_speed(cleaned: Sequence[PoseTracks]) -> float | None:

@@ -209,7 +209,8 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
         paths = [info.get("labels"), *info["features"]] if ok else []
         # Entries name files beside them, nothing else (a hand-edited entry is recomputed).
         plain = paths and all(isinstance(p, str) and p == Path(p).name for p in paths)
-        if plain and all((folder / p).is_file() for p in paths):
+        # entries written before the fit check lack "fit": recomputed, to have it
+        if plain and all((folder / p).is_file() for p in paths) and "fit" in info:
             return _absolute(info, folder)
     tracks, _, _ = load_prepared(prepared)
     model = _cached_model(job["model"], job["model_key"])
@@ -227,7 +228,12 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     for i, f in enumerate(feats):
         names.append(f"{base.name}.features-{i}.npz")
         save_features(folder / names[-1], f)
-    info = {"session": tracks.session, "labels": f"{base.name}.labels.parquet", "features": names}
+    info = {
+        "session": tracks.session,
+        "labels": f"{base.name}.labels.parquet",
+        "features": names,
+        "fit": model.fit_shares(feats),  # how well the model explains the session's frames
+    }
     atomic_write_json(done, info)  # last: its presence says the entry is complete
     return _absolute(info, folder)
 

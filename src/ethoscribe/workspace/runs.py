@@ -20,7 +20,15 @@ from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, wri
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks
 from ethoscribe.saved_state import header
-from ethoscribe.segment.model import BehaviourModel, labels_like_model, motif_name, stack_valid
+from ethoscribe.segment.model import (
+    POOR_FIT_PERCENTILE,
+    POOR_FIT_WARN_SHARE,
+    BehaviourModel,
+    labels_like_model,
+    motif_name,
+    poor_fit_messages,
+    stack_valid,
+)
 from ethoscribe.segment.registry import get_segmenter
 from ethoscribe.segment.sampling import representative_blocks, take_blocks
 from ethoscribe.segment.stability import stability_report
@@ -420,6 +428,7 @@ def label_sessions(
         summary["labelled_with"] = str(source)
         summary["cleaning"] = cleaning_summary(cleaning, used, table)
         summary["reading"] = reading_summary(plan)
+        summary["fit_to_model"] = _fit_to_model(model, decoded)
         tables = _write_workspace(out, table, model, decoded, quality, None, summary, journal)
         retire_learned(out, now().replace(":", ""))  # the source's classifier, if any, follows
         ws = Workspace(out)
@@ -428,6 +437,33 @@ def label_sessions(
         with ticking("postures for the workbench", progress):
             cache_postures(ws, model, _cleaned_loaders(prepared, table, bool(model.causal)))
         return ws
+
+
+def _fit_to_model(model: BehaviourModel, decoded: Sequence[dict[str, Any]]) -> dict[str, Any]:
+    """How well ``model`` explains each new session (``BehaviourModel.fit_shares``), for the
+    summary; warns, one line per session, where far more frames than the expected 1 % are
+    explained worse than the worst 1 % of the training frames."""
+    threshold = getattr(model, "poor_fit_threshold_", None)
+    sessions = [r for d in decoded for r in d.get("fit") or []]
+    for text in poor_fit_messages(sessions, threshold):
+        warnings.warn(text, InputWarning, stacklevel=3)
+    return {
+        "checked": threshold is not None,
+        "threshold": threshold,
+        "expected_share": POOR_FIT_PERCENTILE / 100,
+        "warn_above": POOR_FIT_WARN_SHARE,
+        "sessions": sessions,
+        "flagged": [
+            r["session"]
+            for r in sessions
+            if r.get("share") is not None and r["share"] > POOR_FIT_WARN_SHARE
+        ],
+        "meaning": (
+            "share: frames of the session whose log-likelihood under their best state is below "
+            "threshold, the 1st percentile of the training frames' own (about 1 % when the "
+            "model fits the session as well as its training sessions)"
+        ),
+    }
 
 
 def _check_units(plan: Sequence[dict[str, Any]], model: BehaviourModel) -> None:
