@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
+import warnings
 from pathlib import Path
 
 import pandas as pd
@@ -12,6 +13,7 @@ import pytest
 
 from _example_study import trimmed_study
 from ethoscribe.cli import main
+from ethoscribe.errors import InputWarning
 
 
 @pytest.fixture(scope="module")
@@ -50,19 +52,30 @@ def test_discover_then_label_a_new_cohort(study, tmp_path, capsys):
     assert (out / "report.html").is_file()
 
     cohort = tmp_path / "cohort"
-    code = main(
-        [
-            "label",
-            str(out),
-            str(study / "session_11.parquet"),
-            "--manifest",
-            str(study / "manifest.csv"),
-            "--out",
-            str(cohort),
-            "--quiet",
-        ]
-    )
+    with warnings.catch_warnings():
+        # A model of one animal (session_03) explains the other animal's frames worse than
+        # its own: label says so in one line and records the share (the test suite otherwise
+        # turns the package's warnings into errors).
+        warnings.simplefilter("always", InputWarning)
+        code = main(
+            [
+                "label",
+                str(out),
+                str(study / "session_11.parquet"),
+                "--manifest",
+                str(study / "manifest.csv"),
+                "--out",
+                str(cohort),
+                "--quiet",
+            ]
+        )
     assert code == 0
+    fit = json.loads((cohort / "summary.json").read_text())["fit_to_model"]
+    (record,) = fit["sessions"]
+    assert record["session"] == "session_11" and record["n_frames"] > 0
+    flagged = record["share"] > fit["warn_above"]
+    said = capsys.readouterr().err
+    assert ("warning: session 'session_11': the model explains" in said) == flagged
     labels = pd.read_csv(cohort / "labels.csv", keep_default_na=False)
     assert set(labels["session"]) == {"session_11"}
     assert set(labels["motif"]) - {""} <= {"motif_01", "motif_02", "motif_03"}

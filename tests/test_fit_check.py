@@ -19,6 +19,7 @@ from scipy import stats
 from _reliability_data import run_discover, write_study
 from ethoscribe.errors import InputWarning
 from ethoscribe.io import write_tidy
+from ethoscribe.io.bundle import write_bundle
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.model import (
     POOR_FIT_WARN_SHARE,
@@ -28,6 +29,7 @@ from ethoscribe.segment.model import (
 )
 from ethoscribe.simulate import simulate_session
 from ethoscribe.workspace import label_sessions
+from ethoscribe.workspace.files import load_model
 
 QUICK = {"n_restarts": 1, "n_iter": 30}
 
@@ -108,7 +110,7 @@ def test_the_threshold_is_saved_and_an_old_model_still_labels(fitted):
     expected = fitted.label([session])
     del meta["poor_fit_threshold"]  # a model saved before the threshold was kept
     old = BehaviourModel.from_state(meta, arrays)
-    with pytest.warns(InputWarning, match="no fit threshold") as caught:
+    with pytest.warns(InputWarning, match="saved before it kept the fit threshold") as caught:
         labels = old.label([session])
     assert len([w for w in caught if "threshold" in str(w.message)]) == 1  # said once
     pd.testing.assert_frame_equal(labels, expected)
@@ -134,3 +136,18 @@ def test_label_sessions_records_the_shares_and_flags_larger_animals(tmp_path):
     assert fit["checked"] and fit["flagged"] == ["big"]
     shares = {r["session"]: r["share"] for r in fit["sessions"]}
     assert shares["big"] > POOR_FIT_WARN_SHARE > shares["same"]
+
+
+def test_label_sessions_with_a_model_saved_before_the_threshold(tmp_path):
+    study = write_study(tmp_path / "study")
+    ws = run_discover(study, tmp_path / "ws")
+    meta, arrays = load_model(ws.path / "model").to_state()
+    del meta["poor_fit_threshold"]  # as written before the threshold was kept
+    write_bundle(ws.path / "model", meta, arrays)
+    with pytest.warns(InputWarning, match="saved before it kept the fit threshold") as caught:
+        label_sessions(ws.path, [study], tmp_path / "new", progress=False)
+    assert len(caught) == 1  # said once for the whole run
+    fit = json.loads((tmp_path / "new" / "summary.json").read_text())["fit_to_model"]
+    assert not fit["checked"] and fit["sessions"] == [] and fit["flagged"] == []
+    labels = pd.read_csv(tmp_path / "new" / "labels.csv", keep_default_na=False)
+    assert set(labels["session"]) == {"session_01", "session_02"}

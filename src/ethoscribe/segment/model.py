@@ -579,9 +579,7 @@ class BehaviourModel(BaseEstimator):
         sessions = list(sessions)
         feats, _ = self.transform_features(sessions)
         labels = self.label_features(feats)
-        for text in poor_fit_messages(
-            self.fit_shares(feats), getattr(self, "poor_fit_threshold_", None)
-        ):
+        for text in poor_fit_messages(self.fit_shares(feats), self):
             warnings.warn(text, InputWarning, stacklevel=2)
         if getattr(self, "labels_at_input_rate_", False):
             labels = _at_input_rate(labels, sessions, self.fps_)
@@ -896,6 +894,7 @@ class BehaviourModel(BaseEstimator):
                 f"'poor_fit_threshold' must be a number or null, got {threshold!r}. {RESAVE}"
             )
         model.poor_fit_threshold_ = None if threshold is None else float(threshold)
+        model.saved_without_fit_check_ = "poor_fit_threshold" not in meta
         # The parts must describe the same body plan and state count as the summary fields.
         problems = []
         if model.features_.keypoints_ != model.keypoints_:
@@ -950,15 +949,17 @@ def poor_fit_threshold(segmenter: Any, X: np.ndarray) -> float | None:
     return float(np.percentile(ll, POOR_FIT_PERCENTILE))
 
 
-def poor_fit_messages(shares: Sequence[Mapping[str, Any]], threshold: float | None) -> list[str]:
+def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel) -> list[str]:
     """One warning line per session explained far worse than the training frames (share of
     poorly explained frames above ``POOR_FIT_WARN_SHARE``), or one line saying the check could
-    not run (a model saved without its threshold)."""
-    if threshold is None:
+    not run because ``model`` was saved before it kept its threshold (a method without
+    Gaussian states has none either: no check, no line)."""
+    if getattr(model, "poor_fit_threshold_", None) is None:
+        if not getattr(model, "saved_without_fit_check_", False):
+            return []
         return [
-            "the model holds no fit threshold (saved before it was kept, or its method has no "
-            "Gaussian states), so how well it explains the new sessions is not checked; refit "
-            "it to have the check"
+            "the model was saved before it kept the fit threshold, so how well it explains the "
+            "new sessions is not checked; fit it again (discover) to have the check"
         ]
     out = []
     for r in shares:

@@ -445,7 +445,7 @@ def _fit_to_model(model: BehaviourModel, decoded: Sequence[dict[str, Any]]) -> d
     explained worse than the worst 1 % of the training frames."""
     threshold = getattr(model, "poor_fit_threshold_", None)
     sessions = [r for d in decoded for r in d.get("fit") or []]
-    for text in poor_fit_messages(sessions, threshold):
+    for text in poor_fit_messages(sessions, model):
         warnings.warn(text, InputWarning, stacklevel=3)
     return {
         "checked": threshold is not None,
