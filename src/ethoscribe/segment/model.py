@@ -967,10 +967,11 @@ def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel
         if share is not None and share > POOR_FIT_WARN_SHARE:
             out.append(
                 f"session '{r['session']}': the model explains {share:.0%} of its frames worse "
-                f"than the worst 1 % of its own training frames, so its labels are not to be "
-                f"trusted; likely the body size or camera scale differs from training (check "
-                f"units and px_per_unit in the manifest), or the behaviour is new: refit "
-                f'including these sessions, or fit with features={{"scale_by_size": true}}'
+                f"than the worst 1 % of its own training frames (about 1 % expected), so look at "
+                f"its bouts before trusting its labels; likely the body size or camera scale "
+                f"differs from training (check units and px_per_unit in the manifest) or the "
+                f"behaviour is new: refit with these sessions included (ethoscribe discover), or "
+                f"in Python fit with features={{'scale_by_size': True}}"
             )
     return out
 
