@@ -27,6 +27,10 @@ from ethoscribe.io._safe import read_json
 
 LOCK_FILE = ".lock"
 OWNER_FILE = ".lock-owner.json"
+# A holder that has recorded no owner is either a probe (``holder``: the lock taken and given
+# back at once) or a holder that writes its record right after taking the lock; either is
+# gone or named within this time, so a writer waits that long before saying who is in the way.
+UNNAMED_HOLDER_WAIT_S = 2.0
 
 
 def owner_record() -> dict[str, Any]:
@@ -115,7 +119,13 @@ def hold(
     folder = Path(folder)
     lock = FileLock(str(folder / LOCK_FILE), timeout=max(0.0, wait_s), poll_interval=0.02)
     try:
-        lock.acquire()
+        try:
+            lock.acquire()
+        except Timeout:
+            if read_owner(folder):
+                raise
+            # no record: a probe or a holder still starting (see UNNAMED_HOLDER_WAIT_S)
+            lock.acquire(timeout=max(wait_s, UNNAMED_HOLDER_WAIT_S))
     except Timeout:
         raise _in_use(folder, what) from None
     except OSError as exc:
@@ -133,7 +143,10 @@ def hold(
 
 
 def holder(folder: str | os.PathLike[str]) -> dict[str, Any] | None:
-    """Who holds the lock of ``folder`` now: their owner record, or None if it is free."""
+    """Who holds the lock of ``folder`` now: their owner record, or None if it is free.
+
+    It takes the lock for a moment to tell; a writer starting meanwhile waits for it
+    (``UNNAMED_HOLDER_WAIT_S``) instead of failing."""
     folder = Path(folder)
     lock = FileLock(str(folder / LOCK_FILE), timeout=0)
     try:
