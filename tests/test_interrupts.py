@@ -21,7 +21,9 @@ TESTS = Path(__file__).resolve().parent
 def test_ctrl_c_while_workers_run_leaves_no_worker_tracebacks(tmp_path):
     code = textwrap.dedent(
         f"""
-        import sys
+        import signal, sys
+        # as in a terminal: a run started in the background inherits SIGINT ignored
+        signal.signal(signal.SIGINT, signal.default_int_handler)
         sys.path[:0] = [{str(SRC)!r}, {str(TESTS)!r}]
         from ethoscribe.workspace.executor import map_sessions
         from _slow_worker import touch_and_wait
