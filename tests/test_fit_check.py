@@ -29,6 +29,7 @@ from ethoscribe.segment.model import (
 )
 from ethoscribe.simulate import simulate_session
 from ethoscribe.workspace import label_sessions
+from ethoscribe.workspace.cache import LABELLED_FOLDER
 from ethoscribe.workspace.files import load_model
 
 QUICK = {"n_restarts": 1, "n_iter": 30}
@@ -120,6 +121,9 @@ def test_the_threshold_is_saved_and_an_old_model_still_labels(fitted):
 def test_label_sessions_records_the_shares_and_flags_larger_animals(tmp_path):
     study = write_study(tmp_path / "study", duration_s=30.0)
     ws = run_discover(study, tmp_path / "ws")
+    # discover's own labelling does not compute the check (nothing reads it there)
+    entries = list(ws.path.rglob(f"{LABELLED_FOLDER}/*.json"))
+    assert entries and not any("fit" in json.loads(e.read_text()) for e in entries)
     cohort = tmp_path / "cohort"
     cohort.mkdir()
     # A training session itself (the training distribution), and its animal 50 % larger: this

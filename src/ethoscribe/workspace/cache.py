@@ -191,7 +191,8 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     ``job`` holds ``prepared`` (what :func:`prepare_session` returned), ``model`` and
     ``model_key`` (from :func:`cache_model`), ``cache`` (the workspace folder) and ``force``,
     optionally ``features`` (the session's feature sets under that model, when the caller has
-    them: not computed again).
+    them: not computed again) and ``fit_check`` (also ``"fit"``,
+    :meth:`~ethoscribe.segment.model.BehaviourModel.fit_shares`).
     Writes the session's label table (state ids, default names) as Parquet and one feature
     file per animal; returns their paths. Runs in worker processes, like
     :func:`prepare_session`.
@@ -209,8 +210,9 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
         paths = [info.get("labels"), *info["features"]] if ok else []
         # Entries name files beside them, nothing else (a hand-edited entry is recomputed).
         plain = paths and all(isinstance(p, str) and p == Path(p).name for p in paths)
-        # entries written before the fit check lack "fit": recomputed, to have it
-        if plain and all((folder / p).is_file() for p in paths) and "fit" in info:
+        # an entry made without the fit check (discover, or before it) lacks "fit"
+        wanted = not job.get("fit_check") or "fit" in info
+        if plain and all((folder / p).is_file() for p in paths) and wanted:
             return _absolute(info, folder)
     tracks, _, _ = load_prepared(prepared)
     model = _cached_model(job["model"], job["model_key"])
@@ -228,12 +230,9 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     for i, f in enumerate(feats):
         names.append(f"{base.name}.features-{i}.npz")
         save_features(folder / names[-1], f)
-    info = {
-        "session": tracks.session,
-        "labels": f"{base.name}.labels.parquet",
-        "features": names,
-        "fit": model.fit_shares(feats),  # how well the model explains the session's frames
-    }
+    info = {"session": tracks.session, "labels": f"{base.name}.labels.parquet", "features": names}
+    if job.get("fit_check"):  # how well the model explains the session's frames (label)
+        info["fit"] = model.fit_shares(feats)
     atomic_write_json(done, info)  # last: its presence says the entry is complete
     return _absolute(info, folder)
 

@@ -362,17 +362,20 @@ def _decode(
     progress: bool,
     features: Mapping[str, list[FeatureSet]] | None = None,
     table: pd.DataFrame | None = None,
+    fit_check: bool = False,
 ) -> list[dict[str, Any]]:
     """Features and labels of every session under ``model``, per session in parallel.
 
     ``features``: feature sets already computed under ``model`` by session name (``table``,
     the sessions table in ``prepared`` order, names them), used instead of computing them
-    again (in this process only: arrays are not sent to workers)."""
+    again (in this process only: arrays are not sent to workers). ``fit_check``: also how
+    well the model explains each session (``"fit"``; new sessions only, one more pass)."""
     folder, key = cache_model(model, out)
     work = [
-        {"prepared": p, "model": folder, "model_key": key, "cache": str(out), "force": force}
+        {"prepared": p, "model": folder, "model_key": key, "cache": str(out), "force": force,
+         "fit_check": fit_check}
         for p in prepared
-    ]
+    ]  # fmt: skip
     if features and table is not None:
         for job, session in zip(work, table["session"].astype(str), strict=True):
             if session in features:
@@ -423,7 +426,7 @@ def label_sessions(
         prepared, quality, table, used = _prepare(
             out, plan, cleaning, jobs, client, force, progress, bool(model.causal)
         )
-        decoded = _decode(out, prepared, model, jobs, client, force, progress)
+        decoded = _decode(out, prepared, model, jobs, client, force, progress, fit_check=True)
         summary = _summary(model, table, model.random_state, None)
         summary["labelled_with"] = str(source)
         summary["cleaning"] = cleaning_summary(cleaning, used, table)
