@@ -323,18 +323,11 @@ def screened_start(
     (``trans_counts = persistence * n_frames * sticky``).
 
     Returns the parameters of the best candidate (as ``run_em`` returns them). This is the
-    screening of every restart (``screening="each_restart"``); ``screened_starts`` screens
-    once for all restarts.
+    screening of every restart (``screening="each_restart"``): ``screened_starts`` keeping
+    one; with more, it screens once for all restarts.
     """
-    Xs, sub = _screening_sample(model, X, lengths, rng)
-    trans_counts = persistence * len(Xs) * sticky
-    best = None
-    for _ in range(int(model.init_candidates)):
-        means = initial_means(Xs, K, model.init, rng)
-        res = run_em(model, Xs, sub, means, sticky, start_counts, trans_counts, bar, SCREEN_ITER)
-        if best is None or res["log_likelihood"] > best["log_likelihood"]:
-            best = res
-    return best
+    args = (model, X, lengths, K, sticky, start_counts, persistence, rng, bar)
+    return screened_starts(*args, n_keep=1)[0]
 
 
 def screened_starts(
