@@ -161,19 +161,50 @@ def map_columns(
     return replace(info, columns=tuple(renamed), renamed={**info.renamed, **dict(mapping)})
 
 
+def similar_columns(columns: Sequence[Any], wanted: Sequence[str]) -> dict[str, str]:
+    """Columns named like a wanted column that is absent but for case and spaces
+    (``Session`` for ``session``): found name -> wanted name.
+
+    Examples
+    --------
+    >>> similar_columns(["Session", "x"], ["session", "x"])
+    {'Session': 'session'}
+    """
+    present = {str(c) for c in columns}
+    return {
+        str(c): w
+        for w in wanted
+        if w not in present
+        for c in columns
+        if str(c) != w and str(c).strip().lower() == w
+    }
+
+
+def rename_hints(similar: Mapping[str, str]) -> str:
+    """`` Column 'Session' looks like 'session': rename it.`` for each pair of
+    :func:`similar_columns`."""
+    return "".join(f" Column '{f}' looks like '{w}': rename it." for f, w in similar.items())
+
+
+def separator_hint(columns: Sequence[Any]) -> str:
+    """A sentence when a table's one column looks like a header separated by another sign."""
+    if len(columns) == 1 and any(s in str(columns[0]) for s in ";\t|"):
+        return " The header looks separated by ';', tab or '|': save it comma-separated."
+    return ""
+
+
 def require_columns(info: TableInfo, needed: list[str], purpose: str) -> None:
     """Raise listing the missing columns, the columns found and near misses."""
     missing = [c for c in needed if c not in info.columns]
     if not missing:
         return
-    near = {c: f for c in missing for f in info.columns if f.strip().lower() == c and f != c}
-    hints = "".join(f" Column '{f}' looks like '{c}': rename it." for c, f in near.items())
+    near = similar_columns(info.columns, missing)
+    hints = rename_hints(near)
     if near:
-        python = ", ".join(f"'{c}': '{f}'" for c, f in near.items())
-        cli = ",".join(f"{c}={f}" for c, f in near.items())
+        python = ", ".join(f"'{w}': '{f}'" for f, w in near.items())
+        cli = ",".join(f"{w}={f}" for f, w in near.items())
         hints += f" Or pass columns={{{python}}} (command line: --columns {cli})."
-    if len(info.columns) == 1 and any(s in info.columns[0] for s in ";\t|"):
-        hints += " The header looks separated by ';', tab or '|': save it comma-separated."
+    hints += separator_hint(info.columns)
     raise InputError(
         f"{info.path}: missing column(s) {missing} needed for {purpose}; found columns "
         f"{list(info.columns)}.{hints}"

@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from ethoscribe.errors import InputError
+from ethoscribe.io._tables import rename_hints, similar_columns
 
 FRAME_COLUMNS = ("session", "frame", "behaviour")
 BOUT_COLUMNS = ("session", "behaviour", "start_s", "stop_s")
@@ -74,10 +75,8 @@ def read_expert_coding(
         f"frame) or {', '.join(BOUT_COLUMNS)} (one row per bout); found {list(table.columns)}"
     )
     wanted = dict.fromkeys([*FRAME_COLUMNS, *BOUT_COLUMNS, "animal"])
-    near = [(str(f), c) for c in wanted for f in table.columns if str(f).strip().lower() == c]
-    msg += "".join(f". Column '{f}' looks like '{c}': rename it" for f, c in near if f != c)
-    msg += "." if any(f != c for f, c in near) else ""
-    raise InputError(msg)
+    hints = rename_hints(similar_columns(table.columns, list(wanted)))
+    raise InputError(msg + ("." + hints if hints else ""))
 
 
 def _read(path: Path) -> pd.DataFrame:

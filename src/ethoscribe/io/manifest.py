@@ -17,7 +17,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError, InputWarning
-from ethoscribe.io._tables import check_file
+from ethoscribe.io._tables import check_file, rename_hints, separator_hint, similar_columns
 from ethoscribe.io.registry import read_pose
 from ethoscribe.pose import (
     UNITS,
@@ -76,17 +76,13 @@ def validate_manifest(
     if not require_paths and "path" not in table.columns:
         table = table.assign(path="")
     missing = [c for c in REQUIRED if c not in table.columns]
-    known = (*REQUIRED, *OPTIONAL, "format")
-    alike = {c: k for c in table.columns for k in known
-             if c != k and c.lower() == k and k not in table.columns}  # fmt: skip
-    hints = "".join(f" Column '{c}' looks like '{k}': rename it." for c, k in alike.items())
+    alike = similar_columns(table.columns, (*REQUIRED, *OPTIONAL, "format"))
+    hints = rename_hints(alike)
     if missing:
-        if len(table.columns) == 1 and any(s in table.columns[0] for s in ";\t|"):
-            hints += " The header looks separated by ';', tab or '|': save it comma-separated."
         raise InputError(
             f"{source}: missing column(s) {missing}; found {list(table.columns)}. A manifest "
             f"needs {list(REQUIRED)} and may have {list(OPTIONAL)} and columns of your own."
-            f"{hints}"
+            f"{hints}{separator_hint(table.columns)}"
         )
     if alike:
         msg = f"{source}: read as columns of your own, not as the manifest's:{hints}"
