@@ -8,7 +8,7 @@ fitted segmenter. New cohorts therefore get the same state ids, hence the same m
 from __future__ import annotations
 
 import warnings
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import replace
 from typing import Any
 
@@ -401,12 +401,7 @@ class BehaviourModel(BaseEstimator):
         self._check_params()
         cleaned = match_keypoint_order(cleaned)
         check_same_body_plan(cleaned)
-        fps = {s.fps for s in cleaned}
-        if len(fps) > 1:
-            raise InputError(
-                f"sessions have different frame rates {sorted(fps)}; resample them to one rate, "
-                f"e.g. the lowest, with cleaning={{'target_fps': {min(fps):g}}}"
-            )
+        check_one_rate(s.fps for s in cleaned)
         if self.causal:
             params = _causal_cleaning(cleaned, params)
         sessions = cleaned
@@ -921,6 +916,16 @@ class BehaviourModel(BaseEstimator):
         if problems:
             raise InputError("the model file is inconsistent: " + "; ".join(problems) + ".")
         return model
+
+
+def check_one_rate(rates: Iterable[float]) -> None:
+    """Refuse sessions of different frame rates, naming the rate to resample them to."""
+    rates = sorted({float(r) for r in rates})
+    if len(rates) > 1:
+        raise InputError(
+            f"sessions have different frame rates {rates}; resample them to one rate, e.g. the "
+            f"lowest, with cleaning={{'target_fps': {rates[0]:g}}}"
+        )
 
 
 def best_state_log_likelihood(segmenter: Any, X: np.ndarray) -> np.ndarray | None:

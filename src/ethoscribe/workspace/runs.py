@@ -24,6 +24,7 @@ from ethoscribe.segment.model import (
     POOR_FIT_PERCENTILE,
     POOR_FIT_WARN_SHARE,
     BehaviourModel,
+    check_one_rate,
     labels_like_model,
     motif_name,
     poor_fit_messages,
@@ -264,12 +265,8 @@ def _prepare(
 def _refuse_mixed_rates(plan: Sequence[dict[str, Any]], cleaning: dict[str, Any]) -> None:
     """Refuse, before reading, sessions whose given frame rates differ with no common rate
     to resample to (the fit would refuse them after every session was read and cleaned)."""
-    rates = sorted({float(e["fps"]) for e in plan if e.get("fps") is not None})
-    if len(rates) > 1 and not cleaning.get("target_fps"):
-        raise InputError(
-            f"sessions have different frame rates {rates}; resample them to one rate, e.g. "
-            f"the lowest, with cleaning={{'target_fps': {rates[0]:g}}}"
-        )
+    if not cleaning.get("target_fps"):
+        check_one_rate(e["fps"] for e in plan if e.get("fps") is not None)
 
 
 def _warn_short_sessions(rows: Sequence[dict[str, Any]]) -> None:
