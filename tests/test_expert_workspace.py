@@ -123,6 +123,14 @@ def test_learn_command_line_and_bad_coding(study, tmp_path, capsys):
     assert main(["learn", str(study["ws"].path), str(bad)]) == 2
     assert "row 2: session 'session_77'" in capsys.readouterr().err
     assert main(["agreement", str(study["ws"].path), str(bad), "--out", str(tmp_path / "a")]) == 2
+    # a behaviour with few coded bouts is warned about once, not again in the summary
+    with warnings.catch_warnings():
+        warnings.simplefilter("default")  # as a terminal's Python shows them
+        assert main(["learn", str(study["ws"].path), str(study["root"] / "coded.csv")]) == 0
+    out, err = capsys.readouterr()
+    warned = [line for line in (out + err).splitlines() if "warning:" in line]
+    assert warned and all(line.startswith("ethoscribe learn: warning:") for line in warned)
+    assert len(set(warned)) == len(warned)
 
 
 def test_workbench_expert_section(study):

@@ -548,5 +548,5 @@ def describe_learning(result: LearnResult, workspace: str | Path) -> str:
         f"saved in {Path(workspace) / LEARNED_FOLDER}; labels.csv and bouts.csv now name the "
         "expert's behaviours (the discovered motifs in discovered_motif)",
     ]
-    lines += [f"warning: {w}" for w in result.warnings]
+    # result.warnings were issued as warnings when learning (the command line prints them)
     return "\n".join(lines)
