@@ -5,9 +5,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from hmmlearn.hmm import GaussianHMM as ReferenceHMM
+from scipy.linalg import solve_triangular
 
+from ethoscribe.segment import _hmm_gaussian as hmm_gaussian
 from ethoscribe.segment._hmm_gaussian import (
     GaussianEmission,
+    _lower_inverse,
+    frame_products,
     gaussian_e_step,
     gaussian_m_step,
 )
@@ -118,3 +122,34 @@ def test_hmmlearn_engine_reaches_the_same_states():
     assert adjusted_rand(fast.predict(X, lengths), reference.predict(X, lengths)) > 0.99
     assert fast.log_likelihood_ == pytest.approx(reference.log_likelihood_, abs=5e-3)
     np.testing.assert_allclose(fast.means_, reference.means_, atol=0.05)
+
+
+def test_kept_frame_products_give_the_same_em_iteration_as_hmmlearn(monkeypatch):
+    # The frames' products computed once per fit (frame_products) instead of in every E-step:
+    # the same sums exactly, so still one hmmlearn iteration; chunks of 100 frames (not 43,690)
+    # so that the sums cross chunk boundaries.
+    monkeypatch.setattr(hmm_gaussian, "_CHUNK_BYTES", 8 * 6 * 100)
+    X, sp, tm, means, covars, ref_covars = _random_model("full", seed=2)
+    products = frame_products(X)
+    iu, ju = np.triu_indices(D)
+    # reference: numpy's outer product of each frame, upper triangle
+    np.testing.assert_array_equal(products, np.einsum("ti,tj->tij", X, X)[:, iu, ju])
+    kept, _ = gaussian_e_step(X, LENGTHS, sp, tm, means, covars, "full", products=products)
+    plain, _ = gaussian_e_step(X, LENGTHS, sp, tm, means, covars, "full")
+    for a, b in zip(kept, plain, strict=True):
+        np.testing.assert_array_equal(a, b)
+    ref = _reference("full", sp, tm, means, ref_covars, n_iter=1, params="mc", covars_prior=0.0)
+    ref.fit(X, LENGTHS)
+    *_, new_means, new_covars = gaussian_m_step(kept, "full", 0.0)
+    # reference library: hmmlearn 0.3.3, one Baum-Welch iteration from the same start
+    np.testing.assert_allclose(new_means, ref.means_, atol=1e-8)
+    np.testing.assert_allclose(new_covars, ref.covars_, atol=1e-8)
+
+
+def test_precision_factors_equal_scipys_triangular_solve():
+    _, _, _, _, covars, _ = _random_model("full", seed=3)
+    for c in np.linalg.cholesky(covars):
+        # reference: scipy.linalg.solve_triangular (the same LAPACK trtrs, so equal exactly)
+        np.testing.assert_array_equal(_lower_inverse(c), solve_triangular(c, np.eye(D), lower=True))
+    with pytest.raises(ValueError, match="infs or NaNs"):  # as solve_triangular refuses them
+        GaussianEmission(np.zeros((1, D)), np.full((1, D, D), np.nan), "full")

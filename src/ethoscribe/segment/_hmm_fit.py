@@ -16,9 +16,12 @@ from ethoscribe.segment._hmm_gaussian import (
     COVARIANCE_TYPES,
     GaussianEmission,
     e_step_buffers,
+    frame_products,
     gaussian_e_step,
     gaussian_m_step,
+    gaussian_posteriors,
     repair_covariances,
+    statistics_from,
 )
 from ethoscribe.segment.sampling import take_blocks
 from ethoscribe.system import available_cpus
@@ -257,18 +260,30 @@ def floor_probabilities(startprob: np.ndarray, transmat: np.ndarray):
     return startprob / startprob.sum(), transmat / transmat.sum(axis=1, keepdims=True)
 
 
+def fit_frames(X: np.ndarray, covariance_type: str) -> dict[str, Any]:
+    """What every EM run on ``X`` reads besides its parameters, computed once for all of them
+    (the short runs of a screening share one subsample; a fit's restarts share its frames):
+    the covariance of all frames and, for full covariances, :func:`frame_products`."""
+    cov = np.atleast_2d(np.cov(X.T))
+    products = frame_products(X) if covariance_type == "full" else None
+    return {"X": X, "cov": cov, "products": products}
+
+
 def run_em(
-    model, X, lengths, means, transmat, start_counts, trans_counts, bar, n_iter=None, start=None
-) -> dict[str, Any]:
+    model, X, lengths, means, transmat, start_counts, trans_counts, bar, n_iter=None, start=None,
+    shared=None,
+) -> dict[str, Any]:  # fmt: skip
     """EM from ``means`` (shared global covariance, sticky ``transmat``) until the
     log-likelihood per frame gains less than ``model.tol`` or ``n_iter`` (default
     ``model.n_iter``) iterations; ``start`` (a result of an earlier run) resumes from its
     parameters instead. The returned log-likelihood and occupancy are those of the returned
-    parameters."""
+    parameters. ``shared``: :func:`fit_frames` of this ``X`` (computed here if not given)."""
     K, D = means.shape
     ct, floor = model.covariance_type, float(model.min_covar)
     n_iter = int(model.n_iter if n_iter is None else n_iter)
-    global_cov = np.atleast_2d(np.cov(X.T)) + floor * np.eye(D)
+    if shared is None or shared["X"] is not X:
+        shared = fit_frames(X, ct)
+    global_cov = shared["cov"] + floor * np.eye(D)
     if ct == "diag":
         global_cov = np.diag(np.diag(global_cov))
     covars = np.repeat(global_cov[None], K, axis=0)
@@ -280,8 +295,8 @@ def run_em(
     prev, converged, n_done = -np.inf, False, 0
     work = e_step_buffers(len(X), K)
     for it in range(n_iter + 1):
-        stats, _ = gaussian_e_step(X, lengths, startprob, transmat, means, covars, ct, work)
-        ll = float(stats.log_likelihood.sum()) / len(X)
+        fb = gaussian_posteriors(X, lengths, startprob, transmat, means, covars, ct, work)
+        ll = float(fb.log_likelihood.sum()) / len(X)
         if not np.isfinite(ll):
             msg = (
                 "the HMM log-likelihood became non-finite; features may contain extreme "
@@ -291,7 +306,9 @@ def run_em(
         bar.set_postfix(iteration=it, ll_per_frame=f"{ll:.4f}", refresh=False)
         if (it > 0 and ll - prev < model.tol) or it == n_iter:
             converged = it > 0 and ll - prev < model.tol
+            occupancy = fb.gamma.sum(axis=0)  # the statistics' post; no M-step follows
             break
+        stats = statistics_from(X, fb, ct, shared["products"])
         prev, old = ll, (means, covars)
         new = gaussian_m_step(stats, ct, floor, start_counts, trans_counts)
         empty = np.flatnonzero(stats.post < _EMPTY_FRAMES)
@@ -305,7 +322,7 @@ def run_em(
         n_done += 1
     return {
         "means": means, "covars": covars, "startprob": startprob, "transmat": transmat,
-        "log_likelihood": ll, "n_iter": n_done, "converged": converged, "occupancy": stats.post,
+        "log_likelihood": ll, "n_iter": n_done, "converged": converged, "occupancy": occupancy,
     }  # fmt: skip
 
 
@@ -359,8 +376,13 @@ def screened_starts(
         if not any(same_states(means, other) for other in starts):
             starts.append(means)
 
+    shared = fit_frames(Xs, model.covariance_type)
+
     def short_run(means: np.ndarray) -> dict[str, Any]:
-        return run_em(model, Xs, sub, means, sticky, start_counts, trans_counts, bar, SCREEN_ITER)
+        return run_em(
+            model, Xs, sub, means, sticky, start_counts, trans_counts, bar, SCREEN_ITER,
+            shared=shared,
+        )  # fmt: skip
 
     results = in_threads(short_run, starts, n_jobs)
     # best first; equal likelihoods keep the order of drawing (as screened_start's strict >)

@@ -158,18 +158,14 @@ def _viterbi(log_b, log_start, log_trans, starts, ends, path, best_logprob):  # 
 def _half_squared_norms(y, offset, const, n_dims, out):  # pragma: no cover
     """``out[t, k] = const[k] - 0.5 * sum_d (y[t, d*K + k] - offset[d*K + k])^2`` (d-major)."""
     n_states = out.shape[1]
-    acc = np.empty(n_states)
     for t in range(y.shape[0]):
-        row = y[t]
-        acc[:] = 0.0
-        for d in range(n_dims):
-            base = d * n_states
-            for k in range(n_states):
-                v = row[base + k] - offset[base + k]
-                acc[k] += v * v
-        o = out[t]
-        for k in range(n_states):
-            o[k] = const[k] - 0.5 * acc[k]
+        row, o = y[t], out[t]
+        for k in range(n_states):  # one sum in a register per state, over d in order
+            acc = 0.0
+            for d in range(n_dims):
+                v = row[d * n_states + k] - offset[d * n_states + k]
+                acc += v * v
+            o[k] = const[k] - 0.5 * acc
 
 
 @njit(cache=True, fastmath=False, nogil=True)

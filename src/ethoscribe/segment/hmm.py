@@ -38,6 +38,7 @@ from ethoscribe.segment import duration
 from ethoscribe.segment._hmm_fit import (
     check_hmm_params,
     distinct_rows_at_least,
+    fit_frames,
     fit_with_hmmlearn,
     floor_probabilities,
     in_threads,
@@ -283,6 +284,9 @@ class GaussianHMM(BaseEstimator):
             n_usual = len(screened)
             bar.total = n_usual + len(starts)
         n_runs = n_usual + len(starts)
+        # the frames' covariance and products, once for every restart's EM on X_fit
+        own_em = self.engine == "fast" or starts
+        shared = fit_frames(X_fit, self.covariance_type) if own_em else None
 
         def restart(r: int) -> dict[str, Any]:
             if r >= n_usual:  # warm start: EM from a fitted model's parameters
@@ -290,7 +294,7 @@ class GaussianHMM(BaseEstimator):
                 start = {**given, "means": given["means"] - offset}
                 res = run_em(
                     self, X_fit, fit_lengths, start["means"], sticky, start_counts,
-                    trans_counts, bar, start=start,
+                    trans_counts, bar, start=start, shared=shared,
                 )  # fmt: skip
                 bar.update(1)
                 return res
@@ -298,7 +302,7 @@ class GaussianHMM(BaseEstimator):
             if screened:  # continue the r-th best candidate of the shared screening
                 res = run_em(
                     self, X_fit, fit_lengths, screened[r]["means"], sticky, start_counts,
-                    trans_counts, bar, start=screened[r],
+                    trans_counts, bar, start=screened[r], shared=shared,
                 )  # fmt: skip
             elif self.engine == "hmmlearn":
                 res = fit_with_hmmlearn(
@@ -310,13 +314,14 @@ class GaussianHMM(BaseEstimator):
                 )
                 res = run_em(
                     self, X_fit, fit_lengths, start["means"], sticky, start_counts,
-                    trans_counts, bar, start=start,
+                    trans_counts, bar, start=start, shared=shared,
                 )  # fmt: skip
             else:
                 means = initial_means(X_fit, K, self.init, rng)
                 res = run_em(
-                    self, X_fit, fit_lengths, means, sticky, start_counts, trans_counts, bar
-                )
+                    self, X_fit, fit_lengths, means, sticky, start_counts, trans_counts, bar,
+                    shared=shared,
+                )  # fmt: skip
             bar.update(1)
             return res
 
