@@ -210,9 +210,44 @@ def derivative(
     return out.reshape(np.shape(signal))
 
 
-def band_filters(frequency: float, fps: float, order: int = 2) -> tuple[np.ndarray, np.ndarray]:
+BAND_SMOOTHERS = ("butterworth", "critically_damped")
+
+
+def critically_damped_lowpass(cutoff_hz: float, fps: float) -> np.ndarray:
+    """Second-order low-pass with two equal real poles (critically damped), as one second-order
+    section, whose impulse response never goes negative: a smoother of a non-negative signal
+    (a power) stays non-negative.
+
+    Each pole is a first-order low-pass at ``cutoff_hz / sqrt(sqrt(2) - 1)`` (1.55 x), so that
+    the two together are 3 dB down at ``cutoff_hz``, like the Butterworth low-pass they stand
+    in for (two first-order stages: |H|^2 = 1 / (1 + (f / f1)^2)^2 = 1/2 at
+    f = f1 sqrt(sqrt(2) - 1)). The poles are placed by the matched z-transform, a =
+    exp(-2 pi f1 / fps), with unit gain at 0 Hz: the impulse response is
+    (1 - a)^2 (n + 1) a^n, positive at every frame rate. (A Butterworth low-pass of order 2 has
+    Q = 1/sqrt(2) and undershoots by about 4 % after a step down.)
+
+    Examples
+    --------
+    >>> sos = critically_damped_lowpass(1.0, 30.0)
+    >>> impulse = sps.sosfilt(sos, np.r_[1.0, np.zeros(99)])
+    >>> bool(impulse.min() >= 0), round(float(impulse.sum()), 6)
+    (True, 1.0)
+    """
+    f1 = _check_positive(cutoff_hz, "cutoff_hz") / np.sqrt(np.sqrt(2.0) - 1.0)
+    a = float(np.exp(-2.0 * np.pi * f1 / _check_positive(fps, "fps")))
+    return np.array([[(1.0 - a) ** 2, 0.0, 0.0, 1.0, -2.0 * a, a * a]])
+
+
+def band_filters(
+    frequency: float, fps: float, order: int = 2, smoothing: str = "butterworth"
+) -> tuple[np.ndarray, np.ndarray]:
     """Butterworth band-pass one octave wide around ``frequency`` (f/sqrt2 to f*sqrt2) and the
-    low-pass at f/2 that smooths its squared output; both as second-order sections."""
+    low-pass at f/2 that smooths its squared output; both as second-order sections.
+
+    ``smoothing``: "butterworth" (order 2) or "critically_damped"
+    (:func:`critically_damped_lowpass`, never negative)."""
+    if smoothing not in BAND_SMOOTHERS:
+        raise InputError(f"smoothing must be one of {BAND_SMOOTHERS}; got {smoothing!r}")
     f = _check_positive(frequency, "frequency")
     nyquist = fps / 2
     if f * np.sqrt(2) >= nyquist:
@@ -223,6 +258,8 @@ def band_filters(frequency: float, fps: float, order: int = 2) -> tuple[np.ndarr
         )
         raise InputError(msg)
     bp = sps.butter(order, [f / np.sqrt(2), f * np.sqrt(2)], "bandpass", fs=fps, output="sos")
+    if smoothing == "critically_damped":
+        return bp, critically_damped_lowpass(f / 2, fps)
     lp = sps.butter(2, f / 2, "lowpass", fs=fps, output="sos")
     return bp, lp
 
@@ -272,10 +309,15 @@ class CausalBandPower:
     """
 
     def __init__(
-        self, n_channels: int, fps: float, frequencies: Sequence[float], order: int = 2
+        self,
+        n_channels: int,
+        fps: float,
+        frequencies: Sequence[float],
+        order: int = 2,
+        smoothing: str = "butterworth",
     ) -> None:
         fps = _check_positive(fps, "fps")
-        filters = [band_filters(f, fps, order) for f in frequencies]
+        filters = [band_filters(f, fps, order, smoothing) for f in frequencies]
         self.bands = np.array([bp for bp, _ in filters]).reshape(len(filters), -1, 6)
         self.smooth = np.array([lp for _, lp in filters]).reshape(len(filters), -1, 6)
         self._unit = np.array([sps.sosfilt_zi(bp) for bp in self.bands]).reshape(
@@ -313,6 +355,7 @@ def band_power(
     causal: bool = False,
     order: int = 2,
     sum_channels: bool = False,
+    smoothing: str = "butterworth",
 ) -> np.ndarray:
     """Power of each channel in one-octave bands around several centre frequencies.
 
@@ -333,6 +376,11 @@ def band_power(
         Return the power summed over channels, shape (F, 1, n_frequencies): the power of a
         vector signal (e.g. a whole posture). The smoothing is linear, so offline the squares
         are summed before it and one channel is smoothed instead of C.
+    smoothing : {"butterworth", "critically_damped"}
+        Low-pass of the squared output (``band_filters``). The Butterworth one undershoots
+        after a burst ends and the power is then clipped at 0; the critically damped one
+        (:func:`critically_damped_lowpass`) never goes below 0 (except where the padding at
+        a recording's ends does).
 
     Returns
     -------
@@ -350,7 +398,7 @@ def band_power(
     x = _as_2d(signal)
     fps = _check_positive(fps, "fps")
     if causal:
-        out = CausalBandPower(x.shape[1], fps, frequencies, order).process(x)
+        out = CausalBandPower(x.shape[1], fps, frequencies, order, smoothing).process(x)
         return out.sum(axis=1, keepdims=True) if sum_channels else out
     xt = np.ascontiguousarray(_interp_fill(x).T)
     missing = ~np.isfinite(x)
@@ -358,7 +406,7 @@ def band_power(
         missing = missing.any(axis=1, keepdims=True)
     out = np.empty((len(x), missing.shape[1], len(frequencies)))
     for k, f in enumerate(frequencies):
-        bp, lp = band_filters(f, fps, order)
+        bp, lp = band_filters(f, fps, order, smoothing)
         pad = min(len(x) - 1, max(3 * (2 * len(bp) + 1), int(2 * fps / f)))
         y = sps.sosfiltfilt(bp, xt, axis=-1, padlen=pad)
         np.multiply(y, y, out=y)
