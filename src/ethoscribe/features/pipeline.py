@@ -165,10 +165,10 @@ class FeaturePipeline(BaseEstimator):
     band_smoothing : {"butterworth", "critically_damped"}
         Low-pass that smooths each band's squared output (at half the band's centre
         frequency). "butterworth" (default, order 2): it undershoots after a burst of the
-        rhythm ends, and the power, clipped at 0 there, is exactly 0 on 2-8 % of the frames of
-        the validation bench's sources (most in the 0.5 Hz band); the log offset of such a
-        column (its 5 % quantile) is then 1e-6 of its median, and those frames lie far below
-        every other value on the log scale. "critically_damped": two equal real poles
+        rhythm ends, and the power, clipped at 0 there, is exactly 0 on 4-8 % of the frames
+        of the validation bench's sources in the 0.5 Hz band (2-4 % at 1 Hz); the log offset
+        of such a column (its 5 % quantile) is then 1e-6 of its median, and those frames lie
+        far below every other value on the log scale. "critically_damped": two equal real poles
         (:func:`ethoscribe.filters.critically_damped_lowpass`), 3 dB down at the same
         frequency, whose impulse response is never negative, so the power never falls to 0
         after a burst. Not the default: on the validation bench mean ARI and boundary F1 rose
