@@ -30,9 +30,7 @@ components / speeds by their average over about that many seconds (``..._mean_<w
 level for every phase of a rhythm); ``band_window_s`` averages the band powers over about
 that many seconds as well; ``scale_by_size=True`` brings every animal's posture to
 the typical body size (individuals of several sizes share one posture space);
-``posture_baseline="session"`` measures each animal's posture from its own median over the
-session (offsets that last a session, such as where a marker or sensor sits, leave the
-features); ``band_smoothing="critically_damped"`` smooths the band powers with a low-pass
+``band_smoothing="critically_damped"`` smooths the band powers with a low-pass
 that never undershoots, so they do not fall to exactly 0 after a burst.
 benchmarks/README.md has the validation bench with each option.
 

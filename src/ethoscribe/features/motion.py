@@ -78,9 +78,6 @@ class _Motion:
             self.stds = None if compact else partial(rolling_std, window_frames=w_std)
         self._last_heading: tuple[float, float] | None = None  # (raw, unwrapped), causal only
         self.body_scale = None if pipe.body_size_ is None else BodyScale(pipe).scale
-        self.baseline = getattr(pipe, "baseline_posture_", None)
-        if self.baseline is not None:
-            self.baseline = np.asarray(self.baseline, dtype=np.float64)
 
     def _unwrap(self, heading: np.ndarray) -> np.ndarray:
         if not self.pipe.causal:
@@ -103,11 +100,6 @@ class _Motion:
         n, d = ego.shape[0], ego.shape[2]
         if self.body_scale is not None:
             ego = ego * self.body_scale(ego)[:, None, None]
-        if self.baseline is not None:  # posture_baseline="session": the chunk is the session
-            from ethoscribe.features.pipeline import session_median
-
-            flat = ego.reshape(n, -1)
-            ego = (flat - session_median(flat) + self.baseline).reshape(ego.shape)
         bc = p._band_components
         out = np.empty((n, len(p.columns_)))
         col = 0
@@ -134,13 +126,7 @@ class _Motion:
             speeds = np.column_stack(speeds)
             put(speeds if self.speed_mean is None else self.speed_mean(speeds))
             if p._separate_heights:
-                height = centroid[:, up]
-                if getattr(p, "baseline_height_", None) is not None:
-                    from ethoscribe.features.pipeline import session_median
-
-                    typical = p.baseline_height_
-                    height = height - session_median(height[:, None])[0] + typical
-                put(height - p.height_floor_)
+                put(centroid[:, up] - p.height_floor_)
             if self.bands is not None:  # amplitude of the whole posture in each band
                 power = self.bands(pcs[:, :bc])
                 power = power.sum(axis=1) if power.shape[1] > 1 else power[:, 0]

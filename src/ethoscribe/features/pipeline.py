@@ -74,27 +74,6 @@ BAND_EDGE_MARGIN = 0.95
 HEIGHT_FLOOR_QUANTILE = 0.01
 
 
-def session_median(X: np.ndarray) -> np.ndarray:
-    """Median of every column of ``X`` (F, C) over its complete rows (all columns finite), from
-    at most ~20,000 evenly spaced rows (a median needs no more); NaN where no row is complete.
-
-    Examples
-    --------
-    >>> session_median(np.array([[0.0, 1.0], [2.0, np.nan], [4.0, 3.0]])).tolist()
-    [2.0, 2.0]
-    """
-    sample = X[:: max(1, len(X) // 20_000)]
-    sample = sample[np.isfinite(sample).all(1)]
-    return np.median(sample, axis=0) if len(sample) else np.full(X.shape[1], np.nan)
-
-
-def _mean_of_finite(values: list) -> np.ndarray:
-    """Mean of the finite entries of several medians (one per animal), entry by entry."""
-    stack = np.asarray(values, dtype=np.float64)
-    ok = np.isfinite(stack)
-    return np.where(ok, stack, 0.0).sum(0) / np.maximum(ok.sum(0), 1)
-
-
 def automatic_frequencies(fps: float) -> tuple[float, ...]:
     """The default band centres whose band fits below the Nyquist frequency of ``fps`` with
     the BAND_EDGE_MARGIN.
@@ -190,24 +169,6 @@ class FeaturePipeline(BaseEstimator):
         mean over the frames so far) and multiply by the fitted typical size ``body_size_``
         (the median over fitted animals), so animals of different sizes share one posture
         space; posture speed and band amplitudes follow, the centroid speed stays absolute.
-    posture_baseline : {"fitted", "session"}
-        What each posture is measured from. "fitted" (default): the mean posture of all fitted
-        frames (the posture PCA's centre), so a posture that one animal holds all session
-        long, and another never, is part of its posture components and height. "session":
-        each animal's own median egocentric posture over the session (and, with
-        ``vertical="separate"``, its own median height) is taken off its frames and the
-        typical one (``baseline_posture_``, ``baseline_height_``: the mean over the fitted
-        animals of their medians) put in its place, before the PCA; so offsets that last a
-        whole session (body proportions of an individual, where a marker, tag or sensor sits,
-        a camera's tilt) leave the features and changes of posture within the session stay.
-        The median (at most 20,000 evenly spaced frames) is a statistic of the whole session:
-        an animal that holds one posture for most of it has that posture as its baseline, so
-        compare sessions of similar behaviour mixes. Offline only (``causal=True`` refuses it).
-        Not the default: on HAPT it raised how well a linear classifier tells sitting from
-        standing across volunteers (0.77 -> 0.94-0.99 balanced accuracy per frame), but on the
-        validation bench, where the sessions of the simulated sources differ in their mixes of
-        behaviour, mean ARI fell 0.58 -> 0.50 / 0.47 (seeds 0 / 1; benchmarks/README.md,
-        "Where the real recordings lose their activities").
     social : bool
         Add features of the nearest other animal when the fitted sessions have several animals.
     causal : bool
@@ -226,10 +187,6 @@ class FeaturePipeline(BaseEstimator):
     frequencies_ : tuple of float, band centres used (given, or chosen for the frame rate)
     height_floor_ : float or None, 3-D floor of the centroid's height (vertical="separate")
     body_size_ : float or None, typical body size (scale_by_size=True)
-    baseline_posture_ : list of float or None, typical median egocentric posture, flattened
-        (posture_baseline="session")
-    baseline_height_ : float or None, typical median height (posture_baseline="session", 3-D
-        with vertical="separate")
     columns_, keypoints_, n_dims_, units_, fps_, social_, n_components_
 
     A frame is valid when every feature is finite; invalid frames stay in the output as NaN
@@ -266,7 +223,6 @@ class FeaturePipeline(BaseEstimator):
         band_smoothing: str = "butterworth",
         vertical: str = "separate",
         scale_by_size: bool = False,
-        posture_baseline: str = "fitted",
         social: bool = True,
         causal: bool = False,
         standardise: bool = True,
@@ -287,7 +243,6 @@ class FeaturePipeline(BaseEstimator):
         self.band_smoothing = band_smoothing
         self.vertical = vertical
         self.scale_by_size = scale_by_size
-        self.posture_baseline = posture_baseline
         self.social = social
         self.causal = causal
         self.standardise = standardise
@@ -353,15 +308,6 @@ class FeaturePipeline(BaseEstimator):
         if self.band_smoothing not in BAND_SMOOTHERS:
             bad.append(
                 f"band_smoothing must be one of {BAND_SMOOTHERS}; got {self.band_smoothing!r}"
-            )
-        if self.posture_baseline not in ("fitted", "session"):
-            bad.append(
-                f"posture_baseline must be 'fitted' or 'session'; got {self.posture_baseline!r}"
-            )
-        elif self.posture_baseline == "session" and self.causal is True:
-            bad.append(
-                "posture_baseline='session' needs the whole session (its median posture); "
-                "use posture_baseline='fitted' with causal=True"
             )
         try:
             ok = self.frequencies is None
@@ -658,34 +604,15 @@ class FeaturePipeline(BaseEstimator):
         if self.scale_by_size:
             sizes = [_body_size(s.coords[:, a]) for s in sessions for a in range(s.n_animals)]
             self.body_size_ = float(np.nanmedian(sizes)) if np.isfinite(sizes).any() else None
-        baseline = self.posture_baseline == "session"
-        medians, median_heights = [], []
         for s in sessions:
             for a in range(s.n_animals):
                 centroid, _, ego = self._geometry(s.coords[:, a])
                 if self.body_size_ is not None:
                     ego = ego * BodyScale(self).scale(ego)[:, None, None]
-                flat = ego.reshape(s.n_frames, -1)
-                if baseline:  # the animal's own median posture off (the typical one added below)
-                    medians.append(session_median(flat))
-                    flat = flat - medians[-1]
-                acc = _accumulate(acc, flat, full=True)
+                acc = _accumulate(acc, ego.reshape(s.n_frames, -1), full=True)
                 if self._separate_heights:
                     step = max(1, s.n_frames * s.n_animals * len(sessions) // 200_000)
-                    h = centroid[:, "xyz".index(self.up_axis)]
-                    if baseline:
-                        median_heights.append(session_median(h[:, None])[0])
-                        h = h - median_heights[-1]
-                    heights.append(h[::step])
-        self.baseline_posture_ = self.baseline_height_ = None
-        if baseline:
-            typical = _mean_of_finite(medians)
-            self.baseline_posture_ = [float(v) for v in typical]
-            if acc is not None:  # the PCA's centre is that of the shifted postures
-                acc[1] = acc[1] + typical
-            if median_heights:
-                self.baseline_height_ = float(_mean_of_finite(median_heights))
-                heights = [h + self.baseline_height_ for h in heights]
+                    heights.append(centroid[::step, "xyz".index(self.up_axis)])
         self.height_floor_ = None
         if heights:
             h = np.concatenate(heights)

@@ -39,8 +39,6 @@ _FITTED_META = (
     "frequencies_",
     "height_floor_",
     "body_size_",
-    "baseline_posture_",
-    "baseline_height_",
 )
 # Parameters added after the first saved states, with the value that reproduces those states
 # (a later change of the default must not change what an old saved pipeline computes).
@@ -50,7 +48,6 @@ _ADDED_PARAMS = {
     "band_window_s": None,
     "vertical": "posture",
     "scale_by_size": False,
-    "posture_baseline": "fitted",
     "band_smoothing": "butterworth",
 }
 
@@ -89,8 +86,6 @@ def pipeline_from_state(
             fitted["frequencies_"] = list(params.get("frequencies", []))
         fitted.setdefault("height_floor_", None)
         fitted.setdefault("body_size_", None)
-        fitted.setdefault("baseline_posture_", None)
-        fitted.setdefault("baseline_height_", None)
         missing = [k for k in (*_FITTED_META,) if k not in fitted]
         missing += [k for k in _FITTED_ARRAYS if k not in arrays]
     except (KeyError, TypeError) as exc:
@@ -112,14 +107,12 @@ def pipeline_from_state(
     needs = {
         "height_floor_": params.get("vertical") == "separate" and fitted["n_dims_"] == 3,
         "body_size_": bool(params.get("scale_by_size")),
-        "baseline_posture_": params.get("posture_baseline") == "session",
     }
     lacking = [k for k, needed in needs.items() if needed and fitted[k] is None]
     if lacking:
         raise InputError(
             f"FeaturePipeline state lacks {lacking} for its parameters (vertical="
-            f"{params.get('vertical')!r}, scale_by_size={params.get('scale_by_size')!r}, "
-            f"posture_baseline={params.get('posture_baseline')!r}); "
+            f"{params.get('vertical')!r}, scale_by_size={params.get('scale_by_size')!r}); "
             "save it again with to_state()"
         )
     for k in ("axis_", "keypoints_", "columns_"):
@@ -186,21 +179,6 @@ def _check_fitted_meta(fitted: Mapping[str, Any]) -> None:
             isinstance(fitted["height_floor_"], int | float)
             and not isinstance(fitted["height_floor_"], bool)
             and np.isfinite(fitted["height_floor_"])
-        ),
-        "baseline_posture_": fitted["baseline_posture_"] is None
-        or (
-            isinstance(fitted["baseline_posture_"], list | tuple)
-            and len(fitted["baseline_posture_"]) == len(kps) * fitted["n_dims_"]
-            and all(
-                isinstance(v, int | float) and not isinstance(v, bool) and np.isfinite(v)
-                for v in fitted["baseline_posture_"]
-            )
-        ),
-        "baseline_height_": fitted["baseline_height_"] is None
-        or (
-            isinstance(fitted["baseline_height_"], int | float)
-            and not isinstance(fitted["baseline_height_"], bool)
-            and np.isfinite(fitted["baseline_height_"])
         ),
         "n_components_": isinstance(n_comp, int | np.integer)
         and not isinstance(n_comp, bool)
