@@ -79,7 +79,10 @@ def stack_valid(features: Sequence[FeatureSet]) -> tuple[np.ndarray, np.ndarray]
     the segmenter sees the valid frames back to back. Bouts are later cut at the gaps.
     """
     # Sessions without a valid frame contribute no sequence (their frames all stay -1).
-    parts = [p for p in (f.values[f.valid] for f in features) if len(p)]
+    # A fully valid session is taken as it is: one copy (the concatenation), not two.
+    parts = [
+        p for p in (f.values if f.valid.all() else f.values[f.valid] for f in features) if len(p)
+    ]
     lengths = np.array([len(p) for p in parts], dtype=np.int64)
     if lengths.sum() == 0:
         raise InputError(
