@@ -577,3 +577,21 @@ def test_motifs_page_draws_the_state_tree_and_nothing_without_one(folder):
         assert not bench.motif_list.tree.created
     finally:
         bench.close()
+
+
+def test_unreadable_model_is_named_once(folder):
+    """A model saved by another version with a parameter this one does not know: the postures
+    say why they are missing once (not once per recording), naming both versions."""
+    shutil.rmtree(folder / "postures")
+    meta = json.loads((folder / "model" / "model.json").read_text())
+    meta["features"]["params"]["a_later_option"] = True
+    meta["ethoscribe_version"] = "99.0"
+    (folder / "model" / "model.json").write_text(json.dumps(meta))
+    bench = Workbench(folder, write_behind=False)
+    try:
+        problem = bench.state.postures.problem
+        assert problem.count("a_later_option") == 1
+        assert "saved by ethoscribe 99.0" in problem
+        assert "recording(s) are unavailable" in problem
+    finally:
+        bench.close()

@@ -23,6 +23,7 @@ from typing import Any
 
 import numpy as np
 
+from ethoscribe import __version__
 from ethoscribe.errors import EthoscribeError, InputError, UnsafeFileError, WorkspaceError
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_write, load_npz, loads_json, locking, sync_folder
@@ -232,6 +233,18 @@ def declared_size_bound(meta: dict[str, Any]) -> Callable[[str], int]:
 MAX_DECLARED_FRAMES = 200_000_000  # more training frames than any study: damage, not data
 
 
+def _other_version(meta: Any) -> str:
+    """A hint when the model was saved by another ethoscribe version (whose parameters or
+    files this one may not know)."""
+    saved = meta.get("ethoscribe_version") if isinstance(meta, dict) else None
+    if not isinstance(saved, str) or saved == __version__:
+        return ""
+    return (
+        f" (saved by ethoscribe {saved}; this is {__version__}: open it with that version, "
+        "or discover again with this one)"
+    )
+
+
 def load_model(folder: Path) -> BehaviourModel:
     """The model saved in ``folder``; any malformed content is an ``InputError`` naming it.
 
@@ -243,7 +256,7 @@ def load_model(folder: Path) -> BehaviourModel:
     try:
         model = BehaviourModel.from_state(meta, arrays)
     except EthoscribeError as exc:
-        raise InputError(f"{folder}: {exc}") from None
+        raise InputError(f"{folder}: {exc}{_other_version(meta)}") from None
     except (KeyError, TypeError, ValueError, AttributeError, IndexError, OverflowError) as exc:
         msg = (
             f"{folder}: the model file does not hold what ethoscribe writes "

@@ -366,7 +366,7 @@ class PostureLibrary:
             try:
                 p = self.session(str(session))
             except EthoscribeError as exc:
-                missing.append(f"{session}: {exc}")
+                missing.append((str(session), str(exc)))
                 continue
             a = p.animals.index(str(animal)) if str(animal) in p.animals else 0
             f = frames[rows] - first.get(str(session), 0)  # input frame numbers -> rows
@@ -380,9 +380,12 @@ class PostureLibrary:
         self._sums, self._counts = sums, counts
         self.problem = None
         if missing:
-            shown = "; ".join(missing[:3]) + (
-                f" (and {len(missing) - 3} more)" if len(missing) > 3 else ""
-            )
+            reasons = {reason for _, reason in missing}
+            if len(reasons) == 1:  # one cause (e.g. the model cannot be read): said once
+                shown = reasons.pop()
+            else:
+                shown = "; ".join(f"{session}: {reason}" for session, reason in missing[:3])
+                shown += f" (and {len(missing) - 3} more)" if len(missing) > 3 else ""
             self.problem = f"postures of {len(missing)} recording(s) are unavailable: {shown}"
 
     def mean_posture(self, states: Sequence[int]) -> np.ndarray:
