@@ -595,3 +595,31 @@ def test_unreadable_model_is_named_once(folder):
         assert "recording(s) are unavailable" in problem
     finally:
         bench.close()
+
+
+def test_long_motif_names_stay_readable():
+    """Curated names longer than the figures were laid out for: every tree leaf keeps a label
+    (upright, the figure taller), the neighbour bars' names are cut to the gap between the
+    panels with the full name on hover, and a posture title goes on two lines."""
+    from ethoscribe.plots.motifs import (
+        NEIGHBOUR_NAME_CHARS,
+        neighbour_figure,
+        posture_figure,
+        state_tree_figure,
+    )
+
+    long = {i: f"{c}_a_rather_long_behaviour_name" for i, c in enumerate("abcde")}
+    fig = state_tree_figure(HAND_TREE, long)
+    short = state_tree_figure(HAND_TREE, dict(enumerate("abcde")))
+    assert len(fig.layout.xaxis.ticktext) == 5 and fig.layout.xaxis.tickangle == -90
+    assert short.layout.xaxis.tickangle == 0 and fig.layout.height > short.layout.height
+    assert all(len(t) <= 24 for t in fig.layout.xaxis.ticktext)
+    name = long[0]
+    fig = neighbour_figure(pd.Series({name: 1.0}), pd.Series({"b": 1.0}), name)
+    assert len(fig.data[0].y[0]) == NEIGHBOUR_NAME_CHARS and fig.data[0].y[0].endswith("…")
+    assert list(fig.data[0].customdata) == [name] and list(fig.data[1].y) == ["b"]
+    p = np.zeros((3, 2))
+    fig = posture_figure(p, ["n", "m", "t"], [], title=f"{name}: mean posture (body frame)")
+    plain = posture_figure(p, ["n", "m", "t"], [], title="a: mean posture (body frame)")
+    assert fig.layout.title.text == f"{name}:<br>mean posture (body frame)"
+    assert fig.layout.margin.t == plain.layout.margin.t + 18

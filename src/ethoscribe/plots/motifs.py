@@ -53,8 +53,35 @@ def _edge_index(keypoints: Sequence[str], edges: Sequence[tuple[str, str]]):
     return [(names.index(a), names.index(b)) for a, b in edges]
 
 
+# Average width of a character of the figures' fonts (px; lower-case names at 12-14 px), to
+# tell whether a text fits before the browser draws it.
+CHAR_PX = {12: 6.6, 14: 7.7}
+
+
+def short_name(name: str, max_chars: int) -> str:
+    """``name`` cut to ``max_chars`` characters with an ellipsis (full names go in hovers).
+
+    >>> short_name("grooming_face_and_head", 12), short_name("rest", 12)
+    ('grooming_fa…', 'rest')
+    """
+    return name if len(name) <= max_chars else name[: max_chars - 1] + "…"
+
+
+def fitted_title(title: str, width: int) -> str:
+    """``title`` on two lines when one would run past the figure's ``width`` (a long motif
+    name): broken after its first ": " or ", ", else kept (the browser clips it)."""
+    if len(title) * CHAR_PX[14] <= width - 20:
+        return title
+    for sep in (": ", ", "):
+        if sep in title:
+            head, tail = title.split(sep, 1)
+            return f"{head}{sep.strip()}<br>{tail}"
+    return title
+
+
 def _figure(data: list, title: str, width: int, height: int, **layout) -> go.Figure:
     """One constructor call (update_layout is ~10x slower: these figures are redrawn often)."""
+    title = fitted_title(title, width)
     style = {
         "title": {"text": title, "x": 0.02, "xanchor": "left", "font": {"size": 14}},
         "width": width,
@@ -66,7 +93,11 @@ def _figure(data: list, title: str, width: int, height: int, **layout) -> go.Fig
         "showlegend": False,
         "template": "none",  # styles are set here; copying a full template costs milliseconds
     }
-    return go.Figure(data=data, layout={**style, **layout})
+    layout = {**style, **layout}
+    if "<br>" in title:  # a second title line: the plot moves down by one line, not under it
+        layout["margin"] = {**layout["margin"], "t": layout["margin"].get("t", 50) + 18}
+        layout["height"] = height + 18
+    return go.Figure(data=data, layout=layout)
 
 
 def posture_figure(
@@ -265,6 +296,9 @@ def bout_strip_figure(
     )
 
 
+NEIGHBOUR_NAME_CHARS = 16  # fits the gap between the two panels (~115 px at 12 px)
+
+
 def neighbour_figure(
     before: pd.Series, after: pd.Series, motif: str, colours: dict[str, str] | None = None
 ) -> go.Figure:
@@ -285,13 +319,16 @@ def neighbour_figure(
     for n, (shares, label) in enumerate(((before, "comes before it"), (after, "comes after it"))):
         top = shares.sort_values(ascending=True).tail(6)
         suffix = "" if n == 0 else "2"
+        names = [str(m) for m in top.index]
         data.append(
             go.Bar(
                 x=top.to_numpy(),
-                y=[str(m) for m in top.index],
+                # the right panel's names sit in the gap between the panels: cut to fit it
+                y=[short_name(m, NEIGHBOUR_NAME_CHARS) for m in names],
+                customdata=names,
                 orientation="h",
-                marker={"color": [colours.get(str(m), "#888888") for m in top.index]},
-                hovertemplate="%{y}: %{x:.0%}<extra></extra>",
+                marker={"color": [colours.get(m, "#888888") for m in names]},
+                hovertemplate="%{customdata}: %{x:.0%}<extra></extra>",
                 xaxis=f"x{suffix}",
                 yaxis=f"y{suffix}",
             )
@@ -300,7 +337,7 @@ def neighbour_figure(
             "range": [0, 1],
             "tickformat": ".0%",
             "title": label,
-            "domain": [[0.0, 0.38], [0.62, 1.0]][n],
+            "domain": [[0.0, 0.36], [0.64, 1.0]][n],
             "anchor": f"y{suffix}",
             **GRID,
         }
@@ -320,7 +357,7 @@ def neighbour_figure(
     return _figure(
         data,
         f"Neighbours of {motif}",
-        440,
+        520,
         250,
         margin={"l": 90, "r": 20, "t": 50, "b": 50},
         annotations=notes,
@@ -478,6 +515,9 @@ def tree_joins(
     return leaves, joins
 
 
+TREE_NAME_CHARS = 24  # longer curated names are cut (a join's hover lists them whole)
+
+
 def state_tree_figure(levels: list[dict], names: dict[int, str], width: int = 355) -> go.Figure:
     """The motifs as leaves of the model's state tree, joined level by level (a dendrogram).
 
@@ -508,6 +548,12 @@ def state_tree_figure(levels: list[dict], names: dict[int, str], width: int = 35
         x[n_leaves + j] = float(np.mean([x[c] for c in group]))
         y[n_leaves + j] = h
     heights = sorted({float(top_sets - n) for _, n in joins})
+    # Leaf names side by side when they fit, else upright below the leaves (plotly would
+    # tilt them and drop those that still overlap), the figure taller by the longest name.
+    shown = [short_name(name, TREE_NAME_CHARS) for name in leaves]
+    longest = max((len(n) for n in shown), default=0) * CHAR_PX[12]
+    upright = longest > (width - 60) / max(n_leaves, 1) - 4
+    below = int(longest) + 10 if upright else 10
     fig = go.Figure(
         go.Scatter(
             x=xs, y=ys, mode="lines", line={"color": "#555555", "width": 2}, hoverinfo="skip"
@@ -526,14 +572,15 @@ def state_tree_figure(levels: list[dict], names: dict[int, str], width: int = 35
     )
     fig.update_layout(
         width=width,
-        height=230,
+        height=230 + (below - 10),
         template="plotly_white",
-        margin={"l": 50, "r": 10, "t": 10, "b": 10},
+        margin={"l": 50, "r": 10, "t": 10, "b": below},
         showlegend=False,
         xaxis={
             "tickmode": "array",
             "tickvals": list(range(n_leaves)),
-            "ticktext": leaves,
+            "ticktext": shown,
+            "tickangle": -90 if upright else 0,
             "range": [-0.5, n_leaves - 0.5],
             "showgrid": False,
             "zeroline": False,

@@ -211,7 +211,7 @@ class MotifPortrait(LazyDrawing):
             "strip": FigureSlot(self._strip_fig, "ethoscribe-examples", 720, 360),
             "shares": FigureSlot(self._shares_fig, "ethoscribe-shares", 420, 250),
             "durations": FigureSlot(self._durations_fig, "ethoscribe-durations", 420, 250),
-            "neighbours": FigureSlot(self._neighbours_fig, "ethoscribe-neighbours", 440, 250),
+            "neighbours": FigureSlot(self._neighbours_fig, "ethoscribe-neighbours", 520, 250),
         }
         self.video = w.HBox([], layout=w.Layout(align_items="center"))
         self.skeleton_note = note(lib.edges_note if lib.available else (lib.problem or ""))
@@ -296,9 +296,7 @@ class MotifPortrait(LazyDrawing):
     def _neighbours_fig(self):
         before, after = self.state.neighbours(self.state.motif or "")
         colours = motif_colours([*self.state.curation.names.values()])
-        fig = neighbour_figure(before, after, self.state.motif or "", colours)
-        fig.update_layout(width=440)
-        return fig
+        return neighbour_figure(before, after, self.state.motif or "", colours)
 
     def draw(self) -> None:
         for slot in self.slots.values():
