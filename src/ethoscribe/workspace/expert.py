@@ -58,23 +58,18 @@ def read_coding(workspace: str | Path | Workspace, expert: str | Path) -> pd.Dat
     return _on_label_frames(coded, {k: c.fps for k, c in known.items()}, label_fps(ws))
 
 
-def label_fps(ws: Workspace) -> float | None:
-    """Frame rate of the workspace's labels: the model's (``--target-fps`` when discovery
-    resampled the sessions), or None when they keep every session's own rate."""
-    fps = getattr(ws.model(), "fps_", None)
-    return None if fps is None else float(fps)
+def label_fps(ws: Workspace) -> float:
+    """Frame rate of the workspace's labels: the model's (one rate for every session; the
+    ``--target-fps`` when discovery resampled them)."""
+    return float(ws.model().fps_)
 
 
-def _on_label_frames(
-    coded: pd.DataFrame, input_fps: dict[str, float], fps: float | None
-) -> pd.DataFrame:
+def _on_label_frames(coded: pd.DataFrame, input_fps: dict[str, float], fps: float) -> pd.DataFrame:
     """The coding (frames at each session's input rate) on the labels' frames at ``fps``.
 
     Each label frame takes the behaviour coded at the input frame covering its start time
     (frame ``g`` starts at ``g / fps`` s, inside input frame ``floor(g * input_fps / fps)``).
     """
-    if fps is None:
-        return coded
     parts = []
     for (session, animal), g in coded.groupby(["session", "animal"], sort=False):
         ratio = input_fps[str(session)] / fps
@@ -129,9 +124,7 @@ def agreement(
         how="left",
         validate="one_to_one",
     )
-    fps = ws.sessions.set_index("session")["fps"].astype(float)
-    rate = label_fps(ws)  # the labels' rate when discovery resampled (--target-fps)
-    frames["fps"] = frames["session"].map(fps).to_numpy(float) if rate is None else rate
+    frames["fps"] = label_fps(ws)  # the labels' rate (--target-fps when discovery resampled)
     frames["motif"] = frames["motif"].fillna("")
     result = expert_agreement(frames, tolerance_s)
     out = Path(out)
