@@ -957,6 +957,12 @@ def poor_fit_threshold(segmenter: Any, X: np.ndarray) -> float | None:
     return float(np.percentile(ll, POOR_FIT_PERCENTILE))
 
 
+def poorly_fitted(shares: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]]:
+    """The records of :meth:`BehaviourModel.fit_shares` whose share of poorly explained frames
+    is above ``POOR_FIT_WARN_SHARE`` (the sessions to warn about)."""
+    return [r for r in shares if r.get("share") is not None and r["share"] > POOR_FIT_WARN_SHARE]
+
+
 def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel) -> list[str]:
     """One warning line per session explained far worse than the training frames (share of
     poorly explained frames above ``POOR_FIT_WARN_SHARE``), or one line saying the check could
@@ -969,19 +975,15 @@ def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel
             "the model was saved before it kept the fit threshold, so how well it explains the "
             "new sessions is not checked; fit it again (discover) to have the check"
         ]
-    out = []
-    for r in shares:
-        share = r.get("share")
-        if share is not None and share > POOR_FIT_WARN_SHARE:
-            out.append(
-                f"session '{r['session']}': the model explains {share:.0%} of its frames worse "
-                f"than the worst 1 % of its own training frames (about 1 % expected), so look at "
-                f"its bouts before trusting its labels; likely the body size or camera scale "
-                f"differs from training (check units and px_per_unit in the manifest) or the "
-                f"behaviour is new: refit with these sessions included (ethoscribe discover), or "
-                f"in Python fit with features={{'scale_by_size': True}}"
-            )
-    return out
+    return [
+        f"session '{r['session']}': the model explains {r['share']:.0%} of its frames worse "
+        f"than the worst 1 % of its own training frames (about 1 % expected), so look at "
+        f"its bouts before trusting its labels; likely the body size or camera scale "
+        f"differs from training (check units and px_per_unit in the manifest) or the "
+        f"behaviour is new: refit with these sessions included (ethoscribe discover), or "
+        f"in Python fit with features={{'scale_by_size': True}}"
+        for r in poorly_fitted(shares)
+    ]
 
 
 def _fixed_speed(cleaned: Sequence[PoseTracks]) -> float | None:

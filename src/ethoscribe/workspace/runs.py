@@ -28,6 +28,7 @@ from ethoscribe.segment.model import (
     labels_like_model,
     motif_name,
     poor_fit_messages,
+    poorly_fitted,
     stack_valid,
 )
 from ethoscribe.segment.registry import get_segmenter
@@ -453,11 +454,7 @@ def _fit_to_model(model: BehaviourModel, decoded: Sequence[dict[str, Any]]) -> d
         "expected_share": POOR_FIT_PERCENTILE / 100,
         "warn_above": POOR_FIT_WARN_SHARE,
         "sessions": sessions,
-        "flagged": [
-            r["session"]
-            for r in sessions
-            if r.get("share") is not None and r["share"] > POOR_FIT_WARN_SHARE
-        ],
+        "flagged": [r["session"] for r in poorly_fitted(sessions)],
         "meaning": (
             "share: frames of the session whose log-likelihood under their best state is below "
             "threshold, the 1st percentile of the training frames' own (about 1 % when the "
