@@ -274,16 +274,20 @@ def match_keypoint_order(
     return out
 
 
-def misspelling_hint(missing: Sequence[str], extra: Sequence[str]) -> str:
-    """Sentences naming extra keypoints that look like missing ones (a misspelling).
+def keypoint_mismatch(expected: Sequence[str], got: Sequence[str]) -> tuple[str, str]:
+    """How keypoints ``got`` differ from ``expected``: the missing and extra names (each in its
+    own order), and a sentence for each extra name that looks like a missing one (a misspelling).
 
     Examples
     --------
-    >>> misspelling_hint(["Snout"], ["Snuot"])
-    " 'Snuot' looks like 'Snout': rename it."
+    >>> keypoint_mismatch(["Snout", "tail"], ["Snuot", "tail"])
+    ("missing ['Snout'], extra ['Snuot']", " 'Snuot' looks like 'Snout': rename it.")
     """
-    alike = {e: difflib.get_close_matches(e, list(missing), n=1) for e in extra}
-    return "".join(f" '{e}' looks like '{m[0]}': rename it." for e, m in alike.items() if m)
+    missing = [k for k in expected if k not in got]
+    extra = [k for k in got if k not in expected]
+    alike = {e: difflib.get_close_matches(e, missing, n=1) for e in extra}
+    hint = "".join(f" '{e}' looks like '{m[0]}': rename it." for e, m in alike.items() if m)
+    return f"missing {missing}, extra {extra}", hint
 
 
 def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
@@ -297,15 +301,13 @@ def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
     ref = sessions[0]
     for s in sessions[1:]:
         if tuple(s.keypoints) != tuple(ref.keypoints):
-            missing = sorted(set(ref.keypoints) - set(s.keypoints))
-            extra = sorted(set(s.keypoints) - set(ref.keypoints))
             source = s.meta.get("source")
             file = f" in {source}" if source else ""
-            hint = misspelling_hint(missing, extra)
+            differ, hint = keypoint_mismatch(ref.keypoints, s.keypoints)
             raise InputError(
                 f"session '{s.session}' has different keypoints from session '{ref.session}' "
-                f"(missing {missing}, extra {extra}, or another order){file}. All sessions of one "
-                f"study must share one keypoint set; rename or drop keypoints when reading.{hint}"
+                f"({differ}, or another order){file}. All sessions of one study must share one "
+                f"keypoint set; rename or drop keypoints when reading.{hint}"
             )
         if s.n_dims != ref.n_dims:
             raise InputError(

@@ -25,8 +25,8 @@ from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
 from ethoscribe.pose import (
     PoseTracks,
     check_same_body_plan,
+    keypoint_mismatch,
     match_keypoint_order,
-    misspelling_hint,
 )
 from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._hmm_gaussian import GaussianEmission
@@ -546,14 +546,12 @@ class BehaviourModel(BaseEstimator):
 
     def _check_body_plan(self, s: PoseTracks) -> None:
         if tuple(s.keypoints) != self.keypoints_ or s.n_dims != self.n_dims_:
-            missing = [k for k in self.keypoints_ if k not in s.keypoints]
-            extra = [k for k in s.keypoints if k not in self.keypoints_]
             source = s.meta.get("source")
+            differ, hint = keypoint_mismatch(self.keypoints_, s.keypoints)
             raise InputError(
                 f"session '{s.session}'" + (f" ({source})" if source else "") + " has "
                 f"keypoints {list(s.keypoints)} in {s.n_dims}-D but the model was fitted on "
-                f"{list(self.keypoints_)} in {self.n_dims_}-D (missing {missing}, extra "
-                f"{extra}).{misspelling_hint(missing, extra)}"
+                f"{list(self.keypoints_)} in {self.n_dims_}-D ({differ}).{hint}"
             )
         if abs(s.fps - self.fps_) > 1e-9 and not self.cleaning_.target_fps:
             raise InputError(
