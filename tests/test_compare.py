@@ -24,6 +24,7 @@ from ethoscribe.report import CAUTION as REPORT_CAUTION
 from ethoscribe.stats import COMPARISON_COLUMNS
 from ethoscribe.workspace import Workspace, compare, write_ethogram_report
 from ethoscribe.workspace.folder import CAUTION, append_journal
+from ethoscribe.workspace.report_sections import shown_tests
 
 FPS = 10.0
 PLANNED = "time_budget:digging,bout_rate:digging"
@@ -364,3 +365,42 @@ def test_csv_tables_are_rounded_to_what_the_measurement_supports(compared):
     fractions = pd.read_csv(out / "time_budget.csv", dtype=str)["fraction"]
     digits = fractions.str.replace(r"^0\.0*|\.|e.*$", "", regex=True).str.len()
     assert digits.max() <= 6
+
+
+def test_page_tables_name_the_shared_groups_once():
+    # Two groups throughout: the groups and sizes go in the caption, not in two columns that
+    # repeat on every row (they pushed the adjusted p off a 1366 px page with long motif names).
+    rows = pd.DataFrame(
+        {
+            "metric": ["time_budget", "transition"],
+            "motif": ["a", "a->b"],
+            "group_a": "enriched",
+            "group_b": "standard",
+            "n_a": 8,
+            "n_b": 7,
+            "mean_a": [0.2, 0.3],
+            "mean_b": [0.1, 0.4],
+            "effect_size": [1.0, -0.5],
+            "ci_low": [0.2, -1.0],
+            "ci_high": [2.0, 0.1],
+            "p_value": [0.01, 0.2],
+            "q_value": [0.02, 0.2],
+        }
+    )
+    table, shared = shown_tests(rows)
+    assert "a vs b" not in table and "n" not in table and "adjusted p" in table
+    assert shared == "; every row: a = enriched, b = standard, n = 8 / 7"
+    mixed = rows.assign(group_b=["standard", "control"])
+    table, shared = shown_tests(mixed)
+    assert list(table["a vs b"]) == ["enriched vs standard", "enriched vs control"]
+    assert shared == ""
+
+
+def test_table_headers_may_break_after_underscores():
+    # Motif names as a transition matrix's columns: the header may wrap after "_" (<wbr>, not
+    # in the copied text); the cells keep their names whole.
+    from ethoscribe.report import _table_html
+
+    page = _table_html("t", pd.DataFrame({"from_motif": ["walking_along_the_wall"], "a_b": [1]}))
+    assert "<th>from_<wbr>motif</th>" in page and "<th>a_<wbr>b</th>" in page
+    assert "<td>walking_along_the_wall</td>" in page

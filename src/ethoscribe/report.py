@@ -34,7 +34,8 @@ h1 { font-size: 1.6em; } h2 { font-size: 1.25em; margin-top: 2em; border-bottom:
 .table-wrap { overflow-x: auto; max-width: 100%; }
 table { border-collapse: collapse; font-size: 0.85em; margin: 0.5em 0; }
 th, td { border: 1px solid #ddd; padding: 3px 8px; text-align: right; white-space: nowrap; }
-th { background: #f3f3f3; } td:first-child, th:first-child { text-align: left; }
+th { background: #f3f3f3; white-space: normal; }
+td:first-child, th:first-child { text-align: left; }
 table.parameters td { white-space: normal; text-align: left; overflow-wrap: anywhere; }
 table.parameters td:first-child { white-space: nowrap; font-family: monospace; }
 .caution { background: #fff7e0; border-left: 4px solid #e0a800; padding: 0.7em 1em; }
@@ -74,11 +75,17 @@ class Section:
     note: str = ""
 
 
+# Column names (motif names in a transition matrix, long metric names) may break after an
+# underscore, so a wide table fits a laptop page; the copied text is unchanged (<wbr>).
+_HEADER = re.compile(r"<th>[^<]*</th>")
+
+
 def _table_html(caption: str, table: pd.DataFrame, max_rows: int = 200) -> str:
     shown = table.head(max_rows)
     shown.columns = [str(c) for c in shown.columns]  # no header row for a columns' name
     note = "" if len(table) <= max_rows else f" (first {max_rows} of {len(table)} rows)"
     body = shown.to_html(index=False, float_format=lambda v: f"{v:.4g}", na_rep="", border=0)
+    body = _HEADER.sub(lambda m: m.group(0).replace("_", "_<wbr>"), body)
     return f"<h3>{html.escape(caption)}{note}</h3><div class='table-wrap'>{body}</div>"
 
 

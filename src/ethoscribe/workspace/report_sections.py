@@ -239,15 +239,17 @@ def group_section(
     tables = [("How the tests were corrected", family_summary(stats, alpha))]
     figures = []
     if len(planned):
-        tables.insert(0, ("Planned comparisons (confirmatory)", shown_tests(planned)))
+        table, shared = shown_tests(planned)
+        tables.insert(0, (f"Planned comparisons (confirmatory){shared}", table))
         if metrics is not None:
             figures.append(planned_values_figure(metrics, planned))
     explore = stats[(stats["analysis"] != "planned") & stats["testable"]]
     if len(explore):
         figures.append(group_difference_figure(explore, max_rows=FOREST_ROWS))
         top = explore.sort_values(["q_value", "p_value"], kind="stable").head(TOP_ROWS)
+        table, shared = shown_tests(top)
         caption = f"Exploratory tests with the smallest q (group_stats.csv has all {len(stats)})"
-        tables.append((caption, shown_tests(top)))
+        tables.append((caption + shared, table))
     return Section("Group differences", headline(stats, alpha), figures, tables, note=text)
 
 
@@ -255,13 +257,15 @@ def _g(v: float) -> str:
     return "" if not np.isfinite(v) else f"{v:.3g}"
 
 
-def shown_tests(rows: pd.DataFrame) -> pd.DataFrame:
-    """Test rows as a compact table for the page (group_stats.csv keeps every column).
+def shown_tests(rows: pd.DataFrame) -> tuple[pd.DataFrame, str]:
+    """Test rows as a compact table for the page (group_stats.csv keeps every column), and a
+    caption suffix naming what every row shares.
 
-    The family is left out: the metric names it, and it would push the adjusted p off a
-    laptop-width page.
+    The family is left out (the metric names it), and the groups and their sizes, when every
+    row compares the same two (the usual design), are said once in the caption: as columns
+    they repeat on every row and push the adjusted p off a laptop-width page.
     """
-    return pd.DataFrame(
+    table = pd.DataFrame(
         {
             "metric": rows["metric"],
             "motif": rows["motif"].astype(str),
@@ -279,3 +283,9 @@ def shown_tests(rows: pd.DataFrame) -> pd.DataFrame:
             "adjusted p": rows["q_value"].map(_g),
         }
     )
+    pairs = rows[["group_a", "group_b", "n_a", "n_b"]].drop_duplicates()
+    if len(rows) < 2 or len(pairs) != 1:
+        return table, ""
+    a, b, n_a, n_b = pairs.iloc[0]
+    shared = f"; every row: a = {a}, b = {b}, n = {int(n_a)} / {int(n_b)}"
+    return table.drop(columns=["a vs b", "n"]), shared
