@@ -440,3 +440,25 @@ def test_a_state_saved_before_feature_sets_loads_as_the_detailed_set():
     np.testing.assert_array_equal(
         loaded.transform(tracks)[0].values, pipe.transform(tracks)[0].values
     )
+
+
+def test_a_rigid_body_has_no_posture_components_and_still_saves():
+    # Keypoints that never move relative to each other (a rigid tag, or a tracker that fits a
+    # template): no posture to describe, so 0 components; the movement features remain, and
+    # the saved pipeline must load again (it was refused as damaged).
+    n, fps = 400, 30.0
+    heading = np.linspace(0, 6, n)
+    pos = np.c_[np.linspace(0, 80, n), 20 * np.sin(np.linspace(0, 3, n))]
+    c, s = np.cos(heading)[:, None], np.sin(heading)[:, None]
+    coords = np.empty((n, 1, len(NAMES), 2))
+    coords[:, 0, :, 0] = pos[:, :1] + c * BODY[:, 0] - s * BODY[:, 1]
+    coords[:, 0, :, 1] = pos[:, 1:] + s * BODY[:, 0] + c * BODY[:, 1]
+    tracks = PoseTracks(coords, keypoints=NAMES, fps=fps, units="cm", session="rigid")
+    with pytest.warns(UserWarning, match="never move relative to each other"):
+        pipe = FeaturePipeline(axis=("tail_base", "nose")).fit([tracks])
+    assert pipe.n_components_ == 0 and not any("posture_pc" in c for c in pipe.columns_)
+    meta, arrays = pipe.to_state()
+    loaded = FeaturePipeline.from_state(json.loads(json.dumps(meta)), arrays)
+    np.testing.assert_array_equal(
+        loaded.transform(tracks)[0].values, pipe.transform(tracks)[0].values
+    )

@@ -634,6 +634,14 @@ class FeaturePipeline(BaseEstimator):
         # Sign convention: the largest loading of each component is positive.
         comps *= np.sign(comps[np.arange(m), np.abs(comps).argmax(1)])[:, None]
         self.n_components_ = m
+        if m == 0:
+            warnings.warn(
+                f"the keypoints {list(self.keypoints_)} never move relative to each other (a "
+                "rigid body): there is no posture to describe, so the motifs come from movement "
+                "alone; track keypoints on parts that bend or move (head, limbs, tail)",
+                UserWarning,
+                stacklevel=4,
+            )
         self.pca_mean_, self.pca_components_ = mean, comps
         self.explained_variance_ = evals[:m]
         self.explained_variance_ratio_ = evals[:m] / evals.sum() if evals.sum() > 0 else evals[:m]

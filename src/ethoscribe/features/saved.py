@@ -182,7 +182,7 @@ def _check_fitted_meta(fitted: Mapping[str, Any]) -> None:
         ),
         "n_components_": isinstance(n_comp, int | np.integer)
         and not isinstance(n_comp, bool)
-        and 1 <= n_comp <= 100_000,
+        and 0 <= n_comp <= 100_000,  # 0: a rigid body (no posture, motion only)
         "fps_": fps is None
         or (
             isinstance(fps, int | float | np.number)
