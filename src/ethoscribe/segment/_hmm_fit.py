@@ -128,6 +128,22 @@ def check_hmm_params(model: Any) -> None:
         ),
         ("engine", m.engine in ("fast", "hmmlearn"), "'fast' or 'hmmlearn'"),
         (
+            "session_offsets",
+            isinstance(getattr(m, "session_offsets", False), bool | np.bool_)
+            and not (getattr(m, "session_offsets", False) and m.engine == "hmmlearn"),
+            "True or False (True needs engine='fast')",
+        ),
+        (
+            "offset_columns",
+            getattr(m, "offset_columns", None) is None
+            or (
+                not isinstance(m.offset_columns, str)
+                and len(np.ravel(m.offset_columns)) > 0
+                and all(is_int(c) and c >= 0 for c in np.ravel(m.offset_columns))
+            ),
+            "None or a non-empty list of column indices",
+        ),
+        (
             "n_jobs",
             getattr(m, "n_jobs", None) is None or (is_int(m.n_jobs) and m.n_jobs >= 1),
             "None or an int >= 1",

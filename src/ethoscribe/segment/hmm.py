@@ -25,6 +25,7 @@ means, so refits with the same seed and data give identical arrays.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -54,6 +55,12 @@ from ethoscribe.segment._hmm_kernels import forward_backward_log, forward_filter
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths
 from ethoscribe.segment.postprocess import order_states_by_occupancy
 from ethoscribe.segment.sampling import take_blocks
+from ethoscribe.segment.session_offsets import (
+    label_offsets,
+    offset_columns,
+    run_offset_em,
+    take_session_blocks,
+)
 
 FORMAT_VERSION = 1
 _DECODE_BATCH = 2**18  # frames decoded together (bounds the T x K work buffers)
@@ -160,6 +167,15 @@ class GaussianHMM(BaseEstimator):
         (``random_seed_``, what :meth:`to_state` records).
     progress : bool
         Show a progress bar over restarts and iterations.
+    session_offsets : bool
+        Give every session (sequence of ``lengths``) an offset ``b_s`` added to every state's
+        mean, estimated inside EM with a shrinkage prior whose spread EM estimates too
+        (:mod:`ethoscribe.segment.session_offsets`): states describe behaviours, not where a
+        sensor sat on an individual. Labelling estimates each session's offset with the
+        fitted parameters fixed; the causal path (:meth:`filter`, streaming) uses offset 0.
+        Own EM only (``engine="fast"``).
+    offset_columns : sequence of int or None
+        Feature columns that carry offsets (None: all).
 
     Attributes
     ----------
@@ -167,7 +183,9 @@ class GaussianHMM(BaseEstimator):
     n_features_in_, log_likelihood_ (per frame of the fit data, best restart),
     restart_log_likelihoods_ (n_restarts, or fewer with ``screening="once"``; then one per
     ``init_models``), n_iter_, converged_, covariance_floor_,
-    n_fit_frames_, random_seed_.
+    n_fit_frames_, random_seed_; with ``session_offsets``: ``session_offsets_`` (n_sessions,
+    D) of the fitted sessions, ``offset_columns_``, ``offset_spread_`` and
+    ``offset_precision_`` (the prior precision of a session's offset on those columns).
 
     Examples
     --------
@@ -197,6 +215,8 @@ class GaussianHMM(BaseEstimator):
         engine: str = "fast",
         random_state: int | None = 0,
         progress: bool = False,
+        session_offsets: bool = False,
+        offset_columns: Sequence[int] | None = None,
     ):
         self.n_states = n_states
         self.covariance_type = covariance_type
@@ -215,6 +235,8 @@ class GaussianHMM(BaseEstimator):
         self.engine = engine
         self.random_state = random_state
         self.progress = progress
+        self.session_offsets = session_offsets
+        self.offset_columns = offset_columns
 
     # The state-count choice reads these from the class (see segment.select).
     frames_needed = staticmethod(frames_needed)
@@ -243,7 +265,14 @@ class GaussianHMM(BaseEstimator):
         seeds = np.random.SeedSequence(seed).spawn(self.n_restarts + 1)
         block = max(100, round(60.0 * self.fps))
         rng_blocks = np.random.default_rng(seeds[0])
-        X_fit, fit_lengths = take_blocks(X, lengths, self.fit_max_frames, block, rng_blocks)
+        if self.session_offsets:
+            X_fit, fit_lengths, fit_sessions = take_session_blocks(
+                X, lengths, self.fit_max_frames, block, rng_blocks
+            )
+            em = partial(run_offset_em, sequence_session=fit_sessions)
+        else:
+            X_fit, fit_lengths = take_blocks(X, lengths, self.fit_max_frames, block, rng_blocks)
+            em = run_em
         needed = frames_needed(K, X.shape[1], self.covariance_type)
         if len(X_fit) < needed:
             per_state = needed // K
@@ -292,7 +321,7 @@ class GaussianHMM(BaseEstimator):
             if r >= n_usual:  # warm start: EM from a fitted model's parameters
                 given = starts[r - n_usual]
                 start = {**given, "means": given["means"] - offset}
-                res = run_em(
+                res = em(
                     self, X_fit, fit_lengths, start["means"], sticky, start_counts,
                     trans_counts, bar, start=start, shared=shared,
                 )  # fmt: skip
@@ -300,7 +329,7 @@ class GaussianHMM(BaseEstimator):
                 return res
             rng = np.random.default_rng(seeds[r + 1])
             if screened:  # continue the r-th best candidate of the shared screening
-                res = run_em(
+                res = em(
                     self, X_fit, fit_lengths, screened[r]["means"], sticky, start_counts,
                     trans_counts, bar, start=screened[r], shared=shared,
                 )  # fmt: skip
@@ -312,13 +341,13 @@ class GaussianHMM(BaseEstimator):
                 start = screened_start(
                     self, X_fit, fit_lengths, K, sticky, start_counts, persistence, rng, bar
                 )
-                res = run_em(
+                res = em(
                     self, X_fit, fit_lengths, start["means"], sticky, start_counts,
                     trans_counts, bar, start=start, shared=shared,
                 )  # fmt: skip
             else:
                 means = initial_means(X_fit, K, self.init, rng)
-                res = run_em(
+                res = em(
                     self, X_fit, fit_lengths, means, sticky, start_counts, trans_counts, bar,
                     shared=shared,
                 )  # fmt: skip
@@ -346,6 +375,13 @@ class GaussianHMM(BaseEstimator):
         self.covariance_floor_ = float(self.min_covar)
         self.n_fit_frames_ = int(n_fit)
         self.random_seed_ = seed
+        if self.session_offsets:
+            self.session_offsets_ = np.zeros((len(lengths), X.shape[1]))
+            found = best["offsets"]
+            self.session_offsets_[: len(found)] = found
+            self.offset_columns_ = offset_columns(self.offset_columns, X.shape[1])
+            self.offset_spread_ = float(best["offset_spread"])
+            self.offset_precision_ = np.array(best["offset_precision"], dtype=np.float64)
         return self
 
     # ---------------------------------------------------------------------------- decoding
@@ -355,11 +391,25 @@ class GaussianHMM(BaseEstimator):
         emission = GaussianEmission(self.means_, self.covars_, self.covariance_type)
         return X, lengths, emission
 
-    def _log_emission_batches(self, X, lengths):
+    def _log_emission_batches(self, X, lengths, offsets: bool = True):
         X, lengths, emission = self._prepare(X, lengths)
         with one_thread():
             for a, b, sub in _batches(lengths):
-                yield a, b, sub, emission.log_likelihood(X[a:b])
+                part = X[a:b]
+                if offsets and self.session_offsets:  # each session's own, parameters fixed
+                    part = part - np.repeat(label_offsets(self, part, sub), sub, axis=0)
+                yield a, b, sub, emission.log_likelihood(part)
+
+    def offsets(self, X: np.ndarray, lengths=None) -> np.ndarray:
+        """Offset of every session (sequence of ``lengths``), shape (n_sessions, D): the MAP
+        estimate with the fitted parameters fixed (zeros without ``session_offsets``)."""
+        X, lengths, _ = self._prepare(X, lengths)
+        if not self.session_offsets:
+            return np.zeros((len(lengths), X.shape[1]))
+        with one_thread():
+            return np.concatenate(
+                [label_offsets(self, X[a:b], sub) for a, b, sub in _batches(lengths)]
+            )
 
     def score(self, X: np.ndarray, lengths: Sequence[int] | np.ndarray | None = None) -> float:
         """Total log-likelihood ``log P(X)`` of all sessions."""
@@ -378,10 +428,13 @@ class GaussianHMM(BaseEstimator):
         return self.score(X, lengths) / len(X)
 
     def filter(self, X: np.ndarray, lengths=None) -> np.ndarray:
-        """Causal posteriors ``P(state_t | x_1..t)`` per session, shape (n_frames, K)."""
+        """Causal posteriors ``P(state_t | x_1..t)`` per session, shape (n_frames, K).
+
+        With ``session_offsets`` the causal path cannot see a session's future frames: it
+        uses offset 0 (the typical individual), as the streaming filter does."""
         check_fitted(self, "means_")
         out = np.empty((len(X), self.n_states_))
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets=False):
             out[a:b] = forward_filter_log(log_b, self.startprob_, self.transmat_, sub)[0]
         return out
 
@@ -467,6 +520,13 @@ class GaussianHMM(BaseEstimator):
             "means": self.means_, "covars": self.covars_, "startprob": self.startprob_,
             "transmat": self.transmat_, "restart_log_likelihoods": self.restart_log_likelihoods_,
         }  # fmt: skip
+        if self.session_offsets:
+            meta["offset_spread"] = self.offset_spread_
+            arrays.update(
+                session_offsets=self.session_offsets_,
+                offset_columns=self.offset_columns_,
+                offset_precision=self.offset_precision_,
+            )
         return meta, {k: np.array(v, dtype=np.float64) for k, v in arrays.items()}
 
     @classmethod
@@ -527,10 +587,42 @@ class GaussianHMM(BaseEstimator):
         model.covariance_floor_ = float(meta["covariance_floor"])
         model.n_fit_frames_ = int(meta["n_fit_frames"])
         model.random_seed_ = model.random_state
+        if model.session_offsets:
+            _offsets_from_state(model, meta, arrays)
         return model
 
 
 _MAX_STATES = 1000  # a saved state count beyond this is damage, not a model
+
+
+def _offsets_from_state(model: GaussianHMM, meta: Mapping[str, Any], arrays) -> None:
+    """The session-offset arrays of a saved model, checked (shapes, finite, columns)."""
+    D = model.n_features_in_
+    what = "GaussianHMM state (session_offsets)"
+    needed = ("session_offsets", "offset_columns", "offset_precision")
+    missing = [k for k in needed if k not in arrays]
+    if missing or not (is_real(meta.get("offset_spread")) and meta["offset_spread"] > 0):
+        msg = f"{what}: arrays {missing} or 'offset_spread' (> 0) missing; save the model again"
+        raise InputError(msg)
+    cols = np.asarray(arrays["offset_columns"], dtype=np.float64).ravel()
+    ok_cols = len(cols) and np.all(cols == np.round(cols)) and cols.min() >= 0 and cols.max() < D
+    if not ok_cols or len(np.unique(cols)) != len(cols):
+        raise InputError(f"{what}: 'offset_columns' must be distinct column indices below {D}")
+    m = len(cols)
+    offsets = np.array(arrays["session_offsets"], dtype=np.float64)
+    precision = np.array(arrays["offset_precision"], dtype=np.float64)
+    if offsets.ndim != 2 or offsets.shape[1] != D or precision.shape != (m, m):
+        msg = (
+            f"{what}: 'session_offsets' must be (n_sessions, {D}) and 'offset_precision' "
+            f"({m}, {m}); got {offsets.shape} and {precision.shape}"
+        )
+        raise InputError(msg)
+    if not (np.isfinite(offsets).all() and np.isfinite(precision).all()):
+        raise InputError(f"{what}: arrays hold NaN or infinite values")
+    model.session_offsets_ = offsets
+    model.offset_columns_ = cols.astype(np.int64)
+    model.offset_precision_ = precision
+    model.offset_spread_ = float(meta["offset_spread"])
 
 
 def _start_from(model: GaussianHMM, n_states: int, n_features: int) -> dict[str, np.ndarray]:

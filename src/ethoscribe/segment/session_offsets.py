@@ -1,0 +1,272 @@
+"""Per-session offsets inside the Gaussian HMM (``GaussianHMM(session_offsets=True)``).
+
+Where a marker or sensor sits on an individual moves its static feature levels for a whole
+session, sometimes by as much as two behaviours differ. A plain Gaussian HMM then spends its
+states on individuals. Here the emission of session ``s`` in state ``k`` is
+
+    x_t ~ N(mu_k + b_s, Sigma_k),
+
+with ``b_s`` an offset of the session (non-zero only on the offset columns ``S``), estimated
+inside EM from the state posteriors: a session that is mostly one behaviour keeps that
+behaviour, because its offset is measured from each frame's own state mean, not from the
+session's overall level.
+
+**Prior (shrinkage).** ``b_s ~ N(0, psi W^-1)`` on the columns ``S``, where
+``W = sum_k pi_k (Sigma_k^-1)[S, S]`` is the occupancy-weighted within-state precision: the
+offsets are isotropic in within-state-whitened units, and their spread ``psi`` is estimated by
+EM itself (type-II maximum likelihood, as the variance of a random intercept in a linear mixed
+model; Laird & Ware 1982). The prior precision ``P_0 = W / psi`` is worth ``1 / psi`` frames of
+one state: no constant is tuned, individuals that differ little are pulled towards zero, and
+a data set without individual offsets drives ``psi`` (and the offsets) towards zero.
+
+**Identifiability.** A common shift of every offset is a shift of every state mean. After each
+offset step the offsets' unweighted mean (where the Gaussian prior of equal precision is
+highest) is taken off the offsets and added to the state means: the likelihood is unchanged and
+the prior gains, so the step keeps EM monotone.
+
+**EM (ECM, Meng & Rubin 1993).** Per iteration: the E-step of the plain HMM on ``x_t - b_s``;
+the usual M-step of start, transition, means and covariances from those frames; then, with the
+new means and covariances and the same posteriors ``gamma``, the MAP offsets
+
+    b_s = (P_0 + A_s)^-1 r_s,   A_s = sum_{t in s} sum_k gamma_tk (Sigma_k^-1)[S, S],
+    r_s = sum_{t in s} sum_k gamma_tk [Sigma_k^-1 (x_t - mu_k)]_S,
+
+(restricted to ``S``: the normal equations of a Gaussian linear model with design on ``S``),
+their centring, and ``psi = sum_s (b_s^T W b_s + tr(W V_s)) / ((n_sessions - 1) |S|)`` with
+``V_s = (P_0 + A_s)^-1`` (one degree of freedom goes to the centring).
+
+**Labelling.** A session the model did not see gets its MAP offset by EM with every other
+parameter fixed (at most ``LABEL_ITER`` iterations from ``b = 0``), then is decoded on
+``x_t - b``. The causal (streaming) path cannot see a session's future: it uses ``b = 0``, the
+typical individual.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from ethoscribe.errors import InputError
+from ethoscribe.segment._hmm_fit import (
+    _EMPTY_FRAMES,
+    _MAX_RESEEDS,
+    _reseed,
+    fit_frames,
+    floor_probabilities,
+)
+from ethoscribe.segment._hmm_gaussian import (
+    e_step_buffers,
+    gaussian_m_step,
+    gaussian_posteriors,
+    repair_covariances,
+    statistics_from,
+)
+from ethoscribe.segment.sampling import representative_blocks
+
+LABEL_ITER = 20  # EM iterations for a new session's offset (stops earlier when it settles)
+LABEL_TOL = 1e-3  # ... once no offset moves by more than this many within-state SDs
+START_SPREAD = 1.0  # psi before the first offset step: offsets of about one within-state SD
+
+
+def offset_columns(columns: Any, n_features: int) -> np.ndarray:
+    """The columns that carry offsets (``None``: all), as sorted unique int indices."""
+    if columns is None:
+        return np.arange(n_features)
+    idx = np.unique(np.asarray(columns, dtype=np.int64).ravel())
+    if len(idx) == 0 or idx[0] < 0 or idx[-1] >= n_features:
+        msg = (
+            f"offset_columns must be indices of feature columns in [0, {n_features}); got "
+            f"{list(np.asarray(columns).ravel())!r:.80}"
+        )
+        raise InputError(msg)
+    return idx
+
+
+def take_session_blocks(
+    X: np.ndarray, lengths: np.ndarray, max_frames: int | None, block: int, rng
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`ethoscribe.segment.sampling.take_blocks` (same blocks for the same ``rng``), and
+    the session (index into ``lengths``) of every block."""
+    starts, stops = representative_blocks(lengths, max_frames, block, rng)
+    sub = (stops - starts).astype(np.int64)
+    session = np.searchsorted(np.cumsum(lengths), starts, side="right").astype(np.int64)
+    if sub.sum() == len(X):
+        return X, sub, session
+    X_fit = np.concatenate([X[a:b] for a, b in zip(starts, stops, strict=True)])
+    return X_fit, sub, session
+
+
+def _precisions(covars: np.ndarray) -> np.ndarray:
+    return np.linalg.inv(covars)
+
+
+def _session_sums(X, gamma, lengths, sequence_session, n_sessions):
+    """Per session: ``G (n_s, K)`` sum of gamma, ``S1 (n_s, K, D)`` sum of gamma x."""
+    K, D = gamma.shape[1], X.shape[1]
+    G = np.zeros((n_sessions, K))
+    S1 = np.zeros((n_sessions, K, D))
+    a = 0
+    for n, s in zip(lengths, sequence_session, strict=True):
+        g = gamma[a : a + n]
+        G[s] += g.sum(axis=0)
+        S1[s] += g.T @ X[a : a + n]
+        a += n
+    return G, S1
+
+
+def map_offsets(
+    X: np.ndarray,
+    gamma: np.ndarray,
+    lengths: np.ndarray,
+    sequence_session: np.ndarray,
+    n_sessions: int,
+    means: np.ndarray,
+    covars: np.ndarray,
+    columns: np.ndarray,
+    prior_precision: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """MAP offsets given the state posteriors: ``b (n_sessions, D)`` (zero outside
+    ``columns``) and their posterior covariances ``V (n_sessions, |S|, |S|)`` (module doc).
+
+    ``X`` are the frames without offsets; ``prior_precision`` is ``P_0 (|S|, |S|)``.
+    """
+    prec = _precisions(covars)
+    G, S1 = _session_sums(X, gamma, lengths, sequence_session, n_sessions)
+    S = columns
+    A = np.einsum("sk,kij->sij", G, prec[np.ix_(np.arange(len(prec)), S, S)])
+    R = S1 - G[:, :, None] * means[None]  # sum gamma (x - mu_k), (n_s, K, D)
+    r = np.einsum("kij,skj->si", prec[:, S, :], R)
+    H = A + prior_precision[None]
+    b_S = np.linalg.solve(H, r[:, :, None])[:, :, 0]
+    V = np.linalg.inv(H)
+    b = np.zeros((n_sessions, X.shape[1]))
+    b[:, S] = b_S
+    return b, V
+
+
+def within_precision(covars: np.ndarray, occupancy: np.ndarray, columns: np.ndarray):
+    """``W = sum_k pi_k (Sigma_k^-1)[S, S]`` (module doc)."""
+    pi = np.asarray(occupancy, dtype=np.float64)
+    pi = pi / max(pi.sum(), np.finfo(np.float64).tiny)
+    prec = _precisions(covars)[:, columns][:, :, columns]
+    return np.einsum("k,kij->ij", pi, prec)
+
+
+def offset_step(X, gamma, lengths, sequence_session, n_sessions, means, covars, occupancy,
+                columns, spread):  # fmt: skip
+    """One conditional maximisation of the offsets, their centring and their spread.
+
+    Returns ``(offsets (n_s, D), means (K, D) shifted by the centring, spread, P_0)``.
+    """
+    W = within_precision(covars, occupancy, columns)
+    P0 = W / spread
+    b, V = map_offsets(X, gamma, lengths, sequence_session, n_sessions, means, covars, columns, P0)
+    means = means.copy()
+    if n_sessions < 2:  # one session: an offset is a shift of every state mean
+        return np.zeros_like(b), means, spread, P0
+    centre = b.mean(axis=0)
+    b -= centre
+    means += centre
+    S = columns
+    quad = np.einsum("si,ij,sj->", b[:, S], W, b[:, S]) + np.einsum("ij,sji->", W, V)
+    spread = max(float(quad) / ((n_sessions - 1) * len(S)), 1e-12)
+    return b, means, spread, W / spread
+
+
+def run_offset_em(
+    model, X, lengths, means, transmat, start_counts, trans_counts, bar, n_iter=None,
+    start=None, shared=None, *, sequence_session,
+) -> dict[str, Any]:  # fmt: skip
+    """EM of the HMM with session offsets (module doc); as ``_hmm_fit.run_em``, plus
+    ``offsets (n_sessions, D)``, ``offset_spread`` and ``offset_precision (|S|, |S|)`` in the
+    result. ``sequence_session``: the session of every sequence of ``lengths``."""
+    K, D = means.shape
+    ct, floor = model.covariance_type, float(model.min_covar)
+    n_iter = int(model.n_iter if n_iter is None else n_iter)
+    columns = offset_columns(model.offset_columns, D)
+    sequence_session = np.asarray(sequence_session, dtype=np.int64)
+    n_sessions = int(sequence_session.max()) + 1 if len(sequence_session) else 0
+    frame_session = np.repeat(sequence_session, lengths)
+    if shared is None or shared["X"] is not X:
+        shared = fit_frames(X, "diag")  # the covariance only: the frames move with the offsets
+    global_cov = shared["cov"] + floor * np.eye(D)
+    if ct == "diag":
+        global_cov = np.diag(np.diag(global_cov))
+    covars = np.repeat(global_cov[None], K, axis=0)
+    startprob, transmat, sticky = np.full(K, 1.0 / K), transmat.copy(), transmat
+    offsets, spread = np.zeros((n_sessions, D)), START_SPREAD
+    if start is not None:
+        means, covars = start["means"].copy(), start["covars"].copy()
+        startprob, transmat = start["startprob"].copy(), start["transmat"].copy()
+        if start.get("offsets") is not None and len(start["offsets"]) == n_sessions:
+            offsets, spread = start["offsets"].copy(), float(start["offset_spread"])
+    prior = within_precision(covars, np.ones(K), columns) / spread
+    reseeds = np.zeros(K, dtype=int)
+    prev, converged, n_done = -np.inf, False, 0
+    work = e_step_buffers(len(X), K)
+    for it in range(n_iter + 1):
+        Xc = X - offsets[frame_session]
+        fb = gaussian_posteriors(Xc, lengths, startprob, transmat, means, covars, ct, work)
+        ll = float(fb.log_likelihood.sum()) / len(X)
+        if not np.isfinite(ll):
+            msg = (
+                "the HMM log-likelihood became non-finite; features may contain extreme "
+                "values: standardise them (e.g. z-scores) or raise min_covar"
+            )
+            raise InputError(msg)
+        bar.set_postfix(iteration=it, ll_per_frame=f"{ll:.4f}", refresh=False)
+        if (it > 0 and ll - prev < model.tol) or it == n_iter:
+            converged = it > 0 and ll - prev < model.tol
+            occupancy = fb.gamma.sum(axis=0)
+            break
+        stats = statistics_from(Xc, fb, ct, None)
+        prev, old = ll, (means, covars)
+        new = gaussian_m_step(stats, ct, floor, start_counts, trans_counts)
+        empty = np.flatnonzero(stats.post < _EMPTY_FRAMES)
+        if len(empty):
+            if (reseeds[empty] < _MAX_RESEEDS).any():
+                prev = -np.inf
+            new = _reseed(Xc, empty, reseeds, old, new, global_cov, sticky, ct)
+        startprob, transmat, means, covars = new
+        startprob, transmat = floor_probabilities(startprob, transmat)
+        covars = repair_covariances(covars, floor)
+        offsets, means, spread, prior = offset_step(
+            X, fb.gamma, lengths, sequence_session, n_sessions, means, covars, stats.post,
+            columns, spread,
+        )  # fmt: skip
+        n_done += 1
+    return {
+        "means": means, "covars": covars, "startprob": startprob, "transmat": transmat,
+        "log_likelihood": ll, "n_iter": n_done, "converged": converged, "occupancy": occupancy,
+        "offsets": offsets, "offset_spread": spread, "offset_precision": prior,
+    }  # fmt: skip
+
+
+def label_offsets(model, X: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """MAP offset of every session (sequence of ``lengths``) under the fitted ``model``, whose
+    other parameters stay fixed: EM from ``b = 0`` (module doc). Shape (n_sessions, D)."""
+    columns = np.asarray(model.offset_columns_, dtype=np.int64)
+    n = len(lengths)
+    sequence_session = np.arange(n)
+    frame_session = np.repeat(sequence_session, lengths)
+    b = np.zeros((n, X.shape[1]))
+    if len(X) == 0:
+        return b
+    W = within_precision(model.covars_, np.ones(model.n_states_), columns)
+    scale = np.sqrt(np.maximum(np.diag(W), 0.0))  # per column: 1 / within-state SD
+    work = e_step_buffers(len(X), model.n_states_)
+    for _ in range(LABEL_ITER):
+        fb = gaussian_posteriors(
+            X - b[frame_session], lengths, model.startprob_, model.transmat_, model.means_,
+            model.covars_, model.covariance_type, work,
+        )  # fmt: skip
+        new, _ = map_offsets(
+            X, fb.gamma, lengths, sequence_session, n, model.means_, model.covars_, columns,
+            model.offset_precision_,
+        )  # fmt: skip
+        moved = float(np.abs((new - b)[:, columns] * scale).max(initial=0.0))
+        b = new
+        if moved < LABEL_TOL:
+            break
+    return b
