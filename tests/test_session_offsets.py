@@ -1,0 +1,200 @@
+"""Per-session offsets inside the Gaussian HMM (``GaussianHMM(session_offsets=True)``).
+
+The offset step is checked against scikit-learn's linear models on the same data; the whole EM
+on simulated sessions with planted offsets (a recovery test: invented data, known answers).
+"""
+
+from __future__ import annotations
+
+import io
+import json
+
+import numpy as np
+import pytest
+from sklearn.linear_model import LinearRegression, Ridge
+
+from ethoscribe.errors import InputError
+from ethoscribe.segment.agreement import adjusted_rand
+from ethoscribe.segment.hmm import GaussianHMM
+from ethoscribe.segment.session_offsets import map_offsets, offset_step
+
+MEANS = np.array([[0.0, 0.0, 0.0], [4.0, 0.0, 1.0], [0.0, 4.0, -1.0]])
+
+
+def _sessions(seed: int, n_sessions: int = 6, n_frames: int = 1500, spread: float = 0.8):
+    """Sessions of 3 sticky states with different behaviour mixes and planted offsets."""
+    rng = np.random.default_rng(seed)
+    offsets = rng.normal(0, spread, (n_sessions, MEANS.shape[1]))
+    offsets -= offsets.mean(axis=0)
+    X, z = [], []
+    for s in range(n_sessions):
+        mix = np.roll([0.6, 0.25, 0.15], s)  # every session mostly one behaviour
+        states: list[int] = []
+        while len(states) < n_frames:
+            states += [int(rng.choice(3, p=mix))] * int(rng.integers(30, 90))
+        states_arr = np.array(states[:n_frames])
+        X.append(MEANS[states_arr] + offsets[s] + rng.normal(0, 0.4, (n_frames, 3)))
+        z.append(states_arr)
+    return np.concatenate(X), np.concatenate(z), np.full(n_sessions, n_frames), offsets
+
+
+def test_map_offset_equals_ridge_on_whitened_frames():
+    # One session, three states with full covariances, hard posteriors: the MAP offset
+    # minimises sum_t (x_t - mu_k - b)^T Sigma_k^-1 (x_t - mu_k - b) + alpha |b|^2, the ridge
+    # regression of the whitened residuals L_k^-1 (x_t - mu_k) on the design L_k^-1 (one D x D
+    # block per frame). Reference: scikit-learn Ridge(alpha, fit_intercept=False).
+    rng = np.random.default_rng(3)
+    K, D, T, alpha = 3, 3, 240, 25.0
+    a = rng.normal(size=(K, D, D))
+    covars = a @ a.transpose(0, 2, 1) + 0.5 * np.eye(D)
+    means = rng.normal(0, 2, (K, D))
+    z = rng.integers(0, K, T)
+    X = means[z] + rng.normal(0, 1, (T, D)) + np.array([0.7, -0.3, 1.1])
+    gamma = np.eye(K)[z]
+    b, V = map_offsets(
+        X, gamma, np.array([T]), np.array([0]), 1, means, covars, np.arange(D), alpha * np.eye(D)
+    )
+    inv_chol = np.linalg.inv(np.linalg.cholesky(covars))  # L_k^-1
+    design = np.concatenate([inv_chol[k] for k in z])
+    target = np.concatenate([inv_chol[k] @ (x - means[k]) for k, x in zip(z, X, strict=True)])
+    ref = Ridge(alpha=alpha, fit_intercept=False, solver="cholesky").fit(design, target).coef_
+    np.testing.assert_allclose(b[0], ref, rtol=1e-9, atol=1e-10)
+    # the posterior covariance of the offset is the inverse of the ridge normal matrix
+    np.testing.assert_allclose(V[0], np.linalg.inv(design.T @ design + alpha * np.eye(D)))
+
+
+def test_offsets_of_a_column_subset_equal_ridge_on_those_columns():
+    # Offsets on columns {0, 2} only: the design keeps those columns of L_k^-1 (reference:
+    # scikit-learn Ridge on the reduced design); column 1 stays at 0.
+    rng = np.random.default_rng(4)
+    K, D, T, alpha = 2, 3, 150, 4.0
+    a = rng.normal(size=(K, D, D))
+    covars = a @ a.transpose(0, 2, 1) + 0.5 * np.eye(D)
+    means = rng.normal(0, 2, (K, D))
+    z = rng.integers(0, K, T)
+    X = means[z] + rng.normal(0, 1, (T, D)) + 0.5
+    cols = np.array([0, 2])
+    b, _ = map_offsets(
+        X, np.eye(K)[z], np.array([T]), np.array([0]), 1, means, covars, cols, alpha * np.eye(2)
+    )
+    inv_chol = np.linalg.inv(np.linalg.cholesky(covars))
+    design = np.concatenate([inv_chol[k][:, cols] for k in z])
+    target = np.concatenate([inv_chol[k] @ (x - means[k]) for k, x in zip(z, X, strict=True)])
+    ref = Ridge(alpha=alpha, fit_intercept=False, solver="cholesky").fit(design, target).coef_
+    np.testing.assert_allclose(b[0, cols], ref, rtol=1e-9, atol=1e-10)
+    assert b[0, 1] == 0.0
+
+
+def test_alternating_steps_without_prior_equal_least_squares_with_session_dummies():
+    # Posteriors fixed (hard states), prior strength 0: alternating the means (from the frames
+    # minus their offsets) with the offset step converges to the least-squares fit of
+    # x = mu_state + b_session with sum_s b_s = 0. Reference: scikit-learn LinearRegression on
+    # state one-hot columns plus sum-to-zero (effect-coded) session columns.
+    X, z, lengths, _ = _sessions(seed=1, n_sessions=4, n_frames=300)
+    K, S = 3, len(lengths)
+    session = np.repeat(np.arange(S), lengths)
+    gamma = np.eye(K)[z]
+    covars = np.repeat(np.eye(3)[None], K, axis=0)
+    b = np.zeros((S, 3))
+    for _ in range(500):
+        Xc = X - b[session]
+        means = (gamma.T @ Xc) / gamma.sum(axis=0)[:, None]
+        b, means, _, _ = offset_step(
+            X, gamma, lengths, np.arange(S), S, means, covars, gamma.sum(0), np.arange(3), 1e15
+        )
+    effects = np.zeros((len(X), S - 1))
+    for s in range(S - 1):
+        effects[session == s, s] = 1.0
+    effects[session == S - 1] = -1.0
+    design = np.hstack([gamma, effects])
+    coef = LinearRegression(fit_intercept=False).fit(design, X).coef_.T  # (K + S - 1, D)
+    ref_b = np.vstack([coef[K:], -coef[K:].sum(axis=0)])
+    np.testing.assert_allclose(b, ref_b, atol=1e-7)
+    np.testing.assert_allclose(means, coef[:K], atol=1e-7)
+
+
+@pytest.fixture(scope="module")
+def planted():
+    X, z, lengths, offsets = _sessions(seed=0)
+    params = dict(n_states=3, fps=30.0, n_restarts=2, random_state=0, n_jobs=1)
+    plain = GaussianHMM(**params).fit(X, lengths)
+    model = GaussianHMM(**params, session_offsets=True).fit(X, lengths)
+    return X, z, lengths, offsets, plain, model
+
+
+def test_planted_offsets_recovered_and_behaviours_kept(planted):
+    # Recovery on invented sessions: each session is mostly one behaviour (60 %), with an
+    # offset of about 2 within-state SDs; the offsets come back (not the behaviour mix) and
+    # the states are the behaviours.
+    X, z, lengths, offsets, plain, model = planted
+    assert model.session_offsets_.shape == offsets.shape
+    np.testing.assert_allclose(model.session_offsets_, offsets, atol=0.05)
+    assert adjusted_rand(z, model.predict(X, lengths)) > 0.97
+    # the states' spread is the within-session noise (SD 0.4), not noise plus individuals
+    assert np.diagonal(model.covars_, axis1=1, axis2=2).max() < 0.4**2 * 1.2
+    assert np.diagonal(plain.covars_, axis1=1, axis2=2).max() > 0.4**2 * 2
+    assert 0.0 < model.offset_spread_ < 100.0
+
+
+def test_new_session_gets_its_own_offset(planted):
+    # A session the model did not see, mostly behaviour 2, with its own offset: labelling
+    # estimates the offset (parameters fixed) and finds the behaviours.
+    _, _, _, _, _, model = planted
+    X_new, z_new, lengths_new, _ = _sessions(seed=7, n_sessions=1, n_frames=2000)
+    shift = np.array([1.2, -0.9, 0.6])
+    X_new = X_new + shift
+    found = model.offsets(X_new, lengths_new)
+    np.testing.assert_allclose(found[0], shift, atol=0.08)
+    assert adjusted_rand(z_new, model.predict(X_new, lengths_new)) > 0.95
+
+
+def test_causal_path_uses_offset_zero(planted):
+    # The causal filter cannot see a session's future: offset 0, as the streaming filter.
+    from ethoscribe.segment.streaming_hmm import HMMFilter
+
+    X, _, lengths, _, _, model = planted
+    first = X[: lengths[0]]
+    live = HMMFilter(model)
+    streamed = np.array([live.push(x) for x in first[:200]])
+    np.testing.assert_allclose(model.filter(first[:200]), streamed, atol=1e-10)
+
+
+def test_round_trip_through_json_and_npz(planted):
+    X, _, lengths, _, _, model = planted
+    meta, arrays = model.to_state()
+    buffer = io.BytesIO()
+    np.savez(buffer, **arrays)
+    buffer.seek(0)
+    with np.load(buffer, allow_pickle=False) as npz:
+        loaded = {k: npz[k] for k in npz.files}
+    rebuilt = GaussianHMM.from_state(json.loads(json.dumps(meta)), loaded)
+    assert rebuilt.get_params() == model.get_params()
+    np.testing.assert_array_equal(rebuilt.session_offsets_, model.session_offsets_)
+    np.testing.assert_array_equal(rebuilt.offset_precision_, model.offset_precision_)
+    assert np.array_equal(rebuilt.predict(X, lengths), model.predict(X, lengths))
+    with pytest.raises(InputError, match="session_offsets"):
+        GaussianHMM.from_state(meta, {k: v for k, v in arrays.items() if k != "offset_precision"})
+
+
+def test_options_checked():
+    X = np.random.default_rng(0).normal(size=(200, 2))
+    with pytest.raises(InputError, match="session_offsets"):
+        GaussianHMM(n_states=2, session_offsets=True, engine="hmmlearn").fit(X)
+    with pytest.raises(InputError, match="offset_columns"):
+        GaussianHMM(n_states=2, session_offsets=True, offset_columns=[]).fit(X)
+    with pytest.raises(InputError, match="offset_columns"):
+        GaussianHMM(n_states=2, session_offsets=True, offset_columns=[5], n_restarts=1).fit(X)
+
+
+def test_behaviour_model_reaches_the_option():
+    # BehaviourModel(segmenter={"session_offsets": True}) fits, labels and saves with offsets.
+    from ethoscribe.segment.model import BehaviourModel
+    from ethoscribe.simulate import simulate_session
+
+    sessions = [simulate_session(duration_s=40, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    model = BehaviourModel(n_states=4, segmenter={"session_offsets": True}, random_state=0)
+    table = model.fit(sessions).label(sessions)
+    assert model.segmenter_.session_offsets_.shape[0] == 2
+    meta, arrays = model.to_state()
+    again = BehaviourModel.from_state(json.loads(json.dumps(meta)), arrays)
+    assert again.label(sessions)["state"].equals(table["state"])
