@@ -340,3 +340,25 @@ def test_frame_numbers_going_up_by_two_are_said(tmp_path):
     with pytest.warns(InputWarning, match=r"go up by 2 \(only one frame in 2 has rows\)"):
         t = read_tidy(tmp_path / "a.csv", fps=60)
     assert t.n_frames == 39 and np.isnan(t.coords[1::2]).all()  # 20 numbered frames, 19 between
+
+
+def test_a_keypoint_missing_on_most_frames_is_said():
+    import warnings
+
+    from ethoscribe.errors import InputWarning
+    from ethoscribe.workspace.runs import _warn_unseen_keypoints
+
+    def quality(session, animal, after):
+        return pd.DataFrame({"session": session, "animal": animal, "keypoint": ["nose", "tail"],
+                             "frac_missing_after": after})  # fmt: skip
+
+    seen = [quality("a", "m1", [0.0, 0.89]), quality("b", "m1", [0.1, 0.2])]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        _warn_unseen_keypoints(seen)  # below 90 %: nothing said
+    lost = [*seen, quality("c", "m1", [0.0, 1.0])]
+    with pytest.warns(InputWarning, match=r"'tail' in session 'c' \(100%\) \(quality\.csv\)"):
+        _warn_unseen_keypoints(lost)
+    pairs = [quality("c", "m1", [0.0, 1.0]), quality("c", "m2", [0.0, 0.0])]
+    with pytest.warns(InputWarning, match=r"'tail' in session 'c' \(animal 'm1'\) \(100%\)"):
+        _warn_unseen_keypoints(pairs)

@@ -260,6 +260,7 @@ def _prepare(
     rows = [read_json(i["row"]) for i in infos]
     used = [r.pop(CLEANING_USED, None) for r in rows]
     _warn_short_sessions(rows)
+    _warn_unseen_keypoints(quality)
     return infos, quality, sessions_table(rows), used
 
 
@@ -280,6 +281,34 @@ def _warn_short_sessions(rows: Sequence[dict[str, Any]]) -> None:
             f"session(s) {', '.join(short[:5])} last less than one bout ({shortest:g} s): each "
             "is a single bout cut at both ends, and says little about time budgets or "
             "transitions; leave them out or use longer recordings",
+            InputWarning,
+            stacklevel=3,
+        )
+
+
+UNSEEN_SHARE = 0.9  # missing on this share of frames: the keypoint is hardly ever tracked
+
+
+def _warn_unseen_keypoints(quality: Sequence[pd.DataFrame]) -> None:
+    """Name keypoints missing after cleaning on most of a session's frames: their values are
+    then the posture model's guesses, and a renamed or untracked keypoint looks like this."""
+    table = pd.concat(quality, ignore_index=True) if quality else pd.DataFrame()
+    if table.empty or "frac_missing_after" not in table:
+        return
+    unseen = table[table["frac_missing_after"] >= UNSEEN_SHARE]
+    if len(unseen):
+        several = table.groupby("session")["animal"].nunique().max() > 1
+        said = [
+            f"'{r.keypoint}' in session '{r.session}'"
+            + (f" (animal '{r.animal}')" if several else "")
+            + f" ({r.frac_missing_after:.0%})"
+            for r in unseen.head(5).itertuples()
+        ]
+        more = f" and {len(unseen) - 5} more" if len(unseen) > 5 else ""
+        warnings.warn(
+            f"keypoint(s) missing on most frames after cleaning: {', '.join(said)}{more} "
+            "(quality.csv). Their positions are filled from the posture model, so motifs say "
+            "little about them; check the tracker's output and the keypoint names",
             InputWarning,
             stacklevel=3,
         )
