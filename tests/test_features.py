@@ -335,6 +335,7 @@ def test_two_keypoint_body_and_optional_blocks():
     assert bare.transform(tracks)[0].valid[20:].all()
 
 
+@pytest.mark.filterwarnings("ignore:the keypoints .* never move:UserWarning")  # a rigid body
 def test_speeds_are_in_units_per_second_at_any_frame_rate():
     # Invented straight walk at 12 cm/s along +x, heading +x: checked at 30 and 60 fps.
     for fps in (30.0, 60.0):
@@ -379,6 +380,7 @@ def test_bad_input_is_named():
         FeaturePipeline().fit([tracks, tracks.replace(units="px", session="raw")])
 
 
+@pytest.mark.filterwarnings("ignore:the keypoints .* never move:UserWarning")  # a rigid body
 def test_still_animal_warns_that_the_axis_is_a_guess():
     still = np.repeat(BODY[None, None], 100, 0)
     tracks = PoseTracks(still, keypoints=NAMES, fps=30.0, units="cm")

@@ -43,6 +43,7 @@ def _walker(seed: int = 0) -> PoseTracks:
     return PoseTracks(coords[:, None], keypoints=["tail", "mid", "nose"], fps=30, units="cm")
 
 
+@pytest.mark.filterwarnings("ignore:the keypoints .* never move:UserWarning")  # a rigid body
 def test_egocentric_postures_put_the_axis_along_x():
     tracks = _walker()
     pipe = FeaturePipeline(origin="tail", axis=("tail", "nose"), n_components=2).fit([tracks])
@@ -54,6 +55,7 @@ def test_egocentric_postures_put_the_axis_along_x():
     np.testing.assert_allclose(ego[:, 1], np.tile([1.0, 0.3], (len(ego), 1)), atol=1e-12)
 
 
+@pytest.mark.filterwarnings("ignore:the keypoints .* never move:UserWarning")  # a rigid body
 def test_egocentric_postures_refuse_other_keypoints():
     tracks = _walker()
     pipe = FeaturePipeline(n_components=2).fit([tracks])
