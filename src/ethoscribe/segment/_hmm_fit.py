@@ -126,6 +126,17 @@ def check_hmm_params(model: Any) -> None:
             m.fit_max_frames is None or (is_int(m.fit_max_frames) and m.fit_max_frames >= 100),
             "None or an int >= 100",
         ),
+        (
+            "fit_rate",
+            getattr(m, "fit_rate", None) is None
+            or (is_real(m.fit_rate) and m.fit_rate > 0 and np.isfinite(m.fit_rate)),
+            "None (every frame) or a rate > 0 in frames per second",
+        ),
+        (
+            "full_rate_iter",
+            is_int(getattr(m, "full_rate_iter", 0)) and getattr(m, "full_rate_iter", 0) >= 0,
+            "an int >= 0",
+        ),
         ("engine", m.engine in ("fast", "hmmlearn"), "'fast' or 'hmmlearn'"),
         (
             "session_offsets",
@@ -432,9 +443,72 @@ def same_states(a: np.ndarray, b: np.ndarray, rtol: float = 1e-7) -> bool:
 
 def _screening_sample(model, X, lengths, rng):
     """The screening subsample: at most ``SCREEN_FRAMES`` frames in blocks of
-    ``SCREEN_BLOCK_S`` seconds from every session."""
-    block = max(30, round(SCREEN_BLOCK_S * model.fps))
-    return take_blocks(X, lengths, SCREEN_FRAMES, block, rng)
+    ``SCREEN_BLOCK_S`` seconds from every session. On thinned frames (``fit_rate``: the
+    model's ``_em_stride`` > 1) the same span of time, so ``stride`` times fewer frames."""
+    stride = int(getattr(model, "_em_stride", 1))
+    block = max(30 // stride, round(SCREEN_BLOCK_S * model.fps))
+    return take_blocks(X, lengths, SCREEN_FRAMES // stride, block, rng)
+
+
+# --- fitting on thinned frames (GaussianHMM(fit_rate=...)) ------------------------------------
+def fit_stride(fps: float, fit_rate: float | None) -> int:
+    """Every how many frames EM reads for ``fit_rate`` frames per second: the largest whole
+    stride whose thinned rate is still at least ``fit_rate`` (1: every frame).
+
+    Examples
+    --------
+    >>> [fit_stride(fps, 10.0) for fps in (30.0, 25.0, 120.0, 8.0)]
+    [3, 2, 12, 1]
+    """
+    if fit_rate is None:
+        return 1
+    return max(1, int(np.floor(float(fps) / float(fit_rate) + 1e-9)))
+
+
+def thin_frames(X: np.ndarray, lengths: np.ndarray, stride: int) -> tuple[np.ndarray, np.ndarray]:
+    """Every ``stride``-th frame of every sequence (from its first), and the new lengths.
+
+    Examples
+    --------
+    >>> X, n = thin_frames(np.arange(7.0)[:, None], np.array([4, 3]), 2)
+    >>> X.ravel().tolist(), n.tolist()
+    ([0.0, 2.0, 4.0, 6.0], [2, 2])
+    """
+    lengths = np.asarray(lengths, dtype=np.int64)
+    if stride == 1:
+        return X, lengths
+    offsets = np.cumsum(lengths) - lengths
+    pieces = [np.arange(o, o + n, stride) for o, n in zip(offsets, lengths, strict=True)]
+    idx = np.concatenate(pieces)
+    return X[idx], -(-lengths // stride)
+
+
+def transition_root(transmat: np.ndarray, steps: int) -> np.ndarray:
+    """The one-frame transition matrix of a chain whose ``steps``-frame matrix is ``transmat``.
+
+    The principal ``steps``-th root (``scipy.linalg.fractional_matrix_power``, Schur-Pade,
+    Higham & Lin 2011): the matrix ``R`` with ``R ** steps = transmat`` whose eigenvalues are
+    the principal roots. A stochastic matrix need not have a stochastic root (the embedding
+    problem): a rare transition made mostly through a third state comes out slightly
+    negative, and a state held for less than about two of the thinned frames can have a
+    negative eigenvalue and no real root. Then the real part is taken, negative entries are
+    set to 0 and every row renormalised (the simplest regularisation of Kreinin & Sidelnikova
+    2001, "Regularization algorithms for transition matrices"), and every probability kept
+    at least ``PROB_FLOOR``. The result is only a starting point of full-rate EM or a
+    time-scale conversion of a fitted chain; it stays a transition matrix either way.
+    """
+    A = np.asarray(transmat, dtype=np.float64)
+    if steps == 1:
+        return A.copy()
+    from scipy.linalg import fractional_matrix_power
+
+    with np.errstate(all="ignore"):
+        root = np.real(fractional_matrix_power(A, 1.0 / steps))
+    if not np.isfinite(root).all():  # no usable root: the first-order one, I + (A - I)/steps
+        root = np.eye(len(A)) + (A - np.eye(len(A))) / steps
+    root = np.clip(root, 0.0, None)
+    root /= root.sum(axis=1, keepdims=True)
+    return floor_probabilities(np.full(len(A), 1.0 / len(A)), root)[1]
 
 
 def _reseed(X, empty, reseeds, old, new, global_cov, sticky, covariance_type):

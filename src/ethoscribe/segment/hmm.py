@@ -24,6 +24,7 @@ means, so refits with the same seed and data give identical arrays.
 
 from __future__ import annotations
 
+import copy
 from collections.abc import Mapping, Sequence
 from functools import partial
 from typing import Any
@@ -40,6 +41,7 @@ from ethoscribe.segment._hmm_fit import (
     check_hmm_params,
     distinct_rows_at_least,
     fit_frames,
+    fit_stride,
     fit_with_hmmlearn,
     floor_probabilities,
     in_threads,
@@ -49,6 +51,8 @@ from ethoscribe.segment._hmm_fit import (
     screened_start,
     screened_starts,
     sticky_transmat,
+    thin_frames,
+    transition_root,
 )
 from ethoscribe.segment._hmm_gaussian import GaussianEmission
 from ethoscribe.segment._hmm_kernels import forward_backward_log, forward_filter_log, viterbi_log
@@ -157,6 +161,23 @@ class GaussianHMM(BaseEstimator):
         every session gives a share proportional to its length, as contiguous blocks of at
         most 60 s placed at random inside equal slices of the session (see
         ``sampling.representative_blocks``). ``None``: always fit on everything.
+    fit_rate : float or None
+        Frames per second EM reads: every ``s``-th frame of the fit data, the largest whole
+        ``s`` keeping at least this rate (``_hmm_fit.fit_stride``; ``s = 3`` for 10 at 30
+        fps). The thinned fit is an HMM of its own rate: sticky start and prior at
+        ``fps / s`` (``p = 1 - s/(expected_bout_s * fps)``, the prior's weight from the
+        thinned frame count), and the starting points' screening sees the same span of time
+        in ``s`` times fewer frames. Its transition matrix is then taken to one frame by the
+        principal ``s``-th root (``_hmm_fit.transition_root``) and EM continues on every
+        frame for at most ``full_rate_iter`` iterations, so the fitted model is a model of
+        every frame whatever the option. Consecutive frames of windowed features are nearly
+        the same frame, so the thinned E-steps see most of what the full ones see at ``1/s``
+        of the cost. None (default): EM on every frame. The stride is lowered when the
+        thinned frames would be too few for the states (``frames_needed``).
+    full_rate_iter : int
+        With ``fit_rate``: most EM iterations on every frame after the thinned fit (it stops
+        earlier at ``tol``; at most ``n_iter``). 0: the thinned fit's states with the rooted
+        transitions (one E-step on every frame gives the log-likelihood).
     engine : {"fast", "hmmlearn"}
         Own numba/BLAS kernels, or hmmlearn's EM (reference path). Decoding is always fast.
     n_jobs : int or None
@@ -180,12 +201,14 @@ class GaussianHMM(BaseEstimator):
     Attributes
     ----------
     means_ (K, D), covars_ (K, D, D), startprob_ (K,), transmat_ (K, K), n_states_,
-    n_features_in_, log_likelihood_ (per frame of the fit data, best restart),
+    n_features_in_, log_likelihood_ (per frame of the fit data, best restart; with
+    ``fit_rate``, of every frame of it), fit_stride_ (every how many frames EM first read),
     restart_log_likelihoods_ (n_restarts, or fewer with ``screening="once"``; then one per
-    ``init_models``), n_iter_, converged_, covariance_floor_,
-    n_fit_frames_, random_seed_; with ``session_offsets``: ``session_offsets_`` (n_sessions,
-    D) of the fitted sessions, ``offset_columns_``, ``offset_spread_`` and
-    ``offset_precision_`` (the prior precision of a session's offset on those columns).
+    ``init_models``), n_iter_ (thinned and full-rate iterations together), converged_,
+    covariance_floor_, n_fit_frames_, random_seed_; with ``session_offsets``:
+    ``session_offsets_`` (n_sessions, D) of the fitted sessions, ``offset_columns_``,
+    ``offset_spread_`` and ``offset_precision_`` (the prior precision of a session's offset
+    on those columns).
 
     Examples
     --------
@@ -211,6 +234,8 @@ class GaussianHMM(BaseEstimator):
         init_candidates: int = 8,
         screening: str = "each_restart",
         fit_max_frames: int | None = 200_000,
+        fit_rate: float | None = None,
+        full_rate_iter: int = 100,
         n_jobs: int | None = None,
         engine: str = "fast",
         random_state: int | None = 0,
@@ -231,6 +256,8 @@ class GaussianHMM(BaseEstimator):
         self.init_candidates = init_candidates
         self.screening = screening
         self.fit_max_frames = fit_max_frames
+        self.fit_rate = fit_rate
+        self.full_rate_iter = full_rate_iter
         self.n_jobs = n_jobs
         self.engine = engine
         self.random_state = random_state
@@ -293,12 +320,18 @@ class GaussianHMM(BaseEstimator):
         offset = X_fit.mean(axis=0)
         X_fit = X_fit - offset  # centred: better conditioned sufficient statistics
         n_fit = len(X_fit)
-        sticky = sticky_transmat(K, self.expected_bout_s, self.fps)
+        # EM on every stride-th frame (fit_rate), then EM at the full rate from its result
+        stride = _usable_stride(X_fit, fit_lengths, fit_stride(self.fps, self.fit_rate), needed, K)
+        X_em, em_lengths = thin_frames(X_fit, fit_lengths, stride)
+        thin = self if stride == 1 else _at_stride(self, stride)  # the model of the thinned rate
+        sticky = sticky_transmat(K, self.expected_bout_s, thin.fps)
         start_counts = np.full(K, 1.0 / K)  # one pseudo-sequence spread over the states
-        trans_counts = (
-            0.0 if self.expected_bout_s is None else self.persistence_strength * n_fit / K * sticky
-        )
         persistence = 0.0 if self.expected_bout_s is None else (self.persistence_strength / K)
+        trans_counts = _prior_counts(self, len(X_em), sticky)
+        if stride > 1:
+            starts = [
+                {**s, "transmat": np.linalg.matrix_power(s["transmat"], stride)} for s in starts
+            ]
         bar = tqdm(
             total=self.n_restarts + len(starts), desc="HMM restarts", disable=not self.progress
         )
@@ -307,50 +340,67 @@ class GaussianHMM(BaseEstimator):
             # one screening for every restart, on restart 0's random stream
             with one_thread():
                 screened = screened_starts(
-                    self, X_fit, fit_lengths, K, sticky, start_counts, persistence,
+                    thin, X_em, em_lengths, K, sticky, start_counts, persistence,
                     np.random.default_rng(seeds[1]), bar, self.n_restarts, self.n_jobs,
                 )  # fmt: skip
             n_usual = len(screened)
             bar.total = n_usual + len(starts)
         n_runs = n_usual + len(starts)
-        # the frames' covariance and products, once for every restart's EM on X_fit
+        # the frames' covariance and products, once for every restart's EM on X_em
         own_em = self.engine == "fast" or starts
-        shared = fit_frames(X_fit, self.covariance_type) if own_em else None
+        shared = fit_frames(X_em, self.covariance_type) if own_em else None
+        full_rate, polish = None, min(int(self.full_rate_iter), int(self.n_iter))
+        if stride > 1:
+            full_sticky = sticky_transmat(K, self.expected_bout_s, self.fps)
+            full_rate = {
+                "sticky": full_sticky,
+                "trans_counts": _prior_counts(self, n_fit, full_sticky),
+                "shared": fit_frames(X_fit, self.covariance_type),
+            }
 
-        def restart(r: int) -> dict[str, Any]:
+        def thinned(r: int) -> dict[str, Any]:
             if r >= n_usual:  # warm start: EM from a fitted model's parameters
                 given = starts[r - n_usual]
                 start = {**given, "means": given["means"] - offset}
-                res = em(
-                    self, X_fit, fit_lengths, start["means"], sticky, start_counts,
+                return em(
+                    thin, X_em, em_lengths, start["means"], sticky, start_counts,
                     trans_counts, bar, start=start, shared=shared,
                 )  # fmt: skip
-                bar.update(1)
-                return res
             rng = np.random.default_rng(seeds[r + 1])
             if screened:  # continue the r-th best candidate of the shared screening
-                res = em(
-                    self, X_fit, fit_lengths, screened[r]["means"], sticky, start_counts,
+                return em(
+                    thin, X_em, em_lengths, screened[r]["means"], sticky, start_counts,
                     trans_counts, bar, start=screened[r], shared=shared,
                 )  # fmt: skip
-            elif self.engine == "hmmlearn":
-                res = fit_with_hmmlearn(
-                    self, X_fit, fit_lengths, sticky, start_counts, trans_counts, rng
+            if self.engine == "hmmlearn":
+                return fit_with_hmmlearn(
+                    thin, X_em, em_lengths, sticky, start_counts, trans_counts, rng
                 )
-            elif self.init_candidates > 1:
+            if self.init_candidates > 1:
                 start = screened_start(
-                    self, X_fit, fit_lengths, K, sticky, start_counts, persistence, rng, bar
+                    thin, X_em, em_lengths, K, sticky, start_counts, persistence, rng, bar
                 )
-                res = em(
-                    self, X_fit, fit_lengths, start["means"], sticky, start_counts,
+                return em(
+                    thin, X_em, em_lengths, start["means"], sticky, start_counts,
                     trans_counts, bar, start=start, shared=shared,
                 )  # fmt: skip
-            else:
-                means = initial_means(X_fit, K, self.init, rng)
+            means = initial_means(X_em, K, self.init, rng)
+            return em(
+                thin, X_em, em_lengths, means, sticky, start_counts, trans_counts, bar,
+                shared=shared,
+            )  # fmt: skip
+
+        def restart(r: int) -> dict[str, Any]:
+            res = thinned(r)
+            if full_rate is not None:  # the full-rate model: EM on every frame from res
+                start = {**res, "transmat": transition_root(res["transmat"], stride)}
+                iterations = res["n_iter"]
                 res = em(
-                    self, X_fit, fit_lengths, means, sticky, start_counts, trans_counts, bar,
-                    shared=shared,
+                    self, X_fit, fit_lengths, start["means"], full_rate["sticky"], start_counts,
+                    full_rate["trans_counts"], bar, n_iter=polish, start=start,
+                    shared=full_rate["shared"],
                 )  # fmt: skip
+                res["n_iter"] += iterations
             bar.update(1)
             return res
 
@@ -374,6 +424,7 @@ class GaussianHMM(BaseEstimator):
         self.converged_ = bool(best["converged"])
         self.covariance_floor_ = float(self.min_covar)
         self.n_fit_frames_ = int(n_fit)
+        self.fit_stride_ = int(stride)
         self.random_seed_ = seed
         if self.session_offsets:
             self.session_offsets_ = np.zeros((len(lengths), X.shape[1]))
@@ -676,3 +727,30 @@ def _check_fitted_arrays(fitted: dict[str, np.ndarray]) -> None:
     symmetric = np.allclose(covars, np.swapaxes(covars, 1, 2), rtol=1e-8, atol=1e-12)
     if not symmetric or (np.linalg.eigvalsh(covars).min(initial=np.inf) <= 0):
         raise InputError("GaussianHMM state: 'covars' must be symmetric positive definite matrices")
+
+
+def _prior_counts(model: GaussianHMM, n_frames: int, sticky: np.ndarray) -> np.ndarray | float:
+    """Pseudo-transitions of the persistence prior for a fit of ``n_frames`` (module doc)."""
+    if model.expected_bout_s is None:
+        return 0.0
+    return model.persistence_strength * n_frames / model.n_states * sticky
+
+
+def _usable_stride(X: np.ndarray, lengths: np.ndarray, stride: int, needed: int, K: int) -> int:
+    """``stride``, or the largest smaller one that leaves enough frames (``frames_needed``)
+    and at least ``K`` distinct frames for the fit."""
+    while stride > 1:
+        thin, _ = thin_frames(X, lengths, stride)
+        if len(thin) >= needed and distinct_rows_at_least(thin, K):
+            break
+        stride -= 1
+    return stride
+
+
+def _at_stride(model: GaussianHMM, stride: int) -> GaussianHMM:
+    """A copy of ``model``'s parameters describing every ``stride``-th frame (its rate, and
+    the stride for the screening's budget of frames): what EM on thinned frames reads."""
+    em = copy.copy(model)
+    em.fps = model.fps / stride
+    em._em_stride = stride
+    return em

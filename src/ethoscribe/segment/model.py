@@ -209,7 +209,9 @@ class BehaviourModel(BaseEstimator):
         ``warm_start``: True adds to the final fit two restarts started from the count's two
         quick fits of the chosen count (``GaussianHMM.fit(..., init_models=...)``). Off by
         default: on the validation bench (seed 0) it did not pay (see benchmarks/README.md,
-        "Fast by default").
+        "Fast by default"). ``fit_rate``: the quick fits' EM on thinned frames (the HMM's
+        ``fit_rate``; the segmenter's own ``fit_rate`` applies to the final fit and the
+        stability refits only).
     causal : bool
         Fit and label through the causal path, for a model meant for closed-loop use
         (:class:`~ethoscribe.segment.streaming.StreamingLabeller`): causal cleaning (past frames
@@ -325,7 +327,7 @@ class BehaviourModel(BaseEstimator):
                 f"got {seen!r}"
             )
 
-        allowed = {"max_frames", "stop_after", "rule", "heldout", "warm_start"}
+        allowed = {"max_frames", "stop_after", "rule", "heldout", "warm_start", "fit_rate"}
         options = self.state_count_options
         if options is not None and (not isinstance(options, Mapping) or set(options) - allowed):
             raise InputError(

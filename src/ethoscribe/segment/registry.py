@@ -250,7 +250,15 @@ register(
         # (ARI 0.79 against 0.80 with four on the 54,000-frame example study, a third of the
         # CPU) and short quick fits for the state count; the stability refits are full fits.
         options={"n_restarts": 2},
-        quick_options={"n_restarts": 1, "n_iter": 25, "init_candidates": 2, "fit_max_frames": None},
+        # The quick fits read every frame unless the count's own fit_rate says otherwise
+        # (BehaviourModel.state_count_options): the count moved when they were thinned.
+        quick_options={
+            "n_restarts": 1,
+            "n_iter": 25,
+            "init_candidates": 2,
+            "fit_max_frames": None,
+            "fit_rate": None,
+        },
         stability_options={"progress": False},
         posteriors=True,
         streaming="ethoscribe.segment.streaming_hmm:HMMFilter",

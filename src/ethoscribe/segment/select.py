@@ -538,6 +538,7 @@ def choose_n_states(
     stop_after: int | None = STOP_AFTER,
     rule: str = "elbow",
     heldout: str = "sessions",
+    fit_rate: float | None = None,
 ) -> StateCountSelection:
     """The automatic state count of ``BehaviourModel``: the held-out elbow, fitted quickly.
 
@@ -577,6 +578,9 @@ def choose_n_states(
         states, whatever the behaviours. "blocks": blocks alternating inside every sequence
         (about n_frames/20 frames each), so both folds see every animal and the curve asks how
         well states found at some times fit other times. One sequence always uses blocks.
+    fit_rate : float or None
+        The quick fits' EM on thinned frames (``GaussianHMM(fit_rate=...)``); None: every
+        frame, whatever the model's own ``fit_rate`` (the method's ``quick_options``).
 
     Examples
     --------
@@ -590,6 +594,8 @@ def choose_n_states(
     # One block per session (blocks as long as the whole budget), as many sessions as fit.
     X, lengths = take_blocks(X, lengths, max_frames, max_frames or len(X), rng)
     params = {**dict(model_params or {}), **get_segmenter(method).quick_options}
+    if fit_rate is not None:
+        params["fit_rate"] = fit_rate
     if heldout not in ("sessions", "blocks"):
         raise InputError(f"heldout must be 'sessions' or 'blocks'; got {heldout!r}")
     if len(lengths) < 2:
