@@ -198,3 +198,15 @@ def test_behaviour_model_reaches_the_option():
     meta, arrays = model.to_state()
     again = BehaviourModel.from_state(json.loads(json.dumps(meta)), arrays)
     assert again.label(sessions)["state"].equals(table["state"])
+
+
+def test_one_session_fits_and_labels_as_without_offsets():
+    # One session shows no spread between individuals: the fit is the plain one (same EM, same
+    # seed) and labelling adds no offset, on that session or a new one.
+    X, _, lengths, _ = _sessions(seed=2, n_sessions=1, n_frames=1200)
+    params = dict(n_states=3, fps=30.0, n_restarts=1, random_state=0, n_jobs=1)
+    plain = GaussianHMM(**params).fit(X, lengths)
+    model = GaussianHMM(**params, session_offsets=True).fit(X, lengths)
+    np.testing.assert_array_equal(model.means_, plain.means_)
+    assert model.offset_spread_ == 0.0 and not model.session_offsets_.any()
+    assert np.array_equal(model.predict(X + 0.5), plain.predict(X + 0.5))

@@ -292,7 +292,10 @@ class GaussianHMM(BaseEstimator):
         seeds = np.random.SeedSequence(seed).spawn(self.n_restarts + 1)
         block = max(100, round(60.0 * self.fps))
         rng_blocks = np.random.default_rng(seeds[0])
-        if self.session_offsets:
+        # One session: an offset is a shift of every state mean, nothing to estimate
+        with_offsets = self.session_offsets and len(lengths) >= 2
+        columns = offset_columns(self.offset_columns, X.shape[1]) if self.session_offsets else None
+        if with_offsets:
             X_fit, fit_lengths, fit_sessions = take_session_blocks(
                 X, lengths, self.fit_max_frames, block, rng_blocks
             )
@@ -428,11 +431,14 @@ class GaussianHMM(BaseEstimator):
         self.random_seed_ = seed
         if self.session_offsets:
             self.session_offsets_ = np.zeros((len(lengths), X.shape[1]))
-            found = best["offsets"]
-            self.session_offsets_[: len(found)] = found
-            self.offset_columns_ = offset_columns(self.offset_columns, X.shape[1])
-            self.offset_spread_ = float(best["offset_spread"])
-            self.offset_precision_ = np.array(best["offset_precision"], dtype=np.float64)
+            self.offset_columns_ = columns
+            # fitted on one session: no spread of individuals was seen, new sessions get 0
+            self.offset_spread_ = float(best["offset_spread"]) if with_offsets else 0.0
+            self.offset_precision_ = np.zeros((len(columns), len(columns)))
+            if with_offsets:
+                found = best["offsets"]
+                self.session_offsets_[: len(found)] = found
+                self.offset_precision_ = np.array(best["offset_precision"], dtype=np.float64)
         return self
 
     # ---------------------------------------------------------------------------- decoding
@@ -652,8 +658,8 @@ def _offsets_from_state(model: GaussianHMM, meta: Mapping[str, Any], arrays) -> 
     what = "GaussianHMM state (session_offsets)"
     needed = ("session_offsets", "offset_columns", "offset_precision")
     missing = [k for k in needed if k not in arrays]
-    if missing or not (is_real(meta.get("offset_spread")) and meta["offset_spread"] > 0):
-        msg = f"{what}: arrays {missing} or 'offset_spread' (> 0) missing; save the model again"
+    if missing or not (is_real(meta.get("offset_spread")) and meta["offset_spread"] >= 0):
+        msg = f"{what}: arrays {missing} or 'offset_spread' (>= 0) missing; save the model again"
         raise InputError(msg)
     cols = np.asarray(arrays["offset_columns"], dtype=np.float64).ravel()
     ok_cols = len(cols) and np.all(cols == np.round(cols)) and cols.min() >= 0 and cols.max() < D

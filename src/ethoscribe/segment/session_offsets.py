@@ -37,8 +37,9 @@ their centring, and ``psi = sum_s (b_s^T W b_s + tr(W V_s)) / ((n_sessions - 1) 
 
 **Labelling.** A session the model did not see gets its MAP offset by EM with every other
 parameter fixed (at most ``LABEL_ITER`` iterations from ``b = 0``), then is decoded on
-``x_t - b``. The causal (streaming) path cannot see a session's future: it uses ``b = 0``, the
-typical individual.
+``x_t - b``. A model fitted on one session saw no spread between individuals: it is fitted and
+labels as without offsets (``offset_spread_ = 0``). The causal (streaming) path cannot see a
+session's future: it uses ``b = 0``, the typical individual.
 """
 
 from __future__ import annotations
@@ -251,7 +252,7 @@ def label_offsets(model, X: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     sequence_session = np.arange(n)
     frame_session = np.repeat(sequence_session, lengths)
     b = np.zeros((n, X.shape[1]))
-    if len(X) == 0:
+    if len(X) == 0 or model.offset_spread_ == 0:  # fitted on one session: offsets 0
         return b
     W = within_precision(model.covars_, np.ones(model.n_states_), columns)
     scale = np.sqrt(np.maximum(np.diag(W), 0.0))  # per column: 1 / within-state SD
