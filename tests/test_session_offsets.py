@@ -210,3 +210,13 @@ def test_one_session_fits_and_labels_as_without_offsets():
     np.testing.assert_array_equal(model.means_, plain.means_)
     assert model.offset_spread_ == 0.0 and not model.session_offsets_.any()
     assert np.array_equal(model.predict(X + 0.5), plain.predict(X + 0.5))
+
+
+def test_offsets_with_thinned_frames(planted):
+    # EM first on every 3rd frame (fit_rate=10 of 30 fps), then on every frame: the offsets
+    # carry through both stages and come back as without thinning.
+    X, _, lengths, offsets, _, _ = planted
+    params = dict(n_states=3, fps=30.0, n_restarts=1, random_state=0, n_jobs=1)
+    model = GaussianHMM(**params, session_offsets=True, fit_rate=10.0).fit(X, lengths)
+    assert model.fit_stride_ == 3
+    np.testing.assert_allclose(model.session_offsets_, offsets, atol=0.05)
