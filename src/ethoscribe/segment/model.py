@@ -130,6 +130,9 @@ class BehaviourModel(BaseEstimator):
         usually named; each candidate costs two quick fits.
     segmenter : dict, optional
         Extra keyword parameters of the segmenter (e.g. ``expected_bout_s`` for the HMM).
+        The HMM gives every session (every animal of a session) an offset of its state means
+        by default (``{"session_offsets": False}`` turns it off; causal models keep it off:
+        :mod:`ethoscribe.segment.session_offsets`).
         With ``method="grouped_hmm"`` and ``{"group_rule": "phases"}`` the phase-free columns
         (``steady_columns``) are the band amplitudes unless given (:func:`steady_columns`).
     min_bout_s : float
@@ -347,12 +350,20 @@ class BehaviourModel(BaseEstimator):
             return self.cleaning
         return CleanParams.from_dict(self.cleaning or {})
 
+    def _segmenter_options(self) -> dict[str, Any]:
+        """The user's segmenter options; a causal model keeps per-session offsets off unless
+        asked (the causal path labels with offset 0, so its states must cover individuals)."""
+        options = dict(self.segmenter or {})
+        if self.causal and "session_offsets" in get_segmenter(self.method).options:
+            options.setdefault("session_offsets", False)
+        return options
+
     def _make_segmenter(
         self, n_states: int | str, fps: float, seed: int | None, columns: Sequence[str] = ()
     ) -> Any:
         spec = get_segmenter(self.method)
         lo, hi = self.state_range
-        options = dict(self.segmenter or {})
+        options = self._segmenter_options()
         if options.get("group_rule") == "phases" and options.get("steady_columns") is None:
             # Phases of one rhythm share what does not change with the phase: band amplitudes.
             options["steady_columns"] = steady_columns(columns)
@@ -432,7 +443,7 @@ class BehaviourModel(BaseEstimator):
                 X,
                 lengths,
                 candidates=range(lo, hi + 1),
-                model_params={"fps": fps_value, **(self.segmenter or {})},
+                model_params={"fps": fps_value, **self._segmenter_options()},
                 random_state=seed,
                 progress=self.progress,
                 method=self.method,
