@@ -43,12 +43,23 @@ def _digest(states: np.ndarray) -> str:
 # Recorded with the code from before the registry (commit "Readers and cleaning options reach
 # discover ..."), seed 7, and the same after it; re-recorded once when lost keypoints began to
 # be filled from the body-shape model (commit "Frames with lost keypoints are scored ..."), an
-# intended change of the labels. Update only for an intended change, naming it here.
+# intended change of the labels; and once when the HMM began to give every session an offset
+# of its state means by default (commit "Per-session offsets in the HMM by default ..."): the
+# labels without offsets are kept in PLAIN_HMM. Update only for an intended change, naming it.
 RECORDED = {
-    "hmm": "7337f07d935e2abc",
+    "hmm": "41baae9fd6a3cac6",
     "changepoint": "1d7eb01141770771",
     "prediction_error": "4a720ad1951d2d00",
 }
+
+
+PLAIN_HMM = "7337f07d935e2abc"  # the HMM without session offsets, as recorded before them
+
+
+def test_labels_without_session_offsets_are_unchanged(sessions):
+    extra = {**QUICK, "session_offsets": False}
+    model = BehaviourModel(n_states=3, segmenter=extra, random_state=7)
+    assert _digest(model.fit(sessions).label(sessions)["state"].to_numpy()) == PLAIN_HMM
 
 
 @pytest.mark.parametrize("method", sorted(RECORDED))
