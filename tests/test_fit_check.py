@@ -26,6 +26,7 @@ from ethoscribe.segment.model import (
     BehaviourModel,
     best_state_log_likelihood,
     poor_fit_threshold,
+    poorly_fitted,
 )
 from ethoscribe.simulate import simulate_session
 from ethoscribe.workspace import label_sessions
@@ -95,9 +96,28 @@ def test_label_warns_for_larger_animals_not_for_the_training_kind(fitted):
         warnings.simplefilter("error", InputWarning)  # no warning for animals like the training
         fitted.label([same])
     feats, _ = fitted.transform_features([same, _bigger(same, "big")])
-    shares = {r["session"]: r["share"] for r in fitted.fit_shares(feats)}
-    assert shares["same"] < POOR_FIT_WARN_SHARE
-    assert shares["big"] > POOR_FIT_WARN_SHARE
+    records = {r["session"]: r for r in fitted.fit_shares(feats)}
+    assert records["same"]["share"] < POOR_FIT_WARN_SHARE
+    assert [r["session"] for r in poorly_fitted(list(records.values()))] == ["big"]
+    # With session offsets (the HMM's default) most of what a 20 % larger animal changes is
+    # the level of its features: its offset, far beyond the training animals' (squared
+    # distance 266 against a limit of 83, 'same' 58), while 10 % of its frames stay poorly
+    # explained after it (17 % without offsets, tested below).
+    big = records["big"]
+    assert big["offset_distance"] > big["offset_limit"] > records["same"]["offset_distance"]
+    with pytest.warns(InputWarning, match=r"session 'big': its feature levels .*px_per_unit"):
+        fitted.label([_bigger(same, "big")])
+
+
+def test_without_offsets_the_larger_animal_is_explained_worse_frame_by_frame():
+    tracks = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    plain = {**QUICK, "session_offsets": False}
+    fitted = BehaviourModel(n_states=4, segmenter=plain).fit(tracks)
+    same = simulate_session(duration_s=60, seed=5, session="same")[0]
+    feats, _ = fitted.transform_features([same, _bigger(same, "big")])
+    records = {r["session"]: r for r in fitted.fit_shares(feats)}
+    assert records["same"]["share"] < POOR_FIT_WARN_SHARE < records["big"]["share"]
+    assert "offset_distance" not in records["big"]
     with pytest.warns(InputWarning, match=r"session 'big': the model explains \d+% .*px_per_unit"):
         fitted.label([_bigger(same, "big")])
 

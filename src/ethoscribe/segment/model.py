@@ -65,6 +65,10 @@ DECODINGS = ("min_duration", "merge")
 # independent draws, and Binomial(100, 0.01) exceeds 10 of them with probability < 1e-7.
 POOR_FIT_PERCENTILE = 1.0
 POOR_FIT_WARN_SHARE = 0.10
+# With session offsets (segment.session_offsets) a session is also flagged when its offset is
+# beyond what one individual in a thousand like the training ones would show: its squared
+# distance under the offsets' prior above the chi-square quantile of 1 - POOR_FIT_OFFSET_TAIL.
+POOR_FIT_OFFSET_TAIL = 1e-3
 
 
 def motif_name(state: int) -> str:
@@ -487,7 +491,7 @@ class BehaviourModel(BaseEstimator):
         self.quality_ = list(quality)
         self.training_sessions_ = [s.session for s in sessions]
         self.n_training_frames_ = int(lengths.sum())
-        self.poor_fit_threshold_ = poor_fit_threshold(segmenter, X)
+        self.poor_fit_threshold_ = poor_fit_threshold(segmenter, X, lengths)
         return feats
 
     def _phase_groups(
@@ -656,20 +660,32 @@ class BehaviourModel(BaseEstimator):
         threshold = getattr(self, "poor_fit_threshold_", None)
         if threshold is None:
             return []
+        seg = self.segmenter_
+        with_offsets = bool(getattr(seg, "session_offsets", False))
         counts: dict[str, list[int]] = {}
+        distance: dict[str, float] = {}
         for f in feats:
             n, poor = counts.setdefault(str(f.session), [0, 0]), 0
             if f.valid.any():
-                ll = best_state_log_likelihood(self.segmenter_, f.values[f.valid])
+                values = f.values[f.valid]
+                b = seg.offsets(values, [len(values)]) if with_offsets else None
+                ll = best_state_log_likelihood(seg, values, [len(values)], b)
                 if ll is None:
                     return []
                 poor = int(np.count_nonzero(ll < threshold))
+                if b is not None:
+                    d2 = offset_distance(seg, b[0])
+                    distance[str(f.session)] = max(distance.get(str(f.session), 0.0), d2)
             n[0] += int(np.count_nonzero(f.valid))
             n[1] += poor
+        limit = offset_limit(seg) if with_offsets else None
         return [
-            {"session": s, "n_frames": n, "n_poor": k, "share": k / n if n else None}
+            {
+                "session": s, "n_frames": n, "n_poor": k, "share": k / n if n else None,
+                **({"offset_distance": distance.get(s), "offset_limit": limit} if limit else {}),
+            }
             for s, (n, k) in counts.items()
-        ]
+        ]  # fmt: skip
 
     def _fine_states(self, X: np.ndarray, lengths: np.ndarray) -> np.ndarray | None:
         """Fine state of every valid frame when the labels are groups of fine states (a
@@ -942,10 +958,17 @@ def check_one_rate(rates: Iterable[float]) -> None:
         )
 
 
-def best_state_log_likelihood(segmenter: Any, X: np.ndarray) -> np.ndarray | None:
+def best_state_log_likelihood(
+    segmenter: Any,
+    X: np.ndarray,
+    lengths: Sequence[int] | None = None,
+    offsets: np.ndarray | None = None,
+) -> np.ndarray | None:
     """Per frame, ``max_k log N(x | mean_k, cov_k)``: the log-density of the fitted Gaussian
     state that explains the frame best (the fine states of a grouped model), shape (n,);
-    None for a segmenter without Gaussian states."""
+    None for a segmenter without Gaussian states. A segmenter with session offsets reads each
+    session's frames (``lengths``) minus its offset (``offsets``, estimated if not given), as
+    it labels them."""
     seg = getattr(segmenter, "fine_", segmenter)
     means, covars = getattr(seg, "means_", None), getattr(seg, "covars_", None)
     kind = getattr(seg, "covariance_type", None)
@@ -956,22 +979,66 @@ def best_state_log_likelihood(segmenter: Any, X: np.ndarray) -> np.ndarray | Non
     X = np.asarray(X, dtype=np.float64)
     if not len(X):
         return np.zeros(0)
+    if getattr(seg, "session_offsets", False):
+        lengths = np.asarray([len(X)] if lengths is None else lengths, dtype=np.int64)
+        offsets = seg.offsets(X, lengths) if offsets is None else offsets
+        X = X - np.repeat(offsets, lengths, axis=0)
     return GaussianEmission(means, covars, kind).log_likelihood(X).max(axis=1)
 
 
-def poor_fit_threshold(segmenter: Any, X: np.ndarray) -> float | None:
+def poor_fit_threshold(
+    segmenter: Any, X: np.ndarray, lengths: Sequence[int] | None = None
+) -> float | None:
     """The 1st percentile (``POOR_FIT_PERCENTILE``) of the training frames' best-state
     log-likelihood (:func:`best_state_log_likelihood`); None without Gaussian states."""
-    ll = best_state_log_likelihood(segmenter, X)
+    ll = best_state_log_likelihood(segmenter, X, lengths)
     if ll is None or not len(ll):
         return None
     return float(np.percentile(ll, POOR_FIT_PERCENTILE))
 
 
+def offset_distance(segmenter: Any, offset: np.ndarray) -> float:
+    """``b^T P_0 b`` of one session's offset under the prior of the training individuals'
+    offsets (:mod:`ethoscribe.segment.session_offsets`): about chi-square with one degree of
+    freedom per offset column for an individual like those."""
+    cols = np.asarray(segmenter.offset_columns_, dtype=np.int64)
+    b = np.asarray(offset, dtype=np.float64)[cols]
+    return float(b @ segmenter.offset_precision_ @ b)
+
+
+def offset_limit(segmenter: Any) -> float | None:
+    """The largest :func:`offset_distance` of an individual like the training ones, but for
+    one in ``1 / POOR_FIT_OFFSET_TAIL``; None for a model fitted on one session.
+
+    The prior's spread is estimated from the training offsets: ``(n_sessions - 1) * m``
+    squared whitened components for ``m`` offset columns. A new individual's distance over
+    ``m`` is then an F(m, (n_sessions - 1) m) variable (a ratio of two independent
+    chi-square means), so the limit is ``m`` times its ``1 - POOR_FIT_OFFSET_TAIL``
+    quantile: wide when few individuals were seen, the chi-square quantile with many.
+    """
+    if float(getattr(segmenter, "offset_spread_", 0.0)) <= 0:
+        return None
+    from scipy.stats import f as f_dist
+
+    m = len(segmenter.offset_columns_)
+    seen = max(len(segmenter.session_offsets_) - 1, 1) * m
+    return float(m * f_dist.ppf(1.0 - POOR_FIT_OFFSET_TAIL, m, seen))
+
+
+def _offset_unlike(r: Mapping[str, Any]) -> bool:
+    d2, limit = r.get("offset_distance"), r.get("offset_limit")
+    return d2 is not None and limit is not None and d2 > limit
+
+
 def poorly_fitted(shares: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]]:
     """The records of :meth:`BehaviourModel.fit_shares` whose share of poorly explained frames
-    is above ``POOR_FIT_WARN_SHARE`` (the sessions to warn about)."""
-    return [r for r in shares if r.get("share") is not None and r["share"] > POOR_FIT_WARN_SHARE]
+    is above ``POOR_FIT_WARN_SHARE``, or whose offset (with session offsets) lies beyond
+    ``offset_limit`` (the sessions to warn about)."""
+    return [
+        r
+        for r in shares
+        if (r.get("share") is not None and r["share"] > POOR_FIT_WARN_SHARE) or _offset_unlike(r)
+    ]
 
 
 def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel) -> list[str]:
@@ -986,15 +1053,29 @@ def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel
             "the model was saved before it kept the fit threshold, so how well it explains the "
             "new sessions is not checked; fit it again (discover) to have the check"
         ]
-    return [
-        f"session '{r['session']}': the model explains {r['share']:.0%} of its frames worse "
-        f"than the worst 1 % of its own training frames (about 1 % expected), so look at "
-        f"its bouts before trusting its labels; likely the body size or camera scale "
-        f"differs from training (check units and px_per_unit in the manifest) or the "
-        f"behaviour is new: refit with these sessions included (ethoscribe discover), or "
-        f"in Python fit with features={{'scale_by_size': True}}"
-        for r in poorly_fitted(shares)
-    ]
+    return [_poor_fit_line(r) for r in poorly_fitted(shares)]
+
+
+def _poor_fit_line(r: Mapping[str, Any]) -> str:
+    """The warning of one poorly fitted session (record of ``fit_shares``)."""
+    if r.get("share") is not None and r["share"] > POOR_FIT_WARN_SHARE:
+        what = (
+            f"the model explains {r['share']:.0%} of its frames worse than the worst 1 % of "
+            "its own training frames (about 1 % expected)"
+        )
+    else:
+        what = (
+            "its feature levels are offset from the training individuals' far more than "
+            f"theirs differ (squared distance {r['offset_distance']:.0f}; "
+            f"{1 - POOR_FIT_OFFSET_TAIL:.1%} of individuals like them stay below "
+            f"{r['offset_limit']:.0f})"
+        )
+    return (
+        f"session '{r['session']}': {what}, so look at its bouts before trusting its labels; "
+        "likely the body size or camera scale differs from training (check units and "
+        "px_per_unit in the manifest) or the behaviour is new: refit with these sessions "
+        "included (ethoscribe discover), or in Python fit with features={'scale_by_size': True}"
+    )
 
 
 def _fixed_speed(cleaned: Sequence[PoseTracks]) -> float | None:
