@@ -144,3 +144,19 @@ def test_the_count_thins_only_when_told():
     )
     assert {m.fit_stride_ for pair in thin.fold_models.values() for m in pair} == {3}
     assert thin.best == plain.best == K
+
+
+@pytest.mark.parametrize(
+    "options",
+    [
+        {"thin_screening": True},
+        {"screening": "once"},
+        {"screening": "once", "thin_screening": True},
+    ],
+)
+def test_every_screening_recovers_the_states(options):
+    X, truth, lengths = sample_sticky_hmm(seed=16, n_states=4, lengths=(1200,) * 3, stay=0.98)
+    m = GaussianHMM(4, fps=30.0, n_restarts=2, fit_rate=10.0, **options).fit(X, lengths)
+    assert m.fit_stride_ == 3
+    # the simulation's states (scikit-learn's ARI)
+    assert adjusted_rand_score(truth, m.predict(X, lengths)) > 0.98

@@ -168,21 +168,26 @@ class GaussianHMM(BaseEstimator):
         ``fps / s`` (``p = 1 - s/(expected_bout_s * fps)``, the prior's weight from the
         thinned frame count). The starting points are screened on every frame of the usual
         screening sample (``thin_screening``) and continued on the thinned frames. Its
-        transition matrix is then taken to one frame by the
-        principal ``s``-th root (``_hmm_fit.transition_root``) and EM continues on every
-        frame for at most ``full_rate_iter`` iterations, so the fitted model is a model of
-        every frame whatever the option. Consecutive frames of windowed features are nearly
+        transition matrix is then taken to one frame by the principal ``s``-th root
+        (``_hmm_fit.transition_root``) and EM continues on every frame for at most
+        ``full_rate_iter`` iterations, so the fitted model is a model of every frame
+        whatever the option. Consecutive frames of windowed features are nearly
         the same frame, so the thinned E-steps see most of what the full ones see at ``1/s``
         of the cost. None (default): EM on every frame. The stride is lowered when the
-        thinned frames would be too few for the states (``frames_needed``).
+        thinned frames would be too few for the states (``frames_needed``). Not the default:
+        on the validation bench (three seeds; benchmarks/README.md, "EM on thinned frames")
+        15 with ``thin_screening=True`` kept mean ARI (0.565 -> 0.564) and boundary F1 (0.455
+        -> 0.464) and cut discover's final fit and stability refits by 40-50 % at 54,000
+        frames, but single sources moved by up to 0.11 ARI at one seed; 10 lost 0.12 ARI on
+        the independent simulator (25 fps thinned to 12.5).
     thin_screening : bool
         With ``fit_rate``: screen the starting points on the thinned frames as well (the same
         span of time in ``s`` times fewer frames). Off by default: screened on thinned frames,
         EM chose other optima than the full fit where the frame rate is an upsampling (the
-        validation bench's BasicMotions: log-likelihood per frame 2.92 against 3.23 in 6 of 8
+        validation bench's BasicMotions: log-likelihood per frame 2.92 against 3.23 in 5 of 8
         seeds) and worse ones on the independent simulator, while screened on every frame and
-        continued on thinned ones it reached the full fit's optima (benchmarks/README.md,
-        "Fast by default").
+        continued on thinned ones it reached the full fit's optima but saved only 5-20 %
+        (benchmarks/README.md, "EM on thinned frames").
     full_rate_iter : int
         With ``fit_rate``: most EM iterations on every frame after the thinned fit (it stops
         earlier at ``tol``; at most ``n_iter``). 0: the thinned fit's states with the rooted
