@@ -76,6 +76,11 @@ def test_discover_writes_the_documented_files(workspace):
     # What the run was made with: the fitting sample's budget and the covariance floor.
     assert summary["fit_frames"] == 1_000_000
     assert summary["covariance_floor"] == pytest.approx(1e-3)
+    # Per-individual offsets (the HMM's default): their spread, relative to a state's own
+    model = Workspace(p).model()
+    spread = summary["individual_offsets"]["relative_spread"]
+    assert spread == pytest.approx(np.sqrt(model.segmenter_.offset_spread_), abs=1e-4)
+    assert "own offset of the feature levels" in (p / "report.html").read_text()
     assert not list(p.glob(".incoming-*")), "staging folder left behind"
 
 

@@ -104,6 +104,14 @@ def model_section(ws: Workspace) -> Section:
         f"seed {summary.get('seed')}; {summary.get('n_sessions')} sessions, "
         f"{summary.get('n_frames')} frames ({summary.get('n_training_frames', '?')} used to fit)."
     )
+    offsets = summary.get("individual_offsets")
+    if offsets:
+        text += (
+            " Each animal of each session has its own offset of the feature levels (where a "
+            "marker sits, its proportions), estimated with the states and taken off before "
+            "labelling, so states describe behaviour rather than individuals; the offsets "
+            f"spread about {offsets['relative_spread']:.2g} of a state's own spread."
+        )
     figures, tables = [], []
     choice = summary.get("state_count_choice")
     if choice:

@@ -539,12 +539,23 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
         "n_training_frames": model.n_training_frames_,
         # Added to every state covariance's diagonal after each M-step: no singular covariance.
         "covariance_floor": getattr(model.segmenter_, "covariance_floor_", None),
+        # Each animal of each session has its own offset of the feature levels (HMM option).
+        "individual_offsets": _offsets_summary(model.segmenter_),
         "stability": None if report is None else report.summary,
         # States that alternate within bouts (PCCA+ sets of the transition matrix): advice.
         "state_tree": getattr(model, "state_tree_", None),
         "suggested_merges": model.merge_groups(),
         "caution": CAUTION,
     }
+
+
+def _offsets_summary(segmenter: Any) -> dict[str, Any] | None:
+    """The HMM's per-individual offsets: their spread in units of a state's own spread (the
+    offsets' prior is N(0, spread^2 x the within-state covariance)); None without them."""
+    if not getattr(segmenter, "session_offsets", False):
+        return None
+    spread = float(getattr(segmenter, "offset_spread_", 0.0))
+    return {"relative_spread": round(float(np.sqrt(max(spread, 0.0))), 4)}
 
 
 def _write_workspace(
