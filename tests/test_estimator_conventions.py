@@ -45,21 +45,29 @@ def _digest(states: np.ndarray) -> str:
 # be filled from the body-shape model (commit "Frames with lost keypoints are scored ..."), an
 # intended change of the labels; and once when the HMM began to give every session an offset
 # of its state means by default (commit "Per-session offsets in the HMM by default ..."): the
-# labels without offsets are kept in PLAIN_HMM. Update only for an intended change, naming it.
+# labels without offsets are kept in PLAIN_HMM; and once when the HMM's EM began on thinned
+# frames by default (commit "EM on frames thinned to 15 per second by default ..."): the labels
+# with offsets and without thinning are kept in OFFSETS_HMM. Update only for an intended
+# change, naming it.
 RECORDED = {
-    "hmm": "41baae9fd6a3cac6",
+    "hmm": "1e18980779e2e237",
     "changepoint": "1d7eb01141770771",
     "prediction_error": "4a720ad1951d2d00",
 }
 
 
 PLAIN_HMM = "7337f07d935e2abc"  # the HMM without session offsets, as recorded before them
+OFFSETS_HMM = "41baae9fd6a3cac6"  # with session offsets, EM on every frame (before thinning)
 
 
-def test_labels_without_session_offsets_are_unchanged(sessions):
-    extra = {**QUICK, "session_offsets": False}
+@pytest.mark.parametrize(
+    ("options", "recorded"),
+    [({"session_offsets": False}, PLAIN_HMM), ({}, OFFSETS_HMM)],
+)
+def test_labels_of_earlier_defaults_are_unchanged(sessions, options, recorded):
+    extra = {**QUICK, **options, "fit_rate": None}
     model = BehaviourModel(n_states=3, segmenter=extra, random_state=7)
-    assert _digest(model.fit(sessions).label(sessions)["state"].to_numpy()) == PLAIN_HMM
+    assert _digest(model.fit(sessions).label(sessions)["state"].to_numpy()) == recorded
 
 
 @pytest.mark.parametrize("method", sorted(RECORDED))

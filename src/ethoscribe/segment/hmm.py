@@ -174,20 +174,21 @@ class GaussianHMM(BaseEstimator):
         whatever the option. Consecutive frames of windowed features are nearly
         the same frame, so the thinned E-steps see most of what the full ones see at ``1/s``
         of the cost. None (default): EM on every frame. The stride is lowered when the
-        thinned frames would be too few for the states (``frames_needed``). Not the default:
-        on the validation bench (three seeds; benchmarks/README.md, "EM on thinned frames")
-        15 with ``thin_screening=True`` kept mean ARI (0.565 -> 0.564) and boundary F1 (0.455
-        -> 0.464) and cut discover's final fit and stability refits by 40-50 % at 54,000
-        frames, but single sources moved by up to 0.11 ARI at one seed; 10 lost 0.12 ARI on
-        the independent simulator (25 fps thinned to 12.5).
+        thinned frames would be too few for the states (``frames_needed``). The model's
+        "hmm" method sets 15 with ``thin_screening=True`` (segment.registry): on the
+        validation bench at three seeds mean ARI 0.575 -> 0.580 and boundary F1 0.465 ->
+        0.474, and discover's final fit and stability refits took 40-60 % less CPU at 54,000
+        frames; 10 lost 0.12 ARI on the independent simulator (25 fps thinned to 12.5)
+        (benchmarks/README.md, "EM on thinned frames").
     thin_screening : bool
         With ``fit_rate``: screen the starting points on the thinned frames as well (the same
-        span of time in ``s`` times fewer frames). Off by default: screened on thinned frames,
-        EM chose other optima than the full fit where the frame rate is an upsampling (the
-        validation bench's BasicMotions: log-likelihood per frame 2.92 against 3.23 in 5 of 8
-        seeds) and worse ones on the independent simulator, while screened on every frame and
-        continued on thinned ones it reached the full fit's optima but saved only 5-20 %
-        (benchmarks/README.md, "EM on thinned frames").
+        span of time in ``s`` times fewer frames). False: screened on every frame of the
+        screening sample and continued on thinned ones, EM reached the full fit's optima seed
+        by seed but saved only 5-20 % (the screening costs as much as the EM after it).
+        True (the "hmm" method's setting) halves the cost again; single fits then land in
+        other optima where the frame rate is an upsampling (the validation bench's
+        BasicMotions: 2.92 against 3.23 nats per frame in 5 of 8 seeds), yet the bench's
+        labels did not lose (benchmarks/README.md, "EM on thinned frames").
     full_rate_iter : int
         With ``fit_rate``: most EM iterations on every frame after the thinned fit (it stops
         earlier at ``tol``; at most ``n_iter``). 0: the thinned fit's states with the rooted
