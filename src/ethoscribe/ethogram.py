@@ -255,7 +255,7 @@ def pool_time_budgets(
     >>> lab = pd.DataFrame({"session": ["s1"] * 3 + ["s2"], "animal": "a",
     ...     "frame": [0, 1, 2, 0], "time_s": [0, .1, .2, 0], "state": [0, 0, 1, 1],
     ...     "motif": ["m1", "m1", "m2", "m2"], "probability": 1.0})
-    >>> pool_time_budgets(time_budget(lab))["fraction"].tolist()
+    >>> pool_time_budgets(time_budget(lab, fps=10.0))["fraction"].tolist()
     [0.5, 0.5]
     """
     check_columns(budgets, ("session", "animal", "motif", "n_frames", "seconds"), "time budgets")

@@ -58,7 +58,7 @@ def with_outlier_frames(log_emission: np.ndarray, share: float = OUTLIER_SHARE) 
 
     Examples
     --------
-    >>> out = with_outlier_frames(np.log([[1.0, 0.0]]), 0.1)
+    >>> out = with_outlier_frames(np.array([[0.0, -np.inf]]), 0.1)  # log-likelihoods
     >>> np.exp(out).round(3).tolist()
     [[0.95, 0.05]]
     """

@@ -318,8 +318,11 @@ def select_n_states(
     Examples
     --------
     >>> rng = np.random.default_rng(0)
-    >>> X = np.r_[rng.normal(0, 1, (300, 1)), rng.normal(8, 1, (300, 1))]
-    >>> sel = select_n_states(X, candidates=[1, 2, 3], heldout="blocks",
+    >>> # four sessions, each with bouts of two behaviours (levels 0 and 8); whole sessions
+    >>> # are held out (with the HMM's per-session offsets, a held-out block of one behaviour
+    >>> # would be explained by its own offset)
+    >>> X = np.concatenate([rng.normal(m, 1, (50, 1)) for m in (0, 8) * 12])
+    >>> sel = select_n_states(X, [300] * 4, candidates=[1, 2, 3],
     ...                       model_params={"n_restarts": 1})
     >>> sel.best
     2

@@ -46,8 +46,10 @@ def context_features(
 ) -> np.ndarray:
     """Each frame's features, then their centred moving mean and standard deviation per scale.
 
-    NaN (frames without a valid pose) are left out of the windows; a window without any valid
-    frame gives NaN. Windows never cross a sequence boundary.
+    A scale of ``w`` seconds is a window of ``2 h + 1`` frames, ``h = max(1, round(w fps / 2))``
+    (Python's rounding: 1.5 s at 2 fps is 5 frames). NaN (frames without a valid pose) are left
+    out of the windows; a window without any valid frame gives NaN. Windows never cross a
+    sequence boundary (they are cut at it).
 
     Returns
     -------
@@ -56,7 +58,7 @@ def context_features(
     Examples
     --------
     >>> context_features(np.arange(5.0)[:, None], [5], fps=2, scales_s=[1.5])[:, 1].tolist()
-    [0.5, 1.0, 2.0, 3.0, 3.5]
+    [1.0, 1.5, 2.0, 2.5, 3.0]
     """
     X = np.asarray(X, dtype=np.float64)
     starts, stops = _bounds(lengths, len(X))

@@ -374,8 +374,8 @@ def expected_time_budget(plan: BodyPlan, group: str, n_animals: int = 1) -> pd.S
     >>> plan = BODY_PLANS["dune_vole"]
     >>> b = expected_time_budget(plan, "standard")
     >>> e = expected_time_budget(plan, "enriched")
-    >>> round(float(e["digging"] / b["digging"]), 3)
-    1.5
+    >>> round(float(e["digging"] / b["digging"]), 3)  # the plan's planted time-budget ratio
+    1.8
     """
     P, durations = group_parameters(plan, group, n_animals)
     budget = _budget(P, np.array([d.mean_s for d in durations]))
