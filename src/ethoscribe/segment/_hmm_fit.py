@@ -298,13 +298,15 @@ def fit_frames(X: np.ndarray, covariance_type: str) -> dict[str, Any]:
 
 def run_em(
     model, X, lengths, means, transmat, start_counts, trans_counts, bar, n_iter=None, start=None,
-    shared=None,
+    shared=None, offsets=None,
 ) -> dict[str, Any]:  # fmt: skip
     """EM from ``means`` (shared global covariance, sticky ``transmat``) until the
     log-likelihood per frame gains less than ``model.tol`` or ``n_iter`` (default
     ``model.n_iter``) iterations; ``start`` (a result of an earlier run) resumes from its
     parameters instead. The returned log-likelihood and occupancy are those of the returned
-    parameters. ``shared``: :func:`fit_frames` of this ``X`` (computed here if not given)."""
+    parameters. ``shared``: :func:`fit_frames` of this ``X`` (computed here if not given).
+    ``offsets``: per-session offsets (``session_offsets.OffsetStep``): every E-step reads the
+    frames minus their session's offset, and every M-step is followed by the offset step."""
     K, D = means.shape
     ct, floor = model.covariance_type, float(model.min_covar)
     n_iter = int(model.n_iter if n_iter is None else n_iter)
@@ -318,11 +320,16 @@ def run_em(
     if start is not None:
         means, covars = start["means"].copy(), start["covars"].copy()
         startprob, transmat = start["startprob"].copy(), start["transmat"].copy()
+    # the frames move with the offsets: no products kept for them
+    products = shared["products"] if offsets is None else None
+    if offsets is not None:
+        offsets.begin(covars, start)
     reseeds = np.zeros(K, dtype=int)
     prev, converged, n_done = -np.inf, False, 0
     work = e_step_buffers(len(X), K)
     for it in range(n_iter + 1):
-        fb = gaussian_posteriors(X, lengths, startprob, transmat, means, covars, ct, work)
+        Xc = X if offsets is None else offsets.frames(X)
+        fb = gaussian_posteriors(Xc, lengths, startprob, transmat, means, covars, ct, work)
         ll = float(fb.log_likelihood.sum()) / len(X)
         if not np.isfinite(ll):
             msg = (
@@ -335,22 +342,25 @@ def run_em(
             converged = it > 0 and ll - prev < model.tol
             occupancy = fb.gamma.sum(axis=0)  # the statistics' post; no M-step follows
             break
-        stats = statistics_from(X, fb, ct, shared["products"])
+        stats = statistics_from(Xc, fb, ct, products)
         prev, old = ll, (means, covars)
         new = gaussian_m_step(stats, ct, floor, start_counts, trans_counts)
         empty = np.flatnonzero(stats.post < _EMPTY_FRAMES)
         if len(empty):
             if (reseeds[empty] < _MAX_RESEEDS).any():
                 prev = -np.inf  # a re-seed may lower the likelihood for a step: go on
-            new = _reseed(X, empty, reseeds, old, new, global_cov, sticky, ct)
+            new = _reseed(Xc, empty, reseeds, old, new, global_cov, sticky, ct)
         startprob, transmat, means, covars = new
         startprob, transmat = floor_probabilities(startprob, transmat)
         covars = repair_covariances(covars, floor)
+        if offsets is not None:  # ECM: the offsets from the same posteriors, new parameters
+            means = offsets.step(X, fb.gamma, lengths, means, covars, stats.post)
         n_done += 1
-    return {
+    result = {
         "means": means, "covars": covars, "startprob": startprob, "transmat": transmat,
         "log_likelihood": ll, "n_iter": n_done, "converged": converged, "occupancy": occupancy,
     }  # fmt: skip
+    return result if offsets is None else {**result, **offsets.result()}
 
 
 def screened_start(

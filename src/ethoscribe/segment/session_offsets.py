@@ -49,19 +49,10 @@ from typing import Any
 import numpy as np
 
 from ethoscribe.errors import InputError
-from ethoscribe.segment._hmm_fit import (
-    _EMPTY_FRAMES,
-    _MAX_RESEEDS,
-    _reseed,
-    fit_frames,
-    floor_probabilities,
-)
+from ethoscribe.segment._hmm_fit import fit_frames, run_em
 from ethoscribe.segment._hmm_gaussian import (
     e_step_buffers,
-    gaussian_m_step,
     gaussian_posteriors,
-    repair_covariances,
-    statistics_from,
 )
 from ethoscribe.segment.sampling import representative_blocks
 
@@ -175,6 +166,49 @@ def offset_step(X, gamma, lengths, sequence_session, n_sessions, means, covars, 
     return b, means, spread, W / spread
 
 
+class OffsetStep:
+    """The offsets' part of EM (module doc) for ``_hmm_fit.run_em``: the frames minus their
+    session's offset for the E-step, the offset step after each M-step, and the offsets,
+    spread and prior precision in the result."""
+
+    def __init__(self, model, lengths: np.ndarray, sequence_session: Any, n_features: int):
+        self.columns = offset_columns(model.offset_columns, n_features)
+        self.sequence_session = np.asarray(sequence_session, dtype=np.int64)
+        seq = self.sequence_session
+        self.n_sessions = int(seq.max()) + 1 if len(seq) else 0
+        self.frame_session = np.repeat(seq, lengths)
+        self.offsets = np.zeros((self.n_sessions, n_features))
+        self.spread, self.prior = START_SPREAD, None
+
+    def begin(self, covars: np.ndarray, start: dict[str, Any] | None) -> None:
+        """Start from ``start``'s offsets when it has them for these sessions, else from 0."""
+        if start is not None and start.get("offsets") is not None:
+            if len(start["offsets"]) == self.n_sessions:
+                self.offsets = start["offsets"].copy()
+                self.spread = float(start["offset_spread"])
+        ones = np.ones(len(covars))
+        self.prior = within_precision(covars, ones, self.columns) / self.spread
+
+    def frames(self, X: np.ndarray) -> np.ndarray:
+        return X - self.offsets[self.frame_session]
+
+    def step(self, X, gamma, lengths, means, covars, post) -> np.ndarray:
+        """The MAP offsets, centred, and the new spread; returns the state means shifted by
+        the centring."""
+        self.offsets, means, self.spread, self.prior = offset_step(
+            X, gamma, lengths, self.sequence_session, self.n_sessions, means, covars, post,
+            self.columns, self.spread,
+        )  # fmt: skip
+        return means
+
+    def result(self) -> dict[str, Any]:
+        return {
+            "offsets": self.offsets,
+            "offset_spread": self.spread,
+            "offset_precision": self.prior,
+        }
+
+
 def run_offset_em(
     model, X, lengths, means, transmat, start_counts, trans_counts, bar, n_iter=None,
     start=None, shared=None, *, sequence_session,
@@ -182,66 +216,13 @@ def run_offset_em(
     """EM of the HMM with session offsets (module doc); as ``_hmm_fit.run_em``, plus
     ``offsets (n_sessions, D)``, ``offset_spread`` and ``offset_precision (|S|, |S|)`` in the
     result. ``sequence_session``: the session of every sequence of ``lengths``."""
-    K, D = means.shape
-    ct, floor = model.covariance_type, float(model.min_covar)
-    n_iter = int(model.n_iter if n_iter is None else n_iter)
-    columns = offset_columns(model.offset_columns, D)
-    sequence_session = np.asarray(sequence_session, dtype=np.int64)
-    n_sessions = int(sequence_session.max()) + 1 if len(sequence_session) else 0
-    frame_session = np.repeat(sequence_session, lengths)
     if shared is None or shared["X"] is not X:
         shared = fit_frames(X, "diag")  # the covariance only: the frames move with the offsets
-    global_cov = shared["cov"] + floor * np.eye(D)
-    if ct == "diag":
-        global_cov = np.diag(np.diag(global_cov))
-    covars = np.repeat(global_cov[None], K, axis=0)
-    startprob, transmat, sticky = np.full(K, 1.0 / K), transmat.copy(), transmat
-    offsets, spread = np.zeros((n_sessions, D)), START_SPREAD
-    if start is not None:
-        means, covars = start["means"].copy(), start["covars"].copy()
-        startprob, transmat = start["startprob"].copy(), start["transmat"].copy()
-        if start.get("offsets") is not None and len(start["offsets"]) == n_sessions:
-            offsets, spread = start["offsets"].copy(), float(start["offset_spread"])
-    prior = within_precision(covars, np.ones(K), columns) / spread
-    reseeds = np.zeros(K, dtype=int)
-    prev, converged, n_done = -np.inf, False, 0
-    work = e_step_buffers(len(X), K)
-    for it in range(n_iter + 1):
-        Xc = X - offsets[frame_session]
-        fb = gaussian_posteriors(Xc, lengths, startprob, transmat, means, covars, ct, work)
-        ll = float(fb.log_likelihood.sum()) / len(X)
-        if not np.isfinite(ll):
-            msg = (
-                "the HMM log-likelihood became non-finite; features may contain extreme "
-                "values: standardise them (e.g. z-scores) or raise min_covar"
-            )
-            raise InputError(msg)
-        bar.set_postfix(iteration=it, ll_per_frame=f"{ll:.4f}", refresh=False)
-        if (it > 0 and ll - prev < model.tol) or it == n_iter:
-            converged = it > 0 and ll - prev < model.tol
-            occupancy = fb.gamma.sum(axis=0)
-            break
-        stats = statistics_from(Xc, fb, ct, None)
-        prev, old = ll, (means, covars)
-        new = gaussian_m_step(stats, ct, floor, start_counts, trans_counts)
-        empty = np.flatnonzero(stats.post < _EMPTY_FRAMES)
-        if len(empty):
-            if (reseeds[empty] < _MAX_RESEEDS).any():
-                prev = -np.inf
-            new = _reseed(Xc, empty, reseeds, old, new, global_cov, sticky, ct)
-        startprob, transmat, means, covars = new
-        startprob, transmat = floor_probabilities(startprob, transmat)
-        covars = repair_covariances(covars, floor)
-        offsets, means, spread, prior = offset_step(
-            X, fb.gamma, lengths, sequence_session, n_sessions, means, covars, stats.post,
-            columns, spread,
-        )  # fmt: skip
-        n_done += 1
-    return {
-        "means": means, "covars": covars, "startprob": startprob, "transmat": transmat,
-        "log_likelihood": ll, "n_iter": n_done, "converged": converged, "occupancy": occupancy,
-        "offsets": offsets, "offset_spread": spread, "offset_precision": prior,
-    }  # fmt: skip
+    step = OffsetStep(model, lengths, sequence_session, means.shape[1])
+    return run_em(
+        model, X, lengths, means, transmat, start_counts, trans_counts, bar, n_iter, start,
+        shared, offsets=step,
+    )  # fmt: skip
 
 
 def label_offsets(model, X: np.ndarray, lengths: np.ndarray) -> np.ndarray:
