@@ -58,12 +58,11 @@ from ethoscribe.segment._hmm_gaussian import GaussianEmission
 from ethoscribe.segment._hmm_kernels import forward_backward_log, forward_filter_log, viterbi_log
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths
 from ethoscribe.segment.postprocess import order_states_by_occupancy
-from ethoscribe.segment.sampling import take_blocks
+from ethoscribe.segment.sampling import take_session_blocks
 from ethoscribe.segment.session_offsets import (
     label_offsets,
     offset_columns,
     run_offset_em,
-    take_session_blocks,
 )
 
 FORMAT_VERSION = 1
@@ -312,14 +311,12 @@ class GaussianHMM(BaseEstimator):
         # One session: an offset is a shift of every state mean, nothing to estimate
         with_offsets = self.session_offsets and len(lengths) >= 2
         columns = offset_columns(self.offset_columns, X.shape[1]) if self.session_offsets else None
-        if with_offsets:
-            X_fit, fit_lengths, fit_sessions = take_session_blocks(
-                X, lengths, self.fit_max_frames, block, rng_blocks
-            )
-            em = partial(run_offset_em, sequence_session=fit_sessions)
-        else:
-            X_fit, fit_lengths = take_blocks(X, lengths, self.fit_max_frames, block, rng_blocks)
-            em = run_em
+        X_fit, fit_lengths, fit_sessions = take_session_blocks(
+            X, lengths, self.fit_max_frames, block, rng_blocks
+        )
+        em = partial(run_offset_em, sequence_session=fit_sessions) if with_offsets else run_em
+        # the frames move with the offsets: their products would never be read
+        frames_kind = "diag" if with_offsets else self.covariance_type
         needed = frames_needed(K, X.shape[1], self.covariance_type)
         if len(X_fit) < needed:
             per_state = needed // K
@@ -341,8 +338,9 @@ class GaussianHMM(BaseEstimator):
         X_fit = X_fit - offset  # centred: better conditioned sufficient statistics
         n_fit = len(X_fit)
         # EM on every stride-th frame (fit_rate), then EM at the full rate from its result
-        stride = _usable_stride(X_fit, fit_lengths, fit_stride(self.fps, self.fit_rate), needed, K)
-        X_em, em_lengths = thin_frames(X_fit, fit_lengths, stride)
+        stride, X_em, em_lengths = _usable_stride(
+            X_fit, fit_lengths, fit_stride(self.fps, self.fit_rate), needed, K
+        )
         thin = self if stride == 1 else _at_stride(self, stride)  # the model of the thinned rate
         sticky = sticky_transmat(K, self.expected_bout_s, thin.fps)
         start_counts = np.full(K, 1.0 / K)  # one pseudo-sequence spread over the states
@@ -378,14 +376,14 @@ class GaussianHMM(BaseEstimator):
         n_runs = n_usual + len(starts)
         # the frames' covariance and products, once for every restart's EM on X_em
         own_em = self.engine == "fast" or starts
-        shared = fit_frames(X_em, self.covariance_type) if own_em else None
+        shared = fit_frames(X_em, frames_kind) if own_em else None
         full_rate, polish = None, min(int(self.full_rate_iter), int(self.n_iter))
         if stride > 1:
             full_sticky = sticky_transmat(K, self.expected_bout_s, self.fps)
             full_rate = {
                 "sticky": full_sticky,
                 "trans_counts": _prior_counts(self, n_fit, full_sticky),
-                "shared": fit_frames(X_fit, self.covariance_type),
+                "shared": fit_frames(X_fit, frames_kind),
             }
 
         def thinned(r: int) -> dict[str, Any]:
@@ -779,15 +777,16 @@ def _prior_counts(model: GaussianHMM, n_frames: int, sticky: np.ndarray) -> np.n
     return model.persistence_strength * n_frames / model.n_states * sticky
 
 
-def _usable_stride(X: np.ndarray, lengths: np.ndarray, stride: int, needed: int, K: int) -> int:
+def _usable_stride(
+    X: np.ndarray, lengths: np.ndarray, stride: int, needed: int, K: int
+) -> tuple[int, np.ndarray, np.ndarray]:
     """``stride``, or the largest smaller one that leaves enough frames (``frames_needed``)
-    and at least ``K`` distinct frames for the fit."""
-    while stride > 1:
-        thin, _ = thin_frames(X, lengths, stride)
-        if len(thin) >= needed and distinct_rows_at_least(thin, K):
-            break
+    and at least ``K`` distinct frames for the fit, with the frames and lengths it keeps."""
+    while True:
+        thin, thin_lengths = thin_frames(X, lengths, stride)
+        if stride == 1 or (len(thin) >= needed and distinct_rows_at_least(thin, K)):
+            return stride, thin, thin_lengths
         stride -= 1
-    return stride
 
 
 def _at_stride(model: GaussianHMM, stride: int) -> GaussianHMM:

@@ -71,8 +71,30 @@ def take_blocks(
     >>> sub.shape, n.tolist()
     ((20, 1), [10, 10])
     """
+    return take_session_blocks(X, lengths, max_frames, block_frames, rng)[:2]
+
+
+def take_session_blocks(
+    X: np.ndarray,
+    lengths: np.ndarray,
+    max_frames: int | None,
+    block_frames: int,
+    rng: np.random.Generator,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`take_blocks`, and the session (index into ``lengths``) of every block.
+
+    Examples
+    --------
+    >>> X = np.arange(100.0)[:, None]
+    >>> _, n, session = take_session_blocks(X, np.array([50, 50]), 20, 10,
+    ...                                     np.random.default_rng(0))
+    >>> n.tolist(), session.tolist()
+    ([10, 10], [0, 1])
+    """
     starts, stops = representative_blocks(lengths, max_frames, block_frames, rng)
     sub = (stops - starts).astype(np.int64)
+    session = np.searchsorted(np.cumsum(lengths), starts, side="right").astype(np.int64)
     if sub.sum() == len(X):
-        return X, sub
-    return np.concatenate([X[a:b] for a, b in zip(starts, stops, strict=True)]), sub
+        return X, sub, session
+    X_fit = np.concatenate([X[a:b] for a, b in zip(starts, stops, strict=True)])
+    return X_fit, sub, session

@@ -54,7 +54,6 @@ from ethoscribe.segment._hmm_gaussian import (
     e_step_buffers,
     gaussian_posteriors,
 )
-from ethoscribe.segment.sampling import representative_blocks
 
 LABEL_ITER = 20  # EM iterations for a new session's offset (stops earlier when it settles)
 LABEL_TOL = 1e-3  # ... once no offset moves by more than this many within-state SDs
@@ -73,20 +72,6 @@ def offset_columns(columns: Any, n_features: int) -> np.ndarray:
         )
         raise InputError(msg)
     return idx
-
-
-def take_session_blocks(
-    X: np.ndarray, lengths: np.ndarray, max_frames: int | None, block: int, rng
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """:func:`ethoscribe.segment.sampling.take_blocks` (same blocks for the same ``rng``), and
-    the session (index into ``lengths``) of every block."""
-    starts, stops = representative_blocks(lengths, max_frames, block, rng)
-    sub = (stops - starts).astype(np.int64)
-    session = np.searchsorted(np.cumsum(lengths), starts, side="right").astype(np.int64)
-    if sub.sum() == len(X):
-        return X, sub, session
-    X_fit = np.concatenate([X[a:b] for a, b in zip(starts, stops, strict=True)])
-    return X_fit, sub, session
 
 
 def _precisions(covars: np.ndarray) -> np.ndarray:
