@@ -60,7 +60,9 @@ from ethoscribe.segment.inputs import check_fitted, check_X_lengths
 from ethoscribe.segment.postprocess import order_states_by_occupancy
 from ethoscribe.segment.sampling import take_session_blocks
 from ethoscribe.segment.session_offsets import (
+    OFFSET_SCORINGS,
     label_offsets,
+    marginal_log_likelihood,
     offset_columns,
     run_offset_em,
 )
@@ -507,8 +509,24 @@ class GaussianHMM(BaseEstimator):
         """Total log-likelihood ``log P(X)`` of all sessions."""
         return float(self.score_per_session(X, lengths).sum())
 
-    def score_per_session(self, X: np.ndarray, lengths=None) -> np.ndarray:
-        """Log-likelihood of each session, shape (n_sessions,)."""
+    def score_per_session(
+        self, X: np.ndarray, lengths=None, offset_scoring: str = "map"
+    ) -> np.ndarray:
+        """Log-likelihood of each session, shape (n_sessions,).
+
+        ``offset_scoring`` (with ``session_offsets``): "map" scores each session with its MAP
+        offset plugged in, ``log p(x | b^)``; "marginal" with its offset integrated over the
+        prior, ``log p(x)`` by Laplace's method
+        (:func:`ethoscribe.segment.session_offsets.marginal_log_likelihood`)."""
+        if offset_scoring not in OFFSET_SCORINGS:
+            msg = f"offset_scoring must be one of {OFFSET_SCORINGS}; got {offset_scoring!r}"
+            raise InputError(msg)
+        if offset_scoring == "marginal" and self.session_offsets:
+            X, lengths, _ = self._prepare(X, lengths)
+            with one_thread():
+                return np.concatenate(
+                    [marginal_log_likelihood(self, X[a:b], sub) for a, b, sub in _batches(lengths)]
+                )
         parts = []
         for _, _, sub, log_b in self._log_emission_batches(X, lengths):
             _, log_scale = forward_filter_log(log_b, self.startprob_, self.transmat_, sub)

@@ -218,7 +218,10 @@ class BehaviourModel(BaseEstimator):
         default: on the validation bench (seed 0) it did not pay (see benchmarks/README.md,
         "Fast by default"). ``fit_rate``: the quick fits' EM on thinned frames (the HMM's
         ``fit_rate``; the segmenter's own ``fit_rate`` applies to the final fit and the
-        stability refits only).
+        stability refits only). ``offset_scoring``: how a held-out block is scored under the
+        HMM's per-session offsets, "map" (its own MAP offset plugged in, the default) or
+        "marginal" (the offset integrated over its prior;
+        :func:`ethoscribe.segment.session_offsets.marginal_log_likelihood`).
     causal : bool
         Fit and label through the causal path, for a model meant for closed-loop use
         (:class:`~ethoscribe.segment.streaming.StreamingLabeller`): causal cleaning (past frames
@@ -334,7 +337,10 @@ class BehaviourModel(BaseEstimator):
                 f"got {seen!r}"
             )
 
-        allowed = {"max_frames", "stop_after", "rule", "heldout", "warm_start", "fit_rate"}
+        allowed = {
+            "max_frames", "stop_after", "rule", "heldout", "warm_start", "fit_rate",
+            "offset_scoring",
+        }  # fmt: skip
         options = self.state_count_options
         if options is not None and (not isinstance(options, Mapping) or set(options) - allowed):
             raise InputError(

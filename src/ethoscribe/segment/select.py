@@ -55,6 +55,7 @@ from ethoscribe.segment.agreement import adjusted_rand
 from ethoscribe.segment.inputs import check_X_lengths
 from ethoscribe.segment.registry import get_segmenter
 from ethoscribe.segment.sampling import take_blocks
+from ethoscribe.segment.session_offsets import OFFSET_SCORINGS
 
 RANGE_TOLERANCE = 0.01
 ELBOW_FRACTION = 0.2
@@ -274,6 +275,7 @@ def select_n_states(
     rule: str = "one_se",
     method: str = "hmm",
     stop_after: int | None = None,
+    offset_scoring: str = "map",
 ) -> StateCountSelection:
     """Fit a model for each candidate state count and pick one (rule in the module doc).
 
@@ -314,6 +316,11 @@ def select_n_states(
         in :mod:`ethoscribe.segment.registry`; its estimator scores held-out sessions). Its
         class may declare ``frames_needed(k, n_features, covariance_type)`` (fewer frames skip
         a candidate) and ``parameter_count(k, n_features, covariance_type)``.
+    offset_scoring : {"map", "marginal"}
+        With the HMM's per-session offsets: each held-out unit scored with its own MAP offset
+        plugged in ("map"), or with its offset integrated over the fitted prior ("marginal",
+        Laplace's method; :func:`ethoscribe.segment.session_offsets.marginal_log_likelihood`),
+        so a unit of one behaviour is not explained by one state plus a free shift.
 
     Examples
     --------
@@ -340,6 +347,9 @@ def select_n_states(
             "criterion must be 'heldout' or 'bic', heldout 'sessions' or 'blocks' and rule one "
             f"of {RULES}; got criterion={criterion!r}, heldout={heldout!r}, rule={rule!r}"
         )
+        raise InputError(msg)
+    if offset_scoring not in OFFSET_SCORINGS:
+        msg = f"offset_scoring must be one of {OFFSET_SCORINGS}; got {offset_scoring!r}"
         raise InputError(msg)
     spec = get_segmenter(method)
     if spec.auto_states != "heldout":
@@ -410,7 +420,9 @@ def select_n_states(
         bar.update(1)
         # Every frame labelled by this fold's model: the two folds' labelings are compared.
         labels = m.predict(X, lengths)
-        ll_te = m.score_per_session(X_te, len_te)
+        # only a non-default scoring is passed: other methods' scores need not know it
+        scoring = {} if offset_scoring == "map" else {"offset_scoring": offset_scoring}
+        ll_te = m.score_per_session(X_te, len_te, **scoring)
         return ll_te, m.score(X_tr, len_tr), len(X_tr), m.n_parameters(), labels, m
 
     # The fits are independent (each seeded alike): on threads, results equal a serial loop.
@@ -542,6 +554,7 @@ def choose_n_states(
     rule: str = "elbow",
     heldout: str = "sessions",
     fit_rate: float | None = None,
+    offset_scoring: str = "map",
 ) -> StateCountSelection:
     """The automatic state count of ``BehaviourModel``: the held-out elbow, fitted quickly.
 
@@ -584,6 +597,8 @@ def choose_n_states(
     fit_rate : float or None
         The quick fits' EM on thinned frames (``GaussianHMM(fit_rate=...)``); None: every
         frame, whatever the model's own ``fit_rate`` (the method's ``quick_options``).
+    offset_scoring : {"map", "marginal"}
+        How held-out units are scored with per-session offsets (:func:`select_n_states`).
 
     Examples
     --------
@@ -605,5 +620,5 @@ def choose_n_states(
         heldout = "blocks"
     return select_n_states(
         X, lengths, candidates, "heldout", heldout, params, random_state, progress,
-        rule=rule, method=method, stop_after=stop_after,
+        rule=rule, method=method, stop_after=stop_after, offset_scoring=offset_scoring,
     )  # fmt: skip

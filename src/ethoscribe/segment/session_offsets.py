@@ -40,6 +40,13 @@ parameter fixed (at most ``LABEL_ITER`` iterations from ``b = 0``), then is deco
 ``x_t - b``. A model fitted on one session saw no spread between individuals: it is fitted and
 labels as without offsets (``offset_spread_ = 0``). The causal (streaming) path cannot see a
 session's future: it uses ``b = 0``, the typical individual.
+
+**Held-out scoring.** A held-out session scored with its own MAP offset plugged in,
+``log p(x | b^)``, is credited with a free shift: a block of one behaviour is then explained by
+one state plus its offset. Its marginal likelihood ``log p(x) = log int p(x | b) p(b) db``
+counts the offset as what it is, a draw from the prior. :func:`marginal_log_likelihood`
+approximates it by Laplace's method around the MAP offset (Tierney & Kadane 1986; the
+random-intercept marginal of Laird & Ware 1982 is its linear-Gaussian case).
 """
 
 from __future__ import annotations
@@ -57,6 +64,9 @@ from ethoscribe.segment._hmm_gaussian import (
 
 LABEL_ITER = 20  # EM iterations for a new session's offset (stops earlier when it settles)
 LABEL_TOL = 1e-3  # ... once no offset moves by more than this many within-state SDs
+# How a held-out session is scored (GaussianHMM.score_per_session, the state count): its MAP
+# offset plugged in, or its offset integrated over the prior (module doc, "Held-out scoring").
+OFFSET_SCORINGS = ("map", "marginal")
 START_SPREAD = 1.0  # psi before the first offset step: offsets of about one within-state SD
 
 
@@ -237,3 +247,52 @@ def label_offsets(model, X: np.ndarray, lengths: np.ndarray) -> np.ndarray:
         if moved < LABEL_TOL:
             break
     return b
+
+
+def marginal_log_likelihood(model, X: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """Log-likelihood of every session (sequence of ``lengths``) with its offset integrated
+    over its prior, by Laplace's method around the MAP offset (module doc). Shape (n_sessions,).
+
+    With ``d = |S|`` offset columns, prior precision ``P_0`` and MAP offset ``b^``
+    (:func:`label_offsets`), Laplace's method (Tierney & Kadane 1986) on
+    ``f(b) = log p(x | b) + log N(b; 0, P_0^-1)`` gives
+
+        log p(x) ~= f(b^) + (d/2) log 2 pi - 1/2 log det H
+                  = log p(x | b^) - 1/2 b^T P_0 b^ + 1/2 log det P_0 - 1/2 log det H,
+
+    with ``H = P_0 + A`` and ``A = sum_t sum_k gamma_tk (Sigma_k^-1)[S, S]`` at ``b^``: the
+    matrix of the offset step's normal equations (:func:`map_offsets`), i.e. the expected
+    complete-data information about ``b``. With one state ``log p(x | b)`` is quadratic in
+    ``b`` and ``H`` its exact curvature, so the formula is exact: the block's frames are then
+    jointly normal with mean ``mu`` and covariance ``I (x) Sigma + 11^T (x) E Psi E^T``
+    (``Psi = P_0^-1`` on the columns ``S``, ``E`` their embedding), the marginal of a random
+    intercept (Laird & Ware 1982). With several states the exact curvature is lower by the
+    information the unknown states carry about ``b`` (Louis 1982), small where the state
+    posteriors are near 0 or 1; ``H`` is then the usual EM-based approximation of it.
+
+    A model fitted on one session (``offset_spread_ = 0``) has no offsets: its plain
+    log-likelihood.
+
+    Parameters
+    ----------
+    model : fitted ``GaussianHMM`` with ``session_offsets``
+    X : array (n_frames, n_features); lengths : int array (n_sessions,)
+    """
+    b = label_offsets(model, X, lengths)
+    frame_session = np.repeat(np.arange(len(lengths)), lengths)
+    fb = gaussian_posteriors(
+        X - b[frame_session], lengths, model.startprob_, model.transmat_, model.means_,
+        model.covars_, model.covariance_type,
+    )  # fmt: skip
+    ll = np.asarray(fb.log_likelihood, dtype=np.float64)
+    if len(X) == 0 or model.offset_spread_ == 0:
+        return ll
+    S = np.asarray(model.offset_columns_, dtype=np.int64)
+    P0 = np.asarray(model.offset_precision_, dtype=np.float64)
+    G = np.add.reduceat(fb.gamma, np.cumsum(lengths) - lengths, axis=0)  # (n_sessions, K)
+    H = P0[None] + np.einsum("sk,kij->sij", G, _precisions(model.covars_)[:, S][:, :, S])
+    b_S = b[:, S]
+    quad = np.einsum("si,ij,sj->s", b_S, P0, b_S)
+    _, logdet_p0 = np.linalg.slogdet(P0)
+    _, logdet_h = np.linalg.slogdet(H)
+    return ll - 0.5 * quad + 0.5 * (logdet_p0 - logdet_h)
