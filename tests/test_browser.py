@@ -79,8 +79,14 @@ MOTIF_FIGURES = (
 
 def _wait_marks(page, figures=MOTIF_FIGURES) -> None:
     """Every one of ``figures`` has drawn marks (not only its axes)."""
+    from playwright.sync_api import TimeoutError as Timeout
+
     for css in figures:
-        page.wait_for_function(f"() => ({MARKS})('{css}') > 0", timeout=WAIT_MS)
+        try:
+            page.wait_for_function(f"() => ({MARKS})('{css}') > 0", timeout=WAIT_MS)
+        except Timeout:
+            marks = {c: page.evaluate(f"() => ({MARKS})('{c}')") for c in figures}
+            raise AssertionError(f"{css} drew no marks; marks per figure: {marks}") from None
 
 
 # Parts of the workbench wider than it (cut off at the right edge), as [class, overflow px].

@@ -155,11 +155,25 @@ class FigureSlot(w.Box):
             self.draw()
 
     def draw(self) -> None:
-        """Redraw from the current state (nothing to do before the figure is made)."""
-        if self._figure is not None:
-            redraw(self._figure, self.make())
-            if self._on_created is not None:
-                self._on_created(self._figure)
+        """Redraw from the current state (nothing to do before the figure is made).
+
+        Traces of the same number and kinds are updated in place. Otherwise the slot shows a
+        new FigureWidget: plotly's messages that delete and add traces are applied to the
+        browser's copy of the figure and to every view of it, and a view still being drawn
+        when they arrive could end with axes and no traces (seen once on a slow machine);
+        a new widget arrives whole.
+        """
+        if self._figure is None:
+            return
+        fig = self.make()
+        if same_traces(self._figure, fig):
+            redraw(self._figure, fig)
+        else:
+            old, self._figure = self._figure, figure_widget(fig, self.css)
+            self.children = (self._figure,)
+            old.close()
+        if self._on_created is not None:
+            self._on_created(self._figure)
 
 
 def blank_figure(text: str, width: int, height: int) -> go.Figure:
@@ -185,23 +199,29 @@ def figure_widget(fig: go.Figure, css: str) -> go.FigureWidget:
     return widget
 
 
-def redraw(widget: go.FigureWidget, fig: go.Figure) -> None:
-    """Show ``fig`` in ``widget``: traces updated in place when their kinds match."""
-    same = len(widget.data) == len(fig.data) and all(
+def same_traces(widget: go.FigureWidget, fig: go.Figure) -> bool:
+    """Whether ``fig`` has as many traces as ``widget``, of the same kinds in the same order."""
+    return len(widget.data) == len(fig.data) and all(
         a.type == b.type for a, b in zip(widget.data, fig.data, strict=True)
     )
-    if not same:
-        widget.data = ()
-        widget.add_traces(list(fig.data))
+
+
+def redraw(widget: go.FigureWidget, fig: go.Figure) -> None:
+    """Show ``fig`` in ``widget`` by updating traces and layout in place.
+
+    Only restyle and relayout messages go to the browser (applying one twice changes nothing);
+    ``fig`` must have the widget's traces (:func:`same_traces`).
+    """
+    if not same_traces(widget, fig):
+        raise ValueError("redraw needs the same traces; make a new FigureWidget instead")
     new = fig.layout.to_plotly_json()
     new.pop("template", None)  # the widget keeps the one it was made with
     old = widget.layout.to_plotly_json()
     changed = {k: v for k, v in new.items() if old.get(k) != v}
     gone = [k for k in old if k not in new and k in ("annotations", "shapes", "images")]
     with widget.batch_update():
-        if same:
-            for old_trace, new_trace in zip(widget.data, fig.data, strict=True):
-                old_trace.update(new_trace.to_plotly_json(), overwrite=True)
+        for old_trace, new_trace in zip(widget.data, fig.data, strict=True):
+            old_trace.update(new_trace.to_plotly_json(), overwrite=True)
         for key in gone:
             widget.layout[key] = ()
         if changed:
