@@ -173,3 +173,34 @@ def test_reason_says_when_the_held_out_curve_only_falls():
     text = _reason(table, 3, "elbow", 2, (6, 7))
     assert text.startswith("3 states: the smallest candidate") and "falls" in text
     assert "after the best fit already fitted less well" in text
+
+
+def test_heldout_sessions_read_each_sessions_offset_once(four_states, monkeypatch):
+    # With per-session offsets (the "hmm" method's default) each fold's model estimates every
+    # session's offset once, for its labels and both its scores. Both folds' scores together
+    # cover every session under both models: held-out + training log-likelihood per frame is
+    # the two models' scores of all sessions, each session's frames minus its offset
+    # (reference library: hmmlearn 0.3.3 GaussianHMM, implementation="scaling").
+    from hmmlearn.hmm import GaussianHMM as ReferenceHMM
+
+    import ethoscribe.segment.hmm as hmm_module
+
+    X, _, lengths = four_states
+    calls = []
+    original = hmm_module.label_offsets
+    monkeypatch.setattr(hmm_module, "label_offsets", lambda *a: calls.append(1) or original(*a))
+    sel = select_n_states(X, lengths, candidates=[3, 4], model_params=FAST)
+    assert len(calls) == 2 * 2  # two candidates, two folds, one estimate each
+    monkeypatch.setattr(hmm_module, "label_offsets", original)
+    table = sel.table.set_index("n_states")
+    for k in (3, 4):
+        total = 0.0
+        for m in sel.fold_models[k]:
+            assert m.session_offsets
+            ref = ReferenceHMM(k, covariance_type="full", implementation="scaling", init_params="")
+            ref.startprob_, ref.transmat_ = m.startprob_, m.transmat_
+            ref.means_, ref.covars_ = m.means_, m.covars_
+            moved = X - np.repeat(m.offsets(X, lengths), lengths, axis=0)
+            total += ref.score(moved, lengths)
+        both = table.loc[k, "heldout_ll_per_frame"] + table.loc[k, "train_ll_per_frame"]
+        assert both == pytest.approx(total / len(X), rel=1e-9)

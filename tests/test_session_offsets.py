@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import io
 import json
+import warnings
 
 import numpy as np
 import pytest
@@ -220,3 +221,89 @@ def test_offsets_with_thinned_frames(planted):
     model = GaussianHMM(**params, session_offsets=True, fit_rate=10.0).fit(X, lengths)
     assert model.fit_stride_ == 3
     np.testing.assert_allclose(model.session_offsets_, offsets, atol=0.05)
+
+
+def test_offsets_given_once_equal_those_estimated_inside(planted):
+    # Labels and scores with each session's offset estimated once (GaussianHMM.offsets) and
+    # passed down equal those of the calls that estimate it themselves, and (reference library:
+    # hmmlearn 0.3.3 GaussianHMM, implementation="scaling") those of the same HMM on the
+    # frames minus their session's offset.
+    from hmmlearn.hmm import GaussianHMM as ReferenceHMM
+
+    X, _, lengths, _, _, model = planted
+    b = model.offsets(X, lengths)
+    assert b.shape == (len(lengths), X.shape[1]) and np.abs(b).max() > 0.5
+    assert np.array_equal(model.predict(X, lengths, offsets=b), model.predict(X, lengths))
+    np.testing.assert_array_equal(
+        model.predict_proba(X, lengths, offsets=b), model.predict_proba(X, lengths)
+    )
+    np.testing.assert_array_equal(
+        model.score_per_session(X, lengths, offsets=b), model.score_per_session(X, lengths)
+    )
+    assert model.score(X, lengths, offsets=b) == model.score(X, lengths)
+    assert model.bic(X, lengths, offsets=b) == model.bic(X, lengths)
+    given = model.predict_min_duration(X, lengths, 10, 0.01, offsets=b)
+    inside = model.predict_min_duration(X, lengths, 10, 0.01)
+    assert np.array_equal(given[0], inside[0]) and np.array_equal(given[1], inside[1])
+    ref = ReferenceHMM(3, covariance_type="full", implementation="scaling", init_params="")
+    ref.startprob_, ref.transmat_ = model.startprob_, model.transmat_
+    ref.means_, ref.covars_ = model.means_, model.covars_
+    moved = X - np.repeat(b, lengths, axis=0)
+    assert model.score(X, lengths, offsets=b) == pytest.approx(ref.score(moved, lengths), rel=1e-9)
+    np.testing.assert_allclose(
+        model.predict_proba(X, lengths, offsets=b), ref.predict_proba(moved, lengths), atol=1e-8
+    )
+    assert np.array_equal(model.predict(X, lengths, offsets=b), ref.predict(moved, lengths))
+    # a subset of the sessions scored with their rows of the offsets (the state count's folds)
+    keep = [0, 2, 5]
+    parts = np.split(X, np.cumsum(lengths)[:-1])
+    sub = np.concatenate([parts[s] for s in keep])
+    ref_sub = [ref.score(parts[s] - b[s]) for s in keep]
+    np.testing.assert_allclose(
+        model.score_per_session(sub, lengths[keep], offsets=b[keep]), ref_sub, rtol=1e-9
+    )
+
+
+def test_offsets_given_are_checked(planted):
+    X, _, lengths, _, plain, model = planted
+    with pytest.raises(InputError, match=r"offsets must be finite numbers of shape \(6, 3\)"):
+        model.predict(X, lengths, offsets=np.zeros((5, 3)))
+    with pytest.raises(InputError, match="NaN or infinite"):
+        model.score(X, lengths, offsets=np.full((6, 3), np.nan))
+    # a model without offsets takes them as given: zeros change nothing
+    assert np.array_equal(plain.predict(X, lengths, offsets=np.zeros((6, 3))), plain.predict(X))
+
+
+def test_behaviour_model_estimates_offsets_once_for_labels_and_fit_check(monkeypatch):
+    # BehaviourModel.label estimates each session's offset once (BehaviourModel.offsets) for
+    # the labels and the fit check; given or estimated inside, the results are the same.
+    from pandas.testing import assert_frame_equal
+
+    import ethoscribe.segment.hmm as hmm_module
+    from ethoscribe.errors import InputWarning
+    from ethoscribe.segment.model import BehaviourModel
+    from ethoscribe.simulate import simulate_session
+
+    sessions = [simulate_session(duration_s=40, seed=s, session=f"s{s}")[0] for s in (1, 2, 3)]
+    model = BehaviourModel(n_states=4, random_state=0).fit(sessions[:2])
+    assert model.segmenter_.session_offsets  # the "hmm" method's default
+    feats, _ = model.transform_features(sessions)
+    b = model.offsets(feats)
+    assert b.shape == (len(feats), feats[0].values.shape[1])
+    given = model.label_features(feats, offsets=b)
+    assert_frame_equal(given, model.label_features(feats))
+    assert model.fit_shares(feats, offsets=b) == model.fit_shares(feats)
+    calls = []
+    original = hmm_module.label_offsets
+    monkeypatch.setattr(hmm_module, "label_offsets", lambda *a: calls.append(1) or original(*a))
+    with warnings.catch_warnings():  # session s3 is unlike the two fitted: the fit check says so
+        warnings.simplefilter("ignore", InputWarning)
+        assert_frame_equal(model.label(sessions), given)
+    assert len(calls) == 1  # one batch of every session: one estimate
+    with pytest.raises(InputError, match="rows but 3 feature sets"):
+        model.label_features(feats, offsets=b[:2])
+    plain = BehaviourModel(n_states=4, random_state=0, segmenter={"session_offsets": False})
+    plain.fit(sessions[:2])
+    assert plain.offsets(feats) is None
+    with pytest.raises(InputError, match="has no session offsets"):
+        plain.label_features(feats, offsets=b)

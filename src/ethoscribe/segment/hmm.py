@@ -485,18 +485,45 @@ class GaussianHMM(BaseEstimator):
         emission = GaussianEmission(self.means_, self.covars_, self.covariance_type)
         return X, lengths, emission
 
-    def _log_emission_batches(self, X, lengths, offsets: bool = True):
+    def _log_emission_batches(self, X, lengths, offsets=None, causal: bool = False):
+        """Per batch of whole sessions: ``(start, stop, lengths, log emission)`` of the frames
+        minus each session's offset: ``offsets`` when given, else estimated here with the
+        fitted parameters fixed (with ``session_offsets``); none on the ``causal`` path."""
         X, lengths, emission = self._prepare(X, lengths)
+        given = None if causal else _checked_offsets(offsets, lengths, X.shape[1])
+        estimate = not causal and given is None and self.session_offsets
         with one_thread():
+            first = 0  # the batch's first session
             for a, b, sub in _batches(lengths):
                 part = X[a:b]
-                if offsets and self.session_offsets:  # each session's own, parameters fixed
+                if given is not None:
+                    part = part - np.repeat(given[first : first + len(sub)], sub, axis=0)
+                elif estimate:  # each session's own, parameters fixed
                     part = part - np.repeat(label_offsets(self, part, sub), sub, axis=0)
+                first += len(sub)
                 yield a, b, sub, emission.log_likelihood(part)
 
     def offsets(self, X: np.ndarray, lengths=None) -> np.ndarray:
         """Offset of every session (sequence of ``lengths``), shape (n_sessions, D): the MAP
-        estimate with the fitted parameters fixed (zeros without ``session_offsets``)."""
+        estimate with the fitted parameters fixed (zeros without ``session_offsets``).
+
+        Estimating them is an EM of its own; when the same frames are labelled or scored
+        more than once, estimate them once here and pass them as ``offsets`` to
+        :meth:`predict`, :meth:`predict_proba`, :meth:`score` and the other decoding
+        methods (their own estimate is this one, so the results are the same).
+
+        Examples
+        --------
+        >>> rng = np.random.default_rng(0)
+        >>> X = np.r_[rng.normal(0, 1, (200, 1)), rng.normal(6, 1, (200, 1))]
+        >>> hmm = GaussianHMM(n_states=2, n_restarts=1, session_offsets=True)
+        >>> hmm = hmm.fit(X, [100, 100, 100, 100])
+        >>> b = hmm.offsets(X, [200, 200])
+        >>> b.shape
+        (2, 1)
+        >>> bool((hmm.predict(X, [200, 200], offsets=b) == hmm.predict(X, [200, 200])).all())
+        True
+        """
         X, lengths, _ = self._prepare(X, lengths)
         if not self.session_offsets:
             return np.zeros((len(lengths), X.shape[1]))
@@ -505,37 +532,49 @@ class GaussianHMM(BaseEstimator):
                 [label_offsets(self, X[a:b], sub) for a, b, sub in _batches(lengths)]
             )
 
-    def score(self, X: np.ndarray, lengths: Sequence[int] | np.ndarray | None = None) -> float:
-        """Total log-likelihood ``log P(X)`` of all sessions."""
-        return float(self.score_per_session(X, lengths).sum())
+    def score(
+        self, X: np.ndarray, lengths: Sequence[int] | np.ndarray | None = None, *, offsets=None
+    ) -> float:
+        """Total log-likelihood ``log P(X)`` of all sessions.
+
+        ``offsets`` (n_sessions, D) or None, here and in every decoding method: each
+        session's offset, taken off its frames (as :meth:`offsets` estimates them; pass them
+        when the same frames are decoded or scored more than once). None: estimated here
+        with ``session_offsets``, none without."""
+        return float(self.score_per_session(X, lengths, offsets=offsets).sum())
 
     def score_per_session(
-        self, X: np.ndarray, lengths=None, offset_scoring: str = "map"
+        self, X: np.ndarray, lengths=None, offset_scoring: str = "map", *, offsets=None
     ) -> np.ndarray:
-        """Log-likelihood of each session, shape (n_sessions,).
+        """Log-likelihood of each session, shape (n_sessions,) (``offsets``: :meth:`score`).
 
         ``offset_scoring`` (with ``session_offsets``): "map" scores each session with its MAP
         offset plugged in, ``log p(x | b^)``; "marginal" with its offset integrated over the
         prior, ``log p(x)`` by Laplace's method
-        (:func:`ethoscribe.segment.session_offsets.marginal_log_likelihood`)."""
+        (:func:`ethoscribe.segment.session_offsets.marginal_log_likelihood`) around the MAP
+        offset (``offsets`` when given)."""
         if offset_scoring not in OFFSET_SCORINGS:
             msg = f"offset_scoring must be one of {OFFSET_SCORINGS}; got {offset_scoring!r}"
             raise InputError(msg)
         if offset_scoring == "marginal" and self.session_offsets:
             X, lengths, _ = self._prepare(X, lengths)
+            given = _checked_offsets(offsets, lengths, X.shape[1])
+            parts, first = [], 0
             with one_thread():
-                return np.concatenate(
-                    [marginal_log_likelihood(self, X[a:b], sub) for a, b, sub in _batches(lengths)]
-                )
+                for a, b, sub in _batches(lengths):
+                    rows = None if given is None else given[first : first + len(sub)]
+                    parts.append(marginal_log_likelihood(self, X[a:b], sub, rows))
+                    first += len(sub)
+            return np.concatenate(parts)
         parts = []
-        for _, _, sub, log_b in self._log_emission_batches(X, lengths):
+        for _, _, sub, log_b in self._log_emission_batches(X, lengths, offsets):
             _, log_scale = forward_filter_log(log_b, self.startprob_, self.transmat_, sub)
             parts.append(np.add.reduceat(log_scale, np.cumsum(sub) - sub))
         return np.concatenate(parts)
 
-    def score_per_frame(self, X: np.ndarray, lengths=None) -> float:
-        """Log-likelihood per frame (comparable across data sizes)."""
-        return self.score(X, lengths) / len(X)
+    def score_per_frame(self, X: np.ndarray, lengths=None, *, offsets=None) -> float:
+        """Log-likelihood per frame (comparable across data sizes; ``offsets``: :meth:`score`)."""
+        return self.score(X, lengths, offsets=offsets) / len(X)
 
     def filter(self, X: np.ndarray, lengths=None) -> np.ndarray:
         """Causal posteriors ``P(state_t | x_1..t)`` per session, shape (n_frames, K).
@@ -544,34 +583,43 @@ class GaussianHMM(BaseEstimator):
         uses offset 0 (the typical individual), as the streaming filter does."""
         check_fitted(self, "means_")
         out = np.empty((len(X), self.n_states_))
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets=False):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths, causal=True):
             out[a:b] = forward_filter_log(log_b, self.startprob_, self.transmat_, sub)[0]
         return out
 
-    def predict_proba(self, X: np.ndarray, lengths=None) -> np.ndarray:
-        """Smoothed posteriors ``P(state_t | whole session)``, shape (n_frames, K)."""
+    def predict_proba(self, X: np.ndarray, lengths=None, *, offsets=None) -> np.ndarray:
+        """Smoothed posteriors ``P(state_t | whole session)``, shape (n_frames, K)
+        (``offsets``: :meth:`score`)."""
         check_fitted(self, "means_")
         out = np.empty((len(X), self.n_states_))
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets):
             post = forward_backward_log(log_b, self.startprob_, self.transmat_, sub, True)
             out[a:b] = post.gamma
         return out
 
-    def decode(self, X: np.ndarray, lengths=None) -> tuple[float, np.ndarray]:
-        """Viterbi: ``(joint log-probability of the best paths, labels (n_frames,))``."""
+    def decode(self, X: np.ndarray, lengths=None, *, offsets=None) -> tuple[float, np.ndarray]:
+        """Viterbi: ``(joint log-probability of the best paths, labels (n_frames,))``
+        (``offsets``: :meth:`score`)."""
         labels = np.empty(len(X), dtype=np.int64)
         logprob = 0.0
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets):
             labels[a:b], best = viterbi_log(log_b, self.startprob_, self.transmat_, sub)
             logprob += float(best.sum())
         return logprob, labels
 
-    def predict(self, X: np.ndarray, lengths=None) -> np.ndarray:
-        """Most probable state path (Viterbi), int labels (n_frames,)."""
-        return self.decode(X, lengths)[1]
+    def predict(self, X: np.ndarray, lengths=None, *, offsets=None) -> np.ndarray:
+        """Most probable state path (Viterbi), int labels (n_frames,) (``offsets``:
+        :meth:`score`)."""
+        return self.decode(X, lengths, offsets=offsets)[1]
 
     def predict_min_duration(
-        self, X: np.ndarray, lengths=None, min_frames: int = 1, outlier_share: float = 0.0
+        self,
+        X: np.ndarray,
+        lengths=None,
+        min_frames: int = 1,
+        outlier_share: float = 0.0,
+        *,
+        offsets=None,
     ) -> tuple[np.ndarray, np.ndarray]:
         """Labels whose every bout lasts at least ``min_frames``, and their posteriors.
 
@@ -581,7 +629,7 @@ class GaussianHMM(BaseEstimator):
         ``min_frames`` is one bout. ``outlier_share`` > 0 takes that share of frames to be
         uninformative (:func:`ethoscribe.segment.duration.with_outlier_frames`). With
         ``min_frames=1`` and ``outlier_share=0`` this is :meth:`predict` and
-        :meth:`predict_proba`.
+        :meth:`predict_proba` (``offsets``: :meth:`score`).
 
         Returns
         -------
@@ -594,7 +642,7 @@ class GaussianHMM(BaseEstimator):
         labels = np.empty(len(X), dtype=np.int64)
         proba = np.empty((len(X), self.n_states_))
         start, trans = self.startprob_, self.transmat_
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets):
             if outlier_share > 0:
                 log_b = duration.with_outlier_frames(log_b, outlier_share)
             labels[a:b] = duration.viterbi(log_b, start, trans, min_frames, sub)[0]
@@ -607,9 +655,11 @@ class GaussianHMM(BaseEstimator):
         check_fitted(self, "means_")
         return parameter_count(self.n_states_, self.n_features_in_, self.covariance_type)
 
-    def bic(self, X: np.ndarray, lengths=None) -> float:
-        """Bayesian information criterion ``-2 log L + n_parameters * log(n_frames)``."""
-        return -2.0 * self.score(X, lengths) + self.n_parameters() * float(np.log(len(X)))
+    def bic(self, X: np.ndarray, lengths=None, *, offsets=None) -> float:
+        """Bayesian information criterion ``-2 log L + n_parameters * log(n_frames)``
+        (``offsets``: :meth:`score`)."""
+        ll = self.score(X, lengths, offsets=offsets)
+        return -2.0 * ll + self.n_parameters() * float(np.log(len(X)))
 
     # ------------------------------------------------------------------------- persistence
     def to_state(self) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
@@ -703,6 +753,21 @@ class GaussianHMM(BaseEstimator):
 
 
 _MAX_STATES = 1000  # a saved state count beyond this is damage, not a model
+
+
+def _checked_offsets(offsets: Any, lengths: np.ndarray, n_features: int) -> np.ndarray | None:
+    """Given session offsets as a float array (n_sessions, n_features), checked; None: None."""
+    if offsets is None:
+        return None
+    b = np.asarray(offsets, dtype=np.float64)
+    if b.shape != (len(lengths), n_features) or not np.isfinite(b).all():
+        msg = (
+            f"offsets must be finite numbers of shape ({len(lengths)}, {n_features}), one row "
+            f"per session of lengths (as GaussianHMM.offsets gives them); got shape {b.shape}"
+            + ("" if b.shape != (len(lengths), n_features) else " with NaN or infinite values")
+        )
+        raise InputError(msg)
+    return b
 
 
 def _offsets_from_state(model: GaussianHMM, meta: Mapping[str, Any], arrays) -> None:

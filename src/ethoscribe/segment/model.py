@@ -469,8 +469,9 @@ class BehaviourModel(BaseEstimator):
             segmenter.fit(X, lengths)
         if selection is None:  # a segmenter that chose its own count may show how
             selection = getattr(segmenter, "selection_", None)
+        offsets = _offsets_of(segmenter, X, lengths)  # once, for the joins and the threshold
         self.phase_groups_, self.phase_pairs_, self.unit_pairs_, self.mode_pairs_ = (
-            self._phase_groups(segmenter, feats[0].columns, X, lengths)
+            self._phase_groups(segmenter, feats[0].columns, X, lengths, offsets)
         )
         self.random_seed_ = seed
         self.cleaning_ = params
@@ -497,11 +498,16 @@ class BehaviourModel(BaseEstimator):
         self.quality_ = list(quality)
         self.training_sessions_ = [s.session for s in sessions]
         self.n_training_frames_ = int(lengths.sum())
-        self.poor_fit_threshold_ = poor_fit_threshold(segmenter, X, lengths)
+        self.poor_fit_threshold_ = poor_fit_threshold(segmenter, X, lengths, offsets)
         return feats
 
     def _phase_groups(
-        self, segmenter: Any, columns: Sequence[str], X: np.ndarray, lengths: np.ndarray
+        self,
+        segmenter: Any,
+        columns: Sequence[str],
+        X: np.ndarray,
+        lengths: np.ndarray,
+        offsets: np.ndarray | None = None,
     ) -> tuple[list[int] | None, list[dict], list[dict], list[dict]]:
         """Labelled state of every fitted state when ``join_phases`` / ``join_units`` /
         ``join_modes`` join some (None when nothing is joined, the options are off, the model
@@ -526,6 +532,7 @@ class BehaviourModel(BaseEstimator):
             lengths,
             phases=bool(self.join_phases),
             modes=modes,
+            offsets=offsets,
         )
 
     def _to_labelled(self, states: np.ndarray, prob: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -597,26 +604,44 @@ class BehaviourModel(BaseEstimator):
         """
         sessions = list(sessions)
         feats, _ = self.transform_features(sessions)
-        labels = self.label_features(feats)
-        for text in poor_fit_messages(self.fit_shares(feats), self):
+        offsets = self.offsets(feats)  # once, for the labels and the fit check
+        labels = self.label_features(feats, offsets=offsets)
+        for text in poor_fit_messages(self.fit_shares(feats, offsets=offsets), self):
             warnings.warn(text, InputWarning, stacklevel=2)
         if getattr(self, "labels_at_input_rate_", False):
             labels = _at_input_rate(labels, sessions, self.fps_)
         return labels
 
-    def label_features(self, feats: Sequence[FeatureSet]) -> pd.DataFrame:
-        """Label already computed feature sets (see :meth:`label`)."""
+    def offsets(self, feats: Sequence[FeatureSet]) -> np.ndarray | None:
+        """Session offset of every feature set with valid frames under the fitted segmenter
+        (``GaussianHMM`` with ``session_offsets``), shape (n_sets_with_valid_frames, D); None
+        for a segmenter without offsets. The same estimate :meth:`label_features` and
+        :meth:`fit_shares` make; compute it once and pass it to both when they read the same
+        feature sets."""
+        check_fitted(self, "segmenter_")
+        if not any(f.valid.any() for f in feats):
+            return None
+        return _offsets_of(self.segmenter_, *stack_valid(feats))
+
+    def label_features(
+        self, feats: Sequence[FeatureSet], offsets: np.ndarray | None = None
+    ) -> pd.DataFrame:
+        """Label already computed feature sets (see :meth:`label`); ``offsets`` as
+        :meth:`offsets` gives them for ``feats`` (None: estimated here)."""
         check_fitted(self, "segmenter_")
         min_frames = round(self.min_bout_s * self.fps_)
         if any(f.valid.any() for f in feats):
             X, lengths = stack_valid(feats)
-            states, prob = self._states_and_probability(X, lengths, min_frames)
+            if offsets is None:
+                offsets = _offsets_of(self.segmenter_, X, lengths)
+            self._check_offsets(offsets, len(lengths))
+            states, prob = self._states_and_probability(X, lengths, min_frames, offsets)
         else:  # nothing to decode (e.g. one session, all invalid): every frame stays -1
             X, lengths = np.zeros((0, 0)), np.zeros(0, dtype=np.int64)
             states, prob = np.zeros(0, dtype=np.int64), np.zeros((0, self.n_states_))
         # Posterior of the label given; clipped because scaled recursions round to 1 + 1e-15.
         prob = np.clip(np.take_along_axis(prob, states[:, None], axis=1)[:, 0], 0.0, 1.0)
-        fine = self._fine_states(X, lengths)
+        fine = self._fine_states(X, lengths, offsets)
         tables = []
         parts = [split_by_lengths(states, lengths), split_by_lengths(prob, lengths)]
         if fine is not None:
@@ -650,7 +675,9 @@ class BehaviourModel(BaseEstimator):
         labels.insert(5, "motif", names[labels["state"].to_numpy() + 1])
         return labels
 
-    def fit_shares(self, feats: Sequence[FeatureSet]) -> list[dict[str, Any]]:
+    def fit_shares(
+        self, feats: Sequence[FeatureSet], offsets: np.ndarray | None = None
+    ) -> list[dict[str, Any]]:
         """How well the model explains each session's frames, one record per session.
 
         A frame is poorly explained when its log-likelihood under its best state (the Gaussian
@@ -660,7 +687,8 @@ class BehaviourModel(BaseEstimator):
         animals or another camera scale). Records: ``session``, ``n_frames`` (scored frames,
         all animals), ``n_poor`` and ``share`` (n_poor / n_frames; None without frames).
         Empty when the model has no threshold (saved before it was kept, or a method
-        without Gaussian states).
+        without Gaussian states). ``offsets``: as :meth:`offsets` gives them for ``feats``
+        (None: estimated here), the offsets the labels were made with.
         """
         check_fitted(self, "segmenter_")
         threshold = getattr(self, "poor_fit_threshold_", None)
@@ -668,13 +696,18 @@ class BehaviourModel(BaseEstimator):
             return []
         seg = self.segmenter_
         with_offsets = bool(getattr(seg, "session_offsets", False))
+        if with_offsets and offsets is None:
+            offsets = self.offsets(feats)
+        self._check_offsets(offsets, sum(bool(f.valid.any()) for f in feats))
         counts: dict[str, list[int]] = {}
         distance: dict[str, float] = {}
+        row = 0  # the feature set's row of offsets (sets with valid frames)
         for f in feats:
             n, poor = counts.setdefault(str(f.session), [0, 0]), 0
             if f.valid.any():
                 values = f.values[f.valid]
-                b = seg.offsets(values, [len(values)]) if with_offsets else None
+                b = offsets[row : row + 1] if with_offsets else None
+                row += 1
                 ll = best_state_log_likelihood(seg, values, [len(values)], b)
                 if ll is None:
                     return []
@@ -693,7 +726,26 @@ class BehaviourModel(BaseEstimator):
             for s, (n, k) in counts.items()
         ]  # fmt: skip
 
-    def _fine_states(self, X: np.ndarray, lengths: np.ndarray) -> np.ndarray | None:
+    def _check_offsets(self, offsets: np.ndarray | None, n_sequences: int) -> None:
+        """Offsets are given for a segmenter with them, one row per sequence."""
+        if offsets is None:
+            return
+        if not getattr(self.segmenter_, "session_offsets", False):
+            msg = (
+                f"offsets were given but this model's segmenter ({self.method!r}) has no "
+                "session offsets; pass offsets=None"
+            )
+            raise InputError(msg)
+        if len(offsets) != n_sequences:
+            msg = (
+                f"offsets has {len(offsets)} rows but {n_sequences} feature sets have valid "
+                "frames; pass BehaviourModel.offsets of the same feature sets"
+            )
+            raise InputError(msg)
+
+    def _fine_states(
+        self, X: np.ndarray, lengths: np.ndarray, offsets: np.ndarray | None = None
+    ) -> np.ndarray | None:
         """Fine state of every valid frame when the labels are groups of fine states (a
         segmenter with ``predict_fine``, e.g. ``method="grouped_hmm"``); None otherwise."""
         seg = self.segmenter_
@@ -703,7 +755,7 @@ class BehaviourModel(BaseEstimator):
         if len(X) == 0:
             return np.zeros(0, dtype=np.int64)
         if joined:  # the fitted states under the phase-joined labels
-            return np.asarray(seg.predict(X, lengths), dtype=np.int64)
+            return np.asarray(seg.predict(X, lengths, **_given(offsets)), dtype=np.int64)
         return np.asarray(seg.predict_fine(X, lengths), dtype=np.int64)
 
     def suggested_merges(self, labels: pd.DataFrame | None = None, top: int = 10) -> list[dict]:
@@ -777,20 +829,23 @@ class BehaviourModel(BaseEstimator):
         return [v for v in groups.values() if len(v) >= 2]
 
     def _states_and_probability(
-        self, X: np.ndarray, lengths: np.ndarray, min_frames: int
+        self, X: np.ndarray, lengths: np.ndarray, min_frames: int, offsets: np.ndarray | None
     ) -> tuple[np.ndarray, np.ndarray]:
         """Labels (n_frames,) and state probabilities (n_frames, K) of the stacked frames,
-        every bout at least ``min_frames`` long (except in causal models)."""
+        every bout at least ``min_frames`` long (except in causal models); ``offsets``: the
+        sequences' session offsets (None: the segmenter has none)."""
         seg = self.segmenter_
         if self.causal:  # what streaming gives: the forward filter's most probable state
             prob = _filtered(self.method, seg, X, lengths)
             return np.argmax(prob, axis=1), prob
         chain = getattr(seg, "predict_min_duration", None)
+        given = _given(offsets)
         if min_frames > 1 and self.decoding == "min_duration" and chain is not None:
             # joined phases only merge neighbouring bouts, each already >= the minimum
-            return self._to_labelled(*chain(X, lengths, min_frames, OUTLIER_SHARE))
+            return self._to_labelled(*chain(X, lengths, min_frames, OUTLIER_SHARE, **given))
         if get_segmenter(self.method).posteriors:
-            states, prob = seg.predict(X, lengths), seg.predict_proba(X, lengths)
+            states = seg.predict(X, lengths, **given)
+            prob = seg.predict_proba(X, lengths, **given)
             # phases joined before the minimum bout: a phase is shorter than a bout
             states, prob = self._to_labelled(states, prob)
         else:
@@ -954,6 +1009,19 @@ class BehaviourModel(BaseEstimator):
         return model
 
 
+def _offsets_of(segmenter: Any, X: np.ndarray, lengths: np.ndarray) -> np.ndarray | None:
+    """Every sequence's session offset under ``segmenter`` (``GaussianHMM.offsets``), to be
+    estimated once for every use of the same frames; None for a segmenter without offsets."""
+    if not getattr(segmenter, "session_offsets", False) or not len(X):
+        return None
+    return segmenter.offsets(X, lengths)
+
+
+def _given(offsets: np.ndarray | None) -> dict[str, np.ndarray]:
+    """``offsets=`` for a segmenter's decoding call when there are offsets to give."""
+    return {} if offsets is None else {"offsets": offsets}
+
+
 def check_one_rate(rates: Iterable[float]) -> None:
     """Refuse sessions of different frame rates, naming the rate to resample them to."""
     rates = sorted({float(r) for r in rates})
@@ -993,11 +1061,15 @@ def best_state_log_likelihood(
 
 
 def poor_fit_threshold(
-    segmenter: Any, X: np.ndarray, lengths: Sequence[int] | None = None
+    segmenter: Any,
+    X: np.ndarray,
+    lengths: Sequence[int] | None = None,
+    offsets: np.ndarray | None = None,
 ) -> float | None:
     """The 1st percentile (``POOR_FIT_PERCENTILE``) of the training frames' best-state
-    log-likelihood (:func:`best_state_log_likelihood`); None without Gaussian states."""
-    ll = best_state_log_likelihood(segmenter, X, lengths)
+    log-likelihood (:func:`best_state_log_likelihood`, ``offsets`` as there); None without
+    Gaussian states."""
+    ll = best_state_log_likelihood(segmenter, X, lengths, offsets)
     if ll is None or not len(ll):
         return None
     return float(np.percentile(ll, POOR_FIT_PERCENTILE))
@@ -1196,6 +1268,7 @@ def joined_states(
     lengths: Any,
     phases: bool = True,
     modes: bool = False,
+    offsets: np.ndarray | None = None,
 ) -> tuple[list[int] | None, list[dict], list[dict], list[dict]]:
     """Labelled state of every fitted state of ``segmenter`` (Gaussian states, transitions),
     with the pairs joined and their evidence; None when nothing is joined.
@@ -1205,7 +1278,8 @@ def joined_states(
     that are one behaviour in different units (:func:`ethoscribe.segment.lumping.
     join_across_units`, shares of the units' frames from the state posteriors). ``modes``:
     also join parts of one mode (:func:`ethoscribe.segment.lumping.join_modes`). The sets of
-    pairs are joined together (connected components).
+    pairs are joined together (connected components). ``offsets``: the units' session offsets
+    (``GaussianHMM.offsets``) when the segmenter has them, else None (estimated if needed).
     """
     n = int(segmenter.n_states_)
     phase_pairs: list[dict] = []
@@ -1224,7 +1298,7 @@ def joined_states(
         ]
     unit_pairs: list[dict] = []
     if X is not None and lengths is not None and len(lengths) >= 2 and n >= 2:
-        share = unit_shares(segmenter.predict_proba(X, lengths), lengths)
+        share = unit_shares(segmenter.predict_proba(X, lengths, **_given(offsets)), lengths)
         _, found = join_across_units(segmenter.means_, share, mutual=True)
         overlap = unit_overlap(share)
         means = np.asarray(segmenter.means_, dtype=np.float64)

@@ -166,6 +166,11 @@ def _units(lengths: np.ndarray, heldout: str, block_frames: int | None, rng) -> 
     return units
 
 
+def _rows(given: dict[str, np.ndarray], keep: np.ndarray) -> dict[str, np.ndarray]:
+    """The session offsets of ``given`` (if any) of the sessions ``keep`` (bool per session)."""
+    return {name: value[keep] for name, value in given.items()}
+
+
 def _take(X: np.ndarray, units: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     parts = [X[a:b] for a, b in zip(units["start"], units["stop"], strict=True)]
     return np.concatenate(parts), (units["stop"] - units["start"]).to_numpy(np.int64)
@@ -396,8 +401,12 @@ def select_n_states(
         rows = []
         for k in tqdm(feasible, desc="state counts", disable=not progress):
             m = make(k).fit(X, lengths)
-            ll = m.score(X, lengths)
-            rows.append((k, np.nan, m.bic(X, lengths), ll / len(X), m.n_parameters()))
+            # a model with session offsets: estimated once for the score and the BIC
+            given = {}
+            if getattr(m, "session_offsets", False):
+                given = {"offsets": m.offsets(X, lengths)}
+            ll = m.score(X, lengths, **given)
+            rows.append((k, np.nan, m.bic(X, lengths, **given), ll / len(X), m.n_parameters()))
         table = pd.DataFrame(rows, columns=["n_states", "heldout_ll_per_frame", "bic",
                                             "train_ll_per_frame", "n_parameters"])  # fmt: skip
         best = int(table["n_states"][int(np.argmin(table["bic"]))])
@@ -418,12 +427,18 @@ def select_n_states(
         X_te, len_te = _take(X, units[units["fold"] == f])
         m = make(k).fit(X_tr, len_tr)
         bar.update(1)
+        # Held-out sessions: every session's offset (a model with session offsets) estimated
+        # once, for its labels and its score; held-out blocks get offsets of their own.
+        test, given = units["fold"].to_numpy() == f, {}
+        if heldout == "sessions" and getattr(m, "session_offsets", False):
+            given = {"offsets": m.offsets(X, lengths)}
         # Every frame labelled by this fold's model: the two folds' labelings are compared.
-        labels = m.predict(X, lengths)
+        labels = m.predict(X, lengths, **given)
         # only a non-default scoring is passed: other methods' scores need not know it
         scoring = {} if offset_scoring == "map" else {"offset_scoring": offset_scoring}
-        ll_te = m.score_per_session(X_te, len_te, **scoring)
-        return ll_te, m.score(X_tr, len_tr), len(X_tr), m.n_parameters(), labels, m
+        ll_te = m.score_per_session(X_te, len_te, **scoring, **_rows(given, test))
+        ll_tr = m.score(X_tr, len_tr, **_rows(given, ~test))
+        return ll_te, ll_tr, len(X_tr), m.n_parameters(), labels, m
 
     # The fits are independent (each seeded alike): on threads, results equal a serial loop.
     # With ``stop_after`` candidates are fitted in rounds, smallest first (one candidate's two

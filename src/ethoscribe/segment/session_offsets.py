@@ -249,7 +249,9 @@ def label_offsets(model, X: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     return b
 
 
-def marginal_log_likelihood(model, X: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+def marginal_log_likelihood(
+    model, X: np.ndarray, lengths: np.ndarray, offsets: np.ndarray | None = None
+) -> np.ndarray:
     """Log-likelihood of every session (sequence of ``lengths``) with its offset integrated
     over its prior, by Laplace's method around the MAP offset (module doc). Shape (n_sessions,).
 
@@ -277,8 +279,10 @@ def marginal_log_likelihood(model, X: np.ndarray, lengths: np.ndarray) -> np.nda
     ----------
     model : fitted ``GaussianHMM`` with ``session_offsets``
     X : array (n_frames, n_features); lengths : int array (n_sessions,)
+    offsets : array (n_sessions, n_features), optional
+        The MAP offsets when already estimated (:func:`label_offsets`); None: estimated here.
     """
-    b = label_offsets(model, X, lengths)
+    b = label_offsets(model, X, lengths) if offsets is None else offsets
     frame_session = np.repeat(np.arange(len(lengths)), lengths)
     fb = gaussian_posteriors(
         X - b[frame_session], lengths, model.startprob_, model.transmat_, model.means_,

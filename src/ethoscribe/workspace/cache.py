@@ -224,7 +224,8 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
         dataclasses.replace(f, meta={**f.meta, "first_frame": first})
         for f in (given if given is not None else model.featurise_cleaned([tracks]))
     ]
-    labels = input_frame_numbers(model.label_features(feats), first, tracks.fps)
+    offsets = model.offsets(feats)  # once, for the labels and the fit check
+    labels = input_frame_numbers(model.label_features(feats, offsets), first, tracks.fps)
     write_table(labels, f"{base}.labels.parquet")
     names = []
     for i, f in enumerate(feats):
@@ -232,7 +233,7 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
         save_features(folder / names[-1], f)
     info = {"session": tracks.session, "labels": f"{base.name}.labels.parquet", "features": names}
     if job.get("fit_check"):  # how well the model explains the session's frames (label)
-        info["fit"] = model.fit_shares(feats)
+        info["fit"] = model.fit_shares(feats, offsets)
     atomic_write_json(done, info)  # last: its presence says the entry is complete
     return _absolute(info, folder)
 
