@@ -242,6 +242,10 @@ def test_offsets_given_once_equal_those_estimated_inside(planted):
     )
     assert model.score(X, lengths, offsets=b) == model.score(X, lengths)
     assert model.bic(X, lengths, offsets=b) == model.bic(X, lengths)
+    np.testing.assert_array_equal(  # Laplace's method around the MAP offsets given
+        model.score_per_session(X, lengths, "marginal", offsets=b),
+        model.score_per_session(X, lengths, "marginal"),
+    )
     given = model.predict_min_duration(X, lengths, 10, 0.01, offsets=b)
     inside = model.predict_min_duration(X, lengths, 10, 0.01)
     assert np.array_equal(given[0], inside[0]) and np.array_equal(given[1], inside[1])
