@@ -124,9 +124,7 @@ def test_blocks_of_one_behaviour_no_longer_explained_by_their_offsets():
     X = np.concatenate([rng.normal(m, 1, (50, 1)) for m in (0, 8) * 12])
     options = dict(candidates=[1, 2, 3], heldout="blocks", block_frames=50, rule="elbow")
     params = {"n_restarts": 1}
-    plugged = select_n_states(X, [300] * 4, model_params=params, **options)
-    marginal = select_n_states(
-        X, [300] * 4, model_params=params, offset_scoring="marginal", **options
-    )
+    plugged = select_n_states(X, [300] * 4, model_params=params, offset_scoring="map", **options)
+    marginal = select_n_states(X, [300] * 4, model_params=params, **options)  # the default
     assert plugged.best == 1
     assert marginal.best == 2

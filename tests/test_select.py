@@ -180,7 +180,9 @@ def test_heldout_sessions_read_each_sessions_offset_once(four_states, monkeypatc
     # session's offset once, for its labels and both its scores. Both folds' scores together
     # cover every session under both models: held-out + training log-likelihood per frame is
     # the two models' scores of all sessions, each session's frames minus its offset
-    # (reference library: hmmlearn 0.3.3 GaussianHMM, implementation="scaling").
+    # (reference library: hmmlearn 0.3.3 GaussianHMM, implementation="scaling"). Held-out
+    # sessions scored with their offsets plugged in ("map"; the default integrates them out,
+    # checked in test_offset_marginal.py).
     from hmmlearn.hmm import GaussianHMM as ReferenceHMM
 
     import ethoscribe.segment.hmm as hmm_module
@@ -189,7 +191,7 @@ def test_heldout_sessions_read_each_sessions_offset_once(four_states, monkeypatc
     calls = []
     original = hmm_module.label_offsets
     monkeypatch.setattr(hmm_module, "label_offsets", lambda *a: calls.append(1) or original(*a))
-    sel = select_n_states(X, lengths, candidates=[3, 4], model_params=FAST)
+    sel = select_n_states(X, lengths, candidates=[3, 4], model_params=FAST, offset_scoring="map")
     assert len(calls) == 2 * 2  # two candidates, two folds, one estimate each
     monkeypatch.setattr(hmm_module, "label_offsets", original)
     table = sel.table.set_index("n_states")

@@ -280,7 +280,7 @@ def select_n_states(
     rule: str = "one_se",
     method: str = "hmm",
     stop_after: int | None = None,
-    offset_scoring: str = "map",
+    offset_scoring: str = "marginal",
 ) -> StateCountSelection:
     """Fit a model for each candidate state count and pick one (rule in the module doc).
 
@@ -434,8 +434,9 @@ def select_n_states(
             given = {"offsets": m.offsets(X, lengths)}
         # Every frame labelled by this fold's model: the two folds' labelings are compared.
         labels = m.predict(X, lengths, **given)
-        # only a non-default scoring is passed: other methods' scores need not know it
-        scoring = {} if offset_scoring == "map" else {"offset_scoring": offset_scoring}
+        # "map" is every model's own score: the option goes only to a model with offsets
+        marginal = offset_scoring == "marginal" and getattr(m, "session_offsets", False)
+        scoring = {"offset_scoring": "marginal"} if marginal else {}
         ll_te = m.score_per_session(X_te, len_te, **scoring, **_rows(given, test))
         ll_tr = m.score(X_tr, len_tr, **_rows(given, ~test))
         return ll_te, ll_tr, len(X_tr), m.n_parameters(), labels, m
@@ -569,7 +570,7 @@ def choose_n_states(
     rule: str = "elbow",
     heldout: str = "sessions",
     fit_rate: float | None = None,
-    offset_scoring: str = "map",
+    offset_scoring: str = "marginal",
 ) -> StateCountSelection:
     """The automatic state count of ``BehaviourModel``: the held-out elbow, fitted quickly.
 
