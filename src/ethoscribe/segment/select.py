@@ -3,6 +3,11 @@
 Held-out: the data are split into two folds of whole units (sessions, or blocks of frames that
 alternate inside every session); a model fitted on one fold scores every unit of the other, and
 the other way round (2-fold cross-fitting), so each unit gets an out-of-sample log-likelihood.
+With the HMM's per-session offsets a held-out unit is a new individual: its log-likelihood is
+its marginal likelihood, the offset integrated over the fitted prior (``offset_scoring=
+"marginal"``, Laplace's method; :func:`ethoscribe.segment.session_offsets.marginal_log_likelihood`).
+Plugging in the unit's own MAP offset (``"map"``) credits it with a free shift: a unit of one
+behaviour is then explained by one state plus its offset, and the count falls.
 
 Two rules read the held-out curve ``ll(K)`` (log-likelihood per frame):
 
@@ -331,8 +336,7 @@ def select_n_states(
     --------
     >>> rng = np.random.default_rng(0)
     >>> # four sessions, each with bouts of two behaviours (levels 0 and 8); whole sessions
-    >>> # are held out (with the HMM's per-session offsets, a held-out block of one behaviour
-    >>> # would be explained by its own offset)
+    >>> # are held out
     >>> X = np.concatenate([rng.normal(m, 1, (50, 1)) for m in (0, 8) * 12])
     >>> sel = select_n_states(X, [300] * 4, candidates=[1, 2, 3],
     ...                       model_params={"n_restarts": 1})

@@ -46,7 +46,8 @@ session's future: it uses ``b = 0``, the typical individual.
 one state plus its offset. Its marginal likelihood ``log p(x) = log int p(x | b) p(b) db``
 counts the offset as what it is, a draw from the prior. :func:`marginal_log_likelihood`
 approximates it by Laplace's method around the MAP offset (Tierney & Kadane 1986; the
-random-intercept marginal of Laird & Ware 1982 is its linear-Gaussian case).
+random-intercept marginal of Laird & Ware 1982 is its linear-Gaussian case). The state count
+scores held-out units this way by default (:mod:`ethoscribe.segment.select`).
 """
 
 from __future__ import annotations
