@@ -119,6 +119,11 @@ class TableWriter:
     def close(self) -> None:
         """Finish the requested rewrites and stop the worker."""
         self.wait()
-        if self._pool is not None:
-            self._pool.shutdown(wait=True)
-            self._pool = None
+        pool, self._pool = self._pool, None
+        if pool is not None:
+            try:
+                pool.shutdown(wait=True)
+            except OSError:
+                # At interpreter exit the executor's own exit hook has already shut it and
+                # closed its pipes (a workbench closed by garbage collection then).
+                pass
