@@ -282,3 +282,29 @@ def test_a_discovery_for_streaming_labels_as_the_stream_does(study, tmp_path):
     agree = float(np.mean(np.array(streamed) == saved))
     print(f"\ndiscover(causal=True): streamed vs saved labels agree on {agree:.2%} of frames")
     assert agree >= 0.99
+
+
+def test_a_labelled_cohort_says_which_model_labelled_it(study, workspace, tmp_path, monkeypatch):
+    """A cohort labelled with a curated model: the run's message counts the curated motifs
+    (not the fitted states) and, like summary.json and the report, names the workspace whose
+    model labelled it by its full path (a relative path means nothing once the folder moves)."""
+    import shutil
+
+    from ethoscribe.workspace.report_sections import model_section
+
+    ws = Workspace(shutil.copytree(workspace.path, tmp_path / "trained"))
+    ws.merge_motifs(["motif_02", "motif_03"], into="moving")  # 4 states -> 3 motifs
+    monkeypatch.chdir(tmp_path)
+    cohort = label_sessions(
+        "trained", [study / "session_02.parquet"], "cohort", manifest=study / "manifest.csv",
+        progress=False,
+    )  # fmt: skip
+    source = str((tmp_path / "trained").resolve())
+    assert cohort.summary["labelled_with"] == source
+    said = cohort.describe()
+    assert "3 motifs" in said and f"labelled with the model of {source}" in said
+    section = model_section(cohort)
+    assert f"Labelled with the saved model of {source}" in section.text
+    assert "not refitted" in section.text
+    fit = [t for caption, t in section.tables if "explained" in caption]
+    assert fit and list(fit[0]["session"]) == ["session_02"]

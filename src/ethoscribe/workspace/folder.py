@@ -420,9 +420,19 @@ class Workspace:
         s = self.summary
         skipped = self.journal_problems()
         note = f" {len(skipped)} journal line(s) skipped: {'; '.join(skipped)}." if skipped else ""
+        # Motifs as curated (merges count once), not the fitted states; skipped journal
+        # lines are said in the note, not warned again
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", JournalWarning)
+                n_motifs = len(self.curation().motifs)
+        except WorkspaceError:
+            n_motifs = s["n_states"]
+        source = s.get("labelled_with")
+        labelled = f", labelled with the model of {source}" if source else ""
         return (
             f"workspace {self.path}: {s['n_sessions']} sessions, {s['n_frames']} frames, "
-            f"{s['n_states']} motifs; files: labels.csv, bouts.csv, transitions.csv, "
+            f"{n_motifs} motifs{labelled}; files: labels.csv, bouts.csv, transitions.csv, "
             f"time_budget.csv, quality.csv, summary.json, model/.{note} {CAUTION}"
         )
 

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from types import SimpleNamespace
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -99,11 +100,22 @@ def model_section(ws: Workspace) -> Section:
     summary = ws.summary
     params = summary.get("parameters") or {}
     chosen = "chosen from the data" if params.get("n_states") == "auto" else "set by the user"
-    text = (
-        f"{summary.get('n_states')} states ({chosen}), method {params.get('method', '?')}, "
-        f"seed {summary.get('seed')}; {summary.get('n_sessions')} sessions, "
-        f"{summary.get('n_frames')} frames ({summary.get('n_training_frames', '?')} used to fit)."
-    )
+    source = summary.get("labelled_with")
+    if source:  # a new cohort: the states and their choice come from the source's fit
+        text = (
+            f"Labelled with the saved model of {source} (not refitted on these sessions): "
+            f"{summary.get('n_states')} states ({chosen} there), method "
+            f"{params.get('method', '?')}, seed {summary.get('seed')}, fitted on "
+            f"{summary.get('n_training_frames', '?')} frames; here {summary.get('n_sessions')} "
+            f"sessions, {summary.get('n_frames')} frames."
+        )
+    else:
+        text = (
+            f"{summary.get('n_states')} states ({chosen}), method {params.get('method', '?')}, "
+            f"seed {summary.get('seed')}; {summary.get('n_sessions')} sessions, "
+            f"{summary.get('n_frames')} frames ({summary.get('n_training_frames', '?')} used to "
+            "fit)."
+        )
     offsets = summary.get("individual_offsets")
     if offsets:
         text += (
@@ -113,6 +125,14 @@ def model_section(ws: Workspace) -> Section:
             f"spread about {offsets['relative_spread']:.2g} of a state's own spread."
         )
     figures, tables = [], []
+    fit = _fit_to_model_table(summary.get("fit_to_model"))
+    if fit is not None:
+        text += (
+            " How well the model explains each session: the share of its frames less likely "
+            "than the worst 1 % of the training frames (about 1 % for animals like the "
+            f"training ones; above {fit.attrs['warn_above']:.0%} they differ, see the table)."
+        )
+        tables.append(("Sessions explained by the model (% of frames poorly explained)", fit))
     choice = summary.get("state_count_choice")
     if choice:
         table = pd.DataFrame(choice["table"])
@@ -143,6 +163,23 @@ def model_section(ws: Workspace) -> Section:
     else:
         text += " No stability check was run."
     return Section("The model's choices", text, figures, tables)
+
+
+def _fit_to_model_table(fit: Any) -> pd.DataFrame | None:
+    """``session, % poorly explained, flagged`` from summary.json's ``fit_to_model``."""
+    if not isinstance(fit, dict) or not fit.get("checked") or not fit.get("sessions"):
+        return None
+    rows = pd.DataFrame(fit["sessions"])
+    flagged = {str(s) for s in fit.get("flagged") or []}
+    table = pd.DataFrame(
+        {
+            "session": rows["session"].astype(str),
+            "% poorly explained": (100 * rows["share"].astype(float)).round(1),
+            "flagged": rows["session"].astype(str).isin(flagged),
+        }
+    )
+    table.attrs["warn_above"] = float(fit.get("warn_above", 0.1))
+    return table
 
 
 def _state_names(ws: Workspace) -> dict[int, str]:

@@ -455,7 +455,7 @@ def label_sessions(
         )
         decoded = _decode(out, prepared, model, jobs, client, force, progress, fit_check=True)
         summary = _summary(model, table, model.random_state, None)
-        summary["labelled_with"] = str(source)
+        summary["labelled_with"] = str(source.resolve())
         summary["cleaning"] = cleaning_summary(cleaning, used, table)
         summary["reading"] = reading_summary(plan)
         summary["fit_to_model"] = _fit_to_model(model, decoded)
