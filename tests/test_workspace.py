@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 from _example_study import trimmed_study
-from ethoscribe.errors import InputError, JournalWarning, WorkspaceError
+from ethoscribe.errors import InputError, InputWarning, JournalWarning, WorkspaceError
 from ethoscribe.io import read_tidy
 from ethoscribe.workspace import Workspace, discover, read_journal
 from ethoscribe.workspace.runs import label_sessions
@@ -308,3 +308,34 @@ def test_a_labelled_cohort_says_which_model_labelled_it(study, workspace, tmp_pa
     assert "not refitted" in section.text
     fit = [t for caption, t in section.tables if "explained" in caption]
     assert fit and list(fit[0]["session"]) == ["session_02"]
+
+
+def test_a_cohort_filmed_faster_than_the_model_is_resampled_to_its_rate(study, workspace, tmp_path):
+    """A new cohort filmed at twice the model's frame rate: labelling stopped with 'resample it
+    (cleaning target_fps)', an option ``label`` does not have. Now the session is resampled to
+    the model's rate (as discover's target_fps does) and the user is told; a slower cohort is
+    refused before any work, with the fix."""
+    manifest = pd.read_csv(study / "manifest.csv")
+    row = manifest[manifest["session"] == "session_02"].copy()
+    fast = row.assign(fps=60.0)  # the same file declared at 60 fps: 2700 frames, 45 s
+    fast["path"] = str(study / "session_02.parquet")
+    fast.to_csv(tmp_path / "fast.csv", index=False)
+    with pytest.warns(InputWarning) as said:
+        cohort = label_sessions(
+            workspace.path, [], tmp_path / "cohort", manifest=tmp_path / "fast.csv",
+            progress=False,
+        )  # fmt: skip
+    said = [str(w.message) for w in said]
+    assert any("'session_02' (60 fps) resampled to the model's 30 fps" in m for m in said)
+    # its animal moves twice as fast as any in training: the fit check says so
+    assert all("resampled" in m or "explains" in m for m in said)
+    labels = cohort.state_labels()
+    # 45 s at 30 fps: frame j at j / 30 s, up to the last input frame (2699 / 60 s)
+    assert len(labels) == 1350 and labels["time_s"].iloc[-1] == pytest.approx(1349 / 30)
+    slow = row.assign(fps=15.0, path=str(study / "session_02.parquet"))
+    slow.to_csv(tmp_path / "slow.csv", index=False)
+    with pytest.raises(InputError, match=r"'session_02'.*15 fps.*slower than the model's 30"):
+        label_sessions(
+            workspace.path, [], tmp_path / "slow", manifest=tmp_path / "slow.csv", progress=False
+        )
+    assert not (tmp_path / "slow" / "labels.csv").exists()

@@ -223,7 +223,7 @@ def discover(
 def _prepare(
     out: Path,
     plan: Sequence[dict[str, Any]],
-    cleaning: dict[str, Any],
+    cleaning: dict[str, Any] | Sequence[dict[str, Any]],
     jobs: int | None,
     client: Any,
     force: bool,
@@ -232,6 +232,7 @@ def _prepare(
 ) -> tuple[list[dict[str, Any]], list[pd.DataFrame], pd.DataFrame, list[Any]]:
     """Read and clean every session (in parallel, through the cache).
 
+    ``cleaning`` is one set of cleaning values for every session, or one per entry of ``plan``.
     Returns where each cleaned session lies, the quality tables, the sessions table and the
     cleaning values each session used; the tracks stay on disk until a step needs them.
     """
@@ -241,12 +242,12 @@ def _prepare(
     work = [
         {
             "entry": e,
-            "cleaning": cleaning,
+            "cleaning": cleaning if isinstance(cleaning, dict) else cleaning[i],
             "cache": str(out / CACHE_FOLDER),
             "force": force,
             "causal": causal,
         }
-        for e in plan
+        for i, e in enumerate(plan)
     ]
     infos = map_sessions(
         prepare_session, work, jobs=jobs, client=client, progress=progress,
@@ -269,6 +270,38 @@ def _refuse_mixed_rates(plan: Sequence[dict[str, Any]], cleaning: dict[str, Any]
     to resample to (the fit would refuse them after every session was read and cleaned)."""
     if not cleaning.get("target_fps"):
         check_one_rate(e["fps"] for e in plan if e.get("fps") is not None)
+
+
+def _at_model_rate(
+    plan: Sequence[dict[str, Any]], cleaning: dict[str, Any], model: BehaviourModel
+) -> list[dict[str, Any]]:
+    """Cleaning values per session for labelling: a session filmed faster than the model's
+    frame rate is resampled to it (as discovery's ``target_fps`` does; the user is told); a
+    slower one is refused before any work, since its in-between frames would be invented."""
+    model_fps = float(model.fps_)
+    if cleaning.get("target_fps") or model.causal:  # resampled already / the model refuses it
+        return [cleaning] * len(plan)
+    given = [(e, float(e["fps"]) if e.get("fps") is not None else None) for e in plan]
+    slower = [f"'{e['session']}' ({r:g} fps)" for e, r in given if r and r < model_fps - 1e-9]
+    if slower:
+        msg = (
+            f"session(s) {', '.join(slower[:5])} filmed slower than the model's {model_fps:g} "
+            "fps: labelling would invent the frames in between. Fit a model that includes them "
+            f"(ethoscribe discover with --target-fps set to their rate), or leave them out"
+        )
+        raise InputError(msg)
+    faster = [f"'{e['session']}' ({r:g} fps)" for e, r in given if r and r > model_fps + 1e-9]
+    if faster:
+        warnings.warn(
+            f"session(s) {', '.join(faster[:5])} resampled to the model's {model_fps:g} fps "
+            "before labelling; labels.csv counts frames at that rate (time_s gives the time)",
+            InputWarning,
+            stacklevel=3,
+        )
+    return [
+        {**cleaning, "target_fps": model_fps} if r and r > model_fps + 1e-9 else cleaning
+        for _, r in given
+    ]
 
 
 def _warn_short_sessions(rows: Sequence[dict[str, Any]]) -> None:
@@ -450,8 +483,9 @@ def label_sessions(
         _check_units(plan, model)  # before any heavy work: one file read
         client = connect(scheduler)
         cleaning = model.cleaning_.to_dict()
+        per_session = _at_model_rate(plan, cleaning, model)
         prepared, quality, table, used = _prepare(
-            out, plan, cleaning, jobs, client, force, progress, bool(model.causal)
+            out, plan, per_session, jobs, client, force, progress, bool(model.causal)
         )
         decoded = _decode(out, prepared, model, jobs, client, force, progress, fit_check=True)
         summary = _summary(model, table, model.random_state, None)
