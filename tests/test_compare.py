@@ -19,7 +19,7 @@ from statsmodels.stats.multitest import multipletests
 
 from ethoscribe.cli import main
 from ethoscribe.curation import Curation
-from ethoscribe.errors import InputError, WorkspaceError
+from ethoscribe.errors import InputError, InputWarning, WorkspaceError
 from ethoscribe.report import CAUTION as REPORT_CAUTION
 from ethoscribe.stats import COMPARISON_COLUMNS
 from ethoscribe.workspace import Workspace, compare, write_ethogram_report
@@ -404,3 +404,24 @@ def test_table_headers_may_break_after_underscores():
     page = _table_html("t", pd.DataFrame({"from_motif": ["walking_along_the_wall"], "a_b": [1]}))
     assert "<th>from_<wbr>motif</th>" in page and "<th>a_<wbr>b</th>" in page
     assert "<td>walking_along_the_wall</td>" in page
+
+
+def test_sessions_with_an_empty_group_are_left_out_and_named(tmp_path):
+    """A manifest whose group cell is empty for some sessions (an animal of unknown group, or
+    one the scientist excludes): compare refused the whole study ('fill it in') and a manifest
+    without those rows was refused too ('missing from it'), so no comparison was possible. Now
+    they are left out, named in a warning, in the summary and in metadata.json."""
+    folder = make_workspace(tmp_path / "ws")
+    groups = dict(GROUP_OF)
+    groups["003"] = groups["012"] = ""
+    manifest = write_manifest(tmp_path / "m.csv", groups)
+    with pytest.warns(InputWarning, match=r"'003', '012'.*empty 'group'.*left out"):
+        summary = compare(folder, tmp_path / "out", manifest=manifest)
+    assert "left out" in summary and "'003'" in summary
+    stats = pd.read_csv(tmp_path / "out" / "group_stats.csv")
+    budget = stats[stats["metric"] == "time_budget"]
+    assert (budget["n_a"] == 7).all() and (budget["n_b"] == 7).all()
+    metrics = pd.read_csv(tmp_path / "out" / "session_metrics.csv", dtype={"session": str})
+    assert not {"003", "012"} & set(metrics["session"])
+    meta = json.loads((tmp_path / "out" / "metadata.json").read_text())
+    assert meta["left_out"] == ["003", "012"]

@@ -264,7 +264,10 @@ def test_mixed_frame_rates_are_refused_before_reading_and_leave_no_folder(tmp_pa
         write_tidy(_tracks(0, n=2 * fps).replace(fps=fps), tmp_path / f"{name}.csv")
     (tmp_path / "m.csv").write_text("session,path,fps\nslow,slow.csv,30\nfast,fast.csv,60\n")
     monkeypatch.setattr(runs, "_prepare", None)  # reading would call it: it must not be reached
-    with pytest.raises(InputError, match=r"\[30\.0, 60\.0\].*'target_fps': 30\}"):
+    # The sessions at each rate are named (the user saw only the rates before)
+    with pytest.raises(
+        InputError, match=r"30 fps \('slow'\), 60 fps \('fast'\).*'target_fps': 30\}"
+    ):
         discover([], tmp_path / "ws", manifest=tmp_path / "m.csv", progress=False)
     assert not (tmp_path / "ws").exists()
 

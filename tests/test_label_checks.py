@@ -26,3 +26,28 @@ def test_pixels_for_a_millimetre_model_are_refused_before_any_work(tmp_path):
                        progress=False)  # fmt: skip
     assert time.perf_counter() - start < 10
     assert not (tmp_path / "new").exists()  # nothing left behind
+
+
+def test_other_dimensions_and_rates_are_refused_with_the_fix(tmp_path):
+    """A 3-D cohort for a 2-D model ended on '(missing [], extra [])' with no fix; a study of
+    30- and 60-fps sessions named the rates but not which session had which."""
+    import numpy as np
+    import pandas as pd
+
+    from ethoscribe.workspace import discover
+
+    study = write_study(tmp_path / "study")
+    ws = run_discover(study, tmp_path / "ws")
+    table = pd.read_parquet(study / "session_01.parquet")
+    table["z"] = np.random.default_rng(0).normal(10.0, 1.0, len(table))  # invented heights
+    (tmp_path / "deep").mkdir()
+    table.to_parquet(tmp_path / "deep" / "deep.parquet")
+    with pytest.raises(InputError, match=r"'deep'.* in 3-D but .* in 2-D.*Leave the z column out"):
+        label_sessions(ws.path, [tmp_path / "deep"], tmp_path / "new", progress=False)
+    manifest = pd.DataFrame(
+        {"session": ["session_01", "session_02"], "path": ["session_01.parquet",
+         "session_02.parquet"], "fps": [30.0, 60.0]}
+    )  # fmt: skip
+    manifest.to_csv(study / "manifest.csv", index=False)
+    with pytest.raises(InputError, match=r"30 fps \('session_01'\), 60 fps \('session_02'\)"):
+        discover([study], tmp_path / "mixed", manifest=study / "manifest.csv", progress=False)

@@ -312,7 +312,8 @@ def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
         if s.n_dims != ref.n_dims:
             raise InputError(
                 f"session '{s.session}' is {s.n_dims}-D but session '{ref.session}' is "
-                f"{ref.n_dims}-D; a study must not mix 2-D and 3-D tracks"
+                f"{ref.n_dims}-D; a study must not mix 2-D and 3-D tracks: study them apart, "
+                "or leave the z column out of the 3-D files (x and y only)"
             )
 
 

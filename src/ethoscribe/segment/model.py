@@ -429,7 +429,7 @@ class BehaviourModel(BaseEstimator):
         self._check_params()
         cleaned = match_keypoint_order(cleaned)
         check_same_body_plan(cleaned)
-        check_one_rate(s.fps for s in cleaned)
+        check_one_rate([s.fps for s in cleaned], [s.session for s in cleaned])
         if self.causal:
             params = _causal_cleaning(cleaned, params)
         sessions = cleaned
@@ -584,12 +584,21 @@ class BehaviourModel(BaseEstimator):
                 f"session '{s.session}'" + (f" ({source})" if source else "") + " has "
                 f"keypoints {list(s.keypoints)} in {s.n_dims}-D but the model was fitted on "
                 f"{list(self.keypoints_)} in {self.n_dims_}-D ({differ}).{hint}"
+                + self._dims_hint(s.n_dims)
             )
         if abs(s.fps - self.fps_) > 1e-9 and not self.cleaning_.target_fps:
             raise InputError(
                 f"session '{s.session}' runs at {s.fps:g} fps but the model at {self.fps_:g} fps; "
                 "resample it (cleaning target_fps) before labelling"
             )
+
+    def _dims_hint(self, n_dims: int) -> str:
+        """How to fix a session whose dimensions differ from the model's."""
+        if n_dims == self.n_dims_:
+            return ""
+        if n_dims > self.n_dims_:
+            return " Leave the z column out of its files (x and y only), or fit a 3-D model."
+        return " Label it with a model fitted on 2-D sessions (ethoscribe discover)."
 
     def label(self, sessions: Sequence[PoseTracks]) -> pd.DataFrame:
         """Per-frame label table of ``sessions``.
@@ -1024,13 +1033,30 @@ def _given(offsets: np.ndarray | None) -> dict[str, np.ndarray]:
     return {} if offsets is None else {"offsets": offsets}
 
 
-def check_one_rate(rates: Iterable[float]) -> None:
-    """Refuse sessions of different frame rates, naming the rate to resample them to."""
-    rates = sorted({float(r) for r in rates})
-    if len(rates) > 1:
+def check_one_rate(rates: Iterable[float], sessions: Sequence[str] | None = None) -> None:
+    """Refuse sessions of different frame rates, naming the rate to resample them to and,
+    given ``sessions`` (one name per rate), the sessions filmed at each rate.
+
+    >>> try:
+    ...     check_one_rate([30.0, 30.0, 60.0], ["a", "b", "c"])
+    ... except InputError as exc:
+    ...     print(str(exc).split(";")[0])
+    sessions have different frame rates: 30 fps ('a', 'b'), 60 fps ('c')
+    """
+    rates = [float(r) for r in rates]
+    distinct = sorted(set(rates))
+    if len(distinct) > 1:
+        found = f" {distinct}"
+        if sessions is not None and len(sessions) == len(rates):
+            pairs = list(zip(sessions, rates, strict=True))
+            at = {r: [repr(str(s)) for s, q in pairs if q == r] for r in distinct}
+            found = ": " + ", ".join(
+                f"{r:g} fps ({', '.join(names[:5])}{' ...' if len(names) > 5 else ''})"
+                for r, names in at.items()
+            )
         raise InputError(
-            f"sessions have different frame rates {rates}; resample them to one rate, e.g. the "
-            f"lowest, with cleaning={{'target_fps': {rates[0]:g}}}"
+            f"sessions have different frame rates{found}; resample them to one rate, e.g. the "
+            f"lowest, with cleaning={{'target_fps': {distinct[0]:g}}}"
         )
 
 

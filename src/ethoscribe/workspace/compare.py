@@ -12,6 +12,7 @@ the files are moved into place together with ``metadata.json`` last.
 from __future__ import annotations
 
 import os
+import warnings
 from collections import Counter
 from pathlib import Path
 from typing import Any
@@ -19,7 +20,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.ethogram import bout_table, time_budget, transition_table
 from ethoscribe.io import atomic_write_json, atomic_write_text, read_manifest, write_table
 from ethoscribe.label_table import csv_rounded
@@ -108,6 +109,10 @@ def compare(
     out = _output_folder(out, ws)
     labels = ws.labels()
     design = _design(ws, labels, manifest, by, paired)
+    left_out = design.attrs["left_out"]
+    if left_out:
+        labels = labels[~labels["session"].astype(str).isin(left_out)].reset_index(drop=True)
+        _warn(f"sessions {_listed(left_out)} have an empty {by!r}: left out of the comparison")
     bouts = bout_table(labels)
     metrics = session_metrics(labels, bouts, design)
     stats = compare_groups(
@@ -234,6 +239,10 @@ def _sessions_table(ws: Workspace) -> pd.DataFrame:
     return pd.read_csv(ws.path / "sessions.csv", dtype=str, keep_default_na=False)
 
 
+def _warn(text: str) -> None:
+    warnings.warn(text, InputWarning, stacklevel=3)
+
+
 def _listed(names: list[str], limit: int = 10) -> str:
     more = f" and {len(names) - limit} more" if len(names) > limit else ""
     return ", ".join(repr(n) for n in names[:limit]) + more
@@ -261,9 +270,10 @@ def _design(
     design = pd.DataFrame({"session": _text(table["session"]), "group": _text(table[by])})
     design["subject"] = _text(table["subject"]) if "subject" in table else design["session"]
     _check_coverage(design, labels, source, ws)
+    # An empty group leaves the session out of the comparison (the caller says so)
     empty = design.loc[design["group"] == "", "session"].tolist()
-    if empty:
-        raise InputError(f"{source}: sessions {_listed(empty)} have an empty {by!r}; fill it in")
+    design = design[design["group"] != ""].reset_index(drop=True)
+    design.attrs["left_out"] = sorted(empty)
     unit = "subject" if paired else "session"
     sizes = design.groupby("group")[unit].nunique()
     if len(sizes) < 2:
@@ -273,7 +283,10 @@ def _design(
     if single:
         alone = [f"{g!r} ({design.loc[design['group'] == g, unit].iloc[0]})" for g in single]
         msg = f"{source}: group(s) {', '.join(alone)} of {by!r} have a single {unit}; "
-        raise InputError(msg + f"each group needs at least two {unit}s to be compared")
+        raise InputError(
+            msg + f"each group needs at least two {unit}s to be compared: give it the group "
+            f"of others, or leave its {by!r} empty in a manifest to leave it out"
+        )
     return design
 
 
@@ -329,6 +342,7 @@ def _metadata(ws: Workspace, options: dict, design: pd.DataFrame, stats: pd.Data
             "comparison": options,
             "seeds": {"comparison": options["seed"], "discovery": summary.get("seed")},
             "groups": members,
+            "left_out": list(design.attrs.get("left_out") or []),
             "workspace_parameters": summary.get("parameters"),
             "workspace_summary": {
                 k: summary.get(k) for k in ("n_states", "n_sessions", "n_frames", "created")
@@ -378,4 +392,7 @@ def _summary(
     )
     warnings = stats.attrs.get("warnings") or []
     text += " " + (" ".join(w.rstrip(".") + "." for w in warnings) + " " if warnings else "")
+    left_out = design.attrs.get("left_out") or []
+    if left_out:
+        text += f"Sessions left out (empty {by!r}): {_listed(left_out)}. "
     return f"{text}Tables, metadata.json and report.html are in {out}. {CAUTION}"

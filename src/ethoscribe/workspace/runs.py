@@ -269,7 +269,8 @@ def _refuse_mixed_rates(plan: Sequence[dict[str, Any]], cleaning: dict[str, Any]
     """Refuse, before reading, sessions whose given frame rates differ with no common rate
     to resample to (the fit would refuse them after every session was read and cleaned)."""
     if not cleaning.get("target_fps"):
-        check_one_rate(e["fps"] for e in plan if e.get("fps") is not None)
+        given = [e for e in plan if e.get("fps") is not None]
+        check_one_rate([e["fps"] for e in given], [e["session"] for e in given])
 
 
 def _at_model_rate(
