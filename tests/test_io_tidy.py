@@ -356,3 +356,14 @@ def test_column_types_changing_late_in_a_csv(tmp_path):
     df.loc[df.index[-1], "x"] = 1.5
     t = read_tidy(_save(df, tmp_path), fps=30)
     assert t.coords[-1, 0, 0, 0] == 1.5
+
+
+def test_a_manifest_read_as_a_pose_table_says_to_give_it_as_the_manifest(tmp_path):
+    """A folder given with its manifest.csv beside the pose files (as 'ethoscribe simulate'
+    writes it), without --manifest: the manifest was read as a pose table and the user was told
+    only that it lacked 'frame', 'keypoint', 'x' and 'y'."""
+    path = tmp_path / "manifest.csv"
+    path.write_text("session,path,fps,group\nmouse1,mouse1.csv,30,a\n")
+    with pytest.raises(InputError, match=r"manifest\.csv: .*looks like a session manifest.*"
+                       r"--manifest .*manifest\.csv"):  # fmt: skip
+        read_tidy(path, fps=30)

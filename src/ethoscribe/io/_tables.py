@@ -193,6 +193,17 @@ def separator_hint(columns: Sequence[Any]) -> str:
     return ""
 
 
+def manifest_hint(info: TableInfo) -> str:
+    """A sentence when the table is a session manifest given as a pose file (a folder read
+    with the manifest.csv that lies beside its pose files)."""
+    if {"session", "path"} <= {str(c) for c in info.columns}:
+        return (
+            " It looks like a session manifest (columns session and path), not a pose table: "
+            f"pass manifest='{info.path}' (command line: --manifest {info.path})."
+        )
+    return ""
+
+
 def require_columns(info: TableInfo, needed: list[str], purpose: str) -> None:
     """Raise listing the missing columns, the columns found and near misses."""
     missing = [c for c in needed if c not in info.columns]
@@ -204,7 +215,7 @@ def require_columns(info: TableInfo, needed: list[str], purpose: str) -> None:
         python = ", ".join(f"'{w}': '{f}'" for f, w in near.items())
         cli = ",".join(f"{w}={f}" for f, w in near.items())
         hints += f" Or pass columns={{{python}}} (command line: --columns {cli})."
-    hints += separator_hint(info.columns)
+    hints += separator_hint(info.columns) + manifest_hint(info)
     raise InputError(
         f"{info.path}: missing column(s) {missing} needed for {purpose}; found columns "
         f"{list(info.columns)}.{hints}"
