@@ -339,3 +339,25 @@ def test_a_cohort_filmed_faster_than_the_model_is_resampled_to_its_rate(study, w
             workspace.path, [], tmp_path / "slow", manifest=tmp_path / "slow.csv", progress=False
         )
     assert not (tmp_path / "slow" / "labels.csv").exists()
+
+
+def test_a_cohort_is_labelled_again_with_the_names_curated_since(study, workspace, tmp_path):
+    """After naming more motifs in the trained workspace, labelling the cohort again into its
+    folder was refused: its copy of the journal counted as curation of its own, and the message
+    spoke of 'a new discovery' and replace_curation, which label does not take. Now a cohort
+    whose journal is the source's (or an earlier part of it) is relabelled with the current
+    names; one with edits made in it is refused, saying so."""
+    import shutil
+
+    ws = Workspace(shutil.copytree(workspace.path, tmp_path / "trained"))
+    ws.rename_motif("motif_01", "resting")
+    files, manifest = [study / "session_02.parquet"], study / "manifest.csv"
+    label_sessions(ws.path, files, tmp_path / "cohort", manifest=manifest, progress=False)
+    ws.rename_motif("motif_02", "walking")
+    cohort = label_sessions(ws.path, files, tmp_path / "cohort", manifest=manifest, progress=False)
+    assert {"resting", "walking"} <= set(pd.read_csv(cohort.path / "bouts.csv")["motif"])
+    assert [r["op"] for r in cohort.journal()] == ["rename", "rename"]
+    cohort.rename_motif("resting", "still")  # an edit made in the cohort only
+    with pytest.raises(WorkspaceError, match=r"cohort holds motif names edited there.*'still'"):
+        label_sessions(ws.path, files, tmp_path / "cohort", manifest=manifest, progress=False)
+    assert "still" in set(pd.read_csv(cohort.path / "bouts.csv")["motif"])  # left as it was

@@ -59,6 +59,7 @@ from ethoscribe.workspace.folder import (
     hold_output,
     jsonable,
     now,
+    read_journal,
     table_json,
     versions,
     write_ethogram_tables,
@@ -479,7 +480,7 @@ def label_sessions(
         raise WorkspaceError(f"{out}: write the new cohort's labels to a folder of its own")
     # One lock from start to end, checked before any work.
     with hold_output(out, as_paths(inputs, "inputs")):
-        _refuse_to_overwrite_curation(out, False)
+        _refuse_to_drop_cohort_edits(out, source, journal)
         plan = plan_sessions(inputs, manifest, fps, format, reader_options, join_tracks)
         _check_units(plan, model)  # before any heavy work: one file read
         client = connect(scheduler)
@@ -703,6 +704,25 @@ def _stability(
         reference=labels_like_model(model, model.segmenter_, own=True),
         fit_on=(X_fit, lengths_fit), make_half_model=lambda s: make(s, **halves),
     )  # fmt: skip
+
+
+def _refuse_to_drop_cohort_edits(out: Path, source: Path, journal: Sequence[dict]) -> None:
+    """Labelling again into ``out`` replaces its journal by ``source``'s: allowed when ``out``'s
+    is a copy of (an earlier part of) it, refused when it holds edits made in ``out`` itself."""
+    path = out / JOURNAL_FILE
+    if not path.exists() or path.stat().st_size == 0:
+        return
+    records, problems = read_journal(path)
+    if not problems and list(journal[: len(records)]) == records:
+        return  # the names come from source: relabelling carries its later edits
+    own = [r for r in records if r not in journal]
+    names = sorted({str(r.get("name") or r.get("into") or "") for r in own} - {""})
+    shown = f" (e.g. {', '.join(repr(n) for n in names[:3])})" if names else ""
+    raise WorkspaceError(
+        f"{out} holds motif names edited there{shown} that {source} does not have "
+        f"({JOURNAL_FILE}); labelling again would drop them. Choose another --out folder, or "
+        f"make those edits in {source} and move {path} aside."
+    )
 
 
 def _refuse_to_overwrite_curation(out: Path, allowed: bool) -> None:
