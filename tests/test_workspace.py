@@ -361,3 +361,28 @@ def test_a_cohort_is_labelled_again_with_the_names_curated_since(study, workspac
     with pytest.raises(WorkspaceError, match=r"cohort holds motif names edited there.*'still'"):
         label_sessions(ws.path, files, tmp_path / "cohort", manifest=manifest, progress=False)
     assert "still" in set(pd.read_csv(cohort.path / "bouts.csv")["motif"])  # left as it was
+
+
+def test_an_animal_unscored_on_much_of_a_session_is_named(study, workspace, tmp_path):
+    """An animal out of view for a third of its session (every keypoint missing): nothing was
+    said while labelling, yet its time budget and bouts cover only the frames it was seen. Now
+    the run names the session, the animal and the share of frames left unscored."""
+    tracks = read_tidy(study / "session_02.parquet", fps=30.0)
+    coords = tracks.coords.copy()
+    coords[900:1800] = np.nan  # 30 s of 90 s: out of view
+    gone = tracks.replace(coords=coords, confidence=np.where(np.isnan(coords[..., 0]), np.nan,
+                                                             tracks.confidence))  # fmt: skip
+    from ethoscribe.io import write_tidy
+
+    (tmp_path / "cohort").mkdir()
+    write_tidy(gone, tmp_path / "cohort" / "session_02.parquet")
+    with pytest.warns(InputWarning) as said:
+        cohort = label_sessions(
+            workspace.path, [tmp_path / "cohort"], tmp_path / "out",
+            manifest=study / "manifest.csv", progress=False,
+        )  # fmt: skip
+    labels = cohort.state_labels()
+    share = float((labels["state"] < 0).mean())  # the labels themselves
+    assert 0.3 <= share < 0.4
+    texts = [str(w.message) for w in said]
+    assert any(f"'session_02' (animal0): {share:.0%} of frames unscored" in t for t in texts), texts

@@ -215,6 +215,7 @@ def discover(
         tables = _write_workspace(out, table, model, decoded, quality, report, summary)
         retire_learned(out, now().replace(":", ""))  # learned from the old states' features
         ws = Workspace(out)
+        _warn_unscored(ws)
         write_ethogram_report(ws, out / "report.html", tables)
         with ticking("postures for the workbench", progress):
             cache_postures(ws, model, _cleaned_loaders(prepared, table, causal))
@@ -319,6 +320,27 @@ def _warn_short_sessions(rows: Sequence[dict[str, Any]]) -> None:
             InputWarning,
             stacklevel=3,
         )
+
+
+UNSCORED_SHARE = 0.25  # more frames than this without a motif: the animal's tables are partial
+
+
+def _warn_unscored(ws: Workspace) -> None:
+    """Name the animals left unscored (too little of the body seen, e.g. out of view) on more
+    than a quarter of their session: their time budgets and bouts cover the rest only."""
+    labels = pd.read_parquet(ws.path / "labels.parquet", columns=["session", "animal", "state"])
+    share = (labels["state"] < 0).groupby([labels["session"], labels["animal"]]).mean()
+    high = share[share > UNSCORED_SHARE]
+    if high.empty:
+        return
+    named = [f"'{s}' ({a}): {v:.0%}" for (s, a), v in high.items()]
+    warnings.warn(
+        f"session(s) {', '.join(named[:5])}{' ...' if len(named) > 5 else ''} of frames "
+        "unscored (too little of the body seen, e.g. out of view); their time budgets and bouts "
+        "cover the scored frames only. See quality.csv and the report's data quality",
+        InputWarning,
+        stacklevel=2,  # from the run in ethoscribe, as the run's other notes
+    )
 
 
 UNSEEN_SHARE = 0.9  # missing on this share of frames: the keypoint is hardly ever tracked
@@ -498,6 +520,7 @@ def label_sessions(
         tables = _write_workspace(out, table, model, decoded, quality, None, summary, journal)
         retire_learned(out, now().replace(":", ""))  # the source's classifier, if any, follows
         ws = Workspace(out)
+        _warn_unscored(ws)
         tables = carry_learned(source, ws, locked=True) or tables  # the expert's names
         write_ethogram_report(ws, out / "report.html", tables)
         with ticking("postures for the workbench", progress):
