@@ -425,3 +425,27 @@ def test_sessions_with_an_empty_group_are_left_out_and_named(tmp_path):
     assert not {"003", "012"} & set(metrics["session"])
     meta = json.loads((tmp_path / "out" / "metadata.json").read_text())
     assert meta["left_out"] == ["003", "012"]
+
+
+def test_frames_set_aside_are_described_not_tested(tmp_path):
+    """A motif set aside as unassigned is no behaviour: it was tested (time budget, bout rate,
+    durations, transitions to and from it) and counted in the Benjamini-Hochberg families
+    beside the motifs. Now its rows stay in the tables and leave the tests."""
+    folder = make_workspace(tmp_path / "ws")
+    record = Curation(Workspace(folder).default_names()).unassign("motif_03")
+    append_journal(folder / "journal.jsonl", record)
+    summary = compare(folder, tmp_path / "out", seed=3)
+    stats = pd.read_csv(tmp_path / "out" / "group_stats.csv")
+    assert not stats["motif"].str.contains("unassigned").any()
+    assert set(stats.loc[stats["metric"] == "time_budget", "motif"]) == {"motif_01", "motif_02"}
+    metrics = pd.read_csv(tmp_path / "out" / "session_metrics.csv")
+    assert (metrics["motif"] == "unassigned").any()  # described
+    assert "over 2 motifs" in summary and "unassigned are in the tables, not tested" in summary
+    meta = json.loads((tmp_path / "out" / "metadata.json").read_text())
+    assert meta["comparison"]["not_tested"] == ["unassigned"]
+    # The families are corrected over the tested rows only: statsmodels multipletests,
+    # Benjamini-Hochberg over each family's p values, gives the q values written.
+    full = pd.read_parquet(tmp_path / "out" / "group_stats.parquet")  # full precision
+    for family, rows in full[full["testable"]].groupby("family"):
+        q = multipletests(rows["p_value"], method="fdr_bh")[1]
+        np.testing.assert_allclose(rows["q_value"], q, err_msg=family)

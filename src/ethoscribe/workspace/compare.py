@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ethoscribe.curation import UNASSIGNED
 from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.ethogram import bout_table, time_budget, transition_table
 from ethoscribe.io import atomic_write_json, atomic_write_text, read_manifest, write_table
@@ -115,8 +116,12 @@ def compare(
         _warn(f"sessions {_listed(left_out)} have an empty {by!r}: left out of the comparison")
     bouts = bout_table(labels)
     metrics = session_metrics(labels, bouts, design)
+    # Frames the scientist set aside are no behaviour to test: described in the tables only
+    # (they stay in the time budgets' denominators: the animal was seen then).
+    set_aside = metrics["motif"].map(lambda m: UNASSIGNED in str(m).split("->"))
+    tested = metrics[~set_aside]
     stats = compare_groups(
-        metrics, by="group", test=test, paired=paired, alpha=ALPHA, n_resamples=n_resamples,
+        tested, by="group", test=test, paired=paired, alpha=ALPHA, n_resamples=n_resamples,
         n_bootstrap=N_BOOTSTRAP, random_state=seed, planned=planned,
     )  # fmt: skip
     groups = dict(zip(design["session"], design["group"], strict=True))
@@ -134,9 +139,10 @@ def compare(
         "manifest": None if manifest is None else str(Path(manifest).resolve()),
         "planned": [f"{m}:{t}" for m, t in planned],
         "multiple_testing": MULTIPLE_TESTING,
+        "not_tested": [UNASSIGNED] if set_aside.any() else [],
     }  # fmt: skip
     meta = _metadata(ws, options, design, stats)
-    sections = [group_section(stats, ALPHA, metrics)]
+    sections = [group_section(stats, ALPHA, tested)]
     sections += [s for s in (quality_section(ws, labels), model_section(ws)) if s is not None]
     sections += ethogram_sections(bouts, budgets, groups, seed, _min_bout(ws))
     title = f"Group comparison by {by!r}: {ws.path.name}"
@@ -384,7 +390,7 @@ def _summary(
     """The paragraph ``compare`` returns: groups, planned tests, families, notes, the caution."""
     counts = design.groupby("group")["session"].nunique()
     sizes = ", ".join(f"{g}: {n}" for g, n in counts.items())
-    motifs = sorted(set(labels["motif"].astype(str)) - {""})
+    motifs = sorted(set(labels["motif"].astype(str)) - {"", UNASSIGNED})
     kind = f"{'paired ' if paired else ''}{test} tests"
     text = (
         f"Compared {len(design)} sessions in {len(counts)} groups of {by!r} ({sizes}) over "
@@ -395,4 +401,6 @@ def _summary(
     left_out = design.attrs.get("left_out") or []
     if left_out:
         text += f"Sessions left out (empty {by!r}): {_listed(left_out)}. "
+    if UNASSIGNED in set(labels["motif"].astype(str)):
+        text += "Frames set aside as unassigned are in the tables, not tested. "
     return f"{text}Tables, metadata.json and report.html are in {out}. {CAUTION}"
