@@ -1,9 +1,10 @@
-"""A figure's place in the workbench: redraws never ask the browser to delete or add traces.
+"""A figure's place in the workbench: redraws send no update messages to a shown figure.
 
-plotly's FigureWidget applies its delete/add-trace messages both to the browser's copy of the
-figure and to each view; a view still being drawn when they arrive could show axes without
-traces. So a redraw with other traces makes a new widget, and one with the same traces only
-restyles and relayouts (messages that change nothing when applied twice).
+plotly's update messages (restyle, relayout, add or delete traces) that reach a view still
+being drawn can leave it with axes and no traces (the real-browser test saw it on a 2-core
+machine). So a redraw shows a new widget made whole, or nothing when the figure is unchanged;
+only a slot made with ``in_place=True`` (the close-up stepped frame by frame) updates matching
+traces in place.
 """
 
 from __future__ import annotations
@@ -20,6 +21,24 @@ def _messages(widget) -> list[str]:
              "_py2js_update"]  # fmt: skip
     widget.observe(lambda change: seen.append(change["name"]) if change["new"] else None, names)
     return seen
+
+
+def test_a_changed_figure_is_a_new_widget_and_an_unchanged_one_is_left_alone():
+    values = {"y": 1.0}
+
+    def make():
+        return go.Figure([go.Bar(x=["a", "b"], y=[values["y"], 2.0])])
+
+    created = []
+    slot = FigureSlot(make, "test-figure", 300, 200, on_created=created.append)
+    first = slot.figure
+    seen = _messages(first)
+    slot.draw()  # nothing changed: the same widget, nothing sent
+    assert slot.figure is first and seen == [] and created == [first]
+    values["y"] = 5.0
+    slot.draw()
+    assert slot.figure is not first and tuple(slot.figure.data[0].y) == (5.0, 2.0)
+    assert seen == [] and first.comm is None  # the old one was closed, never updated
 
 
 def test_other_traces_make_a_new_widget_without_trace_messages():
@@ -44,13 +63,13 @@ def test_other_traces_make_a_new_widget_without_trace_messages():
     assert created == [first, second]  # clicks are bound again on the new widget
 
 
-def test_same_traces_are_updated_in_place():
+def test_an_in_place_slot_updates_same_traces_in_place():
     values = {"y": 1.0}
 
     def make():
         return go.Figure([go.Bar(x=["a", "b"], y=[values["y"], 2.0])])
 
-    slot = FigureSlot(make, "test-figure", 300, 200)
+    slot = FigureSlot(make, "test-figure", 300, 200, in_place=True)
     first = slot.figure
     seen = _messages(first)
     values["y"] = 5.0

@@ -103,7 +103,15 @@ class FigureSlot(w.Box):
     nbformat and jsonschema), more than the rest of the workbench's first screen. So a slot
     shows a short note in a box of the figure's size until :attr:`figure` is first read (the
     workbench reads it right after its first screen is shown); from then on :meth:`draw`
-    redraws the figure in place.
+    redraws it.
+
+    A redraw shows a new FigureWidget, made whole from the new figure, and nothing when the
+    figure did not change. plotly's update messages (restyle, relayout, add or delete traces)
+    that reach a view still being drawn can leave it with axes and no traces: the browser test
+    saw it on a 2-core machine, where the quickstart's merge and undo arrive while the
+    figures' first views are drawn. Only a slot made with ``in_place=True`` (a figure stepped
+    through frames while the user watches, long after it was drawn) updates its traces in
+    place when their number and kinds match.
 
     Parameters
     ----------
@@ -115,6 +123,8 @@ class FigureSlot(w.Box):
         Size of the box before the figure is made (pixels).
     on_created : callable, optional
         Called with the new FigureWidget and after each redraw (e.g. to bind clicks).
+    in_place : bool
+        Update the traces of the shown widget when they match (see above).
     """
 
     def __init__(
@@ -124,13 +134,16 @@ class FigureSlot(w.Box):
         width: int,
         height: int,
         on_created: Callable[[Any], None] | None = None,
+        in_place: bool = False,
     ) -> None:
         waiting = note("drawing ...")
         size = {"width": f"{width}px", "max_width": "100%", "min_height": f"{height}px"}
         super().__init__([waiting], layout=w.Layout(**size))
         self.add_class(f"{css}-slot")
         self.make, self.css, self._on_created = make, css, on_created
+        self.in_place = in_place
         self._figure: Any = None
+        self._shown = ""  # JSON of the figure shown, to skip redraws that change nothing
 
     @property
     def created(self) -> bool:
@@ -140,7 +153,8 @@ class FigureSlot(w.Box):
     def figure(self) -> go.FigureWidget:
         """The FigureWidget (made, and shown in the slot, on first use)."""
         if self._figure is None:
-            self._figure = figure_widget(self.make(), self.css)
+            fig = self.make()
+            self._figure, self._shown = figure_widget(fig, self.css), fig.to_json()
             self.layout.min_height = None
             self.children = (self._figure,)
             if self._on_created is not None:
@@ -155,18 +169,15 @@ class FigureSlot(w.Box):
             self.draw()
 
     def draw(self) -> None:
-        """Redraw from the current state (nothing to do before the figure is made).
-
-        Traces of the same number and kinds are updated in place. Otherwise the slot shows a
-        new FigureWidget: plotly's messages that delete and add traces are applied to the
-        browser's copy of the figure and to every view of it, and a view still being drawn
-        when they arrive could end with axes and no traces (seen once on a slow machine);
-        a new widget arrives whole.
-        """
+        """Redraw from the current state (nothing to do before the figure is made)."""
         if self._figure is None:
             return
         fig = self.make()
-        if same_traces(self._figure, fig):
+        shown = fig.to_json()
+        if shown == self._shown:
+            return
+        self._shown = shown
+        if self.in_place and same_traces(self._figure, fig):
             redraw(self._figure, fig)
         else:
             old, self._figure = self._figure, figure_widget(fig, self.css)

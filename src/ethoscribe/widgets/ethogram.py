@@ -46,7 +46,9 @@ class EthogramPage(LazyDrawing):
         self.bouts.add_class("ethoscribe-bout-list")
         self.bouts.add_class("ethoscribe-motif-list")  # the same monospace list style
         self.bouts_title = heading("")
-        self.closeup_slot = FigureSlot(self._current_closeup, "ethoscribe-closeup", 360, 360)
+        self.closeup_slot = FigureSlot(  # stepped frame by frame: traces updated in place
+            self._current_closeup, "ethoscribe-closeup", 360, 360, in_place=True
+        )
         self._step = 0
         self.play = w.Play(value=0, min=0, max=0, interval=100, description="play")
         self.step = w.IntSlider(
