@@ -82,6 +82,14 @@ def _batches(lengths: np.ndarray):
         first = last
 
 
+def _batches_with_rows(lengths: np.ndarray, rows: np.ndarray | None):
+    """:func:`_batches` with each batch's rows of the per-session array ``rows`` (None: None)."""
+    first = 0  # the batch's first session
+    for a, b, sub in _batches(lengths):
+        yield a, b, sub, None if rows is None else rows[first : first + len(sub)]
+        first += len(sub)
+
+
 def frames_needed(n_states: int, n_features: int, covariance_type: str = "full") -> int:
     """Fewest frames a fit of ``n_states`` Gaussian states can be trusted with.
 
@@ -493,14 +501,12 @@ class GaussianHMM(BaseEstimator):
         given = None if causal else _checked_offsets(offsets, lengths, X.shape[1])
         estimate = not causal and given is None and self.session_offsets
         with one_thread():
-            first = 0  # the batch's first session
-            for a, b, sub in _batches(lengths):
+            for a, b, sub, rows in _batches_with_rows(lengths, given):
                 part = X[a:b]
-                if given is not None:
-                    part = part - np.repeat(given[first : first + len(sub)], sub, axis=0)
+                if rows is not None:
+                    part = part - np.repeat(rows, sub, axis=0)
                 elif estimate:  # each session's own, parameters fixed
                     part = part - np.repeat(label_offsets(self, part, sub), sub, axis=0)
-                first += len(sub)
                 yield a, b, sub, emission.log_likelihood(part)
 
     def offsets(self, X: np.ndarray, lengths=None) -> np.ndarray:
@@ -559,12 +565,11 @@ class GaussianHMM(BaseEstimator):
         if offset_scoring == "marginal" and self.session_offsets:
             X, lengths, _ = self._prepare(X, lengths)
             given = _checked_offsets(offsets, lengths, X.shape[1])
-            parts, first = [], 0
             with one_thread():
-                for a, b, sub in _batches(lengths):
-                    rows = None if given is None else given[first : first + len(sub)]
-                    parts.append(marginal_log_likelihood(self, X[a:b], sub, rows))
-                    first += len(sub)
+                parts = [
+                    marginal_log_likelihood(self, X[a:b], sub, rows)
+                    for a, b, sub, rows in _batches_with_rows(lengths, given)
+                ]
             return np.concatenate(parts)
         parts = []
         for _, _, sub, log_b in self._log_emission_batches(X, lengths, offsets):
