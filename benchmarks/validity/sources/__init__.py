@@ -139,7 +139,8 @@ def _import_all() -> None:
     import importlib
 
     # Registration order is the table's row order.
-    for module in ("own_simulator", "independent", "real_activity", "aeon_series"):
+    modules = ("own_simulator", "independent", "real_activity", "aeon_series", "exercise_mocap")
+    for module in modules:
         importlib.import_module(f"benchmarks.validity.sources.{module}")
 
 
