@@ -326,8 +326,10 @@ def transition_diagram(
     share = np.array([float((budgets or {}).get(m, 1.0)) for m in order])
     size = 14 + 36 * np.sqrt(share / share.max()) if share.max() > 0 else np.full(len(order), 26)
     colours = motif_colours(order)
-    fig = go.Figure()
-    label_x, label_y, label_text = [], [], []
+    # traces and annotations are gathered and given to plotly once: each add_annotation
+    # re-validates every annotation before it (quadratic; 2.9 s of a 1e6-frame report)
+    traces, arrows, labels = [], [], []
+    label_y = []
     for _, a in arcs.iterrows():
         x0, x1 = pos[a["from_motif"]], pos[a["to_motif"]]
         sign = 1.0 if x1 > x0 else -1.0  # left to right above the line, back below it
@@ -336,28 +338,31 @@ def transition_diagram(
         xs = (x0 + x1) / 2 - (x1 - x0) / 2 * np.cos(t)
         ys = height * np.sin(t)
         width = 1 + 7 * float(a["probability"])
-        fig.add_trace(
+        traces.append(
             go.Scatter(
                 x=xs, y=ys, mode="lines", line={"width": width, "color": "rgba(60,60,60,0.45)"},
                 hoverinfo="skip", showlegend=False,
             )
         )  # fmt: skip
-        fig.add_annotation(
-            x=xs[-1], y=ys[-1], ax=xs[-4], ay=ys[-4], xref="x", yref="y", axref="x", ayref="y",
-            showarrow=True, arrowhead=2, arrowsize=1.2, arrowwidth=max(1.5, width / 2),
-            arrowcolor="rgba(60,60,60,0.8)", standoff=size[pos[a["to_motif"]]] / 2, text="",
+        arrows.append(
+            dict(
+                x=xs[-1], y=ys[-1], ax=xs[-4], ay=ys[-4], xref="x", yref="y", axref="x",
+                ayref="y", showarrow=True, arrowhead=2, arrowsize=1.2,
+                arrowwidth=max(1.5, width / 2), arrowcolor="rgba(60,60,60,0.8)",
+                standoff=size[pos[a["to_motif"]]] / 2, text="",
+            )
         )  # fmt: skip
         ratio = "" if not np.isfinite(a["ratio"]) else f" (x{a['ratio']:.1f})"
-        label_x.append((x0 + x1) / 2)
         label_y.append(height)
-        label_text.append(f"{a['probability']:.2f}{ratio}")
-    for x, y, text in zip(label_x, label_y, label_text, strict=True):
-        fig.add_annotation(
-            x=x, y=y, text=text, showarrow=False, font={"size": 11, "color": "#222"},
-            bgcolor="rgba(255,255,255,0.9)",
+        labels.append(
+            dict(
+                x=(x0 + x1) / 2, y=height, text=f"{a['probability']:.2f}{ratio}",
+                showarrow=False, font={"size": 11, "color": "#222"},
+                bgcolor="rgba(255,255,255,0.9)",
+            )
         )  # fmt: skip
     crowded = len(order) > 9
-    fig.add_trace(
+    traces.append(
         go.Scatter(
             x=list(range(len(order))), y=[0.0] * len(order), mode="markers",
             marker={"size": size, "color": [colours[m] for m in order],
@@ -366,12 +371,15 @@ def transition_diagram(
             hoverinfo="text", showlegend=False,
         )
     )  # fmt: skip
-    for k, m in enumerate(order):  # labels in a band of their own, staggered when crowded
-        low = crowded and k % 2
-        fig.add_annotation(
-            x=k, y=0, yref="y", showarrow=False, text=m, yshift=-(size[k] / 2 + 12 + 14 * low),
+    names = [  # motif names in a band of their own, staggered when crowded
+        dict(
+            x=k, y=0, yref="y", showarrow=False, text=m,
+            yshift=-(size[k] / 2 + 12 + 14 * (crowded and k % 2)),
             font={"size": 12}, bgcolor="rgba(255,255,255,0.8)",
-        )  # fmt: skip
+        )
+        for k, m in enumerate(order)
+    ]  # fmt: skip
+    fig = go.Figure(data=traces, layout={"annotations": arrows + labels + names})
     reach = max([abs(y) for y in label_y] + [0.5]) + 0.35
     fig.update_layout(
         title={"text": f"Transitions between motifs<br><sup>{what}</sup>", "x": 0},
