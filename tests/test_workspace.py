@@ -332,6 +332,15 @@ def test_a_cohort_filmed_faster_than_the_model_is_resampled_to_its_rate(study, w
     labels = cohort.state_labels()
     # 45 s at 30 fps: frame j at j / 30 s, up to the last input frame (2699 / 60 s)
     assert len(labels) == 1350 and labels["time_s"].iloc[-1] == pytest.approx(1349 / 30)
+    # sessions.csv counted the 2700 frames read only, beside labels.csv's 1350 rows: now both
+    (listed,) = pd.read_csv(cohort.path / "sessions.csv").to_dict("records")
+    assert (listed["fps"], listed["n_frames"]) == (60.0, 2700)  # as read, as before
+    assert (listed["labelled_fps"], listed["n_labelled_frames"]) == (30.0, 1350)
+    assert "2,700 frames read, 1,350 labelled (resampled to 30 fps)" in cohort.describe()
+    # the workbench's postures made without the run's cleaned copy: resampled as labelled
+    from ethoscribe.workspace.postures import compute_session_postures
+
+    assert compute_session_postures(cohort, "session_02").coords.shape[0] == 1350
     slow = row.assign(fps=15.0, path=str(study / "session_02.parquet"))
     slow.to_csv(tmp_path / "slow.csv", index=False)
     with pytest.raises(InputError, match=r"'session_02'.*15 fps.*slower than the model's 30"):
@@ -339,6 +348,56 @@ def test_a_cohort_filmed_faster_than_the_model_is_resampled_to_its_rate(study, w
             workspace.path, [], tmp_path / "slow", manifest=tmp_path / "slow.csv", progress=False
         )
     assert not (tmp_path / "slow" / "labels.csv").exists()
+
+
+def test_a_resampled_discovery_counts_frames_as_read_and_as_labelled(study, tmp_path):
+    """Sessions resampled from 30 to 15 fps (cleaning target_fps): sessions.csv and the run's
+    message counted the frames read (2700 a session) while labels.csv has 1350 rows a session.
+    Both counts are now given, and the labelled one equals the labels' rows per session and
+    animal. A fitting sample smaller than the frames read was drawn over the frame counts read
+    and cut blocks past the end of the resampled sessions (an empty block stopped the run)."""
+    from ethoscribe.workspace.report_sections import model_section
+
+    with pytest.warns(UserWarning, match="at 15 fps the band amplitudes around 8 Hz"):
+        ws = discover(
+            [study], tmp_path / "run", manifest=study / "manifest.csv", states=4,
+            stability=False, progress=False, cleaning={"target_fps": 15.0}, fit_frames=3000,
+        )  # fmt: skip
+    sessions = pd.read_csv(ws.path / "sessions.csv").set_index("session")
+    assert (sessions["n_frames"] == 2700).all() and (sessions["fps"] == 30.0).all()
+    assert (sessions["labelled_fps"] == 15.0).all()
+    labels = pd.read_csv(ws.path / "labels.csv")
+    rows = labels.groupby(["session", "animal"]).size().groupby("session").unique()
+    # 90 s at 15 fps, frame j at j / 15 s up to the last input frame (2699 / 30 s)
+    assert {s: list(r) for s, r in rows.items()} == {s: [1350] for s in sessions.index}
+    assert sessions["n_labelled_frames"].to_dict() == {s: 1350 for s in sessions.index}
+    said = "8,100 frames read, 4,050 labelled (resampled to 15 fps)"
+    assert said in ws.describe() and said in model_section(ws).text
+    assert ws.summary["n_labelled_frames"] == 4050 and ws.summary["n_frames"] == 8100
+    assert ws.summary["n_training_frames"] == 3000  # the sample asked for, from labelled frames
+
+
+def test_a_cache_entry_without_the_labelled_frame_count_is_made_again(study, tmp_path):
+    """Cleaned sessions cached before sessions.csv gave the labelled frame count lack it in
+    their row: such an entry is made again (it would leave the column empty), a complete one
+    is reused."""
+    from ethoscribe.clean import CleanParams
+    from ethoscribe.workspace.cache import prepare_session
+    from ethoscribe.workspace.reading import plan_sessions
+
+    (entry,) = plan_sessions([study / "session_02.parquet"], study / "manifest.csv")
+    cleaning = CleanParams(target_fps=15.0).to_dict()
+    job = {"entry": entry, "cleaning": cleaning, "cache": str(tmp_path / "cache")}
+    first = prepare_session(job)
+    row = json.loads(Path(first["row"]).read_text())
+    assert (row["fps"], row["n_frames"]) == (30.0, 2700)
+    assert (row["labelled_fps"], row["n_labelled_frames"]) == (15.0, 1350)
+    assert prepare_session(job)["reused"]
+    del row["n_labelled_frames"]  # as written before the count was recorded
+    Path(first["row"]).write_text(json.dumps(row))
+    again = prepare_session(job)
+    assert not again["reused"]
+    assert json.loads(Path(again["row"]).read_text())["n_labelled_frames"] == 1350
 
 
 def test_a_cohort_is_labelled_again_with_the_names_curated_since(study, workspace, tmp_path):

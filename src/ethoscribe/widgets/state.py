@@ -36,6 +36,7 @@ from ethoscribe.workspace.browsing import (
 from ethoscribe.workspace.edit_worker import TableWriter
 from ethoscribe.workspace.export import save_ethogram
 from ethoscribe.workspace.postures import PostureLibrary
+from ethoscribe.workspace.reading import LABELLED_FPS, LABELLED_FRAMES
 from ethoscribe.workspace.video import VideoFrames, video_file
 
 SORT_KEYS = {
@@ -51,6 +52,8 @@ TECHNICAL_COLUMNS = {
     "path",
     "fps",
     "n_frames",
+    LABELLED_FPS,
+    LABELLED_FRAMES,
     "duration_s",
     "n_animals",
     "units",

@@ -20,6 +20,7 @@ from ethoscribe.widgets.common import (
 )
 from ethoscribe.widgets.expert import ExpertSection
 from ethoscribe.widgets.state import WorkbenchState
+from ethoscribe.workspace.reading import LABELLED_FPS, LABELLED_FRAMES
 from ethoscribe.workspace.report_sections import model_section, quality_section
 
 SESSION_COLUMNS = (
@@ -28,6 +29,8 @@ SESSION_COLUMNS = (
     "subject",
     "fps",
     "n_frames",
+    LABELLED_FPS,  # fewer frames than read when resampled: the labels' rows
+    LABELLED_FRAMES,
     "duration_s",
     "n_animals",
     "units",

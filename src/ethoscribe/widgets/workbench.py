@@ -17,6 +17,7 @@ from ethoscribe.widgets.ethogram import EthogramPage
 from ethoscribe.widgets.motifs import CurationDesk, MotifList, MotifPortrait
 from ethoscribe.widgets.state import WorkbenchState
 from ethoscribe.widgets.study import GroupPage, StudyPage
+from ethoscribe.workspace.folder import frames_said
 
 PAGES = ("Motifs", "Ethogram", "Study", "Groups")
 
@@ -92,8 +93,7 @@ class Workbench(w.VBox):
         folder = self.state.ws.path.resolve()
         name, where = html.escape(folder.name), html.escape(str(folder), quote=True)
         facts = (
-            f"{s.get('n_sessions')} sessions · {s.get('n_frames'):,} frames · "
-            f"{len(self.state.motifs)} motifs"
+            f"{s.get('n_sessions')} sessions · {frames_said(s)} · {len(self.state.motifs)} motifs"
         )
         title = w.HTML(
             f"<div style='font-size:18px;font-weight:600' title='{where}'>ethoscribe workbench: "

@@ -45,7 +45,12 @@ from ethoscribe.segment.model import BehaviourModel
 from ethoscribe.system import file_digest
 from ethoscribe.workspace.files import load_model, save_features
 from ethoscribe.workspace.folder import jsonable
-from ethoscribe.workspace.reading import read_planned, session_row
+from ethoscribe.workspace.reading import (
+    LABELLED_FPS,
+    LABELLED_FRAMES,
+    read_planned,
+    session_row,
+)
 
 CACHE_FOLDER = Path("cache") / "cleaned"
 MODELS_FOLDER = Path("cache") / "models"
@@ -98,7 +103,7 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
     recipe = {**cleaning, "causal": True} if causal else cleaning
     base = folder / f"{_stem(entry['session'])}-{cache_key(entry, recipe)}"
     info = {"tracks": f"{base}.npz", "quality": f"{base}.quality.parquet", "row": f"{base}.json"}
-    if not job.get("force") and all(Path(p).is_file() for p in info.values()):
+    if not job.get("force") and _complete(info):
         return {**info, "reused": True}
     # Warnings (a confidence column left unread ...) travel back with the result, so that a
     # worker's say reaches the user once, through the parent process.
@@ -123,9 +128,24 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
     # cleaning values resolved for this session (automatic swap pairs, speed bound ...).
     row = {**session_row(entry, tracks), CLEANING_USED: report.params}
     row["first_frame"] = first_frame(cleaned)  # at the cleaned rate, as the labels count
+    # What the labels count (resampling changes both): sessions.csv shows them beside the
+    # frame rate and count read from the file.
+    row[LABELLED_FPS], row[LABELLED_FRAMES] = cleaned.fps, cleaned.n_frames
     atomic_write_json(info["row"], jsonable(row))
     said = [[type(w.message).__name__, str(w.message)] for w in caught]
     return {**info, "reused": False, "warnings": said}
+
+
+def _complete(info: dict[str, str]) -> bool:
+    """A cache entry with all its files, whose row has the labelled frame count (entries
+    written before it was recorded are made again)."""
+    if not all(Path(p).is_file() for p in info.values()):
+        return False
+    try:
+        row = read_json(info["row"])
+    except ValueError:  # damaged (InputError): made again
+        return False
+    return isinstance(row, dict) and LABELLED_FRAMES in row
 
 
 def load_prepared(info: dict[str, Any]) -> tuple[PoseTracks, pd.DataFrame, dict[str, Any]]:

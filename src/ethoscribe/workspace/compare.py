@@ -351,7 +351,8 @@ def _metadata(ws: Workspace, options: dict, design: pd.DataFrame, stats: pd.Data
             "left_out": list(design.attrs.get("left_out") or []),
             "workspace_parameters": summary.get("parameters"),
             "workspace_summary": {
-                k: summary.get(k) for k in ("n_states", "n_sessions", "n_frames", "created")
+                k: summary.get(k)
+                for k in ("n_states", "n_sessions", "n_frames", "n_labelled_frames", "created")
             },
             "journal": _journal_summary(ws),
             "n_tests": int(stats["testable"].sum()),

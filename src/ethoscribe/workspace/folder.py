@@ -3,7 +3,8 @@
 This is the only module that knows the folder layout::
 
     workspace.json     kind, format version, creation time, versions, parameters (written last)
-    sessions.csv       one row per session: source file, fps, frames, manifest columns
+    sessions.csv       one row per session: source file, fps and frames as read, fps and
+                       frames as labelled (fewer when resampled), manifest columns
     quality.csv        cleaning quality per session, animal and keypoint
     labels.parquet     per-frame labels (state ids; names come from the journal)
     labels.csv         the same with current motif names, for people
@@ -79,6 +80,24 @@ CAUTION = (
     "These outputs support, and do not replace, expert review of the behaviour and the local "
     "animal-welfare and ethics rules."
 )
+
+
+def frames_said(summary: dict[str, Any]) -> str:
+    """The run's frame count for a message: as read, and as labelled when resampling made
+    them differ (labels.csv then has fewer rows than the files have frames).
+
+    Examples
+    --------
+    >>> frames_said({"n_frames": 8100, "n_labelled_frames": 8100, "labelled_fps": 30.0})
+    '8,100 frames'
+    >>> frames_said({"n_frames": 8100, "n_labelled_frames": 4050, "labelled_fps": 15.0})
+    '8,100 frames read, 4,050 labelled (resampled to 15 fps)'
+    """
+    read, labelled = summary.get("n_frames"), summary.get("n_labelled_frames")
+    if labelled is None or labelled == read:
+        return f"{read:,} frames" if isinstance(read, int) else f"{read} frames"
+    fps = summary.get("labelled_fps")
+    return f"{read:,} frames read, {labelled:,} labelled (resampled to {fps:g} fps)"
 
 
 def versions() -> dict[str, str]:
@@ -431,7 +450,7 @@ class Workspace:
         source = s.get("labelled_with")
         labelled = f", labelled with the model of {source}" if source else ""
         return (
-            f"workspace {self.path}: {s['n_sessions']} sessions, {s['n_frames']} frames, "
+            f"workspace {self.path}: {s['n_sessions']} sessions, {frames_said(s)}, "
             f"{n_motifs} motifs{labelled}; files: labels.csv, bouts.csv, transitions.csv, "
             f"time_budget.csv, quality.csv, summary.json, model/.{note} {CAUTION}"
         )

@@ -16,6 +16,7 @@ spanning tree of the mean keypoint distances
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 from collections import OrderedDict
@@ -40,7 +41,7 @@ from ethoscribe.postures import (
 )
 from ethoscribe.segment.model import BehaviourModel
 from ethoscribe.workspace.folder import Workspace
-from ethoscribe.workspace.reading import read_sessions
+from ethoscribe.workspace.reading import LABELLED_FPS, LABELLED_FRAMES, read_sessions
 
 POSTURE_FOLDER = "postures"
 CACHE_FORMAT = 1
@@ -182,17 +183,35 @@ def compute_session_postures(
     px = row.get("px_per_unit")
     if px is not None and not (isinstance(px, float) and np.isnan(px)):
         tracks = calibrate(tracks, float(px), str(row.get("units") or "mm"))
-    cleaned, _ = clean(tracks, model.cleaning_)
+    cleaning = model.cleaning_
+    labelled_fps = _number(row.get(LABELLED_FPS))
+    if labelled_fps and not cleaning.target_fps and abs(labelled_fps - tracks.fps) > 1e-9:
+        # a cohort filmed faster than the model: resampled to its rate, as labelling did
+        cleaning = dataclasses.replace(cleaning, target_fps=labelled_fps)
+    cleaned, _ = clean(tracks, cleaning)
     (cleaned,) = match_keypoint_order([cleaned], model.keypoints_)
     ego = egocentric_postures(cleaned, model.features_)
-    n_frames = row.get("n_frames")
-    if n_frames is not None and len(ego) != int(n_frames) and not model.cleaning_.target_fps:
+    # the frames the labels count (older sessions.csv: those read, unless resampled)
+    expected = _number(row.get(LABELLED_FRAMES))
+    if expected is None and not cleaning.target_fps:
+        expected = _number(row.get("n_frames"))
+    if expected is not None and len(ego) != int(expected):
         msg = (
-            f"session '{session}': {source} now has {len(ego)} frames but discovery read "
-            f"{int(n_frames)}; the file changed since the workspace was made"
+            f"session '{session}': {source} now gives {len(ego)} frames to label but the "
+            f"workspace's labels have {int(expected)}; the file changed since the workspace "
+            "was made"
         )
         raise WorkspaceError(msg)
     return _postures_of(str(session), cleaned, model, ego)
+
+
+def _number(value: Any) -> float | None:
+    """A finite number from a sessions-table cell, else None (column absent or empty)."""
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return None
+    return number if np.isfinite(number) else None
 
 
 def _postures_of(

@@ -214,8 +214,14 @@ def read_planned(entry: dict[str, Any]) -> PoseTracks:
     return tracks.replace(meta=entry["meta"])
 
 
+# Frames as labelled (after any resampling to a common frame rate): the rows of labels.csv per
+# session and animal. ``fps`` and ``n_frames`` stay as read from the file.
+LABELLED_FPS = "labelled_fps"
+LABELLED_FRAMES = "n_labelled_frames"
+
+
 def session_row(entry: dict[str, Any], tracks: PoseTracks) -> dict[str, Any]:
-    """The sessions-table row of one session."""
+    """The sessions-table row of one session (``fps`` and ``n_frames`` as read from its file)."""
     return {
         **entry["meta"],
         "session": tracks.session,
@@ -233,10 +239,22 @@ def session_row(entry: dict[str, Any], tracks: PoseTracks) -> dict[str, Any]:
 
 
 def sessions_table(rows: Sequence[dict[str, Any]]) -> pd.DataFrame:
-    """Rows of :func:`session_row` as a table, the fixed columns first."""
-    front = ["session", "source", "fps", "n_frames", "duration_s", "n_animals", "units"]
+    """Rows of :func:`session_row` as a table, the fixed columns first (the labelled frame
+    rate and count, when the rows have them, beside the ones read)."""
     frame = pd.DataFrame.from_records(list(rows))
+    labelled = [c for c in (LABELLED_FPS, LABELLED_FRAMES) if c in frame.columns]
+    front = ["session", "source", "fps", "n_frames", *labelled, "duration_s", "n_animals", "units"]
     return frame[front + [c for c in frame.columns if c not in front]]
+
+
+def labelled_frames(table: pd.DataFrame) -> np.ndarray:
+    """Frames labelled per session (rows of the labels per animal), in ``table``'s order.
+
+    ``table``: a sessions table. Tables written before the labelled count was recorded give
+    ``n_frames`` (the count read, the same unless the sessions were resampled).
+    """
+    column = LABELLED_FRAMES if LABELLED_FRAMES in table.columns else "n_frames"
+    return pd.to_numeric(table[column]).to_numpy(np.int64)
 
 
 def read_sessions(

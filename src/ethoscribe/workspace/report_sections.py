@@ -40,7 +40,7 @@ from ethoscribe.segment.stability import (
     reproducibility_grades,
 )
 from ethoscribe.transitions import transitions_above_chance
-from ethoscribe.workspace.folder import Workspace
+from ethoscribe.workspace.folder import Workspace, frames_said
 
 RASTER_BARS = 6000  # bars drawn in the ethogram raster before rows are resampled
 TOP_ROWS = 25  # rows of the statistics table shown in the report
@@ -107,14 +107,14 @@ def model_section(ws: Workspace) -> Section:
             f"{summary.get('n_states')} states ({chosen} there), method "
             f"{params.get('method', '?')}, seed {summary.get('seed')}, fitted on "
             f"{summary.get('n_training_frames', '?')} frames; here {summary.get('n_sessions')} "
-            f"sessions, {summary.get('n_frames')} frames."
+            f"sessions, {frames_said(summary)}."
         )
     else:
         text = (
             f"{summary.get('n_states')} states ({chosen}), method {params.get('method', '?')}, "
             f"seed {summary.get('seed')}; {summary.get('n_sessions')} sessions, "
-            f"{summary.get('n_frames')} frames ({summary.get('n_training_frames', '?')} used to "
-            "fit)."
+            f"{frames_said(summary)}; {summary.get('n_training_frames', '?')} frames used to "
+            "fit."
         )
     offsets = summary.get("individual_offsets")
     if offsets:

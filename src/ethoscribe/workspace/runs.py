@@ -67,11 +67,13 @@ from ethoscribe.workspace.folder import (
 from ethoscribe.workspace.learned_labels import retire_learned
 from ethoscribe.workspace.postures import cache_postures
 from ethoscribe.workspace.reading import (
+    LABELLED_FPS,
     as_path,
     as_paths,
     check_readers_portable,
     cleaning_summary,
     discovery_cleaning,
+    labelled_frames,
     plan_sessions,
     read_planned,
     reading_summary,
@@ -397,12 +399,14 @@ def _training_sample(
     of a recording is represented while memory is bounded by the sample plus one session. Five
     minutes: long enough that the slowest feature filters (seconds) barely feel the block edges.
     """
-    lengths = table["n_frames"].to_numpy(np.int64)  # the sessions table, in ``prepared`` order
+    # The cleaned sessions' lengths and rate (resampled ones have fewer frames than read),
+    # from the sessions table, in ``prepared`` order.
+    lengths = labelled_frames(table)
     if max_frames is None or lengths.sum() <= max_frames:
         return [load_prepared(i)[0] for i in prepared]
     if max_frames < 1:
         raise InputError(f"fit_frames must be a positive number of frames; got {max_frames}")
-    block = max(1, round(300 * float(table["fps"].iloc[0])))
+    block = max(1, round(300 * float(table[LABELLED_FPS].iloc[0])))
     starts, stops = representative_blocks(lengths, max_frames, block, np.random.default_rng(seed))
     offsets = np.cumsum(lengths) - lengths
     owner = np.searchsorted(offsets, starts, side="right") - 1
@@ -594,7 +598,10 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
             "axis_report": model.features_.axis_report_,
         },
         "n_sessions": len(table),
-        "n_frames": int(table["n_frames"].sum()),
+        "n_frames": int(table["n_frames"].sum()),  # as read from the files
+        # as labelled: fewer than read when sessions were resampled to the model's rate
+        "n_labelled_frames": int(labelled_frames(table).sum()),
+        "labelled_fps": float(model.fps_),
         "n_training_frames": model.n_training_frames_,
         # Added to every state covariance's diagonal after each M-step: no singular covariance.
         "covariance_floor": getattr(model.segmenter_, "covariance_floor_", None),
