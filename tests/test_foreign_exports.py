@@ -163,7 +163,7 @@ def test_mixed_units_name_the_sessions_in_pixels():
 
     a, b = _tracks(0), _tracks(1)
     a = a.replace(units="mm")
-    with pytest.raises(InputError, match=r"mix units \['mm', 'px'\].*\['s1'\] are in pixels"):
+    with pytest.raises(InputError, match=r"mix units \['mm', 'px'\].*sessions 's1' are in pixels"):
         FeaturePipeline().fit([a, b])
 
 

@@ -206,7 +206,7 @@ def test_read_folder_problems(study):
     empty = study / "empty"
     empty.mkdir()
     (empty / "readme.txt").write_text("x")
-    with pytest.raises(InputError, match=r"no pose files .* it holds \['readme.txt'\]"):
+    with pytest.raises(InputError, match=r"no pose files .* it holds 'readme.txt'"):
         read_folder(empty)
     write_tidy(_tracks(), study / "data" / "a.parquet")
     with pytest.raises(InputError, match=r"same session name\(s\) \['a'\]"):

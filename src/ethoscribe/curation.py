@@ -34,7 +34,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 from ethoscribe.ethogram import LABEL_COLUMNS, bout_table, check_columns
 from ethoscribe.segment.postprocess import enforce_min_bout
 
@@ -484,8 +484,9 @@ class Curation:
         pos = np.searchsorted(ids, state[valid]).clip(0, max(len(ids) - 1, 0))
         stray = ids[pos] != state[valid] if len(ids) else np.ones(int(valid.sum()), bool)
         if stray.any():
-            msg = f"label states {sorted(set(state[valid][stray].tolist()))[:10]} are unknown to "
-            raise InputError(msg + "this curation; apply it to the labels it was made for")
+            unknown = listed(sorted(set(state[valid][stray].tolist())), 10)
+            msg = f"label states {unknown} are unknown to this curation; apply it to the labels "
+            raise InputError(msg + "it was made for")
         motif = np.full(len(state), "", dtype=object)
         motif[valid] = np.array([self._names[i] for i in ids], dtype=object)[pos]
         out = labels.copy()

@@ -1,10 +1,12 @@
-"""ethoscribe's own error types.
+"""ethoscribe's own error types, and :func:`listed` for the lists in their messages.
 
 Every error a user can cause by their input is raised as one of these, with a message that says
 what was expected, what was found, where (file, column, keypoint, frame) and how to fix it.
 """
 
 from __future__ import annotations
+
+from collections.abc import Iterable
 
 
 class EthoscribeError(Exception):
@@ -33,3 +35,30 @@ class InputWarning(UserWarning):
 
 class JournalWarning(UserWarning):
     """Lines of a workspace's edit journal that could not be read and were skipped."""
+
+
+def listed(items: Iterable[object], limit: int = 5, sep: str = ", ") -> str:
+    """``items`` written out for a message: the first ``limit`` of them, then how many more.
+
+    Every message that names sessions, keypoints, files or values shortens a long list this
+    way, so a reader always learns how many were left out.
+
+    Parameters
+    ----------
+    items : the things to name, already in the form to show (e.g. ``repr`` of names)
+    limit : how many to write out
+    sep : what goes between two of them
+
+    Examples
+    --------
+    >>> listed(["'a'", "'b'"])
+    "'a', 'b'"
+    >>> listed(range(8), limit=3)
+    '0, 1, 2 and 5 more'
+    >>> listed(["row 2: a.csv", "row 5: b.csv", "row 9: c.csv"], limit=2, sep="; ")
+    'row 2: a.csv; row 5: b.csv and 1 more'
+    """
+    shown = [str(item) for item in items]
+    if len(shown) <= limit:
+        return sep.join(shown)
+    return f"{sep.join(shown[:limit])} and {len(shown) - limit} more"

@@ -23,7 +23,7 @@ import numpy as np
 import pandas as pd
 
 from ethoscribe.effects import benjamini_hochberg, holm
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 
 __all__ = ["FAMILIES", "METRIC_ALIASES", "adjust", "family_summary", "headline", "parse_planned"]
 
@@ -90,7 +90,7 @@ def _check_planned(table: pd.DataFrame, planned: list[tuple[str, str]]) -> None:
             raise InputError(msg)
         motifs = sorted(set(table.loc[table["metric"] == metric, "motif"].astype(str)))
         if motif not in motifs:
-            shown = ", ".join(motifs[:15]) + (" ..." if len(motifs) > 15 else "")
+            shown = listed(motifs, 15)
             msg = (
                 f"planned comparison {metric}:{motif}: no motif {motif!r} for {metric!r} "
                 f"(motifs: {shown}); use the names after curation"

@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 from sklearn.base import BaseEstimator
 
-from ethoscribe.errors import InputError, NotFittedError
+from ethoscribe.errors import InputError, NotFittedError, listed
 from ethoscribe.features.motion import (
     MOVING_AVERAGE_CUTOFF,
     BodyScale,
@@ -347,13 +347,14 @@ class FeaturePipeline(BaseEstimator):
         sessions = list(sessions)
         wrong = [type(s).__name__ for s in sessions if not isinstance(s, PoseTracks)]
         if wrong:
-            raise InputError(f"fit needs a list of PoseTracks; got items of type {wrong[:3]}")
+            raise InputError(f"fit needs a list of PoseTracks; got items of type {listed(wrong)}")
         check_same_body_plan(sessions)
         units = sorted({s.units for s in sessions})
         if len(units) > 1:
             pixels = sorted({s.session.split(" [")[0] for s in sessions if s.units == "px"})
             fix = (
-                f"; sessions {pixels[:5]} are in pixels: give their px_per_unit (and units) in "
+                f"; sessions {listed(map(repr, pixels))} are in pixels: give their px_per_unit "
+                "(and units) in "
                 "the manifest, or the units of files already calibrated"
                 if pixels
                 else ""
@@ -380,8 +381,7 @@ class FeaturePipeline(BaseEstimator):
             if seen.all():
                 return
         names = [k for k, ok in zip(sessions[0].keypoints, seen, strict=True) if not ok]
-        where = [s.session for s in sessions]
-        shown = f"{where[:5]}" + (f" and {len(where) - 5} more" if len(where) > 5 else "")
+        shown = listed(repr(s.session) for s in sessions)
         quoted = ", ".join(f"'{n}'" for n in names)
         msg = (
             f"keypoint {quoted} has no tracked position in any frame of session(s) {shown} "

@@ -7,7 +7,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 from ethoscribe.saved_state import check_header, header
 
 if TYPE_CHECKING:
@@ -95,7 +95,7 @@ def pipeline_from_state(
     unknown = sorted(set(params) - set(cls._get_param_names()))
     if unknown:
         raise InputError(
-            f"FeaturePipeline state: unknown parameters {unknown[:5]}; valid: "
+            f"FeaturePipeline state: unknown parameters {listed(map(repr, unknown))}; valid: "
             f"{cls._get_param_names()}"
         )
     for k in ("frequencies", "axis"):  # saved as JSON lists

@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from ethoscribe.errors import InputError, UnsafeFileError
+from ethoscribe.errors import InputError, UnsafeFileError, listed
 from ethoscribe.pose import check_file_name
 
 MAX_JSON_BYTES = 50_000_000
@@ -207,7 +207,8 @@ def load_npz(
                 raise UnsafeFileError(f"{where}: holds {len(members)} members; refused")
             names = [check_member_name(m.filename, where) for m in members]
             if len(set(names)) != len(names) or not all(n.endswith(".npy") for n in names):
-                msg = f"{where}: not an array archive (repeated or non-.npy members {names[:10]})"
+                shown = listed(map(repr, names), 10)
+                msg = f"{where}: not an array archive (repeated or non-.npy members {shown})"
                 raise InputError(msg)
             for info in members:  # every header first: nothing is allocated for a hostile one
                 _check_member(zf, info, where, max_values)

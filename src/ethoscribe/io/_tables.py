@@ -22,7 +22,7 @@ import pyarrow.compute as pc
 import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 
-from ethoscribe.errors import InputError, InputWarning
+from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._atomic import TABLE_SUFFIXES
 from ethoscribe.pose import PoseTracks
 
@@ -151,7 +151,7 @@ def map_columns(
     if missing:
         raise InputError(
             f"{info.path}: columns= names column(s) {missing} that the file does not have; "
-            f"its columns are {list(info.columns)[:30]}"
+            f"its columns are {listed(map(repr, info.columns), 30)}"
         )
     by_column = {str(c): str(r) for r, c in mapping.items()}
     if len(by_column) != len(mapping):

@@ -23,7 +23,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 from ethoscribe.io._tables import rename_hints, similar_columns
 
 FRAME_COLUMNS = ("session", "frame", "behaviour")
@@ -123,7 +123,7 @@ def _sessions_and_animals(
     unknown = ~names.isin(list(sessions))
     if unknown.any():
         i = int(np.flatnonzero(unknown.to_numpy())[0])
-        known = ", ".join(sorted(sessions)[:8]) + (" ..." if len(sessions) > 8 else "")
+        known = listed(sorted(sessions), 8)
         msg = (
             f"{path}: row {i + line0}: session {names.iloc[i]!r} is not in the workspace "
             f"(its sessions: {known}); fix the name or code only the workspace's sessions"

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
 
-from ethoscribe.errors import InputError, InputWarning
+from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._tables import check_file, rename_hints, separator_hint, similar_columns
 from ethoscribe.io.registry import read_pose
 from ethoscribe.pose import (
@@ -150,8 +150,7 @@ def _check_files(source: str, table: pd.DataFrame, base: Path) -> None:
     if bad:
         raise InputError(
             f"{source}: {len(bad)} listed file(s) do not exist: "
-            + "; ".join(bad[:5])
-            + ("; ..." if len(bad) > 5 else "")
+            + listed(bad, sep="; ")
             + f". Relative paths are read from the manifest's folder {base}."
             + (" Write paths with '/' (not '\\')." if any("\\" in b for b in bad) else "")
         )

@@ -13,7 +13,7 @@ from typing import Any
 
 from tqdm.auto import tqdm
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 from ethoscribe.io.nwb import read_nwb
 from ethoscribe.io.tidy import read_tidy
 from ethoscribe.io.wide import read_wide
@@ -278,7 +278,7 @@ def _folder_files(folder: Path, format: str | None) -> list[Path]:
         if p.is_file() and not p.name.startswith(".") and p.suffix.lower() in suffixes
     )
     if not files:
-        seen = sorted(p.name for p in folder.iterdir())[:20]
+        seen = listed(sorted(repr(p.name) for p in folder.iterdir()), 20) or "nothing"
         raise InputError(
             f"{folder}: no pose files (suffixes {sorted(suffixes)}) in this folder; it holds {seen}"
         )

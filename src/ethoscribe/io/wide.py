@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 from ethoscribe.io._tables import (
     TableInfo,
     check_confidence,
@@ -210,7 +210,7 @@ def _match_columns(
         groups = m.groupdict()
         found[(groups.get("animal") or single, groups["keypoint"], groups["axis"])] = column
     if not found:
-        shown = list(info.columns[:30]) + (["..."] if len(info.columns) > 30 else [])
+        shown = listed(map(repr, info.columns), 30)
         raise InputError(
             f"{info.path}: no column matches the pattern {pattern!r} (regular expression "
             f"{regex.pattern!r}, axes {list(axes)}). Columns found: {shown}. Give pattern= (and "

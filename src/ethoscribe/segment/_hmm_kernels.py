@@ -21,7 +21,7 @@ from typing import NamedTuple
 import numpy as np
 from numba import njit
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 
 
 class Posteriors(NamedTuple):
@@ -227,7 +227,7 @@ def _check_chain(log_emission, startprob, transmat, lengths):
         )
         raise InputError(msg)
     if ends[-1] != n_frames or (np.diff(np.r_[0, ends]) <= 0).any():
-        got = np.diff(np.r_[0, ends])[:10].tolist()
+        got = listed(np.diff(np.r_[0, ends]).tolist(), 10)
         raise InputError(f"lengths must be positive and sum to {n_frames}; got {got}")
     return log_emission, startprob, transmat, starts, ends
 

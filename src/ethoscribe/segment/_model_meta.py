@@ -11,7 +11,7 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ethoscribe.checks import int_between, is_real
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 from ethoscribe.features import FeaturePipeline
 from ethoscribe.segment.registry import get_segmenter, segmenter_names, spec_of_estimator
 
@@ -40,7 +40,7 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
     problems = []
     unknown = sorted(set(params) - set(model_keys))
     if unknown:
-        problems.append(f"'params' has unknown keys {unknown[:5]}")
+        problems.append(f"'params' has unknown keys {listed(map(repr, unknown))}")
     method = params.get("method", "hmm")
     methods = segmenter_names()
     if not isinstance(method, str) or method not in methods:
@@ -88,7 +88,8 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
     if isinstance(features, Mapping):
         unknown = sorted(set(features) - known_keys(FeaturePipeline))
         if unknown:
-            problems.append(f"'params.features' has unknown FeaturePipeline options {unknown[:5]}")
+            shown = listed(map(repr, unknown))
+            problems.append(f"'params.features' has unknown FeaturePipeline options {shown}")
     segmenter = params.get("segmenter")
     if isinstance(segmenter, Mapping) and isinstance(method, str) and method in methods:
         spec = get_segmenter(method)
@@ -97,7 +98,8 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
         bad = sorted((set(segmenter) - known_keys(cls)) | (set(segmenter) & spec.reserved))
         if bad:
             problems.append(
-                f"'params.segmenter' has options {bad[:5]} that {cls.__name__} does not take "
+                f"'params.segmenter' has options {listed(map(repr, bad))} that {cls.__name__} "
+                "does not take "
                 "from there"
             )
     return problems

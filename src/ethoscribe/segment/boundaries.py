@@ -19,7 +19,7 @@ from collections.abc import Sequence
 import numpy as np
 from scipy.optimize import linear_sum_assignment
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 
 
 def _as_boundaries(b: Sequence[int] | np.ndarray, name: str) -> np.ndarray:
@@ -28,7 +28,9 @@ def _as_boundaries(b: Sequence[int] | np.ndarray, name: str) -> np.ndarray:
     except (TypeError, ValueError) as exc:
         raise InputError(f"{name} boundaries must be numbers (frame indices); {exc}") from None
     if not np.isfinite(arr).all():
-        raise InputError(f"{name} boundaries contain NaN or infinite values: {arr[:10].tolist()}")
+        raise InputError(
+            f"{name} boundaries contain NaN or infinite values: {listed(arr.tolist(), 10)}"
+        )
     return np.sort(arr)
 
 
@@ -234,7 +236,7 @@ def boundaries_from_labels(
     if lengths.sum() != len(labels) or (lengths <= 0).any():
         raise InputError(
             f"session lengths must be positive and sum to the number of labels ({len(labels)}); "
-            f"got {lengths.tolist()[:10]}"
+            f"got {listed(lengths.tolist(), 10)}"
         )
     out = []
     for part in np.split(labels, np.cumsum(lengths)[:-1]):

@@ -20,7 +20,7 @@ import ruptures as rpt
 from sklearn.base import BaseEstimator
 
 from ethoscribe.checks import is_real, seed_from
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths, split_by_lengths
 from ethoscribe.segment.motifs import (
@@ -480,7 +480,7 @@ class ChangePointSegmenter(BaseEstimator):
         unknown = sorted(set(params) - set(cls._get_param_names()))
         if unknown:
             raise InputError(
-                f"change-point state: unknown parameters {unknown[:5]}; valid: "
+                f"change-point state: unknown parameters {listed(map(repr, unknown))}; valid: "
                 f"{cls._get_param_names()}"
             )
         obj = cls(**params)

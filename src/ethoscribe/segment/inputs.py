@@ -10,7 +10,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from ethoscribe.errors import InputError, NotFittedError
+from ethoscribe.errors import InputError, NotFittedError, listed
 
 
 def check_X_lengths(
@@ -63,7 +63,7 @@ def check_X_lengths(
         if (lengths <= 0).any() or lengths.sum() != X.shape[0]:
             raise InputError(
                 f"session lengths must be positive and sum to the number of frames ({X.shape[0]}); "
-                f"got {lengths.tolist()[:10]} summing to {int(lengths.sum())}"
+                f"got {listed(lengths.tolist(), 10)} summing to {int(lengths.sum())}"
             )
     return X, lengths
 

@@ -19,7 +19,7 @@ from tqdm.auto import tqdm
 
 from ethoscribe.checks import seed_from
 from ethoscribe.clean import CleanParams, QualityReport, clean
-from ethoscribe.errors import EthoscribeError, InputError, InputWarning
+from ethoscribe.errors import EthoscribeError, InputError, InputWarning, listed
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
 from ethoscribe.pose import (
@@ -1050,10 +1050,7 @@ def check_one_rate(rates: Iterable[float], sessions: Sequence[str] | None = None
         if sessions is not None and len(sessions) == len(rates):
             pairs = list(zip(sessions, rates, strict=True))
             at = {r: [repr(str(s)) for s, q in pairs if q == r] for r in distinct}
-            found = ": " + ", ".join(
-                f"{r:g} fps ({', '.join(names[:5])}{' ...' if len(names) > 5 else ''})"
-                for r, names in at.items()
-            )
+            found = ": " + ", ".join(f"{r:g} fps ({listed(names)})" for r, names in at.items())
         raise InputError(
             f"sessions have different frame rates{found}; resample them to one rate, e.g. the "
             f"lowest, with cleaning={{'target_fps': {distinct[0]:g}}}"

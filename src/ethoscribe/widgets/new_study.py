@@ -14,7 +14,7 @@ from typing import Any
 
 import ipywidgets as w
 
-from ethoscribe.errors import EthoscribeError, InputError
+from ethoscribe.errors import EthoscribeError, InputError, listed
 from ethoscribe.widgets.common import button, flow, heading, message_html, note
 from ethoscribe.widgets.workbench import Workbench
 from ethoscribe.workspace import discover
@@ -142,9 +142,7 @@ class NewStudy(w.VBox):
         self.tail.options = [(f"automatic ({tail})", AUTOMATIC), *named]
         self.head.options = [(f"automatic ({head})", AUTOMATIC), *named]
         sessions = info["sessions"]
-        shown = ", ".join(sessions[:6]) + (
-            f" and {len(sessions) - 6} more" if len(sessions) > 6 else ""
-        )
+        shown = listed(sessions, 6)
         text = (
             f"{len(sessions)} sessions ({shown}); {len(keypoints)} keypoints "
             f"({', '.join(keypoints)}); {len(info['animals'])} animal(s); "

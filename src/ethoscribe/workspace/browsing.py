@@ -18,7 +18,7 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, listed
 from ethoscribe.ethogram import BOUT_COLUMNS, bout_table
 
 __all__ = [
@@ -76,7 +76,7 @@ def bouts_for_names(runs: pd.DataFrame, names: Mapping[int, str]) -> pd.DataFram
     ids = np.array(sorted(names), dtype=np.int64)
     pos = np.searchsorted(ids, state).clip(0, max(len(ids) - 1, 0))
     if len(state) and (not len(ids) or (ids[pos] != state).any()):
-        stray = sorted(set(state.tolist()) - set(ids.tolist()))[:10]
+        stray = listed(sorted(set(state.tolist()) - set(ids.tolist())), 10)
         raise InputError(f"states {stray} of the runs have no motif name; name every state")
     labels = np.array([names[i] for i in ids], dtype=object)
     motif = labels[pos] if len(ids) else np.array([], dtype=object)

@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from ethoscribe.curation import UNASSIGNED
-from ethoscribe.errors import InputError, InputWarning
+from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.ethogram import bout_table, time_budget, transition_table
 from ethoscribe.io import atomic_write_json, atomic_write_text, read_manifest, write_table
 from ethoscribe.label_table import csv_rounded
@@ -113,7 +113,8 @@ def compare(
     left_out = design.attrs["left_out"]
     if left_out:
         labels = labels[~labels["session"].astype(str).isin(left_out)].reset_index(drop=True)
-        _warn(f"sessions {_listed(left_out)} have an empty {by!r}: left out of the comparison")
+        shown = listed(map(repr, left_out), 10)
+        _warn(f"sessions {shown} have an empty {by!r}: left out of the comparison")
     bouts = bout_table(labels)
     metrics = session_metrics(labels, bouts, design)
     # Frames the scientist set aside are no behaviour to test: described in the tables only
@@ -249,11 +250,6 @@ def _warn(text: str) -> None:
     warnings.warn(text, InputWarning, stacklevel=3)
 
 
-def _listed(names: list[str], limit: int = 10) -> str:
-    more = f" and {len(names) - limit} more" if len(names) > limit else ""
-    return ", ".join(repr(n) for n in names[:limit]) + more
-
-
 def _design(
     ws: Workspace, labels: pd.DataFrame, manifest: str | Path | None, by: str, paired: bool
 ) -> pd.DataFrame:
@@ -283,7 +279,8 @@ def _design(
     unit = "subject" if paired else "session"
     sizes = design.groupby("group")[unit].nunique()
     if len(sizes) < 2:
-        msg = f"{source}: column {by!r} holds {len(sizes)} group ({_listed(list(sizes.index))})"
+        shown = listed(map(repr, sizes.index), 10)
+        msg = f"{source}: column {by!r} holds {len(sizes)} group ({shown})"
         raise InputError(f"{msg}; a comparison needs at least two groups")
     single = sizes[sizes < 2].index.tolist()
     if single:
@@ -298,13 +295,17 @@ def _design(
 
 def _check_coverage(design: pd.DataFrame, labels: pd.DataFrame, source: str, ws: Workspace) -> None:
     have = set(labels["session"].astype(str))
-    listed = set(design["session"])
-    missing, extra = sorted(have - listed), sorted(listed - have)
+    given = set(design["session"])
+    missing, extra = sorted(have - given), sorted(given - have)
     problems = []
     if missing:
-        problems.append(f"sessions of the workspace missing from it: {_listed(missing)}")
+        problems.append(
+            f"sessions of the workspace missing from it: {listed(map(repr, missing), 10)}"
+        )
     if extra:
-        problems.append(f"sessions in it that the workspace {ws.path} lacks: {_listed(extra)}")
+        problems.append(
+            f"sessions in it that the workspace {ws.path} lacks: {listed(map(repr, extra), 10)}"
+        )
     if problems:
         msg = f"{source} does not match the workspace: {'; '.join(problems)}. The session column "
         raise InputError(msg + "must list the pose file names (without suffix) discovery read.")
@@ -401,7 +402,7 @@ def _summary(
     text += " " + (" ".join(w.rstrip(".") + "." for w in warnings) + " " if warnings else "")
     left_out = design.attrs.get("left_out") or []
     if left_out:
-        text += f"Sessions left out (empty {by!r}): {_listed(left_out)}. "
+        text += f"Sessions left out (empty {by!r}): {listed(map(repr, left_out), 10)}. "
     if UNASSIGNED in set(labels["motif"].astype(str)):
         text += "Frames set aside as unassigned are in the tables, not tested. "
     return f"{text}Tables, metadata.json and report.html are in {out}. {CAUTION}"

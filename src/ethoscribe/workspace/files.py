@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 
 from ethoscribe import __version__
-from ethoscribe.errors import EthoscribeError, InputError, UnsafeFileError, WorkspaceError
+from ethoscribe.errors import EthoscribeError, InputError, UnsafeFileError, WorkspaceError, listed
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_write, load_npz, loads_json, locking, sync_folder
 from ethoscribe.io.bundle import read_bundle
@@ -381,7 +381,7 @@ def check_links(root: Path) -> None:
     """Refuse a folder holding links that lead outside it (``UnsafeFileError``)."""
     bad = outside_links(root)
     if bad:
-        shown = "; ".join(f"{p.relative_to(root)} -> {t}" for p, t in bad[:5])
+        shown = listed((f"{p.relative_to(root)} -> {t}" for p, t in bad), sep="; ")
         msg = (
             f"{root}: holds {len(bad)} symbolic link(s) leading outside the workspace ({shown}). "
             "A workspace must hold its own files: through such a link an edit could read or "

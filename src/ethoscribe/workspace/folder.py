@@ -46,7 +46,7 @@ import pyarrow as pa
 
 from ethoscribe import __version__
 from ethoscribe.curation import Curation, name_list
-from ethoscribe.errors import EthoscribeError, InputError, JournalWarning, WorkspaceError
+from ethoscribe.errors import EthoscribeError, InputError, JournalWarning, WorkspaceError, listed
 from ethoscribe.ethogram import bout_table, time_budget, time_budgets_joined, transition_table
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_table_writer, atomic_write_json, locking, read_json, write_table
@@ -234,9 +234,7 @@ def check_output_folder(
     own = (*RUN_MARKS, "cache", *((*OWN_FILES, *OWN_FOLDERS, "journal-before-") if ours else ()))
     foreign = [n for n in names if not n.startswith(own)]
     if foreign:
-        shown = ", ".join(foreign[:3]) + (
-            f" and {len(foreign) - 3} more" if len(foreign) > 3 else ""
-        )
+        shown = listed(foreign, 3)
         msg = (
             f"{option} {out} holds files ethoscribe did not write ({shown}) and is not an "
             f"ethoscribe {kind} folder; choose a new or empty folder (nothing there is overwritten)"

@@ -30,7 +30,7 @@ import pandas as pd
 
 from ethoscribe.body_plans import body_plan_for
 from ethoscribe.clean import calibrate, clean
-from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError
+from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError, listed
 from ethoscribe.io import atomic_write, loads_json, safe_child
 from ethoscribe.pose import PoseTracks, match_keypoint_order
 from ethoscribe.postures import (
@@ -403,8 +403,7 @@ class PostureLibrary:
             if len(reasons) == 1:  # one cause (e.g. the model cannot be read): said once
                 shown = reasons.pop()
             else:
-                shown = "; ".join(f"{session}: {reason}" for session, reason in missing[:3])
-                shown += f" (and {len(missing) - 3} more)" if len(missing) > 3 else ""
+                shown = listed((f"{session}: {reason}" for session, reason in missing), 3, "; ")
             self.problem = f"postures of {len(missing)} recording(s) are unavailable: {shown}"
 
     def mean_posture(self, states: Sequence[int]) -> np.ndarray:

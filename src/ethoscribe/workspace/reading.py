@@ -15,7 +15,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ethoscribe.clean import CleanParams, calibrate
-from ethoscribe.errors import InputError, InputWarning
+from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io import pose_files, read_manifest, read_pose, validate_manifest
 from ethoscribe.io.registry import (
     check_reader_options,
@@ -169,7 +169,7 @@ def _warn_absent_files(rows: list[Any], matched: list[Any], source: str) -> None
     if absent:
         warnings.warn(
             f"{source}: {len(absent)} row(s) name a file that does not exist and are left out: "
-            f"{', '.join(absent[:5])}; correct the path or remove the row",
+            f"{listed(absent)}; correct the path or remove the row",
             InputWarning,
             stacklevel=3,
         )

@@ -14,7 +14,7 @@ import pandas as pd
 
 from ethoscribe.clean import CleanParams
 from ethoscribe.curation import Curation
-from ethoscribe.errors import InputError, InputWarning, WorkspaceError
+from ethoscribe.errors import InputError, InputWarning, WorkspaceError, listed
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, write_table
 from ethoscribe.io.bundle import write_bundle
@@ -290,7 +290,7 @@ def _at_model_rate(
     slower = [f"'{e['session']}' ({r:g} fps)" for e, r in given if r and r < model_fps - 1e-9]
     if slower:
         msg = (
-            f"session(s) {', '.join(slower[:5])} filmed slower than the model's {model_fps:g} "
+            f"session(s) {listed(slower)} filmed slower than the model's {model_fps:g} "
             "fps: labelling would invent the frames in between. Fit a model that includes them "
             f"(ethoscribe discover with --target-fps set to their rate), or leave them out"
         )
@@ -298,7 +298,7 @@ def _at_model_rate(
     faster = [f"'{e['session']}' ({r:g} fps)" for e, r in given if r and r > model_fps + 1e-9]
     if faster:
         warnings.warn(
-            f"session(s) {', '.join(faster[:5])} resampled to the model's {model_fps:g} fps "
+            f"session(s) {listed(faster)} resampled to the model's {model_fps:g} fps "
             "before labelling; labels.csv counts frames at that rate (time_s gives the time)",
             InputWarning,
             stacklevel=3,
@@ -316,7 +316,7 @@ def _warn_short_sessions(rows: Sequence[dict[str, Any]]) -> None:
              if float(r["duration_s"]) < shortest]  # fmt: skip
     if short:
         warnings.warn(
-            f"session(s) {', '.join(short[:5])} last less than one bout ({shortest:g} s): each "
+            f"session(s) {listed(short)} last less than one bout ({shortest:g} s): each "
             "is a single bout cut at both ends, and says little about time budgets or "
             "transitions; leave them out or use longer recordings",
             InputWarning,
@@ -337,7 +337,7 @@ def _warn_unscored(ws: Workspace) -> None:
         return
     named = [f"'{s}' ({a}): {v:.0%}" for (s, a), v in high.items()]
     warnings.warn(
-        f"session(s) {', '.join(named[:5])}{' ...' if len(named) > 5 else ''} of frames "
+        f"session(s) {listed(named)} of frames "
         "unscored (too little of the body seen, e.g. out of view); their time budgets and bouts "
         "cover the scored frames only. See quality.csv and the report's data quality",
         InputWarning,
@@ -361,11 +361,10 @@ def _warn_unseen_keypoints(quality: Sequence[pd.DataFrame]) -> None:
             f"'{r.keypoint}' in session '{r.session}'"
             + (f" (animal '{r.animal}')" if several else "")
             + f" ({r.frac_missing_after:.0%})"
-            for r in unseen.head(5).itertuples()
+            for r in unseen.itertuples()
         ]
-        more = f" and {len(unseen) - 5} more" if len(unseen) > 5 else ""
         warnings.warn(
-            f"keypoint(s) missing on most frames after cleaning: {', '.join(said)}{more} "
+            f"keypoint(s) missing on most frames after cleaning: {listed(said)} "
             "(quality.csv). Their positions are filled from the posture model, so motifs say "
             "little about them; check the tracker's output and the keypoint names",
             InputWarning,
@@ -747,7 +746,7 @@ def _refuse_to_drop_cohort_edits(out: Path, source: Path, journal: Sequence[dict
         return  # the names come from source: relabelling carries its later edits
     own = [r for r in records if r not in journal]
     names = sorted({str(r.get("name") or r.get("into") or "") for r in own} - {""})
-    shown = f" (e.g. {', '.join(repr(n) for n in names[:3])})" if names else ""
+    shown = f" ({listed(map(repr, names), 3)})" if names else ""
     raise WorkspaceError(
         f"{out} holds motif names edited there{shown} that {source} does not have "
         f"({JOURNAL_FILE}); labelling again would drop them. Choose another --out folder, or "
