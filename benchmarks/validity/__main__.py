@@ -32,6 +32,7 @@ import numpy as np
 from benchmarks.validity import pipelines, report
 from benchmarks.validity.scoring import score_units
 from benchmarks.validity.sources import DESCRIPTIONS, LOADERS
+from benchmarks.validity.sources import figure as figure_source
 from benchmarks.validity.sources import independent as independent_source
 
 REPO = Path(__file__).resolve().parents[2]
@@ -151,6 +152,7 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     args.out.mkdir(parents=True, exist_ok=True)
     independent_source.DATA_DIR[0] = args.out / "independent_sim_data"
+    figure_source.DATA_DIR[0] = args.out / "figure_sim_data"
     previous = json.loads(path.read_text()) if path.exists() else {"sources": {}}
     params = json.loads(args.params) if args.params else None
     if params is not None and not isinstance(params, dict):

@@ -139,7 +139,14 @@ def _import_all() -> None:
     import importlib
 
     # Registration order is the table's row order.
-    modules = ("own_simulator", "independent", "real_activity", "aeon_series", "exercise_mocap")
+    modules = (
+        "own_simulator",
+        "independent",
+        "figure",
+        "real_activity",
+        "aeon_series",
+        "exercise_mocap",
+    )
     for module in modules:
         importlib.import_module(f"benchmarks.validity.sources.{module}")
 
