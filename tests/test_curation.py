@@ -100,6 +100,26 @@ def test_validation_messages():
     assert len(cur.history) == 2
 
 
+def test_typed_names_lose_outer_spaces_and_case_twins_are_refused():
+    # A name typed in Python with stray spaces, or differing from another motif's only in
+    # case ('Scanning' beside 'scanning'), would make two motifs read as one in every table.
+    cur = Curation({0: "motif_01", 1: "motif_02", 2: "motif_03"})
+    record = cur.rename("motif_01", "  scanning ")
+    assert record["name"] == "scanning" and cur.names[0] == "scanning"
+    with pytest.raises(InputError, match="only in case or spaces; to make them one motif, merge"):
+        cur.rename("motif_02", "Scanning")
+    with pytest.raises(InputError, match="only in case or spaces"):
+        cur.merge(["motif_02", "motif_03"], into="SCANNING ")
+    with pytest.raises(InputError, match="same but for case"):
+        cur.split("motif_02", ["Fast walk", "fast  walk"], labels=None, features=None)
+    with pytest.raises(InputError, match="reserved"):
+        cur.rename("motif_02", "Unassigned")
+    cur.rename("scanning", "Scanning")  # its own name in another case is a rename, not a twin
+    cur.merge(["motif_02", "motif_03"], into=" walking")
+    assert cur.names == {0: "Scanning", 1: "walking", 2: "walking"}
+    assert Curation.from_journal(cur.history).names == cur.names
+
+
 OPS = st.lists(
     st.tuples(
         st.sampled_from(["rename", "merge", "unassign", "undo", "redo"]),

@@ -73,6 +73,30 @@ def _new_name(names: Mapping[int, str], name: Any, replaced: set[str]) -> str:
     return name
 
 
+def _name_key(name: str) -> str:
+    """A name as people read it: case and runs of spaces do not tell two names apart."""
+    return " ".join(name.split()).casefold()
+
+
+def _typed_name(names: Mapping[int, str], name: Any, replaced: set[str]) -> Any:
+    """A name typed for a new edit: outer spaces dropped; refused when it differs from another
+    motif's name only in case or spacing (two such motifs read as one in every table)."""
+    if not isinstance(name, str):
+        return name
+    name = name.strip()
+    if name != UNASSIGNED and _name_key(name) == UNASSIGNED:
+        raise InputError(f"{name!r} reads as the reserved 'unassigned'; use unassign(motif)")
+    others = set(names.values()) - replaced - {name}
+    alike = sorted(m for m in others if _name_key(m) == _name_key(name))
+    if alike:
+        msg = (
+            f"motif name {name!r} differs from the motif {alike[0]!r} only in case or spaces; "
+            f"to make them one motif, merge them (into {alike[0]!r}), else pick another name"
+        )
+        raise InputError(msg)
+    return name
+
+
 def _apply_edit(names: Mapping[int, str], record: Mapping[str, Any]) -> dict[int, str]:
     """The naming after one edit record (validated; the input is not changed)."""
     out, op = dict(names), record.get("op")
@@ -345,12 +369,18 @@ class Curation:
         return self._record(record, names)
 
     def rename(self, motif: str, name: str, *, time: str | None = None) -> dict[str, Any]:
-        """Give ``motif`` a new ``name``; returns the journal record."""
+        """Give ``motif`` a new ``name``; returns the journal record.
+
+        The name is kept without outer spaces; one that differs from another motif's name only
+        in case or spacing is refused (merge the two motifs instead).
+        """
+        name = _typed_name(self._names, name, {motif})
         return self._edit({"op": "rename", "motif": motif, "name": name, "time": time or _now()})
 
     def merge(self, motifs: Sequence[str], into: str, *, time: str | None = None) -> dict:
         """Name all states of ``motifs`` ``into`` (a new name or one of theirs)."""
         motifs = name_list(motifs, "motifs", "merge")
+        into = _typed_name(self._names, into, set(motifs))
         rec = {"op": "merge", "motifs": motifs, "into": into, "time": time or _now()}
         return self._edit(rec)
 
@@ -381,7 +411,11 @@ class Curation:
         value is kept in the record, so replaying the journal gives the same split.
         """
         _known(self._names, motif)
-        names = name_list(names, "names", "split", count=2)
+        typed = name_list(names, "names", "split", count=2)
+        names = [_typed_name(self._names, n, {motif}) for n in typed]
+        if names[0] != names[1] and _name_key(names[0]) == _name_key(names[1]):
+            msg = f"a split needs two different new names; got {names} (same but for case)"
+            raise InputError(msg)
         for name in names:
             _new_name(self._names, name, {motif})
         if columns is None:
