@@ -11,7 +11,7 @@ from scipy.optimize import linear_sum_assignment
 from sklearn.metrics import adjusted_rand_score, normalized_mutual_info_score
 from sklearn.metrics.cluster import contingency_matrix
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io.expert import CodedSession, read_expert_coding
 from ethoscribe.segment.expert_agreement import UNSCORED, expert_agreement
 
@@ -70,6 +70,31 @@ def test_bouts_and_frames_layouts_agree_on_the_example_truth():
         b = read_expert_coding("bouts.csv", known)
     pd.testing.assert_frame_equal(a, b)
     assert len(a) == 18000
+    # the same bouts in frames (the truth's end_frame is the first frame after the bout)
+    in_frames = bouts.rename(columns={"end_frame": "stop_frame"})
+    in_frames.to_csv(folder / "bouts_frames.csv", index=False)
+    c = read_expert_coding(folder / "bouts_frames.csv", known)
+    pd.testing.assert_frame_equal(a, c)
+
+
+def test_names_differing_in_case_or_spaces_are_one_behaviour(tmp_path):
+    # An expert typing 'Grooming' in one session and 'grooming ' in another means one
+    # behaviour; read apart, they would be two categories and lower every agreement figure.
+    text = (
+        "session,behavior,start_s,stop_s\ns1,grooming,0,1\ns1,Grooming ,1,2\n"
+        "s1,grooming,2,3\ns2,Fast  walk,0,1\ns2,fast walk,1,2\ns2,rest,2,3\n"
+    )
+    with pytest.warns(InputWarning, match=r"'grooming' 'Grooming' -> 'grooming'"):
+        coded = read_expert_coding(_write(tmp_path, text), SESSIONS)
+    # 'Fast  walk' and 'fast walk' have one row each: the tie goes to the first sorted
+    assert sorted(set(coded["behaviour"])) == ["Fast  walk", "grooming", "rest"]
+    assert (coded["behaviour"] == "grooming").sum() == 90
+
+
+def test_bouts_in_frames(tmp_path):
+    text = "session,behaviour,start_frame,stop_frame\ns1,rest,0,3\ns1,walk,10,12\n"
+    coded = read_expert_coding(_write(tmp_path, text), SESSIONS)
+    assert coded["frame"].tolist() == [0, 1, 2, 10, 11]
 
 
 @pytest.mark.parametrize(
@@ -89,6 +114,14 @@ def test_bouts_and_frames_layouts_agree_on_the_example_truth():
         ("session,frame,behaviour\ns1,x,a\n", "row 2: column 'frame' must be a number"),
         ("session,animal,frame,behaviour\ns1,mouse,0,a\n", "row 2: animal 'mouse'"),
         ("who,what\n1,2\n", "needs the columns"),
+        (
+            "session,behaviour,start_frame,stop_frame\ns1,a,290,301\n",
+            "row 2: bout of frames 290-301 is outside session 's1'",
+        ),
+        ("session,behaviour,start_frame,stop_frame\ns1,a,0.5,3\n", "must be whole numbers"),
+        ("session,behaviour,start,stop\ns1,a,0,1\n", "Name times in seconds start_s and stop_s"),
+        ("session,behaviour,start_frame,end_frame\ns1,a,0,1\n", "rename it 'stop_frame'"),
+        ("frame,keypoint,x,y\n0,nose,1,2\n", "looks like a pose table"),
     ],
 )
 def test_clear_errors_name_the_row(tmp_path, text, message):

@@ -466,7 +466,7 @@ def _add_expert_commands(sub: argparse._SubParsersAction) -> None:
     a.add_argument("workspace", type=Path, help="folder written by 'ethoscribe discover'")
     a.add_argument(
         "expert", type=Path, help="CSV/Parquet coding: session,frame,behaviour or "
-        "session,behaviour,start_s,stop_s",
+        "session,behaviour,start_s,stop_s (or start_frame,stop_frame; stop not included)",
     )  # fmt: skip
     a.add_argument("--out", type=Path, required=True, help="output folder")
     a.add_argument(

@@ -6,6 +6,12 @@ Two layouts are read (the columns decide which; other columns are ignored):
   frames are 0-based as in the pose files.
 - **bouts**: ``session, behaviour, start_s, stop_s`` (optional ``animal``, ``fps``); a bout
   covers the frames ``round(start_s * fps)`` up to, not including, ``round(stop_s * fps)``.
+- **bouts in frames**: ``session, behaviour, start_frame, stop_frame`` (optional ``animal``),
+  the frames ``start_frame`` up to, not including, ``stop_frame`` (as in ``bouts.csv``).
+
+``behavior`` is read as ``behaviour``. Behaviour names that differ only in case or spacing
+(``Grooming``, ``grooming ``) are one behaviour, named by its most used spelling; a warning
+lists them.
 
 Time the file does not cover, and rows whose behaviour is blank, are *not coded*: they are left
 out of every comparison and never become a behaviour of their own. Problems name the file and
@@ -16,18 +22,20 @@ file, counting from 1) and say how to fix them.
 from __future__ import annotations
 
 import os
-from collections.abc import Mapping
+import warnings
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from ethoscribe.errors import InputError, listed
+from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._tables import rename_hints, similar_columns
 
 FRAME_COLUMNS = ("session", "frame", "behaviour")
 BOUT_COLUMNS = ("session", "behaviour", "start_s", "stop_s")
+FRAME_BOUT_COLUMNS = ("session", "behaviour", "start_frame", "stop_frame")
 CODED_COLUMNS = ["session", "animal", "frame", "behaviour"]
 
 
@@ -65,18 +73,68 @@ def read_expert_coding(
     """
     path = Path(path)
     table = _read(path)
+    if "behaviour" not in table.columns and "behavior" in table.columns:
+        table = table.rename(columns={"behavior": "behaviour"})
     line0 = 2 if path.suffix.lower() != ".parquet" else 1
+    if "behaviour" in table.columns:
+        table["behaviour"] = _one_spelling(path, _text(table, "behaviour"))
     if set(FRAME_COLUMNS) <= set(table.columns):
         return _per_frame(path, table, sessions, line0)
     if set(BOUT_COLUMNS) <= set(table.columns):
-        return _bouts(path, table, sessions, line0)
+        return _bouts(path, table, sessions, line0, "s")
+    if set(FRAME_BOUT_COLUMNS) <= set(table.columns):
+        return _bouts(path, table, sessions, line0, "frame")
     msg = (
         f"{path}: an expert coding needs the columns {', '.join(FRAME_COLUMNS)} (one row per "
-        f"frame) or {', '.join(BOUT_COLUMNS)} (one row per bout); found {list(table.columns)}"
+        f"frame) or {', '.join(BOUT_COLUMNS)} (one row per bout; or start_frame and "
+        f"stop_frame for bouts in frames); found {list(table.columns)}."
     )
-    wanted = dict.fromkeys([*FRAME_COLUMNS, *BOUT_COLUMNS, "animal"])
+    wanted = dict.fromkeys([*FRAME_COLUMNS, *BOUT_COLUMNS, *FRAME_BOUT_COLUMNS, "animal"])
     hints = rename_hints(similar_columns(table.columns, list(wanted)))
-    raise InputError(msg + ("." + hints if hints else ""))
+    raise InputError(msg + hints + _layout_hint(table.columns))
+
+
+def _layout_hint(columns: Sequence[object]) -> str:
+    """What a coding's columns look like when they match no layout, and the fix."""
+    found = {str(c).strip().lower() for c in columns}
+    if {"keypoint", "x", "y"} <= found:
+        return " This looks like a pose table, not an expert's coding."
+    if "end_frame" in found:
+        return (
+            " If 'end_frame' is the first frame after each bout, rename it 'stop_frame'; if it "
+            "is the bout's last frame, add 1 to it first."
+        )
+    if found & {"start", "stop", "end", "onset", "offset", "time", "t"}:
+        return (
+            " Name times in seconds start_s and stop_s (bouts), frame numbers frame (one row "
+            "per frame) or start_frame and stop_frame (bouts)."
+        )
+    return ""
+
+
+def _one_spelling(path: Path, behaviour: pd.Series) -> pd.Series:
+    """Behaviour names that differ only in case or spacing, written one way (the spelling
+    used on most rows; ties: the first in sorted order); a warning lists what was joined."""
+    named = behaviour[behaviour != ""]
+    if named.empty:
+        return behaviour
+    counts = named.value_counts()
+    keys = pd.Series([" ".join(v.split()).casefold() for v in counts.index], index=counts.index)
+    chosen, notes = {}, []
+    for _, spellings in keys.groupby(keys, sort=True):
+        if len(spellings) < 2:
+            continue
+        order = sorted(spellings.index, key=lambda v: (-int(counts[v]), v))
+        chosen.update(dict.fromkeys(order[1:], order[0]))
+        notes.append(" ".join(f"{v!r}" for v in order) + f" -> {order[0]!r}")
+    if not chosen:
+        return behaviour
+    msg = (
+        f"{path}: behaviour names that differ only in case or spaces are read as one behaviour "
+        f"({'; '.join(notes)}); write each behaviour one way in the file to silence this"
+    )
+    warnings.warn(msg, InputWarning, stacklevel=3)
+    return behaviour.replace(chosen)
 
 
 def _read(path: Path) -> pd.DataFrame:
@@ -229,20 +287,31 @@ def _per_frame(
 
 
 def _bouts(
-    path: Path, table: pd.DataFrame, sessions: Mapping[str, CodedSession], line0: int
+    path: Path,
+    table: pd.DataFrame,
+    sessions: Mapping[str, CodedSession],
+    line0: int,
+    unit: str,
 ) -> pd.DataFrame:
+    """Bouts with start and stop in seconds (``unit="s"``) or frame numbers (``"frame"``)."""
     names, animals = _sessions_and_animals(path, table, sessions, line0)
-    _check_fps(path, table, names, sessions, line0)
-    start, stop = (_numbers(path, table, c, line0) for c in ("start_s", "stop_s"))
+    columns = ("start_s", "stop_s") if unit == "s" else ("start_frame", "stop_frame")
+    if unit == "s":
+        _check_fps(path, table, names, sessions, line0)
+    start, stop = (_numbers(path, table, c, line0) for c in columns)
     fps = np.array([sessions[s].fps for s in names], dtype=float)
     n_frames = np.array([sessions[s].n_frames for s in names], dtype=np.int64)
     behaviour = _text(table, "behaviour")
+    first, last = columns
     for i in range(len(table)):
         where = f"{path}: row {i + line0}"
         if not (np.isfinite(start[i]) and np.isfinite(stop[i])):
-            raise InputError(f"{where}: a bout needs both start_s and stop_s")
+            raise InputError(f"{where}: a bout needs both {first} and {last}")
         if stop[i] <= start[i]:
-            raise InputError(f"{where}: stop_s {stop[i]:g} is not after start_s {start[i]:g}")
+            raise InputError(f"{where}: {last} {stop[i]:g} is not after {first} {start[i]:g}")
+        if unit == "frame":
+            _whole_frames(where, start[i], stop[i], names.iloc[i], n_frames[i], fps[i])
+            continue
         duration = n_frames[i] / fps[i]
         if start[i] < -0.5 / fps[i] or stop[i] > duration + 0.5 / fps[i]:
             msg = (
@@ -251,13 +320,15 @@ def _bouts(
                 "another frame rate, or on another recording?"
             )
             raise InputError(msg)
+    if unit == "s":
+        start, stop = start * fps, stop * fps
     bouts = pd.DataFrame(
         {
             "session": names,
             "animal": animals,
             "behaviour": behaviour,
-            "start": np.clip(np.round(start * fps), 0, n_frames).astype(np.int64),
-            "stop": np.clip(np.round(stop * fps), 0, n_frames).astype(np.int64),
+            "start": np.clip(np.round(start), 0, n_frames).astype(np.int64),
+            "stop": np.clip(np.round(stop), 0, n_frames).astype(np.int64),
             "row": np.arange(len(table)) + line0,
         }
     )
@@ -286,6 +357,21 @@ def _bouts(
         }
     )
     return _finish(coded)
+
+
+def _whole_frames(
+    where: str, start: float, stop: float, session: str, n_frames: int, fps: float
+) -> None:
+    if start != round(start) or stop != round(stop):
+        msg = f"{where}: start_frame and stop_frame must be whole numbers ({start:g}, {stop:g})"
+        raise InputError(msg)
+    if start < 0 or stop > n_frames:
+        msg = (
+            f"{where}: bout of frames {start:g}-{stop:g} is outside session {session!r} (frames 0 "
+            f"to {n_frames - 1} at {fps:g} fps; stop_frame is the first frame after the bout, up "
+            f"to {n_frames}); was it coded at another frame rate, or from frame 1?"
+        )
+        raise InputError(msg)
 
 
 def _ranges(starts: np.ndarray, lengths: np.ndarray) -> np.ndarray:
