@@ -9,6 +9,8 @@ equal offline forward filtering (:meth:`GaussianHMM.filter`) of the same session
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+from dataclasses import replace
 from typing import NamedTuple
 
 import numpy as np
@@ -41,14 +43,34 @@ class StreamingLabeller:
         cleaning (an automatic bound needs the whole recording).
     n_animals : int
         Animals per frame.
+    keypoints : sequence of str, optional
+        Names of the keypoints in the order the pushed frames hold them (a tracker's own
+        order); every keypoint of the model must be among them, others are ignored. Default:
+        the model's order (``model.keypoints_``).
+    units : str, optional
+        Units of the pushed coordinates: ``"px"``, ``"mm"``, ``"cm"`` or ``"m"``. Default: the
+        units the model was fitted in (``model.features_.units_``). Pixels for a model fitted
+        in physical units need ``px_per_unit``.
+    px_per_unit : float, optional
+        Pixels per unit of the model's cleaning (``model.cleaning_.unit``) for pixel frames:
+        the camera's calibration, as ``px_per_unit`` in a manifest.
 
     Examples
     --------
     >>> live = StreamingLabeller(model)                         # doctest: +SKIP
     >>> [label] = live.push(coords_of_one_frame, confidence)     # doctest: +SKIP
+    >>> live = StreamingLabeller(model, keypoints=tracker_names, units="px", px_per_unit=2.5)
+    ... # doctest: +SKIP
     """
 
-    def __init__(self, model, n_animals: int = 1) -> None:
+    def __init__(
+        self,
+        model,
+        n_animals: int = 1,
+        keypoints: Sequence[str] | None = None,
+        units: str | None = None,
+        px_per_unit: float | None = None,
+    ) -> None:
         check_fitted(model, "segmenter_")
         spec = get_segmenter(model.method)
         if spec.streaming is None:
@@ -64,19 +86,41 @@ class StreamingLabeller:
             )
         self.model = model
         self.n_animals = int(n_animals)
+        self._order = _keypoint_order(model.keypoints_, keypoints)
+        self.n_keypoints_in = len(model.keypoints_) if keypoints is None else len(keypoints)
+        fitted_units = model.features_.units_
+        units = fitted_units if units is None else units
+        if px_per_unit is None and units == "px":
+            px_per_unit = model.cleaning_.px_per_unit  # the fitting's own calibration, if any
         self.cleaner = StreamingCleaner(
-            model.cleaning_,
+            replace(model.cleaning_, px_per_unit=px_per_unit if units == "px" else None),
             model.keypoints_,
             model.fps_,
             n_animals=self.n_animals,
             n_dims=model.n_dims_,
-            units=model.features_.units_,
+            units=units,
         )
+        if self.cleaner.units != fitted_units:
+            fix = (
+                f"give px_per_unit (pixels per {model.cleaning_.unit}, the camera's calibration)"
+                if self.cleaner.units == "px"
+                else f"push pixel frames without px_per_unit, or frames in {fitted_units!r}"
+            )
+            msg = (
+                f"the model was fitted on coordinates in {fitted_units!r} but the pushed frames "
+                f"would be cleaned into {self.cleaner.units!r}: {fix}"
+            )
+            raise InputError(msg)
         self.features = model.features_.stream(self.n_animals)
         self.filters = [spec.live(model.segmenter_) for _ in range(self.n_animals)]
 
     def push(self, coords: np.ndarray, confidence: np.ndarray | None = None) -> list[LiveLabel]:
-        """Add one frame ``coords (animals, keypoints, dims)``; return one label per animal."""
+        """Add one frame ``coords (animals, keypoints, dims)``; return one label per animal.
+
+        ``keypoints`` are in the order given to the constructor (default: the model's).
+        """
+        if self._order is not None:
+            coords, confidence = self._reordered(coords, confidence)
         cleaned = self.cleaner.push(coords, confidence)
         filler = getattr(self.model, "filler_", None)
         if filler is not None and not np.isfinite(cleaned).all():
@@ -91,3 +135,47 @@ class StreamingLabeller:
             state = int(np.argmax(posterior))
             out.append(LiveLabel(state, float(posterior[state]), posterior))
         return out
+
+    def _reordered(
+        self, coords: np.ndarray, confidence: np.ndarray | None
+    ) -> tuple[np.ndarray, np.ndarray | None]:
+        x = np.asarray(coords, dtype=np.float64)
+        if x.ndim != 3 or x.shape[1] != self.n_keypoints_in:
+            msg = (
+                f"frame {self.cleaner.n_frames_seen}: coords must have shape (animals, "
+                f"{self.n_keypoints_in} keypoints as given in keypoints=, dims); got {x.shape}"
+            )
+            raise InputError(msg)
+        if confidence is not None:
+            c = np.asarray(confidence, dtype=np.float64)
+            if c.ndim != 2 or c.shape[1] != self.n_keypoints_in:
+                msg = (
+                    f"frame {self.cleaner.n_frames_seen}: confidence must have shape (animals, "
+                    f"{self.n_keypoints_in}); got {c.shape}"
+                )
+                raise InputError(msg)
+            confidence = c[:, self._order]
+        return x[:, self._order], confidence
+
+
+def _keypoint_order(
+    model_keypoints: Sequence[str], given: Sequence[str] | None
+) -> np.ndarray | None:
+    """Indices taking the pushed keypoints to the model's order (None: already in it)."""
+    if given is None:
+        return None
+    if isinstance(given, str):
+        raise InputError(f"keypoints must be a list of names; got the string {given!r}")
+    given = [str(k) for k in given]
+    if len(set(given)) != len(given):
+        twice = sorted({k for k in given if given.count(k) > 1})
+        raise InputError(f"keypoints names {twice} more than once; each keypoint once")
+    missing = [k for k in model_keypoints if k not in given]
+    if missing:
+        msg = (
+            f"the pushed frames lack the model's keypoints {missing} (given {given}); the model "
+            f"needs {list(model_keypoints)}: map the tracker's names onto these"
+        )
+        raise InputError(msg)
+    order = np.array([given.index(k) for k in model_keypoints], dtype=np.intp)
+    return None if list(order) == list(range(len(given))) else order
