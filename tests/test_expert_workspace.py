@@ -151,3 +151,44 @@ def test_workbench_expert_section(study):
     section.coding.value = str(study["root"] / "missing.csv")
     section.agree_button.click()  # a bad path becomes a message, not a traceback
     assert state.message[0] == "error" and "missing.csv" in state.message[1]
+
+
+def test_a_behaviour_coded_in_one_session_is_not_scored_as_zero():
+    # 'rear' is coded in session a only: held out, a is predicted by a classifier that never
+    # saw 'rear', so its recall was reported as 0 (F1 0.00) as if it could not be learned.
+    # Now its scores are empty and a warning says why; the others match scikit-learn's
+    # precision_recall_fscore_support over the pooled out-of-session predictions.
+    from types import SimpleNamespace
+
+    from sklearn.metrics import precision_recall_fscore_support
+
+    feats = [SimpleNamespace(session=s) for s in ("a", "b", "c")]
+    y = [
+        np.array(["walk"] * 20 + ["rear"] * 10 + [""] * 5 + ["groom"] * 15, dtype=object),
+        np.array(["walk"] * 25 + ["groom"] * 25, dtype=object),
+        np.array(["groom"] * 10 + ["walk"] * 40, dtype=object),
+    ]
+    oof = {
+        0: np.array(["walk"] * 25 + ["groom"] * 25, dtype=object),
+        1: np.array(["walk"] * 20 + ["groom"] * 30, dtype=object),
+        2: np.array(["groom"] * 12 + ["walk"] * 36 + ["rear"] * 2, dtype=object),
+    }
+    classes = np.array(["groom", "rear", "walk"], dtype=object)
+    counts = expert._coded_counts(y, [0, 1, 2], classes, 30.0, feats)
+    evaluation, per, notes = expert._scores(y, oof, [0, 1, 2], classes, counts, 1, feats)
+    per = per.set_index("behaviour")
+    assert per.loc["rear", "coded_sessions"] == 1 and per.loc["rear", "sessions"] == "a"
+    assert per.loc[["rear"], ["precision", "recall", "f1"]].isna().all(axis=None)
+    true = np.concatenate(y)
+    pred = np.concatenate([oof[i] for i in range(3)])[true != ""]
+    true = true[true != ""]
+    p, r, f, _ = precision_recall_fscore_support(
+        true.astype(str), pred.astype(str), labels=["groom", "walk"], zero_division=0
+    )
+    np.testing.assert_allclose(per.loc[["groom", "walk"], "f1"], f)
+    np.testing.assert_allclose(per.loc[["groom", "walk"], "recall"], r)
+    np.testing.assert_allclose(per.loc[["groom", "walk"], "precision"], p)
+    assert evaluation["accuracy"] == pytest.approx(float((true == pred).mean()))
+    assert any("'rear' is coded in one session only (a)" in n for n in notes)
+    text = expert.describe_learning(expert.LearnResult(evaluation, per.reset_index(), notes), "w")
+    assert "rear F1 not scored (one session)" in text

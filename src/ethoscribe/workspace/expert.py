@@ -263,7 +263,7 @@ def learn(
     has_coding = [i for i, t in enumerate(y) if (t != "").any()]
     classes = np.array(sorted(set(coded["behaviour"])), dtype=object)
     oof = _leave_one_session_out(feats, X, y, has_coding, params) if evaluate else None
-    counts = _coded_counts(y, has_coding, classes, fps)
+    counts = _coded_counts(y, has_coding, classes, fps, feats)
     evaluation, per, notes = _scores(y, oof, has_coding, classes, counts, min_bouts, feats)
     for note in notes:
         warnings.warn(note, UserWarning, stacklevel=2)
@@ -334,7 +334,11 @@ def _leave_one_session_out(
 
 
 def _coded_counts(
-    y: Sequence[np.ndarray], has_coding: Sequence[int], classes: np.ndarray, fps: float
+    y: Sequence[np.ndarray],
+    has_coding: Sequence[int],
+    classes: np.ndarray,
+    fps: float,
+    feats: Sequence[FeatureSet],
 ) -> pd.DataFrame:
     rows = []
     for c in classes:
@@ -344,8 +348,10 @@ def _coded_counts(
             code = np.where(y[i] == c, 1, np.where(y[i] == "", -1, 0))
             labels, _ = coded_bouts(code, [len(code)])
             bouts += int((labels == 1).sum())
+        sessions = sorted({str(feats[i].session) for i in has_coding if (y[i] == c).any()})
         rows.append({"behaviour": str(c), "coded_frames": frames, "coded_seconds": frames / fps,
-                     "coded_bouts": bouts})  # fmt: skip
+                     "coded_bouts": bouts, "coded_sessions": len(sessions),
+                     "sessions": ";".join(sessions)})  # fmt: skip
     return pd.DataFrame(rows)
 
 
@@ -361,7 +367,10 @@ def _scores(
     """Leave-one-session-out accuracy and per-behaviour precision, recall and F1.
 
     Computed over coded frames with ``sklearn.metrics.precision_recall_fscore_support``; a
-    frame left unlabelled counts as wrong.
+    frame left unlabelled counts as wrong. A behaviour coded in one session only cannot be
+    scored this way (held out, its session is predicted by a classifier that never saw it):
+    its precision, recall and F1 are left empty, and a warning says so; its frames still count
+    in the accuracy.
     """
     from sklearn.metrics import precision_recall_fscore_support
 
@@ -382,7 +391,8 @@ def _scores(
         p, r, f, _ = precision_recall_fscore_support(
             true, pred, labels=[str(c) for c in classes], zero_division=0
         )
-        per["precision"], per["recall"], per["f1"] = p, r, f
+        alone = (per["coded_sessions"] < 2).to_numpy()
+        per["precision"], per["recall"], per["f1"] = (np.where(alone, np.nan, v) for v in (p, r, f))
         evaluation["accuracy"] = float((true == pred).mean())
         evaluation["frames_evaluated"] = len(true)
         evaluation["frames_unlabelled"] = int((pred == "").sum())
@@ -396,6 +406,15 @@ def _scores(
         for row in per.itertuples()
         if row.coded_bouts < min_bouts
     ]
+    if oof:
+        notes += [
+            f"behaviour {row.behaviour!r} is coded in one session only ({row.sessions}): "
+            "leave-one-session-out cannot score it (held out, that session is predicted by a "
+            "classifier that never saw it), so its precision, recall and F1 are left empty; "
+            "code it in another session"
+            for row in per.itertuples()
+            if row.coded_sessions < 2
+        ]
     if oof is None:
         notes.append("only one session is coded: no leave-one-session-out score; code another")
     return evaluation, per, notes
@@ -531,7 +550,9 @@ def describe_learning(result: LearnResult, workspace: str | Path) -> str:
         else "no leave-one-session-out score"
     )
     per = ", ".join(
-        f"{r.behaviour} F1 {r.f1:.2f} ({r.coded_seconds:.0f} s)"
+        f"{r.behaviour} F1 "
+        + (f"{r.f1:.2f}" if np.isfinite(r.f1) else "not scored (one session)")
+        + f" ({r.coded_seconds:.0f} s)"
         for r in result.per_behaviour.itertuples()
         if hasattr(r, "f1")
     )

@@ -5,7 +5,7 @@
     classifier/          the fitted behaviour classifier (classifier JSON + arrays npz, no pickle)
     labels.parquet       per frame: session, animal, frame, behaviour, probability
     evaluation.json      leave-one-session-out figures, warnings, parameters, versions
-    per_behaviour.csv    per behaviour: coded seconds and bouts, precision, recall, F1
+    per_behaviour.csv    per behaviour: coded seconds, bouts and sessions, precision, recall, F1
     journal.jsonl        one record per learning run (appended, fsynced)
 
 When ``labels.parquet`` is present the workspace's label table names the expert's behaviours
