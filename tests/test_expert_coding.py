@@ -91,6 +91,32 @@ def test_names_differing_in_case_or_spaces_are_one_behaviour(tmp_path):
     assert (coded["behaviour"] == "grooming").sum() == 90
 
 
+def test_per_frame_coding_at_another_rate_or_as_times(tmp_path):
+    # A video coded at 15 fps (said in an fps column) was refused ('convert the coding');
+    # now each 30-fps frame takes the behaviour coded at the time it starts: frame g takes
+    # coded frame g // 2 (worked by hand).
+    rng = np.random.default_rng(0)
+    behaviour = np.array(list("abc"), dtype=object)[np.repeat(rng.integers(0, 3, 15), 10)]
+    at15 = pd.DataFrame({"session": "s1", "frame": np.arange(150), "behaviour": behaviour})
+    at15.assign(fps=15).to_csv(tmp_path / "c15.csv", index=False)
+    coded = read_expert_coding(tmp_path / "c15.csv", SESSIONS)
+    assert coded["frame"].tolist() == list(range(300))
+    assert coded["behaviour"].tolist() == list(behaviour[np.arange(300) // 2])
+    # the same coding as frame times at 15 fps, and frame times at the session's rate
+    at15.assign(time_s=at15["frame"] / 15, fps=15).drop(columns="frame").to_csv(
+        tmp_path / "t15.csv", index=False
+    )
+    pd.testing.assert_frame_equal(read_expert_coding(tmp_path / "t15.csv", SESSIONS), coded)
+    text = "session,time_s,behaviour\ns1,0,a\ns1,0.0333333,a\ns1,0.0666667,b\n"
+    assert read_expert_coding(_write(tmp_path, text), SESSIONS)["frame"].tolist() == [0, 1, 2]
+    with pytest.raises(InputError, match="row 3: 'time_s' must fall on a frame"):
+        read_expert_coding(_write(tmp_path, "session,time_s,behaviour\ns1,0,a\ns1,0.05,a\n"),
+                           SESSIONS)  # fmt: skip
+    with pytest.raises(InputError, match=r"frame 150 is outside session 's2' \(frames 0 to 124 "):
+        read_expert_coding(_write(tmp_path, "session,frame,behaviour,fps\ns2,150,a,25\n"),
+                           SESSIONS)  # fmt: skip
+
+
 def test_bouts_in_frames(tmp_path):
     text = "session,behaviour,start_frame,stop_frame\ns1,rest,0,3\ns1,walk,10,12\n"
     coded = read_expert_coding(_write(tmp_path, text), SESSIONS)

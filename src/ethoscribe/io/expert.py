@@ -3,7 +3,9 @@
 Two layouts are read (the columns decide which; other columns are ignored):
 
 - **per frame**: ``session, frame, behaviour`` (optional ``animal``, ``time_s``, ``fps``);
-  frames are 0-based as in the pose files.
+  frames are 0-based as in the pose files; or ``session, time_s, behaviour`` (frame times).
+  With an ``fps`` column other than the session's (a video coded at another rate) each of the
+  session's frames takes the behaviour coded at the time it starts.
 - **bouts**: ``session, behaviour, start_s, stop_s`` (optional ``animal``, ``fps``); a bout
   covers the frames ``round(start_s * fps)`` up to, not including, ``round(stop_s * fps)``.
 - **bouts in frames**: ``session, behaviour, start_frame, stop_frame`` (optional ``animal``),
@@ -34,6 +36,7 @@ from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._tables import rename_hints, similar_columns
 
 FRAME_COLUMNS = ("session", "frame", "behaviour")
+TIME_COLUMNS = ("session", "time_s", "behaviour")
 BOUT_COLUMNS = ("session", "behaviour", "start_s", "stop_s")
 FRAME_BOUT_COLUMNS = ("session", "behaviour", "start_frame", "stop_frame")
 CODED_COLUMNS = ["session", "animal", "frame", "behaviour"]
@@ -78,7 +81,7 @@ def read_expert_coding(
     line0 = 2 if path.suffix.lower() != ".parquet" else 1
     if "behaviour" in table.columns:
         table["behaviour"] = _one_spelling(path, _text(table, "behaviour"))
-    if set(FRAME_COLUMNS) <= set(table.columns):
+    if set(FRAME_COLUMNS) <= set(table.columns) or set(TIME_COLUMNS) <= set(table.columns):
         return _per_frame(path, table, sessions, line0)
     if set(BOUT_COLUMNS) <= set(table.columns):
         return _bouts(path, table, sessions, line0, "s")
@@ -233,35 +236,50 @@ def _per_frame(
     path: Path, table: pd.DataFrame, sessions: Mapping[str, CodedSession], line0: int
 ) -> pd.DataFrame:
     names, animals = _sessions_and_animals(path, table, sessions, line0)
-    _check_fps(path, table, names, sessions, line0)
-    frame = _numbers(path, table, "frame", line0)
     fps = np.array([sessions[s].fps for s in names], dtype=float)
     n_frames = np.array([sessions[s].n_frames for s in names], dtype=np.int64)
-    bad = np.flatnonzero(~np.isfinite(frame) | (frame != np.round(frame)))
+    rate = fps.copy()  # the rate the coding's frames count at: its fps column, else the session's
+    if "fps" in table.columns:
+        given = _numbers(path, table, "fps", line0)
+        bad = np.flatnonzero(np.isfinite(given) & (given <= 0))
+        if len(bad):
+            i = int(bad[0])
+            raise InputError(f"{path}: row {i + line0}: fps must be above 0, found {given[i]:g}")
+        rate = np.where(np.isfinite(given), given, fps)
+        rate = np.where(np.abs(rate - fps) <= 1e-6 * fps, fps, rate)  # "30" for 30.0 fps
+    t = _numbers(path, table, "time_s", line0) if "time_s" in table.columns else None
+    if "frame" in table.columns:
+        frame = _numbers(path, table, "frame", line0)
+        bad = np.flatnonzero(~np.isfinite(frame) | (frame != np.round(frame)))
+        what = "'frame' must be a whole frame number"
+    else:  # times only: each must fall on a frame of the coding's rate
+        frame = np.round(t * rate)
+        bad = np.flatnonzero(~np.isfinite(t) | (np.abs(t * rate - frame) > 0.25))
+        what = "'time_s' must fall on a frame (frame / fps seconds; add an fps column)"
     if len(bad):
         i = int(bad[0])
-        found = table["frame"].iloc[i]
-        msg = f"{path}: row {i + line0}: 'frame' must be a whole frame number, found {found!r}"
+        found = table["frame" if "frame" in table.columns else "time_s"].iloc[i]
+        msg = f"{path}: row {i + line0}: {what}, found {found!r}"
         raise InputError(msg)
     frame = frame.astype(np.int64)
-    bad = np.flatnonzero((frame < 0) | (frame >= n_frames))
+    inside = np.floor(n_frames * rate / fps + 1e-9).astype(np.int64)  # frames at the coded rate
+    bad = np.flatnonzero((frame < 0) | (frame >= inside))
     if len(bad):
         i = int(bad[0])
         msg = (
             f"{path}: row {i + line0}: frame {frame[i]} is outside session {names.iloc[i]!r} "
-            f"(frames 0 to {n_frames[i] - 1} at {fps[i]:g} fps); was it coded at another frame "
-            "rate, or from frame 1?"
+            f"(frames 0 to {inside[i] - 1} at {rate[i]:g} fps); was it coded at another frame "
+            "rate (say which in an fps column), or from frame 1?"
         )
         raise InputError(msg)
-    if "time_s" in table.columns:
-        t = _numbers(path, table, "time_s", line0)
-        bad = np.flatnonzero(np.isfinite(t) & (np.abs(t - frame / fps) > 0.5 / fps))
+    if t is not None and "frame" in table.columns:
+        bad = np.flatnonzero(np.isfinite(t) & (np.abs(t - frame / rate) > 0.5 / rate))
         if len(bad):
             i = int(bad[0])
             msg = (
                 f"{path}: row {i + line0}: time_s {t[i]:g} does not match frame {frame[i]} at "
-                f"the session's {fps[i]:g} fps ({frame[i] / fps[i]:g} s); the coding was made at "
-                "another frame rate: convert it first"
+                f"{rate[i]:g} fps ({frame[i] / rate[i]:g} s); the coding was made at another "
+                "frame rate: give it in an fps column"
             )
             raise InputError(msg)
     coded = pd.DataFrame(
@@ -270,6 +288,7 @@ def _per_frame(
             "animal": animals,
             "frame": frame,
             "behaviour": _text(table, "behaviour"),
+            "rate": rate,
         }
     )
     coded["row"] = np.arange(len(coded)) + line0
@@ -283,7 +302,54 @@ def _per_frame(
             f"{first['session']!r} is coded twice; keep one row per frame"
         )
         raise InputError(msg)
-    return _finish(coded[coded["behaviour"] != ""])
+    coded = coded[coded["behaviour"] != ""]
+    if (coded["rate"] == np.array([sessions[s].fps for s in coded["session"]])).all():
+        return _finish(coded)
+    parts = []
+    for (session, animal, r), g in coded.groupby(["session", "animal", "rate"], sort=False):
+        frames, behaviour = frames_at_rate(
+            g["frame"].to_numpy(np.int64), g["behaviour"].to_numpy(object), r,
+            sessions[session].fps,
+        )  # fmt: skip
+        keep = frames < sessions[session].n_frames
+        parts.append(
+            pd.DataFrame(
+                {
+                    "session": session,
+                    "animal": animal,
+                    "frame": frames[keep],
+                    "behaviour": behaviour[keep],
+                }
+            )
+        )
+    return _finish(pd.concat(parts, ignore_index=True))
+
+
+def frames_at_rate(
+    frames: np.ndarray, behaviour: np.ndarray, from_fps: float, to_fps: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """A per-frame coding at ``from_fps`` on the frames of ``to_fps``.
+
+    Frame ``g`` at ``to_fps`` starts at ``g / to_fps`` s, inside the coded frame
+    ``floor(g * from_fps / to_fps)``, and takes its behaviour; frames whose covering frame is
+    not coded are left out.
+
+    Examples
+    --------
+    >>> f, b = frames_at_rate(np.array([0, 1, 2]), np.array(list("aab"), object), 15.0, 30.0)
+    >>> f.tolist(), b.tolist()
+    ([0, 1, 2, 3, 4, 5], ['a', 'a', 'a', 'a', 'b', 'b'])
+    """
+    ratio = from_fps / to_fps
+    if abs(ratio - 1) < 1e-9 or not len(frames):
+        return np.asarray(frames, dtype=np.int64), np.asarray(behaviour, dtype=object)
+    src = np.asarray(frames, dtype=np.int64)
+    first = int(np.ceil(src.min() / ratio - 1e-9))
+    out = np.arange(first, int(np.floor((src.max() + 1) / ratio - 1e-9)) + 1, dtype=np.int64)
+    covering = np.floor(out * ratio + 1e-9).astype(np.int64)
+    found = pd.Series(np.asarray(behaviour, dtype=object), index=src).reindex(covering)
+    keep = found.notna().to_numpy()
+    return out[keep], found.to_numpy(object)[keep]
 
 
 def _bouts(

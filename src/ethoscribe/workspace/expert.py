@@ -25,7 +25,7 @@ from ethoscribe.ethogram import bout_table
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_write_json, atomic_write_text, read_json, write_table
 from ethoscribe.io.bundle import read_bundle, write_bundle
-from ethoscribe.io.expert import CodedSession, read_expert_coding
+from ethoscribe.io.expert import CodedSession, frames_at_rate, read_expert_coding
 from ethoscribe.plots.agreement import confusion_heatmap
 from ethoscribe.report import Section, render_report
 from ethoscribe.segment.expert_agreement import ExpertAgreement, expert_agreement
@@ -65,31 +65,18 @@ def label_fps(ws: Workspace) -> float:
 
 
 def _on_label_frames(coded: pd.DataFrame, input_fps: dict[str, float], fps: float) -> pd.DataFrame:
-    """The coding (frames at each session's input rate) on the labels' frames at ``fps``.
-
-    Each label frame takes the behaviour coded at the input frame covering its start time
-    (frame ``g`` starts at ``g / fps`` s, inside input frame ``floor(g * input_fps / fps)``).
-    """
+    """The coding (frames at each session's input rate) on the labels' frames at ``fps``
+    (each label frame takes the behaviour coded at the time it starts; see
+    :func:`ethoscribe.io.expert.frames_at_rate`)."""
     parts = []
     for (session, animal), g in coded.groupby(["session", "animal"], sort=False):
-        ratio = input_fps[str(session)] / fps
-        if abs(ratio - 1) < 1e-9:
-            parts.append(g)
-            continue
-        src = g["frame"].to_numpy(np.int64)
-        first = int(np.ceil(src.min() / ratio - 1e-9))
-        frames = np.arange(first, int(np.floor(src.max() / ratio + 1e-9)) + 1, dtype=np.int64)
-        covering = np.floor(frames * ratio + 1e-9).astype(np.int64)
-        behaviour = pd.Series(g["behaviour"].to_numpy(object), index=src).reindex(covering)
-        keep = behaviour.notna().to_numpy()
+        frames, behaviour = frames_at_rate(
+            g["frame"].to_numpy(np.int64), g["behaviour"].to_numpy(object),
+            input_fps[str(session)], fps,
+        )  # fmt: skip
         parts.append(
             pd.DataFrame(
-                {
-                    "session": session,
-                    "animal": animal,
-                    "frame": frames[keep],
-                    "behaviour": behaviour.to_numpy(object)[keep],
-                }
+                {"session": session, "animal": animal, "frame": frames, "behaviour": behaviour}
             )
         )
     return pd.concat(parts, ignore_index=True) if parts else coded
