@@ -123,6 +123,19 @@ def test_learn_command_line_and_bad_coding(study, tmp_path, capsys):
     assert main(["learn", str(study["ws"].path), str(bad)]) == 2
     assert "row 2: session 'session_77'" in capsys.readouterr().err
     assert main(["agreement", str(study["ws"].path), str(bad), "--out", str(tmp_path / "a")]) == 2
+    # --out naming the workspace replaced its ethogram report with the agreement's
+    ws_path, truth = study["ws"].path, str(study["root"] / "truth.csv")
+    before = (ws_path / "report.html").read_bytes()
+    assert main(["agreement", str(ws_path), truth, "--out", str(ws_path)]) == 2
+    assert "is an ethoscribe workspace; an agreement goes to a folder of its own" in (
+        capsys.readouterr().err
+    )
+    (tmp_path / "notes").mkdir()
+    (tmp_path / "notes" / "report.html").write_text("mine")
+    assert main(["agreement", str(ws_path), truth, "--out", str(tmp_path / "notes")]) == 2
+    assert "holds files ethoscribe did not write (report.html)" in capsys.readouterr().err
+    assert (ws_path / "report.html").read_bytes() == before
+    assert (tmp_path / "notes" / "report.html").read_text() == "mine"
     # a behaviour with few coded bouts is warned about once, not again in the summary
     with warnings.catch_warnings():
         warnings.simplefilter("default")  # as a terminal's Python shows them

@@ -33,7 +33,14 @@ from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.model import BehaviourModel
 from ethoscribe.segment.supervised import BehaviourClassifier, coded_bouts
 from ethoscribe.workspace.files import append_journal, load_features
-from ethoscribe.workspace.folder import Workspace, jsonable, now, versions, write_ethogram_tables
+from ethoscribe.workspace.folder import (
+    Workspace,
+    check_output_folder,
+    jsonable,
+    now,
+    versions,
+    write_ethogram_tables,
+)
 from ethoscribe.workspace.learned_labels import LEARNED_FOLDER, learned_labels_path
 
 MIN_BOUTS = 10  # fewer coded bouts of a behaviour than this: its figures are anecdotes
@@ -102,6 +109,7 @@ def agreement(
     >>> result.summary["matched_accuracy"]                             # doctest: +SKIP
     """
     ws = _workspace(workspace)
+    out = check_output_folder(out, "agreement")  # never the workspace or a folder of other files
     coded = read_coding(ws, expert)
     labels = ws.labels()
     motif = "discovered_motif" if "discovered_motif" in labels.columns else "motif"
@@ -114,7 +122,6 @@ def agreement(
     frames["fps"] = label_fps(ws)  # the labels' rate (--target-fps when discovery resampled)
     frames["motif"] = frames["motif"].fillna("")
     result = expert_agreement(frames, tolerance_s)
-    out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     record = {
         **result.summary,

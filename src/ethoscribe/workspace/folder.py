@@ -191,6 +191,8 @@ RUN_MARKS = (
     TABLES_STAGING,
 )
 COMPARISON_FILE = "metadata.json"
+AGREEMENT_FILE = "agreement.json"
+MARKER_FILES = {"comparison": COMPARISON_FILE, "agreement": AGREEMENT_FILE}
 
 
 def check_output_folder(
@@ -200,8 +202,9 @@ def check_output_folder(
 
     A run writes only into a new or empty folder, a folder of the same kind it wrote before
     (``kind``: ``"workspace"`` holds ``workspace.json``, ``"comparison"`` holds
-    ``metadata.json``) or one an interrupted run left; never into a folder holding other files,
-    an input folder, or (a comparison) a workspace.
+    ``metadata.json``, ``"agreement"`` holds ``agreement.json``) or one an interrupted run
+    left; never into a folder holding other files, an input folder, or (a comparison or an
+    agreement) a workspace.
     """
     out = Path(out)
     option = "--out"
@@ -219,10 +222,11 @@ def check_output_folder(
     if not out.is_dir():
         return out
     names = sorted(p.name for p in out.iterdir())
-    marker = WORKSPACE_FILE if kind == "workspace" else COMPARISON_FILE
+    marker = WORKSPACE_FILE if kind == "workspace" else MARKER_FILES[kind]
     if kind != "workspace" and WORKSPACE_FILE in names:
         msg = (
-            f"{option} {out} is an ethoscribe workspace; a {kind} goes to a folder of its own "
+            f"{option} {out} is an ethoscribe workspace; {'an' if kind[0] in 'aeiou' else 'a'} "
+            f"{kind} goes to a folder of its own "
             f"(e.g. {out / kind}), so the workspace's tables are not replaced"
         )
         raise InputError(msg)
