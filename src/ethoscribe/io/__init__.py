@@ -24,6 +24,7 @@ from ethoscribe.io._safe import load_npz, loads_json, read_json, safe_child
 from ethoscribe.io.arrays import from_arrays
 from ethoscribe.io.manifest import load_study, read_manifest, validate_manifest
 from ethoscribe.io.nwb import read_nwb, write_nwb
+from ethoscribe.io.nwb_bouts import read_bouts_nwb, write_bouts_nwb
 from ethoscribe.io.registry import (
     available_formats,
     pose_files,
@@ -47,6 +48,7 @@ __all__ = [
     "load_study",
     "loads_json",
     "pose_files",
+    "read_bouts_nwb",
     "read_folder",
     "read_json",
     "read_manifest",
@@ -58,6 +60,7 @@ __all__ = [
     "safe_child",
     "sync_folder",
     "validate_manifest",
+    "write_bouts_nwb",
     "write_nwb",
     "write_table",
     "write_tidy",
