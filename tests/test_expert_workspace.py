@@ -105,6 +105,12 @@ def test_learn_then_label_a_new_cohort(study, tmp_path):
         ws.path, [], tmp_path / "cohort", manifest=study["data"] / "manifest.csv", progress=False
     )
     cohort = new.labels()
+    # the run's one-line description said '5 motifs' while the tables name the expert's
+    n_learned = len(result.evaluation["behaviours"])
+    for w in (ws, new):
+        assert f"(labels name {n_learned} behaviours learned from an expert's coding)" in (
+            w.describe()
+        )
     assert set(cohort["motif"]) - {""} <= set(study["truth"]["behaviour"])
     assert "discovered_motif" in cohort.columns
     same = cohort.merge(labels, on=["session", "animal", "frame"], suffixes=("", "_src"))

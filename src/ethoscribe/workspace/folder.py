@@ -73,7 +73,7 @@ from ethoscribe.workspace.files import WORKSPACE_FILE as WORKSPACE_FILE
 from ethoscribe.workspace.files import Staging as Staging
 from ethoscribe.workspace.files import jsonable as jsonable
 from ethoscribe.workspace.files import save_features as save_features
-from ethoscribe.workspace.learned_labels import with_learned
+from ethoscribe.workspace.learned_labels import LEARNED_FOLDER, with_learned
 
 FORMAT_VERSION = 1
 CAUTION = (
@@ -451,6 +451,10 @@ class Workspace:
             n_motifs = s["n_states"]
         source = s.get("labelled_with")
         labelled = f", labelled with the model of {source}" if source else ""
+        learned = self.path / LEARNED_FOLDER / "evaluation.json"
+        if learned.is_file():  # the tables name the expert's behaviours, not the motifs
+            n = len(read_json(learned).get("behaviours") or [])
+            labelled += f" (labels name {n} behaviours learned from an expert's coding)"
         return (
             f"workspace {self.path}: {s['n_sessions']} sessions, {frames_said(s)}, "
             f"{n_motifs} motifs{labelled}; files: labels.csv, bouts.csv, transitions.csv, "
