@@ -195,9 +195,14 @@ def _sessions_and_animals(
         for i, (s, a) in enumerate(zip(names, animals, strict=True)):
             known_animals = sessions[s].animals
             if known_animals and a not in known_animals:
+                fix = (
+                    "; a session of one animal needs no 'animal' column: leave it out"
+                    if len(known_animals) == 1
+                    else "; use these names (as in labels.csv)"
+                )
                 msg = (
                     f"{path}: row {i + line0}: animal {a!r} is not in session {s!r} (its "
-                    f"animals: {', '.join(known_animals)})"
+                    f"animals: {', '.join(known_animals)}){fix}"
                 )
                 raise InputError(msg)
         return names, animals
