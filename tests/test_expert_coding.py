@@ -131,7 +131,9 @@ def test_bouts_in_frames(tmp_path):
             "session,behaviour,start_s,stop_s\ns1,a,0,2\ns1,b,9,12\n",
             "row 3: bout 9-12 s is outside",
         ),
-        ("session,behaviour,start_s,stop_s\ns1,a,0,2\ns9,b,0,1\n", "row 3: session 's9'"),
+        ("session,behaviour,start_s,stop_s\ns9,a,0,2\ns8,b,0,1\n", "row 2: session 's9'"),
+        ("session,behaviour,start_s,stop_s\ns1,a,0,2\nS01,b,0,1\n", "did you mean 's1'"),
+        ("session,behaviour,start_s,stop_s\ns1,a,0,2\n,b,0,1\n", "row 3: .*fill in the session"),
         ("session,behaviour,start_s,stop_s\ns1,a,2,1\n", "row 2: stop_s 1 is not after"),
         ("session,behaviour,start_s,stop_s,fps\ns1,a,0,1,25\n", "row 2: coded at 25 fps"),
         ("session,frame,behaviour\ns1,0,a\ns1,300,a\n", "row 3: frame 300 is outside"),
@@ -156,6 +158,19 @@ def test_bouts_in_frames(tmp_path):
 def test_clear_errors_name_the_row(tmp_path, text, message):
     with pytest.raises(InputError, match=message):
         read_expert_coding(_write(tmp_path, text), SESSIONS)
+
+
+def test_sessions_outside_the_workspace_are_left_out(tmp_path):
+    # A lab's coding file covers more sessions than one workspace holds; it was refused
+    # whole ('code only the workspace's sessions'). Now the others are left out, named in a
+    # warning, and a later problem still names its row in the file.
+    text = "session,behaviour,start_s,stop_s\ns1,a,0,1\ns7,b,0,1\nother_day,a,0,1\ns2,b,0,1\n"
+    with pytest.warns(InputWarning, match=r"left out \('other_day', 's7'; 2 rows\); 2 coded"):
+        coded = read_expert_coding(_write(tmp_path, text), SESSIONS)
+    assert sorted(set(coded["session"])) == ["s1", "s2"] and len(coded) == 60
+    bad = text + "s2,b,9,12\n"
+    with pytest.warns(InputWarning), pytest.raises(InputError, match="row 6: bout 9-12 s"):
+        read_expert_coding(_write(tmp_path, bad), SESSIONS)
 
 
 def test_several_animals_need_an_animal_column(tmp_path):

@@ -11,9 +11,11 @@ Two layouts are read (the columns decide which; other columns are ignored):
 - **bouts in frames**: ``session, behaviour, start_frame, stop_frame`` (optional ``animal``),
   the frames ``start_frame`` up to, not including, ``stop_frame`` (as in ``bouts.csv``).
 
-``behavior`` is read as ``behaviour``. Behaviour names that differ only in case or spacing
-(``Grooming``, ``grooming ``) are one behaviour, named by its most used spelling; a warning
-lists them.
+Rows of sessions the workspace does not hold are left out with a warning naming them (a file
+of none of its sessions, a blank session or a name that differs from a workspace session's only
+in case or leading zeros is refused). ``behavior`` is read as ``behaviour``. Behaviour names
+that differ only in case or spacing (``Grooming``, ``grooming ``) are one behaviour, named by
+its most used spelling; a warning lists them.
 
 Time the file does not cover, and rows whose behaviour is blank, are *not coded*: they are left
 out of every comparison and never become a behaviour of their own. Problems name the file and
@@ -24,6 +26,7 @@ file, counting from 1) and say how to fix them.
 from __future__ import annotations
 
 import os
+import re
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -79,6 +82,7 @@ def read_expert_coding(
     if "behaviour" not in table.columns and "behavior" in table.columns:
         table = table.rename(columns={"behavior": "behaviour"})
     line0 = 2 if path.suffix.lower() != ".parquet" else 1
+    table = _workspace_sessions(path, table, sessions)
     if "behaviour" in table.columns:
         table["behaviour"] = _one_spelling(path, _text(table, "behaviour"))
     if set(FRAME_COLUMNS) <= set(table.columns) or set(TIME_COLUMNS) <= set(table.columns):
@@ -165,6 +169,40 @@ def _text(table: pd.DataFrame, column: str) -> pd.Series:
     return values.astype(str).str.strip().where(~blank, "")
 
 
+def _at(path: Path, table: pd.DataFrame, i: int, line0: int) -> str:
+    """``FILE: row N`` for the table's ``i``-th row (rows left out keep their numbers)."""
+    return f"{path}: row {int(table.index[i]) + line0}"
+
+
+def _session_key(name: str) -> str:
+    """A session name as a typo would leave it: case, outer spaces and leading zeros ignored."""
+    return re.sub(r"\d+", lambda m: str(int(m.group())), name.strip().casefold())
+
+
+def _workspace_sessions(
+    path: Path, table: pd.DataFrame, sessions: Mapping[str, CodedSession]
+) -> pd.DataFrame:
+    """The rows of the workspace's sessions; rows of other sessions are left out, with a
+    warning naming them, when the file also codes sessions of the workspace and no left-out
+    name looks like a workspace session's (a typo: then the row is refused, naming both)."""
+    if "session" not in table.columns:
+        return table
+    names = _text(table, "session")
+    known = names.isin(list(sessions)).to_numpy()
+    if known.all() or not known.any():
+        return table  # all known, or none: refused row by row below
+    others = sorted(set(names[~known]))
+    keys = {_session_key(k) for k in sessions}
+    if "" in others or any(_session_key(o) in keys for o in others):
+        return table  # a blank or mistyped name: refused with its row
+    msg = (
+        f"{path}: sessions not in the workspace are left out ({listed([repr(o) for o in others])}"
+        f"; {int((~known).sum())} rows); {len(set(names[known]))} coded sessions are used"
+    )
+    warnings.warn(msg, InputWarning, stacklevel=3)
+    return table[known]
+
+
 def _numbers(path: Path, table: pd.DataFrame, column: str, line0: int) -> np.ndarray:
     values = pd.to_numeric(table[column], errors="coerce").to_numpy(float)
     given = table[column].notna().to_numpy() & (_text(table, column) != "").to_numpy()
@@ -172,7 +210,7 @@ def _numbers(path: Path, table: pd.DataFrame, column: str, line0: int) -> np.nda
     if len(bad):
         i = int(bad[0])
         found = table[column].iloc[i]
-        msg = f"{path}: row {i + line0}: column '{column}' must be a number, found {found!r}"
+        msg = f"{_at(path, table, i, line0)}: column '{column}' must be a number, found {found!r}"
         raise InputError(msg)
     return values
 
@@ -184,10 +222,18 @@ def _sessions_and_animals(
     unknown = ~names.isin(list(sessions))
     if unknown.any():
         i = int(np.flatnonzero(unknown.to_numpy())[0])
-        known = listed(sorted(sessions), 8)
+        name = names.iloc[i]
+        alike = [k for k in sorted(sessions) if _session_key(k) == _session_key(name)]
+        fix = (
+            f"did you mean {alike[0]!r}? Write the workspace's name"
+            if alike
+            else "fill in the session"
+            if name == ""
+            else "fix the name or code only the workspace's sessions"
+        )
         msg = (
-            f"{path}: row {i + line0}: session {names.iloc[i]!r} is not in the workspace "
-            f"(its sessions: {known}); fix the name or code only the workspace's sessions"
+            f"{_at(path, table, i, line0)}: session {name!r} is not in the workspace "
+            f"(its sessions: {listed(sorted(sessions), 8)}); {fix}"
         )
         raise InputError(msg)
     if "animal" in table.columns:
@@ -201,7 +247,7 @@ def _sessions_and_animals(
                     else "; use these names (as in labels.csv)"
                 )
                 msg = (
-                    f"{path}: row {i + line0}: animal {a!r} is not in session {s!r} (its "
+                    f"{_at(path, table, i, line0)}: animal {a!r} is not in session {s!r} (its "
                     f"animals: {', '.join(known_animals)}){fix}"
                 )
                 raise InputError(msg)
@@ -211,7 +257,7 @@ def _sessions_and_animals(
         known_animals = sessions[s].animals
         if len(known_animals) > 1:
             msg = (
-                f"{path}: row {i + line0}: session {s!r} has several animals "
+                f"{_at(path, table, i, line0)}: session {s!r} has several animals "
                 f"({', '.join(known_animals)}); add an 'animal' column saying whose behaviour "
                 "each row codes"
             )
@@ -231,7 +277,7 @@ def _check_fps(
     if len(bad):
         i = int(bad[0])
         msg = (
-            f"{path}: row {i + line0}: coded at {fps[i]:g} fps but session {names.iloc[i]!r} "
+            f"{_at(path, table, i, line0)}: coded at {fps[i]:g} fps but session {names.iloc[i]!r} "
             f"runs at {expected[i]:g} fps; convert the coding to the session's frame rate"
         )
         raise InputError(msg)
@@ -249,7 +295,9 @@ def _per_frame(
         bad = np.flatnonzero(np.isfinite(given) & (given <= 0))
         if len(bad):
             i = int(bad[0])
-            raise InputError(f"{path}: row {i + line0}: fps must be above 0, found {given[i]:g}")
+            raise InputError(
+                f"{_at(path, table, i, line0)}: fps must be above 0, found {given[i]:g}"
+            )
         rate = np.where(np.isfinite(given), given, fps)
         rate = np.where(np.abs(rate - fps) <= 1e-6 * fps, fps, rate)  # "30" for 30.0 fps
     t = _numbers(path, table, "time_s", line0) if "time_s" in table.columns else None
@@ -264,7 +312,7 @@ def _per_frame(
     if len(bad):
         i = int(bad[0])
         found = table["frame" if "frame" in table.columns else "time_s"].iloc[i]
-        msg = f"{path}: row {i + line0}: {what}, found {found!r}"
+        msg = f"{_at(path, table, i, line0)}: {what}, found {found!r}"
         raise InputError(msg)
     frame = frame.astype(np.int64)
     inside = np.floor(n_frames * rate / fps + 1e-9).astype(np.int64)  # frames at the coded rate
@@ -272,7 +320,7 @@ def _per_frame(
     if len(bad):
         i = int(bad[0])
         msg = (
-            f"{path}: row {i + line0}: frame {frame[i]} is outside session {names.iloc[i]!r} "
+            f"{_at(path, table, i, line0)}: frame {frame[i]} is outside session {names.iloc[i]!r} "
             f"(frames 0 to {inside[i] - 1} at {rate[i]:g} fps); was it coded at another frame "
             "rate (say which in an fps column), or from frame 1?"
         )
@@ -282,7 +330,7 @@ def _per_frame(
         if len(bad):
             i = int(bad[0])
             msg = (
-                f"{path}: row {i + line0}: time_s {t[i]:g} does not match frame {frame[i]} at "
+                f"{_at(path, table, i, line0)}: time_s {t[i]:g} does not match frame {frame[i]} at "
                 f"{rate[i]:g} fps ({frame[i] / rate[i]:g} s); the coding was made at another "
                 "frame rate: give it in an fps column"
             )
@@ -296,7 +344,7 @@ def _per_frame(
             "rate": rate,
         }
     )
-    coded["row"] = np.arange(len(coded)) + line0
+    coded["row"] = table.index.to_numpy() + line0
     dup = coded.duplicated(["session", "animal", "frame"], keep=False)
     if dup.any():
         rows = coded.loc[dup].sort_values(["session", "animal", "frame", "row"])
@@ -375,7 +423,7 @@ def _bouts(
     behaviour = _text(table, "behaviour")
     first, last = columns
     for i in range(len(table)):
-        where = f"{path}: row {i + line0}"
+        where = f"{_at(path, table, i, line0)}"
         if not (np.isfinite(start[i]) and np.isfinite(stop[i])):
             raise InputError(f"{where}: a bout needs both {first} and {last}")
         if stop[i] <= start[i]:
@@ -400,7 +448,7 @@ def _bouts(
             "behaviour": behaviour,
             "start": np.clip(np.round(start), 0, n_frames).astype(np.int64),
             "stop": np.clip(np.round(stop), 0, n_frames).astype(np.int64),
-            "row": np.arange(len(table)) + line0,
+            "row": table.index.to_numpy() + line0,
         }
     )
     bouts = bouts.sort_values(["session", "animal", "start", "row"], kind="stable")
