@@ -211,3 +211,38 @@ def test_a_behaviour_coded_in_one_session_is_not_scored_as_zero():
     assert any("'rear' is coded in one session only (a)" in n for n in notes)
     text = expert.describe_learning(expert.LearnResult(evaluation, per.reset_index(), notes), "w")
     assert "rear F1 not scored (one session)" in text
+    # --no-evaluation on three coded sessions said 'only one session is coded'
+    _, _, skipped = expert._scores(y, None, [0, 1, 2], classes, counts, 1, feats)
+    assert not any("only one session" in n for n in skipped)
+    _, _, one = expert._scores(y[:1], None, [0], classes, counts, 1, feats[:1])
+    assert any("only one session is coded" in n for n in one)
+
+
+def test_reading_warnings_are_kept_with_the_results(study, tmp_path, capsys):
+    # What the reading warned about (names joined by case, sessions left out) went only to
+    # the console: the workbench (no console) and the saved records did not say it.
+    from ethoscribe.errors import InputWarning
+    from ethoscribe.widgets.expert import ExpertSection
+    from ethoscribe.widgets.state import WorkbenchState
+
+    coded = pd.read_csv(study["root"] / "coded.csv")
+    first = coded["session"] == SESSIONS[0]
+    coded.loc[first, "behaviour"] = coded.loc[first, "behaviour"].str.upper()
+    extra = coded.iloc[:3].assign(session="session_77")
+    path = tmp_path / "coding.csv"
+    pd.concat([coded, extra]).to_csv(path, index=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("default")
+        args = ["agreement", str(study["ws"].path), str(path), "--out", str(tmp_path / "a")]
+        assert main(args) == 0
+    err = capsys.readouterr().err
+    assert err.count("warning:") == 2 and "left out ('session_77'" in err
+    record = json.loads((tmp_path / "a" / "agreement.json").read_text())
+    assert len(record["reading_warnings"]) == 2
+    assert "Read with a warning" in (tmp_path / "a" / "report.html").read_text()
+    state = WorkbenchState(study["ws"].path, write_behind=False)
+    section = ExpertSection(state)
+    section.coding.value = str(path)
+    with pytest.warns(InputWarning):
+        section.check_agreement()
+    assert "session_77" in section.agreement.children[1].value

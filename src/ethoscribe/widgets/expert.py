@@ -75,8 +75,12 @@ class ExpertSection:
         result = expert.agreement(self.state.ws, self._path(), out, self.tolerance.value)
         text = expert.describe_agreement(result, out)
         fig = confusion_heatmap(result.matrix)
+        warned = "".join(
+            f"<li>{html.escape(n)}</li>" for n in result.summary.get("reading_warnings", [])
+        )
         self.agreement.children = [
             note(html.escape(text)),
+            *([w.HTML(f"<ul>{warned}</ul>")] if warned else []),
             figure_widget(fig, "ethoscribe-agreement"),
             w.HTML(table_html(result.per_behaviour, 40)),
         ]

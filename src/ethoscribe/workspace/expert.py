@@ -20,7 +20,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ethoscribe.errors import InputError, WorkspaceError
+from ethoscribe.errors import InputError, InputWarning, WorkspaceError
 from ethoscribe.ethogram import bout_table
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_write_json, atomic_write_text, read_json, write_table
@@ -63,6 +63,21 @@ def read_coding(workspace: str | Path | Workspace, expert: str | Path) -> pd.Dat
     }
     coded = read_expert_coding(expert, known)
     return _on_label_frames(coded, {k: c.fps for k, c in known.items()}, label_fps(ws))
+
+
+def _read_coding_noted(ws: Workspace, expert: str | Path) -> tuple[pd.DataFrame, list[str]]:
+    """:func:`read_coding` and what its reading warned about (names joined, sessions left
+    out): the warnings are issued as usual and also returned, for the saved records and the
+    workbench, which shows no console."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", InputWarning)
+        coded = read_coding(ws, expert)
+    notes = []
+    for w in caught:
+        if issubclass(w.category, InputWarning):
+            notes.append(str(w.message))
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno, module=__name__)
+    return coded, notes
 
 
 def label_fps(ws: Workspace) -> float:
@@ -110,7 +125,7 @@ def agreement(
     """
     ws = _workspace(workspace)
     out = check_output_folder(out, "agreement")  # never the workspace or a folder of other files
-    coded = read_coding(ws, expert)
+    coded, notes = _read_coding_noted(ws, expert)
     labels = ws.labels()
     motif = "discovered_motif" if "discovered_motif" in labels.columns else "motif"
     frames = coded.merge(
@@ -122,6 +137,7 @@ def agreement(
     frames["fps"] = label_fps(ws)  # the labels' rate (--target-fps when discovery resampled)
     frames["motif"] = frames["motif"].fillna("")
     result = expert_agreement(frames, tolerance_s)
+    result.summary["reading_warnings"] = notes
     out.mkdir(parents=True, exist_ok=True)
     record = {
         **result.summary,
@@ -163,7 +179,7 @@ def _agreement_report(result: ExpertAgreement, record: dict[str, Any]) -> str:
         f"{s['purity']:.3f}; boundaries within {s['tolerance_s']:g} s: precision "
         f"{s['precision']:.3f}, recall {s['recall']:.3f}, F1 {s['boundary_f1']:.3f}. Motifs "
         "listed together under 'motifs_sharing' are candidates for merging."
-    )
+    ) + "".join(f" Read with a warning: {n}" for n in s.get("reading_warnings", []))
     sections = [
         Section(
             "Agreement with the expert's coding",
@@ -247,7 +263,7 @@ def learn(
     and rewrites the ethogram tables with the expert's behaviour names.
     """
     ws = _workspace(workspace)
-    coded = read_coding(ws, expert)
+    coded, read_notes = _read_coding_noted(ws, expert)
     model = ws.model()
     feats = recording_features(ws)
     X = classifier_inputs(model, feats)
@@ -261,6 +277,7 @@ def learn(
     evaluation, per, notes = _scores(y, oof, has_coding, classes, counts, min_bouts, feats)
     for note in notes:
         warnings.warn(note, UserWarning, stacklevel=2)
+    notes = read_notes + notes  # the reading's were issued when reading
     clf = BehaviourClassifier(**params).fit(
         np.concatenate([X[i] for i in has_coding]),
         np.concatenate([y[i] for i in has_coding]),
@@ -409,7 +426,7 @@ def _scores(
             for row in per.itertuples()
             if row.coded_sessions < 2
         ]
-    if oof is None:
+    if oof is None and len(evaluation["coded_sessions"]) < 2:  # not when evaluation was skipped
         notes.append("only one session is coded: no leave-one-session-out score; code another")
     return evaluation, per, notes
 
