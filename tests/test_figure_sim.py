@@ -22,7 +22,7 @@ from benchmarks.validity.figure_sim import (  # noqa: E402
     simulate_study,
 )
 from benchmarks.validity.figure_sim.__main__ import main  # noqa: E402
-from benchmarks.validity.sources.figure import load_study  # noqa: E402
+from benchmarks.validity.sources import read_simulated_study  # noqa: E402
 
 from ethoscribe.io import read_tidy  # noqa: E402
 
@@ -56,7 +56,7 @@ def test_files_are_read_by_the_tidy_reader_and_the_bench(study):
     manifest = pd.read_csv(study / "manifest.csv")
     assert list(manifest["session"]) == ["subject_01", "subject_02"]
     assert set(manifest["fps"]) <= set(FPS_CHOICES)
-    sessions, truth, names = load_study(study)
+    sessions, truth, names = read_simulated_study(study, "label")
     assert names == sorted(MOVEMENTS)
     takes = simulate_study(SEED, SUBJECTS, DURATION_S)
     for s, take, fps in zip(sessions, takes, manifest["fps"], strict=True):

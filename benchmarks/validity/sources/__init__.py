@@ -8,14 +8,22 @@ so that both pipelines (ethoscribe and the plain reference) take the same input.
 
 from __future__ import annotations
 
+import importlib.util
 import math
+import os
+import subprocess
+import sys
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from ethoscribe.pose import PoseTracks
+
+REPO = Path(__file__).resolve().parents[3]
 
 
 @dataclass
@@ -133,6 +141,51 @@ def upsample(series: np.ndarray, labels: np.ndarray, factor: int) -> tuple[np.nd
     t_old = np.arange(n)
     cols = [np.interp(t_new, t_old, series[:, c]) for c in range(series.shape[1])]
     return np.stack(cols, 1), np.repeat(labels, factor)
+
+
+def simulate_once(module: str, folder: Path, args: list[str]) -> None:
+    """Run a simulator's command ``python -m <module> --out <folder> <args>`` into ``folder``
+    (once: a folder that holds a manifest is kept for reruns). Only the command and its files
+    are used, never the simulator's code."""
+    if (folder / "manifest.csv").exists():
+        return
+    folder.parent.mkdir(parents=True, exist_ok=True)
+    if importlib.util.find_spec(module) is None:
+        raise RuntimeError(f"{module} is not in this checkout: update it (git rebase main)")
+    cmd = [sys.executable, "-m", module, "--out", str(folder), *args]
+    path = [str(REPO), str(REPO / "src"), os.environ.get("PYTHONPATH", "")]
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(filter(None, path))}
+    done = subprocess.run(cmd, cwd=REPO, env=env, capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        raise RuntimeError(f"{' '.join(cmd)} failed: {done.stderr.strip()[-800:]}")
+
+
+def read_simulated_study(
+    folder: Path, label: str
+) -> tuple[list[PoseTracks], dict[tuple[str, str], np.ndarray], list[str]]:
+    """A simulator's study as ``ethoscribe.workspace.discover`` reads it (manifest fps and
+    calibration), with per-frame truth codes from ``truth/<session>.csv`` (``frame``, the
+    ``label`` column, and ``animal`` where a session has several; -1 where the truth says
+    nothing) and the names of the codes."""
+    from ethoscribe.workspace.reading import read_sessions
+
+    manifest = folder / "manifest.csv"
+    paths = [folder / p for p in pd.read_csv(manifest)["path"]]
+    sessions, _ = read_sessions(paths, manifest=manifest, progress=False)
+    tables = {s.session: pd.read_csv(folder / "truth" / f"{s.session}.csv") for s in sessions}
+    names = sorted({str(b) for t in tables.values() for b in t[label].unique()})
+    code = {b: i for i, b in enumerate(names)}
+    truth = {}
+    for s in sessions:
+        t = tables[s.session]
+        for a in s.animals:
+            part = t if "animal" not in t.columns or s.n_animals == 1 else t[t["animal"] == a]
+            labels = np.full(s.n_frames, -1, dtype=np.int64)
+            frames = part["frame"].to_numpy()
+            ok = (frames >= 0) & (frames < s.n_frames)
+            labels[frames[ok]] = part[label].astype(str).map(code).to_numpy()[ok]
+            truth[(s.session, a)] = labels
+    return sessions, truth, names
 
 
 def _import_all() -> None:
