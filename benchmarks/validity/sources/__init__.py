@@ -143,6 +143,24 @@ def upsample(series: np.ndarray, labels: np.ndarray, factor: int) -> tuple[np.nd
     return np.stack(cols, 1), np.repeat(labels, factor)
 
 
+def packaged_file(package: str, relative: str, sha256: str, install: str, what: str) -> Path:
+    """A data file shipped inside an installed package, found without importing the package,
+    its SHA-256 checked (a changed file is refused, never read). ``install``: the command that
+    installs it; ``what``: the source, for the message."""
+    import hashlib
+
+    spec = importlib.util.find_spec(package)
+    if spec is None or not spec.submodule_search_locations:
+        raise RuntimeError(f"the {what} source needs the package that ships it: {install}")
+    path = Path(next(iter(spec.submodule_search_locations))) / relative
+    if not path.exists():
+        raise RuntimeError(f"{path} is missing: reinstall with {install}")
+    digest = hashlib.sha256(path.read_bytes()).hexdigest()
+    if digest != sha256:
+        raise RuntimeError(f"{path}: SHA-256 {digest} is not the expected {sha256}")
+    return path
+
+
 def simulate_once(module: str, folder: Path, args: list[str]) -> None:
     """Run a simulator's command ``python -m <module> --out <folder> <args>`` into ``folder``
     (once: a folder that holds a manifest is kept for reruns). Only the command and its files

