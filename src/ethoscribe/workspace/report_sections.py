@@ -99,6 +99,8 @@ def model_section(ws: Workspace) -> Section:
     """The number of states, how it was chosen, and how stable the states were across fits."""
     summary = ws.summary
     params = summary.get("parameters") or {}
+    fitted = summary.get("n_training_frames")
+    fitted = f"{fitted:,}" if isinstance(fitted, int) else "?"
     chosen = "chosen from the data" if params.get("n_states") == "auto" else "set by the user"
     source = summary.get("labelled_with")
     if source:  # a new cohort: the states and their choice come from the source's fit
@@ -106,15 +108,14 @@ def model_section(ws: Workspace) -> Section:
             f"Labelled with the saved model of {source} (not refitted on these sessions): "
             f"{summary.get('n_states')} states ({chosen} there), method "
             f"{params.get('method', '?')}, seed {summary.get('seed')}, fitted on "
-            f"{summary.get('n_training_frames', '?')} frames; here {summary.get('n_sessions')} "
+            f"{fitted} frames; here {summary.get('n_sessions')} "
             f"sessions, {frames_said(summary)}."
         )
     else:
         text = (
             f"{summary.get('n_states')} states ({chosen}), method {params.get('method', '?')}, "
             f"seed {summary.get('seed')}; {summary.get('n_sessions')} sessions, "
-            f"{frames_said(summary)}; {summary.get('n_training_frames', '?')} frames used to "
-            "fit."
+            f"{frames_said(summary)}; {fitted} frames used to fit."
         )
     offsets = summary.get("individual_offsets")
     if offsets:
