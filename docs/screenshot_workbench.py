@@ -51,7 +51,7 @@ FIGURES = MOTIF_FIGURES
 PAGE_DRAWN = """() => {
   const page = document.querySelector(
     '.ethoscribe-pages .widget-tab-contents > :not(.lm-mod-hidden)');
-  if (!page) return false;
+  if (!page || page.textContent.includes('Loading the study overview')) return false;
   const plots = [...page.querySelectorAll('.js-plotly-plot')];
   return plots.every((p) => p.querySelector('.main-svg .point, .main-svg path.js-line,'
                                             + ' .main-svg .annotation'));
