@@ -9,6 +9,7 @@ package's own simulator (seeds fixed below) with keypoints hidden on purpose.
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 from sklearn.decomposition import PCA
 from sklearn.linear_model import LinearRegression
@@ -150,3 +151,54 @@ def test_sessions_at_several_frame_rates_are_labelled_on_their_own_frames():
     assert min(ari) > 0.3 and abs(ari[0] - ari[1]) < 0.25
     meta, arrays = model.to_state()
     assert BehaviourModel.from_state(meta, arrays).labels_at_input_rate_
+
+
+def _every_keypoint_seen(tracks):
+    """``tracks`` with lost keypoints interpolated in time and every confidence 1."""
+    coords = tracks.coords.copy()
+    t = np.arange(tracks.n_frames)
+    for a in range(coords.shape[1]):
+        for k in range(coords.shape[2]):
+            for d in range(coords.shape[3]):
+                x = coords[:, a, k, d]
+                ok = np.isfinite(x)
+                x[~ok] = np.interp(t[~ok], t[ok], x[ok])
+    confidence = None if tracks.confidence is None else np.ones_like(tracks.confidence)
+    return tracks.replace(coords=coords, confidence=confidence)
+
+
+def test_filled_frames_scored_without_their_shape_columns():
+    sim = [simulate_session(duration_s=60, seed=s, session=f"s{s}") for s in (1, 2)]
+    sessions = [t for t, _ in sim]
+    model = BehaviourModel(n_states=5, segmenter=QUICK, random_state=0).fit(sessions)
+    tracks = sessions[0]
+    n = round(3.3 * tracks.fps)
+    lost = np.zeros(tracks.n_frames, dtype=bool)
+    for a in np.linspace(0, tracks.n_frames - n, 5).astype(int):
+        lost[a : a + n] = True
+    coords = tracks.coords.copy()
+    coords[lost, :, list(tracks.keypoints).index("left_forepaw")] = np.nan
+    altered = tracks.replace(coords=coords)
+    as_seen = model.label([altered])
+    complete = _every_keypoint_seen(sessions[1])
+    plain = model.label([complete])
+    model.set_params(filled_frames="shape_left_out")
+    left_out = model.label([altered])
+    # every frame still scored, body_seen unchanged
+    assert (left_out["state"] >= 0).all()
+    np.testing.assert_array_equal(left_out["body_seen"], as_seen["body_seen"])
+    # a session without a filled frame: the same labels and probabilities, exactly
+    whole = model.label([complete]).drop(columns="motif")
+    assert whole["body_seen"].min() == 1.0
+    pd.testing.assert_frame_equal(whole, plain.drop(columns="motif"))
+    # frames whose paw was filled no longer carry the confidence of fully seen ones
+    before, after = as_seen["probability"][lost].mean(), left_out["probability"][lost].mean()
+    print(f"mean probability of the filled frames {before:.3f} -> {after:.3f}")
+    assert after < before - 0.02
+    # the option is saved with the model and read back
+    meta, arrays = model.to_state()
+    again = BehaviourModel.from_state(meta, arrays)
+    assert again.filled_frames == "shape_left_out"
+    np.testing.assert_array_equal(again.label([altered])["state"], left_out["state"])
+    with pytest.raises(InputError, match="filled_frames must be one of"):
+        BehaviourModel(filled_frames="guess").fit(sessions)

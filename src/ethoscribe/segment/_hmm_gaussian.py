@@ -131,6 +131,42 @@ class GaussianEmission:
         return out
 
 
+def marginal_emission(
+    emission_of: dict[bytes, GaussianEmission],
+    means: np.ndarray,
+    covars: np.ndarray,
+    covariance_type: str,
+    X: np.ndarray,
+    hidden: np.ndarray,
+    out: np.ndarray,
+) -> np.ndarray:
+    """``out`` (T, K) with the rows of frames that hide columns replaced by the Gaussian
+    marginal of their other columns, ``log N(x_t[keep] | mu_k[keep], Sigma_k[keep, keep])``.
+
+    The marginal of a Gaussian over a subset of its coordinates is the Gaussian of the
+    sub-vector with the sub-covariance, so this is exact (no imputation). ``hidden`` (T, D)
+    is True where a column of a frame is left out; each distinct pattern's emission is made
+    once and kept in ``emission_of`` (reused across calls). A frame hiding every column gets
+    0 for every state (it says nothing about the state).
+    """
+    rows = np.flatnonzero(hidden.any(axis=1))
+    if len(rows) == 0:
+        return out
+    patterns, which = np.unique(hidden[rows], axis=0, return_inverse=True)
+    for p, pattern in enumerate(patterns):
+        r = rows[which.ravel() == p]
+        keep = np.flatnonzero(~pattern)
+        if len(keep) == 0:
+            out[r] = 0.0
+            continue
+        key = pattern.tobytes()
+        if key not in emission_of:
+            sub = covars[:, keep][:, :, keep]
+            emission_of[key] = GaussianEmission(means[:, keep], sub, covariance_type)
+        out[r] = emission_of[key].log_likelihood(X[np.ix_(r, keep)])
+    return out
+
+
 def _lower_inverse(chol: np.ndarray) -> np.ndarray:
     """``chol^{-1}`` of a lower-triangular C-ordered factor: the LAPACK call that
     ``scipy.linalg.solve_triangular(chol, I, lower=True)`` makes (same values), without its

@@ -75,6 +75,11 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
         problems.append(
             f"'params.min_body_seen' must be a fraction in (0, 1] or null, got {_show(seen)}"
         )
+    filled = params.get("filled_frames", "as_seen")
+    if filled not in ("as_seen", "shape_left_out"):
+        problems.append(
+            f"'params.filled_frames' must be 'as_seen' or 'shape_left_out', got {_show(filled)}"
+        )
     seed = params.get("random_state", 0)
     if seed is not None and not int_between(seed, 0, 2**63 - 1):
         problems.append(f"'params.random_state' must be an integer >= 0, got {_show(seed)}")

@@ -54,7 +54,7 @@ from ethoscribe.segment._hmm_fit import (
     thin_frames,
     transition_root,
 )
-from ethoscribe.segment._hmm_gaussian import GaussianEmission
+from ethoscribe.segment._hmm_gaussian import GaussianEmission, marginal_emission
 from ethoscribe.segment._hmm_kernels import forward_backward_log, forward_filter_log, viterbi_log
 from ethoscribe.segment.inputs import check_fitted, check_X_lengths
 from ethoscribe.segment.postprocess import order_states_by_occupancy
@@ -493,13 +493,17 @@ class GaussianHMM(BaseEstimator):
         emission = GaussianEmission(self.means_, self.covars_, self.covariance_type)
         return X, lengths, emission
 
-    def _log_emission_batches(self, X, lengths, offsets=None, causal: bool = False):
+    def _log_emission_batches(self, X, lengths, offsets=None, causal: bool = False, hidden=None):
         """Per batch of whole sessions: ``(start, stop, lengths, log emission)`` of the frames
         minus each session's offset: ``offsets`` when given, else estimated here with the
-        fitted parameters fixed (with ``session_offsets``); none on the ``causal`` path."""
+        fitted parameters fixed (with ``session_offsets``); none on the ``causal`` path.
+        ``hidden`` (n_frames, D) bool or None: columns left out of a frame's emission, which
+        is then the Gaussian marginal of its other columns (``marginal_emission``)."""
         X, lengths, emission = self._prepare(X, lengths)
         given = None if causal else _checked_offsets(offsets, lengths, X.shape[1])
+        hidden = _checked_hidden(hidden, X.shape)
         estimate = not causal and given is None and self.session_offsets
+        emission_of: dict[bytes, GaussianEmission] = {}
         with one_thread():
             for a, b, sub, rows in _batches_with_rows(lengths, given):
                 part = X[a:b]
@@ -507,7 +511,13 @@ class GaussianHMM(BaseEstimator):
                     part = part - np.repeat(rows, sub, axis=0)
                 elif estimate:  # each session's own, parameters fixed
                     part = part - np.repeat(label_offsets(self, part, sub), sub, axis=0)
-                yield a, b, sub, emission.log_likelihood(part)
+                log_b = emission.log_likelihood(part)
+                if hidden is not None:
+                    marginal_emission(
+                        emission_of, self.means_, self.covars_, self.covariance_type,
+                        part, hidden[a:b], log_b,
+                    )  # fmt: skip
+                yield a, b, sub, log_b
 
     def offsets(self, X: np.ndarray, lengths=None) -> np.ndarray:
         """Offset of every session (sequence of ``lengths``), shape (n_sessions, D): the MAP
@@ -592,30 +602,41 @@ class GaussianHMM(BaseEstimator):
             out[a:b] = forward_filter_log(log_b, self.startprob_, self.transmat_, sub)[0]
         return out
 
-    def predict_proba(self, X: np.ndarray, lengths=None, *, offsets=None) -> np.ndarray:
+    def predict_proba(
+        self, X: np.ndarray, lengths=None, *, offsets=None, hidden=None
+    ) -> np.ndarray:
         """Smoothed posteriors ``P(state_t | whole session)``, shape (n_frames, K)
-        (``offsets``: :meth:`score`)."""
+        (``offsets``, ``hidden``: :meth:`decode`)."""
         check_fitted(self, "means_")
         out = np.empty((len(X), self.n_states_))
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets, hidden=hidden):
             post = forward_backward_log(log_b, self.startprob_, self.transmat_, sub, True)
             out[a:b] = post.gamma
         return out
 
-    def decode(self, X: np.ndarray, lengths=None, *, offsets=None) -> tuple[float, np.ndarray]:
+    def decode(
+        self, X: np.ndarray, lengths=None, *, offsets=None, hidden=None
+    ) -> tuple[float, np.ndarray]:
         """Viterbi: ``(joint log-probability of the best paths, labels (n_frames,))``
-        (``offsets``: :meth:`score`)."""
+        (``offsets``: :meth:`score`).
+
+        ``hidden``, here and in :meth:`predict`, :meth:`predict_proba` and
+        :meth:`predict_min_duration`: None, or a bool array (n_frames, n_features), True
+        where a frame's column is not to be trusted (e.g. computed from filled keypoints).
+        Such a frame is scored by the Gaussian marginal of its other columns (exact for a
+        Gaussian state: the sub-vector under the sub-covariance), so it weighs only what
+        was seen; a frame hiding every column is scored by the transitions alone."""
         labels = np.empty(len(X), dtype=np.int64)
         logprob = 0.0
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets, hidden=hidden):
             labels[a:b], best = viterbi_log(log_b, self.startprob_, self.transmat_, sub)
             logprob += float(best.sum())
         return logprob, labels
 
-    def predict(self, X: np.ndarray, lengths=None, *, offsets=None) -> np.ndarray:
-        """Most probable state path (Viterbi), int labels (n_frames,) (``offsets``:
-        :meth:`score`)."""
-        return self.decode(X, lengths, offsets=offsets)[1]
+    def predict(self, X: np.ndarray, lengths=None, *, offsets=None, hidden=None) -> np.ndarray:
+        """Most probable state path (Viterbi), int labels (n_frames,) (``offsets``,
+        ``hidden``: :meth:`decode`)."""
+        return self.decode(X, lengths, offsets=offsets, hidden=hidden)[1]
 
     def predict_min_duration(
         self,
@@ -625,6 +646,7 @@ class GaussianHMM(BaseEstimator):
         outlier_share: float = 0.0,
         *,
         offsets=None,
+        hidden=None,
     ) -> tuple[np.ndarray, np.ndarray]:
         """Labels whose every bout lasts at least ``min_frames``, and their posteriors.
 
@@ -634,7 +656,7 @@ class GaussianHMM(BaseEstimator):
         ``min_frames`` is one bout. ``outlier_share`` > 0 takes that share of frames to be
         uninformative (:func:`ethoscribe.segment.duration.with_outlier_frames`). With
         ``min_frames=1`` and ``outlier_share=0`` this is :meth:`predict` and
-        :meth:`predict_proba` (``offsets``: :meth:`score`).
+        :meth:`predict_proba` (``offsets``, ``hidden``: :meth:`decode`).
 
         Returns
         -------
@@ -647,7 +669,7 @@ class GaussianHMM(BaseEstimator):
         labels = np.empty(len(X), dtype=np.int64)
         proba = np.empty((len(X), self.n_states_))
         start, trans = self.startprob_, self.transmat_
-        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets):
+        for a, b, sub, log_b in self._log_emission_batches(X, lengths, offsets, hidden=hidden):
             if outlier_share > 0:
                 log_b = duration.with_outlier_frames(log_b, outlier_share)
             labels[a:b] = duration.viterbi(log_b, start, trans, min_frames, sub)[0]
@@ -773,6 +795,20 @@ def _checked_offsets(offsets: Any, lengths: np.ndarray, n_features: int) -> np.n
         )
         raise InputError(msg)
     return b
+
+
+def _checked_hidden(hidden: Any, shape: tuple[int, int]) -> np.ndarray | None:
+    """Columns left out of each frame's emission as a bool array of ``shape``; None: None."""
+    if hidden is None:
+        return None
+    h = np.asarray(hidden)
+    if h.shape != shape or h.dtype != bool:
+        msg = (
+            f"hidden must be a bool array of shape {shape} (frames, features), True where a "
+            f"frame's column is left out; got {h.dtype} of shape {h.shape}"
+        )
+        raise InputError(msg)
+    return h if h.any() else None
 
 
 def _offsets_from_state(model: GaussianHMM, meta: Mapping[str, Any], arrays) -> None:
