@@ -26,6 +26,7 @@ from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_write_json, atomic_write_text, read_json, write_table
 from ethoscribe.io.bundle import read_bundle, write_bundle
 from ethoscribe.io.expert import CodedSession, frames_at_rate, read_expert_coding
+from ethoscribe.label_table import csv_rounded
 from ethoscribe.plots.agreement import confusion_heatmap
 from ethoscribe.report import Section, render_report
 from ethoscribe.segment.expert_agreement import ExpertAgreement, expert_agreement
@@ -148,8 +149,9 @@ def agreement(
         "definitions": _definitions(),
     }
     atomic_write_json(out / "agreement.json", jsonable(record))
-    write_table(result.confusion, out / "confusion.csv")
-    write_table(result.per_behaviour, out / "per_behaviour.csv")
+    # rounded as every other CSV of a run (label_table.csv_rounded); agreement.json keeps all
+    write_table(csv_rounded(result.confusion), out / "confusion.csv")
+    write_table(csv_rounded(result.per_behaviour), out / "per_behaviour.csv")
     atomic_write_text(out / "report.html", _agreement_report(result, record))
     return result
 
@@ -299,7 +301,7 @@ def learn(
         meta, arrays = clf.to_state()
         write_bundle(folder / CLASSIFIER_FOLDER, meta, arrays)
         atomic_write_json(folder / "evaluation.json", jsonable(evaluation))
-        write_table(per, folder / "per_behaviour.csv")
+        write_table(csv_rounded(per), folder / "per_behaviour.csv")
         _label_with(ws, clf, model, feats, X)
         append_journal(
             folder / "journal.jsonl",
