@@ -7,12 +7,13 @@ from __future__ import annotations
 
 import dataclasses
 import time
+import warnings
 
 import numpy as np
 import pytest
 
 from ethoscribe.clean import clean
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.segment.model import BehaviourModel
 from ethoscribe.segment.streaming import StreamingLabeller
 from ethoscribe.simulate import simulate_session
@@ -128,3 +129,41 @@ def test_pixel_frames_for_a_model_fitted_in_mm_need_the_calibration():
     np.testing.assert_array_equal(
         _stream(cm, in_mm.coords[:n] / 10, in_mm.confidence[:n]), reference
     )
+
+
+def test_frames_the_model_explains_poorly_are_counted_and_warned_about_once():
+    # Pixel frames pushed as mm (a calibration left out) were labelled without a word. The
+    # labeller counts scored frames below the model's poor-fit threshold (1st percentile of
+    # its training frames' best-state log-likelihood, as fit_shares reads a session) and warns
+    # once after POOR_FIT_CHECK_S seconds when more than half are.
+    from ethoscribe.segment.model import best_state_log_likelihood
+    from ethoscribe.segment.streaming import POOR_FIT_CHECK_S
+
+    train, _ = simulate_session(duration_s=60, seed=3, noise=True)
+    model = BehaviourModel(n_states=4, causal=True).fit([train])
+    tracks, _ = simulate_session(duration_s=30, seed=5, noise=True)  # another animal
+    n = int(POOR_FIT_CHECK_S * model.fps_) + 60
+    live = StreamingLabeller(model)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", InputWarning)  # an animal like the training one: quiet
+        _stream(live, tracks.coords[:n], tracks.confidence[:n])
+    # reference: the model's own offline best-state log-likelihood of the same causal features
+    cleaned, _ = clean(tracks, model.cleaning_, causal=True)
+    [feats] = model.featurise_cleaned([cleaned])
+    valid = feats.valid[:n]
+    ll = best_state_log_likelihood(model.segmenter_, feats.values[:n][valid])
+    scored, poor = live.poorly_explained
+    assert scored == int(valid.sum())
+    assert poor == int(np.count_nonzero(ll < model.poor_fit_threshold_))
+    assert poor / scored < 0.5
+
+    # the same frames five times larger (pixels read as mm); some are masked as jumps, so the
+    # whole session is pushed to reach the check's scored frames
+    scaled = StreamingLabeller(model)
+    with pytest.warns(InputWarning, match="explains .* of the first .* streamed frames poorly"):
+        _stream(scaled, tracks.coords * 5, tracks.confidence)
+    assert scaled.poorly_explained[0] >= POOR_FIT_CHECK_S * model.fps_
+    assert scaled.poorly_explained[1] / scaled.poorly_explained[0] > 0.9
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", InputWarning)  # said once, not on every frame after
+        _stream(scaled, tracks.coords[:60] * 5, tracks.confidence[:60])

@@ -9,6 +9,7 @@ equal offline forward filtering (:meth:`GaussianHMM.filter`) of the same session
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from dataclasses import replace
 from typing import NamedTuple
@@ -16,9 +17,19 @@ from typing import NamedTuple
 import numpy as np
 
 from ethoscribe.clean import StreamingCleaner
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.segment.inputs import check_fitted
 from ethoscribe.segment.registry import get_segmenter, segmenter_names
+
+# The streamed frames are checked once against the model's poor-fit threshold (the 1st
+# percentile of its training frames' best-state log-likelihood, as ``fit_shares`` reads it for
+# a labelled session): after POOR_FIT_CHECK_S seconds of scored frames, a warning when more
+# than half fall below it, i.e. the typical frame fits worse than 99 % of the training frames.
+# Measured (a 4-state causal model of one simulated 60-s session, four 40-s sessions streamed):
+# new sessions of the same simulator 1-18 % below it, the same frames twice or five times
+# larger (pixels read as mm) 96-100 %. Offline flagging (fit_shares) uses 10 % per session.
+POOR_FIT_CHECK_S = 10.0
+POOR_FIT_STREAM_SHARE = 0.5
 
 
 class LiveLabel(NamedTuple):
@@ -54,6 +65,17 @@ class StreamingLabeller:
     px_per_unit : float, optional
         Pixels per unit of the model's cleaning (``model.cleaning_.unit``) for pixel frames:
         the camera's calibration, as ``px_per_unit`` in a manifest.
+
+    Attributes
+    ----------
+    poorly_explained : (int, int)
+        Scored frames so far (all animals) and how many of them the model explains poorly
+        (best-state log-likelihood below ``model.poor_fit_threshold_``, which about 1 % of its
+        training frames are). After ``POOR_FIT_CHECK_S`` seconds of scored frames one
+        :class:`~ethoscribe.errors.InputWarning` is given when more than half are: frames in
+        other units or another calibration, keypoints in another order, another animal or
+        camera than the model was fitted on (the labels are then not to be trusted). Not
+        counted (0, 0) for a model with per-session offsets (fit it with ``causal=True``).
 
     Examples
     --------
@@ -113,6 +135,12 @@ class StreamingLabeller:
             raise InputError(msg)
         self.features = model.features_.stream(self.n_animals)
         self.filters = [spec.live(model.segmenter_) for _ in range(self.n_animals)]
+        # A model with per-session offsets sets its threshold on frames minus their session's
+        # offset, which the causal path does not take off: no comparable threshold then.
+        offsets = bool(getattr(model.segmenter_, "session_offsets", False))
+        self._threshold = None if offsets else getattr(model, "poor_fit_threshold_", None)
+        self.poorly_explained = (0, 0)
+        self._checked = self._threshold is None
 
     def push(self, coords: np.ndarray, confidence: np.ndarray | None = None) -> list[LiveLabel]:
         """Add one frame ``coords (animals, keypoints, dims)``; return one label per animal.
@@ -134,7 +162,29 @@ class StreamingLabeller:
             posterior = live.push(row)
             state = int(np.argmax(posterior))
             out.append(LiveLabel(state, float(posterior[state]), posterior))
+            self._count_fit(getattr(live, "best_log_likelihood", None))
         return out
+
+    def _count_fit(self, best: float | None) -> None:
+        """Count a scored frame against the poor-fit threshold; warn once (class doc)."""
+        if self._threshold is None or best is None or not np.isfinite(best):
+            return
+        n, poor = self.poorly_explained
+        self.poorly_explained = (n + 1, poor + int(best < self._threshold))
+        if self._checked or n + 1 < POOR_FIT_CHECK_S * self.model.fps_ * self.n_animals:
+            return
+        self._checked = True
+        share = (poor + int(best < self._threshold)) / (n + 1)
+        if share > POOR_FIT_STREAM_SHARE:
+            warnings.warn(
+                f"the model explains {share:.0%} of the first {n + 1} streamed frames poorly "
+                f"(about 1 % of its training frames are): check the units and calibration "
+                f"(units=, px_per_unit=; the model is in {self.model.features_.units_!r}), the "
+                "keypoint order (keypoints=), and that the animal and camera are like those "
+                "the model was fitted on; until then the labels are not to be trusted",
+                InputWarning,
+                stacklevel=3,
+            )
 
     def _reordered(
         self, coords: np.ndarray, confidence: np.ndarray | None

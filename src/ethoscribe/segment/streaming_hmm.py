@@ -25,6 +25,10 @@ class HMMFilter:
     ----------
     log_likelihood : float
         ``log P(x_1..t)`` of the frames pushed since the last :meth:`reset`.
+    best_log_likelihood : float
+        ``max_k log N(x_t | mean_k, cov_k)`` of the last frame pushed (NaN for a frame without
+        features): how well the state that explains it best does, the quantity a model's
+        poor-fit threshold reads.
     n_frames : int
 
     Examples
@@ -51,6 +55,7 @@ class HMMFilter:
         """Start a new session."""
         self._alpha: np.ndarray | None = None
         self.log_likelihood = 0.0
+        self.best_log_likelihood = float("nan")
         self.n_frames = 0
 
     def push(self, x: np.ndarray) -> np.ndarray:
@@ -66,9 +71,11 @@ class HMMFilter:
         self.n_frames += 1
         if not np.isfinite(x).all():
             self._alpha = prior / prior.sum()
+            self.best_log_likelihood = float("nan")
             return self._alpha.copy()
         log_b = self._emission.log_likelihood(x, out=self._log_b)[0]
         top = log_b.max()
+        self.best_log_likelihood = float(top)
         alpha = prior * np.exp(log_b - top)
         total = alpha.sum()
         self.log_likelihood += float(np.log(total) + top)
