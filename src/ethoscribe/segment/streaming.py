@@ -170,14 +170,15 @@ class StreamingLabeller:
         if self._threshold is None or best is None or not np.isfinite(best):
             return
         n, poor = self.poorly_explained
-        self.poorly_explained = (n + 1, poor + int(best < self._threshold))
-        if self._checked or n + 1 < POOR_FIT_CHECK_S * self.model.fps_ * self.n_animals:
+        n, poor = n + 1, poor + int(best < self._threshold)
+        self.poorly_explained = (n, poor)
+        if self._checked or n < POOR_FIT_CHECK_S * self.model.fps_ * self.n_animals:
             return
         self._checked = True
-        share = (poor + int(best < self._threshold)) / (n + 1)
+        share = poor / n
         if share > POOR_FIT_STREAM_SHARE:
             warnings.warn(
-                f"the model explains {share:.0%} of the first {n + 1} streamed frames poorly "
+                f"the model explains {share:.0%} of the first {n} streamed frames poorly "
                 f"(about 1 % of its training frames are): check the units and calibration "
                 f"(units=, px_per_unit=; the model is in {self.model.features_.units_!r}), the "
                 "keypoint order (keypoints=), and that the animal and camera are like those "
