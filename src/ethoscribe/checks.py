@@ -62,3 +62,15 @@ def seed_from(random_state: object, name: str = "random_state") -> int | None:
         f"got {random_state!r:.60}"
     )
     raise InputError(msg)
+
+
+def name_key(name: str) -> str:
+    """A name as people read it: case and runs of spaces do not tell two names apart (motif
+    names, an expert's behaviour names).
+
+    Examples
+    --------
+    >>> name_key("  Rearing   up ") == name_key("rearing up")
+    True
+    """
+    return " ".join(name.split()).casefold()

@@ -34,6 +34,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ethoscribe.checks import name_key
 from ethoscribe.errors import InputError, listed
 from ethoscribe.ethogram import LABEL_COLUMNS, bout_table, check_columns
 from ethoscribe.segment.postprocess import enforce_min_bout
@@ -73,21 +74,16 @@ def _new_name(names: Mapping[int, str], name: Any, replaced: set[str]) -> str:
     return name
 
 
-def _name_key(name: str) -> str:
-    """A name as people read it: case and runs of spaces do not tell two names apart."""
-    return " ".join(name.split()).casefold()
-
-
 def _typed_name(names: Mapping[int, str], name: Any, replaced: set[str]) -> Any:
     """A name typed for a new edit: outer spaces dropped; refused when it differs from another
     motif's name only in case or spacing (two such motifs read as one in every table)."""
     if not isinstance(name, str):
         return name
     name = name.strip()
-    if name != UNASSIGNED and _name_key(name) == UNASSIGNED:
+    if name != UNASSIGNED and name_key(name) == UNASSIGNED:
         raise InputError(f"{name!r} reads as the reserved 'unassigned'; use unassign(motif)")
     others = set(names.values()) - replaced - {name}
-    alike = sorted(m for m in others if _name_key(m) == _name_key(name))
+    alike = sorted(m for m in others if name_key(m) == name_key(name))
     if alike:
         msg = (
             f"motif name {name!r} differs from the motif {alike[0]!r} only in case or spaces; "
@@ -413,7 +409,7 @@ class Curation:
         _known(self._names, motif)
         typed = name_list(names, "names", "split", count=2)
         names = [_typed_name(self._names, n, {motif}) for n in typed]
-        if names[0] != names[1] and _name_key(names[0]) == _name_key(names[1]):
+        if names[0] != names[1] and name_key(names[0]) == name_key(names[1]):
             msg = f"a split needs two different new names; got {names} (same but for case)"
             raise InputError(msg)
         for name in names:

@@ -35,6 +35,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ethoscribe.checks import name_key
 from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._tables import rename_hints, similar_columns
 
@@ -126,7 +127,7 @@ def _one_spelling(path: Path, behaviour: pd.Series) -> pd.Series:
     if named.empty:
         return behaviour
     counts = named.value_counts()
-    keys = pd.Series([" ".join(v.split()).casefold() for v in counts.index], index=counts.index)
+    keys = pd.Series([name_key(v) for v in counts.index], index=counts.index)
     chosen, notes = {}, []
     for _, spellings in keys.groupby(keys, sort=True):
         if len(spellings) < 2:
