@@ -822,7 +822,7 @@ class BehaviourModel(BaseEstimator):
         if len(X) == 0:
             return np.zeros(0, dtype=np.int64)
         if joined:  # the fitted states under the phase-joined labels
-            given = {**_given(offsets), **_given_hidden(hidden)}
+            given = _given(offsets=offsets, hidden=hidden)
             return np.asarray(seg.predict(X, lengths, **given), dtype=np.int64)
         return np.asarray(seg.predict_fine(X, lengths), dtype=np.int64)
 
@@ -913,7 +913,7 @@ class BehaviourModel(BaseEstimator):
             prob = _filtered(self.method, seg, X, lengths)
             return np.argmax(prob, axis=1), prob
         chain = getattr(seg, "predict_min_duration", None)
-        given = {**_given(offsets), **_given_hidden(hidden)}
+        given = _given(offsets=offsets, hidden=hidden)
         if min_frames > 1 and self.decoding == "min_duration" and chain is not None:
             # joined phases only merge neighbouring bouts, each already >= the minimum
             return self._to_labelled(*chain(X, lengths, min_frames, OUTLIER_SHARE, **given))
@@ -1091,14 +1091,10 @@ def _offsets_of(segmenter: Any, X: np.ndarray, lengths: np.ndarray) -> np.ndarra
     return segmenter.offsets(X, lengths)
 
 
-def _given(offsets: np.ndarray | None) -> dict[str, np.ndarray]:
-    """``offsets=`` for a segmenter's decoding call when there are offsets to give."""
-    return {} if offsets is None else {"offsets": offsets}
-
-
-def _given_hidden(hidden: np.ndarray | None) -> dict[str, np.ndarray]:
-    """``hidden=`` for a segmenter's decoding call when columns are left out."""
-    return {} if hidden is None else {"hidden": hidden}
+def _given(**options: np.ndarray | None) -> dict[str, np.ndarray]:
+    """The keyword options of a segmenter's decoding call that have a value (``offsets=``
+    when there are offsets to give, ``hidden=`` when columns are left out)."""
+    return {k: v for k, v in options.items() if v is not None}
 
 
 def _takes_hidden(seg: Any) -> bool:
@@ -1399,7 +1395,7 @@ def joined_states(
         ]
     unit_pairs: list[dict] = []
     if X is not None and lengths is not None and len(lengths) >= 2 and n >= 2:
-        share = unit_shares(segmenter.predict_proba(X, lengths, **_given(offsets)), lengths)
+        share = unit_shares(segmenter.predict_proba(X, lengths, **_given(offsets=offsets)), lengths)
         _, found = join_across_units(segmenter.means_, share, mutual=True)
         overlap = unit_overlap(share)
         means = np.asarray(segmenter.means_, dtype=np.float64)
