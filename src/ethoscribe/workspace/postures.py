@@ -180,9 +180,9 @@ def compute_session_postures(
     (tracks,), _ = read_sessions(
         [source], fps=fps, progress=False, format=fmt, reader_options=options
     )
-    px = row.get("px_per_unit")
-    if px is not None and not (isinstance(px, float) and np.isnan(px)):
-        tracks = calibrate(tracks, float(px), str(row.get("units") or "mm"))
+    px = _number(row.get("px_per_unit"))
+    if px is not None:
+        tracks = calibrate(tracks, px, str(row.get("units") or "mm"))
     cleaning = model.cleaning_
     labelled_fps = _number(row.get(LABELLED_FPS))
     if labelled_fps and not cleaning.target_fps and abs(labelled_fps - tracks.fps) > 1e-9:
