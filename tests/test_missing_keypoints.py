@@ -202,3 +202,7 @@ def test_filled_frames_scored_without_their_shape_columns():
     np.testing.assert_array_equal(again.label([altered])["state"], left_out["state"])
     with pytest.raises(InputError, match="filled_frames must be one of"):
         BehaviourModel(filled_frames="guess").fit(sessions)
+    # refused, not ignored, where the labelling cannot leave features out of a frame
+    for params in ({"method": "grouped_hmm"}, {"causal": True}):
+        with pytest.raises(InputError, match="filled_frames='shape_left_out' is not available"):
+            BehaviourModel(filled_frames="shape_left_out", **params).fit(sessions)

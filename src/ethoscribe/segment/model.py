@@ -370,6 +370,16 @@ class BehaviourModel(BaseEstimator):
             raise InputError(
                 f"filled_frames must be one of {list(FILLED_FRAMES)}; got {self.filled_frames!r}"
             )
+        # Refused rather than ignored: the user asked for frames scored another way.
+        if self.filled_frames != "as_seen" and (
+            self.causal or not _takes_hidden(get_segmenter(self.method).cls)
+        ):
+            why = "a causal model" if self.causal else f"method {self.method!r}"
+            raise InputError(
+                f"filled_frames={self.filled_frames!r} is not available for {why} (its "
+                "labelling cannot leave features out of a frame); use method='hmm' without "
+                "causal=True, or filled_frames='as_seen'"
+            )
 
         allowed = {
             "max_frames", "stop_after", "rule", "heldout", "warm_start", "fit_rate",
