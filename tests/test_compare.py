@@ -349,7 +349,20 @@ def test_command_line_reports_a_missing_group_column(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "ethoscribe compare: error:" in err and "no grouping column 'group'" in err
     assert "housing" in err and "Traceback" not in err
+    assert "pass --by COLUMN" in err and "by=" not in err
     assert not (tmp_path / "out").exists()
+
+
+def test_command_line_names_each_option_once_for_a_missing_group_column(tmp_path, capsys):
+    # No manifest: the workspace's own sessions table has no such column; the fix names
+    # --by and --manifest once each, with no Python argument names left in the message.
+    folder = make_workspace(tmp_path / "ws")
+    args = ["compare", str(folder), "--out", str(tmp_path / "out"), "--by", "housing"]
+    assert main(args) == 2
+    err = capsys.readouterr().err
+    assert "no grouping column 'housing'" in err and "Traceback" not in err
+    assert err.count("--manifest") == 1 and err.count("--by") == 1
+    assert "by=" not in err and "manifest=" not in err
 
 
 def test_csv_tables_are_rounded_to_what_the_measurement_supports(compared):

@@ -256,12 +256,16 @@ def _design(
     """``session, group, subject`` for every session of the workspace, checked."""
     if manifest is not None:
         table, source = read_manifest(manifest, require_paths=False), f"manifest {manifest}"
-        fix = f"Add a {by!r} column to it, or name another of its columns with by= (--by)"
+        fix = (
+            f"Add a {by!r} column to it, or name another of its columns: "
+            "pass by='COLUMN' (command line: --by COLUMN)"
+        )
     else:
         table, source = _sessions_table(ws), f"{ws.path / 'sessions.csv'}"
         fix = (
-            f"Give a manifest (manifest=, --manifest) with columns 'session' and {by!r}, or "
-            "name one of these columns with by= (--by)"
+            "Name the grouping column among these: pass by='COLUMN' (command line: --by COLUMN);"
+            " or give a manifest with columns 'session' and the groups: pass manifest='CSV' "
+            "(command line: --manifest CSV)"
         )
     if by not in table.columns:
         found = [c for c in table.columns if c != "path"]
