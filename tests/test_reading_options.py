@@ -293,6 +293,23 @@ def test_a_wide_table_says_when_a_confidence_is_ignored_and_maps_it(tmp_path):
     np.testing.assert_allclose(back.confidence[:, 0, 0], np.linspace(0.1, 0.9, 60))
 
 
+def test_a_misspelt_confidence_mapping_of_a_wide_table_is_refused(tmp_path):
+    # 'likelyhood' for 'likelihood': the file would be read without its confidence (no
+    # low-confidence masking) behind a warning; refused instead, naming the right word.
+    from ethoscribe.io import read_wide
+
+    t = _tracks(n=60)
+    cols = {}
+    for i, k in enumerate(t.keypoints):
+        cols[f"{k}_x"], cols[f"{k}_y"] = t.coords[:, 0, i, 0], t.coords[:, 0, i, 1]
+        cols[f"{k}_likelihood"] = np.linspace(0.1, 0.9, 60)
+    pd.DataFrame(cols).to_csv(tmp_path / "w.csv", index=False)
+    with pytest.raises(InputError, match=r"'likelyhood'.*confidence_axis='likelihood'"):
+        read_wide(tmp_path / "w.csv", fps=30, columns={"confidence": "likelyhood"})
+    back = read_wide(tmp_path / "w.csv", fps=30, columns={"confidence": "likelihood"})
+    np.testing.assert_allclose(back.confidence[:, 0, 0], np.linspace(0.1, 0.9, 60))
+
+
 def test_batch_tables_keep_the_input_frame_numbers(tmp_path):
     """Frames numbered from 1000 with frame 1005 dropped by the tracker: the label table,
     the bouts and the features keep those numbers, and 1005 is a gap, not renumbered."""

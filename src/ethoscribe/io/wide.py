@@ -175,7 +175,8 @@ def read_wide(
             coords[frames, i, j, axes.index(axis)] = values[column]
     has_conf = any(axis == confidence_axis for _, _, axis in found)
     if not has_conf:
-        _warn_lookalike(info, pattern, ignored, kp_names)
+        mapped = columns.get("confidence") if columns else None
+        _warn_lookalike(info, pattern, ignored, kp_names, mapped)
     return make_tracks(
         path,
         coords=coords,
@@ -322,9 +323,14 @@ def _mapped(
 
 
 def _warn_lookalike(
-    info: TableInfo, pattern: str, ignored: list[str], keypoints: list[str]
+    info: TableInfo, pattern: str, ignored: list[str], keypoints: list[str], mapped: str | None
 ) -> None:
-    """Name axis words of ignored columns that look like a confidence (one per keypoint)."""
+    """Name axis words of ignored columns that look like a confidence (one per keypoint).
+
+    When the caller mapped the confidence to an axis word (``mapped``) that no column has,
+    while another word's columns look like a confidence, the mapping is likely misspelt:
+    raise rather than read the file without its confidence.
+    """
     regex = re.compile(pattern_regex(pattern, ("AXISWORD",), None).pattern.replace(
         "AXISWORD", "[A-Za-z0-9]+"))  # fmt: skip
     words: dict[str, list[str]] = {}
@@ -340,6 +346,13 @@ def _warn_lookalike(
             f"pass confidence_axis={word!r} (command line: --columns confidence={word}) so "
             f"that columns like {looks[0]!r} are read as confidence"
         )
+        if mapped is not None:
+            msg = (
+                f"{info.path}: the confidence is mapped to the axis word {mapped!r}, but no "
+                f"column of the pattern {pattern!r} ends in it, while column(s) {looks} hold "
+                f"numbers in [0, 1] like a tracker's confidence. Check the spelling: {fix}"
+            )
+            raise InputError(msg)
         warn_unmapped_confidence(info, looks, fix)
 
 
