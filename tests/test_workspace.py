@@ -167,6 +167,22 @@ def test_edits_are_journaled_and_replayed(study, workspace, tmp_path):
     assert "resting" in set(pd.read_csv(cohort.path / "bouts.csv")["motif"])
 
 
+def test_names_given_from_python_reach_the_report_when_the_ethogram_is_saved(workspace, tmp_path):
+    # An edit rewrites the tables at once; the report (a page of figures) is rewritten when
+    # the ethogram is saved, as the README's Python example does.
+    import shutil
+
+    from ethoscribe.workspace import save_ethogram
+
+    ws = Workspace(shutil.copytree(workspace.path, tmp_path / "ws"))
+    ws.rename_motif("motif_01", "resting_renamed")
+    assert "resting_renamed" not in (ws.path / "report.html").read_text()
+    written = save_ethogram(ws.path)
+    assert written["report.html"] == ws.path / "report.html"
+    assert "resting_renamed" in (ws.path / "report.html").read_text()
+    assert "resting_renamed" in set(pd.read_csv(ws.path / "exports" / "bouts.csv")["motif"])
+
+
 def test_second_editor_gets_a_clear_message(workspace, tmp_path):
     import shutil
 

@@ -4,6 +4,7 @@ See :mod:`ethoscribe.workspace.folder` for the layout. This package is the only 
 """
 
 from ethoscribe.workspace.compare import compare, write_ethogram_report
+from ethoscribe.workspace.export import save_ethogram
 from ethoscribe.workspace.folder import Workspace, read_journal
 from ethoscribe.workspace.reading import read_sessions
 from ethoscribe.workspace.runs import discover, label_sessions
@@ -15,5 +16,6 @@ __all__ = [
     "label_sessions",
     "read_journal",
     "read_sessions",
+    "save_ethogram",
     "write_ethogram_report",
 ]
