@@ -26,6 +26,7 @@ from ethoscribe.features.saved import (
     pipeline_from_state,
     pipeline_state,
 )
+from ethoscribe.features.scale_check import warn_scale_outliers
 from ethoscribe.features.sets import FeatureSet
 from ethoscribe.filters import BAND_SMOOTHERS, derivative
 from ethoscribe.geometry import (
@@ -510,6 +511,8 @@ class FeaturePipeline(BaseEstimator):
         first = sessions[0]
         self._check_keypoints(tuple(first.keypoints))
         self._check_keypoints_seen(sessions)
+        if not self.scale_by_size:
+            warn_scale_outliers(sessions)
         self.keypoints_ = tuple(first.keypoints)
         self.n_dims_, self.units_ = first.n_dims, first.units
         rates = {s.fps for s in sessions}
