@@ -213,3 +213,17 @@ def test_an_unwritable_out_is_one_line_and_exit_2(study, tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 2 and err.count("\n") == 1 and "error:" in err, err
     assert target.read_text() == "mine"
+
+
+def test_every_command_says_what_it_does_with_an_example_and_every_option_has_help():
+    import argparse
+
+    from ethoscribe.cli import build_parser
+
+    parser = build_parser()
+    [commands] = [a for a in parser._actions if isinstance(a, argparse._SubParsersAction)]
+    for name, sub in commands.choices.items():
+        assert sub.description, f"'ethoscribe {name} --help' has no description"
+        assert sub.epilog and sub.epilog.startswith("example:"), f"{name}: no example"
+        for action in sub._actions:
+            assert action.help, f"ethoscribe {name} {action.option_strings or action.dest}"

@@ -29,6 +29,11 @@ EXAMPLES = {
     "compare": """example:
   ethoscribe compare results --out results/comparison --primary time_budget:digging
   ethoscribe compare results --by condition --paired --out results/by_condition""",
+    "agreement": """example:
+  ethoscribe agreement results coding.csv --out results/agreement""",
+    "learn": """example:
+  ethoscribe learn results coding.csv
+  ethoscribe label results new_cohort/ --out new_results   # then: the expert's names""",
     "simulate": """example:
   ethoscribe simulate --out my_example --sessions 4 --duration 120""",
 }
@@ -196,7 +201,9 @@ def _add_reading_options(p: argparse.ArgumentParser) -> None:
     r.add_argument(
         "--columns",
         type=_mapping("--columns"),
-        help="tidy tables: which column holds what, e.g. confidence=likelihood,x=pos_x",
+        help="which column holds what: tidy tables name columns, e.g. "
+        "confidence=likelihood,x=pos_x; wide tables the word after the keypoint, e.g. "
+        "confidence=likelihood for 'nose_likelihood'",
     )
     r.add_argument(
         "--containers",
@@ -462,7 +469,15 @@ def _reader_options(args: argparse.Namespace) -> dict[str, Any]:
 
 
 def _add_expert_commands(sub: argparse._SubParsersAction) -> None:
-    a = sub.add_parser("agreement", help="compare the motifs with an expert's coding")
+    a = sub.add_parser(
+        "agreement",
+        help="compare the motifs with an expert's coding",
+        description="Measure how the discovered motifs match an expert's coding of some "
+        "sessions (ARI, NMI, matched accuracy, boundary F1, confusion, per behaviour); write "
+        "agreement.json, confusion.csv, per_behaviour.csv and report.html into --out.",
+        epilog=EXAMPLES["agreement"],
+        formatter_class=_Examples,
+    )
     a.add_argument("workspace", type=Path, help="folder written by 'ethoscribe discover'")
     a.add_argument(
         "expert", type=Path, help="CSV/Parquet coding: session,frame,behaviour or "
@@ -473,13 +488,21 @@ def _add_expert_commands(sub: argparse._SubParsersAction) -> None:
         "--tolerance-s", type=float, default=0.2,
         help="how far apart boundaries may be and still match (seconds, default 0.2)",
     )  # fmt: skip
-    le = sub.add_parser("learn", help="learn an expert's behaviours from coded sessions")
+    le = sub.add_parser(
+        "learn",
+        help="learn an expert's behaviours from coded sessions",
+        description="Fit a classifier of an expert's behaviours on the coded sessions (scored "
+        "leave-one-session-out), save it in the workspace's learned/ folder and rewrite the "
+        "ethogram tables with the expert's behaviour names; 'ethoscribe label' then uses them.",
+        epilog=EXAMPLES["learn"],
+        formatter_class=_Examples,
+    )
     le.add_argument("workspace", type=Path, help="folder written by 'ethoscribe discover'")
     le.add_argument("expert", type=Path, help="CSV/Parquet coding (as for agreement)")
     le.add_argument(
         "--no-evaluation", action="store_true", help="skip the leave-one-session-out scores"
     )
-    le.add_argument("--seed", type=int, default=0)
+    le.add_argument("--seed", type=int, default=0, help="random seed of the classifier (default 0)")
 
 
 def _add_batch_options(p: argparse.ArgumentParser) -> None:
