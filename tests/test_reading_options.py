@@ -227,6 +227,12 @@ def test_manifest_rows_are_found_by_path_and_name_the_session(tmp_path):
     write_tidy(_tracks(), tmp_path / "other.parquet")
     with pytest.raises(InputError, match=r"other\.parquet: this file is not in the manifest"):
         plan_sessions([tmp_path / "other.parquet"], tmp_path / "manifest.csv")
+    # A second manifest kept in the folder of the tracks: the message says how to go on.
+    (tmp_path / "other.parquet").unlink()
+    (tmp_path / "manifest_v2.csv").write_bytes((tmp_path / "manifest.csv").read_bytes())
+    with pytest.raises(InputError, match=r"manifest_v2\.csv: .*move the file out.*manifest alone"):
+        plan_sessions([tmp_path], tmp_path / "manifest.csv")
+    assert len(plan_sessions(None, tmp_path / "manifest_v2.csv")) == 2
 
 
 @pytest.mark.parametrize(

@@ -117,7 +117,9 @@ def plan_sessions(
         if table is not None and row is None and paths:
             raise InputError(
                 f"{path}: this file is not in the manifest {source}; add a row whose path is "
-                "this file (its session column then names the session)"
+                "this file (its session column then names the session), move the file out of "
+                "the folder if it holds no tracks (another manifest, notes), or give the "
+                "manifest alone, with no files or folders: its path column lists the sessions"
             )
         name = Path(path).stem if row is None else str(row["session"])
         extra = (
