@@ -28,3 +28,21 @@ def test_grades_use_the_weaker_agreement_and_flag_low_split_halves():
         type("R", (), {"table": out, "summary": {}})(), {0: "digging", 1: "walking"}
     )
     assert list(fig.data[0].x[:3]) == ["digging", "walking", "motif_03"]  # one numbering
+
+
+def test_merged_motifs_keep_one_bar_per_fitted_state():
+    # Two states merged under one name: each keeps its own bar (a shared category stacked
+    # both bars above 1 in the report) and its own row, told apart by the state number.
+    table = pd.DataFrame(
+        {
+            "state": [0, 1, 2],
+            "jaccard_seeds_mean": [0.99, 0.94, 0.99],
+            "jaccard_seeds_min": [0.98, 0.93, 0.98],
+            "jaccard_halves": [0.97, 0.81, 0.89],
+        }
+    )
+    names = {0: "rest", 1: "scan", 2: "scan"}
+    fig = stability_figure(type("R", (), {"table": table, "summary": {}})(), names)
+    labels = list(fig.data[0].x)
+    assert labels == ["rest", "scan (state 1)", "scan (state 2)"]
+    assert len(set(labels)) == len(table) and list(fig.data[1].x) == labels

@@ -98,6 +98,24 @@ def _criterion_words(selection: Any) -> str:
     )
 
 
+def state_labels(states: Any, names: dict[int, str] | None = None) -> list[str]:
+    """One label per fitted state: its motif name, with the state number where merged motifs
+    share a name (stability is measured per fitted state, so each keeps its own bar and row).
+
+    Examples
+    --------
+    >>> state_labels([0, 1, 2], {0: "rest", 1: "scan", 2: "scan"})
+    ['rest', 'scan (state 1)', 'scan (state 2)']
+    >>> state_labels([0, 1])
+    ['motif_01', 'motif_02']
+    """
+    states = [int(s) for s in states]
+    named = [(names or {}).get(s, f"motif_{s + 1:02d}") for s in states]
+    return [
+        f"{n} (state {s})" if named.count(n) > 1 else n for s, n in zip(states, named, strict=True)
+    ]
+
+
 def stability_figure(report: Any, names: dict[int, str] | None = None) -> go.Figure:
     """Per-state Jaccard agreement between seeds and between split halves, threshold marked.
 
@@ -121,7 +139,7 @@ def stability_figure(report: Any, names: dict[int, str] | None = None) -> go.Fig
     2
     """
     table, summary = report.table, report.summary
-    names = [(names or {}).get(int(s), f"motif_{int(s) + 1:02d}") for s in table["state"]]
+    names = state_labels(table["state"], names)
     mean = table["jaccard_seeds_mean"].to_numpy(dtype=float)
     low = mean - table["jaccard_seeds_min"].to_numpy(dtype=float)
     fig = go.Figure()

@@ -30,7 +30,7 @@ from ethoscribe.plots.ethogram import (
     transition_diagram,
     transition_heatmap,
 )
-from ethoscribe.plots.model import stability_figure, state_count_figure
+from ethoscribe.plots.model import stability_figure, state_count_figure, state_labels
 from ethoscribe.plots.quality import BARS, quality_figure
 from ethoscribe.plots.stats import group_difference_figure, planned_values_figure
 from ethoscribe.report import Section
@@ -149,7 +149,7 @@ def model_section(ws: Workspace) -> Section:
         names = _state_names(ws)
         per_state = reproducibility_grades(pd.read_csv(path))
         figures.append(stability_figure(SimpleNamespace(table=per_state, summary=stability), names))
-        per_state.insert(0, "motif", [names.get(int(s), "") for s in per_state["state"]])
+        per_state.insert(0, "motif", state_labels(per_state["state"], names))
         low = per_state.loc[per_state["grade"] == "low", "motif"].tolist()
         text += (
             f" Reproducibility per motif is graded on the weaker of two Jaccard agreements, "
