@@ -11,7 +11,7 @@ import time
 
 import pytest
 
-from _reliability_data import run_discover, write_study
+from _reliability_data import N_STATES, run_discover, write_study
 from ethoscribe.errors import InputError
 from ethoscribe.workspace import label_sessions
 
@@ -26,6 +26,27 @@ def test_pixels_for_a_millimetre_model_are_refused_before_any_work(tmp_path):
                        progress=False)  # fmt: skip
     assert time.perf_counter() - start < 10
     assert not (tmp_path / "new").exists()  # nothing left behind
+
+
+def test_files_already_in_the_models_units_are_told_how_to_say_so(tmp_path):
+    # Tracks exported in mm with no manifest are read as pixels; the refusal says how to
+    # declare their units, on the command line too.
+    from ethoscribe.cli import command_line_message
+    from ethoscribe.workspace import discover
+
+    study = write_study(tmp_path / "study")
+    ws = run_discover(study, tmp_path / "ws")
+    with pytest.raises(InputError, match=r"in 'mm'.*in 'px'") as mm_model:
+        label_sessions(ws.path, [study], tmp_path / "new", reader_options={"units": "mm"},
+                       progress=False)  # fmt: skip
+    assert "already in" not in str(mm_model.value)  # the model is in px: nothing to declare
+    mm_ws = discover([study], tmp_path / "ws_mm", states=N_STATES, stability=False,
+                     progress=False, reader_options={"units": "mm"})  # fmt: skip
+    with pytest.raises(InputError, match=r"in 'px' but .* in 'mm'") as caught:
+        label_sessions(mm_ws.path, [study], tmp_path / "new", progress=False)
+    text = command_line_message(str(caught.value))
+    assert "Files already in mm" in text and "--reader-option units=mm" in text
+    assert "reader_options" not in text
 
 
 def test_other_dimensions_and_rates_are_refused_with_the_fix(tmp_path):

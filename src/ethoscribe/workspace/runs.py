@@ -569,6 +569,14 @@ def _check_units(plan: Sequence[dict[str, Any]], model: BehaviourModel) -> None:
                 f"{entry['path']}: coordinates in '{units}' but the model was fitted on tracks "
                 f"in '{wanted}'; give this cohort's calibration in its manifest (columns "
                 f"px_per_unit and units, as for discovery), or write the files in {wanted}"
+                + (
+                    f". Files already in {wanted} (read as pixels when nothing says otherwise): "
+                    f"a manifest column units={wanted} with px_per_unit left empty, or pass "
+                    f"reader_options={{'units': '{wanted}'}} "
+                    f"(command line: --reader-option units={wanted})"
+                    if units == "px"
+                    else ""
+                )
             )
             raise InputError(msg)
 
