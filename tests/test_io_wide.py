@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io import read_pose, read_wide
 from ethoscribe.io.wide import pattern_regex
 
@@ -33,7 +33,8 @@ def _save(df, folder, name="w.csv"):
 
 @pytest.mark.parametrize("name", ["w.csv", "w.parquet"])
 def test_default_pattern(tmp_path, name):
-    t = read_wide(_save(_wide(), tmp_path, name), fps=30)
+    with pytest.warns(InputWarning, match=r"'frame' looks like frame numbers \(50 to 54"):
+        t = read_wide(_save(_wide(), tmp_path, name), fps=30)  # rows are frames 0, 1, ...
     assert t.keypoints == ("nose", "left_ear", "tail_base")  # underscores inside names are fine
     assert t.coords.shape == (5, 1, 3, 2) and t.session == "w" and t.animals == ("animal0",)
     assert t.coords[3, 0, 1].tolist() == [4.0, -4.0]
@@ -152,7 +153,7 @@ def test_non_numeric_cell_and_bad_confidence(tmp_path):
         InputError, match="column 'nose_y' must hold numbers, but line 4 has 'lost'"
     ):
         read_wide(_save(df, tmp_path), fps=30)
-    df = _wide()
+    df = _wide().drop(columns="frame")
     df.loc[1, "left_ear_confidence"] = 1.5
     with pytest.raises(InputError, match=r"'left_ear_confidence' must lie in \[0, 1\]; line 3"):
         read_wide(_save(df, tmp_path), fps=30)
@@ -174,3 +175,23 @@ def test_duplicate_column_names(tmp_path):
     p.write_text("nose_x,nose_y,nose_x\n1,2,3\n4,5,6\n")
     with pytest.raises(InputError, match=r"column names must be unique; repeated: \['nose_x'\]"):
         read_wide(p, fps=30)
+
+
+def test_an_ignored_column_of_frame_numbers_with_gaps_is_named(tmp_path):
+    # A tracker's own numbering (from 500, frames 503-505 dropped) in a column the reader was
+    # not told about: rows are consecutive frames, so the gap would close up unseen.
+    df = _wide(n=10, conf=False).rename(columns={"frame": "frame_idx"})
+    df["frame_idx"] = [500, 501, 502, 506, 507, 508, 509, 510, 511, 512]
+    p = _save(df, tmp_path)
+    with pytest.warns(InputWarning, match=r"'frame_idx'.*500 to 512, 3 skipped.*--frame-column"):
+        assert read_wide(p, fps=30).n_frames == 10
+    t = read_wide(p, fps=30, frame_column="frame_idx")
+    assert t.n_frames == 13 and t.meta["first_frame"] == 500
+    assert np.isnan(t.coords[3:6]).all()  # the dropped frames are gaps
+    # Numbers equal to the row order change nothing: no warning.
+    df["frame_idx"] = np.arange(10)
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        read_wide(_save(df, tmp_path, "same.csv"), fps=30)

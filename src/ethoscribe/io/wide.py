@@ -9,12 +9,13 @@ from __future__ import annotations
 
 import os
 import re
+import warnings
 from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 
-from ethoscribe.errors import InputError, listed
+from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._tables import (
     TableInfo,
     check_confidence,
@@ -159,6 +160,8 @@ def read_wide(
     if time_column is not None:
         values[time_column] = seconds(values[time_column], time_unit, info.path)
     frames, fps, extra = _frames(info, values, fps, frame_column, time_column, time_unit)
+    if not timing:
+        _warn_frame_lookalike(info, ignored)
     n_frames = int(frames[-1]) + 1
     timing_column = frame_column or time_column or "row order"
     check_frame_span(n_frames, len(frames), extra["first_frame"], info.path, timing_column)
@@ -354,6 +357,35 @@ def _warn_lookalike(
             )
             raise InputError(msg)
         warn_unmapped_confidence(info, looks, fix)
+
+
+_FRAME_WORDS = re.compile(r"frame|idx|index", re.IGNORECASE)
+
+
+def _warn_frame_lookalike(info: TableInfo, ignored: list[str]) -> None:
+    """Rows are read as consecutive frames; say so when an ignored column named like a frame
+    number holds increasing whole numbers that do not start at 0 or skip frames (a tracker's
+    own numbering, whose gaps would otherwise close up and shift every later frame)."""
+    for column in [c for c in ignored if _FRAME_WORDS.search(str(c))][:3]:
+        try:
+            values, _ = read_columns(info, [column], [])
+        except InputError:  # text, or unreadable: not frame numbers
+            continue
+        v = values[column]
+        if v.size < 2 or not np.isfinite(v).all() or (v != np.round(v)).any():
+            continue
+        steps = np.diff(v)
+        if (steps <= 0).any() or (v[0] == 0 and (steps == 1).all()):
+            continue  # not frame numbers, or the same as the row order
+        skipped = int((steps - 1).sum())
+        msg = (
+            f"{info.path}: column '{column}' looks like frame numbers ({v[0]:.0f} to "
+            f"{v[-1]:.0f}, {skipped} skipped) but rows are read as consecutive frames from "
+            f"0; to keep its numbering and gaps pass frame_column='{column}' "
+            f"(command line: --frame-column {column})"
+        )
+        warnings.warn(msg, InputWarning, stacklevel=3)
+        return
 
 
 def _increasing(info: TableInfo, values: np.ndarray, column: str) -> None:
