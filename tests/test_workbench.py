@@ -358,6 +358,29 @@ def test_group_comparison_and_its_errors(wb, folder):
     assert kind == "error" and "single session" in text
 
 
+def test_what_a_run_records_about_each_session_is_not_offered_as_a_grouping(folder):
+    # Reading options that differ between sessions (one calibrated by px_per_unit, the others
+    # already in mm) were offered first under "Group by", ahead of the study's own column.
+    from ethoscribe.io import from_arrays
+    from ethoscribe.widgets.state import TECHNICAL_COLUMNS
+    from ethoscribe.workspace.reading import session_row
+
+    table = pd.read_csv(folder / "sessions.csv")
+    table["reader_options"] = ['{"units": "mm"}', "{}"] * (len(table) // 2)
+    table["first_frame"] = [0, 100] * (len(table) // 2)
+    table["format"] = ["tidy", "wide"] * (len(table) // 2)
+    table["track_joins"] = ["[]", "[[0, 1]]"] * (len(table) // 2)
+    table.to_csv(folder / "sessions.csv", index=False)
+    bench = Workbench(folder, write_behind=False)
+    try:
+        assert bench.groups.by.options == ("group",)
+    finally:
+        bench.close()
+    tracks = from_arrays(np.zeros((3, 2, 2)), fps=30.0, session="s")
+    row = session_row({"meta": {}, "path": "s.csv", "format": "tidy", "options": {}}, tracks)
+    assert set(row) <= TECHNICAL_COLUMNS  # every recorded column, now and when one is added
+
+
 def test_save_writes_exports_and_report(wb, folder):
     wb.state.select_motif("motif_01")
     _rename(wb, "resting_like")

@@ -36,7 +36,7 @@ from ethoscribe.workspace.browsing import (
 from ethoscribe.workspace.edit_worker import TableWriter
 from ethoscribe.workspace.export import save_ethogram
 from ethoscribe.workspace.postures import PostureLibrary
-from ethoscribe.workspace.reading import LABELLED_FPS, LABELLED_FRAMES
+from ethoscribe.workspace.reading import RECORDED_COLUMNS
 from ethoscribe.workspace.video import VideoFrames, video_file
 
 SORT_KEYS = {
@@ -46,20 +46,8 @@ SORT_KEYS = {
     "stability": "stability",
     "name": "motif",
 }
-TECHNICAL_COLUMNS = {
-    "session",
-    "source",
-    "path",
-    "fps",
-    "n_frames",
-    LABELLED_FPS,
-    LABELLED_FRAMES,
-    "duration_s",
-    "n_animals",
-    "units",
-    "px_per_unit",
-    "video",
-}
+# What a run records about each session, and the manifest's columns that are not groupings.
+TECHNICAL_COLUMNS = {*RECORDED_COLUMNS, "path", "px_per_unit", "video"}
 
 
 class WorkbenchState(CurationEdits):

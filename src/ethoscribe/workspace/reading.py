@@ -220,6 +220,12 @@ def read_planned(entry: dict[str, Any]) -> PoseTracks:
 # session and animal. ``fps`` and ``n_frames`` stay as read from the file.
 LABELLED_FPS = "labelled_fps"
 LABELLED_FRAMES = "n_labelled_frames"
+RECORDED_COLUMNS = (
+    "session", "source", "fps", "n_frames", LABELLED_FPS, LABELLED_FRAMES, "duration_s",
+    "n_animals", "units", "first_frame", "track_joins", "format", "reader_options",
+)  # fmt: skip
+"""Columns of ``sessions.csv`` that a run records about every session (beside the manifest's
+own columns): facts of reading, never a grouping of the study."""
 
 
 def session_row(entry: dict[str, Any], tracks: PoseTracks) -> dict[str, Any]:
