@@ -367,3 +367,34 @@ def test_a_manifest_read_as_a_pose_table_says_to_give_it_as_the_manifest(tmp_pat
     with pytest.raises(InputError, match=r"manifest\.csv: .*looks like a session manifest.*"
                        r"--manifest .*manifest\.csv"):  # fmt: skip
         read_tidy(path, fps=30)
+
+
+def test_a_wide_table_read_as_tidy_is_told_every_option_it_needs(tmp_path):
+    # A tracker's wide export (frame_idx, nose_x, nose_y, nose_likelihood, ...): the refusal
+    # names the pattern, the confidence word and the frame column in one go, and reading with
+    # them works (seed 0).
+    from ethoscribe.cli import command_line_message
+    from ethoscribe.io import read_wide
+
+    rng = np.random.default_rng(0)
+    table = pd.DataFrame({"frame_idx": np.arange(20) + 7})
+    for k in ("nose", "tail_base"):
+        table[f"{k}_x"], table[f"{k}_y"] = rng.normal(size=(2, 20))
+        table[f"{k}_likelihood"] = rng.uniform(0.2, 1.0, 20)
+    path = tmp_path / "export.csv"
+    table.to_csv(path, index=False)
+    with pytest.raises(InputError, match="look like a wide table") as caught:
+        read_tidy(path, fps=30)
+    text = command_line_message(str(caught.value))
+    assert (
+        "pass --format wide --pattern '{keypoint}_{axis}' --columns confidence=likelihood "
+        "--frame-column frame_idx;" in text
+    )
+    t = read_wide(path, fps=30, confidence_axis="likelihood", frame_column="frame_idx")
+    assert t.meta["first_frame"] == 7
+    np.testing.assert_allclose(t.confidence[:, 0, 0], table["nose_likelihood"])
+    # Without such columns the plain advice stays.
+    plain = table.drop(columns=["frame_idx", "nose_likelihood", "tail_base_likelihood"])
+    plain.to_csv(path, index=False)
+    with pytest.raises(InputError, match=r"--pattern '\{keypoint\}_\{axis\}'\); the tables"):
+        read_tidy(path, fps=30)

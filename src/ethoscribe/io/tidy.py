@@ -106,11 +106,12 @@ def read_tidy(
     lower = {str(c).strip().lower() for c in info.columns}
     time_col = "frame" if "frame" in info.columns or "time" not in lower else "time"
     if "keypoint" not in info.columns and _looks_wide(info.columns):
+        python, cli = _wide_extras(info)
         raise InputError(
             f"{info.path}: no 'keypoint' column, but columns such as {_looks_wide(info.columns)} "
             "look like a wide table (one row per frame); pass format='wide', "
-            "pattern='{keypoint}_{axis}' (command line: --format wide --pattern "
-            "'{keypoint}_{axis}'); the tables of one run must all be tidy or all wide"
+            f"pattern='{{keypoint}}_{{axis}}'{python} (command line: --format wide --pattern "
+            f"'{{keypoint}}_{{axis}}'{cli}); the tables of one run must all be tidy or all wide"
         )
     require_columns(info, [time_col, "keypoint", "x", "y"], "a tidy pose table")
     if fps is None:
@@ -179,6 +180,33 @@ def _looks_wide(columns: tuple[str, ...]) -> list[str]:
             stems.setdefault(head, []).append(str(c))
     both = [cols for cols in stems.values() if len(cols) >= 2]
     return [c for cols in both for c in cols][:3] if len(both) >= 2 else []
+
+
+_FRAME_WORDS = ("frame", "idx", "index")
+
+
+def _wide_extras(info: TableInfo) -> tuple[str, str]:
+    """The rest of a wide table's reading options, as Python and command-line text: the word
+    after the keypoint whose columns hold a confidence (``nose_likelihood``), and a column
+    named like frame numbers."""
+    stems = {str(c).rpartition("_")[0] for c in _looks_wide(info.columns)}
+    words: dict[str, list[str]] = {}
+    for c in info.columns:
+        head, _, word = str(c).rpartition("_")
+        if head in stems and word.lower() not in ("x", "y", "z", "confidence"):
+            words.setdefault(word, []).append(str(c))
+    python, cli = "", ""
+    for word, cols in words.items():
+        if len(cols) == len(stems) and confidence_lookalikes(
+            info, [c for c in info.columns if c != cols[0]]
+        ):
+            python, cli = f", confidence_axis='{word}'", f" --columns confidence={word}"
+            break
+    frame = [c for c in info.columns if any(w in str(c).lower() for w in _FRAME_WORDS)]
+    if len(frame) == 1:
+        python += f", frame_column='{frame[0]}'"
+        cli += f" --frame-column {frame[0]}"
+    return python, cli
 
 
 def _scatter(
