@@ -247,7 +247,8 @@ def _bad_manifest(tmp_path: Path, case: str) -> tuple[dict, str]:
         return {"manifest": write_manifest(tmp_path / "m.csv", groups)}, "single session"
     if case == "session missing from manifest":
         del groups["005"]
-        return {"manifest": write_manifest(tmp_path / "m.csv", groups)}, "missing from it: '005'"
+        expected = r"missing from it: '005'.*sessions\.csv.*keep its row with the group empty"
+        return {"manifest": write_manifest(tmp_path / "m.csv", groups)}, expected
     if case == "session missing from workspace":
         groups["099"] = "control"
         return {"manifest": write_manifest(tmp_path / "m.csv", groups)}, "lacks: '099'"

@@ -311,8 +311,14 @@ def _check_coverage(design: pd.DataFrame, labels: pd.DataFrame, source: str, ws:
             f"sessions in it that the workspace {ws.path} lacks: {listed(map(repr, extra), 10)}"
         )
     if problems:
-        msg = f"{source} does not match the workspace: {'; '.join(problems)}. The session column "
-        raise InputError(msg + "must list the pose file names (without suffix) discovery read.")
+        msg = (
+            f"{source} does not match the workspace: {'; '.join(problems)}. The session column "
+            f"must list the sessions as discovery named them (the 'session' column of "
+            f"{ws.path / 'sessions.csv'})"
+        )
+        if missing:
+            msg += "; to leave a session out of the comparison, keep its row with the group empty"
+        raise InputError(msg + ".")
 
 
 # --- outputs ------------------------------------------------------------------------------
