@@ -47,10 +47,12 @@ def _digest(states: np.ndarray) -> str:
 # of its state means by default (commit "Per-session offsets in the HMM by default ..."): the
 # labels without offsets are kept in PLAIN_HMM; and once when the HMM's EM began on thinned
 # frames by default (commit "EM on frames thinned to 15 per second by default ..."): the labels
-# with offsets and without thinning are kept in OFFSETS_HMM. Update only for an intended
-# change, naming it.
+# with offsets and without thinning are kept in OFFSETS_HMM; and once when the model's HMM
+# fits took a covariance floor of 0.01 (commit "A covariance floor of 0.01 ..."): the earlier
+# defaults are checked with the class's floor, 1e-3. Update only for an intended change,
+# naming it.
 RECORDED = {
-    "hmm": "1e18980779e2e237",
+    "hmm": "013787138110bb64",
     "changepoint": "1d7eb01141770771",
     "prediction_error": "4a720ad1951d2d00",
 }
@@ -65,7 +67,7 @@ OFFSETS_HMM = "41baae9fd6a3cac6"  # with session offsets, EM on every frame (bef
     [({"session_offsets": False}, PLAIN_HMM), ({}, OFFSETS_HMM)],
 )
 def test_labels_of_earlier_defaults_are_unchanged(sessions, options, recorded):
-    extra = {**QUICK, **options, "fit_rate": None}
+    extra = {**QUICK, **options, "fit_rate": None, "min_covar": 1e-3}
     model = BehaviourModel(n_states=3, segmenter=extra, random_state=7)
     assert _digest(model.fit(sessions).label(sessions)["state"].to_numpy()) == recorded
 

@@ -162,7 +162,10 @@ def test_label_sessions_records_the_shares_and_flags_larger_animals(tmp_path):
     fit = json.loads((tmp_path / "new" / "summary.json").read_text())["fit_to_model"]
     assert fit["checked"] and fit["flagged"] == ["big"]
     shares = {r["session"]: r["share"] for r in fit["sessions"]}
-    assert shares["big"] > POOR_FIT_WARN_SHARE > shares["same"]
+    # Since the model's covariance floor of 0.01, 9 % of the larger animal's frames fall below
+    # the threshold (1.4 % of the training session's), under the 10 % share that warns by
+    # itself: it is flagged by its offset, beyond what the training individuals would show.
+    assert shares["big"] > 5 * shares["same"] and shares["same"] < POOR_FIT_WARN_SHARE
 
 
 def test_label_sessions_with_a_model_saved_before_the_threshold(tmp_path):

@@ -75,7 +75,7 @@ def test_discover_writes_the_documented_files(workspace):
     assert "animal-welfare" in summary["caution"]
     # What the run was made with: the fitting sample's budget and the covariance floor.
     assert summary["fit_frames"] == 1_000_000
-    assert summary["covariance_floor"] == pytest.approx(1e-3)
+    assert summary["covariance_floor"] == pytest.approx(0.01)  # the model's HMM option
     # Per-individual offsets (the HMM's default): their spread, relative to a state's own
     model = Workspace(p).model()
     spread = summary["individual_offsets"]["relative_spread"]
