@@ -132,7 +132,11 @@ def jump_pass(x, partner, max_step, forward):
 # assignment costs the squared displacement of the assigned points divided by the frames elapsed;
 # state 1 also costs ``prior * separation^2`` per frame, so labels are overridden only when
 # continuity clearly says so and a wrong choice cannot persist. A lone point (its partner unseen)
-# goes to the side whose last assigned position it continues best, on the same costs.
+# goes to the side whose last assigned position it continues best, on the same costs, but only
+# while the other side was seen at most ``max_age`` frames ago: the divisor of that side's cost
+# grows with its age, so a side lost for seconds would attract every lone point, and each
+# exchange refreshes the slot it fills, so the tracker's one point would be kept in the lost
+# slot for the rest of the loss (missing data moved from one keypoint to the other).
 @njit(cache=True)
 def _swap_link(xa, li, ri, prev, dt):
     """(cost keeping the state, cost changing it) from the last both-seen frame ``prev`` (2, D)."""
@@ -142,12 +146,13 @@ def _swap_link(xa, li, ri, prev, dt):
 
 
 @njit(cache=True)
-def _lone(xa, o, side, t, last, last_t, prior):
+def _lone(xa, o, side, t, last, last_t, prior, max_age):
     """True if lone point ``o`` labelled ``side`` continues the other side better.
 
     ``last`` (2, D) and ``last_t`` (2,) are the last assigned positions of the sides and frames.
+    A point whose other side was last seen more than ``max_age`` frames ago keeps its label.
     """
-    if last_t[0] < 0 or last_t[1] < 0:
+    if last_t[0] < 0 or last_t[1] < 0 or t - last_t[1 - side] > max_age:
         return False
     keep = _dist2(xa, o, last, side) / (t - last_t[side])
     cross = _dist2(xa, o, last, 1 - side) / (t - last_t[1 - side])
@@ -169,13 +174,14 @@ def _assign(xa, ca, li, ri, exchange, t, last, last_t):
 
 
 @njit(cache=True)
-def swap_frame(xf, cf, t, pairs, prior, cost, prev, prev_t, last, last_t, swapped):
+def swap_frame(xf, cf, t, pairs, prior, max_age, cost, prev, prev_t, last, last_t, swapped):
     """Causal swap repair of one frame: decide by the forward costs so far (no look-ahead).
 
     ``xf`` (A, K, D), ``cf`` (A, K) changed in place; state per animal and pair: ``cost``
     (A, P, 2) forward costs of the two states, ``prev`` (A, P, 2, D) the labelled points of the
     last frame with both seen, ``prev_t`` (A, P) its frame (-1: none), ``last`` (A, P, 2, D) and
-    ``last_t`` (A, P, 2) the last assigned position of each side. ``swapped`` (A, P) out.
+    ``last_t`` (A, P, 2) the last assigned position of each side. ``max_age``: see ``_lone``.
+    ``swapped`` (A, P) out.
     """
     for a in range(xf.shape[0]):
         xa = xf[a]
@@ -198,16 +204,19 @@ def swap_frame(xf, cf, t, pairs, prior, cost, prev, prev_t, last, last_t, swappe
                 prev_t[a, p] = t
                 exchange = c1 < c0
             elif ol:
-                exchange = _lone(xa, li, 0, t, last[a, p], last_t[a, p], prior)
+                exchange = _lone(xa, li, 0, t, last[a, p], last_t[a, p], prior, max_age)
             elif orr:
-                exchange = _lone(xa, ri, 1, t, last[a, p], last_t[a, p], prior)
+                exchange = _lone(xa, ri, 1, t, last[a, p], last_t[a, p], prior, max_age)
             swapped[a, p] = exchange
             _assign(xa, cf[a], li, ri, exchange, t, last[a, p], last_t[a, p])
 
 
 @njit(cache=True)
-def swap_pass(x, c, pairs, prior):
-    """Swap repair of a whole recording in place (Viterbi path); returns swapped (F, A, P)."""
+def swap_pass(x, c, pairs, prior, max_age):
+    """Swap repair of a whole recording in place (Viterbi path); returns swapped (F, A, P).
+
+    ``max_age``: frames since the other side was seen beyond which a lone point keeps its label.
+    """
     n_frames, n_animals, _, n_dims = x.shape
     swapped = np.zeros((n_frames, n_animals, pairs.shape[0]), np.bool_)
     back = np.zeros((n_frames, 2), np.int8)
@@ -246,9 +255,9 @@ def swap_pass(x, c, pairs, prior):
                 if ol and orr:
                     exchange = state[t] == 1
                 elif ol:
-                    exchange = _lone(x[t, a], li, 0, t, last, last_t, prior)
+                    exchange = _lone(x[t, a], li, 0, t, last, last_t, prior, max_age)
                 elif orr:
-                    exchange = _lone(x[t, a], ri, 1, t, last, last_t, prior)
+                    exchange = _lone(x[t, a], ri, 1, t, last, last_t, prior, max_age)
                 swapped[t, a, p] = exchange
                 _assign(x[t, a], c[t, a], li, ri, exchange, t, last, last_t)
     return swapped
@@ -307,7 +316,9 @@ def _trailing_frame(xf, t, ring, run, kind, coef, buf):
 
 
 @njit(cache=True)
-def causal_block(x, c, t0, min_conf, max_step, partner, pairs, prior, max_hold, kind, coef, state):
+def causal_block(
+    x, c, t0, min_conf, max_step, partner, pairs, prior, max_age, max_hold, kind, coef, state
+):
     """All causal steps on frames ``t0 ..`` of ``x`` (n, A, K, D) and ``c`` (n, A, K), in place.
 
     ``state`` is the tuple ``CausalState`` keeps. Steps off: ``min_conf < 0``, ``max_step < 0``,
@@ -341,7 +352,9 @@ def causal_block(x, c, t0, min_conf, max_step, partner, pairs, prior, max_hold, 
                         _clear_row(xf[a], k)
                         flags[i, a, k] |= FLAG_JUMP
         if pairs.shape[0] > 0:
-            swap_frame(xf, cf, t, pairs, prior, cost, prev, prev_t, last, last_t, swapped[i])
+            swap_frame(
+                xf, cf, t, pairs, prior, max_age, cost, prev, prev_t, last, last_t, swapped[i]
+            )
         if max_hold > 0:
             _hold_frame(xf, cf, t, held, held_t, max_hold, flags[i])
         if kind != SMOOTH_OFF:
@@ -357,6 +370,7 @@ class CausalSettings(NamedTuple):
     partner: np.ndarray
     pairs: np.ndarray
     prior: float
+    max_age: int
     max_hold: int
     kind: int
     coef: np.ndarray
@@ -394,6 +408,7 @@ class CausalState:
             s.partner,
             s.pairs,
             s.prior,
+            s.max_age,
             s.max_hold,
             s.kind,
             s.coef,

@@ -20,6 +20,12 @@ AUTO_SPEED_QUANTILE, AUTO_SPEED_FACTOR = 0.99, 2.0
 # separation; an exchange costs ~2 separations^2 of displacement at each end, so exchanges of up
 # to ~4 / SWAP_PRIOR_PER_S = 10 s are repaired in batch (half that causally).
 SWAP_PRIOR_PER_S = 0.4
+# A lone point of a pair (its partner unseen) is given to the side whose last position it
+# continues best only while the other side was seen at most this long ago. Unseen for longer, a
+# side's position is unknown (0.5 s is also the longest gap cleaning fills by default), yet its
+# cost, divided by the time elapsed, tends to zero: a foot lost for seconds drew the other foot
+# into its slot for the rest of the loss, moving the missing frames from one keypoint to the other.
+SWAP_LONE_MAX_AGE_S = 0.5
 
 
 def _positive(name: str, value: Any, allow_zero: bool = False) -> float:
@@ -189,6 +195,11 @@ def _fps(fps: Any) -> float:
 
 def _gap_frames(max_gap_s: float, fps: float) -> int:
     return int(np.floor(_positive("max_gap_s", max_gap_s, True) * fps + 1e-9))
+
+
+def _lone_age_frames(fps: float) -> int:
+    """``SWAP_LONE_MAX_AGE_S`` in frames (at least one: the previous frame is always recent)."""
+    return max(1, int(np.floor(SWAP_LONE_MAX_AGE_S * fps + 1e-9)))
 
 
 # A longer smoothing window means a frame rate no camera has (0.2 s at 500,000 fps): a slip.

@@ -17,6 +17,7 @@ from ethoscribe.clean.params import (
     _coords,
     _fps,
     _gap_frames,
+    _lone_age_frames,
     _pair_index,
     _window_frames,
     resolve_swap_pairs,
@@ -117,7 +118,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         low = _mask_confidence_inplace(x, conf, p.min_confidence)
         max_speed = _resolve_speed(p.max_speed, x, fps)
         jumps = _mask_jumps_inplace(x, fps, max_speed, pairs, False)
-        swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps)
+        swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, _lone_age_frames(fps))
         filled = _fill_gaps_inplace(x, max_gap)
         if p.smooth:
             _smooth_inplace(x, p.smooth, width, p.smooth_order)
