@@ -12,12 +12,12 @@ from ethoscribe.clean import _kernels as kern
 from ethoscribe.clean.params import (
     AUTO_SPEED_FACTOR,
     AUTO_SPEED_QUANTILE,
+    SWAP_LONE_MAX_AGE_FRAMES,
     SWAP_PRIOR_PER_S,
     CleanParams,
     _coords,
     _fps,
     _gap_frames,
-    _lone_age_frames,
     _pair_index,
     _window_frames,
     resolve_swap_pairs,
@@ -118,7 +118,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         low = _mask_confidence_inplace(x, conf, p.min_confidence)
         max_speed = _resolve_speed(p.max_speed, x, fps)
         jumps = _mask_jumps_inplace(x, fps, max_speed, pairs, False)
-        swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, _lone_age_frames(fps))
+        swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, SWAP_LONE_MAX_AGE_FRAMES)
         filled = _fill_gaps_inplace(x, max_gap)
         if p.smooth:
             _smooth_inplace(x, p.smooth, width, p.smooth_order)

@@ -13,11 +13,11 @@ from ethoscribe.clean.params import (
     AUTO_SPEED_QUANTILE,
     MM_PER_UNIT,
     SMOOTHERS,
+    SWAP_LONE_MAX_AGE_FRAMES,
     SWAP_PRIOR_PER_S,
     _coords,
     _fps,
     _gap_frames,
-    _lone_age_frames,
     _pair_index,
     _partner,
     _positive,
@@ -206,8 +206,8 @@ def repair_swaps(
     otherwise, and a wrong choice cannot persist. The cheapest sequence is found by a two-state
     Viterbi recursion (``causal=True``: the forward recursion only, deciding each frame from
     the past). A frame with one point seen gives it to the side whose last position it continues
-    best, on the same costs, if the other side was seen within ``SWAP_LONE_MAX_AGE_S``; else the
-    point keeps its label (a keypoint lost for seconds never takes its partner's point).
+    best, on the same costs, if the other side was seen in the last ``SWAP_LONE_MAX_AGE_FRAMES``
+    frames; else the point keeps its label (a keypoint lost for long never takes its partner's).
 
     Returns
     -------
@@ -230,7 +230,7 @@ def repair_swaps(
         settings = _settings(x.shape, fps, pairs=pairs, repair=True)
         swapped = _run_causal(x, conf, settings)[1]
     else:
-        swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, _lone_age_frames(fps))
+        swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, SWAP_LONE_MAX_AGE_FRAMES)
     return x, conf, swapped
 
 
@@ -370,7 +370,7 @@ def _settings(
         _partner(shape[2], pairs),
         pairs if repair else np.zeros((0, 2), np.int64),
         SWAP_PRIOR_PER_S / fps,
-        _lone_age_frames(fps),
+        SWAP_LONE_MAX_AGE_FRAMES,
         int(max_gap),
         kind,
         coef,
