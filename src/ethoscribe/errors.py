@@ -37,6 +37,21 @@ class JournalWarning(UserWarning):
     """Lines of a workspace's edit journal that could not be read and were skipped."""
 
 
+def counted(n: int, noun: str, plural: str | None = None) -> str:
+    """``n`` and the noun in the number it takes, for a message or a title.
+
+    Examples
+    --------
+    >>> counted(1, "motif")
+    '1 motif'
+    >>> counted(7, "session")
+    '7 sessions'
+    >>> counted(2, "body", "bodies")
+    '2 bodies'
+    """
+    return f"{n} {noun if n == 1 else (plural or noun + 's')}"
+
+
 def listed(items: Iterable[object], limit: int = 5, sep: str = ", ") -> str:
     """``items`` written out for a message: the first ``limit`` of them, then how many more.
 

@@ -14,7 +14,7 @@ from typing import Any
 
 import ipywidgets as w
 
-from ethoscribe.errors import EthoscribeError, InputError, listed
+from ethoscribe.errors import EthoscribeError, InputError, counted, listed
 from ethoscribe.widgets.common import button, flow, heading, message_html, note
 from ethoscribe.widgets.workbench import Workbench
 from ethoscribe.workspace import discover
@@ -144,7 +144,7 @@ class NewStudy(w.VBox):
         sessions = info["sessions"]
         shown = listed(sessions, 6)
         text = (
-            f"{len(sessions)} sessions ({shown}); {len(keypoints)} keypoints "
+            f"{counted(len(sessions), 'session')} ({shown}); {counted(len(keypoints), 'keypoint')} "
             f"({', '.join(keypoints)}); {len(info['animals'])} animal(s); "
             f"{info['fps']:g} frames per second; coordinates in {info['units']}. "
             f"{info['axis_text']}"

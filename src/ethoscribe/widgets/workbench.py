@@ -11,7 +11,7 @@ from typing import Any
 
 import ipywidgets as w
 
-from ethoscribe.errors import EthoscribeError
+from ethoscribe.errors import EthoscribeError, counted
 from ethoscribe.widgets.common import after_display, button, flow, message_html, note
 from ethoscribe.widgets.ethogram import EthogramPage
 from ethoscribe.widgets.motifs import CurationDesk, MotifList, MotifPortrait
@@ -93,7 +93,8 @@ class Workbench(w.VBox):
         folder = self.state.ws.path.resolve()
         name, where = html.escape(folder.name), html.escape(str(folder), quote=True)
         facts = (
-            f"{s.get('n_sessions')} sessions · {frames_said(s)} · {len(self.state.motifs)} motifs"
+            f"{counted(s.get('n_sessions') or 0, 'session')} · {frames_said(s)} · "
+            f"{counted(len(self.state.motifs), 'motif')}"
         )
         title = w.HTML(
             f"<div style='font-size:18px;font-weight:600' title='{where}'>ethoscribe workbench: "

@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from ethoscribe.curation import UNASSIGNED
-from ethoscribe.errors import InputError, InputWarning, listed
+from ethoscribe.errors import InputError, InputWarning, counted, listed
 from ethoscribe.ethogram import bout_table, time_budget, transition_table
 from ethoscribe.io import atomic_write_json, atomic_write_text, read_manifest, write_table
 from ethoscribe.label_table import csv_rounded
@@ -405,8 +405,8 @@ def _summary(
     motifs = sorted(set(labels["motif"].astype(str)) - {"", UNASSIGNED})
     kind = f"{'paired ' if paired else ''}{test} tests"
     text = (
-        f"Compared {len(design)} sessions in {len(counts)} groups of {by!r} ({sizes}) over "
-        f"{len(motifs)} motifs with {kind}. {headline(stats, ALPHA)}"
+        f"Compared {counted(len(design), 'session')} in {len(counts)} groups of {by!r} ({sizes}) "
+        f"over {counted(len(motifs), 'motif')} with {kind}. {headline(stats, ALPHA)}"
     )
     warnings = stats.attrs.get("warnings") or []
     text += " " + (" ".join(w.rstrip(".") + "." for w in warnings) + " " if warnings else "")

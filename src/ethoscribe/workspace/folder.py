@@ -46,7 +46,14 @@ import pyarrow as pa
 
 from ethoscribe import __version__
 from ethoscribe.curation import Curation, name_list
-from ethoscribe.errors import EthoscribeError, InputError, JournalWarning, WorkspaceError, listed
+from ethoscribe.errors import (
+    EthoscribeError,
+    InputError,
+    JournalWarning,
+    WorkspaceError,
+    counted,
+    listed,
+)
 from ethoscribe.ethogram import bout_table, time_budget, time_budgets_joined, transition_table
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_table_writer, atomic_write_json, locking, read_json, write_table
@@ -454,11 +461,11 @@ class Workspace:
         learned = self.path / LEARNED_FOLDER / "evaluation.json"
         if learned.is_file():  # the tables name the expert's behaviours, not the motifs
             n = len(read_json(learned).get("behaviours") or [])
-            labelled += f" (labels name {n} behaviours learned from an expert's coding)"
+            labelled += f" (labels name {counted(n, 'behaviour')} learned from an expert's coding)"
         return (
-            f"workspace {self.path}: {s['n_sessions']} sessions, {frames_said(s)}, "
-            f"{n_motifs} motifs{labelled}; files: labels.csv, bouts.csv, transitions.csv, "
-            f"time_budget.csv, quality.csv, summary.json, model/.{note} {CAUTION}"
+            f"workspace {self.path}: {counted(s['n_sessions'], 'session')}, {frames_said(s)}, "
+            f"{counted(n_motifs, 'motif')}{labelled}; files: labels.csv, bouts.csv, "
+            f"transitions.csv, time_budget.csv, quality.csv, summary.json, model/.{note} {CAUTION}"
         )
 
     # editing

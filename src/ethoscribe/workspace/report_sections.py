@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ethoscribe.errors import counted
 from ethoscribe.ethogram import (
     duration_summary,
     pool_time_budgets,
@@ -108,13 +109,13 @@ def model_section(ws: Workspace) -> Section:
             f"Labelled with the saved model of {source} (not refitted on these sessions): "
             f"{summary.get('n_states')} states ({chosen} there), method "
             f"{params.get('method', '?')}, seed {summary.get('seed')}, fitted on "
-            f"{fitted} frames; here {summary.get('n_sessions')} "
-            f"sessions, {frames_said(summary)}."
+            f"{fitted} frames; here {counted(summary.get('n_sessions') or 0, 'session')}, "
+            f"{frames_said(summary)}."
         )
     else:
         text = (
             f"{summary.get('n_states')} states ({chosen}), method {params.get('method', '?')}, "
-            f"seed {summary.get('seed')}; {summary.get('n_sessions')} sessions, "
+            f"seed {summary.get('seed')}; {counted(summary.get('n_sessions') or 0, 'session')}, "
             f"{frames_said(summary)}; {fitted} frames used to fit."
         )
     offsets = summary.get("individual_offsets")
