@@ -284,15 +284,20 @@ def test_a_time_column_in_milliseconds_is_refused_or_read_with_its_unit(tmp_path
         read_tidy(p, time_unit="ms", columns={"confidence": "score"})
 
 
-def test_a_wide_table_says_when_a_confidence_is_ignored_and_maps_it(tmp_path):
-    from ethoscribe.io import read_wide
-
+def _wide_file(path, confidence_suffix: str) -> None:
+    """A 60-frame wide table: ``<keypoint>_x``, ``_y`` and ``_<confidence_suffix>`` columns."""
     t = _tracks(n=60)
     cols = {}
     for i, k in enumerate(t.keypoints):
         cols[f"{k}_x"], cols[f"{k}_y"] = t.coords[:, 0, i, 0], t.coords[:, 0, i, 1]
-        cols[f"{k}_p"] = np.linspace(0.1, 0.9, 60)
-    pd.DataFrame(cols).to_csv(tmp_path / "w.csv", index=False)
+        cols[f"{k}_{confidence_suffix}"] = np.linspace(0.1, 0.9, 60)
+    pd.DataFrame(cols).to_csv(path, index=False)
+
+
+def test_a_wide_table_says_when_a_confidence_is_ignored_and_maps_it(tmp_path):
+    from ethoscribe.io import read_wide
+
+    _wide_file(tmp_path / "w.csv", confidence_suffix="p")
     with pytest.warns(UserWarning, match=r"confidence_axis='p'"):
         read_wide(tmp_path / "w.csv", fps=30)
     back = read_wide(tmp_path / "w.csv", fps=30, columns={"confidence": "p"})
@@ -304,12 +309,7 @@ def test_a_misspelt_confidence_mapping_of_a_wide_table_is_refused(tmp_path):
     # low-confidence masking) behind a warning; refused instead, naming the right word.
     from ethoscribe.io import read_wide
 
-    t = _tracks(n=60)
-    cols = {}
-    for i, k in enumerate(t.keypoints):
-        cols[f"{k}_x"], cols[f"{k}_y"] = t.coords[:, 0, i, 0], t.coords[:, 0, i, 1]
-        cols[f"{k}_likelihood"] = np.linspace(0.1, 0.9, 60)
-    pd.DataFrame(cols).to_csv(tmp_path / "w.csv", index=False)
+    _wide_file(tmp_path / "w.csv", confidence_suffix="likelihood")
     with pytest.raises(InputError, match=r"'likelyhood'.*confidence_axis='likelihood'"):
         read_wide(tmp_path / "w.csv", fps=30, columns={"confidence": "likelyhood"})
     back = read_wide(tmp_path / "w.csv", fps=30, columns={"confidence": "likelihood"})
