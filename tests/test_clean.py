@@ -347,6 +347,21 @@ def test_auto_max_speed_rule_is_reported():
     assert report.params["max_speed_rule"].startswith("auto")
 
 
+def test_an_animal_still_on_almost_every_frame_keeps_its_one_movement():
+    # Invented scenario: positions repeat exactly (integer pixels) except one 20-frame walk at
+    # 60 px/s in 3000 frames (0.7 % of steps). The 99th percentile of all steps is 0; a bound of
+    # 0 masked the whole walk as jumps. Reference by hand: the moving steps are all 2 px/frame.
+    x = np.zeros((3000, 1, 2, 2))
+    x[:, 0, 1, 0] = 10.0
+    x[2900:2920, 0, :, 0] += np.arange(20)[:, None] * 2.0
+    x[2920:, 0, :, 0] += 40.0
+    assert estimate_max_speed(x, 30.0) == pytest.approx(2 * 2.0 * 30)
+    assert estimate_max_speed(np.zeros((100, 1, 2, 2)), 30.0) is None  # nothing moves
+    cleaned, report = clean(PoseTracks(x, keypoints=["a", "b"], fps=30.0, units="mm"))
+    assert report.params["max_speed"] > 0
+    assert np.isfinite(cleaned.coords).all()
+
+
 def test_calibration_converts_and_records_units():
     t = PoseTracks(np.full((3, 1, 1, 2), 40.0), keypoints=["nose"], fps=30)
     mm = calibrate(t, px_per_unit=4.0, unit="mm")

@@ -113,7 +113,9 @@ def estimate_max_speed(coords: np.ndarray, fps: float) -> float | None:
     """The ``"auto"`` speed bound: 2 x the 99th percentile of frame-to-frame point speeds.
 
     Speeds (units per second) of all keypoints and animals are pooled; ``None`` if fewer than 10
-    consecutive pairs of points exist.
+    consecutive pairs of points exist. Where more than 99 % of the steps are exactly zero (an
+    animal still nearly all the time, positions repeated exactly), the percentile is taken over
+    the steps that move instead (``None`` if fewer than 10 do), never giving a bound of 0.
 
     Examples
     --------
@@ -129,7 +131,16 @@ def estimate_max_speed(coords: np.ndarray, fps: float) -> float | None:
     speed = kern.step_speeds(x, fps)
     if speed.size < 10:
         return None
-    return AUTO_SPEED_FACTOR * float(np.quantile(speed, AUTO_SPEED_QUANTILE))
+    bound = AUTO_SPEED_FACTOR * float(np.quantile(speed, AUTO_SPEED_QUANTILE))
+    if bound > 0:
+        return bound
+    # An animal still on more than 99 % of steps (exactly repeated positions, as integer-pixel
+    # or position-holding trackers give) would get a bound of 0, and its every movement would
+    # be masked as a jump: take the quantile over the steps that move; none move: no bound.
+    moving = speed[speed > 0]
+    if moving.size < 10:
+        return None
+    return AUTO_SPEED_FACTOR * float(np.quantile(moving, AUTO_SPEED_QUANTILE))
 
 
 def _resolve_speed(max_speed: Any, x: np.ndarray, fps: float) -> float | None:
