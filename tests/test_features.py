@@ -415,6 +415,26 @@ def test_compact_log_offsets_are_the_noise_floor_quantile():
     np.testing.assert_allclose(values, np.log(speeds[0] + offset), rtol=1e-12)
 
 
+def test_log_offsets_skip_positions_repeated_exactly():
+    # An animal frozen on 60 % of the frames with its positions repeated exactly (integer pixels,
+    # a tracker holding still points): the 5 % quantile of its speed is float rounding, and
+    # log(x + c) spread that rounding over ~20 log units, squeezing every real movement. The
+    # offset is the 5 % quantile of the frames that move (numpy.quantile as reference).
+    moving = walking(n=600, seed=23)
+    coords = moving.coords.copy()
+    coords[200:560] = coords[200]
+    frozen = moving.replace(coords=coords)
+    compact = FeaturePipeline(standardise=False).fit([frozen])
+    detailed = FeaturePipeline(standardise=False, **DETAILED).fit([frozen])
+    i = detailed.columns_.index("centroid_speed_cm_s")
+    speed = detailed.transform(frozen)[0].values[:, i]
+    assert np.nanquantile(speed, 0.05) < 1e-9 * np.nanquantile(speed, 0.99)  # rounding only
+    speed = speed[np.isfinite(speed) & (speed > 1e-9 * np.nanquantile(speed, 0.99))]
+    j = compact.columns_.index("log_centroid_speed_cm_s")
+    assert compact.log_offset_[j] == pytest.approx(np.quantile(speed, 0.05), rel=1e-12)
+    # the tracks of a moving animal keep the plain rule (the test above)
+
+
 def test_compact_posture_band_is_the_rms_of_the_whole_body_sway():
     # Invented sway of amplitude a_k on four keypoints: the band amplitude of the whole posture
     # is the RMS of the sinusoid, sqrt(sum a_k^2 / 2) (a textbook identity), in its own band.

@@ -63,6 +63,10 @@ def _accumulate(acc: list | None, X: np.ndarray, full: bool) -> list | None:
 # Quantile of a magnitude (speed, amplitude) used as its log offset: the noise floor (below).
 LOG_OFFSET_QUANTILE = 0.05
 
+# A magnitude at most this fraction of its column's 99 % quantile is float rounding of a point
+# that did not move (positions repeated exactly), not tracking noise.
+ROUNDING_LEVEL = 1e-9
+
 # Band centres (Hz) of the automatic band amplitudes: one octave apart, from rhythms slower than a
 # stride (0.5 Hz) to fast gait, tremor-free grooming and wing or fin beats at the low end (8 Hz).
 DEFAULT_FREQUENCIES = (0.5, 1.0, 2.0, 4.0, 8.0)
@@ -567,7 +571,9 @@ class FeaturePipeline(BaseEstimator):
         most ~200k evenly spaced rows): about the tracking-noise floor of a speed or an
         amplitude, so values at the floor are compressed together and real movement is
         spread on a log scale. Floored at 1e-6 of the column's median, and 1 for an
-        all-zero column.
+        all-zero column. Where that quantile is at rounding level (at most ROUNDING_LEVEL of
+        the column's 99 % quantile: positions repeated exactly on many frames), the quantile
+        and median are those of the frames above rounding level.
         """
         logged = [j for j, c in enumerate(self.columns_) if c.startswith("log_")]
         offsets = np.zeros(len(self.columns_))
@@ -580,7 +586,12 @@ class FeaturePipeline(BaseEstimator):
             if not col.size:
                 offsets[j] = 1.0
                 continue
-            low, mid = np.quantile(col, [LOG_OFFSET_QUANTILE, 0.5])
+            low, mid, top = np.quantile(col, [LOG_OFFSET_QUANTILE, 0.5, 0.99])
+            if top > 0 and low <= ROUNDING_LEVEL * top:
+                # Positions repeated exactly (an animal still for long, integer pixels): the
+                # quantile is float rounding, and log(x + c) would spread it over many units.
+                col = col[col > ROUNDING_LEVEL * top]
+                low, mid = np.quantile(col, [LOG_OFFSET_QUANTILE, 0.5])
             offsets[j] = max(low, 1e-6 * mid) if mid > 0 else 1.0
         return offsets
 
