@@ -9,7 +9,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra import numpy as hnp
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io import read_tidy, write_tidy
 from ethoscribe.pose import UNITS, PoseTracks
 
@@ -222,14 +222,28 @@ def test_confidence_outside_unit_interval(tmp_path):
 def test_duplicated_rows(tmp_path):
     df = _table(first=10)
     df = pd.concat([df, df.iloc[[4]]])
+    df.iloc[-1, df.columns.get_loc("x")] += 1.0
     with pytest.raises(InputError) as info:
         read_tidy(_save(df, tmp_path), fps=30)
     msg = str(info.value)
     assert "1 row(s) repeat" in msg and "frame 11, keypoint 'neck' appears 2 times" in msg
-    assert "remove the repeats" in msg
+    assert "with different values" in msg and "remove the repeats" in msg
     both = pd.concat([_table(animal="a"), _table(animal="b"), _table(animal="b").iloc[:1]])
+    both.iloc[-1, both.columns.get_loc("y")] = np.nan
     with pytest.raises(InputError, match="keypoint 'nose', animal 'b' appears 2 times"):
         read_tidy(_save(both, tmp_path, "b.csv"), fps=30)
+
+
+def test_rows_repeated_with_the_same_values_are_read_once(tmp_path):
+    # Overlapping exports joined into one file: the repeats say nothing new.
+    df = _table(first=10, confidence=0.9)
+    df.loc[5, ["x", "y"]] = np.nan  # a missed point repeated as missed is the same too
+    plain = read_tidy(_save(df, tmp_path, "plain.csv"), fps=30)
+    twice = pd.concat([df, df.iloc[3:9]]).sample(frac=1.0, random_state=0)
+    with pytest.warns(InputWarning, match=r"6 row\(s\) repeat .* same values .* read once"):
+        got = read_tidy(_save(twice, tmp_path), fps=30, keypoints=list(plain.keypoints))
+    np.testing.assert_array_equal(got.coords, plain.coords)
+    np.testing.assert_array_equal(got.confidence, plain.confidence)
 
 
 def test_irregular_time(tmp_path):

@@ -153,6 +153,7 @@ def read_tidy(
         )
     shape = (n_frames, len(an_names), len(kp_names))
     flat = (frames * shape[1] + an_codes) * shape[2] + kp_codes
+    flat, values = _drop_exact_repeats(info, flat, values, shape, kp_names, an_names, extra)
     _check_complete(info, flat, shape, kp_names, an_names, extra["first_frame"])
     del frames, kp_codes, an_codes, text_cols  # large tables: free what is no longer needed
     values = {c: v for c, v in values.items() if c not in ("frame", "time")}
@@ -300,6 +301,44 @@ def _fps_from_frame_times(
     return snap_rate(present, rel, float(fps), float(np.abs(times).max()))
 
 
+def _drop_exact_repeats(
+    info: TableInfo,
+    flat: np.ndarray,
+    values: dict[str, np.ndarray],
+    shape: tuple[int, int, int],
+    kp_names: list[str],
+    an_names: list[str],
+    extra: dict[str, float | int],
+) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+    """Rows repeating a (frame, animal, keypoint) with the very same values are one row said
+    twice (exports concatenated with an overlap): keep the first, with an ``InputWarning``.
+    Repeats with other values are left for ``_check_complete`` to refuse."""
+    counts = np.bincount(flat, minlength=shape[0] * shape[1] * shape[2])
+    if not (counts > 1).any():
+        return flat, values
+    _, first_row, inverse = np.unique(flat, return_index=True, return_inverse=True)
+    first_row = first_row[inverse.ravel()]
+    repeat = np.flatnonzero(first_row != np.arange(flat.size))
+    for v in values.values():
+        a, b = v[repeat], v[first_row[repeat]]
+        if not ((a == b) | (np.isnan(a) & np.isnan(b))).all():
+            return flat, values  # different values: refused with the cells named
+    cell = int(flat[repeat[0]])
+    f, rest = divmod(cell, shape[1] * shape[2])
+    a, k = divmod(rest, shape[2])
+    who = f", animal '{an_names[a]}'" if len(an_names) > 1 else ""
+    warnings.warn(
+        f"{info.path}: {repeat.size} row(s) repeat a frame and keypoint with the same values "
+        f"(e.g. frame {f + int(extra['first_frame'])}, keypoint '{kp_names[k]}'{who}); each "
+        "is read once. If the file joins overlapping exports, this is expected.",
+        InputWarning,
+        stacklevel=3,
+    )
+    keep = np.ones(flat.size, bool)
+    keep[repeat] = False
+    return flat[keep], {c: v[keep] for c, v in values.items()}
+
+
 def _check_complete(
     info: TableInfo,
     flat: np.ndarray,
@@ -317,8 +356,9 @@ def _check_complete(
         raise InputError(
             f"{info.path}: {int((counts[many] - 1).sum())} row(s) repeat a frame and keypoint "
             f"already present, e.g. frame {f + first}, keypoint '{kp_names[k]}'{who} appears "
-            f"{counts[f, a, k]} times. Each frame needs exactly one row per keypoint; remove the "
-            "repeats (a file joining several recordings must be split, one file per session)."
+            f"{counts[f, a, k]} times, with different values. Each frame needs exactly one row "
+            "per keypoint; remove the repeats (a file joining several recordings must be split, "
+            "one file per session)."
         )
     present = counts > 0
     missing = present.any(axis=2, keepdims=True) & ~present
