@@ -139,6 +139,11 @@ def test_study_with_differing_keypoints(study):
     p = _manifest(study, "session,path\nm1,data/a.csv\nm4,data/d.csv\n")
     with pytest.raises(InputError, match=r"'m4' has different keypoints.*missing \['tail'\]"):
         load_study(p, progress=False)
+    # the refusal gives the option that reads both; typed on the command line it is one text
+    with pytest.raises(InputError, match="--reader-option keypoints=nose,neck"):
+        load_study(p, progress=False)
+    sessions = load_study(p, progress=False, keypoints="nose,neck")
+    assert [s.keypoints for s in sessions] == [("nose", "neck")] * 2
 
 
 def test_study_reader_error_names_the_row(study):

@@ -412,3 +412,14 @@ def test_a_wide_table_read_as_tidy_is_told_every_option_it_needs(tmp_path):
     plain.to_csv(path, index=False)
     with pytest.raises(InputError, match=r"--pattern '\{keypoint\}_\{axis\}'\); the tables"):
         read_tidy(path, fps=30)
+
+
+def test_keypoints_to_keep_may_be_one_text_of_names(tmp_path):
+    # "--reader-option keypoints=nose,tail" reaches the reader as one text; read letter by
+    # letter it asked for keypoints 'n', 'o', 's', 'e' ...
+    p = _save(_table(), tmp_path)
+    got = read_tidy(p, fps=30, keypoints="tail, nose")
+    assert got.keypoints == ("tail", "nose")
+    np.testing.assert_array_equal(
+        got.coords, read_tidy(p, fps=30, keypoints=["tail", "nose"]).coords
+    )

@@ -71,6 +71,10 @@ def test_animals_custom_axes_and_3d(tmp_path):
     assert one.animals == ("m2",) and one.n_dims == 2
     sel = read_wide(p, "{animal}.{keypoint}.{axis}", fps=60, axes=("X", "Y"), keypoints=["tail"])
     assert sel.keypoints == ("tail",)
+    text = read_wide(
+        p, "{animal}.{keypoint}.{axis}", fps=60, axes=("X", "Y"), keypoints="tail,nose"
+    )
+    assert text.keypoints == ("tail", "nose")
 
 
 def test_read_pose_with_wide_format(tmp_path):

@@ -304,10 +304,17 @@ def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
             source = s.meta.get("source")
             file = f" in {source}" if source else ""
             differ, hint = keypoint_mismatch(ref.keypoints, s.keypoints)
+            shared = [k for k in ref.keypoints if k in s.keypoints]
+            keep = ""
+            if shared and set(s.keypoints) != set(ref.keypoints):
+                keep = (
+                    f" To keep the keypoints both have: keypoints={shared} (command line: "
+                    f"--reader-option keypoints={','.join(shared)})."
+                )
             raise InputError(
                 f"session '{s.session}' has different keypoints from session '{ref.session}' "
                 f"({differ}, or another order){file}. All sessions of one study must share one "
-                f"keypoint set; rename or drop keypoints when reading.{hint}"
+                f"keypoint set; rename or drop keypoints when reading.{hint}{keep}"
             )
         if s.n_dims != ref.n_dims:
             raise InputError(

@@ -388,10 +388,12 @@ class FeaturePipeline(BaseEstimator):
         names = [k for k, ok in zip(sessions[0].keypoints, seen, strict=True) if not ok]
         shown = listed(repr(s.session) for s in sessions)
         quoted = ", ".join(f"'{n}'" for n in names)
+        kept = [k for k, ok in zip(sessions[0].keypoints, seen, strict=True) if ok]
         msg = (
             f"keypoint {quoted} has no tracked position in any frame of session(s) {shown} "
             "(missing, or below the confidence threshold, everywhere), so no frame has all "
-            "keypoints and no feature can be computed. Drop that keypoint from the tracks, or "
+            "keypoints and no feature can be computed. Leave it out when reading "
+            f"(keypoints={kept}; command line: --reader-option keypoints={','.join(kept)}), or "
             "check that the tracker's keypoint names match (a renamed keypoint looks untracked)."
         )
         if len(names) == len(seen):

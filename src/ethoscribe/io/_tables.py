@@ -49,6 +49,22 @@ class TableInfo:
         return f"line {i + 2}" if self.kind == "csv" else f"row {i + 1}"
 
 
+def name_list(names: Sequence[str] | str | None) -> list[str] | None:
+    """Names as a list; a text is split at commas (``"nose,tail_base"``, as typed in a
+    command-line reader option), since a lone string would be read letter by letter.
+
+    Examples
+    --------
+    >>> name_list("nose, tail_base"), name_list(["nose"]), name_list(None)
+    (['nose', 'tail_base'], ['nose'], None)
+    """
+    if names is None:
+        return None
+    if isinstance(names, str):
+        return [n.strip() for n in names.split(",") if n.strip()]
+    return [str(n) for n in names]
+
+
 def check_file(path: str | os.PathLike[str], fix: str = "export the tracks again") -> Path:
     """The path as a ``Path`` if it is an existing, non-empty file; a clear error otherwise."""
     path = Path(path).expanduser()

@@ -18,7 +18,7 @@ import numpy as np
 
 from ethoscribe.errors import InputError
 from ethoscribe.io._atomic import atomic_path
-from ethoscribe.io._tables import check_file, check_fps, make_tracks
+from ethoscribe.io._tables import check_file, check_fps, make_tracks, name_list
 from ethoscribe.io._timing import frames_from_times
 from ethoscribe.pose import PoseTracks
 
@@ -50,7 +50,7 @@ def read_nwb(
     fps: float | None = None,
     session: str | None = None,
     units: str | None = None,
-    keypoints: list[str] | None = None,
+    keypoints: list[str] | str | None = None,
 ) -> PoseTracks:
     """Read pose-estimation series from an NWB file.
 
@@ -68,7 +68,8 @@ def read_nwb(
     units : str, optional
         Overrides the units stored with the series ("pixels" -> "px", "millimeters" -> "mm").
     keypoints : list of str, optional
-        Keep only these keypoints, in this order (default: the skeleton's order).
+        Keep only these keypoints, in this order (default: the skeleton's order; a text: names
+        separated by commas).
 
     Returns
     -------
@@ -93,7 +94,7 @@ def read_nwb(
             raise _unreadable(path, exc) from None
         found = [o for o in nwbfile.objects.values() if isinstance(o, ndx_pose.PoseEstimation)]
         chosen = _choose(path, found, pose_estimation)
-        parts = [_read_container(path, c, keypoints) for c in chosen]
+        parts = [_read_container(path, c, name_list(keypoints)) for c in chosen]
         meta = {"identifier": nwbfile.identifier, "session_id": nwbfile.session_id}
         if nwbfile.subject is not None and nwbfile.subject.subject_id:
             meta["subject"] = nwbfile.subject.subject_id

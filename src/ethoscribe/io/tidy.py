@@ -28,6 +28,7 @@ from ethoscribe.io._tables import (
     integer_frames,
     make_tracks,
     map_columns,
+    name_list,
     read_columns,
     require_columns,
     table_info,
@@ -54,7 +55,7 @@ def read_tidy(
     fps: float | None = None,
     session: str | None = None,
     units: str | None = None,
-    keypoints: list[str] | None = None,
+    keypoints: list[str] | str | None = None,
     columns: Mapping[str, str] | None = None,
     time_unit: str | None = None,
 ) -> PoseTracks:
@@ -72,7 +73,7 @@ def read_tidy(
     units : str, optional
         Coordinate units; defaults to the file's record (Parquet from ``write_tidy``) or "px".
     keypoints : list of str, optional
-        Keep only these keypoints, in this order.
+        Keep only these keypoints, in this order (a text: names separated by commas).
     columns : mapping, optional
         Which column holds what when the names differ: ``{"confidence": "likelihood",
         "x": "pos_x", "keypoint": "bodypart"}`` (roles: frame, time, keypoint, animal, x, y, z,
@@ -102,6 +103,7 @@ def read_tidy(
     """
     path = check_file(path)
     fps = check_fps(fps, path)
+    keypoints = name_list(keypoints)
     info = map_columns(table_info(path), columns, _ROLES)
     lower = {str(c).strip().lower() for c in info.columns}
     time_col = "frame" if "frame" in info.columns or "time" not in lower else "time"

@@ -25,6 +25,7 @@ from ethoscribe.io._tables import (
     confidence_lookalikes,
     integer_frames,
     make_tracks,
+    name_list,
     read_columns,
     require_columns,
     table_info,
@@ -88,7 +89,7 @@ def read_wide(
     animal: str | None = None,
     session: str | None = None,
     units: str = "px",
-    keypoints: list[str] | None = None,
+    keypoints: list[str] | str | None = None,
     columns: Mapping[str, str] | None = None,
     time_unit: str | None = None,
 ) -> PoseTracks:
@@ -113,7 +114,8 @@ def read_wide(
     animal : str, optional
         Without ``{animal}`` in the pattern: the animal's id. With it: read only this animal.
     session, units, keypoints
-        Session name (default: file stem), coordinate units, keypoints to keep (in order).
+        Session name (default: file stem), coordinate units, keypoints to keep (in order;
+        a text: names separated by commas).
     columns : mapping, optional
         The command line's column mapping in wide terms: ``{"confidence": "likelihood"}`` sets
         ``confidence_axis``, ``{"x": "X", "y": "Y"}`` the axes, ``{"frame": ...}`` /
@@ -154,7 +156,8 @@ def read_wide(
         again = _match_columns(info, pattern, axes, own_confidence, timing, animal)
         if any(k[2] == own_confidence for k in again[0]):
             (found, ignored), confidence_axis = again, own_confidence
-    animals, kp_names, n_dims = _layout(info, found, axes, animal, "{animal}" in pattern, keypoints)
+    per_animal, keypoints = "{animal}" in pattern, name_list(keypoints)
+    animals, kp_names, n_dims = _layout(info, found, axes, animal, per_animal, keypoints)
     whole = (frame_column,) if frame_column is not None else ()
     values, _ = read_columns(info, [*timing, *found.values()], [], whole=whole)
     if time_column is not None:
