@@ -39,8 +39,8 @@ informative, low in noise and roughly Gaussian within a behaviour. Speeds and am
 skewed over orders of magnitude (still 1-5 mm/s, walking 100-300 mm/s); their logarithm is
 close to Gaussian within a behaviour, and the offset ``c`` (``log_offset_``, the 5 % quantile
 over the fitted frames, about the tracking-noise floor) keeps noise at rest from spreading
-over many log units (where that quantile is float rounding, positions repeated exactly on
-many frames, it is the quantile of the frames that move). One amplitude per band for the
+over many log units (for a speed whose quantile is float rounding, positions repeated exactly
+on many frames, it is the quantile of the frames that move). One amplitude per band for the
 whole posture finds a rhythm in whichever component it lives. On the simulated example
 study this set (16 columns) gave an adjusted Rand index with the truth of 0.84 against 0.67
 for the detailed set (41 columns; the same 7-state HMM), and an EM iteration cost 3.6x less.

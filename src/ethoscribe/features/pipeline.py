@@ -573,9 +573,11 @@ class FeaturePipeline(BaseEstimator):
         most ~200k evenly spaced rows): about the tracking-noise floor of a speed or an
         amplitude, so values at the floor are compressed together and real movement is
         spread on a log scale. Floored at 1e-6 of the column's median, and 1 for an
-        all-zero column. Where that quantile is at rounding level (at most ROUNDING_LEVEL of
-        the column's 99 % quantile: positions repeated exactly on many frames), the quantile
-        and median are those of the frames above rounding level.
+        all-zero column. For a speed whose quantile is at rounding level (at most
+        ROUNDING_LEVEL of the column's 99 % quantile: positions repeated exactly on many
+        frames), the quantile and median are those of the frames above rounding level. Band
+        amplitudes keep the plain rule: their exact zeros after a burst (``band_smoothing``)
+        are a property of the filter that the validation bench was measured with.
         """
         logged = [j for j, c in enumerate(self.columns_) if c.startswith("log_")]
         offsets = np.zeros(len(self.columns_))
@@ -584,12 +586,13 @@ class FeaturePipeline(BaseEstimator):
         step = max(1, sum(len(r) for r in raws) // 200_000)
         sample = np.concatenate([r[::step][:, logged] for r in raws])
         for j, col in zip(logged, sample.T, strict=True):
+            speed = "_speed_" in self.columns_[j]
             col = col[np.isfinite(col)]
             if not col.size:
                 offsets[j] = 1.0
                 continue
             low, mid, top = np.quantile(col, [LOG_OFFSET_QUANTILE, 0.5, 0.99])
-            if top > 0 and low <= ROUNDING_LEVEL * top:
+            if speed and top > 0 and low <= ROUNDING_LEVEL * top:
                 # Positions repeated exactly (an animal still for long, integer pixels): the
                 # quantile is float rounding, and log(x + c) would spread it over many units.
                 col = col[col > ROUNDING_LEVEL * top]
