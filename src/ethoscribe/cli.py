@@ -257,6 +257,12 @@ def build_parser() -> argparse.ArgumentParser:
         "--axis", type=_axis, help="body axis as FROM,TO keypoints (tail side to head side)"
     )
     d.add_argument(
+        "--up-axis",
+        choices=("x", "y", "z"),
+        default="z",
+        help="3-D tracks: the vertical axis (default z; motion capture often has y up)",
+    )
+    d.add_argument(
         "--no-social",
         action="store_true",
         help="no features of the nearest other animal (needed when single- and multi-animal "
@@ -547,6 +553,7 @@ def _run(args: argparse.Namespace) -> str:
             fps=args.fps,
             origin=args.origin,
             axis=args.axis,
+            up_axis=args.up_axis,
             states=args.states,
             method=args.method,
             seed=args.seed,
@@ -625,7 +632,7 @@ _OPTIONS = {
     "fit_frames": "--fit-frames", "states": "--states", "n_states": "--states",
     "seed": "--seed", "random_state": "--seed", "method": "--method", "origin": "--origin",
     "axis": "--axis", "replace_curation": "--replace-curation", "force": "--force",
-    "causal": "--for-streaming", "social": "--no-social",
+    "causal": "--for-streaming", "social": "--no-social", "up_axis": "--up-axis",
     "scheduler": "--scheduler", "manifest": "--manifest", "out": "--out",
 }  # fmt: skip
 _ASSIGNMENT = re.compile(r"\b(" + "|".join(_OPTIONS) + r")=(True|\.\.\.|[^\s,;)]+)?")

@@ -28,6 +28,7 @@ from ethoscribe.features.saved import (
 )
 from ethoscribe.features.scale_check import warn_scale_outliers
 from ethoscribe.features.sets import FeatureSet
+from ethoscribe.features.vertical_check import warn_vertical_axis
 from ethoscribe.filters import BAND_SMOOTHERS, derivative
 from ethoscribe.geometry import (
     heading_angle,
@@ -519,6 +520,7 @@ class FeaturePipeline(BaseEstimator):
         self._check_keypoints_seen(sessions)
         if not self.scale_by_size:
             warn_scale_outliers(sessions)
+        warn_vertical_axis(sessions, self.up_axis)
         self.keypoints_ = tuple(first.keypoints)
         self.n_dims_, self.units_ = first.n_dims, first.units
         rates = {s.fps for s in sessions}

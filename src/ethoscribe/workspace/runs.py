@@ -107,6 +107,7 @@ def discover(
     causal: bool = False,
     join_tracks: bool = False,
     social: bool = True,
+    up_axis: str = "z",
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
@@ -125,6 +126,8 @@ def discover(
     social : add features of the nearest other animal when sessions have several animals
         (every session must then have two or more); False for a study that mixes single- and
         multi-animal sessions
+    up_axis : the vertical axis of 3-D tracks ("x", "y" or "z"; motion capture often has y
+        up): headings and heights are taken about it
     cleaning : :class:`~ethoscribe.clean.CleanParams` or a dict of its fields; unset fields
         take their defaults, except ``swap_pairs``, which defaults to ``"auto"`` (left/right
         pairs read from the keypoint names; pass ``()`` to switch repair off). Every value used
@@ -173,6 +176,7 @@ def discover(
             )
         sample = _training_sample(prepared, table, fit_frames, seed)
         no_social = {"social": False}  # set only when off: earlier fits keep their digest
+        up = {} if up_axis == "z" else {"up_axis": up_axis}  # likewise
         # The fit's features of whole sessions, kept for labelling them in this process.
         in_process = client is None and (default_jobs() if jobs is None else jobs) == 1
         fitted_features: dict[str, list[FeatureSet]] = {}
@@ -181,7 +185,12 @@ def discover(
             with ticking("fitting the model", progress):
                 model = BehaviourModel(
                     cleaning=cleaning,
-                    features={"origin": origin, "axis": axis, **({} if social else no_social)},
+                    features={
+                        "origin": origin,
+                        "axis": axis,
+                        **({} if social else no_social),
+                        **up,
+                    },
                     method=method,
                     n_states=states,
                     random_state=seed,
@@ -201,7 +210,7 @@ def discover(
         settings = {"cleaning": cleaning, "origin": origin, "axis": axis, "method": method,
                     "states": states, "seed": seed, "stability": stability,
                     "causal": causal, "versions": versions(),
-                    **({} if social else no_social)}  # fmt: skip
+                    **({} if social else no_social), **up}  # fmt: skip
         digest = fit_digest(sample, quality, settings)
         model, report, _ = fit_or_reuse(out, digest, fit, force)
         model.set_params(progress=progress)
