@@ -364,6 +364,19 @@ def test_a_cohort_filmed_faster_than_the_model_is_resampled_to_its_rate(study, w
             workspace.path, [], tmp_path / "slow", manifest=tmp_path / "slow.csv", progress=False
         )
     assert not (tmp_path / "slow" / "labels.csv").exists()
+    # 29.97 fps (NTSC video) against a 30 fps model: refused before as 'slower'; now resampled
+    # up (0.1 % of frames interpolated), with a warning: n frames at 29.97 fps span
+    # (n - 1) / 29.97 s, i.e. floor((n - 1) * 30 / 29.97) + 1 frames at 30 fps
+    ntsc = row.assign(fps=29.97, path=str(study / "session_02.parquet"))
+    ntsc.to_csv(tmp_path / "ntsc.csv", index=False)
+    with pytest.warns(InputWarning) as said:
+        cohort = label_sessions(
+            workspace.path, [], tmp_path / "ntsc", manifest=tmp_path / "ntsc.csv", progress=False
+        )
+    said = [str(w.message) for w in said]
+    assert any("'session_02' (29.97 fps) filmed slightly slower" in m for m in said), said
+    n_read = int(pd.read_csv(tmp_path / "ntsc" / "sessions.csv")["n_frames"].iloc[0])
+    assert len(cohort.state_labels()) == int(np.floor((n_read - 1) * 30 / 29.97 + 1e-9)) + 1
 
 
 def test_a_resampled_discovery_counts_frames_as_read_and_as_labelled(study, tmp_path):

@@ -82,6 +82,11 @@ from ethoscribe.workspace.reading import (
 
 STABILITY_FRAMES = 30_000
 
+# A cohort filmed this much slower than the model (29.97 against 30 fps, 59.94 against 60) is
+# resampled up to the model's rate for labelling: one frame in a hundred at most interpolated
+# between measured neighbours of a smoothed track. Slower still is refused.
+RATE_TOLERANCE = 0.01
+
 
 def discover(
     inputs: Sequence[str | Path],
@@ -291,12 +296,15 @@ def _at_model_rate(
 ) -> list[dict[str, Any]]:
     """Cleaning values per session for labelling: a session filmed faster than the model's
     frame rate is resampled to it (as discovery's ``target_fps`` does; the user is told); a
-    slower one is refused before any work, since its in-between frames would be invented."""
+    slower one is refused before any work, since its in-between frames would be invented,
+    unless it is slower by at most ``RATE_TOLERANCE`` (29.97 against 30 fps: one frame in a
+    thousand interpolated), which is resampled up with a warning."""
     model_fps = float(model.fps_)
     if cleaning.get("target_fps") or model.causal:  # resampled already / the model refuses it
         return [cleaning] * len(plan)
     given = [(e, float(e["fps"]) if e.get("fps") is not None else None) for e in plan]
-    slower = [f"'{e['session']}' ({r:g} fps)" for e, r in given if r and r < model_fps - 1e-9]
+    close = model_fps * (1 - RATE_TOLERANCE) - 1e-9
+    slower = [f"'{e['session']}' ({r:g} fps)" for e, r in given if r and r < close]
     if slower:
         msg = (
             f"session(s) {listed(slower)} filmed slower than the model's {model_fps:g} "
@@ -304,6 +312,16 @@ def _at_model_rate(
             f"(ethoscribe discover with --target-fps set to their rate), or leave them out"
         )
         raise InputError(msg)
+    nearly = [f"'{e['session']}' ({r:g} fps)" for e, r in given if r and close <= r < model_fps]
+    if nearly:
+        warnings.warn(
+            f"session(s) {listed(nearly)} filmed slightly slower than the model's "
+            f"{model_fps:g} fps (within {RATE_TOLERANCE:.0%}) are resampled up to it before "
+            "labelling: at most one frame in a hundred is interpolated; labels.csv counts "
+            "frames at the model's rate (time_s gives the time)",
+            InputWarning,
+            stacklevel=3,
+        )
     faster = [f"'{e['session']}' ({r:g} fps)" for e, r in given if r and r > model_fps + 1e-9]
     if faster:
         warnings.warn(
@@ -313,7 +331,7 @@ def _at_model_rate(
             stacklevel=3,
         )
     return [
-        {**cleaning, "target_fps": model_fps} if r and r > model_fps + 1e-9 else cleaning
+        {**cleaning, "target_fps": model_fps} if r and abs(r - model_fps) > 1e-9 else cleaning
         for _, r in given
     ]
 
