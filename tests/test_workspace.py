@@ -379,6 +379,34 @@ def test_a_cohort_filmed_faster_than_the_model_is_resampled_to_its_rate(study, w
     assert len(cohort.state_labels()) == int(np.floor((n_read - 1) * 30 / 29.97 + 1e-9)) + 1
 
 
+def test_a_cohort_whose_rate_only_its_file_gives_is_resampled_or_refused_alike(
+    study, workspace, tmp_path
+):
+    """The rate read from the file (its time column or record), none in the manifest: the
+    model refused it late with 'resample it (cleaning target_fps)', an option label does not
+    have. Now the same rule as for a rate given in the manifest."""
+    from ethoscribe.io import write_tidy
+
+    row = pd.read_csv(study / "manifest.csv").query("session == 'session_02'")
+    tracks = read_tidy(study / "session_02.parquet", fps=30)
+    for fps, name in ((29.97, "ntsc"), (25.0, "pal")):
+        write_tidy(tracks.replace(fps=fps), tmp_path / f"{name}.parquet")
+        plan = row.drop(columns="fps").assign(session=name, path=f"{name}.parquet")
+        plan.to_csv(tmp_path / f"{name}.csv", index=False)
+    with pytest.warns(InputWarning, match=r"'ntsc' \(29.97 fps\) filmed slightly slower"):
+        cohort = label_sessions(
+            workspace.path, [], tmp_path / "ntsc_run", manifest=tmp_path / "ntsc.csv",
+            progress=False,
+        )  # fmt: skip
+    n = tracks.n_frames
+    assert len(cohort.state_labels()) == int(np.floor((n - 1) * 30 / 29.97 + 1e-9)) + 1
+    with pytest.raises(InputError, match=r"'pal' \(25 fps\) filmed slower than the model's 30"):
+        label_sessions(
+            workspace.path, [], tmp_path / "pal_run", manifest=tmp_path / "pal.csv", progress=False
+        )
+    assert not (tmp_path / "pal_run").exists()
+
+
 def test_a_resampled_discovery_counts_frames_as_read_and_as_labelled(study, tmp_path):
     """Sessions resampled from 30 to 15 fps (cleaning target_fps): sessions.csv and the run's
     message counted the frames read (2700 a session) while labels.csv has 1350 rows a session.

@@ -541,6 +541,12 @@ def label_sessions(
         prepared, quality, table, used = _prepare(
             out, plan, per_session, jobs, client, force, progress, bool(model.causal)
         )
+        timed = _rates_read(plan, table, float(model.fps_))
+        if timed is not None:  # rates known only from the files: the same rule, then again
+            plan, per_session = timed, _at_model_rate(timed, cleaning, model)
+            prepared, quality, table, used = _prepare(
+                out, plan, per_session, jobs, client, force, progress, bool(model.causal)
+            )
         decoded = _decode(out, prepared, model, jobs, client, force, progress, fit_check=True)
         summary = _summary(model, table, model.random_state, None)
         summary["labelled_with"] = str(source.resolve())
@@ -556,6 +562,23 @@ def label_sessions(
         with ticking("postures for the workbench", progress):
             cache_postures(ws, model, _cleaned_loaders(prepared, table, bool(model.causal)))
         return ws
+
+
+def _rates_read(
+    plan: Sequence[dict[str, Any]], table: pd.DataFrame, model_fps: float
+) -> list[dict[str, Any]] | None:
+    """The plan with the frame rates read from the files (a time column, a file's record)
+    where it had none and they differ from the model's, so that ``_at_model_rate`` resamples
+    or refuses them as it does rates given in a manifest; None when there are none."""
+    read = dict(zip(table["session"].astype(str), table["fps"].astype(float), strict=True))
+    found = {
+        i: read[str(e["session"])]
+        for i, e in enumerate(plan)
+        if e.get("fps") is None and abs(read.get(str(e["session"]), model_fps) - model_fps) > 1e-9
+    }
+    if not found:
+        return None
+    return [{**e, "fps": found[i]} if i in found else e for i, e in enumerate(plan)]
 
 
 def _fit_to_model(model: BehaviourModel, decoded: Sequence[dict[str, Any]]) -> dict[str, Any]:
