@@ -266,13 +266,20 @@ def test_frame_and_time_disagree(tmp_path):
 
 
 def test_keypoint_missing_in_some_frames(tmp_path):
-    df = _table(n_frames=8, first=100)
-    df = df[~((df["keypoint"] == "tail") & df["frame"].isin([102, 105]))]
-    with pytest.raises(InputError) as info:
-        read_tidy(_save(df, tmp_path), fps=30)
-    msg = str(info.value)
+    # Trackers that leave out the points they missed: no row is read as a row with empty x/y
+    # (refused before, though nothing else could be meant), with a warning naming them.
+    full = _table(n_frames=8, first=100, confidence=0.9)
+    lost = (full["keypoint"] == "tail") & full["frame"].isin([102, 105])
+    with pytest.warns(InputWarning) as said:
+        got = read_tidy(_save(full[~lost], tmp_path), fps=30)
+    msg = str(said[0].message)
     assert "keypoint 'tail' has no row in 2 frame(s)" in msg and "frames [102, 105]" in msg
-    assert "add rows with empty x/y" in msg
+    assert "read as not tracked" in msg
+    empty = full.copy()
+    empty.loc[lost, ["x", "y", "confidence"]] = np.nan
+    same = read_tidy(_save(empty, tmp_path, "empty.csv"), fps=30)
+    np.testing.assert_array_equal(got.coords, same.coords)
+    np.testing.assert_array_equal(got.confidence, same.confidence)
 
 
 def test_empty_files(tmp_path):

@@ -2,7 +2,8 @@
 
 Columns: ``frame`` (whole numbers) or ``time`` (seconds), ``keypoint``, ``x``, ``y``, optional
 ``z``, ``confidence`` and ``animal``. Row order does not matter. A point the tracker missed is a
-row with empty ``x``/``y``; frames absent for every keypoint become all-missing frames.
+row with empty ``x``/``y``, or no row (with a warning); frames absent for every keypoint become
+all-missing frames.
 """
 
 from __future__ import annotations
@@ -349,7 +350,9 @@ def _check_complete(
     an_names: list[str],
     first: int,
 ) -> None:
-    """Each (frame, animal, keypoint) at most once; a frame with rows has every keypoint."""
+    """Each (frame, animal, keypoint) at most once; a keypoint without a row in a frame that
+    has rows for others is read as not tracked there, with an ``InputWarning`` (trackers that
+    leave out the points they missed write such tables)."""
     counts = np.bincount(flat, minlength=shape[0] * shape[1] * shape[2]).reshape(shape)
     many = counts > 1
     if many.any():
@@ -373,10 +376,13 @@ def _check_complete(
     who = f" for animal '{an_names[a]}'" if len(an_names) > 1 else ""
     others = [kp_names[j] for j in np.flatnonzero(per_kp) if j != k]
     also = f" (also missing rows: {others})" if others else ""
-    raise InputError(
+    warnings.warn(
         f"{info.path}: keypoint '{kp_names[k]}' has no row in {int(per_kp[k])} frame(s) that "
-        f"have rows for other keypoints{who}, e.g. frames {frames.tolist()}{also}. Every frame "
-        "needs one row per keypoint: add rows with empty x/y for points the tracker missed."
+        f"have rows for other keypoints{who}, e.g. frames {frames.tolist()}{also}; read as not "
+        "tracked in those frames (as a row with empty x/y would be). If rows were lost or "
+        "keypoint names vary within the file, check the export.",
+        InputWarning,
+        stacklevel=3,
     )
 
 
