@@ -7,8 +7,10 @@ made from the input file's bytes, how it was read (fps, calibration) and the cle
 the fitted model itself lies in ``cache/models/<digest>/``, where worker processes load it.
 A rerun with the same inputs and parameters reuses them; a run
 interrupted halfway resumes without redoing finished sessions, because every cache file is
-written atomically. Cleaned coordinates are stored as float32 and every run — fresh or cached —
-reads them back from the cache, so a cached rerun gives exactly the files of the first run.
+written atomically. Cleaned coordinates are stored as float32 (from the session's middle
+position, so that tracks far from their origin keep their precision) and every run — fresh or
+cached — reads them back from the cache, so a cached rerun gives exactly the files of the
+first run.
 """
 
 from __future__ import annotations
@@ -112,10 +114,14 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
         tracks = read_planned(entry)
         cleaned, report = clean(tracks, CleanParams.from_dict(cleaning), causal=causal)
     write_table(report.to_frame(), info["quality"])
+    # float32 keeps 7 digits: positions far from the origin (a world or map frame, 1e6 units
+    # away) would lose the movement itself, so they are stored from the session's own middle.
+    origin = _middle(cleaned.coords)
     with atomic_write(info["tracks"], "wb") as fh:
         np.savez(
             fh,
-            coords=cleaned.coords.astype(np.float32),
+            coords=(cleaned.coords - origin).astype(np.float32),
+            origin=origin,
             confidence=cleaned.confidence.astype(np.float32),
             keypoints=np.array(cleaned.keypoints),
             animals=np.array(cleaned.animals),
@@ -136,6 +142,14 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
     return {**info, "reused": False, "warnings": said}
 
 
+def _middle(coords: np.ndarray) -> np.ndarray:
+    """Per axis, the middle of the tracked positions (0 where none), shape (D,)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # an axis with no position at all
+        middle = np.nanmedian(coords.reshape(-1, coords.shape[-1]), axis=0)
+    return np.where(np.isfinite(middle), middle, 0.0)
+
+
 def _complete(info: dict[str, str]) -> bool:
     """A cache entry with all its files, whose row has the labelled frame count (entries
     written before it was recorded are made again)."""
@@ -153,8 +167,9 @@ def load_prepared(info: dict[str, Any]) -> tuple[PoseTracks, pd.DataFrame, dict[
     # The cache is read like any file a colleague could have put there: no pickle, strict JSON.
     z = load_npz(info["tracks"])
     try:
+        origin = z["origin"].astype(np.float64) if "origin" in z else 0.0
         tracks = PoseTracks(
-            coords=z["coords"].astype(np.float64),
+            coords=z["coords"].astype(np.float64) + origin,
             confidence=z["confidence"].astype(np.float64),
             keypoints=[str(k) for k in z["keypoints"]],
             animals=[str(a) for a in z["animals"]],
