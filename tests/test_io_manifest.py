@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io import (
     available_formats,
     load_study,
@@ -144,6 +144,18 @@ def test_study_with_differing_keypoints(study):
         load_study(p, progress=False)
     sessions = load_study(p, progress=False, keypoints="nose,neck")
     assert [s.keypoints for s in sessions] == [("nose", "neck")] * 2
+
+
+def test_study_with_keypoints_in_another_case_reads_them_as_one(study):
+    # 'Tail ' and 'NECK' in one export, 'tail' and 'neck' in the others: refused before as
+    # another keypoint set; the coordinates are those of the same points
+    write_tidy(_tracks(keypoints=("Tail ", "nose", "NECK")), study / "data" / "e.csv")
+    p = _manifest(study, "session,path\nm1,data/a.csv\nm5,data/e.csv\n")
+    with pytest.warns(InputWarning, match=r"'m5' write keypoint names in another case"):
+        first, other = load_study(p, progress=False)
+    assert other.keypoints == first.keypoints == ("nose", "neck", "tail")
+    raw = _tracks(keypoints=("Tail ", "nose", "NECK")).coords
+    np.testing.assert_array_equal(other.coords, raw[:, :, [1, 2, 0]])
 
 
 def test_study_reader_error_names_the_row(study):

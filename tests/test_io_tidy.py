@@ -430,3 +430,16 @@ def test_keypoints_to_keep_may_be_one_text_of_names(tmp_path):
     np.testing.assert_array_equal(
         got.coords, read_tidy(p, fps=30, keypoints=["tail", "nose"]).coords
     )
+
+
+def test_names_differing_only_in_case_or_spaces_are_one_keypoint(tmp_path):
+    # 'Nose ' on every other frame beside 'nose': kept apart, each was missing wherever the
+    # other was written, and the study's keypoint sets differed from the other sessions'.
+    df = _table(n_frames=6, confidence=0.8)
+    plain = read_tidy(_save(df, tmp_path, "plain.csv"), fps=30)
+    odd = (df["keypoint"] == "nose") & (df["frame"] % 2 == 1)
+    df.loc[odd, "keypoint"] = "Nose "
+    with pytest.warns(InputWarning, match=r"differ only in case or spaces.*'Nose ' as 'nose'"):
+        got = read_tidy(_save(df, tmp_path), fps=30)
+    assert got.keypoints == plain.keypoints
+    np.testing.assert_array_equal(got.coords, plain.coords)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import difflib
 import re
+import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from types import MappingProxyType
@@ -17,7 +18,7 @@ from typing import Any
 
 import numpy as np
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 
 UNITS = ("px", "mm", "cm", "m")
 _UNSAFE_NAME = re.compile(r"[\x00-\x1f\x7f/\\]|^[A-Za-z]:")
@@ -245,7 +246,8 @@ def match_keypoint_order(
     sessions: Sequence[PoseTracks], keypoints: Sequence[str] | None = None
 ) -> list[PoseTracks]:
     """Sessions whose keypoints are ``keypoints`` (default: the first session's) in another
-    order, put in that order.
+    order, put in that order; names that differ from them only in case or surrounding spaces
+    (``'Nose '``) take their spelling, with an ``InputWarning``.
 
     Readers keep each file's order (first appearance in a table, the series of an NWB
     container), so one study exported by different tools can list the same keypoints
@@ -263,15 +265,32 @@ def match_keypoint_order(
     if not sessions:
         return []
     ref = tuple(sessions[0].keypoints if keypoints is None else keypoints)
-    out = []
+    fold = {_folded(k): k for k in ref}
+    out, respelt = [], []
     for s in sessions:
+        names = [fold.get(_folded(k), k) for k in s.keypoints]  # 'Nose ' in one file: 'nose'
+        if len(set(names)) == len(names) and names != list(s.keypoints):
+            if sorted(names) == sorted(ref):
+                respelt.append(f"'{s.session}'")
+                s = s.replace(keypoints=names)
         if tuple(s.keypoints) != ref and sorted(s.keypoints) == sorted(ref):
             order = [s.keypoints.index(k) for k in ref]
             s = s.replace(
                 coords=s.coords[:, :, order], confidence=s.confidence[:, :, order], keypoints=ref
             )
         out.append(s)
+    if respelt:
+        warnings.warn(
+            f"session(s) {', '.join(respelt)} write keypoint names in another case or with "
+            f"spaces around them; read as {list(ref)}",
+            InputWarning,
+            stacklevel=2,
+        )
     return out
+
+
+def _folded(name: str) -> str:
+    return name.strip().casefold()
 
 
 def keypoint_mismatch(expected: Sequence[str], got: Sequence[str]) -> tuple[str, str]:

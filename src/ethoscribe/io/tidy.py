@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pyarrow as pa
 
-from ethoscribe.errors import InputError, InputWarning
+from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._atomic import write_table
 from ethoscribe.io._tables import (
     METADATA_KEY,
@@ -131,9 +131,13 @@ def read_tidy(
         fix = "pass columns={'confidence': NAME} (command line: --columns confidence=NAME)"
         warn_unmapped_confidence(info, confidence_lookalikes(info, _ROLES), fix)
 
-    kp_codes, kp_names = text_codes(text_cols["keypoint"], "keypoint", info)
+    kp_codes, kp_names = _fold_variants(
+        info, "keypoint", *text_codes(text_cols["keypoint"], "keypoint", info)
+    )
     if "animal" in text_cols:
-        an_codes, an_names = text_codes(text_cols["animal"], "animal", info)
+        an_codes, an_names = _fold_variants(
+            info, "animal", *text_codes(text_cols["animal"], "animal", info)
+        )
     else:
         an_codes, an_names = np.zeros((), dtype=np.int32), ["animal0"]
     if keypoints is not None:
@@ -172,6 +176,37 @@ def read_tidy(
         session=session if session is not None else path.stem,
         meta={"source": str(path), "source_format": "tidy", **extra},
     )
+
+
+def _fold_variants(
+    info: TableInfo, column: str, codes: np.ndarray, names: list[str]
+) -> tuple[np.ndarray, list[str]]:
+    """Names that differ only in case or surrounding spaces (``'Nose '``, ``'nose'``) are one
+    name written two ways: read as the one on most rows among those without surrounding
+    spaces, with an ``InputWarning``. Kept apart, each would be missing wherever the other is
+    written, and the study's keypoint sets would differ.
+    """
+    groups: dict[str, list[int]] = {}
+    for j, n in enumerate(names):
+        groups.setdefault(n.strip().casefold(), []).append(j)
+    if all(len(g) == 1 for g in groups.values()):
+        return codes, names
+    rows = np.bincount(codes, minlength=len(names))
+    target = np.arange(len(names))
+    for g in groups.values():
+        target[g] = max(g, key=lambda j: (names[j] == names[j].strip(), rows[j], -j))
+    pairs = [f"'{names[j]}' as '{names[t]}'" for j, t in enumerate(target) if t != j]
+    warnings.warn(
+        f"{info.path}: {column} names that differ only in case or spaces are read as one: "
+        f"{listed(pairs)}. If they are different {column}s, name them apart in the file.",
+        InputWarning,
+        stacklevel=3,
+    )
+    kept = sorted(set(target.tolist()), key=lambda t: int(np.flatnonzero(target == t)[0]))
+    renumber = np.empty(len(names), dtype=np.int64)
+    for new, t in enumerate(kept):
+        renumber[target == t] = new
+    return renumber[codes].astype(codes.dtype), [names[t] for t in kept]
 
 
 def _looks_wide(columns: tuple[str, ...]) -> list[str]:
