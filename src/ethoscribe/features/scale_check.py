@@ -96,7 +96,8 @@ def warn_scale_outliers(sessions: Sequence[PoseTracks]) -> list[str]:
         msg = (
             f"the animals of session(s) {', '.join(shown)} look larger or smaller than in the "
             "other sessions (the body's spread around its centre, against the other sessions' "
-            "median). Tracks in pixels read as calibrated, or another camera scale? Check the "
+            "median). Tracks in pixels read as calibrated, or another camera scale (or an "
+            "animal that held one posture, curled or stretched, nearly all session)? Check the "
             "units and px_per_unit of these sessions (manifest columns): sizes and speeds "
             "enter the features, so the same behaviour would look different. If the animals "
             "truly differ in size, fit with features={'scale_by_size': True} (Python)."
