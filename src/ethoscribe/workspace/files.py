@@ -268,6 +268,9 @@ def load_model(folder: Path) -> BehaviourModel:
     groups = getattr(model, "phase_groups_", None)
     if groups is not None:  # phases of one rhythm joined: fewer labelled states than fitted
         n_seg = max(groups) + 1
+    regimes = getattr(model, "regimes_", None)
+    if regimes is not None and regimes.used_:  # mixes of the labelled states labelled instead
+        n_seg = regimes.n_regimes_
     if model.n_states_ != n_seg or not 1 <= model.n_states_ <= MAX_STATES:
         msg = (
             f"{folder / 'model.json'}: n_states is {model.n_states_!r} but the segmenter has "

@@ -1,0 +1,278 @@
+"""Slow regimes: stretches of minutes in which the labelled states alternate in a steady mix.
+
+Some recordings change what they do only every minute or more while their frame-level states
+switch every second or two inside each stretch (a sensor worn through long activities, a
+machine's duty cycle): each stretch is then one *mix* of states, not one state. This module
+tells such recordings apart and labels the stretches:
+
+* **persistence** of the state mix at window ``w``: the labels are cut into consecutive windows of
+  ``w`` seconds, each described by the share of every state in it; persistence is
+  ``1 - E|s_i - s_{i+1}|^2 / E|s_i - s_j|^2`` (consecutive windows against any two windows of
+  the same recording). It is near 0 when behaviours last a few seconds (the next 16 s are as
+  unlike this 16 s as any other 16 s) and near 1 when the mix holds for minutes.
+* **regimes**: when persistence at ``window_s`` reaches ``threshold`` (and beats the same
+  windows put in random orders: permutation p <= 0.01) the frames are described by
+  the state shares in a centred window of ``window_s`` and clustered with k-means (scikit-learn),
+  the count chosen by the silhouette (Rousseeuw 1987) from ``2..max_regimes``. A frame's
+  probability of each regime is the posterior of the spherical Gaussian mixture with those
+  centres and the pooled within-cluster variance (k-means is its hard-assignment limit), so the
+  label is always the most probable regime.
+
+Measured on the validation bench (benchmarks/README.md, "Slow regimes"): persistence at 16 s is
+-0.03 to 0.09 on every simulated source, 0.03-0.28 on BasicMotions, 0.47-0.67 on HAPT and the two
+benchmark series (seeds 0-2).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from ethoscribe.segment.inputs import split_by_lengths
+
+WINDOW_S = 16.0
+THRESHOLD = 0.3
+MAX_REGIMES = 8
+SAMPLE = 4000
+# The persistence must also be beyond what the same windows in random orders give (999 orders,
+# p <= 0.01): a few windows (short sessions) make a high persistence by chance.
+P_PERMUTATIONS = 999
+P_VALUE = 0.01
+
+
+def _one_hot(states: np.ndarray, n_states: int) -> np.ndarray:
+    out = np.zeros((len(states), n_states))
+    ok = states >= 0
+    out[np.flatnonzero(ok), states[ok]] = 1.0
+    return out
+
+
+def _window_mixes(
+    states: np.ndarray, lengths: Sequence[int], n_states: int, window: int
+) -> list[tuple[np.ndarray, float]]:
+    """Per sequence with at least three windows: the windows' state shares and the mean squared
+    distance between two different windows (0: every window alike, the sequence is left out)."""
+    out = []
+    for part in split_by_lengths(np.asarray(states, dtype=np.int64), lengths):
+        m = len(part) // window
+        if m < 3:
+            continue
+        shares = _one_hot(part[: m * window], n_states).reshape(m, window, n_states).mean(axis=1)
+        sq = np.sum(shares**2, axis=1)
+        # mean squared distance over all ordered pairs i != j, without the m x m matrix
+        total = 2 * m * sq.sum() - 2 * np.sum(shares.sum(axis=0) ** 2)
+        spread = total / (m * (m - 1))
+        if spread > 1e-12:
+            out.append((shares, spread))
+    return out
+
+
+def _weighted(mixes: list[tuple[np.ndarray, float]], near: list[np.ndarray]) -> np.ndarray:
+    values = np.array([1.0 - n / spread for (_, spread), n in zip(mixes, near, strict=True)])
+    weights = np.array([len(shares) for shares, _ in mixes], dtype=np.float64)
+    return weights @ values / weights.sum()
+
+
+def persistence(states: np.ndarray, lengths: Sequence[int], n_states: int, window: int) -> float:
+    """Persistence of the state mix over consecutive windows of ``window`` frames (module doc);
+    NaN when no sequence holds three windows. Sequences are weighted by their window count."""
+    mixes = _window_mixes(states, lengths, n_states, window)
+    if not mixes:
+        return float("nan")
+    near = [np.sum(np.diff(shares, axis=0) ** 2, axis=1).mean() for shares, _ in mixes]
+    return float(_weighted(mixes, near))
+
+
+def persistence_p_value(
+    states: np.ndarray,
+    lengths: Sequence[int],
+    n_states: int,
+    window: int,
+    n_permutations: int = 999,
+    random_state: int = 0,
+) -> float:
+    """One-sided permutation p-value of :func:`persistence`: the windows of every sequence put
+    in random orders (which keeps each window's mix and forgets their order); NaN when no
+    sequence holds three windows. A few windows give a noisy persistence, so a high value alone
+    is not evidence (three windows have 6 orders: p is never below 1/6)."""
+    mixes = _window_mixes(states, lengths, n_states, window)
+    if not mixes:
+        return float("nan")
+    rng = np.random.default_rng(random_state)
+    observed = _weighted(mixes, [np.sum(np.diff(s, axis=0) ** 2, axis=1).mean() for s, _ in mixes])
+    near = []
+    for shares, _ in mixes:
+        order = rng.permuted(np.tile(np.arange(len(shares)), (n_permutations, 1)), axis=1)
+        steps = np.diff(shares[order], axis=1)  # (n_permutations, m - 1, n_states)
+        near.append(np.sum(steps**2, axis=2).mean(axis=1))
+    null = _weighted(mixes, near)
+    return float((1 + np.sum(null >= observed - 1e-12)) / (n_permutations + 1))
+
+
+def window_shares(
+    states: np.ndarray, lengths: Sequence[int], n_states: int, window: int
+) -> np.ndarray:
+    """Share of each state in a centred window of ``window`` frames around every frame
+    (shorter at a sequence's ends; unscored frames, -1, count in no state)."""
+    out = []
+    half = window // 2
+    for part in split_by_lengths(np.asarray(states, dtype=np.int64), lengths):
+        n = len(part)
+        cum = np.zeros((n + 1, n_states))
+        np.cumsum(_one_hot(part, n_states), axis=0, out=cum[1:])
+        i = np.arange(n)
+        lo, hi = np.clip(i - half, 0, n), np.clip(i + half + 1, 0, n)
+        out.append((cum[hi] - cum[lo]) / (hi - lo)[:, None])
+    return np.concatenate(out) if out else np.zeros((0, n_states))
+
+
+class SlowRegimes:
+    """Regimes of the state mix (module doc), fitted on labelled training frames.
+
+    Parameters
+    ----------
+    window_s : float
+        Window of the state shares (seconds).
+    threshold : float
+        Smallest persistence at ``window_s`` for regimes to be used.
+    max_regimes : int
+        Largest regime count tried.
+    random_state : int
+        Seed of the subsample and k-means.
+
+    Attributes
+    ----------
+    persistence_ : float
+        Persistence of the training labels at ``window_s``.
+    p_value_ : float
+        Its permutation p-value (:func:`persistence_p_value`).
+    used_ : bool
+        Whether it reached ``threshold`` with a p-value of at most 0.01 (else the labels stay
+        as they are).
+    centres_ : ndarray (n_regimes, n_states)
+        Mean state shares of every regime (empty when not used).
+    variance_ : float
+        Pooled within-regime variance per share column.
+    silhouettes_ : dict
+        Silhouette of every count tried.
+    """
+
+    def __init__(
+        self,
+        window_s: float = WINDOW_S,
+        threshold: float = THRESHOLD,
+        max_regimes: int = MAX_REGIMES,
+        random_state: int = 0,
+    ) -> None:
+        self.window_s = window_s
+        self.threshold = threshold
+        self.max_regimes = max_regimes
+        self.random_state = random_state
+
+    def window(self, fps: float) -> int:
+        return max(1, round(self.window_s * fps))
+
+    def fit(self, states: np.ndarray, lengths: Sequence[int], n_states: int, fps: float):
+        from sklearn.cluster import KMeans
+        from sklearn.metrics import silhouette_score
+
+        window = self.window(fps)
+        self.n_states_in_ = int(n_states)
+        self.persistence_ = persistence(states, lengths, n_states, window)
+        self.p_value_ = persistence_p_value(states, lengths, n_states, window, P_PERMUTATIONS)
+        self.used_ = bool(
+            np.isfinite(self.persistence_)
+            and self.persistence_ >= self.threshold
+            and self.p_value_ <= P_VALUE
+        )
+        self.centres_ = np.zeros((0, n_states))
+        self.variance_ = float("nan")
+        self.silhouettes_: dict[int, float] = {}
+        if not self.used_:
+            return self
+        shares = window_shares(states, lengths, n_states, window)[np.asarray(states) >= 0]
+        rng = np.random.default_rng(self.random_state)
+        sample = shares[rng.choice(len(shares), min(SAMPLE, len(shares)), replace=False)]
+        best = None
+        for k in range(2, self.max_regimes + 1):
+            if len(np.unique(sample, axis=0)) <= k:
+                break
+            km = KMeans(k, n_init=4, random_state=self.random_state).fit(sample)
+            score = float(silhouette_score(sample, km.labels_))
+            self.silhouettes_[k] = score
+            if best is None or score > best[0]:
+                best = (score, km)
+        if best is None:  # too few distinct mixes to cluster
+            self.used_ = False
+            return self
+        km = best[1]
+        self.centres_ = np.asarray(km.cluster_centers_, dtype=np.float64)
+        self.variance_ = max(float(km.inertia_) / (len(sample) * n_states), 1e-6)
+        return self
+
+    @property
+    def n_regimes_(self) -> int:
+        return len(self.centres_)
+
+    def predict_proba(self, shares: np.ndarray) -> np.ndarray:
+        """Posterior of every regime given the frames' state shares (module doc)."""
+        d2 = (
+            np.sum(shares**2, axis=1)[:, None]
+            - 2 * shares @ self.centres_.T
+            + np.sum(self.centres_**2, axis=1)[None, :]
+        )
+        logit = -0.5 * np.maximum(d2, 0.0) / self.variance_
+        logit -= logit.max(axis=1, keepdims=True)
+        p = np.exp(logit)
+        return p / p.sum(axis=1, keepdims=True)
+
+    def label(
+        self, states: np.ndarray, lengths: Sequence[int], fps: float
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Regime (n_frames,) and regime probabilities (n_frames, n_regimes) of labelled
+        frames; unscored frames (-1) stay -1."""
+        shares = window_shares(states, lengths, self.n_states_in_, self.window(fps))
+        prob = self.predict_proba(shares)
+        regime = np.where(np.asarray(states) >= 0, np.argmax(prob, axis=1), -1)
+        return regime, prob
+
+    def to_state(self) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
+        meta = {
+            "window_s": float(self.window_s),
+            "threshold": float(self.threshold),
+            "max_regimes": int(self.max_regimes),
+            "random_state": int(self.random_state),
+            "n_states_in": self.n_states_in_,
+            "persistence": None if not np.isfinite(self.persistence_) else self.persistence_,
+            "p_value": None if not np.isfinite(self.p_value_) else self.p_value_,
+            "used": self.used_,
+            "variance": self.variance_ if self.used_ else None,
+            "silhouettes": {str(k): v for k, v in self.silhouettes_.items()},
+        }
+        return meta, {"centres": self.centres_}
+
+    @classmethod
+    def from_state(cls, meta: dict[str, Any], arrays: dict[str, np.ndarray]) -> SlowRegimes:
+        out = cls(
+            float(meta["window_s"]),
+            float(meta["threshold"]),
+            int(meta["max_regimes"]),
+            int(meta["random_state"]),
+        )
+        out.n_states_in_ = int(meta["n_states_in"])
+        p = meta["persistence"]
+        out.persistence_ = float("nan") if p is None else float(p)
+        p = meta.get("p_value")
+        out.p_value_ = float("nan") if p is None else float(p)
+        out.used_ = bool(meta["used"])
+        centres = np.asarray(arrays["centres"], dtype=np.float64)
+        if centres.ndim != 2 or centres.shape[1] != out.n_states_in_:
+            raise ValueError(f"regime centres of shape {centres.shape}")
+        out.centres_ = centres
+        out.variance_ = float(meta["variance"]) if out.used_ else float("nan")
+        if out.used_ and not (np.isfinite(out.variance_) and out.variance_ > 0):
+            raise ValueError(f"regime variance {meta['variance']!r}")
+        out.silhouettes_ = {int(k): float(v) for k, v in dict(meta["silhouettes"]).items()}
+        return out

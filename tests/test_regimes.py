@@ -1,0 +1,188 @@
+"""Slow regimes of the state mix (ethoscribe.segment.regimes) and their use by BehaviourModel.
+
+References: scipy ``pdist`` (squared Euclidean distances between windows), pandas centred
+``rolling`` means (window shares), scikit-learn ``GaussianMixture`` with spherical covariances
+(regime posteriors), scikit-learn ``adjusted_rand_score``. The recovery cases are invented
+label sequences; the end-to-end case is the TSSB GunPoint series shipped inside aeon.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.spatial.distance import pdist
+from scipy.stats import permutation_test
+from sklearn.metrics import adjusted_rand_score
+from sklearn.mixture import GaussianMixture
+
+from ethoscribe.segment.regimes import (
+    SlowRegimes,
+    persistence,
+    persistence_p_value,
+    window_shares,
+)
+
+
+def _shares(states, window, k):
+    m = len(states) // window
+    return np.stack([(states[: m * window].reshape(m, window) == j).mean(1) for j in range(k)], 1)
+
+
+def _alternating(rng, pairs, stretch, bout):
+    """Stretches of ``stretch`` frames, each alternating between the two states of one pair in
+    bouts of 1..2*bout frames; the pair of each stretch in turn."""
+    states, regime = [], []
+    for i, pair in enumerate(pairs):
+        n = 0
+        while n < stretch:
+            b = int(rng.integers(1, 2 * bout))
+            states.append(np.full(b, pair[len(states) % 2]))
+            regime.append(np.full(b, i))
+            n += b
+    return np.concatenate(states), np.concatenate(regime)
+
+
+def test_persistence_equals_its_definition_with_scipy_distances():
+    rng = np.random.default_rng(0)
+    states = np.repeat(rng.integers(0, 4, 300), rng.integers(1, 20, 300))[:2000]
+    window = 50
+    s = _shares(states, window, 4)
+    # Definition (module doc): 1 - mean squared step between consecutive windows / mean squared
+    # distance over all pairs of windows; scipy pdist gives each unordered pair once.
+    expected = 1 - np.sum(np.diff(s, axis=0) ** 2, axis=1).mean() / pdist(s, "sqeuclidean").mean()
+    assert persistence(states, [len(states)], 4, window) == pytest.approx(expected, rel=1e-12)
+
+
+def test_permutation_p_value_agrees_with_scipy_permutation_test():
+    rng = np.random.default_rng(6)
+    # a weak drift of the mix over 20 windows of 30 frames: p neither tiny nor large
+    p_one = np.clip(np.linspace(0.35, 0.65, 600) + rng.normal(0, 0.05, 600), 0, 1)
+    states = (rng.random(600) < p_one).astype(np.int64)
+    window = 30
+    ours = persistence_p_value(states, [600], 2, window, n_permutations=4999, random_state=1)
+    s = _shares(states, window, 2)
+
+    # scipy.stats.permutation_test, one sample's order permuted ("pairings"), one-sided: the
+    # statistic of the windows in a given order, from the same persistence on re-ordered labels
+    idx = np.arange(len(s))
+    blocks = states[: len(s) * window].reshape(len(s), window)
+
+    def statistic(order):
+        return persistence(blocks[order].ravel(), [len(s) * window], 2, window)
+
+    ref = permutation_test(
+        (idx,), statistic, permutation_type="pairings", alternative="greater",
+        n_resamples=4999, random_state=2,
+    ).pvalue  # fmt: skip
+    assert 0.001 < ref < 0.5
+    assert ours == pytest.approx(ref, abs=0.03)  # two random draws of 4,999 orders
+
+
+def test_a_few_windows_never_count_as_persistent():
+    # three windows of two sequences: 6 orders each; even a perfect order is not evidence
+    # windows with 0 %, 50 % and 100 % of state 1, in that order: the middle one in the middle
+    # (steps 0.5 and 0.5 against a mean pair distance of 1.0: persistence 0.5, worked by hand)
+    states = np.r_[np.zeros(30), np.tile([0, 1], 15), np.ones(30)].astype(np.int64)
+    both = np.r_[states, states]
+    assert persistence(both, [90, 90], 2, 30) == pytest.approx(0.5)
+    assert persistence_p_value(both, [90, 90], 2, 30) > 0.01
+    assert not SlowRegimes(window_s=1.0).fit(both, [90, 90], 2, 30.0).used_
+
+
+def test_window_shares_equal_centred_rolling_means():
+    rng = np.random.default_rng(1)
+    states = rng.integers(-1, 3, 500)
+    lengths = [200, 300]
+    got = window_shares(states, lengths, 3, 21)
+    parts = np.split(states, [200])
+    for j in range(3):
+        # pandas: centred rolling mean, shorter windows at the ends (min_periods=1)
+        ref = np.concatenate(
+            [pd.Series((p == j).astype(float)).rolling(21, center=True, min_periods=1).mean()
+             for p in parts]
+        )  # fmt: skip
+        np.testing.assert_allclose(got[:, j], ref, atol=1e-12)
+
+
+def test_regime_posteriors_equal_a_spherical_gaussian_mixture():
+    rng = np.random.default_rng(2)
+    reg = SlowRegimes()
+    reg.centres_ = rng.random((3, 4))
+    reg.variance_ = 0.02
+    x = rng.random((50, 4))
+    # scikit-learn GaussianMixture, spherical covariances all equal, equal weights
+    gm = GaussianMixture(3, covariance_type="spherical")
+    gm.weights_ = np.full(3, 1 / 3)
+    gm.means_ = reg.centres_
+    gm.covariances_ = np.full(3, reg.variance_)
+    gm.precisions_cholesky_ = 1 / np.sqrt(gm.covariances_)
+    np.testing.assert_allclose(reg.predict_proba(x), gm.predict_proba(x), atol=1e-10)
+
+
+def test_stretches_of_alternating_states_are_found_as_regimes():
+    rng = np.random.default_rng(3)
+    # 30 fps: stretches of 2 min alternating 0/1, then 2/3, then 0/1, then 2/3 in ~1 s bouts
+    states, truth = _alternating(rng, [(0, 1), (2, 3), (0, 1), (2, 3)], 3600, 30)
+    reg = SlowRegimes(random_state=0).fit(states, [len(states)], 4, 30.0)
+    assert reg.used_ and reg.persistence_ > 0.8
+    found, prob = reg.label(states, [len(states)], 30.0)
+    assert reg.n_regimes_ == 2
+    assert adjusted_rand_score(truth % 2, found) > 0.9
+    assert np.array_equal(found, prob.argmax(1))  # the label is the most probable regime
+
+
+def test_behaviours_of_seconds_are_left_as_they_are():
+    rng = np.random.default_rng(4)
+    # bouts of 1-6 s among 5 states in random order for 10 min: nothing holds for minutes
+    states = np.repeat(rng.integers(0, 5, 400), rng.integers(30, 180, 400))[:18000]
+    reg = SlowRegimes().fit(states, [len(states)], 5, 30.0)
+    assert not reg.used_ and abs(reg.persistence_) < 0.2
+    assert reg.n_regimes_ == 0
+
+
+def test_short_sequences_give_no_persistence():
+    states = np.zeros(100, dtype=np.int64)
+    assert np.isnan(persistence(states, [100], 2, 50))
+    assert not SlowRegimes().fit(states, [100], 2, 30.0).used_
+
+
+def test_saved_regimes_give_the_same_labels():
+    rng = np.random.default_rng(5)
+    states, _ = _alternating(rng, [(0, 1), (2, 3), (0, 1)], 3000, 20)
+    reg = SlowRegimes(random_state=1).fit(states, [len(states)], 4, 25.0)
+    meta, arrays = reg.to_state()
+    back = SlowRegimes.from_state(meta, arrays)
+    a, pa = reg.label(states, [len(states)], 25.0)
+    b, pb = back.label(states, [len(states)], 25.0)
+    assert np.array_equal(a, b) and np.allclose(pa, pb)
+
+
+# The series is mapped to keypoint heights that never move sideways: the body-axis and
+# vertical-axis checks rightly have nothing to go on there.
+@pytest.mark.filterwarnings("ignore::ethoscribe.errors.InputWarning")
+@pytest.mark.filterwarnings("ignore:unreliable automatic body axis")
+def test_the_model_labels_slow_regimes_of_gun_point_and_saves_them(tmp_path):
+    pytest.importorskip("aeon.datasets")
+    from benchmarks.validity.sources.aeon_series import gun_point
+
+    from ethoscribe.io.bundle import write_bundle
+    from ethoscribe.segment.model import BehaviourModel
+    from ethoscribe.workspace.files import load_model
+
+    src = gun_point(seed=0)
+    model = BehaviourModel(random_state=0).fit(src.sessions)
+    assert model.regimes_.used_ and model.n_states_ == model.regimes_.n_regimes_
+    labels = model.label(src.sessions)
+    truth = np.concatenate([src.truth[k] for k in sorted(src.truth)])
+    # TSSB GunPoint: 2 segments; the states alone scored ARI 0.09-0.13 on the bench
+    assert adjusted_rand_score(truth, labels["state"]) > 0.5
+    assert set(labels["state"]) <= set(range(model.n_states_))
+    assert labels["fine_state"].max() < model.regimes_.n_states_in_
+    assert "regimes of the mix" in model.selection_.reason
+    off = BehaviourModel(random_state=0, slow_regimes="off").fit(src.sessions)
+    assert off.regimes_ is None and off.n_states_ == model.regimes_.n_states_in_
+    write_bundle(tmp_path / "m", *model.to_state())
+    back = load_model(tmp_path / "m")
+    again = back.label(src.sessions)
+    assert np.array_equal(again["state"], labels["state"])
