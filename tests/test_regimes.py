@@ -48,9 +48,14 @@ def test_persistence_equals_its_definition_with_scipy_distances():
     states = np.repeat(rng.integers(0, 4, 300), rng.integers(1, 20, 300))[:2000]
     window = 50
     s = _shares(states, window, 4)
-    # Definition (module doc): 1 - mean squared step between consecutive windows / mean squared
-    # distance over all pairs of windows; scipy pdist gives each unordered pair once.
-    expected = 1 - np.sum(np.diff(s, axis=0) ** 2, axis=1).mean() / pdist(s, "sqeuclidean").mean()
+    mixed = s.max(1) <= 0.8
+    assert 3 < mixed.sum() < len(s)  # both kinds of window occur
+    # Definition (module doc): over mixed windows, 1 - mean squared step between consecutive
+    # mixed windows / mean squared distance over all pairs of mixed windows; scipy pdist gives
+    # each unordered pair once.
+    pairs = mixed[1:] & mixed[:-1]
+    near = np.sum(np.diff(s, axis=0) ** 2, axis=1)[pairs].mean()
+    expected = 1 - near / pdist(s[mixed], "sqeuclidean").mean()
     assert persistence(states, [len(states)], 4, window) == pytest.approx(expected, rel=1e-12)
 
 
@@ -81,13 +86,35 @@ def test_permutation_p_value_agrees_with_scipy_permutation_test():
 
 def test_a_few_windows_never_count_as_persistent():
     # three windows of two sequences: 6 orders each; even a perfect order is not evidence
-    # windows with 0 %, 50 % and 100 % of state 1, in that order: the middle one in the middle
-    # (steps 0.5 and 0.5 against a mean pair distance of 1.0: persistence 0.5, worked by hand)
-    states = np.r_[np.zeros(30), np.tile([0, 1], 15), np.ones(30)].astype(np.int64)
+    # windows with 25 %, 50 % and 75 % of state 1, in that order: the middle one in the middle
+    # (steps 0.125 and 0.125 against a mean pair distance of 0.25: persistence 0.5, by hand)
+    states = np.r_[np.repeat([1, 0], [10, 30]), np.repeat([1, 0], 20), np.repeat([1, 0], [30, 10])]
     both = np.r_[states, states]
-    assert persistence(both, [90, 90], 2, 30) == pytest.approx(0.5)
-    assert persistence_p_value(both, [90, 90], 2, 30) > 0.01
-    assert not SlowRegimes(window_s=1.0).fit(both, [90, 90], 2, 30.0).used_
+    assert persistence(both, [120, 120], 2, 40) == pytest.approx(0.5)
+    assert persistence_p_value(both, [120, 120], 2, 40) > 0.01
+    assert not SlowRegimes(window_s=1.0).fit(both, [120, 120], 2, 40.0).used_
+
+
+def test_rest_between_active_spells_is_not_a_regime():
+    rng = np.random.default_rng(7)
+    # Invented home-cage-like labels, 30 fps, 4 sessions of 30 min: rest (state 5) for 2-5 min,
+    # then 2-5 min of behaviours 0-4 in random order, bouts of 1-6 s.
+    units = []
+    for _ in range(4):
+        parts = []
+        while sum(map(len, parts)) < 54000:
+            parts.append(np.full(int(rng.integers(120, 300)) * 30, 5))
+            spell = int(rng.integers(120, 300)) * 30
+            bouts = [np.full(int(rng.integers(30, 180)), rng.integers(0, 5)) for _ in range(200)]
+            parts.append(np.concatenate(bouts)[:spell])
+        units.append(np.concatenate(parts))
+    states, lengths = np.concatenate(units), [len(u) for u in units]
+    # over every window the rest windows alone look persistent; over the mixed ones nothing is
+    every = _shares(units[0], 480, 6)
+    steps = np.sum(np.diff(every, axis=0) ** 2, axis=1).mean()
+    assert 1 - steps / pdist(every, "sqeuclidean").mean() > 0.5
+    assert abs(persistence(states, lengths, 6, 480)) < 0.2
+    assert not SlowRegimes().fit(states, lengths, 6, 30.0).used_
 
 
 def test_window_shares_equal_centred_rolling_means():

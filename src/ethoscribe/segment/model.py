@@ -231,18 +231,19 @@ class BehaviourModel(BaseEstimator):
     slow_regimes : {"auto", "off"}
         Label stretches of minutes in which the states alternate in a steady mix, instead of
         the states themselves, when the training labels hold such stretches (HMM methods; not in
-        causal models): "auto" measures how the mix of states in 16 s windows persists from
-        one window to the next, and when it persists (at least 0.3 on the 0-1 scale of
-        :func:`ethoscribe.segment.regimes.persistence`, and more than the same windows in
-        random orders, permutation p <= 0.01) each frame is labelled with the regime
+        causal models): "auto" measures how the mix of states in 16-s windows persists from
+        one window to the next (over windows where no state holds more than 80 %: minutes of
+        rest between active spells are no mix), and when it persists (at least 0.4 on the 0-1
+        scale of :func:`ethoscribe.segment.regimes.persistence`, and more than the same windows
+        in random orders, permutation p <= 0.01) each frame is labelled with the regime
         of the state mix around it (:class:`ethoscribe.segment.regimes.SlowRegimes`). The
         ``state`` is then the regime, ``fine_state`` the state it was before, and
-        :attr:`regimes_` says what was measured (``persistence_``, ``used_``). Behaviours of a
-        few seconds give a persistence near 0 (-0.03 to 0.09 on every simulated source of the
-        validation bench, seeds 0-2) and keep their labels; the real activity recordings and
-        benchmark series whose activities last minutes reach 0.47-0.67 and gain (mean ARI over
-        seeds 0-2: GunPoint 0.11 -> 0.82, ElectricDevices 0.22 -> 0.43, HAPT 0.40 -> 0.44;
-        benchmarks/README.md, "Slow regimes"). "off": the states are the labels.
+        :attr:`regimes_` says what was measured (``persistence_``, ``p_value_``, ``used_``).
+        Behaviours of a few seconds give a persistence near 0 (-0.12 to 0.19 on every simulated
+        source of the validation bench, seeds 0-2) and keep their labels; the real activity
+        recordings and benchmark series whose activities last minutes reach 0.47-0.64 and gain
+        (mean ARI over seeds 0-2: GunPoint 0.11 -> 0.82, ElectricDevices 0.22 -> 0.43, HAPT
+        0.40 -> 0.44; benchmarks/README.md, "Slow regimes"). "off": the states are the labels.
     random_state : int, numpy.random.Generator or None
         Seed of every random choice (initialisations, subsamples). A generator gives one seed
         per fit (``random_seed_``, what a saved model records).

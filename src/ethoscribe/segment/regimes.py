@@ -6,10 +6,13 @@ machine's duty cycle): each stretch is then one *mix* of states, not one state. 
 tells such recordings apart and labels the stretches:
 
 * **persistence** of the state mix at window ``w``: the labels are cut into consecutive windows of
-  ``w`` seconds, each described by the share of every state in it; persistence is
-  ``1 - E|s_i - s_{i+1}|^2 / E|s_i - s_j|^2`` (consecutive windows against any two windows of
-  the same recording). It is near 0 when behaviours last a few seconds (the next 16 s are as
-  unlike this 16 s as any other 16 s) and near 1 when the mix holds for minutes.
+  ``w`` seconds, each described by the share of every state in it; over the *mixed* windows (no
+  state above 80 % of the window) persistence is ``1 - E|s_i - s_{i+1}|^2 / E|s_i - s_j|^2``
+  (consecutive windows against any two windows of the same recording). It is near 0 when
+  behaviours last a few seconds (the next 16 s are as unlike this 16 s as any other 16 s) and
+  near 1 when the mix holds for minutes. Windows of one state are left out: an animal resting
+  for minutes between active spells makes its windows alike without any mix holding (invented
+  labels of that kind: 0.68 over every window, 0.04 over the mixed ones).
 * **regimes**: when persistence at ``window_s`` reaches ``threshold`` (and beats the same
   windows put in random orders: permutation p <= 0.01) the frames are described by
   the state shares in a centred window of ``window_s`` and clustered with k-means (scikit-learn),
@@ -19,8 +22,8 @@ tells such recordings apart and labels the stretches:
   label is always the most probable regime.
 
 Measured on the validation bench (benchmarks/README.md, "Slow regimes"): persistence at 16 s is
--0.03 to 0.09 on every simulated source, 0.03-0.28 on BasicMotions, 0.47-0.67 on HAPT and the two
-benchmark series (seeds 0-2).
+-0.12 to 0.19 on every simulated source, -0.09 to 0.31 on BasicMotions (activities of 10 s),
+0.47-0.64 on HAPT and the two benchmark series (seeds 0-2); the threshold 0.4 lies between.
 """
 
 from __future__ import annotations
@@ -33,13 +36,15 @@ import numpy as np
 from ethoscribe.segment.inputs import split_by_lengths
 
 WINDOW_S = 16.0
-THRESHOLD = 0.3
+THRESHOLD = 0.4
 MAX_REGIMES = 8
 SAMPLE = 4000
 # The persistence must also be beyond what the same windows in random orders give (999 orders,
 # p <= 0.01): a few windows (short sessions) make a high persistence by chance.
 P_PERMUTATIONS = 999
 P_VALUE = 0.01
+# A window is mixed when no state holds more than this share of its labelled frames.
+PURE = 0.8
 
 
 def _one_hot(states: np.ndarray, n_states: int) -> np.ndarray:
@@ -51,38 +56,56 @@ def _one_hot(states: np.ndarray, n_states: int) -> np.ndarray:
 
 def _window_mixes(
     states: np.ndarray, lengths: Sequence[int], n_states: int, window: int
-) -> list[tuple[np.ndarray, float]]:
-    """Per sequence with at least three windows: the windows' state shares and the mean squared
-    distance between two different windows (0: every window alike, the sequence is left out)."""
+) -> list[tuple[np.ndarray, np.ndarray, float]]:
+    """Per sequence: the state shares of its consecutive windows, which windows are mixed (no
+    state holds more than ``PURE`` of their labelled frames) and the mean squared distance
+    between two different mixed windows; sequences with fewer than three mixed windows, or
+    with all mixed windows alike, are left out."""
     out = []
     for part in split_by_lengths(np.asarray(states, dtype=np.int64), lengths):
         m = len(part) // window
         if m < 3:
             continue
         shares = _one_hot(part[: m * window], n_states).reshape(m, window, n_states).mean(axis=1)
-        sq = np.sum(shares**2, axis=1)
-        # mean squared distance over all ordered pairs i != j, without the m x m matrix
-        total = 2 * m * sq.sum() - 2 * np.sum(shares.sum(axis=0) ** 2)
-        spread = total / (m * (m - 1))
+        seen = shares.sum(axis=1)
+        mixed = (seen > 0) & (shares.max(axis=1) <= PURE * seen)
+        n = int(mixed.sum())
+        if n < 3:
+            continue
+        mix = shares[mixed]
+        # mean squared distance over all ordered pairs i != j, without the n x n matrix
+        total = 2 * n * np.sum(mix**2) - 2 * np.sum(mix.sum(axis=0) ** 2)
+        spread = total / (n * (n - 1))
         if spread > 1e-12:
-            out.append((shares, spread))
+            out.append((shares, mixed, spread))
     return out
 
 
-def _weighted(mixes: list[tuple[np.ndarray, float]], near: list[np.ndarray]) -> np.ndarray:
-    values = np.array([1.0 - n / spread for (_, spread), n in zip(mixes, near, strict=True)])
-    weights = np.array([len(shares) for shares, _ in mixes], dtype=np.float64)
+def _near(shares: np.ndarray, mixed: np.ndarray, spread: float) -> np.ndarray:
+    """Mean squared step between consecutive windows that are both mixed; leading axes are
+    orderings. Without such a pair the windows say nothing: ``spread`` (persistence 0)."""
+    pairs = mixed[..., 1:] & mixed[..., :-1]
+    steps = np.sum(np.diff(shares, axis=-2) ** 2, axis=-1)
+    count = pairs.sum(axis=-1)
+    near = np.sum(steps * pairs, axis=-1) / np.maximum(count, 1)
+    return np.where(count > 0, near, spread)
+
+
+def _weighted(mixes: list[tuple[np.ndarray, np.ndarray, float]], near: list) -> np.ndarray:
+    values = np.array([1.0 - n / spread for (*_, spread), n in zip(mixes, near, strict=True)])
+    weights = np.array([m.sum() for _, m, _ in mixes], dtype=np.float64)
     return weights @ values / weights.sum()
 
 
 def persistence(states: np.ndarray, lengths: Sequence[int], n_states: int, window: int) -> float:
-    """Persistence of the state mix over consecutive windows of ``window`` frames (module doc);
-    NaN when no sequence holds three windows. Sequences are weighted by their window count."""
+    """Persistence of the state mix over consecutive windows of ``window`` frames (module doc),
+    over the mixed windows (no state above ``PURE`` of the window): a long bout of one state
+    (an animal resting for minutes) makes its windows alike without any mix holding; NaN when
+    no sequence holds three mixed windows. Sequences are weighted by their mixed windows."""
     mixes = _window_mixes(states, lengths, n_states, window)
     if not mixes:
         return float("nan")
-    near = [np.sum(np.diff(shares, axis=0) ** 2, axis=1).mean() for shares, _ in mixes]
-    return float(_weighted(mixes, near))
+    return float(_weighted(mixes, [_near(*mix) for mix in mixes]))
 
 
 def persistence_p_value(
@@ -95,18 +118,17 @@ def persistence_p_value(
 ) -> float:
     """One-sided permutation p-value of :func:`persistence`: the windows of every sequence put
     in random orders (which keeps each window's mix and forgets their order); NaN when no
-    sequence holds three windows. A few windows give a noisy persistence, so a high value alone
-    is not evidence (three windows have 6 orders: p is never below 1/6)."""
+    sequence holds three mixed windows. A few windows give a noisy persistence, so a high value
+    alone is not evidence (three windows have 6 orders: p is never below 1/6)."""
     mixes = _window_mixes(states, lengths, n_states, window)
     if not mixes:
         return float("nan")
     rng = np.random.default_rng(random_state)
-    observed = _weighted(mixes, [np.sum(np.diff(s, axis=0) ** 2, axis=1).mean() for s, _ in mixes])
+    observed = _weighted(mixes, [_near(*mix) for mix in mixes])
     near = []
-    for shares, _ in mixes:
+    for shares, mixed, spread in mixes:
         order = rng.permuted(np.tile(np.arange(len(shares)), (n_permutations, 1)), axis=1)
-        steps = np.diff(shares[order], axis=1)  # (n_permutations, m - 1, n_states)
-        near.append(np.sum(steps**2, axis=2).mean(axis=1))
+        near.append(_near(shares[order], mixed[order], spread))
     null = _weighted(mixes, near)
     return float((1 + np.sum(null >= observed - 1e-12)) / (n_permutations + 1))
 
