@@ -213,3 +213,23 @@ def test_the_model_labels_slow_regimes_of_gun_point_and_saves_them(tmp_path):
     back = load_model(tmp_path / "m")
     again = back.label(src.sessions)
     assert np.array_equal(again["state"], labels["state"])
+
+
+@pytest.mark.filterwarnings("ignore::ethoscribe.errors.InputWarning")
+@pytest.mark.filterwarnings("ignore:unreliable automatic body axis")
+def test_the_command_line_can_keep_the_states(tmp_path):
+    pytest.importorskip("aeon.datasets")
+    from benchmarks.validity.sources.aeon_series import gun_point
+
+    from ethoscribe.cli import main
+    from ethoscribe.simulate.examples import tidy_table
+    from ethoscribe.workspace import Workspace
+
+    src = gun_point(seed=0)
+    tidy_table(src.sessions[0]).to_csv(tmp_path / "series.csv", index=False)
+    common = [str(tmp_path / "series.csv"), "--fps", "30", "--no-stability-check", "--quiet"]
+    assert main(["discover", *common, "--out", str(tmp_path / "a")]) == 0
+    assert main(["discover", *common, "--no-slow-regimes", "--out", str(tmp_path / "b")]) == 0
+    with_regimes, without = Workspace(tmp_path / "a").model(), Workspace(tmp_path / "b").model()
+    assert with_regimes.regimes_.used_ and without.regimes_ is None
+    assert without.n_states_ == with_regimes.regimes_.n_states_in_

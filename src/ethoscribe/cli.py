@@ -271,6 +271,12 @@ def build_parser() -> argparse.ArgumentParser:
     _add_cleaning_options(d)
     d.add_argument("--states", type=_states, default="auto", help="number of motifs, or 'auto'")
     d.add_argument(
+        "--no-slow-regimes",
+        action="store_true",
+        help="keep the states as motifs even where they alternate in a mix that holds for "
+        "minutes (by default such stretches are labelled by their mix; the report says so)",
+    )
+    d.add_argument(
         "--method",
         choices=segmenter_names(),
         default="hmm",
@@ -554,6 +560,7 @@ def _run(args: argparse.Namespace) -> str:
             origin=args.origin,
             axis=args.axis,
             up_axis=args.up_axis,
+            slow_regimes=not args.no_slow_regimes,
             states=args.states,
             method=args.method,
             seed=args.seed,
@@ -633,6 +640,7 @@ _OPTIONS = {
     "seed": "--seed", "random_state": "--seed", "method": "--method", "origin": "--origin",
     "axis": "--axis", "replace_curation": "--replace-curation", "force": "--force",
     "causal": "--for-streaming", "social": "--no-social", "up_axis": "--up-axis",
+    "slow_regimes": "--no-slow-regimes",
     "scheduler": "--scheduler", "manifest": "--manifest", "out": "--out",
 }  # fmt: skip
 _ASSIGNMENT = re.compile(r"\b(" + "|".join(_OPTIONS) + r")=(True|\.\.\.|[^\s,;)]+)?")

@@ -580,7 +580,8 @@ class BehaviourModel(BaseEstimator):
                 said = (
                     f"the {self.n_states_} states alternate in mixes that hold for minutes "
                     f"(persistence {regimes.persistence_:.2f} at {regimes.window_s:g} s): "
-                    f"{regimes.n_regimes_} regimes of the mix labelled"
+                    f"{regimes.n_regimes_} regimes of the mix labelled (fine_state keeps "
+                    "the states; slow_regimes off keeps them as the motifs)"
                 )
                 self.n_states_ = regimes.n_regimes_
                 self.state_tree_ = None

@@ -113,6 +113,7 @@ def discover(
     join_tracks: bool = False,
     social: bool = True,
     up_axis: str = "z",
+    slow_regimes: bool = True,
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
@@ -133,6 +134,11 @@ def discover(
         multi-animal sessions
     up_axis : the vertical axis of 3-D tracks ("x", "y" or "z"; motion capture often has y
         up): headings and heights are taken about it
+    slow_regimes : label stretches of minutes whose states alternate in a steady mix by that
+        mix when the training labels hold such stretches (``BehaviourModel(slow_regimes=
+        "auto")``; the report says when it happened); False keeps the states as the motifs
+        (sessions whose first minutes hold other behaviours than their last can be read as
+        two regimes)
     cleaning : :class:`~ethoscribe.clean.CleanParams` or a dict of its fields; unset fields
         take their defaults, except ``swap_pairs``, which defaults to ``"auto"`` (left/right
         pairs read from the keypoint names; pass ``()`` to switch repair off). Every value used
@@ -182,6 +188,7 @@ def discover(
         sample = _training_sample(prepared, table, fit_frames, seed)
         no_social = {"social": False}  # set only when off: earlier fits keep their digest
         up = {} if up_axis == "z" else {"up_axis": up_axis}  # likewise
+        regimes = {} if slow_regimes else {"slow_regimes": "off"}  # likewise
         # The fit's features of whole sessions, kept for labelling them in this process.
         in_process = client is None and (default_jobs() if jobs is None else jobs) == 1
         fitted_features: dict[str, list[FeatureSet]] = {}
@@ -201,6 +208,7 @@ def discover(
                     random_state=seed,
                     progress=progress,
                     causal=causal,
+                    **regimes,
                 )
                 feats = model.fit_transform_cleaned(sample, quality)
             if in_process:
@@ -215,7 +223,7 @@ def discover(
         settings = {"cleaning": cleaning, "origin": origin, "axis": axis, "method": method,
                     "states": states, "seed": seed, "stability": stability,
                     "causal": causal, "versions": versions(),
-                    **({} if social else no_social), **up}  # fmt: skip
+                    **({} if social else no_social), **up, **regimes}  # fmt: skip
         digest = fit_digest(sample, quality, settings)
         model, report, _ = fit_or_reuse(out, digest, fit, force)
         model.set_params(progress=progress)
