@@ -760,9 +760,10 @@ class BehaviourModel(BaseEstimator):
             states, prob = np.zeros(0, dtype=np.int64), np.zeros((0, self.n_states_))
         # Posterior of the label given; clipped because scaled recursions round to 1 + 1e-15.
         prob = np.clip(np.take_along_axis(prob, states[:, None], axis=1)[:, 0], 0.0, 1.0)
-        fine = self._fine_states(X, lengths, offsets, hidden)
         if self._regimes_used() and len(X):  # the states under the regimes
             fine = before
+        else:
+            fine = self._fine_states(X, lengths, offsets, hidden)
         tables = []
         parts = [split_by_lengths(states, lengths), split_by_lengths(prob, lengths)]
         if fine is not None:
