@@ -752,8 +752,9 @@ class BehaviourModel(BaseEstimator):
             if self._regimes_used():
                 before = states
                 states, prob = self.regimes_.label(before, lengths, self.fps_)
-                if min_frames > 1:
-                    states = enforce_min_bout(states, min_frames, lengths, probabilities=prob)
+                # a regime bout shorter than the window never has a window of its own mix
+                shortest = max(min_frames, self.regimes_.window(self.fps_))
+                states = enforce_min_bout(states, shortest, lengths, probabilities=prob)
         else:  # nothing to decode (e.g. one session, all invalid): every frame stays -1
             X, lengths = np.zeros((0, 0)), np.zeros(0, dtype=np.int64)
             hidden = None
