@@ -242,8 +242,9 @@ class BehaviourModel(BaseEstimator):
         Behaviours of a few seconds give a persistence near 0 (-0.12 to 0.19 on every simulated
         source of the validation bench, seeds 0-2) and keep their labels; the real activity
         recordings and benchmark series whose activities last minutes reach 0.47-0.64 and gain
-        (mean ARI over seeds 0-2: GunPoint 0.11 -> 0.82, ElectricDevices 0.22 -> 0.43, HAPT
-        0.40 -> 0.44; benchmarks/README.md, "Slow regimes"). "off": the states are the labels.
+        (mean ARI over seeds 0-2: GunPoint 0.11 -> 0.87, ElectricDevices 0.22 -> 0.48, HAPT
+        0.40 -> 0.44; benchmarks/README.md, "Slow regimes"). A regime bout lasts at least the
+        window. "off": the states are the labels.
     random_state : int, numpy.random.Generator or None
         Seed of every random choice (initialisations, subsamples). A generator gives one seed
         per fit (``random_seed_``, what a saved model records).

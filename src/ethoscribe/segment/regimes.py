@@ -19,7 +19,9 @@ tells such recordings apart and labels the stretches:
   the count chosen by the silhouette (Rousseeuw 1987) from ``2..max_regimes``. A frame's
   probability of each regime is the posterior of the spherical Gaussian mixture with those
   centres and the pooled within-cluster variance (k-means is its hard-assignment limit), so the
-  label is always the most probable regime.
+  label is the most probable regime. ``BehaviourModel`` then merges regime bouts shorter than
+  the window into a neighbour (such a bout never has a window of its own mix); a merged frame
+  keeps the probability of the regime it now has, as merged states do.
 
 Measured on the validation bench (benchmarks/README.md, "Slow regimes"): persistence at 16 s is
 -0.12 to 0.19 on every simulated source, -0.09 to 0.31 on BasicMotions (activities of 10 s),
