@@ -193,6 +193,7 @@ def test_the_model_labels_slow_regimes_of_gun_point_and_saves_them(tmp_path):
     pytest.importorskip("aeon.datasets")
     from benchmarks.validity.sources.aeon_series import gun_point
 
+    from ethoscribe.errors import InputError
     from ethoscribe.io.bundle import write_bundle
     from ethoscribe.segment.model import BehaviourModel
     from ethoscribe.workspace.files import load_model
@@ -213,6 +214,12 @@ def test_the_model_labels_slow_regimes_of_gun_point_and_saves_them(tmp_path):
     back = load_model(tmp_path / "m")
     again = back.label(src.sessions)
     assert np.array_equal(again["state"], labels["state"])
+    # a hand-edited regime window is refused with the file named, not used
+    meta, arrays = model.to_state()
+    meta["regimes"]["window_s"] = -16.0
+    write_bundle(tmp_path / "edited", meta, arrays)
+    with pytest.raises(InputError, match="model"):
+        load_model(tmp_path / "edited")
 
 
 @pytest.mark.filterwarnings("ignore::ethoscribe.errors.InputWarning")

@@ -285,6 +285,11 @@ class SlowRegimes:
             int(meta["max_regimes"]),
             int(meta["random_state"]),
         )
+        if not 0 < out.window_s <= 3600 or not 2 <= out.max_regimes <= 100:
+            raise ValueError(
+                f"regimes: window_s {meta['window_s']!r} (0-3600 s) or max_regimes "
+                f"{meta['max_regimes']!r} (2-100) out of range"
+            )
         out.n_states_in_ = int(meta["n_states_in"])
         p = meta["persistence"]
         out.persistence_ = float("nan") if p is None else float(p)
