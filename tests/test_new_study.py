@@ -50,3 +50,33 @@ def test_a_folder_without_pose_files_is_a_message(tmp_path):
     assert "ethoscribe-note-error" in panel.message.value
     with pytest.raises(ethoscribe.InputError):
         panel._check()
+
+
+# discover itself warns about the y axis chosen at the end (the panel's check showed it first)
+@pytest.mark.filterwarnings("ignore::ethoscribe.errors.InputWarning")
+def test_three_dimensional_tracks_get_a_vertical_axis_choice(tmp_path):
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.simulate.examples import tidy_table
+
+    study = tmp_path / "fish"
+    study.mkdir()
+    for i in (1, 2):  # invented fish of the package's simulator, z up, 20 s at 50 fps
+        tracks, _ = simulate_session("glass_minnow", 20.0, 50.0, seed=i, session=f"fish_{i}")
+        tidy_table(tracks).to_csv(study / f"fish_{i}.csv", index=False)
+    panel = NewStudy(study)
+    assert panel.up.layout.display == "none"  # nothing read yet
+    panel.fps.value = 50.0
+    panel.check.click()
+    assert "ethoscribe-note-ok" in panel.message.value, panel.message.value
+    assert panel.up.layout.display == "" and panel.preview["n_dims"] == 3
+    assert "vertical axis" not in panel.found.value  # z is up, as chosen
+    panel.up.value = "y"
+    panel.check.click()  # y chosen for z-up fish: the check says so, and where to change it
+    assert "vertical axis is taken to be y" in panel.found.value
+    assert "Vertical axis" in panel.found.value  # where to change it
+    panel.states.value = 3
+    panel.out.value = str(tmp_path / "results")
+    panel.run.click()  # the choice reaches discover (a user may know better than the check)
+    assert "ethoscribe-note-ok" in panel.message.value, panel.message.value
+    assert Workspace(tmp_path / "results").model().features_.up_axis == "y"
+    panel.workbench.close()

@@ -2,7 +2,8 @@
 
 Choose the pose files (a folder, or a manifest listing them), the frame rate and units, look at
 what would be read and at the automatic body axis (:func:`ethoscribe.workspace.preview.
-preview_study`), change the origin, axis or number of states if needed, and run ``discover``;
+preview_study`), change the origin, axis, vertical axis (3-D tracks) or number of states if
+needed, and run ``discover``;
 the workbench opens on the result. Each button calls one library function.
 """
 
@@ -74,6 +75,14 @@ class NewStudy(w.VBox):
         self.head = w.Dropdown(
             options=[AUTOMATIC], description="to (head side)", layout=w.Layout(width="240px")
         )
+        self.up = w.Dropdown(
+            options=[("z (default)", "z"), ("y", "y"), ("x", "x")],
+            value="z",
+            description="Vertical axis",
+            style=label,
+            layout=w.Layout(width="340px", display="none"),  # shown for 3-D tracks
+        )
+        self.up.add_class("ethoscribe-up-axis")
         self.states = w.Dropdown(
             options=[AUTOMATIC, *range(2, 21)],
             description="Motifs",
@@ -107,6 +116,7 @@ class NewStudy(w.VBox):
                 self.found,
                 flow([self.origin]),
                 flow([self.tail, self.head]),
+                self.up,
                 self.states,
                 self.out,
                 self.run,
@@ -133,7 +143,7 @@ class NewStudy(w.VBox):
 
     def _check(self) -> None:
         self.say("info", "Reading the first sessions ...")
-        info = preview_study(**self._inputs())
+        info = preview_study(**self._inputs(), up_axis=self.up.value)
         self.preview = info
         keypoints = info["keypoints"]
         tail, head = info["axis"]
@@ -141,6 +151,8 @@ class NewStudy(w.VBox):
         self.origin.options = [(f"automatic ({info['origin']})", AUTOMATIC), *named]
         self.tail.options = [(f"automatic ({tail})", AUTOMATIC), *named]
         self.head.options = [(f"automatic ({head})", AUTOMATIC), *named]
+        # 3-D tracks: which axis points up decides headings and heights (check again after a change)
+        self.up.layout.display = "" if info.get("n_dims") == 3 else "none"
         sessions = info["sessions"]
         shown = listed(sessions, 6)
         text = (
@@ -149,8 +161,13 @@ class NewStudy(w.VBox):
             f"{info['fps']:g} frames per second; coordinates in {info['units']}. "
             f"{info['axis_text']}"
         )
+        shown_warnings = list(info["warnings"])
+        if info.get("n_dims") == 3 and any("vertical axis" in t for t in shown_warnings):
+            shown_warnings.append(
+                "Choose the axis that points up under 'Vertical axis' and check the files again."
+            )
         self.found.value = note(html.escape(text)).value + "".join(
-            message_html("error", warning) for warning in info["warnings"]
+            message_html("error", warning) for warning in shown_warnings
         )
         if not self.out.value.strip():
             base = Path(self.folder.value.strip() or self.manifest.value.strip()).resolve()
@@ -173,6 +190,7 @@ class NewStudy(w.VBox):
             out=out,
             origin=None if self.origin.value == AUTOMATIC else self.origin.value,
             axis=axis,
+            up_axis=self.up.value,
             states="auto" if self.states.value == AUTOMATIC else int(self.states.value),
         )
         self.workbench = Workbench(ws.path)

@@ -26,12 +26,14 @@ def preview_study(
     fps: float | None = None,
     reader_options: Mapping[str, Any] | None = None,
     n_read: int = 2,
+    up_axis: str = "z",
 ) -> dict[str, Any]:
     """Sessions, keypoints, frame rate, units and the automatic body axis of a study.
 
     Returns a dict: ``sessions`` (names), ``keypoints``, ``animals``, ``fps``, ``units``,
-    ``axis`` (tail side, head side), ``origin``, ``axis_text`` (how the axis was chosen) and
-    ``warnings`` (e.g. an unreliable automatic axis), from the first ``n_read`` sessions.
+    ``n_dims``, ``axis`` (tail side, head side), ``origin``, ``axis_text`` (how the axis was
+    chosen) and ``warnings`` (e.g. an unreliable automatic axis, or 3-D tracks that look as if
+    another axis than ``up_axis`` points up), from the first ``n_read`` sessions.
 
     Examples
     --------
@@ -45,7 +47,7 @@ def preview_study(
     cleaned = [clean(t, cleaning)[0] for t in tracks]
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        pipe = FeaturePipeline().fit(cleaned)
+        pipe = FeaturePipeline(up_axis=up_axis).fit(cleaned)
     first = tracks[0]
     return {
         "sessions": [entry["session"] for entry in plan],
@@ -53,6 +55,7 @@ def preview_study(
         "animals": list(first.animals),
         "fps": float(first.fps),
         "units": str(first.units),
+        "n_dims": int(first.n_dims),
         "axis": tuple(pipe.axis_),
         "origin": pipe.origin_ or "centroid",
         "axis_text": str(pipe.axis_report_),
