@@ -196,16 +196,23 @@ class SlowRegimes:
         self.random_state = random_state
 
     def window(self, fps: float) -> int:
+        """The window in frames at ``fps``."""
         return max(1, round(self.window_s * fps))
 
-    def fit(self, states: np.ndarray, lengths: Sequence[int], n_states: int, fps: float):
+    def fit(
+        self, states: np.ndarray, lengths: Sequence[int], n_states: int, fps: float
+    ) -> SlowRegimes:
+        """Measure the persistence of ``states`` (labels 0..n_states-1, -1 unscored; sequences
+        of ``lengths`` frames at ``fps``) and, when it holds, cluster the window mixes."""
         from sklearn.cluster import KMeans
         from sklearn.metrics import silhouette_score
 
         window = self.window(fps)
         self.n_states_in_ = int(n_states)
         self.persistence_ = persistence(states, lengths, n_states, window)
-        self.p_value_ = persistence_p_value(states, lengths, n_states, window, P_PERMUTATIONS)
+        self.p_value_ = persistence_p_value(
+            states, lengths, n_states, window, P_PERMUTATIONS, self.random_state
+        )
         self.used_ = bool(
             np.isfinite(self.persistence_)
             and self.persistence_ >= self.threshold
@@ -238,6 +245,7 @@ class SlowRegimes:
 
     @property
     def n_regimes_(self) -> int:
+        """Number of regimes (0 when not used)."""
         return len(self.centres_)
 
     def predict_proba(self, shares: np.ndarray) -> np.ndarray:
@@ -263,6 +271,7 @@ class SlowRegimes:
         return regime, prob
 
     def to_state(self) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
+        """JSON-able description and arrays that rebuild the fitted regimes (no pickle)."""
         meta = {
             "window_s": float(self.window_s),
             "threshold": float(self.threshold),
@@ -279,6 +288,7 @@ class SlowRegimes:
 
     @classmethod
     def from_state(cls, meta: dict[str, Any], arrays: dict[str, np.ndarray]) -> SlowRegimes:
+        """Rebuild regimes saved by :meth:`to_state`; ``ValueError`` on values out of range."""
         out = cls(
             float(meta["window_s"]),
             float(meta["threshold"]),
