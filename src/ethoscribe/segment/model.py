@@ -569,7 +569,6 @@ class BehaviourModel(BaseEstimator):
         self.n_training_frames_ = int(lengths.sum())
         self.poor_fit_threshold_ = poor_fit_threshold(segmenter, X, lengths, offsets)
         self.regimes_ = None
-        self.n_labelled_states_ = self.n_states_
         if self._regimes_possible():
             min_frames = round(self.min_bout_s * fps_value)
             states, _ = self._states_and_probability(
@@ -592,11 +591,15 @@ class BehaviourModel(BaseEstimator):
                     )
         return feats
 
+    def _causal_path(self) -> bool:
+        """Fitted or labelled from past frames only (``causal`` or causal features): nothing
+        that needs later frames (joins, regimes) applies."""
+        return bool(self.causal) or bool((self.features or {}).get("causal"))
+
     def _regimes_possible(self) -> bool:
-        causal = self.causal or bool((self.features or {}).get("causal"))
         return (
             self.slow_regimes == "auto"
-            and not causal
+            and not self._causal_path()
             and get_segmenter(self.method).posteriors
             and hasattr(self.segmenter_, "transmat_")
         )
@@ -618,7 +621,7 @@ class BehaviourModel(BaseEstimator):
         is causal or the segmenter has no Gaussian states and transitions), and the joined
         pairs with their evidence: phases of one rhythm, one behaviour in different units,
         parts of one mode."""
-        causal = self.causal or bool((self.features or {}).get("causal"))
+        causal = self._causal_path()
         needed = ("transmat_", "means_", "covars_")
         modes = bool(getattr(self, "join_modes", False))
         if (
@@ -1123,7 +1126,6 @@ class BehaviourModel(BaseEstimator):
                     f"'n_states' {model.n_states_} differs from the {model.regimes_.n_regimes_} "
                     f"slow regimes. {RESAVE}"
                 )
-        model.n_labelled_states_ = labelled
         model.phase_groups_ = _checked_groups(
             meta.get("phase_groups"), int(model.segmenter_.n_states_), labelled
         )
@@ -1484,7 +1486,7 @@ def _joined_like_model(model: BehaviourModel, segmenter: Any, own: bool) -> Any:
     if own:
         groups = getattr(model, "phase_groups_", None)
         return segmenter if groups is None else PhaseJoined(segmenter, steady, groups)
-    causal = model.causal or bool((model.features or {}).get("causal"))
+    causal = model._causal_path()
     units = bool(getattr(model, "join_units", False))
     modes = bool(getattr(model, "join_modes", False))
     if (
