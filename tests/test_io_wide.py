@@ -199,3 +199,18 @@ def test_an_ignored_column_of_frame_numbers_with_gaps_is_named(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         read_wide(_save(df, tmp_path, "same.csv"), fps=30)
+
+
+def test_rows_repeated_with_the_same_values_are_read_once(tmp_path):
+    # Two exports joined with an overlap: frames 53-54 written twice, with the same values.
+    df = _wide()
+    joined = pd.concat([df, df.iloc[3:]], ignore_index=True)
+    with pytest.warns(InputWarning, match=r"2 row\(s\) repeat a 'frame' value.*line 7, as line 5"):
+        tracks = read_wide(_save(joined, tmp_path), fps=30, frame_column="frame")
+    expected = read_wide(_save(df, tmp_path, "once.csv"), fps=30, frame_column="frame")
+    np.testing.assert_array_equal(tracks.coords, expected.coords)
+    np.testing.assert_array_equal(tracks.confidence, expected.confidence)
+    # A repeated frame with other values is still refused (which one is right is unknown).
+    joined.loc[5, "nose_x"] += 1.0
+    with pytest.raises(InputError, match=r"'frame' must increase"):
+        read_wide(_save(joined, tmp_path, "other.csv"), fps=30, frame_column="frame")

@@ -162,6 +162,8 @@ def read_wide(
     values, _ = read_columns(info, [*timing, *found.values()], [], whole=whole)
     if time_column is not None:
         values[time_column] = seconds(values[time_column], time_unit, info.path)
+    if timing:
+        values = _drop_exact_repeats(info, values, timing[0])
     frames, fps, extra = _frames(info, values, fps, frame_column, time_column, time_unit)
     if not timing:
         _warn_frame_lookalike(info, ignored)
@@ -389,6 +391,37 @@ def _warn_frame_lookalike(info: TableInfo, ignored: list[str]) -> None:
         )
         warnings.warn(msg, InputWarning, stacklevel=3)
         return
+
+
+def _drop_exact_repeats(
+    info: TableInfo, values: dict[str, np.ndarray], column: str
+) -> dict[str, np.ndarray]:
+    """Rows repeating a frame (or time) of ``column`` with the very same values in every
+    column are one row said twice (exports joined with an overlap): the first is kept, with an
+    ``InputWarning``, and rows stay in the file's order. Repeats with other values are left
+    for the order check to refuse."""
+    key = values[column]
+    _, first, inverse = np.unique(key, return_index=True, return_inverse=True)
+    if len(first) == len(key):
+        return values
+    first_row = first[inverse.ravel()]
+    repeat = np.flatnonzero(first_row != np.arange(len(key)))
+    for v in values.values():
+        a, b = v[repeat], v[first_row[repeat]]
+        same = a == b
+        if a.dtype.kind == "f":
+            same |= np.isnan(a) & np.isnan(b)
+        if not same.all():
+            return values
+    warnings.warn(
+        f"{info.path}: {repeat.size} row(s) repeat a '{column}' value with the same values in "
+        f"every column (e.g. {info.row(int(repeat[0]))}, as {info.row(int(first_row[repeat[0]]))}"
+        "); each is read once. If the file joins overlapping exports, this is expected.",
+        InputWarning,
+        stacklevel=3,
+    )
+    keep = np.sort(first)
+    return {c: v[keep] for c, v in values.items()}
 
 
 def _increasing(info: TableInfo, values: np.ndarray, column: str) -> None:
