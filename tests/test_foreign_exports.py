@@ -8,9 +8,9 @@ import pandas as pd
 import pytest
 
 from ethoscribe.cli import command_line_message
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.io import load_study, read_folder, read_tidy, write_nwb, write_tidy
-from ethoscribe.pose import PoseTracks, match_keypoint_order
+from ethoscribe.pose import PoseTracks, check_same_body_plan, match_keypoint_order
 from ethoscribe.workspace.reading import plan_sessions
 
 KEYPOINTS = ("nose", "neck", "tail")
@@ -51,10 +51,32 @@ def test_sessions_with_keypoints_in_another_order_are_read_in_the_first_ones_ord
 
 
 def test_match_keypoint_order_leaves_other_keypoint_sets_to_the_check():
-    a, c = _tracks(0), _tracks(1, keypoints=("nose", "neck"))
+    a, c = _tracks(0), _tracks(1, keypoints=("nose", "snout", "neck"))  # one renamed
     assert match_keypoint_order([a, c])[1] is c
+    few = _tracks(1, keypoints=("nose",))  # 1 of 3: too little of the body to score
+    assert match_keypoint_order([a, few])[1] is few
     (moved,) = match_keypoint_order([a], keypoints=("tail", "neck", "nose"))
     np.testing.assert_array_equal(moved.coords[:, :, ::-1], a.coords)
+
+
+@pytest.mark.parametrize("lacking_first", [False, True])
+def test_a_session_lacking_a_keypoint_is_read_with_it_never_seen(lacking_first):
+    # A keypoint added to the tracker during the study: the earlier sessions lack it.
+    full, part = _tracks(0), _tracks(1, keypoints=("tail", "nose"))
+    given = [part, full] if lacking_first else [full, part]
+    with pytest.warns(InputWarning, match=r"'s1' \(neck\) lack keypoint\(s\).*never seen"):
+        out = match_keypoint_order(given)
+    for s in out:
+        assert s.keypoints == KEYPOINTS
+    read = out[0] if lacking_first else out[1]
+    assert np.isnan(read.coords[:, :, 1]).all() and (read.confidence[:, :, 1] == 0).all()
+    np.testing.assert_array_equal(read.coords[:, :, 0], part.coords[:, :, 1])  # nose
+    np.testing.assert_array_equal(read.coords[:, :, 2], part.coords[:, :, 0])  # tail
+    check_same_body_plan(out)  # one study now
+    # A new cohort labelled with a model's keypoints: the same reading.
+    with pytest.warns(InputWarning, match="never seen"):
+        (cohort,) = match_keypoint_order([part], keypoints=KEYPOINTS)
+    assert cohort.keypoints == KEYPOINTS
 
 
 def test_a_misspelled_keypoint_names_the_file_and_the_likely_name(tmp_path):

@@ -135,7 +135,7 @@ def test_study_mixing_2d_and_3d(study):
 
 
 def test_study_with_differing_keypoints(study):
-    write_tidy(_tracks(keypoints=("nose", "neck")), study / "data" / "d.csv")
+    write_tidy(_tracks(keypoints=("nose", "snout", "neck")), study / "data" / "d.csv")
     p = _manifest(study, "session,path\nm1,data/a.csv\nm4,data/d.csv\n")
     with pytest.raises(InputError, match=r"'m4' has different keypoints.*missing \['tail'\]"):
         load_study(p, progress=False)
@@ -144,6 +144,16 @@ def test_study_with_differing_keypoints(study):
         load_study(p, progress=False)
     sessions = load_study(p, progress=False, keypoints="nose,neck")
     assert [s.keypoints for s in sessions] == [("nose", "neck")] * 2
+
+
+def test_study_with_a_session_lacking_a_keypoint(study):
+    # 2 of the study's 3 keypoints: read with 'tail' never seen there, and said so
+    write_tidy(_tracks(keypoints=("nose", "neck")), study / "data" / "d.csv")
+    p = _manifest(study, "session,path\nm1,data/a.csv\nm4,data/d.csv\n")
+    with pytest.warns(InputWarning, match=r"'m4' \(tail\) lack keypoint"):
+        sessions = load_study(p, progress=False)
+    assert [s.keypoints for s in sessions] == [("nose", "neck", "tail")] * 2
+    assert np.isnan(sessions[1].coords[:, :, 2]).all()
 
 
 def test_study_with_keypoints_in_another_case_reads_them_as_one(study):

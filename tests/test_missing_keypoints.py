@@ -14,7 +14,7 @@ import pytest
 from sklearn.decomposition import PCA
 from sklearn.linear_model import LinearRegression
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.missing_keypoints import (
     KeypointFiller,
     body_seen,
@@ -206,3 +206,31 @@ def test_filled_frames_scored_without_their_shape_columns():
     for params in ({"method": "grouped_hmm"}, {"causal": True}):
         with pytest.raises(InputError, match="filled_frames='shape_left_out' is not available"):
             BehaviourModel(filled_frames="shape_left_out", **params).fit(sessions)
+
+
+def _without(tracks, name):
+    keep = [k for k in tracks.keypoints if k != name]
+    idx = [tracks.keypoint_index(k) for k in keep]
+    return tracks.replace(
+        coords=tracks.coords[:, :, idx], confidence=tracks.confidence[:, :, idx], keypoints=keep
+    )
+
+
+def test_a_session_without_a_keypoint_is_scored_from_the_others():
+    # A keypoint the tracker gained during the study: the first session's files lack it.
+    from sklearn.metrics import adjusted_rand_score  # reference: scikit-learn
+
+    sessions = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2, 3)]
+    given = [_without(sessions[0], "neck"), *sessions[1:]]
+    with pytest.warns(InputWarning, match=r"'s1' \(neck\) lack keypoint"):
+        model = BehaviourModel(n_states=4, segmenter=QUICK, random_state=0).fit(given)
+    assert "neck" in model.keypoints_
+    with pytest.warns(InputWarning, match="never seen"):
+        labels = model.label(given[:1])
+    assert (labels["state"] >= 0).mean() >= 0.95  # issue 12: >= 70 % of the body seen
+    assert labels["body_seen"].max() == pytest.approx(0.9)  # 9 of 10 keypoints
+    # The same frames with the keypoint: mostly the same labels.
+    whole = model.label(sessions[:1])
+    ari = adjusted_rand_score(whole["state"], labels["state"])
+    print(f"ARI with and without the keypoint: {ari:.3f}")
+    assert ari > 0.7

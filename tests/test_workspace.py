@@ -523,3 +523,41 @@ def test_an_animal_unscored_on_much_of_a_session_is_named(study, workspace, tmp_
     assert 0.3 <= share < 0.4
     texts = [str(w.message) for w in said]
     assert any(f"'session_02' (animal0): {share:.0%} of frames unscored" in t for t in texts), texts
+
+
+def test_sessions_lacking_a_keypoint_are_read_scored_and_reported(study, workspace, tmp_path):
+    """A keypoint the tracker gained during the study: an earlier session's file lacks it. It
+    is read as never seen (said once), its frames are scored from the other keypoints, and
+    quality.csv shows the keypoint missing on every frame of that session; the same for a
+    new cohort labelled with the model."""
+    table = pd.read_parquet(study / "session_01.parquet")
+    lacking = tmp_path / "data"
+    lacking.mkdir()
+    table[table["keypoint"] != "neck"].to_parquet(lacking / "session_01.parquet")
+    for name in ("session_02", "session_09"):
+        (lacking / f"{name}.parquet").write_bytes((study / f"{name}.parquet").read_bytes())
+    (lacking / "manifest.csv").write_bytes((study / "manifest.csv").read_bytes())
+    with pytest.warns(InputWarning, match=r"'session_01' \(neck\) lack keypoint") as said:
+        ws = discover(
+            [lacking], tmp_path / "ws", manifest=lacking / "manifest.csv", states=4,
+            stability=False, progress=False,
+        )  # fmt: skip
+    assert sum("lack keypoint" in str(w.message) for w in said) == 1  # once, not per step
+    labels = ws.labels()
+    first = labels[labels["session"] == "session_01"]
+    assert (first["state"] >= 0).mean() >= 0.95 and first["body_seen"].max() == pytest.approx(0.9)
+    quality = pd.read_csv(ws.path / "quality.csv")
+    row = quality[(quality["session"] == "session_01") & (quality["keypoint"] == "neck")]
+    assert len(row) == 1 and row["frac_missing_after"].item() == 1.0
+    from ethoscribe.workspace.report_sections import quality_section
+
+    assert "from every frame of a session" in quality_section(ws).text
+    assert "'neck' in 'session_01'. Their positions" in quality_section(ws).text
+    assert "from every frame" not in quality_section(workspace).text
+    with pytest.warns(InputWarning, match=r"'session_01' \(neck\) lack keypoint"):
+        cohort = label_sessions(
+            workspace.path, [lacking / "session_01.parquet"], tmp_path / "cohort",
+            manifest=lacking / "manifest.csv", progress=False,
+        )  # fmt: skip
+    assert (cohort.labels()["state"] >= 0).mean() >= 0.95
+    assert "neck" in set(pd.read_csv(cohort.path / "quality.csv")["keypoint"])

@@ -12,6 +12,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from tqdm import tqdm
+
 from ethoscribe import __version__
 from ethoscribe.errors import EthoscribeError
 from ethoscribe.segment.registry import get_segmenter, segmenter_names
@@ -680,7 +682,8 @@ def main(argv: Sequence[str] | None = None) -> int:
 
     def show(message: Any, category: Any, *_: Any, **__: Any) -> None:
         text = command_line_message(str(message))
-        print(f"{where}: warning: {text}", file=sys.stderr)
+        # tqdm.write: on a line of its own, not after an open progress line
+        tqdm.write(f"{where}: warning: {text}", file=sys.stderr)
 
     try:
         with warnings.catch_warnings():

@@ -242,17 +242,28 @@ class PoseTracks:
         )
 
 
-def match_keypoint_order(
-    sessions: Sequence[PoseTracks], keypoints: Sequence[str] | None = None
-) -> list[PoseTracks]:
-    """Sessions whose keypoints are ``keypoints`` (default: the first session's) in another
-    order, put in that order; names that differ from them only in case or surrounding spaces
-    (``'Nose '``) take their spelling, with an ``InputWarning``.
+# A session lacking some of the study's keypoints is read with them never seen when it still
+# has at least this share of them (a frame is scored when 60 % of the body is seen, the model's
+# default min_body_seen); with fewer, or with names of its own, it is refused by the check.
+PAD_SHARE = 0.6
 
-    Readers keep each file's order (first appearance in a table, the series of an NWB
-    container), so one study exported by different tools can list the same keypoints
-    differently; sessions with other keypoint sets are returned unchanged for
-    :func:`check_same_body_plan` to refuse.
+
+def match_keypoint_order(
+    sessions: Sequence[PoseTracks], keypoints: Sequence[str] | None = None, warn: bool = True
+) -> list[PoseTracks]:
+    """Sessions whose keypoints are ``keypoints`` in another order, put in that order; names
+    that differ from them only in case or surrounding spaces (``'Nose '``) take their spelling,
+    with an ``InputWarning``.
+
+    Default ``keypoints``: the largest keypoint set among the sessions when every other set is
+    part of it, else the first session's. Readers keep each file's order (first appearance in a
+    table, the series of an NWB container), so one study exported by different tools can list
+    the same keypoints differently. A session that lacks some of them (a keypoint added to the
+    tracker later in the study) but has at least ``PAD_SHARE`` of them and no others is read
+    with the lacking ones never seen (NaN, confidence 0), with an ``InputWarning``: its frames
+    are scored from the keypoints it has, as frames with lost keypoints are. Sessions with other
+    keypoint sets are returned unchanged for :func:`check_same_body_plan` to refuse.
+    ``warn=False``: no warnings (sessions read and reported on already).
 
     Examples
     --------
@@ -264,29 +275,75 @@ def match_keypoint_order(
     """
     if not sessions:
         return []
-    ref = tuple(sessions[0].keypoints if keypoints is None else keypoints)
+    ref = tuple(
+        study_keypoints([s.keypoints for s in sessions]) if keypoints is None else keypoints
+    )
     fold = {_folded(k): k for k in ref}
-    out, respelt = [], []
+    out, respelt, padded = [], [], []
     for s in sessions:
         names = [fold.get(_folded(k), k) for k in s.keypoints]  # 'Nose ' in one file: 'nose'
         if len(set(names)) == len(names) and names != list(s.keypoints):
-            if sorted(names) == sorted(ref):
+            if set(names) <= set(ref):
                 respelt.append(f"'{s.session}'")
                 s = s.replace(keypoints=names)
-        if tuple(s.keypoints) != ref and sorted(s.keypoints) == sorted(ref):
+        lacking = [k for k in ref if k not in s.keypoints]
+        if lacking and set(s.keypoints) < set(ref) and len(s.keypoints) >= PAD_SHARE * len(ref):
+            padded.append(f"'{s.session}' ({', '.join(lacking)})")
+            s = _with_keypoints(s, ref)
+        elif tuple(s.keypoints) != ref and sorted(s.keypoints) == sorted(ref):
             order = [s.keypoints.index(k) for k in ref]
             s = s.replace(
                 coords=s.coords[:, :, order], confidence=s.confidence[:, :, order], keypoints=ref
             )
         out.append(s)
-    if respelt:
+    if respelt and warn:
         warnings.warn(
             f"session(s) {', '.join(respelt)} write keypoint names in another case or with "
             f"spaces around them; read as {list(ref)}",
             InputWarning,
             stacklevel=2,
         )
+    if padded and warn:
+        warnings.warn(
+            f"session(s) {', '.join(padded)} lack keypoint(s) the study has ({len(ref)}: "
+            f"{list(ref)}); read as never seen there, so those sessions' frames are scored from "
+            "the keypoints they have (body_seen in the labels says how much of the body was "
+            "seen). To leave such keypoints out of every session instead, name the keypoints "
+            "to read (keypoints=[...]; command line: --reader-option keypoints=a,b,c).",
+            InputWarning,
+            stacklevel=2,
+        )
     return out
+
+
+def study_keypoints(keypoints: Sequence[Sequence[str]]) -> tuple[str, ...]:
+    """A study's keypoints from each session's: the largest set when every other set is part
+    of it (names compared ignoring case and surrounding spaces), else the first session's.
+
+    Examples
+    --------
+    >>> study_keypoints([["nose", "tail"], ["nose", "neck", "tail"]])
+    ('nose', 'neck', 'tail')
+    >>> study_keypoints([["nose", "tail"], ["snout", "tail"]])
+    ('nose', 'tail')
+    """
+    largest = max(keypoints, key=len)
+    folded = {_folded(k) for k in largest}
+    if all({_folded(k) for k in names} <= folded for names in keypoints):
+        return tuple(largest)
+    return tuple(keypoints[0])
+
+
+def _with_keypoints(s: PoseTracks, keypoints: tuple[str, ...]) -> PoseTracks:
+    """``s`` with ``keypoints`` in that order; those it lacks never seen (NaN, confidence 0)."""
+    f, a, _, d = s.coords.shape
+    coords = np.full((f, a, len(keypoints), d), np.nan)
+    conf = np.zeros((f, a, len(keypoints)))
+    for j, k in enumerate(keypoints):
+        if k in s.keypoints:
+            i = s.keypoints.index(k)
+            coords[:, :, j], conf[:, :, j] = s.coords[:, :, i], s.confidence[:, :, i]
+    return s.replace(coords=coords, confidence=conf, keypoints=keypoints)
 
 
 def _folded(name: str) -> str:

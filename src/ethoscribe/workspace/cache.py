@@ -138,8 +138,12 @@ def prepare_session(job: dict[str, Any]) -> dict[str, Any]:
     # frame rate and count read from the file.
     row[LABELLED_FPS], row[LABELLED_FRAMES] = cleaned.fps, cleaned.n_frames
     atomic_write_json(info["row"], jsonable(row))
-    said = [[type(w.message).__name__, str(w.message)] for w in caught]
-    return {**info, "reused": False, "warnings": said}
+    return {**info, "reused": False, "warnings": _said(caught)}
+
+
+def _said(caught: list[warnings.WarningMessage]) -> list[list[str]]:
+    """Recorded warnings as [category name, text] pairs (small, and plain to send back)."""
+    return [[type(w.message).__name__, str(w.message)] for w in caught]
 
 
 def _middle(coords: np.ndarray) -> np.ndarray:
@@ -255,12 +259,17 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     # ``features``: this session's features under this model, already computed by the fit
     # from the same cleaned tracks (a run in one process); otherwise computed here.
     given = job.get("features")
-    feats = [
-        dataclasses.replace(f, meta={**f.meta, "first_frame": first})
-        for f in (given if given is not None else model.featurise_cleaned([tracks]))
-    ]
-    offsets = model.offsets(feats)  # once, for the labels and the fit check
-    labels = input_frame_numbers(model.label_features(feats, offsets), first, tracks.fps)
+    # Warnings travel back with the result (said once, by the parent); sessions the model
+    # was fitted on said them at the fit already, so only new sessions' are kept.
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        feats = [
+            dataclasses.replace(f, meta={**f.meta, "first_frame": first})
+            for f in (given if given is not None else model.featurise_cleaned([tracks]))
+        ]
+        offsets = model.offsets(feats)  # once, for the labels and the fit check
+        labels = input_frame_numbers(model.label_features(feats, offsets), first, tracks.fps)
+    said = _said(caught) if job.get("fit_check") else []
     write_table(labels, f"{base}.labels.parquet")
     names = []
     for i, f in enumerate(feats):
@@ -270,7 +279,7 @@ def decode_session(job: dict[str, Any]) -> dict[str, Any]:
     if job.get("fit_check"):  # how well the model explains the session's frames (label)
         info["fit"] = model.fit_shares(feats, offsets)
     atomic_write_json(done, info)  # last: its presence says the entry is complete
-    return _absolute(info, folder)
+    return {**_absolute(info, folder), "warnings": said}
 
 
 def first_frame(tracks: PoseTracks) -> int:

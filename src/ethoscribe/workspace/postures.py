@@ -189,7 +189,8 @@ def compute_session_postures(
         # a cohort filmed faster than the model: resampled to its rate, as labelling did
         cleaning = dataclasses.replace(cleaning, target_fps=labelled_fps)
     cleaned, _ = clean(tracks, cleaning)
-    (cleaned,) = match_keypoint_order([cleaned], model.keypoints_)
+    # warn=False: the workspace's fit or labelling said it for this session already
+    (cleaned,) = match_keypoint_order([cleaned], model.keypoints_, warn=False)
     ego = egocentric_postures(cleaned, model.features_)
     # the frames the labels count (older sessions.csv: those read, unless resampled)
     expected = _number(row.get(LABELLED_FRAMES))
@@ -217,7 +218,7 @@ def _number(value: Any) -> float | None:
 def _postures_of(
     session: str, cleaned: PoseTracks, model: BehaviourModel, ego: np.ndarray | None = None
 ) -> SessionPostures:
-    (cleaned,) = match_keypoint_order([cleaned], model.keypoints_)
+    (cleaned,) = match_keypoint_order([cleaned], model.keypoints_, warn=False)
     if ego is None:
         ego = egocentric_postures(cleaned, model.features_)
     return SessionPostures(

@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ethoscribe.errors import counted
+from ethoscribe.errors import counted, listed
 from ethoscribe.ethogram import (
     duration_summary,
     pool_time_budgets,
@@ -71,6 +71,15 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
         "seen (its lost keypoints are filled from the posture model); only the frames left "
         "unscored have no motif."
     )
+    never = table[table["frac_missing_raw"] >= 1.0]
+    if len(never):
+        pairs = never.groupby("keypoint", sort=False)["session"].unique()
+        said = [f"'{k}' in {listed(repr(s) for s in v)}" for k, v in pairs.items()]
+        text += (
+            f" Keypoints absent from every frame of a session (not in its files, or never "
+            f"tracked): {listed(said, sep='; ')}. Their positions there are the posture "
+            "model's guesses, so motifs say nothing about them in those sessions."
+        )
     if labels is None:
         labels = ws.state_labels()
     unlabelled = (labels["state"] < 0).groupby([labels["session"], labels["animal"]]).mean()

@@ -18,7 +18,7 @@ from ethoscribe.errors import InputError, InputWarning, WorkspaceError, listed
 from ethoscribe.features import FeatureSet
 from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, write_table
 from ethoscribe.io.bundle import write_bundle
-from ethoscribe.pose import PoseTracks
+from ethoscribe.pose import PoseTracks, study_keypoints
 from ethoscribe.saved_state import header
 from ethoscribe.segment.model import (
     POOR_FIT_PERCENTILE,
@@ -255,10 +255,13 @@ def _prepare(
     force: bool,
     progress: bool,
     causal: bool = False,
+    keypoints: Sequence[str] | None = None,
 ) -> tuple[list[dict[str, Any]], list[pd.DataFrame], pd.DataFrame, list[Any]]:
     """Read and clean every session (in parallel, through the cache).
 
     ``cleaning`` is one set of cleaning values for every session, or one per entry of ``plan``.
+    ``keypoints``: the model's, when labelling; a session's quality table gets rows for those it
+    lacks (default: the study's, :func:`~ethoscribe.pose.study_keypoints`).
     Returns where each cleaned session lies, the quality tables, the sessions table and the
     cleaning values each session used; the tracks stay on disk until a step needs them.
     """
@@ -279,16 +282,51 @@ def _prepare(
         prepare_session, work, jobs=jobs, client=client, progress=progress,
         desc="reading and cleaning",
     )  # fmt: skip
-    for info in infos:
-        for kind, text in info.get("warnings", []):
-            category = InputWarning if kind == "InputWarning" else UserWarning
-            warnings.warn(text, category, stacklevel=3)
+    _say(infos)
     quality = [pd.read_parquet(i["quality"]) for i in infos]
     rows = [read_json(i["row"]) for i in infos]
     used = [r.pop(CLEANING_USED, None) for r in rows]
     _warn_short_sessions(rows)
     _warn_unseen_keypoints(quality)
+    quality = _with_absent_keypoints(quality, keypoints)
     return infos, quality, sessions_table(rows), used
+
+
+def _with_absent_keypoints(
+    quality: list[pd.DataFrame], keypoints: Sequence[str] | None
+) -> list[pd.DataFrame]:
+    """Quality tables with a row for every keypoint of the study (or ``keypoints``) that a
+    session's files lack: missing on every frame, so every frame of it lacks a keypoint (its
+    frames are still scored from the others, as frames with lost keypoints are)."""
+    names = [q["keypoint"].astype(str).unique().tolist() for q in quality if "keypoint" in q]
+    if keypoints is None:
+        keypoints = study_keypoints(names) if names else []
+    out = []
+    for q in quality:
+        absent = [k for k in keypoints if "keypoint" in q and k not in set(q["keypoint"])]
+        if absent and len(q):
+            units = q.drop_duplicates(["session", "animal"])[["session", "animal"]]
+            rows = units.merge(pd.DataFrame({"keypoint": absent}), how="cross")
+            numbers = [c for c in q.columns if c.startswith("frac_")]
+            rows = rows.assign(**{c: 0.0 for c in numbers})
+            rows[["frac_missing_raw", "frac_missing_after"]] = 1.0
+            q = pd.concat([q, rows[q.columns]], ignore_index=True)
+            q["frac_invalid_frames"] = 1.0
+            rank = {k: i for i, k in enumerate(keypoints)}  # the study's order, as elsewhere
+            order = np.lexsort(
+                (q["keypoint"].map(rank).fillna(len(rank)), pd.factorize(q["animal"])[0])
+            )
+            q = q.iloc[order].reset_index(drop=True)
+        out.append(q)
+    return out
+
+
+def _say(infos: Sequence[dict[str, Any]]) -> None:
+    """Warnings the workers sent back, each text once, as the user's own warnings."""
+    texts = dict.fromkeys((kind, text) for i in infos for kind, text in i.get("warnings", []))
+    for kind, text in texts:
+        category = InputWarning if kind == "InputWarning" else UserWarning
+        warnings.warn(text, category, stacklevel=4)
 
 
 def _refuse_mixed_rates(plan: Sequence[dict[str, Any]], cleaning: dict[str, Any]) -> None:
@@ -502,9 +540,11 @@ def _decode(
         for job, session in zip(work, table["session"].astype(str), strict=True):
             if session in features:
                 job["features"] = features[session]
-    return map_sessions(
+    decoded = map_sessions(
         decode_session, work, jobs=jobs, client=client, progress=progress, desc="labelling"
     )
+    _say(decoded)
+    return decoded
 
 
 def label_sessions(
@@ -547,13 +587,29 @@ def label_sessions(
         cleaning = model.cleaning_.to_dict()
         per_session = _at_model_rate(plan, cleaning, model)
         prepared, quality, table, used = _prepare(
-            out, plan, per_session, jobs, client, force, progress, bool(model.causal)
+            out,
+            plan,
+            per_session,
+            jobs,
+            client,
+            force,
+            progress,
+            bool(model.causal),
+            model.keypoints_,
         )
         timed = _rates_read(plan, table, float(model.fps_))
         if timed is not None:  # rates known only from the files: the same rule, then again
             plan, per_session = timed, _at_model_rate(timed, cleaning, model)
             prepared, quality, table, used = _prepare(
-                out, plan, per_session, jobs, client, force, progress, bool(model.causal)
+                out,
+                plan,
+                per_session,
+                jobs,
+                client,
+                force,
+                progress,
+                bool(model.causal),
+                model.keypoints_,
             )
         decoded = _decode(out, prepared, model, jobs, client, force, progress, fit_check=True)
         summary = _summary(model, table, model.random_state, None)
