@@ -80,3 +80,19 @@ def test_three_dimensional_tracks_get_a_vertical_axis_choice(tmp_path):
     assert "ethoscribe-note-ok" in panel.message.value, panel.message.value
     assert Workspace(tmp_path / "results").model().features_.up_axis == "y"
     panel.workbench.close()
+
+
+def test_a_session_lacking_a_keypoint_is_checked_as_discover_reads_it(tmp_path):
+    # The first file lacks 'neck' (added to the tracker later): the check reads the study's
+    # keypoints, as discover does, and shows the warning instead of refusing the study.
+    import pandas as pd
+
+    study = write_study(tmp_path / "study")
+    first = study / "session_01.parquet"
+    table = pd.read_parquet(first)
+    table[table["keypoint"] != "neck"].to_parquet(first)
+    panel = NewStudy(study)
+    panel.check.click()
+    assert "ethoscribe-note-error" not in panel.message.value, panel.message.value
+    assert "neck" in panel.preview["keypoints"] and len(panel.preview["keypoints"]) == 10
+    assert any("(neck) lack keypoint" in w for w in panel.preview["warnings"])

@@ -17,6 +17,7 @@ import pandas as pd
 
 from ethoscribe.clean import clean
 from ethoscribe.features import FeaturePipeline
+from ethoscribe.pose import match_keypoint_order
 from ethoscribe.workspace.reading import discovery_cleaning, plan_sessions, read_planned
 
 
@@ -47,8 +48,9 @@ def preview_study(
     cleaned = [clean(t, cleaning)[0] for t in tracks]
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
+        cleaned = match_keypoint_order(cleaned)  # as discover reads them (one keypoint set)
         pipe = FeaturePipeline(up_axis=up_axis).fit(cleaned)
-    first = tracks[0]
+    first = cleaned[0]
     return {
         "sessions": [entry["session"] for entry in plan],
         "keypoints": list(first.keypoints),
