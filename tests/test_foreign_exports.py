@@ -55,6 +55,8 @@ def test_match_keypoint_order_leaves_other_keypoint_sets_to_the_check():
     assert match_keypoint_order([a, c])[1] is c
     few = _tracks(1, keypoints=("nose",))  # 1 of 3: too little of the body to score
     assert match_keypoint_order([a, few])[1] is few
+    with pytest.raises(InputError, match=r"'s1' has 1 of the 3: .* at least 60 % of them"):
+        check_same_body_plan([a, few])
     (moved,) = match_keypoint_order([a], keypoints=("tail", "neck", "nose"))
     np.testing.assert_array_equal(moved.coords[:, :, ::-1], a.coords)
 

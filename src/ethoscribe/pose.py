@@ -387,10 +387,18 @@ def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
                     f" To keep the keypoints both have: keypoints={shared} (command line: "
                     f"--reader-option keypoints={','.join(shared)})."
                 )
+            few = ""
+            small, large = sorted((ref, s), key=lambda t: len(t.keypoints))
+            if set(small.keypoints) < set(large.keypoints):  # read as lost only up to a point
+                few = (
+                    f" Session '{small.session}' has {len(small.keypoints)} of the "
+                    f"{len(large.keypoints)}: a session lacking some keypoints is read with them "
+                    f"never seen only when it has at least {PAD_SHARE * 100:.0f} % of them."
+                )
             raise InputError(
                 f"session '{s.session}' has different keypoints from session '{ref.session}' "
                 f"({differ}, or another order){file}. All sessions of one study must share one "
-                f"keypoint set; rename or drop keypoints when reading.{hint}{keep}"
+                f"keypoint set; rename or drop keypoints when reading.{hint}{few}{keep}"
             )
         if s.n_dims != ref.n_dims:
             raise InputError(
