@@ -586,31 +586,18 @@ def label_sessions(
         client = connect(scheduler)
         cleaning = model.cleaning_.to_dict()
         per_session = _at_model_rate(plan, cleaning, model)
-        prepared, quality, table, used = _prepare(
-            out,
-            plan,
-            per_session,
-            jobs,
-            client,
-            force,
-            progress,
-            bool(model.causal),
-            model.keypoints_,
-        )
+
+        def prepare(plan: Sequence[dict[str, Any]], per_session: Sequence[dict[str, Any]]) -> tuple:
+            return _prepare(
+                out, plan, per_session, jobs, client, force, progress, bool(model.causal),
+                model.keypoints_,
+            )  # fmt: skip
+
+        prepared, quality, table, used = prepare(plan, per_session)
         timed = _rates_read(plan, table, float(model.fps_))
         if timed is not None:  # rates known only from the files: the same rule, then again
             plan, per_session = timed, _at_model_rate(timed, cleaning, model)
-            prepared, quality, table, used = _prepare(
-                out,
-                plan,
-                per_session,
-                jobs,
-                client,
-                force,
-                progress,
-                bool(model.causal),
-                model.keypoints_,
-            )
+            prepared, quality, table, used = prepare(plan, per_session)
         decoded = _decode(out, prepared, model, jobs, client, force, progress, fit_check=True)
         summary = _summary(model, table, model.random_state, None)
         summary["labelled_with"] = str(source.resolve())
