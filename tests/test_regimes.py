@@ -17,9 +17,11 @@ from sklearn.metrics import adjusted_rand_score
 from sklearn.mixture import GaussianMixture
 
 from ethoscribe.segment.regimes import (
+    ONE_CHANGE,
     SlowRegimes,
     persistence,
     persistence_p_value,
+    residual_persistence,
     window_shares,
 )
 
@@ -174,6 +176,54 @@ def test_short_sequences_give_no_persistence():
     assert not SlowRegimes().fit(states, [100], 2, 30.0).used_
 
 
+def test_residual_persistence_equals_its_definition():
+    rng = np.random.default_rng(7)
+    states = np.repeat(rng.integers(0, 4, 300), rng.integers(1, 20, 300))[:2000]
+    states[1100:] = np.where(states[1100:] == 0, 3, states[1100:])  # one change of the mix
+    window = 50
+    s = _shares(states, window, 4)
+    # The best single split by brute force: every split point, each part's squared distances
+    # to its mean (numpy), the least total kept.
+    cost = [((s[:b] - s[:b].mean(0)) ** 2).sum() + ((s[b:] - s[b:].mean(0)) ** 2).sum()
+            for b in range(1, len(s))]  # fmt: skip
+    b = 1 + int(np.argmin(cost))
+    r = s.copy()
+    r[:b] -= s[:b].mean(0)
+    r[b:] -= s[b:].mean(0)
+    mixed = s.max(1) <= 0.8
+    pairs = mixed[1:] & mixed[:-1]
+    near = np.sum(np.diff(r, axis=0) ** 2, axis=1)[pairs].mean()
+    expected = 1 - near / pdist(r[mixed], "sqeuclidean").mean()  # reference: scipy pdist
+    ours = residual_persistence(states, [len(states)], 4, window)
+    assert ours == pytest.approx(expected, rel=1e-10)
+
+
+def _two_sides(rng, n_units, minutes, fps=30):
+    """Invented sessions whose mix changes once, at a random point: states 0-2 in bouts of
+    1-6 s, then states 3-4 (a treatment given during the session)."""
+    units = []
+    for _ in range(n_units):
+        n = int(minutes * 60 * fps)
+        cut = int(rng.uniform(0.3, 0.7) * n)
+        first = np.repeat(rng.integers(0, 3, 400), rng.integers(fps, 6 * fps, 400))[:cut]
+        second = np.repeat(rng.integers(3, 5, 400), rng.integers(fps, 6 * fps, 400))[: n - cut]
+        units.append(np.concatenate([first, second]))
+    return units
+
+
+def test_one_change_per_recording_is_told_apart_from_regimes_that_recur():
+    rng = np.random.default_rng(8)
+    units = _two_sides(rng, 6, 10)
+    states, lengths = np.concatenate(units), [len(u) for u in units]
+    once = SlowRegimes(random_state=0).fit(states, lengths, 5, 30.0)
+    assert once.used_ and once.one_change_
+    assert once.residual_persistence_ < ONE_CHANGE
+    # the same mixes coming back, A B A B in 2-min stretches: slow regimes, not one change
+    states, _ = _alternating(rng, [(0, 1), (2, 3)] * 3, 3600, 30)
+    recur = SlowRegimes(random_state=0).fit(states, [len(states)], 4, 30.0)
+    assert recur.used_ and not recur.one_change_ and recur.residual_persistence_ > 0.5
+
+
 def test_saved_regimes_give_the_same_labels():
     rng = np.random.default_rng(5)
     states, _ = _alternating(rng, [(0, 1), (2, 3), (0, 1)], 3000, 20)
@@ -183,6 +233,9 @@ def test_saved_regimes_give_the_same_labels():
     a, pa = reg.label(states, [len(states)], 25.0)
     b, pb = back.label(states, [len(states)], 25.0)
     assert np.array_equal(a, b) and np.allclose(pa, pb)
+    assert back.residual_persistence_ == reg.residual_persistence_
+    del meta["residual_persistence"]  # a model saved before it was measured still loads
+    assert np.isnan(SlowRegimes.from_state(meta, arrays).residual_persistence_)
 
 
 # The series is mapped to keypoint heights that never move sideways: the body-axis and
@@ -193,13 +246,17 @@ def test_the_model_labels_slow_regimes_of_gun_point_and_saves_them(tmp_path):
     pytest.importorskip("aeon.datasets")
     from benchmarks.validity.sources.aeon_series import gun_point
 
-    from ethoscribe.errors import InputError
+    from ethoscribe.cli import command_line_message
+    from ethoscribe.errors import InputError, InputWarning
     from ethoscribe.io.bundle import write_bundle
     from ethoscribe.segment.model import BehaviourModel
     from ethoscribe.workspace.files import load_model
 
     src = gun_point(seed=0)
-    model = BehaviourModel(random_state=0).fit(src.sessions)
+    with pytest.warns(InputWarning, match="changes about once in each recording") as said:
+        model = BehaviourModel(random_state=0).fit(src.sessions)
+    (once,) = [str(w.message) for w in said if "about once" in str(w.message)]
+    assert "--no-slow-regimes keeps the behaviours" in command_line_message(once)
     assert model.regimes_.used_ and model.n_states_ == model.regimes_.n_regimes_
     labels = model.label(src.sessions)
     truth = np.concatenate([src.truth[k] for k in sorted(src.truth)])
@@ -208,6 +265,8 @@ def test_the_model_labels_slow_regimes_of_gun_point_and_saves_them(tmp_path):
     assert set(labels["state"]) <= set(range(model.n_states_))
     assert labels["fine_state"].max() < model.regimes_.n_states_in_
     assert "regimes of the mix" in model.selection_.reason
+    # GunPoint's mix changes once: the model says regimes may be two sides of one change
+    assert model.regimes_.one_change_ and "changes about once" in model.selection_.reason
     off = BehaviourModel(random_state=0, slow_regimes="off").fit(src.sessions)
     assert off.regimes_ is None and off.n_states_ == model.regimes_.n_states_in_
     write_bundle(tmp_path / "m", *model.to_state())

@@ -60,6 +60,15 @@ def run_ethoscribe(
         "params": model.get_params(),
         "warnings": sorted({str(w.message)[:300] for w in caught}),
     }
+    regimes = getattr(model, "regimes_", None)
+    if regimes is not None:  # the slow-regime rule's measurements (NaN written as null)
+        numbers = {"persistence": regimes.persistence_, "p_value": regimes.p_value_,
+                   "residual_persistence": regimes.residual_persistence_}  # fmt: skip
+        info["regimes"] = {
+            **{k: (float(v) if np.isfinite(v) else None) for k, v in numbers.items()},
+            "used": bool(regimes.used_),
+            "one_change": bool(regimes.one_change_),
+        }
     return labels, info
 
 

@@ -665,7 +665,8 @@ def command_line_message(message: str) -> str:
     def flag(name: str, value: str | None) -> str:
         option = _OPTIONS.get(name, "--" + name.replace("_", "-"))
         value = None if value is None else value.strip("'\"")
-        bare = value in (None, "", "True") or (option.startswith("--no-") and value == "False")
+        off = option.startswith("--no-") and value in ("False", "off")  # social=False, 'off'
+        bare = value in (None, "", "True") or off
         return option if bare else f"{option} {value}"
 
     message = _BOTH.sub(r"pass \2", message)

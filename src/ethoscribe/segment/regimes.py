@@ -26,6 +26,18 @@ tells such recordings apart and labels the stretches:
 Measured on the validation bench (benchmarks/README.md, "Slow regimes"): persistence at 16 s is
 -0.12 to 0.19 on every simulated source, -0.09 to 0.31 on BasicMotions (activities of 10 s),
 0.47-0.64 on HAPT and the two benchmark series (seeds 0-2); the threshold 0.4 lies between.
+
+* **one change per recording**: a slow structure can also be one change of condition in each
+  recording (a treatment given halfway, an animal settling) rather than regimes that come and
+  go. :func:`residual_persistence` is the persistence left once each recording's windows are
+  split at their one best change (least squares) and each part's mean mix is taken off: near 0
+  when one change explains the structure. Regimes are still labelled then (the model cannot
+  tell a change of condition from a change of activity), but the model says so and how to keep
+  the behaviours. Invented sessions of the package's voles whose budget steps to resting and
+  grooming halfway (4-20 min): persistence 0.40-0.50 (regimes labelled, ARI with the
+  behaviours 0.72-0.85 -> 0.22-0.26) and residual -0.04 to 0.02; GunPoint (one change) -0.02
+  to 0.01; HAPT 0.09-0.43 and ElectricDevices 0.35-0.48 (regimes that come and go); below
+  ``ONE_CHANGE`` (0.05) the model says so.
 """
 
 from __future__ import annotations
@@ -47,6 +59,8 @@ P_PERMUTATIONS = 999
 P_VALUE = 0.01
 # A window is mixed when no state holds more than this share of its labelled frames.
 PURE = 0.8
+# Residual persistence below this: one change per recording explains the slow structure.
+ONE_CHANGE = 0.05
 
 
 def _one_hot(states: np.ndarray, n_states: int) -> np.ndarray:
@@ -135,6 +149,42 @@ def persistence_p_value(
     return float((1 + np.sum(null >= observed - 1e-12)) / (n_permutations + 1))
 
 
+def _one_split(shares: np.ndarray) -> int:
+    """The window at which one split of ``shares`` (m, n_states) leaves the least squared
+    distance of the windows to their part's mean (each part at least one window)."""
+    m = len(shares)
+    c1 = np.cumsum(shares, axis=0)
+    c2 = np.cumsum(np.sum(shares**2, axis=1))
+    t = np.arange(1, m)
+    left = c2[t - 1] - np.sum(c1[t - 1] ** 2, axis=1) / t
+    rest = c1[-1] - c1[t - 1]
+    right = c2[-1] - c2[t - 1] - np.sum(rest**2, axis=1) / (m - t)
+    return int(t[np.argmin(left + right)])
+
+
+def residual_persistence(
+    states: np.ndarray, lengths: Sequence[int], n_states: int, window: int
+) -> float:
+    """:func:`persistence` of the window mixes once each sequence's windows are split at their
+    one best change (:func:`_one_split`, over all its windows) and each part's mean mix is
+    subtracted: what is left of the slow structure beyond one change per recording (module
+    doc). NaN when no sequence holds three mixed windows."""
+    mixes = []
+    for shares, mixed, _ in _window_mixes(states, lengths, n_states, window):
+        b = _one_split(shares)
+        res = shares.copy()
+        res[:b] -= shares[:b].mean(axis=0)
+        res[b:] -= shares[b:].mean(axis=0)
+        mix = res[mixed]
+        n = len(mix)
+        spread = (2 * n * np.sum(mix**2) - 2 * np.sum(mix.sum(axis=0) ** 2)) / (n * (n - 1))
+        if spread > 1e-12:
+            mixes.append((res, mixed, spread))
+    if not mixes:
+        return float("nan")
+    return float(_weighted(mixes, [_near(*mix) for mix in mixes]))
+
+
 def window_shares(
     states: np.ndarray, lengths: Sequence[int], n_states: int, window: int
 ) -> np.ndarray:
@@ -181,6 +231,8 @@ class SlowRegimes:
         Pooled within-regime variance per share column.
     silhouettes_ : dict
         Silhouette of every count tried.
+    residual_persistence_ : float
+        :func:`residual_persistence` of the training labels (NaN when not used).
     """
 
     def __init__(
@@ -221,8 +273,10 @@ class SlowRegimes:
         self.centres_ = np.zeros((0, n_states))
         self.variance_ = float("nan")
         self.silhouettes_: dict[int, float] = {}
+        self.residual_persistence_ = float("nan")
         if not self.used_:
             return self
+        self.residual_persistence_ = residual_persistence(states, lengths, n_states, window)
         shares = window_shares(states, lengths, n_states, window)[np.asarray(states) >= 0]
         rng = np.random.default_rng(self.random_state)
         sample = shares[rng.choice(len(shares), min(SAMPLE, len(shares)), replace=False)]
@@ -242,6 +296,13 @@ class SlowRegimes:
         self.centres_ = np.asarray(km.cluster_centers_, dtype=np.float64)
         self.variance_ = max(float(km.inertia_) / (len(sample) * n_states), 1e-6)
         return self
+
+    @property
+    def one_change_(self) -> bool:
+        """Whether one change per recording explains the slow structure (module doc): then
+        the regimes may be a change of condition (a treatment, settling) rather than
+        activities that come and go."""
+        return bool(self.used_ and self.residual_persistence_ < ONE_CHANGE)
 
     @property
     def n_regimes_(self) -> int:
@@ -283,6 +344,9 @@ class SlowRegimes:
             "used": self.used_,
             "variance": self.variance_ if self.used_ else None,
             "silhouettes": {str(k): v for k, v in self.silhouettes_.items()},
+            "residual_persistence": None
+            if not np.isfinite(self.residual_persistence_)
+            else self.residual_persistence_,
         }
         return meta, {"centres": self.centres_}
 
@@ -314,4 +378,6 @@ class SlowRegimes:
         if out.used_ and not (np.isfinite(out.variance_) and out.variance_ > 0):
             raise ValueError(f"regime variance {meta['variance']!r}")
         out.silhouettes_ = {int(k): float(v) for k, v in dict(meta["silhouettes"]).items()}
+        r = meta.get("residual_persistence")  # absent from models saved before it
+        out.residual_persistence_ = float("nan") if r is None else float(r)
         return out
