@@ -588,11 +588,16 @@ class BehaviourModel(BaseEstimator):
                         "the mix changes about once in each recording (residual persistence "
                         f"{regimes.residual_persistence_:.2f} after one change per recording): "
                         "if that is a change of condition (a treatment given during the "
-                        "session, an animal settling), the regimes are its two sides, not "
+                        "session, an animal settling), the regimes mark before and after it, not "
                         "behaviours; slow_regimes='off' keeps the behaviours as the motifs"
                     )
                     said = f"{said}; {once}"
-                    warnings.warn(once[0].upper() + once[1:] + ".", InputWarning, stacklevel=3)
+                    warnings.warn(
+                        f"{regimes.n_regimes_} slow regimes of the state mix were labelled as "
+                        f"the motifs, but {once}.",
+                        InputWarning,
+                        stacklevel=3,
+                    )
                 self.n_states_ = regimes.n_regimes_
                 self.state_tree_ = None
                 if self.selection_ is not None:
