@@ -446,14 +446,18 @@ def test_names_differing_only_in_case_or_spaces_are_one_keypoint(tmp_path):
 
 
 def test_times_of_a_jittered_camera_clock_give_the_frames(tmp_path):
-    # 5 min at 30 fps, 2 % of frames dropped, each time stamp off by ~1 ms (a camera clock):
+    # 5 min at 30 fps, 2 % of frames dropped, each time stamp off by ~2 ms (a camera clock):
     # the rate fitted over the times (not the median step rounded over the whole span, which
-    # gave 29.95 fps here and times "off the grid") puts every time on its frame.
+    # gave 29.95 fps on such times and a refusal) puts every time on its frame.
     from ethoscribe.io._timing import frames_from_times
 
     rng = np.random.default_rng(1)
     true = np.sort(rng.choice(9000, 8820, replace=False))
-    times = 3.0 + true / 30.0 + rng.normal(0, 0.001, true.size)
+    times = 3.0 + true / 30.0 + rng.normal(0, 0.002, true.size)
     frames, fps, t0 = frames_from_times(times, None, "clock.csv")
     np.testing.assert_array_equal(frames, true - true[0])
     assert fps == 30.0 and t0 == times[0]
+    # a rate that changes halfway (30 then 25 fps) is still refused
+    changing = np.r_[np.arange(300) / 30.0, 10.0 + np.arange(1, 251) / 25.0]
+    with pytest.raises(InputError, match="not on a steady frame rate"):
+        frames_from_times(changing, None, "changing.csv")
