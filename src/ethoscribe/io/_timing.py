@@ -85,6 +85,10 @@ def check_frame_span(
         )
 
 
+# Times from this many frames on are read as a possibly jittering clock (frames_from_times)
+JITTER_FRAMES = 64
+
+
 def frames_from_times(
     times: np.ndarray, fps: float | None, where: str | os.PathLike[str], column: str = "time"
 ) -> tuple[np.ndarray, float, float]:
@@ -92,8 +96,9 @@ def frames_from_times(
 
     Returns ``(frames, fps, t0)``: frames (n,) int64 counted from the first time ``t0``. Without
     ``fps`` the rate is fitted to the times (:func:`_grid_rate`). Whole missing frames are
-    allowed; a time off the frame grid by more than 0.4 frame, or more than 1 % of the times
-    off by more than a quarter frame, is an error.
+    allowed; a time off the frame grid by more than a quarter frame is an error, but for a
+    series of ``JITTER_FRAMES`` or more (a clock that may jitter) only beyond 0.4 frame or on
+    more than 1 % of the times.
     """
     require_two_frames(times.size, where)
     t0 = float(times[0])
@@ -101,7 +106,7 @@ def frames_from_times(
     with np.errstate(all="ignore"):  # absurd times are reported just below, not warned about
         rel = times - t0
         if fps is None:
-            fps = _grid_rate(rel, 1.0 / float(np.median(np.diff(times))))
+            fps = _grid_rate(rel, float(np.median(np.diff(times))))
         pos = rel * fps
     if not (np.isfinite(fps) and fps > 0 and np.isfinite(pos).all() and pos.max() < 2.0**53):
         raise InputError(
@@ -109,15 +114,18 @@ def frames_from_times(
             f"cannot be counted in frames at {fps:.6g} fps; check that the column holds "
             "seconds (not milliseconds or clock times), or pass the true fps"
         )
-    # The grid through the times' typical phase, not the first time's own (a jittered clock)
-    pos -= np.median(pos - np.rint(pos))
+    # A long series may come from a jittering clock: its grid goes through the times' typical
+    # phase (not the first time's own), and a rare time a quarter frame off is kept; it is off
+    # the grid by 0.4 frame (which frame is nearly ambiguous), or by a quarter frame on more
+    # than 1 % of the times (a changing rate). A short series is held to a quarter frame.
+    long = times.size >= JITTER_FRAMES
+    if long:
+        pos -= np.median(pos - np.rint(pos))
     k = np.rint(pos)
     off = np.abs(pos - k)
     same = np.r_[False, np.diff(k) == 0]
-    # Off the grid: by 0.4 frame (which frame is nearly ambiguous), or by a quarter frame on
-    # more than 1 % of the times (a changing rate); a jittering clock's rare quarter is kept.
     far = off > 0.25
-    bad = (off > 0.4) | same | (far & (far.mean() > 0.01))
+    bad = same | ((off > 0.4) | (far & (far.mean() > 0.01)) if long else far)
     if bad.any():
         i = int(np.argmax(bad))
         how = "fitted to the times" if derived else "given"
@@ -137,26 +145,26 @@ def frames_from_times(
     return frames, fps, t0
 
 
-def _grid_rate(rel: np.ndarray, fps: float) -> float:
-    """The frame rate whose grid best fits ``rel`` (seconds since the first frame), starting
-    from ``fps``: each time's whole frame, then the least-squares rate (times against frames,
-    with an intercept) over the first 64 frames, then twice as many, to the end. A camera
-    clock's jitter makes the median step a little off, and rounding the whole recording's span
-    by it would miscount frames in long recordings (2 ms of jitter at 30 fps: 29.95 fps
-    estimated over 5 min, and times 'off the grid'); a rate fitted over a growing span keeps
-    each rounding right. Exact times give the rate they were written with."""
+def _grid_rate(rel: np.ndarray, step: float) -> float:
+    """The frame rate whose grid fits ``rel`` (seconds since the first frame, ``step`` the
+    typical step): over the first 64 frames, their span in whole steps; then, over twice as
+    many frames each time to the end, the least-squares rate of the times against their whole
+    frames (with an intercept). Rounding the whole recording's span by the median step instead
+    miscounts frames when a camera clock jitters (2 ms at 30 fps over 5 min: 29.95 fps, and
+    times 'off the grid'); a short series is read as before. Exact times give the rate they
+    were written with."""
     n, m = len(rel), min(len(rel), 64)
     with np.errstate(all="ignore"):
-        while True:
+        fps = float(np.rint(rel[m - 1] / step) / rel[m - 1])
+        while m < n and np.isfinite(fps) and fps > 0:
+            m = min(n, 2 * m)
             k = np.rint(rel[:m] * fps)
             k -= k.mean()  # rel = (k + c) / fps: least squares with an intercept, since the
             r = rel[:m] - rel[:m].mean()  # first time's own jitter must not tilt the rate
-            fitted = float(k @ k) / float(k @ r)
-            if np.isfinite(fitted) and fitted > 0:
-                fps = fitted
-            if m == n:
-                return fps
-            m = min(n, 2 * m)
+            den = float(k @ r)
+            if den > 0:
+                fps = float(k @ k) / den
+    return fps
 
 
 def snap_rate(frames: np.ndarray, rel: np.ndarray, fps: float, scale: float = 0.0) -> float:
