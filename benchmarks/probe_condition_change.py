@@ -1,5 +1,6 @@
-"""Slow regimes against a change of condition inside the session (benchmarks/README.md, "Slow
-regimes": "One change per recording").
+"""Slow regimes against a change of condition inside the session.
+
+benchmarks/README.md, "Slow regimes", "One change per recording".
 
 Invented sessions of the package's dune voles (6 sessions, one animal each, 30 fps) whose
 behaviour budget changes during the session, as after a treatment given halfway (``step``) or
