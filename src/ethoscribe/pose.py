@@ -291,10 +291,7 @@ def match_keypoint_order(
             padded.append(f"'{s.session}' ({', '.join(lacking)})")
             s = _with_keypoints(s, ref)
         elif tuple(s.keypoints) != ref and sorted(s.keypoints) == sorted(ref):
-            order = [s.keypoints.index(k) for k in ref]
-            s = s.replace(
-                coords=s.coords[:, :, order], confidence=s.confidence[:, :, order], keypoints=ref
-            )
+            s = _with_keypoints(s, ref)  # the same keypoints in another order
         out.append(s)
     if respelt and warn:
         warnings.warn(
@@ -337,12 +334,11 @@ def study_keypoints(keypoints: Sequence[Sequence[str]]) -> tuple[str, ...]:
 def _with_keypoints(s: PoseTracks, keypoints: tuple[str, ...]) -> PoseTracks:
     """``s`` with ``keypoints`` in that order; those it lacks never seen (NaN, confidence 0)."""
     f, a, _, d = s.coords.shape
-    coords = np.full((f, a, len(keypoints), d), np.nan)
-    conf = np.zeros((f, a, len(keypoints)))
-    for j, k in enumerate(keypoints):
-        if k in s.keypoints:
-            i = s.keypoints.index(k)
-            coords[:, :, j], conf[:, :, j] = s.coords[:, :, i], s.confidence[:, :, i]
+    have = [j for j, k in enumerate(keypoints) if k in s.keypoints]
+    order = [s.keypoints.index(keypoints[j]) for j in have]
+    coords = np.full((f, a, len(keypoints), d), np.nan, dtype=s.coords.dtype)
+    conf = np.zeros((f, a, len(keypoints)), dtype=s.confidence.dtype)
+    coords[:, :, have], conf[:, :, have] = s.coords[:, :, order], s.confidence[:, :, order]
     return s.replace(coords=coords, confidence=conf, keypoints=keypoints)
 
 

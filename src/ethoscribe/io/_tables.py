@@ -238,6 +238,34 @@ def require_columns(info: TableInfo, needed: list[str], purpose: str) -> None:
     )
 
 
+def exact_repeats(
+    key: np.ndarray, values: Mapping[str, np.ndarray]
+) -> tuple[np.ndarray, np.ndarray] | None:
+    """Rows whose ``key`` an earlier row already holds, and that earlier row, when every one of
+    them repeats it in every column of ``values`` (NaN equal to NaN): one row said twice, as
+    when exports are joined with an overlap. Empty arrays when no key repeats; None when some
+    repeat has other values (which one is right is unknown).
+
+    Examples
+    --------
+    >>> exact_repeats(np.array([0, 1, 1]), {"x": np.array([5.0, 6.0, 6.0])})
+    (array([2]), array([1]))
+    >>> exact_repeats(np.array([0, 1, 1]), {"x": np.array([5.0, 6.0, 7.0])}) is None
+    True
+    """
+    _, first, inverse = np.unique(key, return_index=True, return_inverse=True)
+    first_row = first[inverse.ravel()]
+    repeat = np.flatnonzero(first_row != np.arange(len(key)))
+    for v in values.values():
+        a, b = v[repeat], v[first_row[repeat]]
+        same = a == b
+        if a.dtype.kind == "f":
+            same |= np.isnan(a) & np.isnan(b)
+        if not same.all():
+            return None
+    return repeat, first_row[repeat]
+
+
 def read_columns(
     info: TableInfo, numbers: list[str], texts: list[str], whole: tuple[str, ...] = ()
 ) -> tuple[dict[str, np.ndarray], dict[str, pa.ChunkedArray]]:

@@ -26,6 +26,7 @@ from ethoscribe.io._tables import (
     check_file,
     check_fps,
     confidence_lookalikes,
+    exact_repeats,
     integer_frames,
     make_tracks,
     map_columns,
@@ -354,13 +355,10 @@ def _drop_exact_repeats(
     counts = np.bincount(flat, minlength=shape[0] * shape[1] * shape[2])
     if not (counts > 1).any():
         return flat, values
-    _, first_row, inverse = np.unique(flat, return_index=True, return_inverse=True)
-    first_row = first_row[inverse.ravel()]
-    repeat = np.flatnonzero(first_row != np.arange(flat.size))
-    for v in values.values():
-        a, b = v[repeat], v[first_row[repeat]]
-        if not ((a == b) | (np.isnan(a) & np.isnan(b))).all():
-            return flat, values  # different values: refused with the cells named
+    found = exact_repeats(flat, values)
+    if found is None:
+        return flat, values  # different values: refused with the cells named
+    repeat = found[0]
     cell = int(flat[repeat[0]])
     f, rest = divmod(cell, shape[1] * shape[2])
     a, k = divmod(rest, shape[2])

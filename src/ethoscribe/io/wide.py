@@ -23,6 +23,7 @@ from ethoscribe.io._tables import (
     check_fps,
     check_role_mapping,
     confidence_lookalikes,
+    exact_repeats,
     integer_frames,
     make_tracks,
     name_list,
@@ -400,27 +401,19 @@ def _drop_exact_repeats(
     column are one row said twice (exports joined with an overlap): the first is kept, with an
     ``InputWarning``, and rows stay in the file's order. Repeats with other values are left
     for the order check to refuse."""
-    key = values[column]
-    _, first, inverse = np.unique(key, return_index=True, return_inverse=True)
-    if len(first) == len(key):
+    found = exact_repeats(values[column], values)
+    if found is None or not found[0].size:
         return values
-    first_row = first[inverse.ravel()]
-    repeat = np.flatnonzero(first_row != np.arange(len(key)))
-    for v in values.values():
-        a, b = v[repeat], v[first_row[repeat]]
-        same = a == b
-        if a.dtype.kind == "f":
-            same |= np.isnan(a) & np.isnan(b)
-        if not same.all():
-            return values
+    repeat, first_row = found
     warnings.warn(
         f"{info.path}: {repeat.size} row(s) repeat a '{column}' value with the same values in "
-        f"every column (e.g. {info.row(int(repeat[0]))}, as {info.row(int(first_row[repeat[0]]))}"
+        f"every column (e.g. {info.row(int(repeat[0]))}, as {info.row(int(first_row[0]))}"
         "); each is read once. If the file joins overlapping exports, this is expected.",
         InputWarning,
         stacklevel=3,
     )
-    keep = np.sort(first)
+    keep = np.ones(len(values[column]), bool)
+    keep[repeat] = False
     return {c: v[keep] for c, v in values.items()}
 
 

@@ -70,6 +70,14 @@ def _one_hot(states: np.ndarray, n_states: int) -> np.ndarray:
     return out
 
 
+def _spread(mix: np.ndarray) -> float:
+    """Mean squared distance between two different rows of ``mix`` (n >= 2), over all ordered
+    pairs i != j, without the n x n matrix."""
+    n = len(mix)
+    total = 2 * n * np.sum(mix**2) - 2 * np.sum(mix.sum(axis=0) ** 2)
+    return float(total / (n * (n - 1)))
+
+
 def _window_mixes(
     states: np.ndarray, lengths: Sequence[int], n_states: int, window: int
 ) -> list[tuple[np.ndarray, np.ndarray, float]]:
@@ -88,10 +96,7 @@ def _window_mixes(
         n = int(mixed.sum())
         if n < 3:
             continue
-        mix = shares[mixed]
-        # mean squared distance over all ordered pairs i != j, without the n x n matrix
-        total = 2 * n * np.sum(mix**2) - 2 * np.sum(mix.sum(axis=0) ** 2)
-        spread = total / (n * (n - 1))
+        spread = _spread(shares[mixed])
         if spread > 1e-12:
             out.append((shares, mixed, spread))
     return out
@@ -175,9 +180,7 @@ def residual_persistence(
         res = shares.copy()
         res[:b] -= shares[:b].mean(axis=0)
         res[b:] -= shares[b:].mean(axis=0)
-        mix = res[mixed]
-        n = len(mix)
-        spread = (2 * n * np.sum(mix**2) - 2 * np.sum(mix.sum(axis=0) ** 2)) / (n * (n - 1))
+        spread = _spread(res[mixed])
         if spread > 1e-12:
             mixes.append((res, mixed, spread))
     if not mixes:

@@ -298,12 +298,13 @@ def _with_absent_keypoints(
     """Quality tables with a row for every keypoint of the study (or ``keypoints``) that a
     session's files lack: missing on every frame, so every frame of it lacks a keypoint (its
     frames are still scored from the others, as frames with lost keypoints are)."""
-    names = [q["keypoint"].astype(str).unique().tolist() for q in quality if "keypoint" in q]
     if keypoints is None:
+        names = [q["keypoint"].astype(str).unique().tolist() for q in quality if "keypoint" in q]
         keypoints = study_keypoints(names) if names else []
     out = []
     for q in quality:
-        absent = [k for k in keypoints if "keypoint" in q and k not in set(q["keypoint"])]
+        seen = set(q["keypoint"]) if "keypoint" in q else set(keypoints)
+        absent = [k for k in keypoints if k not in seen]
         if absent and len(q):
             units = q.drop_duplicates(["session", "animal"])[["session", "animal"]]
             rows = units.merge(pd.DataFrame({"keypoint": absent}), how="cross")
