@@ -18,6 +18,7 @@ import numpy as np
 
 from ethoscribe.clean import StreamingCleaner
 from ethoscribe.errors import InputError, InputWarning
+from ethoscribe.pose import PAD_SHARE
 from ethoscribe.segment.inputs import check_fitted
 from ethoscribe.segment.registry import get_segmenter, segmenter_names
 
@@ -56,8 +57,11 @@ class StreamingLabeller:
         Animals per frame.
     keypoints : sequence of str, optional
         Names of the keypoints in the order the pushed frames hold them (a tracker's own
-        order); every keypoint of the model must be among them, others are ignored. Default:
-        the model's order (``model.keypoints_``).
+        order); others are ignored. A model keypoint missing from them is taken as never seen
+        (one warning), as offline for a session lacking it: allowed when the tracker has at
+        least ``PAD_SHARE`` (60 %) of the model's keypoints and the model fills lost ones
+        (``min_body_seen``, the default); its frames are scored from the others. Default: the
+        model's order (``model.keypoints_``).
     units : str, optional
         Units of the pushed coordinates: ``"px"``, ``"mm"``, ``"cm"`` or ``"m"``. Default: the
         units the model was fitted in (``model.features_.units_``). Pixels for a model fitted
@@ -108,7 +112,8 @@ class StreamingLabeller:
             )
         self.model = model
         self.n_animals = int(n_animals)
-        self._order = _keypoint_order(model.keypoints_, keypoints)
+        fills = getattr(model, "filler_", None) is not None
+        self._order = _keypoint_order(model.keypoints_, keypoints, fills)
         self.n_keypoints_in = len(model.keypoints_) if keypoints is None else len(keypoints)
         fitted_units = model.features_.units_
         units = fitted_units if units is None else units
@@ -205,14 +210,17 @@ class StreamingLabeller:
                     f"{self.n_keypoints_in}); got {c.shape}"
                 )
                 raise InputError(msg)
-            confidence = c[:, self._order]
-        return x[:, self._order], confidence
+            confidence = np.where(self._order >= 0, c[:, self._order], 0.0)
+        absent = self._order < 0  # a model keypoint the tracker lacks: never seen
+        return np.where(absent[None, :, None], np.nan, x[:, self._order]), confidence
 
 
 def _keypoint_order(
-    model_keypoints: Sequence[str], given: Sequence[str] | None
+    model_keypoints: Sequence[str], given: Sequence[str] | None, fills: bool = False
 ) -> np.ndarray | None:
-    """Indices taking the pushed keypoints to the model's order (None: already in it)."""
+    """Indices taking the pushed keypoints to the model's order (None: already in it); -1
+    for a model keypoint the tracker lacks, allowed when the model ``fills`` lost keypoints
+    and the tracker has at least ``PAD_SHARE`` of the model's (as for a session read offline)."""
     if given is None:
         return None
     if isinstance(given, str):
@@ -222,11 +230,26 @@ def _keypoint_order(
         twice = sorted({k for k in given if given.count(k) > 1})
         raise InputError(f"keypoints names {twice} more than once; each keypoint once")
     missing = [k for k in model_keypoints if k not in given]
-    if missing:
+    have = len(model_keypoints) - len(missing)
+    if missing and not (fills and have >= PAD_SHARE * len(model_keypoints)):
+        why = (
+            "a model without a keypoint filler (min_body_seen=None) needs every one"
+            if not fills
+            else f"a tracker lacking some is labelled only with at least "
+            f"{PAD_SHARE * 100:.0f} % of them ({have} of {len(model_keypoints)} given)"
+        )
         msg = (
             f"the pushed frames lack the model's keypoints {missing} (given {given}); the model "
-            f"needs {list(model_keypoints)}: map the tracker's names onto these"
+            f"needs {list(model_keypoints)} ({why}): map the tracker's names onto these"
         )
         raise InputError(msg)
-    order = np.array([given.index(k) for k in model_keypoints], dtype=np.intp)
+    if missing:
+        warnings.warn(
+            f"the pushed frames lack the model's keypoints {missing}: taken as never seen, "
+            "and frames are scored from the others (the model's posture fill), as a session "
+            "lacking them is labelled offline",
+            InputWarning,
+            stacklevel=3,
+        )
+    order = np.array([given.index(k) if k in given else -1 for k in model_keypoints], np.intp)
     return None if list(order) == list(range(len(given))) else order
