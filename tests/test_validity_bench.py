@@ -147,3 +147,30 @@ def test_one_tiny_source_end_to_end(tmp_path, monkeypatch):
         assert -1 <= result[pipeline]["ari"] <= 1
         assert result[pipeline]["frames_labelled"] == 2 * 1800
     assert "tiny_test_source" in (tmp_path / "validity.md").read_text()
+
+
+def test_the_reference_refits_without_constant_columns_when_hmmlearn_gives_up(monkeypatch):
+    # TSSB ElectricDevices (shipped inside aeon): the reference's PCA of the one series gives
+    # constant columns, and hmmlearn 0.3.3 stopped on them at seed 2 with "'covars' must be
+    # symmetric, positive-definite" (on another machine it did not). The reference then leaves
+    # them out and fits again, as a user would; forced here by failing the first fit.
+    pytest.importorskip("aeon.datasets")
+    from benchmarks.validity.pipelines import run_reference
+    from benchmarks.validity.sources.aeon_series import electric_devices
+    from hmmlearn.hmm import GaussianHMM
+
+    fit, calls = GaussianHMM.fit, []
+
+    def failing_once(self, X, lengths=None):
+        calls.append(X.shape[1])
+        if len(calls) == 1:
+            raise ValueError("'covars' must be symmetric, positive-definite")
+        return fit(self, X, lengths)
+
+    monkeypatch.setattr(GaussianHMM, "fit", failing_once)
+    src = electric_devices(2)
+    labels, info = run_reference(src, 2)
+    assert "positive-definite" in info["failed_fit"]
+    assert calls[1] == info["params"]["columns"] == 2 < calls[0]  # the series and its speed
+    [states] = labels.values()
+    assert len(states) == src.sessions[0].n_frames and len(np.unique(states)) > 1

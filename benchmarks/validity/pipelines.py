@@ -16,8 +16,11 @@ of the keypoints in each frame (heights, in 3-D, kept); scikit-learn ``PCA`` (8 
 or fewer when there are fewer coordinates) fitted on all frames of the source; the speed of
 the keypoints' mean (units per second) as one more column; ``StandardScaler``; then hmmlearn
 ``GaussianHMM(n_components=<true number of behaviours>, covariance_type="full", n_iter=50,
-random_state=seed)`` fitted on all sequences (``lengths``) and decoded (Viterbi). Every frame
-is scored. It is given the true number of behaviours, which ethoscribe is not.
+random_state=seed)`` fitted on all sequences (``lengths``) and decoded (Viterbi); when hmmlearn
+gives up on the fit (a covariance no longer positive definite: on the single series the PCA
+gives constant columns), the constant columns are left out and it is fitted again, the usual
+fix (``failed_fit`` in the JSON). Every frame is scored. It is given the true number of
+behaviours, which ethoscribe is not.
 """
 
 from __future__ import annotations
@@ -125,12 +128,21 @@ def run_reference(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.ndar
     pcs = PCA(n_components=min(8, raw.shape[1] - 1), random_state=seed).fit_transform(raw[:, :-1])
     X = StandardScaler().fit_transform(np.column_stack([pcs, raw[:, -1]]))
     k = src.n_behaviours
-    hmm = GaussianHMM(n_components=k, covariance_type="full", n_iter=50, random_state=seed)
     logging.getLogger("hmmlearn").setLevel(logging.ERROR)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        hmm.fit(X, lengths)
-        state = hmm.predict(X, lengths)
+    failed: list[str] = []
+    for attempt in range(2):
+        hmm = GaussianHMM(n_components=k, covariance_type="full", n_iter=50, random_state=seed)
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                hmm.fit(X, lengths)
+                state = hmm.predict(X, lengths)
+            break
+        except ValueError as exc:  # e.g. "'covars' must be symmetric, positive-definite"
+            if attempt:
+                raise
+            failed.append(str(exc))
+            X = X[:, X.std(axis=0) > 1e-9]  # the usual fix: constant columns left out
     seconds, cpu = time.perf_counter() - t, time.process_time() - cpu
     labels = dict(zip(keys, np.split(state, np.cumsum(lengths)[:-1]), strict=True))
     info: dict[str, Any] = {
@@ -143,7 +155,9 @@ def run_reference(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.ndar
             "covariance_type": "full",
             "n_iter": 50,
             "random_state": seed,
+            "columns": int(X.shape[1]),
         },
         "converged": bool(hmm.monitor_.converged),
+        "failed_fit": failed[0] if failed else None,
     }
     return labels, info

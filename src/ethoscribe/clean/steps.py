@@ -102,8 +102,9 @@ def _mask_confidence_inplace(x: np.ndarray, confidence: Any, thr: float | None) 
         median = float(np.median(conf[present]))
         raise InputError(
             f"all {n_present} tracked points have confidence below min_confidence={thr:g} "
-            f"(median confidence {median:.3g}); lower min_confidence (e.g. to {median:.2g}) or "
-            "check that confidence is on a 0-1 scale"
+            f"(median confidence {median:.3g}); lower min_confidence (e.g. to {median:.2g}), "
+            "check that confidence is on a 0-1 scale, or leave this recording out of the study "
+            "if its tracking failed"
         )
     x[masked] = np.nan
     return masked
