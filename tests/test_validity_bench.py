@@ -96,6 +96,20 @@ def test_boundary_counts_equal_maximum_bipartite_matching(seed):
     assert s["boundary_precision"] == pytest.approx(matched / len(fb))
 
 
+@pytest.mark.parametrize("shift", [-4, 0, 3])
+def test_boundary_lag_is_the_shift_of_late_or_early_labels(shift):
+    # Labels displaced by a known number of frames (the construction is the reference): every
+    # found boundary lies `shift` frames after its true one, so the median lag is shift / fps.
+    truth = np.repeat(np.arange(20) % 3, 30)
+    found = np.r_[np.full(max(shift, 0), truth[0]), truth][: len(truth)]
+    if shift < 0:
+        found = np.r_[truth[-shift:], np.full(-shift, truth[-1])]
+    s = score_units({("s", "a"): truth}, {("s", "a"): found}, fps=25)
+    assert s["boundary_lag_s"] == pytest.approx(shift / 25)
+    none = score_units({("s", "a"): truth}, {("s", "a"): np.zeros_like(truth)}, fps=25)
+    assert np.isnan(none["boundary_lag_s"])  # no found boundary within 1 s
+
+
 def test_gaps_in_truth_and_unscored_frames_make_no_boundaries():
     truth = np.array([0, 0, 0, -1, -1, 1, 1, 1])
     found = np.array([2, 2, -1, -1, 3, 3, 3, 3])

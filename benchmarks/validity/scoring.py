@@ -17,6 +17,9 @@ the pipeline left unscored.
   unscored predicted frames take the last scored state before them, so a run
   of unscored frames makes no boundary by itself. Boundaries are matched one-to-one within
   the margin, pooled over units (micro average), with ``ethoscribe.segment.agreement``.
+- ``boundary_lag_s``: median over true boundaries (pooled) of the signed time from each to the
+  nearest found boundary, among those with one within ``LAG_WINDOW_S`` (1 s); positive when
+  found boundaries come late. A diagnostic beside the F1 (NaN without such pairs).
 - ``unscored_pct``: share of truth-labelled frames that the pipeline left unscored.
 - ``states_found``: distinct states among the scored frames; ``states_true``: distinct
   behaviours in the truth.
@@ -67,6 +70,26 @@ def _forward_fill(labels: np.ndarray) -> np.ndarray:
     return out
 
 
+# Nearest found boundaries farther than this from a true one do not enter the median lag.
+LAG_WINDOW_S = 1.0
+
+
+def boundary_lags(true_b: np.ndarray, found_b: np.ndarray, fps: float) -> np.ndarray:
+    """Signed seconds from each true boundary to the nearest found one, within LAG_WINDOW_S.
+
+    Examples
+    --------
+    >>> boundary_lags(np.array([10, 50, 90]), np.array([12, 49]), 10.0).tolist()
+    [0.2, -0.1]
+    """
+    true_b, found_b = np.asarray(true_b), np.asarray(found_b)
+    if not len(true_b) or not len(found_b):
+        return np.zeros(0)
+    near = np.abs(found_b[None, :] - true_b[:, None]).argmin(axis=1)
+    lag = (found_b[near] - true_b) / float(fps)
+    return lag[np.abs(lag) <= LAG_WINDOW_S]
+
+
 def unit_boundaries(truth: np.ndarray, found: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """True and found boundary frames of one unit, after the gap rules of the module doc.
 
@@ -103,10 +126,13 @@ def score_units(
     rate = fps if isinstance(fps, Mapping) else dict.fromkeys(keys, fps)
     margins = {k: max(1, round(margin_s * rate[k])) for k in keys}
     counts = np.zeros(3, dtype=np.int64)
+    lags = []
     for k in keys:
         tb, fb = unit_boundaries(np.asarray(truth[k]), np.asarray(found[k]))
         s = boundary_f1(tb, fb, margins[k])
         counts += (s.n_true, s.n_predicted, s.n_matched)
+        lags.append(boundary_lags(tb, fb, rate[k]))
+    lag = np.concatenate(lags)
     pooled = scores_from_counts(*(int(c) for c in counts))
     f1, precision, recall = pooled["f1"], pooled["precision"], pooled["recall"]
     scored = both.any()
@@ -120,6 +146,7 @@ def score_units(
         "boundaries_true": int(counts[0]),
         "boundaries_found": int(counts[1]),
         "margin_frames": sorted({int(m) for m in margins.values()}),
+        "boundary_lag_s": float(np.median(lag)) if len(lag) else float("nan"),
         "unscored_pct": float(100 * (1 - both.sum() / max(labelled.sum(), 1))),
         "states_found": len(np.unique(f[both])),
         "states_true": len(np.unique(t[labelled])),
