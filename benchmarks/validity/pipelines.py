@@ -129,20 +129,21 @@ def run_reference(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.ndar
     X = StandardScaler().fit_transform(np.column_stack([pcs, raw[:, -1]]))
     k = src.n_behaviours
     logging.getLogger("hmmlearn").setLevel(logging.ERROR)
-    failed: list[str] = []
-    for attempt in range(2):
+
+    def fit_and_decode(X: np.ndarray) -> tuple[Any, np.ndarray]:
         hmm = GaussianHMM(n_components=k, covariance_type="full", n_iter=50, random_state=seed)
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                hmm.fit(X, lengths)
-                state = hmm.predict(X, lengths)
-            break
-        except ValueError as exc:  # e.g. "'covars' must be symmetric, positive-definite"
-            if attempt:
-                raise
-            failed.append(str(exc))
-            X = X[:, X.std(axis=0) > 1e-9]  # the usual fix: constant columns left out
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            hmm.fit(X, lengths)
+            return hmm, hmm.predict(X, lengths)
+
+    failed = None
+    try:
+        hmm, state = fit_and_decode(X)
+    except ValueError as exc:  # e.g. "'covars' must be symmetric, positive-definite"
+        failed = str(exc)
+        X = X[:, X.std(axis=0) > 1e-9]  # the usual fix: constant columns left out
+        hmm, state = fit_and_decode(X)
     seconds, cpu = time.perf_counter() - t, time.process_time() - cpu
     labels = dict(zip(keys, np.split(state, np.cumsum(lengths)[:-1]), strict=True))
     info: dict[str, Any] = {
@@ -158,6 +159,6 @@ def run_reference(src: Source, seed: int) -> tuple[dict[tuple[str, str], np.ndar
             "columns": int(X.shape[1]),
         },
         "converged": bool(hmm.monitor_.converged),
-        "failed_fit": failed[0] if failed else None,
+        "failed_fit": failed,
     }
     return labels, info

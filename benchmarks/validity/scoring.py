@@ -82,11 +82,13 @@ def boundary_lags(true_b: np.ndarray, found_b: np.ndarray, fps: float) -> np.nda
     >>> boundary_lags(np.array([10, 50, 90]), np.array([12, 49]), 10.0).tolist()
     [0.2, -0.1]
     """
-    true_b, found_b = np.asarray(true_b), np.asarray(found_b)
+    true_b, found_b = np.asarray(true_b), np.asarray(found_b)  # both sorted
     if not len(true_b) or not len(found_b):
         return np.zeros(0)
-    near = np.abs(found_b[None, :] - true_b[:, None]).argmin(axis=1)
-    lag = (found_b[near] - true_b) / float(fps)
+    j = np.searchsorted(found_b, true_b)
+    before, after = found_b[np.maximum(j - 1, 0)], found_b[np.minimum(j, len(found_b) - 1)]
+    near = np.where(true_b - before <= after - true_b, before, after)  # ties: the earlier
+    lag = (near - true_b) / float(fps)
     return lag[np.abs(lag) <= LAG_WINDOW_S]
 
 

@@ -248,6 +248,18 @@ class PoseTracks:
 PAD_SHARE = 0.6
 
 
+def enough_keypoints(n_have: int, n_study: int) -> bool:
+    """Whether ``n_have`` of the study's ``n_study`` keypoints are enough to read a session (or
+    stream a tracker) with the others never seen: at least ``PAD_SHARE`` of them.
+
+    Examples
+    --------
+    >>> enough_keypoints(6, 10), enough_keypoints(5, 10)
+    (True, False)
+    """
+    return n_have >= PAD_SHARE * n_study
+
+
 def match_keypoint_order(
     sessions: Sequence[PoseTracks], keypoints: Sequence[str] | None = None, warn: bool = True
 ) -> list[PoseTracks]:
@@ -287,7 +299,7 @@ def match_keypoint_order(
                 respelt.append(f"'{s.session}'")
                 s = s.replace(keypoints=names)
         lacking = [k for k in ref if k not in s.keypoints]
-        if lacking and set(s.keypoints) < set(ref) and len(s.keypoints) >= PAD_SHARE * len(ref):
+        if lacking and set(s.keypoints) < set(ref) and enough_keypoints(len(s.keypoints), len(ref)):
             padded.append(f"'{s.session}' ({', '.join(lacking)})")
             s = _with_keypoints(s, ref)
         elif tuple(s.keypoints) != ref and sorted(s.keypoints) == sorted(ref):

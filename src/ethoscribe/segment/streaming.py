@@ -18,7 +18,7 @@ import numpy as np
 
 from ethoscribe.clean import StreamingCleaner
 from ethoscribe.errors import InputError, InputWarning
-from ethoscribe.pose import PAD_SHARE
+from ethoscribe.pose import PAD_SHARE, enough_keypoints
 from ethoscribe.segment.inputs import check_fitted
 from ethoscribe.segment.registry import get_segmenter, segmenter_names
 
@@ -231,7 +231,7 @@ def _keypoint_order(
         raise InputError(f"keypoints names {twice} more than once; each keypoint once")
     missing = [k for k in model_keypoints if k not in given]
     have = len(model_keypoints) - len(missing)
-    if missing and not (fills and have >= PAD_SHARE * len(model_keypoints)):
+    if missing and not (fills and enough_keypoints(have, len(model_keypoints))):
         why = (
             "a model without a keypoint filler (min_body_seen=None) needs every one"
             if not fills
