@@ -14,7 +14,7 @@ import pandas as pd
 import pytest
 
 from ethoscribe.errors import InputError, NotFittedError
-from ethoscribe.segment.model import BehaviourModel, motif_name
+from ethoscribe.segment.model import BehaviourModel, motif_name, stack_valid
 from ethoscribe.simulate import simulate_session
 
 QUICK = {"n_restarts": 1, "n_iter": 30}  # segmenter effort for the tests
@@ -88,14 +88,61 @@ def test_probability_is_that_of_the_final_label(fitted, sessions):
     merged = _with(fitted, decoding="merge").label(sessions)
     print("share < 0.01: min_duration", _low_share(chain), "merge", _low_share(merged))
     # the minimum-duration chain's posteriors back its own labels (the kernels are checked
-    # against hmmlearn in test_duration.py); merged frames keep posteriors of other labels
-    assert _low_share(chain) < 0.002 < _low_share(merged)
-    assert chain["probability"].mean() > merged["probability"].mean()
+    # against hmmlearn in test_duration.py); merged frames are left out of the evidence, so
+    # their probability is no longer that of a label the HMM did not choose
+    assert _low_share(chain) < 0.002
+    assert _low_share(merged) < 0.002
     # without a minimum bout both decodings are the plain HMM
     pd.testing.assert_frame_equal(
         _with(fitted, min_bout_s=0.0, decoding="min_duration").label(sessions),
         _with(fitted, min_bout_s=0.0, decoding="merge").label(sessions),
     )
+
+
+def test_merged_frames_probability_is_the_posterior_without_their_evidence(fitted, sessions):
+    # Reference: hmmlearn 0.3.3's log-space forward-backward (_hmmc.forward_log and
+    # backward_log) on scipy.stats.multivariate_normal log-densities of each frame minus its
+    # session's offset, the rows of the frames the merge relabelled set to 0 (no evidence).
+    from hmmlearn import _hmmc
+    from scipy.special import logsumexp
+    from scipy.stats import multivariate_normal
+
+    from ethoscribe.segment.lumping import membership
+    from ethoscribe.segment.postprocess import enforce_min_bout
+
+    model = _with(fitted, decoding="merge")
+    labels = model.label(sessions)
+    seg = model.segmenter_
+    feats, _ = model.transform_features(sessions)
+    X, lengths = stack_valid(feats)
+    offsets = seg.offsets(X, lengths)
+    groups = np.arange(model.n_states_) if model.phase_groups_ is None else model.phase_groups_
+    join = membership(np.asarray(groups))  # fitted states -> labelled (phases joined)
+    plain = np.asarray(groups)[seg.predict(X, lengths, offsets=offsets)]
+    scored = labels[labels["state"] >= 0]
+    final = scored["state"].to_numpy()
+    shortest = round(model.min_bout_s * model.fps_)
+    posterior = seg.predict_proba(X, lengths, offsets=offsets) @ join
+    np.testing.assert_array_equal(final, enforce_min_bout(plain, shortest, lengths, posterior))
+    moved = final != plain
+    assert 0 < moved.sum() < 0.2 * len(final)
+    Z = X - np.repeat(offsets, lengths, axis=0)
+    log_b = np.column_stack(
+        [
+            multivariate_normal(seg.means_[k], seg.covars_[k]).logpdf(Z)
+            for k in range(len(seg.means_))
+        ]
+    )
+    log_b[moved] = 0.0
+    ref = []
+    for a, b in zip(np.r_[0, np.cumsum(lengths)[:-1]], np.cumsum(lengths), strict=True):
+        _, fwd = _hmmc.forward_log(seg.startprob_, seg.transmat_, log_b[a:b])
+        bwd = _hmmc.backward_log(seg.startprob_, seg.transmat_, log_b[a:b])
+        ref.append(np.exp(fwd + bwd - logsumexp(fwd[-1])))
+    ref = np.concatenate(ref) @ join
+    np.testing.assert_allclose(scored["probability"], ref[np.arange(len(final)), final], atol=1e-8)
+    # the relabelled frames now carry the probability their neighbours give their new label
+    assert np.median(ref[moved, final[moved]]) > 0.5
 
 
 def test_models_saved_before_the_decoding_option_keep_merging(fitted):

@@ -60,6 +60,10 @@ def run_ethoscribe(
         "seconds": seconds,
         "cpu_seconds": cpu,
         "n_states_model": int(model.n_states_),
+        # scored frames whose own label has probability < 0.01 (labels backed by their HMM?)
+        "low_probability_share": float(
+            (table.loc[table["state"] >= 0, "probability"] < 0.01).mean()
+        ),
         "params": model.get_params(),
         "warnings": sorted({str(w.message)[:300] for w in caught}),
     }

@@ -21,7 +21,8 @@ tells such recordings apart and labels the stretches:
   centres and the pooled within-cluster variance (k-means is its hard-assignment limit), so the
   label is the most probable regime. ``BehaviourModel`` then merges regime bouts shorter than
   the window into a neighbour (such a bout never has a window of its own mix); a merged frame
-  keeps the probability of the regime it now has, as merged states do.
+  keeps its window's probability of the regime it now has, often low (its window's mix looked
+  like another regime; cutting the window at the final bout's ends did not change that).
 
 Measured on the validation bench (benchmarks/README.md, "Slow regimes"): persistence at 16 s is
 -0.12 to 0.19 on every simulated source, -0.09 to 0.31 on BasicMotions (activities of 10 s),
