@@ -203,9 +203,19 @@ def test_filled_frames_scored_without_their_shape_columns():
     with pytest.raises(InputError, match="filled_frames must be one of"):
         BehaviourModel(filled_frames="guess").fit(sessions)
     # refused, not ignored, where the labelling cannot leave features out of a frame
-    for params in ({"method": "grouped_hmm"}, {"causal": True}):
-        with pytest.raises(InputError, match="filled_frames='shape_left_out' is not available"):
-            BehaviourModel(filled_frames="shape_left_out", **params).fit(sessions)
+    with pytest.raises(InputError, match="filled_frames='shape_left_out' is not available"):
+        BehaviourModel(filled_frames="shape_left_out", causal=True).fit(sessions)
+    # the grouped HMM leaves them out through its fine HMM: the same two properties
+    grouped = BehaviourModel(
+        method="grouped_hmm", state_range=(2, 5), segmenter=QUICK, random_state=0
+    ).fit(sessions)
+    seen = grouped.label([altered, complete])
+    grouped.set_params(filled_frames="shape_left_out")
+    out = grouped.label([altered, complete])
+    assert (out["state"] >= 0).all()
+    pd.testing.assert_frame_equal(out[out["session"] == "s2"], seen[seen["session"] == "s2"])
+    first = (out["session"] == "s1").to_numpy()
+    assert out["probability"][first][lost].mean() < seen["probability"][first][lost].mean()
 
 
 def _without(tracks, name):

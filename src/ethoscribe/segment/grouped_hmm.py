@@ -375,19 +375,20 @@ class GroupedHMM(BaseEstimator):
         self.random_seed_ = fine.random_seed_
 
     # ---------------------------------------------------------------------------- applying
-    def predict_fine(self, X: np.ndarray, lengths=None) -> np.ndarray:
-        """Fine state of every frame (Viterbi of the fine model), int (n_frames,)."""
+    def predict_fine(self, X: np.ndarray, lengths=None, *, hidden=None) -> np.ndarray:
+        """Fine state of every frame (Viterbi of the fine model), int (n_frames,); ``hidden``:
+        columns left out of a frame's emission (:meth:`GaussianHMM.decode`)."""
         check_fitted(self, "fine_")
-        return self.fine_.predict(X, lengths)
+        return self.fine_.predict(X, lengths, hidden=hidden)
 
-    def predict(self, X: np.ndarray, lengths=None) -> np.ndarray:
+    def predict(self, X: np.ndarray, lengths=None, *, hidden=None) -> np.ndarray:
         """Set of every frame: the set of its fine Viterbi state, int (n_frames,)."""
-        return self.assignment_[self.predict_fine(X, lengths)]
+        return self.assignment_[self.predict_fine(X, lengths, hidden=hidden)]
 
-    def predict_proba(self, X: np.ndarray, lengths=None) -> np.ndarray:
+    def predict_proba(self, X: np.ndarray, lengths=None, *, hidden=None) -> np.ndarray:
         """Posterior of every set (sum of its fine states' posteriors), (n_frames, n_states_)."""
         check_fitted(self, "fine_")
-        return self.fine_.predict_proba(X, lengths) @ self._onehot
+        return self.fine_.predict_proba(X, lengths, hidden=hidden) @ self._onehot
 
     def filter(self, X: np.ndarray, lengths=None) -> np.ndarray:
         """Causal posteriors of the sets, (n_frames, n_states_)."""
