@@ -2,7 +2,8 @@
 
 References: scipy ``pdist`` (squared Euclidean distances between windows), pandas centred
 ``rolling`` means (window shares), scikit-learn ``GaussianMixture`` with spherical covariances
-(regime posteriors), scikit-learn ``adjusted_rand_score``. The recovery cases are invented
+(regime posteriors), scipy ``multivariate_normal`` (the regime chain's evidence),
+scikit-learn ``adjusted_rand_score``. The recovery cases are invented
 label sequences; the end-to-end case is the TSSB GunPoint series shipped inside aeon.
 """
 
@@ -159,6 +160,39 @@ def test_stretches_of_alternating_states_are_found_as_regimes():
     assert reg.n_regimes_ == 2
     assert adjusted_rand_score(truth % 2, found) > 0.9
     assert np.array_equal(found, prob.argmax(1))  # the label is the most probable regime
+
+
+def test_regime_bouts_hold_the_window_and_their_probabilities_back_them():
+    # Reference for the chain's evidence: scipy.stats.multivariate_normal log-densities of
+    # the window shares (spherical, variance_ * I), divided by the window; they differ from
+    # label_bouts' by a constant per frame, which changes no posterior. The chain's kernels
+    # are checked against hmmlearn in test_duration.py.
+    from scipy.stats import multivariate_normal
+
+    from ethoscribe.segment import duration
+
+    rng = np.random.default_rng(3)
+    # 2-min stretches of 0/1 and 2/3, and a 12-s stretch of 2/3 inside the second 0/1 one:
+    # shorter than the 16-s window, so no window holds its mix alone (argmax, then merging
+    # short regime bouts, left frames at probability 5e-24 of their label)
+    states, truth = _alternating(rng, [(0, 1), (2, 3), (0, 1)], 3600, 30)
+    states[9000:9360] = np.where(states[9000:9360] == 0, 2, 3)
+    lengths = [len(states)]
+    reg = SlowRegimes(random_state=0).fit(states, lengths, 4, 30.0)
+    regime, prob = reg.label_bouts(states, lengths, 30.0)
+    window = reg.window(30.0)
+    runs = np.diff(np.r_[0, np.flatnonzero(np.diff(regime)) + 1, len(regime)])
+    assert reg.n_regimes_ == 2 and runs.min() >= window and len(runs) == 5  # one window long
+    assert adjusted_rand_score(truth % 2, regime) > 0.8
+    own = prob[np.arange(len(regime)), regime]
+    assert own.min() > 0.1 and np.median(own) > 0.99
+    shares = window_shares(states, lengths, 4, window)
+    log_b = np.column_stack(
+        [multivariate_normal(c, reg.variance_ * np.eye(4)).logpdf(shares) for c in reg.centres_]
+    )
+    trans = np.array([[1 - 1 / window, 1 / window], [1 / window, 1 - 1 / window]])
+    ref = duration.forward_backward(log_b / window, np.full(2, 0.5), trans, window, lengths)
+    np.testing.assert_allclose(prob, ref.gamma, atol=1e-9)
 
 
 def test_behaviours_of_seconds_are_left_as_they_are():

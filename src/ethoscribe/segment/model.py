@@ -162,8 +162,10 @@ class BehaviourModel(BaseEstimator):
         (``postprocess.enforce_min_bout``); the merge takes such a bout for noise, so
         ``probability`` is the HMM's posterior with the merged frames' evidence left out (what
         the frames around them say through the transitions; on the validation bench, seed 0,
-        no scored frame below 0.01 for its own label outside slow regimes, against 0.9-4.7 %
-        when merged frames kept the plain posterior of a label the HMM had not chosen).
+        no scored frame below 0.01 for its own label on the sources labelled by states,
+        against 0.9-4.7 % when merged frames kept the plain posterior of a label the HMM had
+        not chosen). Slow regimes are decoded with their own minimum bout
+        (:meth:`~ethoscribe.segment.regimes.SlowRegimes.label_bouts`).
         Methods without posteriors over a state chain (change points) always merge; causal
         models never apply the minimum (it needs future frames).
     min_body_seen : float or None
@@ -775,10 +777,7 @@ class BehaviourModel(BaseEstimator):
             )
             if self._regimes_used():
                 before = states
-                states, prob = self.regimes_.label(before, lengths, self.fps_)
-                # a regime bout shorter than the window never has a window of its own mix
-                shortest = max(min_frames, self.regimes_.window(self.fps_))
-                states = enforce_min_bout(states, shortest, lengths, probabilities=prob)
+                states, prob = self.regimes_.label_bouts(before, lengths, self.fps_, min_frames)
         else:  # nothing to decode (e.g. one session, all invalid): every frame stays -1
             X, lengths = np.zeros((0, 0)), np.zeros(0, dtype=np.int64)
             hidden = None

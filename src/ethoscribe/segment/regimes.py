@@ -19,10 +19,10 @@ tells such recordings apart and labels the stretches:
   the count chosen by the silhouette (Rousseeuw 1987) from ``2..max_regimes``. A frame's
   probability of each regime is the posterior of the spherical Gaussian mixture with those
   centres and the pooled within-cluster variance (k-means is its hard-assignment limit), so the
-  label is the most probable regime. ``BehaviourModel`` then merges regime bouts shorter than
-  the window into a neighbour (such a bout never has a window of its own mix); a merged frame
-  keeps its window's probability of the regime it now has, often low (its window's mix looked
-  like another regime; cutting the window at the final bout's ends did not change that).
+  label is the most probable regime. ``BehaviourModel`` labels with
+  :meth:`SlowRegimes.label_bouts`: a regime bout shorter than the window never has a window of
+  its own mix, so the regimes are decoded on a chain that holds each for at least the window,
+  and every frame's probability is that chain's posterior of its final regime.
 
 Measured on the validation bench (benchmarks/README.md, "Slow regimes"): persistence at 16 s is
 -0.12 to 0.19 on every simulated source, -0.09 to 0.31 on BasicMotions (activities of 10 s),
@@ -48,6 +48,7 @@ from typing import Any
 
 import numpy as np
 
+from ethoscribe.segment import duration
 from ethoscribe.segment.inputs import split_by_lengths
 
 WINDOW_S = 16.0
@@ -313,14 +314,19 @@ class SlowRegimes:
         """Number of regimes (0 when not used)."""
         return len(self.centres_)
 
-    def predict_proba(self, shares: np.ndarray) -> np.ndarray:
-        """Posterior of every regime given the frames' state shares (module doc)."""
+    def _log_density(self, shares: np.ndarray) -> np.ndarray:
+        """Log-density of the frames' state shares under every regime's spherical Gaussian,
+        up to a constant common to all regimes, (n_frames, n_regimes)."""
         d2 = (
             np.sum(shares**2, axis=1)[:, None]
             - 2 * shares @ self.centres_.T
             + np.sum(self.centres_**2, axis=1)[None, :]
         )
-        logit = -0.5 * np.maximum(d2, 0.0) / self.variance_
+        return -0.5 * np.maximum(d2, 0.0) / self.variance_
+
+    def predict_proba(self, shares: np.ndarray) -> np.ndarray:
+        """Posterior of every regime given the frames' state shares (module doc)."""
+        logit = self._log_density(shares)
         logit -= logit.max(axis=1, keepdims=True)
         p = np.exp(logit)
         return p / p.sum(axis=1, keepdims=True)
@@ -334,6 +340,32 @@ class SlowRegimes:
         prob = self.predict_proba(shares)
         regime = np.where(np.asarray(states) >= 0, np.argmax(prob, axis=1), -1)
         return regime, prob
+
+    def label_bouts(
+        self, states: np.ndarray, lengths: Sequence[int], fps: float, min_frames: int = 1
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Regimes whose every bout lasts at least the window (and ``min_frames``), and their
+        probabilities, (n_frames,) and (n_frames, n_regimes); for labelled frames (>= 0).
+
+        A regime bout shorter than the window never has a window of its own mix, so the
+        regimes are decoded on the minimum-duration chain (:mod:`ethoscribe.segment.duration`)
+        that holds each one the window, then moves with probability 1 / window a frame
+        (uniform over the others). A frame's evidence is its window's log-density divided by
+        the window length, since consecutive windows share all but one frame. Viterbi gives
+        the labels and forward-backward on the same chain their probabilities."""
+        window = self.window(fps)
+        shares = window_shares(states, lengths, self.n_states_in_, window)
+        log_b = self._log_density(shares) / window
+        k = self.n_regimes_
+        move = 1.0 / window
+        trans = np.full((k, k), move / max(k - 1, 1))
+        np.fill_diagonal(trans, 1.0 - move if k > 1 else 1.0)
+        start = np.full(k, 1.0 / k)
+        hold = max(int(min_frames), window)
+        lengths = np.asarray(lengths, dtype=np.int64)
+        regime = duration.viterbi(log_b, start, trans, hold, lengths)[0]
+        prob = duration.forward_backward(log_b, start, trans, hold, lengths, overwrite=True)
+        return regime, prob.gamma
 
     def to_state(self) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
         """JSON-able description and arrays that rebuild the fitted regimes (no pickle)."""
