@@ -263,6 +263,21 @@ def _point_norms(a: np.ndarray) -> np.ndarray:
     return np.sqrt(np.einsum("fkd,fkd->fk", a, a))
 
 
+def _pair_flatness(points: np.ndarray, up_axis: str) -> np.ndarray:
+    """Median over frames of every keypoint pair's horizontal length over its 3-D length,
+    (n, K, 3) -> (K, K): 1 for a pair lying flat, 0 for one keypoint above the other; NaN
+    where never both seen apart."""
+    d = points[:, :, None] - points[:, None]
+    full = np.linalg.norm(d, axis=-1)
+    flat = np.linalg.norm(d[..., list(horizontal_axes(3, up_axis))], axis=-1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = np.where(full > 0, flat / full, np.nan)
+    out = np.full(full.shape[1:], np.nan)
+    seen = np.isfinite(ratio).any(axis=0)
+    out[seen] = np.nanmedian(ratio[:, seen], axis=0)
+    return out
+
+
 def _pair_lengths(points: np.ndarray) -> np.ndarray:
     """Mean distance between every two keypoints over frames (n, K, D) -> (K, K)."""
     dist = np.linalg.norm(points[:, :, None] - points[:, None], axis=-1)

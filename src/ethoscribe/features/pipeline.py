@@ -18,6 +18,7 @@ from ethoscribe.features.motion import (
     _centroid,
     _check_rate,
     _Motion,
+    _pair_flatness,
     _pair_lengths,
 )
 from ethoscribe.features.saved import (
@@ -78,6 +79,10 @@ DEFAULT_FREQUENCIES = (0.5, 1.0, 2.0, 4.0, 8.0)
 BAND_EDGE_MARGIN = 0.95
 # Quantile of the body centroid's height taken as the floor in 3-D (vertical="separate").
 HEIGHT_FLOOR_QUANTILE = 0.01
+# 3-D automatic body axis: pairs whose median horizontal length is below half their length
+# (more than 60 degrees from horizontal on a typical frame) are not candidates, where any
+# other pair is (common practice: a heading is read from a near-horizontal body axis)
+MIN_AXIS_FLATNESS = 0.5
 
 
 def automatic_frequencies(fps: float) -> tuple[float, ...]:
@@ -107,7 +112,10 @@ class FeaturePipeline(BaseEstimator):
         Body axis from a tail-side to a head-side keypoint. None = automatic: over the fastest
         25% of frames (centroid speed), the mean cosine between each keypoint-to-keypoint
         direction and the direction of travel is scored; among the pairs within 0.05 of the
-        best score the longest (mean distance) wins. Without movement, the two keypoints
+        best score the longest (mean distance) wins; in 3-D, pairs that stand upright on most
+        frames (median horizontal length below half their length: an upright body's spine,
+        which leans forward only when running) are left out where any other pair can be
+        scored. Without movement, the two keypoints
         farthest apart, in listed order, with a warning. Reported in ``axis_report_`` (text)
         and ``axis_details_`` (dict).
     up_axis : {"x", "y", "z"}
@@ -732,6 +740,18 @@ class FeaturePipeline(BaseEstimator):
         score = travel_alignment(P, T, self.up_axis) if len(P) >= 10 else None
         if score is not None and not np.isfinite(score).any():
             score = None
+        step = max(1, sum(s.n_frames * s.n_animals for s in sessions) // 2000)
+        sample = np.concatenate([s.coords[::step, a] for s in sessions for a in range(s.n_animals)])
+        upright = 0
+        if score is not None and self.n_dims_ == 3:
+            # a pair standing upright on most frames (an upright body's spine leaning only
+            # when it runs) gives a heading from a short horizontal length, noise at rest
+            lying = _pair_flatness(sample, self.up_axis) >= MIN_AXIS_FLATNESS
+            upright = int(np.isfinite(score).sum() - np.isfinite(score[lying]).sum()) // 2
+            if np.isfinite(score[lying]).any():
+                score = np.where(lying, score, np.nan)
+            else:
+                upright = 0
         if self.axis is not None:
             rule, (i, j) = "given", (kp.index(self.axis[0]), kp.index(self.axis[1]))
         elif score is not None:
@@ -739,10 +759,6 @@ class FeaturePipeline(BaseEstimator):
             length = np.where(near, _pair_lengths(P[:: max(1, len(P) // 2000)]), -1.0)
             rule, (i, j) = "travel", np.unravel_index(np.argmax(length), length.shape)
         else:
-            step = max(1, sum(s.n_frames * s.n_animals for s in sessions) // 2000)
-            sample = np.concatenate(
-                [s.coords[::step, a] for s in sessions for a in range(s.n_animals)]
-            )
             length = np.triu(_pair_lengths(sample), 1)
             rule, (i, j) = "farthest pair", np.unravel_index(np.argmax(length), length.shape)
         i, j = int(i), int(j)
@@ -754,7 +770,9 @@ class FeaturePipeline(BaseEstimator):
             + (f"; agreement with the direction of travel: {agreement}" if agreement else ""),
             "travel": f"{axis} chosen automatically: its direction agreed best with the "
             f"direction of travel in the fastest 25% of frames ({agreement}; the longest of the "
-            "pairs within 0.05 of the best)",
+            "pairs within 0.05 of the best"
+            + (f"; {upright} pairs standing upright on most frames left out" if upright else "")
+            + ")",
             "farthest pair": f"{axis}: no movement to tell head from tail, so the two keypoints "
             "farthest apart on average were taken in listed order",
         }[rule]
@@ -777,6 +795,7 @@ class FeaturePipeline(BaseEstimator):
             "axis": [kp[i], kp[j]],
             "origin": origin,
             "mean_cosine": cos,
+            "upright_pairs_left_out": upright,
             "n_frames": len(P),
             "speed_threshold": threshold,
         }
