@@ -283,7 +283,7 @@ def test_the_model_labels_slow_regimes_of_gun_point_and_saves_them(tmp_path):
     from ethoscribe.cli import command_line_message
     from ethoscribe.errors import InputError, InputWarning
     from ethoscribe.io.bundle import write_bundle
-    from ethoscribe.segment.model import BehaviourModel
+    from ethoscribe.segment.model import BehaviourModel, labels_like_model, stack_valid
     from ethoscribe.workspace.files import load_model
 
     src = gun_point(seed=0)
@@ -299,6 +299,13 @@ def test_the_model_labels_slow_regimes_of_gun_point_and_saves_them(tmp_path):
     assert set(labels["state"]) <= set(range(model.n_states_))
     assert labels["fine_state"].max() < model.regimes_.n_states_in_
     assert "regimes of the mix" in model.selection_.reason
+    # the stability check labels the model's own fit as it writes its labels: regimes held
+    # the window (99.5 % of frames the same; its states have no minimum bout; window argmax
+    # without the hold agreed on 96.3 %)
+    feats, _ = model.transform_features(src.sessions)
+    X, lengths = stack_valid(feats)
+    own = labels_like_model(model, model.segmenter_, own=True).predict(X, lengths)
+    assert (own == labels["state"].to_numpy()).mean() > 0.99
     # GunPoint's mix changes once: the model says regimes may be two sides of one change
     assert model.regimes_.one_change_ and "changes about once" in model.selection_.reason
     off = BehaviourModel(random_state=0, slow_regimes="off").fit(src.sessions)

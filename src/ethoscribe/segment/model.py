@@ -1494,7 +1494,7 @@ class RegimeLabelled:
         states = np.asarray(self.inner.predict(X, lengths), dtype=np.int64)
         if not self.regimes.used_:
             return states
-        return self.regimes.label(states, lengths, self.fps)[0]
+        return self.regimes.label_bouts(states, lengths, self.fps)[0]  # as the model labels
 
     @property
     def n_states_(self) -> int:
