@@ -495,10 +495,10 @@ def upright_walker(seed: int, n: int = 3000, fps: float = 30.0) -> tuple[PoseTra
     spine leans forward only when running, its feet point where it faces. Returns the tracks
     and the true turning speed (rad/s)."""
     rng = np.random.default_rng(seed)
-    spell = (np.arange(n) // round(4 * fps)) % 2  # 0: running, 1: turning on the spot
-    turn = np.where(
-        spell == 1, rng.choice([-2.0, -0.7, 0.7, 2.0], n // 120 + 1).repeat(120)[:n], 0.0
-    )
+    m = round(4 * fps)
+    spell = (np.arange(n) // m) % 2  # 0: running, 1: turning on the spot
+    rates = rng.choice([-2.0, -0.7, 0.7, 2.0], n // m + 1).repeat(m)[:n]
+    turn = np.where(spell == 1, rates, 0.0)
     heading = np.cumsum(turn) / fps
     speed = np.where(spell == 0, 3.0, 0.0)
     pos = np.cumsum(speed[:, None] * np.c_[np.cos(heading), np.sin(heading)] / fps, axis=0)
@@ -531,9 +531,8 @@ def test_pair_flatness_is_the_cosine_of_the_elevation():
     from ethoscribe.features.motion import _pair_flatness
 
     angles = np.deg2rad([0.0, 30.0, 60.0, 89.0])
-    tips = Rotation.from_euler("y", -angles[:, None]).apply(
-        [1.0, 0.0, 0.0]
-    )  # x tilted up towards z
+    # the unit x vector tilted up towards z
+    tips = Rotation.from_euler("y", -angles[:, None]).apply([1.0, 0.0, 0.0])
     points = np.stack([np.zeros((4, 3)), tips], axis=1)  # 4 frames of one pair
     flat = [_pair_flatness(points[f : f + 1], "z")[0, 1] for f in range(4)]
     np.testing.assert_allclose(flat, np.cos(angles), atol=1e-12)

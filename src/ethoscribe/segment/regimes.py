@@ -345,7 +345,8 @@ class SlowRegimes:
         self, states: np.ndarray, lengths: Sequence[int], fps: float, min_frames: int = 1
     ) -> tuple[np.ndarray, np.ndarray]:
         """Regimes whose every bout lasts at least the window (and ``min_frames``), and their
-        probabilities, (n_frames,) and (n_frames, n_regimes); for labelled frames (>= 0).
+        probabilities, (n_frames,) and (n_frames, n_regimes), of scored frames' ``states``
+        (all >= 0: the stacked frames of the sequences of ``lengths``).
 
         A regime bout shorter than the window never has a window of its own mix, so the
         regimes are decoded on the minimum-duration chain (:mod:`ethoscribe.segment.duration`)
