@@ -195,6 +195,25 @@ def test_regime_bouts_hold_the_window_and_their_probabilities_back_them():
     np.testing.assert_allclose(prob, ref.gamma, atol=1e-9)
 
 
+def test_regime_chain_on_steps_of_frames_at_a_high_frame_rate(monkeypatch):
+    # At 120 fps the 16-s window is 1,920 frames and the chain runs on steps of 4 frames:
+    # compared with the chain on every frame (the steps turned off), the same labels and
+    # probabilities to within the steps' resolution, on sessions of uneven lengths.
+    from ethoscribe.segment import regimes
+
+    rng = np.random.default_rng(5)
+    states, _ = _alternating(rng, [(0, 1), (2, 3), (0, 1), (2, 3)] * 2, 14400, 120)
+    lengths = [len(states) - 10_003, 10_000, 3]
+    reg = SlowRegimes(random_state=0).fit(states, lengths, 4, 120.0)
+    assert reg.used_ and reg.window(120.0) // regimes.STEPS_PER_WINDOW == 4
+    stepped, p_stepped = reg.label_bouts(states, lengths, 120.0)
+    monkeypatch.setattr(regimes, "STEPS_PER_WINDOW", 10**9)
+    every, p_every = reg.label_bouts(states, lengths, 120.0)
+    assert stepped.shape == every.shape == (len(states),) and p_stepped.shape == p_every.shape
+    assert (stepped == every).mean() > 0.999
+    assert np.abs(p_stepped - p_every).mean() < 0.001
+
+
 def test_behaviours_of_seconds_are_left_as_they_are():
     rng = np.random.default_rng(4)
     # bouts of 1-6 s among 5 states in random order for 10 min: nothing holds for minutes
