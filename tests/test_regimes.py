@@ -286,6 +286,9 @@ def test_saved_regimes_give_the_same_labels():
     a, pa = reg.label(states, [len(states)], 25.0)
     b, pb = back.label(states, [len(states)], 25.0)
     assert np.array_equal(a, b) and np.allclose(pa, pb)
+    a, pa = reg.label_bouts(states, [len(states)], 25.0)  # what the model labels with
+    b, pb = back.label_bouts(states, [len(states)], 25.0)
+    assert np.array_equal(a, b) and np.allclose(pa, pb)
     assert back.residual_persistence_ == reg.residual_persistence_
     del meta["residual_persistence"]  # a model saved before it was measured still loads
     assert np.isnan(SlowRegimes.from_state(meta, arrays).residual_persistence_)

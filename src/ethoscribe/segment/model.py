@@ -1020,30 +1020,30 @@ class BehaviourModel(BaseEstimator):
         if min_frames > 1 and self.decoding == "min_duration" and chain is not None:
             # joined phases only merge neighbouring bouts, each already >= the minimum
             return self._to_labelled(*chain(X, lengths, min_frames, OUTLIER_SHARE, **given))
-        if get_segmenter(self.method).posteriors:
+        posteriors = get_segmenter(self.method).posteriors
+        if posteriors:
             states = seg.predict(X, lengths, **given)
             prob = seg.predict_proba(X, lengths, **given)
             # phases joined before the minimum bout: a phase is shorter than a bout
             states, prob = self._to_labelled(states, prob)
-            if min_frames > 1:
-                merged = enforce_min_bout(states, min_frames, lengths=lengths, probabilities=prob)
-                if probability and (merged != states).any() and _takes_hidden(seg):
-                    # the merge takes a bout shorter than the minimum for noise: its frames
-                    # are left out of the evidence, so their probability is what the frames
-                    # around them say through the transitions (not near 0 for the new label)
-                    left_out = np.repeat((merged != states)[:, None], X.shape[1], axis=1)
-                    if hidden is not None:
-                        left_out |= hidden
-                    kept = seg.predict_proba(X, lengths, **_given(offsets=offsets, hidden=left_out))
-                    prob = self._to_labelled(merged, kept)[1]
-                return merged, prob
         else:
             states = seg.predict(X, lengths)  # hard labels: probability 1 (the registry says so)
             prob = np.zeros((len(states), self.n_states_))
             prob[np.arange(len(states)), states] = 1.0
-        if min_frames > 1:
-            states = enforce_min_bout(states, min_frames, lengths=lengths, probabilities=prob)
-        return states, prob
+        if min_frames <= 1:
+            return states, prob
+        merged = enforce_min_bout(states, min_frames, lengths=lengths, probabilities=prob)
+        moved = merged != states
+        if probability and posteriors and moved.any() and _takes_hidden(seg):
+            # the merge takes a bout shorter than the minimum for noise: its frames are left
+            # out of the evidence, so their probability is what the frames around them say
+            # through the transitions (not near 0 for the new label)
+            left_out = np.repeat(moved[:, None], X.shape[1], axis=1)
+            if hidden is not None:
+                left_out |= hidden
+            kept = seg.predict_proba(X, lengths, **_given(offsets=offsets, hidden=left_out))
+            prob = self._to_labelled(merged, kept)[1]
+        return merged, prob
 
     # --- persistence (arrays + JSON; written by ethoscribe.io.bundle) ---------------------
     def to_state(self) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
