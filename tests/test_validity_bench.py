@@ -188,3 +188,42 @@ def test_the_reference_refits_without_constant_columns_when_hmmlearn_gives_up(mo
     assert calls[1] == info["params"]["columns"] == 2 < calls[0]  # the series and its speed
     [states] = labels.values()
     assert len(states) == src.sessions[0].n_frames and len(np.unique(states)) > 1
+
+
+def test_clips_cut_at_every_true_bout():
+    from benchmarks.probe_clips import clips_of
+    from benchmarks.validity.sources import Source
+
+    from ethoscribe.pose import PoseTracks
+
+    coords = np.arange(40 * 2 * 2, dtype=float).reshape(40, 1, 2, 2)
+    tracks = PoseTracks(coords, np.ones((40, 1, 2)), fps=10.0, keypoints=("a", "b"), session="s")
+    codes = np.r_[[0] * 25, [-1] * 5, [1] * 4, [2] * 6]  # bouts of 2.5, 0.5 (no label), 0.4, 0.6 s
+    src = Source("t", "simulated", [tracks], {("s", tracks.animals[0]): codes}, ["x", "y", "z"])
+    clips = clips_of(src, min_s=0.5)
+    # the unlabelled and the 0.4-s bouts dropped
+    assert [c.n_frames for c in clips.sessions] == [25, 6]
+    np.testing.assert_array_equal(clips.sessions[1].coords, coords[34:40])
+    assert [v.tolist() for v in clips.truth.values()] == [[0] * 25, [2] * 6]
+    assert len({c.session for c in clips.sessions}) == 2
+
+
+@pytest.mark.slow
+@pytest.mark.filterwarnings("ignore")
+def test_basic_motions_trials_as_sessions_are_labelled_as_activities():
+    # UEA BasicMotions (Bagnall et al. 2018, shipped inside aeon's wheel): 80 trials of 10 s,
+    # one activity each, cut back into trials (consecutive trials of one activity stay one
+    # clip). Every clip holds one activity, so per-session offsets and joining states used in
+    # different sessions cannot tell a session from an activity: the model leaves both out
+    # (with both, ARI 0.25 and 2 states; benchmarks/README.md, "Clips of one behaviour each").
+    pytest.importorskip("aeon")
+    from benchmarks.probe_clips import clips_of
+    from benchmarks.validity import pipelines
+    from benchmarks.validity.sources import LOADERS, _import_all
+
+    _import_all()
+    src = clips_of(LOADERS["basic_motions"](seed=0), 2.0)
+    assert len(src.sessions) >= 40
+    found, info = pipelines.run_ethoscribe(src, 0)
+    assert info["unit_lambda"] > 0.5
+    assert score_units(src.truth, found, src.unit_fps)["ari"] > 0.8

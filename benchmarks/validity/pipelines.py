@@ -64,6 +64,8 @@ def run_ethoscribe(
         "low_probability_share": float(
             (table.loc[table["state"] >= 0, "probability"] < 0.01).mean()
         ),
+        # how much a frame's unit tells its state: unit rules left out at >= 0.5 (clips)
+        "unit_lambda": float(getattr(model, "unit_lambda_", float("nan"))),
         "params": model.get_params(),
         "warnings": sorted({str(w.message)[:300] for w in caught}),
     }

@@ -18,7 +18,7 @@ import pandas as pd
 from sklearn.base import BaseEstimator
 from tqdm.auto import tqdm
 
-from ethoscribe.checks import seed_from
+from ethoscribe.checks import is_real, seed_from
 from ethoscribe.clean import CleanParams, QualityReport, clean
 from ethoscribe.errors import EthoscribeError, InputError, InputWarning, listed
 from ethoscribe.features import FeaturePipeline, FeatureSet
@@ -77,6 +77,53 @@ POOR_FIT_WARN_SHARE = 0.10
 # beyond what one individual in a thousand like the training ones would show: its squared
 # distance under the offsets' prior above the chi-square quantile of 1 - POOR_FIT_OFFSET_TAIL.
 POOR_FIT_OFFSET_TAIL = 1e-3
+
+
+# Clips of one behaviour each, not sessions in which behaviours follow one another: knowing a
+# frame's unit (session x animal) tells its state. Measured by Goodman and Kruskal's lambda of
+# the state given the unit (the share of the errors of guessing every frame's state as the most
+# frequent one overall that guessing its unit's most frequent state removes): 0 when every unit
+# holds the states in the same proportions (however much one behaviour dominates), 1 when each
+# unit holds one state. From UNIT_LAMBDA on, the rules that read units apart (per-session
+# offsets, states joined as one behaviour in different units) are left out: a unit's own level
+# or its own state cannot be told from its behaviour. 0.5, more than half the errors removed,
+# is the plain reading; on the validation bench multi-unit sources give 0.00-0.13 (seeds 0-2)
+# and five of them cut into clips 0.79-0.94 (seeds 0-1; benchmarks/README.md, "Clips of one
+# behaviour each").
+UNIT_LAMBDA = 0.5
+
+
+def unit_lambda(states: np.ndarray, lengths: Sequence[int] | np.ndarray) -> float:
+    """Goodman and Kruskal's lambda of the state given the unit (Goodman & Kruskal 1954): the
+    proportional reduction of the errors in guessing each frame's state when its unit's most
+    frequent state is guessed instead of the most frequent state overall. 0 without frames or
+    when a single state holds every frame.
+
+    Examples
+    --------
+    >>> unit_lambda(np.array([0, 0, 0, 1, 1, 1, 1, 2]), [4, 4])  # errors 4 -> 2
+    0.5
+    """
+    states = np.asarray(states, dtype=np.int64)
+    parts = [p for p in split_by_lengths(states, lengths) if len(p)]
+    if not parts:
+        return 0.0
+    within = sum(int(np.bincount(p).max()) for p in parts)
+    overall = int(np.bincount(states).max())
+    return (within - overall) / (len(states) - overall) if len(states) > overall else 0.0
+
+
+def unit_lambda_said(value: float) -> str:
+    """The selection reason's words when the unit rules are left out."""
+    return (
+        f"a frame's session tells its state (Goodman-Kruskal lambda {value:.2f}: clips of one "
+        "behaviour each?): a session's own level or its own states cannot be told from a "
+        "behaviour there, so states used in different sessions were not joined"
+    )
+
+
+def _finite_or_none(value: float) -> float | None:
+    return float(value) if np.isfinite(value) else None
 
 
 def motif_name(state: int) -> str:
@@ -144,7 +191,9 @@ class BehaviourModel(BaseEstimator):
         Extra keyword parameters of the segmenter (e.g. ``expected_bout_s`` for the HMM).
         The HMM gives every session (every animal of a session) an offset of its state means
         by default (``{"session_offsets": False}`` turns it off; causal models keep it off:
-        :mod:`ethoscribe.segment.session_offsets`).
+        :mod:`ethoscribe.segment.session_offsets`). Where a frame's session tells its state
+        (clips of one behaviour each) the model leaves the offsets out by itself, unless they
+        are asked for here (see ``join_units``).
         With ``method="grouped_hmm"`` and ``{"group_rule": "phases"}`` the phase-free columns
         (``steady_columns``) are the band amplitudes unless given (:func:`steady_columns`).
     min_bout_s : float
@@ -215,8 +264,14 @@ class BehaviourModel(BaseEstimator):
         (:func:`ethoscribe.segment.lumping.join_across_units`, the rule of
         ``method="grouped_hmm"``'s ``join="units"``). The joined states go through the same
         ``phase_groups_`` / ``fine_state`` mechanism, and :attr:`unit_pairs_` lists the pairs
-        with their evidence. With one unit nothing is joined. On by default, with the count on
-        held-out blocks (``state_count_options``): on the validation bench
+        with their evidence. With one unit nothing is joined. Where a frame's unit tells its
+        state (:func:`unit_lambda` at least :data:`UNIT_LAMBDA`, on labels with phases and
+        modes joined and bouts of ``min_bout_s``: clips of one behaviour each), "used apart"
+        says nothing and no unit pair is joined; the default
+        per-session offsets are left out too and the model fitted again without them
+        (:attr:`unit_lambda_`, :attr:`unit_rules_left_out_`; bench sources cut into
+        clips: benchmarks/README.md, "Clips of one behaviour each"). On by default, with the
+        count on held-out blocks (``state_count_options``): on the validation bench
         (benchmarks/README.md, "One behaviour in different units joined after the fit", two
         seeds) the two together raised mean ARI 0.517 -> 0.570 and 0.544 -> 0.567 over the
         count on held-out sessions (pairs 0.51 -> 0.76, independent simulator 0.57 / 0.62 ->
@@ -443,11 +498,16 @@ class BehaviourModel(BaseEstimator):
         return options
 
     def _make_segmenter(
-        self, n_states: int | str, fps: float, seed: int | None, columns: Sequence[str] = ()
+        self,
+        n_states: int | str,
+        fps: float,
+        seed: int | None,
+        columns: Sequence[str] = (),
+        **changed: Any,
     ) -> Any:
         spec = get_segmenter(self.method)
         lo, hi = self.state_range
-        options = self._segmenter_options()
+        options = {**self._segmenter_options(), **changed}
         if options.get("group_rule") == "phases" and options.get("steady_columns") is None:
             # Phases of one rhythm share what does not change with the phase: band amplitudes.
             options["steady_columns"] = steady_columns(columns)
@@ -516,36 +576,31 @@ class BehaviourModel(BaseEstimator):
         X, lengths = stack_valid(feats)
         fps_value = cleaned[0].fps
         seed = seed_from(self.random_state)
-        selection = None
-        n_states = self.n_states
-        count_options = {**COUNT_DEFAULTS, **(self.state_count_options or {})}
-        warm = count_options.pop("warm_start", False)
-        starts: Sequence[Any] = ()
-        if n_states == "auto" and get_segmenter(self.method).auto_states == "heldout":
-            lo, hi = self.state_range
-            selection = choose_n_states(
-                X,
-                lengths,
-                candidates=range(lo, hi + 1),
-                model_params={"fps": fps_value, **self._segmenter_options()},
-                random_state=seed,
-                progress=self.progress,
-                method=self.method,
-                **count_options,
-            )
-            n_states = int(selection.best)
-            if warm and get_segmenter(self.method).warm_start:
-                starts = getattr(selection, "fold_models", {}).get(n_states, ())
-        segmenter = self._make_segmenter(n_states, fps_value, seed, feats[0].columns)
-        if starts:  # the count's two quick fits of this count start restarts of their own
-            segmenter.fit(X, lengths, init_models=starts)
-        else:
-            segmenter.fit(X, lengths)
-        if selection is None:  # a segmenter that chose its own count may show how
-            selection = getattr(segmenter, "selection_", None)
+        columns = feats[0].columns
+        selection, segmenter = self._count_and_fit(X, lengths, fps_value, seed, columns)
         offsets = _offsets_of(segmenter, X, lengths)  # once, for the joins and the threshold
+        # Where a frame's unit (session x animal) tells its state, a unit's offset, or its
+        # being used apart from another unit's state, cannot be told from its behaviour
+        self.unit_lambda_ = float("nan")
+        if self._unit_rules(segmenter, lengths):
+            self.unit_lambda_ = self._unit_lambda(
+                segmenter, columns, X, lengths, offsets, fps_value
+            )
+        self.unit_rules_left_out_ = bool(self.unit_lambda_ >= UNIT_LAMBDA)
+        if self.unit_rules_left_out_:
+            said = unit_lambda_said(self.unit_lambda_)
+            if self._offsets_by_default():
+                selection, segmenter = self._count_and_fit(
+                    X, lengths, fps_value, seed, columns, session_offsets=False
+                )
+                offsets = None
+                said += "; the states were fitted without per-session offsets"
+            if selection is not None:
+                selection = replace(selection, reason=f"{selection.reason}; {said}")
         self.phase_groups_, self.phase_pairs_, self.unit_pairs_, self.mode_pairs_ = (
-            self._phase_groups(segmenter, feats[0].columns, X, lengths, offsets)
+            self._phase_groups(
+                segmenter, columns, X, lengths, offsets, units=not self.unit_rules_left_out_
+            )
         )
         self.random_seed_ = seed
         self.cleaning_ = params
@@ -611,6 +666,81 @@ class BehaviourModel(BaseEstimator):
                     )
         return feats
 
+    def _count_and_fit(
+        self,
+        X: np.ndarray,
+        lengths: np.ndarray,
+        fps: float,
+        seed: int,
+        columns: Sequence[str],
+        **changed: Any,
+    ) -> tuple[Any, Any]:
+        """The state count (when automatic) and the final fit; ``changed``: segmenter
+        options other than the model's own."""
+        n_states = self.n_states
+        selection = None
+        count_options = {**COUNT_DEFAULTS, **(self.state_count_options or {})}
+        warm = count_options.pop("warm_start", False)
+        starts: Sequence[Any] = ()
+        if n_states == "auto" and get_segmenter(self.method).auto_states == "heldout":
+            lo, hi = self.state_range
+            selection = choose_n_states(
+                X,
+                lengths,
+                candidates=range(lo, hi + 1),
+                model_params={"fps": fps, **self._segmenter_options(), **changed},
+                random_state=seed,
+                progress=self.progress,
+                method=self.method,
+                **count_options,
+            )
+            n_states = int(selection.best)
+            if warm and get_segmenter(self.method).warm_start:
+                starts = getattr(selection, "fold_models", {}).get(n_states, ())
+        segmenter = self._make_segmenter(n_states, fps, seed, columns, **changed)
+        if starts:  # the count's two quick fits of this count start restarts of their own
+            segmenter.fit(X, lengths, init_models=starts)
+        else:
+            segmenter.fit(X, lengths)
+        if selection is None:  # a segmenter that chose its own count may show how
+            selection = getattr(segmenter, "selection_", None)
+        return selection, segmenter
+
+    def _unit_lambda(
+        self,
+        segmenter: Any,
+        columns: Sequence[str],
+        X: np.ndarray,
+        lengths: np.ndarray,
+        offsets: np.ndarray | None,
+        fps: float,
+    ) -> float:
+        """:func:`unit_lambda` of the labels as the user would get them from ``segmenter``
+        before any rule that reads units apart: phases of one rhythm and parts of one mode
+        joined (a clip of a rhythm holds its phases), bouts of at least ``min_bout_s``."""
+        states = segmenter.predict(X, lengths, **_given(offsets=offsets))
+        groups = self._phase_groups(segmenter, columns, X, lengths, offsets, units=False)[0]
+        if groups is not None:
+            states = np.asarray(groups, dtype=np.int64)[states]
+        min_frames = round(self.min_bout_s * fps)
+        return unit_lambda(enforce_min_bout(states, min_frames, lengths), lengths)
+
+    def _unit_rules(self, segmenter: Any, lengths: np.ndarray) -> bool:
+        """Whether a rule reads units apart: per-session offsets, or states joined as one
+        behaviour in different units (with more than one unit)."""
+        if len(lengths) < 2:
+            return False
+        joins = self.join_units and not self._causal_path() and hasattr(segmenter, "transmat_")
+        return bool(getattr(segmenter, "session_offsets", False) or joins)
+
+    def _offsets_by_default(self) -> bool:
+        """Whether the segmenter gets per-session offsets by default, not by the user's
+        choice (so the model may leave them out)."""
+        options = self._segmenter_options()
+        return "session_offsets" in get_segmenter(self.method).options and (
+            "session_offsets" not in options
+        )
+
     def _causal_path(self) -> bool:
         """Fitted or labelled from past frames only (``causal`` or causal features): nothing
         that needs later frames (joins, regimes) applies."""
@@ -635,6 +765,7 @@ class BehaviourModel(BaseEstimator):
         X: np.ndarray,
         lengths: np.ndarray,
         offsets: np.ndarray | None = None,
+        units: bool = True,
     ) -> tuple[list[int] | None, list[dict], list[dict], list[dict]]:
         """Labelled state of every fitted state when ``join_phases`` / ``join_units`` /
         ``join_modes`` join some (None when nothing is joined, the options are off, the model
@@ -655,7 +786,7 @@ class BehaviourModel(BaseEstimator):
         return joined_states(
             segmenter,
             steady_columns(columns),
-            X if self.join_units else None,
+            X if self.join_units and units else None,
             lengths,
             phases=bool(self.join_phases),
             modes=modes,
@@ -1072,6 +1203,7 @@ class BehaviourModel(BaseEstimator):
             "unit_pairs": getattr(self, "unit_pairs_", []),
             "mode_pairs": getattr(self, "mode_pairs_", []),
             "poor_fit_threshold": getattr(self, "poor_fit_threshold_", None),
+            "unit_lambda": _finite_or_none(getattr(self, "unit_lambda_", float("nan"))),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -1187,6 +1319,13 @@ class BehaviourModel(BaseEstimator):
             )
         model.poor_fit_threshold_ = None if threshold is None else float(threshold)
         model.saved_without_fit_check_ = "poor_fit_threshold" not in meta
+        value = meta.get("unit_lambda")
+        if value is not None and not (is_real(value) and 0 <= value <= 1):
+            raise InputError(
+                f"'unit_lambda' must be a number from 0 to 1 or null, got {value!r}. {RESAVE}"
+            )
+        model.unit_lambda_ = float("nan") if value is None else float(value)
+        model.unit_rules_left_out_ = bool(model.unit_lambda_ >= UNIT_LAMBDA)
         # The parts must describe the same body plan and state count as the summary fields.
         problems = []
         if model.features_.keypoints_ != model.keypoints_:
