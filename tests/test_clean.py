@@ -447,3 +447,25 @@ def test_report_fractions_summary_and_figure(scenario):
     assert list(fig.data[0].x) == ["nose", "tail", "left_ear", "right_ear", "tail_base"]
     with pytest.raises(InputError, match="QualityReport"):
         quality_figure([42])
+
+
+def test_quality_figure_of_many_sessions_shows_those_with_the_most_missing():
+    import pandas as pd
+
+    from ethoscribe.plots.quality import MAX_SESSIONS_SHOWN
+
+    rows = []
+    for i in range(100):  # a study of 100 short clips: session i misses i % 7 of 100 frames
+        frac = (i % 7) / 100
+        rows.append({"session": f"c{i:03d}", "animal": "a", "keypoint": "nose",
+                     "frac_missing_raw": frac, "frac_low_confidence": 0.0, "frac_jumps": 0.0,
+                     "frac_filled": 0.0, "frac_missing_after": frac, "frac_invalid_frames": frac,
+                     "frac_unscored_frames": 0.0})  # fmt: skip
+    fig = quality_figure(pd.DataFrame(rows))
+    shown = list(fig.data[-1].y)
+    assert len(shown) == MAX_SESSIONS_SHOWN and fig.layout.height < 1400
+    # the 14 sessions missing 6 %, then the 14 missing 5 %, then 2 of those missing 4 %
+    values = dict(zip(fig.data[-2].y, fig.data[-2].x, strict=True))
+    assert sorted(values.values(), reverse=True) == list(values.values())
+    assert min(values.values()) == 0.04 and max(values.values()) == 0.06
+    assert "30 of 100" in fig.layout.annotations[1].text

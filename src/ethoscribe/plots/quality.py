@@ -28,6 +28,9 @@ BARS = {
     "frac_missing_after": ("missing after cleaning", "#2e294e"),
 }
 NEEDED = ("session", "animal", "keypoint", *BARS, "frac_invalid_frames")
+# Studies of many short sessions (clips of one behaviour each) hold hundreds: the panel shows
+# the sessions with the most frames missing or unscored, up to this many (quality.csv has all).
+MAX_SESSIONS_SHOWN = 30
 
 
 def _table(item: Any) -> pd.DataFrame:
@@ -54,7 +57,8 @@ def quality_figure(
     confidence, masked as jumps, filled, and missing after cleaning (mean over sessions and
     animals). Right, per session: the fraction of frames with some keypoint still missing
     after cleaning (the model fills those when enough of the body was seen) and, when the table
-    has ``frac_unscored_frames`` (from the labels), the fraction left without a label.
+    has ``frac_unscored_frames`` (from the labels), the fraction left without a label; beyond
+    :data:`MAX_SESSIONS_SHOWN` sessions, those with the largest sum of the two.
 
     Parameters
     ----------
@@ -88,12 +92,19 @@ def quality_figure(
     unscored = None
     if "frac_unscored_frames" in per_animal.columns:
         unscored = per_animal.groupby("session", sort=False)["frac_unscored_frames"].mean()
+    title = "Frames per session"
+    if len(invalid) > MAX_SESSIONS_SHOWN:
+        worst = invalid if unscored is None else invalid + unscored
+        shown = worst.sort_values(ascending=False, kind="stable").index[:MAX_SESSIONS_SHOWN]
+        title = f"Frames per session ({MAX_SESSIONS_SHOWN} of {len(invalid)}: the most missing)"
+        invalid = invalid.loc[shown]
+        unscored = None if unscored is None else unscored.loc[shown]
 
     fig = make_subplots(
         rows=1,
         cols=2,
         column_widths=[0.72, 0.28],
-        subplot_titles=("Per keypoint (mean over sessions and animals)", "Frames per session"),
+        subplot_titles=("Per keypoint (mean over sessions and animals)", title),
     )
     for column, (label, colour) in BARS.items():
         fig.add_trace(
