@@ -338,9 +338,9 @@ def test_clips_of_one_behaviour_are_fitted_without_unit_rules():
     # Recovery test (invented data): when every session is one behaviour, a per-session offset
     # can stand in for the behaviour itself, and "used in different sessions" says nothing
     # about two states being one behaviour. The model sees that a frame's session tells its
-    # state and leaves both rules out. (The validation bench's voles
-    # cut into such clips: ARI 0.26 with both rules, 0.50 with offsets alone, 0.90 with
-    # neither; benchmarks/README.md, "Clips of one behaviour each".)
+    # state and leaves both rules out. (The validation bench's voles cut into such clips: ARI
+    # 0.26 with both rules, 0.50 with offsets alone, 0.90 with neither; benchmarks/README.md,
+    # "Clips of one behaviour each".)
     from ethoscribe.segment.model import BehaviourModel
 
     clips, codes = _clips()
@@ -351,7 +351,7 @@ def test_clips_of_one_behaviour_are_fitted_without_unit_rules():
     assert "without per-session offsets" in model.selection_.reason
     found = model.label(clips)["state"].to_numpy()
     assert adjusted_rand(np.concatenate(codes), found) > 0.8
-    # saved and loaded: the share is kept with the model, and it labels the same
+    # saved and loaded: lambda is kept with the model, and it labels the same
     meta, arrays = model.to_state()
     again = BehaviourModel.from_state(json.loads(json.dumps(meta)), arrays)
     assert again.unit_lambda_ == pytest.approx(model.unit_lambda_)
