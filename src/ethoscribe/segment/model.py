@@ -122,10 +122,6 @@ def unit_lambda_said(value: float) -> str:
     )
 
 
-def _finite_or_none(value: float) -> float | None:
-    return float(value) if np.isfinite(value) else None
-
-
 def motif_name(state: int) -> str:
     """Neutral default name of state ``state`` (0-based): ``motif_01``, ``motif_02`` ..."""
     return f"motif_{state + 1:02d}"
@@ -586,7 +582,6 @@ class BehaviourModel(BaseEstimator):
             self.unit_lambda_ = self._unit_lambda(
                 segmenter, columns, X, lengths, offsets, fps_value
             )
-        self.unit_rules_left_out_ = bool(self.unit_lambda_ >= UNIT_LAMBDA)
         if self.unit_rules_left_out_:
             said = unit_lambda_said(self.unit_lambda_)
             if self._offsets_by_default():
@@ -715,15 +710,21 @@ class BehaviourModel(BaseEstimator):
         offsets: np.ndarray | None,
         fps: float,
     ) -> float:
-        """:func:`unit_lambda` of the labels as the user would get them from ``segmenter``
-        before any rule that reads units apart: phases of one rhythm and parts of one mode
-        joined (a clip of a rhythm holds its phases), bouts of at least ``min_bout_s``."""
+        """:func:`unit_lambda` of labels close to the user's from ``segmenter``, before any
+        rule that reads units apart: phases of one rhythm and parts of one mode joined (a clip
+        of a rhythm holds its phases), bouts shorter than ``min_bout_s`` merged into their
+        longer neighbour (the labels merge by posterior; this reads the Viterbi path only)."""
         states = segmenter.predict(X, lengths, **_given(offsets=offsets))
         groups = self._phase_groups(segmenter, columns, X, lengths, offsets, units=False)[0]
         if groups is not None:
             states = np.asarray(groups, dtype=np.int64)[states]
         min_frames = round(self.min_bout_s * fps)
         return unit_lambda(enforce_min_bout(states, min_frames, lengths), lengths)
+
+    @property
+    def unit_rules_left_out_(self) -> bool:
+        """Whether the rules that read units apart were left out (:data:`UNIT_LAMBDA`)."""
+        return bool(getattr(self, "unit_lambda_", float("nan")) >= UNIT_LAMBDA)
 
     def _unit_rules(self, segmenter: Any, lengths: np.ndarray) -> bool:
         """Whether a rule reads units apart: per-session offsets, or states joined as one
@@ -1182,6 +1183,7 @@ class BehaviourModel(BaseEstimator):
         check_fitted(self, "segmenter_")
         f_meta, f_arrays = self.features_.to_state()
         s_meta, s_arrays = self.segmenter_.to_state()
+        lam = getattr(self, "unit_lambda_", float("nan"))
         meta = {
             **header("ethoscribe.BehaviourModel", FORMAT_VERSION),
             "params": self.saved_params(),
@@ -1203,7 +1205,7 @@ class BehaviourModel(BaseEstimator):
             "unit_pairs": getattr(self, "unit_pairs_", []),
             "mode_pairs": getattr(self, "mode_pairs_", []),
             "poor_fit_threshold": getattr(self, "poor_fit_threshold_", None),
-            "unit_lambda": _finite_or_none(getattr(self, "unit_lambda_", float("nan"))),
+            "unit_lambda": None if np.isnan(lam) else float(lam),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -1325,7 +1327,6 @@ class BehaviourModel(BaseEstimator):
                 f"'unit_lambda' must be a number from 0 to 1 or null, got {value!r}. {RESAVE}"
             )
         model.unit_lambda_ = float("nan") if value is None else float(value)
-        model.unit_rules_left_out_ = bool(model.unit_lambda_ >= UNIT_LAMBDA)
         # The parts must describe the same body plan and state count as the summary fields.
         problems = []
         if model.features_.keypoints_ != model.keypoints_:
