@@ -1,6 +1,7 @@
-"""3-D tracks whose vertical axis is not the assumed one are named before fitting.
+"""The vertical axis of 3-D tracks: read from the tracks by default, checked when given.
 
-Invented data: the package's simulated fish (``glass_minnow``, z up), seeds fixed below.
+Invented data: the package's simulated fish (``glass_minnow``, z up), seeds fixed below;
+the same fish with the axes exchanged stand for tracks with y or x up.
 """
 
 from __future__ import annotations
@@ -12,7 +13,12 @@ import pytest
 
 from ethoscribe.errors import InputWarning
 from ethoscribe.features import FeaturePipeline
-from ethoscribe.features.vertical_check import axis_profile, warn_vertical_axis
+from ethoscribe.features.vertical_check import (
+    choose_vertical_axis,
+    resolve_up_axis,
+    vertical_evidence,
+    warn_vertical_axis,
+)
 from ethoscribe.pose import PoseTracks
 from ethoscribe.simulate.session import simulate_session
 
@@ -31,13 +37,36 @@ def _exchange(tracks, a: int, b: int):
     return tracks.replace(coords=coords)
 
 
-def test_profile_by_hand():
-    # two keypoints 2 apart along x and 1 along z, moving 1 per frame along x
-    c = np.zeros((5, 1, 2, 3))
+def test_evidence_by_hand():
+    # two keypoints 2 apart along x and 1 along z, moving 1 per frame along x for 21 frames
+    c = np.zeros((21, 1, 2, 3))
     c[:, 0, 1] = [2.0, 0.0, 1.0]
-    c[..., 0] += np.arange(5)[:, None, None]
-    travel, extent = axis_profile([PoseTracks(c, keypoints=["a", "b"], fps=30.0)])
-    assert travel.tolist() == [1.0, 0.0, 0.0] and extent.tolist() == [2.0, 0.0, 1.0]
+    c[..., 0] += np.arange(21)[:, None, None]
+    e = vertical_evidence([PoseTracks(c, keypoints=["a", "b"], fps=30.0)])
+    # spread: population sd of two values d apart is d/2; range: numpy's linear quantiles
+    # of 1..21 (centroids) at 0.05 and 0.95 are 2 and 20
+    assert e["spread"] == [1.0, 0.0, 0.5] and e["extent"] == [2.0, 0.0, 1.0]
+    assert np.allclose(e["range"], [18.0, 0.0, 0.0])
+
+
+@pytest.mark.parametrize(("order", "up"), [((0, 1, 2), "z"), ((0, 2, 1), "y"), ((2, 1, 0), "x")])
+def test_the_vertical_is_read_from_the_tracks(fish, order, up):
+    turned = fish.replace(coords=fish.coords[..., list(order)].copy())
+    axis, why = choose_vertical_axis([turned])
+    assert axis == up and "range least" in why
+    assert resolve_up_axis([turned], "auto")[0] == up
+    assert resolve_up_axis([turned], "x") == ("x", "x (given)")  # a given axis is kept
+
+
+def test_no_clear_sign_keeps_z(fish):
+    # a tethered animal: the body turns and bends but its centre does not travel
+    still = fish.coords - np.nanmean(fish.coords, axis=2, keepdims=True)
+    tethered = fish.replace(coords=still[..., [0, 2, 1]])
+    assert choose_vertical_axis([tethered])[0] is None
+    axis, why = resolve_up_axis([tethered], "auto")
+    assert axis == "z" and why.startswith("z (assumed: the tracks give no clear sign")
+    flat = fish.replace(coords=fish.coords[..., :2].copy())
+    assert resolve_up_axis([flat], "auto") == ("z", "")
 
 
 def test_fish_with_z_up_pass_quietly(fish):
@@ -48,7 +77,7 @@ def test_fish_with_z_up_pass_quietly(fish):
 
 def test_fish_with_y_up_are_named_and_the_option_silences_it(fish):
     turned = _exchange(fish, 1, 2)  # y up, as motion capture often has it
-    with pytest.warns(InputWarning, match=r"travel least\s+along y.*up_axis='y'"):
+    with pytest.warns(InputWarning, match=r"range least\s+along it.*up_axis='y'"):
         assert warn_vertical_axis([turned], "z") == "y"
     with warnings.catch_warnings():
         warnings.simplefilter("error", InputWarning)
@@ -64,20 +93,47 @@ def test_2d_tracks_are_not_checked(fish):
 
 @pytest.mark.filterwarnings("always:3-D tracks:UserWarning")  # shown by the command line
 def test_command_line_sets_the_vertical_axis(fish, tmp_path, capsys):
+    import json
+
     from ethoscribe.cli import command_line_message, main
     from ethoscribe.io import write_tidy
 
     short = fish.replace(coords=fish.coords[:1000], confidence=fish.confidence[:1000])
-    write_tidy(_exchange(short, 1, 2), tmp_path / "fish.parquet")
+    write_tidy(_exchange(short, 1, 2), tmp_path / "fish.parquet")  # y up
     common = ["--states", "2", "--quiet", "--jobs", "1", "--no-stability-check"]
+    # by default the vertical is read from the tracks, and the run says so
     assert main(["discover", str(tmp_path / "fish.parquet"), "--out", str(tmp_path / "a"),
                  *common]) == 0  # fmt: skip
-    assert "--up-axis y" in capsys.readouterr().err  # the warning, in command-line words
-    assert main(["discover", str(tmp_path / "fish.parquet"), "--out", str(tmp_path / "b"),
-                 "--up-axis", "y", *common]) == 0  # fmt: skip
     assert "--up-axis" not in capsys.readouterr().err
+    features = json.loads((tmp_path / "a" / "summary.json").read_text())["features"]
+    assert features["up_axis"] == "y"
+    assert features["up_axis_report"].startswith("y (chosen from the tracks")
+    report = (tmp_path / "a" / "report.html").read_text()
+    assert "Vertical axis of the 3-D tracks: y (chosen" in report
+    # an axis given against the tracks' evidence is kept, with the warning in command-line words
+    assert main(["discover", str(tmp_path / "fish.parquet"), "--out", str(tmp_path / "b"),
+                 "--up-axis", "z", *common]) == 0  # fmt: skip
+    assert "--up-axis y" in capsys.readouterr().err
     model = (tmp_path / "b" / "model" / "model.json").read_text()
-    assert '"up_axis": "y"' in model
+    assert '"up_axis": "z"' in model and '"up_axis_report": "z (given)"' in model
     assert command_line_message("pass up_axis='y' (command line: --up-axis y)") == (
         "pass --up-axis y"
     )
+
+
+def test_labels_do_not_depend_on_which_axis_points_up(fish):
+    # The same fish with y or x up give the z-up labels: every feature is taken about the
+    # vertical the tracks show (the upright figure of the validation bench likewise: ARI with
+    # its truth 0.555 whichever axis is up, 0.263 with y up before; benchmarks/README.md).
+    from ethoscribe.segment.model import BehaviourModel
+
+    def labels(tracks):
+        model = BehaviourModel(n_states=3, random_state=0).fit([tracks])
+        return model.label([tracks])["state"].to_numpy(), model.features_.up_axis
+
+    z_up, axis = labels(fish)
+    assert axis == "z"
+    for order, up in (((0, 2, 1), "y"), ((2, 1, 0), "x")):
+        got, axis = labels(fish.replace(coords=fish.coords[..., list(order)].copy()))
+        assert axis == up
+        assert np.array_equal(got, z_up)

@@ -260,9 +260,10 @@ def build_parser() -> argparse.ArgumentParser:
     )
     d.add_argument(
         "--up-axis",
-        choices=("x", "y", "z"),
-        default="z",
-        help="3-D tracks: the vertical axis (default z; motion capture often has y up)",
+        choices=("auto", "x", "y", "z"),
+        default="auto",
+        help="3-D tracks: the vertical axis (default auto: read from the tracks, z when they "
+        "give no clear sign; motion capture often has y up)",
     )
     d.add_argument(
         "--no-social",

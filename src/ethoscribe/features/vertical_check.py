@@ -1,14 +1,16 @@
-"""3-D tracks whose vertical axis is likely not the one the features assume (``up_axis``,
-"z" by default): motion capture and some 3-D trackers put "up" along y. Nothing fails then:
-the body frame is turned about a horizontal axis and headings, heights and speeds mix the
-vertical in, so the motifs are silently worse (the two example fish sessions, 60 s each,
-with y and z exchanged: adjusted Rand index with the truth 0.84 -> 0.42).
+"""The vertical axis of 3-D tracks: chosen from the tracks (``up_axis="auto"``), or checked
+when given. Motion capture and some 3-D trackers put "up" along y; with the wrong vertical the
+body frame is turned about a horizontal axis and headings, heights and speeds mix the vertical
+in, so the motifs are silently worse (the validation bench's simulated fish with y and z
+exchanged: adjusted Rand index with the truth 0.846 -> 0.559; its upright figure 0.555 -> 0.263).
 
-Two cues from the tracks: animals travel least along the vertical (walking, swimming, flying
-mostly level), and the body's extent along the vertical is extreme (smallest for a four-legged
-animal or a fish, largest for an upright one). When the axis of least travel is not
-``up_axis``, by a clear margin, and the body's extent along it is the smallest or the largest
-of the three, a warning names it.
+Two cues, both from gravity. An animal turns about the vertical, so over a study the body's
+spread along the two horizontal axes is alike while along the vertical it differs (smaller for
+a four-legged animal or a fish, larger for an upright one): the vertical is the odd one out of
+the three spreads. And animals travel over the floor, so the body centre ranges least along
+the vertical. An axis is chosen when both cues name it, each by a clear margin, and the animals
+travel at least a body length; otherwise z is kept (tracks of tethered animals, or sensor
+channels, give no sign).
 """
 
 from __future__ import annotations
@@ -21,54 +23,120 @@ import numpy as np
 from ethoscribe.errors import InputWarning
 from ethoscribe.pose import PoseTracks
 
-TRAVEL_RATIO = 0.7
-"""Warn only when the least-travelled axis moves less than this fraction of ``up_axis``'s
-travel (the two example fish sessions, z up: 0.44 and 0.63 for z against the least-travelled
-other axis)."""
+ODD_SPREAD = np.log(1.5)
+"""The vertical's spread differs from the horizontal ones' geometric mean by at least this
+factor (log) and by at least twice the log-ratio of the two horizontal spreads (bench, seed 0:
+simulated fish 4.9x, 1.1x apart; upright figure 2.7x, 1.02x apart)."""
+
+RANGE_RATIO = 0.7
+"""The body centre's range (5-95 % of its positions) along the vertical is below this fraction
+of its range along each horizontal axis (bench fish 0.42, upright figure 0.09)."""
 
 _AXES = "xyz"
 _MAX_FRAMES = 20_000
 
 
-def axis_profile(sessions: Sequence[PoseTracks]) -> tuple[np.ndarray, np.ndarray]:
-    """Per axis (x, y, z): the centroid's median absolute step between frames, and the
-    body's median extent (largest minus smallest keypoint coordinate in a frame).
-
-    Parameters
-    ----------
-    sessions : sequence of 3-D PoseTracks
-        coords (frames, animals, keypoints, 3).
-
-    Returns
-    -------
-    travel, extent : arrays (3,), NaN where no frame had a complete body
+def vertical_evidence(sessions: Sequence[PoseTracks]) -> dict[str, list[float]]:
+    """Per axis (x, y, z): the body's spread (median over frames with every keypoint of the
+    keypoints' standard deviation), the body centre's range (median over animals of each
+    session of the 5-95 % range of its positions) and the body's extent (median largest minus
+    smallest keypoint coordinate), from at most 20,000 frames of each session.
 
     Examples
     --------
     >>> from ethoscribe.io import from_arrays
-    >>> c = np.zeros((4, 2, 3)); c[:, 1] = [2.0, 0.0, 1.0]; c[:, :, 0] += np.arange(4)[:, None]
-    >>> travel, extent = axis_profile([from_arrays(c, keypoints=["a", "b"], fps=30)])
-    >>> travel.tolist(), extent.tolist()
-    ([1.0, 0.0, 0.0], [2.0, 0.0, 1.0])
+    >>> c = np.zeros((50, 2, 3)); c[:, 1] = [4.0, 0.0, 1.0]; c[:, :, 0] += np.arange(50)[:, None]
+    >>> e = vertical_evidence([from_arrays(c, keypoints=["a", "b"], fps=30)])
+    >>> e["spread"], [round(v, 1) for v in e["range"]]
+    ([2.0, 0.0, 0.5], [44.1, 0.0, 0.0])
     """
-    steps, extents = [], []
+    spreads, extents, ranges = [], [], []
     for s in sessions:
         X = s.coords[:: max(1, s.n_frames // _MAX_FRAMES)]  # (F, A, K, 3)
-        whole = np.isfinite(X).all(axis=(2, 3))  # (F, A)
-        centroid = np.where(whole[..., None], X.mean(axis=2), np.nan)  # (F, A, 3)
-        step = np.abs(np.diff(centroid, axis=0)).reshape(-1, 3)
-        steps.append(step[np.isfinite(step).all(axis=1)])
-        ext = (X.max(axis=2) - X.min(axis=2)).reshape(-1, 3)
-        extents.append(ext[np.isfinite(ext).all(axis=1)])
-    step, ext = np.concatenate(steps), np.concatenate(extents)
-    travel = np.median(step, axis=0) if len(step) else np.full(3, np.nan)
-    extent = np.median(ext, axis=0) if len(ext) else np.full(3, np.nan)
-    return travel, extent
+        for a in range(X.shape[1]):
+            Y = X[:, a][np.isfinite(X[:, a]).all(axis=(1, 2))]  # (F', K, 3), whole bodies
+            if len(Y) < 2:
+                continue
+            spreads.append(Y.std(axis=1))
+            extents.append(Y.max(axis=1) - Y.min(axis=1))
+            q = np.quantile(Y.mean(axis=1), [0.05, 0.95], axis=0)
+            ranges.append(q[1] - q[0])
+    if not spreads:
+        nan = [float("nan")] * 3
+        return {"spread": nan, "range": nan, "extent": nan}
+    return {
+        "spread": np.median(np.concatenate(spreads), axis=0).tolist(),
+        "range": np.median(ranges, axis=0).tolist(),
+        "extent": np.median(np.concatenate(extents), axis=0).tolist(),
+    }
+
+
+def choose_vertical_axis(sessions: Sequence[PoseTracks]) -> tuple[str | None, str]:
+    """The vertical axis the tracks show (module docstring), or None when they give no clear
+    sign, with a sentence saying why (None and "" for 2-D tracks).
+
+    Examples
+    --------
+    >>> from ethoscribe.io import from_arrays
+    >>> rng = np.random.default_rng(0)
+    >>> body = rng.normal(size=(400, 1, 6, 3)) * [1.0, 1.0, 3.0]  # tall, turning: z odd
+    >>> body[..., :2] += rng.uniform(0, 20, size=(400, 1, 1, 2))  # travels over x and y
+    >>> choose_vertical_axis([from_arrays(body, keypoints=list("abcdef"), fps=30)])[0]
+    'z'
+    >>> y_up = from_arrays(body[..., [0, 2, 1]], keypoints=list("abcdef"), fps=30)
+    >>> choose_vertical_axis([y_up])[0]
+    'y'
+    """
+    if not sessions or sessions[0].n_dims != 3:
+        return None, ""
+    e = vertical_evidence(sessions)
+    spread, rng, extent = (np.asarray(e[k]) for k in ("spread", "range", "extent"))
+    shown = (
+        f"body spread x/y/z {_three(spread)}, body-centre range {_three(rng)} {sessions[0].units}"
+    )
+    if not (np.isfinite(spread).all() and np.isfinite(rng).all()) or (spread <= 0).any():
+        return None, f"the tracks give no clear sign of the vertical ({shown})"
+    log = np.log(spread)
+    odd = None
+    for a in range(3):
+        b, c = (i for i in range(3) if i != a)
+        gap, alike = abs(log[a] - (log[b] + log[c]) / 2), abs(log[b] - log[c])
+        if gap >= ODD_SPREAD and gap >= 2 * alike:
+            odd = a
+    low = int(np.argmin(rng))
+    others = np.delete(rng, low)
+    travels = others.max() >= np.nanmax(extent)
+    if odd is None or odd != low or not travels or not rng[low] < RANGE_RATIO * others.min():
+        return None, f"the tracks give no clear sign of the vertical ({shown})"
+    axis = _AXES[odd]
+    return axis, (
+        f"{axis} is vertical: the body's spread along it stands apart from two alike "
+        f"horizontal ones and the animals range least along it ({shown})"
+    )
+
+
+def _three(v: np.ndarray) -> str:
+    return "/".join(f"{x:.3g}" for x in v)
+
+
+def resolve_up_axis(sessions: Sequence[PoseTracks], up_axis: str) -> tuple[str, str]:
+    """The vertical axis to use and how it was chosen: ``up_axis`` itself when given ("x", "y"
+    or "z"; the feature pipeline checks it), else (``"auto"``) the one
+    :func:`choose_vertical_axis` names, or z when the tracks give no clear sign. The text is
+    empty for 2-D tracks."""
+    if not sessions or sessions[0].n_dims != 3:
+        return ("z" if up_axis == "auto" else up_axis), ""
+    if up_axis != "auto":
+        return up_axis, f"{up_axis} (given)"
+    axis, why = choose_vertical_axis(sessions)
+    if axis is None:
+        return "z", f"z (assumed: {why})"
+    return axis, f"{axis} (chosen from the tracks: {why})"
 
 
 def warn_vertical_axis(sessions: Sequence[PoseTracks], up_axis: str) -> str | None:
-    """Warn (``InputWarning``) when 3-D tracks look as if another axis than ``up_axis`` were
-    vertical; returns that axis (None: no sign of it, or not 3-D).
+    """Warn (``InputWarning``) when 3-D tracks show another vertical axis than ``up_axis``
+    (:func:`choose_vertical_axis`); returns that axis (None: no sign of it, or not 3-D).
 
     Examples
     --------
@@ -77,25 +145,16 @@ def warn_vertical_axis(sessions: Sequence[PoseTracks], up_axis: str) -> str | No
     >>> warn_vertical_axis([from_arrays(c, keypoints=["a", "b"], fps=30)], "z") is None
     True
     """
-    if not sessions or sessions[0].n_dims != 3 or up_axis not in _AXES:
+    if up_axis not in _AXES:
         return None
-    travel, extent = axis_profile(sessions)
-    if not (np.isfinite(travel).all() and np.isfinite(extent).all()):
+    axis, why = choose_vertical_axis(sessions)
+    if axis is None or axis == up_axis:
         return None
-    up, low = _AXES.index(up_axis), int(np.argmin(travel))
-    extreme = extent[low] in (extent.min(), extent.max())
-    if low == up or not extreme or not travel[low] < TRAVEL_RATIO * travel[up]:
-        return None
-    axis = _AXES[low]
-    u = sessions[0].units
-    shown = ", ".join(f"{a} {t:.3g}" for a, t in zip(_AXES, travel, strict=True))
-    body = ", ".join(f"{a} {e:.3g}" for a, e in zip(_AXES, extent, strict=True))
     msg = (
-        f"3-D tracks: the vertical axis is taken to be {up_axis}, but the animals travel least "
-        f"along {axis} (median step of the body centre per frame: {shown} {u}; body extent: "
-        f"{body} {u}), as they do along the vertical. If {axis} points up, pass "
-        f"up_axis='{axis}' (command line: --up-axis {axis}): headings, heights and speeds are "
-        f"taken about the vertical, so the motifs depend on it. If {up_axis} is up, ignore this."
+        f"3-D tracks: the vertical axis is taken to be {up_axis}, but {why}. If {axis} points "
+        f"up, pass up_axis='{axis}' or up_axis='auto' (command line: --up-axis {axis}): "
+        f"headings, heights and speeds are taken about the vertical, so the motifs depend on "
+        f"it. If {up_axis} is up, ignore this."
     )
     warnings.warn(msg, InputWarning, stacklevel=3)
     return axis

@@ -22,6 +22,7 @@ from ethoscribe.checks import is_real, seed_from
 from ethoscribe.clean import CleanParams, QualityReport, clean
 from ethoscribe.errors import EthoscribeError, InputError, InputWarning, listed
 from ethoscribe.features import FeaturePipeline, FeatureSet
+from ethoscribe.features.vertical_check import resolve_up_axis
 from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
 from ethoscribe.pose import (
     PoseTracks,
@@ -167,7 +168,10 @@ class BehaviourModel(BaseEstimator):
     cleaning : dict or CleanParams, optional
         Cleaning parameters (see :class:`ethoscribe.clean.CleanParams`).
     features : dict, optional
-        Keyword parameters of :class:`ethoscribe.features.FeaturePipeline`.
+        Keyword parameters of :class:`ethoscribe.features.FeaturePipeline`. ``up_axis``
+        (3-D tracks) may also be "auto", the default here: the vertical axis is chosen from
+        the training tracks (:func:`ethoscribe.features.vertical_check.resolve_up_axis`; z
+        when they give no clear sign), and said in :attr:`up_axis_report_`.
     method : str
         A registered segmentation method (:mod:`ethoscribe.segment.registry`): "hmm" (Gaussian
         HMM over frames), "changepoint" or "prediction_error" (change points, by penalised
@@ -562,10 +566,10 @@ class BehaviourModel(BaseEstimator):
             params = _causal_cleaning(cleaned, params)
         sessions = cleaned
         options = {**(self.features or {}), **({"causal": True} if self.causal else {})}
-        pipeline = FeaturePipeline(**options)
+        up, self.up_axis_report_ = resolve_up_axis(cleaned, options.get("up_axis", "auto"))
+        pipeline = FeaturePipeline(**{**options, "up_axis": up})
         self.filler_ = None
         if self.min_body_seen is not None:
-            up = (self.features or {}).get("up_axis", "z")
             self.filler_ = fit_filler(cleaned, float(self.min_body_seen), up)
         filled = [fill_tracks(self.filler_, s) for s in cleaned]
         feats = _with_seen(pipeline.fit_transform([t for t, _ in filled]), filled)
@@ -1206,6 +1210,7 @@ class BehaviourModel(BaseEstimator):
             "mode_pairs": getattr(self, "mode_pairs_", []),
             "poor_fit_threshold": getattr(self, "poor_fit_threshold_", None),
             "unit_lambda": None if np.isnan(lam) else float(lam),
+            "up_axis_report": getattr(self, "up_axis_report_", ""),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -1327,6 +1332,10 @@ class BehaviourModel(BaseEstimator):
                 f"'unit_lambda' must be a number from 0 to 1 or null, got {value!r}. {RESAVE}"
             )
         model.unit_lambda_ = float("nan") if value is None else float(value)
+        said = meta.get("up_axis_report", "")
+        if not isinstance(said, str):
+            raise InputError(f"'up_axis_report' must be text, got {said!r}. {RESAVE}")
+        model.up_axis_report_ = said
         # The parts must describe the same body plan and state count as the summary fields.
         problems = []
         if model.features_.keypoints_ != model.keypoints_:

@@ -76,8 +76,8 @@ class NewStudy(w.VBox):
             options=[AUTOMATIC], description="to (head side)", layout=w.Layout(width="240px")
         )
         self.up = w.Dropdown(
-            options=[("z (default)", "z"), ("y", "y"), ("x", "x")],
-            value="z",
+            options=[("automatic", "auto"), ("z", "z"), ("y", "y"), ("x", "x")],
+            value="auto",
             description="Vertical axis",
             style=label,
             layout=w.Layout(width="340px", display="none"),  # shown for 3-D tracks
@@ -153,6 +153,9 @@ class NewStudy(w.VBox):
         self.head.options = [(f"automatic ({head})", AUTOMATIC), *named]
         # 3-D tracks: which axis points up decides headings and heights (check again after a change)
         self.up.layout.display = "" if info.get("n_dims") == 3 else "none"
+        chosen = self.up.value
+        self.up.options = [(f"automatic ({info['up_axis']})", "auto"), *self.up.options[1:]]
+        self.up.value = chosen
         sessions = info["sessions"]
         shown = listed(sessions, 6)
         text = (
@@ -160,6 +163,7 @@ class NewStudy(w.VBox):
             f"({', '.join(keypoints)}); {len(info['animals'])} animal(s); "
             f"{info['fps']:g} frames per second; coordinates in {info['units']}. "
             f"{info['axis_text']}"
+            + (f" Vertical axis: {info['up_axis_text']}." if info.get("up_axis_text") else "")
         )
         shown_warnings = list(info["warnings"])
         if info.get("n_dims") == 3 and any("vertical axis" in t for t in shown_warnings):

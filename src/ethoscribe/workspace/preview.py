@@ -17,6 +17,7 @@ import pandas as pd
 
 from ethoscribe.clean import clean
 from ethoscribe.features import FeaturePipeline
+from ethoscribe.features.vertical_check import resolve_up_axis
 from ethoscribe.pose import match_keypoint_order
 from ethoscribe.workspace.reading import discovery_cleaning, plan_sessions, read_planned
 
@@ -27,14 +28,16 @@ def preview_study(
     fps: float | None = None,
     reader_options: Mapping[str, Any] | None = None,
     n_read: int = 2,
-    up_axis: str = "z",
+    up_axis: str = "auto",
 ) -> dict[str, Any]:
     """Sessions, keypoints, frame rate, units and the automatic body axis of a study.
 
     Returns a dict: ``sessions`` (names), ``keypoints``, ``animals``, ``fps``, ``units``,
     ``n_dims``, ``axis`` (tail side, head side), ``origin``, ``axis_text`` (how the axis was
-    chosen) and ``warnings`` (e.g. an unreliable automatic axis, or 3-D tracks that look as if
-    another axis than ``up_axis`` points up), from the first ``n_read`` sessions.
+    chosen), ``up_axis`` and ``up_axis_text`` (the vertical axis of 3-D tracks and how it was
+    chosen: "auto" reads it from the tracks) and ``warnings`` (e.g. an unreliable automatic
+    axis, or 3-D tracks that look as if another axis than a given ``up_axis`` points up), from
+    the first ``n_read`` sessions.
 
     Examples
     --------
@@ -49,7 +52,8 @@ def preview_study(
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         cleaned = match_keypoint_order(cleaned)  # as discover reads them (one keypoint set)
-        pipe = FeaturePipeline(up_axis=up_axis).fit(cleaned)
+        up, up_text = resolve_up_axis(cleaned, up_axis)
+        pipe = FeaturePipeline(up_axis=up).fit(cleaned)
     first = cleaned[0]
     return {
         "sessions": [entry["session"] for entry in plan],
@@ -61,5 +65,7 @@ def preview_study(
         "axis": tuple(pipe.axis_),
         "origin": pipe.origin_ or "centroid",
         "axis_text": str(pipe.axis_report_),
+        "up_axis": up,
+        "up_axis_text": up_text,
         "warnings": [str(w.message) for w in caught if issubclass(w.category, UserWarning)],
     }

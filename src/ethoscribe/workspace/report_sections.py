@@ -135,6 +135,9 @@ def model_section(ws: Workspace) -> Section:
             "labelling, so states describe behaviour rather than individuals; the offsets "
             f"spread about {offsets['relative_spread']:.2g} of a state's own spread."
         )
+    vertical = (summary.get("features") or {}).get("up_axis_report")
+    if vertical:
+        text += f" Vertical axis of the 3-D tracks: {vertical}."
     figures, tables = [], []
     fit = _fit_to_model_table(summary.get("fit_to_model"))
     if fit is not None:

@@ -112,7 +112,7 @@ def discover(
     causal: bool = False,
     join_tracks: bool = False,
     social: bool = True,
-    up_axis: str = "z",
+    up_axis: str = "auto",
     slow_regimes: bool = True,
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
@@ -133,7 +133,10 @@ def discover(
         (every session must then have two or more); False for a study that mixes single- and
         multi-animal sessions
     up_axis : the vertical axis of 3-D tracks ("x", "y" or "z"; motion capture often has y
-        up): headings and heights are taken about it
+        up): headings and heights are taken about it. "auto" (default) reads it from the
+        tracks (the body's spread stands apart along the vertical and the animals range least
+        along it; z when they give no clear sign); ``summary.json`` and the report say which
+        and why
     slow_regimes : label stretches of minutes whose states alternate in a steady mix by that
         mix when the training labels hold such stretches (``BehaviourModel(slow_regimes=
         "auto")``; the report says when it happened); False keeps the states as the motifs
@@ -187,7 +190,7 @@ def discover(
             )
         sample = _training_sample(prepared, table, fit_frames, seed)
         no_social = {"social": False}  # set only when off: earlier fits keep their digest
-        up = {} if up_axis == "z" else {"up_axis": up_axis}  # likewise
+        up = {} if up_axis == "auto" else {"up_axis": up_axis}  # likewise
         regimes = {} if slow_regimes else {"slow_regimes": "off"}  # likewise
         # The fit's features of whole sessions, kept for labelling them in this process.
         in_process = client is None and (default_jobs() if jobs is None else jobs) == 1
@@ -705,6 +708,8 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
             "origin": model.features_.origin_,
             "axis": list(model.features_.axis_),
             "axis_report": model.features_.axis_report_,
+            "up_axis": model.features_.up_axis if model.n_dims_ == 3 else None,
+            "up_axis_report": getattr(model, "up_axis_report_", ""),
         },
         "n_sessions": len(table),
         "n_frames": int(table["n_frames"].sum()),  # as read from the files

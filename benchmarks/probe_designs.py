@@ -1,0 +1,109 @@
+"""The same recordings as another lab would hand them over: bench sources changed in ways that
+say nothing about behaviour, scored beside the plain reference pipeline.
+
+benchmarks/README.md, "The same recordings handed over differently".
+
+A tool that finds behaviours should not care which way the coordinate axes point, what the
+keypoints are called, whether coordinates are in pixels, or (within reason) the frame rate;
+fewer keypoints lose information, and how much is worth knowing. Each change is applied to every
+session of a source, then ethoscribe's defaults and the plain reference pipeline run on it and
+are scored with the bench's own scoring (ARI, boundary F1 within 0.2 s, states found).
+
+    python -m benchmarks.probe_designs                                # the recorded rows, seed 0
+    python -m benchmarks.probe_designs --source own_fish --change "y up"
+"""
+
+from __future__ import annotations
+
+import argparse
+import warnings
+from collections.abc import Callable
+
+import numpy as np
+from benchmarks.validity import pipelines
+from benchmarks.validity.scoring import score_units
+from benchmarks.validity.sources import LOADERS, Source, _import_all
+
+from ethoscribe.pose import PoseTracks
+
+
+def _axes(order: list[int]) -> Callable[[PoseTracks], PoseTracks]:
+    return lambda s: s.replace(coords=s.coords[..., order].copy())
+
+
+def _evenly(n: int) -> Callable[[PoseTracks], PoseTracks]:
+    """``n`` keypoints evenly spaced along the listed order (first and last kept)."""
+
+    def keep(s: PoseTracks) -> PoseTracks:
+        idx = np.unique(np.linspace(0, s.n_keypoints - 1, n).round().astype(int))
+        kept = tuple(s.keypoints[i] for i in idx)
+        coords, confidence = s.coords[:, :, idx], s.confidence[:, :, idx]
+        return s.replace(coords=coords, confidence=confidence, keypoints=kept)
+
+    return keep
+
+
+CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
+    "as recorded": lambda s: s,
+    "y up": _axes([0, 2, 1]),
+    "x up": _axes([2, 1, 0]),
+    "keypoints renamed": lambda s: s.replace(
+        keypoints=tuple(f"point{i}" for i in range(s.n_keypoints))
+    ),
+    "pixels": lambda s: s.replace(coords=s.coords * 37.0 + 812.0, units="px"),
+    "5 keypoints": _evenly(5),
+    "3 keypoints": _evenly(3),
+}
+THINNED = "a third of the frame rate"
+_TWO_D = ["as recorded", "keypoints renamed", "pixels", THINNED, "5 keypoints", "3 keypoints"]
+RECORDED = {
+    "own_fish": ["as recorded", "y up", "x up"],
+    "figure_sim": ["as recorded", "y up", "x up"],
+    "own_voles": _TWO_D,
+    "independent_sim": _TWO_D,
+}
+
+
+def _defaults(src: Source, seed: int) -> tuple[dict, dict]:
+    return pipelines.run_ethoscribe(src, seed, None)
+
+
+def changed(src: Source, change: str) -> Source:
+    """``src`` with ``change`` applied to every session (the truth thinned with the frames)."""
+    if change == THINNED:
+        sessions = [
+            s.replace(coords=s.coords[::3], confidence=s.confidence[::3], fps=s.fps / 3)
+            for s in src.sessions
+        ]
+        truth = {k: np.asarray(v)[::3] for k, v in src.truth.items()}
+    else:
+        sessions, truth = [CHANGES[change](s) for s in src.sessions], src.truth
+    details = {**src.details, "change": change}
+    return Source(src.name, src.kind, sessions, truth, src.behaviours, details)
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--source", action="append", choices=sorted(LOADERS))
+    parser.add_argument("--change", action="append", choices=[*CHANGES, THINNED])
+    parser.add_argument("--seed", type=int, default=0)
+    args = parser.parse_args(argv)
+    _import_all()
+    warnings.simplefilter("ignore")
+    print("| source | change | ethoscribe ARI / boundary F1 (states) | reference | states true |")
+    print("|---|---|---|---|---:|")
+    for name in args.source or RECORDED:
+        base = LOADERS[name](seed=args.seed)
+        for change in args.change or RECORDED.get(name, ["as recorded"]):
+            src = changed(base, change)
+            cells = [name, change]
+            for run in (_defaults, pipelines.run_reference):
+                r = score_units(src.truth, run(src, args.seed)[0], src.unit_fps)
+                cells.append(f"{r['ari']:.3f} / {r['boundary_f1']:.2f} ({r['states_found']})")
+            cells.append(str(r["states_true"]))
+            print("| " + " | ".join(cells) + " |", flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
