@@ -110,8 +110,8 @@ def choose_vertical_axis(sessions: Sequence[PoseTracks]) -> tuple[str | None, st
         return None, f"the tracks give no clear sign of the vertical ({shown})"
     axis = _AXES[odd]
     return axis, (
-        f"{axis} is vertical: the body's spread along it stands apart from two alike "
-        f"horizontal ones and the animals range least along it ({shown})"
+        f"the body's spread along {axis} stands apart from two alike horizontal ones and the "
+        f"animals range least along it ({shown})"
     )
 
 
@@ -130,7 +130,7 @@ def resolve_up_axis(sessions: Sequence[PoseTracks], up_axis: str) -> tuple[str, 
         return up_axis, f"{up_axis} (given)"
     axis, why = choose_vertical_axis(sessions)
     if axis is None:
-        return "z", f"z (assumed: {why})"
+        return "z", f"z (assumed: {why}; if another axis points up, set it by hand)"
     return axis, f"{axis} (chosen from the tracks: {why})"
 
 
