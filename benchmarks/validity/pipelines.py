@@ -55,7 +55,7 @@ def run_ethoscribe(
         model.fit(src.sessions)
         table = model.label(src.sessions)
     seconds, cpu = time.perf_counter() - t, time.process_time() - cpu
-    labels = native_labels(src, table)
+    labels = native_labels(src, table, cleaning.get("target_fps"))
     info = {
         "seconds": seconds,
         "cpu_seconds": cpu,
@@ -81,18 +81,21 @@ def run_ethoscribe(
     return labels, info
 
 
-def native_labels(src: Source, table: pd.DataFrame) -> dict[tuple[str, str], np.ndarray]:
+def native_labels(
+    src: Source, table: pd.DataFrame, rate: float | None = None
+) -> dict[tuple[str, str], np.ndarray]:
     """The ``state`` column of a label table per (session, animal), on each unit's native
-    frames (the label of the resampled frame nearest in time when the rates were mixed)."""
-    rates = sorted({float(s.fps) for s in src.sessions})
+    frames (the label of the resampled frame nearest in time when the rates were mixed, or
+    when the table's frames are at ``rate``, a variant's cleaning ``target_fps``)."""
+    rates = [rate] if rate else sorted({float(s.fps) for s in src.sessions})
     native = {s.session: float(s.fps) for s in src.sessions}
     labels = {}
     for (session, animal), part in table.groupby(["session", "animal"], sort=False):
         key = (str(session), str(animal))
         n = len(src.truth[key])
-        rate = rates[0] if len(rates) > 1 else native[key[0]]
+        at = rates[0] if len(rates) > 1 or rate else native[key[0]]
         # Labels of the resampled frames nearest in time to each native frame.
-        nearest = np.rint(np.arange(n) / native[key[0]] * rate).astype(np.int64)
+        nearest = np.rint(np.arange(n) / native[key[0]] * at).astype(np.int64)
         state = np.full(len(part), -1, dtype=np.int64)
         state[part["frame"].to_numpy()] = part["state"].to_numpy()
         labels[key] = state[np.clip(nearest, 0, len(part) - 1)]
