@@ -22,9 +22,11 @@ from ethoscribe.io import write_tidy
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.segment.hmm import GaussianHMM
 from ethoscribe.segment.model import (
+    POOR_FIT_LINES,
     POOR_FIT_WARN_SHARE,
     BehaviourModel,
     best_state_log_likelihood,
+    poor_fit_messages,
     poor_fit_threshold,
     poorly_fitted,
 )
@@ -181,3 +183,17 @@ def test_label_sessions_with_a_model_saved_before_the_threshold(tmp_path):
     assert not fit["checked"] and fit["sessions"] == [] and fit["flagged"] == []
     labels = pd.read_csv(tmp_path / "new" / "labels.csv", keep_default_na=False)
     assert set(labels["session"]) == {"session_01", "session_02"}
+
+
+def test_many_poorly_explained_sessions_are_said_in_one_line(fitted):
+    # A study of many short clips flagged dozens of sessions: one line each drowned the run.
+    shares = [{"session": f"clip{i}", "share": i / 100} for i in range(40)]  # 29 above 10 %
+    lines = poor_fit_messages(shares, fitted)
+    assert len(lines) == 1 and lines[0].startswith("29 of 40 sessions are explained far worse")
+    assert "'clip39' (39%), 'clip38' (38%), 'clip37' (37%)" in lines[0]  # the worst named
+    few = poor_fit_messages(shares[: 11 + POOR_FIT_LINES], fitted)  # 3 above: a line each
+    assert [t.split(":")[0] for t in few] == [
+        "session 'clip11'",
+        "session 'clip12'",
+        "session 'clip13'",
+    ]

@@ -74,3 +74,23 @@ def test_sessions_without_a_complete_frame_are_left_out_of_the_comparison():
     blank = mm[0].replace(coords=np.full_like(mm[0].coords, np.nan))
     assert np.isnan(session_spreads([blank, *mm[1:]])["session_01"])
     assert warn_scale_outliers([blank, *mm[1:]]) == []
+
+
+def test_many_odd_sessions_are_counted_beyond_the_most_extreme():
+    # A study of many short clips can flag dozens of sessions: the warning names the five
+    # most extreme and counts the rest, instead of one long list.
+    from ethoscribe.io import from_arrays
+
+    rng = np.random.default_rng(0)
+    body = rng.normal(size=(40, 4, 2))
+    scales = [1.0] * 12 + [2.0 + i / 10 for i in range(8)]  # 8 sessions 2.0-2.7 times larger
+    sessions = [
+        from_arrays(body * k, keypoints=list("abcd"), fps=30, session=f"s{i:02d}")
+        for i, k in enumerate(scales)
+    ]
+    with pytest.warns(InputWarning) as caught:
+        odd = warn_scale_outliers(sessions)
+    assert odd == [f"s{i:02d}" for i in range(12, 20)]
+    text = str(caught[0].message)
+    assert text.startswith("the animals of session(s) 's19' (2.7 times")  # the largest first
+    assert "and 3 more of 20" in text and "'s14'" not in text

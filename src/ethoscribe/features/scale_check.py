@@ -26,6 +26,9 @@ MIN_SESSIONS = 3
 """With two sessions nothing tells which of them is off (nor two animals of different size
 from a unit mistake), so fewer are not compared."""
 
+MAX_NAMED = 5
+"""Sessions named in the warning (the most extreme first); the others are counted."""
+
 _QUANTILE = 90
 _MAX_FRAMES = 20_000
 
@@ -91,10 +94,13 @@ def warn_scale_outliers(sessions: Sequence[PoseTracks]) -> list[str]:
         if ratio > SCALE_RATIO or ratio < 1 / SCALE_RATIO:
             odd.append(name)
             sizes = f"{spreads[name]:.3g} vs {others:.3g} {units}"
-            shown.append(f"'{name}' ({ratio:.2g} times: {sizes})")
+            shown.append((abs(np.log(ratio)), f"'{name}' ({ratio:.2g} times: {sizes})"))
     if odd:
+        named = [t for _, t in sorted(shown, key=lambda p: -p[0])[:MAX_NAMED]]
+        if len(odd) > MAX_NAMED:  # a study of many short clips: the most extreme only
+            named.append(f"and {len(odd) - MAX_NAMED} more of {len(names)}")
         msg = (
-            f"the animals of session(s) {', '.join(shown)} look larger or smaller than in the "
+            f"the animals of session(s) {', '.join(named)} look larger or smaller than in the "
             "other sessions (the body's spread around its centre, against the other sessions' "
             "median). Tracks in pixels read as calibrated, or another camera scale (or an "
             "animal that held one posture, curled or stretched, nearly all session)? Check the "

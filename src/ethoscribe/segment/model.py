@@ -1497,11 +1497,17 @@ def poorly_fitted(shares: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]
     ]
 
 
+POOR_FIT_LINES = 3
+"""At most this many sessions get a warning line each; more are said in one line (a study of
+a thousand short clips flagged 35 of them, one long line each)."""
+
+
 def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel) -> list[str]:
     """One warning line per session explained far worse than the training frames (share of
-    poorly explained frames above ``POOR_FIT_WARN_SHARE``), or one line saying the check could
-    not run because ``model`` was saved before it kept its threshold (a method without
-    Gaussian states has none either: no check, no line)."""
+    poorly explained frames above ``POOR_FIT_WARN_SHARE``; beyond ``POOR_FIT_LINES`` of them
+    one line for all, naming the worst), or one line saying the check could not run because
+    ``model`` was saved before it kept its threshold (a method without Gaussian states has
+    none either: no check, no line)."""
     if getattr(model, "poor_fit_threshold_", None) is None:
         if not getattr(model, "saved_without_fit_check_", False):
             return []
@@ -1509,7 +1515,27 @@ def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel
             "the model was saved before it kept the fit threshold, so how well it explains the "
             "new sessions is not checked; fit it again (discover) to have the check"
         ]
-    return [_poor_fit_line(r) for r in poorly_fitted(shares)]
+    flagged = poorly_fitted(shares)
+    if len(flagged) <= POOR_FIT_LINES:
+        return [_poor_fit_line(r) for r in flagged]
+    worst = sorted(flagged, key=lambda r: -(r.get("share") or 0.0))[:POOR_FIT_LINES]
+    named = ", ".join(f"'{r['session']}' ({r.get('share') or 0.0:.0%})" for r in worst)
+    return [
+        f"{len(flagged)} of {len(shares)} sessions are explained far worse than the training "
+        f"frames (over {POOR_FIT_WARN_SHARE:.0%} of their frames below the worst 1 % of the "
+        f"training frames, about 1 % expected, or feature levels offset far beyond the training "
+        f"individuals'), e.g. {named}; every session's share: BehaviourModel.fit_shares, or "
+        f"a labelling run's summary.json ('fit_to_model') and report. {_POOR_FIT_ADVICE}"
+    ]
+
+
+_POOR_FIT_ADVICE = (
+    "Look at the bouts of such sessions before trusting their labels; likely the body size "
+    "or camera scale differs from training (check units and px_per_unit in the manifest), "
+    "the sessions are too short for the features' windows, or the behaviour is new: refit "
+    "with these sessions included (ethoscribe discover), or in Python fit with "
+    "features={'scale_by_size': True}"
+)
 
 
 def _poor_fit_line(r: Mapping[str, Any]) -> str:
@@ -1526,12 +1552,7 @@ def _poor_fit_line(r: Mapping[str, Any]) -> str:
             f"{1 - POOR_FIT_OFFSET_TAIL:.1%} of individuals like them stay below "
             f"{r['offset_limit']:.0f})"
         )
-    return (
-        f"session '{r['session']}': {what}, so look at its bouts before trusting its labels; "
-        "likely the body size or camera scale differs from training (check units and "
-        "px_per_unit in the manifest) or the behaviour is new: refit with these sessions "
-        "included (ethoscribe discover), or in Python fit with features={'scale_by_size': True}"
-    )
+    return f"session '{r['session']}': {what}. {_POOR_FIT_ADVICE}"
 
 
 def _fixed_speed(cleaned: Sequence[PoseTracks]) -> float | None:
