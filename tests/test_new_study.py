@@ -70,10 +70,12 @@ def test_three_dimensional_tracks_get_a_vertical_axis_choice(tmp_path):
     assert "ethoscribe-note-ok" in panel.message.value, panel.message.value
     assert panel.up.layout.display == "" and panel.preview["n_dims"] == 3
     assert "vertical axis" not in panel.found.value  # z is up, as chosen
+    assert panel.up.options[0] == ("automatic (z)", "auto")  # read from the tracks
     panel.up.value = "y"
     panel.check.click()  # y chosen for z-up fish: the check says so, and where to change it
     assert "vertical axis is taken to be y" in panel.found.value
     assert "Vertical axis" in panel.found.value  # where to change it
+    assert panel.up.options[0] == ("automatic (z)", "auto")  # what auto would use, still
     panel.states.value = 3
     panel.out.value = str(tmp_path / "results")
     panel.run.click()  # the choice reaches discover (a user may know better than the check)

@@ -154,7 +154,7 @@ class NewStudy(w.VBox):
         # 3-D tracks: which axis points up decides headings and heights (check again after a change)
         self.up.layout.display = "" if info.get("n_dims") == 3 else "none"
         chosen = self.up.value
-        self.up.options = [(f"automatic ({info['up_axis']})", "auto"), *self.up.options[1:]]
+        self.up.options = [(f"automatic ({info['up_axis_auto']})", "auto"), *self.up.options[1:]]
         self.up.value = chosen
         sessions = info["sessions"]
         shown = listed(sessions, 6)

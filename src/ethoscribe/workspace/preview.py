@@ -35,7 +35,8 @@ def preview_study(
     Returns a dict: ``sessions`` (names), ``keypoints``, ``animals``, ``fps``, ``units``,
     ``n_dims``, ``axis`` (tail side, head side), ``origin``, ``axis_text`` (how the axis was
     chosen), ``up_axis`` and ``up_axis_text`` (the vertical axis of 3-D tracks and how it was
-    chosen: "auto" reads it from the tracks) and ``warnings`` (e.g. an unreliable automatic
+    chosen: "auto" reads it from the tracks), ``up_axis_auto`` (the axis "auto" would use)
+    and ``warnings`` (e.g. an unreliable automatic
     axis, or 3-D tracks that look as if another axis than a given ``up_axis`` points up), from
     the first ``n_read`` sessions.
 
@@ -53,6 +54,7 @@ def preview_study(
         warnings.simplefilter("always")
         cleaned = match_keypoint_order(cleaned)  # as discover reads them (one keypoint set)
         up, up_text = resolve_up_axis(cleaned, up_axis)
+        read = up if up_axis == "auto" else resolve_up_axis(cleaned, "auto")[0]
         pipe = FeaturePipeline(up_axis=up).fit(cleaned)
     first = cleaned[0]
     return {
@@ -67,5 +69,6 @@ def preview_study(
         "axis_text": str(pipe.axis_report_),
         "up_axis": up,
         "up_axis_text": up_text,
+        "up_axis_auto": read,
         "warnings": [str(w.message) for w in caught if issubclass(w.category, UserWarning)],
     }
