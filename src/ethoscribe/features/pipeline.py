@@ -306,7 +306,10 @@ class FeaturePipeline(BaseEstimator):
                 f"axis must be two different keypoint names (tail side, head side); got {ax!r}"
             )
         if self.up_axis not in ("x", "y", "z"):
-            bad.append(f"up_axis must be 'x', 'y' or 'z'; got {self.up_axis!r}")
+            bad.append(
+                f"up_axis must be 'x', 'y' or 'z'; got {self.up_axis!r} ('auto' is read by "
+                "BehaviourModel and discover; here use vertical_check.resolve_up_axis first)"
+            )
         if self.align not in ("rotate", "procrustes"):
             bad.append(f"align must be 'rotate' or 'procrustes'; got {self.align!r}")
         if self.feature_set not in ("compact", "detailed"):
