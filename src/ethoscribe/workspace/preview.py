@@ -36,9 +36,9 @@ def preview_study(
     ``n_dims``, ``axis`` (tail side, head side), ``origin``, ``axis_text`` (how the axis was
     chosen), ``up_axis`` and ``up_axis_text`` (the vertical axis of 3-D tracks and how it was
     chosen: "auto" reads it from the tracks), ``up_axis_auto`` (the axis "auto" would use)
-    and ``warnings`` (e.g. an unreliable automatic
-    axis, or 3-D tracks that look as if another axis than a given ``up_axis`` points up), from
-    the first ``n_read`` sessions.
+    and ``warnings`` (e.g. an unreliable automatic axis, or 3-D tracks that look as if another
+    axis than a given ``up_axis`` points up), from the first ``n_read`` sessions (discover
+    reads the vertical from all of them).
 
     Examples
     --------
