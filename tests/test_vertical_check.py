@@ -149,3 +149,23 @@ def test_labels_do_not_depend_on_which_axis_points_up(fish):
         got, axis = labels(fish.replace(coords=fish.coords[..., list(order)].copy()))
         assert axis == up
         assert np.array_equal(got, z_up)
+
+
+@pytest.mark.filterwarnings("ignore:3-D tracks:UserWarning")  # the z run's, as expected
+def test_a_fit_made_with_z_assumed_is_not_reused_for_tracks_with_y_up(fish, tmp_path, monkeypatch):
+    # Fits made before the vertical was read from the tracks assumed z under the same settings
+    # digest (and version number); rerunning such a workspace must fit again when the tracks
+    # show another axis. The old state is reproduced by making both reads say z.
+    import ethoscribe.segment.model as model_module
+    import ethoscribe.workspace.runs as runs_module
+    from ethoscribe.io import write_tidy
+    from ethoscribe.workspace import discover
+
+    short = fish.replace(coords=fish.coords[:1000], confidence=fish.confidence[:1000])
+    write_tidy(_exchange(short, 1, 2), tmp_path / "fish.parquet")  # y up
+    run = {"out": tmp_path / "ws", "states": 2, "stability": False, "progress": False, "jobs": 1}
+    with monkeypatch.context() as m:
+        for module in (model_module, runs_module):
+            m.setattr(module, "resolve_up_axis", lambda s, up: ("z", ""), raising=False)
+        assert discover(tmp_path / "fish.parquet", **run).model().features_.up_axis == "z"
+    assert discover(tmp_path / "fish.parquet", **run).model().features_.up_axis == "y"

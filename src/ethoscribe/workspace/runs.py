@@ -16,6 +16,7 @@ from ethoscribe.clean import CleanParams
 from ethoscribe.curation import Curation
 from ethoscribe.errors import InputError, InputWarning, WorkspaceError, listed
 from ethoscribe.features import FeatureSet
+from ethoscribe.features.vertical_check import resolve_up_axis
 from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, write_table
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import PoseTracks, study_keypoints
@@ -190,7 +191,10 @@ def discover(
             )
         sample = _training_sample(prepared, table, fit_frames, seed)
         no_social = {"social": False}  # set only when off: earlier fits keep their digest
-        up = {} if up_axis == "auto" else {"up_axis": up_axis}  # likewise
+        # Likewise; fits made before the axis was read from the tracks assumed z, so only an
+        # automatic axis other than z must not reuse them (the version number did not change).
+        auto_z = up_axis == "auto" and resolve_up_axis(sample, "auto")[0] == "z"
+        up = {} if auto_z else {"up_axis": up_axis}
         regimes = {} if slow_regimes else {"slow_regimes": "off"}  # likewise
         # The fit's features of whole sessions, kept for labelling them in this process.
         in_process = client is None and (default_jobs() if jobs is None else jobs) == 1
