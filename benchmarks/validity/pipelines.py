@@ -87,13 +87,14 @@ def native_labels(
     """The ``state`` column of a label table per (session, animal), on each unit's native
     frames (the label of the resampled frame nearest in time when the rates were mixed, or
     when the table's frames are at ``rate``, a variant's cleaning ``target_fps``)."""
-    rates = [rate] if rate else sorted({float(s.fps) for s in src.sessions})
     native = {s.session: float(s.fps) for s in src.sessions}
+    rates = sorted(set(native.values()))
+    common = rate or (rates[0] if len(rates) > 1 else None)  # the table's rate, if not native
     labels = {}
     for (session, animal), part in table.groupby(["session", "animal"], sort=False):
         key = (str(session), str(animal))
         n = len(src.truth[key])
-        at = rates[0] if len(rates) > 1 or rate else native[key[0]]
+        at = common or native[key[0]]
         # Labels of the resampled frames nearest in time to each native frame.
         nearest = np.rint(np.arange(n) / native[key[0]] * at).astype(np.int64)
         state = np.full(len(part), -1, dtype=np.int64)
