@@ -244,3 +244,22 @@ def test_a_session_without_a_keypoint_is_scored_from_the_others():
     ari = adjusted_rand_score(whole["state"], labels["state"])
     print(f"ARI with and without the keypoint: {ari:.3f}")
     assert ari > 0.7
+
+
+def test_keypoints_beyond_the_models_are_left_out_and_misspelt_ones_refused():
+    # A model fitted without a keypoint (left out of the fit) labels a cohort tracked with it:
+    # the extra keypoint is left out with a warning and the labels are those of the same
+    # frames without it; an extra name that looks like a lacking one is still refused.
+    sessions = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    model = BehaviourModel(n_states=4, segmenter=QUICK, random_state=0)
+    model.fit([_without(s, "tail_base") for s in sessions])
+    with pytest.warns(InputWarning, match=r"left out \(tail_base;.*session\(s\): 's1'"):
+        labels = model.label(sessions[:1])
+    pd.testing.assert_frame_equal(labels, model.label([_without(sessions[0], "tail_base")]))
+    misspelt = _without(sessions[0], "neck").replace(
+        keypoints=[
+            "nek" if k == "tail_base" else k for k in _without(sessions[0], "neck").keypoints
+        ]
+    )
+    with pytest.raises(InputError, match="'nek' looks like 'neck'"):
+        model.label([misspelt])

@@ -9,6 +9,7 @@ import json
 import subprocess
 import sys
 import time
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -561,3 +562,30 @@ def test_sessions_lacking_a_keypoint_are_read_scored_and_reported(study, workspa
         )  # fmt: skip
     assert (cohort.labels()["state"] >= 0).mean() >= 0.95
     assert "neck" in set(pd.read_csv(cohort.path / "quality.csv")["keypoint"])
+
+
+def test_a_cohort_tracked_with_more_keypoints_is_labelled_said_once(study, workspace, tmp_path):
+    """New sessions whose tracker gained a keypoint the model was not fitted on: it is left
+    out, said in one line naming the sessions (labelling runs per session), and the labels
+    are those of the same files without it."""
+    more = tmp_path / "more"
+    more.mkdir()
+    for name in ("session_01", "session_02"):
+        table = pd.read_parquet(study / f"{name}.parquet")
+        extra = table[table["keypoint"] == "nose"].assign(keypoint="whisker_tip")
+        pd.concat([table.astype({"keypoint": str}), extra]).to_parquet(more / f"{name}.parquet")
+    files = sorted(more.glob("*.parquet"))
+    with warnings.catch_warnings(record=True) as said:
+        warnings.simplefilter("always")
+        cohort = label_sessions(
+            workspace.path, files, tmp_path / "cohort", manifest=study / "manifest.csv",
+            progress=False,
+        )  # fmt: skip
+    texts = [str(w.message) for w in said if "whisker_tip" in str(w.message)]
+    assert texts == [texts[0]] and "session(s): 'session_01', 'session_02'" in texts[0], texts
+    plain = label_sessions(
+        workspace.path, [study / "session_01.parquet", study / "session_02.parquet"],
+        tmp_path / "plain", manifest=study / "manifest.csv", progress=False,
+    )  # fmt: skip
+    # the same states; posteriors alike to rounding (the file's rows are in another order)
+    pd.testing.assert_frame_equal(cohort.labels(), plain.labels(), rtol=1e-4)

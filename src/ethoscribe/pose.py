@@ -18,7 +18,7 @@ from typing import Any
 
 import numpy as np
 
-from ethoscribe.errors import InputError, InputWarning
+from ethoscribe.errors import InputError, InputWarning, listed
 
 UNITS = ("px", "mm", "cm", "m")
 _UNSAFE_NAME = re.compile(r"[\x00-\x1f\x7f/\\]|^[A-Za-z]:")
@@ -246,6 +246,9 @@ class PoseTracks:
 # has at least this share of them (a frame is scored when 60 % of the body is seen, the model's
 # default min_body_seen); with fewer, or with names of its own, it is refused by the check.
 PAD_SHARE = 0.6
+# Ends a warning said per session, so that the same warning of many sessions is said once,
+# naming them (``ethoscribe.workspace.runs``, labelling in workers)
+IN_SESSIONS = "; session(s): "
 
 
 def enough_keypoints(n_have: int, n_study: int) -> bool:
@@ -275,7 +278,12 @@ def match_keypoint_order(
     with the lacking ones never seen (NaN, confidence 0), with an ``InputWarning``: its frames
     are scored from the keypoints it has, as frames with lost keypoints are. Sessions with other
     keypoint sets are returned unchanged for :func:`check_same_body_plan` to refuse.
-    ``warn=False``: no warnings (sessions read and reported on already).
+
+    Given ``keypoints`` (a fitted model's), a session may also have keypoints beyond them (a
+    new cohort tracked with more, or a keypoint left out of the fit): those are left out, with
+    an ``InputWarning``, unless one of them looks like a lacking keypoint misspelt (then the
+    session is returned unchanged and refused with that hint). ``warn=False``: no warnings
+    (sessions read and reported on already).
 
     Examples
     --------
@@ -291,7 +299,7 @@ def match_keypoint_order(
         study_keypoints([s.keypoints for s in sessions]) if keypoints is None else keypoints
     )
     fold = {_folded(k): k for k in ref}
-    out, respelt, padded = [], [], []
+    out, respelt, padded, unused = [], [], [], []
     for s in sessions:
         names = [fold.get(_folded(k), k) for k in s.keypoints]  # 'Nose ' in one file: 'nose'
         if len(set(names)) == len(names) and names != list(s.keypoints):
@@ -299,6 +307,10 @@ def match_keypoint_order(
                 respelt.append(f"'{s.session}'")
                 s = s.replace(keypoints=names)
         lacking = [k for k in ref if k not in s.keypoints]
+        extra = [k for k in s.keypoints if k not in ref]
+        if extra and keypoints is not None and not keypoint_mismatch(ref, s.keypoints)[1]:
+            unused.append((f"'{s.session}'", extra))
+            s = _with_keypoints(s, tuple(k for k in s.keypoints if k in ref))
         if lacking and set(s.keypoints) < set(ref) and enough_keypoints(len(s.keypoints), len(ref)):
             padded.append(f"'{s.session}' ({', '.join(lacking)})")
             s = _with_keypoints(s, ref)
@@ -312,13 +324,27 @@ def match_keypoint_order(
             InputWarning,
             stacklevel=2,
         )
+    whose = "the study has" if keypoints is None else "the model was fitted on"
+    if unused and warn:
+        left_out = list(dict.fromkeys(k for _, extra in unused for k in extra))
+        warnings.warn(
+            f"keypoint(s) the model was not fitted on are left out ({', '.join(left_out)}; the "
+            f"model reads {len(ref)}: {list(ref)}){IN_SESSIONS}{listed(n for n, _ in unused)}",
+            InputWarning,
+            stacklevel=2,
+        )
     if padded and warn:
         warnings.warn(
-            f"session(s) {', '.join(padded)} lack keypoint(s) the study has ({len(ref)}: "
+            f"session(s) {', '.join(padded)} lack keypoint(s) {whose} ({len(ref)}: "
             f"{list(ref)}); read as never seen there, so those sessions' frames are scored from "
             "the keypoints they have (body_seen in the labels says how much of the body was "
-            "seen). To leave such keypoints out of every session instead, name the keypoints "
-            "to read (keypoints=[...]; command line: --reader-option keypoints=a,b,c).",
+            "seen)."
+            + (
+                " To leave such keypoints out of every session instead, name the keypoints to "
+                "read (keypoints=[...]; command line: --reader-option keypoints=a,b,c)."
+                if keypoints is None
+                else ""
+            ),
             InputWarning,
             stacklevel=2,
         )

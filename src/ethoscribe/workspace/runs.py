@@ -19,7 +19,7 @@ from ethoscribe.features import FeatureSet
 from ethoscribe.features.vertical_check import resolve_up_axis
 from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, write_table
 from ethoscribe.io.bundle import write_bundle
-from ethoscribe.pose import PoseTracks, study_keypoints
+from ethoscribe.pose import IN_SESSIONS, PoseTracks, study_keypoints
 from ethoscribe.saved_state import header
 from ethoscribe.segment.model import (
     POOR_FIT_PERCENTILE,
@@ -332,6 +332,11 @@ def _with_absent_keypoints(
 def _say(infos: Sequence[dict[str, Any]]) -> None:
     """Warnings the workers sent back, each text once, as the user's own warnings."""
     texts = dict.fromkeys((kind, text) for i in infos for kind, text in i.get("warnings", []))
+    grouped: dict[tuple[str, str], list[str]] = {}  # one warning of many sessions: said once
+    for kind, text in texts:
+        head, _, names = text.rpartition(IN_SESSIONS)
+        grouped.setdefault((kind, head or text), []).extend([names] if head else [])
+    texts = [(k, f"{h}{IN_SESSIONS}{listed(n)}" if n else h) for (k, h), n in grouped.items()]
     for kind, text in texts:
         category = InputWarning if kind == "InputWarning" else UserWarning
         warnings.warn(text, category, stacklevel=4)
