@@ -164,8 +164,9 @@ def _units(lengths: np.ndarray, heldout: str, block_frames: int | None, rng) -> 
     units = pd.DataFrame(rows, columns=["start", "stop", "fold"])
     if units["fold"].nunique() < 2:
         msg = (
-            f"too few frames ({lengths.sum()}) for 2 folds of {size}-frame blocks; "
-            "pass a smaller block_frames"
+            f"too few frames ({lengths.sum()}) for the automatic number of states: it holds "
+            f"out alternate blocks of {size} frames and needs at least two. Give the number "
+            "of states (n_states=...) or record longer"
         )
         raise InputError(msg)
     return units

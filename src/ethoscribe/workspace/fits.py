@@ -37,9 +37,10 @@ FITS_FOLDER = Path("cache") / "fits"
 
 @dataclass
 class CachedReport:
-    """A stability report read back from the cache (the two parts a workspace records)."""
+    """A stability report read back from the cache (the two parts a workspace records); a
+    check that could not be made has no table and its reason in ``summary["skipped"]``."""
 
-    table: pd.DataFrame
+    table: pd.DataFrame | None
     summary: dict[str, Any]
 
 
@@ -84,9 +85,10 @@ def _load(folder: Path) -> tuple[BehaviourModel, CachedReport | None]:
     model = load_model(folder / "model")
     done = read_json(folder / "done.json")
     report = None
-    if done.get("stability") is not None:
-        table = pd.read_csv(folder / "stability.csv")
-        report = CachedReport(table=table, summary=done["stability"])
+    summary = done.get("stability")
+    if summary is not None:
+        table = None if "skipped" in summary else pd.read_csv(folder / "stability.csv")
+        report = CachedReport(table=table, summary=summary)
     return model, report
 
 
@@ -96,7 +98,7 @@ def _save(folder: Path, model: BehaviourModel, report: Any) -> None:
     try:
         meta, arrays = model.to_state()
         write_bundle(tmp / "model", meta, arrays)
-        if report is not None:
+        if report is not None and report.table is not None:
             write_table(report.table, tmp / "stability.csv")
         summary = None if report is None else jsonable(report.summary)
         atomic_write_json(tmp / "done.json", {"stability": summary})

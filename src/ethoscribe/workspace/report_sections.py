@@ -172,6 +172,8 @@ def model_section(ws: Workspace) -> Section:
         )
         keep = ["motif", "occupancy", "jaccard_seeds_mean", "jaccard_halves", "grade", "flag"]
         tables.append(("Reproducibility per motif", per_state[[c for c in keep if c in per_state]]))
+    elif stability and stability.get("skipped"):
+        text += f" No stability check was made: {stability['skipped']}."
     elif stability:
         tables.append(("Stability across seeds and split halves", pd.DataFrame([stability])))
     else:

@@ -47,7 +47,7 @@ from ethoscribe.workspace.compare import write_ethogram_report
 from ethoscribe.workspace.executor import connect, default_jobs, map_sessions
 from ethoscribe.workspace.expert import carry_learned
 from ethoscribe.workspace.files import load_features, load_model
-from ethoscribe.workspace.fits import fit_digest, fit_or_reuse, ticking
+from ethoscribe.workspace.fits import CachedReport, fit_digest, fit_or_reuse, ticking
 from ethoscribe.workspace.folder import (
     CAUTION,
     FORMAT_VERSION,
@@ -766,7 +766,7 @@ def _write_workspace(
         if quality:
             frames = [q if isinstance(q, pd.DataFrame) else q.to_frame() for q in quality]
             write_table(pd.concat(frames, ignore_index=True), stage.path("quality.csv"))
-        if report is not None:
+        if report is not None and report.table is not None:
             write_table(report.table, stage.path("stability.csv"))
         meta, arrays = model.to_state()
         write_bundle(stage.path("model"), meta, arrays)
@@ -852,11 +852,19 @@ def _stability(
     # A half of the sessions is fitted on at most half the frames the model's fit subsamples
     cap = params.get("fit_max_frames")
     halves = {} if cap is None else {"fit_max_frames": max(100, int(cap) // 2)}
-    return stability_report(
-        make, X, lengths, seeds=(seed, seed + 1), split_halves=True,
-        reference=labels_like_model(model, model.segmenter_, own=True),
-        fit_on=(X_fit, lengths_fit), make_half_model=lambda s: make(s, **halves),
-    )  # fmt: skip
+    try:
+        return stability_report(
+            make, X, lengths, seeds=(seed, seed + 1), split_halves=True,
+            reference=labels_like_model(model, model.segmenter_, own=True),
+            fit_on=(X_fit, lengths_fit), make_half_model=lambda s: make(s, **halves),
+        )  # fmt: skip
+    except InputError as exc:  # too little data for a refit (a half of a short study)
+        reason = (
+            f"too little data: a refit on half of the {len(X_fit):,} training frames could not "
+            f"be made ({exc})"
+        )
+        warnings.warn(f"the stability check was skipped: {reason}", InputWarning, stacklevel=3)
+        return CachedReport(table=None, summary={"skipped": reason})
 
 
 def _refuse_to_drop_cohort_edits(out: Path, source: Path, journal: Sequence[dict]) -> None:
