@@ -263,3 +263,22 @@ def test_keypoints_beyond_the_models_are_left_out_and_misspelt_ones_refused():
     )
     with pytest.raises(InputError, match="'nek' looks like 'neck'"):
         model.label([misspelt])
+
+
+def test_a_keypoint_never_tracked_is_left_out_of_the_fit():
+    # A keypoint below the confidence threshold on every frame of every session (hidden from
+    # the camera) was refused; it is left out of the model with a warning, the model keeps the
+    # name through saving, and the labels are those of a fit on the tracks without it.
+    sessions = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2)]
+    hidden = [s.replace(confidence=np.where(
+        np.asarray(s.keypoints) == "tail_base", 0.0, s.confidence)) for s in sessions]  # fmt: skip
+    with pytest.warns(InputWarning, match=r"'tail_base' have no tracked position.*left out"):
+        model = BehaviourModel(n_states=4, segmenter=QUICK, random_state=0).fit(hidden)
+    assert "tail_base" not in model.keypoints_ and model.keypoints_left_out_ == ["tail_base"]
+    meta, arrays = model.to_state()
+    assert BehaviourModel.from_state(meta, arrays).keypoints_left_out_ == ["tail_base"]
+    plain = BehaviourModel(n_states=4, segmenter=QUICK, random_state=0)
+    plain.fit([_without(s, "tail_base") for s in hidden])
+    with pytest.warns(InputWarning, match=r"left out \(tail_base"):
+        labels = model.label(hidden[:1])
+    pd.testing.assert_frame_equal(labels, plain.label([_without(hidden[0], "tail_base")]))

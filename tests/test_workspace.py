@@ -589,3 +589,26 @@ def test_a_cohort_tracked_with_more_keypoints_is_labelled_said_once(study, works
     )  # fmt: skip
     # the same states; posteriors alike to rounding (the file's rows are in another order)
     pd.testing.assert_frame_equal(cohort.labels(), plain.labels(), rtol=1e-4)
+
+
+def test_a_keypoint_never_tracked_is_left_out_and_said(study, tmp_path):
+    """A keypoint under the confidence threshold everywhere is left out of the fit (said once,
+    not also as 'missing on most frames'), recorded in summary.json and the report."""
+    data = tmp_path / "data"
+    data.mkdir()
+    for name in ("session_01", "session_02"):
+        table = pd.read_parquet(study / f"{name}.parquet")
+        table.loc[table["keypoint"] == "tail_base", "confidence"] = 0.0
+        table.to_parquet(data / f"{name}.parquet")
+    with warnings.catch_warnings(record=True) as said:
+        warnings.simplefilter("always")
+        ws = discover(
+            sorted(data.glob("*.parquet")), tmp_path / "ws", manifest=study / "manifest.csv",
+            states=4, stability=False, progress=False,
+        )  # fmt: skip
+    texts = [str(w.message) for w in said if "tail_base" in str(w.message)]
+    assert len(texts) == 1 and "left out of the model" in texts[0], texts
+    assert ws.summary["features"]["keypoints_left_out"] == ["tail_base"]
+    from ethoscribe.workspace.report_sections import model_section
+
+    assert "never tracked in its training sessions: tail_base" in model_section(ws).text

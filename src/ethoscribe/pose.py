@@ -369,6 +369,37 @@ def study_keypoints(keypoints: Sequence[Sequence[str]]) -> tuple[str, ...]:
     return tuple(keypoints[0])
 
 
+def without_unseen_keypoints(
+    sessions: Sequence[PoseTracks],
+) -> tuple[list[PoseTracks], list[str]]:
+    """``sessions`` (one keypoint set) without the keypoints that have no tracked position in
+    any frame of any of them, and those keypoints' names.
+
+    Such a keypoint (below the confidence threshold everywhere, e.g. always hidden from the
+    camera) carries nothing to fit, and no frame would have the whole body. When no keypoint
+    is seen at all the sessions are returned unchanged, for the feature pipeline to refuse.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> c = np.zeros((2, 1, 3, 2)); c[:, :, 1] = np.nan
+    >>> kept, dropped = without_unseen_keypoints([PoseTracks(c, keypoints=["a", "b", "c"], fps=30)])
+    >>> kept[0].keypoints, dropped
+    (('a', 'c'), ['b'])
+    """
+    sessions = list(sessions)
+    if not sessions:
+        return sessions, []
+    seen = np.zeros(sessions[0].n_keypoints, dtype=bool)
+    for s in sessions:
+        seen |= np.isfinite(s.coords).all(axis=-1).any(axis=(0, 1))
+    if seen.all() or not seen.any():
+        return sessions, []
+    keep = tuple(k for k, ok in zip(sessions[0].keypoints, seen, strict=True) if ok)
+    dropped = [k for k, ok in zip(sessions[0].keypoints, seen, strict=True) if not ok]
+    return [_with_keypoints(s, keep) for s in sessions], dropped
+
+
 def _with_keypoints(s: PoseTracks, keypoints: tuple[str, ...]) -> PoseTracks:
     """``s`` with ``keypoints`` in that order; those it lacks never seen (NaN, confidence 0)."""
     f, a, _, d = s.coords.shape

@@ -29,6 +29,7 @@ from ethoscribe.pose import (
     check_same_body_plan,
     keypoint_mismatch,
     match_keypoint_order,
+    without_unseen_keypoints,
 )
 from ethoscribe.saved_state import check_header, header
 from ethoscribe.segment._hmm_gaussian import GaussianEmission
@@ -564,6 +565,18 @@ class BehaviourModel(BaseEstimator):
         check_one_rate([s.fps for s in cleaned], [s.session for s in cleaned])
         if self.causal:
             params = _causal_cleaning(cleaned, params)
+        cleaned, self.keypoints_left_out_ = without_unseen_keypoints(cleaned)
+        if self.keypoints_left_out_:
+            left = ", ".join(f"'{k}'" for k in self.keypoints_left_out_)
+            warnings.warn(
+                f"keypoint(s) {left} have no tracked position in any frame of the training "
+                "sessions (missing, or below the confidence threshold, everywhere): left out "
+                f"of the model, whose motifs are made from the other "
+                f"{cleaned[0].n_keypoints}. Check the tracker's output and the keypoint names "
+                "(a renamed keypoint looks untracked).",
+                InputWarning,
+                stacklevel=3,
+            )
         sessions = cleaned
         options = {**(self.features or {}), **({"causal": True} if self.causal else {})}
         up, self.up_axis_report_ = resolve_up_axis(cleaned, options.get("up_axis", "auto"))
@@ -1211,6 +1224,7 @@ class BehaviourModel(BaseEstimator):
             "poor_fit_threshold": getattr(self, "poor_fit_threshold_", None),
             "unit_lambda": None if np.isnan(lam) else float(lam),
             "up_axis_report": getattr(self, "up_axis_report_", ""),
+            "keypoints_left_out": list(getattr(self, "keypoints_left_out_", [])),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -1336,6 +1350,12 @@ class BehaviourModel(BaseEstimator):
         if not isinstance(said, str):
             raise InputError(f"'up_axis_report' must be text, got {said!r}. {RESAVE}")
         model.up_axis_report_ = said
+        left = meta.get("keypoints_left_out", [])
+        if not (isinstance(left, list) and all(isinstance(k, str) for k in left)):
+            raise InputError(
+                f"'keypoints_left_out' must be a list of names, got {left!r}. {RESAVE}"
+            )
+        model.keypoints_left_out_ = left
         # The parts must describe the same body plan and state count as the summary fields.
         problems = []
         if model.features_.keypoints_ != model.keypoints_:

@@ -135,6 +135,12 @@ def model_section(ws: Workspace) -> Section:
             "labelling, so states describe behaviour rather than individuals; the offsets "
             f"spread about {offsets['relative_spread']:.2g} of a state's own spread."
         )
+    left_out = (summary.get("features") or {}).get("keypoints_left_out")
+    if left_out:
+        text += (
+            f" Left out of the model, never tracked in its training sessions: "
+            f"{', '.join(map(str, left_out))}."
+        )
     vertical = (summary.get("features") or {}).get("up_axis_report")
     if vertical:
         text += f" Vertical axis of the 3-D tracks: {vertical}."

@@ -441,6 +441,9 @@ def _warn_unseen_keypoints(quality: Sequence[pd.DataFrame]) -> None:
     if table.empty or "frac_missing_after" not in table:
         return
     unseen = table[table["frac_missing_after"] >= UNSEEN_SHARE]
+    # never seen anywhere: the fit leaves them out and says so
+    nowhere = table.groupby("keypoint", observed=True)["frac_missing_after"].min() >= 1.0
+    unseen = unseen[~unseen["keypoint"].isin(nowhere[nowhere].index)]
     if len(unseen):
         several = table.groupby("session")["animal"].nunique().max() > 1
         said = [
@@ -719,6 +722,7 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
             "axis_report": model.features_.axis_report_,
             "up_axis": model.features_.up_axis if model.n_dims_ == 3 else None,
             "up_axis_report": getattr(model, "up_axis_report_", ""),
+            "keypoints_left_out": list(getattr(model, "keypoints_left_out_", [])),
         },
         "n_sessions": len(table),
         "n_frames": int(table["n_frames"].sum()),  # as read from the files
