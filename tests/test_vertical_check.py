@@ -169,3 +169,23 @@ def test_a_fit_made_with_z_assumed_is_not_reused_for_tracks_with_y_up(fish, tmp_
             m.setattr(module, "resolve_up_axis", lambda s, up: ("z", ""), raising=False)
         assert discover(tmp_path / "fish.parquet", **run).model().features_.up_axis == "z"
     assert discover(tmp_path / "fish.parquet", **run).model().features_.up_axis == "y"
+
+
+def test_the_study_preview_reads_enough_short_clips_to_see_the_vertical(fish, tmp_path):
+    # The new-study panel's preview read the first two sessions only: two one-second clips
+    # give no sign (z assumed) where discover, reading all, finds y. It now reads on until two
+    # minutes of tracks (at most 50 sessions).
+    from ethoscribe.io import write_tidy
+    from ethoscribe.workspace.preview import preview_study
+
+    y_up = fish.coords[..., [0, 2, 1]]
+    clips = [
+        fish.replace(coords=y_up[i : i + 50].copy(), confidence=fish.confidence[i : i + 50],
+                     session=f"clip{i:04d}")
+        for i in range(0, 1500, 50)
+    ]  # fmt: skip
+    assert choose_vertical_axis(clips[:2])[0] is None  # what two clips show
+    for clip in clips:
+        write_tidy(clip, tmp_path / f"{clip.session}.csv")
+    info = preview_study(tmp_path, fps=50)
+    assert info["up_axis_auto"] == "y" and info["up_axis"] == "y"

@@ -21,6 +21,11 @@ from ethoscribe.features.vertical_check import resolve_up_axis
 from ethoscribe.pose import match_keypoint_order
 from ethoscribe.workspace.reading import discovery_cleaning, plan_sessions, read_planned
 
+# Beyond the first sessions, more are read until this much tracking (or this many sessions):
+# a study of short clips shows its direction of travel and its vertical in many of them
+PREVIEW_SECONDS = 120.0
+MAX_PREVIEW_SESSIONS = 50
+
 
 def preview_study(
     inputs: Sequence[str | Path] | str | Path | None,
@@ -37,7 +42,8 @@ def preview_study(
     chosen), ``up_axis`` and ``up_axis_text`` (the vertical axis of 3-D tracks and how it was
     chosen: "auto" reads it from the tracks), ``up_axis_auto`` (the axis "auto" would use)
     and ``warnings`` (e.g. an unreliable automatic axis, or 3-D tracks that look as if another
-    axis than a given ``up_axis`` points up), from the first ``n_read`` sessions (discover
+    axis than a given ``up_axis`` points up), from the first ``n_read`` sessions and as many
+    more as make ``PREVIEW_SECONDS`` of tracks (at most ``MAX_PREVIEW_SESSIONS``; discover
     reads the vertical from all of them).
 
     Examples
@@ -47,7 +53,12 @@ def preview_study(
     ('tail_base', 'nose')
     """
     plan = plan_sessions(inputs, manifest, fps, reader_options=reader_options)
-    tracks = [read_planned(entry) for entry in plan[: max(1, n_read)]]
+    tracks, seconds = [], 0.0
+    for entry in plan[:MAX_PREVIEW_SESSIONS]:
+        if len(tracks) >= max(1, n_read) and seconds >= PREVIEW_SECONDS:
+            break
+        tracks.append(read_planned(entry))
+        seconds += tracks[-1].n_frames / tracks[-1].fps
     cleaning = discovery_cleaning(None, None)
     cleaned = [clean(t, cleaning)[0] for t in tracks]
     with warnings.catch_warnings(record=True) as caught:
