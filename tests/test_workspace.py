@@ -612,3 +612,13 @@ def test_a_keypoint_never_tracked_is_left_out_and_said(study, tmp_path):
     from ethoscribe.workspace.report_sections import model_section
 
     assert "never tracked in its training sessions: tail_base" in model_section(ws).text
+    # frames with a keypoint missing are counted over the model's keypoints (every frame
+    # lacked tail_base): as the labels' body_seen says
+    quality = pd.read_csv(ws.path / "quality.csv")
+    seen = ws.labels().groupby("session")["body_seen"].apply(lambda b: (b < 1).mean())
+    invalid = quality.groupby("session")["frac_invalid_frames"].first()
+    np.testing.assert_allclose(invalid.sort_index(), seen.sort_index())
+    assert (invalid < 0.5).all()
+    from ethoscribe.workspace.report_sections import quality_section
+
+    assert "Left out of the model, never tracked: tail_base" in quality_section(ws).text

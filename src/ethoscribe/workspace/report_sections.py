@@ -80,6 +80,12 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
             f"tracked): {listed(said, sep='; ')}. Their positions there are the posture "
             "model's guesses, so motifs say nothing about them in those sessions."
         )
+    left_out = (ws.summary.get("features") or {}).get("keypoints_left_out") or []
+    if left_out:
+        text += (
+            f" Left out of the model, never tracked: {', '.join(map(str, left_out))} (not in "
+            "the per-session means below)."
+        )
     if labels is None:
         labels = ws.state_labels()
     unlabelled = (labels["state"] < 0).groupby([labels["session"], labels["animal"]]).mean()
@@ -88,7 +94,7 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     if "frac_invalid_frames" not in table.columns:  # files of older versions
         table["frac_invalid_frames"] = table["frac_unscored_frames"]
     shares = [*BARS, "frac_invalid_frames", "frac_unscored_frames"]
-    per_session = table.groupby("session")[shares].mean()
+    per_session = table[~table["keypoint"].isin(left_out)].groupby("session")[shares].mean()
     # Percent of frames, one decimal: what counts of missing frames support; headers in words
     headers = {
         "frac_missing_raw": "missing raw",

@@ -769,7 +769,10 @@ def _write_workspace(
         write_table(table, stage.path("sessions.csv"))
         if quality:
             frames = [q if isinstance(q, pd.DataFrame) else q.to_frame() for q in quality]
-            write_table(pd.concat(frames, ignore_index=True), stage.path("quality.csv"))
+            q = pd.concat(frames, ignore_index=True)
+            if getattr(model, "keypoints_left_out_", None):
+                q = _invalid_of_model_keypoints(q, decoded)
+            write_table(q, stage.path("quality.csv"))
         if report is not None and report.table is not None:
             write_table(report.table, stage.path("stability.csv"))
         meta, arrays = model.to_state()
@@ -796,6 +799,27 @@ def _write_workspace(
     except BaseException:
         stage.abort()
         raise
+
+
+def _invalid_of_model_keypoints(
+    quality: pd.DataFrame, decoded: Sequence[dict[str, Any]]
+) -> pd.DataFrame:
+    """``quality`` with ``frac_invalid_frames`` counted over the model's keypoints, from the
+    labels' ``body_seen``: cleaning counted keypoints the fit then left out (never tracked),
+    so every frame had one missing."""
+    if "frac_invalid_frames" not in quality:
+        return quality
+    parts = [
+        pd.read_parquet(d["labels"], columns=["session", "animal", "body_seen"]) for d in decoded
+    ]
+    labels = pd.concat(parts, ignore_index=True)
+    share = (labels["body_seen"] < 1).groupby([labels["session"], labels["animal"]]).mean()
+    key = pd.MultiIndex.from_frame(quality[["session", "animal"]].astype(str))
+    share.index = share.index.set_levels([lv.astype(str) for lv in share.index.levels])
+    found = share.reindex(key).to_numpy()
+    return quality.assign(
+        frac_invalid_frames=np.where(np.isnan(found), quality["frac_invalid_frames"], found)
+    )
 
 
 def _named(
