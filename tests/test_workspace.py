@@ -573,6 +573,7 @@ def test_a_cohort_tracked_with_more_keypoints_is_labelled_said_once(study, works
     for name in ("session_01", "session_02"):
         table = pd.read_parquet(study / f"{name}.parquet")
         extra = table[table["keypoint"] == "nose"].assign(keypoint="whisker_tip")
+        extra.loc[extra["frame"] % 2 == 0, "confidence"] = 0.0  # lost on every other frame
         pd.concat([table.astype({"keypoint": str}), extra]).to_parquet(more / f"{name}.parquet")
     files = sorted(more.glob("*.parquet"))
     with warnings.catch_warnings(record=True) as said:
@@ -583,6 +584,11 @@ def test_a_cohort_tracked_with_more_keypoints_is_labelled_said_once(study, works
         )  # fmt: skip
     texts = [str(w.message) for w in said if "whisker_tip" in str(w.message)]
     assert texts == [texts[0]] and "session(s): 'session_01', 'session_02'" in texts[0], texts
+    quality = pd.read_csv(cohort.path / "quality.csv")
+    seen = cohort.labels().groupby("session")["body_seen"].apply(lambda b: (b < 1).mean())
+    invalid = quality.groupby("session")["frac_invalid_frames"].first()  # model's keypoints
+    np.testing.assert_allclose(invalid.sort_index(), seen.sort_index())
+    assert (invalid < 0.5).all()  # not the lost extra keypoint's every other frame
     plain = label_sessions(
         workspace.path, [study / "session_01.parquet", study / "session_02.parquet"],
         tmp_path / "plain", manifest=study / "manifest.csv", progress=False,

@@ -770,7 +770,7 @@ def _write_workspace(
         if quality:
             frames = [q if isinstance(q, pd.DataFrame) else q.to_frame() for q in quality]
             q = pd.concat(frames, ignore_index=True)
-            if getattr(model, "keypoints_left_out_", None):
+            if "keypoint" in q and not set(q["keypoint"].astype(str)) <= set(model.keypoints_):
                 q = _invalid_of_model_keypoints(q, decoded)
             write_table(q, stage.path("quality.csv"))
         if report is not None and report.table is not None:
@@ -805,8 +805,8 @@ def _invalid_of_model_keypoints(
     quality: pd.DataFrame, decoded: Sequence[dict[str, Any]]
 ) -> pd.DataFrame:
     """``quality`` with ``frac_invalid_frames`` counted over the model's keypoints, from the
-    labels' ``body_seen``: cleaning counted keypoints the fit then left out (never tracked),
-    so every frame had one missing."""
+    labels' ``body_seen``: cleaning counted every keypoint read, and the model leaves some out
+    (never tracked at the fit, or more than it was fitted on in a new cohort's files)."""
     if "frac_invalid_frames" not in quality:
         return quality
     parts = [
