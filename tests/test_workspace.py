@@ -589,6 +589,9 @@ def test_a_cohort_tracked_with_more_keypoints_is_labelled_said_once(study, works
     invalid = quality.groupby("session")["frac_invalid_frames"].first()  # model's keypoints
     np.testing.assert_allclose(invalid.sort_index(), seen.sort_index())
     assert (invalid < 0.5).all()  # not the lost extra keypoint's every other frame
+    from ethoscribe.workspace.report_sections import quality_section
+
+    assert "In the files but not read by the model: whisker_tip." in quality_section(cohort).text
     plain = label_sessions(
         workspace.path, [study / "session_01.parquet", study / "session_02.parquet"],
         tmp_path / "plain", manifest=study / "manifest.csv", progress=False,
@@ -627,4 +630,4 @@ def test_a_keypoint_never_tracked_is_left_out_and_said(study, tmp_path):
     assert (invalid < 0.5).all()
     from ethoscribe.workspace.report_sections import quality_section
 
-    assert "Left out of the model, never tracked: tail_base" in quality_section(ws).text
+    assert "Left out of the model, never tracked: tail_base." in quality_section(ws).text

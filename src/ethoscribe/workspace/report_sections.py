@@ -80,12 +80,17 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
             f"tracked): {listed(said, sep='; ')}. Their positions there are the posture "
             "model's guesses, so motifs say nothing about them in those sessions."
         )
-    left_out = (ws.summary.get("features") or {}).get("keypoints_left_out") or []
+    features = ws.summary.get("features") or {}
+    left_out = [str(k) for k in features.get("keypoints_left_out") or []]
+    read = features.get("keypoints")  # those the model reads (runs since 2026-12-05)
+    unread = sorted(set(table["keypoint"]) - set(read)) if read else left_out
     if left_out:
-        text += (
-            f" Left out of the model, never tracked: {', '.join(map(str, left_out))} (not in "
-            "the per-session means below)."
-        )
+        text += f" Left out of the model, never tracked: {', '.join(left_out)}."
+    others = [k for k in unread if k not in left_out]
+    if others:
+        text += f" In the files but not read by the model: {', '.join(others)}."
+    if unread:
+        text += " Those are not in the per-session means below."
     if labels is None:
         labels = ws.state_labels()
     unlabelled = (labels["state"] < 0).groupby([labels["session"], labels["animal"]]).mean()
@@ -94,7 +99,7 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     if "frac_invalid_frames" not in table.columns:  # files of older versions
         table["frac_invalid_frames"] = table["frac_unscored_frames"]
     shares = [*BARS, "frac_invalid_frames", "frac_unscored_frames"]
-    per_session = table[~table["keypoint"].isin(left_out)].groupby("session")[shares].mean()
+    per_session = table[~table["keypoint"].isin(unread)].groupby("session")[shares].mean()
     # Percent of frames, one decimal: what counts of missing frames support; headers in words
     headers = {
         "frac_missing_raw": "missing raw",

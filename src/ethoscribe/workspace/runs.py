@@ -723,6 +723,7 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
             "up_axis": model.features_.up_axis if model.n_dims_ == 3 else None,
             "up_axis_report": getattr(model, "up_axis_report_", ""),
             "keypoints_left_out": list(getattr(model, "keypoints_left_out_", [])),
+            "keypoints": list(model.keypoints_),  # those the model reads
         },
         "n_sessions": len(table),
         "n_frames": int(table["n_frames"].sum()),  # as read from the files
