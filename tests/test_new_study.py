@@ -98,3 +98,33 @@ def test_a_session_lacking_a_keypoint_is_checked_as_discover_reads_it(tmp_path):
     assert "ethoscribe-note-error" not in panel.message.value, panel.message.value
     assert "neck" in panel.preview["keypoints"] and len(panel.preview["keypoints"]) == 10
     assert any("(neck) lack keypoint" in w for w in panel.preview["warnings"])
+
+
+def test_two_dimensional_tracks_filmed_from_the_side_get_a_camera_choice(tmp_path):
+    import numpy as np
+
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.simulate.examples import tidy_table
+
+    study = tmp_path / "tank"
+    study.mkdir()
+    for i in (1, 2):  # invented fish seen through the tank's wall: x and z of the simulator
+        tracks, _ = simulate_session("glass_minnow", 30.0, 50.0, seed=i, session=f"fish_{i}")
+        side = tracks.replace(coords=np.ascontiguousarray(tracks.coords[..., [0, 2]]))
+        tidy_table(side).to_csv(study / f"fish_{i}.csv", index=False)
+    panel = NewStudy(study)
+    assert panel.view.layout.display == "none"  # nothing read yet
+    panel.fps.value = 50.0
+    panel.check.click()
+    assert "ethoscribe-note-ok" in panel.message.value, panel.message.value
+    assert panel.view.layout.display == "" and panel.up.layout.display == "none"
+    assert panel.view.options[0] == ("automatic (from the side)", "auto")
+    assert "Camera: from the side, y vertical (read from the tracks" in panel.found.value
+    panel.view.value = "above"  # the person knows better: reaches discover
+    panel.states.value = 3
+    panel.out.value = str(tmp_path / "results")
+    panel.run.click()
+    assert "ethoscribe-note-ok" in panel.message.value, panel.message.value
+    ws = Workspace(tmp_path / "results")
+    assert ws.model().view_ == "above" and ws.summary["features"]["view"] == "above"
+    panel.workbench.close()

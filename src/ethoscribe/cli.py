@@ -266,6 +266,14 @@ def build_parser() -> argparse.ArgumentParser:
         "give no clear sign; motion capture often has y up)",
     )
     d.add_argument(
+        "--view",
+        choices=("auto", "above", "side"),
+        default="auto",
+        help="2-D tracks: filmed from above (the body frame turns with the animal) or from the "
+        "side (y vertical: the body frame keeps height and pitch); default auto: read from "
+        "the tracks",
+    )
+    d.add_argument(
         "--no-social",
         action="store_true",
         help="no features of the nearest other animal (needed when single- and multi-animal "
@@ -563,6 +571,7 @@ def _run(args: argparse.Namespace) -> str:
             origin=args.origin,
             axis=args.axis,
             up_axis=args.up_axis,
+            view=args.view,
             slow_regimes=not args.no_slow_regimes,
             states=args.states,
             method=args.method,
@@ -642,7 +651,7 @@ _OPTIONS = {
     "fit_frames": "--fit-frames", "states": "--states", "n_states": "--states",
     "seed": "--seed", "random_state": "--seed", "method": "--method", "origin": "--origin",
     "axis": "--axis", "replace_curation": "--replace-curation", "force": "--force",
-    "causal": "--for-streaming", "social": "--no-social", "up_axis": "--up-axis",
+    "causal": "--for-streaming", "social": "--no-social", "up_axis": "--up-axis", "view": "--view",
     "slow_regimes": "--no-slow-regimes",
     "scheduler": "--scheduler", "manifest": "--manifest", "out": "--out",
 }  # fmt: skip

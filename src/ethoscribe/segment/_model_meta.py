@@ -91,7 +91,8 @@ def _check_params_meta(params: Any, model_keys: Iterable[str]) -> list[str]:
             problems.append(f"'params.{name}' must be an object or null, got {_show(value)}")
     features = params.get("features")
     if isinstance(features, Mapping):
-        unknown = sorted(set(features) - known_keys(FeaturePipeline))
+        # "view" is read by BehaviourModel itself (2-D tracks filmed from the side)
+        unknown = sorted(set(features) - known_keys(FeaturePipeline) - {"view"})
         if unknown:
             shown = listed(map(repr, unknown))
             problems.append(f"'params.features' has unknown FeaturePipeline options {shown}")

@@ -23,6 +23,7 @@ from ethoscribe.clean import CleanParams, QualityReport, clean
 from ethoscribe.errors import EthoscribeError, InputError, InputWarning, listed
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.features.vertical_check import resolve_up_axis
+from ethoscribe.features.view_check import lift_side_view, resolve_view
 from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
 from ethoscribe.pose import (
     PoseTracks,
@@ -172,7 +173,12 @@ class BehaviourModel(BaseEstimator):
         Keyword parameters of :class:`ethoscribe.features.FeaturePipeline`. ``up_axis``
         (3-D tracks) may also be "auto", the default here: the vertical axis is chosen from
         the training tracks (:func:`ethoscribe.features.vertical_check.resolve_up_axis`; z
-        when they give no clear sign), and said in :attr:`up_axis_report_`.
+        when they give no clear sign), and said in :attr:`up_axis_report_`. ``view`` (2-D
+        tracks): "above", "side" (the image's y vertical) or "auto" (the default: read from
+        the tracks, :func:`ethoscribe.features.view_check.resolve_view`); side-view tracks
+        are featurised as 3-D tracks without depth, so the body frame keeps height and pitch
+        (:attr:`view_`, :attr:`view_vertical_`, :attr:`view_report_`). Causal models are
+        always "above".
     method : str
         A registered segmentation method (:mod:`ethoscribe.segment.registry`): "hmm" (Gaussian
         HMM over frames), "changepoint" or "prediction_error" (change points, by penalised
@@ -579,7 +585,23 @@ class BehaviourModel(BaseEstimator):
             )
         sessions = cleaned
         options = {**(self.features or {}), **({"causal": True} if self.causal else {})}
+        view = options.pop("view", "auto")
+        if self.causal and view == "side":
+            raise InputError(
+                "view='side' is not available for causal (streaming) models; fit them on "
+                "tracks filmed from above, or fit without causal=True"
+            )
+        # 2-D tracks filmed from the side keep their vertical: labelled as 3-D tracks with no
+        # depth, whose body frame turns about the vertical only (features.view_check)
+        self.view_, self.view_vertical_, self.view_report_ = resolve_view(
+            cleaned, "above" if self.causal else view
+        )
+        if self.view_ == "side":
+            cleaned = [lift_side_view(s, self.view_vertical_) for s in cleaned]
+            options["up_axis"] = "z"
         up, self.up_axis_report_ = resolve_up_axis(cleaned, options.get("up_axis", "auto"))
+        if self.view_ == "side":
+            self.up_axis_report_ = ""  # the tracks are 2-D: view_report_ says it
         pipeline = FeaturePipeline(**{**options, "up_axis": up})
         self.filler_ = None
         if self.min_body_seen is not None:
@@ -847,6 +869,8 @@ class BehaviourModel(BaseEstimator):
         cleaned = match_keypoint_order(cleaned, self.keypoints_)
         for s in cleaned:
             self._check_body_plan(s)
+        if getattr(self, "view_", "above") == "side":
+            cleaned = [lift_side_view(s, self.view_vertical_) for s in cleaned]
         filled = [fill_tracks(getattr(self, "filler_", None), s) for s in cleaned]
         return _with_seen([f for t, _ in filled for f in self.features_.transform(t)], filled)
 
@@ -1225,6 +1249,9 @@ class BehaviourModel(BaseEstimator):
             "unit_lambda": None if np.isnan(lam) else float(lam),
             "up_axis_report": getattr(self, "up_axis_report_", ""),
             "keypoints_left_out": list(getattr(self, "keypoints_left_out_", [])),
+            "view": getattr(self, "view_", "above"),
+            "view_vertical": getattr(self, "view_vertical_", None),
+            "view_report": getattr(self, "view_report_", ""),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -1356,6 +1383,18 @@ class BehaviourModel(BaseEstimator):
                 f"'keypoints_left_out' must be a list of names, got {left!r}. {RESAVE}"
             )
         model.keypoints_left_out_ = left
+        view, vertical = meta.get("view", "above"), meta.get("view_vertical")
+        said = meta.get("view_report", "")
+        if view not in ("above", "side") or vertical not in (
+            (None,) if view == "above" else ("x", "y")
+        ):
+            raise InputError(
+                f"'view' must be 'above' (view_vertical null) or 'side' (view_vertical 'x' or "
+                f"'y'), got {view!r} / {vertical!r}. {RESAVE}"
+            )
+        if not isinstance(said, str):
+            raise InputError(f"'view_report' must be text, got {said!r}. {RESAVE}")
+        model.view_, model.view_vertical_, model.view_report_ = view, vertical, said
         # The parts must describe the same body plan and state count as the summary fields.
         problems = []
         if model.features_.keypoints_ != model.keypoints_:
@@ -1363,10 +1402,11 @@ class BehaviourModel(BaseEstimator):
                 f"'keypoints' {list(model.keypoints_)} differ from the feature pipeline's "
                 f"{list(model.features_.keypoints_)}"
             )
-        if model.features_.n_dims_ != model.n_dims_:
+        if model.features_.n_dims_ != model.n_dims_ + (model.view_ == "side"):
             problems.append(
                 f"'n_dims' {model.n_dims_} differs from the feature pipeline's "
                 f"{model.features_.n_dims_}"
+                + (" (a side view's features are 3-D)" if model.view_ == "side" else "")
             )
         if model.phase_groups_ is None and int(model.segmenter_.n_states_) != labelled:
             problems.append(

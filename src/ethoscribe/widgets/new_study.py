@@ -2,9 +2,9 @@
 
 Choose the pose files (a folder, or a manifest listing them), the frame rate and units, look at
 what would be read and at the automatic body axis (:func:`ethoscribe.workspace.preview.
-preview_study`), change the origin, axis, vertical axis (3-D tracks) or number of states if
-needed, and run ``discover``;
-the workbench opens on the result. Each button calls one library function.
+preview_study`), change the origin, axis, vertical axis (3-D tracks), camera view (2-D
+tracks) or number of states if needed, and run ``discover``; the workbench opens on the
+result. Each button calls one library function.
 """
 
 from __future__ import annotations
@@ -83,6 +83,14 @@ class NewStudy(w.VBox):
             layout=w.Layout(width="340px", display="none"),  # shown for 3-D tracks
         )
         self.up.add_class("ethoscribe-up-axis")
+        self.view = w.Dropdown(
+            options=[("automatic", "auto"), ("from above", "above"), ("from the side", "side")],
+            value="auto",
+            description="Camera",
+            style=label,
+            layout=w.Layout(width="340px", display="none"),  # shown for 2-D tracks
+        )
+        self.view.add_class("ethoscribe-view")
         self.states = w.Dropdown(
             options=[AUTOMATIC, *range(2, 21)],
             description="Motifs",
@@ -117,6 +125,7 @@ class NewStudy(w.VBox):
                 flow([self.origin]),
                 flow([self.tail, self.head]),
                 self.up,
+                self.view,
                 self.states,
                 self.out,
                 self.run,
@@ -143,7 +152,7 @@ class NewStudy(w.VBox):
 
     def _check(self) -> None:
         self.say("info", "Reading the first sessions ...")
-        info = preview_study(**self._inputs(), up_axis=self.up.value)
+        info = preview_study(**self._inputs(), up_axis=self.up.value, view=self.view.value)
         self.preview = info
         keypoints = info["keypoints"]
         tail, head = info["axis"]
@@ -156,6 +165,12 @@ class NewStudy(w.VBox):
         chosen = self.up.value
         self.up.options = [(f"automatic ({info['up_axis_auto']})", "auto"), *self.up.options[1:]]
         self.up.value = chosen
+        # 2-D tracks: filmed from above or from the side decides what the body frame keeps
+        self.view.layout.display = "" if info.get("n_dims") == 2 else "none"
+        chosen = self.view.value
+        auto = "from the side" if info.get("view_auto") == "side" else "from above"
+        self.view.options = [(f"automatic ({auto})", "auto"), *self.view.options[1:]]
+        self.view.value = chosen
         sessions = info["sessions"]
         shown = listed(sessions, 6)
         text = (
@@ -164,6 +179,7 @@ class NewStudy(w.VBox):
             f"{info['fps']:g} frames per second; coordinates in {info['units']}. "
             f"{info['axis_text']}"
             + (f" Vertical axis: {info['up_axis_text']}." if info.get("up_axis_text") else "")
+            + (f" Camera: {info['view_text']}." if info.get("view_text") else "")
         )
         shown_warnings = list(info["warnings"])
         if info.get("n_dims") == 3 and any("vertical axis" in t for t in shown_warnings):
@@ -195,6 +211,7 @@ class NewStudy(w.VBox):
             origin=None if self.origin.value == AUTOMATIC else self.origin.value,
             axis=axis,
             up_axis=self.up.value,
+            view=self.view.value,
             states="auto" if self.states.value == AUTOMATIC else int(self.states.value),
         )
         self.workbench = Workbench(ws.path)

@@ -18,6 +18,7 @@ import pandas as pd
 from ethoscribe.clean import clean
 from ethoscribe.features import FeaturePipeline
 from ethoscribe.features.vertical_check import resolve_up_axis
+from ethoscribe.features.view_check import lift_side_view, resolve_view
 from ethoscribe.pose import match_keypoint_order
 from ethoscribe.workspace.reading import discovery_cleaning, plan_sessions, read_planned
 
@@ -34,6 +35,7 @@ def preview_study(
     reader_options: Mapping[str, Any] | None = None,
     n_read: int = 2,
     up_axis: str = "auto",
+    view: str = "auto",
 ) -> dict[str, Any]:
     """Sessions, keypoints, frame rate, units and the automatic body axis of a study.
 
@@ -41,6 +43,8 @@ def preview_study(
     ``n_dims``, ``axis`` (tail side, head side), ``origin``, ``axis_text`` (how the axis was
     chosen), ``up_axis`` and ``up_axis_text`` (the vertical axis of 3-D tracks and how it was
     chosen: "auto" reads it from the tracks), ``up_axis_auto`` (the axis "auto" would use)
+    ``view``, ``view_text`` and ``view_auto`` (2-D tracks: filmed from above or from the
+    side, as for the vertical axis; None and "" for 3-D tracks),
     and ``warnings`` (e.g. an unreliable automatic axis, or 3-D tracks that look as if another
     axis than a given ``up_axis`` points up), from the first ``n_read`` sessions and as many
     more as make ``PREVIEW_SECONDS`` of tracks (at most ``MAX_PREVIEW_SESSIONS``; discover
@@ -64,9 +68,14 @@ def preview_study(
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         cleaned = match_keypoint_order(cleaned)  # as discover reads them (one keypoint set)
-        up, up_text = resolve_up_axis(cleaned, up_axis)
+        seen, vertical, view_text = resolve_view(cleaned, view)
+        seen_auto = seen if view == "auto" else resolve_view(cleaned, "auto")[0]
+        if seen == "side":  # as the model fits them: 3-D without depth, z up
+            cleaned = [lift_side_view(t, vertical) for t in cleaned]
+        up, up_text = resolve_up_axis(cleaned, "z" if seen == "side" else up_axis)
         read = up if up_axis == "auto" else resolve_up_axis(cleaned, "auto")[0]
         pipe = FeaturePipeline(up_axis=up).fit(cleaned)
+    two_d = tracks[0].n_dims == 2
     first = cleaned[0]
     return {
         "sessions": [entry["session"] for entry in plan],
@@ -74,12 +83,15 @@ def preview_study(
         "animals": list(first.animals),
         "fps": float(first.fps),
         "units": str(first.units),
-        "n_dims": int(first.n_dims),
+        "n_dims": int(tracks[0].n_dims),
         "axis": tuple(pipe.axis_),
         "origin": pipe.origin_ or "centroid",
         "axis_text": str(pipe.axis_report_),
         "up_axis": up,
-        "up_axis_text": up_text,
+        "up_axis_text": "" if two_d else up_text,
         "up_axis_auto": read,
+        "view": seen if two_d else None,
+        "view_text": view_text,
+        "view_auto": seen_auto if two_d else None,
         "warnings": [str(w.message) for w in caught if issubclass(w.category, UserWarning)],
     }

@@ -152,6 +152,9 @@ def model_section(ws: Workspace) -> Section:
             f" Left out of the model, never tracked in its training sessions: "
             f"{', '.join(map(str, left_out))}."
         )
+    seen = (summary.get("features") or {}).get("view_report")
+    if seen:
+        text += f" Camera: {seen}."
     vertical = (summary.get("features") or {}).get("up_axis_report")
     if vertical:
         text += f" Vertical axis of the 3-D tracks: {vertical}."

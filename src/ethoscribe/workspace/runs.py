@@ -17,6 +17,7 @@ from ethoscribe.curation import Curation
 from ethoscribe.errors import InputError, InputWarning, WorkspaceError, listed
 from ethoscribe.features import FeatureSet
 from ethoscribe.features.vertical_check import resolve_up_axis
+from ethoscribe.features.view_check import resolve_view
 from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, write_table
 from ethoscribe.io.bundle import write_bundle
 from ethoscribe.pose import IN_SESSIONS, PoseTracks, study_keypoints
@@ -115,6 +116,7 @@ def discover(
     social: bool = True,
     up_axis: str = "auto",
     slow_regimes: bool = True,
+    view: str = "auto",
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
@@ -138,6 +140,11 @@ def discover(
         tracks (the body's spread stands apart along the vertical and the animals range least
         along it; z when they give no clear sign); ``summary.json`` and the report say which
         and why
+    view : how a camera filmed 2-D tracks: "above" (the body frame turns with the animal),
+        "side" (the image's y is vertical: the body frame only mirrors the animal to face one
+        way and keeps its height and pitch), or "auto" (default: read from the tracks, from
+        the side when the body's long axis keeps to an image axis and the animals travel
+        along the other; ``features.view_check``); ``summary.json`` and the report say which
     slow_regimes : label stretches of minutes whose states alternate in a steady mix by that
         mix when the training labels hold such stretches (``BehaviourModel(slow_regimes=
         "auto")``; the report says when it happened); False keeps the states as the motifs
@@ -195,6 +202,9 @@ def discover(
         # automatic axis other than z must not reuse them (the version number did not change).
         auto_z = up_axis == "auto" and resolve_up_axis(sample, "auto")[0] == "z"
         up = {} if auto_z else {"up_axis": up_axis}
+        # 2-D: fits made before the view was read were from above; keep their digest
+        if view == "side" or resolve_view(sample, "auto")[0] != view.replace("auto", "above"):
+            up = {**up, "view": view}
         regimes = {} if slow_regimes else {"slow_regimes": "off"}  # likewise
         # The fit's features of whole sessions, kept for labelling them in this process.
         in_process = client is None and (default_jobs() if jobs is None else jobs) == 1
@@ -724,6 +734,8 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
             "up_axis_report": getattr(model, "up_axis_report_", ""),
             "keypoints_left_out": list(getattr(model, "keypoints_left_out_", [])),
             "keypoints": list(model.keypoints_),  # those the model reads
+            "view": getattr(model, "view_", "above") if model.n_dims_ == 2 else None,
+            "view_report": getattr(model, "view_report_", ""),
         },
         "n_sessions": len(table),
         "n_frames": int(table["n_frames"].sum()),  # as read from the files

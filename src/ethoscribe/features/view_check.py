@@ -1,0 +1,152 @@
+"""Whether 2-D tracks were filmed from above or from the side, read from the tracks.
+
+From above, an animal turns freely in the image plane: the long axis of its body takes every
+direction in turn. From the side, gravity fixes the image's vertical: bodies stay mostly
+level (a fish, a walking animal) or upright (a standing figure), so the long axis keeps to one
+of the image's axes, and animals travel along the floor, far more across the image than up and
+down it. Egocentric alignment must then keep the vertical (a rearing or diving body is not a
+level one turned): side-view tracks are labelled as 3-D tracks with no depth (horizontal,
+depth 0, vertical) whose body frame turns only about the vertical, i.e. mirrors the animal to
+face one way, and keeps its height and pitch.
+
+The statistic: per frame, the orientation ``theta`` of the keypoints' principal axis
+(``0.5 atan2(2 c_xy, c_xx - c_yy)`` of their covariance), weighted by how elongated the body
+is then (``(l1 - l2) / (l1 + l2)``); its axial concentration is the mean resultant length of
+``2 theta`` (Mardia & Jupp 2000, "Directional Statistics", axial data). A uniform spread of
+directions gives 0, one fixed direction 1.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+from ethoscribe.errors import InputError
+from ethoscribe.pose import PoseTracks
+
+VIEWS = ("auto", "above", "side")
+
+SIDE_CONCENTRATION = 0.5
+"""Axial concentration of the body's long axis from which 2-D tracks read as a side view. On
+the bench's 2-D sources filmed from above it is 0.06-0.12 (voles, pairs, the independent
+simulator, the fish and the upright figure projected onto their floor), from the side 0.62
+(the figure) and 0.92 (the fish)."""
+
+LEVEL_DEGREES = 20.0
+"""A side view's mean body axis lies within this of an image axis (cameras are levelled);
+otherwise the tracks show one fixed direction that gravity does not explain (a corridor)."""
+
+RANGE_RATIO = 0.7
+"""The vertical is the image axis along which the body's centre ranges least (5-95 %), less
+than this fraction of the other: animals travel along the floor."""
+
+_MAX_FRAMES = 20_000
+
+
+def view_evidence(sessions: Sequence[PoseTracks]) -> dict[str, float | list[float]]:
+    """The statistics :func:`choose_view` reads from 2-D tracks: ``concentration`` (axial,
+    0-1) and ``angle`` (degrees from the image's x axis, -90 to 90) of the body's long axis,
+    and ``range`` (x, y: the body centre's 5-95 % range, median over animals).
+
+    Examples
+    --------
+    >>> from ethoscribe.io import from_arrays
+    >>> c = np.zeros((30, 2, 2)); c[:, 1, 0] = 4.0; c[:, :, 0] += np.arange(30)[:, None]
+    >>> e = view_evidence([from_arrays(c, keypoints=["a", "b"], fps=30)])
+    >>> round(e["concentration"], 3), round(e["angle"], 1), e["range"], e["spread"]
+    (1.0, 0.0, [26.1, 0.0], 2.0)
+    """
+    total, weight, ranges, spreads = 0j, 0.0, [], []
+    for s in sessions:
+        X = s.coords[:: max(1, s.n_frames // _MAX_FRAMES)]  # (F, A, K, 2)
+        centroid = np.nanmean(X, axis=2)  # lost keypoints left out
+        d = X - centroid[:, :, None]
+        with np.errstate(invalid="ignore"):
+            cxx = np.nanmean(d[..., 0] ** 2, axis=-1)
+            cyy = np.nanmean(d[..., 1] ** 2, axis=-1)
+            cxy = np.nanmean(d[..., 0] * d[..., 1], axis=-1)
+        spread = cxx + cyy
+        gap = np.hypot(cxx - cyy, 2 * cxy)  # l1 - l2
+        ok = np.isfinite(gap) & (spread > 0)
+        w = np.where(ok, gap / np.where(ok, spread, 1.0), 0.0)  # elongation, 0-1
+        doubled = np.where(ok, np.arctan2(2 * cxy, cxx - cyy), 0.0)  # 2 theta
+        spreads.append(np.sqrt(spread[ok]))
+        total += np.sum(w * np.exp(1j * doubled))
+        weight += float(w.sum())
+        for a in range(centroid.shape[1]):
+            c = centroid[:, a][np.isfinite(centroid[:, a]).all(axis=-1)]
+            if len(c) >= 2:
+                ranges.append(np.percentile(c, 95, axis=0) - np.percentile(c, 5, axis=0))
+    mean = total / weight if weight > 0 else 0j
+    rng = np.median(ranges, axis=0) if ranges else np.zeros(2)
+    size = np.concatenate(spreads) if spreads else np.zeros(0)
+    return {
+        "concentration": float(abs(mean)),
+        "angle": float(np.degrees(np.angle(mean) / 2)),
+        "range": [round(float(v), 3) for v in rng],
+        "spread": round(float(np.median(size)), 3) if size.size else 0.0,
+    }
+
+
+def choose_view(sessions: Sequence[PoseTracks]) -> tuple[str, str | None, str]:
+    """``("side", vertical, why)`` when 2-D tracks read as filmed from the side (the body's
+    long axis keeps to an image axis, concentration >= ``SIDE_CONCENTRATION`` within
+    ``LEVEL_DEGREES``), with the vertical the image axis along which the body centre ranges
+    least (< ``RANGE_RATIO`` of the other), or y (the image's rows, cameras standing upright)
+    when the animals do not travel their body's spread; else ``("above", None, why)``."""
+    e = view_evidence(sessions)
+    r, angle, (rx, ry) = e["concentration"], float(np.round(e["angle"])) + 0.0, e["range"]
+    off_axis = min(abs(angle), abs(abs(angle) - 90.0))
+    said = (
+        f"the body's long axis keeps to {angle:.0f} degrees from the image's x axis with "
+        f"concentration {r:.2f}; the body centre ranges {rx:.3g} along x, {ry:.3g} along y"
+    )
+    if r < SIDE_CONCENTRATION or off_axis > LEVEL_DEGREES:
+        return "above", None, said
+    if max(rx, ry) < e["spread"]:
+        return "side", "y", f"{said} (less than the body's spread: y taken as vertical)"
+    if ry < RANGE_RATIO * rx:
+        return "side", "y", said
+    if rx < RANGE_RATIO * ry:
+        return "side", "x", said
+    return "above", None, said
+
+
+def resolve_view(sessions: Sequence[PoseTracks], view: str) -> tuple[str, str | None, str]:
+    """The camera's view of 2-D tracks, its vertical image axis and how it was chosen:
+    ``view`` itself when given ("above"; "side" with y as the vertical, the image's rows),
+    else (``"auto"``) :func:`choose_view`'s. 3-D tracks: ``("above", None, "")``."""
+    if view not in VIEWS:
+        raise InputError(f"view must be one of {list(VIEWS)}; got {view!r}")
+    if not sessions or sessions[0].n_dims != 2:
+        return "above", None, ""
+    if view == "above":
+        return "above", None, "from above (given)"
+    if view == "side":
+        return "side", "y", "from the side, y vertical (given)"
+    chosen, vertical, why = choose_view(sessions)
+    if chosen == "side":
+        return "side", vertical, f"from the side, {vertical} vertical (read from the tracks: {why})"
+    return "above", None, f"from above (read from the tracks: {why})"
+
+
+def lift_side_view(tracks: PoseTracks, vertical: str) -> PoseTracks:
+    """2-D side-view tracks as 3-D ones (horizontal, depth 0, vertical): the body frame of a
+    3-D study (turns about z only) then mirrors the animal to face one way and keeps its
+    height and pitch.
+
+    Examples
+    --------
+    >>> from ethoscribe.io import from_arrays
+    >>> t = lift_side_view(from_arrays(np.array([[[1.0, 2.0]], [[3.0, 4.0]]]),
+    ...                                keypoints=["a"], fps=30), "y")
+    >>> t.coords[:, 0, 0].tolist()
+    [[1.0, 0.0, 2.0], [3.0, 0.0, 4.0]]
+    """
+    if tracks.n_dims != 2:
+        raise InputError(f"only 2-D tracks are lifted; '{tracks.session}' is {tracks.n_dims}-D")
+    h, v = (0, 1) if vertical == "y" else (1, 0)
+    c = tracks.coords
+    lifted = np.stack([c[..., h], np.zeros_like(c[..., h]), c[..., v]], axis=-1)
+    return tracks.replace(coords=lifted)
