@@ -51,14 +51,17 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
         keypoints=tuple(f"point{i}" for i in range(s.n_keypoints))
     ),
     "pixels": lambda s: s.replace(coords=s.coords * 37.0 + 812.0, units="px"),
+    # 2-D: filmed from above (the floor plane) or from the side (a wall: x and the vertical)
+    "filmed from above": _axes([0, 1]),
+    "filmed from the side": _axes([0, 2]),
     "5 keypoints": _evenly(5),
     "3 keypoints": _evenly(3),
 }
 THINNED = "a third of the frame rate"
 _TWO_D = ["as recorded", "keypoints renamed", "pixels", THINNED, "5 keypoints", "3 keypoints"]
 RECORDED = {
-    "own_fish": ["as recorded", "y up", "x up"],
-    "figure_sim": ["as recorded", "y up", "x up"],
+    "own_fish": ["as recorded", "y up", "x up", "filmed from above", "filmed from the side"],
+    "figure_sim": ["as recorded", "y up", "x up", "filmed from above", "filmed from the side"],
     "own_voles": _TWO_D,
     "independent_sim": _TWO_D,
 }

@@ -29,9 +29,9 @@ VIEWS = ("auto", "above", "side")
 
 SIDE_CONCENTRATION = 0.5
 """Axial concentration of the body's long axis from which 2-D tracks read as a side view. On
-the bench's 2-D sources filmed from above it is 0.06-0.12 (voles, pairs, the independent
-simulator, the fish and the upright figure projected onto their floor), from the side 0.62
-(the figure) and 0.92 (the fish)."""
+the validation bench at seed 0, filmed from above it is 0.05-0.13 (voles, pairs, the
+independent simulator, the 3-D fish and upright figure projected onto their floor), from the
+side 0.94 (the fish) and 0.98 (the figure, upright)."""
 
 LEVEL_DEGREES = 20.0
 """A side view's mean body axis lies within this of an image axis (cameras are levelled);
