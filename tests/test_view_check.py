@@ -122,3 +122,15 @@ def test_command_line_reads_and_takes_the_camera_view(fish, tmp_path):
                  *common]) == 0  # fmt: skip
     features = json.loads((tmp_path / "b" / "summary.json").read_text())["features"]
     assert features["view"] == "above" and features["view_report"] == "from above (given)"
+    # the workbench draws what the camera saw: forward and height, so labelled
+    from ethoscribe.plots.motifs import posture_figure
+    from ethoscribe.workspace import Workspace
+    from ethoscribe.workspace.postures import PostureLibrary
+
+    ws = Workspace(tmp_path / "a")
+    lib = PostureLibrary(ws)
+    lib.set_states(ws.state_labels(), ws.summary["n_states"])
+    mean = lib.mean_posture([0])
+    assert lib.second_axis == "height" and mean.shape == (len(lib.keypoints), 2)
+    fig = posture_figure(mean, lib.keypoints, lib.edges, second_axis=lib.second_axis)
+    assert fig.layout.yaxis.title.text.startswith("height")

@@ -60,12 +60,15 @@ def view_evidence(sessions: Sequence[PoseTracks]) -> dict[str, float | list[floa
     total, weight, ranges, spreads = 0j, 0.0, [], []
     for s in sessions:
         X = s.coords[:: max(1, s.n_frames // _MAX_FRAMES)]  # (F, A, K, 2)
-        centroid = np.nanmean(X, axis=2)  # lost keypoints left out
-        d = X - centroid[:, :, None]
-        with np.errstate(invalid="ignore"):
-            cxx = np.nanmean(d[..., 0] ** 2, axis=-1)
-            cyy = np.nanmean(d[..., 1] ** 2, axis=-1)
-            cxy = np.nanmean(d[..., 0] * d[..., 1], axis=-1)
+        seen = np.isfinite(X).all(axis=-1)  # (F, A, K); lost keypoints left out
+        n = np.maximum(seen.sum(axis=2), 1)  # frames with none seen give NaN below
+        none = ~seen.any(axis=2)
+        centroid = np.where(seen[..., None], X, 0.0).sum(axis=2) / n[..., None]
+        centroid[none] = np.nan
+        d = np.where(seen[..., None], X - centroid[:, :, None], 0.0)
+        cxx, cyy, cxy = ((d[..., 0] ** 2).sum(-1) / n, (d[..., 1] ** 2).sum(-1) / n,
+                         (d[..., 0] * d[..., 1]).sum(-1) / n)  # fmt: skip
+        cxx[none] = np.nan
         spread = cxx + cyy
         gap = np.hypot(cxx - cyy, 2 * cxy)  # l1 - l2
         ok = np.isfinite(gap) & (spread > 0)

@@ -110,8 +110,11 @@ def posture_figure(
     width: int = 360,
     height: int = 360,
     span: float | None = None,
+    second_axis: str = "sideways",
 ) -> go.Figure:
     """A posture drawn as bones between keypoints (top view; 3-D adds a side view).
+    ``second_axis``: what the second body-frame axis of 2-D postures is ("height" for tracks
+    filmed from the side).
 
     Parameters
     ----------
@@ -134,7 +137,7 @@ def posture_figure(
     if P.ndim != 2 or P.shape[0] != len(keypoints):
         raise InputError(f"posture must be (K, D) with K = {len(keypoints)}; got {P.shape}")
     index = _edge_index(keypoints, edges)
-    views = [((0, 1), "sideways", "")] + ([((0, 2), "height", "2")] if P.shape[1] == 3 else [])
+    views = [((0, 1), second_axis, "")] + ([((0, 2), "height", "2")] if P.shape[1] == 3 else [])
     finite = P[np.isfinite(P).all(1)]
     half = span or (float(np.abs(finite).max()) * 1.15 if len(finite) else 1.0)
     unit = f" ({units})" if units else ""

@@ -216,6 +216,7 @@ class EthogramPage(LazyDrawing):
             colour=colour,
             units=lib.units,
             span=self._span,
+            second_axis=lib.second_axis,
         )
 
     def show_bout(self) -> None:

@@ -263,6 +263,7 @@ class MotifPortrait(LazyDrawing):
             colour=self._colour(),
             units=lib.units,
             span=self._span,
+            second_axis=lib.second_axis,
         )
 
     def _strip_fig(self):

@@ -31,6 +31,7 @@ import pandas as pd
 from ethoscribe.body_plans import body_plan_for
 from ethoscribe.clean import calibrate, clean
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError, listed
+from ethoscribe.features.view_check import lift_side_view
 from ethoscribe.io import atomic_write, loads_json, safe_child
 from ethoscribe.pose import PoseTracks, match_keypoint_order
 from ethoscribe.postures import (
@@ -191,7 +192,7 @@ def compute_session_postures(
     cleaned, _ = clean(tracks, cleaning)
     # warn=False: the workspace's fit or labelling said it for this session already
     (cleaned,) = match_keypoint_order([cleaned], model.keypoints_, warn=False)
-    ego = egocentric_postures(cleaned, model.features_)
+    ego = body_frame(cleaned, model)
     # the frames the labels count (older sessions.csv: those read, unless resampled)
     expected = _number(row.get(LABELLED_FRAMES))
     if expected is None and not cleaning.target_fps:
@@ -204,6 +205,16 @@ def compute_session_postures(
         )
         raise WorkspaceError(msg)
     return _postures_of(str(session), cleaned, model, ego)
+
+
+def body_frame(cleaned: PoseTracks, model: BehaviourModel) -> np.ndarray:
+    """Body-frame keypoints of cleaned tracks under ``model`` (frames, animals, keypoints,
+    dims). 2-D tracks filmed from the side (``model.view_``): forward and height, the plane
+    the camera saw, as the model featurises them (lifted to 3-D without depth)."""
+    if getattr(model, "view_", "above") != "side":
+        return egocentric_postures(cleaned, model.features_)
+    lifted = lift_side_view(cleaned, model.view_vertical_)
+    return np.ascontiguousarray(egocentric_postures(lifted, model.features_)[..., [0, 2]])
 
 
 def _number(value: Any) -> float | None:
@@ -220,7 +231,7 @@ def _postures_of(
 ) -> SessionPostures:
     (cleaned,) = match_keypoint_order([cleaned], model.keypoints_, warn=False)
     if ego is None:
-        ego = egocentric_postures(cleaned, model.features_)
+        ego = body_frame(cleaned, model)
     return SessionPostures(
         session, ego.astype(np.float32), tuple(cleaned.animals), tuple(cleaned.keypoints),
         float(cleaned.fps), str(cleaned.units),
@@ -353,6 +364,7 @@ class PostureLibrary:
         self.units = ""
         self.edges: tuple[tuple[str, str], ...] = ()
         self.edges_note = ""
+        self.second_axis = "sideways"  # of 2-D postures; "height" for a side view
         self._sums = self._counts = None
         self._table: pd.DataFrame | None = None  # sessions.csv, read once
         self._first: dict[str, int] = {}  # each session's first input frame number
@@ -368,6 +380,8 @@ class PostureLibrary:
             return self._cache[session]
         if self._model is None:
             self._model, self._table = self.ws.model(), self.ws.sessions
+            side = getattr(self._model, "view_", "above") == "side"
+            self.second_axis = "height" if side else "sideways"
         p = session_postures(self.ws, session, self._model, self._table)
         self._cache[session] = p
         while len(self._cache) > self._max:
