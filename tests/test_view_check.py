@@ -134,3 +134,11 @@ def test_command_line_reads_and_takes_the_camera_view(fish, tmp_path):
     assert lib.second_axis == "height" and mean.shape == (len(lib.keypoints), 2)
     fig = posture_figure(mean, lib.keypoints, lib.edges, second_axis=lib.second_axis)
     assert fig.layout.yaxis.title.text.startswith("height")
+
+
+def test_animals_that_do_not_travel_give_no_sign_of_the_view(fish):
+    # a tethered fish seen from the side: its long axis keeps level, but nothing travels
+    side = _seen(fish[0][:1], (0, 2))[0]
+    still = side.coords - np.nanmean(side.coords, axis=2, keepdims=True)
+    view, vertical, why = choose_view([side.replace(coords=still)])
+    assert (view, vertical) == ("above", None) and "no sign of gravity" in why

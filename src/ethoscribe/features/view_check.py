@@ -96,8 +96,9 @@ def choose_view(sessions: Sequence[PoseTracks]) -> tuple[str, str | None, str]:
     """``("side", vertical, why)`` when 2-D tracks read as filmed from the side (the body's
     long axis keeps to an image axis, concentration >= ``SIDE_CONCENTRATION`` within
     ``LEVEL_DEGREES``), with the vertical the image axis along which the body centre ranges
-    least (< ``RANGE_RATIO`` of the other), or y (the image's rows, cameras standing upright)
-    when the animals do not travel their body's spread; else ``("above", None, why)``."""
+    least (< ``RANGE_RATIO`` of the other); else ``("above", None, why)``, also when the
+    animals do not travel their body's spread (tethered or head-fixed: a fixed body axis
+    gives the same body frame either way; ``view="side"`` keeps the image's y vertical)."""
     e = view_evidence(sessions)
     r, angle, (rx, ry) = e["concentration"], float(np.round(e["angle"])) + 0.0, e["range"]
     off_axis = min(abs(angle), abs(abs(angle) - 90.0))
@@ -107,8 +108,8 @@ def choose_view(sessions: Sequence[PoseTracks]) -> tuple[str, str | None, str]:
     )
     if r < SIDE_CONCENTRATION or off_axis > LEVEL_DEGREES:
         return "above", None, said
-    if max(rx, ry) < e["spread"]:
-        return "side", "y", f"{said} (less than the body's spread: y taken as vertical)"
+    if max(rx, ry) < e["spread"]:  # tethered or head-fixed: both frames nearly alike
+        return "above", None, f"{said}, less than the body's spread: no sign of gravity"
     if ry < RANGE_RATIO * rx:
         return "side", "y", said
     if rx < RANGE_RATIO * ry:
