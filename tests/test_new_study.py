@@ -43,6 +43,22 @@ def test_from_a_folder_of_pose_files_to_the_workbench(tmp_path):
     panel.workbench.close()
 
 
+def _fish_study(folder, seconds, axes):
+    """Two invented fish of the package's simulator (50 fps), the coordinates ``axes`` of
+    its x, y, z (z up) written as tidy CSV files into ``folder``."""
+    import numpy as np
+
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.simulate.examples import tidy_table
+
+    folder.mkdir()
+    for i in (1, 2):
+        tracks, _ = simulate_session("glass_minnow", seconds, 50.0, seed=i, session=f"fish_{i}")
+        seen = tracks.replace(coords=np.ascontiguousarray(tracks.coords[..., list(axes)]))
+        tidy_table(seen).to_csv(folder / f"fish_{i}.csv", index=False)
+    return folder
+
+
 def test_a_folder_without_pose_files_is_a_message(tmp_path):
     (tmp_path / "empty").mkdir()
     panel = NewStudy(tmp_path / "empty")
@@ -55,14 +71,7 @@ def test_a_folder_without_pose_files_is_a_message(tmp_path):
 # discover itself warns about the y axis chosen at the end (the panel's check showed it first)
 @pytest.mark.filterwarnings("ignore::ethoscribe.errors.InputWarning")
 def test_three_dimensional_tracks_get_a_vertical_axis_choice(tmp_path):
-    from ethoscribe.simulate import simulate_session
-    from ethoscribe.simulate.examples import tidy_table
-
-    study = tmp_path / "fish"
-    study.mkdir()
-    for i in (1, 2):  # invented fish of the package's simulator, z up, 20 s at 50 fps
-        tracks, _ = simulate_session("glass_minnow", 20.0, 50.0, seed=i, session=f"fish_{i}")
-        tidy_table(tracks).to_csv(study / f"fish_{i}.csv", index=False)
+    study = _fish_study(tmp_path / "fish", 20.0, (0, 1, 2))  # z up, as simulated
     panel = NewStudy(study)
     assert panel.up.layout.display == "none"  # nothing read yet
     panel.fps.value = 50.0
@@ -101,17 +110,7 @@ def test_a_session_lacking_a_keypoint_is_checked_as_discover_reads_it(tmp_path):
 
 
 def test_two_dimensional_tracks_filmed_from_the_side_get_a_camera_choice(tmp_path):
-    import numpy as np
-
-    from ethoscribe.simulate import simulate_session
-    from ethoscribe.simulate.examples import tidy_table
-
-    study = tmp_path / "tank"
-    study.mkdir()
-    for i in (1, 2):  # invented fish seen through the tank's wall: x and z of the simulator
-        tracks, _ = simulate_session("glass_minnow", 30.0, 50.0, seed=i, session=f"fish_{i}")
-        side = tracks.replace(coords=np.ascontiguousarray(tracks.coords[..., [0, 2]]))
-        tidy_table(side).to_csv(study / f"fish_{i}.csv", index=False)
+    study = _fish_study(tmp_path / "tank", 30.0, (0, 2))  # seen through the tank's wall
     panel = NewStudy(study)
     assert panel.view.layout.display == "none"  # nothing read yet
     panel.fps.value = 50.0

@@ -58,16 +58,20 @@ def test_the_vertical_is_read_from_the_tracks(fish, order, up):
     assert resolve_up_axis([turned], "x") == ("x", "x (given)")  # a given axis is kept
 
 
+def _clips_y_up(fish):
+    """30 one-second clips of the fish with y up, named in order."""
+    y_up = fish.coords[..., [0, 2, 1]]
+    return [
+        fish.replace(coords=y_up[i : i + 50].copy(), confidence=fish.confidence[i : i + 50],
+                     session=f"clip{i:04d}")
+        for i in range(0, 1500, 50)
+    ]  # fmt: skip
+
+
 def test_short_clips_that_mostly_stay_in_place_still_show_the_vertical(fish):
     # 30 one-second clips, y up: in most the fish barely moves; the quarter that travel most
     # show the floor plane (the bench's upright figure cut into 947 one-second clips likewise)
-    y_up = fish.coords[..., [0, 2, 1]]
-    clips = [
-        fish.replace(coords=y_up[i : i + 50].copy(), confidence=fish.confidence[i : i + 50],
-                     session=f"clip{i}")
-        for i in range(0, 1500, 50)
-    ]  # fmt: skip
-    assert choose_vertical_axis(clips)[0] == "y"
+    assert choose_vertical_axis(_clips_y_up(fish))[0] == "y"
 
 
 def test_no_clear_sign_keeps_z(fish):
@@ -178,12 +182,7 @@ def test_the_study_preview_reads_enough_short_clips_to_see_the_vertical(fish, tm
     from ethoscribe.io import write_tidy
     from ethoscribe.workspace.preview import preview_study
 
-    y_up = fish.coords[..., [0, 2, 1]]
-    clips = [
-        fish.replace(coords=y_up[i : i + 50].copy(), confidence=fish.confidence[i : i + 50],
-                     session=f"clip{i:04d}")
-        for i in range(0, 1500, 50)
-    ]  # fmt: skip
+    clips = _clips_y_up(fish)
     assert choose_vertical_axis(clips[:2])[0] is None  # what two clips show
     for clip in clips:
         write_tidy(clip, tmp_path / f"{clip.session}.csv")
