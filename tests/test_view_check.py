@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from sklearn.metrics import adjusted_rand_score  # reference: scikit-learn
 
-from ethoscribe.errors import InputError
+from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.features.view_check import (
     SIDE_CONCENTRATION,
     choose_view,
@@ -79,7 +79,11 @@ def test_a_side_view_is_labelled_with_its_vertical(fish):
     scores = {}
     for view in ("auto", "above"):
         model = BehaviourModel(n_states=4, features={"view": view}, random_state=0).fit(side)
-        scores[view] = adjusted_rand_score(truth, model.label(side)["state"])
+        if view == "above":  # given against the tracks: labelling says so
+            with pytest.warns(InputWarning, match="look filmed from the side"):
+                scores[view] = adjusted_rand_score(truth, model.label(side)["state"])
+        else:
+            scores[view] = adjusted_rand_score(truth, model.label(side)["state"])
         if view == "auto":
             assert (model.view_, model.view_vertical_) == ("side", "y")
             assert model.view_report_.startswith("from the side, y vertical (read from")
@@ -142,3 +146,23 @@ def test_animals_that_do_not_travel_give_no_sign_of_the_view(fish):
     still = side.coords - np.nanmean(side.coords, axis=2, keepdims=True)
     view, vertical, why = choose_view([side.replace(coords=still)])
     assert (view, vertical) == ("above", None) and "no sign of gravity" in why
+
+
+def test_sessions_filmed_otherwise_than_the_model_are_named(fish):
+    import warnings
+
+    tracks, _ = fish
+    quick = {"n_restarts": 1, "n_iter": 20}
+    side, top = _seen(tracks[:2], (0, 2)), _seen(tracks[:2], (0, 1))
+    for fitted, same, other in (("side", side, top), ("above", top, side)):
+        model = BehaviourModel(n_states=3, segmenter=quick, random_state=0).fit(same)
+        assert model.view_ == fitted
+        with warnings.catch_warnings(record=True) as said:
+            warnings.simplefilter("always")
+            model.label(same[:1])
+        assert not [w for w in said if "look filmed" in str(w.message)]
+        with warnings.catch_warnings(record=True) as said:  # the poor fit is said too
+            warnings.simplefilter("always")
+            model.label(other[:1])
+        texts = [str(w.message) for w in said]
+        assert any(f"model was fitted on tracks filmed from {fitted}" in t for t in texts), texts

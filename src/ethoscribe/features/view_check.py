@@ -18,12 +18,13 @@ directions gives 0, one fixed direction 1.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 
 import numpy as np
 
-from ethoscribe.errors import InputError
-from ethoscribe.pose import PoseTracks
+from ethoscribe.errors import InputError, InputWarning, listed
+from ethoscribe.pose import IN_SESSIONS, PoseTracks
 
 VIEWS = ("auto", "above", "side")
 
@@ -40,6 +41,10 @@ otherwise the tracks show one fixed direction that gravity does not explain (a c
 RANGE_RATIO = 0.7
 """The vertical is the image axis along which the body's centre ranges least (5-95 %), less
 than this fraction of the other: animals travel along the floor."""
+
+MIN_CHECK_SECONDS = 60.0
+"""Sessions shorter than this are not checked against a model's view one by one: in a few
+seconds an animal may walk straight along an image axis, which looks like a side view."""
 
 _MAX_FRAMES = 20_000
 
@@ -154,3 +159,30 @@ def lift_side_view(tracks: PoseTracks, vertical: str) -> PoseTracks:
     c = tracks.coords
     lifted = np.stack([c[..., h], np.zeros_like(c[..., h]), c[..., v]], axis=-1)
     return tracks.replace(coords=lifted)
+
+
+def warn_other_view(sessions: Sequence[PoseTracks], fitted: str) -> list[str]:
+    """Warn (``InputWarning``) naming 2-D sessions that look filmed otherwise than the model's
+    training tracks (``fitted``: "above" or "side"), as a cohort filmed by another camera would;
+    returns their names. From above: a session that reads as a side view (:func:`choose_view`).
+    From the side: a session whose body turns freely in the image (concentration below
+    ``SIDE_CONCENTRATION``); one that merely does not travel is not named, nor one shorter
+    than ``MIN_CHECK_SECONDS``."""
+    odd = []
+    for s in sessions:
+        if s.n_dims != 2 or s.n_frames < MIN_CHECK_SECONDS * s.fps:
+            continue
+        if fitted == "above" and choose_view([s])[0] == "side":
+            odd.append(s.session)
+        elif fitted == "side" and view_evidence([s])["concentration"] < SIDE_CONCENTRATION:
+            odd.append(s.session)
+    if odd:
+        seen = "from the side" if fitted == "above" else "from above (the body turns freely)"
+        warnings.warn(
+            f"tracks that look filmed {seen}, but the model was fitted on tracks filmed "
+            f"from {fitted}: its body frame does not suit them (features.view_check); fit a "
+            f"model on such tracks{IN_SESSIONS}{listed(repr(n) for n in odd)}",
+            InputWarning,
+            stacklevel=3,
+        )
+    return odd

@@ -23,7 +23,7 @@ from ethoscribe.clean import CleanParams, QualityReport, clean
 from ethoscribe.errors import EthoscribeError, InputError, InputWarning, listed
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.features.vertical_check import resolve_up_axis
-from ethoscribe.features.view_check import lift_side_view, resolve_view
+from ethoscribe.features.view_check import lift_side_view, resolve_view, warn_other_view
 from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
 from ethoscribe.pose import (
     PoseTracks,
@@ -869,6 +869,8 @@ class BehaviourModel(BaseEstimator):
         cleaned = match_keypoint_order(cleaned, self.keypoints_)
         for s in cleaned:
             self._check_body_plan(s)
+        if self.n_dims_ == 2:
+            warn_other_view(cleaned, getattr(self, "view_", "above"))
         if getattr(self, "view_", "above") == "side":
             cleaned = [lift_side_view(s, self.view_vertical_) for s in cleaned]
         filled = [fill_tracks(getattr(self, "filler_", None), s) for s in cleaned]
