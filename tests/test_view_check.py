@@ -87,9 +87,10 @@ def test_a_side_view_is_labelled_with_its_vertical(fish):
         if view == "auto":
             assert (model.view_, model.view_vertical_) == ("side", "y")
             assert model.view_report_.startswith("from the side, y vertical (read from")
+            assert not model.view_flip_  # the simulator's mm, z up
             meta, arrays = model.to_state()
             again = BehaviourModel.from_state(meta, arrays)
-            assert again.view_ == "side" and again.n_dims_ == 2
+            assert again.view_ == "side" and again.n_dims_ == 2 and not again.view_flip_
             assert again.label(side[:1])["state"].equals(model.label(side[:1])["state"])
     print(f"ARI from the side {scores['auto']:.3f}, as if from above {scores['above']:.3f}")
     assert scores["auto"] > scores["above"] + 0.2  # measured 0.657 against 0.228
@@ -166,3 +167,18 @@ def test_sessions_filmed_otherwise_than_the_model_are_named(fish):
             model.label(other[:1])
         texts = [str(w.message) for w in said]
         assert any(f"model was fitted on tracks filmed from {fitted}" in t for t in texts), texts
+
+
+def test_image_coordinates_are_turned_up(fish):
+    # Pixel tracks (and tracks calibrated from pixels) have y growing downwards: the side
+    # view's vertical is -y, so heights and the drawn postures stand upright; the model keeps
+    # the choice for new sessions whatever their units
+    side = _seen(fish[0][:2], (0, 2))
+    rows_down = [s.replace(coords=s.coords * [1.0, -1.0], units="px") for s in side]  # y down
+    model = BehaviourModel(n_states=3, segmenter={"n_restarts": 1, "n_iter": 20}, random_state=0)
+    model.fit(rows_down)
+    assert model.view_ == "side" and model.view_flip_
+    lifted = lift_side_view(rows_down[0], "y", flip=True)
+    np.testing.assert_allclose(lifted.coords[..., 2], side[0].coords[..., 1])  # upright again
+    meta, arrays = model.to_state()
+    assert BehaviourModel.from_state(meta, arrays).view_flip_

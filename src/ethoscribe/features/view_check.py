@@ -140,24 +140,35 @@ def resolve_view(sessions: Sequence[PoseTracks], view: str) -> tuple[str, str | 
     return "above", None, f"from above (read from the tracks: {why})"
 
 
-def lift_side_view(tracks: PoseTracks, vertical: str) -> PoseTracks:
+def image_rows_down(sessions: Sequence[PoseTracks]) -> bool:
+    """Whether 2-D tracks are image coordinates, whose y grows downwards: in pixels, or
+    calibrated from pixels (``meta["calibration"]``). A side view's vertical is then -y."""
+    return any(
+        s.units == "px" or (s.meta.get("calibration") or {}).get("from") == "px" for s in sessions
+    )
+
+
+def lift_side_view(tracks: PoseTracks, vertical: str, flip: bool = False) -> PoseTracks:
     """2-D side-view tracks as 3-D ones (horizontal, depth 0, vertical): the body frame of a
     3-D study (turns about z only) then mirrors the animal to face one way and keeps its
-    height and pitch.
+    height and pitch. ``flip``: the vertical axis grows downwards (image rows,
+    :func:`image_rows_down`), so z is its negative.
 
     Examples
     --------
     >>> from ethoscribe.io import from_arrays
-    >>> t = lift_side_view(from_arrays(np.array([[[1.0, 2.0]], [[3.0, 4.0]]]),
-    ...                                keypoints=["a"], fps=30), "y")
-    >>> t.coords[:, 0, 0].tolist()
+    >>> t = from_arrays(np.array([[[1.0, 2.0]], [[3.0, 4.0]]]), keypoints=["a"], fps=30)
+    >>> lift_side_view(t, "y").coords[:, 0, 0].tolist()
     [[1.0, 0.0, 2.0], [3.0, 0.0, 4.0]]
+    >>> lift_side_view(t, "y", flip=True).coords[:, 0, 0].tolist()
+    [[1.0, 0.0, -2.0], [3.0, 0.0, -4.0]]
     """
     if tracks.n_dims != 2:
         raise InputError(f"only 2-D tracks are lifted; '{tracks.session}' is {tracks.n_dims}-D")
     h, v = (0, 1) if vertical == "y" else (1, 0)
     c = tracks.coords
-    lifted = np.stack([c[..., h], np.zeros_like(c[..., h]), c[..., v]], axis=-1)
+    up = -c[..., v] if flip else c[..., v]
+    lifted = np.stack([c[..., h], np.zeros_like(c[..., h]), up], axis=-1)
     return tracks.replace(coords=lifted)
 
 

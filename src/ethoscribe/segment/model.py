@@ -23,7 +23,12 @@ from ethoscribe.clean import CleanParams, QualityReport, clean
 from ethoscribe.errors import EthoscribeError, InputError, InputWarning, listed
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.features.vertical_check import resolve_up_axis
-from ethoscribe.features.view_check import lift_side_view, resolve_view, warn_other_view
+from ethoscribe.features.view_check import (
+    image_rows_down,
+    lift_side_view,
+    resolve_view,
+    warn_other_view,
+)
 from ethoscribe.missing_keypoints import KeypointFiller, fill_tracks, fit_filler
 from ethoscribe.pose import (
     PoseTracks,
@@ -596,8 +601,10 @@ class BehaviourModel(BaseEstimator):
         self.view_, self.view_vertical_, self.view_report_ = resolve_view(
             cleaned, "above" if self.causal else view
         )
+        # image coordinates (y down) are turned so that z points up, as at labelling
+        self.view_flip_ = self.view_ == "side" and image_rows_down(cleaned)
         if self.view_ == "side":
-            cleaned = [lift_side_view(s, self.view_vertical_) for s in cleaned]
+            cleaned = [lift_side_view(s, self.view_vertical_, self.view_flip_) for s in cleaned]
             options["up_axis"] = "z"
         up, self.up_axis_report_ = resolve_up_axis(cleaned, options.get("up_axis", "auto"))
         if self.view_ == "side":
@@ -872,7 +879,8 @@ class BehaviourModel(BaseEstimator):
         if self.n_dims_ == 2:
             warn_other_view(cleaned, getattr(self, "view_", "above"))
         if getattr(self, "view_", "above") == "side":
-            cleaned = [lift_side_view(s, self.view_vertical_) for s in cleaned]
+            flip = self.view_flip_
+            cleaned = [lift_side_view(s, self.view_vertical_, flip) for s in cleaned]
         filled = [fill_tracks(getattr(self, "filler_", None), s) for s in cleaned]
         return _with_seen([f for t, _ in filled for f in self.features_.transform(t)], filled)
 
@@ -1254,6 +1262,7 @@ class BehaviourModel(BaseEstimator):
             "view": getattr(self, "view_", "above"),
             "view_vertical": getattr(self, "view_vertical_", None),
             "view_report": getattr(self, "view_report_", ""),
+            "view_flip": bool(getattr(self, "view_flip_", False)),
         }
         arrays = {f"features/{k}": v for k, v in f_arrays.items()}
         arrays.update({f"segmenter/{k}": v for k, v in s_arrays.items()})
@@ -1397,6 +1406,10 @@ class BehaviourModel(BaseEstimator):
         if not isinstance(said, str):
             raise InputError(f"'view_report' must be text, got {said!r}. {RESAVE}")
         model.view_, model.view_vertical_, model.view_report_ = view, vertical, said
+        flip = meta.get("view_flip", False)
+        if not isinstance(flip, bool):
+            raise InputError(f"'view_flip' must be true or false, got {flip!r}. {RESAVE}")
+        model.view_flip_ = flip
         # The parts must describe the same body plan and state count as the summary fields.
         problems = []
         if model.features_.keypoints_ != model.keypoints_:

@@ -213,7 +213,7 @@ def body_frame(cleaned: PoseTracks, model: BehaviourModel) -> np.ndarray:
     the camera saw, as the model featurises them (lifted to 3-D without depth)."""
     if getattr(model, "view_", "above") != "side":
         return egocentric_postures(cleaned, model.features_)
-    lifted = lift_side_view(cleaned, model.view_vertical_)
+    lifted = lift_side_view(cleaned, model.view_vertical_, getattr(model, "view_flip_", False))
     return np.ascontiguousarray(egocentric_postures(lifted, model.features_)[..., [0, 2]])
 
 

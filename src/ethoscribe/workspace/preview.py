@@ -18,7 +18,7 @@ import pandas as pd
 from ethoscribe.clean import clean
 from ethoscribe.features import FeaturePipeline
 from ethoscribe.features.vertical_check import resolve_up_axis
-from ethoscribe.features.view_check import lift_side_view, resolve_view
+from ethoscribe.features.view_check import image_rows_down, lift_side_view, resolve_view
 from ethoscribe.pose import match_keypoint_order
 from ethoscribe.workspace.reading import discovery_cleaning, plan_sessions, read_planned
 
@@ -71,7 +71,8 @@ def preview_study(
         seen, vertical, view_text = resolve_view(cleaned, view)
         seen_auto = seen if view == "auto" else resolve_view(cleaned, "auto")[0]
         if seen == "side":  # as the model fits them: 3-D without depth, z up
-            cleaned = [lift_side_view(t, vertical) for t in cleaned]
+            flip = image_rows_down(cleaned)
+            cleaned = [lift_side_view(t, vertical, flip) for t in cleaned]
         up, up_text = resolve_up_axis(cleaned, "z" if seen == "side" else up_axis)
         read = up if up_axis == "auto" else resolve_up_axis(cleaned, "auto")[0]
         pipe = FeaturePipeline(up_axis=up).fit(cleaned)
