@@ -142,7 +142,9 @@ def resolve_view(sessions: Sequence[PoseTracks], view: str) -> tuple[str, str | 
 
 def image_rows_down(sessions: Sequence[PoseTracks]) -> bool:
     """Whether 2-D tracks are image coordinates, whose y grows downwards: in pixels, or
-    calibrated from pixels (``meta["calibration"]``). A side view's vertical is then -y."""
+    calibrated from pixels (``meta["calibration"]``). A side view with y vertical then has
+    -y pointing up (an image's x has no such convention: a camera turned a quarter either
+    way gives x up or down)."""
     return any(
         s.units == "px" or (s.meta.get("calibration") or {}).get("from") == "px" for s in sessions
     )

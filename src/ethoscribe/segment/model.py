@@ -602,7 +602,7 @@ class BehaviourModel(BaseEstimator):
             cleaned, "above" if self.causal else view
         )
         # image coordinates (y down) are turned so that z points up, as at labelling
-        self.view_flip_ = self.view_ == "side" and image_rows_down(cleaned)
+        self.view_flip_ = self.view_vertical_ == "y" and image_rows_down(cleaned)
         if self.view_ == "side":
             cleaned = [lift_side_view(s, self.view_vertical_, self.view_flip_) for s in cleaned]
             options["up_axis"] = "z"
