@@ -93,7 +93,9 @@ def _names(draw, n_max: int) -> tuple[list[str], bool]:
     """Names, and whether they are all plain and distinct."""
     if draw(st.integers(0, 4)) == 0:
         return draw(st.lists(st.one_of(PLAIN, ODD), min_size=1, max_size=n_max)), False
-    return draw(st.lists(PLAIN, min_size=1, max_size=n_max, unique=True)), True
+    # distinct also when folded: names that differ only in case are read as one (documented)
+    folded = st.lists(PLAIN, min_size=1, max_size=n_max, unique_by=lambda s: s.strip().casefold())
+    return draw(folded), True
 
 
 def _damage(draw, table: pd.DataFrame, numeric: list[str]) -> tuple[pd.DataFrame, bool]:

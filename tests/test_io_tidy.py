@@ -137,6 +137,10 @@ _names = st.text(
 ).filter(lambda s: s.strip() == s and s != "")
 
 
+def _fold(name: str) -> str:
+    return name.strip().casefold()
+
+
 @st.composite
 def _tracks(draw):
     shape = (
@@ -152,8 +156,9 @@ def _tracks(draw):
     return PoseTracks(
         coords,
         confidence=conf,
-        keypoints=draw(st.lists(_names, min_size=shape[2], max_size=shape[2], unique=True)),
-        animals=draw(st.lists(_names, min_size=shape[1], max_size=shape[1], unique=True)),
+        # names that differ only in case are read as one (documented): distinct when folded
+        keypoints=draw(st.lists(_names, min_size=shape[2], max_size=shape[2], unique_by=_fold)),
+        animals=draw(st.lists(_names, min_size=shape[1], max_size=shape[1], unique_by=_fold)),
         # rates of up to 15 significant digits survive CSV text exactly
         fps=draw(st.sampled_from([25.0, 29.97, 30.0, 30000 / 1001, 59.94, 120.0, 7.5])),
         units=draw(st.sampled_from(UNITS)),
