@@ -52,7 +52,8 @@ _MAX_FRAMES = 20_000
 def view_evidence(sessions: Sequence[PoseTracks]) -> dict[str, float | list[float]]:
     """The statistics :func:`choose_view` reads from 2-D tracks: ``concentration`` (axial,
     0-1) and ``angle`` (degrees from the image's x axis, -90 to 90) of the body's long axis,
-    and ``range`` (x, y: the body centre's 5-95 % range, median over animals).
+    ``range`` (x, y: the body centre's 5-95 % range, median over animals) and ``spread`` (the
+    keypoints' root-mean-square distance from their centre, median over frames).
 
     Examples
     --------
