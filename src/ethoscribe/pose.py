@@ -369,6 +369,23 @@ def study_keypoints(keypoints: Sequence[Sequence[str]]) -> tuple[str, ...]:
     return tuple(keypoints[0])
 
 
+def keypoints_seen(sessions: Sequence[PoseTracks]) -> np.ndarray:
+    """Per keypoint of ``sessions`` (one keypoint set): tracked in any frame of any animal.
+
+    Examples
+    --------
+    >>> c = np.zeros((2, 1, 2, 2)); c[:, :, 1] = np.nan
+    >>> keypoints_seen([PoseTracks(c, keypoints=["a", "b"], fps=30)]).tolist()
+    [True, False]
+    """
+    seen = np.zeros(sessions[0].n_keypoints, dtype=bool)
+    for s in sessions:
+        seen |= np.isfinite(s.coords).all(axis=-1).any(axis=(0, 1))
+        if seen.all():
+            break
+    return seen
+
+
 def without_unseen_keypoints(
     sessions: Sequence[PoseTracks],
 ) -> tuple[list[PoseTracks], list[str]]:
@@ -390,9 +407,7 @@ def without_unseen_keypoints(
     sessions = list(sessions)
     if not sessions:
         return sessions, []
-    seen = np.zeros(sessions[0].n_keypoints, dtype=bool)
-    for s in sessions:
-        seen |= np.isfinite(s.coords).all(axis=-1).any(axis=(0, 1))
+    seen = keypoints_seen(sessions)
     if seen.all() or not seen.any():
         return sessions, []
     keep = tuple(k for k, ok in zip(sessions[0].keypoints, seen, strict=True) if ok)

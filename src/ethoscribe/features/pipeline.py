@@ -38,7 +38,7 @@ from ethoscribe.geometry import (
     rotate_to_axis,
     travel_alignment,
 )
-from ethoscribe.pose import PoseTracks, check_same_body_plan
+from ethoscribe.pose import PoseTracks, check_same_body_plan, keypoints_seen
 
 
 def _accumulate(acc: list | None, X: np.ndarray, full: bool) -> list | None:
@@ -391,12 +391,9 @@ class FeaturePipeline(BaseEstimator):
         all; naming it here beats the later "no complete frame" (and the spurious warning
         about the body axis that the missing centroid would cause first).
         """
-        seen = np.zeros(sessions[0].n_keypoints, dtype=bool)
-        for s in sessions:
-            # (F, A, K, D) -> per keypoint: any finite position of any animal in any frame
-            seen |= np.isfinite(s.coords).all(axis=-1).any(axis=(0, 1))
-            if seen.all():
-                return
+        seen = keypoints_seen(sessions)
+        if seen.all():
+            return
         names = [k for k, ok in zip(sessions[0].keypoints, seen, strict=True) if not ok]
         shown = listed(repr(s.session) for s in sessions)
         quoted = ", ".join(f"'{n}'" for n in names)
