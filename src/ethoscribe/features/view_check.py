@@ -141,12 +141,11 @@ def resolve_view(sessions: Sequence[PoseTracks], view: str) -> tuple[str, str | 
     return "above", None, f"from above (read from the tracks: {why})"
 
 
-def image_rows_down(sessions: Sequence[PoseTracks]) -> bool:
-    """Whether 2-D tracks are image coordinates, whose y grows downwards: in pixels, or
-    calibrated from pixels (``meta["calibration"]``). A side view with y vertical then has
-    -y pointing up (an image's x has no such convention: a camera turned a quarter either
-    way gives x up or down)."""
-    return any(
+def image_rows_down(sessions: Sequence[PoseTracks], vertical: str | None) -> bool:
+    """Whether a side view's ``vertical`` grows downwards: y of image coordinates (in pixels,
+    or calibrated from pixels, ``meta["calibration"]``), whose -y then points up. An image's
+    x has no such convention (a camera turned a quarter either way gives x up or down)."""
+    return vertical == "y" and any(
         s.units == "px" or (s.meta.get("calibration") or {}).get("from") == "px" for s in sessions
     )
 

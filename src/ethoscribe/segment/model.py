@@ -602,9 +602,9 @@ class BehaviourModel(BaseEstimator):
             cleaned, "above" if self.causal else view
         )
         # image coordinates (y down) are turned so that z points up, as at labelling
-        self.view_flip_ = self.view_vertical_ == "y" and image_rows_down(cleaned)
+        self.view_flip_ = image_rows_down(cleaned, self.view_vertical_)
+        cleaned = self.as_featurised(cleaned)
         if self.view_ == "side":
-            cleaned = [lift_side_view(s, self.view_vertical_, self.view_flip_) for s in cleaned]
             options["up_axis"] = "z"
         up, self.up_axis_report_ = resolve_up_axis(cleaned, options.get("up_axis", "auto"))
         if self.view_ == "side":
@@ -878,11 +878,17 @@ class BehaviourModel(BaseEstimator):
             self._check_body_plan(s)
         if self.n_dims_ == 2:
             warn_other_view(cleaned, getattr(self, "view_", "above"))
-        if getattr(self, "view_", "above") == "side":
-            flip = self.view_flip_
-            cleaned = [lift_side_view(s, self.view_vertical_, flip) for s in cleaned]
+        cleaned = self.as_featurised(cleaned)
         filled = [fill_tracks(getattr(self, "filler_", None), s) for s in cleaned]
         return _with_seen([f for t, _ in filled for f in self.features_.transform(t)], filled)
+
+    def as_featurised(self, cleaned: Sequence[PoseTracks]) -> list[PoseTracks]:
+        """Cleaned tracks in the geometry the feature pipeline reads: 2-D side views
+        (:attr:`view_`) lifted to 3-D without depth, z up; any others as they are."""
+        if getattr(self, "view_", "above") != "side":
+            return list(cleaned)
+        flip = getattr(self, "view_flip_", False)
+        return [lift_side_view(s, self.view_vertical_, flip) for s in cleaned]
 
     def _check_body_plan(self, s: PoseTracks) -> None:
         if tuple(s.keypoints) != self.keypoints_ or s.n_dims != self.n_dims_:

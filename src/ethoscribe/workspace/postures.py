@@ -31,7 +31,6 @@ import pandas as pd
 from ethoscribe.body_plans import body_plan_for
 from ethoscribe.clean import calibrate, clean
 from ethoscribe.errors import EthoscribeError, InputError, WorkspaceError, listed
-from ethoscribe.features.view_check import lift_side_view
 from ethoscribe.io import atomic_write, loads_json, safe_child
 from ethoscribe.pose import PoseTracks, match_keypoint_order
 from ethoscribe.postures import (
@@ -211,10 +210,10 @@ def body_frame(cleaned: PoseTracks, model: BehaviourModel) -> np.ndarray:
     """Body-frame keypoints of cleaned tracks under ``model`` (frames, animals, keypoints,
     dims). 2-D tracks filmed from the side (``model.view_``): forward and height, the plane
     the camera saw, as the model featurises them (lifted to 3-D without depth)."""
-    if getattr(model, "view_", "above") != "side":
-        return egocentric_postures(cleaned, model.features_)
-    lifted = lift_side_view(cleaned, model.view_vertical_, getattr(model, "view_flip_", False))
-    return np.ascontiguousarray(egocentric_postures(lifted, model.features_)[..., [0, 2]])
+    (seen,) = model.as_featurised([cleaned])
+    ego = egocentric_postures(seen, model.features_)
+    # a side view is featurised in 3-D without depth: drawn in forward and height
+    return np.ascontiguousarray(ego[..., [0, 2]]) if seen.n_dims != cleaned.n_dims else ego
 
 
 def _number(value: Any) -> float | None:

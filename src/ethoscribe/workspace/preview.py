@@ -71,7 +71,7 @@ def preview_study(
         seen, vertical, view_text = resolve_view(cleaned, view)
         seen_auto = seen if view == "auto" else resolve_view(cleaned, "auto")[0]
         if seen == "side":  # as the model fits them: 3-D without depth, z up
-            flip = vertical == "y" and image_rows_down(cleaned)
+            flip = image_rows_down(cleaned, vertical)
             cleaned = [lift_side_view(t, vertical, flip) for t in cleaned]
         up, up_text = resolve_up_axis(cleaned, "z" if seen == "side" else up_axis)
         read = up if up_axis == "auto" else resolve_up_axis(cleaned, "auto")[0]
