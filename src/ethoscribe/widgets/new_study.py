@@ -162,15 +162,12 @@ class NewStudy(w.VBox):
         self.head.options = [(f"automatic ({head})", AUTOMATIC), *named]
         # 3-D tracks: which axis points up decides headings and heights (check again after a change)
         self.up.layout.display = "" if info.get("n_dims") == 3 else "none"
-        chosen = self.up.value
-        self.up.options = [(f"automatic ({info['up_axis_auto']})", "auto"), *self.up.options[1:]]
-        self.up.value = chosen
+        _say_automatic(self.up, info["up_axis_auto"])
         # 2-D tracks: filmed from above or from the side decides what the body frame keeps
         self.view.layout.display = "" if info.get("n_dims") == 2 else "none"
-        chosen = self.view.value
-        auto = "from the side" if info.get("view_auto") == "side" else "from above"
-        self.view.options = [(f"automatic ({auto})", "auto"), *self.view.options[1:]]
-        self.view.value = chosen
+        _say_automatic(
+            self.view, "from the side" if info.get("view_auto") == "side" else "from above"
+        )
         sessions = info["sessions"]
         shown = listed(sessions, 6)
         text = (
@@ -217,6 +214,13 @@ class NewStudy(w.VBox):
         self.workbench = Workbench(ws.path)
         self.result.children = [self.workbench]
         self.say("ok", f"Done: {ws.describe()}")
+
+
+def _say_automatic(menu: w.Dropdown, reads: str) -> None:
+    """Label the menu's first option, "auto", with what it reads now; keep the choice."""
+    chosen = menu.value
+    menu.options = [(f"automatic ({reads})", "auto"), *menu.options[1:]]
+    menu.value = chosen
 
 
 def _error(text: str) -> EthoscribeError:

@@ -146,16 +146,16 @@ def model_section(ws: Workspace) -> Section:
             "labelling, so states describe behaviour rather than individuals; the offsets "
             f"spread about {offsets['relative_spread']:.2g} of a state's own spread."
         )
-    left_out = (summary.get("features") or {}).get("keypoints_left_out")
+    features = summary.get("features") or {}
+    left_out = features.get("keypoints_left_out")
     if left_out:
         text += (
             f" Left out of the model, never tracked in its training sessions: "
             f"{', '.join(map(str, left_out))}."
         )
-    seen = (summary.get("features") or {}).get("view_report")
-    if seen:
-        text += f" Camera: {seen}."
-    vertical = (summary.get("features") or {}).get("up_axis_report")
+    if features.get("view_report"):
+        text += f" Camera: {features['view_report']}."
+    vertical = features.get("up_axis_report")
     if vertical:
         text += f" Vertical axis of the 3-D tracks: {vertical}."
     figures, tables = [], []
