@@ -50,6 +50,22 @@ def test_axial_concentration_by_hand():
     assert e["concentration"] == pytest.approx(1.0) and abs(e["angle"]) == pytest.approx(90.0)
 
 
+def test_axial_concentration_and_angle_equal_scipys_circular_statistics():
+    # Two keypoints per frame: every frame equally elongated (weight 1), so the statistic is
+    # the plain mean resultant length of the doubled angles: 1 - scipy.stats.circvar, and its
+    # direction scipy.stats.circmean halved (reference library: scipy, circular statistics)
+    from scipy.stats import circmean, circvar
+
+    rng = np.random.default_rng(5)  # seed 5
+    theta = rng.vonmises(np.radians(30.0), 1.5, size=500) / 2  # axial, about 15 degrees
+    c = np.zeros((500, 2, 2))
+    c[:, 1] = np.c_[np.cos(theta), np.sin(theta)] * rng.uniform(1, 3, size=(500, 1))
+    e = view_evidence([from_arrays(c, keypoints=["a", "b"], fps=30)])
+    assert e["concentration"] == pytest.approx(1 - circvar(2 * theta), abs=1e-12)
+    expected = np.degrees(circmean(2 * theta, high=np.pi, low=-np.pi) / 2)
+    assert e["angle"] == pytest.approx(expected, abs=1e-9)
+
+
 def test_side_and_top_views_are_read_from_the_tracks(fish):
     tracks, _ = fish
     assert choose_view(_seen(tracks, (0, 1)))[0] == "above"
