@@ -74,6 +74,8 @@ def test_side_and_top_views_are_read_from_the_tracks(fish):
     assert view_evidence(_seen(tracks, (0, 2)))["concentration"] > SIDE_CONCENTRATION
     assert choose_view(_seen(tracks, (2, 0)))[:2] == ("side", "x")  # camera turned a quarter
     assert resolve_view(_seen(tracks, (0, 1)), "side")[:2] == ("side", "y")  # given: kept
+    # given "side" with the camera turned a quarter: the vertical still read from the ranges
+    assert resolve_view(_seen(tracks, (2, 0)), "side")[:2] == ("side", "x")
     assert resolve_view(tracks, "auto") == ("above", None, "")  # 3-D: not a camera's view
     with pytest.raises(InputError, match="view must be one of"):
         resolve_view(tracks, "front")

@@ -270,7 +270,8 @@ def build_parser() -> argparse.ArgumentParser:
         choices=("auto", "above", "side"),
         default="auto",
         help="2-D tracks: filmed from above (the body frame turns with the animal) or from the "
-        "side (y vertical: the body frame keeps height and pitch); default auto: read from "
+        "side (the body frame keeps height and pitch; the vertical image axis is read from "
+        "the tracks, y unless the animals range clearly less along x); default auto: read from "
         "the tracks",
     )
     d.add_argument(

@@ -104,7 +104,7 @@ def choose_view(sessions: Sequence[PoseTracks]) -> tuple[str, str | None, str]:
     ``LEVEL_DEGREES``), with the vertical the image axis along which the body centre ranges
     least (< ``RANGE_RATIO`` of the other); else ``("above", None, why)``, also when the
     animals do not travel their body's spread (tethered or head-fixed: a fixed body axis
-    gives the same body frame either way; ``view="side"`` keeps the image's y vertical)."""
+    gives the same body frame either way)."""
     e = view_evidence(sessions)
     r, angle, (rx, ry) = e["concentration"], float(np.round(e["angle"])) + 0.0, e["range"]
     off_axis = min(abs(angle), abs(abs(angle) - 90.0))
@@ -125,8 +125,9 @@ def choose_view(sessions: Sequence[PoseTracks]) -> tuple[str, str | None, str]:
 
 def resolve_view(sessions: Sequence[PoseTracks], view: str) -> tuple[str, str | None, str]:
     """The camera's view of 2-D tracks, its vertical image axis and how it was chosen:
-    ``view`` itself when given ("above"; "side" with y as the vertical, the image's rows),
-    else (``"auto"``) :func:`choose_view`'s. 3-D tracks: ``("above", None, "")``."""
+    ``view`` itself when given ("above"; "side" with y as the vertical, the image's rows,
+    unless the animals range less than ``RANGE_RATIO`` as far along x as along y), else
+    (``"auto"``) :func:`choose_view`'s. 3-D tracks: ``("above", None, "")``."""
     if view not in VIEWS:
         raise InputError(f"view must be one of {list(VIEWS)}; got {view!r}")
     if not sessions or sessions[0].n_dims != 2:
@@ -134,6 +135,13 @@ def resolve_view(sessions: Sequence[PoseTracks], view: str) -> tuple[str, str | 
     if view == "above":
         return "above", None, "from above (given)"
     if view == "side":
+        # Given side: the vertical is still read (a camera turned a quarter has x vertical),
+        # from the ranges alone; y, the image's rows, unless the animals clearly range less
+        # along x.
+        rx, ry = view_evidence(sessions)["range"]
+        if rx < RANGE_RATIO * ry:
+            why = f"the body centre ranges {rx:.3g} along x, {ry:.3g} along y"
+            return "side", "x", f"from the side (given), x vertical (read from the tracks: {why})"
         return "side", "y", "from the side, y vertical (given)"
     chosen, vertical, why = choose_view(sessions)
     if chosen == "side":

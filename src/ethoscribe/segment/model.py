@@ -179,7 +179,8 @@ class BehaviourModel(BaseEstimator):
         (3-D tracks) may also be "auto", the default here: the vertical axis is chosen from
         the training tracks (:func:`ethoscribe.features.vertical_check.resolve_up_axis`; z
         when they give no clear sign), and said in :attr:`up_axis_report_`. ``view`` (2-D
-        tracks): "above", "side" (the image's y vertical) or "auto" (the default: read from
+        tracks): "above", "side" (the image's y vertical unless the animals range clearly
+        less along x) or "auto" (the default: read from
         the tracks, :func:`ethoscribe.features.view_check.resolve_view`); side-view tracks
         are featurised as 3-D tracks without depth, so the body frame keeps height and pitch
         (:attr:`view_`, :attr:`view_vertical_`, :attr:`view_report_`). Causal models are
