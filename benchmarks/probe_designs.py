@@ -43,6 +43,33 @@ def _evenly(n: int) -> Callable[[PoseTracks], PoseTracks]:
     return keep
 
 
+def _jitter(fraction: float) -> Callable[[PoseTracks], PoseTracks]:
+    """Independent Gaussian noise on every coordinate, its SD ``fraction`` of the body's size
+    (median over frames of the keypoints' RMS distance from their centroid), seeded by the
+    session's length so a source gets the same noise every run."""
+
+    def shake(s: PoseTracks) -> PoseTracks:
+        c = s.coords
+        centred = c - np.nanmean(c, axis=2, keepdims=True)
+        size = float(np.nanmedian(np.sqrt(np.nanmean((centred**2).sum(-1), axis=2))))
+        rng = np.random.default_rng(len(c))
+        return s.replace(coords=c + rng.normal(0, fraction * size, c.shape))
+
+    return shake
+
+
+def _tripled(s: PoseTracks) -> PoseTracks:
+    """Frames at three times the rate, linearly between the recorded ones (confidence the
+    lower of the two neighbours)."""
+    n = len(s.coords)
+    t = np.arange(3 * n - 2) / 3
+    lo = np.minimum(t.astype(int), n - 2)
+    w = (t - lo)[:, None, None, None]
+    coords = (1 - w) * s.coords[lo] + w * s.coords[lo + 1]
+    confidence = np.minimum(s.confidence[lo], s.confidence[lo + 1])
+    return s.replace(coords=coords, confidence=confidence, fps=s.fps * 3)
+
+
 CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "as recorded": lambda s: s,
     "y up": _axes([0, 2, 1]),
@@ -56,8 +83,10 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "filmed from the side": _axes([0, 2]),
     "5 keypoints": _evenly(5),
     "3 keypoints": _evenly(3),
+    "jittery tracking": _jitter(0.1),
 }
 THINNED = "a third of the frame rate"
+TRIPLED = "three times the frame rate"
 _TWO_D = ["as recorded", "keypoints renamed", "pixels", THINNED, "5 keypoints", "3 keypoints"]
 RECORDED = {
     "own_fish": ["as recorded", "y up", "x up", "filmed from above", "filmed from the side"],
@@ -79,6 +108,9 @@ def changed(src: Source, change: str) -> Source:
             for s in src.sessions
         ]
         truth = {k: np.asarray(v)[::3] for k, v in src.truth.items()}
+    elif change == TRIPLED:
+        sessions = [_tripled(s) for s in src.sessions]
+        truth = {k: np.repeat(np.asarray(v), 3)[: 3 * len(v) - 2] for k, v in src.truth.items()}
     else:
         sessions, truth = [CHANGES[change](s) for s in src.sessions], src.truth
     details = {**src.details, "change": change}
@@ -88,7 +120,7 @@ def changed(src: Source, change: str) -> Source:
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--source", action="append", choices=sorted(LOADERS))
-    parser.add_argument("--change", action="append", choices=[*CHANGES, THINNED])
+    parser.add_argument("--change", action="append", choices=[*CHANGES, THINNED, TRIPLED])
     parser.add_argument("--seed", type=int, default=0)
     args = parser.parse_args(argv)
     _import_all()
