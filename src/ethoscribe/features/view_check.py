@@ -175,11 +175,16 @@ def lift_side_view(tracks: PoseTracks, vertical: str, flip: bool = False) -> Pos
     """
     if tracks.n_dims != 2:
         raise InputError(f"only 2-D tracks are lifted; '{tracks.session}' is {tracks.n_dims}-D")
+    return tracks.replace(coords=lift_side_coords(tracks.coords, vertical, flip))
+
+
+def lift_side_coords(coords: np.ndarray, vertical: str, flip: bool = False) -> np.ndarray:
+    """:func:`lift_side_view` of bare coordinates ``(..., 2)`` -> ``(..., 3)``: also one
+    streamed frame ``(animals, keypoints, 2)``, lifted as its session would be."""
     h, v = (0, 1) if vertical == "y" else (1, 0)
-    c = tracks.coords
+    c = np.asarray(coords, dtype=np.float64)
     up = -c[..., v] if flip else c[..., v]
-    lifted = np.stack([c[..., h], np.zeros_like(c[..., h]), up], axis=-1)
-    return tracks.replace(coords=lifted)
+    return np.stack([c[..., h], np.zeros_like(c[..., h]), up], axis=-1)
 
 
 def warn_other_view(sessions: Sequence[PoseTracks], fitted: str) -> list[str]:

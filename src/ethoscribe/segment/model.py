@@ -183,8 +183,8 @@ class BehaviourModel(BaseEstimator):
         less along x) or "auto" (the default: read from
         the tracks, :func:`ethoscribe.features.view_check.resolve_view`); side-view tracks
         are featurised as 3-D tracks without depth, so the body frame keeps height and pitch
-        (:attr:`view_`, :attr:`view_vertical_`, :attr:`view_report_`). Causal models are
-        always "above".
+        (:attr:`view_`, :attr:`view_vertical_`, :attr:`view_report_`), causal models
+        included (the streaming labeller lifts each frame alike).
     method : str
         A registered segmentation method (:mod:`ethoscribe.segment.registry`): "hmm" (Gaussian
         HMM over frames), "changepoint" or "prediction_error" (change points, by penalised
@@ -592,16 +592,10 @@ class BehaviourModel(BaseEstimator):
         sessions = cleaned
         options = {**(self.features or {}), **({"causal": True} if self.causal else {})}
         view = options.pop("view", "auto")
-        if self.causal and view == "side":
-            raise InputError(
-                "view='side' is not available for causal (streaming) models; fit them on "
-                "tracks filmed from above, or fit without causal=True"
-            )
         # 2-D tracks filmed from the side keep their vertical: labelled as 3-D tracks with no
-        # depth, whose body frame turns about the vertical only (features.view_check)
-        self.view_, self.view_vertical_, self.view_report_ = resolve_view(
-            cleaned, "above" if self.causal else view
-        )
+        # depth, whose body frame turns about the vertical only (features.view_check); the
+        # lift is per frame, so the causal path (and the streaming labeller) takes it too
+        self.view_, self.view_vertical_, self.view_report_ = resolve_view(cleaned, view)
         # image coordinates (y down) are turned so that z points up, as at labelling
         self.view_flip_ = image_rows_down(cleaned, self.view_vertical_)
         cleaned = self.as_featurised(cleaned)

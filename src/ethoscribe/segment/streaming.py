@@ -18,6 +18,7 @@ import numpy as np
 
 from ethoscribe.clean import StreamingCleaner
 from ethoscribe.errors import InputError, InputWarning
+from ethoscribe.features.view_check import lift_side_coords
 from ethoscribe.pose import PAD_SHARE, enough_keypoints
 from ethoscribe.segment.inputs import check_fitted
 from ethoscribe.segment.registry import get_segmenter, segmenter_names
@@ -155,6 +156,8 @@ class StreamingLabeller:
         if self._order is not None:
             coords, confidence = self._reordered(coords, confidence)
         cleaned = self.cleaner.push(coords, confidence)
+        if getattr(self.model, "view_", "above") == "side":  # as its sessions were lifted
+            cleaned = lift_side_coords(cleaned, self.model.view_vertical_, self.model.view_flip_)
         filler = getattr(self.model, "filler_", None)
         if filler is not None and not np.isfinite(cleaned).all():
             cleaned = np.stack([filler.transform(c[None])[0][0] for c in cleaned])
