@@ -70,6 +70,22 @@ def _tripled(s: PoseTracks) -> PoseTracks:
     return s.replace(coords=coords, confidence=confidence, fps=s.fps * 3)
 
 
+def _runway(s: PoseTracks) -> PoseTracks:
+    """Each frame turned about the body's centre to face along x, one way or the other (its
+    first keypoint ahead of its last), and the path squeezed to a tenth across: an animal that
+    cannot turn round in a narrow runway filmed from above (2-D only)."""
+    c = s.coords
+    centre = np.nanmean(c, axis=2, keepdims=True)
+    d = c - centre
+    head = d[:, :, 0] - d[:, :, -1]
+    angle = np.arctan2(head[..., 1], head[..., 0])
+    turn = (np.where(np.cos(angle) >= 0, 0.0, np.pi) - angle)[..., None]
+    cos, sin = np.cos(turn), np.sin(turn)
+    x = d[..., 0] * cos - d[..., 1] * sin + centre[..., 0]
+    y = d[..., 0] * sin + d[..., 1] * cos + 0.1 * centre[..., 1]
+    return s.replace(coords=np.stack([x, y], axis=-1))
+
+
 CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "as recorded": lambda s: s,
     "y up": _axes([0, 2, 1]),
@@ -84,6 +100,7 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "5 keypoints": _evenly(5),
     "3 keypoints": _evenly(3),
     "jittery tracking": _jitter(0.1),
+    "in a runway, from above": _runway,
 }
 THINNED = "a third of the frame rate"
 TRIPLED = "three times the frame rate"
