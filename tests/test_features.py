@@ -14,7 +14,7 @@ import pytest
 from sklearn.base import clone
 from sklearn.decomposition import PCA
 
-from ethoscribe.errors import InputError, NotFittedError
+from ethoscribe.errors import InputError, InputWarning, NotFittedError
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.geometry import rotate_to_axis
 from ethoscribe.pose import PoseTracks
@@ -372,8 +372,13 @@ def test_bad_input_is_named():
         FeaturePipeline(n_components=0).fit([tracks])
     with pytest.raises(InputError, match=r"session 'slow'.*Nyquist"):  # a given list is strict
         FeaturePipeline(frequencies=(1, 4)).fit([tracks.replace(fps=10.0, session="slow")])
-    with pytest.raises(InputError, match="social features need at least 2"):
-        FeaturePipeline().fit([tracks, walking(n=100, animals=2, seed=17, session="pair")])
+    # solo and pair sessions in one study: social features left out, said, not refused
+    pair = walking(n=100, animals=2, seed=17, session="pair")
+    with pytest.warns(InputWarning, match=r"left out: sessions have 1 or 2 animals.*'walk'"):
+        mixed = FeaturePipeline().fit([tracks, pair])
+    assert not mixed.social_ and "1 or 2 animals" in mixed.social_report_
+    assert mixed.transform(pair)[0].values.shape[1] == len(mixed.columns_)
+    assert FeaturePipeline().fit([pair]).social_  # all pairs: kept
     with pytest.warns(UserWarning, match="points against the direction of travel"):
         FeaturePipeline(axis=("nose", "tail_base")).fit([walking(n=600, seed=20)])
     with pytest.raises(InputError, match="units"):

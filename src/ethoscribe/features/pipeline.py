@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 from sklearn.base import BaseEstimator
 
-from ethoscribe.errors import InputError, NotFittedError, listed
+from ethoscribe.errors import InputError, InputWarning, NotFittedError, listed
 from ethoscribe.features.motion import (
     MOVING_AVERAGE_CUTOFF,
     BodyScale,
@@ -184,7 +184,9 @@ class FeaturePipeline(BaseEstimator):
         (the median over fitted animals), so animals of different sizes share one posture
         space; posture speed and band amplitudes follow, the centroid speed stays absolute.
     social : bool
-        Add features of the nearest other animal when the fitted sessions have several animals.
+        Add features of the nearest other animal when the fitted sessions have several animals
+        (left out, with a warning, when some sessions have one animal and others several:
+        :attr:`social_report_` says so).
     causal : bool
         Compute every feature from past frames only (online use; ``stream``).
     standardise : bool
@@ -536,12 +538,25 @@ class FeaturePipeline(BaseEstimator):
         self.origin_ = self.origin
         counts = sorted({s.n_animals for s in sessions})
         self.social_ = bool(self.social) and counts[-1] > 1
+        self.social_report_ = ""
         if self.social_ and counts[0] == 1:
-            msg = (
-                f"sessions have {counts} animals: social features need at least 2 in every "
-                "session; pass social=False or fit single- and multi-animal sessions apart"
+            # Solo and group sessions in one study (a social and an isolation condition):
+            # every session is described alike, so their motifs can be compared.
+            alone = [s.session for s in sessions if s.n_animals == 1]
+            self.social_, self.social_report_ = (
+                False,
+                (
+                    f"left out: sessions have {' or '.join(map(str, counts))} animals, so every "
+                    "session is described by each animal's own movement alone"
+                ),
             )
-            raise InputError(msg)
+            warnings.warn(
+                f"social features (the nearest other animal) {self.social_report_}; fit the "
+                "multi-animal sessions apart to use them (social=False silences this). "
+                f"Sessions with one animal: {listed(repr(n) for n in alone)}",
+                InputWarning,
+                stacklevel=3,
+            )
         self._choose_frequencies(sessions)
         for s in sessions:
             self._check_rate(s.fps, f"session '{s.session}'")

@@ -155,6 +155,8 @@ def model_section(ws: Workspace) -> Section:
         )
     if features.get("view_report"):
         text += f" Camera: {features['view_report']}."
+    if features.get("social_report"):
+        text += f" Features of the nearest other animal: {features['social_report']}."
     vertical = features.get("up_axis_report")
     if vertical:
         text += f" Vertical axis of the 3-D tracks: {vertical}."

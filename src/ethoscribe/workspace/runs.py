@@ -736,6 +736,8 @@ def _summary(model: BehaviourModel, table: pd.DataFrame, seed: int, report: Any)
             "keypoints": list(model.keypoints_),  # those the model reads
             "view": getattr(model, "view_", "above") if model.n_dims_ == 2 else None,
             "view_report": getattr(model, "view_report_", ""),
+            "social": bool(model.features_.social_),
+            "social_report": getattr(model.features_, "social_report_", ""),
         },
         "n_sessions": len(table),
         "n_frames": int(table["n_frames"].sum()),  # as read from the files
