@@ -378,7 +378,10 @@ def test_bad_input_is_named():
         mixed = FeaturePipeline().fit([tracks, pair])
     assert not mixed.social_ and "1 or 2 animals" in mixed.social_report_
     assert mixed.transform(pair)[0].values.shape[1] == len(mixed.columns_)
-    assert FeaturePipeline().fit([pair]).social_  # all pairs: kept
+    pairs_only = FeaturePipeline().fit([pair])
+    assert pairs_only.social_  # all pairs: kept
+    with pytest.raises(InputError, match="has 1 animal but the model was fitted on groups"):
+        pairs_only.transform(tracks)
     with pytest.warns(UserWarning, match="points against the direction of travel"):
         FeaturePipeline(axis=("nose", "tail_base")).fit([walking(n=600, seed=20)])
     with pytest.raises(InputError, match="units"):

@@ -453,8 +453,9 @@ class FeaturePipeline(BaseEstimator):
             raise InputError(msg)
         if self.social_ and tracks.n_animals < 2:
             msg = (
-                f"{where} has 1 animal but the pipeline was fitted with social features; fit a "
-                "pipeline with social=False for single-animal sessions"
+                f"{where} has 1 animal but the model was fitted on groups, with features of "
+                "the nearest other animal; to label single-animal sessions, fit with "
+                "social=False (or on solo and group sessions together)"
             )
             raise InputError(msg)
 
