@@ -89,6 +89,24 @@ def _runway(s: PoseTracks) -> PoseTracks:
     return s.replace(coords=np.stack([x, y], axis=-1))
 
 
+def _repeated_index(n_frames: int, n: int) -> np.ndarray:
+    return np.repeat(np.arange(n_frames), np.where(np.arange(n_frames) % n == n - 1, 2, 1))
+
+
+def _repeat_every(n: int) -> Callable[[PoseTracks], PoseTracks]:
+    """Every ``n``-th frame shown twice, the rate raised to match (a 25-fps camera written to
+    a 30-fps file with ``n`` = 5: the tracker sees the same image twice, so it reports the
+    same pose twice)."""
+
+    def repeat(s: PoseTracks) -> PoseTracks:
+        idx = _repeated_index(s.n_frames, n)
+        return s.replace(
+            coords=s.coords[idx], confidence=s.confidence[idx], fps=s.fps * (n + 1) / n
+        )
+
+    return repeat
+
+
 CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "as recorded": lambda s: s,
     "y up": _axes([0, 2, 1]),
@@ -104,7 +122,10 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "3 keypoints": _evenly(3),
     "jittery tracking": _jitter(0.1),
     "in a runway, from above": _runway,
+    # a tracker whose confidences run lower for the same positions
+    "confidence halved": lambda s: s.replace(confidence=s.confidence * 0.5),
 }
+REPEATED = "every fifth frame repeated"
 THINNED = "a third of the frame rate"
 TRIPLED = "three times the frame rate"
 _TWO_D = ["as recorded", "keypoints renamed", "pixels", THINNED, "5 keypoints", "3 keypoints"]
@@ -128,6 +149,9 @@ def changed(src: Source, change: str) -> Source:
             for s in src.sessions
         ]
         truth = {k: np.asarray(v)[::3] for k, v in src.truth.items()}
+    elif change == REPEATED:
+        sessions = [_repeat_every(5)(s) for s in src.sessions]
+        truth = {k: np.asarray(v)[_repeated_index(len(v), 5)] for k, v in src.truth.items()}
     elif change == TRIPLED:
         sessions = [_tripled(s) for s in src.sessions]
         truth = {k: np.repeat(np.asarray(v), 3)[: 3 * len(v) - 2] for k, v in src.truth.items()}
@@ -140,7 +164,7 @@ def changed(src: Source, change: str) -> Source:
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--source", action="append", choices=sorted(LOADERS))
-    parser.add_argument("--change", action="append", choices=[*CHANGES, THINNED, TRIPLED])
+    parser.add_argument("--change", action="append", choices=[*CHANGES, THINNED, TRIPLED, REPEATED])
     parser.add_argument("--seed", type=int, default=0)
     args = parser.parse_args(argv)
     _import_all()

@@ -391,6 +391,26 @@ def test_a_keypoint_missing_on_most_frames_is_said():
         _warn_unseen_keypoints(pairs)
 
 
+def test_a_confidence_threshold_that_removes_much_of_the_tracking_is_said():
+    # A tracker whose confidences run lower: with the example sessions' confidences halved,
+    # 81 % of the points fell below 0.5 and the run said nothing (filled, not seen).
+    import warnings
+
+    from ethoscribe.errors import InputWarning
+    from ethoscribe.workspace.runs import _warn_low_confidence
+
+    def quality(low):
+        return pd.DataFrame({"session": "a", "animal": "m1", "keypoint": ["nose", "tail"],
+                             "frac_low_confidence": low})  # fmt: skip
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        _warn_low_confidence([quality([0.02, 0.4])], 0.5)  # 21 %: nothing said
+        _warn_low_confidence([quality([0.9, 0.9])], None)  # no threshold: nothing masked
+    with pytest.warns(InputWarning, match=r"81% of the tracked points .* below min_confidence=0.5"):
+        _warn_low_confidence([quality([0.8, 0.82])], 0.5)
+
+
 def test_a_study_of_two_seconds_is_refused_or_labelled_without_its_refits(tmp_path):
     # 60 frames: the automatic count cannot hold out two blocks (said, with the fix); with the
     # count given the run completes, and the stability check that a half of the frames cannot

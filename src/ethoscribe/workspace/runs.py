@@ -305,6 +305,8 @@ def _prepare(
     used = [r.pop(CLEANING_USED, None) for r in rows]
     _warn_short_sessions(rows)
     _warn_unseen_keypoints(quality)
+    first = cleaning if isinstance(cleaning, dict) else (cleaning[0] if cleaning else {})
+    _warn_low_confidence(quality, first.get("min_confidence"))
     quality = _with_absent_keypoints(quality, keypoints)
     return infos, quality, sessions_table(rows), used
 
@@ -469,6 +471,29 @@ def _warn_unseen_keypoints(quality: Sequence[pd.DataFrame]) -> None:
             InputWarning,
             stacklevel=3,
         )
+
+
+LOW_CONFIDENCE_SHARE = 0.25  # more tracked points than this below the threshold: say so
+
+
+def _warn_low_confidence(quality: Sequence[pd.DataFrame], threshold: float | None) -> None:
+    """Say when the confidence threshold removes much of what the tracker reported (another
+    tracker's confidences may run lower): those points are then filled, not seen."""
+    table = pd.concat(quality, ignore_index=True) if quality else pd.DataFrame()
+    if threshold is None or table.empty or "frac_low_confidence" not in table:
+        return
+    share = float(table["frac_low_confidence"].mean())
+    if share <= LOW_CONFIDENCE_SHARE:
+        return
+    warnings.warn(
+        f"{share:.0%} of the tracked points (mean over sessions and keypoints) have a "
+        f"confidence below min_confidence={threshold:g} and were treated as lost (filled from "
+        "their neighbours in time or from the posture model, quality.csv). If this tracker's "
+        "confidences run low for good positions, give a lower threshold; else check the "
+        "tracking",
+        InputWarning,
+        stacklevel=3,
+    )
 
 
 def _cleaned_loaders(
