@@ -362,6 +362,30 @@ def test_an_animal_still_on_almost_every_frame_keeps_its_one_movement():
     assert np.isfinite(cleaned.coords).all()
 
 
+def test_repeated_images_are_filled_from_their_neighbours():
+    # Invented scenario: a 25-fps walk written at 30 fps by showing every fifth image twice
+    # (the tracker reports the same pose twice). Reference: numpy.interp between the frames
+    # either side of each repeat (the gap filler's linear interpolation).
+    walk = walking_track(300)
+    idx = np.repeat(np.arange(300), np.where(np.arange(300) % 5 == 4, 2, 1))
+    tracks = PoseTracks(walk[idx], keypoints=KEYPOINTS, fps=30.0, units="mm")
+    repeats = np.flatnonzero(np.r_[False, idx[1:] == idx[:-1]])[:-1]  # the last ends it: kept
+    cleaned, report = clean(tracks, CleanParams(smooth=None, max_speed=None))
+    assert report.params["repeated_frames"] == len(repeats) == 59
+    t = np.arange(len(idx))
+    keep = np.setdiff1d(t, repeats)
+    expected = np.interp(t[repeats], keep, tracks.coords[keep, 0, 0, 0])
+    np.testing.assert_allclose(cleaned.coords[repeats, 0, 0, 0], expected)
+    assert np.isnan(cleaned.confidence[repeats]).all()  # filled, not measured
+    kept, report = clean(tracks, CleanParams(smooth=None, max_speed=None, fill_repeated=False))
+    np.testing.assert_array_equal(kept.coords, tracks.coords)
+    assert report.params["repeated_frames"] == 0
+    # causal cleaning cannot know a repeat ends (the next frame): it keeps them
+    assert clean(tracks, CleanParams(max_speed=None), causal=True)[1].params["repeated_frames"] == 0
+    with pytest.raises(InputError, match="fill_repeated must be True or False"):
+        CleanParams(fill_repeated="yes")
+
+
 def test_calibration_converts_and_records_units():
     t = PoseTracks(np.full((3, 1, 1, 2), 40.0), keypoints=["nose"], fps=30)
     mm = calibrate(t, px_per_unit=4.0, unit="mm")

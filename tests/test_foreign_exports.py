@@ -411,6 +411,20 @@ def test_a_confidence_threshold_that_removes_much_of_the_tracking_is_said():
         _warn_low_confidence([quality([0.8, 0.82])], 0.5)
 
 
+def test_sessions_with_many_repeated_frames_are_named():
+    import warnings
+
+    from ethoscribe.errors import InputWarning
+    from ethoscribe.workspace.runs import _warn_repeated_frames
+
+    rows = [{"session": "a", "n_frames": 1000}, {"session": "b", "n_frames": 1000}]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        _warn_repeated_frames(rows, [{"repeated_frames": 10}, None])  # 1 %: nothing said
+    with pytest.warns(InputWarning, match=r"session\(s\) 'b' \(17%\) were filled"):
+        _warn_repeated_frames(rows, [{"repeated_frames": 3}, {"repeated_frames": 167}])
+
+
 def test_a_study_of_two_seconds_is_refused_or_labelled_without_its_refits(tmp_path):
     # 60 frames: the automatic count cannot hold out two blocks (said, with the fix); with the
     # count given the run completes, and the stability check that a half of the frames cannot

@@ -450,6 +450,13 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
     c.add_argument(
         "--target-fps", type=_fps, help="resample every session to this frame rate at the end"
     )
+    c.add_argument(
+        "--keep-repeated-frames",
+        action="store_true",
+        help="keep frames that repeat the frame before exactly (default: short runs of them, "
+        "repeated images of a video whose frame rate was raised, are filled from their "
+        "neighbours)",
+    )
 
 
 def _cleaning(args: argparse.Namespace) -> dict[str, Any]:
@@ -472,6 +479,8 @@ def _cleaning(args: argparse.Namespace) -> dict[str, Any]:
         out["swap_pairs"] = args.swap_pairs
     elif args.no_auto_swap:
         out["swap_pairs"] = ()
+    if args.keep_repeated_frames:
+        out["fill_repeated"] = False
     return out
 
 

@@ -76,6 +76,11 @@ class CleanParams:
         converted to ``unit``.
     target_fps : float or None
         Resample to this frame rate at the end.
+    fill_repeated : bool
+        Treat frames that repeat the frame before exactly, in short runs, as lost and fill
+        them from their neighbours (a video whose frame rate was raised by repeating images;
+        :func:`~ethoscribe.clean.steps.repeated_frames`). Not in causal cleaning (it needs
+        the next frame).
 
     Examples
     --------
@@ -94,6 +99,7 @@ class CleanParams:
     px_per_unit: float | None = None
     unit: str = "mm"
     target_fps: float | None = None
+    fill_repeated: bool = True
 
     def __post_init__(self) -> None:
         conf = self.min_confidence
@@ -120,6 +126,9 @@ class CleanParams:
         for name in ("px_per_unit", "target_fps"):  # plain floats keep to_dict() JSON-able
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, _positive(name, getattr(self, name)))
+        if not isinstance(self.fill_repeated, bool | np.bool_):
+            raise InputError(f"fill_repeated must be True or False; got {self.fill_repeated!r}")
+        object.__setattr__(self, "fill_repeated", bool(self.fill_repeated))
         if self.unit not in MM_PER_UNIT:
             raise InputError(f"unit must be one of {list(MM_PER_UNIT)}; got {self.unit!r}")
 

@@ -33,6 +33,7 @@ from ethoscribe.clean.steps import (
     _settings,
     _smooth_inplace,
     calibrate,
+    repeated_frames,
     resample,
 )
 from ethoscribe.errors import InputError
@@ -101,6 +102,9 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     max_gap = _gap_frames(p.max_gap_s, fps)
     x, conf = _coords(cal.coords), np.array(cal.confidence)
     raw_missing = np.isnan(x[..., 0])
+    # repeated images (offline only: a repeat is known once the next frame differs)
+    repeated = repeated_frames(x) if p.fill_repeated and not causal else np.zeros(len(x), bool)
+    x[repeated] = np.nan
     if causal:
         probe = x.copy()  # the check of confidence, and what "auto" speed sees
         _mask_confidence_inplace(probe, conf, p.min_confidence)
@@ -144,6 +148,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "units": cal.units,
         "fps_in": fps,
         "fps_out": fps_out,
+        "repeated_frames": int(repeated.sum()),
     }
     out = cal.replace(coords=x, confidence=conf, fps=fps_out, meta={"cleaning": resolved})
     masks = {

