@@ -372,6 +372,11 @@ def test_bad_input_is_named():
         FeaturePipeline(n_components=0).fit([tracks])
     with pytest.raises(InputError, match=r"session 'slow'.*Nyquist"):  # a given list is strict
         FeaturePipeline(frequencies=(1, 4)).fit([tracks.replace(fps=10.0, session="slow")])
+    # no frame with every keypoint tracked: the message names how often each is missing
+    gappy = tracks.coords.copy()
+    gappy[0::2, :, 4], gappy[1::2, :, 5] = np.nan, np.nan
+    with pytest.raises(InputError, match=r"missing on .*'ear_left' 50%.*confidence threshold"):
+        FeaturePipeline(axis=("tail_base", "nose")).fit([tracks.replace(coords=gappy)])
     # solo and pair sessions in one study: social features left out, said, not refused
     pair = walking(n=100, animals=2, seed=17, session="pair")
     with pytest.warns(InputWarning, match=r"left out: sessions have 1 or 2 animals.*'walk'"):

@@ -3,6 +3,8 @@ wide tables given as tidy ones, misspelled keypoints, mixed single- and multi-an
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -140,15 +142,23 @@ def test_discover_without_social_features_fits_single_and_paired_sessions(tmp_pa
         coords = np.cumsum(rng.normal(size=(300, animals, 3, 2)), axis=0) + body
         write_tidy(PoseTracks(coords, keypoints=KEYPOINTS, fps=30), tmp_path / f"{name}.csv")
     files = [tmp_path / "single.csv", tmp_path / "pair.csv"]
-    with pytest.raises(InputError, match="social=False"):
+    # by default the social features are left out (said), as social=False leaves them out
+    with pytest.warns(InputWarning, match=r"left out: sessions have 1 or 2 animals.*'single'"):
         discover(files, tmp_path / "ws0", fps=30, states=2, progress=False, stability=False,
                  axis=("tail", "nose"))  # fmt: skip
     discover(files, tmp_path / "ws", fps=30, states=2, progress=False, stability=False,
               axis=("tail", "nose"), social=False)  # fmt: skip
-    labels = pd.read_parquet(tmp_path / "ws" / "labels.parquet")
-    assert sorted(labels.groupby("session")["animal"].nunique().items()) == [
-        ("pair", 2), ("single", 1)
-    ]  # fmt: skip
+    for ws in ("ws0", "ws"):
+        labels = pd.read_parquet(tmp_path / ws / "labels.parquet")
+        assert sorted(labels.groupby("session")["animal"].nunique().items()) == [
+            ("pair", 2), ("single", 1)
+        ]  # fmt: skip
+    said = json.loads((tmp_path / "ws0" / "summary.json").read_text())["features"]
+    assert not said["social"] and "1 or 2 animals" in said["social_report"]
+    assert (
+        json.loads((tmp_path / "ws" / "summary.json").read_text())["features"]["social_report"]
+        == ""
+    )
 
 
 def test_agreement_maps_the_coding_onto_resampled_labels(tmp_path):

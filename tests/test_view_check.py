@@ -83,25 +83,13 @@ def test_side_and_top_views_are_read_from_the_tracks(fish):
         resolve_view(tracks, "front")
 
 
-def _in_a_runway(t):
-    """Each frame turned about the body's centre to face along x one way or the other, the
-    path squeezed across: a fish that cannot turn round, filmed from above."""
-    c = t.coords
-    centre = np.nanmean(c, axis=2, keepdims=True)
-    d = c - centre
-    head = d[:, :, 0] - d[:, :, -1]
-    angle = np.arctan2(head[..., 1], head[..., 0])
-    turn = (np.where(np.cos(angle) >= 0, 0.0, np.pi) - angle)[..., None]
-    x = d[..., 0] * np.cos(turn) - d[..., 1] * np.sin(turn) + centre[..., 0]
-    y = d[..., 0] * np.sin(turn) + d[..., 1] * np.cos(turn) + 0.1 * centre[..., 1]
-    return t.replace(coords=np.stack([x, y], axis=-1))
-
-
 def test_a_runway_filmed_from_above_is_not_taken_for_a_side_view(fish):
     # Facing along one image axis only, a body filmed from above looks like one seen from the
     # side (concentration ~1, the path along x); turned half round, its lateral keypoints
     # cross the axis, where a mirrored side view keeps each keypoint's height.
-    runway = [_in_a_runway(t) for t in _seen(fish[0], (0, 1))]
+    from benchmarks.probe_designs import CHANGES  # the bench's probe of such a study
+
+    runway = [CHANGES["in a runway, from above"](t) for t in _seen(fish[0], (0, 1))]
     e = view_evidence(runway)
     assert e["concentration"] > 0.9 and e["range"][1] < 0.7 * e["range"][0]
     view, _, why = choose_view(runway)

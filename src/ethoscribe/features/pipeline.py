@@ -664,9 +664,15 @@ class FeaturePipeline(BaseEstimator):
             h = h[np.isfinite(h)]
             self.height_floor_ = float(np.quantile(h, HEIGHT_FLOOR_QUANTILE)) if h.size else 0.0
         if acc is None or acc[0] < 2:
+            missing = np.mean(
+                [np.isnan(s.coords[..., 0]).mean(axis=(0, 1)) for s in sessions], axis=0
+            )
+            worst = [f"'{self.keypoints_[k]}' {missing[k]:.0%}" for k in np.argsort(-missing)]
             msg = (
-                "fewer than 2 frames have all keypoints present; posture components need "
-                "complete frames (clean the tracks first)"
+                "fewer than 2 frames have every keypoint tracked, and posture components need "
+                f"such frames; missing on (mean over sessions): {listed(worst)}. If the "
+                "tracker's confidences run low for good positions, lower the confidence "
+                "threshold (min_confidence); leave out keypoints that are hardly ever tracked"
             )
             raise InputError(msg)
         n, mean, m2 = acc
