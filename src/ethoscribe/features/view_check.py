@@ -59,7 +59,7 @@ MIRROR_MIN = 0.05
 """The ``odd`` part (root mean square over keypoints, in units of the body's spread) from
 which it counts against a side view when it exceeds the ``even`` part. Measured at seed 0
 (even / odd): from the side the fish 0.175 / 0.008 and the figure 0.925 / 0.007; from above
-0.002-0.19 / 0.09-0.32 on the bench's 2-D sources and the fish and figure projected on their
+0.02-0.19 / 0.09-0.32 on the bench's 2-D sources and the fish and figure projected on their
 floor; the same turned to face along x only (a runway) 0.002-0.03 / 0.12-0.44."""
 
 MIN_FACING_SHARE = 0.05
