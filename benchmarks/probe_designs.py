@@ -8,8 +8,9 @@ keypoints are called, whether coordinates are in pixels, or (within reason) the 
 fewer keypoints lose information, and how much is worth knowing. Trackers and cameras differ
 too: jittery positions, confidences that run lower, a video's frame rate raised by repeating
 images, a narrow runway where the animal cannot turn round. Each change is applied to every
-session of a source (a change the engine refuses is reported as such), then ethoscribe's defaults and the plain reference pipeline run on it and
-are scored with the bench's own scoring (ARI, boundary F1 within 0.2 s, states found).
+session of a source (a change the engine refuses is reported as such), then ethoscribe's
+defaults and the plain reference pipeline run on it and are scored with the bench's own
+scoring (ARI, boundary F1 within 0.2 s, states found).
 
     python -m benchmarks.probe_designs                                # the recorded rows, seed 0
     python -m benchmarks.probe_designs --source own_fish --change "y up"

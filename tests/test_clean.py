@@ -23,6 +23,7 @@ from ethoscribe.clean import (
     resample,
     smooth,
 )
+from ethoscribe.clean.steps import repeated_frames
 from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.plots.quality import quality_figure
 from ethoscribe.pose import PoseTracks
@@ -382,6 +383,16 @@ def test_repeated_images_are_filled_from_their_neighbours():
     assert report.params["repeated_frames"] == 0
     # causal cleaning cannot know a repeat ends (the next frame): it keeps them
     assert clean(tracks, CleanParams(max_speed=None), causal=True)[1].params["repeated_frames"] == 0
+    # one channel written with few digits repeats by chance: a ramp of half a unit per frame
+    # repeats every other value, as frames shown twice would; too few moving values: kept
+    ramp = np.round(np.arange(600) / 2.0 + 0.25)
+    series = np.stack([ramp, np.zeros(600)], -1)[:, None, None]
+    assert np.mean(series[1:, 0, 0, 0] == series[:-1, 0, 0, 0]) == pytest.approx(0.5, abs=0.01)
+    assert not repeated_frames(series).any()
+    # the same values as two keypoints moving apart: all of them repeating is no chance
+    both = np.repeat(ramp[:, None], 2, axis=1)[:, None, None]  # (600, 1, 1, 2): x = y
+    two = np.concatenate([both, both + 10.0], axis=2)
+    assert repeated_frames(two).sum() == 299
     with pytest.raises(InputError, match="fill_repeated must be True or False"):
         CleanParams(fill_repeated="yes")
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from typing import Any
 
@@ -72,10 +73,21 @@ in five, 30 -> 60 every frame, 10 -> 30 each frame twice more); longer runs are 
 frozen, or an animal still with rounded coordinates)."""
 
 
+REPEAT_MIN_MOVING = 4
+"""Repeats are looked for only where at least this many coordinates move (two keypoints in
+2-D): that all of them repeat to the last digit is then no chance."""
+
+REPEAT_STEP_RATIO = 0.5
+"""Repeats count as repeated images when the median step from a repeat to the next frame is at
+least this fraction of the median frame-to-frame step: measured 1.1 on sessions with every
+fifth image repeated, 0.2 on a slow one-channel series written with few digits (GunPoint)."""
+
+
 def repeated_frames(coords: np.ndarray) -> np.ndarray:
     """Frames ``(frames,)`` that repeat the frame before in every coordinate of every animal
     (missing where it was missing, at least one point tracked), in runs of at most
-    ``REPEAT_RUN_MAX`` frames with a frame after them.
+    ``REPEAT_RUN_MAX`` frames with a frame after them, when the frames after the repeats move
+    as much as frames do in general (``REPEAT_STEP_RATIO``; else none: nothing moved).
 
     A tracker shown the same image twice reports the same pose twice, to the last digit; a
     living animal tracked on two images never does. Such frames make the animal stop for one
@@ -85,11 +97,12 @@ def repeated_frames(coords: np.ndarray) -> np.ndarray:
 
     Examples
     --------
-    >>> x = np.arange(6.0)[[0, 1, 1, 2, 3, 3, 4, 4]].reshape(-1, 1, 1, 1) * np.ones((1, 1, 1, 2))
+    >>> body = np.array([[0.0, 0.0], [5.0, 1.0]])  # two keypoints, (x, y)
+    >>> x = np.arange(5.0)[[0, 1, 1, 2, 3, 3, 4, 4], None, None, None] + body[None, None]
     >>> repeated_frames(x).tolist()  # the last repeat ends the recording: kept
     [False, False, True, False, False, True, False, False]
-    >>> repeated_frames(np.zeros((6, 1, 1, 2))).tolist()  # frozen: a run of five is kept
-    [False, False, False, False, False, False]
+    >>> repeated_frames(x[[0, 1, 1, 1, 1, 1, 2]]).tolist()  # frozen: a run of four is kept
+    [False, False, False, False, False, False, False]
     """
     x = np.asarray(coords)
     n = len(x)
@@ -97,6 +110,13 @@ def repeated_frames(coords: np.ndarray) -> np.ndarray:
     if n < 2:
         return same
     now, before = x[1:].reshape(n - 1, -1), x[:-1].reshape(n - 1, -1)
+    # A few values can repeat by chance (a one-channel signal written with few digits); all of
+    # several moving coordinates at once cannot.
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # a coordinate never tracked
+        moving = int((np.nanmax(now, axis=0) > np.nanmin(now, axis=0)).sum())
+    if moving < REPEAT_MIN_MOVING:
+        return same
     both_missing = np.isnan(now) & np.isnan(before)
     same[1:] = ((now == before) | both_missing).all(axis=1) & ~np.isnan(now).all(axis=1)
     # run lengths of consecutive repeats; keep short runs only
@@ -106,6 +126,17 @@ def repeated_frames(coords: np.ndarray) -> np.ndarray:
     # short runs only, and not one that ends the recording (nothing after it to fill from)
     short = (lengths <= REPEAT_RUN_MAX) & (stops < n)
     same[same] = np.repeat(short, lengths)  # the True frames, in run order
+    if not same.any():
+        return same
+    # Images shown twice repeat whatever the animal does: the step out of a repeat is as large
+    # as steps are in general. Values that repeat because nothing moves (a still body with
+    # rounded coordinates, a slow signal written with few digits) step out by little: kept.
+    with np.errstate(invalid="ignore"):
+        step = np.sqrt(np.nanmean((now - before) ** 2, axis=1))  # into frames 1 .. n-1
+    out_of = step[np.flatnonzero(same)]  # from each repeat to the frame after it
+    typical = np.nanmedian(step) if np.isfinite(step).any() else np.nan
+    if not np.nanmedian(out_of) >= REPEAT_STEP_RATIO * typical:
+        same[:] = False
     return same
 
 
