@@ -417,7 +417,9 @@ def test_a_confidence_threshold_that_removes_much_of_the_tracking_is_said():
         warnings.simplefilter("error")
         _warn_low_confidence([quality([0.02, 0.4])], 0.5)  # 21 %: nothing said
         _warn_low_confidence([quality([0.9, 0.9])], None)  # no threshold: nothing masked
-    with pytest.warns(InputWarning, match=r"81% of the tracked points .* below min_confidence=0.5"):
+    with pytest.warns(
+        InputWarning, match=r"81% of the keypoint positions .* below min_confidence=0.5"
+    ):
         _warn_low_confidence([quality([0.8, 0.82])], 0.5)
 
 

@@ -512,7 +512,7 @@ def _warn_low_confidence(quality: Sequence[pd.DataFrame], threshold: float | Non
     if share <= LOW_CONFIDENCE_SHARE:
         return
     warnings.warn(
-        f"{share:.0%} of the tracked points (mean over sessions and keypoints) have a "
+        f"{share:.0%} of the keypoint positions (mean over sessions and keypoints) have a "
         f"confidence below min_confidence={threshold:g} and were treated as lost (filled from "
         "their neighbours in time or from the posture model, quality.csv). If this tracker's "
         "confidences run low for good positions, give a lower threshold; else check the "
