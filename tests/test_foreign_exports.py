@@ -423,6 +423,29 @@ def test_a_confidence_threshold_that_removes_much_of_the_tracking_is_said():
         _warn_low_confidence([quality([0.8, 0.82])], 0.5)
 
 
+def test_a_study_filmed_at_a_raised_frame_rate_is_cleaned_and_said(tmp_path):
+    # Invented animals (the package's simulator) written as a 25-fps camera would be into
+    # 30-fps files: every fifth image shown twice. The run fills the repeats, says so, and
+    # the summary and the report's data quality say how many.
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.workspace import Workspace, discover
+    from ethoscribe.workspace.report_sections import quality_section
+
+    files = []
+    for seed in (1, 2):
+        tracks, _ = simulate_session(duration_s=20, fps=25, seed=seed, session=f"s{seed}")
+        idx = np.repeat(np.arange(tracks.n_frames), np.where(np.arange(500) % 5 == 4, 2, 1))
+        raised = tracks.replace(coords=tracks.coords[idx], confidence=tracks.confidence[idx])
+        write_tidy(raised.replace(fps=30.0), tmp_path / f"s{seed}.csv")
+        files.append(tmp_path / f"s{seed}.csv")
+    with pytest.warns(InputWarning, match=r"'s1' \(16%\), 's2' \(16%\) were filled"):
+        discover(files, tmp_path / "ws", fps=30, states=2, progress=False, stability=False)
+    used = json.loads((tmp_path / "ws" / "summary.json").read_text())["cleaning"]["used"]
+    assert used["repeated_frames"] == 99  # 100 repeats; the last ends the file: kept
+    text = quality_section(Workspace(tmp_path / "ws")).text
+    assert "repeated the frame before exactly" in text and "'s1' (99)" in text
+
+
 def test_sessions_with_many_repeated_frames_are_named():
     import warnings
 

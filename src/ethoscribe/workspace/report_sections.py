@@ -80,6 +80,18 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
             f"tracked): {listed(said, sep='; ')}. Their positions there are the posture "
             "model's guesses, so motifs say nothing about them in those sessions."
         )
+    repeated = ((ws.summary.get("cleaning") or {}).get("used") or {}).get("repeated_frames")
+    if isinstance(repeated, dict):  # one count per session where they differ
+        counts = {str(k): int(v) for k, v in repeated.items() if v}
+    else:  # one count every session had
+        counts = {str(s): int(repeated) for s in table["session"].unique()} if repeated else {}
+    if counts:
+        said = [f"'{k}' ({v:,})" for k, v in counts.items()]
+        text += (
+            f" Frames that repeated the frame before exactly, filled from their neighbours "
+            f"(a video whose frame rate was raised by repeating images; counted in 'filled'): "
+            f"{listed(said)}."
+        )
     features = ws.summary.get("features") or {}
     left_out = [str(k) for k in features.get("keypoints_left_out") or []]
     read = features.get("keypoints")  # those the model reads (runs since 2026-12-05)
