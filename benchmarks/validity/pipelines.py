@@ -72,7 +72,8 @@ def run_ethoscribe(
     regimes = getattr(model, "regimes_", None)
     if regimes is not None:  # the slow-regime rule's measurements (NaN written as null)
         numbers = {"persistence": regimes.persistence_, "p_value": regimes.p_value_,
-                   "residual_persistence": regimes.residual_persistence_}  # fmt: skip
+                   "residual_persistence": regimes.residual_persistence_,
+                   "changes_per_recording": regimes.changes_per_recording_}  # fmt: skip
         info["regimes"] = {
             **{k: (float(v) if np.isfinite(v) else None) for k, v in numbers.items()},
             "used": bool(regimes.used_),

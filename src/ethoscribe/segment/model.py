@@ -681,11 +681,13 @@ class BehaviourModel(BaseEstimator):
                 )
                 if regimes.one_change_:
                     once = (
-                        "the mix changes about once in each recording (residual persistence "
-                        f"{regimes.residual_persistence_:.2f} after one change per recording): "
+                        "the mix changes about once in each recording (the regimes change "
+                        f"{regimes.changes_per_recording_:.1f} times per recording; residual "
+                        f"persistence {regimes.residual_persistence_:.2f} after one change): "
                         "if that is a change of condition (a treatment given during the "
-                        "session, an animal settling), the regimes mark before and after it, not "
-                        "behaviours; slow_regimes='off' keeps the behaviours as the motifs"
+                        "session, an animal settling, recordings joined in one file), the "
+                        "regimes mark before and after it, not behaviours; slow_regimes='off' "
+                        "keeps the behaviours as the motifs"
                     )
                     said = f"{said}; {once}"
                     warnings.warn(

@@ -38,7 +38,9 @@ Measured on the validation bench (benchmarks/README.md, "Slow regimes"): persist
   grooming halfway (4-20 min): persistence 0.40-0.50 (regimes labelled, ARI with the
   behaviours 0.72-0.85 -> 0.22-0.26) and residual -0.04 to 0.02; GunPoint (one change) -0.02
   to 0.01; HAPT 0.09-0.43 and ElectricDevices 0.35-0.48 (regimes that come and go); below
-  ``ONE_CHANGE`` (0.05) the model says so.
+  ``ONE_CHANGE`` (0.05) the model says so. It also says so when the labelled regimes change at
+  most once per recording on average (HAPT 5-6.5 times, ElectricDevices 13-14, GunPoint 1-2;
+  two simulated fish sessions joined in one file: once, with a residual of 0.13).
 """
 
 from __future__ import annotations
@@ -284,6 +286,7 @@ class SlowRegimes:
         self.variance_ = float("nan")
         self.silhouettes_: dict[int, float] = {}
         self.residual_persistence_ = float("nan")
+        self.changes_per_recording_ = float("nan")
         if not self.used_:
             return self
         self.residual_persistence_ = residual_persistence(states, lengths, n_states, window)
@@ -305,14 +308,22 @@ class SlowRegimes:
         km = best[1]
         self.centres_ = np.asarray(km.cluster_centers_, dtype=np.float64)
         self.variance_ = max(float(km.inertia_) / (len(sample) * n_states), 1e-6)
+        # How often the labelled regimes change in a recording: at most once on average is
+        # one change of condition as much as regimes that come and go (``one_change_``).
+        regime = self.label_bouts(states, lengths, fps)[0]
+        units = split_by_lengths(regime, lengths)
+        self.changes_per_recording_ = float(np.mean([np.count_nonzero(np.diff(u)) for u in units]))
         return self
 
     @property
     def one_change_(self) -> bool:
-        """Whether one change per recording explains the slow structure (module doc): then
-        the regimes may be a change of condition (a treatment, settling) rather than
-        activities that come and go."""
-        return bool(self.used_ and self.residual_persistence_ < ONE_CHANGE)
+        """Whether one change per recording explains the slow structure (module doc): the
+        residual persistence after one change is below ``ONE_CHANGE``, or the labelled regimes
+        change at most once per recording on average. Then the regimes may be a change of
+        condition (a treatment, settling, recordings of different days written as one file)
+        rather than activities that come and go."""
+        changes = getattr(self, "changes_per_recording_", float("nan"))
+        return bool(self.used_ and (self.residual_persistence_ < ONE_CHANGE or changes <= 1.0))
 
     @property
     def n_regimes_(self) -> int:
@@ -400,6 +411,9 @@ class SlowRegimes:
             "residual_persistence": None
             if not np.isfinite(self.residual_persistence_)
             else self.residual_persistence_,
+            "changes_per_recording": None
+            if not np.isfinite(self.changes_per_recording_)
+            else self.changes_per_recording_,
         }
         return meta, {"centres": self.centres_}
 
@@ -433,4 +447,6 @@ class SlowRegimes:
         out.silhouettes_ = {int(k): float(v) for k, v in dict(meta["silhouettes"]).items()}
         r = meta.get("residual_persistence")  # absent from models saved before it
         out.residual_persistence_ = float("nan") if r is None else float(r)
+        c = meta.get("changes_per_recording")  # likewise
+        out.changes_per_recording_ = float("nan") if c is None else float(c)
         return out
