@@ -88,8 +88,8 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     if counts:
         said = [f"'{k}' ({v:,})" for k, v in counts.items()]
         text += (
-            f" Frames that repeated the frame before exactly, filled from their neighbours "
-            f"(a video whose frame rate was raised by repeating images; counted in 'filled'): "
+            " Frames that repeated the frame before exactly, filled from their neighbours "
+            "(a video whose frame rate was raised by repeating images; counted in 'filled'): "
             f"{listed(said)}."
         )
     features = ws.summary.get("features") or {}
