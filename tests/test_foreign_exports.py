@@ -434,7 +434,8 @@ def test_a_study_filmed_at_a_raised_frame_rate_is_cleaned_and_said(tmp_path):
     files = []
     for seed in (1, 2):
         tracks, _ = simulate_session(duration_s=20, fps=25, seed=seed, session=f"s{seed}")
-        idx = np.repeat(np.arange(tracks.n_frames), np.where(np.arange(500) % 5 == 4, 2, 1))
+        frames = np.arange(tracks.n_frames)
+        idx = np.repeat(frames, np.where(frames % 5 == 4, 2, 1))
         raised = tracks.replace(coords=tracks.coords[idx], confidence=tracks.confidence[idx])
         write_tidy(raised.replace(fps=30.0), tmp_path / f"s{seed}.csv")
         files.append(tmp_path / f"s{seed}.csv")
