@@ -544,12 +544,10 @@ class FeaturePipeline(BaseEstimator):
             # Solo and group sessions in one study (a social and an isolation condition):
             # every session is described alike, so their motifs can be compared.
             alone = [s.session for s in sessions if s.n_animals == 1]
-            self.social_, self.social_report_ = (
-                False,
-                (
-                    f"left out: sessions have {' or '.join(map(str, counts))} animals, so every "
-                    "session is described by each animal's own movement alone"
-                ),
+            self.social_ = False
+            self.social_report_ = (
+                f"left out: sessions have {' or '.join(map(str, counts))} animals, so every "
+                "session is described by each animal's own movement alone"
             )
             warnings.warn(
                 f"social features (the nearest other animal) {self.social_report_}; fit the "

@@ -322,8 +322,8 @@ class SlowRegimes:
         change at most once per recording on average. Then the regimes may be a change of
         condition (a treatment, settling, recordings of different days written as one file)
         rather than activities that come and go."""
-        changes = getattr(self, "changes_per_recording_", float("nan"))
-        return bool(self.used_ and (self.residual_persistence_ < ONE_CHANGE or changes <= 1.0))
+        few = self.changes_per_recording_ <= 1.0
+        return bool(self.used_ and (self.residual_persistence_ < ONE_CHANGE or few))
 
     @property
     def n_regimes_(self) -> int:

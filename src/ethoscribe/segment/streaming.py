@@ -147,6 +147,9 @@ class StreamingLabeller:
         self._threshold = None if offsets else getattr(model, "poor_fit_threshold_", None)
         self.poorly_explained = (0, 0)
         self._checked = self._threshold is None
+        # a side-view model's frames are lifted as its sessions were (vertical, flip)
+        side = getattr(model, "view_", "above") == "side"
+        self._lift = (model.view_vertical_, model.view_flip_) if side else None
 
     def push(self, coords: np.ndarray, confidence: np.ndarray | None = None) -> list[LiveLabel]:
         """Add one frame ``coords (animals, keypoints, dims)``; return one label per animal.
@@ -156,8 +159,8 @@ class StreamingLabeller:
         if self._order is not None:
             coords, confidence = self._reordered(coords, confidence)
         cleaned = self.cleaner.push(coords, confidence)
-        if getattr(self.model, "view_", "above") == "side":  # as its sessions were lifted
-            cleaned = lift_side_coords(cleaned, self.model.view_vertical_, self.model.view_flip_)
+        if self._lift is not None:
+            cleaned = lift_side_coords(cleaned, *self._lift)
         filler = getattr(self.model, "filler_", None)
         if filler is not None and not np.isfinite(cleaned).all():
             cleaned = np.stack([filler.transform(c[None])[0][0] for c in cleaned])

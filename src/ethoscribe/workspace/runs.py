@@ -483,7 +483,7 @@ def _warn_repeated_frames(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -
     images, so the file's rate overstates the camera's."""
     named = []
     for row, params in zip(rows, used, strict=True):
-        n = (params or {}).get("repeated_frames", 0) if isinstance(params, dict) else 0
+        n = params.get("repeated_frames", 0) if isinstance(params, dict) else 0
         share = n / max(int(row.get("n_frames", 0) or 0), 1)
         if share > REPEATED_SHARE:
             named.append(f"'{row.get('session')}' ({share:.0%})")
