@@ -620,6 +620,20 @@ def test_unreadable_model_is_named_once(folder):
         bench.close()
 
 
+def test_a_3d_posture_shows_its_side_view_under_the_top_view():
+    # The side view was drawn beside the top view in a figure twice the panel's width, and
+    # the panel (360 px) cut it off: 3-D postures showed only their top view.
+    from ethoscribe.plots.motifs import posture_figure
+
+    p = np.array([[1.0, 0.0, 1.0], [0.0, 0.0, 1.5], [0.5, 0.4, 0.0]])
+    fig = posture_figure(p, ["n", "m", "foot"], [("n", "m")], width=360, height=360)
+    assert fig.layout.width == 360 and fig.layout.height == 720
+    top, side = fig.layout.yaxis, fig.layout.yaxis2
+    assert (top.title.text, side.title.text) == ("sideways", "height")
+    assert side.domain[1] < top.domain[0]  # stacked, not overlapping
+    assert list(fig.data[3].y) == [1.0, 1.5, 0.0]  # the side view's keypoints: their heights
+
+
 def test_long_motif_names_stay_readable():
     """Curated names longer than the figures were laid out for: every tree leaf keeps a label
     (upright, the figure taller), the neighbour bars' names are cut to the gap between the

@@ -3,7 +3,7 @@ comes before and after, bout durations and the share of time per session.
 
 Builders take arrays and small tables (postures from :mod:`ethoscribe.postures`) and hold no
 science. Postures are body-frame keypoints ``(K, D)``: forward along x, sideways along y; in
-3-D a side view (forward, height) is drawn beside the top view.
+3-D a side view (forward, height) is drawn below the top view.
 
 These figures are redrawn on every click of the workbench, so they set their few style
 properties directly (no named template, no ``make_subplots``): building one takes about a
@@ -112,7 +112,7 @@ def posture_figure(
     span: float | None = None,
     second_axis: str = "sideways",
 ) -> go.Figure:
-    """A posture drawn as bones between keypoints (top view; 3-D adds a side view).
+    """A posture drawn as bones between keypoints (top view; 3-D adds a side view below it).
     ``second_axis``: what the second body-frame axis of 2-D postures is ("height" for tracks
     filmed from the side).
 
@@ -169,11 +169,11 @@ def posture_figure(
                 **axes,
             )
         )
-        domain = [0.0, 1.0] if len(views) == 1 else [[0.0, 0.45], [0.55, 1.0]][n]
+        # 3-D: the side view under the top view, so both fit the panel's column
+        rows = [0.0, 1.0] if len(views) == 1 else [[0.56, 1.0], [0.0, 0.44]][n]
         layout[f"xaxis{suffix}"] = {
             "range": [-half, half],
             "title": f"forward{unit}",
-            "domain": domain,
             "anchor": f"y{suffix}",
             **GRID,
         }
@@ -182,9 +182,10 @@ def posture_figure(
             "title": f"{vertical}{unit}",
             "scaleanchor": f"x{suffix}",
             "anchor": f"x{suffix}",
+            "domain": rows,
             **GRID,
         }
-    return _figure(data, title, width * len(views), height, **layout)
+    return _figure(data, title, width, height * len(views), **layout)
 
 
 def bout_strip_figure(
