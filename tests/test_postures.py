@@ -3,6 +3,8 @@
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -53,6 +55,60 @@ def test_egocentric_postures_put_the_axis_along_x():
     np.testing.assert_allclose(ego[:, 0], 0.0, atol=1e-12)
     np.testing.assert_allclose(ego[:, 2], np.tile([2.0, 0.0], (len(ego), 1)), atol=1e-12)
     np.testing.assert_allclose(ego[:, 1], np.tile([1.0, 0.3], (len(ego), 1)), atol=1e-12)
+
+
+def _walker_3d(seed: int = 0) -> tuple[PoseTracks, np.ndarray]:
+    """Invented 3-D tracks, z up: a foot on the floor, a tail, a nose whose height rises and
+    falls; the body walks and turns. Also the body-frame posture of every frame, by hand."""
+    rng = np.random.default_rng(seed)
+    n = 300
+    heading = np.cumsum(rng.normal(0, 0.1, n))
+    nose_up = rng.uniform(1.0, 3.0, n)
+    body = np.zeros((n, 4, 3))  # tail, foot, mid, nose in the body frame: forward, aside, up
+    body[:, 1] = [0.5, 0.4, 0.0]
+    body[:, 2] = [1.0, 0.0, 1.0]
+    body[:, 3, 0], body[:, 3, 2] = 2.0, nose_up
+    body[:, 0, 2] = 1.0
+    c, s = np.cos(heading), np.sin(heading)
+    rot = np.zeros((n, 3, 3))
+    rot[:, 0, 0], rot[:, 0, 1], rot[:, 1, 0], rot[:, 1, 1], rot[:, 2, 2] = c, -s, s, c, 1.0
+    centre = np.cumsum(np.stack([c, s, 0 * c], -1) * 0.3, axis=0)
+    coords = np.einsum("fij,fkj->fki", rot, body) + centre[:, None]
+    tracks = PoseTracks(coords[:, None], keypoints=["tail", "foot", "mid", "nose"], fps=30)
+    return tracks, body - body[:, :1] * [1.0, 1.0, 0.0]  # tail at the origin, heights kept
+
+
+# Each a proper rotation of z-up tracks (determinant +1: no mirror image): the vertical along
+# y or x, and camera coordinates (y and z growing downwards).
+_TURNS = {
+    "z up": ("z", [[1, 0, 0], [0, 1, 0], [0, 0, 1]]),
+    "y up": ("y", [[0, 1, 0], [0, 0, 1], [1, 0, 0]]),
+    "x up": ("x", [[0, 0, 1], [1, 0, 0], [0, 1, 0]]),
+    "z down": ("z", [[1, 0, 0], [0, -1, 0], [0, 0, -1]]),
+    "y down": ("y", [[1, 0, 0], [0, 0, -1], [0, 1, 0]]),
+}
+
+
+@pytest.mark.parametrize("turn", list(_TURNS))
+def test_3d_postures_are_forward_sideways_up_whichever_axis_is_vertical(turn):
+    # 3-D postures used to come out in the tracks' axis order (y up: sideways, height,
+    # forward), so the drawings showed a body seen from behind; tracks whose vertical points
+    # down were drawn upside down. Worked by hand (_walker_3d): tail at the origin, the foot
+    # 0.5 ahead, 0.4 to the left and on the floor, the nose 2 ahead at its own height.
+    tracks, expected = _walker_3d()
+    up, matrix = _TURNS[turn]
+    assert np.linalg.det(matrix) == pytest.approx(1.0)
+    turned = tracks.replace(coords=tracks.coords @ np.asarray(matrix, dtype=float).T)
+    pipe = FeaturePipeline(up_axis=up, origin="tail", axis=("tail", "nose")).fit([turned])
+    assert pipe.up_sign_ == (-1 if "down" in turn else 1)
+    assert ("points down" in pipe.up_report_) == ("down" in turn)
+    ego = egocentric_postures(turned, pipe)[:, 0]
+    np.testing.assert_allclose(ego, expected, atol=1e-9)
+    meta, arrays = pipe.to_state()
+    loaded = FeaturePipeline.from_state(json.loads(json.dumps(meta)), arrays)
+    assert (loaded.up_sign_, loaded.up_report_) == (pipe.up_sign_, pipe.up_report_)
+    del meta["fitted"]["up_sign_"], meta["fitted"]["up_report_"]  # saved before they were read
+    assert FeaturePipeline.from_state(meta, arrays).up_sign_ == 1
 
 
 @pytest.mark.filterwarnings("ignore:the keypoints .* never move:UserWarning")  # a rigid body

@@ -16,6 +16,7 @@ from ethoscribe.features import FeaturePipeline
 from ethoscribe.features.vertical_check import (
     choose_vertical_axis,
     resolve_up_axis,
+    vertical_direction,
     vertical_evidence,
     warn_vertical_axis,
 )
@@ -100,6 +101,15 @@ def test_fish_with_y_up_are_named_and_the_option_silences_it(fish):
         assert warn_vertical_axis([turned], "y") is None
     with pytest.warns(InputWarning, match="up_axis='y'"):
         FeaturePipeline().fit([turned])
+
+
+def test_a_fish_gives_no_sign_of_which_way_is_up(fish):
+    # No floor under a swimming fish: its lowest and highest keypoints rise and fall together,
+    # so the direction is not read (kept as given), upside down or not.
+    assert vertical_direction([fish], "z") == (1, "")
+    down = fish.replace(coords=fish.coords * [1.0, -1.0, -1.0])
+    assert vertical_direction([down], "z") == (1, "")
+    assert vertical_direction([fish.replace(coords=fish.coords[..., :2])], "z") == (1, "")
 
 
 def test_2d_tracks_are_not_checked(fish):

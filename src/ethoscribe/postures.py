@@ -21,7 +21,7 @@ from scipy.sparse.csgraph import minimum_spanning_tree
 
 from ethoscribe.errors import InputError
 from ethoscribe.features import FeaturePipeline
-from ethoscribe.geometry import rotate_to_axis
+from ethoscribe.geometry import horizontal_axes, rotate_to_axis
 from ethoscribe.pose import PoseTracks
 
 __all__ = [
@@ -47,8 +47,10 @@ def egocentric_postures(tracks: PoseTracks, pipeline: FeaturePipeline) -> np.nda
     Returns
     -------
     array, shape (frames, animals, keypoints, dims)
-        Forward along +x, sideways along the second horizontal axis; in 3-D the vertical stays
-        the height. NaN where a keypoint, the origin or an axis point is missing.
+        Forward, sideways and (3-D) height, in that order whichever axis of the tracks is
+        vertical; where the tracks' vertical points down (the pipeline's ``up_sign_`` -1) the
+        body is turned half round about its forward axis, so it is drawn upright and seen from
+        above. NaN where a keypoint, the origin or an axis point is missing.
 
     Examples
     --------
@@ -76,6 +78,12 @@ def egocentric_postures(tracks: PoseTracks, pipeline: FeaturePipeline) -> np.nda
     else:
         origin = X[:, :, fitted.index(pipeline.origin_)]
     ego, _ = rotate_to_axis(X, origin, X[:, :, j] - X[:, :, i], pipeline.up_axis)
+    if X.shape[-1] != 3:
+        return ego
+    h = horizontal_axes(3, pipeline.up_axis)
+    ego = ego[..., [*h, "xyz".index(pipeline.up_axis)]]  # forward, sideways, up
+    if pipeline.up_sign_ < 0:
+        ego[..., 1:] *= -1.0
     return ego
 
 

@@ -29,7 +29,7 @@ from ethoscribe.features.saved import (
 )
 from ethoscribe.features.scale_check import warn_scale_outliers
 from ethoscribe.features.sets import FeatureSet
-from ethoscribe.features.vertical_check import warn_vertical_axis
+from ethoscribe.features.vertical_check import vertical_direction, warn_vertical_axis
 from ethoscribe.filters import BAND_SMOOTHERS, derivative
 from ethoscribe.geometry import (
     heading_angle,
@@ -202,6 +202,8 @@ class FeaturePipeline(BaseEstimator):
     scaler_mean_, scaler_scale_ : (n_features,) standardisation (constant features: scale 1)
     frequencies_ : tuple of float, band centres used (given, or chosen for the frame rate)
     height_floor_ : float or None, 3-D floor of the centroid's height (vertical="separate")
+    up_sign_, up_report_ : 3-D: +1 when ``up_axis`` points up, -1 when the tracks show it
+        pointing down, and why (``vertical_check.vertical_direction``); postures are drawn with it
     body_size_ : float or None, typical body size (scale_by_size=True)
     columns_, keypoints_, n_dims_, units_, fps_, social_, n_components_
 
@@ -532,6 +534,8 @@ class FeaturePipeline(BaseEstimator):
         if not self.scale_by_size:
             warn_scale_outliers(sessions)
         warn_vertical_axis(sessions, self.up_axis)
+        # which way the vertical points: drawings only (heights enter features linearly)
+        self.up_sign_, self.up_report_ = vertical_direction(sessions, self.up_axis)
         self.keypoints_ = tuple(first.keypoints)
         self.n_dims_, self.units_ = first.n_dims, first.units
         rates = {s.fps for s in sessions}

@@ -39,6 +39,8 @@ _FITTED_META = (
     "frequencies_",
     "height_floor_",
     "body_size_",
+    "up_sign_",
+    "up_report_",
 )
 # Parameters added after the first saved states, with the value that reproduces those states
 # (a later change of the default must not change what an old saved pipeline computes).
@@ -86,6 +88,8 @@ def pipeline_from_state(
             fitted["frequencies_"] = list(params.get("frequencies", []))
         fitted.setdefault("height_floor_", None)
         fitted.setdefault("body_size_", None)
+        fitted.setdefault("up_sign_", 1)  # saved before the vertical's direction was read
+        fitted.setdefault("up_report_", "")
         missing = [k for k in (*_FITTED_META,) if k not in fitted]
         missing += [k for k in _FITTED_ARRAYS if k not in arrays]
     except (KeyError, TypeError) as exc:
@@ -174,6 +178,8 @@ def _check_fitted_meta(fitted: Mapping[str, Any]) -> None:
             and not isinstance(fitted["body_size_"], bool)
             and 0 < fitted["body_size_"] < np.inf
         ),
+        "up_sign_": fitted["up_sign_"] in (1, -1) and not isinstance(fitted["up_sign_"], bool),
+        "up_report_": isinstance(fitted["up_report_"], str),
         "height_floor_": fitted["height_floor_"] is None
         or (
             isinstance(fitted["height_floor_"], int | float)

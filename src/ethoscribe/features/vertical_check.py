@@ -33,6 +33,11 @@ RANGE_RATIO = 0.7
 """The body centre's range (5-95 % of its positions) along the vertical is below this fraction
 of its range along each horizontal axis (bench, seed 0: fish 0.35, upright figure 0.06)."""
 
+FLOOR_RATIO = 0.5
+"""Which way the vertical points: the lowest keypoint's height ranges (5-95 % over frames) at
+most this fraction of the highest keypoint's, or the other way round (bench, seeds 0-2: the
+upright figure standing on its floor 0.08-0.12; the swimming fish 1.00, no floor: no call)."""
+
 _AXES = "xyz"
 _MAX_FRAMES = 20_000
 
@@ -118,6 +123,55 @@ def choose_vertical_axis(sessions: Sequence[PoseTracks]) -> tuple[str | None, st
         f"the body's spread along {axis} stands apart from two alike horizontal ones and the "
         f"animals range least along it ({shown})"
     )
+
+
+def vertical_direction(sessions: Sequence[PoseTracks], up_axis: str) -> tuple[int, str]:
+    """Which way ``up_axis`` points in 3-D tracks: +1 up, -1 down (camera coordinates often
+    grow downwards), with a sentence saying why ("" when there is no sign of it: +1 kept).
+
+    Gravity again: animals stand on a floor, so their lowest keypoint (a paw, a foot) keeps one
+    height while the highest (a head, a back) rises and falls; upside down, the highest keeps
+    it. Read from each animal's whole-body frames (at most 20,000 per session): the 5-95 %
+    range over frames of the lowest and of the highest keypoint's coordinate, the median over
+    animals of each; one must be at most ``FLOOR_RATIO`` of the other. Only drawings depend on
+    it (features do not: heights enter them through a linear map).
+
+    Examples
+    --------
+    >>> from ethoscribe.io import from_arrays
+    >>> rng = np.random.default_rng(0)
+    >>> c = np.zeros((300, 1, 3, 3)); c[:, 0, 1, 2] = 1.0  # a foot on the floor, a hip above
+    >>> c[:, 0, 2, 2] = rng.uniform(1.5, 2.5, 300)  # a head that rises and falls
+    >>> kp = ["foot", "hip", "head"]
+    >>> vertical_direction([from_arrays(c, keypoints=kp, fps=30)], "z")[0]
+    1
+    >>> down = c * [1.0, -1.0, -1.0]  # the same animal in camera coordinates: y and z turned over
+    >>> vertical_direction([from_arrays(down, keypoints=kp, fps=30)], "z")[0]
+    -1
+    """
+    if not sessions or sessions[0].n_dims != 3:
+        return 1, ""
+    up = _AXES.index(up_axis)
+    low, high = [], []
+    for s in sessions:
+        X = s.coords[:: max(1, s.n_frames // _MAX_FRAMES), ..., up]  # (F, A, K)
+        for a in range(X.shape[1]):
+            h = X[:, a][np.isfinite(X[:, a]).all(axis=1)]
+            if len(h) >= 2:
+                low.append(np.subtract(*np.quantile(h.min(axis=1), [0.95, 0.05])))
+                high.append(np.subtract(*np.quantile(h.max(axis=1), [0.95, 0.05])))
+    if not low:
+        return 1, ""
+    lo, hi = float(np.median(low)), float(np.median(high))
+    shown = f"lowest keypoint's range {lo:.3g}, highest's {hi:.3g} {sessions[0].units}"
+    if lo <= FLOOR_RATIO * hi:
+        return 1, f"{up_axis} points up (the lowest keypoints keep one height: a floor; {shown})"
+    if hi <= FLOOR_RATIO * lo:
+        return -1, (
+            f"{up_axis} points down (the highest keypoints along {up_axis} keep one height: "
+            f"a floor seen upside down; {shown}); postures are drawn turned upright"
+        )
+    return 1, ""
 
 
 def _three(v: np.ndarray) -> str:

@@ -610,6 +610,8 @@ class BehaviourModel(BaseEstimator):
             self.filler_ = fit_filler(cleaned, float(self.min_body_seen), up)
         filled = [fill_tracks(self.filler_, s) for s in cleaned]
         feats = _with_seen(pipeline.fit_transform([t for t, _ in filled]), filled)
+        if self.up_axis_report_ and pipeline.up_report_:
+            self.up_axis_report_ += f"; {pipeline.up_report_}"
         X, lengths = stack_valid(feats)
         fps_value = cleaned[0].fps
         seed = seed_from(self.random_state)

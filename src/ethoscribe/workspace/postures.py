@@ -44,7 +44,7 @@ from ethoscribe.workspace.folder import Workspace
 from ethoscribe.workspace.reading import LABELLED_FPS, LABELLED_FRAMES, read_sessions
 
 POSTURE_FOLDER = "postures"
-CACHE_FORMAT = 1
+CACHE_FORMAT = 2  # 2: 3-D postures as forward, sideways, up, drawn upright
 
 
 @dataclass(frozen=True)
