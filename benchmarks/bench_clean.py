@@ -1,9 +1,12 @@
 """Speed and memory of ``ethoscribe.clean.clean`` on a long invented recording.
 
-Usage: ``python benchmarks/bench_clean.py [n_frames] [--causal]`` (default 200000 frames).
-One animal, 12 keypoints in 2-D, one left/right pair; the track carries jitter, swaps, short
-and long gaps, low-confidence points and jumps. Prints wall and CPU seconds of the cleaning
-call and the peak resident memory of the process (``resource.getrusage``).
+Usage: ``python benchmarks/bench_clean.py [n_frames] [--causal] [--rounded] [--zeros]
+[--no-placeholders]`` (default 200000 frames). One animal, 12 keypoints in 2-D, one left/right
+pair; the track carries jitter, swaps, short and long gaps, low-confidence points and jumps.
+``--rounded``: coordinates in whole units (positions recur, the placeholder search's slow
+case); ``--zeros``: the gaps written as 0, 0; ``--no-placeholders``: no placeholder search.
+Prints wall and CPU seconds of the cleaning call and the peak resident memory of the process
+(``resource.getrusage``).
 """
 
 from __future__ import annotations
@@ -49,7 +52,12 @@ def main() -> None:
     n = int(args[0]) if args else 200_000
     causal = "--causal" in sys.argv
     tracks = invented_recording(n)
-    params = CleanParams(swap_pairs=[("kp1", "kp2")])
+    if "--rounded" in sys.argv:
+        tracks = tracks.replace(coords=np.round(tracks.coords))
+    if "--zeros" in sys.argv:
+        tracks = tracks.replace(coords=np.nan_to_num(tracks.coords, nan=0.0))
+    search = None if "--no-placeholders" in sys.argv else "auto"
+    params = CleanParams(swap_pairs=[("kp1", "kp2")], placeholders=search)
     clean(invented_recording(300), params, causal=causal)  # compile / load numba kernels
     rss_before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     wall, cpu = time.perf_counter(), time.process_time()
@@ -63,7 +71,8 @@ def main() -> None:
     print(f"peak RSS {peak:.0f} MB (before cleaning {rss_before:.0f} MB; input {size:.0f} MB)")
     print(
         f"max_speed {s['max_speed']:.1f} mm/s, swaps repaired {s['swaps_repaired']}, "
-        f"invalid frames {s['frac_invalid']:.3f}, filled {s['frac_filled']:.4f}"
+        f"invalid frames {s['frac_invalid']:.3f}, filled {s['frac_filled']:.4f}, "
+        f"placeholder points {report.params['placeholder_points']}"
     )
     assert cleaned.coords.shape == tracks.coords.shape
 

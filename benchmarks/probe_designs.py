@@ -111,6 +111,17 @@ def _repeat_every(n: int) -> Callable[[PoseTracks], PoseTracks]:
     return repeat
 
 
+def _placeholder(value: float) -> Callable[[PoseTracks], PoseTracks]:
+    """Lost points (missing, or confidence below 0.5) written as ``value`` in every coordinate
+    and no confidence column: an export that keeps a number in every cell."""
+
+    def write(s: PoseTracks) -> PoseTracks:
+        lost = ~np.isfinite(s.coords).all(-1) | (s.confidence < 0.5)
+        return s.replace(coords=np.where(lost[..., None], value, s.coords), confidence=None)
+
+    return write
+
+
 CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "as recorded": lambda s: s,
     "y up": _axes([0, 2, 1]),
@@ -128,6 +139,8 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "in a runway, from above": _runway,
     # a tracker whose confidences run lower for the same positions
     "confidence halved": lambda s: s.replace(confidence=s.confidence * 0.5),
+    "lost points written as 0, 0": _placeholder(0.0),
+    "lost points written as -1, -1": _placeholder(-1.0),
 }
 REPEATED = "every fifth frame repeated"
 THINNED = "a third of the frame rate"
@@ -144,6 +157,7 @@ _TWO_D = [
     REPEATED,
     "confidence halved",
     "in a runway, from above",
+    "lost points written as 0, 0",
 ]
 RECORDED = {
     "own_fish": ["as recorded", "y up", "x up", "filmed from above", "filmed from the side"],

@@ -23,7 +23,7 @@ from ethoscribe.clean import (
     resample,
     smooth,
 )
-from ethoscribe.clean.steps import repeated_frames
+from ethoscribe.clean.steps import placeholder_positions, repeated_frames
 from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.plots.quality import quality_figure
 from ethoscribe.pose import PoseTracks
@@ -395,6 +395,56 @@ def test_repeated_images_are_filled_from_their_neighbours():
     assert repeated_frames(two).sum() == 299
     with pytest.raises(InputError, match="fill_repeated must be True or False"):
         CleanParams(fill_repeated="yes")
+
+
+def test_lost_points_written_as_a_placeholder_are_missing():
+    # Invented scenario: a walk (500 mm from the image's corner) whose lost points an export
+    # wrote as 0, 0 with no confidence column. Reference: the points lost, by construction.
+    walk = walking_track(300) + 500.0
+    lost = np.zeros(walk.shape[:3], bool)
+    lost[40:70, 0, 0] = lost[100:130, 0, 2] = lost[200:205, 0, :] = True  # the last: all lost
+    written = np.where(lost[..., None], 0.0, walk)
+    tracks = PoseTracks(written, keypoints=KEYPOINTS, fps=30.0, units="px")
+    held, places = placeholder_positions(tracks.coords)
+    np.testing.assert_array_equal(held, lost)
+    assert places == [[0.0, 0.0]]
+    cleaned, report = clean(tracks, CleanParams(smooth=None, max_speed=None, max_gap_s=0))
+    np.testing.assert_array_equal(np.isnan(cleaned.coords[..., 0]), lost)
+    assert report.params["placeholder_points"] == lost.sum() == 80
+    assert report.params["placeholders"] == [[0.0, 0.0]]
+    assert report.per_keypoint.frac_missing_raw.tolist() == pytest.approx(
+        [35 / 300, 5 / 300, 35 / 300, 5 / 300]
+    )
+    # given positions: exactly those; None: none (the points stay where the file put them)
+    minus = PoseTracks(np.where(lost[..., None], -1.0, walk), keypoints=KEYPOINTS, fps=30.0)
+    given = clean(minus, CleanParams(smooth=None, max_speed=None, placeholders=[(-1, -1)]))[1]
+    assert given.params["placeholder_points"] == 80
+    kept, report = clean(tracks, CleanParams(smooth=None, max_speed=None, placeholders=None))
+    np.testing.assert_array_equal(kept.coords, tracks.coords)
+    assert report.params["placeholder_points"] == 0
+    # streaming masks given positions frame by frame, as causal cleaning of the recording does
+    p = CleanParams(max_speed=None, placeholders=[(0.0, 0.0)])
+    offline, _ = clean(tracks, p, causal=True)
+    stream = StreamingCleaner(p, KEYPOINTS, fps=30.0, units="px")
+    pushed = np.stack([stream.push(frame) for frame in tracks.coords])
+    np.testing.assert_allclose(pushed, offline.coords, equal_nan=True)
+    assert json.loads(json.dumps(p.to_dict()))["placeholders"] == [[0.0, 0.0]]
+    assert CleanParams.from_dict(json.loads(json.dumps(p.to_dict()))) == p
+    with pytest.raises(InputError, match="placeholders must be 'auto', None or positions"):
+        CleanParams(placeholders=[(0, 0, 0, 0)])
+
+
+def test_a_keypoint_at_rest_or_a_fixed_landmark_is_no_placeholder():
+    # Invented scenarios, integer coordinates. A body resting on one pixel for long, whose
+    # other keypoints pass that pixel as it walks off: no placeholder (they pass by its own
+    # body). Two landmarks written as keypoints at fixed places: one keypoint each, kept.
+    rest = np.zeros((400, 1, 3, 2))
+    rest[:, 0, :, 0] = [0.0, 3.0, 6.0]  # tail, mid, nose on a line
+    rest[300:, 0, :, 0] += np.arange(100)[:, None]  # walks off along x, one pixel a frame
+    assert placeholder_positions(rest)[1] == []
+    walk = np.round(walking_track(300) * 4)
+    marks = np.broadcast_to(np.array([[[5.0, 5.0], [900.0, 5.0]]]), (300, 1, 2, 2))
+    assert placeholder_positions(np.concatenate([walk, marks], axis=2))[1] == []
 
 
 def test_calibration_converts_and_records_units():

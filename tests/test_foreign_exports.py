@@ -447,6 +447,39 @@ def test_a_study_filmed_at_a_raised_frame_rate_is_cleaned_and_said(tmp_path):
     assert "repeated the frame before exactly" in text and "'s1' (99)" in text
 
 
+def test_a_study_whose_lost_points_were_written_as_zeros_is_cleaned_and_said(tmp_path):
+    # Invented animals (the package's simulator) exported with every lost point (missing, or
+    # confidence below 0.5) written as 0, 0 and no confidence column. The run sets them
+    # missing, says so, and the summary and the report's data quality count them; the labels
+    # equal those of the same files with the lost points left empty.
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.workspace import Workspace, discover
+    from ethoscribe.workspace.report_sections import quality_section
+
+    zeros, empty = [], []
+    for seed in (1, 2):
+        tracks, _ = simulate_session(duration_s=20, fps=25, seed=seed, session=f"s{seed}")
+        lost = ~np.isfinite(tracks.coords).all(-1) | (tracks.confidence < 0.5)
+        lost[100:160, 0, :3] = True  # and three keypoints lost together for a while
+        for value, files in ((0.0, zeros), (np.nan, empty)):
+            coords = np.where(lost[..., None], value, tracks.coords)
+            path = tmp_path / ("zeros" if value == 0 else "empty") / f"s{seed}.csv"
+            path.parent.mkdir(exist_ok=True)
+            write_tidy(tracks.replace(coords=coords, confidence=None), path)
+            files.append(path)
+    n = lost.sum()
+    options = {"fps": 25, "states": 3, "progress": False, "stability": False}
+    with pytest.warns(InputWarning, match=r"points at \(0, 0\), a position .* 's2' \("):
+        discover(zeros, tmp_path / "ws", **options)
+    discover(empty, tmp_path / "ws_empty", **options)
+    used = json.loads((tmp_path / "ws" / "summary.json").read_text())["cleaning"]["used"]
+    assert used["placeholders"] == [[0.0, 0.0]] and used["placeholder_points"]["s2"] == n
+    text = quality_section(Workspace(tmp_path / "ws")).text
+    assert "Points at (0, 0), a placeholder position" in text and f"'s2' ({n:,})" in text
+    labels = [pd.read_csv(tmp_path / w / "labels.csv") for w in ("ws", "ws_empty")]
+    pd.testing.assert_frame_equal(labels[0], labels[1])
+
+
 def test_sessions_with_many_repeated_frames_are_named():
     import warnings
 

@@ -79,6 +79,28 @@ def test_a_causal_model_labels_offline_as_it_streams():
     assert (offline["state"] >= 0).mean() > 0.8  # most frames scored: not a vacuous match
 
 
+def _zeros_for_lost(tracks):
+    """``tracks`` exported with lost points (missing or confidence < 0.5) written as 0, 0."""
+    lost = ~np.isfinite(tracks.coords).all(-1) | (tracks.confidence < 0.5)
+    return tracks.replace(coords=np.where(lost[..., None], 0.0, tracks.coords), confidence=None)
+
+
+def test_a_causal_model_masks_the_placeholders_of_its_sessions_when_streaming():
+    # Invented animals whose lost points a tracker writes as 0, 0: the causal fit reads the
+    # placeholder from its sessions and keeps it as a position, so streaming (which cannot
+    # read it from a recording) masks it too, and labels as offline labelling does.
+    train, _ = simulate_session(duration_s=60, seed=11, noise=True)
+    new, _ = simulate_session(duration_s=40, seed=12, noise=True)
+    train, new = _zeros_for_lost(train), _zeros_for_lost(new)
+    model = BehaviourModel(n_states=4, causal=True).fit([train])
+    assert model.cleaning_.placeholders == ((0.0, 0.0),)
+    offline = model.label([new])
+    live = StreamingLabeller(model)
+    streamed = np.array([live.push(new.coords[t])[0].state for t in range(new.n_frames)])
+    assert np.mean(streamed == offline["state"].to_numpy()) >= 0.99
+    assert (offline["state"] >= 0).mean() > 0.8
+
+
 def test_causal_needs_a_streaming_method():
     with pytest.raises(InputError, match="causal=True"):
         BehaviourModel(method="changepoint", causal=True)._check_params()

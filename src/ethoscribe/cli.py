@@ -457,6 +457,12 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
         "repeated images of a video whose frame rate was raised, are filled from their "
         "neighbours)",
     )
+    c.add_argument(
+        "--keep-placeholder-positions",
+        action="store_true",
+        help="keep points at a position that several keypoints hold exactly on many frames "
+        "(default: such a position, e.g. 0, 0 written for lost points, counts as missing)",
+    )
 
 
 def _cleaning(args: argparse.Namespace) -> dict[str, Any]:
@@ -481,6 +487,8 @@ def _cleaning(args: argparse.Namespace) -> dict[str, Any]:
         out["swap_pairs"] = ()
     if args.keep_repeated_frames:
         out["fill_repeated"] = False
+    if args.keep_placeholder_positions:
+        out["placeholders"] = None
     return out
 
 

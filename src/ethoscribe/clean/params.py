@@ -81,6 +81,12 @@ class CleanParams:
         them from their neighbours (a video whose frame rate was raised by repeating images;
         :func:`~ethoscribe.clean.steps.repeated_frames`). Not in causal cleaning (it needs
         the next frame).
+    placeholders : "auto", positions or None
+        Positions a tracker writes for lost points (0, 0; -1, -1), set missing. "auto": any
+        position that several keypoints hold exactly on many frames of a recording
+        (:func:`~ethoscribe.clean.steps.placeholder_positions`); positions, e.g.
+        ``[(-1, -1)]``: these, exactly; None: none. Streaming cleaning masks given positions
+        only (it cannot read them from a recording it has not seen).
 
     Examples
     --------
@@ -100,6 +106,7 @@ class CleanParams:
     unit: str = "mm"
     target_fps: float | None = None
     fill_repeated: bool = True
+    placeholders: str | Sequence[Sequence[float]] | None = "auto"
 
     def __post_init__(self) -> None:
         conf = self.min_confidence
@@ -129,6 +136,7 @@ class CleanParams:
         if not isinstance(self.fill_repeated, bool | np.bool_):
             raise InputError(f"fill_repeated must be True or False; got {self.fill_repeated!r}")
         object.__setattr__(self, "fill_repeated", bool(self.fill_repeated))
+        object.__setattr__(self, "placeholders", _check_placeholders(self.placeholders))
         if self.unit not in MM_PER_UNIT:
             raise InputError(f"unit must be one of {list(MM_PER_UNIT)}; got {self.unit!r}")
 
@@ -137,6 +145,8 @@ class CleanParams:
         d = asdict(self)
         if not isinstance(self.swap_pairs, str):
             d["swap_pairs"] = [list(p) for p in self.swap_pairs]
+        if isinstance(self.placeholders, tuple):
+            d["placeholders"] = [list(p) for p in self.placeholders]
         return d
 
     @classmethod
@@ -147,6 +157,20 @@ class CleanParams:
         if unknown:
             raise InputError(f"unknown cleaning parameters {unknown}; known: {known}")
         return cls(**d)
+
+
+def _check_placeholders(value: Any) -> str | tuple[tuple[float, ...], ...] | None:
+    """``"auto"``, None, or positions as a tuple of tuples of 2 or 3 finite floats."""
+    if value is None or (isinstance(value, str) and value == "auto"):
+        return value
+    fix = "placeholders must be 'auto', None or positions such as [(-1, -1)]"
+    try:
+        out = tuple(tuple(float(v) for v in q) for q in value)
+    except (TypeError, ValueError):
+        raise InputError(f"{fix}; got {value!r}") from None
+    if isinstance(value, str) or any(len(q) not in (2, 3) or not np.isfinite(q).all() for q in out):
+        raise InputError(f"{fix} (2 or 3 finite numbers each); got {value!r}")
+    return out
 
 
 def _check_pairs(pairs: Any) -> tuple[tuple[str, str], ...] | str:

@@ -32,7 +32,9 @@ from ethoscribe.clean.steps import (
     _run_causal,
     _settings,
     _smooth_inplace,
+    at_positions,
     calibrate,
+    placeholder_positions,
     repeated_frames,
     resample,
 )
@@ -46,7 +48,8 @@ def clean(
     causal: bool = False,
     **overrides: Any,
 ) -> tuple[PoseTracks, QualityReport]:
-    """Run calibrate -> confidence -> jumps -> swaps -> gaps -> smoothing -> resampling.
+    """Run calibrate -> placeholders -> confidence -> jumps -> swaps -> gaps -> smoothing ->
+    resampling.
 
     Parameters
     ----------
@@ -101,6 +104,14 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     width = _window_frames(p.smooth, p.smooth_window_s, p.smooth_order, fps) if p.smooth else 0
     max_gap = _gap_frames(p.max_gap_s, fps)
     x, conf = _coords(cal.coords), np.array(cal.confidence)
+    # lost points written as a fixed position (in the file's units): missing, as if the file
+    # had left them empty
+    if p.placeholders == "auto":
+        held, placeholders = placeholder_positions(tracks.coords)
+    else:
+        placeholders = [list(q) for q in p.placeholders or ()]
+        held = at_positions(tracks.coords, placeholders)
+    x[held] = np.nan
     raw_missing = np.isnan(x[..., 0])
     # repeated images (offline only: a repeat is known once the next frame differs)
     repeated = repeated_frames(x) if p.fill_repeated and not causal else np.zeros(len(x), bool)
@@ -149,6 +160,8 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "fps_in": fps,
         "fps_out": fps_out,
         "repeated_frames": int(repeated.sum()),
+        "placeholder_points": int(held.sum()),
+        "placeholders": placeholders,
     }
     out = cal.replace(coords=x, confidence=conf, fps=fps_out, meta={"cleaning": resolved})
     masks = {
@@ -198,6 +211,7 @@ class StreamingCleaner:
         if p.target_fps is not None:
             raise InputError("streaming cleaning cannot resample; set target_fps=None")
         self.params, self.keypoints, self.fps = p, tuple(keypoints), _fps(fps)
+        self._placeholders = p.placeholders if isinstance(p.placeholders, tuple) else ()
         self._divisor, self.units = _calibration(units, p.px_per_unit, p.unit, "the stream")
         self.shape = (int(n_animals), len(self.keypoints), int(n_dims))
         if self.shape[0] < 1 or self.shape[1] < 1 or self.shape[2] not in (2, 3):
@@ -234,6 +248,8 @@ class StreamingCleaner:
             )
         if np.isinf(x).any():
             raise InputError(f"frame {self._state.t}: coordinates contain infinite values")
+        if self._placeholders:  # given positions only: "auto" needs the whole recording
+            x[at_positions(x, self._placeholders)] = np.nan
         if confidence is None:
             c = np.where(np.isfinite(x).all(axis=-1), 1.0, np.nan)
         else:

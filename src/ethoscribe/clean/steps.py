@@ -7,6 +7,7 @@ from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from ethoscribe.clean import _kernels as kern
 from ethoscribe.clean.params import (
@@ -64,6 +65,116 @@ def _calibration(units: str, px_per_unit: float | None, unit: str, where: str) -
     if units not in MM_PER_UNIT:
         raise InputError(f"units must be 'px' or one of {list(MM_PER_UNIT)}; got {units!r}")
     return MM_PER_UNIT[unit] / MM_PER_UNIT[units], unit
+
+
+PLACEHOLDER_MIN_FRAMES = 10
+"""A position (exact in every coordinate) held by two or more keypoints, in at least this many
+frames of a session, is a candidate placeholder for lost points (often 0, 0 or -1, -1)."""
+
+PLACEHOLDER_FAR = 2.0
+"""...and is one when the points holding it lie, on the median frame, more than this many body
+lengths (median largest distance between two keypoints not at it) from the centre of the
+frame's other keypoints: a lost point is put where no body part is. Where the whole body is at
+it, on fewer than half the frames, it stands for an animal lost."""
+
+
+def placeholder_positions(coords: np.ndarray) -> tuple[np.ndarray, list[list[float]]]:
+    """Points ``(frames, animals, keypoints)`` at a placeholder position, and the placeholders.
+
+    Some trackers and exports write a lost point as a fixed position (0, 0; -1, -1) instead of
+    leaving it empty. Without a confidence to mask it, such a point is taken for a keypoint
+    that leaps across the image and back, and the postures and speeds lose all sense (the
+    example sessions with their lost points written as 0, 0 and no confidence: ARI 0.80 ->
+    0.01). A position counts when at least two different keypoints hold it exactly, on at
+    least ``PLACEHOLDER_MIN_FRAMES`` frames in all, away from the rest of the body
+    (``PLACEHOLDER_FAR``): one keypoint that stays put (a landmark, an animal resting in integer
+    pixels, another keypoint passing through its pixel) is no placeholder.
+
+    Examples
+    --------
+    >>> x = np.zeros((15, 1, 3, 2)); x[..., 0] = [100.0, 101.0, 102.0]  # a body at x = 100
+    >>> x[:, 0, :, 1] = np.arange(15.0)[:, None]  # moving along y
+    >>> x[:6, 0, 0] = 0.0; x[6:12, 0, 1] = 0.0  # two keypoints each lost for six frames: 0, 0
+    >>> held, values = placeholder_positions(x)
+    >>> int(held.sum()), values
+    (12, [[0.0, 0.0]])
+    >>> still = x[:, :, :1].copy(); still[:12] = 5.0  # one keypoint at one place: kept
+    >>> placeholder_positions(still)[1]
+    []
+    """
+    x = np.asarray(coords, dtype=np.float64)
+    held = np.zeros(x.shape[:3], bool)
+    n_kp = x.shape[2]
+    flat = x.reshape(-1, x.shape[-1])
+    first = flat[:, 0]
+    # Candidates first (values of one coordinate that recur), so the exact comparison of
+    # whole positions runs on a few rows, not on every point of the session.
+    values, counts = np.unique(first[np.isfinite(first)], return_counts=True)
+    common = values[counts >= PLACEHOLDER_MIN_FRAMES]
+    if not common.size or n_kp < 2:
+        return held, []
+    rows = np.flatnonzero(np.isin(first, common) & np.isfinite(flat).all(axis=1))
+    points = flat[rows] + 0.0  # -0.0 as 0.0; then one void item per position: a 1-D unique
+    keys = points.view(np.dtype((np.void, points.itemsize * points.shape[1]))).ravel()
+    _, first_at, which, n = np.unique(
+        keys, return_index=True, return_inverse=True, return_counts=True
+    )
+    places, which = points[first_at], which.ravel()
+    pairs = np.unique(which.astype(np.int64) * n_kp + rows % n_kp)  # (place, keypoint) pairs
+    holders = np.bincount(pairs // n_kp, minlength=len(places))
+    candidate = (n >= PLACEHOLDER_MIN_FRAMES) & (holders >= 2)
+    if not candidate.any():
+        return held, []
+    keep = candidate[which]
+    rows, which = rows[keep], which[keep]
+    # The body without the points at any candidate: its length, and each frame's centre.
+    held.reshape(-1)[rows] = True
+    bodies, off = x.reshape(-1, n_kp, x.shape[-1]), held.reshape(-1, n_kp)
+
+    def without(i: np.ndarray) -> np.ndarray:  # rows i of the bodies, candidates removed
+        return np.where(off[i][..., None], np.nan, bodies[i])
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # frames with no keypoint left
+        sample = without(np.arange(0, len(bodies), max(1, len(bodies) // 2_000)))
+        two = np.isfinite(sample).all(-1).sum(-1) >= 2  # a length needs two keypoints
+        gaps = np.linalg.norm(sample[two, :, None] - sample[two, None], axis=-1)
+        length = float(np.nanmedian(np.nanmax(gaps, axis=(1, 2)))) if two.any() else 0.0
+        centre = np.nanmean(without(rows // n_kp), axis=1)
+    distance = pd.Series(np.linalg.norm(centre - places[which], axis=-1))
+    median = distance.groupby(which).median()  # NaN: only whole bodies at the place
+    found = median.index[median > PLACEHOLDER_FAR * length].tolist()
+    for i in median.index[median.isna()]:
+        # Whole bodies there, on fewer than half the frames: an animal lost, written so
+        if len(np.unique(rows[which == i] // n_kp)) < 0.5 * len(bodies):
+            found.append(i)
+    found.sort()
+    held[:] = False
+    if found:
+        held.reshape(-1)[rows[np.isin(which, found)]] = True
+    return held, places[found].tolist()
+
+
+def position_text(position: Sequence[float]) -> str:
+    """A position as people write it: ``(0, 0)``, ``(-1, -1, 2.5)``."""
+    return "(" + ", ".join(f"{float(v):g}" for v in position) + ")"
+
+
+def at_positions(coords: np.ndarray, positions: Sequence[Sequence[float]]) -> np.ndarray:
+    """Points ``(frames, animals, keypoints)`` exactly at one of ``positions`` (of as many
+    coordinates as the tracks have; others match nothing).
+
+    Examples
+    --------
+    >>> at_positions(np.array([[[[-1.0, -1.0], [2.0, -1.0]]]]), [(-1, -1)]).tolist()
+    [[[True, False]]]
+    """
+    x = np.asarray(coords)
+    held = np.zeros(x.shape[:-1], bool)
+    for q in positions:
+        if len(q) == x.shape[-1]:
+            held |= (x == np.asarray(q, dtype=x.dtype)).all(axis=-1)
+    return held
 
 
 REPEAT_RUN_MAX = 2

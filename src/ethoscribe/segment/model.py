@@ -539,10 +539,14 @@ class BehaviourModel(BaseEstimator):
             # invented), and labels mapped back to every session's own frames (label()).
             params = replace(params, target_fps=rates[0])
         cleaned, quality = self._clean_all(sessions, params)
-        if self.causal and params.max_speed == "auto":
-            # Streaming needs one fixed bound: the median of the sessions' automatic ones.
-            params = replace(params, max_speed=_fixed_speed(cleaned))
-            cleaned, quality = self._clean_all(sessions, params)
+        if self.causal and "auto" in (params.max_speed, params.placeholders):
+            # Streaming needs one fixed bound (the median of the sessions' automatic ones) and
+            # the placeholders as positions (every one the sessions showed).
+            fixed = _fixed_cleaning(cleaned, params)
+            redo = params.max_speed == "auto" or fixed.placeholders
+            params = fixed
+            if redo:  # else the same points are masked: the first cleaning stands
+                cleaned, quality = self._clean_all(sessions, params)
         self._fit_cleaned(cleaned, quality, params)
         self.labels_at_input_rate_ = auto_rate
         return self
@@ -1652,8 +1656,19 @@ def _causal_cleaning(cleaned: Sequence[PoseTracks], params: CleanParams) -> Clea
         )
     if params.target_fps is not None:
         raise InputError("causal=True cannot resample; set cleaning target_fps=None")
+    return _fixed_cleaning(cleaned, params)
+
+
+def _fixed_cleaning(cleaned: Sequence[PoseTracks], params: CleanParams) -> CleanParams:
+    """``params`` with what "auto" resolved to in ``cleaned`` as fixed values, as streaming
+    needs them: the median speed bound, and every placeholder position found."""
     if params.max_speed == "auto":
         params = replace(params, max_speed=_fixed_speed(cleaned))
+    if params.placeholders == "auto":
+        found = {
+            tuple(q) for s in cleaned for q in s.meta.get("cleaning", {}).get("placeholders") or ()
+        }
+        params = replace(params, placeholders=sorted(found))
     return params
 
 

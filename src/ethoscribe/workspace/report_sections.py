@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ethoscribe.clean.steps import position_text
 from ethoscribe.errors import counted, listed
 from ethoscribe.ethogram import (
     duration_summary,
@@ -80,17 +81,25 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
             f"tracked): {listed(said, sep='; ')}. Their positions there are the posture "
             "model's guesses, so motifs say nothing about them in those sessions."
         )
-    repeated = ((ws.summary.get("cleaning") or {}).get("used") or {}).get("repeated_frames")
-    if isinstance(repeated, dict):  # one count per session where they differ
-        counts = {str(k): int(v) for k, v in repeated.items() if v}
-    else:  # one count every session had
-        counts = {str(s): int(repeated) for s in table["session"].unique()} if repeated else {}
+    counts = _cleaning_counts(ws, table, "repeated_frames")
     if counts:
         said = [f"'{k}' ({v:,})" for k, v in counts.items()]
         text += (
             " Frames that repeated the frame before exactly, filled from their neighbours "
             "(a video whose frame rate was raised by repeating images; counted in 'filled'): "
             f"{listed(said)}."
+        )
+    counts = _cleaning_counts(ws, table, "placeholder_points")
+    if counts:
+        said = [f"'{k}' ({v:,})" for k, v in counts.items()]
+        used = ((ws.summary.get("cleaning") or {}).get("used") or {}).get("placeholders") or []
+        lists = used.values() if isinstance(used, dict) else [used]  # per session, or one
+        places = sorted({tuple(q) for found in lists for q in found or ()})
+        at = listed(position_text(q) for q in places)
+        text += (
+            f" Points at {at}, a placeholder position (one that several keypoints held "
+            "exactly on many frames: a tracker writing lost points there), counted as missing "
+            f"in the raw data: {listed(said)}."
         )
     features = ws.summary.get("features") or {}
     left_out = [str(k) for k in features.get("keypoints_left_out") or []]
@@ -126,6 +135,15 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     shown = shown.reset_index()
     caption = "Per session, % of frames (keypoint columns: mean over keypoints; see quality.csv)"
     return Section("Data quality", text, [quality_figure(table)], [(caption, shown)])
+
+
+def _cleaning_counts(ws: Workspace, table: pd.DataFrame, key: str) -> dict[str, int]:
+    """Per session, a count the cleaning wrote under ``key`` (sessions with none left out)."""
+    value = ((ws.summary.get("cleaning") or {}).get("used") or {}).get(key)
+    if isinstance(value, dict):  # one count per session where they differ
+        return {str(k): int(v) for k, v in value.items() if v}
+    # one count every session had
+    return {str(s): int(value) for s in table["session"].unique()} if value else {}
 
 
 def model_section(ws: Workspace) -> Section:

@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from ethoscribe.clean import CleanParams
+from ethoscribe.clean.steps import position_text
 from ethoscribe.curation import Curation
 from ethoscribe.errors import InputError, InputWarning, WorkspaceError, listed
 from ethoscribe.features import FeatureSet
@@ -189,13 +190,22 @@ def discover(
         prepared, quality, table, used = _prepare(
             out, plan, cleaning, jobs, client, force, progress, causal
         )
-        if causal and cleaning.get("max_speed") == "auto":
-            # Streaming needs one speed bound: clean again with the sessions' median.
-            speeds = [u["max_speed"] for u in used if u and u.get("max_speed") is not None]
-            cleaning = {**cleaning, "max_speed": float(np.median(speeds)) if speeds else None}
-            prepared, quality, table, used = _prepare(
-                out, plan, cleaning, jobs, client, force, progress, causal
-            )
+        if causal and "auto" in (cleaning.get("max_speed"), cleaning.get("placeholders")):
+            # Streaming needs one speed bound and the placeholders as positions: clean again
+            # with the sessions' median speed bound and every placeholder they showed.
+            fixed = {}
+            if cleaning.get("max_speed") == "auto":
+                speeds = [u["max_speed"] for u in used if u and u.get("max_speed") is not None]
+                fixed["max_speed"] = float(np.median(speeds)) if speeds else None
+            if cleaning.get("placeholders") == "auto":
+                found = {tuple(q) for u in used if u for q in u.get("placeholders") or ()}
+                fixed["placeholders"] = [list(q) for q in sorted(found)]
+            redo = cleaning.get("max_speed") == "auto" or fixed.get("placeholders")
+            cleaning = {**cleaning, **fixed}
+            if redo:  # else the same points are masked: the first cleaning stands
+                prepared, quality, table, used = _prepare(
+                    out, plan, cleaning, jobs, client, force, progress, causal
+                )
         sample = _training_sample(prepared, table, fit_frames, seed)
         no_social = {"social": False}  # set only when off: earlier fits keep their digest
         # Likewise; fits made before the axis was read from the tracks assumed z, so only an
@@ -305,6 +315,7 @@ def _prepare(
     used = [r.pop(CLEANING_USED, None) for r in rows]
     _warn_short_sessions(rows)
     _warn_repeated_frames(rows, used)
+    _warn_placeholders(rows, used)
     _warn_unseen_keypoints(quality)
     first = cleaning if isinstance(cleaning, dict) else (cleaning[0] if cleaning else {})
     _warn_low_confidence(quality, first.get("min_confidence"))
@@ -475,6 +486,27 @@ def _warn_unseen_keypoints(quality: Sequence[pd.DataFrame]) -> None:
 
 
 REPEATED_SHARE = 0.01  # more of a session's frames than this repeated: say so
+
+
+def _warn_placeholders(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
+    """Name sessions whose files wrote lost points as a fixed position (set missing by the
+    cleaning): the user should know their tracker's convention, and how to keep them."""
+    named, places = [], set()
+    for row, params in zip(rows, used, strict=True):
+        n = params.get("placeholder_points", 0) if isinstance(params, dict) else 0
+        if n:
+            named.append(f"'{row.get('session')}' ({n:,} points)")
+            places.update(tuple(q) for q in params.get("placeholders") or ())
+    if named:
+        shown = listed(position_text(q) for q in sorted(places))
+        warnings.warn(
+            f"points at {shown}, a position several keypoints hold exactly on many frames, "
+            f"were taken for lost points written as a placeholder and set missing in "
+            f"session(s) {listed(named)}. If that position is real, pass "
+            "cleaning={'placeholders': None} (command line: --keep-placeholder-positions)",
+            InputWarning,
+            stacklevel=3,
+        )
 
 
 def _warn_repeated_frames(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
