@@ -23,6 +23,7 @@ import warnings
 from collections.abc import Callable
 
 import numpy as np
+import pandas as pd
 from benchmarks.validity import pipelines
 from benchmarks.validity.scoring import score_units
 from benchmarks.validity.sources import LOADERS, Source, _import_all
@@ -122,6 +123,15 @@ def _placeholder(value: float) -> Callable[[PoseTracks], PoseTracks]:
     return write
 
 
+def _forward_filled(s: PoseTracks) -> PoseTracks:
+    """Lost points (missing, or confidence below 0.5) held at their last seen position (the
+    first ones at their first), no confidence column: ``DataFrame.ffill()`` before export."""
+    lost = ~np.isfinite(s.coords).all(-1) | (s.confidence < 0.5)
+    flat = np.where(lost[..., None], np.nan, s.coords).reshape(s.n_frames, -1)
+    filled = pd.DataFrame(flat).ffill().bfill().to_numpy().reshape(s.coords.shape)
+    return s.replace(coords=filled, confidence=None)
+
+
 CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "as recorded": lambda s: s,
     "y up": _axes([0, 2, 1]),
@@ -141,6 +151,7 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "confidence halved": lambda s: s.replace(confidence=s.confidence * 0.5),
     "lost points written as 0, 0": _placeholder(0.0),
     "lost points written as -1, -1": _placeholder(-1.0),
+    "lost points forward-filled": _forward_filled,
 }
 REPEATED = "every fifth frame repeated"
 THINNED = "a third of the frame rate"
@@ -158,6 +169,7 @@ _TWO_D = [
     "confidence halved",
     "in a runway, from above",
     "lost points written as 0, 0",
+    "lost points forward-filled",
 ]
 RECORDED = {
     "own_fish": ["as recorded", "y up", "x up", "filmed from above", "filmed from the side"],

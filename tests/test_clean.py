@@ -23,7 +23,7 @@ from ethoscribe.clean import (
     resample,
     smooth,
 )
-from ethoscribe.clean.steps import placeholder_positions, repeated_frames
+from ethoscribe.clean.steps import held_points, placeholder_positions, repeated_frames
 from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.plots.quality import quality_figure
 from ethoscribe.pose import PoseTracks
@@ -419,7 +419,9 @@ def test_lost_points_written_as_a_placeholder_are_missing():
     minus = PoseTracks(np.where(lost[..., None], -1.0, walk), keypoints=KEYPOINTS, fps=30.0)
     given = clean(minus, CleanParams(smooth=None, max_speed=None, placeholders=[(-1, -1)]))[1]
     assert given.params["placeholder_points"] == 80
-    kept, report = clean(tracks, CleanParams(smooth=None, max_speed=None, placeholders=None))
+    # (runs of them are also points held still, test below: both kept here)
+    keep = CleanParams(smooth=None, max_speed=None, placeholders=None, mask_held=False)
+    kept, report = clean(tracks, keep)
     np.testing.assert_array_equal(kept.coords, tracks.coords)
     assert report.params["placeholder_points"] == 0
     # streaming masks given positions frame by frame, as causal cleaning of the recording does
@@ -445,6 +447,42 @@ def test_a_keypoint_at_rest_or_a_fixed_landmark_is_no_placeholder():
     walk = np.round(walking_track(300) * 4)
     marks = np.broadcast_to(np.array([[[5.0, 5.0], [900.0, 5.0]]]), (300, 1, 2, 2))
     assert placeholder_positions(np.concatenate([walk, marks], axis=2))[1] == []
+
+
+def test_points_held_where_the_tracker_lost_them_are_missing():
+    # Invented scenario: a walk whose lost points were forward-filled before export (each held
+    # at its last seen position). Reference: the points lost, by construction, but for the
+    # first frame of each hold (a point may rest one frame: kept).
+    walk = walking_track(300)
+    lost = np.zeros(walk.shape[:3], bool)
+    lost[40:70, 0, 0] = lost[100:103, 0, 2] = lost[200:260, 0, :] = True
+    held = walk.copy()
+    for t in range(1, len(held)):
+        held[t][lost[t]] = held[t - 1][lost[t]]
+    expected = lost.copy()
+    expected[[40, 100, 200], 0] = False  # each hold's first frame repeats once: kept
+    expected[40, 0, 1:] = expected[100, 0, [0, 1, 3]] = False
+    expected &= lost
+    np.testing.assert_array_equal(held_points(held), expected)
+    tracks = PoseTracks(held, keypoints=KEYPOINTS, fps=30.0, units="mm")
+    p = CleanParams(smooth=None, max_speed=None, max_gap_s=0)
+    cleaned, report = clean(tracks, p)
+    np.testing.assert_array_equal(np.isnan(cleaned.coords[..., 0]), expected)
+    assert report.params["held_points"] == expected.sum() == 29 + 2 + 4 * 59
+    kept, report = clean(tracks, CleanParams(smooth=None, max_speed=None, mask_held=False))
+    assert report.params["held_points"] == 0 and np.isfinite(kept.coords).all()
+    assert clean(tracks, p, causal=True)[1].params["held_points"] == 0  # offline only
+    # in whole numbers (integer pixels) an animal at rest repeats by chance: nothing held
+    rest = np.round(walk[:1] + np.random.default_rng(2).normal(0, 0.4, walk.shape))
+    assert (rest[1:] == rest[:-1]).all(-1).mean() > 0.05  # the chance repeats
+    assert not held_points(rest).any()
+    # a keypoint that moves along one axis only (a sensor channel drawn as a height) is left
+    # alone, as is one that never moves (a landmark)
+    channel = np.zeros((300, 1, 2, 3))
+    channel[:, 0, 0, 2] = np.repeat(np.random.default_rng(1).normal(size=100), 3)
+    assert not held_points(channel).any()
+    with pytest.raises(InputError, match="mask_held must be True or False"):
+        CleanParams(mask_held=1)
 
 
 def test_calibration_converts_and_records_units():

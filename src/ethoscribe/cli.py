@@ -458,6 +458,13 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
         "neighbours)",
     )
     c.add_argument(
+        "--keep-held-points",
+        action="store_true",
+        help="keep points held at exactly one position on three or more frames (default: "
+        "where coordinates have enough digits that an animal never repeats one, such a point "
+        "was held where the tracker lost it, e.g. a track forward-filled, and counts as lost)",
+    )
+    c.add_argument(
         "--keep-placeholder-positions",
         action="store_true",
         help="keep points at a position that several keypoints hold exactly on many frames "
@@ -487,6 +494,8 @@ def _cleaning(args: argparse.Namespace) -> dict[str, Any]:
         out["swap_pairs"] = ()
     if args.keep_repeated_frames:
         out["fill_repeated"] = False
+    if args.keep_held_points:
+        out["mask_held"] = False
     if args.keep_placeholder_positions:
         out["placeholders"] = None
     return out

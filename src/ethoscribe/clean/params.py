@@ -81,6 +81,11 @@ class CleanParams:
         them from their neighbours (a video whose frame rate was raised by repeating images;
         :func:`~ethoscribe.clean.steps.repeated_frames`). Not in causal cleaning (it needs
         the next frame).
+    mask_held : bool
+        Treat points held at exactly one position on three or more frames, where coordinates
+        are written with enough digits that an animal never repeats one by chance (a track
+        forward-filled over its gaps), as lost (:func:`~ethoscribe.clean.steps.held_points`).
+        Not in causal cleaning.
     placeholders : "auto", positions or None
         Positions a tracker writes for lost points (0, 0; -1, -1), set missing. "auto": any
         position that several keypoints hold exactly on many frames of a recording
@@ -106,6 +111,7 @@ class CleanParams:
     unit: str = "mm"
     target_fps: float | None = None
     fill_repeated: bool = True
+    mask_held: bool = True
     placeholders: str | Sequence[Sequence[float]] | None = "auto"
 
     def __post_init__(self) -> None:
@@ -133,9 +139,10 @@ class CleanParams:
         for name in ("px_per_unit", "target_fps"):  # plain floats keep to_dict() JSON-able
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, _positive(name, getattr(self, name)))
-        if not isinstance(self.fill_repeated, bool | np.bool_):
-            raise InputError(f"fill_repeated must be True or False; got {self.fill_repeated!r}")
-        object.__setattr__(self, "fill_repeated", bool(self.fill_repeated))
+        for name in ("fill_repeated", "mask_held"):
+            if not isinstance(getattr(self, name), bool | np.bool_):
+                raise InputError(f"{name} must be True or False; got {getattr(self, name)!r}")
+            object.__setattr__(self, name, bool(getattr(self, name)))
         object.__setattr__(self, "placeholders", _check_placeholders(self.placeholders))
         if self.unit not in MM_PER_UNIT:
             raise InputError(f"unit must be one of {list(MM_PER_UNIT)}; got {self.unit!r}")

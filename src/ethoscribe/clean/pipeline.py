@@ -34,6 +34,7 @@ from ethoscribe.clean.steps import (
     _smooth_inplace,
     at_positions,
     calibrate,
+    held_points,
     placeholder_positions,
     repeated_frames,
     resample,
@@ -48,8 +49,8 @@ def clean(
     causal: bool = False,
     **overrides: Any,
 ) -> tuple[PoseTracks, QualityReport]:
-    """Run calibrate -> placeholders -> confidence -> jumps -> swaps -> gaps -> smoothing ->
-    resampling.
+    """Run calibrate -> placeholders -> repeats -> confidence -> held points -> jumps -> swaps ->
+    gaps -> smoothing -> resampling.
 
     Parameters
     ----------
@@ -107,15 +108,16 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     # lost points written as a fixed position (in the file's units): missing, as if the file
     # had left them empty
     if p.placeholders == "auto":
-        held, placeholders = placeholder_positions(tracks.coords)
+        placed, placeholders = placeholder_positions(tracks.coords)
     else:
         placeholders = [list(q) for q in p.placeholders or ()]
-        held = at_positions(tracks.coords, placeholders)
-    x[held] = np.nan
+        placed = at_positions(tracks.coords, placeholders)
+    x[placed] = np.nan
     raw_missing = np.isnan(x[..., 0])
     # repeated images (offline only: a repeat is known once the next frame differs)
     repeated = repeated_frames(x) if p.fill_repeated and not causal else np.zeros(len(x), bool)
     x[repeated] = np.nan
+    held = np.zeros(x.shape[:3], bool)
     if causal:
         probe = x.copy()  # the check of confidence, and what "auto" speed sees
         _mask_confidence_inplace(probe, conf, p.min_confidence)
@@ -131,6 +133,11 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         )
     else:
         low = _mask_confidence_inplace(x, conf, p.min_confidence)
+        # points held still where the tracker lost them (a track forward-filled): not seen;
+        # offline only, as a run is known held from its second repeat on
+        held = held_points(x) if p.mask_held else np.zeros(x.shape[:3], bool)
+        x[held] = np.nan
+        raw_missing |= held
         max_speed = _resolve_speed(p.max_speed, x, fps)
         jumps = _mask_jumps_inplace(x, fps, max_speed, pairs, False)
         swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, SWAP_LONE_MAX_AGE_FRAMES)
@@ -160,7 +167,8 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "fps_in": fps,
         "fps_out": fps_out,
         "repeated_frames": int(repeated.sum()),
-        "placeholder_points": int(held.sum()),
+        "placeholder_points": int(placed.sum()),
+        "held_points": int(held.sum()),
         "placeholders": placeholders,
     }
     out = cal.replace(coords=x, confidence=conf, fps=fps_out, meta={"cleaning": resolved})

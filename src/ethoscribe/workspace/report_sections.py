@@ -101,6 +101,14 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
             "exactly on many frames: a tracker writing lost points there), counted as missing "
             f"in the raw data: {listed(said)}."
         )
+    counts = _cleaning_counts(ws, table, "held_points")
+    if counts:
+        said = [f"'{k}' ({v:,})" for k, v in counts.items()]
+        text += (
+            " Points held at exactly one position on three or more frames (a tracker keeping "
+            "a lost point where it last saw it, or a track forward-filled over its gaps), "
+            f"counted as missing in the raw data: {listed(said)}."
+        )
     features = ws.summary.get("features") or {}
     left_out = [str(k) for k in features.get("keypoints_left_out") or []]
     read = features.get("keypoints")  # those the model reads (runs since 2026-12-05)

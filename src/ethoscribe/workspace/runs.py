@@ -316,6 +316,7 @@ def _prepare(
     _warn_short_sessions(rows)
     _warn_repeated_frames(rows, used)
     _warn_placeholders(rows, used)
+    _warn_held_points(rows, used)
     _warn_unseen_keypoints(quality)
     first = cleaning if isinstance(cleaning, dict) else (cleaning[0] if cleaning else {})
     _warn_low_confidence(quality, first.get("min_confidence"))
@@ -486,6 +487,26 @@ def _warn_unseen_keypoints(quality: Sequence[pd.DataFrame]) -> None:
 
 
 REPEATED_SHARE = 0.01  # more of a session's frames than this repeated: say so
+
+
+def _warn_held_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
+    """Name sessions with many points held still (set lost by the cleaning): a track
+    forward-filled over its gaps, or a tracker keeping lost points where it last saw them."""
+    named = []
+    for row, params in zip(rows, used, strict=True):
+        n = params.get("held_points", 0) if isinstance(params, dict) else 0
+        if n > REPEATED_SHARE * int(row.get("n_frames", 0) or 0):
+            named.append(f"'{row.get('session')}' ({n:,} points)")
+    if named:
+        warnings.warn(
+            f"points held at exactly one position on three or more frames in session(s) "
+            f"{listed(named)} were taken for points the tracker lost and held (a track "
+            "forward-filled over its gaps?) and set missing: a living animal never repeats a "
+            "position to the last digit. To keep them, pass cleaning={'mask_held': False} "
+            "(command line: --keep-held-points)",
+            InputWarning,
+            stacklevel=3,
+        )
 
 
 def _warn_placeholders(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
