@@ -71,6 +71,11 @@ PLACEHOLDER_MIN_FRAMES = 10
 """A position (exact in every coordinate) held by two or more keypoints, in at least this many
 frames of a session, is a candidate placeholder for lost points (often 0, 0 or -1, -1)."""
 
+PLACEHOLDER_SAMPLE = 20_000
+"""At most this many frames (times animals), evenly spaced, are searched for placeholders; a
+position must then recur ``PLACEHOLDER_MIN_FRAMES`` / spacing times among them (at least 3).
+Every point at a position found is then set missing, in every frame."""
+
 PLACEHOLDER_FAR = 2.0
 """...and is one when the points holding it lie, on the median frame, more than this many body
 lengths (median largest distance between two keypoints not at it) from the centre of the
@@ -103,16 +108,26 @@ def placeholder_positions(coords: np.ndarray) -> tuple[np.ndarray, list[list[flo
     []
     """
     x = np.asarray(coords, dtype=np.float64)
-    held = np.zeros(x.shape[:3], bool)
-    n_kp = x.shape[2]
-    flat = x.reshape(-1, x.shape[-1])
+    bodies = x.reshape(-1, *x.shape[2:])  # (frames x animals, keypoints, dims)
+    # Placeholders recur: a sample of frames finds them (at most PLACEHOLDER_SAMPLE), then
+    # every point at one is found exactly.
+    step = -(-len(bodies) // PLACEHOLDER_SAMPLE)
+    places = _placeholders_in(bodies[::step], max(3, -(-PLACEHOLDER_MIN_FRAMES // step)))
+    return at_positions(x, places), places
+
+
+def _placeholders_in(bodies: np.ndarray, min_count: int) -> list[list[float]]:
+    """The placeholder positions of ``bodies (N, K, D)`` (:func:`placeholder_positions`), each
+    held at least ``min_count`` times."""
+    n_kp = bodies.shape[1]
+    flat = bodies.reshape(-1, bodies.shape[-1])
     first = flat[:, 0]
     # Candidates first (values of one coordinate that recur), so the exact comparison of
-    # whole positions runs on a few rows, not on every point of the session.
+    # whole positions runs on a few rows, not on every point.
     values, counts = np.unique(first[np.isfinite(first)], return_counts=True)
-    common = values[counts >= PLACEHOLDER_MIN_FRAMES]
+    common = values[counts >= min_count]
     if not common.size or n_kp < 2:
-        return held, []
+        return []
     rows = np.flatnonzero(np.isin(first, common) & np.isfinite(flat).all(axis=1))
     points = flat[rows] + 0.0  # -0.0 as 0.0; then one void item per position: a 1-D unique
     keys = points.view(np.dtype((np.void, points.itemsize * points.shape[1]))).ravel()
@@ -122,20 +137,21 @@ def placeholder_positions(coords: np.ndarray) -> tuple[np.ndarray, list[list[flo
     places, which = points[first_at], which.ravel()
     pairs = np.unique(which.astype(np.int64) * n_kp + rows % n_kp)  # (place, keypoint) pairs
     holders = np.bincount(pairs // n_kp, minlength=len(places))
-    candidate = (n >= PLACEHOLDER_MIN_FRAMES) & (holders >= 2)
+    candidate = (n >= min_count) & (holders >= 2)
     if not candidate.any():
-        return held, []
+        return []
     keep = candidate[which]
     rows, which = rows[keep], which[keep]
-    # The body without the points at any candidate: its length, and each frame's centre.
-    held.reshape(-1)[rows] = True
-    bodies, off = x.reshape(-1, n_kp, x.shape[-1]), held.reshape(-1, n_kp)
+    # The bodies without the points at any candidate: their length, and each one's centre.
+    off = np.zeros(len(flat), bool)
+    off[rows] = True
+    off = off.reshape(-1, n_kp)
 
-    def without(i: np.ndarray) -> np.ndarray:  # rows i of the bodies, candidates removed
+    def without(i: np.ndarray) -> np.ndarray:  # bodies i, candidates removed
         return np.where(off[i][..., None], np.nan, bodies[i])
 
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # frames with no keypoint left
+        warnings.simplefilter("ignore", RuntimeWarning)  # bodies with no keypoint left
         sample = without(np.arange(0, len(bodies), max(1, len(bodies) // 2_000)))
         two = np.isfinite(sample).all(-1).sum(-1) >= 2  # a length needs two keypoints
         gaps = np.linalg.norm(sample[two, :, None] - sample[two, None], axis=-1)
@@ -148,11 +164,7 @@ def placeholder_positions(coords: np.ndarray) -> tuple[np.ndarray, list[list[flo
         # Whole bodies there, on fewer than half the frames: an animal lost, written so
         if len(np.unique(rows[which == i] // n_kp)) < 0.5 * len(bodies):
             found.append(i)
-    found.sort()
-    held[:] = False
-    if found:
-        held.reshape(-1)[rows[np.isin(which, found)]] = True
-    return held, places[found].tolist()
+    return places[sorted(found)].tolist()
 
 
 def position_text(position: Sequence[float]) -> str:
@@ -236,10 +248,13 @@ def held_points(coords: np.ndarray) -> np.ndarray:
     held = np.zeros(x.shape[:3], bool)
     if len(x) < 3:
         return held
+    same = (x[1:] == x[:-1]).all(axis=-1)  # (F - 1, A, K): NaN is never equal
+    if not same.any():  # coordinates written with many digits, nothing held: done
+        return held
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # a keypoint never tracked
         moving = (np.nanmax(x, axis=0) > np.nanmin(x, axis=0)).sum(axis=-1) >= 2  # (A, K)
-    same = (x[1:] == x[:-1]).all(axis=-1) & moving  # (F - 1, A, K): NaN is never equal
+    same &= moving
     steps = int((np.isfinite(x[1:]).all(axis=-1) & moving).sum())
     if not same.any() or not steps:
         return held
