@@ -134,7 +134,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     else:
         low = _mask_confidence_inplace(x, conf, p.min_confidence)
         # points held still where the tracker lost them (a track forward-filled): not seen;
-        # offline only, as a run is known held from its second repeat on
+        # offline only (whether repeats can be chance is read from the whole recording)
         held = held_points(x) if p.mask_held else np.zeros(x.shape[:3], bool)
         x[held] = np.nan
         raw_missing |= held
