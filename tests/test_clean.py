@@ -451,24 +451,20 @@ def test_a_keypoint_at_rest_or_a_fixed_landmark_is_no_placeholder():
 
 def test_points_held_where_the_tracker_lost_them_are_missing():
     # Invented scenario: a walk whose lost points were forward-filled before export (each held
-    # at its last seen position). Reference: the points lost, by construction, but for the
-    # first frame of each hold (a point may rest one frame: kept).
+    # at its last seen position). Reference: the points lost, by construction.
     walk = walking_track(300)
     lost = np.zeros(walk.shape[:3], bool)
-    lost[40:70, 0, 0] = lost[100:103, 0, 2] = lost[200:260, 0, :] = True
+    lost[40:70, 0, 0] = lost[100:103, 0, 2] = lost[150, 0, 1] = lost[200:260, 0, :] = True
     held = walk.copy()
     for t in range(1, len(held)):
         held[t][lost[t]] = held[t - 1][lost[t]]
-    expected = lost.copy()
-    expected[[40, 100, 200], 0] = False  # each hold's first frame repeats once: kept
-    expected[40, 0, 1:] = expected[100, 0, [0, 1, 3]] = False
-    expected &= lost
+    expected = lost
     np.testing.assert_array_equal(held_points(held), expected)
     tracks = PoseTracks(held, keypoints=KEYPOINTS, fps=30.0, units="mm")
     p = CleanParams(smooth=None, max_speed=None, max_gap_s=0)
     cleaned, report = clean(tracks, p)
     np.testing.assert_array_equal(np.isnan(cleaned.coords[..., 0]), expected)
-    assert report.params["held_points"] == expected.sum() == 29 + 2 + 4 * 59
+    assert report.params["held_points"] == expected.sum() == 30 + 3 + 1 + 4 * 60
     kept, report = clean(tracks, CleanParams(smooth=None, max_speed=None, mask_held=False))
     assert report.params["held_points"] == 0 and np.isfinite(kept.coords).all()
     assert clean(tracks, p, causal=True)[1].params["held_points"] == 0  # offline only

@@ -206,12 +206,9 @@ least this fraction of the median frame-to-frame step: measured 1.1 on sessions 
 fifth image repeated, 0.2 on a slow one-channel series written with few digits (GunPoint)."""
 
 
-HELD_MIN_REPEATS = 2
-"""A point that repeats its position exactly on at least this many consecutive frames (three
-frames alike) is held, not tracked, where such repeats cannot be chance (``HELD_CHANCE``)."""
-
 HELD_CHANCE = 0.01
-"""Held points are looked for only where single exact repeats are rarer than this share of a
+"""Held points are looked for only where single exact repeats (a point on one frame exactly
+where it was on the frame before, and not on the frame after) are rarer than this share of a
 moving point's steps: coordinates written with enough digits that a living animal never repeats
 one by chance (bench sources as recorded: 0.00001 at most; the example sessions with lost points
 forward-filled 0.004, the independent simulator's 0.001; the same rounded to whole units, as
@@ -219,26 +216,26 @@ integer pixels are, 0.05-0.09: there an animal at rest repeats, and nothing is l
 
 
 def held_points(coords: np.ndarray) -> np.ndarray:
-    """Points ``(frames, animals, keypoints)`` held at their last position: the third and later
-    of three or more frames on which a keypoint's position is exactly the same.
+    """Points ``(frames, animals, keypoints)`` held at their last position: exactly where the
+    keypoint was on the frame before, where coordinates have too many digits for that to be
+    chance.
 
     A track forward-filled over its gaps (``DataFrame.ffill()`` before export, or a tracker
     that keeps a lost point where it last saw it) holds each lost point still, exactly, for as
     long as it was lost. A whole animal held still for 20 s at a time on a fifth of the frames
     took the example sessions from ARI 0.80 to 0.20: the model spent its states on the
-    stillness. Where coordinates are written with enough digits (single exact repeats are
-    rarer than ``HELD_CHANCE``), such runs cannot be an animal and are returned, for keypoints
-    whose position moves along at least two axes over the recording (a fixed landmark, or a
-    one-channel signal, is left alone). The first repeat of each run is kept: a point can rest
-    for one frame.
+    stillness. Where single exact repeats are rarer than ``HELD_CHANCE``, a repeat cannot be an
+    animal, and every one is returned (from a hold's first repeated frame to its last), for
+    keypoints whose position moves along at least two axes over the recording (a fixed
+    landmark, or a one-channel signal, is left alone).
 
     Examples
     --------
     >>> rng = np.random.default_rng(0)
     >>> x = rng.normal(size=(12, 1, 2, 2))
-    >>> x[4:9, 0, 1] = x[3, 0, 1]  # keypoint 1 held from frame 3 to frame 8
+    >>> x[4:9, 0, 1] = x[3, 0, 1]  # keypoint 1 lost from frame 4 to 8, held where last seen
     >>> np.flatnonzero(held_points(x)[:, 0, 1]).tolist()
-    [5, 6, 7, 8]
+    [4, 5, 6, 7, 8]
     >>> coarse = np.round(rng.normal(size=(200, 1, 2, 2)))  # on a coarse grid, repeats
     >>> coarse[4:9, 0, 1] = coarse[3, 0, 1]  # are chance: nothing is held
     >>> held_points(coarse).any()
@@ -246,7 +243,7 @@ def held_points(coords: np.ndarray) -> np.ndarray:
     """
     x = np.asarray(coords, dtype=np.float64)
     held = np.zeros(x.shape[:3], bool)
-    if len(x) < 3:
+    if len(x) < 2:
         return held
     same = (x[1:] == x[:-1]).all(axis=-1)  # (F - 1, A, K): NaN is never equal
     if not same.any():  # coordinates written with many digits, nothing held: done
@@ -256,21 +253,12 @@ def held_points(coords: np.ndarray) -> np.ndarray:
         moving = (np.nanmax(x, axis=0) > np.nanmin(x, axis=0)).sum(axis=-1) >= 2  # (A, K)
     same &= moving
     steps = int((np.isfinite(x[1:]).all(axis=-1) & moving).sum())
-    if not same.any() or not steps:
+    # single repeats: repeated on a frame, not on the frames either side of it
+    padded = np.pad(same, ((1, 1), (0, 0), (0, 0)))
+    single = same & ~padded[:-2] & ~padded[2:]
+    if not steps or single.sum() >= HELD_CHANCE * steps:
         return held
-    # run lengths per point: points one after another, a False between them
-    flat = np.pad(same.reshape(len(same), -1).T, ((0, 0), (0, 1))).ravel().astype(np.int8)
-    edges = np.diff(np.r_[0, flat])
-    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
-    lengths = stops - starts
-    if (lengths == 1).sum() >= HELD_CHANCE * steps:
-        return held
-    mark = np.zeros(len(flat) + 1, np.int8)
-    long = lengths >= HELD_MIN_REPEATS
-    np.add.at(mark, starts[long] + 1, 1)  # from each run's second repeat to its end
-    np.add.at(mark, stops[long], -1)
-    inside = np.cumsum(mark[:-1]).astype(bool).reshape(-1, len(same) + 1)[:, :-1]
-    held[1:] = inside.T.reshape(same.shape)
+    held[1:] = same
     return held
 
 
