@@ -502,7 +502,7 @@ def test_a_study_forward_filled_over_its_gaps_is_cleaned_and_said(tmp_path):
     used = json.loads((tmp_path / "ws" / "summary.json").read_text())["cleaning"]["used"]
     assert min(used["held_points"].values()) >= 99 * 10  # the 4 s: 99 frames x 10 keypoints
     text = quality_section(Workspace(tmp_path / "ws")).text
-    assert "Points held at exactly one position" in text
+    assert "Points held exactly where they were on the frame before" in text
 
 
 def test_sessions_with_many_repeated_frames_are_named():

@@ -460,7 +460,7 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
     c.add_argument(
         "--keep-held-points",
         action="store_true",
-        help="keep points held at exactly one position on three or more frames (default: "
+        help="keep points that repeat their position on the frame before exactly (default: "
         "where coordinates have enough digits that an animal never repeats one, such a point "
         "was held where the tracker lost it, e.g. a track forward-filled, and counts as lost)",
     )

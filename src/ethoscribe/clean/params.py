@@ -82,8 +82,8 @@ class CleanParams:
         :func:`~ethoscribe.clean.steps.repeated_frames`). Not in causal cleaning (it needs
         the next frame).
     mask_held : bool
-        Treat points held at exactly one position on three or more frames, where coordinates
-        are written with enough digits that an animal never repeats one by chance (a track
+        Treat points exactly where they were on the frame before, where coordinates are
+        written with enough digits that an animal never repeats one by chance (a track
         forward-filled over its gaps), as lost (:func:`~ethoscribe.clean.steps.held_points`).
         Not in causal cleaning.
     placeholders : "auto", positions or None

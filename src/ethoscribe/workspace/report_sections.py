@@ -105,8 +105,8 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     if counts:
         said = [f"'{k}' ({v:,})" for k, v in counts.items()]
         text += (
-            " Points held at exactly one position on three or more frames (a tracker keeping "
-            "a lost point where it last saw it, or a track forward-filled over its gaps), "
+            " Points held exactly where they were on the frame before (a tracker keeping a "
+            "lost point where it last saw it, or a track forward-filled over its gaps), "
             f"counted as missing in the raw data: {listed(said)}."
         )
     features = ws.summary.get("features") or {}

@@ -499,7 +499,7 @@ def _warn_held_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> No
             named.append(f"'{row.get('session')}' ({n:,} points)")
     if named:
         warnings.warn(
-            f"points held at exactly one position on three or more frames in session(s) "
+            f"points held exactly where they were on the frame before in session(s) "
             f"{listed(named)} were taken for points the tracker lost and held (a track "
             "forward-filled over its gaps?) and set missing: a living animal never repeats a "
             "position to the last digit. To keep them, pass cleaning={'mask_held': False} "
