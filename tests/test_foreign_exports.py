@@ -497,7 +497,7 @@ def test_a_study_forward_filled_over_its_gaps_is_cleaned_and_said(tmp_path):
         held = pd.DataFrame(flat).ffill().bfill().to_numpy().reshape(tracks.coords.shape)
         write_tidy(tracks.replace(coords=held, confidence=None), tmp_path / f"s{seed}.csv")
         files.append(tmp_path / f"s{seed}.csv")
-    with pytest.warns(InputWarning, match=r"'s1' \([\d,]+ points\), 's2' .* forward-filled"):
+    with pytest.warns(InputWarning, match=r"'s1' \(\d+% of its points\), 's2' .* forward-filled"):
         discover(files, tmp_path / "ws", fps=25, states=2, progress=False, stability=False)
     used = json.loads((tmp_path / "ws" / "summary.json").read_text())["cleaning"]["used"]
     assert min(used["held_points"].values()) >= 99 * 10  # the 4 s: 99 frames x 10 keypoints

@@ -169,6 +169,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "repeated_frames": int(repeated.sum()),
         "placeholder_points": int(placed.sum()),
         "held_points": int(held.sum()),
+        "held_share": float(held.mean()) if held.size else 0.0,
         "placeholders": placeholders,
     }
     out = cal.replace(coords=x, confidence=conf, fps=fps_out, meta={"cleaning": resolved})

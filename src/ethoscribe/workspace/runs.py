@@ -490,13 +490,14 @@ REPEATED_SHARE = 0.01  # more of a session's frames than this repeated: say so
 
 
 def _warn_held_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
-    """Name sessions with many points held still (set lost by the cleaning): a track
-    forward-filled over its gaps, or a tracker keeping lost points where it last saw them."""
+    """Name sessions with more than 1 % of their points held still (set lost by the cleaning):
+    a track forward-filled over its gaps, or a tracker keeping lost points where it last saw
+    them."""
     named = []
     for row, params in zip(rows, used, strict=True):
-        n = params.get("held_points", 0) if isinstance(params, dict) else 0
-        if n > REPEATED_SHARE * int(row.get("n_frames", 0) or 0):
-            named.append(f"'{row.get('session')}' ({n:,} points)")
+        share = params.get("held_share", 0.0) if isinstance(params, dict) else 0.0
+        if share > REPEATED_SHARE:  # of the session's points
+            named.append(f"'{row.get('session')}' ({share:.0%} of its points)")
     if named:
         warnings.warn(
             f"points held exactly where they were on the frame before in session(s) "
