@@ -459,7 +459,7 @@ def test_points_held_where_the_tracker_lost_them_are_missing():
     for t in range(1, len(held)):
         held[t][lost[t]] = held[t - 1][lost[t]]
     expected = lost
-    np.testing.assert_array_equal(held_points(held), expected)
+    np.testing.assert_array_equal(held_points(held)[0], expected)
     tracks = PoseTracks(held, keypoints=KEYPOINTS, fps=30.0, units="mm")
     p = CleanParams(smooth=None, max_speed=None, max_gap_s=0)
     cleaned, report = clean(tracks, p)
@@ -467,16 +467,18 @@ def test_points_held_where_the_tracker_lost_them_are_missing():
     assert report.params["held_points"] == expected.sum() == 30 + 3 + 1 + 4 * 60
     kept, report = clean(tracks, CleanParams(smooth=None, max_speed=None, mask_held=False))
     assert report.params["held_points"] == 0 and np.isfinite(kept.coords).all()
-    assert clean(tracks, p, causal=True)[1].params["held_points"] == 0  # offline only
+    # causal cleaning too: a held point is known on its own frame
+    causal = clean(tracks, p, causal=True)[1].params
+    assert causal["held_points"] == expected.sum() and causal["held_looked_for"]
     # in whole numbers (integer pixels) an animal at rest repeats by chance: nothing held
     rest = np.round(walk[:1] + np.random.default_rng(2).normal(0, 0.4, walk.shape))
     assert (rest[1:] == rest[:-1]).all(-1).mean() > 0.05  # the chance repeats
-    assert not held_points(rest).any()
+    assert held_points(rest)[1] is False and not held_points(rest)[0].any()
     # a keypoint that moves along one axis only (a sensor channel drawn as a height) is left
     # alone, as is one that never moves (a landmark)
     channel = np.zeros((300, 1, 2, 3))
     channel[:, 0, 0, 2] = np.repeat(np.random.default_rng(1).normal(size=100), 3)
-    assert not held_points(channel).any()
+    assert not held_points(channel)[0].any()
     with pytest.raises(InputError, match="mask_held must be True or False"):
         CleanParams(mask_held=1)
 

@@ -101,6 +101,34 @@ def test_a_causal_model_masks_the_placeholders_of_its_sessions_when_streaming():
     assert (offline["state"] >= 0).mean() > 0.8
 
 
+def _forward_filled(tracks):
+    """``tracks`` with lost points (missing or confidence < 0.5) held where last seen."""
+    lost = ~np.isfinite(tracks.coords).all(-1) | (tracks.confidence < 0.5)
+    x = tracks.coords.copy()
+    for t in range(1, len(x)):
+        x[t][lost[t]] = x[t - 1][lost[t]]
+    return tracks.replace(coords=x, confidence=None)
+
+
+def test_a_causal_model_sets_held_points_missing_when_streaming_as_offline():
+    # Invented animals whose tracker holds a lost point where it last saw it: the causal fit
+    # finds that repeats cannot be chance in its sessions, keeps held points on, and streaming
+    # (one frame at a time) sets them missing as offline causal labelling does. Tracks in
+    # whole units repeat by chance: there held points stay off, for streaming too.
+    train, _ = simulate_session(duration_s=60, seed=11, noise=True)
+    new, _ = simulate_session(duration_s=40, seed=12, noise=True)
+    train, new = _forward_filled(train), _forward_filled(new)
+    model = BehaviourModel(n_states=4, causal=True).fit([train])
+    assert model.cleaning_.mask_held
+    offline = model.label([new])
+    live = StreamingLabeller(model)
+    assert live.cleaner._held
+    streamed = np.array([live.push(new.coords[t])[0].state for t in range(new.n_frames)])
+    assert np.mean(streamed == offline["state"].to_numpy()) >= 0.99
+    whole = train.replace(coords=np.round(train.coords))
+    assert not BehaviourModel(n_states=4, causal=True).fit([whole]).cleaning_.mask_held
+
+
 def test_causal_needs_a_streaming_method():
     with pytest.raises(InputError, match="causal=True"):
         BehaviourModel(method="changepoint", causal=True)._check_params()

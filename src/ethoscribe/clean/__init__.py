@@ -21,7 +21,7 @@ past frames, for closed-loop use.
 from __future__ import annotations
 
 from ethoscribe.clean.params import CleanParams
-from ethoscribe.clean.pipeline import StreamingCleaner, clean
+from ethoscribe.clean.pipeline import StreamingCleaner, clean, streaming_cleaning
 from ethoscribe.clean.report import QualityReport
 from ethoscribe.clean.steps import (
     calibrate,
@@ -47,4 +47,5 @@ __all__ = [
     "repair_swaps",
     "resample",
     "smooth",
+    "streaming_cleaning",
 ]

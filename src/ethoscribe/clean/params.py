@@ -84,8 +84,9 @@ class CleanParams:
     mask_held : bool
         Treat points exactly where they were on the frame before, where coordinates are
         written with enough digits that an animal never repeats one by chance (a track
-        forward-filled over its gaps), as lost (:func:`~ethoscribe.clean.steps.held_points`).
-        Not in causal cleaning.
+        forward-filled over its gaps), as lost (:func:`~ethoscribe.clean.steps.held_points`;
+        whether repeats can be chance is read from the whole recording; streaming cleaning
+        takes it as a setting, ``StreamingCleaner(held=...)``).
     placeholders : "auto", positions or None
         Positions a tracker writes for lost points (0, 0; -1, -1), set missing. "auto": any
         position that several keypoints hold exactly on many frames of a recording

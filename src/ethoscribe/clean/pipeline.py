@@ -117,10 +117,16 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     # repeated images (offline only: a repeat is known once the next frame differs)
     repeated = repeated_frames(x) if p.fill_repeated and not causal else np.zeros(len(x), bool)
     x[repeated] = np.nan
-    held = np.zeros(x.shape[:3], bool)
+    held, looked = np.zeros(x.shape[:3], bool), False
     if causal:
         probe = x.copy()  # the check of confidence, and what "auto" speed sees
         _mask_confidence_inplace(probe, conf, p.min_confidence)
+        if p.mask_held:
+            # a held point is known on its own frame; whether repeats can be chance is read
+            # from the whole recording, as the "auto" speed bound is (streaming: a setting)
+            held, looked = held_points(probe)
+            x[held] = probe[held] = np.nan
+            raw_missing |= held
         max_speed = _resolve_speed(p.max_speed, probe, fps)
         del probe
         smooth_spec = (p.smooth, width, p.smooth_order) if p.smooth else None
@@ -133,11 +139,11 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         )
     else:
         low = _mask_confidence_inplace(x, conf, p.min_confidence)
-        # points held still where the tracker lost them (a track forward-filled): not seen;
-        # offline only (whether repeats can be chance is read from the whole recording)
-        held = held_points(x) if p.mask_held else np.zeros(x.shape[:3], bool)
-        x[held] = np.nan
-        raw_missing |= held
+        # points held still where the tracker lost them (a track forward-filled): not seen
+        if p.mask_held:
+            held, looked = held_points(x)
+            x[held] = np.nan
+            raw_missing |= held
         max_speed = _resolve_speed(p.max_speed, x, fps)
         jumps = _mask_jumps_inplace(x, fps, max_speed, pairs, False)
         swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, SWAP_LONE_MAX_AGE_FRAMES)
@@ -170,6 +176,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "placeholder_points": int(placed.sum()),
         "held_points": int(held.sum()),
         "held_share": float(held.mean()) if held.size else 0.0,
+        "held_looked_for": looked,
         "placeholders": placeholders,
     }
     out = cal.replace(coords=x, confidence=conf, fps=fps_out, meta={"cleaning": resolved})
@@ -180,6 +187,31 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "frac_filled": filled,
     }
     return out, _report(cal, out, masks, swapped, pair_names, resolved)
+
+
+def streaming_cleaning(params: CleanParams, used: Sequence[Mapping[str, Any]]) -> CleanParams:
+    """``params`` with what their automatic choices resolved to in the cleaning of some
+    recordings (``used``: each one's ``report.params``) as fixed settings, as streaming needs
+    them: the median of the speed bounds, every placeholder position found, and held points
+    only where no recording's repeats could be chance.
+
+    Examples
+    --------
+    >>> used = [{"max_speed": 400.0, "placeholders": [[0.0, 0.0]], "held_looked_for": True},
+    ...         {"max_speed": 600.0, "placeholders": [], "held_looked_for": False}]
+    >>> p = streaming_cleaning(CleanParams(), used)
+    >>> p.max_speed, p.placeholders, p.mask_held
+    (500.0, ((0.0, 0.0),), False)
+    """
+    if params.max_speed == "auto":
+        speeds = [float(u["max_speed"]) for u in used if u.get("max_speed") is not None]
+        params = replace(params, max_speed=float(np.median(speeds)) if speeds else None)
+    if params.placeholders == "auto":
+        found = {tuple(q) for u in used for q in u.get("placeholders") or ()}
+        params = replace(params, placeholders=sorted(found))
+    if params.mask_held and not all(u.get("held_looked_for", True) for u in used):
+        params = replace(params, mask_held=False)
+    return params
 
 
 class StreamingCleaner:
@@ -193,6 +225,10 @@ class StreamingCleaner:
     keypoints : sequence of str; fps : float; n_animals, n_dims : int
     units : str
         Units of the pushed coordinates (``"px"`` is calibrated with ``params.px_per_unit``).
+    held : bool
+        Set a point exactly where it was on the frame before missing (``params.mask_held``
+        where a pilot recording's ``report.params["held_looked_for"]`` is True: its repeats
+        could not be chance). Off by default: a stream in whole units repeats by chance.
 
     Examples
     --------
@@ -209,6 +245,7 @@ class StreamingCleaner:
         n_animals: int = 1,
         n_dims: int = 2,
         units: str = "px",
+        held: bool = False,
     ) -> None:
         p = params if params is not None else CleanParams()
         if p.max_speed == "auto":
@@ -221,6 +258,7 @@ class StreamingCleaner:
             raise InputError("streaming cleaning cannot resample; set target_fps=None")
         self.params, self.keypoints, self.fps = p, tuple(keypoints), _fps(fps)
         self._placeholders = p.placeholders if isinstance(p.placeholders, tuple) else ()
+        self._held, self._last = bool(held), None  # the frame before, as pushed
         self._divisor, self.units = _calibration(units, p.px_per_unit, p.unit, "the stream")
         self.shape = (int(n_animals), len(self.keypoints), int(n_dims))
         if self.shape[0] < 1 or self.shape[1] < 1 or self.shape[2] not in (2, 3):
@@ -259,6 +297,10 @@ class StreamingCleaner:
             raise InputError(f"frame {self._state.t}: coordinates contain infinite values")
         if self._placeholders:  # given positions only: "auto" needs the whole recording
             x[at_positions(x, self._placeholders)] = np.nan
+        if self._held:  # a point exactly where it was on the frame before: held, not seen
+            last, self._last = self._last, x.copy()
+            if last is not None:
+                x[(x == last).all(axis=-1)] = np.nan
         if confidence is None:
             c = np.where(np.isfinite(x).all(axis=-1), 1.0, np.nan)
         else:

@@ -215,10 +215,10 @@ forward-filled 0.004, the independent simulator's 0.001; the same rounded to who
 integer pixels are, 0.05-0.09: there an animal at rest repeats, and nothing is looked for)."""
 
 
-def held_points(coords: np.ndarray) -> np.ndarray:
+def held_points(coords: np.ndarray) -> tuple[np.ndarray, bool]:
     """Points ``(frames, animals, keypoints)`` held at their last position: exactly where the
     keypoint was on the frame before, where coordinates have too many digits for that to be
-    chance.
+    chance; and whether they do (False: repeats can be chance here, nothing is looked for).
 
     A track forward-filled over its gaps (``DataFrame.ffill()`` before export, or a tracker
     that keeps a lost point where it last saw it) holds each lost point still, exactly, for as
@@ -234,20 +234,22 @@ def held_points(coords: np.ndarray) -> np.ndarray:
     >>> rng = np.random.default_rng(0)
     >>> x = rng.normal(size=(12, 1, 2, 2))
     >>> x[4:9, 0, 1] = x[3, 0, 1]  # keypoint 1 lost from frame 4 to 8, held where last seen
-    >>> np.flatnonzero(held_points(x)[:, 0, 1]).tolist()
-    [4, 5, 6, 7, 8]
+    >>> held, looked = held_points(x)
+    >>> np.flatnonzero(held[:, 0, 1]).tolist(), looked
+    ([4, 5, 6, 7, 8], True)
     >>> coarse = np.round(rng.normal(size=(200, 1, 2, 2)))  # on a coarse grid, repeats
     >>> coarse[4:9, 0, 1] = coarse[3, 0, 1]  # are chance: nothing is held
-    >>> held_points(coarse).any()
-    np.False_
+    >>> held, looked = held_points(coarse)
+    >>> held.any(), looked
+    (np.False_, False)
     """
     x = np.asarray(coords, dtype=np.float64)
     held = np.zeros(x.shape[:3], bool)
     if len(x) < 2:
-        return held
+        return held, True
     same = (x[1:] == x[:-1]).all(axis=-1)  # (F - 1, A, K): NaN is never equal
     if not same.any():  # coordinates written with many digits, nothing held: done
-        return held
+        return held, True
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # a keypoint never tracked
         moving = (np.nanmax(x, axis=0) > np.nanmin(x, axis=0)).sum(axis=-1) >= 2  # (A, K)
@@ -256,10 +258,12 @@ def held_points(coords: np.ndarray) -> np.ndarray:
     # single repeats: repeated on a frame, not on the frames either side of it
     padded = np.pad(same, ((1, 1), (0, 0), (0, 0)))
     single = same & ~padded[:-2] & ~padded[2:]
-    if not steps or single.sum() >= HELD_CHANCE * steps:
-        return held
+    if not steps:
+        return held, True
+    if single.sum() >= HELD_CHANCE * steps:
+        return held, False
     held[1:] = same
-    return held
+    return held, True
 
 
 def repeated_frames(coords: np.ndarray) -> np.ndarray:

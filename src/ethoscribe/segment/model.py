@@ -19,7 +19,7 @@ from sklearn.base import BaseEstimator
 from tqdm.auto import tqdm
 
 from ethoscribe.checks import is_real, seed_from
-from ethoscribe.clean import CleanParams, QualityReport, clean
+from ethoscribe.clean import CleanParams, QualityReport, clean, streaming_cleaning
 from ethoscribe.errors import EthoscribeError, InputError, InputWarning, listed
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.features.vertical_check import resolve_up_axis
@@ -539,11 +539,12 @@ class BehaviourModel(BaseEstimator):
             # invented), and labels mapped back to every session's own frames (label()).
             params = replace(params, target_fps=rates[0])
         cleaned, quality = self._clean_all(sessions, params)
-        if self.causal and "auto" in (params.max_speed, params.placeholders):
-            # Streaming needs one fixed bound (the median of the sessions' automatic ones) and
-            # the placeholders as positions (every one the sessions showed).
-            fixed = _fixed_cleaning(cleaned, params)
-            redo = params.max_speed == "auto" or fixed.placeholders
+        if self.causal:
+            # Streaming needs one fixed bound (the median of the sessions' automatic ones), the
+            # placeholders as positions, and held points only where no repeat can be chance.
+            fixed = streaming_cleaning(params, [s.meta.get("cleaning", {}) for s in cleaned])
+            unheld = params.mask_held and not fixed.mask_held
+            redo = params.max_speed == "auto" or fixed.placeholders or unheld
             params = fixed
             if redo:  # else the same points are masked: the first cleaning stands
                 cleaned, quality = self._clean_all(sessions, params)
@@ -1326,7 +1327,9 @@ class BehaviourModel(BaseEstimator):
         def pick(prefix: str) -> dict[str, np.ndarray]:
             return {k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)}
 
-        model.cleaning_ = CleanParams.from_dict(meta["cleaning"])
+        # saved before placeholders and held points were looked for: they still are not
+        saved = {"placeholders": None, "mask_held": False, **meta["cleaning"]}
+        model.cleaning_ = CleanParams.from_dict(saved)
         model.features_ = FeaturePipeline.from_state(meta["features"], pick("features/"))
         cls = get_segmenter(model.method).cls
         if kind != cls.__name__:
@@ -1639,13 +1642,6 @@ def _poor_fit_line(r: Mapping[str, Any]) -> str:
     return f"session '{r['session']}': {what}. {_POOR_FIT_ADVICE}"
 
 
-def _fixed_speed(cleaned: Sequence[PoseTracks]) -> float | None:
-    """Median of the speed bounds the sessions' automatic cleaning resolved (None: none)."""
-    speeds = [s.meta.get("cleaning", {}).get("max_speed") for s in cleaned]
-    speeds = [float(v) for v in speeds if v is not None]
-    return float(np.median(speeds)) if speeds else None
-
-
 def _causal_cleaning(cleaned: Sequence[PoseTracks], params: CleanParams) -> CleanParams:
     """Cleaning of a causal model: tracks cleaned causally, and a fixed speed bound."""
     batch = [s.session for s in cleaned if not s.meta.get("cleaning", {}).get("causal", False)]
@@ -1656,20 +1652,7 @@ def _causal_cleaning(cleaned: Sequence[PoseTracks], params: CleanParams) -> Clea
         )
     if params.target_fps is not None:
         raise InputError("causal=True cannot resample; set cleaning target_fps=None")
-    return _fixed_cleaning(cleaned, params)
-
-
-def _fixed_cleaning(cleaned: Sequence[PoseTracks], params: CleanParams) -> CleanParams:
-    """``params`` with what "auto" resolved to in ``cleaned`` as fixed values, as streaming
-    needs them: the median speed bound, and every placeholder position found."""
-    if params.max_speed == "auto":
-        params = replace(params, max_speed=_fixed_speed(cleaned))
-    if params.placeholders == "auto":
-        found = {
-            tuple(q) for s in cleaned for q in s.meta.get("cleaning", {}).get("placeholders") or ()
-        }
-        params = replace(params, placeholders=sorted(found))
-    return params
+    return streaming_cleaning(params, [s.meta.get("cleaning", {}) for s in cleaned])
 
 
 def _filtered(method: str, seg: Any, X: np.ndarray, lengths: np.ndarray) -> np.ndarray:

@@ -127,6 +127,7 @@ class StreamingLabeller:
             n_animals=self.n_animals,
             n_dims=model.n_dims_,
             units=units,
+            held=model.cleaning_.mask_held,  # a causal fit keeps it only where apt
         )
         if self.cleaner.units != fitted_units:
             fix = (

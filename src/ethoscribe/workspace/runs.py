@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ethoscribe.clean import CleanParams
+from ethoscribe.clean import CleanParams, streaming_cleaning
 from ethoscribe.clean.steps import position_text
 from ethoscribe.curation import Curation
 from ethoscribe.errors import InputError, InputWarning, WorkspaceError, listed
@@ -190,19 +190,15 @@ def discover(
         prepared, quality, table, used = _prepare(
             out, plan, cleaning, jobs, client, force, progress, causal
         )
-        if causal and "auto" in (cleaning.get("max_speed"), cleaning.get("placeholders")):
-            # Streaming needs one speed bound and the placeholders as positions: clean again
-            # with the sessions' median speed bound and every placeholder they showed.
-            fixed = {}
-            if cleaning.get("max_speed") == "auto":
-                speeds = [u["max_speed"] for u in used if u and u.get("max_speed") is not None]
-                fixed["max_speed"] = float(np.median(speeds)) if speeds else None
-            if cleaning.get("placeholders") == "auto":
-                found = {tuple(q) for u in used if u for q in u.get("placeholders") or ()}
-                fixed["placeholders"] = [list(q) for q in sorted(found)]
-            redo = cleaning.get("max_speed") == "auto" or fixed.get("placeholders")
-            cleaning = {**cleaning, **fixed}
-            if redo:  # else the same points are masked: the first cleaning stands
+        if causal:
+            # Streaming needs fixed settings: the sessions' median speed bound, every
+            # placeholder they showed, held points only where no repeat can be chance.
+            given = CleanParams.from_dict(cleaning)
+            fixed = streaming_cleaning(given, [u for u in used if u])
+            cleaning = fixed.to_dict()
+            unheld = given.mask_held and not fixed.mask_held
+            if given.max_speed == "auto" or fixed.placeholders or unheld:
+                # else the same points are masked: the first cleaning stands
                 prepared, quality, table, used = _prepare(
                     out, plan, cleaning, jobs, client, force, progress, causal
                 )
