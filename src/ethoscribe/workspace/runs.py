@@ -187,9 +187,12 @@ def discover(
         cleaning = discovery_cleaning(cleaning, min_confidence).to_dict()
         _refuse_mixed_rates(plan, cleaning)
         client = connect(scheduler)
-        prepared, quality, table, used = _prepare(
-            out, plan, cleaning, jobs, client, force, progress, causal
-        )
+        with warnings.catch_warnings(record=True) as said:
+            warnings.simplefilter("always")
+            prepared, quality, table, used = _prepare(
+                out, plan, cleaning, jobs, client, force, progress, causal
+            )
+        redo = False
         if causal:
             # Streaming needs fixed settings: the sessions' median speed bound, every
             # placeholder they showed, held points only where no repeat can be chance.
@@ -197,11 +200,15 @@ def discover(
             fixed = streaming_cleaning(given, [u for u in used if u])
             cleaning = fixed.to_dict()
             unheld = given.mask_held and not fixed.mask_held
-            if given.max_speed == "auto" or fixed.placeholders or unheld:
-                # else the same points are masked: the first cleaning stands
-                prepared, quality, table, used = _prepare(
-                    out, plan, cleaning, jobs, client, force, progress, causal
-                )
+            # else the same points are masked: the first cleaning stands
+            redo = bool(given.max_speed == "auto" or fixed.placeholders or unheld)
+        if redo:  # its own warnings are the ones that hold (once, not twice)
+            prepared, quality, table, used = _prepare(
+                out, plan, cleaning, jobs, client, force, progress, causal
+            )
+        else:
+            for w in said:
+                warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
         sample = _training_sample(prepared, table, fit_frames, seed)
         no_social = {"social": False}  # set only when off: earlier fits keep their digest
         # Likewise; fits made before the axis was read from the tracks assumed z, so only an
