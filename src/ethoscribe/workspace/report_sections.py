@@ -81,34 +81,26 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
             f"tracked): {listed(said, sep='; ')}. Their positions there are the posture "
             "model's guesses, so motifs say nothing about them in those sessions."
         )
-    counts = _cleaning_counts(ws, table, "repeated_frames")
-    if counts:
-        said = [f"'{k}' ({v:,})" for k, v in counts.items()]
-        text += (
-            " Frames that repeated the frame before exactly, filled from their neighbours "
-            "(a video whose frame rate was raised by repeating images; counted in 'filled'): "
-            f"{listed(said)}."
-        )
-    counts = _cleaning_counts(ws, table, "placeholder_points")
-    if counts:
-        said = [f"'{k}' ({v:,})" for k, v in counts.items()]
-        used = ((ws.summary.get("cleaning") or {}).get("used") or {}).get("placeholders") or []
-        lists = used.values() if isinstance(used, dict) else [used]  # per session, or one
-        places = sorted({tuple(q) for found in lists for q in found or ()})
-        at = listed(position_text(q) for q in places)
-        text += (
-            f" Points at {at}, a placeholder position (one that several keypoints held "
-            "exactly on many frames: a tracker writing lost points there), counted as missing "
-            f"in the raw data: {listed(said)}."
-        )
-    counts = _cleaning_counts(ws, table, "held_points")
-    if counts:
-        said = [f"'{k}' ({v:,})" for k, v in counts.items()]
-        text += (
-            " Points held exactly where they were on the frame before (a tracker keeping a "
-            "lost point where it last saw it, or a track forward-filled over its gaps), "
-            f"counted as missing in the raw data: {listed(said)}."
-        )
+    text += _counts_said(
+        ws, table, "repeated_frames",
+        "Frames that repeated the frame before exactly, filled from their neighbours (a video "
+        "whose frame rate was raised by repeating images; counted in 'filled')",
+    )  # fmt: skip
+    used = ((ws.summary.get("cleaning") or {}).get("used") or {}).get("placeholders") or []
+    lists = used.values() if isinstance(used, dict) else [used]  # per session, or one
+    places = sorted({tuple(q) for found in lists for q in found or ()})
+    text += _counts_said(
+        ws, table, "placeholder_points",
+        f"Points at {listed(position_text(q) for q in places)}, a placeholder position (one "
+        "that several keypoints held exactly on many frames: a tracker writing lost points "
+        "there), counted as missing in the raw data",
+    )  # fmt: skip
+    text += _counts_said(
+        ws, table, "held_points",
+        "Points held exactly where they were on the frame before (a tracker keeping a lost "
+        "point where it last saw it, or a track forward-filled over its gaps), counted as "
+        "missing in the raw data",
+    )  # fmt: skip
     features = ws.summary.get("features") or {}
     left_out = [str(k) for k in features.get("keypoints_left_out") or []]
     read = features.get("keypoints")  # those the model reads (runs since 2026-12-05)
@@ -145,13 +137,16 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     return Section("Data quality", text, [quality_figure(table)], [(caption, shown)])
 
 
-def _cleaning_counts(ws: Workspace, table: pd.DataFrame, key: str) -> dict[str, int]:
-    """Per session, a count the cleaning wrote under ``key`` (sessions with none left out)."""
+def _counts_said(ws: Workspace, table: pd.DataFrame, key: str, what: str) -> str:
+    """`` {what}: 's1' (12), 's2' (3).`` for a count the cleaning wrote under ``key`` per
+    session (sessions with none left out; "" when no session has any)."""
     value = ((ws.summary.get("cleaning") or {}).get("used") or {}).get(key)
     if isinstance(value, dict):  # one count per session where they differ
-        return {str(k): int(v) for k, v in value.items() if v}
-    # one count every session had
-    return {str(s): int(value) for s in table["session"].unique()} if value else {}
+        counts = {str(k): int(v) for k, v in value.items() if v}
+    else:  # one count every session had
+        counts = {str(s): int(value) for s in table["session"].unique()} if value else {}
+    said = listed(f"'{k}' ({v:,})" for k, v in counts.items())
+    return f" {what}: {said}." if counts else ""
 
 
 def model_section(ws: Workspace) -> Section:
