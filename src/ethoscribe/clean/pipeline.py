@@ -49,7 +49,7 @@ def clean(
     causal: bool = False,
     **overrides: Any,
 ) -> tuple[PoseTracks, QualityReport]:
-    """Run calibrate -> placeholders -> repeats -> confidence -> held points -> jumps -> swaps ->
+    """Run calibrate -> placeholders -> held points -> repeats -> confidence -> jumps -> swaps ->
     gaps -> smoothing -> resampling.
 
     Parameters
@@ -112,21 +112,26 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     else:
         placeholders = [list(q) for q in p.placeholders or ()]
         placed = at_positions(tracks.coords, placeholders)
-    x[placed] = np.nan
+    x[placed], conf[placed] = np.nan, np.nan
     raw_missing = np.isnan(x[..., 0])
+    # points held still where the tracker lost them (a track forward-filled): not seen. Before
+    # repeated images, whose frames would break a hold in two. A held point is known on its own
+    # frame; whether repeats can be chance is read from the whole recording, as the "auto"
+    # speed bound is (streaming takes it as a setting).
+    held, looked = np.zeros(x.shape[:3], bool), False
+    if p.mask_held:
+        probe = x.copy()  # the points the confidence keeps
+        _mask_confidence_inplace(probe, conf, p.min_confidence)
+        held, looked = held_points(probe)
+        x[held], conf[held] = np.nan, np.nan
+        raw_missing |= held
+        del probe
     # repeated images (offline only: a repeat is known once the next frame differs)
     repeated = repeated_frames(x) if p.fill_repeated and not causal else np.zeros(len(x), bool)
-    x[repeated] = np.nan
-    held, looked = np.zeros(x.shape[:3], bool), False
+    x[repeated], conf[repeated] = np.nan, np.nan  # missing points have no confidence
     if causal:
         probe = x.copy()  # the check of confidence, and what "auto" speed sees
         _mask_confidence_inplace(probe, conf, p.min_confidence)
-        if p.mask_held:
-            # a held point is known on its own frame; whether repeats can be chance is read
-            # from the whole recording, as the "auto" speed bound is (streaming: a setting)
-            held, looked = held_points(probe)
-            x[held] = probe[held] = np.nan
-            raw_missing |= held
         max_speed = _resolve_speed(p.max_speed, probe, fps)
         del probe
         smooth_spec = (p.smooth, width, p.smooth_order) if p.smooth else None
@@ -139,11 +144,6 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         )
     else:
         low = _mask_confidence_inplace(x, conf, p.min_confidence)
-        # points held still where the tracker lost them (a track forward-filled): not seen
-        if p.mask_held:
-            held, looked = held_points(x)
-            x[held] = np.nan
-            raw_missing |= held
         max_speed = _resolve_speed(p.max_speed, x, fps)
         jumps = _mask_jumps_inplace(x, fps, max_speed, pairs, False)
         swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, SWAP_LONE_MAX_AGE_FRAMES)
@@ -295,12 +295,15 @@ class StreamingCleaner:
             )
         if np.isinf(x).any():
             raise InputError(f"frame {self._state.t}: coordinates contain infinite values")
+        lost = np.zeros(self.shape[:2], bool)  # set missing here, as in clean(): no confidence
         if self._placeholders:  # given positions only: "auto" needs the whole recording
-            x[at_positions(x, self._placeholders)] = np.nan
+            lost |= at_positions(x, self._placeholders)
+            x[lost] = np.nan
         if self._held:  # a point exactly where it was on the frame before: held, not seen
             last, self._last = self._last, x.copy()
             if last is not None:
-                x[(x == last).all(axis=-1)] = np.nan
+                lost |= (x == last).all(axis=-1)
+                x[lost] = np.nan
         if confidence is None:
             c = np.where(np.isfinite(x).all(axis=-1), 1.0, np.nan)
         else:
@@ -310,6 +313,7 @@ class StreamingCleaner:
                     f"frame {self._state.t}: confidence must have shape "
                     f"{self.shape[:2]}; got {c.shape}"
                 )
+            c[lost] = np.nan
         x = x[None] / self._divisor if self._divisor != 1.0 else x[None]
         self._state.run(self._settings, x, c[None])
         return x[0]
