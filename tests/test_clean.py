@@ -467,9 +467,15 @@ def test_points_held_where_the_tracker_lost_them_are_missing():
     assert report.params["held_points"] == expected.sum() == 30 + 3 + 1 + 4 * 60
     kept, report = clean(tracks, CleanParams(smooth=None, max_speed=None, mask_held=False))
     assert report.params["held_points"] == 0 and np.isfinite(kept.coords).all()
-    # causal cleaning too: a held point is known on its own frame
-    causal = clean(tracks, p, causal=True)[1].params
-    assert causal["held_points"] == expected.sum() and causal["held_looked_for"]
+    # causal cleaning too: a held point is known on its own frame; streaming, told so, cleans
+    # every frame as causal cleaning of the recording does (with low-confidence points too)
+    conf = np.where(np.random.default_rng(3).random(lost.shape) < 0.05, 0.2, 0.9)
+    seen = tracks.replace(confidence=conf)
+    offline, report = clean(seen, CleanParams(max_speed=None), causal=True)
+    assert report.params["held_looked_for"] and report.params["held_points"] > 250
+    stream = StreamingCleaner(CleanParams(max_speed=None), KEYPOINTS, 30.0, units="mm", held=True)
+    pushed = np.stack([stream.push(x, c) for x, c in zip(seen.coords, conf, strict=True)])
+    np.testing.assert_allclose(pushed, offline.coords, equal_nan=True)
     # in whole numbers (integer pixels) an animal at rest repeats by chance: nothing held
     rest = np.round(walk[:1] + np.random.default_rng(2).normal(0, 0.4, walk.shape))
     assert (rest[1:] == rest[:-1]).all(-1).mean() > 0.05  # the chance repeats

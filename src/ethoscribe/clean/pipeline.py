@@ -295,15 +295,6 @@ class StreamingCleaner:
             )
         if np.isinf(x).any():
             raise InputError(f"frame {self._state.t}: coordinates contain infinite values")
-        lost = np.zeros(self.shape[:2], bool)  # set missing here, as in clean(): no confidence
-        if self._placeholders:  # given positions only: "auto" needs the whole recording
-            lost |= at_positions(x, self._placeholders)
-            x[lost] = np.nan
-        if self._held:  # a point exactly where it was on the frame before: held, not seen
-            last, self._last = self._last, x.copy()
-            if last is not None:
-                lost |= (x == last).all(axis=-1)
-                x[lost] = np.nan
         if confidence is None:
             c = np.where(np.isfinite(x).all(axis=-1), 1.0, np.nan)
         else:
@@ -313,7 +304,18 @@ class StreamingCleaner:
                     f"frame {self._state.t}: confidence must have shape "
                     f"{self.shape[:2]}; got {c.shape}"
                 )
-            c[lost] = np.nan
+        lost = np.zeros(self.shape[:2], bool)  # set missing here, as in clean()
+        if self._placeholders:  # given positions only: "auto" needs the whole recording
+            lost |= at_positions(x, self._placeholders)
+        if self._held:  # exactly where it was on the frame before, among the points seen
+            thr = self.params.min_confidence
+            with np.errstate(invalid="ignore"):
+                unseen = lost | (c < thr) if thr is not None else lost  # NaN confidence: kept
+            seen = np.where(unseen[..., None], np.nan, x)
+            last, self._last = self._last, seen
+            if last is not None:
+                lost |= (seen == last).all(axis=-1)
+        x[lost], c[lost] = np.nan, np.nan  # missing points have no confidence
         x = x[None] / self._divisor if self._divisor != 1.0 else x[None]
         self._state.run(self._settings, x, c[None])
         return x[0]
