@@ -1643,7 +1643,8 @@ def _poor_fit_line(r: Mapping[str, Any]) -> str:
 
 
 def _causal_cleaning(cleaned: Sequence[PoseTracks], params: CleanParams) -> CleanParams:
-    """Cleaning of a causal model: tracks cleaned causally, and a fixed speed bound."""
+    """Cleaning of a causal model: tracks cleaned causally, and fixed settings where the
+    cleaning chose them from the recordings (:func:`~ethoscribe.clean.streaming_cleaning`)."""
     batch = [s.session for s in cleaned if not s.meta.get("cleaning", {}).get("causal", False)]
     if batch:
         raise InputError(

@@ -127,7 +127,8 @@ class StreamingLabeller:
             n_animals=self.n_animals,
             n_dims=model.n_dims_,
             units=units,
-            held=model.cleaning_.mask_held,  # a causal fit keeps it only where apt
+            # held points: a causal fit keeps the rule only where its repeats were no chance
+            held=bool(model.causal and model.cleaning_.mask_held),
         )
         if self.cleaner.units != fitted_units:
             fix = (
