@@ -71,16 +71,17 @@ PLACEHOLDER_MIN_FRAMES = 10
 """A position (exact in every coordinate) held by two or more keypoints, in at least this many
 frames of a session, is a candidate placeholder for lost points (often 0, 0 or -1, -1)."""
 
-PLACEHOLDER_SAMPLE = 20_000
-"""At most this many frames (times animals), evenly spaced, are searched for placeholders; a
-position must then recur ``PLACEHOLDER_MIN_FRAMES`` / spacing times among them (at least 3).
-Every point at a position found is then set missing, in every frame."""
-
 PLACEHOLDER_FAR = 2.0
 """...and is one when the points holding it lie, on the median frame, more than this many body
 lengths (median largest distance between two keypoints not at it) from the centre of the
 frame's other keypoints: a lost point is put where no body part is. Where the whole body is at
 it, on fewer than half the frames, it stands for an animal lost."""
+
+
+PLACEHOLDER_SAMPLE = 20_000
+"""At most this many frames (times animals), evenly spaced, are searched for placeholders; a
+position must then recur ``PLACEHOLDER_MIN_FRAMES`` / spacing times among them (at least 3).
+Every point at a position found is then set missing, in every frame."""
 
 
 def placeholder_positions(coords: np.ndarray) -> tuple[np.ndarray, list[list[float]]]:
@@ -255,11 +256,11 @@ def held_points(coords: np.ndarray) -> tuple[np.ndarray, bool]:
         moving = (np.nanmax(x, axis=0) > np.nanmin(x, axis=0)).sum(axis=-1) >= 2  # (A, K)
     same &= moving
     steps = int((np.isfinite(x[1:]).all(axis=-1) & moving).sum())
+    if not steps:
+        return held, True
     # single repeats: repeated on a frame, not on the frames either side of it
     padded = np.pad(same, ((1, 1), (0, 0), (0, 0)))
     single = same & ~padded[:-2] & ~padded[2:]
-    if not steps:
-        return held, True
     if single.sum() >= HELD_CHANCE * steps:
         return held, False
     held[1:] = same
