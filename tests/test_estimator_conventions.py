@@ -129,12 +129,14 @@ def test_behaviour_model_with_a_generator_saves_its_seed(sessions):
     assert meta["params"]["random_state"] == model.random_seed_
     back = BehaviourModel.from_state(meta, arrays)
     np.testing.assert_array_equal(back.label(sessions)["state"], model.label(sessions)["state"])
-    assert (back.cleaning_.placeholders, back.cleaning_.mask_held) == ("auto", True)
-    # a model saved before placeholders and held points were looked for still does not
-    for key in ("placeholders", "mask_held"):
+    c = back.cleaning_
+    assert (c.placeholders, c.mask_held, c.repair_identities) == ("auto", True, True)
+    # a model saved before placeholders, held points and exchanged identities were looked for
+    # still does not look for them
+    for key in ("placeholders", "mask_held", "repair_identities"):
         del meta["cleaning"][key]
     older = BehaviourModel.from_state(meta, arrays).cleaning_
-    assert (older.placeholders, older.mask_held) == (None, False)
+    assert (older.placeholders, older.mask_held, older.repair_identities) == (None, False, False)
 
 
 def test_feature_pipeline_fit_transform_equals_fit_then_transform(sessions):

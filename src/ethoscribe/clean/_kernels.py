@@ -362,6 +362,66 @@ def causal_block(
     return flags, swapped
 
 
+@njit(cache=True)
+def _seen(a, i):
+    """Row i of ``a`` has a number in every dim."""
+    for d in range(a.shape[1]):
+        if np.isnan(a[i, d]):
+            return False
+    return True
+
+
+@njit(cache=True)
+def _median_distance(last, last_t, i, xf, j, t, max_age, buf):
+    """Median over keypoints of the distance from track ``i``'s last seen points (at most
+    ``max_age`` frames old) to track ``j``'s points on frame ``t``; NaN when none pair up."""
+    n = 0
+    for k in range(xf.shape[1]):
+        if not _seen(xf[j], k) or last_t[i, k] < 0 or t - last_t[i, k] > max_age:
+            continue
+        v = np.sqrt(_dist2(last[i], k, xf[j], k))
+        m = n  # insertion sort: K is small
+        while m > 0 and buf[m - 1] > v:
+            buf[m] = buf[m - 1]
+            m -= 1
+        buf[m] = v
+        n += 1
+    return 0.5 * (buf[(n - 1) // 2] + buf[n // 2]) if n else np.nan
+
+
+@njit(cache=True)
+def identity_block(x, t0, last, last_t, max_age, floor):
+    """Distances between tracks over frames ``t0 ..`` of ``x`` (n, A, K, D): ``out[t, i, j]``
+    from track i's last seen points to track j's (``_median_distance``), filled only on
+    frames where some track's own distance exceeds ``floor`` (NaN elsewhere). ``last``
+    (A, K, D) and ``last_t`` (A, K; -1 never seen) are updated in place."""
+    n, n_animals, n_kp = x.shape[0], x.shape[1], x.shape[2]
+    out = np.full((n, n_animals, n_animals), np.nan)
+    buf = np.empty(n_kp)
+    for f in range(n):
+        t = t0 + f
+        xf = x[f]
+        moved = False
+        for a in range(n_animals):
+            own = _median_distance(last, last_t, a, xf, a, t, max_age, buf)
+            out[f, a, a] = own
+            moved |= own > floor
+        if moved:
+            for i in range(n_animals):
+                for j in range(n_animals):
+                    if i != j:
+                        out[f, i, j] = _median_distance(last, last_t, i, xf, j, t, max_age, buf)
+        else:
+            for a in range(n_animals):
+                out[f, a, a] = np.nan
+        for a in range(n_animals):
+            for k in range(n_kp):
+                if _seen(xf[a], k):
+                    _copy_row(last[a], k, xf[a], k)
+                    last_t[a, k] = t
+    return out
+
+
 class CausalSettings(NamedTuple):
     """Resolved scalar settings of the causal steps (see ``causal_block``)."""
 

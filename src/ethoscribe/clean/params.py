@@ -93,6 +93,11 @@ class CleanParams:
         (:func:`~ethoscribe.clean.steps.placeholder_positions`); positions, e.g.
         ``[(-1, -1)]``: these, exactly; None: none. Streaming cleaning masks given positions
         only (it cannot read them from a recording it has not seen).
+    repair_identities : bool
+        With several animals, a track that leaps to where another animal's track last was (a
+        multi-animal tracker exchanging identities, usually as the animals touch) is given
+        that animal's identity from then on (:class:`~ethoscribe.clean.steps.IdentityKeeper`;
+        needs the jump test's speed bound). Streaming does it too.
 
     Examples
     --------
@@ -114,6 +119,7 @@ class CleanParams:
     fill_repeated: bool = True
     mask_held: bool = True
     placeholders: str | Sequence[Sequence[float]] | None = "auto"
+    repair_identities: bool = True
 
     def __post_init__(self) -> None:
         conf = self.min_confidence
@@ -140,7 +146,7 @@ class CleanParams:
         for name in ("px_per_unit", "target_fps"):  # plain floats keep to_dict() JSON-able
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, _positive(name, getattr(self, name)))
-        for name in ("fill_repeated", "mask_held"):
+        for name in ("fill_repeated", "mask_held", "repair_identities"):
             if not isinstance(getattr(self, name), bool | np.bool_):
                 raise InputError(f"{name} must be True or False; got {getattr(self, name)!r}")
             object.__setattr__(self, name, bool(getattr(self, name)))

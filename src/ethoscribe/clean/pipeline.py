@@ -24,6 +24,8 @@ from ethoscribe.clean.params import (
 )
 from ethoscribe.clean.report import QualityReport, _report
 from ethoscribe.clean.steps import (
+    IDENTITY_MAX_AGE_S,
+    IdentityKeeper,
     _calibration,
     _fill_gaps_inplace,
     _mask_confidence_inplace,
@@ -36,6 +38,7 @@ from ethoscribe.clean.steps import (
     calibrate,
     held_points,
     placeholder_positions,
+    relink_by_shape,
     repeated_frames,
     resample,
 )
@@ -133,7 +136,9 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         probe = x.copy()  # the check of confidence, and what "auto" speed sees
         _mask_confidence_inplace(probe, conf, p.min_confidence)
         max_speed = _resolve_speed(p.max_speed, probe, fps)
+        order, exchanges = _identities(probe, fps, max_speed, p, True)
         del probe
+        x, conf, raw_missing, held = (_in_order(v, order) for v in (x, conf, raw_missing, held))
         smooth_spec = (p.smooth, width, p.smooth_order) if p.smooth else None
         settings = _settings(
             x.shape, fps, p.min_confidence, max_speed, pairs, True, max_gap, smooth_spec
@@ -145,6 +150,10 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     else:
         low = _mask_confidence_inplace(x, conf, p.min_confidence)
         max_speed = _resolve_speed(p.max_speed, x, fps)
+        order, exchanges = _identities(x, fps, max_speed, p, False)
+        x, conf, raw_missing, held, low = (
+            _in_order(v, order) for v in (x, conf, raw_missing, held, low)
+        )
         jumps = _mask_jumps_inplace(x, fps, max_speed, pairs, False)
         swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, SWAP_LONE_MAX_AGE_FRAMES)
         filled = _fill_gaps_inplace(x, max_gap)
@@ -177,6 +186,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "held_points": int(held.sum()),
         "held_share": float(held.mean()) if held.size else 0.0,
         "held_looked_for": looked,
+        "identity_exchanges": exchanges,
         "placeholders": placeholders,
     }
     out = cal.replace(coords=x, confidence=conf, fps=fps_out, meta={"cleaning": resolved})
@@ -187,6 +197,39 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "frac_filled": filled,
     }
     return out, _report(cal, out, masks, swapped, pair_names, resolved)
+
+
+def _identities(
+    seen: np.ndarray, fps: float, max_speed: float | None, p: CleanParams, causal: bool
+) -> tuple[np.ndarray | None, int]:
+    """Each animal's track per frame (``IdentityKeeper``; offline also across junctions,
+    ``relink_by_shape``) and how many exchanges were undone; None where there is one animal,
+    no speed bound, or ``repair_identities`` is off."""
+    if not p.repair_identities or max_speed is None or seen.shape[1] < 2:
+        return None, 0
+    keeper = IdentityKeeper(seen.shape[1], max_speed / fps, _age_frames(fps))
+    order = keeper.run(seen)
+    changes = keeper.changes
+    if not causal:
+        order, stretches = relink_by_shape(seen, fps, order)
+        changes += stretches
+    return (order if changes else None), changes
+
+
+def _age_frames(fps: float) -> int:
+    return max(1, round(IDENTITY_MAX_AGE_S * fps))
+
+
+def _in_order(values: np.ndarray, order: np.ndarray | None) -> np.ndarray:
+    """``values (frames, animals, ...)`` with each frame's tracks put in ``order``, in place."""
+    if order is None:
+        return values
+    # the order changes at a few frames only: one permutation per stretch between them
+    starts = np.r_[0, np.flatnonzero((order[1:] != order[:-1]).any(axis=1)) + 1]
+    for start, stop in zip(starts, np.r_[starts[1:], len(order)], strict=True):
+        if (order[start] != np.arange(order.shape[1])).any():
+            values[start:stop] = values[start:stop][:, order[start]]
+    return values
 
 
 def streaming_cleaning(params: CleanParams, used: Sequence[Mapping[str, Any]]) -> CleanParams:
@@ -280,6 +323,10 @@ class StreamingCleaner:
             smooth_spec,
         )
         self._state = kern.CausalState(*self.shape, pairs.shape[0], self._settings.coef.shape[0])
+        self._identities = None
+        if p.repair_identities and p.max_speed is not None and self.shape[0] > 1:
+            step = p.max_speed / self.fps  # in the output's units, as the kernel's bound
+            self._identities = IdentityKeeper(self.shape[0], step, _age_frames(self.fps))
 
     @property
     def n_frames_seen(self) -> int:
@@ -307,15 +354,18 @@ class StreamingCleaner:
         lost = np.zeros(self.shape[:2], bool)  # set missing here, as in clean()
         if self._placeholders:  # given positions only: "auto" needs the whole recording
             lost |= at_positions(x, self._placeholders)
+        thr = self.params.min_confidence
+        with np.errstate(invalid="ignore"):
+            low = (c < thr) if thr is not None else np.zeros(self.shape[:2], bool)
         if self._held:  # exactly where it was on the frame before, among the points seen
-            thr = self.params.min_confidence
-            with np.errstate(invalid="ignore"):
-                unseen = lost | (c < thr) if thr is not None else lost  # NaN confidence: kept
-            seen = np.where(unseen[..., None], np.nan, x)
+            seen = np.where((lost | low)[..., None], np.nan, x)  # NaN confidence: kept
             last, self._last = self._last, seen
             if last is not None:
                 lost |= (seen == last).all(axis=-1)
         x[lost], c[lost] = np.nan, np.nan  # missing points have no confidence
         x = x[None] / self._divisor if self._divisor != 1.0 else x[None]
+        if self._identities is not None:  # who is who, from the points the confidence keeps
+            order = self._identities.run(np.where(low[None, ..., None], np.nan, x))
+            x, c = _in_order(x, order), _in_order(c[None], order)[0]
         self._state.run(self._settings, x, c[None])
         return x[0]

@@ -1327,8 +1327,12 @@ class BehaviourModel(BaseEstimator):
         def pick(prefix: str) -> dict[str, np.ndarray]:
             return {k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)}
 
-        # saved before placeholders and held points were looked for: they still are not
-        saved = {"placeholders": None, "mask_held": False, **meta["cleaning"]}
+        # saved before placeholders, held points and exchanged identities were looked for:
+        # they still are not
+        saved = {
+            "placeholders": None, "mask_held": False, "repair_identities": False,
+            **meta["cleaning"],
+        }  # fmt: skip
         model.cleaning_ = CleanParams.from_dict(saved)
         model.features_ = FeaturePipeline.from_state(meta["features"], pick("features/"))
         cls = get_segmenter(model.method).cls
