@@ -540,3 +540,36 @@ def test_a_study_of_two_seconds_is_refused_or_labelled_without_its_refits(tmp_pa
     assert "too little data" in ws.summary["stability"]["skipped"]
     assert not (ws.path / "stability.csv").exists()
     assert "No stability check was made: too little data" in model_section(ws).text
+
+
+def test_a_study_whose_tracker_exchanged_the_animals_is_given_back_and_said(tmp_path):
+    # Invented pairs (the package's simulator) whose tracker exchanged the two animals' tracks
+    # twice per session where they came closest: the run gives each track its animal back,
+    # says so, counts it in the summary and the report's data quality, and labels every
+    # animal as it labels the files as simulated (the right tracks, by construction).
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.workspace import Workspace, discover
+    from ethoscribe.workspace.report_sections import quality_section
+
+    for seed in (1, 2):
+        tracks, _ = simulate_session(duration_s=30, n_animals=2, seed=seed, session=f"s{seed}")
+        centre = np.nanmean(tracks.coords, axis=2)
+        apart = np.linalg.norm(centre[:, 0] - centre[:, 1], axis=-1)
+        apart[:50] = apart[-50:] = np.inf
+        x, c = tracks.coords.copy(), tracks.confidence.copy()
+        for t in sorted(np.argsort(apart)[[0, 200]]):  # the nearest frame, and the 200th
+            x[t:], c[t:] = x[t:, ::-1], c[t:, ::-1]
+        for folder, made in (("as_made", tracks), ("exchanged", tracks.replace(coords=x))):
+            path = tmp_path / folder / f"s{seed}.csv"
+            path.parent.mkdir(exist_ok=True)
+            write_tidy(made if folder == "as_made" else made.replace(confidence=c), path)
+    options = {"fps": 30, "states": 3, "progress": False, "stability": False}
+    with pytest.warns(InputWarning, match=r"session\(s\) 's1' \(2 times\), 's2' \(2 times\)"):
+        discover(sorted((tmp_path / "exchanged").glob("*.csv")), tmp_path / "ws", **options)
+    discover(sorted((tmp_path / "as_made").glob("*.csv")), tmp_path / "ws_made", **options)
+    used = json.loads((tmp_path / "ws" / "summary.json").read_text())["cleaning"]["used"]
+    assert used["identity_exchanges"] == 2  # one count, the same in every session
+    text = quality_section(Workspace(tmp_path / "ws")).text
+    assert "a tracker exchanging identities): 's1' (2), 's2' (2)." in text
+    labels = [pd.read_csv(tmp_path / w / "labels.csv") for w in ("ws", "ws_made")]
+    pd.testing.assert_frame_equal(labels[0], labels[1])

@@ -465,6 +465,13 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
         "was held where the tracker lost it, e.g. a track forward-filled, and counts as lost)",
     )
     c.add_argument(
+        "--keep-track-identities",
+        action="store_true",
+        help="keep each track as the file numbers it (default: with several animals, a track "
+        "that leaps to where another animal's track had just been is given that animal from "
+        "then on: a tracker exchanging identities)",
+    )
+    c.add_argument(
         "--keep-placeholder-positions",
         action="store_true",
         help="keep points at a position that several keypoints hold exactly on many frames "
@@ -498,6 +505,8 @@ def _cleaning(args: argparse.Namespace) -> dict[str, Any]:
         out["mask_held"] = False
     if args.keep_placeholder_positions:
         out["placeholders"] = None
+    if args.keep_track_identities:
+        out["repair_identities"] = False
     return out
 
 

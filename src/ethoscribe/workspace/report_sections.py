@@ -101,6 +101,11 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
         "point where it last saw it, or a track forward-filled over its gaps), counted as "
         "missing in the raw data",
     )  # fmt: skip
+    text += _counts_said(
+        ws, table, "identity_exchanges",
+        "Times a track leapt to where another animal's track had just been and was given that "
+        "animal from then on (a tracker exchanging identities)",
+    )  # fmt: skip
     features = ws.summary.get("features") or {}
     left_out = [str(k) for k in features.get("keypoints_left_out") or []]
     read = features.get("keypoints")  # those the model reads (runs since 2026-12-05)

@@ -15,7 +15,7 @@ import pandas as pd
 from ethoscribe.clean import CleanParams, streaming_cleaning
 from ethoscribe.clean.steps import position_text
 from ethoscribe.curation import Curation
-from ethoscribe.errors import InputError, InputWarning, WorkspaceError, listed
+from ethoscribe.errors import InputError, InputWarning, WorkspaceError, counted, listed
 from ethoscribe.features import FeatureSet
 from ethoscribe.features.vertical_check import resolve_up_axis
 from ethoscribe.features.view_check import resolve_view
@@ -320,6 +320,7 @@ def _prepare(
     _warn_repeated_frames(rows, used)
     _warn_placeholders(rows, used)
     _warn_held_points(rows, used)
+    _warn_identity_exchanges(rows, used)
     _warn_unseen_keypoints(quality)
     first = cleaning if isinstance(cleaning, dict) else (cleaning[0] if cleaning else {})
     _warn_low_confidence(quality, first.get("min_confidence"))
@@ -529,6 +530,26 @@ def _warn_placeholders(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> N
             f"were taken for lost points written as a placeholder and set missing in "
             f"session(s) {listed(named)}. If that position is real, pass "
             "cleaning={'placeholders': None} (command line: --keep-placeholder-positions)",
+            InputWarning,
+            stacklevel=3,
+        )
+
+
+def _warn_identity_exchanges(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
+    """Name sessions whose tracks exchanged animals (given back by the cleaning): per-animal
+    results rest on that repair, so the user should know, and how to keep the tracks."""
+    named = []
+    for row, params in zip(rows, used, strict=True):
+        n = params.get("identity_exchanges", 0) if isinstance(params, dict) else 0
+        if n:
+            named.append(f"'{row.get('session')}' ({counted(n, 'time')})")
+    if named:
+        warnings.warn(
+            f"tracks leapt to where another animal's track had just been, and were given that "
+            f"animal from then on, in session(s) {listed(named)}: a tracker exchanging the "
+            "animals' identities (often as they touch). Check those sessions' per-animal "
+            "results; to keep the tracks as they are, pass "
+            "cleaning={'repair_identities': False} (command line: --keep-track-identities)",
             InputWarning,
             stacklevel=3,
         )
