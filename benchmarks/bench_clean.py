@@ -1,10 +1,13 @@
 """Speed and memory of ``ethoscribe.clean.clean`` on a long invented recording.
 
 Usage: ``python benchmarks/bench_clean.py [n_frames] [--causal] [--rounded] [--zeros]
-[--no-placeholders]`` (default 200000 frames). One animal, 12 keypoints in 2-D, one left/right
-pair; the track carries jitter, swaps, short and long gaps, low-confidence points and jumps.
-``--rounded``: coordinates in whole units (positions recur, the placeholder search's slow
-case); ``--zeros``: the gaps written as 0, 0; ``--no-placeholders``: no placeholder search.
+[--no-placeholders] [--two-animals] [--keep-identities]`` (default 200000 frames). One animal,
+12 keypoints in 2-D, one left/right pair; the track carries jitter, swaps, short and long gaps,
+low-confidence points and jumps. ``--rounded``: coordinates in whole units (positions recur,
+the placeholder search's slow case); ``--zeros``: the gaps written as 0, 0;
+``--no-placeholders``: no placeholder search; ``--two-animals``: a second, larger animal
+(another such track, 1.2 times the size) whose track and the first's exchange animals every
+10,000 frames; ``--keep-identities``: no identity repair.
 Prints wall and CPU seconds of the cleaning call and the peak resident memory of the process
 (``resource.getrusage``).
 """
@@ -56,8 +59,16 @@ def main() -> None:
         tracks = tracks.replace(coords=np.round(tracks.coords))
     if "--zeros" in sys.argv:
         tracks = tracks.replace(coords=np.nan_to_num(tracks.coords, nan=0.0))
+    if "--two-animals" in sys.argv:
+        other = invented_recording(n, seed=1)
+        x = np.concatenate([tracks.coords, 1.2 * other.coords + 30.0], axis=1)
+        c = np.concatenate([tracks.confidence, other.confidence], axis=1)
+        for t in range(10_000, n, 10_000):
+            x[t:], c[t:] = x[t:, ::-1], c[t:, ::-1]
+        tracks = tracks.replace(coords=x, confidence=c, animals=("a", "b"))
     search = None if "--no-placeholders" in sys.argv else "auto"
-    params = CleanParams(swap_pairs=[("kp1", "kp2")], placeholders=search)
+    repair = "--keep-identities" not in sys.argv
+    params = CleanParams(swap_pairs=[("kp1", "kp2")], placeholders=search, repair_identities=repair)
     clean(invented_recording(300), params, causal=causal)  # compile / load numba kernels
     rss_before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     wall, cpu = time.perf_counter(), time.process_time()
@@ -65,14 +76,15 @@ def main() -> None:
     wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     s = report.summary()
-    print(f"frames {n}, keypoints {N_KP}, causal {causal}")
+    print(f"frames {n}, animals {tracks.n_animals}, keypoints {N_KP}, causal {causal}")
     print(f"clean(): {wall:.2f} s wall, {cpu:.2f} s CPU")
     size = (tracks.coords.nbytes + tracks.confidence.nbytes) / 2**20
     print(f"peak RSS {peak:.0f} MB (before cleaning {rss_before:.0f} MB; input {size:.0f} MB)")
     print(
         f"max_speed {s['max_speed']:.1f} mm/s, swaps repaired {s['swaps_repaired']}, "
         f"invalid frames {s['frac_invalid']:.3f}, filled {s['frac_filled']:.4f}, "
-        f"placeholder points {report.params['placeholder_points']}"
+        f"placeholder points {report.params['placeholder_points']}, "
+        f"identity exchanges {report.params['identity_exchanges']}"
     )
     assert cleaned.coords.shape == tracks.coords.shape
 

@@ -132,6 +132,30 @@ def _forward_filled(s: PoseTracks) -> PoseTracks:
     return s.replace(coords=filled, confidence=None)
 
 
+def _exchanged(n: int, gap: int = 0) -> Callable[[PoseTracks], PoseTracks]:
+    """A multi-animal tracker exchanging two animals' tracks ``n`` times per session, each time
+    on a frame among the tenth where the two are nearest (chosen by a generator seeded by the
+    session's length), with both tracks lost for ``gap`` frames around it. The truth stays
+    with the animals."""
+
+    def exchange(s: PoseTracks) -> PoseTracks:
+        x, c = s.coords.copy(), s.confidence.copy()
+        if s.n_animals < 2:
+            return s
+        rng = np.random.default_rng(s.n_frames)
+        for _ in range(n):
+            i, j = rng.choice(s.n_animals, 2, replace=False)
+            centre = np.nanmean(x[:, [i, j]], axis=2)
+            apart = np.linalg.norm(centre[:, 0] - centre[:, 1], axis=-1)
+            near = np.flatnonzero(apart < np.nanquantile(apart, 0.1))
+            t = int(rng.choice(near[(near > gap) & (near < len(x) - gap)]))
+            x[t:, [i, j]], c[t:, [i, j]] = x[t:, [j, i]], c[t:, [j, i]]
+            x[t - gap // 2 : t + (gap + 1) // 2, [i, j]] = np.nan
+        return s.replace(coords=x, confidence=c)
+
+    return exchange
+
+
 CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "as recorded": lambda s: s,
     "y up": _axes([0, 2, 1]),
@@ -152,6 +176,9 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "lost points written as 0, 0": _placeholder(0.0),
     "lost points written as -1, -1": _placeholder(-1.0),
     "lost points forward-filled": _forward_filled,
+    # several animals: a tracker exchanging their identities where they come close
+    "animals exchanged 4 times": _exchanged(4),
+    "animals exchanged 4 times, both lost 6 frames": _exchanged(4, 6),
 }
 REPEATED = "every fifth frame repeated"
 THINNED = "a third of the frame rate"
@@ -176,6 +203,11 @@ RECORDED = {
     "figure_sim": ["as recorded", "y up", "x up", "filmed from above", "filmed from the side"],
     "own_voles": _TWO_D,
     "independent_sim": _TWO_D,
+    "own_pairs": [
+        "as recorded",
+        "animals exchanged 4 times",
+        "animals exchanged 4 times, both lost 6 frames",
+    ],
 }
 
 
