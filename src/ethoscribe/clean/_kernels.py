@@ -278,6 +278,16 @@ def _hold_frame(xf, cf, t, held, held_t, max_hold, flags):
 
 
 @njit(cache=True)
+def _insert(buf, n, v):
+    """Put ``v`` into ``buf[: n + 1]``, ``buf[:n]`` sorted (insertion sort: for short runs)."""
+    i = n
+    while i > 0 and buf[i - 1] > v:
+        buf[i] = buf[i - 1]
+        i -= 1
+    buf[i] = v
+
+
+@njit(cache=True)
 def _trailing_frame(xf, t, ring, run, kind, coef, buf):
     """Causal smoothing of one frame from the last W frames kept in ``ring`` (W, A, K, D).
 
@@ -306,11 +316,7 @@ def _trailing_frame(xf, t, ring, run, kind, coef, buf):
                     for j in range(min(width, t + 1)):
                         v = ring[(t - j) % width, a, k, d]
                         if not np.isnan(v):
-                            i = n  # insertion sort: W is small
-                            while i > 0 and buf[i - 1] > v:
-                                buf[i] = buf[i - 1]
-                                i -= 1
-                            buf[i] = v
+                            _insert(buf, n, v)
                             n += 1
                     xf[a, k, d] = 0.5 * (buf[(n - 1) // 2] + buf[n // 2])
 
@@ -379,12 +385,7 @@ def _median_distance(last, last_t, i, xf, j, t, max_age, buf):
     for k in range(xf.shape[1]):
         if not _seen(xf[j], k) or last_t[i, k] < 0 or t - last_t[i, k] > max_age:
             continue
-        v = np.sqrt(_dist2(last[i], k, xf[j], k))
-        m = n  # insertion sort: K is small
-        while m > 0 and buf[m - 1] > v:
-            buf[m] = buf[m - 1]
-            m -= 1
-        buf[m] = v
+        _insert(buf, n, np.sqrt(_dist2(last[i], k, xf[j], k)))
         n += 1
     return 0.5 * (buf[(n - 1) // 2] + buf[n // 2]) if n else np.nan
 
