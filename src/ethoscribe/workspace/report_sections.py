@@ -103,8 +103,9 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     )  # fmt: skip
     text += _counts_said(
         ws, table, "identity_exchanges",
-        "Times a track leapt to where another animal's track had just been and was given that "
-        "animal from then on (a tracker exchanging identities)",
+        "Times tracks took over another animal (leapt to where its track had just been, or "
+        "came back from a loss with its proportions) and were given that animal from then on "
+        "(a tracker exchanging identities)",
     )  # fmt: skip
     features = ws.summary.get("features") or {}
     left_out = [str(k) for k in features.get("keypoints_left_out") or []]

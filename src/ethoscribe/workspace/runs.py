@@ -545,11 +545,12 @@ def _warn_identity_exchanges(rows: Sequence[dict[str, Any]], used: Sequence[Any]
             named.append(f"'{row.get('session')}' ({counted(n, 'time')})")
     if named:
         warnings.warn(
-            f"tracks leapt to where another animal's track had just been, and were given that "
-            f"animal from then on, in session(s) {listed(named)}: a tracker exchanging the "
-            "animals' identities (often as they touch). Check those sessions' per-animal "
-            "results; to keep the tracks as they are, pass "
-            "cleaning={'repair_identities': False} (command line: --keep-track-identities)",
+            f"tracks that took over another animal (leapt to where its track had just been, or "
+            f"came back from a loss with its proportions) were given that animal from then on "
+            f"in session(s) {listed(named)}: a tracker exchanging the animals' identities "
+            "(often as they touch). Check those sessions' per-animal results; to keep the "
+            "tracks as they are, pass cleaning={'repair_identities': False} (command line: "
+            "--keep-track-identities)",
             InputWarning,
             stacklevel=3,
         )
