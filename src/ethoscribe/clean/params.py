@@ -97,7 +97,9 @@ class CleanParams:
         With several animals, a track that leaps to where another animal's track last was (a
         multi-animal tracker exchanging identities, usually as the animals touch) is given
         that animal's identity from then on (:class:`~ethoscribe.clean.steps.IdentityKeeper`;
-        needs the jump test's speed bound). Streaming does it too.
+        needs the jump test's speed bound); offline, after a loss of both, the animals'
+        proportions decide (:func:`~ethoscribe.clean.steps.relink_by_shape`). Streaming and
+        causal cleaning use the motion only.
 
     Examples
     --------
