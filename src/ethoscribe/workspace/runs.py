@@ -5,7 +5,7 @@ from __future__ import annotations
 import functools
 import shutil
 import warnings
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -493,15 +493,31 @@ def _warn_unseen_keypoints(quality: Sequence[pd.DataFrame]) -> None:
 REPEATED_SHARE = 0.01  # more of a session's frames than this repeated: say so
 
 
+def _sessions_named(
+    rows: Sequence[dict[str, Any]],
+    used: Sequence[Any],
+    say: Callable[[dict[str, Any], dict[str, Any]], str | None],
+) -> list[str]:
+    """``'session' (what)`` for each session whose cleaning values (``used``, a dict, else
+    nothing was recorded) ``say`` something about; the warnings' list of sessions."""
+    named = []
+    for row, params in zip(rows, used, strict=True):
+        what = say(row, params) if isinstance(params, dict) else None
+        if what:
+            named.append(f"'{row.get('session')}' ({what})")
+    return named
+
+
 def _warn_held_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
     """Name sessions with more than 1 % of their points held still (set lost by the cleaning):
     a track forward-filled over its gaps, or a tracker keeping lost points where it last saw
     them."""
-    named = []
-    for row, params in zip(rows, used, strict=True):
-        share = params.get("held_share", 0.0) if isinstance(params, dict) else 0.0
-        if share > REPEATED_SHARE:  # of the session's points
-            named.append(f"'{row.get('session')}' ({share:.0%} of its points)")
+
+    def held(row: dict[str, Any], params: dict[str, Any]) -> str | None:
+        share = params.get("held_share", 0.0)  # of the session's points
+        return f"{share:.0%} of its points" if share > REPEATED_SHARE else None
+
+    named = _sessions_named(rows, used, held)
     if named:
         warnings.warn(
             f"points held exactly where they were on the frame before in session(s) "
@@ -517,12 +533,18 @@ def _warn_held_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> No
 def _warn_placeholders(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
     """Name sessions whose files wrote lost points as a fixed position (set missing by the
     cleaning): the user should know their tracker's convention, and how to keep them."""
-    named, places = [], set()
-    for row, params in zip(rows, used, strict=True):
-        n = params.get("placeholder_points", 0) if isinstance(params, dict) else 0
-        if n:
-            named.append(f"'{row.get('session')}' ({n:,} points)")
-            places.update(tuple(q) for q in params.get("placeholders") or ())
+
+    def placed(row: dict[str, Any], params: dict[str, Any]) -> str | None:
+        n = params.get("placeholder_points", 0)
+        return f"{n:,} points" if n else None
+
+    named = _sessions_named(rows, used, placed)
+    places = {
+        tuple(q)
+        for params in used
+        if isinstance(params, dict) and params.get("placeholder_points", 0)
+        for q in params.get("placeholders") or ()
+    }
     if named:
         shown = listed(position_text(q) for q in sorted(places))
         warnings.warn(
@@ -538,11 +560,12 @@ def _warn_placeholders(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> N
 def _warn_identity_exchanges(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
     """Name sessions whose tracks exchanged animals (given back by the cleaning): per-animal
     results rest on that repair, so the user should know, and how to keep the tracks."""
-    named = []
-    for row, params in zip(rows, used, strict=True):
-        n = params.get("identity_exchanges", 0) if isinstance(params, dict) else 0
-        if n:
-            named.append(f"'{row.get('session')}' ({counted(n, 'time')})")
+
+    def exchanged(row: dict[str, Any], params: dict[str, Any]) -> str | None:
+        n = params.get("identity_exchanges", 0)
+        return counted(n, "time") if n else None
+
+    named = _sessions_named(rows, used, exchanged)
     if named:
         warnings.warn(
             f"tracks that took over another animal (leapt to where its track had just been, or "
@@ -560,12 +583,12 @@ def _warn_repeated_frames(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -
     """Name sessions with many frames that repeat the frame before exactly (filled from their
     neighbours by the cleaning): the video's frame rate was likely raised by repeating
     images, so the file's rate overstates the camera's."""
-    named = []
-    for row, params in zip(rows, used, strict=True):
-        n = params.get("repeated_frames", 0) if isinstance(params, dict) else 0
-        share = n / max(int(row.get("n_frames", 0) or 0), 1)
-        if share > REPEATED_SHARE:
-            named.append(f"'{row.get('session')}' ({share:.0%})")
+
+    def repeated(row: dict[str, Any], params: dict[str, Any]) -> str | None:
+        share = params.get("repeated_frames", 0) / max(int(row.get("n_frames", 0) or 0), 1)
+        return f"{share:.0%}" if share > REPEATED_SHARE else None
+
+    named = _sessions_named(rows, used, repeated)
     if named:
         warnings.warn(
             f"frames that repeat the frame before exactly in session(s) {listed(named)} were "
