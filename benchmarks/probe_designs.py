@@ -123,6 +123,21 @@ def _placeholder(value: float) -> Callable[[PoseTracks], PoseTracks]:
     return write
 
 
+def _placeholder_one(value: float) -> Callable[[PoseTracks], PoseTracks]:
+    """As :func:`_placeholder` for the keypoint lost most often only; the other keypoints' lost
+    points left empty: a placeholder that one keypoint alone takes."""
+
+    def write(s: PoseTracks) -> PoseTracks:
+        lost = ~np.isfinite(s.coords).all(-1) | (s.confidence < 0.5)
+        most = np.zeros(s.n_keypoints, bool)
+        most[np.argmax(lost.sum(axis=(0, 1)))] = True
+        coords = np.where(lost[..., None], np.nan, s.coords)
+        coords[lost & most] = value
+        return s.replace(coords=coords, confidence=None)
+
+    return write
+
+
 def _forward_filled(s: PoseTracks) -> PoseTracks:
     """Lost points (missing, or confidence below 0.5) held at their last seen position (the
     first ones at their first), no confidence column: ``DataFrame.ffill()`` before export."""
@@ -175,6 +190,7 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "confidence halved": lambda s: s.replace(confidence=s.confidence * 0.5),
     "lost points written as 0, 0": _placeholder(0.0),
     "lost points written as -1, -1": _placeholder(-1.0),
+    "one keypoint's lost points written as 0, 0": _placeholder_one(0.0),
     "lost points forward-filled": _forward_filled,
     # several animals: a tracker exchanging their identities where they come close
     "animals exchanged 4 times": _exchanged(4),
@@ -196,6 +212,7 @@ _TWO_D = [
     "confidence halved",
     "in a runway, from above",
     "lost points written as 0, 0",
+    "one keypoint's lost points written as 0, 0",
     "lost points forward-filled",
 ]
 RECORDED = {

@@ -449,6 +449,34 @@ def test_a_keypoint_at_rest_or_a_fixed_landmark_is_no_placeholder():
     assert placeholder_positions(np.concatenate([walk, marks], axis=2))[1] == []
 
 
+def test_a_placeholder_only_one_keypoint_takes_is_found_a_held_point_is_not():
+    # Invented scenario: a walk (500 mm from the image's corner) of which only the nose is ever
+    # lost, written as 0, 0 with no confidence: found, as it leaps there from the body.
+    # Reference: the points lost, by construction.
+    walk = walking_track(900) + 500.0
+    lost = np.zeros(walk.shape[:3], bool)
+    lost[100:130, 0, 0] = lost[400:700, 0, 0] = True
+    written = np.where(lost[..., None], 0.0, walk)
+    held, places = placeholder_positions(written)
+    np.testing.assert_array_equal(held, lost)
+    assert places == [[0.0, 0.0]]
+    tracks = PoseTracks(written, keypoints=KEYPOINTS, fps=30.0, units="mm")
+    report = clean(tracks, CleanParams(smooth=None, max_speed=None))[1]
+    assert report.params["placeholder_points"] == lost.sum() == 330
+    # The same losses forward-filled: the nose stays where it was lost while the body walks
+    # 600 mm on (beyond two body lengths on most held frames), reached by an ordinary step:
+    # no placeholder, points held still instead.
+    filled = written.copy()
+    for t in np.flatnonzero(lost[:, 0, 0]):
+        filled[t, 0, 0] = filled[t - 1, 0, 0]
+    assert placeholder_positions(filled)[1] == []
+    np.testing.assert_array_equal(held_points(filled)[0], lost)
+    # A landmark written as a keypoint, moved once (two exact positions): no placeholder.
+    mark = np.zeros((900, 1, 1, 2))
+    mark[:300], mark[300:] = [5.0, 5.0], [900.0, 5.0]
+    assert placeholder_positions(np.concatenate([walk, mark], axis=2))[1] == []
+
+
 def test_points_held_where_the_tracker_lost_them_are_missing():
     # Invented scenario: a walk whose lost points were forward-filled before export (each held
     # at its last seen position). Reference: the points lost, by construction.

@@ -474,7 +474,7 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
     c.add_argument(
         "--keep-placeholder-positions",
         action="store_true",
-        help="keep points at a position that several keypoints hold exactly on many frames "
+        help="keep points at a position held exactly on many frames, away from the body "
         "(default: such a position, e.g. 0, 0 written for lost points, counts as missing)",
     )
 

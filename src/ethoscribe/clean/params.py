@@ -89,7 +89,7 @@ class CleanParams:
         takes it as a setting, ``StreamingCleaner(held=...)``).
     placeholders : "auto", positions or None
         Positions a tracker writes for lost points (0, 0; -1, -1), set missing. "auto": any
-        position that several keypoints hold exactly on many frames of a recording
+        position held exactly on many frames of a recording, away from the rest of the body
         (:func:`~ethoscribe.clean.steps.placeholder_positions`); positions, e.g.
         ``[(-1, -1)]``: these, exactly; None: none. Streaming cleaning masks given positions
         only (it cannot read them from a recording it has not seen).

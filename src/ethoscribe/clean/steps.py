@@ -68,8 +68,9 @@ def _calibration(units: str, px_per_unit: float | None, unit: str, where: str) -
 
 
 PLACEHOLDER_MIN_FRAMES = 10
-"""A position (exact in every coordinate) held by two or more keypoints, in at least this many
-frames of a session, is a candidate placeholder for lost points (often 0, 0 or -1, -1)."""
+"""A position (exact in every coordinate) held by two or more keypoints (or by one that moves
+elsewhere), in at least this many frames of a session, is a candidate placeholder for lost
+points (often 0, 0 or -1, -1)."""
 
 PLACEHOLDER_FAR = 2.0
 """...and is one when the points holding it lie, on the median frame, more than this many body
@@ -77,6 +78,14 @@ lengths (median largest distance between two keypoints not at it) from the centr
 frame's other keypoints: a lost point is put where no body part is. Where the whole body is at
 it, on fewer than half the frames, it stands for an animal lost."""
 
+
+PLACEHOLDER_ENTRY = 1.0
+"""A position one keypoint alone holds counts when it lies this many body lengths from the rest
+of the body on the median frame (not ``PLACEHOLDER_FAR``: animals rest in the corner where an
+arena's coordinates start) and that keypoint reaches it by a leap: the median step onto it from
+a seen point elsewhere on the frame before is more than this many body lengths. A point a
+tracker held where it lost it (forward-filled) is reached by an ordinary step; a lost point
+written as 0, 0 leaps there from the body."""
 
 PLACEHOLDER_SAMPLE = 20_000
 """At most this many frames (times animals), evenly spaced, are searched for placeholders; a
@@ -94,7 +103,9 @@ def placeholder_positions(coords: np.ndarray) -> tuple[np.ndarray, list[list[flo
     0.01). A position counts when at least two different keypoints hold it exactly, on at
     least ``PLACEHOLDER_MIN_FRAMES`` frames in all, away from the rest of the body
     (``PLACEHOLDER_FAR``): one keypoint that stays put (a landmark, an animal resting in integer
-    pixels, another keypoint passing through its pixel) is no placeholder.
+    pixels, another keypoint passing through its pixel) is no placeholder. One keypoint alone
+    (the only one ever lost) counts when it moves elsewhere and leaps onto the position
+    (``PLACEHOLDER_ENTRY``).
 
     Examples
     --------
@@ -113,13 +124,32 @@ def placeholder_positions(coords: np.ndarray) -> tuple[np.ndarray, list[list[flo
     # Placeholders recur: a sample of frames finds them (at most PLACEHOLDER_SAMPLE), then
     # every point at one is found exactly.
     step = -(-len(bodies) // PLACEHOLDER_SAMPLE)
-    places = _placeholders_in(bodies[::step], max(3, -(-PLACEHOLDER_MIN_FRAMES // step)))
+    places, lone, length = _placeholders_in(
+        bodies[::step], max(3, -(-PLACEHOLDER_MIN_FRAMES // step))
+    )
+    # one keypoint alone: only where it leaps onto the position (checked on every frame)
+    places = [
+        q for q, one in zip(places, lone, strict=True) if not one or _leapt_onto(x, q, length)
+    ]
     return at_positions(x, places), places
 
 
-def _placeholders_in(bodies: np.ndarray, min_count: int) -> list[list[float]]:
+def _leapt_onto(x: np.ndarray, place: Sequence[float], length: float) -> bool:
+    """Whether points of ``x (frames, animals, keypoints, dims)`` reach ``place`` by a leap: the
+    median step onto it, from a point seen elsewhere on the frame before, is more than
+    ``PLACEHOLDER_ENTRY`` body lengths (``length``)."""
+    at = at_positions(x, [place])
+    onto = at[1:] & ~at[:-1] & np.isfinite(x[:-1]).all(axis=-1)
+    if not onto.any():
+        return False
+    steps = np.linalg.norm(x[:-1][onto] - np.asarray(place, dtype=np.float64), axis=-1)
+    return bool(np.median(steps) > PLACEHOLDER_ENTRY * length)
+
+
+def _placeholders_in(bodies: np.ndarray, min_count: int) -> tuple[list, list[bool], float]:
     """The placeholder positions of ``bodies (N, K, D)`` (:func:`placeholder_positions`), each
-    held at least ``min_count`` times."""
+    held at least ``min_count`` times; per position whether one keypoint alone holds it (to be
+    checked on every frame); the body length."""
     n_kp = bodies.shape[1]
     flat = bodies.reshape(-1, bodies.shape[-1])
     first = flat[:, 0]
@@ -128,19 +158,21 @@ def _placeholders_in(bodies: np.ndarray, min_count: int) -> list[list[float]]:
     values, counts = np.unique(first[np.isfinite(first)], return_counts=True)
     common = values[counts >= min_count]
     if not common.size or n_kp < 2:
-        return []
+        return [], [], 0.0
     rows = np.flatnonzero(np.isin(first, common) & np.isfinite(flat).all(axis=1))
-    points = flat[rows] + 0.0  # -0.0 as 0.0; then one void item per position: a 1-D unique
-    keys = points.view(np.dtype((np.void, points.itemsize * points.shape[1]))).ravel()
+    points = flat[rows] + 0.0  # -0.0 as 0.0
+    keys = _position_keys(points)
     _, first_at, which, n = np.unique(
         keys, return_index=True, return_inverse=True, return_counts=True
     )
     places, which = points[first_at], which.ravel()
     pairs = np.unique(which.astype(np.int64) * n_kp + rows % n_kp)  # (place, keypoint) pairs
     holders = np.bincount(pairs // n_kp, minlength=len(places))
-    candidate = (n >= min_count) & (holders >= 2)
+    recur = n >= min_count
+    lone = _lone_holder(bodies, pairs, n, recur)
+    candidate = recur & ((holders >= 2) | lone)
     if not candidate.any():
-        return []
+        return [], [], 0.0
     keep = candidate[which]
     rows, which = rows[keep], which[keep]
     # The bodies without the points at any candidate: their length, and each one's centre.
@@ -160,12 +192,47 @@ def _placeholders_in(bodies: np.ndarray, min_count: int) -> list[list[float]]:
         centre = np.nanmean(without(rows // n_kp), axis=1)
     distance = pd.Series(np.linalg.norm(centre - places[which], axis=-1))
     median = distance.groupby(which).median()  # NaN: only whole bodies at the place
-    found = median.index[median > PLACEHOLDER_FAR * length].tolist()
-    for i in median.index[median.isna()]:
+    # one keypoint alone: one body length, as its leap onto the place is checked too
+    far = np.where(lone[median.index], PLACEHOLDER_ENTRY, PLACEHOLDER_FAR) * length
+    found = median.index[median > far].tolist()
+    for i in median.index[median.isna() & ~lone[median.index]]:
         # Whole bodies there, on fewer than half the frames: an animal lost, written so
         if len(np.unique(rows[which == i] // n_kp)) < 0.5 * len(bodies):
             found.append(i)
-    return places[sorted(found)].tolist()
+    found = sorted(found)
+    return places[found].tolist(), lone[found].tolist(), length
+
+
+def _position_keys(points: np.ndarray) -> np.ndarray:
+    """One void item per row of ``points (N, D)``, equal where the rows are equal bit for bit
+    (write -0.0 as 0.0 first): a 1-D ``np.unique`` of positions, much faster than ``axis=0``."""
+    points = np.ascontiguousarray(points)
+    return points.view(np.dtype((np.void, points.itemsize * points.shape[1]))).ravel()
+
+
+def _lone_holder(
+    bodies: np.ndarray, pairs: np.ndarray, n: np.ndarray, recur: np.ndarray
+) -> np.ndarray:
+    """Per place (of the ``recur`` ones, held ``n`` times; ``pairs`` place x keypoints +
+    keypoint): one keypoint alone holds it, and moves elsewhere (its other seen points hold
+    more distinct positions than half their number).
+
+    A keypoint lost at times and written as a placeholder (0, 0) while no other is lost moves
+    with the body on its other frames, however often it is lost; a landmark written as a
+    keypoint sits at one position on every frame it is seen (or at two, if moved once)."""
+    n_kp = bodies.shape[1]
+    lone = recur & (np.bincount(pairs // n_kp, minlength=len(n)) == 1)
+    if not lone.any():
+        return lone
+    keypoint = np.zeros(len(n), np.int64)
+    keypoint[pairs // n_kp] = pairs % n_kp  # the holder, where there is one
+    seen = np.isfinite(bodies).all(axis=-1)
+    n_seen = seen.sum(axis=0)
+    distinct = np.zeros(n_kp, np.int64)
+    for k in np.unique(keypoint[lone]):  # a few keypoints at most, not every place
+        distinct[k] = len(np.unique(_position_keys(bodies[seen[:, k], k] + 0.0)))
+    k = keypoint
+    return lone & (distinct[k] - 1 > 0.5 * (n_seen[k] - n))
 
 
 def position_text(position: Sequence[float]) -> str:

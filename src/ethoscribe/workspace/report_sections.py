@@ -92,8 +92,8 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     text += _counts_said(
         ws, table, "placeholder_points",
         f"Points at {listed(position_text(q) for q in places)}, a placeholder position (one "
-        "that several keypoints held exactly on many frames: a tracker writing lost points "
-        "there), counted as missing in the raw data",
+        "held exactly on many frames, away from the rest of the body: a tracker writing lost "
+        "points there), counted as missing in the raw data",
     )  # fmt: skip
     text += _counts_said(
         ws, table, "held_points",

@@ -548,7 +548,7 @@ def _warn_placeholders(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> N
     if named:
         shown = listed(position_text(q) for q in sorted(places))
         warnings.warn(
-            f"points at {shown}, a position several keypoints hold exactly on many frames, "
+            f"points at {shown}, a position held exactly on many frames away from the body, "
             f"were taken for lost points written as a placeholder and set missing in "
             f"session(s) {listed(named)}. If that position is real, pass "
             "cleaning={'placeholders': None} (command line: --keep-placeholder-positions)",
