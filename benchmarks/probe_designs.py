@@ -147,6 +147,16 @@ def _forward_filled(s: PoseTracks) -> PoseTracks:
     return s.replace(coords=filled, confidence=None)
 
 
+def _interpolated(s: PoseTracks) -> PoseTracks:
+    """Lost points (missing, or confidence below 0.5) filled in on straight lines between the
+    points seen either side, no confidence column: ``DataFrame.interpolate()`` before export
+    (pandas' default: lost points after the last seen one keep its position)."""
+    lost = ~np.isfinite(s.coords).all(-1) | (s.confidence < 0.5)
+    flat = np.where(lost[..., None], np.nan, s.coords).reshape(s.n_frames, -1)
+    filled = pd.DataFrame(flat).interpolate().to_numpy().reshape(s.coords.shape)
+    return s.replace(coords=filled, confidence=None)
+
+
 def _exchanged(n: int, gap: int = 0) -> Callable[[PoseTracks], PoseTracks]:
     """A multi-animal tracker exchanging two animals' tracks ``n`` times per session, each time
     on a frame among the tenth where the two are nearest (chosen by a generator seeded by the
@@ -192,6 +202,7 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "lost points written as -1, -1": _placeholder(-1.0),
     "one keypoint's lost points written as 0, 0": _placeholder_one(0.0),
     "lost points forward-filled": _forward_filled,
+    "lost points interpolated": _interpolated,
     # several animals: a tracker exchanging their identities where they come close
     "animals exchanged 4 times": _exchanged(4),
     "animals exchanged 4 times, both lost 6 frames": _exchanged(4, 6),
@@ -214,6 +225,7 @@ _TWO_D = [
     "lost points written as 0, 0",
     "one keypoint's lost points written as 0, 0",
     "lost points forward-filled",
+    "lost points interpolated",
 ]
 RECORDED = {
     "own_fish": ["as recorded", "y up", "x up", "filmed from above", "filmed from the side"],

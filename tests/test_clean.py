@@ -4,8 +4,10 @@ the causal and streaming variants, errors, and the quality figure."""
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 
 import numpy as np
+import pandas as pd
 import pytest
 from scipy.ndimage import median_filter
 from scipy.signal import medfilt, savgol_coeffs, savgol_filter
@@ -23,7 +25,12 @@ from ethoscribe.clean import (
     resample,
     smooth,
 )
-from ethoscribe.clean.steps import held_points, placeholder_positions, repeated_frames
+from ethoscribe.clean.steps import (
+    held_points,
+    interpolated_points,
+    placeholder_positions,
+    repeated_frames,
+)
 from ethoscribe.errors import InputError, InputWarning
 from ethoscribe.plots.quality import quality_figure
 from ethoscribe.pose import PoseTracks
@@ -515,6 +522,46 @@ def test_points_held_where_the_tracker_lost_them_are_missing():
     assert not held_points(channel)[0].any()
     with pytest.raises(InputError, match="mask_held must be True or False"):
         CleanParams(mask_held=1)
+
+
+def test_points_interpolated_over_the_trackers_gaps_are_missing():
+    # Invented scenario: a walk whose lost points were filled in before export with pandas'
+    # linear interpolation (``DataFrame.interpolate``, the outside reference for the filling).
+    # Reference: the points lost, by construction.
+    walk = walking_track(300)
+    lost = np.zeros(walk.shape[:3], bool)
+    lost[40:70, 0, 0] = lost[100:103, 0, 2] = lost[150, 0, 1] = lost[200:260, 0, :] = True
+    flat = np.where(lost[..., None], np.nan, walk).reshape(len(walk), -1)
+    filled = pd.DataFrame(flat).interpolate().to_numpy().reshape(walk.shape)
+    expected = lost
+    lined, looked = interpolated_points(filled)
+    np.testing.assert_array_equal(lined, expected)
+    assert looked
+    tracks = PoseTracks(filled, keypoints=KEYPOINTS, fps=30.0, units="mm")
+    p = CleanParams(smooth=None, max_speed=None, max_gap_s=0)
+    cleaned, report = clean(tracks, p)
+    np.testing.assert_array_equal(np.isnan(cleaned.coords[..., 0]), expected)
+    assert report.params["interpolated_points"] == expected.sum() == 30 + 3 + 1 + 4 * 60
+    assert report.params["held_points"] == 0
+    kept, report = clean(tracks, replace(p, mask_interpolated=False))
+    assert report.params["interpolated_points"] == 0 and np.isfinite(kept.coords).all()
+    # causal cleaning cannot see a line before its next frame: nothing is looked for
+    causal = clean(tracks, CleanParams(max_speed=None), causal=True)[1].params
+    assert causal["interpolated_points"] == 0 and not causal["interpolated_looked_for"]
+    # The walk as tracked (no point on a line): nothing. A track that moves in straight lines
+    # nearly all the time was made so: left alone. In whole numbers (the walk in half
+    # millimetres, 4 units a frame) a point moves on a line by chance, often for one frame
+    # alone: nothing is looked for.
+    assert not interpolated_points(walk)[0].any()
+    ramp = np.arange(200.0)[:, None, None, None].repeat(2, axis=-1) * 3.0
+    assert not interpolated_points(ramp)[0].any()
+    coarse = np.round(walking_track(900) * 2)
+    x = coarse
+    chance = (x[:-2] - 2 * x[1:-1] + x[2:] == 0).all(-1) & (x[2:] != x[1:-1]).any(-1)
+    assert chance.mean() > 0.1  # the chance lines
+    assert interpolated_points(coarse)[1] is False and not interpolated_points(coarse)[0].any()
+    with pytest.raises(InputError, match="mask_interpolated must be True or False"):
+        CleanParams(mask_interpolated="no")
 
 
 def test_calibration_converts_and_records_units():

@@ -156,7 +156,7 @@ def test_discover_reads_wide_tables_and_two_animal_nwb_files(study, tmp_path, ca
          "--reader-option", "confidence_axis=likelihood", "--fps", "30", "--out", str(out),
          "--swap-pairs", "left_ear:right_ear", "--max-gap-s", "0.3", "--smooth-window-s", "0.3",
          "--max-speed", "3000", "--keep-repeated-frames", "--keep-placeholder-positions",
-         "--keep-track-identities", *common]
+         "--keep-track-identities", "--keep-interpolated-points", *common]
     )  # fmt: skip
     assert code == 0, capsys.readouterr().err
     summary = json.loads((out / "summary.json").read_text())
@@ -170,6 +170,7 @@ def test_discover_reads_wide_tables_and_two_animal_nwb_files(study, tmp_path, ca
     assert used["fill_repeated"] is False and used["repeated_frames"] == 0
     assert summary["cleaning"]["settings"]["placeholders"] is None
     assert summary["cleaning"]["settings"]["repair_identities"] is False
+    assert summary["cleaning"]["settings"]["mask_interpolated"] is False
     assert summary["cleaning"]["swap_pairs_source"] == "given"
     assert summary["stability"] is not None  # checked by default
 

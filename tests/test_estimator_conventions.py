@@ -130,13 +130,16 @@ def test_behaviour_model_with_a_generator_saves_its_seed(sessions):
     back = BehaviourModel.from_state(meta, arrays)
     np.testing.assert_array_equal(back.label(sessions)["state"], model.label(sessions)["state"])
     c = back.cleaning_
-    assert (c.placeholders, c.mask_held, c.repair_identities) == ("auto", True, True)
-    # a model saved before placeholders, held points and exchanged identities were looked for
-    # still does not look for them
-    for key in ("placeholders", "mask_held", "repair_identities"):
+    assert (c.placeholders, c.mask_held, c.mask_interpolated, c.repair_identities) == (
+        "auto", True, True, True,
+    )  # fmt: skip
+    # a model saved before placeholders, held or interpolated points and exchanged identities
+    # were looked for still does not look for them
+    for key in ("placeholders", "mask_held", "mask_interpolated", "repair_identities"):
         del meta["cleaning"][key]
     older = BehaviourModel.from_state(meta, arrays).cleaning_
-    assert (older.placeholders, older.mask_held, older.repair_identities) == (None, False, False)
+    assert (older.placeholders, older.mask_held, older.mask_interpolated) == (None, False, False)
+    assert not older.repair_identities
 
 
 def test_feature_pipeline_fit_transform_equals_fit_then_transform(sessions):

@@ -465,6 +465,13 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
         "was held where the tracker lost it, e.g. a track forward-filled, and counts as lost)",
     )
     c.add_argument(
+        "--keep-interpolated-points",
+        action="store_true",
+        help="keep points on straight lines at an even pace between seen points (default: "
+        "where coordinates have enough digits, such points were filled in over the tracker's "
+        "gaps, e.g. a track interpolated before export, and count as lost)",
+    )
+    c.add_argument(
         "--keep-track-identities",
         action="store_true",
         help="keep each track as the file numbers it (default: with several animals, a track "
@@ -503,6 +510,8 @@ def _cleaning(args: argparse.Namespace) -> dict[str, Any]:
         out["fill_repeated"] = False
     if args.keep_held_points:
         out["mask_held"] = False
+    if args.keep_interpolated_points:
+        out["mask_interpolated"] = False
     if args.keep_placeholder_positions:
         out["placeholders"] = None
     if args.keep_track_identities:

@@ -80,6 +80,31 @@ def step_speeds(x, fps):
 
 
 @njit(cache=True)
+def on_lines(x, tolerance):
+    """(frames - 2, animals, keypoints): the point of each middle frame lies on the straight line
+    through its neighbours at an even pace (second difference at most ``tolerance`` times the
+    coordinate's size, at least 1, in every coordinate) and moves; NaN lies on no line. One
+    pass, no temporaries: array expressions allocated 0.6 GB per million frames."""
+    n, n_a, n_k, n_d = x.shape
+    out = np.zeros((max(n - 2, 0), n_a, n_k), np.bool_)
+    for t in range(n - 2):
+        for a in range(n_a):
+            for k in range(n_k):
+                moved = False
+                on = True
+                for d in range(n_d):
+                    here = x[t + 1, a, k, d]
+                    after = x[t + 2, a, k, d]
+                    second = abs(x[t, a, k, d] - 2.0 * here + after)
+                    if not second <= tolerance * max(abs(here), 1.0):  # NaN: not on a line
+                        on = False
+                        break
+                    moved = moved or after != here
+                out[t, a, k] = on and moved
+    return out
+
+
+@njit(cache=True)
 def jump_frame(xf, t, ref, ref_t, partner, max_step, flag):
     """Speed test of one frame of one animal against the last accepted points.
 

@@ -87,6 +87,12 @@ class CleanParams:
         forward-filled over its gaps), as lost (:func:`~ethoscribe.clean.steps.held_points`;
         whether repeats can be chance is read from the whole recording; streaming cleaning
         takes it as a setting, ``StreamingCleaner(held=...)``).
+    mask_interpolated : bool
+        Treat points on straight lines at constant speed between seen points, in runs of two
+        frames or more, where coordinates are written with enough digits for that never to be
+        chance (a track interpolated over its gaps before export), as lost
+        (:func:`~ethoscribe.clean.steps.interpolated_points`). Not in causal cleaning (it
+        needs the next frame).
     placeholders : "auto", positions or None
         Positions a tracker writes for lost points (0, 0; -1, -1), set missing. "auto": any
         position held exactly on many frames of a recording, away from the rest of the body
@@ -120,6 +126,7 @@ class CleanParams:
     target_fps: float | None = None
     fill_repeated: bool = True
     mask_held: bool = True
+    mask_interpolated: bool = True
     placeholders: str | Sequence[Sequence[float]] | None = "auto"
     repair_identities: bool = True
 
@@ -148,7 +155,7 @@ class CleanParams:
         for name in ("px_per_unit", "target_fps"):  # plain floats keep to_dict() JSON-able
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, _positive(name, getattr(self, name)))
-        for name in ("fill_repeated", "mask_held", "repair_identities"):
+        for name in ("fill_repeated", "mask_held", "mask_interpolated", "repair_identities"):
             if not isinstance(getattr(self, name), bool | np.bool_):
                 raise InputError(f"{name} must be True or False; got {getattr(self, name)!r}")
             object.__setattr__(self, name, bool(getattr(self, name)))

@@ -37,6 +37,7 @@ from ethoscribe.clean.steps import (
     at_positions,
     calibrate,
     held_points,
+    interpolated_points,
     placeholder_positions,
     relink_by_shape,
     repeated_frames,
@@ -52,8 +53,8 @@ def clean(
     causal: bool = False,
     **overrides: Any,
 ) -> tuple[PoseTracks, QualityReport]:
-    """Run calibrate -> placeholders -> held points -> repeats -> confidence -> jumps -> swaps ->
-    gaps -> smoothing -> resampling.
+    """Run calibrate -> placeholders -> held and interpolated points -> repeats -> confidence ->
+    jumps -> swaps -> gaps -> smoothing -> resampling.
 
     Parameters
     ----------
@@ -117,18 +118,26 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         placed = at_positions(tracks.coords, placeholders)
     x[placed], conf[placed] = np.nan, np.nan
     raw_missing = np.isnan(x[..., 0])
-    # points held still where the tracker lost them (a track forward-filled): not seen. Before
-    # repeated images, whose frames would break a hold in two. A held point is known on its own
-    # frame; whether repeats can be chance is read from the whole recording, as the "auto"
-    # speed bound is (streaming takes it as a setting).
+    # points held still where the tracker lost them (a track forward-filled), or on straight
+    # lines between seen ones (interpolated): not seen. Before repeated images, whose frames
+    # would break a hold in two. A held point is known on its own frame; whether repeats can be
+    # chance is read from the whole recording, as the "auto" speed bound is (streaming takes
+    # it as a setting).
     held, looked = np.zeros(x.shape[:3], bool), False
-    if p.mask_held:
+    lined, lined_looked = np.zeros(x.shape[:3], bool), False
+    interpolated = p.mask_interpolated and not causal  # a line needs the next frame
+    if p.mask_held or interpolated:
         probe = x.copy()  # the points the confidence keeps
         _mask_confidence_inplace(probe, conf, p.min_confidence)
-        held, looked = held_points(probe)
-        x[held], conf[held] = np.nan, np.nan
-        raw_missing |= held
-        del probe
+        if p.mask_held:
+            held, looked = held_points(probe)
+            probe[held] = np.nan
+        if interpolated:
+            lined, lined_looked = interpolated_points(probe)
+        filled_in = held | lined
+        x[filled_in], conf[filled_in] = np.nan, np.nan
+        raw_missing |= filled_in
+        del probe, filled_in
     # repeated images (offline only: a repeat is known once the next frame differs)
     repeated = repeated_frames(x) if p.fill_repeated and not causal else np.zeros(len(x), bool)
     x[repeated], conf[repeated] = np.nan, np.nan  # missing points have no confidence
@@ -185,6 +194,9 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "placeholder_points": int(placed.sum()),
         "held_points": int(held.sum()),
         "held_share": float(held.mean()) if held.size else 0.0,
+        "interpolated_points": int(lined.sum()),
+        "interpolated_share": float(lined.mean()) if lined.size else 0.0,
+        "interpolated_looked_for": lined_looked,
         "held_looked_for": looked,
         "identity_exchanges": exchanges,
         "placeholders": placeholders,

@@ -1327,11 +1327,11 @@ class BehaviourModel(BaseEstimator):
         def pick(prefix: str) -> dict[str, np.ndarray]:
             return {k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)}
 
-        # saved before placeholders, held points and exchanged identities were looked for:
-        # they still are not
+        # saved before placeholders, held or interpolated points and exchanged identities
+        # were looked for: they still are not
         saved = {
-            "placeholders": None, "mask_held": False, "repair_identities": False,
-            **meta["cleaning"],
+            "placeholders": None, "mask_held": False, "mask_interpolated": False,
+            "repair_identities": False, **meta["cleaning"],
         }  # fmt: skip
         model.cleaning_ = CleanParams.from_dict(saved)
         model.features_ = FeaturePipeline.from_state(meta["features"], pick("features/"))

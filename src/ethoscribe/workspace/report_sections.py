@@ -102,6 +102,11 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
         "missing in the raw data",
     )  # fmt: skip
     text += _counts_said(
+        ws, table, "interpolated_points",
+        "Points on straight lines at an even pace between seen points (a track interpolated "
+        "over its gaps before export), counted as missing in the raw data",
+    )  # fmt: skip
+    text += _counts_said(
         ws, table, "identity_exchanges",
         "Times tracks took over another animal (leapt to where its track had just been, or "
         "came back from a loss with its proportions) and were given that animal from then on "

@@ -320,6 +320,7 @@ def _prepare(
     _warn_repeated_frames(rows, used)
     _warn_placeholders(rows, used)
     _warn_held_points(rows, used)
+    _warn_interpolated_points(rows, used)
     _warn_identity_exchanges(rows, used)
     _warn_unseen_keypoints(quality)
     first = cleaning if isinstance(cleaning, dict) else (cleaning[0] if cleaning else {})
@@ -506,6 +507,27 @@ def _sessions_named(
         if what:
             named.append(f"'{row.get('session')}' ({what})")
     return named
+
+
+def _warn_interpolated_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
+    """Name sessions with more than 1 % of their points on straight lines between seen points
+    (set lost by the cleaning): a track interpolated over its gaps before export."""
+
+    def lined(row: dict[str, Any], params: dict[str, Any]) -> str | None:
+        share = params.get("interpolated_share", 0.0)  # of the session's points
+        return f"{share:.0%} of its points" if share > REPEATED_SHARE else None
+
+    named = _sessions_named(rows, used, lined)
+    if named:
+        warnings.warn(
+            f"points on straight lines at an even pace between seen points in session(s) "
+            f"{listed(named)} were taken for points filled in over the tracker's gaps (a "
+            "track interpolated before export?) and set missing: no body part moves in exact "
+            "straight lines. To keep them, pass cleaning={'mask_interpolated': False} "
+            "(command line: --keep-interpolated-points)",
+            InputWarning,
+            stacklevel=3,
+        )
 
 
 def _warn_held_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
