@@ -480,10 +480,22 @@ def test_a_study_whose_lost_points_were_written_as_zeros_is_cleaned_and_said(tmp
     pd.testing.assert_frame_equal(labels[0], labels[1])
 
 
-def test_a_study_forward_filled_over_its_gaps_is_cleaned_and_said(tmp_path):
-    # Invented animals (the package's simulator) whose lost points were forward-filled before
-    # export, with a whole animal lost for 4 s: the run sets the held points missing, says so,
-    # and the summary and the report's data quality count them.
+@pytest.mark.parametrize(
+    ("filling", "key", "said", "reported"),
+    [
+        ("ffill", "held_points", "forward-filled",
+         "Points held exactly where they were on the frame before"),
+        ("interpolate", "interpolated_points", "interpolated",
+         "Points on straight lines at an even pace between seen points"),
+    ],
+)  # fmt: skip
+def test_a_study_filled_in_over_its_gaps_is_cleaned_and_said(
+    tmp_path, filling, key, said, reported
+):
+    # Invented animals (the package's simulator) whose lost points were forward-filled, or
+    # interpolated (pandas), before export, with a whole animal lost for 4 s: the run sets the
+    # filled-in points missing, says so, and the summary and the report's data quality count
+    # them.
     from ethoscribe.simulate import simulate_session
     from ethoscribe.workspace import Workspace, discover
     from ethoscribe.workspace.report_sections import quality_section
@@ -494,40 +506,15 @@ def test_a_study_forward_filled_over_its_gaps_is_cleaned_and_said(tmp_path):
         lost = ~np.isfinite(tracks.coords).all(-1) | (tracks.confidence < 0.5)
         lost[200:300] = True
         flat = np.where(lost[..., None], np.nan, tracks.coords).reshape(tracks.n_frames, -1)
-        held = pd.DataFrame(flat).ffill().bfill().to_numpy().reshape(tracks.coords.shape)
-        write_tidy(tracks.replace(coords=held, confidence=None), tmp_path / f"s{seed}.csv")
+        filled = getattr(pd.DataFrame(flat), filling)().bfill().to_numpy()
+        exported = tracks.replace(coords=filled.reshape(tracks.coords.shape), confidence=None)
+        write_tidy(exported, tmp_path / f"s{seed}.csv")
         files.append(tmp_path / f"s{seed}.csv")
-    with pytest.warns(InputWarning, match=r"'s1' \(\d+% of its points\), 's2' .* forward-filled"):
+    with pytest.warns(InputWarning, match=rf"'s1' \(\d+% of its points\), 's2' .* {said}"):
         discover(files, tmp_path / "ws", fps=25, states=2, progress=False, stability=False)
     used = json.loads((tmp_path / "ws" / "summary.json").read_text())["cleaning"]["used"]
-    assert min(used["held_points"].values()) >= 99 * 10  # the 4 s: 99 frames x 10 keypoints
-    text = quality_section(Workspace(tmp_path / "ws")).text
-    assert "Points held exactly where they were on the frame before" in text
-
-
-def test_a_study_interpolated_over_its_gaps_is_cleaned_and_said(tmp_path):
-    # Invented animals (the package's simulator) whose lost points were filled in with pandas'
-    # linear interpolation before export, with a whole animal lost for 4 s: the run sets the
-    # interpolated points missing, says so, and the summary and the report count them.
-    from ethoscribe.simulate import simulate_session
-    from ethoscribe.workspace import Workspace, discover
-    from ethoscribe.workspace.report_sections import quality_section
-
-    files = []
-    for seed in (1, 2):
-        tracks, _ = simulate_session(duration_s=20, fps=25, seed=seed, session=f"s{seed}")
-        lost = ~np.isfinite(tracks.coords).all(-1) | (tracks.confidence < 0.5)
-        lost[200:300] = True
-        flat = np.where(lost[..., None], np.nan, tracks.coords).reshape(tracks.n_frames, -1)
-        lined = pd.DataFrame(flat).interpolate().to_numpy().reshape(tracks.coords.shape)
-        write_tidy(tracks.replace(coords=lined, confidence=None), tmp_path / f"s{seed}.csv")
-        files.append(tmp_path / f"s{seed}.csv")
-    with pytest.warns(InputWarning, match=r"'s1' \(\d+% of its points\), 's2' .* interpolated"):
-        discover(files, tmp_path / "ws", fps=25, states=2, progress=False, stability=False)
-    used = json.loads((tmp_path / "ws" / "summary.json").read_text())["cleaning"]["used"]
-    assert min(used["interpolated_points"].values()) >= 100 * 10  # the 4 s x 10 keypoints
-    text = quality_section(Workspace(tmp_path / "ws")).text
-    assert "Points on straight lines at an even pace between seen points" in text
+    assert min(used[key].values()) >= 99 * 10  # the 4 s: at least 99 frames x 10 keypoints
+    assert reported in quality_section(Workspace(tmp_path / "ws")).text
 
 
 def test_sessions_with_many_repeated_frames_are_named():

@@ -509,47 +509,44 @@ def _sessions_named(
     return named
 
 
+def _warn_points_share(
+    rows: Sequence[dict[str, Any]], used: Sequence[Any], key: str, what: str, why: str
+) -> None:
+    """Warn that the points ``what`` describes, more than 1 % of a session's (its cleaning
+    value ``key``), were set missing in the sessions named, and ``why``."""
+
+    def share(row: dict[str, Any], params: dict[str, Any]) -> str | None:
+        value = params.get(key, 0.0)  # of the session's points
+        return f"{value:.0%} of its points" if value > REPEATED_SHARE else None
+
+    named = _sessions_named(rows, used, share)
+    if named:
+        warnings.warn(f"{what} in session(s) {listed(named)} {why}", InputWarning, stacklevel=4)
+
+
 def _warn_interpolated_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
     """Name sessions with more than 1 % of their points on straight lines between seen points
     (set lost by the cleaning): a track interpolated over its gaps before export."""
-
-    def lined(row: dict[str, Any], params: dict[str, Any]) -> str | None:
-        share = params.get("interpolated_share", 0.0)  # of the session's points
-        return f"{share:.0%} of its points" if share > REPEATED_SHARE else None
-
-    named = _sessions_named(rows, used, lined)
-    if named:
-        warnings.warn(
-            f"points on straight lines at an even pace between seen points in session(s) "
-            f"{listed(named)} were taken for points filled in over the tracker's gaps (a "
-            "track interpolated before export?) and set missing: no body part moves in exact "
-            "straight lines. To keep them, pass cleaning={'mask_interpolated': False} "
-            "(command line: --keep-interpolated-points)",
-            InputWarning,
-            stacklevel=3,
-        )
+    _warn_points_share(
+        rows, used, "interpolated_share",
+        "points on straight lines at an even pace between seen points",
+        "were taken for points filled in over the tracker's gaps (a track interpolated before "
+        "export?) and set missing: no body part moves in exact straight lines. To keep them, "
+        "pass cleaning={'mask_interpolated': False} (command line: --keep-interpolated-points)",
+    )  # fmt: skip
 
 
 def _warn_held_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
     """Name sessions with more than 1 % of their points held still (set lost by the cleaning):
     a track forward-filled over its gaps, or a tracker keeping lost points where it last saw
     them."""
-
-    def held(row: dict[str, Any], params: dict[str, Any]) -> str | None:
-        share = params.get("held_share", 0.0)  # of the session's points
-        return f"{share:.0%} of its points" if share > REPEATED_SHARE else None
-
-    named = _sessions_named(rows, used, held)
-    if named:
-        warnings.warn(
-            f"points held exactly where they were on the frame before in session(s) "
-            f"{listed(named)} were taken for points the tracker lost and held (a track "
-            "forward-filled over its gaps?) and set missing: a living animal never repeats a "
-            "position to the last digit. To keep them, pass cleaning={'mask_held': False} "
-            "(command line: --keep-held-points)",
-            InputWarning,
-            stacklevel=3,
-        )
+    _warn_points_share(
+        rows, used, "held_share",
+        "points held exactly where they were on the frame before",
+        "were taken for points the tracker lost and held (a track forward-filled over its "
+        "gaps?) and set missing: a living animal never repeats a position to the last digit. "
+        "To keep them, pass cleaning={'mask_held': False} (command line: --keep-held-points)",
+    )  # fmt: skip
 
 
 def _warn_placeholders(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
