@@ -85,11 +85,16 @@ def test_three_dimensional_tracks_get_a_vertical_axis_choice(tmp_path):
     assert "vertical axis is taken to be y" in panel.found.value
     assert "Vertical axis" in panel.found.value  # where to change it
     assert panel.up.options[0] == ("automatic (z)", "auto")  # what auto would use, still
+    # which way it points: a swimmer shows no floor, so up is assumed; the user may say down
+    assert panel.upward.layout.display == ""
+    assert panel.upward.options[0] == ("automatic (up)", "auto")
+    panel.upward.value = "down"
     panel.states.value = 3
     panel.out.value = str(tmp_path / "results")
     panel.run.click()  # the choice reaches discover (a user may know better than the check)
     assert "ethoscribe-note-ok" in panel.message.value, panel.message.value
-    assert Workspace(tmp_path / "results").model().features_.up_axis == "y"
+    features = Workspace(tmp_path / "results").model().features_
+    assert (features.up_axis, features.up_direction, features.up_sign_) == ("y", "down", -1)
     panel.workbench.close()
 
 

@@ -111,6 +111,32 @@ def test_3d_postures_are_forward_sideways_up_whichever_axis_is_vertical(turn):
     assert FeaturePipeline.from_state(meta, arrays).up_sign_ == 1
 
 
+def test_the_vertical_direction_given_by_hand_turns_the_drawings():
+    # A body with no floor to read (it rises and falls as a whole, as a swimmer does), written
+    # in camera coordinates (z down): read, there is no sign of the direction, so it stays drawn
+    # upside down; given "down", it is drawn upright (worked by hand, _walker_3d).
+    tracks, expected = _walker_3d()
+    bob = 3.0 * np.sin(np.arange(tracks.n_frames) / 7.0)
+    coords = tracks.coords.copy()
+    coords[..., 2] += bob[:, None, None]
+    expected = expected.copy()
+    expected[..., 2] += bob[:, None]
+    down = np.asarray(_TURNS["z down"][1], dtype=float)
+    turned = tracks.replace(coords=coords @ down.T)
+    options = {"up_axis": "z", "origin": "tail", "axis": ("tail", "nose")}
+    read = FeaturePipeline(**options).fit([turned])
+    assert (read.up_sign_, read.up_report_) == (1, "")
+    assert not np.allclose(egocentric_postures(turned, read)[:, 0], expected)
+    given = FeaturePipeline(**options, up_direction="down").fit([turned])
+    assert given.up_sign_ == -1 and given.up_report_.startswith("z points down (given)")
+    np.testing.assert_allclose(egocentric_postures(turned, given)[:, 0], expected, atol=1e-9)
+    meta, arrays = given.to_state()
+    loaded = FeaturePipeline.from_state(json.loads(json.dumps(meta)), arrays)
+    assert (loaded.up_direction, loaded.up_sign_) == ("down", -1)
+    with pytest.raises(InputError, match="up_direction must be 'auto', 'up' or 'down'"):
+        FeaturePipeline(up_direction="-z").fit([turned])
+
+
 @pytest.mark.filterwarnings("ignore:the keypoints .* never move:UserWarning")  # a rigid body
 def test_egocentric_postures_refuse_other_keypoints():
     tracks = _walker()

@@ -145,6 +145,12 @@ def test_command_line_sets_the_vertical_axis(fish, tmp_path, capsys):
     assert command_line_message("pass up_axis='y' (command line: --up-axis y)") == (
         "pass --up-axis y"
     )
+    # a swimmer shows no floor, so which way the vertical points is not read: given by hand
+    assert main(["discover", str(tmp_path / "fish.parquet"), "--out", str(tmp_path / "c"),
+                 "--up-direction", "down", *common]) == 0  # fmt: skip
+    said = json.loads((tmp_path / "c" / "summary.json").read_text())["features"]
+    assert said["up_axis_report"].endswith("; y points down (given); postures are drawn "
+                                           "turned upright")  # fmt: skip
 
 
 def test_labels_do_not_depend_on_which_axis_points_up(fish):

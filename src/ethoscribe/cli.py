@@ -266,6 +266,14 @@ def build_parser() -> argparse.ArgumentParser:
         "give no clear sign; motion capture often has y up)",
     )
     d.add_argument(
+        "--up-direction",
+        choices=("auto", "up", "down"),
+        default="auto",
+        help="3-D tracks: which way the vertical axis points (default auto: read from the "
+        "floor; down for camera coordinates, which grow downwards); only the drawn postures "
+        "depend on it",
+    )
+    d.add_argument(
         "--view",
         choices=("auto", "above", "side"),
         default="auto",
@@ -616,6 +624,7 @@ def _run(args: argparse.Namespace) -> str:
             origin=args.origin,
             axis=args.axis,
             up_axis=args.up_axis,
+            up_direction=args.up_direction,
             view=args.view,
             slow_regimes=not args.no_slow_regimes,
             states=args.states,
@@ -697,6 +706,7 @@ _OPTIONS = {
     "seed": "--seed", "random_state": "--seed", "method": "--method", "origin": "--origin",
     "axis": "--axis", "replace_curation": "--replace-curation", "force": "--force",
     "causal": "--for-streaming", "social": "--no-social", "up_axis": "--up-axis", "view": "--view",
+    "up_direction": "--up-direction",
     "slow_regimes": "--no-slow-regimes",
     "scheduler": "--scheduler", "manifest": "--manifest", "out": "--out",
 }  # fmt: skip

@@ -120,6 +120,11 @@ class FeaturePipeline(BaseEstimator):
         and ``axis_details_`` (dict).
     up_axis : {"x", "y", "z"}
         Vertical axis of 3-D tracks; rotations are about it only, so heights are kept.
+    up_direction : {"auto", "up", "down"}
+        Which way ``up_axis`` points in 3-D tracks: "auto" reads it from the floor
+        (``vertical_check.vertical_direction``; up when the tracks give no sign of it), "down"
+        for coordinates that grow downwards (camera coordinates). Only drawings depend on it:
+        postures of tracks whose vertical points down are drawn turned upright.
     align : {"rotate", "procrustes"}
         "rotate": turn the body axis onto +x. "procrustes": rotate each frame onto the mean
         posture (fitted), which uses all keypoints and is steadier when the axis points jitter.
@@ -203,7 +208,8 @@ class FeaturePipeline(BaseEstimator):
     frequencies_ : tuple of float, band centres used (given, or chosen for the frame rate)
     height_floor_ : float or None, 3-D floor of the centroid's height (vertical="separate")
     up_sign_, up_report_ : 3-D: +1 when ``up_axis`` points up, -1 when the tracks show it
-        pointing down, and why (``vertical_check.vertical_direction``); postures are drawn with it
+        pointing down or ``up_direction`` says so, and why (``vertical_check.vertical_direction``);
+        postures are drawn with it
     body_size_ : float or None, typical body size (scale_by_size=True)
     columns_, keypoints_, n_dims_, units_, fps_, social_, n_components_
 
@@ -228,6 +234,7 @@ class FeaturePipeline(BaseEstimator):
         origin: str | None = None,
         axis: tuple[str, str] | None = None,
         up_axis: str = "z",
+        up_direction: str = "auto",
         align: str = "rotate",
         n_components: int = 8,
         frequencies: Sequence[float] | None = None,
@@ -248,6 +255,7 @@ class FeaturePipeline(BaseEstimator):
         self.origin = origin
         self.axis = axis
         self.up_axis = up_axis
+        self.up_direction = up_direction
         self.align = align
         self.n_components = n_components
         self.frequencies = frequencies
@@ -314,6 +322,8 @@ class FeaturePipeline(BaseEstimator):
                 f"up_axis must be 'x', 'y' or 'z'; got {self.up_axis!r} ('auto' is read by "
                 "BehaviourModel and discover; here use vertical_check.resolve_up_axis first)"
             )
+        if self.up_direction not in ("auto", "up", "down"):
+            bad.append(f"up_direction must be 'auto', 'up' or 'down'; got {self.up_direction!r}")
         if self.align not in ("rotate", "procrustes"):
             bad.append(f"align must be 'rotate' or 'procrustes'; got {self.align!r}")
         if self.feature_set not in ("compact", "detailed"):
@@ -536,6 +546,10 @@ class FeaturePipeline(BaseEstimator):
         warn_vertical_axis(sessions, self.up_axis)
         # which way the vertical points: drawings only (heights enter features linearly)
         self.up_sign_, self.up_report_ = vertical_direction(sessions, self.up_axis)
+        if self.up_direction != "auto" and first.n_dims == 3:
+            self.up_sign_ = 1 if self.up_direction == "up" else -1
+            turned = "; postures are drawn turned upright" if self.up_sign_ < 0 else ""
+            self.up_report_ = f"{self.up_axis} points {self.up_direction} (given){turned}"
         self.keypoints_ = tuple(first.keypoints)
         self.n_dims_, self.units_ = first.n_dims, first.units
         rates = {s.fps for s in sessions}

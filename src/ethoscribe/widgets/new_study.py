@@ -83,6 +83,14 @@ class NewStudy(w.VBox):
             layout=w.Layout(width="340px", display="none"),  # shown for 3-D tracks
         )
         self.up.add_class("ethoscribe-up-axis")
+        self.upward = w.Dropdown(
+            options=[("automatic", "auto"), ("up", "up"), ("down", "down")],
+            value="auto",
+            description="It points",
+            style=label,
+            layout=w.Layout(width="340px", display="none"),  # shown for 3-D tracks
+        )
+        self.upward.add_class("ethoscribe-up-direction")
         self.view = w.Dropdown(
             options=[("automatic", "auto"), ("from above", "above"), ("from the side", "side")],
             value="auto",
@@ -125,6 +133,7 @@ class NewStudy(w.VBox):
                 flow([self.origin]),
                 flow([self.tail, self.head]),
                 self.up,
+                self.upward,
                 self.view,
                 self.states,
                 self.out,
@@ -163,6 +172,10 @@ class NewStudy(w.VBox):
         # 3-D tracks: which axis points up decides headings and heights (check again after a change)
         self.up.layout.display = "" if info.get("n_dims") == 3 else "none"
         _say_automatic(self.up, info["up_axis_auto"])
+        # ... and which way it points (only the drawn postures depend on it)
+        self.upward.layout.display = self.up.layout.display
+        if info.get("up_direction_auto"):
+            _say_automatic(self.upward, info["up_direction_auto"])
         # 2-D tracks: filmed from above or from the side decides what the body frame keeps
         self.view.layout.display = "" if info.get("n_dims") == 2 else "none"
         _say_automatic(
@@ -208,6 +221,7 @@ class NewStudy(w.VBox):
             origin=None if self.origin.value == AUTOMATIC else self.origin.value,
             axis=axis,
             up_axis=self.up.value,
+            up_direction=self.upward.value,
             view=self.view.value,
             states="auto" if self.states.value == AUTOMATIC else int(self.states.value),
         )

@@ -42,7 +42,9 @@ def preview_study(
     Returns a dict: ``sessions`` (names), ``keypoints``, ``animals``, ``fps``, ``units``,
     ``n_dims``, ``axis`` (tail side, head side), ``origin``, ``axis_text`` (how the axis was
     chosen), ``up_axis`` and ``up_axis_text`` (the vertical axis of 3-D tracks and how it was
-    chosen: "auto" reads it from the tracks), ``up_axis_auto`` (the axis "auto" would use)
+    chosen: "auto" reads it from the tracks), ``up_axis_auto`` (the axis "auto" would use),
+    ``up_direction_auto`` (which way it points as read from the floor: "up", or "down" for
+    camera coordinates; "up" when there is no floor to read; None for 2-D tracks),
     ``view``, ``view_text`` and ``view_auto`` (2-D tracks: filmed from above or from the
     side, as for the vertical axis; None and "" for 3-D tracks),
     and ``warnings`` (e.g. an unreliable automatic axis, or 3-D tracks that look as if another
@@ -91,6 +93,7 @@ def preview_study(
         "up_axis": up,
         "up_axis_text": "" if two_d else up_text,
         "up_axis_auto": read,
+        "up_direction_auto": None if two_d else ("down" if pipe.up_sign_ < 0 else "up"),
         "view": seen if two_d else None,
         "view_text": view_text,
         "view_auto": seen_auto if two_d else None,

@@ -118,6 +118,7 @@ def discover(
     up_axis: str = "auto",
     slow_regimes: bool = True,
     view: str = "auto",
+    up_direction: str = "auto",
 ) -> Workspace:
     """Read, clean, featurise and segment sessions; write a workspace into ``out``.
 
@@ -141,6 +142,9 @@ def discover(
         tracks (the body's spread stands apart along the vertical and the animals range least
         along it; z when they give no clear sign); ``summary.json`` and the report say which
         and why
+    up_direction : which way that axis points, "up" or "down" (camera coordinates grow
+        downwards); "auto" (default) reads it from the floor. Only the drawn postures depend
+        on it (turned upright when it points down)
     view : how a camera filmed 2-D tracks: "above" (the body frame turns with the animal),
         "side" (the image's y is vertical: the body frame only mirrors the animal to face one
         way and keeps its height and pitch), or "auto" (default: read from the tracks, from
@@ -215,6 +219,8 @@ def discover(
         # automatic axis other than z must not reuse them (the version number did not change).
         auto_z = up_axis == "auto" and resolve_up_axis(sample, "auto")[0] == "z"
         up = {} if auto_z else {"up_axis": up_axis}
+        if up_direction != "auto":  # set only when given: earlier fits keep their digest
+            up = {**up, "up_direction": up_direction}
         # 2-D: fits made before the view was read were from above; keep their digest
         if view == "side" or resolve_view(sample, "auto")[0] != view.replace("auto", "above"):
             up = {**up, "view": view}
