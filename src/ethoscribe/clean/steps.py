@@ -352,15 +352,16 @@ LINE_TOLERANCE = 1e-9
 most this share of the coordinate's size (its absolute value, at least 1) in every
 coordinate: the rounding of a linear interpolation in double precision (about 1e-16 of the
 size). Tracked points of the validation bench's animal sources, as recorded, go no lower than
-8e-6 (seed 0; one exact zero in the example sessions, stored in 1/64 mm: chance, see
-``HELD_CHANCE``)."""
+8e-6 (seed 0), but for two exact zeros among the example sessions' 520,000 moving points
+(stored in 1/64 mm: chance, see ``LINE_EVIDENT``)."""
 
 LINE_EVIDENT = 0.001
 """Points on such lines count in runs of two frames or more; single ones (a gap of one frame)
 too where the runs hold at least this share of the moving points: the export evidently
 interpolated (the example sessions so exported: 2.7 %). A lone point on a line is otherwise
-chance (one in 90,000 in the example sessions as recorded, stored in 1/64 mm; 0.02-0.6 % of
-the bench's simulated sources rounded to 0.1 mm, where runs of two are 0.005 % at most)."""
+chance (two of the example sessions' 520,000 moving points as recorded, stored in 1/64 mm;
+0.02-0.6 % of the bench's simulated sources rounded to 0.1 mm, where runs of two are 0.005 %
+at most)."""
 
 LINE_MAX_SHARE = 0.9
 """...of keypoints with at most this share of their points on such lines: a keypoint that moves
