@@ -147,14 +147,23 @@ def _forward_filled(s: PoseTracks) -> PoseTracks:
     return s.replace(coords=filled, confidence=None)
 
 
-def _interpolated(s: PoseTracks) -> PoseTracks:
-    """Lost points (missing, or confidence below 0.5) filled in on straight lines between the
-    points seen either side, no confidence column: ``DataFrame.interpolate()`` before export
-    (pandas' default: lost points after the last seen one keep its position)."""
-    lost = ~np.isfinite(s.coords).all(-1) | (s.confidence < 0.5)
-    flat = np.where(lost[..., None], np.nan, s.coords).reshape(s.n_frames, -1)
-    filled = pd.DataFrame(flat).interpolate().to_numpy().reshape(s.coords.shape)
-    return s.replace(coords=filled, confidence=None)
+def _interpolated(method: str) -> Callable[[PoseTracks], PoseTracks]:
+    """Lost points (missing, or confidence below 0.5) filled in between the points seen either
+    side, no confidence column: ``DataFrame.interpolate(method)`` before export ("linear":
+    straight lines, and lost points after the last seen one keep its position; "cubic",
+    "pchip": cubic curves, lost points before the first and after the last seen one left
+    empty)."""
+
+    def fill(s: PoseTracks) -> PoseTracks:
+        lost = ~np.isfinite(s.coords).all(-1) | (s.confidence < 0.5)
+        table = pd.DataFrame(np.where(lost[..., None], np.nan, s.coords).reshape(s.n_frames, -1))
+        if method == "linear":
+            table = table.interpolate()
+        else:
+            table = table.interpolate(method=method, limit_area="inside")
+        return s.replace(coords=table.to_numpy().reshape(s.coords.shape), confidence=None)
+
+    return fill
 
 
 def _exchanged(n: int, gap: int = 0) -> Callable[[PoseTracks], PoseTracks]:
@@ -202,7 +211,9 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "lost points written as -1, -1": _placeholder(-1.0),
     "one keypoint's lost points written as 0, 0": _placeholder_one(0.0),
     "lost points forward-filled": _forward_filled,
-    "lost points interpolated": _interpolated,
+    "lost points interpolated": _interpolated("linear"),
+    "lost points interpolated (cubic)": _interpolated("cubic"),
+    "lost points interpolated (pchip)": _interpolated("pchip"),
     # several animals: a tracker exchanging their identities where they come close
     "animals exchanged 4 times": _exchanged(4),
     "animals exchanged 4 times, both lost 6 frames": _exchanged(4, 6),
@@ -226,6 +237,8 @@ _TWO_D = [
     "one keypoint's lost points written as 0, 0",
     "lost points forward-filled",
     "lost points interpolated",
+    "lost points interpolated (cubic)",
+    "lost points interpolated (pchip)",
 ]
 RECORDED = {
     "own_fish": ["as recorded", "y up", "x up", "filmed from above", "filmed from the side"],

@@ -543,6 +543,14 @@ def test_points_interpolated_over_the_trackers_gaps_are_missing():
     np.testing.assert_array_equal(np.isnan(cleaned.coords[..., 0]), expected)
     assert report.params["interpolated_points"] == expected.sum() == 30 + 3 + 1 + 4 * 60
     assert report.params["held_points"] == 0
+    # cubic curves (pandas' cubic interpolation, a scipy spline): every gap of three frames or
+    # more, with its first and last frames; a gap of one frame has no cubic of its own
+    table = pd.DataFrame(flat).interpolate(method="cubic", limit_area="inside")
+    curved = expected.copy()
+    curved[150, 0, 1] = False
+    np.testing.assert_array_equal(
+        interpolated_points(table.to_numpy().reshape(walk.shape))[0], curved
+    )
     kept, report = clean(tracks, replace(p, mask_interpolated=False))
     assert report.params["interpolated_points"] == 0 and np.isfinite(kept.coords).all()
     # causal cleaning cannot see a line before its next frame: nothing is looked for

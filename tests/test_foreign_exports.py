@@ -486,7 +486,7 @@ def test_a_study_whose_lost_points_were_written_as_zeros_is_cleaned_and_said(tmp
         ("ffill", "held_points", "forward-filled",
          "Points held exactly where they were on the frame before"),
         ("interpolate", "interpolated_points", "interpolated",
-         "Points on straight lines at an even pace between seen points"),
+         "Points on straight lines at an even pace, or on cubic curves, between seen points"),
     ],
 )  # fmt: skip
 def test_a_study_filled_in_over_its_gaps_is_cleaned_and_said(

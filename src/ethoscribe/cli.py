@@ -475,7 +475,8 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
     c.add_argument(
         "--keep-interpolated-points",
         action="store_true",
-        help="keep points on straight lines at an even pace between seen points (default: "
+        help="keep points on straight lines at an even pace, or on cubic curves, between seen "
+        "points (default: "
         "where coordinates have enough digits, such points were filled in over the tracker's "
         "gaps, e.g. a track interpolated before export, and count as lost)",
     )

@@ -80,27 +80,31 @@ def step_speeds(x, fps):
 
 
 @njit(cache=True)
-def on_lines(x, tolerance):
-    """(frames - 2, animals, keypoints): the point of each middle frame lies on the straight line
-    through its neighbours at an even pace (second difference at most ``tolerance`` times the
-    coordinate's size, at least 1, in every coordinate) and moves; NaN lies on no line. One
-    pass, no temporaries: array expressions allocated 0.6 GB per million frames of 12 keypoints
-    in 2-D."""
+def on_curves(x, tolerance, order):
+    """(frames - order, animals, keypoints): the point of each middle frame (``order // 2``
+    frames in) lies with its ``order // 2`` neighbours either side on one polynomial of degree
+    below ``order`` (``order`` 2: a straight line at an even pace; 4: a cubic), its
+    ``order``-th difference at most ``tolerance`` times the coordinate's size (at least 1) in
+    every coordinate, and moves to the next frame; NaN lies on no curve. One pass, no
+    temporaries: array expressions allocated 0.6 GB per million frames of 12 keypoints in 2-D."""
     n, n_a, n_k, n_d = x.shape
-    out = np.zeros((max(n - 2, 0), n_a, n_k), np.bool_)
-    for t in range(n - 2):
+    half = order // 2
+    weights = np.array([1.0, -2.0, 1.0]) if order == 2 else np.array([1.0, -4.0, 6.0, -4.0, 1.0])
+    out = np.zeros((max(n - order, 0), n_a, n_k), np.bool_)
+    for t in range(n - order):
         for a in range(n_a):
             for k in range(n_k):
                 moved = False
                 on = True
                 for d in range(n_d):
-                    here = x[t + 1, a, k, d]
-                    after = x[t + 2, a, k, d]
-                    second = abs(x[t, a, k, d] - 2.0 * here + after)
-                    if not second <= tolerance * max(abs(here), 1.0):  # NaN: not on a line
+                    here = x[t + half, a, k, d]
+                    difference = 0.0
+                    for j in range(order + 1):
+                        difference += weights[j] * x[t + j, a, k, d]
+                    if not abs(difference) <= tolerance * max(abs(here), 1.0):  # NaN: no curve
                         on = False
                         break
-                    moved = moved or after != here
+                    moved = moved or x[t + half + 1, a, k, d] != here
                 out[t, a, k] = on and moved
     return out
 

@@ -88,9 +88,10 @@ class CleanParams:
         whether repeats can be chance is read from the whole recording; streaming cleaning
         takes it as a setting, ``StreamingCleaner(held=...)``).
     mask_interpolated : bool
-        Treat points on straight lines at constant speed between seen points, in runs of two
-        frames or more, where coordinates are written with enough digits for that never to be
-        chance (a track interpolated over its gaps before export), as lost
+        Treat points on straight lines at constant speed, or on cubic curves, between seen
+        points, where coordinates are written with enough digits for that never to be chance
+        (a track interpolated over its gaps before export: linear, cubic, spline, pchip), as
+        lost
         (:func:`~ethoscribe.clean.steps.interpolated_points`). Not in causal cleaning (it
         needs the next frame).
     placeholders : "auto", positions or None

@@ -103,8 +103,8 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     )  # fmt: skip
     text += _counts_said(
         ws, table, "interpolated_points",
-        "Points on straight lines at an even pace between seen points (a track interpolated "
-        "over its gaps before export), counted as missing in the raw data",
+        "Points on straight lines at an even pace, or on cubic curves, between seen points (a "
+        "track interpolated over its gaps before export), counted as missing in the raw data",
     )  # fmt: skip
     text += _counts_said(
         ws, table, "identity_exchanges",

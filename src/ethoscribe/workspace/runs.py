@@ -535,10 +535,10 @@ def _warn_interpolated_points(rows: Sequence[dict[str, Any]], used: Sequence[Any
     (set lost by the cleaning): a track interpolated over its gaps before export."""
     _warn_points_share(
         rows, used, "interpolated_share",
-        "points on straight lines at an even pace between seen points",
+        "points on straight lines at an even pace, or on cubic curves, between seen points",
         "were taken for points filled in over the tracker's gaps (a track interpolated before "
-        "export?) and set missing: no body part moves in exact straight lines. To keep them, "
-        "pass cleaning={'mask_interpolated': False} (command line: --keep-interpolated-points)",
+        "export?) and set missing: no body part moves exactly so. To keep them, pass "
+        "cleaning={'mask_interpolated': False} (command line: --keep-interpolated-points)",
     )  # fmt: skip
 
 
