@@ -75,30 +75,12 @@ class NewStudy(w.VBox):
         self.head = w.Dropdown(
             options=[AUTOMATIC], description="to (head side)", layout=w.Layout(width="240px")
         )
-        self.up = w.Dropdown(
-            options=[("automatic", "auto"), ("z", "z"), ("y", "y"), ("x", "x")],
-            value="auto",
-            description="Vertical axis",
-            style=label,
-            layout=w.Layout(width="340px", display="none"),  # shown for 3-D tracks
+        # shown once the check has read the files: 3-D tracks the first two, 2-D the third
+        self.up = _hidden_choice("Vertical axis", ["z", "y", "x"], "ethoscribe-up-axis", label)
+        self.upward = _hidden_choice("It points", ["up", "down"], "ethoscribe-up-direction", label)
+        self.view = _hidden_choice(
+            "Camera", [("from above", "above"), ("from the side", "side")], "ethoscribe-view", label
         )
-        self.up.add_class("ethoscribe-up-axis")
-        self.upward = w.Dropdown(
-            options=[("automatic", "auto"), ("up", "up"), ("down", "down")],
-            value="auto",
-            description="It points",
-            style=label,
-            layout=w.Layout(width="340px", display="none"),  # shown for 3-D tracks
-        )
-        self.upward.add_class("ethoscribe-up-direction")
-        self.view = w.Dropdown(
-            options=[("automatic", "auto"), ("from above", "above"), ("from the side", "side")],
-            value="auto",
-            description="Camera",
-            style=label,
-            layout=w.Layout(width="340px", display="none"),  # shown for 2-D tracks
-        )
-        self.view.add_class("ethoscribe-view")
         self.states = w.Dropdown(
             options=[AUTOMATIC, *range(2, 21)],
             description="Motifs",
@@ -228,6 +210,22 @@ class NewStudy(w.VBox):
         self.workbench = Workbench(ws.path)
         self.result.children = [self.workbench]
         self.say("ok", f"Done: {ws.describe()}")
+
+
+def _hidden_choice(
+    description: str, options: list, css_class: str, style: dict[str, str]
+) -> w.Dropdown:
+    """A menu whose first option, "auto", reads the choice from the files, hidden until the
+    check shows it (``options``: values, or (label, value) pairs)."""
+    menu = w.Dropdown(
+        options=[("automatic", "auto"), *((o, o) if isinstance(o, str) else o for o in options)],
+        value="auto",
+        description=description,
+        style=style,
+        layout=w.Layout(width="340px", display="none"),
+    )
+    menu.add_class(css_class)
+    return menu
 
 
 def _say_automatic(menu: w.Dropdown, reads: str) -> None:
