@@ -572,6 +572,31 @@ def test_points_interpolated_over_the_trackers_gaps_are_missing():
         CleanParams(mask_interpolated="no")
 
 
+def test_the_curve_kernel_matches_numpy_differences():
+    # Reference: numpy.diff (n = 2 and 4) with the same tolerance and the same "moves" rule, on
+    # invented random points with a planted line, a planted cubic and a missing point.
+    from ethoscribe.clean._kernels import on_curves
+    from ethoscribe.clean.steps import LINE_TOLERANCE
+
+    x = np.random.default_rng(5).normal(100.0, 10.0, (60, 2, 3, 2))
+    t = np.arange(10.0)[:, None]
+    x[10:20, 0, 1] = 5.0 + t * [2.0, 3.0]
+    x[30:40, 1, 2] = 1.0 + t + 0.5 * t**2 - 0.1 * t**3
+    x[5, 0, 0, 1] = np.nan
+    for order in (2, 4):
+        half = order // 2
+        here = x[half : len(x) - half]
+        with np.errstate(invalid="ignore"):
+            small = np.abs(np.diff(x, n=order, axis=0)) <= LINE_TOLERANCE * np.maximum(
+                np.abs(here), 1.0
+            )
+        expected = small.all(-1) & (x[half + 1 : len(x) - half + 1] != here).any(-1)
+        found = on_curves(x, LINE_TOLERANCE, order)
+        np.testing.assert_array_equal(found, expected)
+        assert found[10 : 20 - order, 0, 1].all()  # the line's inner frames
+    assert on_curves(x, LINE_TOLERANCE, 4)[30 : 40 - 4, 1, 2].all()  # the cubic's
+
+
 def test_calibration_converts_and_records_units():
     t = PoseTracks(np.full((3, 1, 1, 2), 40.0), keypoints=["nose"], fps=30)
     mm = calibrate(t, px_per_unit=4.0, unit="mm")

@@ -169,7 +169,7 @@ def _placeholders_in(bodies: np.ndarray, min_count: int) -> tuple[list, list[boo
     pairs = np.unique(which.astype(np.int64) * n_kp + rows % n_kp)  # (place, keypoint) pairs
     holders = np.bincount(pairs // n_kp, minlength=len(places))
     recur = n >= min_count
-    lone = _lone_holder(bodies, pairs, n, recur)
+    lone = _lone_holder(bodies, pairs, n, recur & (holders == 1))
     candidate = recur & ((holders >= 2) | lone)
     if not candidate.any():
         return [], [], 0.0
@@ -211,17 +211,16 @@ def _position_keys(points: np.ndarray) -> np.ndarray:
 
 
 def _lone_holder(
-    bodies: np.ndarray, pairs: np.ndarray, n: np.ndarray, recur: np.ndarray
+    bodies: np.ndarray, pairs: np.ndarray, n: np.ndarray, lone: np.ndarray
 ) -> np.ndarray:
-    """Per place (of the ``recur`` ones, held ``n`` times; ``pairs`` place x keypoints +
-    keypoint): one keypoint alone holds it, and moves elsewhere (its other seen points hold
+    """Per place (of the ``lone`` ones, each held by one keypoint alone, ``n`` times; ``pairs``
+    place x keypoints + keypoint): that keypoint moves elsewhere (its other seen points hold
     more distinct positions than half their number).
 
     A keypoint lost at times and written as a placeholder (0, 0) while no other is lost moves
     with the body on its other frames, however often it is lost; a landmark written as a
     keypoint sits at one position on every frame it is seen (or at two, if moved once)."""
     n_kp = bodies.shape[1]
-    lone = recur & (np.bincount(pairs // n_kp, minlength=len(n)) == 1)
     if not lone.any():
         return lone
     keypoint = np.zeros(len(n), np.int64)

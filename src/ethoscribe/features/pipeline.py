@@ -545,8 +545,9 @@ class FeaturePipeline(BaseEstimator):
             warn_scale_outliers(sessions)
         warn_vertical_axis(sessions, self.up_axis)
         # which way the vertical points: drawings only (heights enter features linearly)
-        self.up_sign_, self.up_report_ = vertical_direction(sessions, self.up_axis)
-        if self.up_direction != "auto" and first.n_dims == 3:
+        if self.up_direction == "auto" or first.n_dims != 3:
+            self.up_sign_, self.up_report_ = vertical_direction(sessions, self.up_axis)
+        else:  # given: nothing to read
             self.up_sign_ = 1 if self.up_direction == "up" else -1
             turned = "; postures are drawn turned upright" if self.up_sign_ < 0 else ""
             self.up_report_ = f"{self.up_axis} points {self.up_direction} (given){turned}"
