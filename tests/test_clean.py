@@ -11,6 +11,7 @@ import pandas as pd
 import pytest
 from scipy.ndimage import median_filter
 from scipy.signal import medfilt, savgol_coeffs, savgol_filter
+from scipy.stats import scoreatpercentile
 
 from ethoscribe.clean import (
     CleanParams,
@@ -24,6 +25,7 @@ from ethoscribe.clean import (
     repair_swaps,
     resample,
     smooth,
+    streaming_cleaning,
 )
 from ethoscribe.clean.steps import (
     held_points,
@@ -246,6 +248,40 @@ def test_all_points_below_threshold_is_a_clear_error():
     x = np.ones((10, 1, 2, 2))
     with pytest.raises(InputError, match=r"all 20 tracked points .* min_confidence=0.5.*lower"):
         mask_low_confidence(x, np.full((10, 1, 2), 0.3), 0.5)
+
+
+def test_a_tracker_whose_confidences_run_low_is_masked_on_its_own_scale(scenario):
+    # The scenario's confidences (0.8-1 tracked, 0.1 for outliers) as a tracker rating on
+    # 0-0.5 or 0-0.3 would write them: the same points are masked as on the 0-1 scale, where
+    # 0.5 would take every tracked point for lost. The scale is the confidences' 90th
+    # percentile to two decimals, scipy's scoreatpercentile the outside reference.
+    _, tracks, _ = scenario
+    full, report = clean(tracks)
+    assert report.params["confidence_scale"] == 1.0  # 90th percentile 0.98: the 0-1 scale
+    seen = ~np.isnan(tracks.coords[..., 0])
+    for factor in (0.5, 0.3):
+        low = tracks.replace(confidence=tracks.confidence * factor)
+        cleaned, said = clean(low)
+        scale = round(scoreatpercentile(low.confidence[seen], 90), 2)  # to two decimals
+        assert said.params["confidence_scale"] == scale
+        assert said.params["confidence_threshold"] == pytest.approx(0.5 * scale)
+        np.testing.assert_allclose(cleaned.coords, full.coords, rtol=0, atol=1e-9)
+        with pytest.raises(InputError, match=r"all \d+ tracked points .* below"):
+            clean(low, confidence_scale=1)  # the threshold as given
+    # causal cleaning reads the scale too; streaming takes it as a setting, as the median
+    # of the recordings' (a model for streaming is fitted so)
+    low = tracks.replace(coords=tracks.coords[:300], confidence=tracks.confidence[:300] / 2)
+    params = CleanParams(swap_pairs=[("left_ear", "right_ear")], max_speed=900.0)
+    batch, said = clean(low, params, causal=True)
+    fixed = streaming_cleaning(params, [said.params, {"confidence_scale": 1.0}, said.params])
+    assert fixed.confidence_scale == said.params["confidence_scale"] < 0.5
+    sc = StreamingCleaner(fixed, KEYPOINTS, fps=30.0, n_dims=2, units="mm")
+    stream = np.stack([sc.push(low.coords[i], low.confidence[i]) for i in range(300)])
+    np.testing.assert_allclose(stream, batch.coords, rtol=0, atol=1e-12)
+    with pytest.raises(InputError, match=r"confidence_scale must be 'auto' or a number in"):
+        CleanParams(confidence_scale=1.5)
+    with pytest.raises(InputError, match=r"confidence_scale must be"):
+        CleanParams(confidence_scale="low")
 
 
 def test_a_spike_masks_the_outlier_not_its_neighbours():

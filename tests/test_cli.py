@@ -108,6 +108,10 @@ def test_options_are_checked_before_any_work(capsys):
         main(["discover", "x.csv", "--out", "o", "--states", "many"])
     assert stop.value.code == 2
     assert "--states takes a whole number or 'auto'" in capsys.readouterr().err
+    with pytest.raises(SystemExit) as stop:
+        main(["discover", "x.csv", "--out", "o", "--confidence-scale", "2"])
+    assert stop.value.code == 2
+    assert "--confidence-scale takes 'auto' or a number in (0, 1]" in capsys.readouterr().err
 
 
 def test_the_console_script_runs():

@@ -133,13 +133,15 @@ def test_behaviour_model_with_a_generator_saves_its_seed(sessions):
     assert (c.placeholders, c.mask_held, c.mask_interpolated, c.repair_identities) == (
         "auto", True, True, True,
     )  # fmt: skip
+    assert c.confidence_scale == "auto"
     # a model saved before placeholders, held or interpolated points and exchanged identities
-    # were looked for still does not look for them
-    for key in ("placeholders", "mask_held", "mask_interpolated", "repair_identities"):
+    # were looked for, or confidences scaled, still does not look for them
+    for key in ("placeholders", "mask_held", "mask_interpolated", "repair_identities",
+                "confidence_scale"):  # fmt: skip
         del meta["cleaning"][key]
     older = BehaviourModel.from_state(meta, arrays).cleaning_
     assert (older.placeholders, older.mask_held, older.mask_interpolated) == (None, False, False)
-    assert not older.repair_identities
+    assert not older.repair_identities and older.confidence_scale == 1.0
 
 
 def test_feature_pipeline_fit_transform_equals_fit_then_transform(sessions):

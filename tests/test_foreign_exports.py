@@ -418,9 +418,38 @@ def test_a_confidence_threshold_that_removes_much_of_the_tracking_is_said():
         _warn_low_confidence([quality([0.02, 0.4])], 0.5)  # 21 %: nothing said
         _warn_low_confidence([quality([0.9, 0.9])], None)  # no threshold: nothing masked
     with pytest.warns(
-        InputWarning, match=r"81% of the keypoint positions .* below min_confidence=0.5"
+        InputWarning, match=r"81% of the keypoint positions .* \(min_confidence=0.5, times"
     ):
         _warn_low_confidence([quality([0.8, 0.82])], 0.5)
+
+
+def test_a_study_whose_tracker_rates_points_low_is_cleaned_on_its_scale_and_said(tmp_path):
+    # Invented animals (the package's simulator) written with their confidences halved, as a
+    # tracker rating on 0-0.5 would: the run masks the points it masks in the files as
+    # simulated, gives the same labels, and says so in a warning and in the report.
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.workspace import Workspace, discover
+    from ethoscribe.workspace.report_sections import quality_section
+
+    files = {1.0: [], 0.5: []}
+    for seed in (1, 2):
+        tracks, _ = simulate_session(duration_s=20, fps=25, seed=seed, session=f"s{seed}")
+        for factor, paths in files.items():
+            path = tmp_path / f"x{factor}" / f"s{seed}.csv"
+            path.parent.mkdir(exist_ok=True)
+            write_tidy(tracks.replace(confidence=tracks.confidence * factor), path)
+            paths.append(path)
+    options = {"fps": 25, "states": 3, "progress": False, "stability": False}
+    with pytest.warns(InputWarning, match=r"run low in session\(s\) 's1', 's2' \(90% of the "
+                      r"points below 0.5: threshold 0.25\): .* --confidence-scale 1"):  # fmt: skip
+        discover(files[0.5], tmp_path / "low", **options)
+    discover(files[1.0], tmp_path / "as_simulated", **options)
+    used = json.loads((tmp_path / "low" / "summary.json").read_text())["cleaning"]["used"]
+    assert (used["confidence_scale"], used["confidence_threshold"]) == (0.5, 0.25)
+    text = quality_section(Workspace(tmp_path / "low")).text
+    assert "points were masked below 0.25 in 's1', 's2'." in text
+    labels = [pd.read_csv(tmp_path / w / "labels.csv") for w in ("low", "as_simulated")]
+    pd.testing.assert_frame_equal(labels[0], labels[1])
 
 
 def test_a_study_filmed_at_a_raised_frame_rate_is_cleaned_and_said(tmp_path):

@@ -99,6 +99,17 @@ def _non_negative(option: str) -> Any:
     return parse
 
 
+def _confidence_scale(value: str) -> float | str:
+    if value == "auto":
+        return value
+    number = _positive("--confidence-scale")(value)
+    if number > 1:
+        raise argparse.ArgumentTypeError(
+            f"--confidence-scale takes 'auto' or a number in (0, 1]; got {value!r}"
+        )
+    return number
+
+
 def _fps(value: str) -> float:
     number = _positive("--fps")(value)
     if number > MAX_FPS:
@@ -410,6 +421,13 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
         help="mask points below this tracker confidence (default 0.5)",
     )
     c.add_argument(
+        "--confidence-scale",
+        type=_confidence_scale,
+        help="the tracker's full confidence: points are masked below --min-confidence times "
+        "it; 1 keeps --min-confidence as given (default: 1, unless fewer than a tenth of a "
+        "session's points reach 0.9; then their 90th percentile)",
+    )
+    c.add_argument(
         "--swap-pairs",
         type=_pairs,
         help="left/right keypoints the tracker may exchange, LEFT:RIGHT,LEFT:RIGHT (default: "
@@ -499,6 +517,7 @@ def _cleaning(args: argparse.Namespace) -> dict[str, Any]:
     """The cleaning fields given on the command line (others keep their defaults)."""
     given = {
         "min_confidence": args.min_confidence,
+        "confidence_scale": args.confidence_scale,
         "max_gap_s": args.max_gap_s,
         "smooth_window_s": args.smooth_window_s,
         "smooth_order": args.smooth_order,
@@ -699,7 +718,8 @@ _OPTIONS = {
     "fps": "--fps", "jobs": "--jobs", "format": "--format", "pattern": "--pattern",
     "frame_column": "--frame-column", "time_column": "--time-column",
     "time_unit": "--time-unit", "columns": "--columns", "pose_estimation": "--containers",
-    "min_confidence": "--min-confidence", "max_gap_s": "--max-gap-s",
+    "min_confidence": "--min-confidence", "confidence_scale": "--confidence-scale",
+    "max_gap_s": "--max-gap-s",
     "max_speed": "--max-speed", "swap_pairs": "--swap-pairs", "smooth": "--smooth",
     "smooth_window_s": "--smooth-window-s", "smooth_order": "--smooth-order",
     "px_per_unit": "--px-per-unit", "unit": "--unit", "target_fps": "--target-fps",

@@ -33,6 +33,13 @@ SWAP_PRIOR_PER_S = 0.4
 # 0.016 % with 10 frames; 3.1 % and 0.099 % without a limit, 1.0 % and 0.055 % at 0.5 s, 0.20 %
 # and 0.016 % at 0.1 s, 0.57 % and 0.20 % with no swap repair.
 SWAP_LONE_MAX_AGE_FRAMES = 10
+# Trackers rate points on scales of their own: where fewer than a tenth of a recording's tracked
+# points reach CONFIDENCE_FULL, the scale is read as their 90th percentile to two decimals (the
+# confidence of well-tracked points) and ``min_confidence`` taken as a share of it. Ours, from
+# the bench: its sources' 90th percentiles are 0.996-1.0, a tracker whose confidences run at
+# half is 0.5; a 90th percentile below CONFIDENCE_NO_SCALE is no scale at all (nearly every
+# point rated 0).
+CONFIDENCE_QUANTILE, CONFIDENCE_FULL, CONFIDENCE_NO_SCALE = 0.9, 0.9, 0.05
 
 
 def _positive(name: str, value: Any, allow_zero: bool = False) -> float:
@@ -55,6 +62,14 @@ class CleanParams:
         where a tracker rates a point more likely present than absent; confidence scales differ
         between trackers, so the default is lenient and relies on the speed test for confident
         errors. Cut-offs of 0.6-0.9 are common practice for some trackers.
+    confidence_scale : "auto" or float
+        What full confidence is for this tracker: points are masked below ``min_confidence x
+        confidence_scale``. ``"auto"``: 1, unless fewer than a tenth of the recording's tracked
+        points reach 0.9 (confidences that run low, as some trackers' do for good positions);
+        then their 90th percentile, to two decimals. A number in (0, 1]: that scale (1:
+        ``min_confidence`` as given). The scale used is in
+        ``QualityReport.params["confidence_scale"]``; streaming cleaning cannot read it and
+        takes ``"auto"`` as 1.
     max_speed : "auto", float or None
         Speed bound in units per second for the jump test. ``"auto"`` = 2 x the 99th percentile
         of the frame-to-frame speeds of all points after confidence masking, pooled over keypoints
@@ -116,6 +131,7 @@ class CleanParams:
     """
 
     min_confidence: float | None = 0.5
+    confidence_scale: float | str = "auto"
     max_speed: float | str | None = "auto"
     max_gap_s: float = 0.5
     swap_pairs: Sequence[tuple[str, str]] | str = ()
@@ -137,6 +153,13 @@ class CleanParams:
             raise InputError(f"min_confidence must lie in [0, 1] or be None; got {conf!r}")
         if conf is not None:
             object.__setattr__(self, "min_confidence", float(conf))
+        scale = self.confidence_scale
+        if not (isinstance(scale, str) and scale == "auto"):
+            if isinstance(scale, str) or not 0 < _positive("confidence_scale", scale) <= 1:
+                raise InputError(
+                    f"confidence_scale must be 'auto' or a number in (0, 1]; got {scale!r}"
+                )
+            object.__setattr__(self, "confidence_scale", float(scale))
         speed = self.max_speed
         if speed is not None and not (isinstance(speed, str) and speed == "auto"):
             if isinstance(speed, str):

@@ -36,6 +36,7 @@ from ethoscribe.clean.steps import (
     _smooth_inplace,
     at_positions,
     calibrate,
+    confidence_scale,
     held_points,
     interpolated_points,
     placeholder_positions,
@@ -118,6 +119,10 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         placed = at_positions(tracks.coords, placeholders)
     x[placed], conf[placed] = np.nan, np.nan
     raw_missing = np.isnan(x[..., 0])
+    # a tracker whose confidences run low: the threshold as a share of its full confidence
+    scale = p.confidence_scale
+    scale = confidence_scale(x, conf) if scale == "auto" else scale
+    thr = None if p.min_confidence is None else p.min_confidence * scale
     # points held still where the tracker lost them (a track forward-filled), or on straight
     # lines between seen ones (interpolated): not seen. Before repeated images, whose frames
     # would break a hold in two. A held point is known on its own frame; whether repeats can be
@@ -128,7 +133,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     interpolated = p.mask_interpolated and not causal  # a line needs the next frame
     if p.mask_held or interpolated:
         probe = x.copy()  # the points the confidence keeps
-        _mask_confidence_inplace(probe, conf, p.min_confidence)
+        _mask_confidence_inplace(probe, conf, thr)
         if p.mask_held:
             held, looked = held_points(probe)
             probe[held] = np.nan
@@ -143,21 +148,19 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     x[repeated], conf[repeated] = np.nan, np.nan  # missing points have no confidence
     if causal:
         probe = x.copy()  # the check of confidence, and what "auto" speed sees
-        _mask_confidence_inplace(probe, conf, p.min_confidence)
+        _mask_confidence_inplace(probe, conf, thr)
         max_speed = _resolve_speed(p.max_speed, probe, fps)
         order, exchanges = _identities(probe, fps, max_speed, p, True)
         del probe
         x, conf, raw_missing, held = (_in_order(v, order) for v in (x, conf, raw_missing, held))
         smooth_spec = (p.smooth, width, p.smooth_order) if p.smooth else None
-        settings = _settings(
-            x.shape, fps, p.min_confidence, max_speed, pairs, True, max_gap, smooth_spec
-        )
+        settings = _settings(x.shape, fps, thr, max_speed, pairs, True, max_gap, smooth_spec)
         flags, swapped = _run_causal(x, conf, settings)
         low, jumps, filled = (
             (flags & f) > 0 for f in (kern.FLAG_LOW_CONFIDENCE, kern.FLAG_JUMP, kern.FLAG_FILLED)
         )
     else:
-        low = _mask_confidence_inplace(x, conf, p.min_confidence)
+        low = _mask_confidence_inplace(x, conf, thr)
         max_speed = _resolve_speed(p.max_speed, x, fps)
         order, exchanges = _identities(x, fps, max_speed, p, False)
         x, conf, raw_missing, held, low = (
@@ -183,6 +186,8 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         **p.to_dict(),
         "max_speed": max_speed,
         "max_speed_rule": rule,
+        "confidence_scale": scale,
+        "confidence_threshold": thr,
         "swap_pairs_used": [list(q) for q in pair_names],
         "causal": causal,
         "smooth_window_frames": width,
@@ -247,8 +252,8 @@ def _in_order(values: np.ndarray, order: np.ndarray | None) -> np.ndarray:
 def streaming_cleaning(params: CleanParams, used: Sequence[Mapping[str, Any]]) -> CleanParams:
     """``params`` with what their automatic choices resolved to in the cleaning of some
     recordings (``used``: each one's ``report.params``) as fixed settings, as streaming needs
-    them: the median of the speed bounds, every placeholder position found, and held points
-    only where no recording's repeats could be chance.
+    them: the median of the speed bounds and of the confidence scales, every placeholder
+    position found, and held points only where no recording's repeats could be chance.
 
     Examples
     --------
@@ -261,6 +266,9 @@ def streaming_cleaning(params: CleanParams, used: Sequence[Mapping[str, Any]]) -
     if params.max_speed == "auto":
         speeds = [float(u["max_speed"]) for u in used if u.get("max_speed") is not None]
         params = replace(params, max_speed=float(np.median(speeds)) if speeds else None)
+    if params.confidence_scale == "auto":
+        scales = [float(u.get("confidence_scale", 1.0)) for u in used]
+        params = replace(params, confidence_scale=float(np.median(scales)) if scales else 1.0)
     if params.placeholders == "auto":
         found = {tuple(q) for u in used for q in u.get("placeholders") or ()}
         params = replace(params, placeholders=sorted(found))
@@ -312,6 +320,9 @@ class StreamingCleaner:
         if p.target_fps is not None:
             raise InputError("streaming cleaning cannot resample; set target_fps=None")
         self.params, self.keypoints, self.fps = p, tuple(keypoints), _fps(fps)
+        # a stream cannot read its tracker's confidence scale: "auto" is taken as 1
+        scale = 1.0 if p.confidence_scale == "auto" else p.confidence_scale
+        self._threshold = None if p.min_confidence is None else p.min_confidence * scale
         self._placeholders = p.placeholders if isinstance(p.placeholders, tuple) else ()
         self._held, self._last = bool(held), None  # the frame before, as pushed
         self._divisor, self.units = _calibration(units, p.px_per_unit, p.unit, "the stream")
@@ -327,7 +338,7 @@ class StreamingCleaner:
         self._settings = _settings(
             (1, *self.shape),
             self.fps,
-            p.min_confidence,
+            self._threshold,
             p.max_speed,
             pairs,
             True,
@@ -366,7 +377,7 @@ class StreamingCleaner:
         lost = np.zeros(self.shape[:2], bool)  # set missing here, as in clean()
         if self._placeholders:  # given positions only: "auto" needs the whole recording
             lost |= at_positions(x, self._placeholders)
-        thr = self.params.min_confidence
+        thr = self._threshold
         with np.errstate(invalid="ignore"):
             low = (c < thr) if thr is not None else np.zeros(self.shape[:2], bool)
         if self._held:  # exactly where it was on the frame before, among the points seen

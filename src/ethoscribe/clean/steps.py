@@ -13,6 +13,9 @@ from ethoscribe.clean import _kernels as kern
 from ethoscribe.clean.params import (
     AUTO_SPEED_FACTOR,
     AUTO_SPEED_QUANTILE,
+    CONFIDENCE_FULL,
+    CONFIDENCE_NO_SCALE,
+    CONFIDENCE_QUANTILE,
     MM_PER_UNIT,
     SMOOTHERS,
     SWAP_LONE_MAX_AGE_FRAMES,
@@ -508,6 +511,30 @@ def mask_low_confidence(
     """
     x = _coords(coords)
     return x, _mask_confidence_inplace(x, confidence, min_confidence)
+
+
+def confidence_scale(coords: np.ndarray, confidence: np.ndarray | None) -> float:
+    """The scale a tracker rates its points on: 1, unless fewer than a tenth of the tracked
+    points (with coordinates and a known confidence) reach ``CONFIDENCE_FULL`` (0.9); then their
+    90th percentile, the confidence of well-tracked points, to two decimals (an estimate: a
+    readable threshold, and the same one for recordings whose confidences differ by a factor)
+    (``CleanParams.confidence_scale``).
+
+    Examples
+    --------
+    >>> x = np.ones((100, 1, 1, 2))
+    >>> c = np.linspace(0.0, 1.0, 100).reshape(100, 1, 1)
+    >>> confidence_scale(x, c), confidence_scale(x, c / 2)
+    (1.0, 0.45)
+    """
+    if confidence is None:
+        return 1.0
+    conf = np.asarray(confidence, dtype=np.float64)
+    rated = conf[~np.isnan(np.asarray(coords)[..., 0]) & ~np.isnan(conf)]
+    if not rated.size:
+        return 1.0
+    top = round(float(np.quantile(rated, CONFIDENCE_QUANTILE)), 2)
+    return top if CONFIDENCE_NO_SCALE <= top < CONFIDENCE_FULL else 1.0
 
 
 def _mask_confidence_inplace(x: np.ndarray, confidence: Any, thr: float | None) -> np.ndarray:

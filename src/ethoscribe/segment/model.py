@@ -1328,10 +1328,10 @@ class BehaviourModel(BaseEstimator):
             return {k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)}
 
         # saved before placeholders, held or interpolated points and exchanged identities
-        # were looked for: they still are not
+        # were looked for, or a tracker's confidence scale read: they still are not
         saved = {
             "placeholders": None, "mask_held": False, "mask_interpolated": False,
-            "repair_identities": False, **meta["cleaning"],
+            "repair_identities": False, "confidence_scale": 1.0, **meta["cleaning"],
         }  # fmt: skip
         model.cleaning_ = CleanParams.from_dict(saved)
         model.features_ = FeaturePipeline.from_state(meta["features"], pick("features/"))

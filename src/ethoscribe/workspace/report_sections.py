@@ -81,6 +81,7 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
             f"tracked): {listed(said, sep='; ')}. Their positions there are the posture "
             "model's guesses, so motifs say nothing about them in those sessions."
         )
+    text += _scale_said(ws, table)
     text += _counts_said(
         ws, table, "repeated_frames",
         "Frames that repeated the frame before exactly, filled from their neighbours (a video "
@@ -148,14 +149,37 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
     return Section("Data quality", text, [quality_figure(table)], [(caption, shown)])
 
 
+def _per_session(ws: Workspace, table: pd.DataFrame, key: str) -> dict[str, Any]:
+    """The cleaning value ``key`` of every session (one value written for all, or one each)."""
+    value = ((ws.summary.get("cleaning") or {}).get("used") or {}).get(key)
+    if isinstance(value, dict):  # one value per session where they differ
+        return {str(k): v for k, v in value.items()}
+    return {str(s): value for s in table["session"].unique()}
+
+
+def _scale_said(ws: Workspace, table: pd.DataFrame) -> str:
+    """The sessions whose confidences were read on the tracker's own, lower scale, grouped by
+    the threshold used."""
+    thresholds = _per_session(ws, table, "confidence_threshold")
+    groups: dict[float, list[str]] = {}
+    for session, scale in _per_session(ws, table, "confidence_scale").items():
+        thr = thresholds.get(session)
+        if scale is not None and scale < 1 and thr is not None:
+            groups.setdefault(thr, []).append(f"'{session}'")
+    if not groups:
+        return ""
+    said = "; ".join(f"below {thr:.2g} in {listed(names)}" for thr, names in groups.items())
+    return (
+        " Confidences that run low (fewer than a tenth of the points at 0.9 or above): the "
+        "confidence threshold was taken as a share of the confidence of well-tracked points "
+        f"(their 90th percentile), and points were masked {said}."
+    )
+
+
 def _counts_said(ws: Workspace, table: pd.DataFrame, key: str, what: str) -> str:
     """`` {what}: 's1' (12), 's2' (3).`` for a count the cleaning wrote under ``key`` per
     session (sessions with none left out; "" when no session has any)."""
-    value = ((ws.summary.get("cleaning") or {}).get("used") or {}).get(key)
-    if isinstance(value, dict):  # one count per session where they differ
-        counts = {str(k): int(v) for k, v in value.items() if v}
-    else:  # one count every session had
-        counts = {str(s): int(value) for s in table["session"].unique()} if value else {}
+    counts = {k: int(v) for k, v in _per_session(ws, table, key).items() if v}
     said = listed(f"'{k}' ({v:,})" for k, v in counts.items())
     return f" {what}: {said}." if counts else ""
 

@@ -328,6 +328,7 @@ def _prepare(
     _warn_held_points(rows, used)
     _warn_interpolated_points(rows, used)
     _warn_identity_exchanges(rows, used)
+    _warn_confidence_scale(rows, used)
     _warn_unseen_keypoints(quality)
     first = cleaning if isinstance(cleaning, dict) else (cleaning[0] if cleaning else {})
     _warn_low_confidence(quality, first.get("min_confidence"))
@@ -626,6 +627,32 @@ def _warn_repeated_frames(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -
         )
 
 
+def _warn_confidence_scale(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> None:
+    """Name sessions whose tracker rated points on a lower scale (the confidence threshold
+    taken as a share of it), grouped by the threshold: the user should know, and how to keep
+    the threshold as given."""
+    groups: dict[tuple[float, float], list[str]] = {}
+    for row, params in zip(rows, used, strict=True):
+        params = params if isinstance(params, dict) else {}
+        scale, thr = params.get("confidence_scale", 1.0), params.get("confidence_threshold")
+        if scale != 1.0 and thr is not None:
+            groups.setdefault((scale, thr), []).append(f"'{row.get('session')}'")
+    if not groups:
+        return
+    said = "; ".join(
+        f"{listed(names)} (90% of the points below {scale:.2g}: threshold {thr:.2g})"
+        for (scale, thr), names in groups.items()
+    )
+    warnings.warn(
+        f"the tracker's confidences run low in session(s) {said}: fewer than a tenth of the "
+        "points reach 0.9, so min_confidence was taken as a share of the confidence of "
+        "well-tracked points (their 90th percentile). To mask below min_confidence as given, "
+        "pass cleaning={'confidence_scale': 1} (command line: --confidence-scale 1)",
+        InputWarning,
+        stacklevel=3,
+    )
+
+
 LOW_CONFIDENCE_SHARE = 0.25  # more tracked points than this below the threshold: say so
 
 
@@ -640,7 +667,8 @@ def _warn_low_confidence(quality: Sequence[pd.DataFrame], threshold: float | Non
         return
     warnings.warn(
         f"{share:.0%} of the keypoint positions (mean over sessions and keypoints) have a "
-        f"confidence below min_confidence={threshold:g} and were treated as lost (filled from "
+        f"confidence below the threshold (min_confidence={threshold:g}, times the tracker's "
+        "scale where its confidences run low) and were treated as lost (filled from "
         "their neighbours in time or from the posture model, quality.csv). If this tracker's "
         "confidences run low for good positions, give a lower threshold; else check the "
         "tracking",
