@@ -166,6 +166,19 @@ def _interpolated(method: str) -> Callable[[PoseTracks], PoseTracks]:
     return fill
 
 
+def _flicker(share: float) -> Callable[[PoseTracks], PoseTracks]:
+    """A tracker that loses points on single frames: each point lost (confidence 0) with
+    probability ``share``, independently (a generator seeded by the session's length), on top
+    of the losses recorded."""
+
+    def lose(s: PoseTracks) -> PoseTracks:
+        rng = np.random.default_rng(s.n_frames)
+        lost = rng.random(s.confidence.shape) < share
+        return s.replace(confidence=np.where(lost, 0.0, s.confidence))
+
+    return lose
+
+
 def _exchanged(n: int, gap: int = 0) -> Callable[[PoseTracks], PoseTracks]:
     """A multi-animal tracker exchanging two animals' tracks ``n`` times per session, each time
     on a frame among the tenth where the two are nearest (chosen by a generator seeded by the
@@ -214,6 +227,10 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "lost points interpolated": _interpolated("linear"),
     "lost points interpolated (cubic)": _interpolated("cubic"),
     "lost points interpolated (pchip)": _interpolated("pchip"),
+    "3 % of points lost on single frames": _flicker(0.03),
+    "3 % of points lost on single frames, interpolated": lambda s: _interpolated("linear")(
+        _flicker(0.03)(s)
+    ),
     # several animals: a tracker exchanging their identities where they come close
     "animals exchanged 4 times": _exchanged(4),
     "animals exchanged 4 times, both lost 6 frames": _exchanged(4, 6),

@@ -79,34 +79,91 @@ def step_speeds(x, fps):
     return out[:n]
 
 
+ON_CURVE, NEAR_CURVE = 1, 2
+
+
 @njit(cache=True)
-def on_curves(x, tolerance, order):
-    """(frames - order, animals, keypoints): the point of each middle frame (``order // 2``
-    frames in) lies with its ``order // 2`` neighbours either side on one polynomial of degree
-    below ``order`` (``order`` 2: a straight line at an even pace; 4: a cubic), its
-    ``order``-th difference at most ``tolerance`` times the coordinate's size (at least 1) in
-    every coordinate, and moves to the next frame; NaN lies on no curve. One pass, no
-    temporaries: array expressions allocated 0.6 GB per million frames of 12 keypoints in 2-D."""
+def on_curves(x, tolerance, order, grid=0.0):
+    """(frames - order, animals, keypoints) int8: ``ON_CURVE`` where the point of each middle
+    frame (``order // 2`` frames in) lies with its ``order // 2`` neighbours either side on one
+    polynomial of degree below ``order`` (``order`` 2: a straight line at an even pace; 4: a
+    cubic), its ``order``-th difference at most ``tolerance`` times the coordinate's size (at
+    least 1) in every coordinate, and moves to the next frame; ``NEAR_CURVE`` where it moves and
+    misses that by at most one step of the coordinates' ``grid`` in every coordinate (1.5
+    steps, against rounding); NaN lies on no curve. One pass, no temporaries: array expressions
+    allocated 0.6 GB per million frames of 12 keypoints in 2-D."""
     n, n_a, n_k, n_d = x.shape
     half = order // 2
     weights = np.array([1.0, -2.0, 1.0]) if order == 2 else np.array([1.0, -4.0, 6.0, -4.0, 1.0])
-    out = np.zeros((max(n - order, 0), n_a, n_k), np.bool_)
+    out = np.zeros((max(n - order, 0), n_a, n_k), np.int8)
     for t in range(n - order):
         for a in range(n_a):
             for k in range(n_k):
                 moved = False
                 on = True
+                near = True
                 for d in range(n_d):
                     here = x[t + half, a, k, d]
                     difference = 0.0
                     for j in range(order + 1):
                         difference += weights[j] * x[t + j, a, k, d]
-                    if not abs(difference) <= tolerance * max(abs(here), 1.0):  # NaN: no curve
+                    bound = tolerance * max(abs(here), 1.0)
+                    if not abs(difference) <= bound:  # NaN: no curve
                         on = False
-                        break
+                        if not abs(difference) <= bound + 1.5 * grid:
+                            near = False
+                            break
                     moved = moved or x[t + half + 1, a, k, d] != here
-                out[t, a, k] = on and moved
+                if moved and on:
+                    out[t, a, k] = ON_CURVE
+                elif moved and near:
+                    out[t, a, k] = NEAR_CURVE
     return out
+
+
+@njit(cache=True)
+def grid_step(x, share):
+    """The grid coordinates are written on (1 for whole pixels, 1/64 for 1/64 mm, including
+    pixels converted to mm): the smallest positive change of a coordinate from one frame to
+    the next, or a whole fraction of it down to an eighth (the smallest step may span several
+    grid steps), the coarsest of which at least ``share`` of the positive changes are whole
+    multiples (to 1e-6 of the grid; multiples above a million cannot be told apart in double
+    precision: not whole); 0.0 where none is (no grid: coordinates with all their digits)."""
+    n, n_a, n_k, n_d = x.shape
+    smallest = np.inf
+    steps = 0
+    for t in range(n - 1):
+        for a in range(n_a):
+            for k in range(n_k):
+                for d in range(n_d):
+                    step = abs(x[t + 1, a, k, d] - x[t, a, k, d])
+                    if step > 0.0:  # NaN: no step
+                        steps += 1
+                        smallest = min(smallest, step)
+    allowed = (1.0 - share) * steps
+    for parts in range(1, 9 if steps else 1):
+        grid = smallest / parts
+        off = 0
+        for t in range(n - 1):
+            for a in range(n_a):
+                for k in range(n_k):
+                    for d in range(n_d):
+                        step = abs(x[t + 1, a, k, d] - x[t, a, k, d])
+                        if step > 0.0:
+                            ratio = step / grid
+                            if ratio > 1e6 or abs(ratio - np.floor(ratio + 0.5)) > 1e-6:
+                                off += 1
+                                if off > allowed:
+                                    break
+                    if off > allowed:
+                        break
+                if off > allowed:
+                    break
+            if off > allowed:
+                break
+        if off <= allowed:
+            return grid
+    return 0.0
 
 
 @njit(cache=True)

@@ -357,6 +357,11 @@ size). Tracked points of the validation bench's animal sources, as recorded, go 
 8e-6 (seed 0), but for two exact zeros among the example sessions' 520,000 moving points
 (stored in 1/64 mm: chance, see ``LINE_EVIDENT``)."""
 
+GRID_SHARE = 0.99
+"""Coordinates lie on a grid (whole pixels, 1/64 mm) when at least this share of their steps
+from frame to frame are whole multiples of the smallest step; else they carry all their digits
+(ours, common sense: a track interpolated in whole pixels has a few steps off the grid)."""
+
 LINE_EVIDENT = 0.001
 """Points on such lines count in runs of two frames or more; single ones (a gap of one frame)
 too where the runs hold at least this share of the moving points: the export evidently
@@ -395,9 +400,13 @@ def interpolated_points(coords: np.ndarray) -> tuple[np.ndarray, bool]:
     points with it), in runs of two frames or more (single ones too where the export
     evidently interpolated: ``LINE_EVIDENT``), is returned, for keypoints that move along two
     axes or more and lie on such lines on at most ``LINE_MAX_SHARE`` of their frames, where
-    coordinates have too many digits for that to be chance (single exact repeats, and single
-    points on a line or curve, both rarer than ``HELD_CHANCE`` of the steps; an interpolated
-    track has single ones only where one frame was lost); points held still are left to
+    coordinates have too many digits for that to be chance: single exact repeats rarer than
+    ``HELD_CHANCE`` of the steps, and so are the lines chance would give, estimated from the
+    points one step of the coordinates' grid beside a line or cubic (``GRID_SHARE``; none
+    without a grid). Points beside lines, not on them, tell chance from interpolation: a
+    tracker that loses many points on single frames, interpolated, puts as many single points
+    on lines as whole pixels do by chance (before, single points on lines at 1 % of the steps
+    turned the check off, long gaps included). Points held still are left to
     :func:`held_points`.
 
     Examples
@@ -414,16 +423,28 @@ def interpolated_points(coords: np.ndarray) -> tuple[np.ndarray, bool]:
     if len(x) < 3:
         return lined, True
     moving = _moving(x)
-    lined[1:-1] = kern.on_curves(x, LINE_TOLERANCE, 2) & moving  # lines: the gap's points
+    grid = kern.grid_step(x, GRID_SHARE)
+    near = 0  # points one grid step off a line or cubic: what chance puts on one
+    codes = kern.on_curves(x, LINE_TOLERANCE, 2, grid)  # lines: the gap's points
+    lined[1:-1] = (codes == kern.ON_CURVE) & moving
+    near += int(((codes == kern.NEAR_CURVE) & moving).sum())
     curved = np.zeros_like(lined)
     if len(x) >= 5:  # cubics: the gap's points but its first and last
-        curved[2:-2] = kern.on_curves(x, LINE_TOLERANCE, 4) & moving
+        codes = kern.on_curves(x, LINE_TOLERANCE, 4, grid)
+        curved[2:-2] = (codes == kern.ON_CURVE) & moving
+        near += int(((codes == kern.NEAR_CURVE) & moving).sum())
+    del codes
     if not (lined.any() or curved.any()):
         return lined, True
-    # lines by chance (whole pixels: an animal moving 2 px a frame) come single as often as
-    # repeats do at rest; an interpolated track has single ones only where one frame was lost
+    # Lines by chance (whole pixels: an animal moving 2 px a frame) are as common as
+    # differences one grid step off zero in each coordinate, of which there are 3^D - 1 cells
+    # around the one at zero; an interpolated track puts points on lines, not beside them.
+    # Coordinates with all their digits have no grid: no line is chance. Where a point repeats
+    # its position by chance (few digits, an animal at rest), it lies on a line by chance too.
+    chance = near / (3 ** x.shape[-1] - 1)
+    steps = int((np.isfinite(x[1:]).all(axis=-1) & moving).sum())
     same = (x[1:] == x[:-1]).all(axis=-1) & moving
-    if not (_many_digits(x, same, moving) and _many_digits(x, lined | curved, moving)):
+    if not (_many_digits(x, same, moving) and chance < HELD_CHANCE * steps):
         return np.zeros_like(lined), False
     points = int((np.isfinite(x).all(axis=-1) & moving).sum())
     if _in_runs(lined | curved).sum() < LINE_EVIDENT * points:  # not evidently interpolated
@@ -530,9 +551,11 @@ def confidence_scale(coords: np.ndarray, confidence: np.ndarray | None) -> float
     if confidence is None:
         return 1.0
     conf = np.asarray(confidence, dtype=np.float64)
-    rated = conf[~np.isnan(np.asarray(coords)[..., 0]) & ~np.isnan(conf)]
-    if not rated.size:
-        return 1.0
+    seen = ~np.isnan(np.asarray(coords)[..., 0])
+    full = np.count_nonzero(seen & (conf >= CONFIDENCE_FULL))  # NaN: not full
+    if full >= (1 - CONFIDENCE_QUANTILE) * np.count_nonzero(seen & ~np.isnan(conf)):
+        return 1.0  # the usual case, without sorting millions of confidences
+    rated = conf[seen & ~np.isnan(conf)]
     top = round(float(np.quantile(rated, CONFIDENCE_QUANTILE)), 2)
     return top if CONFIDENCE_NO_SCALE <= top < CONFIDENCE_FULL else 1.0
 
