@@ -147,6 +147,12 @@ def _forward_filled(s: PoseTracks) -> PoseTracks:
     return s.replace(coords=filled, confidence=None)
 
 
+def _whole_pixels(s: PoseTracks) -> PoseTracks:
+    """The "pixels" change (37 px per unit, offset 812) written in whole pixels, as some
+    trackers and exports do."""
+    return s.replace(coords=np.round(s.coords * 37.0 + 812.0), units="px")
+
+
 def _interpolated(method: str) -> Callable[[PoseTracks], PoseTracks]:
     """Lost points (missing, or confidence below 0.5) filled in between the points seen either
     side, no confidence column: ``DataFrame.interpolate(method)`` before export ("linear":
@@ -203,6 +209,33 @@ def _exchanged(n: int, gap: int = 0) -> Callable[[PoseTracks], PoseTracks]:
     return exchange
 
 
+def _exchanged_heads(n: int) -> Callable[[PoseTracks], PoseTracks]:
+    """Part of two animals exchanged: the first three keypoints (nose and ears in the pairs)
+    of two animals given each other's positions for 1-3 s, ``n`` times per session, each from
+    a frame among the tenth where the two are nearest (a generator seeded by the session's
+    length). The truth stays with the animals."""
+
+    def exchange(s: PoseTracks) -> PoseTracks:
+        x, c = s.coords.copy(), s.confidence.copy()
+        if s.n_animals < 2:
+            return s
+        rng = np.random.default_rng(s.n_frames)
+        head = [0, 1, 2]
+        for _ in range(n):
+            i, j = rng.choice(s.n_animals, 2, replace=False)
+            centre = np.nanmean(x[:, [i, j]], axis=2)
+            apart = np.linalg.norm(centre[:, 0] - centre[:, 1], axis=-1)
+            near = np.flatnonzero(apart < np.nanquantile(apart, 0.1))
+            t = int(rng.choice(near))
+            u = min(len(x), t + int(rng.uniform(1.0, 3.0) * s.fps))
+            for values in (x, c):
+                a, b = values[t:u, i][:, head].copy(), values[t:u, j][:, head].copy()
+                values[t:u, i, : len(head)], values[t:u, j, : len(head)] = b, a
+        return s.replace(coords=x, confidence=c)
+
+    return exchange
+
+
 CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "as recorded": lambda s: s,
     "y up": _axes([0, 2, 1]),
@@ -224,6 +257,8 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "lost points written as -1, -1": _placeholder(-1.0),
     "one keypoint's lost points written as 0, 0": _placeholder_one(0.0),
     "lost points forward-filled": _forward_filled,
+    "whole pixels": _whole_pixels,
+    "whole pixels, lost points forward-filled": lambda s: _forward_filled(_whole_pixels(s)),
     "lost points interpolated": _interpolated("linear"),
     "lost points interpolated (cubic)": _interpolated("cubic"),
     "lost points interpolated (pchip)": _interpolated("pchip"),
@@ -234,6 +269,7 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     # several animals: a tracker exchanging their identities where they come close
     "animals exchanged 4 times": _exchanged(4),
     "animals exchanged 4 times, both lost 6 frames": _exchanged(4, 6),
+    "heads exchanged 8 times": _exchanged_heads(8),
 }
 REPEATED = "every fifth frame repeated"
 THINNED = "a third of the frame rate"
@@ -266,6 +302,7 @@ RECORDED = {
         "as recorded",
         "animals exchanged 4 times",
         "animals exchanged 4 times, both lost 6 frames",
+        "heads exchanged 8 times",
     ],
 }
 
