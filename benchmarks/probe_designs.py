@@ -147,10 +147,10 @@ def _forward_filled(s: PoseTracks) -> PoseTracks:
     return s.replace(coords=filled, confidence=None)
 
 
-def _whole_pixels(s: PoseTracks) -> PoseTracks:
-    """The "pixels" change (37 px per unit, offset 812) written in whole pixels, as some
-    trackers and exports do."""
-    return s.replace(coords=np.round(s.coords * 37.0 + 812.0), units="px")
+def _whole_pixels(per_unit: float) -> Callable[[PoseTracks], PoseTracks]:
+    """Coordinates in whole pixels (``per_unit`` pixels per unit, offset 812), as some
+    trackers and exports write them."""
+    return lambda s: s.replace(coords=np.round(s.coords * per_unit + 812.0), units="px")
 
 
 def _interpolated(method: str) -> Callable[[PoseTracks], PoseTracks]:
@@ -257,8 +257,14 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "lost points written as -1, -1": _placeholder(-1.0),
     "one keypoint's lost points written as 0, 0": _placeholder_one(0.0),
     "lost points forward-filled": _forward_filled,
-    "whole pixels": _whole_pixels,
-    "whole pixels, lost points forward-filled": lambda s: _forward_filled(_whole_pixels(s)),
+    "whole pixels (37 per unit)": _whole_pixels(37.0),
+    "whole pixels (37 per unit), lost points forward-filled": lambda s: _forward_filled(
+        _whole_pixels(37.0)(s)
+    ),
+    "whole pixels (2.5 per unit)": _whole_pixels(2.5),
+    "whole pixels (2.5 per unit), lost points forward-filled": lambda s: _forward_filled(
+        _whole_pixels(2.5)(s)
+    ),
     "lost points interpolated": _interpolated("linear"),
     "lost points interpolated (cubic)": _interpolated("cubic"),
     "lost points interpolated (pchip)": _interpolated("pchip"),

@@ -560,6 +560,31 @@ def test_points_held_where_the_tracker_lost_them_are_missing():
         CleanParams(mask_held=1)
 
 
+def test_held_points_in_whole_units_are_told_by_the_leap_that_ends_them():
+    # Invented scenario in whole units (a walk in whole millimetres after 5 s at rest, where a
+    # point keeps its value by chance, so single repeats are no evidence): the nose lost for a
+    # second while walking and forward-filled (pandas' ffill, the outside reference for the
+    # filling) is held until it leaps to where the animal went; the rest ends with an
+    # ordinary step and stays.
+    rng = np.random.default_rng(SEED)
+    walk = walking_track(600)
+    walk[:150] = walk[150] + rng.normal(0.0, 0.2, walk[:150].shape)  # resting, jitter 0.2 mm
+    walk = np.round(walk)
+    lost = np.zeros(walk.shape[:3], bool)
+    lost[400:430, 0, 0] = True
+    flat = np.where(lost[..., None], np.nan, walk).reshape(len(walk), -1)
+    filled = pd.DataFrame(flat).ffill().to_numpy().reshape(walk.shape)
+    same = (filled[1:] == filled[:-1]).all(-1)
+    assert same[:149].mean() > 0.5  # chance repeats at rest
+    held, looked = held_points(filled)
+    assert not looked  # repeats can be chance: only holds that end in a leap
+    np.testing.assert_array_equal(held, lost)
+    assert not held_points(filled, leaps=False)[0].any()  # causal: the end is a later frame
+    tracks = PoseTracks(filled, keypoints=KEYPOINTS, fps=30.0, units="mm")
+    assert clean(tracks)[1].params["held_points"] == 30
+    assert clean(tracks, causal=True, max_speed=None)[1].params["held_points"] == 0
+
+
 def test_points_interpolated_over_the_trackers_gaps_are_missing():
     # Invented scenario: a walk whose lost points were filled in before export with pandas'
     # linear interpolation (``DataFrame.interpolate``, the outside reference for the filling).

@@ -100,8 +100,9 @@ class CleanParams:
         Treat points exactly where they were on the frame before, where coordinates are
         written with enough digits that an animal never repeats one by chance (a track
         forward-filled over its gaps), as lost (:func:`~ethoscribe.clean.steps.held_points`;
-        whether repeats can be chance is read from the whole recording; streaming cleaning
-        takes it as a setting, ``StreamingCleaner(held=...)``).
+        whether repeats can be chance is read from the whole recording; where they can, as in
+        whole pixels, offline cleaning takes only holds that end in a leap beyond the jump
+        test's bound; streaming cleaning takes it as a setting, ``StreamingCleaner(held=...)``).
     mask_interpolated : bool
         Treat points on straight lines at constant speed, or on cubic curves, between seen
         points, where coordinates are written with enough digits for that never to be chance

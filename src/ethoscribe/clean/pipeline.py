@@ -135,7 +135,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         probe = x.copy()  # the points the confidence keeps
         _mask_confidence_inplace(probe, conf, thr)
         if p.mask_held:
-            held, looked = held_points(probe)
+            held, looked = held_points(probe, leaps=not causal)  # a hold's end is later
             probe[held] = np.nan
         if interpolated:
             lined, lined_looked = interpolated_points(probe)

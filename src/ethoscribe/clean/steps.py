@@ -285,7 +285,7 @@ forward-filled 0.004, the independent simulator's 0.001; the same rounded to who
 integer pixels are, 0.05-0.09: there an animal at rest repeats, and nothing is looked for)."""
 
 
-def held_points(coords: np.ndarray) -> tuple[np.ndarray, bool]:
+def held_points(coords: np.ndarray, leaps: bool = True) -> tuple[np.ndarray, bool]:
     """Points ``(frames, animals, keypoints)`` held at their last position: exactly where the
     keypoint was on the frame before, where coordinates have too many digits for that to be
     chance; and whether they do (False: repeats can be chance here, nothing is looked for).
@@ -298,6 +298,15 @@ def held_points(coords: np.ndarray) -> tuple[np.ndarray, bool]:
     animal, and every one is returned (from a hold's first repeated frame to its last), for
     keypoints whose position moves along at least two axes over the recording (a fixed
     landmark, or a one-channel signal, is left alone).
+
+    Where repeats can be chance (whole pixels: a point at rest keeps its pixel), a hold is
+    told by how it ends: a point forward-filled while it was lost leaps, on the frame it is
+    seen again, to where the animal went meanwhile, while a point at rest moves off by an
+    ordinary step. With ``leaps`` (offline: the end of a hold is a later frame), holds whose
+    next step is longer than the speed bound of the jump test (:func:`estimate_max_speed`, per
+    frame) are returned there too, and the second value is False (not every repeat was looked
+    at). A point that was lost and held while the animal stayed put comes back by an
+    ordinary step and is kept: it was held about where it was.
 
     Examples
     --------
@@ -323,9 +332,35 @@ def held_points(coords: np.ndarray) -> tuple[np.ndarray, bool]:
     moving = _moving(x)
     same &= moving
     if not _many_digits(x, same, moving):
-        return held, False
+        return (_holds_before_leaps(x, same) if leaps else held), False
     held[1:] = same
     return held, True
+
+
+def _holds_before_leaps(x: np.ndarray, same: np.ndarray) -> np.ndarray:
+    """``(frames, animals, keypoints)``: the repeated frames of holds (``same``, steps that
+    repeat the frame before) whose next step leaps beyond the jump test's bound per frame."""
+    held = np.zeros(x.shape[:3], bool)
+    bound = estimate_max_speed(x, 1.0)  # per frame
+    if bound is None or not same.any():
+        return held
+    # the last repeated step of each hold (step t: frame t -> t + 1), and the step after it
+    last = same & ~np.concatenate([same[1:], np.zeros_like(same[:1])])
+    t, a, k = np.nonzero(last[:-1])
+    with np.errstate(invalid="ignore"):
+        after = np.linalg.norm(x[t + 2, a, k] - x[t + 1, a, k], axis=-1)  # NaN: not seen
+    leap = np.zeros_like(same)
+    leap[t, a, k] = after > bound
+    if not leap.any():
+        return held
+    # from each leaping hold's last step back to its first: runs of ``same`` ending in a leap
+    for a, k in zip(*np.nonzero(leap.any(axis=0)), strict=True):
+        column, ends = same[:, a, k], np.flatnonzero(leap[:, a, k])
+        starts = np.flatnonzero(column & ~np.r_[False, column[:-1]])
+        first = starts[np.searchsorted(starts, ends, side="right") - 1]
+        for begin, end in zip(first, ends, strict=True):
+            held[begin + 1 : end + 2, a, k] = True  # the frames that repeat: begin+1..end+1
+    return held
 
 
 def _moving(x: np.ndarray) -> np.ndarray:

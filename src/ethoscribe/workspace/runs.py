@@ -551,7 +551,8 @@ def _warn_held_points(rows: Sequence[dict[str, Any]], used: Sequence[Any]) -> No
         rows, used, "held_share",
         "points held exactly where they were on the frame before",
         "were taken for points the tracker lost and held (a track forward-filled over its "
-        "gaps?) and set missing: a living animal never repeats a position to the last digit. "
+        "gaps?) and set missing: a living animal never repeats a position to the last digit "
+        "(in whole pixels, where it can: holds that end in a leap to where the animal went). "
         "To keep them, pass cleaning={'mask_held': False} (command line: --keep-held-points)",
     )  # fmt: skip
 
