@@ -18,6 +18,7 @@ from ethoscribe.clean import (
     StreamingCleaner,
     calibrate,
     clean,
+    cleaned_again,
     estimate_max_speed,
     fill_gaps,
     mask_jumps,
@@ -275,6 +276,9 @@ def test_a_tracker_whose_confidences_run_low_is_masked_on_its_own_scale(scenario
     batch, said = clean(low, params, causal=True)
     fixed = streaming_cleaning(params, [said.params, {"confidence_scale": 1.0}, said.params])
     assert fixed.confidence_scale == said.params["confidence_scale"] < 0.5
+    # a recording read on another scale than the fixed one must be cleaned again
+    assert cleaned_again(params, fixed, [said.params, {"confidence_scale": 1.0}])
+    assert not cleaned_again(params, fixed, [said.params])
     sc = StreamingCleaner(fixed, KEYPOINTS, fps=30.0, n_dims=2, units="mm")
     stream = np.stack([sc.push(low.coords[i], low.confidence[i]) for i in range(300)])
     np.testing.assert_allclose(stream, batch.coords, rtol=0, atol=1e-12)
@@ -661,12 +665,13 @@ def test_the_curve_kernel_matches_numpy_differences():
     x[10:20, 0, 1] = 5.0 + t * [2.0, 3.0]
     x[30:40, 1, 2] = 1.0 + t + 0.5 * t**2 - 0.1 * t**3
     x[5, 0, 0, 1] = np.nan
-    assert grid_step(x, 0.99) == 0.0  # all their digits: no grid
-    grid = np.round(x * 64) / 64 + 3.0  # 1/64 mm, moved
+    flat = x.reshape(len(x), -1)
+    assert grid_step(flat, 0.99) == 0.0  # all their digits: no grid
+    grid = np.round(flat * 64) / 64 + 3.0  # 1/64 mm, moved
     steps = np.abs(np.diff(grid, axis=0))
     assert np.nanmin(steps[steps > 0]) == 3 / 64  # the smallest step spans three
     assert grid_step(grid, 0.99) == 1 / 64
-    assert grid_step(np.round(x) / 2.54, 0.99) == pytest.approx(1 / 2.54)  # pixels in mm
+    assert grid_step(np.round(flat) / 2.54, 0.99) == pytest.approx(1 / 2.54)  # pixels in mm
     grid = 4.0  # a coarse grid: some points near a curve
     for order in (2, 4):
         half = order // 2

@@ -448,6 +448,17 @@ def test_a_study_whose_tracker_rates_points_low_is_cleaned_on_its_scale_and_said
     assert (used["confidence_scale"], used["confidence_threshold"]) == (0.5, 0.25)
     text = quality_section(Workspace(tmp_path / "low")).text
     assert "points were masked below 0.25 in 's1', 's2'." in text
+    # a scale given, not read from the files: applied, and not said to be read
+    import warnings
+
+    with warnings.catch_warnings(record=True) as said:
+        warnings.simplefilter("always")
+        given = {**options, "cleaning": {"confidence_scale": 0.5}}
+        discover(files[1.0], tmp_path / "given", **given)
+    assert not any("run low" in str(w.message) for w in said)
+    used = json.loads((tmp_path / "given" / "summary.json").read_text())["cleaning"]["used"]
+    assert used["confidence_threshold"] == 0.25
+    assert "Confidences that run low" not in quality_section(Workspace(tmp_path / "given")).text
     labels = [pd.read_csv(tmp_path / w / "labels.csv") for w in ("low", "as_simulated")]
     pd.testing.assert_frame_equal(labels[0], labels[1])
 

@@ -21,7 +21,12 @@ past frames, for closed-loop use.
 from __future__ import annotations
 
 from ethoscribe.clean.params import CleanParams
-from ethoscribe.clean.pipeline import StreamingCleaner, clean, streaming_cleaning
+from ethoscribe.clean.pipeline import (
+    StreamingCleaner,
+    clean,
+    cleaned_again,
+    streaming_cleaning,
+)
 from ethoscribe.clean.report import QualityReport
 from ethoscribe.clean.steps import (
     calibrate,
@@ -40,6 +45,7 @@ __all__ = [
     "StreamingCleaner",
     "calibrate",
     "clean",
+    "cleaned_again",
     "estimate_max_speed",
     "fill_gaps",
     "mask_jumps",

@@ -122,47 +122,42 @@ def on_curves(x, tolerance, order, grid=0.0):
 
 
 @njit(cache=True)
+def _steps_off_grid(x, grid, allowed):
+    """How many positive frame-to-frame steps of ``x (frames, values)`` are not whole multiples
+    of ``grid`` (to 1e-6 of it; multiples above a million cannot be told apart in double
+    precision: not whole); the count stops once it passes ``allowed``."""
+    off = 0
+    for t in range(x.shape[0] - 1):
+        for c in range(x.shape[1]):
+            step = abs(x[t + 1, c] - x[t, c])
+            if step > 0.0:  # NaN: no step
+                ratio = step / grid
+                if ratio > 1e6 or abs(ratio - np.floor(ratio + 0.5)) > 1e-6:
+                    off += 1
+                    if off > allowed:
+                        return off
+    return off
+
+
+@njit(cache=True)
 def grid_step(x, share):
-    """The grid coordinates are written on (1 for whole pixels, 1/64 for 1/64 mm, including
-    pixels converted to mm): the smallest positive change of a coordinate from one frame to
-    the next, or a whole fraction of it down to an eighth (the smallest step may span several
-    grid steps), the coarsest of which at least ``share`` of the positive changes are whole
-    multiples (to 1e-6 of the grid; multiples above a million cannot be told apart in double
-    precision: not whole); 0.0 where none is (no grid: coordinates with all their digits)."""
-    n, n_a, n_k, n_d = x.shape
+    """The grid coordinates ``x (frames, values)`` are written on (1 for whole pixels, 1/64 for
+    1/64 mm, including pixels converted to mm): the smallest positive change of a value from
+    one frame to the next, or a whole fraction of it down to an eighth (the smallest step may
+    span several grid steps), the coarsest of which at least ``share`` of the positive changes
+    are whole multiples; 0.0 where none is (no grid: coordinates with all their digits)."""
     smallest = np.inf
     steps = 0
-    for t in range(n - 1):
-        for a in range(n_a):
-            for k in range(n_k):
-                for d in range(n_d):
-                    step = abs(x[t + 1, a, k, d] - x[t, a, k, d])
-                    if step > 0.0:  # NaN: no step
-                        steps += 1
-                        smallest = min(smallest, step)
+    for t in range(x.shape[0] - 1):
+        for c in range(x.shape[1]):
+            step = abs(x[t + 1, c] - x[t, c])
+            if step > 0.0:  # NaN: no step
+                steps += 1
+                smallest = min(smallest, step)
     allowed = (1.0 - share) * steps
     for parts in range(1, 9 if steps else 1):
-        grid = smallest / parts
-        off = 0
-        for t in range(n - 1):
-            for a in range(n_a):
-                for k in range(n_k):
-                    for d in range(n_d):
-                        step = abs(x[t + 1, a, k, d] - x[t, a, k, d])
-                        if step > 0.0:
-                            ratio = step / grid
-                            if ratio > 1e6 or abs(ratio - np.floor(ratio + 0.5)) > 1e-6:
-                                off += 1
-                                if off > allowed:
-                                    break
-                    if off > allowed:
-                        break
-                if off > allowed:
-                    break
-            if off > allowed:
-                break
-        if off <= allowed:
-            return grid
+        if _steps_off_grid(x, smallest / parts, allowed) <= allowed:
+            return smallest / parts
     return 0.0
 
 

@@ -277,6 +277,20 @@ def streaming_cleaning(params: CleanParams, used: Sequence[Mapping[str, Any]]) -
     return params
 
 
+def cleaned_again(
+    given: CleanParams, fixed: CleanParams, used: Sequence[Mapping[str, Any]]
+) -> bool:
+    """Whether recordings cleaned with ``given`` (``used``: each one's ``report.params``) must
+    be cleaned again with ``fixed`` (:func:`streaming_cleaning` of them) to mask the points
+    streaming will: a speed bound, placeholders, held points or a confidence scale that were
+    read per recording and are now one setting."""
+    unheld = given.mask_held and not fixed.mask_held
+    scales = given.confidence_scale == "auto" and any(
+        u.get("confidence_scale", 1.0) != fixed.confidence_scale for u in used
+    )
+    return bool(given.max_speed == "auto" or fixed.placeholders or unheld or scales)
+
+
 class StreamingCleaner:
     """Causal cleaning one frame at a time; reproduces ``clean(..., causal=True)`` exactly.
 

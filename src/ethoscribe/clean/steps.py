@@ -282,13 +282,15 @@ where it was on the frame before, and not on the frame after) are rarer than thi
 moving point's steps: coordinates written with enough digits that a living animal never repeats
 one by chance (bench sources as recorded: 0.00001 at most; the example sessions with lost points
 forward-filled 0.004, the independent simulator's 0.001; the same rounded to whole units, as
-integer pixels are, 0.05-0.09: there an animal at rest repeats, and nothing is looked for)."""
+integer pixels are, 0.05-0.09: there an animal at rest repeats, and only holds that end in a
+leap are taken, see ``held_points``)."""
 
 
 def held_points(coords: np.ndarray, leaps: bool = True) -> tuple[np.ndarray, bool]:
     """Points ``(frames, animals, keypoints)`` held at their last position: exactly where the
     keypoint was on the frame before, where coordinates have too many digits for that to be
-    chance; and whether they do (False: repeats can be chance here, nothing is looked for).
+    chance; and whether they do (False: repeats can be chance here, and only holds that end in
+    a leap are looked for, below).
 
     A track forward-filled over its gaps (``DataFrame.ffill()`` before export, or a tracker
     that keeps a lost point where it last saw it) holds each lost point still, exactly, for as
@@ -458,7 +460,7 @@ def interpolated_points(coords: np.ndarray) -> tuple[np.ndarray, bool]:
     if len(x) < 3:
         return lined, True
     moving = _moving(x)
-    grid = kern.grid_step(x, GRID_SHARE)
+    grid = kern.grid_step(np.ascontiguousarray(x).reshape(len(x), -1), GRID_SHARE)
     near = 0  # points one grid step off a line or cubic: what chance puts on one
     codes = kern.on_curves(x, LINE_TOLERANCE, 2, grid)  # lines: the gap's points
     lined[1:-1] = (codes == kern.ON_CURVE) & moving

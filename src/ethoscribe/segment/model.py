@@ -19,7 +19,7 @@ from sklearn.base import BaseEstimator
 from tqdm.auto import tqdm
 
 from ethoscribe.checks import is_real, seed_from
-from ethoscribe.clean import CleanParams, QualityReport, clean, streaming_cleaning
+from ethoscribe.clean import CleanParams, QualityReport, clean, cleaned_again, streaming_cleaning
 from ethoscribe.errors import EthoscribeError, InputError, InputWarning, listed
 from ethoscribe.features import FeaturePipeline, FeatureSet
 from ethoscribe.features.vertical_check import resolve_up_axis
@@ -542,9 +542,9 @@ class BehaviourModel(BaseEstimator):
         if self.causal:
             # Streaming needs one fixed bound (the median of the sessions' automatic ones), the
             # placeholders as positions, and held points only where no repeat can be chance.
-            fixed = streaming_cleaning(params, [s.meta.get("cleaning", {}) for s in cleaned])
-            unheld = params.mask_held and not fixed.mask_held
-            redo = params.max_speed == "auto" or fixed.placeholders or unheld
+            used = [s.meta.get("cleaning", {}) for s in cleaned]
+            fixed = streaming_cleaning(params, used)
+            redo = cleaned_again(params, fixed, used)
             params = fixed
             if redo:  # else the same points are masked: the first cleaning stands
                 cleaned, quality = self._clean_all(sessions, params)

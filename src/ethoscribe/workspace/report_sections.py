@@ -160,6 +160,9 @@ def _per_session(ws: Workspace, table: pd.DataFrame, key: str) -> dict[str, Any]
 def _scale_said(ws: Workspace, table: pd.DataFrame) -> str:
     """The sessions whose confidences were read on the tracker's own, lower scale, grouped by
     the threshold used."""
+    settings = (ws.summary.get("cleaning") or {}).get("settings") or {}
+    if settings.get("confidence_scale", "auto") != "auto":  # given, not read from the files
+        return ""
     thresholds = _per_session(ws, table, "confidence_threshold")
     groups: dict[float, list[str]] = {}
     for session, scale in _per_session(ws, table, "confidence_scale").items():

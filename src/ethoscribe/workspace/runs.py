@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ethoscribe.clean import CleanParams, streaming_cleaning
+from ethoscribe.clean import CleanParams, cleaned_again, streaming_cleaning
 from ethoscribe.clean.steps import position_text
 from ethoscribe.curation import Curation
 from ethoscribe.errors import InputError, InputWarning, WorkspaceError, counted, listed
@@ -203,9 +203,8 @@ def discover(
             given = CleanParams.from_dict(cleaning)
             fixed = streaming_cleaning(given, [u for u in used if u])
             cleaning = fixed.to_dict()
-            unheld = given.mask_held and not fixed.mask_held
             # else the same points are masked: the first cleaning stands
-            redo = bool(given.max_speed == "auto" or fixed.placeholders or unheld)
+            redo = cleaned_again(given, fixed, [u for u in used if u])
         if redo:  # its own warnings are the ones that hold (once, not twice)
             prepared, quality, table, used = _prepare(
                 out, plan, cleaning, jobs, client, force, progress, causal
@@ -328,9 +327,10 @@ def _prepare(
     _warn_held_points(rows, used)
     _warn_interpolated_points(rows, used)
     _warn_identity_exchanges(rows, used)
-    _warn_confidence_scale(rows, used)
     _warn_unseen_keypoints(quality)
     first = cleaning if isinstance(cleaning, dict) else (cleaning[0] if cleaning else {})
+    if first.get("confidence_scale", "auto") == "auto":  # read from the files, not given
+        _warn_confidence_scale(rows, used)
     _warn_low_confidence(quality, first.get("min_confidence"))
     quality = _with_absent_keypoints(quality, keypoints)
     return infos, quality, sessions_table(rows), used
