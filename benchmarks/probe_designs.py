@@ -253,6 +253,8 @@ CHANGES: dict[str, Callable[[PoseTracks], PoseTracks]] = {
     "in a runway, from above": _runway,
     # a tracker whose confidences run lower for the same positions
     "confidence halved": lambda s: s.replace(confidence=s.confidence * 0.5),
+    # ... or spread lower for good positions while the best stay near 1
+    "confidence cubed": lambda s: s.replace(confidence=s.confidence**3),
     "lost points written as 0, 0": _placeholder(0.0),
     "lost points written as -1, -1": _placeholder(-1.0),
     "one keypoint's lost points written as 0, 0": _placeholder_one(0.0),
