@@ -220,7 +220,7 @@ def _exchanged_heads(n: int) -> Callable[[PoseTracks], PoseTracks]:
         if s.n_animals < 2:
             return s
         rng = np.random.default_rng(s.n_frames)
-        head = [0, 1, 2]
+        head = slice(0, 3)
         for _ in range(n):
             i, j = rng.choice(s.n_animals, 2, replace=False)
             centre = np.nanmean(x[:, [i, j]], axis=2)
@@ -229,8 +229,8 @@ def _exchanged_heads(n: int) -> Callable[[PoseTracks], PoseTracks]:
             t = int(rng.choice(near))
             u = min(len(x), t + int(rng.uniform(1.0, 3.0) * s.fps))
             for values in (x, c):
-                a, b = values[t:u, i][:, head].copy(), values[t:u, j][:, head].copy()
-                values[t:u, i, : len(head)], values[t:u, j, : len(head)] = b, a
+                a, b = values[t:u, i, head].copy(), values[t:u, j, head].copy()
+                values[t:u, i, head], values[t:u, j, head] = b, a
         return s.replace(coords=x, confidence=c)
 
     return exchange
