@@ -162,6 +162,72 @@ def grid_step(x, share):
 
 
 @njit(cache=True)
+def _shape_misfit(x, t, point, a, k, ref, scale, clip, buf):
+    """Median over animal ``a``'s other keypoints seen on frame ``t`` of how far ``point``'s
+    distance to each lies from keypoint ``k``'s usual distance to it (``ref[a, k, m]``), in
+    units of ``scale[k, m]``, each at most ``clip``; NaN where nothing is seen. ``buf``: room
+    for the keypoints' misfits, kept sorted."""
+    n_k, n_d = x.shape[2], x.shape[3]
+    count = 0
+    for m in range(n_k):
+        if m == k or np.isnan(x[t, a, m, 0]) or not np.isfinite(ref[a, k, m]):
+            continue
+        squared = 0.0
+        for d in range(n_d):
+            squared += (point[d] - x[t, a, m, d]) ** 2
+        misfit = min(abs(np.sqrt(squared) - ref[a, k, m]) / scale[k, m], clip)
+        j = count  # insertion: the buffer stays sorted
+        while j > 0 and buf[j - 1] > misfit:
+            buf[j] = buf[j - 1]
+            j -= 1
+        buf[j] = misfit
+        count += 1
+    if count == 0:
+        return np.nan
+    if count % 2:
+        return buf[count // 2]
+    return 0.5 * (buf[count // 2 - 1] + buf[count // 2])
+
+
+@njit(cache=True)
+def part_exchanges(x, i, j, ref, scale, clip, switch, margin):
+    """(frames, keypoints) bool: where keypoint k of animals ``i`` and ``j`` sits on the
+    other animal's body. Each frame scores the two ways of giving the two points to the two
+    animals by how well each point keeps its keypoint's usual distances to the rest of the
+    body it is given (``_shape_misfit``, summed over the two animals); the exchanged way pays
+    ``margin`` more on every frame (it must fit clearly better: a curled body fits its own
+    distances loosely). A Viterbi path over the two ways, starting as tracked and paying
+    ``switch`` for each change, decides. Frames where a point is unseen add no evidence."""
+    n, n_k = x.shape[0], x.shape[2]
+    out = np.zeros((n, n_k), np.bool_)
+    buf = np.empty(n_k)
+    from_kept = np.zeros(n, np.bool_)  # the exchanged way's best predecessor was the kept way
+    from_exchanged = np.zeros(n, np.bool_)  # and the kept way's, the exchanged way
+    for k in range(n_k):
+        kept, exchanged = 0.0, switch  # path costs ending each way
+        for t in range(n):
+            cost_kept = cost_exchanged = 0.0
+            if not (np.isnan(x[t, i, k, 0]) or np.isnan(x[t, j, k, 0])):
+                own = _shape_misfit(x, t, x[t, i, k], i, k, ref, scale, clip, buf)
+                own += _shape_misfit(x, t, x[t, j, k], j, k, ref, scale, clip, buf)
+                other = _shape_misfit(x, t, x[t, j, k], i, k, ref, scale, clip, buf)
+                other += _shape_misfit(x, t, x[t, i, k], j, k, ref, scale, clip, buf)
+                if np.isfinite(own) and np.isfinite(other):
+                    cost_kept, cost_exchanged = own, other + margin
+            from_kept[t] = kept + switch < exchanged
+            from_exchanged[t] = exchanged + switch < kept
+            kept, exchanged = (
+                min(kept, exchanged + switch) + cost_kept,
+                min(exchanged, kept + switch) + cost_exchanged,
+            )
+        state = exchanged < kept
+        for t in range(n - 1, -1, -1):
+            out[t, k] = state
+            state = not from_kept[t] if state else from_exchanged[t]
+    return out
+
+
+@njit(cache=True)
 def jump_frame(xf, t, ref, ref_t, partner, max_step, flag):
     """Speed test of one frame of one animal against the last accepted points.
 

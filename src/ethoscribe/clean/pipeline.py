@@ -39,6 +39,7 @@ from ethoscribe.clean.steps import (
     confidence_scale,
     held_points,
     interpolated_points,
+    part_exchanges,
     placeholder_positions,
     relink_by_shape,
     repeated_frames,
@@ -146,6 +147,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
     # repeated images (offline only: a repeat is known once the next frame differs)
     repeated = repeated_frames(x) if p.fill_repeated and not causal else np.zeros(len(x), bool)
     x[repeated], conf[repeated] = np.nan, np.nan  # missing points have no confidence
+    parts = 0  # stretches of some keypoints handed back to their animal (offline only)
     if causal:
         probe = x.copy()  # the check of confidence, and what "auto" speed sees
         _mask_confidence_inplace(probe, conf, thr)
@@ -166,6 +168,12 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         x, conf, raw_missing, held, low = (
             _in_order(v, order) for v in (x, conf, raw_missing, held, low)
         )
+        if p.repair_identities:  # parts of two animals exchanged (offline: a path over time)
+            owner, parts = part_exchanges(x)
+            if parts:
+                x, conf, raw_missing, held, low = (
+                    _by_owner(v, owner) for v in (x, conf, raw_missing, held, low)
+                )
         jumps = _mask_jumps_inplace(x, fps, max_speed, pairs, False)
         swapped = kern.swap_pass(x, conf, pairs, SWAP_PRIOR_PER_S / fps, SWAP_LONE_MAX_AGE_FRAMES)
         filled = _fill_gaps_inplace(x, max_gap)
@@ -204,6 +212,7 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         "interpolated_looked_for": lined_looked,
         "held_looked_for": looked,
         "identity_exchanges": exchanges,
+        "part_exchanges": parts,
         "placeholders": placeholders,
     }
     out = cal.replace(coords=x, confidence=conf, fps=fps_out, meta={"cleaning": resolved})
@@ -231,6 +240,12 @@ def _identities(
         order, stretches = relink_by_shape(seen, fps, order)
         changes += stretches
     return (order if changes else None), changes
+
+
+def _by_owner(values: np.ndarray, owner: np.ndarray) -> np.ndarray:
+    """``values (frames, animals, keypoints, ...)`` with each point taken from the track
+    ``owner (frames, animals, keypoints)`` gives it."""
+    return np.take_along_axis(values, owner.reshape(owner.shape + (1,) * (values.ndim - 3)), 1)
 
 
 def _age_frames(fps: float) -> int:

@@ -113,6 +113,11 @@ def quality_section(ws: Workspace, labels: pd.DataFrame | None = None) -> Sectio
         "came back from a loss with its proportions) and were given that animal from then on "
         "(a tracker exchanging identities)",
     )  # fmt: skip
+    text += _counts_said(
+        ws, table, "part_exchanges",
+        "Stretches where some keypoints of one animal sat on another's body (kept their usual "
+        "distances to its other keypoints, not to their own animal's) and were given back",
+    )  # fmt: skip
     features = ws.summary.get("features") or {}
     left_out = [str(k) for k in features.get("keypoints_left_out") or []]
     read = features.get("keypoints")  # those the model reads (runs since 2026-12-05)

@@ -589,18 +589,20 @@ def _warn_identity_exchanges(rows: Sequence[dict[str, Any]], used: Sequence[Any]
     results rest on that repair, so the user should know, and how to keep the tracks."""
 
     def exchanged(row: dict[str, Any], params: dict[str, Any]) -> str | None:
-        n = params.get("identity_exchanges", 0)
-        return counted(n, "time") if n else None
+        n, parts = params.get("identity_exchanges", 0), params.get("part_exchanges", 0)
+        said = [counted(n, "time")] if n else []
+        said += [f"{counted(parts, 'stretch', 'stretches')} of some keypoints"] if parts else []
+        return ", ".join(said) or None
 
     named = _sessions_named(rows, used, exchanged)
     if named:
         warnings.warn(
             f"tracks that took over another animal (leapt to where its track had just been, or "
-            f"came back from a loss with its proportions) were given that animal from then on "
-            f"in session(s) {listed(named)}: a tracker exchanging the animals' identities "
-            "(often as they touch). Check those sessions' per-animal results; to keep the "
-            "tracks as they are, pass cleaning={'repair_identities': False} (command line: "
-            "--keep-track-identities)",
+            f"came back from a loss with its proportions), or keypoints that sat on the other "
+            f"animal's body, were given back to their animal in session(s) {listed(named)}: a "
+            "tracker exchanging the animals' identities (often as they touch). Check those "
+            "sessions' per-animal results; to keep the tracks as they are, pass "
+            "cleaning={'repair_identities': False} (command line: --keep-track-identities)",
             InputWarning,
             stacklevel=3,
         )
