@@ -121,8 +121,10 @@ class CleanParams:
         multi-animal tracker exchanging identities, usually as the animals touch) is given
         that animal's identity from then on (:class:`~ethoscribe.clean.steps.IdentityKeeper`;
         needs the jump test's speed bound); offline, after a loss of both, the animals'
-        proportions decide (:func:`~ethoscribe.clean.steps.relink_by_shape`). Streaming and
-        causal cleaning use the motion only.
+        proportions decide (:func:`~ethoscribe.clean.steps.relink_by_shape`), and keypoints
+        that sit on the other animal's body are given back (the noses of two animals that
+        touch; :func:`~ethoscribe.clean.steps.part_exchanges`). Streaming and causal cleaning
+        use the motion only.
 
     Examples
     --------
