@@ -26,6 +26,7 @@ from ethoscribe.clean.report import QualityReport, _report
 from ethoscribe.clean.steps import (
     IDENTITY_MAX_AGE_S,
     IdentityKeeper,
+    _by_owner,
     _calibration,
     _fill_gaps_inplace,
     _mask_confidence_inplace,
@@ -240,12 +241,6 @@ def _identities(
         order, stretches = relink_by_shape(seen, fps, order)
         changes += stretches
     return (order if changes else None), changes
-
-
-def _by_owner(values: np.ndarray, owner: np.ndarray) -> np.ndarray:
-    """``values (frames, animals, keypoints, ...)`` with each point taken from the track
-    ``owner (frames, animals, keypoints)`` gives it."""
-    return np.take_along_axis(values, owner.reshape(owner.shape + (1,) * (values.ndim - 3)), 1)
 
 
 def _age_frames(fps: float) -> int:

@@ -779,6 +779,12 @@ of invented pairs; none with 2, with 1,826 of 3,324 exchanged points put back)."
 PART_SAMPLE = 20_000  # frames (evenly spaced) the usual distances are read from
 
 
+def _by_owner(values: np.ndarray, owner: np.ndarray) -> np.ndarray:
+    """``values (frames, animals, keypoints, ...)`` with each point taken from the track
+    ``owner (frames, animals, keypoints)`` gives it."""
+    return np.take_along_axis(values, owner.reshape(owner.shape + (1,) * (values.ndim - 3)), 1)
+
+
 def part_exchanges(coords: np.ndarray) -> tuple[np.ndarray, int]:
     """Points that sit on another animal's body (a multi-animal tracker exchanging some
     keypoints of two animals that touch, the noses and ears, say, while the rest stay):
@@ -812,7 +818,7 @@ def part_exchanges(coords: np.ndarray) -> tuple[np.ndarray, int]:
     handed = 0
     for i in range(n_a):
         for j in range(i + 1, n_a):
-            placed = np.take_along_axis(x, owner[..., None], axis=1)
+            placed = _by_owner(x, owner)
             swap = kern.part_exchanges(
                 placed, i, j, ref, scale, PART_CLIP, PART_SWITCH, PART_MARGIN
             )

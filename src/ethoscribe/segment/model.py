@@ -540,8 +540,9 @@ class BehaviourModel(BaseEstimator):
             params = replace(params, target_fps=rates[0])
         cleaned, quality = self._clean_all(sessions, params)
         if self.causal:
-            # Streaming needs one fixed bound (the median of the sessions' automatic ones), the
-            # placeholders as positions, and held points only where no repeat can be chance.
+            # Streaming needs one fixed bound and confidence scale (the medians of the
+            # sessions' automatic ones), the placeholders as positions, and held points only
+            # where no repeat can be chance.
             used = [s.meta.get("cleaning", {}) for s in cleaned]
             fixed = streaming_cleaning(params, used)
             redo = cleaned_again(params, fixed, used)

@@ -198,8 +198,9 @@ def discover(
             )
         redo = False
         if causal:
-            # Streaming needs fixed settings: the sessions' median speed bound, every
-            # placeholder they showed, held points only where no repeat can be chance.
+            # Streaming needs fixed settings: the sessions' median speed bound and confidence
+            # scale, every placeholder they showed, held points only where no repeat can be
+            # chance.
             given = CleanParams.from_dict(cleaning)
             fixed = streaming_cleaning(given, [u for u in used if u])
             cleaning = fixed.to_dict()
