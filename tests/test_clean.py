@@ -414,23 +414,34 @@ def test_keypoints_exchanged_between_two_animals_are_given_back():
     assert kept.params["part_exchanges"] == 0
 
 
-def test_the_shape_misfit_kernel_matches_numpy():
+def test_the_median_misfit_kernel_matches_numpy():
     # Reference: numpy's norm, minimum and median of the clipped misfits over the body's other
-    # keypoints seen (odd and even counts, one keypoint unseen), on invented random points.
-    from ethoscribe.clean._kernels import _shape_misfit
+    # keypoints seen (odd and even counts, one keypoint unseen, ties at the clip), on invented
+    # random points; and scipy's cdist for the kernel's distance matrices.
+    from scipy.spatial.distance import cdist
+
+    from ethoscribe.clean._kernels import _distances, _median_misfit
 
     rng = np.random.default_rng(SEED)
     x = rng.normal(0.0, 20.0, (3, 2, 6, 2))
     x[1, 0, 4] = np.nan
     ref = rng.uniform(5.0, 40.0, (2, 6, 6))
-    scale = rng.uniform(1.0, 4.0, (6, 6))
-    point = np.array([3.0, -7.0])
-    for t, a, k in [(0, 0, 0), (1, 0, 2), (2, 1, 5)]:
-        others = [m for m in range(6) if m != k and np.isfinite(x[t, a, m, 0])]
-        dist = np.linalg.norm(point - x[t, a, others], axis=-1)
-        misfit = np.minimum(np.abs(dist - ref[a, k, others]) / scale[k, others], 10.0)
-        found = _shape_misfit(x, t, point, a, k, ref, scale, 10.0, np.empty(6))
-        assert found == pytest.approx(np.median(misfit), rel=1e-12)
+    for clip in (10.0, 1.0):  # 1: most misfits tie at the clip
+        scale = rng.uniform(1.0, 4.0, (6, 6))
+        point = np.array([3.0, -7.0])
+        for t, a, k in [(0, 0, 0), (1, 0, 2), (2, 1, 5), (0, 1, 3)]:
+            others = [m for m in range(6) if m != k and np.isfinite(x[t, a, m, 0])]
+            dist = np.linalg.norm(point - x[t, a, others], axis=-1)
+            misfit = np.minimum(np.abs(dist - ref[a, k, others]) / scale[k, others], clip)
+            row = np.linalg.norm(point - x[t, a], axis=-1)  # NaN where unseen
+            found = _median_misfit(row, k, ref[a, k], scale[k], clip, np.empty(6))
+            assert found == pytest.approx(np.median(misfit), rel=1e-12)
+    off_diagonal = ~np.eye(6, dtype=bool)  # a symmetric call leaves the diagonal unwritten
+    for symmetric, q in [(True, x[0, 0]), (False, x[0, 1])]:
+        out = np.empty((6, 6))
+        _distances(x[0, 0], q, out, symmetric)
+        cells = off_diagonal if symmetric else np.ones((6, 6), dtype=bool)
+        np.testing.assert_allclose(out[cells], cdist(x[0, 0], q)[cells], rtol=1e-12)
 
 
 def test_auto_max_speed_rule_is_reported():

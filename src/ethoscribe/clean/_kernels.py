@@ -162,31 +162,54 @@ def grid_step(x, share):
 
 
 @njit(cache=True)
-def _shape_misfit(x, t, point, a, k, ref, scale, clip, buf):
-    """Median over animal ``a``'s other keypoints seen on frame ``t`` of how far ``point``'s
-    distance to each lies from keypoint ``k``'s usual distance to it (``ref[a, k, m]``), in
-    units of ``scale[k, m]``, each at most ``clip``; NaN where nothing is seen. ``buf``: room
-    for the keypoints' misfits, kept sorted."""
-    n_k, n_d = x.shape[2], x.shape[3]
+def _median_misfit(dist, k, ref, scale, clip, buf):
+    """Median over a body's other keypoints seen (``dist[m]`` finite, ``m != k``) of how far
+    a point's distance to each lies from keypoint ``k``'s usual distance to it (``ref[m]``),
+    in units of ``scale[m]``, each at most ``clip``; NaN where nothing is seen. ``buf``: room
+    for the misfits. The middle values are found by their ranks (ties broken by position)
+    rather than by sorting: a dozen values whose order no branch predicts, and this is most
+    of the step's time."""
     count = 0
-    for m in range(n_k):
-        if m == k or np.isnan(x[t, a, m, 0]) or not np.isfinite(ref[a, k, m]):
+    for m in range(dist.shape[0]):
+        if m == k or np.isnan(dist[m]) or not np.isfinite(ref[m]):
             continue
-        squared = 0.0
-        for d in range(n_d):
-            squared += (point[d] - x[t, a, m, d]) ** 2
-        misfit = min(abs(np.sqrt(squared) - ref[a, k, m]) / scale[k, m], clip)
-        j = count  # insertion: the buffer stays sorted
-        while j > 0 and buf[j - 1] > misfit:
-            buf[j] = buf[j - 1]
-            j -= 1
-        buf[j] = misfit
+        buf[count] = min(abs(dist[m] - ref[m]) / scale[m], clip)
         count += 1
     if count == 0:
         return np.nan
-    if count % 2:
-        return buf[count // 2]
-    return 0.5 * (buf[count // 2 - 1] + buf[count // 2])
+    upper = count // 2
+    lower = upper if count % 2 else upper - 1
+    low = high = 0.0
+    found = 0
+    for a in range(count):
+        value, rank = buf[a], 0
+        for b in range(a):
+            rank += buf[b] <= value
+        for b in range(a + 1, count):
+            rank += buf[b] < value
+        if rank == lower:
+            low = value
+            found += 1
+        if rank == upper:
+            high = value
+            found += 1
+        if found == 2:
+            break
+    return high if count % 2 else 0.5 * (low + high)
+
+
+@njit(cache=True)
+def _distances(p, q, out, symmetric):
+    """``out[k, m]`` the distance from point ``p[k]`` to ``q[m]`` (NaN where either is
+    unseen); ``symmetric``: ``p`` is ``q``, each pair computed once."""
+    for k in range(p.shape[0]):
+        for m in range(k + 1 if symmetric else 0, q.shape[0]):
+            squared = 0.0
+            for d in range(p.shape[1]):
+                squared += (p[k, d] - q[m, d]) ** 2
+            out[k, m] = np.sqrt(squared)
+            if symmetric:
+                out[m, k] = out[k, m]
 
 
 @njit(cache=True)
@@ -194,36 +217,43 @@ def part_exchanges(x, i, j, ref, scale, clip, switch, margin):
     """(frames, keypoints) bool: where keypoint k of animals ``i`` and ``j`` sits on the
     other animal's body. Each frame scores the two ways of giving the two points to the two
     animals by how well each point keeps its keypoint's usual distances to the rest of the
-    body it is given (``_shape_misfit``, summed over the two animals); the exchanged way pays
+    body it is given (``_median_misfit``, summed over the two animals); the exchanged way pays
     ``margin`` more on every frame (it must fit clearly better: a curled body fits its own
     distances loosely). A Viterbi path over the two ways, starting as tracked and paying
-    ``switch`` for each change, decides. Frames where a point is unseen add no evidence."""
+    ``switch`` for each change, decides. Frames where a point is unseen add no evidence.
+    Every keypoint's path is run in one pass over the frames, whose distances are computed
+    once (each animal's own and the two animals' cross distances)."""
     n, n_k = x.shape[0], x.shape[2]
     out = np.zeros((n, n_k), np.bool_)
     buf = np.empty(n_k)
-    from_kept = np.zeros(n, np.bool_)  # the exchanged way's best predecessor was the kept way
-    from_exchanged = np.zeros(n, np.bool_)  # and the kept way's, the exchanged way
-    for k in range(n_k):
-        kept, exchanged = 0.0, switch  # path costs ending each way
-        for t in range(n):
+    own_i, own_j, cross = np.empty((n_k, n_k)), np.empty((n_k, n_k)), np.empty((n_k, n_k))
+    from_kept = np.zeros((n, n_k), np.bool_)  # the exchanged way's best predecessor was kept
+    from_exchanged = np.zeros((n, n_k), np.bool_)  # and the kept way's, the exchanged way
+    kept, exchanged = np.zeros(n_k), np.full(n_k, switch)  # path costs ending each way
+    for t in range(n):
+        _distances(x[t, i], x[t, i], own_i, True)
+        _distances(x[t, j], x[t, j], own_j, True)
+        _distances(x[t, i], x[t, j], cross, False)  # cross[k, m]: i's point k to j's point m
+        for k in range(n_k):
             cost_kept = cost_exchanged = 0.0
             if not (np.isnan(x[t, i, k, 0]) or np.isnan(x[t, j, k, 0])):
-                own = _shape_misfit(x, t, x[t, i, k], i, k, ref, scale, clip, buf)
-                own += _shape_misfit(x, t, x[t, j, k], j, k, ref, scale, clip, buf)
-                other = _shape_misfit(x, t, x[t, j, k], i, k, ref, scale, clip, buf)
-                other += _shape_misfit(x, t, x[t, i, k], j, k, ref, scale, clip, buf)
+                own = _median_misfit(own_i[k], k, ref[i, k], scale[k], clip, buf)
+                own += _median_misfit(own_j[k], k, ref[j, k], scale[k], clip, buf)
+                other = _median_misfit(cross[:, k], k, ref[i, k], scale[k], clip, buf)
+                other += _median_misfit(cross[k], k, ref[j, k], scale[k], clip, buf)
                 if np.isfinite(own) and np.isfinite(other):
                     cost_kept, cost_exchanged = own, other + margin
-            from_kept[t] = kept + switch < exchanged
-            from_exchanged[t] = exchanged + switch < kept
-            kept, exchanged = (
-                min(kept, exchanged + switch) + cost_kept,
-                min(exchanged, kept + switch) + cost_exchanged,
+            from_kept[t, k] = kept[k] + switch < exchanged[k]
+            from_exchanged[t, k] = exchanged[k] + switch < kept[k]
+            kept[k], exchanged[k] = (
+                min(kept[k], exchanged[k] + switch) + cost_kept,
+                min(exchanged[k], kept[k] + switch) + cost_exchanged,
             )
-        state = exchanged < kept
+    for k in range(n_k):
+        state = exchanged[k] < kept[k]
         for t in range(n - 1, -1, -1):
             out[t, k] = state
-            state = not from_kept[t] if state else from_exchanged[t]
+            state = not from_kept[t, k] if state else from_exchanged[t, k]
     return out
 
 

@@ -807,18 +807,24 @@ def part_exchanges(coords: np.ndarray) -> tuple[np.ndarray, int]:
     if n_a < 2 or n_k < 4 or n < 2:
         return owner, 0
     sample = x[np.unique(np.linspace(0, n - 1, min(n, PART_SAMPLE)).astype(int))]
-    apart = np.linalg.norm(sample[:, :, :, None] - sample[:, :, None, :], axis=-1)
+    first, second = np.triu_indices(n_k, 1)  # distances are symmetric: each pair once
+    apart = np.linalg.norm(sample[:, :, first] - sample[:, :, second], axis=-1)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # keypoints never seen together
-        ref = np.nanmedian(apart, axis=0)  # (animals, keypoints, keypoints)
-        spread = 1.4826 * np.nanmedian(np.abs(apart - ref), axis=(0, 1))
-        floor = 0.05 * np.nanmedian(ref, axis=0)
-    scale = np.fmax(spread, floor)
-    scale = np.where(np.isfinite(scale) & (scale > 0), scale, np.inf)
+        pair_ref = np.nanmedian(apart, axis=0)  # (animals, pairs)
+        pair_spread = 1.4826 * np.nanmedian(np.abs(apart - pair_ref), axis=(0, 1))
+        pair_floor = 0.05 * np.nanmedian(pair_ref, axis=0)
+    ref = np.zeros((n_a, n_k, n_k))  # the diagonal is never read (a point's own keypoint)
+    ref[:, first, second] = ref[:, second, first] = pair_ref
+    scale = np.full((n_k, n_k), np.inf)
+    pair_scale = np.fmax(pair_spread, pair_floor)
+    scale[first, second] = scale[second, first] = np.where(
+        np.isfinite(pair_scale) & (pair_scale > 0), pair_scale, np.inf
+    )
     handed = 0
     for i in range(n_a):
         for j in range(i + 1, n_a):
-            placed = _by_owner(x, owner)
+            placed = _by_owner(x, owner) if handed else x  # a copy only once points moved
             swap = kern.part_exchanges(
                 placed, i, j, ref, scale, PART_CLIP, PART_SWITCH, PART_MARGIN
             )
