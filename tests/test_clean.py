@@ -646,6 +646,11 @@ def test_held_points_in_whole_units_are_told_by_the_leap_that_ends_them():
     tracks = PoseTracks(filled, keypoints=KEYPOINTS, fps=30.0, units="mm")
     assert clean(tracks)[1].params["held_points"] == 30
     assert clean(tracks, causal=True, max_speed=None)[1].params["held_points"] == 0
+    # a speed bound the user gives is the leap's too: above the walk's leap, nothing is held
+    leap = np.linalg.norm(filled[430, 0, 0] - filled[429, 0, 0]) * 30.0  # mm/s
+    assert clean(tracks, max_speed=2 * leap)[1].params["held_points"] == 0
+    assert clean(tracks, max_speed=leap / 2)[1].params["held_points"] == 30
+    assert clean(tracks, max_speed=None)[1].params["held_points"] == 30  # no test: automatic
 
 
 def test_points_interpolated_over_the_trackers_gaps_are_missing():

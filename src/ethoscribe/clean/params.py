@@ -102,7 +102,8 @@ class CleanParams:
         forward-filled over its gaps), as lost (:func:`~ethoscribe.clean.steps.held_points`;
         whether repeats can be chance is read from the whole recording; where they can, as in
         whole pixels, offline cleaning takes only holds that end in a leap beyond the jump
-        test's bound; streaming cleaning takes it as a setting, ``StreamingCleaner(held=...)``).
+        test's bound, ``max_speed`` as given or the automatic one where it is "auto" or None;
+        streaming cleaning takes it as a setting, ``StreamingCleaner(held=...)``).
     mask_interpolated : bool
         Treat points on straight lines at constant speed, or on cubic curves, between seen
         points, where coordinates are written with enough digits for that never to be chance

@@ -137,7 +137,9 @@ def _clean(tracks: PoseTracks, p: CleanParams, causal: bool) -> tuple[PoseTracks
         probe = x.copy()  # the points the confidence keeps
         _mask_confidence_inplace(probe, conf, thr)
         if p.mask_held:
-            held, looked = held_points(probe, leaps=not causal)  # a hold's end is later
+            # a hold's end is a later frame; a leap is what the jump test would call one
+            given = None if p.max_speed in ("auto", None) else p.max_speed / fps
+            held, looked = held_points(probe, leaps=not causal, bound=given)
             probe[held] = np.nan
         if interpolated:
             lined, lined_looked = interpolated_points(probe)

@@ -286,7 +286,9 @@ integer pixels are, 0.05-0.09: there an animal at rest repeats, and only holds t
 leap are taken, see ``held_points``)."""
 
 
-def held_points(coords: np.ndarray, leaps: bool = True) -> tuple[np.ndarray, bool]:
+def held_points(
+    coords: np.ndarray, leaps: bool = True, bound: float | None = None
+) -> tuple[np.ndarray, bool]:
     """Points ``(frames, animals, keypoints)`` held at their last position: exactly where the
     keypoint was on the frame before, where coordinates have too many digits for that to be
     chance; and whether they do (False: repeats can be chance here, and only holds that end in
@@ -305,10 +307,11 @@ def held_points(coords: np.ndarray, leaps: bool = True) -> tuple[np.ndarray, boo
     told by how it ends: a point forward-filled while it was lost leaps, on the frame it is
     seen again, to where the animal went meanwhile, while a point at rest moves off by an
     ordinary step. With ``leaps`` (offline: the end of a hold is a later frame), holds whose
-    next step is longer than the speed bound of the jump test (:func:`estimate_max_speed`, per
-    frame) are returned there too, and the second value is False (not every repeat was looked
-    at). A point that was lost and held while the animal stayed put comes back by an
-    ordinary step and is kept: it was held about where it was.
+    next step is longer than ``bound`` (units per frame; None: the jump test's automatic
+    bound, :func:`estimate_max_speed` per frame) are returned there too, and the second value
+    is False (not every repeat was looked at). A point that was lost and held while the
+    animal stayed put comes back by an ordinary step and is kept: it was held about where it
+    was.
 
     Examples
     --------
@@ -334,16 +337,17 @@ def held_points(coords: np.ndarray, leaps: bool = True) -> tuple[np.ndarray, boo
     moving = _moving(x)
     same &= moving
     if not _many_digits(x, same, moving):
-        return (_holds_before_leaps(x, same) if leaps else held), False
+        return (_holds_before_leaps(x, same, bound) if leaps else held), False
     held[1:] = same
     return held, True
 
 
-def _holds_before_leaps(x: np.ndarray, same: np.ndarray) -> np.ndarray:
+def _holds_before_leaps(x: np.ndarray, same: np.ndarray, bound: float | None) -> np.ndarray:
     """``(frames, animals, keypoints)``: the repeated frames of holds (``same``, steps that
-    repeat the frame before) whose next step leaps beyond the jump test's bound per frame."""
+    repeat the frame before) whose next step leaps beyond ``bound`` per frame (None: the jump
+    test's automatic bound)."""
     held = np.zeros(x.shape[:3], bool)
-    bound = estimate_max_speed(x, 1.0)  # per frame
+    bound = estimate_max_speed(x, 1.0) if bound is None else bound
     if bound is None or not same.any():
         return held
     # the last repeated step of each hold (step t: frame t -> t + 1), and the step after it
