@@ -463,6 +463,29 @@ def test_a_study_whose_tracker_rates_points_low_is_cleaned_on_its_scale_and_said
     pd.testing.assert_frame_equal(labels[0], labels[1])
 
 
+def test_a_study_whose_tracker_writes_percent_gives_the_labels_of_the_unit_scale(tmp_path):
+    # Invented animals (the package's simulator) written with their confidences in percent,
+    # as some exports do (0-100): read as percent, said once per file, and the run gives the
+    # labels of the files as simulated. Before, every file was refused.
+    from ethoscribe.simulate import simulate_session
+    from ethoscribe.workspace import discover
+
+    for seed in (1, 2):
+        tracks, _ = simulate_session(duration_s=20, fps=25, seed=seed, session=f"s{seed}")
+        for folder in ("unit", "percent"):
+            (tmp_path / folder).mkdir(exist_ok=True)
+            write_tidy(tracks, tmp_path / folder / f"s{seed}.csv")
+        table = pd.read_csv(tmp_path / "unit" / f"s{seed}.csv")
+        table["confidence"] *= 100
+        table.to_csv(tmp_path / "percent" / f"s{seed}.csv", index=False)
+    options = {"fps": 25, "states": 3, "progress": False, "stability": False}
+    with pytest.warns(InputWarning, match=r"s1.csv: confidence written from 0 to 100 is read"):
+        discover(sorted((tmp_path / "percent").glob("*.csv")), tmp_path / "p", **options)
+    discover(sorted((tmp_path / "unit").glob("*.csv")), tmp_path / "u", **options)
+    labels = [pd.read_csv(tmp_path / w / "labels.csv") for w in ("p", "u")]
+    pd.testing.assert_frame_equal(labels[0], labels[1])
+
+
 def test_a_study_filmed_at_a_raised_frame_rate_is_cleaned_and_said(tmp_path):
     # Invented animals (the package's simulator) written as a 25-fps camera would be into
     # 30-fps files: every fifth image shown twice. The run fills the repeats, says so, and

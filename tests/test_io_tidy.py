@@ -224,6 +224,24 @@ def test_confidence_outside_unit_interval(tmp_path):
         read_tidy(_save(df, tmp_path), fps=30)
 
 
+def test_confidence_in_percent_or_a_little_above_one_is_read_on_the_unit_scale(tmp_path):
+    # A tracker writing percent (0-100), and one whose peaks pass 1 a little: read on [0, 1]
+    # and said, naming the file. Reference: the values divided by 100 / clipped with numpy.
+    df = _table(confidence=[97.0, 64.0, 88.5] * 4)
+    with pytest.warns(InputWarning, match=r"s.csv: confidence written from 0 to 100 is read "
+                      r"as percent \(divided by 100\)"):  # fmt: skip
+        t = read_tidy(_save(df, tmp_path), fps=30)
+    np.testing.assert_allclose(t.confidence[:, 0, :], [[0.97, 0.64, 0.885]] * 4)
+    df = _table(confidence=[1.08, 0.64, 0.885] * 4)
+    with pytest.warns(InputWarning, match=r"above 1 \(at most 1.08, 4 value\(s\)\) are read as 1"):
+        t = read_tidy(_save(df, tmp_path), fps=30)
+    np.testing.assert_allclose(t.confidence[:, 0, :], [[1.0, 0.64, 0.885]] * 4)
+    df = _table(confidence=[0.97, 0.64, 0.885] * 4)
+    df.loc[[3, 4], "confidence"] = 64.0  # most values fractions: a slip, not a scale
+    with pytest.raises(InputError, match=r"line 5 has 64 .*a 0-100 scale is read as percent"):
+        read_tidy(_save(df, tmp_path), fps=30)
+
+
 def test_duplicated_rows(tmp_path):
     df = _table(first=10)
     df = pd.concat([df, df.iloc[[4]]])

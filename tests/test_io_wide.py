@@ -163,6 +163,18 @@ def test_non_numeric_cell_and_bad_confidence(tmp_path):
         read_wide(_save(df, tmp_path), fps=30)
 
 
+def test_confidence_in_percent_is_read_on_one_scale_for_every_keypoint(tmp_path):
+    # Percent in every confidence column, one of them never above 40: the rule is read from
+    # the file, so that keypoint is read as percent too. Reference: numpy's division by 100.
+    df = _wide().drop(columns="frame")
+    df["nose_confidence"], df["left_ear_confidence"] = 90.0, 35.0
+    df["tail_base_confidence"] = [70.0, 80.0, np.nan, 99.0, 60.0]
+    with pytest.warns(InputWarning, match="read as percent"):
+        t = read_wide(_save(df, tmp_path), fps=30)
+    expected = df[[f"{k}_confidence" for k in ("nose", "left_ear", "tail_base")]] / 100
+    np.testing.assert_allclose(t.confidence[:, 0, :], expected.to_numpy())
+
+
 def test_empty_header_only_and_single_frame(tmp_path):
     p = tmp_path / "empty.csv"
     p.write_bytes(b"")

@@ -493,6 +493,57 @@ def warn_unmapped_confidence(info: TableInfo, columns: list[str], fix: str) -> N
     warnings.warn(msg, InputWarning, stacklevel=3)
 
 
+CONFIDENCE_OVERSHOOT = 1.2
+"""Confidences whose largest value lies in (1, this] are read with the values above 1 as 1:
+some trackers' heatmap peaks pass 1 a little (by up to a tenth or so, from memory), and such
+a point is as sure as one at 1. Beyond it, a value is more likely a slip, and is refused."""
+
+PERCENT_FROM = 50.0
+"""Confidences whose largest value lies in (this, 100], with most values above 1, are read as
+percent (divided by 100). A tracker writing percent rates its best points near 100; a largest
+value of 2-50 names no scale, and a few values above 1 among fractions are slips: refused."""
+
+
+def confidence_on_unit_scale(
+    columns: Mapping[str, np.ndarray], info: TableInfo
+) -> dict[str, np.ndarray]:
+    """A file's confidence columns on [0, 1]: values a little above 1 read as 1
+    (``CONFIDENCE_OVERSHOOT``), a 0-100 scale read as percent (``PERCENT_FROM``), each said in
+    a warning; other values outside [0, 1] are refused, naming the column and the first row.
+    (A scale that only runs low, 0-0.5 say, is cleaning's to read:
+    ``CleanParams.confidence_scale``.)
+    The rule is read from all the file's confidence columns together, so every keypoint is
+    read on the same scale.
+
+    Examples
+    --------
+    >>> info = TableInfo(Path("a.csv"), "csv", ("nose_c",))
+    >>> confidence_on_unit_scale({"nose_c": np.array([0.5, 1.0])}, info)["nose_c"].tolist()
+    [0.5, 1.0]
+    """
+    out = dict(columns)
+    finite = np.concatenate([v[np.isfinite(v)] for v in out.values()] or [np.empty(0)])
+    if finite.size and finite.min() >= 0 and finite.max() > 1:
+        top, above = finite.max(), int((finite > 1).sum())
+        head = f"{info.path.name}: confidence"
+        if top <= CONFIDENCE_OVERSHOOT:
+            out = {c: np.minimum(v, 1.0) for c, v in out.items()}  # NaN stays NaN
+            msg = (
+                f"{head} values a little above 1 (at most {top:.3g}, {above} value(s)) are "
+                "read as 1, as sure as a point can be"
+            )
+        elif PERCENT_FROM < top <= 100 and np.median(finite) > 1:
+            out = {c: v / 100.0 for c, v in out.items()}
+            msg = f"{head} written from 0 to 100 is read as percent (divided by 100)"
+        else:
+            msg = ""
+        if msg:
+            warnings.warn(msg, InputWarning, stacklevel=3)
+    for name, values in out.items():
+        check_confidence(values, name, info)
+    return out
+
+
 def check_confidence(values: np.ndarray, name: str, info: TableInfo) -> None:
     """Raise if finite confidence values fall outside [0, 1], naming the first offending row."""
     outside = (values < 0) | (values > 1)
@@ -502,7 +553,8 @@ def check_confidence(values: np.ndarray, name: str, info: TableInfo) -> None:
         raise InputError(
             f"{info.path}: column '{name}' must lie in [0, 1]; {info.row(int(rows[0]))} has "
             f"{values[rows[0]]:g} ({rows.size} value(s) outside, range {finite.min():g} to "
-            f"{finite.max():g}). Rescale it to [0, 1] (e.g. divide by the maximum) or drop it."
+            f"{finite.max():g}). Rescale it to [0, 1] (e.g. divide by the maximum) or drop it "
+            f"(a 0-100 scale is read as percent, values up to {CONFIDENCE_OVERSHOOT:g} as 1)."
         )
 
 

@@ -22,10 +22,10 @@ from ethoscribe.io._atomic import write_table
 from ethoscribe.io._tables import (
     METADATA_KEY,
     TableInfo,
-    check_confidence,
     check_file,
     check_fps,
     confidence_lookalikes,
+    confidence_on_unit_scale,
     exact_repeats,
     integer_frames,
     make_tracks,
@@ -259,7 +259,7 @@ def _scatter(
         coords[flat, d] = values.pop(axis)  # pop: free each column once placed
     conf = None
     if "confidence" in values:
-        check_confidence(values["confidence"], "confidence", info)
+        values.update(confidence_on_unit_scale({"confidence": values["confidence"]}, info))
         conf = np.full(coords.shape[0], np.nan)
         conf[flat] = values.pop("confidence")
         conf = conf.reshape(shape)

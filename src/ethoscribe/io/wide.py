@@ -18,11 +18,11 @@ import numpy as np
 from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._tables import (
     TableInfo,
-    check_confidence,
     check_file,
     check_fps,
     check_role_mapping,
     confidence_lookalikes,
+    confidence_on_unit_scale,
     exact_repeats,
     integer_frames,
     make_tracks,
@@ -173,12 +173,15 @@ def read_wide(
     check_frame_span(n_frames, len(frames), extra["first_frame"], info.path, timing_column)
     coords = np.full((n_frames, len(animals), len(kp_names), n_dims), np.nan)
     conf = np.full(coords.shape[:3], np.nan)
-    for (a, k, axis), column in found.items():
-        if a not in animals or k not in kp_names:
-            continue
+    used = {key: c for key, c in found.items() if key[0] in animals and key[1] in kp_names}
+    values.update(
+        confidence_on_unit_scale(
+            {c: values[c] for (_, _, axis), c in used.items() if axis == confidence_axis}, info
+        )
+    )
+    for (a, k, axis), column in used.items():
         i, j = animals.index(a), kp_names.index(k)
         if axis == confidence_axis:
-            check_confidence(values[column], column, info)
             conf[frames, i, j] = values[column]
         elif axes.index(axis) < n_dims:
             coords[frames, i, j, axes.index(axis)] = values[column]
