@@ -479,8 +479,10 @@ def test_a_study_whose_tracker_writes_percent_gives_the_labels_of_the_unit_scale
         table["confidence"] *= 100
         table.to_csv(tmp_path / "percent" / f"s{seed}.csv", index=False)
     options = {"fps": 25, "states": 3, "progress": False, "stability": False}
-    with pytest.warns(InputWarning, match=r"s1.csv: confidence written from 0 to 100 is read"):
+    with pytest.warns(InputWarning) as said:
         discover(sorted((tmp_path / "percent").glob("*.csv")), tmp_path / "p", **options)
+    percent = sorted(str(w.message) for w in said if "from 0 to 100 is read" in str(w.message))
+    assert [text.split(":")[0] for text in percent] == ["s1.csv", "s2.csv"]
     discover(sorted((tmp_path / "unit").glob("*.csv")), tmp_path / "u", **options)
     labels = [pd.read_csv(tmp_path / w / "labels.csv") for w in ("p", "u")]
     pd.testing.assert_frame_equal(labels[0], labels[1])
