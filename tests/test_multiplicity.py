@@ -90,7 +90,7 @@ def test_families_planned_set_and_untestable_rows():
         ("transition", "rest->dig"): ([0.0] * 8, [0.0] * 8),  # never seen: no variation
         ("transition", "walk->dig"): (rng.uniform(0, 1, 8), rng.uniform(0, 1, 8)),
     }
-    out = compare_groups(_table(values), n_bootstrap=200, planned="time_budget:dig,bout_rate:dig")
+    out = compare_groups(_table(values), planned="time_budget:dig,bout_rate:dig")
     assert out["analysis"].tolist()[:2] == ["planned", "planned"]
     planned = out[out["analysis"] == "planned"]
     # statsmodels multipletests: Holm over the planned set alone
@@ -119,7 +119,7 @@ def test_families_planned_set_and_untestable_rows():
     text = headline(out, 0.05)
     assert text.startswith("Planned (confirmatory, Holm over 2 tests): time_budget of 'dig'")
     assert "transitions 0 of 1, 1 not testable" in text
-    without = compare_groups(_table(values), n_bootstrap=200)
+    without = compare_groups(_table(values))
     assert (without["analysis"] == "exploratory").all()
     assert headline(without, 0.05).startswith("No planned comparisons were given")
 

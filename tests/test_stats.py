@@ -3,7 +3,8 @@
 References: Benjamini & Hochberg (1995) and statsmodels ``multipletests``; Efron & Tibshirani
 (1993) mouse data and ``scipy.stats.permutation_test``; ``scipy.stats.mannwhitneyu`` /
 ``kruskal`` / ``wilcoxon`` / ``bootstrap``; Borenstein et al. (2009) and statsmodels
-``effectsize_smd`` for Hedges' g. The recovery test uses invented label tables (seeded).
+``effectsize_smd`` for Hedges' g; scipy's noncentral t and statsmodels'
+``confint_noncentrality`` for its interval. The recovery test uses invented label tables (seeded).
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from scipy import optimize
 from scipy import stats as sps
 from statsmodels.stats.meta_analysis import effectsize_smd
 from statsmodels.stats.multitest import multipletests
@@ -143,6 +145,94 @@ def test_hedges_g_textbook_example_statsmodels_and_direct_formula():
     j3 = math.gamma(1.5) / (math.sqrt(1.5) * math.gamma(1.0))
     paired = hedges_g(d + 1.0, np.ones(4), paired=True)
     assert paired == pytest.approx(j3 * d.mean() / d.std(ddof=1))
+
+
+def test_hedges_g_interval_inverts_the_noncentral_t_and_matches_statsmodels():
+    from statsmodels.stats.oneway import confint_noncentrality
+
+    from ethoscribe.stats import hedges_g_interval
+
+    rng = np.random.default_rng(3)
+    a, b = rng.normal(1.0, 1.0, 7), rng.normal(0.0, 1.0, 9)
+    low, high = hedges_g_interval(a, b)
+    df, scale = 14, np.sqrt(1 / 7 + 1 / 9)
+    j = math.gamma(df / 2) / (math.sqrt(df / 2) * math.gamma((df - 1) / 2))
+    t = sps.ttest_ind(a, b).statistic  # scipy's pooled two-sample t
+    # scipy's noncentral t: the observed t is the 97.5 % / 2.5 % quantile at the bounds
+    assert sps.nct.cdf(t, df, low / j / scale) == pytest.approx(0.975, abs=1e-7)
+    assert sps.nct.cdf(t, df, high / j / scale) == pytest.approx(0.025, abs=1e-7)
+    assert low < hedges_g(a, b) < high
+    # the noncentral F of t^2 on (1, df) gives the same bounds where the interval is far from
+    # 0 (P(T < -t) is then negligible): scipy's ncf inverted directly, and statsmodels'
+    # confint_noncentrality (within its solver's tolerance, ~3e-4 here)
+    big = b - 4.0
+    low, high = hedges_g_interval(a, big)
+    t = sps.ttest_ind(a, big).statistic
+    for bound, p in ((low, 0.975), (high, 0.025)):
+        nc = optimize.brentq(lambda v, p=p: sps.ncf.cdf(t**2, 1, df, v) - p, 1e-6, 1e3, xtol=1e-12)
+        assert bound == pytest.approx(np.sqrt(nc) * j * scale, rel=1e-8)
+    nc = confint_noncentrality(t**2, (1, df), alpha=0.05)
+    np.testing.assert_allclose(np.sqrt(nc) * j * scale, [low, high], rtol=1e-3)
+    # paired: the one-sample t of the differences on n - 1
+    d = rng.normal(0.8, 1.0, 8)
+    low, high = hedges_g_interval(d + 1.0, np.ones(8), paired=True)
+    j7 = math.gamma(3.5) / (math.sqrt(3.5) * math.gamma(3.0))
+    t = sps.ttest_1samp(d, 0.0).statistic
+    assert sps.nct.cdf(t, 7, low / j7 * np.sqrt(8)) == pytest.approx(0.975, abs=1e-7)
+    assert sps.nct.cdf(t, 7, high / j7 * np.sqrt(8)) == pytest.approx(0.025, abs=1e-7)
+
+
+def test_hedges_g_interval_stays_finite_with_three_sessions_per_group():
+    # Three sessions per group with near-equal values: a percentile bootstrap gave bounds of
+    # 1e15 (resamples repeating one value); the noncentral-t interval is wide and finite, and
+    # holds the estimate (common practice: an interval that excludes its own estimate is wrong).
+    from ethoscribe.stats import hedges_g_interval
+
+    for a, b in [([0.21, 0.22, 0.215], [0.35, 0.36, 0.33]), ([1.0, 1.1, 1.2], [5.0, 5.05, 5.2])]:
+        low, high = hedges_g_interval(a, b)
+        assert np.isfinite([low, high]).all() and low < hedges_g(a, b) < high < 0
+    assert np.isnan(hedges_g_interval([1.0, 1.0], [2.0, 2.0])).all()  # no spread: undefined
+
+
+def test_the_animals_of_a_session_are_one_unit_of_analysis():
+    # Two animals per session, two sessions per group: the animals are averaged per session
+    # and the test is the exact permutation test of the four session means (reference:
+    # scipy.stats.permutation_test; its smallest two-sided p with 2 against 2 is 1/3).
+    rng = np.random.default_rng(5)
+    rows = []
+    for g, shift in (("a", 0.0), ("b", 1.0)):
+        for s in range(2):
+            for animal in ("m1", "m2"):
+                rows.append({"session": f"{g}{s}", "animal": animal, "group": g,
+                             "subject": f"{g}{s}", "metric": "time_budget", "motif": "dig",
+                             "value": shift + rng.normal(0.0, 0.1)})  # fmt: skip
+    metrics = pd.DataFrame(rows)
+    out = compare_groups(metrics).iloc[0]
+    means = metrics.groupby(["group", "session"])["value"].mean()
+    assert (out.n_a, out.n_b) == (2, 2)
+    assert out.mean_a == pytest.approx(means["a"].mean())
+    ref = sps.permutation_test(
+        (means["a"].to_numpy(), means["b"].to_numpy()),
+        lambda x, y: x.mean() - y.mean(), permutation_type="independent",
+    )  # fmt: skip
+    assert out.p_value == pytest.approx(ref.pvalue) and out.p_value == pytest.approx(1 / 3)
+    assert out.effect_size == pytest.approx(hedges_g(means["a"], means["b"]))
+    (said,) = compare_groups(metrics).attrs["warnings"][:1]
+    assert said.startswith("The 8 recordings (sessions x animals) are 4 sessions: each")
+    shared = metrics.assign(subject=metrics["session"].str[0] + "cage" + metrics["session"])
+    assert (
+        compare_groups(shared)
+        .attrs["warnings"][0]
+        .startswith("The 8 recordings (sessions x animals) are 4 subjects")
+    )
+    # a subject given to both sessions of a group (one animal filmed twice): one value each
+    twice = metrics.assign(subject=metrics["group"])
+    with pytest.raises(InputError, match="single subject"):
+        compare_groups(twice)
+    # animals as their own subjects (separate arenas filmed together): 4 against 4
+    apart = metrics.assign(subject=metrics["session"] + metrics["animal"])
+    out = compare_groups(apart)
+    assert (out.iloc[0].n_a, out.iloc[0].n_b) == (4, 4) and out.attrs["warnings"] == []
 
 
 def test_cliffs_delta_definition_and_mann_whitney_relation():
@@ -276,8 +366,10 @@ def test_small_groups_get_a_note_and_bad_designs_clear_errors():
     assert len(out.attrs["warnings"]) == 1 and "cannot reach" in out.attrs["warnings"][0]
     with pytest.raises(InputError, match=r"missing column\(s\) \['group'\].*it has"):
         compare_groups(long_metrics({"a": [1, 2], "b": [3, 4]}).drop(columns="group"))
-    with pytest.raises(InputError, match="single session"):
+    with pytest.raises(InputError, match="single subject"):
         compare_groups(long_metrics({"a": [1.0], "b": [3.0, 4.0]}))
+    with pytest.raises(InputError, match="single session"):  # no subject column: sessions
+        compare_groups(long_metrics({"a": [1.0], "b": [3.0, 4.0]}).drop(columns="subject"))
     with pytest.raises(InputError, match="need >= 2"):
         compare_groups(long_metrics({"a": [1.0, 2.0]}))
     with pytest.raises(InputError, match="'permutation' or 'rank'"):
@@ -365,7 +457,7 @@ def test_session_metrics_long_table():
     )
     with pytest.raises(InputError, match="not in the sessions table"):
         session_metrics(labels, bout_table(labels), sessions.iloc[1:])
-    fig = group_difference_figure(compare_groups(metrics, n_bootstrap=100))
+    fig = group_difference_figure(compare_groups(metrics))
     assert len(fig.data) == 2
 
 
@@ -376,7 +468,7 @@ def test_recovery_of_a_planted_time_budget_shift_over_seeds():
         labels, sessions = simulate_groups(seed)
         metrics = session_metrics(labels, bout_table(labels), sessions)
         budget = metrics[metrics["metric"] == "time_budget"]
-        out = compare_groups(budget, n_bootstrap=300).set_index("motif")
+        out = compare_groups(budget).set_index("motif")
         found += bool(out.loc["motif_01", "q_value"] < 0.05)
         false += int(out.drop("motif_01")["significant"].sum())
         others += len(out) - 1

@@ -389,7 +389,7 @@ def build_parser() -> argparse.ArgumentParser:
         "every other test is exploratory (Benjamini-Hochberg within each family of metrics)",
     )
     c.add_argument(
-        "--seed", type=int, default=0, help="random seed of permutations and bootstraps (default 0)"
+        "--seed", type=int, default=0, help="random seed of the permutations (default 0)"
     )
 
     _add_expert_commands(sub)

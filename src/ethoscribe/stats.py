@@ -2,7 +2,9 @@
 
 ``session_metrics`` turns labels and bouts into one long table (one value per recording, metric
 and motif); ``compare_groups`` tests every metric x motif between every pair of groups with a
-permutation or rank test, with effect sizes and bootstrap intervals. Planned comparisons are
+permutation or rank test, with effect sizes and their intervals, on one value per subject (the
+session where no subject is given: the animals of one session are not independent). Planned
+comparisons are
 Holm-corrected together; every other test is exploratory and Benjamini-Hochberg-corrected within
 its family of measurements (:mod:`ethoscribe.multiplicity`). The tests and effect sizes themselves
 live in :mod:`ethoscribe.effects` (re-exported here), which also explains when permutation tests
@@ -27,6 +29,7 @@ from ethoscribe.effects import (
     cliffs_delta,
     cliffs_delta_rows,
     hedges_g,
+    hedges_g_interval,
     hedges_g_rows,
     holm,
     permutation_omnibus,
@@ -53,6 +56,7 @@ __all__ = [
     "cliffs_delta",
     "compare_groups",
     "hedges_g",
+    "hedges_g_interval",
     "holm",
     "parse_planned",
     "permutation_omnibus",
@@ -126,7 +130,7 @@ def session_metrics(
     return out[list(METRIC_COLUMNS)]
 
 
-def _pair(x, y, paired, test, n_resamples, n_bootstrap, exact_threshold, seed) -> dict:
+def _pair(x, y, paired, test, n_resamples, exact_threshold, seed) -> dict:
     """Statistics of one comparison; ``x``, ``y`` finite (matched when paired)."""
     row = {
         "n_a": len(x),
@@ -143,7 +147,7 @@ def _pair(x, y, paired, test, n_resamples, n_bootstrap, exact_threshold, seed) -
         hedges_g_rows(x[None], y[None], paired)[0],
         cliffs_delta_rows(x[None], y[None], paired)[0],
     )
-    low, high = bootstrap_ci(x, y, "hedges_g", n_bootstrap, paired=paired, random_state=seed)
+    low, high = hedges_g_interval(x, y, paired)
     row.update(effect_size=g, cliffs_delta=delta, ci_low=low, ci_high=high, note="")
     if np.ptp(np.r_[x, y]) == 0 or (paired and not np.any(x - y)):
         return {**row, "p_value": np.nan, "test": test, "note": NOT_TESTABLE + "no variation"}
@@ -155,6 +159,30 @@ def _pair(x, y, paired, test, n_resamples, n_bootstrap, exact_threshold, seed) -
     kind = "exact" if res.method == "exact" else f"monte-carlo {res.n_resamples}"
     row["floor"] = res.min_p_value
     return {**row, "p_value": res.p_value, "test": f"{'paired ' * paired}permutation {kind}"}
+
+
+def _per_unit(table: pd.DataFrame, unit: str, by: str) -> tuple[pd.DataFrame, str]:
+    """One value per unit, group, metric and motif (the mean of the unit's recordings), and
+    what was averaged ("" where every unit has one recording)."""
+    if unit not in table.columns:
+        return table, ""
+    keys = [unit, by, "metric", "motif"]
+    if not table.duplicated(keys).any():
+        return table, ""
+    recordings = [c for c in ("session", "animal") if c in table.columns]
+    n_rec = len(table.drop_duplicates(recordings)) if recordings else len(table)
+    n_units = table[[unit, by]].drop_duplicates().shape[0]
+    same = "session" in table.columns and table[unit].equals(table["session"])
+    noun = "session" if same else unit  # no subjects given: the session is the unit
+    # NaN (no bout of the motif) is left out of a unit's mean, as of a test
+    table = table.groupby(keys, sort=False, as_index=False)["value"].mean()
+    what = "recordings (sessions x animals)" if len(recordings) == 2 else "recordings"
+    note = (
+        f"The {n_rec} {what} are {n_units} {noun}s: each {noun}'s values are averaged and "
+        "tested once, as the animals of one session (or the sessions of one subject) are not "
+        "independent"
+    )
+    return table, note
 
 
 def _omnibus(samples: list[np.ndarray], paired: bool, test: str, n_resamples: int, seed) -> float:
@@ -185,7 +213,6 @@ def compare_groups(
     subject_column: str = "subject",
     alpha: float = 0.05,
     n_resamples: int = 10_000,
-    n_bootstrap: int = 2000,
     exact_threshold: int = EXACT_THRESHOLD,
     reference: str | None = None,
     random_state: int = 0,
@@ -197,7 +224,11 @@ def compare_groups(
     ----------
     metrics : DataFrame
         Long table as from :func:`session_metrics` (``metric, motif, value``, ``by``; one row per
-        recording; NaN values are left out test by test).
+        recording; NaN values are left out test by test). The unit of analysis is the
+        subject (``subject_column``; without it, the session): rows of one subject in one
+        group, the animals of a session or the sessions of one animal, are averaged before
+        testing, since they are not independent (a test on the animals of two-animal sessions
+        would count each session twice); ``attrs["warnings"]`` says so where it happens.
     by : str
         Column naming the group (or, when paired, the condition).
     test : {"permutation", "rank"}
@@ -207,6 +238,8 @@ def compare_groups(
     paired : bool
         Subjects measured under several conditions: values are matched on ``subject_column``;
         subjects missing a condition are left out of that comparison.
+    subject_column : str
+        Column naming the subject, the unit of analysis (see ``metrics``).
     alpha : float
         Level for ``significant`` (``q_value < alpha``).
     reference : str, optional
@@ -222,11 +255,12 @@ def compare_groups(
         ``COMPARISON_COLUMNS`` (+ ``omnibus_p, omnibus_test`` for > 2 groups, unadjusted) and
         ``note``; planned rows first, then the families (time budget, bout rate, bout duration,
         transitions). Effects are ``a`` minus ``b``: Hedges' g (paired: of the differences)
-        with its percentile bootstrap interval, and Cliff's delta. ``q_value`` is the adjusted
-        p-value named in ``correction``: Holm over the planned tests, Benjamini-Hochberg within
-        the family for the exploratory ones. Tests without variation are ``testable=False``
-        with NaN p and are not counted. ``attrs["warnings"]`` lists design problems, such as
-        groups too small for any test to reach ``alpha``; ``attrs["alpha"]`` the level.
+        with its noncentral-t interval (:func:`hedges_g_interval`), and Cliff's delta.
+        ``q_value`` is the adjusted p-value named in ``correction``: Holm over the planned
+        tests, Benjamini-Hochberg within the family for the exploratory ones. Tests without
+        variation are ``testable=False`` with NaN p and are not counted. ``attrs["warnings"]``
+        lists design problems, such as groups too small for any test to reach ``alpha``, and
+        recordings averaged into their subject; ``attrs["alpha"]`` the level.
         :func:`~ethoscribe.multiplicity.family_summary` counts the tests per family.
     """
     need = ["metric", "motif", "value", by] + ([subject_column] if paired else [])
@@ -237,14 +271,15 @@ def compare_groups(
     groups = sorted(table[by].unique())
     if len(groups) < 2:
         raise InputError(f"column {by!r} holds {len(groups)} group(s) {groups}; need >= 2")
-    unit = subject_column if paired else "session"
+    unit = subject_column if subject_column in table.columns else "session"
+    table, averaged = _per_unit(table, unit, by)
     if unit in table.columns:
         sizes = table.groupby(by)[unit].nunique()
     else:  # no session column: the largest number of values any test has per group
         sizes = table.groupby([by, "metric", "motif"]).size().groupby(level=0).max()
     small = sizes[sizes < 2]
     if len(small):
-        what = "subject" if paired else "session"
+        what = unit
         msg = f"group(s) {small.index.tolist()} have a single {what}; each group needs >= 2 "
         raise InputError(msg + f"(sizes: {sizes.to_dict()})")
     pairs = _pairs(groups, reference)
@@ -272,9 +307,7 @@ def compare_groups(
                 x, y = both[ga].to_numpy(np.float64), both[gb].to_numpy(np.float64)
             else:
                 x, y = values[ga], values[gb]
-            stats = _pair(
-                x, y, paired, test, n_resamples, n_bootstrap, exact_threshold, [random_state, t, j]
-            )
+            stats = _pair(x, y, paired, test, n_resamples, exact_threshold, [random_state, t, j])
             rows.append(
                 {"metric": metric, "motif": motif, "group_a": ga, "group_b": gb, **stats, **extra}
             )
@@ -285,7 +318,7 @@ def compare_groups(
         _family=out["family"].map(family_rank).fillna(len(family_rank)),
     ).sort_values(["_first", "_family", "metric", "motif"], kind="stable")
     out = out.drop(columns=["_first", "_family"]).reset_index(drop=True)
-    warnings = []
+    warnings = [averaged] if averaged else []
     blocked = out["floor"] > alpha
     if blocked.any():
         note = "too few values: the smallest reachable p exceeds alpha"

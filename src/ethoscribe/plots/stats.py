@@ -1,4 +1,4 @@
-"""Figure of group differences: effect sizes with bootstrap intervals, q-values marked.
+"""Figure of group differences: effect sizes with their intervals, q-values marked.
 
 Takes the table of ``ethoscribe.stats.compare_groups``; holds no science.
 """
@@ -62,7 +62,7 @@ def group_difference_figure(
         raise InputError(msg)
     table = group_stats if metrics is None else group_stats[group_stats["metric"].isin(metrics)]
     table = table[np.isfinite(table["effect_size"].to_numpy(np.float64))]
-    title = "Hedges' g (a - b) with 95% bootstrap intervals; filled: adjusted p < alpha"
+    title = "Hedges' g (a - b) with 95% noncentral-t intervals; filled: adjusted p < alpha"
     if max_rows is not None and len(table) > max_rows:
         title += f"<br><sup>{max_rows} smallest adjusted p shown, {len(table) - max_rows} more in "
         title += "group_stats.csv</sup>"

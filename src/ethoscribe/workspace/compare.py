@@ -45,7 +45,7 @@ from ethoscribe.workspace.report_sections import (
 )
 
 ALPHA = 0.05
-N_BOOTSTRAP = 2000
+EFFECT_INTERVAL = "Hedges' g, 95% noncentral-t interval"
 TESTS = ("permutation", "rank")
 METADATA_FILE = "metadata.json"
 MULTIPLE_TESTING = (
@@ -82,7 +82,7 @@ def compare(
     test : {"permutation", "rank"}
         See :func:`ethoscribe.stats.compare_groups`.
     paired, seed, n_resamples
-        Paired design; random seed of permutations and bootstraps; Monte Carlo resamples when
+        Paired design; random seed of permutations; Monte Carlo resamples when
         an exact permutation test would need more than 50 000 arrangements.
     planned : str or list, optional
         The comparisons the study planned, e.g. ``"time_budget:digging,bout_rate:digging"``
@@ -123,7 +123,7 @@ def compare(
     tested = metrics[~set_aside]
     stats = compare_groups(
         tested, by="group", test=test, paired=paired, alpha=ALPHA, n_resamples=n_resamples,
-        n_bootstrap=N_BOOTSTRAP, random_state=seed, planned=planned,
+        random_state=seed, planned=planned,
     )  # fmt: skip
     groups = dict(zip(design["session"], design["group"], strict=True))
     budgets = time_budget(labels)
@@ -136,7 +136,8 @@ def compare(
     }
     options = {
         "by": by, "test": test, "paired": paired, "seed": seed, "n_resamples": n_resamples,
-        "n_bootstrap": N_BOOTSTRAP, "alpha": ALPHA, "exact_threshold": EXACT_THRESHOLD,
+        "effect_interval": EFFECT_INTERVAL, "alpha": ALPHA, "exact_threshold": EXACT_THRESHOLD,
+        "unit_of_analysis": "subject (the session where none is given)",
         "manifest": None if manifest is None else str(Path(manifest).resolve()),
         "planned": [f"{m}:{t}" for m, t in planned],
         "multiple_testing": MULTIPLE_TESTING,
@@ -280,7 +281,7 @@ def _design(
     empty = design.loc[design["group"] == "", "session"].tolist()
     design = design[design["group"] != ""].reset_index(drop=True)
     design.attrs["left_out"] = sorted(empty)
-    unit = "subject" if paired else "session"
+    unit = "subject" if "subject" in table else "session"  # the unit of analysis
     sizes = design.groupby("group")[unit].nunique()
     if len(sizes) < 2:
         shown = listed(map(repr, sizes.index), 10)

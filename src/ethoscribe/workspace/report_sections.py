@@ -390,7 +390,10 @@ def group_section(
         "with Benjamini-Hochberg (1995) within its family of measurements (time budget, bout "
         "rate, bout duration, transitions), it is a reason to look at the bouts, not a finding. "
         "Tests whose values do not vary are listed as not testable and are not counted. Effects "
-        "are group a minus group b: Hedges' g with a 95% percentile bootstrap interval."
+        "are group a minus group b: Hedges' g with its 95% interval from the noncentral t "
+        "distribution (exact for normal values; with a few sessions per group it is wide, as "
+        "it should be). Each subject (the session where none is given) is one value: the "
+        "animals of one session are averaged, as they are not independent."
     )
     warnings = stats.attrs.get("warnings") or []
     if warnings:
