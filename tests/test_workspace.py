@@ -631,3 +631,25 @@ def test_a_keypoint_never_tracked_is_left_out_and_said(study, tmp_path):
     from ethoscribe.workspace.report_sections import quality_section
 
     assert "Left out of the model, never tracked: tail_base." in quality_section(ws).text
+
+
+def test_a_motif_that_labels_no_frame_is_said_beside_the_count(workspace, tmp_path):
+    # A state whose every bout is shorter than the minimum bout keeps no frame after the merge
+    # (an invented user's study had 7 motifs, one with no row in any table): here state 3's
+    # frames are given to state 0 in a copy of the workspace, as the merge would.
+    import shutil
+
+    copy = Workspace(shutil.copytree(workspace.path, tmp_path / "copy"))
+    labels = pd.read_parquet(copy.path / "labels.parquet")
+    assert "labels no frame" not in copy.describe()
+    labels["state"] = labels["state"].replace(3, 0)
+    labels.to_parquet(copy.path / "labels.parquet", index=False)
+    shares = copy.labelled_shares()
+    expected = labels.loc[labels["state"] >= 0, "state"].value_counts(normalize=True)
+    pd.testing.assert_series_equal(
+        shares[shares > 0], expected.sort_index(), check_names=False, check_index_type=False
+    )
+    assert shares[3] == 0 and len(shares) == 4
+    assert "4 motifs ('motif_04' labels no frame: bouts shorter than the minimum bout (0.5 s)" in (
+        copy.describe()
+    )

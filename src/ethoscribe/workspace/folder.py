@@ -343,6 +343,20 @@ class Workspace:
             msg = f"{path}: cannot be read ({exc}); the workspace is damaged: run discover again"
             raise WorkspaceError(msg) from None
 
+    def labelled_shares(self) -> pd.Series:
+        """Share of the labelled frames each fitted state labels (index: every state of the
+        model, 0 for a state that labels no frame: the model visits it only in bouts shorter
+        than the minimum bout, which are merged into their neighbours, or not at all)."""
+        path = self.path / "labels.parquet"
+        try:
+            states = pd.read_parquet(path, columns=["state"])["state"].to_numpy()
+        except (OSError, ValueError, KeyError, pa.ArrowException) as exc:
+            msg = f"{path}: cannot be read ({exc}); the workspace is damaged: run discover again"
+            raise WorkspaceError(msg) from None
+        states = states[states >= 0]
+        counts = np.bincount(states.astype(np.int64), minlength=self.summary["n_states"])
+        return pd.Series(counts / max(len(states), 1), name="labelled_share").rename_axis("state")
+
     def journal(self) -> list[dict[str, Any]]:
         records, _ = read_journal(self.path / JOURNAL_FILE)
         return records
@@ -450,14 +464,17 @@ class Workspace:
         note = f" {len(skipped)} journal line(s) skipped: {'; '.join(skipped)}." if skipped else ""
         # Motifs as curated (merges count once), not the fitted states; skipped journal
         # lines are said in the note, not warned again
+        names: dict[int, str] = {}
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", JournalWarning)
-                n_motifs = len(self.curation().motifs)
+                cur = self.curation()
+            n_motifs, names = len(cur.motifs), cur.names
         except WorkspaceError:
             n_motifs = s["n_states"]
         source = s.get("labelled_with")
         labelled = f", labelled with the model of {source}" if source else ""
+        labelled += _without_frames(self, names)
         learned = self.path / LEARNED_FOLDER / "evaluation.json"
         if learned.is_file():  # the tables name the expert's behaviours, not the motifs
             n = len(read_json(learned).get("behaviours") or [])
@@ -599,3 +616,24 @@ class Workspace:
 
 
 EDITS = {"rename", "merge", "split", "unassign", "undo", "redo"}
+
+
+def _without_frames(ws: Workspace, names: dict[int, str]) -> str:
+    """The motifs that label no frame, said beside the count (a model's state whose every bout
+    is shorter than the minimum bout keeps no frame after the merge); ``names``: the curated
+    motif of each state."""
+    try:
+        shares = ws.labelled_shares()
+    except (WorkspaceError, OSError):
+        return ""
+    empty = [str(names.get(int(k), k)) for k, v in shares.items() if v == 0]
+    labelled = {str(names.get(int(k), k)) for k, v in shares.items() if v > 0}
+    empty = sorted(set(empty) - labelled)  # a merged motif with frames from another state
+    if not empty:
+        return ""
+    bout = (ws.summary.get("parameters") or {}).get("min_bout_s")
+    why = f"shorter than the minimum bout ({bout:g} s)" if bout else "too short"
+    return (
+        f" ({listed(map(repr, empty))} {'labels' if len(empty) == 1 else 'label'} no frame: "
+        f"bouts {why} are merged into their neighbours)"
+    )

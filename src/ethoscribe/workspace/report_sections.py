@@ -261,14 +261,27 @@ def model_section(ws: Workspace) -> Section:
         per_state = reproducibility_grades(pd.read_csv(path))
         figures.append(stability_figure(SimpleNamespace(table=per_state, summary=stability), names))
         per_state.insert(0, "motif", state_labels(per_state["state"], names))
+        shares = ws.labelled_shares()
+        per_state.insert(2, "labelled_share", per_state["state"].map(shares).round(4))
         low = per_state.loc[per_state["grade"] == "low", "motif"].tolist()
+        empty = per_state.loc[per_state["labelled_share"] == 0, "motif"].tolist()
         text += (
             f" Reproducibility per motif is graded on the weaker of two Jaccard agreements, "
             f"with a full refit under another seed and between full fits of two halves of the "
             f"sessions: high from {HIGH_AGREEMENT}, moderate from {LOW_AGREEMENT}, low below. "
-            + (f"Low, look at these before naming them: {', '.join(low)}." if low else "")
+            + (f"Low, look at these before naming them: {', '.join(low)}. " if low else "")
+            + "Occupancy is the share of training frames the model's own decoding gives the "
+            "motif; the labelled share is what the labels give it, after bouts shorter than the "
+            "minimum bout are merged into their neighbours."
+            + (
+                f" No frame is labelled {', '.join(empty)}: every bout of it is shorter than "
+                "the minimum bout."
+                if empty
+                else ""
+            )
         )
-        keep = ["motif", "occupancy", "jaccard_seeds_mean", "jaccard_halves", "grade", "flag"]
+        keep = ["motif", "occupancy", "labelled_share", "jaccard_seeds_mean", "jaccard_halves"]
+        keep += ["grade", "flag"]
         tables.append(("Reproducibility per motif", per_state[[c for c in keep if c in per_state]]))
     elif stability and stability.get("skipped"):
         text += f" No stability check was made: {stability['skipped']}."
