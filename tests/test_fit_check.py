@@ -190,10 +190,33 @@ def test_many_poorly_explained_sessions_are_said_in_one_line(fitted):
     shares = [{"session": f"clip{i}", "share": i / 100} for i in range(40)]  # 29 above 10 %
     lines = poor_fit_messages(shares, fitted)
     assert len(lines) == 1 and lines[0].startswith("29 of 40 sessions are explained far worse")
-    assert "'clip39' (39%), 'clip38' (38%), 'clip37' (37%)" in lines[0]  # the worst named
+    worst = "'clip39' (39% of frames poorly explained), 'clip38' (38% of frames poorly"
+    assert worst in lines[0]  # the worst named, with the test that flagged them
+    # sessions flagged by their offset name it, not a share under the limit (an invented
+    # user's resampled sessions read "e.g. 'x' (4%)" under "over 10 %")
+    offsets = [{"session": f"fast{i}", "share": 0.02, "offset_distance": 100.0 * i,
+                "offset_limit": 46.0} for i in range(1, 6)]  # fmt: skip
+    (line,) = poor_fit_messages(offsets, fitted)
+    assert "e.g. 'fast5' (offset 500, limit 46), 'fast4' (offset 400, limit 46)" in line
+    assert "resampled to the model's rate" in line
     few = poor_fit_messages(shares[: 11 + POOR_FIT_LINES], fitted)  # 3 above: a line each
     assert [t.split(":")[0] for t in few] == [
         "session 'clip11'",
         "session 'clip12'",
         "session 'clip13'",
     ]
+
+
+def test_the_report_table_says_which_test_flagged_a_session():
+    from ethoscribe.workspace.report_sections import _fit_to_model_table
+
+    fit = {"checked": True, "warn_above": 0.1, "flagged": ["far", "unlike"], "sessions": [
+        {"session": "same", "share": 0.012, "offset_distance": 3.0, "offset_limit": 46.0},
+        {"session": "far", "share": 0.02, "offset_distance": 700.0, "offset_limit": 46.0},
+        {"session": "unlike", "share": 0.4, "offset_distance": 5.0, "offset_limit": 46.0},
+    ]}  # fmt: skip
+    table = _fit_to_model_table(fit).set_index("session")
+    assert table.loc["same", "why"] == "" and not table.loc["same", "flagged"]
+    assert table.loc["far", "why"] == "feature levels offset from the training animals' (700 > 46)"
+    assert table.loc["unlike", "why"] == "more than 10% of frames poorly explained"
+    assert table.loc["far", "% poorly explained"] == 2.0

@@ -1610,20 +1610,40 @@ def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel
     flagged = poorly_fitted(shares)
     if len(flagged) <= POOR_FIT_LINES:
         return [_poor_fit_line(r) for r in flagged]
-    worst = sorted(flagged, key=lambda r: -(r.get("share") or 0.0))[:POOR_FIT_LINES]
-    named = ", ".join(f"'{r['session']}' ({r.get('share') or 0.0:.0%})" for r in worst)
+    worst = sorted(flagged, key=_poor_fit_rank, reverse=True)[:POOR_FIT_LINES]
+    named = ", ".join(f"'{r['session']}' ({_poor_fit_reason(r)})" for r in worst)
     return [
         f"{len(flagged)} of {len(shares)} sessions are explained far worse than the training "
         f"frames (over {POOR_FIT_WARN_SHARE:.0%} of their frames below the worst 1 % of the "
         f"training frames, about 1 % expected, or feature levels offset far beyond the training "
-        f"individuals'), e.g. {named}; every session's share: BehaviourModel.fit_shares, or "
-        f"a labelling run's summary.json ('fit_to_model') and report. {_POOR_FIT_ADVICE}"
+        f"individuals'), e.g. {named}; every session's share and offset: "
+        f"BehaviourModel.fit_shares, or a labelling run's summary.json ('fit_to_model') and "
+        f"report. {_POOR_FIT_ADVICE}"
     ]
+
+
+def _poor_fit_reason(r: Mapping[str, Any]) -> str:
+    """Which test flagged a session, in a few words (``fit_shares`` record)."""
+    share = r.get("share")
+    if share is not None and share > POOR_FIT_WARN_SHARE:
+        return f"{share:.0%} of frames poorly explained"
+    return f"offset {r['offset_distance']:.0f}, limit {r['offset_limit']:.0f}"
+
+
+def _poor_fit_rank(r: Mapping[str, Any]) -> tuple[float, float]:
+    """Shares over the limit first (most poorly explained first), then offsets by their
+    distance over the limit."""
+    share = r.get("share") or 0.0
+    if share > POOR_FIT_WARN_SHARE:
+        return (1.0, share)
+    return (0.0, (r.get("offset_distance") or 0.0) / (r.get("offset_limit") or 1.0))
 
 
 _POOR_FIT_ADVICE = (
     "Look at the bouts of such sessions before trusting their labels; likely the body size "
     "or camera scale differs from training (check units and px_per_unit in the manifest), "
+    "keypoints are missing, the frame rate differs (a session filmed faster and resampled to "
+    "the model's rate is smoother than one filmed at it: its levels of jitter are offset), "
     "the sessions are too short for the features' windows, or the behaviour is new: refit "
     "with these sessions included (ethoscribe discover), or in Python fit with "
     "features={'scale_by_size': True}"

@@ -242,7 +242,9 @@ def model_section(ws: Workspace) -> Section:
         text += (
             " How well the model explains each session: the share of its frames less likely "
             "than the worst 1 % of the training frames (about 1 % for animals like the "
-            f"training ones; above {fit.attrs['warn_above']:.0%} they differ, see the table)."
+            f"training ones; above {fit.attrs['warn_above']:.0%} they differ), and how far its "
+            "feature levels lie from the training animals' (a session can be flagged for "
+            "either; the table says which)."
         )
         tables.append(("Sessions explained by the model (% of frames poorly explained)", fit))
     choice = summary.get("state_count_choice")
@@ -293,7 +295,8 @@ def model_section(ws: Workspace) -> Section:
 
 
 def _fit_to_model_table(fit: Any) -> pd.DataFrame | None:
-    """``session, % poorly explained, flagged`` from summary.json's ``fit_to_model``."""
+    """``session, % poorly explained, flagged, why`` from summary.json's ``fit_to_model``
+    (``why``: which of the two tests flagged it, the share or the offset)."""
     if not isinstance(fit, dict) or not fit.get("checked") or not fit.get("sessions"):
         return None
     rows = pd.DataFrame(fit["sessions"])
@@ -305,7 +308,20 @@ def _fit_to_model_table(fit: Any) -> pd.DataFrame | None:
             "flagged": rows["session"].astype(str).isin(flagged),
         }
     )
-    table.attrs["warn_above"] = float(fit.get("warn_above", 0.1))
+    warn_above = float(fit.get("warn_above", 0.1))
+    why = []
+    for r, is_flagged in zip(fit["sessions"], table["flagged"], strict=True):
+        share, d2, limit = r.get("share"), r.get("offset_distance"), r.get("offset_limit")
+        if not is_flagged:
+            why.append("")
+        elif share is not None and share > warn_above:
+            why.append(f"more than {warn_above:.0%} of frames poorly explained")
+        elif d2 is not None and limit is not None:
+            why.append(f"feature levels offset from the training animals' ({d2:.0f} > {limit:.0f})")
+        else:
+            why.append("")
+    table["why"] = why
+    table.attrs["warn_above"] = warn_above
     return table
 
 
