@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -173,6 +175,40 @@ def test_confidence_in_percent_is_read_on_one_scale_for_every_keypoint(tmp_path)
         t = read_wide(_save(df, tmp_path), fps=30)
     expected = df[[f"{k}_confidence" for k in ("nose", "left_ear", "tail_base")]] / 100
     np.testing.assert_allclose(t.confidence[:, 0, :], expected.to_numpy())
+
+
+@pytest.mark.parametrize(
+    "scale, top", [("a little above 1", 1.08), ("percent", 97.0)], ids=["overshoot", "percent"]
+)
+def test_confidence_columns_under_another_word_are_named_on_every_scale_the_readers_read(
+    tmp_path, scale, top
+):
+    # '.p' columns with values up to 1.08 (a heatmap peak passing 1), or in percent: the
+    # readers read both, so the look-alike check must name them too; it only took [0, 1] and
+    # the columns were dropped without a word (seed 0).
+    rng = np.random.default_rng(0)
+    df = _wide(n=40, name="{keypoint}.{axis}", conf=False).drop(columns="frame")
+    for k in ("nose", "left_ear", "tail_base"):
+        values = rng.uniform(0.3, 1.0, 40) * (100 if top > 1.2 else 1)
+        values[0] = top
+        df[f"{k}.p"] = values
+    path = _save(df, tmp_path)
+    with pytest.warns(InputWarning, match=r"no confidence column was read, but column\(s\) "
+                      r"\['nose\.p'\] hold numbers like a tracker's confidence.*"
+                      r"confidence_axis='p'"):  # fmt: skip
+        t = read_wide(path, pattern="{keypoint}.{axis}", fps=30)
+    assert np.all(t.confidence == 1)  # read without it
+    # The fix it names reads the columns, on the unit scale.
+    with pytest.warns(InputWarning, match=scale):
+        t = read_wide(path, pattern="{keypoint}.{axis}", fps=30, columns={"confidence": "p"})
+    expected = df[["nose.p", "left_ear.p", "tail_base.p"]].to_numpy()
+    expected = expected / 100 if top > 1.2 else np.minimum(expected, 1.0)
+    np.testing.assert_allclose(t.confidence[:, 0, :], expected)
+    # Values no reader reads (a largest value of 7) are not taken for a confidence.
+    df[["nose.p", "left_ear.p", "tail_base.p"]] *= 7 / top
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        read_wide(_save(df, tmp_path), pattern="{keypoint}.{axis}", fps=30)
 
 
 def test_empty_header_only_and_single_frame(tmp_path):

@@ -467,8 +467,9 @@ def integer_frames(values: np.ndarray, name: str, info: TableInfo) -> np.ndarray
 
 
 def confidence_lookalikes(info: TableInfo, known: Sequence[str], limit: int = 6) -> list[str]:
-    """Numeric columns outside ``known`` whose every filled value lies in [0, 1]: a tracker's
-    confidence under another name, perhaps (``likelihood``, ``score``, ``p``)."""
+    """Numeric columns outside ``known`` whose filled values the readers would read as a
+    confidence (:func:`confidence_rule`): a tracker's confidence under another name, perhaps
+    (``likelihood``, ``score``, ``p``), on [0, 1], a little above 1 or in percent."""
     found = []
     for column in [c for c in info.columns if c not in known][:limit]:
         try:
@@ -477,9 +478,17 @@ def confidence_lookalikes(info: TableInfo, known: Sequence[str], limit: int = 6)
             continue
         v = values[column]
         v = v[np.isfinite(v)]
-        if v.size and v.min() >= 0 and v.max() <= 1 and np.unique(v[:10_000]).size > 2:
+        # More than two values: a column of 0s and 1s is a flag, not a confidence.
+        if v.size and confidence_rule(v) is not None and np.unique(v[:10_000]).size > 2:
             found.append(column)
     return found
+
+
+LOOKS_LIKE_CONFIDENCE = (
+    "hold numbers like a tracker's confidence (0 to 1; values up to "
+    "1.2 and a 0-100 scale in percent are read too)"
+)
+"""How a message says that columns look like a confidence: the scales the readers read."""
 
 
 def warn_unmapped_confidence(info: TableInfo, columns: list[str], fix: str) -> None:
@@ -487,8 +496,8 @@ def warn_unmapped_confidence(info: TableInfo, columns: list[str], fix: str) -> N
     if not columns:
         return
     msg = (
-        f"{info.path}: no confidence column was read, but column(s) {columns} hold numbers in "
-        f"[0, 1] like a tracker's confidence; they are ignored. To use one: {fix}"
+        f"{info.path}: no confidence column was read, but column(s) {columns} "
+        f"{LOOKS_LIKE_CONFIDENCE}; they are ignored. To use one: {fix}"
     )
     warnings.warn(msg, InputWarning, stacklevel=3)
 
@@ -504,6 +513,29 @@ percent (divided by 100). A tracker writing percent rates its best points near 1
 value of 2-50 names no scale, and a few values above 1 among fractions are slips: refused."""
 
 
+def confidence_rule(finite: np.ndarray) -> str | None:
+    """How the readers read these finite confidence values: ``"unit"`` (within [0, 1]),
+    ``"overshoot"`` (largest in (1, ``CONFIDENCE_OVERSHOOT``], read as 1), ``"percent"``
+    (largest in (``PERCENT_FROM``, 100] with most values above 1, divided by 100), or None
+    (refused: negative values, or a largest value that names no scale).
+
+    Examples
+    --------
+    >>> [confidence_rule(np.array(v)) for v in ([0, 1.0], [0, 1.08], [64.0, 97], [0, 0.3, 64])]
+    ['unit', 'overshoot', 'percent', None]
+    """
+    if not finite.size or (finite.min() >= 0 and finite.max() <= 1):
+        return "unit"
+    top = finite.max()
+    if finite.min() < 0:
+        return None
+    if top <= CONFIDENCE_OVERSHOOT:
+        return "overshoot"
+    if PERCENT_FROM < top <= 100 and np.median(finite) > 1:
+        return "percent"
+    return None
+
+
 def confidence_on_unit_scale(
     columns: Mapping[str, np.ndarray], info: TableInfo
 ) -> dict[str, np.ndarray]:
@@ -512,8 +544,8 @@ def confidence_on_unit_scale(
     a warning; other values outside [0, 1] are refused, naming the column and the first row.
     (A scale that only runs low, 0-0.5 say, is cleaning's to read:
     ``CleanParams.confidence_scale``.)
-    The rule is read from all the file's confidence columns together, so every keypoint is
-    read on the same scale.
+    The rule (:func:`confidence_rule`) is read from all the file's confidence columns together,
+    so every keypoint is read on the same scale.
 
     Examples
     --------
@@ -523,22 +555,19 @@ def confidence_on_unit_scale(
     """
     out = dict(columns)
     finite = np.concatenate([v[np.isfinite(v)] for v in out.values()] or [np.empty(0)])
-    if finite.size and finite.min() >= 0 and finite.max() > 1:
-        top, above = finite.max(), int((finite > 1).sum())
-        head = f"{info.path.name}: confidence"
-        if top <= CONFIDENCE_OVERSHOOT:
-            out = {c: np.minimum(v, 1.0) for c, v in out.items()}  # NaN stays NaN
-            msg = (
-                f"{head} values a little above 1 (at most {top:.3g}, {above} value(s)) are "
-                "read as 1, as sure as a point can be"
-            )
-        elif PERCENT_FROM < top <= 100 and np.median(finite) > 1:
-            out = {c: v / 100.0 for c, v in out.items()}
-            msg = f"{head} written from 0 to 100 is read as percent (divided by 100)"
-        else:
-            msg = ""
-        if msg:
-            warnings.warn(msg, InputWarning, stacklevel=3)
+    rule = confidence_rule(finite)
+    head = f"{info.path.name}: confidence"
+    if rule == "overshoot":
+        out = {c: np.minimum(v, 1.0) for c, v in out.items()}  # NaN stays NaN
+        msg = (
+            f"{head} values a little above 1 (at most {finite.max():.3g}, "
+            f"{int((finite > 1).sum())} value(s)) are read as 1, as sure as a point can be"
+        )
+        warnings.warn(msg, InputWarning, stacklevel=3)
+    elif rule == "percent":
+        out = {c: v / 100.0 for c, v in out.items()}
+        msg = f"{head} written from 0 to 100 is read as percent (divided by 100)"
+        warnings.warn(msg, InputWarning, stacklevel=3)
     for name, values in out.items():
         check_confidence(values, name, info)
     return out

@@ -79,8 +79,8 @@ def read_tidy(
     columns : mapping, optional
         Which column holds what when the names differ: ``{"confidence": "likelihood",
         "x": "pos_x", "keypoint": "bodypart"}`` (roles: frame, time, keypoint, animal, x, y, z,
-        confidence). Without a confidence column, numeric columns in [0, 1] are named in an
-        ``InputWarning``.
+        confidence). Without a confidence column, numeric columns that would read as a confidence
+        (on [0, 1], a little above 1 or in percent) are named in an ``InputWarning``.
     time_unit : "s" or "ms", optional
         Unit of the ``time`` column (default seconds). Time steps that cannot be seconds at the
         given ``fps`` (or rates below 1 frame per second without ``time_unit``) are refused.

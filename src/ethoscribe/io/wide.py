@@ -17,6 +17,7 @@ import numpy as np
 
 from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._tables import (
+    LOOKS_LIKE_CONFIDENCE,
     TableInfo,
     check_file,
     check_fps,
@@ -121,7 +122,8 @@ def read_wide(
         The command line's column mapping in wide terms: ``{"confidence": "likelihood"}`` sets
         ``confidence_axis``, ``{"x": "X", "y": "Y"}`` the axes, ``{"frame": ...}`` /
         ``{"time": ...}`` the timing columns. Without confidence columns, an ``InputWarning``
-        names axis words whose columns hold numbers in [0, 1].
+        names axis words whose columns hold numbers the readers would read as a confidence (on
+        [0, 1], a little above 1 or in percent).
     time_unit : "s" or "ms", optional
         Unit of ``time_column`` (default seconds); checked against ``fps`` as ``read_tidy`` does.
 
@@ -361,8 +363,8 @@ def _warn_lookalike(
         if mapped is not None:
             msg = (
                 f"{info.path}: the confidence is mapped to the axis word {mapped!r}, but no "
-                f"column of the pattern {pattern!r} ends in it, while column(s) {looks} hold "
-                f"numbers in [0, 1] like a tracker's confidence. Check the spelling: {fix}"
+                f"column of the pattern {pattern!r} ends in it, while column(s) {looks} "
+                f"{LOOKS_LIKE_CONFIDENCE}. Check the spelling: {fix}"
             )
             raise InputError(msg)
         warn_unmapped_confidence(info, looks, fix)
