@@ -444,6 +444,45 @@ def test_a_wide_table_read_as_tidy_is_told_every_option_it_needs(tmp_path):
         read_tidy(path, fps=30)
 
 
+@pytest.mark.parametrize(
+    "sep, axes", [(".", "xy"), ("_", "xy"), ("-", "xy"), (" ", "xy"), (".", "XY")],
+    ids=["dot", "underscore", "hyphen", "space", "capitals"],
+)  # fmt: skip
+def test_the_wide_options_suggested_read_the_file_when_followed_literally(tmp_path, sep, axes):
+    # Columns 'snout.x', 'ear_L.x', 'snout.p': the refusal suggested the pattern
+    # '{keypoint}_{axis}' whatever the separator, which then matched no column, and said
+    # nothing of the '.p' confidence columns (values up to 1.08). Its command-line text, given
+    # to the command's parser as it stands, must read the file (seed 0).
+    import shlex
+    import warnings
+
+    from ethoscribe.cli import _reader_options, build_parser, command_line_message
+    from ethoscribe.io import read_pose
+
+    rng = np.random.default_rng(0)
+    keypoints = ("snout", "ear_L", "tail_base")
+    table = pd.DataFrame({"frame_no": np.arange(30) + 3})
+    for k in keypoints:
+        table[f"{k}{sep}{axes[0]}"], table[f"{k}{sep}{axes[1]}"] = rng.normal(size=(2, 30))
+        table[f"{k}{sep}p"] = rng.uniform(0.2, 1.08, 30)
+    path = tmp_path / "wide.csv"
+    table.to_csv(path, index=False)
+    with pytest.raises(InputError, match="look like a wide table") as caught:
+        read_tidy(path, fps=30)
+    text = command_line_message(str(caught.value))
+    suggested = text.partition("; pass ")[2].partition("; the tables")[0]
+    assert f"--pattern '{{keypoint}}{sep}{{axis}}'" in suggested and "confidence=p" in suggested
+    argv = ["discover", str(path), "--fps", "30", "--out", str(tmp_path / "out")]
+    args = build_parser().parse_args([*argv, *shlex.split(suggested)])
+    with warnings.catch_warnings():
+        warnings.filterwarnings("error")
+        warnings.filterwarnings("ignore", ".*confidence values a little above 1")
+        t = read_pose(path, format=args.format, fps=args.fps, **_reader_options(args))
+    assert t.keypoints == keypoints and t.meta["first_frame"] == 3
+    np.testing.assert_array_equal(t.coords[:, 0, 1, 0], table[f"ear_L{sep}{axes[0]}"])
+    np.testing.assert_allclose(t.confidence[:, 0, 2], np.minimum(table[f"tail_base{sep}p"], 1))
+
+
 def test_keypoints_to_keep_may_be_one_text_of_names(tmp_path):
     # "--reader-option keypoints=nose,tail" reaches the reader as one text; read letter by
     # letter it asked for keypoints 'n', 'o', 's', 'e' ...

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import warnings
 from collections.abc import Mapping
 from pathlib import Path
@@ -109,13 +110,13 @@ def read_tidy(
     info = map_columns(table_info(path), columns, _ROLES)
     lower = {str(c).strip().lower() for c in info.columns}
     time_col = "frame" if "frame" in info.columns or "time" not in lower else "time"
-    if "keypoint" not in info.columns and _looks_wide(info.columns):
-        python, cli = _wide_extras(info)
+    wide = _looks_wide(info.columns) if "keypoint" not in info.columns else None
+    if wide is not None:
+        python, cli = _wide_options(info, *wide)
         raise InputError(
-            f"{info.path}: no 'keypoint' column, but columns such as {_looks_wide(info.columns)} "
-            "look like a wide table (one row per frame); pass format='wide', "
-            f"pattern='{{keypoint}}_{{axis}}'{python} (command line: --format wide --pattern "
-            f"'{{keypoint}}_{{axis}}'{cli}); the tables of one run must all be tidy or all wide"
+            f"{info.path}: no 'keypoint' column, but columns such as {wide[1][:3]} look like a "
+            f"wide table (one row per frame); pass {python} (command line: {cli}); the tables "
+            "of one run must all be tidy or all wide"
         )
     require_columns(info, [time_col, "keypoint", "x", "y"], "a tidy pose table")
     if fps is None:
@@ -210,38 +211,62 @@ def _fold_variants(
     return renumber[codes].astype(codes.dtype), [names[t] for t in kept]
 
 
-def _looks_wide(columns: tuple[str, ...]) -> list[str]:
-    """Up to three columns named like a keypoint's axis (``nose_x``, ``Nose.y``), when at
-    least two keypoints have both an x and a y column."""
-    stems = {}
+# A keypoint's axis column: the keypoint, a separator of signs other than letters and digits
+# (quotes left out, to keep the suggested option quotable) and x or y.
+_AXIS_COLUMN = re.compile(r"(?P<keypoint>.+?)(?P<sep>[^A-Za-z0-9'\"]+)(?P<axis>[xy])", re.I)
+
+
+def _looks_wide(columns: tuple[str, ...]) -> tuple[str, list[str]] | None:
+    """The separator between keypoint and axis and the columns named so (``nose_x``,
+    ``ear_L.y``, ``Nose-X``), when at least two keypoints have both an x and a y column written
+    with that separator (the separator of most such keypoints); None otherwise.
+
+    Examples
+    --------
+    >>> _looks_wide(("frame", "ear_L.x", "ear_L.y", "tail.x", "tail.y"))
+    ('.', ['ear_L.x', 'ear_L.y', 'tail.x', 'tail.y'])
+    """
+    by_sep: dict[str, dict[str, list[str]]] = {}
     for c in columns:
-        head, sep, axis = str(c).rpartition("_") if "_" in str(c) else str(c).rpartition(".")
-        if sep and head and axis.lower() in ("x", "y"):
-            stems.setdefault(head, []).append(str(c))
-    both = [cols for cols in stems.values() if len(cols) >= 2]
-    return [c for cols in both for c in cols][:3] if len(both) >= 2 else []
+        m = _AXIS_COLUMN.fullmatch(str(c))
+        if m:
+            by_sep.setdefault(m["sep"], {}).setdefault(m["keypoint"], []).append(str(c))
+    best: tuple[str, list[list[str]]] | None = None
+    for sep, keypoints in by_sep.items():
+        both = [cols for cols in keypoints.values() if {c[-1].lower() for c in cols} == {"x", "y"}]
+        if len(both) >= 2 and (best is None or len(both) > len(best[1])):
+            best = sep, both
+    return None if best is None else (best[0], [c for cols in best[1] for c in cols])
 
 
 _FRAME_WORDS = ("frame", "idx", "index")
 
 
-def _wide_extras(info: TableInfo) -> tuple[str, str]:
-    """The rest of a wide table's reading options, as Python and command-line text: the word
-    after the keypoint whose columns hold a confidence (``nose_likelihood``), and a column
-    named like frame numbers."""
-    stems = {str(c).rpartition("_")[0] for c in _looks_wide(info.columns)}
+def _wide_options(info: TableInfo, sep: str, columns: list[str]) -> tuple[str, str]:
+    """The options that read a table refused as tidy as the wide table it looks like, as
+    Python and command-line text: the format and pattern (with the separator its columns
+    use), the axis names when written in capitals, the word after the keypoint whose columns
+    hold a confidence (``nose.p``), and a column named like frame numbers."""
+    pattern = f"{{keypoint}}{sep}{{axis}}"
+    mapping = {"x": "X", "y": "Y"} if all(c[-1].isupper() for c in columns) else {}
+    stems = {c[: -len(sep) - 1] for c in columns}
     words: dict[str, list[str]] = {}
-    for c in info.columns:
-        head, _, word = str(c).rpartition("_")
-        if head in stems and word.lower() not in ("x", "y", "z", "confidence"):
-            words.setdefault(word, []).append(str(c))
-    python, cli = "", ""
+    for c in map(str, info.columns):
+        stem = next((k for k in stems if c.startswith(k + sep)), None)
+        word = c[len(stem) + len(sep) :] if stem is not None else ""
+        if word and word.lower() not in ("x", "y", "z", "confidence"):
+            words.setdefault(word, []).append(c)
     for word, cols in words.items():
         if len(cols) == len(stems) and confidence_lookalikes(
             info, [c for c in info.columns if c != cols[0]]
         ):
-            python, cli = f", confidence_axis='{word}'", f" --columns confidence={word}"
+            mapping["confidence"] = word
             break
+    python = f"format='wide', pattern='{pattern}'"
+    cli = f"--format wide --pattern '{pattern}'"
+    if mapping:
+        python += f", columns={mapping}"
+        cli += " --columns " + ",".join(f"{role}={name}" for role, name in mapping.items())
     frame = [c for c in info.columns if any(w in str(c).lower() for w in _FRAME_WORDS)]
     if len(frame) == 1:
         python += f", frame_column='{frame[0]}'"
