@@ -167,6 +167,73 @@ def _tracks(draw):
     )
 
 
+def _cli_columns(message: str) -> dict[str, str]:
+    """The --columns mapping a refusal suggests, parsed as the command line parses it."""
+    import re
+
+    from ethoscribe.cli import _mapping, command_line_message
+
+    text = command_line_message(message)
+    return _mapping("--columns")(re.findall(r"--columns (\S+=\S+)", text)[-1])
+
+
+def test_a_tidy_table_with_other_column_names_is_told_the_mapping(tmp_path):
+    # frame_idx, bodypart, px, py, likelihood and no --columns: the refusal listed the
+    # columns but not the mapping; the one it suggests now, as parsed by the command line,
+    # reads the file as its standard-named twin.
+    df = _table(confidence=[0.9, 0.5, 0.7] * 4)
+    plain = read_tidy(_save(df, tmp_path, "plain.csv"), fps=30)
+    renamed = {"frame": "frame_idx", "keypoint": "bodypart", "x": "px", "y": "py"}
+    p = _save(df.rename(columns={**renamed, "confidence": "likelihood"}), tmp_path)
+    with pytest.raises(InputError, match=r"missing column\(s\) \['frame', 'keypoint', 'x', "
+                       r"'y'\].*look named for these roles") as caught:  # fmt: skip
+        read_tidy(p, fps=30)
+    mapping = _cli_columns(str(caught.value))
+    assert mapping == {**renamed, "confidence": "likelihood"}
+    got = read_tidy(p, fps=30, columns=mapping)
+    np.testing.assert_array_equal(got.coords, plain.coords)
+    np.testing.assert_array_equal(got.confidence, plain.confidence)
+
+
+def test_a_tidy_table_whose_names_make_no_role_evident_is_shown_the_syntax(tmp_path):
+    # Names of no known role ('a' ...), or two columns a role would take ('px' and 'x_mm'):
+    # nothing is guessed for those roles, the syntax is shown with them to fill in.
+    df = _table().rename(columns={"frame": "a", "keypoint": "b", "x": "c", "y": "d"})
+    with pytest.raises(InputError, match=r"holds each role \(ROLE=COLUMN, ") as caught:
+        read_tidy(_save(df, tmp_path), fps=30)
+    assert _cli_columns(str(caught.value)) == dict.fromkeys(["frame", "keypoint", "x", "y"],
+                                                             "COLUMN")  # fmt: skip
+    assert "with the file's column name for COLUMN" in str(caught.value)
+    df = _table().rename(columns={"frame": "frame_idx", "x": "px", "y": "py"})
+    df["x_mm"] = df["px"] / 2
+    with pytest.raises(InputError, match="ROLE=COLUMN") as caught:
+        read_tidy(_save(df, tmp_path), fps=30)
+    assert _cli_columns(str(caught.value)) == {"frame": "frame_idx", "x": "COLUMN", "y": "py"}
+
+
+def test_a_column_mapping_written_backwards_is_shown_the_right_way_round(tmp_path):
+    # --columns frame_idx=frame,bodypart=keypoint,...: it was refused as naming unknown roles,
+    # without a word of the syntax. The mapping it suggests, parsed as the command line
+    # does, reads the file.
+    df = _table(confidence=0.8)
+    plain = read_tidy(_save(df, tmp_path, "plain.csv"), fps=30)
+    names = {"frame": "frame_idx", "keypoint": "bodypart", "x": "px", "confidence": "likelihood"}
+    p = _save(df.rename(columns=names), tmp_path)
+    backwards = {"frame_idx": "frame", "bodypart": "keypoint", "x": "px", "likelihood":
+                 "confidence"}  # fmt: skip
+    with pytest.raises(InputError, match=r"unknown role\(s\) \['bodypart', 'frame_idx', "
+                       r"'likelihood'\].*role first.*\(ROLE=COLUMN\)") as caught:  # fmt: skip
+        read_tidy(p, fps=30, columns=backwards)
+    mapping = _cli_columns(str(caught.value))
+    assert mapping == names  # the pair written the right way round kept as it was
+    got = read_tidy(p, fps=30, columns=mapping)
+    np.testing.assert_array_equal(got.coords, plain.coords)
+    # Unknown roles that are not reversed roles get no such advice.
+    with pytest.raises(InputError, match=r"unknown role\(s\) \['bodypart'\]") as caught:
+        read_tidy(p, fps=30, columns={"bodypart": "bodypart"})
+    assert "ROLE=COLUMN" not in str(caught.value)
+
+
 @pytest.mark.parametrize("suffix", [".csv", ".parquet"])
 @settings(
     max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]

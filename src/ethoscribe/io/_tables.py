@@ -142,9 +142,32 @@ def check_role_mapping(
         )
     unknown = sorted(set(mapping) - set(roles))
     if unknown:
+        hint = ""
+        if all(str(mapping[k]) in roles for k in unknown):  # column=role: written backwards
+            fixed = {str(mapping[k]) if k in unknown else k: k if k in unknown else mapping[k]
+                     for k in mapping}  # fmt: skip
+            hint = (
+                ". Each pair names the role first, then the file's name for it (ROLE=COLUMN); "
+                "the pairs naming unknown roles look written the other way round: pass "
+                f"{mapping_text(fixed)}"
+            )
         raise InputError(
-            f"{path}: columns= names unknown role(s) {unknown}; the roles are {list(roles)}{note}"
+            f"{path}: columns= names unknown role(s) {unknown}; the roles are "
+            f"{list(roles)}{note}{hint}"
         )
+
+
+def mapping_text(mapping: Mapping[str, str]) -> str:
+    """A column mapping as a Python argument and as its command-line option, in the form the
+    command line's messages rewrite (``pass columns={...} (command line: --columns ...)``).
+
+    Examples
+    --------
+    >>> mapping_text({"keypoint": "bodypart", "x": "px"})
+    "columns={'keypoint': 'bodypart', 'x': 'px'} (command line: --columns keypoint=bodypart,x=px)"
+    """
+    cli = ",".join(f"{role}={name}" for role, name in mapping.items())
+    return f"columns={dict(mapping)} (command line: --columns {cli})"
 
 
 def map_columns(
@@ -220,18 +243,37 @@ def manifest_hint(info: TableInfo) -> str:
     return ""
 
 
-def require_columns(info: TableInfo, needed: list[str], purpose: str) -> None:
-    """Raise listing the missing columns, the columns found and near misses."""
+UNNAMED = "COLUMN"
+"""Stands for a column the user must name in a suggested mapping (``keypoint=COLUMN``)."""
+
+
+def require_columns(
+    info: TableInfo, needed: list[str], purpose: str, suggest: Mapping[str, str] | None = None
+) -> None:
+    """Raise listing the missing columns, the columns found and near misses.
+
+    ``suggest`` (role -> column, or ``UNNAMED`` for a role whose column is not evident), when
+    given, is shown as a column mapping to pass, after the columns that differ only in case.
+    """
     missing = [c for c in needed if c not in info.columns]
     if not missing:
         return
     near = similar_columns(info.columns, missing)
     hints = rename_hints(near)
-    if near:
-        python = ", ".join(f"'{w}': '{f}'" for f, w in near.items())
-        cli = ",".join(f"{w}={f}" for f, w in near.items())
-        hints += f" Or pass columns={{{python}}} (command line: --columns {cli})."
-    hints += separator_hint(info.columns) + manifest_hint(info)
+    mapping = {w: f for f, w in near.items()}
+    if suggest:
+        taken = set(mapping.values())
+        mapping |= {r: c for r, c in suggest.items() if r not in mapping and c not in taken}
+    other = separator_hint(info.columns) + manifest_hint(info)
+    if mapping and not other:  # last, with no full stop after the command to copy
+        lead = "Or" if near else "Its columns look named for these roles:"
+        if UNNAMED in mapping.values():
+            lead = (
+                f"{'Or say' if near else 'Say'} which of its columns holds each role (ROLE="
+                f"{UNNAMED}, with the file's column name for {UNNAMED}):"
+            )
+        hints += f" {lead} pass {mapping_text(mapping)}"
+    hints += other
     raise InputError(
         f"{info.path}: missing column(s) {missing} needed for {purpose}; found columns "
         f"{list(info.columns)}.{hints}"

@@ -22,6 +22,7 @@ from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._atomic import write_table
 from ethoscribe.io._tables import (
     METADATA_KEY,
+    UNNAMED,
     TableInfo,
     check_file,
     check_fps,
@@ -118,7 +119,8 @@ def read_tidy(
             f"wide table (one row per frame); pass {python} (command line: {cli}); the tables "
             "of one run must all be tidy or all wide"
         )
-    require_columns(info, [time_col, "keypoint", "x", "y"], "a tidy pose table")
+    needed = [time_col, "keypoint", "x", "y"]
+    require_columns(info, needed, "a tidy pose table", _suggest_columns(info.columns, needed))
     if fps is None:
         fps = check_fps(info.metadata.get("fps"), path)
     # With frame numbers and a known rate the time column is not needed: skip reading it.
@@ -214,6 +216,74 @@ def _fold_variants(
 # A keypoint's axis column: the keypoint, a separator of signs other than letters and digits
 # (quotes left out, to keep the suggested option quotable) and x or y.
 _AXIS_COLUMN = re.compile(r"(?P<keypoint>.+?)(?P<sep>[^A-Za-z0-9'\"]+)(?P<axis>[xy])", re.I)
+
+
+# Other names of a tidy table's roles, for the mapping suggested when the role's own column is
+# missing: a column is taken for a role when its name, in lower case without signs, holds the
+# role's word (frame_idx, keypoint_name, conf), is one of the role's common other names, or for
+# an axis is the axis letter with a position or unit word (px, pos_x, x_mm). Only a column that
+# one role alone takes, and the only one it takes, is suggested.
+_ROLE_WORDS = {
+    "frame": ("frame",),
+    "time": ("time",),
+    "keypoint": ("keypoint",),
+    "animal": ("animal",),
+    "confidence": ("conf",),
+}
+_ROLE_NAMES = {
+    "frame": {"idx", "index", "fr"},
+    "time": {"t", "s", "sec", "secs", "seconds"},
+    "keypoint": {"bodypart", "bodyparts", "part", "joint", "landmark", "marker", "node", "point",
+                 "kp", "label"},
+    "animal": {"individual", "individuals", "id", "track", "trackid", "identity", "subject",
+               "instance"},
+    "confidence": {"likelihood", "score", "p", "prob", "probability", "certainty"},
+}  # fmt: skip
+_AXIS_WORDS = {"", "p", "pos", "position", "coord", "coordinate", "loc", "location", "px",
+               "pixel", "pixels", "mm", "cm", "m"}  # fmt: skip
+
+
+def _takes(role: str, column: str) -> bool:
+    """Whether ``column`` is named like ``role`` by the rule above."""
+    name = re.sub(r"[^a-z0-9]", "", column.lower())
+    if role in ("x", "y", "z"):
+        return (name.startswith(role) and name[1:] in _AXIS_WORDS) or (
+            name.endswith(role) and name[:-1] in _AXIS_WORDS
+        )
+    return any(w in name for w in _ROLE_WORDS[role]) or name in _ROLE_NAMES[role]
+
+
+def _suggest_columns(columns: tuple[str, ...], needed: list[str]) -> dict[str, str]:
+    """The column mapping to suggest for a tidy table lacking columns of ``needed``: the
+    missing roles and the optional ones (animal, z, confidence) whose column its names make
+    evident, ``UNNAMED`` for a missing role none does. Empty when nothing is missing.
+
+    Examples
+    --------
+    >>> _suggest_columns(("frame_idx", "bodypart", "px", "py", "likelihood"),
+    ...                  ["frame", "keypoint", "x", "y"])  # doctest: +NORMALIZE_WHITESPACE
+    {'frame': 'frame_idx', 'keypoint': 'bodypart', 'x': 'px', 'y': 'py',
+     'confidence': 'likelihood'}
+    """
+    missing = [r for r in needed if r not in columns]
+    if not missing:
+        return {}
+    # A table with times and no frame numbers is read by its times.
+    wanted = [*missing, *(["time"] if "frame" in missing else []),
+              *(r for r in ("animal", "z", "confidence") if r not in columns)]  # fmt: skip
+    free = [str(c) for c in columns if c not in _ROLES]
+    takers = {c: [r for r in wanted if _takes(r, c)] for c in free}
+    found = {}
+    for role in wanted:
+        own = [c for c in free if takers[c] == [role]]
+        if len(own) == 1:
+            found[role] = own[0]
+    if "frame" in found or "time" not in found:
+        found.pop("time", None)
+    else:
+        missing = [r for r in missing if r != "frame"]
+    order = [r for r in _ROLES if r in found or r in missing]
+    return {r: found.get(r, UNNAMED) for r in order}
 
 
 def _looks_wide(columns: tuple[str, ...]) -> tuple[str, list[str]] | None:
