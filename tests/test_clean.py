@@ -785,8 +785,19 @@ def test_params_round_trip_and_errors():
         CleanParams(smooth="gauss")
     with pytest.raises(InputError, match="more than one swap pair"):
         CleanParams(swap_pairs=[("a", "b"), ("b", "c")])
-    with pytest.raises(InputError, match="min_confidence"):
-        CleanParams(min_confidence=1.5)
+    with pytest.raises(InputError, match=r"must lie in \[0, 1\], e\.g\. 0\.5; got 50 .*"
+                       r"percent are read as fractions.*0 or None masks no point"):  # fmt: skip
+        CleanParams(min_confidence=50)
+
+
+def test_a_confidence_threshold_of_0_masks_no_point():
+    # The messages offer 0 (the command line's way) or None to switch masking off.
+    coords = np.ones((3, 1, 2, 2))
+    conf = np.array([[[0.0, 0.2]], [[np.nan, 1.0]], [[0.01, 0.0]]])
+    for off in (0.0, None):
+        x, masked = mask_low_confidence(coords, conf, off)
+        assert not masked.any() and not np.isnan(x).any()
+    assert mask_low_confidence(coords, conf, 0.5)[1].sum() == 4  # the ones below 0.5
 
 
 def test_input_errors_name_the_problem_and_the_fix():

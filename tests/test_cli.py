@@ -114,6 +114,20 @@ def test_options_are_checked_before_any_work(capsys):
     assert "--confidence-scale takes 'auto' or a number in (0, 1]" in capsys.readouterr().err
 
 
+@pytest.mark.parametrize("value", ["50", "-0.1", "nan"])
+def test_a_confidence_threshold_outside_0_1_is_told_the_fraction_and_how_to_mask_nothing(
+    capsys, value
+):
+    # --min-confidence 50 for files in percent was refused with "must lie in [0, 1] or be
+    # None": None cannot be typed, and nothing said that percent is read as fractions.
+    with pytest.raises(SystemExit) as stop:
+        main(["discover", "x.csv", "--out", "o", "--min-confidence", value])
+    assert stop.value.code == 2
+    err = capsys.readouterr().err
+    assert f"--min-confidence takes a number in [0, 1], e.g. 0.5; got '{value}'" in err
+    assert "read as fractions, so 50 % is 0.5; 0 masks no point" in err and "None" not in err
+
+
 def test_the_console_script_runs():
     done = subprocess.run(
         [sys.executable, "-m", "ethoscribe", "--version"],

@@ -99,6 +99,19 @@ def _non_negative(option: str) -> Any:
     return parse
 
 
+def _min_confidence(value: str) -> float:
+    try:
+        number = float(value)
+    except ValueError:
+        number = float("nan")
+    if not 0 <= number <= 1:  # NaN too
+        raise argparse.ArgumentTypeError(
+            f"--min-confidence takes a number in [0, 1], e.g. 0.5; got {value!r} (confidences "
+            "written in percent are read as fractions, so 50 % is 0.5; 0 masks no point)"
+        )
+    return number
+
+
 def _confidence_scale(value: str) -> float | str:
     if value == "auto":
         return value
@@ -417,8 +430,9 @@ def _add_cleaning_options(p: argparse.ArgumentParser) -> None:
     c = p.add_argument_group("cleaning")
     c.add_argument(
         "--min-confidence",
-        type=_non_negative("--min-confidence"),
-        help="mask points below this tracker confidence (default 0.5)",
+        type=_min_confidence,
+        help="mask points below this tracker confidence, in [0, 1] (default 0.5; confidences "
+        "in percent are read as fractions, so 50 %% is 0.5; 0 masks no point)",
     )
     c.add_argument(
         "--confidence-scale",

@@ -154,7 +154,11 @@ class CleanParams:
     def __post_init__(self) -> None:
         conf = self.min_confidence
         if conf is not None and not 0 <= _positive("min_confidence", conf, True) <= 1:
-            raise InputError(f"min_confidence must lie in [0, 1] or be None; got {conf!r}")
+            raise InputError(
+                f"min_confidence must lie in [0, 1], e.g. 0.5; got {conf!r} (confidences "
+                "written in percent are read as fractions, so 50 % is 0.5; 0 or None masks "
+                "no point)"
+            )
         if conf is not None:
             object.__setattr__(self, "min_confidence", float(conf))
         scale = self.confidence_scale
