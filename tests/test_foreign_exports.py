@@ -90,7 +90,42 @@ def test_a_misspelled_keypoint_names_the_file_and_the_likely_name(tmp_path):
     bad.to_csv(tmp_path / "b.csv", index=False)
     with pytest.raises(
         InputError, match=r"session 'b' .* in \S+b\.csv\..*'nsoe' looks like 'nose'"
-    ):
+    ) as caught:
+        read_folder(tmp_path, fps=30, progress=False)
+    # The reader option it names reads the study (the advice was "rename it", with no way to).
+    text = command_line_message(str(caught.value))
+    assert "pass --reader-option rename_keypoints=nsoe=nose to read it so" in text
+    _, b_read = read_folder(tmp_path, fps=30, progress=False, rename_keypoints="nsoe=nose")
+    assert b_read.keypoints == KEYPOINTS
+    np.testing.assert_array_equal(b_read.coords, b.coords)
+
+
+def test_a_keypoint_one_session_names_otherwise_is_told_the_rename_that_reads_it(tmp_path):
+    # One session of three calls 'nose' 'snout' (not a misspelling): the refusal said "rename
+    # or drop keypoints when reading", and the command line had no way to rename. It now names
+    # the odd session's keypoint and the study's, and that reader option reads the study.
+    from ethoscribe.cli import _option
+
+    tracks = [_tracks(s) for s in range(3)]
+    for s, t in enumerate(tracks):
+        names = ("snout", "neck", "tail") if s == 0 else KEYPOINTS  # the first is the odd one
+        _tidy(t.replace(keypoints=names), names).to_csv(tmp_path / f"s{s}.csv", index=False)
+    with pytest.raises(InputError, match="must share one keypoint set") as caught:
+        read_folder(tmp_path, fps=30, progress=False)
+    text = command_line_message(str(caught.value))
+    assert (
+        "If 'snout' of session 's0' is 'nose' of session 's1', pass --reader-option "
+        "rename_keypoints=snout=nose to read it so." in text
+    )
+    name, value = _option(text.partition("--reader-option ")[2].split(" ")[0])
+    sessions = read_folder(tmp_path, fps=30, progress=False, **{name: value})
+    assert [s.keypoints for s in sessions] == [KEYPOINTS] * 3
+    np.testing.assert_array_equal(sessions[0].coords, tracks[0].coords)
+    # Keypoints that differ otherwise are shown the option's form.
+    names = ("hip", "paw", "tail")
+    _tidy(tracks[2].replace(keypoints=names), names).to_csv(tmp_path / "s2.csv", index=False)
+    (tmp_path / "s0.csv").unlink()
+    with pytest.raises(InputError, match=r"another name, pass rename_keypoints=\{'OLD': 'NEW'\}"):
         read_folder(tmp_path, fps=30, progress=False)
 
 
@@ -342,10 +377,17 @@ def test_label_reorders_keypoints_and_names_a_misspelled_one(tmp_path):
     _tidy(tracks, KEYPOINTS).replace({"keypoint": {"nose": "nsoe"}}).to_csv(
         new / "rec.csv", index=False
     )
-    with pytest.raises(InputError, match=r"missing \['nose'\], extra \['nsoe'\].*rename it"):
+    with pytest.raises(InputError, match=r"missing \['nose'\], extra \['nsoe'\].*'nsoe' looks "
+                       r"like 'nose': pass rename_keypoints=\{'nsoe': 'nose'\}"):  # fmt: skip
         label_sessions(tmp_path / "ws", [new / "rec.csv"], tmp_path / "out2", fps=30,
                        progress=False)  # fmt: skip
     assert not (tmp_path / "out2").exists()
+    # That reader option labels it as the recording with the right name.
+    rename = {"rename_keypoints": {"nsoe": "nose"}}
+    label_sessions(tmp_path / "ws", [new / "rec.csv"], tmp_path / "out2", fps=30,
+                   progress=False, reader_options=rename)  # fmt: skip
+    c = pd.read_parquet(tmp_path / "out2" / "labels.parquet")
+    assert c["state"].tolist() == a["state"].tolist()
 
 
 def test_manifest_columns_spelt_otherwise_are_named_with_the_fix(tmp_path):

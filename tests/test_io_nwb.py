@@ -75,6 +75,16 @@ def test_reads_a_file_written_by_pynwb(tmp_path):
     np.testing.assert_array_equal(t.confidence[:, 0, 0], truth["PoseEstimation", "tail"][1])
 
 
+def test_keypoints_of_an_nwb_file_are_renamed_when_read(tmp_path):
+    times = np.arange(12) / 50.0
+    truth = _external_file(tmp_path / "rec.nwb", times)
+    t = read_nwb(tmp_path / "rec.nwb", rename_keypoints="nose=snout", keypoints="snout")
+    assert t.keypoints == ("snout",)
+    np.testing.assert_array_equal(t.coords[:, 0, 0], truth["PoseEstimation", "nose"][0])
+    assert read_nwb(tmp_path / "rec.nwb", rename_keypoints={"tail": "tail_base"}).keypoints == (
+        "tail_base", "nose")  # fmt: skip
+
+
 def test_time_stamps_with_a_gap_and_3d_in_mm(tmp_path):
     times = np.delete(np.arange(10) / 20.0, 4)
     truth = _external_file(tmp_path / "gap.nwb", times, unit="millimeters", dims=3)

@@ -561,6 +561,29 @@ def test_keypoints_to_keep_may_be_one_text_of_names(tmp_path):
     )
 
 
+def test_keypoints_are_renamed_when_read(tmp_path):
+    # One option for every file of a study: OLD=NEW as typed on the command line, or a
+    # mapping; keypoints= then takes the new names.
+    p = _save(_table(confidence=0.8), tmp_path)
+    plain = read_tidy(p, fps=30)
+    got = read_tidy(p, fps=30, rename_keypoints="nose=snout, tail=tail_base")
+    assert got.keypoints == ("snout", "neck", "tail_base")
+    np.testing.assert_array_equal(got.coords, plain.coords)
+    picked = read_tidy(p, fps=30, rename_keypoints={"nose": "snout"}, keypoints="neck,snout")
+    assert picked.keypoints == ("neck", "snout")
+    np.testing.assert_array_equal(picked.coords, plain.coords[:, :, [1, 0]])
+    # A file that already has the new name is read as it is, without a word (the other
+    # files of the study); one with neither name is said, as a misspelt option may be.
+    assert read_tidy(p, fps=30, rename_keypoints="snout=nose").keypoints == plain.keypoints
+    with pytest.warns(InputWarning, match=r"rename_keypoints names 'noes', which the file does "
+                      r"not have \(nor the new name\); its keypoints are \['nose'"):  # fmt: skip
+        read_tidy(p, fps=30, rename_keypoints="noes=snout")
+    with pytest.raises(InputError, match=r"several keypoints the name\(s\) \['neck'\]"):
+        read_tidy(p, fps=30, rename_keypoints="nose=neck")
+    with pytest.raises(InputError, match=r"OLD=NEW pairs .*got 'nose:snout'"):
+        read_tidy(p, fps=30, rename_keypoints="nose:snout")
+
+
 def test_names_differing_only_in_case_or_spaces_are_one_keypoint(tmp_path):
     # 'Nose ' on every other frame beside 'nose': kept apart, each was missing wherever the
     # other was written, and the study's keypoint sets differed from the other sessions'.

@@ -211,6 +211,21 @@ def test_confidence_columns_under_another_word_are_named_on_every_scale_the_read
         read_wide(_save(df, tmp_path), pattern="{keypoint}.{axis}", fps=30)
 
 
+def test_keypoints_of_a_wide_table_are_renamed_when_read(tmp_path):
+    # The names the column pattern gives are renamed before keypoints= picks them; an
+    # ignored confidence under another word is still named (the file's names find it).
+    df = _wide(n=6).drop(columns="frame")
+    t = read_wide(_save(df, tmp_path), fps=30, rename_keypoints="left_ear=ear_L",
+                  keypoints=["ear_L", "nose"])  # fmt: skip
+    assert t.keypoints == ("ear_L", "nose")
+    np.testing.assert_array_equal(t.coords[:, 0, 0, 0], df["left_ear_x"])
+    df = df.rename(columns=lambda c: c.replace("_confidence", "_p"))
+    df[["nose_p", "left_ear_p", "tail_base_p"]] = np.linspace(0.1, 0.9, 18).reshape(6, 3)
+    with pytest.warns(InputWarning, match=r"\['nose_p'\].*confidence_axis='p'"):
+        t = read_wide(_save(df, tmp_path), fps=30, rename_keypoints={"nose": "snout"})
+    assert t.keypoints == ("snout", "left_ear", "tail_base")
+
+
 def test_empty_header_only_and_single_frame(tmp_path):
     p = tmp_path / "empty.csv"
     p.write_bytes(b"")

@@ -11,6 +11,7 @@ from __future__ import annotations
 import difflib
 import re
 import warnings
+from collections import Counter
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from types import MappingProxyType
@@ -432,18 +433,38 @@ def _folded(name: str) -> str:
 
 def keypoint_mismatch(expected: Sequence[str], got: Sequence[str]) -> tuple[str, str]:
     """How keypoints ``got`` differ from ``expected``: the missing and extra names (each in its
-    own order), and a sentence for each extra name that looks like a missing one (a misspelling).
+    own order), and a sentence naming each extra name that looks like a missing one (a
+    misspelling) with the reader option that reads it so (:func:`rename_option`).
 
     Examples
     --------
-    >>> keypoint_mismatch(["Snout", "tail"], ["Snuot", "tail"])
-    ("missing ['Snout'], extra ['Snuot']", " 'Snuot' looks like 'Snout': rename it.")
+    >>> keypoint_mismatch(["Snout", "tail"], ["Snuot", "tail"])[1]  # doctest: +NORMALIZE_WHITESPACE
+    " 'Snuot' looks like 'Snout': pass rename_keypoints={'Snuot': 'Snout'}
+    (command line: --reader-option rename_keypoints=Snuot=Snout) to read it so."
     """
     missing = [k for k in expected if k not in got]
     extra = [k for k in got if k not in expected]
     alike = {e: difflib.get_close_matches(e, missing, n=1) for e in extra}
-    hint = "".join(f" '{e}' looks like '{m[0]}': rename it." for e, m in alike.items() if m)
+    pairs = {e: m[0] for e, m in alike.items() if m}
+    hint = ""
+    if pairs:
+        said = ", ".join(f"'{e}' looks like '{m}'" for e, m in pairs.items())
+        them = "it" if len(pairs) == 1 else "them"
+        hint = f" {said}: pass {rename_option(pairs)} to read {them} so."
     return f"missing {missing}, extra {extra}", hint
+
+
+def rename_option(pairs: Mapping[str, str]) -> str:
+    """The reader option that reads keypoints under other names (old -> new), as Python and
+    command-line text in the form the command line's messages rewrite.
+
+    Examples
+    --------
+    >>> rename_option({"nose": "snout"})
+    "rename_keypoints={'nose': 'snout'} (command line: --reader-option rename_keypoints=nose=snout)"
+    """
+    cli = ",".join(f"{old}={new}" for old, new in pairs.items())
+    return f"rename_keypoints={dict(pairs)} (command line: --reader-option rename_keypoints={cli})"
 
 
 def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
@@ -478,7 +499,7 @@ def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
             raise InputError(
                 f"session '{s.session}' has different keypoints from session '{ref.session}' "
                 f"({differ}, or another order){file}. All sessions of one study must share one "
-                f"keypoint set; rename or drop keypoints when reading.{hint}{few}{keep}"
+                f"keypoint set.{hint or _other_name_hint(sessions, ref, s)}{few}{keep}"
             )
         if s.n_dims != ref.n_dims:
             raise InputError(
@@ -486,6 +507,25 @@ def check_same_body_plan(sessions: Sequence[PoseTracks]) -> None:
                 f"{ref.n_dims}-D; a study must not mix 2-D and 3-D tracks: study them apart, "
                 "or leave the z column out of the 3-D files (x and y only)"
             )
+
+
+def _other_name_hint(sessions: Sequence[PoseTracks], a: PoseTracks, b: PoseTracks) -> str:
+    """How to read a keypoint that sessions ``a`` and ``b`` name differently: where each has one
+    keypoint the other lacks, the reader option naming the odd one's as the other's (the
+    session whose keypoints fewer sessions share is the odd one); otherwise the option's form."""
+    extra_a = [k for k in a.keypoints if k not in b.keypoints]
+    extra_b = [k for k in b.keypoints if k not in a.keypoints]
+    if len(extra_a) == len(extra_b) == 1:
+        sets = Counter(frozenset(t.keypoints) for t in sessions)
+        a_odd = sets[frozenset(a.keypoints)] < sets[frozenset(b.keypoints)]
+        odd, usual = (a, b) if a_odd else (b, a)
+        old, new = (extra_a[0], extra_b[0]) if odd is a else (extra_b[0], extra_a[0])
+        return (
+            f" If '{old}' of session '{odd.session}' is '{new}' of session '{usual.session}', "
+            f"pass {rename_option({old: new})} to read it so."
+        )
+    option = rename_option({"OLD": "NEW"})
+    return f" To read a keypoint under another name, pass {option} with the file's name first."
 
 
 # A side token: "left"/"right" or a lone "l"/"r", bounded by the name's start or end, a separator

@@ -65,6 +65,66 @@ def name_list(names: Sequence[str] | str | None) -> list[str] | None:
     return [str(n) for n in names]
 
 
+def keypoint_renames(rename: Mapping[str, str] | str | None, where: Any) -> dict[str, str]:
+    """The reader option ``rename_keypoints`` as ``{old: new}``: a mapping, or a text of
+    OLD=NEW pairs separated by commas (as typed in a command-line reader option).
+
+    Examples
+    --------
+    >>> keypoint_renames("nose=snout, tail_base=tailbase", "a.csv")
+    {'nose': 'snout', 'tail_base': 'tailbase'}
+    """
+    if rename is None:
+        return {}
+    if isinstance(rename, str):
+        pairs = [[t.strip() for t in item.partition("=")] for item in rename.split(",")]
+        if not all(old and sep and new for old, sep, new in pairs if old or sep or new):
+            raise InputError(
+                f"{where}: rename_keypoints takes OLD=NEW pairs separated by commas, the file's "
+                f"name first, e.g. 'nose=snout,tail_base=tailbase'; got {rename!r}"
+            )
+        return {old: new for old, _, new in pairs if old}
+    if not isinstance(rename, Mapping):
+        raise InputError(
+            f"{where}: rename_keypoints maps the file's keypoint names to the study's, e.g. "
+            f"{{'nose': 'snout'}} or 'nose=snout'; got {type(rename).__name__}"
+        )
+    return {str(old): str(new) for old, new in rename.items()}
+
+
+def renamed_keypoints(names: Sequence[str], rename: Mapping[str, str], where: Any) -> list[str]:
+    """``names`` (a file's keypoints) with the new names ``rename`` gives them.
+
+    One option serves every file of a study, so a file may lack a name to rename; an
+    ``InputWarning`` says so only when it has neither the old name nor the new one (a name
+    misspelt in the option, perhaps). Two keypoints renamed to one name are refused.
+
+    Examples
+    --------
+    >>> renamed_keypoints(["nose", "tail"], {"nose": "snout"}, "a.csv")
+    ['snout', 'tail']
+    """
+    if not rename:
+        return list(names)
+    out = [rename.get(k, k) for k in names]
+    twice = sorted({k for k in out if out.count(k) > 1})
+    if twice:
+        raise InputError(
+            f"{where}: rename_keypoints gives several keypoints the name(s) {twice} (the file's "
+            f"keypoints {list(names)}); each keypoint needs a name of its own"
+        )
+    absent = [f"'{old}'" for old, new in rename.items() if old not in names and new not in names]
+    if absent:
+        warnings.warn(
+            f"{where}: rename_keypoints names {listed(absent)}, which the file does not have "
+            f"(nor the new name); its keypoints are {list(names)}. Check the spelling (the "
+            "file's name comes first: OLD=NEW)",
+            InputWarning,
+            stacklevel=3,
+        )
+    return out
+
+
 def check_file(path: str | os.PathLike[str], fix: str = "export the tracks again") -> Path:
     """The path as a ``Path`` if it is an existing, non-empty file; a clear error otherwise."""
     path = Path(path).expanduser()

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import os
 import uuid
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
@@ -18,7 +18,14 @@ import numpy as np
 
 from ethoscribe.errors import InputError
 from ethoscribe.io._atomic import atomic_path
-from ethoscribe.io._tables import check_file, check_fps, make_tracks, name_list
+from ethoscribe.io._tables import (
+    check_file,
+    check_fps,
+    keypoint_renames,
+    make_tracks,
+    name_list,
+    renamed_keypoints,
+)
 from ethoscribe.io._timing import frames_from_times
 from ethoscribe.pose import PoseTracks
 
@@ -51,6 +58,7 @@ def read_nwb(
     session: str | None = None,
     units: str | None = None,
     keypoints: list[str] | str | None = None,
+    rename_keypoints: Mapping[str, str] | str | None = None,
 ) -> PoseTracks:
     """Read pose-estimation series from an NWB file.
 
@@ -70,6 +78,9 @@ def read_nwb(
     keypoints : list of str, optional
         Keep only these keypoints, in this order (default: the skeleton's order; a text: names
         separated by commas).
+    rename_keypoints : mapping or str, optional
+        New names for the series' keypoints, ``{"nose": "snout"}`` or ``"nose=snout,..."``
+        (OLD=NEW), as ``read_tidy`` takes them; ``keypoints`` then takes the new names.
 
     Returns
     -------
@@ -94,7 +105,8 @@ def read_nwb(
             raise _unreadable(path, exc) from None
         found = [o for o in nwbfile.objects.values() if isinstance(o, ndx_pose.PoseEstimation)]
         chosen = _choose(path, found, pose_estimation)
-        parts = [_read_container(path, c, name_list(keypoints)) for c in chosen]
+        rename = keypoint_renames(rename_keypoints, path)
+        parts = [_read_container(path, c, name_list(keypoints), rename) for c in chosen]
         meta = {"identifier": nwbfile.identifier, "session_id": nwbfile.session_id}
         if nwbfile.subject is not None and nwbfile.subject.subject_id:
             meta["subject"] = nwbfile.subject.subject_id
@@ -125,7 +137,9 @@ def _choose(path: Path, found: list[Any], wanted: str | Sequence[str] | None) ->
     return [by_name[n] for n in sorted(names)]
 
 
-def _read_container(path: Path, container: Any, keypoints: list[str] | None) -> dict[str, Any]:
+def _read_container(
+    path: Path, container: Any, keypoints: list[str] | None, rename: Mapping[str, str]
+) -> dict[str, Any]:
     series = dict(container.pose_estimation_series)
     where = f"{path}: PoseEstimation '{container.name}'"
     if not series:
@@ -134,6 +148,10 @@ def _read_container(path: Path, container: Any, keypoints: list[str] | None) -> 
     skeleton = getattr(container, "skeleton", None)
     if skeleton is not None and sorted(map(str, skeleton.nodes[:])) == sorted(names):
         names = [str(n) for n in skeleton.nodes[:]]  # keep the skeleton's order
+    if rename:
+        new = renamed_keypoints(names, rename, where)
+        series = {n: series[old] for old, n in zip(names, new, strict=True)}
+        names = new
     if keypoints is not None:
         missing = [k for k in keypoints if k not in series]
         if missing or not keypoints:

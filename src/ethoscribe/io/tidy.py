@@ -30,10 +30,12 @@ from ethoscribe.io._tables import (
     confidence_on_unit_scale,
     exact_repeats,
     integer_frames,
+    keypoint_renames,
     make_tracks,
     map_columns,
     name_list,
     read_columns,
+    renamed_keypoints,
     require_columns,
     table_info,
     text_codes,
@@ -62,6 +64,7 @@ def read_tidy(
     keypoints: list[str] | str | None = None,
     columns: Mapping[str, str] | None = None,
     time_unit: str | None = None,
+    rename_keypoints: Mapping[str, str] | str | None = None,
 ) -> PoseTracks:
     """Read a tidy table (``.csv``, ``.parquet``, ``.pq``) into ``PoseTracks``.
 
@@ -86,6 +89,10 @@ def read_tidy(
     time_unit : "s" or "ms", optional
         Unit of the ``time`` column (default seconds). Time steps that cannot be seconds at the
         given ``fps`` (or rates below 1 frame per second without ``time_unit``) are refused.
+    rename_keypoints : mapping or str, optional
+        New names for the file's keypoints, ``{"nose": "snout"}`` or ``"nose=snout,..."``
+        (OLD=NEW; command line: ``--reader-option rename_keypoints=nose=snout``), for a session
+        whose tracker named a keypoint otherwise. ``keypoints`` then takes the new names.
 
     Returns
     -------
@@ -138,6 +145,7 @@ def read_tidy(
     kp_codes, kp_names = _fold_variants(
         info, "keypoint", *text_codes(text_cols["keypoint"], "keypoint", info)
     )
+    kp_names = renamed_keypoints(kp_names, keypoint_renames(rename_keypoints, path), path)
     if "animal" in text_cols:
         an_codes, an_names = _fold_variants(
             info, "animal", *text_codes(text_cols["animal"], "animal", info)

@@ -26,9 +26,11 @@ from ethoscribe.io._tables import (
     confidence_on_unit_scale,
     exact_repeats,
     integer_frames,
+    keypoint_renames,
     make_tracks,
     name_list,
     read_columns,
+    renamed_keypoints,
     require_columns,
     table_info,
     warn_unmapped_confidence,
@@ -94,6 +96,7 @@ def read_wide(
     keypoints: list[str] | str | None = None,
     columns: Mapping[str, str] | None = None,
     time_unit: str | None = None,
+    rename_keypoints: Mapping[str, str] | str | None = None,
 ) -> PoseTracks:
     """Read a wide table (one row per frame) whose columns follow ``pattern``.
 
@@ -126,6 +129,10 @@ def read_wide(
         [0, 1], a little above 1 or in percent).
     time_unit : "s" or "ms", optional
         Unit of ``time_column`` (default seconds); checked against ``fps`` as ``read_tidy`` does.
+    rename_keypoints : mapping or str, optional
+        New names for the keypoints the column names give, ``{"nose": "snout"}`` or
+        ``"nose=snout,..."`` (OLD=NEW), as ``read_tidy`` takes them; ``keypoints`` then takes
+        the new names.
 
     Returns
     -------
@@ -159,6 +166,10 @@ def read_wide(
         again = _match_columns(info, pattern, axes, own_confidence, timing, animal)
         if any(k[2] == own_confidence for k in again[0]):
             (found, ignored), confidence_axis = again, own_confidence
+    in_file = list(dict.fromkeys(k for _, k, _ in found))  # the file's keypoint names
+    renames = keypoint_renames(rename_keypoints, path)
+    new = dict(zip(in_file, renamed_keypoints(in_file, renames, path), strict=True))
+    found = {(a, new[k], axis): c for (a, k, axis), c in found.items()}
     per_animal, keypoints = "{animal}" in pattern, name_list(keypoints)
     animals, kp_names, n_dims = _layout(info, found, axes, animal, per_animal, keypoints)
     whole = (frame_column,) if frame_column is not None else ()
@@ -190,7 +201,7 @@ def read_wide(
     has_conf = any(axis == confidence_axis for _, _, axis in found)
     if not has_conf:
         mapped = columns.get("confidence") if columns else None
-        _warn_lookalike(info, pattern, ignored, kp_names, mapped)
+        _warn_lookalike(info, pattern, ignored, [k for k in in_file if new[k] in kp_names], mapped)
     return make_tracks(
         path,
         coords=coords,
