@@ -139,6 +139,27 @@ def test_bout_table_hand_example_cuts_at_gaps_and_edges():
     np.testing.assert_allclose(bouts["mean_probability"], [0.525, 0.675, 0.75, 0.875])
 
 
+def test_the_bout_duration_caption_says_what_the_figure_and_the_table_each_count():
+    # The report's caption said the durations left cut bouts out and, in brackets, that the
+    # table counts every bout; a reader took the table's means for those of uncut bouts.
+    # m1 (cut at the start) | m2 | m1 | m2 (cut at the end), at 10 fps.
+    from ethoscribe.workspace.report_sections import ethogram_sections
+
+    labels = make_labels([0] * 3 + [1] * 4 + [0] * 5 + [1] * 2)
+    bouts = bout_table(labels)
+    assert (bouts["cut_before"] | bouts["cut_after"]).tolist() == [True, False, False, True]
+    (section,) = [x for x in ethogram_sections(bouts, time_budget(labels)) if
+                  x.title == "Bout durations"]  # fmt: skip
+    assert section.text.startswith("The figure shows the bouts not cut by a gap or a recording")
+    assert "The table counts every bout, cut ones included" in section.text
+    (figure,) = section.figures
+    medians = {t.name: t.median[0] for t in figure.data}
+    assert medians == pytest.approx({"motif_01": 0.5, "motif_02": 0.4})  # the uncut bouts
+    ((_, table),) = section.tables
+    assert table["count"].tolist() == [2, 2]
+    np.testing.assert_allclose(table["mean_s"], [np.mean([0.3, 0.5]), np.mean([0.4, 0.2])])
+
+
 def test_merged_states_form_one_bout_and_row_order_does_not_matter():
     labels = make_labels([0, 1, 1, 2])
     labels["motif"] = ["walk", "walk", "walk", "rest"]  # states 0 and 1 share a name

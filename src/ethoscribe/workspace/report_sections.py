@@ -367,8 +367,10 @@ def ethogram_sections(
     sections.append(
         Section(
             "Bout durations",
-            "Durations of the bouts not cut by a gap or a recording edge (cut bouts can be "
-            "shorter than the minimum bout; the table counts every bout).",
+            "The figure shows the bouts not cut by a gap or a recording edge (a cut bout's "
+            "true length is unknown, and it can be shorter than the minimum bout). The table "
+            "counts every bout, cut ones included, as the group comparison's mean and median "
+            "bout durations do.",
             [duration_figure(uncut, min_bout_s=min_bout_s)],
             [("Bout durations", duration_summary(bouts, by=by, groups=groups))],
         )
