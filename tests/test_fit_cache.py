@@ -1,7 +1,8 @@
 """An unchanged rerun of discover reuses the fitted model and its stability report.
 
 The second run must not fit at all (the fit is replaced by one that fails) and must write the
-same workspace, byte for byte in its tables; another seed, or ``force``, fits again.
+same workspace, byte for byte in its tables; another seed, or ``force``, fits again. The
+quality and stability tables it writes are rounded as every CSV of a run.
 
 Data: two simulated sessions of the package's invented animals, a few seconds each.
 """
@@ -11,6 +12,8 @@ from __future__ import annotations
 import json
 import shutil
 
+import numpy as np
+import pandas as pd
 import pytest
 
 from _reliability_data import assert_same_contents, workspace_contents, write_study
@@ -42,3 +45,16 @@ def test_unchanged_rerun_reuses_the_fit(tmp_path, monkeypatch):
         _run(study, first, seed=1)  # another seed: another fit
     with pytest.raises(AssertionError, match="fitted again"):
         _run(study, copy, force=True)
+
+
+def test_quality_and_stability_csv_keep_six_significant_digits(tmp_path):
+    # quality.csv and stability.csv were written at full precision (0.011666666666666667)
+    # while the README says every CSV keeps 6 significant digits, as the other tables do.
+    ws = _run(write_study(tmp_path / "study"), tmp_path / "ws").path
+    for name in ("quality.csv", "stability.csv"):
+        table = pd.read_csv(ws / name)
+        floats = table.select_dtypes("float").to_numpy(np.float64).ravel()
+        floats = floats[np.isfinite(floats)]
+        assert floats.size and (floats != 0).any(), name
+        six = np.array([float(f"{v:.6g}") for v in floats])
+        np.testing.assert_array_equal(floats, six, err_msg=name)

@@ -21,6 +21,7 @@ from ethoscribe.features.vertical_check import resolve_up_axis
 from ethoscribe.features.view_check import resolve_view
 from ethoscribe.io import atomic_table_writer, atomic_write_json, read_json, write_table
 from ethoscribe.io.bundle import write_bundle
+from ethoscribe.label_table import csv_rounded
 from ethoscribe.pose import IN_SESSIONS, PoseTracks, study_keypoints
 from ethoscribe.saved_state import header
 from ethoscribe.segment.model import (
@@ -997,9 +998,9 @@ def _write_workspace(
             q = pd.concat(frames, ignore_index=True)
             if "keypoint" in q and not set(q["keypoint"].astype(str)) <= set(model.keypoints_):
                 q = _invalid_of_model_keypoints(q, decoded)
-            write_table(q, stage.path("quality.csv"))
+            write_table(csv_rounded(q), stage.path("quality.csv"))
         if report is not None and report.table is not None:
-            write_table(report.table, stage.path("stability.csv"))
+            write_table(csv_rounded(report.table), stage.path("stability.csv"))
         meta, arrays = model.to_state()
         write_bundle(stage.path("model"), meta, arrays)
         atomic_write_json(stage.path("summary.json"), jsonable(summary))
