@@ -564,6 +564,30 @@ def test_sessions_lacking_a_keypoint_are_read_scored_and_reported(study, workspa
     assert "neck" in set(pd.read_csv(cohort.path / "quality.csv")["keypoint"])
 
 
+def test_a_cohort_in_percent_is_said_to_be_read_as_percent_once_per_file(
+    study, workspace, tmp_path
+):
+    """Labelling read the first new file twice (once to check its units), so its reading
+    warnings, such as confidences read as percent, came twice for that file only."""
+    percent = tmp_path / "percent"
+    percent.mkdir()
+    for name in ("session_01", "session_02"):
+        table = pd.read_parquet(study / f"{name}.parquet")
+        table["confidence"] *= 100
+        table.to_csv(percent / f"{name}.csv", index=False)
+    with warnings.catch_warnings(record=True) as said:
+        warnings.simplefilter("always")
+        label_sessions(
+            workspace.path, sorted(percent.glob("*.csv")), tmp_path / "cohort",
+            manifest=study / "manifest.csv", progress=False,
+        )  # fmt: skip
+    texts = [str(w.message) for w in said if "read as percent" in str(w.message)]
+    assert sorted(texts) == [
+        f"{name}.csv: confidence written from 0 to 100 is read as percent (divided by 100)"
+        for name in ("session_01", "session_02")
+    ], texts
+
+
 def test_a_cohort_tracked_with_more_keypoints_is_labelled_said_once(study, workspace, tmp_path):
     """New sessions whose tracker gained a keypoint the model was not fitted on: it is left
     out, said in one line naming the sessions (labelling runs per session), and the labels

@@ -899,7 +899,11 @@ def _check_units(plan: Sequence[dict[str, Any]], model: BehaviourModel) -> None:
         return
     cleaning = model.cleaning_
     for entry in plan[:1]:  # the others are checked as they are read
-        units = read_planned(entry).units
+        # The run reads this file again and says its warnings then: said here too, they came
+        # twice (a confidence read as percent, for the first file only).
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            units = read_planned(entry).units
         if units == "px" and cleaning.px_per_unit is not None:
             units = cleaning.unit  # the model's calibration converts them
         if units != wanted:
