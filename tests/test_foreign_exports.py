@@ -4,6 +4,7 @@ wide tables given as tidy ones, misspelled keypoints, mixed single- and multi-an
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -249,6 +250,41 @@ def test_manifest_rows_naming_absent_files_are_said_when_a_folder_is_given(tmp_p
     with pytest.warns(InputWarning, match=r"1 row\(s\) name a file that does not exist.*'b'"):
         plan = plan_sessions([tmp_path], manifest=tmp_path / "m.csv")
     assert [e["session"] for e in plan] == ["a"]
+
+
+def test_manifest_rows_whose_file_is_read_by_session_name_instead_are_said(tmp_path):
+    # With a folder and a manifest, a row whose path names a missing file ('s_3.csv'), or the
+    # file of another row, was given the folder's file named like its session without a word.
+    import warnings
+
+    from ethoscribe.errors import InputWarning
+
+    for name in ("s_01", "s_02", "s_03"):
+        write_tidy(_tracks(0), tmp_path / f"{name}.csv")
+    rows = "session,path,fps\ns_01,s_01.csv,30\ns_02,{},30\ns_03,s_03.csv,30\n"
+    (tmp_path / "m.csv").write_text(rows.format("s_2.csv"))
+    with pytest.warns(InputWarning, match=r"m\.csv: 1 row\(s\) do not name a file of their own: "
+                      r"row 2 \(session 's_02'\): \S+s_2\.csv does not exist; \S+s_02\.csv, named "
+                      r"like the session, is read for it instead"):  # fmt: skip
+        plan = plan_sessions([tmp_path], manifest=tmp_path / "m.csv")
+    assert [Path(e["path"]).name for e in plan] == ["s_01.csv", "s_02.csv", "s_03.csv"]
+    (tmp_path / "m.csv").write_text(rows.format("s_03.csv"))
+    with pytest.warns(InputWarning, match=r"row 2 \(session 's_02'\): \S+s_03\.csv is also the "
+                      r"path of row 3 \(session 's_03'\); \S+s_02\.csv, named like"):  # fmt: skip
+        plan = plan_sessions([tmp_path], manifest=tmp_path / "m.csv")
+    assert [(e["session"], Path(e["path"]).name) for e in plan] == [
+        ("s_01", "s_01.csv"), ("s_02", "s_02.csv"), ("s_03", "s_03.csv")]  # fmt: skip
+    # Without a file named like it, a row naming another's file is said to be left out.
+    (tmp_path / "s_02.csv").unlink()
+    with pytest.warns(InputWarning, match=r"s_03\.csv is also the path of row 3 .*; the row is "
+                      r"left out"):  # fmt: skip
+        plan = plan_sessions([tmp_path], manifest=tmp_path / "m.csv")
+    assert [e["session"] for e in plan] == ["s_01", "s_03"]
+    # Rows naming their own files: nothing to say.
+    (tmp_path / "m.csv").write_text("session,path,fps\ns_01,s_01.csv,30\ns_03,s_03.csv,30\n")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        plan_sessions([tmp_path], manifest=tmp_path / "m.csv")
 
 
 def test_a_session_shorter_than_one_bout_is_said(tmp_path):

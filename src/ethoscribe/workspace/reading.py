@@ -101,6 +101,8 @@ def plan_sessions(
         )
     rows = [] if table is None else [r for _, r in table.iterrows()]
     matched = _manifest_rows(files, rows)
+    if paths:
+        _warn_paths_not_read(files, rows, matched, source)
     _warn_absent_files(rows, matched, source)
     # Files of several formats (tables beside NWB files): an option goes to the readers that
     # take it (``--columns`` to the tables), and is refused only when no reader takes it.
@@ -172,6 +174,50 @@ def _warn_absent_files(rows: list[Any], matched: list[Any], source: str) -> None
         warnings.warn(
             f"{source}: {len(absent)} row(s) name a file that does not exist and are left out: "
             f"{listed(absent)}; correct the path or remove the row",
+            InputWarning,
+            stacklevel=3,
+        )
+
+
+def _warn_paths_not_read(
+    files: Sequence[Path], rows: list[Any], matched: list[Any], source: str
+) -> None:
+    """Say which manifest rows name a file that does not exist, or the file of another row,
+    in a run given files or folders: the file named like the row's session is read for such a
+    row (the warning names the row, its path and that file), or none (a row naming another's
+    file; a missing one is said by :func:`_warn_absent_files`). A run from the manifest alone
+    refuses a missing file."""
+    sharing: dict[str, list[Any]] = {}
+    for r in rows:
+        if _filled(r.get("path")):
+            sharing.setdefault(str(Path(r["path"]).resolve()), []).append(r)
+    read_for = {r.name: Path(f) for f, r in zip(files, matched, strict=True) if r is not None}
+    said = []
+    for r in rows:
+        if not _filled(r.get("path")):
+            continue
+        path = Path(r["path"])
+        others = [o for o in sharing[str(path.resolve())] if o.name != r.name]
+        read = read_for.get(r.name)
+        if (path.exists() and not others) or (
+            read is not None and read.resolve() == path.resolve()
+        ):
+            continue  # the row's own file, read or not given
+        why = (
+            "does not exist"
+            if not path.exists()
+            else f"is also the path of row {others[0].name + 1} (session '{others[0]['session']}')"
+        )
+        where = f"row {r.name + 1} (session '{r['session']}'): {path} {why}"
+        if read is not None:
+            said.append(f"{where}; {read}, named like the session, is read for it instead")
+        elif path.exists():
+            said.append(f"{where}; the row is left out")
+    if said:
+        warnings.warn(
+            f"{source}: {len(said)} row(s) do not name a file of their own: "
+            f"{listed(said, sep='; ')}. Correct the path of each such row if that is not the "
+            "session's file",
             InputWarning,
             stacklevel=3,
         )
