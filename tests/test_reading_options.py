@@ -235,6 +235,55 @@ def test_manifest_rows_are_found_by_path_and_name_the_session(tmp_path):
     assert len(plan_sessions(None, tmp_path / "manifest_v2.csv")) == 2
 
 
+def test_a_manifest_row_gives_its_own_column_mapping_to_tidy_and_wide_tables(tmp_path):
+    # One study of a tidy table (frame_idx, bodypart, px, py, likelihood) and a wide one
+    # (nose_x, nose_p ...): both readers take --columns with other meanings, so no
+    # one mapping read both, and a 'columns' manifest column was ignored without a word.
+    from ethoscribe.io import load_study
+
+    t = _tracks(n=30)
+    conf = np.linspace(0.2, 0.9, 30 * 3).reshape(30, 1, 3)
+    n, _, k, _ = t.coords.shape
+    pd.DataFrame({
+        "frame_idx": np.repeat(np.arange(n), k), "bodypart": np.tile(list(t.keypoints), n),
+        "px": t.coords[:, 0, :, 0].ravel(), "py": t.coords[:, 0, :, 1].ravel(),
+        "likelihood": conf.ravel(),
+    }).to_csv(tmp_path / "a.csv", index=False)  # fmt: skip
+    wide = pd.DataFrame(index=range(n))
+    for j, name in enumerate(t.keypoints):
+        wide[f"{name}_x"], wide[f"{name}_y"] = t.coords[:, 0, j, 0], t.coords[:, 0, j, 1]
+        wide[f"{name}_p"] = conf[:, 0, j]
+    wide.to_csv(tmp_path / "b.csv", index=False)
+    tidy_map = "frame=frame_idx,keypoint=bodypart,x=px,y=py,confidence=likelihood"
+    manifest = tmp_path / "manifest.csv"
+    pd.DataFrame({"session": ["a", "b"], "path": ["a.csv", "b.csv"], "fps": 30.0,
+                  "format": ["tidy", "wide"], "columns": [tidy_map, "confidence=p"]}
+                 ).to_csv(manifest, index=False)  # fmt: skip
+    run = {"columns": {"keypoint": "bodypart"}}  # the run's mapping: replaced on these rows
+    plan = plan_sessions(None, manifest, reader_options=run)
+    assert plan[0]["options"] == {"columns": dict(p.split("=") for p in tidy_map.split(","))}
+    assert plan[1]["options"] == {"columns": {"confidence": "p"}}
+    assert all("columns" not in e["meta"] for e in plan)  # in reader_options, not metadata
+    for read in ([read_planned(e) for e in plan], load_study(manifest, progress=False, **run)):
+        for s in read:
+            np.testing.assert_array_equal(s.coords, t.coords)
+            np.testing.assert_allclose(s.confidence, conf)
+    # A cell that is not ROLE=COLUMN pairs is refused, naming the row.
+    table = pd.read_csv(manifest)
+    table.loc[1, "columns"] = "confidence:p"
+    table.to_csv(manifest, index=False)
+    with pytest.raises(InputError, match=r"row 2 \(session 'b'\): the columns cell takes "
+                       r"ROLE=COLUMN pairs .*'confidence:p'"):  # fmt: skip
+        plan_sessions(None, manifest, reader_options=run)
+    # A column named like a reading option of the whole run is said to be kept as metadata.
+    table.loc[1, "columns"] = "confidence=p"
+    table.assign(pattern="{keypoint}_{axis}").to_csv(manifest, index=False)
+    with pytest.warns(UserWarning, match=r"column\(s\) \['pattern'\] are kept as columns of "
+                      r"your own \(session metadata\), not read as reading options"):  # fmt: skip
+        plan = plan_sessions(None, manifest, reader_options=run)
+    assert plan[1]["meta"]["pattern"] == "{keypoint}_{axis}"
+
+
 @pytest.mark.parametrize(
     ("value", "argument"),
     [(pd.DataFrame(), "inputs"), (3, "inputs"), ([None], r"inputs\[0\]")],

@@ -1,8 +1,10 @@
 """The session manifest: one CSV row per recording, and reading a whole study from it.
 
 Required columns ``session, path``; optional ``fps, group, subject, condition, px_per_unit,
-units, video``; any other column is kept as session metadata. Paths are relative to the
-manifest's own folder. Rows are counted from 1 below the header.
+units, video``, and for reading ``format`` (the row's reader) and ``columns`` (the row's column
+mapping, ROLE=COLUMN pairs as ``--columns`` takes them); any other column is kept as session
+metadata. Paths are relative to the manifest's own folder. Rows are counted from 1 below the
+header.
 """
 
 from __future__ import annotations
@@ -29,7 +31,18 @@ from ethoscribe.pose import (
 
 REQUIRED = ("session", "path")
 OPTIONAL = ("fps", "group", "subject", "condition", "px_per_unit", "units", "video")
+READING = ("format", "columns")
+"""Columns that tell how a row's file is read: its reader, and its column mapping (the one
+reading option two readers of one study may need differently: a tidy table's column names, a
+wide table's axis words)."""
 _LABELS = ("group", "subject", "condition")
+# Reading options that apply to a whole run: a manifest column so named is kept as a column of
+# one's own, so it is said (a user may expect it to set the row's option).
+_RUN_OPTIONS = (
+    "pattern", "frame_column", "time_column", "time_unit", "keypoints", "rename_keypoints",
+    "confidence_axis", "axes", "pose_estimation", "containers", "join_tracks", "reader_option",
+    "reader_options",
+)  # fmt: skip
 
 
 def read_manifest(path: str | os.PathLike[str], require_paths: bool = True) -> pd.DataFrame:
@@ -76,7 +89,7 @@ def validate_manifest(
     if not require_paths and "path" not in table.columns:
         table = table.assign(path="")
     missing = [c for c in REQUIRED if c not in table.columns]
-    alike = similar_columns(table.columns, (*REQUIRED, *OPTIONAL, "format"))
+    alike = similar_columns(table.columns, (*REQUIRED, *OPTIONAL, *READING))
     hints = rename_hints(alike)
     if missing:
         raise InputError(
@@ -204,6 +217,42 @@ def _session_meta(row: dict[str, Any], extras: list[str], source: str, i: int) -
     return meta
 
 
+def row_columns(row: Any, where: str) -> dict[str, str] | None:
+    """A manifest row's column mapping (its ``columns`` cell, ROLE=COLUMN pairs separated by
+    commas, as ``--columns`` takes them), or None when the cell is empty or absent.
+
+    Examples
+    --------
+    >>> row_columns({"columns": "confidence=p, frame=frame_no"}, "row 1")
+    {'confidence': 'p', 'frame': 'frame_no'}
+    """
+    text = _cell(row.get("columns")) if hasattr(row, "get") else ""
+    if not text:
+        return None
+    pairs = [[t.strip() for t in item.partition("=")] for item in text.split(",")]
+    if not all(role and sep and name for role, sep, name in pairs):
+        raise InputError(
+            f"{where}: the columns cell takes ROLE=COLUMN pairs separated by commas, as "
+            f"--columns does (e.g. confidence=likelihood,x=pos_x); got {text!r}"
+        )
+    return {role: name for role, _, name in pairs}
+
+
+def warn_run_options(table: pd.DataFrame, source: str) -> None:
+    """Say which manifest columns are named like reading options that apply to a whole run:
+    they are kept as session metadata, not read as the row's option."""
+    named = [c for c in table.columns if c in _RUN_OPTIONS]
+    if named:
+        warnings.warn(
+            f"{source}: column(s) {named} are kept as columns of your own (session "
+            "metadata), not read as reading options: those apply to the whole run (on the "
+            "command line, or reader_options=), each to the readers that take it; only the "
+            "column mapping may differ by row (a 'columns' column, ROLE=COLUMN pairs)",
+            InputWarning,
+            stacklevel=3,
+        )
+
+
 def load_study(
     manifest: str | os.PathLike[str] | pd.DataFrame,
     fps: float | None = None,
@@ -245,13 +294,17 @@ def load_study(
     source = table.attrs["manifest"]
     if "session" in reader_options:
         raise InputError("load_study names sessions from the manifest; do not pass session=")
-    extras = [c for c in table.columns if c not in (*REQUIRED, *OPTIONAL)]
+    warn_run_options(table, source)
+    extras = [c for c in table.columns if c not in (*REQUIRED, *OPTIONAL, "columns")]
     sessions = []
     rows = table.to_dict("records")
     for i, row in enumerate(
         tqdm(rows, desc="reading sessions", unit="session", disable=not progress)
     ):
         options = dict(reader_options)
+        own_columns = row_columns(row, f"{source}: row {i + 1} (session '{row['session']}')")
+        if own_columns is not None:
+            options["columns"] = own_columns  # in place of the run's mapping
         row_fps = row.get("fps", np.nan)
         if np.isfinite(row_fps) or fps is not None:
             options["fps"] = float(row_fps) if np.isfinite(row_fps) else fps

@@ -335,7 +335,9 @@ def _mapped(
         return axes, confidence_axis, frame_column, time_column
     check_role_mapping(
         path, columns, _ROLES, "names",
-        " (wide tables: x/y/z/confidence name the axis word in the column names)",
+        " (wide tables: x/y/z/confidence name the axis word in the column names; a study "
+        "mixing tidy and wide tables gives each manifest row its own mapping in a 'columns' "
+        "column)",
     )  # fmt: skip
     axes = tuple(columns.get(a, axes[i]) if i < len(axes) else a for i, a in
                  enumerate(("x", "y", "z")[: len(axes)]))  # fmt: skip

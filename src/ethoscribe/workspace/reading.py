@@ -17,6 +17,7 @@ from tqdm.auto import tqdm
 from ethoscribe.clean import CleanParams, calibrate
 from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io import pose_files, read_manifest, read_pose, validate_manifest
+from ethoscribe.io.manifest import row_columns, warn_run_options
 from ethoscribe.io.registry import (
     check_reader_options,
     format_for,
@@ -100,6 +101,8 @@ def plan_sessions(
             "no pose files given: name files or folders, or a manifest with a path column"
         )
     rows = [] if table is None else [r for _, r in table.iterrows()]
+    if table is not None:
+        warn_run_options(table, source)
     matched = _manifest_rows(files, rows)
     if paths:
         _warn_paths_not_read(files, rows, matched, source)
@@ -127,11 +130,22 @@ def plan_sessions(
         extra = (
             {}
             if row is None
-            else {k: v for k, v in row.items() if k not in ("session", "path") and _filled(v)}
+            else {
+                k: v
+                for k, v in row.items()
+                if k not in ("session", "path", "columns") and _filled(v)
+            }
         )
         px = _row_value(row, "px_per_unit", None)
         accepted = _accepted(fmt)
         file_options = {k: v for k, v in options.items() if k not in taken or {k, "*"} & accepted}
+        # The row's own column mapping, in place of the run's (tidy and wide tables of one
+        # study name their columns differently: column names, axis words).
+        if row is not None:
+            where = f"{source}: row {row.name + 1} (session '{row['session']}')"
+            own_columns = row_columns(row, where)
+            if own_columns is not None:
+                file_options["columns"] = own_columns
         units = _row_value(row, "units", None)
         takes_units = _takes_any(fmt) or "units" in options_of(fmt)
         if units is not None and px is None and units != "px" and takes_units:
