@@ -355,7 +355,7 @@ def test_group_comparison_and_its_errors(wb, folder):
     assert len(wb.groups.figure.data) == 2 and "Compared 4 sessions" in wb.groups.summary.value
     wb.state.run_comparison("subject")
     kind, text = wb.state.message
-    assert kind == "error" and "single session" in text
+    assert kind == "error" and "single subject" in text
 
 
 def test_what_a_run_records_about_each_session_is_not_offered_as_a_grouping(folder):
