@@ -104,7 +104,8 @@ class GroupPage:
         state.on("comparison", self.draw)
         hint = (
             "Compares every motif's time budget, bout rate, bout durations and transitions "
-            "between the groups (one value per session), with Benjamini-Hochberg q-values "
+            "between the groups (one value per subject, the session where no subject is given: "
+            "the animals of a session are averaged), with Benjamini-Hochberg q-values "
             "within each of these families of tests. Results are written to "
             "comparison_&lt;column&gt;/ in the workspace."
             if columns
