@@ -227,6 +227,23 @@ def test_groups_from_a_manifest_with_another_column(tmp_path):
     assert "groups of 'housing'" in summary
 
 
+def test_subjects_are_the_unit_and_an_empty_subject_is_the_session(tmp_path):
+    # Sessions of one subject in one group are one value; a session whose subject is left
+    # empty in the manifest is its own (not one subject with the other empty ones).
+    folder = make_workspace(tmp_path / "ws")
+    table = pd.DataFrame({"session": list(GROUP_OF), "group": list(GROUP_OF.values())})
+    table["subject"] = [f"vole_{i // 2}" for i in range(16)]  # two sessions per vole
+    table.loc[[0, 1, 2, 3], "subject"] = ""
+    table.to_csv(tmp_path / "m.csv", index=False)
+    summary = compare(folder, tmp_path / "out", manifest=tmp_path / "m.csv")
+    stats = pd.read_csv(tmp_path / "out" / "group_stats.csv")
+    groups = table.assign(unit=table["subject"].where(table["subject"] != "", table["session"]))
+    sizes = groups.groupby("group")["unit"].nunique()
+    assert (stats["n_a"] == sizes[stats["group_a"]].to_numpy()).all()
+    assert (stats["n_b"] == sizes[stats["group_b"]].to_numpy()).all()
+    assert "recordings" in summary and "subjects: each subject's values are averaged" in summary
+
+
 def test_paired_design_matches_subjects(tmp_path):
     folder = make_workspace(tmp_path / "ws")
     table = pd.DataFrame({"session": list(GROUP_OF), "condition": list(GROUP_OF.values())})

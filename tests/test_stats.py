@@ -475,3 +475,13 @@ def test_recovery_of_a_planted_time_budget_shift_over_seeds():
     print(f"planted motif found {found}/8; other motifs called {false}/{others}")
     assert found >= 7  # seen: 19/20 over seeds 0-19
     assert false / others <= 0.1  # seen: 4/180 (others do move by -5.6%)
+
+
+def test_sessions_whose_subject_is_left_empty_are_subjects_of_their_own():
+    # A manifest whose subject column is filled for some sessions only: the empty ones must
+    # not be averaged together as one subject.
+    labels, sessions = simulate_groups(seed=1, n_per_group=3, n_motifs=3, n_frames=1500)
+    sessions = sessions.assign(subject=[np.nan, "", " "] * 2)
+    out = compare_groups(session_metrics(labels, bout_table(labels), sessions))
+    assert (out["n_a"] == 3).all() and (out["n_b"] == 3).all()
+    assert not any("averaged" in w for w in out.attrs["warnings"])

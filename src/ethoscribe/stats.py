@@ -80,6 +80,9 @@ def _design(sessions: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
     design["session"] = design["session"].astype(str)
     if "subject" not in design.columns:
         design["subject"] = design["session"]
+    # an empty subject is the session's own, not one shared with the other empty ones
+    empty = design["subject"].isna() | (design["subject"].astype(str).str.strip() == "")
+    design["subject"] = design["subject"].where(~empty, design["session"])
     if design.duplicated(keys).any():
         raise InputError(f"the sessions table lists a {'/'.join(keys)} more than once")
     return design[[*keys, "group", "subject"]].astype(str), keys

@@ -275,7 +275,9 @@ def _design(
         msg = f"{source} has no 'subject' column; a paired comparison matches sessions by subject"
         raise InputError(f"{msg}. Add one (the animal measured under each {by!r})")
     design = pd.DataFrame({"session": _text(table["session"]), "group": _text(table[by])})
-    design["subject"] = _text(table["subject"]) if "subject" in table else design["session"]
+    subject = _text(table["subject"]) if "subject" in table else design["session"]
+    # a session whose subject is left empty is a subject of its own (not one with the others)
+    design["subject"] = subject.where(subject != "", design["session"])
     _check_coverage(design, labels, source, ws)
     # An empty group leaves the session out of the comparison (the caller says so)
     empty = design.loc[design["group"] == "", "session"].tolist()
