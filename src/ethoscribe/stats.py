@@ -4,11 +4,10 @@
 and motif); ``compare_groups`` tests every metric x motif between every pair of groups with a
 permutation or rank test, with effect sizes and their intervals, on one value per subject (the
 session where no subject is given: the animals of one session are not independent). Planned
-comparisons are
-Holm-corrected together; every other test is exploratory and Benjamini-Hochberg-corrected within
-its family of measurements (:mod:`ethoscribe.multiplicity`). The tests and effect sizes themselves
-live in :mod:`ethoscribe.effects` (re-exported here), which also explains when permutation tests
-are exact.
+comparisons are Holm-corrected together; every other test is exploratory and
+Benjamini-Hochberg-corrected within its family of measurements (:mod:`ethoscribe.multiplicity`).
+The tests and effect sizes themselves live in :mod:`ethoscribe.effects` (re-exported here), which
+also explains when permutation tests are exact.
 """
 
 from __future__ import annotations

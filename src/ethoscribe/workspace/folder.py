@@ -334,12 +334,12 @@ class Workspace:
     def model(self) -> BehaviourModel:
         return load_model(self.path / "model")
 
-    def state_labels(self) -> pd.DataFrame:
-        """Per-frame labels with the model's default motif names."""
+    def state_labels(self, columns: Sequence[str] | None = None) -> pd.DataFrame:
+        """Per-frame labels with the model's default motif names (``columns``: only these)."""
         path = self.path / "labels.parquet"
         try:
-            return pd.read_parquet(path)
-        except (OSError, ValueError, pa.ArrowException) as exc:
+            return pd.read_parquet(path, columns=None if columns is None else list(columns))
+        except (OSError, ValueError, KeyError, pa.ArrowException) as exc:
             msg = f"{path}: cannot be read ({exc}); the workspace is damaged: run discover again"
             raise WorkspaceError(msg) from None
 
@@ -347,12 +347,7 @@ class Workspace:
         """Share of the labelled frames each fitted state labels (index: every state of the
         model, 0 for a state that labels no frame: the model visits it only in bouts shorter
         than the minimum bout, which are merged into their neighbours, or not at all)."""
-        path = self.path / "labels.parquet"
-        try:
-            states = pd.read_parquet(path, columns=["state"])["state"].to_numpy()
-        except (OSError, ValueError, KeyError, pa.ArrowException) as exc:
-            msg = f"{path}: cannot be read ({exc}); the workspace is damaged: run discover again"
-            raise WorkspaceError(msg) from None
+        states = self.state_labels(["state"])["state"].to_numpy()
         states = states[states >= 0]
         counts = np.bincount(states.astype(np.int64), minlength=self.summary["n_states"])
         return pd.Series(counts / max(len(states), 1), name="labelled_share").rename_axis("state")
