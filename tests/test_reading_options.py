@@ -284,6 +284,29 @@ def test_a_manifest_row_gives_its_own_column_mapping_to_tidy_and_wide_tables(tmp
     assert plan[1]["meta"]["pattern"] == "{keypoint}_{axis}"
 
 
+def test_load_study_gives_each_option_to_the_readers_that_take_it(tmp_path):
+    # A study of a tidy table and a wide one written 'nose.x': pattern= is the wide reader's
+    # only, as discover sends it; before, load_study handed it to the tidy reader too, which
+    # refused it. An option no reader takes is still refused (a misspelling).
+    from ethoscribe.io import load_study
+
+    t = _tracks(n=30)
+    write_tidy(t, tmp_path / "a.csv")
+    wide = pd.DataFrame({"frame": np.arange(30)})
+    for j, name in enumerate(t.keypoints):
+        wide[f"{name}.x"], wide[f"{name}.y"] = t.coords[:, 0, j, 0], t.coords[:, 0, j, 1]
+    wide.to_csv(tmp_path / "b.csv", index=False)
+    manifest = tmp_path / "manifest.csv"
+    pd.DataFrame({"session": ["a", "b"], "path": ["a.csv", "b.csv"], "fps": 30.0,
+                  "format": ["tidy", "wide"]}).to_csv(manifest, index=False)  # fmt: skip
+    read = load_study(manifest, progress=False, pattern="{keypoint}.{axis}", frame_column="frame")
+    for s in read:
+        np.testing.assert_array_equal(s.coords, t.coords)
+    with pytest.raises(InputError, match=r"no reader of this study \(tidy, wide\) takes the "
+                       r"option\(s\) \['patern'\]"):  # fmt: skip
+        load_study(manifest, progress=False, patern="{keypoint}.{axis}")
+
+
 @pytest.mark.parametrize(
     ("value", "argument"),
     [(pd.DataFrame(), "inputs"), (3, "inputs"), ([None], r"inputs\[0\]")],

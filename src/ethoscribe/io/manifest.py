@@ -20,7 +20,7 @@ from tqdm.auto import tqdm
 
 from ethoscribe.errors import InputError, InputWarning, listed
 from ethoscribe.io._tables import check_file, rename_hints, separator_hint, similar_columns
-from ethoscribe.io.registry import read_pose
+from ethoscribe.io.registry import format_for, read_pose, takes_option
 from ethoscribe.pose import (
     UNITS,
     PoseTracks,
@@ -253,6 +253,15 @@ def warn_run_options(table: pd.DataFrame, source: str) -> None:
         )
 
 
+def _row_format(row: dict[str, Any], format: str | None, source: str, i: int) -> str:
+    """The reader of a manifest row: its ``format`` cell, else ``format``, else its suffix."""
+    own = row.get("format")
+    try:
+        return format_for(row["path"], own if isinstance(own, str) and own.strip() else format)
+    except InputError as exc:
+        raise InputError(f"{source}: row {i + 1} (session '{row['session']}'): {exc}") from None
+
+
 def load_study(
     manifest: str | os.PathLike[str] | pd.DataFrame,
     fps: float | None = None,
@@ -274,7 +283,9 @@ def load_study(
     format : str, optional
         Reader name for every file ("tidy", "wide", "nwb"); default by suffix.
     **reader_options
-        Passed to the reader (e.g. ``pattern=`` for wide tables).
+        Passed to the readers that take them (e.g. ``pattern=`` to the wide reader only, where
+        a ``format`` column mixes tidy and wide tables); an option no reader of the study
+        takes is refused.
 
     Returns
     -------
@@ -298,10 +309,18 @@ def load_study(
     extras = [c for c in table.columns if c not in (*REQUIRED, *OPTIONAL, "columns")]
     sessions = []
     rows = table.to_dict("records")
+    formats = [_row_format(row, format, source, i) for i, row in enumerate(rows)]
+    unused = sorted(k for k in reader_options if not any(takes_option(f, k) for f in formats))
+    if unused:
+        raise InputError(
+            f"{source}: no reader of this study ({', '.join(sorted(set(formats)))}) takes the "
+            f"option(s) {unused}; leave them out, or check their spelling"
+        )
     for i, row in enumerate(
         tqdm(rows, desc="reading sessions", unit="session", disable=not progress)
     ):
-        options = dict(reader_options)
+        fmt = formats[i]  # each option goes to the readers that take it, as discover does
+        options = {k: v for k, v in reader_options.items() if takes_option(fmt, k)}
         own_columns = row_columns(row, f"{source}: row {i + 1} (session '{row['session']}')")
         if own_columns is not None:
             options["columns"] = own_columns  # in place of the run's mapping
@@ -311,8 +330,6 @@ def load_study(
         if row.get("units") and not np.isfinite(row.get("px_per_unit", np.nan)):
             options["units"] = row["units"]  # the file is already in these units
         try:
-            own = row.get("format")  # a manifest's format column: this row's reader
-            fmt = own if isinstance(own, str) and own.strip() else format
             tracks = read_pose(row["path"], format=fmt, session=row["session"], **options)
         except InputError as exc:
             msg = f"{source}: row {i + 1} (session '{row['session']}'): {exc}"

@@ -142,6 +142,13 @@ def reader_options(format: str) -> list[str]:
     return [p for i, p in enumerate(params) if i > 0]
 
 
+def takes_option(format: str, name: str) -> bool:
+    """Whether the reader of ``format`` takes the option ``name`` (every name when it takes
+    ``**options``)."""
+    params = inspect.signature(_READERS[_known(format, "reader options")].func).parameters
+    return name in params or any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params.values())
+
+
 def check_reader_options(format: str, options: Mapping[str, Any], where: Any = "") -> None:
     """Refuse options the reader of ``format`` does not take, before reading any file."""
     func = _READERS[_known(format, where or "reader options")].func
