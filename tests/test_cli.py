@@ -114,6 +114,20 @@ def test_options_are_checked_before_any_work(capsys):
     assert "--confidence-scale takes 'auto' or a number in (0, 1]" in capsys.readouterr().err
 
 
+@pytest.mark.parametrize(
+    ("option", "value", "said"),
+    [("--sessions", "0", "--sessions takes a whole number of sessions per group, at least 1"),
+     ("--duration", "-3", "--duration takes the seconds of each session, from 1 to 86400")],
+)  # fmt: skip
+def test_simulate_names_its_own_options(capsys, tmp_path, option, value, said):
+    # '--sessions 0' was told 'n_per_group must be at least 1' and '--duration -3' of an
+    # '--fps' the command does not have.
+    with pytest.raises(SystemExit) as stop:
+        main(["simulate", "--out", str(tmp_path / "s"), option, value])
+    assert stop.value.code == 2
+    assert said in capsys.readouterr().err and not (tmp_path / "s").exists()
+
+
 @pytest.mark.parametrize("value", ["50", "-0.1", "nan"])
 def test_a_confidence_threshold_outside_0_1_is_told_the_fraction_and_how_to_mask_nothing(
     capsys, value

@@ -112,6 +112,30 @@ def _min_confidence(value: str) -> float:
     return number
 
 
+def _sessions_per_group(value: str) -> int:
+    try:
+        number = int(value)
+    except ValueError:
+        number = 0
+    if number < 1:
+        raise argparse.ArgumentTypeError(
+            f"--sessions takes a whole number of sessions per group, at least 1; got {value!r}"
+        )
+    return number
+
+
+def _session_seconds(value: str) -> float:
+    try:
+        number = float(value)
+    except ValueError:
+        number = float("nan")
+    if not 1 <= number <= 86_400:  # NaN too; a day at most: a simulated session is in memory
+        raise argparse.ArgumentTypeError(
+            f"--duration takes the seconds of each session, from 1 to 86400 (a day); got {value!r}"
+        )
+    return number
+
+
 def _confidence_scale(value: str) -> float | str:
     if value == "auto":
         return value
@@ -418,9 +442,11 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument(
         "--out", type=Path, required=True, help="folder for the pose files and manifest.csv"
     )
-    s.add_argument("--sessions", type=int, default=8, help="sessions per group (default 8)")
     s.add_argument(
-        "--duration", type=float, default=240.0, help="seconds per session (default 240)"
+        "--sessions", type=_sessions_per_group, default=8, help="sessions per group (default 8)"
+    )
+    s.add_argument(
+        "--duration", type=_session_seconds, default=240.0, help="seconds per session (default 240)"
     )
     s.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     return parser
