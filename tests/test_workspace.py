@@ -182,6 +182,14 @@ def test_names_given_from_python_reach_the_report_when_the_ethogram_is_saved(wor
     assert written["report.html"] == ws.path / "report.html"
     assert "resting_renamed" in (ws.path / "report.html").read_text()
     assert "resting_renamed" in set(pd.read_csv(ws.path / "exports" / "bouts.csv")["motif"])
+    # the exported CSVs are rounded as the run's own (seconds to 0.1 ms, others to 6
+    # significant digits); they were written at full precision
+    for name in ("bout_durations.csv", "time_budget.csv", "transitions.csv"):
+        table = pd.read_csv(ws.path / "exports" / name)
+        for column in table.select_dtypes("float"):
+            values = table[column].dropna().to_numpy()
+            digits = [round(v, 4) if column.endswith("_s") else float(f"{v:.6g}") for v in values]
+            np.testing.assert_array_equal(values, digits, err_msg=f"{name}: {column}")
 
 
 def test_second_editor_gets_a_clear_message(workspace, tmp_path):

@@ -24,6 +24,7 @@ import pandas as pd
 from ethoscribe.ethogram import bout_table, duration_summary, time_budget, transition_matrix
 from ethoscribe.ethogram import transition_table as transitions_of
 from ethoscribe.io import safe_child, write_table
+from ethoscribe.label_table import csv_rounded
 from ethoscribe.workspace.compare import write_ethogram_report
 from ethoscribe.workspace.folder import Workspace
 
@@ -73,7 +74,9 @@ def _save_ethogram(ws: Workspace, out: Path, report: bool) -> dict[str, Path]:
     }
     written = {}
     for name, table in tables.items():
-        written[name] = write_table(table, out / name)
+        # CSVs rounded as every other CSV of a run; Parquet keeps full precision
+        rounded = csv_rounded(table) if name.endswith(".csv") else table
+        written[name] = write_table(rounded, out / name)
     if report:
         path = write_ethogram_report(ws, ws.path / REPORT_FILE, (bouts, budgets))
         written[REPORT_FILE] = Path(path)
