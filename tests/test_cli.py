@@ -264,3 +264,17 @@ def test_every_command_says_what_it_does_with_an_example_and_every_option_has_he
         assert sub.epilog and sub.epilog.startswith("example:"), f"{name}: no example"
         for action in sub._actions:
             assert action.help, f"ethoscribe {name} {action.option_strings or action.dest}"
+
+
+def test_a_commands_files_may_follow_its_options():
+    # 'ethoscribe label WS --out DIR FILES' was refused ("unrecognized arguments: FILES"),
+    # with the top-level usage, while discover took its files anywhere.
+    from pathlib import Path
+
+    from ethoscribe.cli import _parse
+
+    args = _parse(["label", "ws", "--out", "o", "a.csv", "b.csv", "--quiet"])
+    assert (args.command, args.model, args.out) == ("label", Path("ws"), Path("o"))
+    assert args.inputs == [Path("a.csv"), Path("b.csv")] and args.quiet
+    assert _parse(["label", "ws", "a.csv", "--out", "o"]).inputs == [Path("a.csv")]
+    assert _parse(["discover", "--out", "o", "a.csv"]).inputs == [Path("a.csv")]

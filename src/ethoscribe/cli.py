@@ -802,9 +802,25 @@ def command_line_message(message: str) -> str:
     return _COMPARED.sub(lambda m: _OPTIONS[m.group(1)], message)
 
 
+def _parse(argv: Sequence[str] | None) -> argparse.Namespace:
+    """The command line's arguments, the command's files given before or after its options
+    (``ethoscribe label WS --out DIR FILES``): argparse reads a command's positional arguments
+    in one run, so files after an option were refused as unrecognized."""
+    parser = build_parser()
+    tokens = list(sys.argv[1:] if argv is None else argv)
+    args, extra = parser.parse_known_args(tokens)
+    if not extra:
+        return args
+    commands = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    at = tokens.index(args.command)
+    own = commands.choices[args.command].parse_intermixed_args(tokens[at + 1 :])
+    own.command = args.command
+    return own
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``ethoscribe`` command; returns the exit code."""
-    args = build_parser().parse_args(argv)
+    args = _parse(argv)
     where = f"ethoscribe {args.command}"
 
     def show(message: Any, category: Any, *_: Any, **__: Any) -> None:
