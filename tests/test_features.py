@@ -353,9 +353,14 @@ def test_speeds_are_in_units_per_second_at_any_frame_rate():
 
 def test_bad_input_is_named():
     tracks = walking(n=100, seed=16)
-    with pytest.raises(InputError, match=r"origin keypoint 'snout'.*known keypoints.*'nose'"):
+    # named as the option, not the class (the command line read "FeaturePipeline: ..."),
+    # with the close name (difflib's get_close_matches)
+    said = r"^the origin keypoint 'snout' \(origin=\) is not one of the tracks' keypoints \["
+    with pytest.raises(InputError, match=said + r".*'nose'.*\]; name one of them"):
         FeaturePipeline(origin="snout").fit([tracks])
-    with pytest.raises(InputError, match=r"axis keypoint 'head'.*known keypoints"):
+    with pytest.raises(InputError, match=r"\('nose'\?\)$"):
+        FeaturePipeline(origin="nosee").fit([tracks])
+    with pytest.raises(InputError, match=r"axis keypoint 'head'.*tracks' keypoints"):
         FeaturePipeline(axis=("tail_base", "head")).fit([tracks])
     single = PoseTracks(tracks.coords[:, :, :1], keypoints=["nose"], fps=30.0)
     with pytest.raises(InputError, match=r"only 1 \(\['nose'\]\)"):

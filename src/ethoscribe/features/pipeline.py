@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import difflib
 import warnings
 from collections.abc import Mapping, Sequence
 from typing import Any
@@ -438,9 +439,11 @@ class FeaturePipeline(BaseEstimator):
         named += [("axis", a) for a in self.axis or ()]
         for what, name in named:
             if name not in keypoints:
+                close = difflib.get_close_matches(name, keypoints, n=1)
                 msg = (
-                    f"FeaturePipeline: {what} keypoint '{name}' is not in the tracks; known "
-                    f"keypoints: {list(keypoints)}"
+                    f"the {what} keypoint '{name}' ({what}=) is not one of the tracks' "
+                    f"keypoints {list(keypoints)}; name one of them"
+                    + (f" ('{close[0]}'?)" if close else "")
                 )
                 raise InputError(msg)
 
