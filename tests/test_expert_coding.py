@@ -40,6 +40,15 @@ def test_bouts_become_frames_and_uncoded_time_is_left_out(tmp_path):
     assert coded[coded["session"] == "s2"]["frame"].tolist() == list(range(15, 30))
 
 
+def test_a_bout_shorter_than_a_frame_is_said_when_left_out(tmp_path):
+    # Start and stop go to the nearest frame (round(t * fps)): a bout of 10 ms at 30 fps
+    # covers no frame and was dropped without a word.
+    path = _write(tmp_path, "session,behaviour,start_s,stop_s\ns1,rest,0,1\ns1,twitch,2.0,2.01\n")
+    with pytest.warns(InputWarning, match=r"1 coded bout\(s\) cover no frame .* rows 3"):
+        coded = read_expert_coding(path, SESSIONS)
+    assert coded["frame"].tolist() == list(range(30)) and set(coded["behaviour"]) == {"rest"}
+
+
 def test_per_frame_coding_and_parquet(tmp_path):
     table = pd.DataFrame(
         {"session": ["s1"] * 4, "frame": [0, 1, 2, 5], "behaviour": ["a", "a", None, "b"]}

@@ -466,6 +466,16 @@ def _bouts(
             f"{b['start']}); one frame has one behaviour: shorten one of the bouts"
         )
         raise InputError(msg)
+    none = (bouts["behaviour"] != "") & (bouts["stop"] <= bouts["start"])
+    if none.any():  # a bout shorter than a frame starts and stops on the same frame
+        rows = listed(map(str, bouts.loc[none, "row"].sort_values()), 10)
+        warnings.warn(
+            f"{path}: {int(none.sum())} coded bout(s) cover no frame once their start and stop "
+            f"are rounded to the nearest frame (shorter than a frame), and are left out: rows "
+            f"{rows}",
+            InputWarning,
+            stacklevel=3,
+        )
     bouts = bouts[(bouts["behaviour"] != "") & (bouts["stop"] > bouts["start"])]
     lengths = (bouts["stop"] - bouts["start"]).to_numpy()
     coded = pd.DataFrame(
