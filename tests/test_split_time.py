@@ -70,6 +70,8 @@ def test_split_along_time_gives_runs_of_at_least_the_minimum_bout():
     assert got.loc["slow", "n_frames"] == counts["slow"]
     assert got.loc["fast", "n_bouts"] == sum(m == "fast" for m, _, _ in runs)
     assert got.loc["motif_01", "n_frames"] == counts["fast"] + counts["slow"]
+    # so does the journal record (it held the 2-means clusters' sizes before the time rule)
+    assert record["frames_assignment"]["n_frames"] == [counts["fast"], counts["slow"]]
     # the journal replays to the same labels
     again = Curation.from_journal(cur.history, dict(enumerate(["motif_01", "motif_02"])))
     assert again.apply(labels, features)["motif"].tolist() == result["motif"].tolist()

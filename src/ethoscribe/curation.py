@@ -419,9 +419,14 @@ class Curation:
             columns = [c for c in numeric if c not in (*KEYS, *LABEL_COLUMNS)]
         current = self.apply(labels, features)
         rows = current[current["motif"] == motif]
-        model = fit_split(_feature_values(rows, features, columns), columns, random_state)
+        values = _feature_values(rows, features, columns)
+        model = fit_split(values, columns, random_state)
         if int(min_frames) > 1:
             model["min_frames"] = int(min_frames)
+            # the frames each half labels once the time rule joined short stretches (as the
+            # preview and the labels count them), not the 2-means clusters'
+            halves = _along_time(rows, _assign(model, values), int(min_frames))
+            model["n_frames"] = np.bincount(halves, minlength=2).tolist()
         model["parent_states"] = sorted(k for k, v in self._names.items() if v == motif)
         model["new_states"] = [self._next_state, self._next_state + 1]
         self._next_state += 2
