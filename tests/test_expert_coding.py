@@ -261,6 +261,23 @@ def test_agreement_equals_reference_libraries():
     assert result["recall"] == pytest.approx(tp / n_true)
 
 
+def test_a_motif_whose_merge_would_lower_the_f1_is_not_suggested():
+    # Motif m3 is mostly 'groom' (4 frames against 3 + 3 of two others): it was listed to merge
+    # into groom although the merge lowers groom's F1 (an invented user's 0.935 -> 0.916).
+    # Reference: F1 = 2 TP / (coded + labelled frames), the definition, by hand.
+    pairs = [("groom", "m1")] * 90 + [("groom", "m3")] * 4 + [("walk", "m1")] * 5
+    pairs += [("walk", "m2")] * 80 + [("walk", "m3")] * 3 + [("rest", "m4")] * 70
+    pairs += [("rest", "m3")] * 3
+    frames = pd.DataFrame(pairs, columns=["behaviour", "motif"]).assign(
+        session="s1", animal="a", frame=np.arange(len(pairs)), fps=30.0
+    )
+    per = expert_agreement(frames).per_behaviour.set_index("behaviour")
+    alone, merged = 2 * 90 / (94 + 95), 2 * 94 / (94 + 105)
+    assert merged < alone  # the merge would lower it
+    assert per.loc["groom", "motifs_sharing"] == "m1"
+    assert per.loc["groom", "merged_f1"] == pytest.approx(alone)
+
+
 def test_per_behaviour_table_says_which_motifs_to_merge():
     result = expert_agreement(_frames())
     per = result.per_behaviour.set_index("behaviour")

@@ -145,7 +145,9 @@ def _per_behaviour(
     secs: np.ndarray,
     matched: dict[str, str],
 ) -> pd.DataFrame:
-    """Best motif, its F1, and the motifs whose frames are mostly this behaviour (to merge)."""
+    """Best motif, its F1, and the motifs whose frames are mostly this behaviour and whose
+    merge raises its F1 (to merge: taken by overlap, each kept only where the F1 of the union
+    rises; a small motif mostly of this behaviour but with other frames can lower it)."""
     scored = counts[:, :-1]
     row, col = counts.sum(axis=1), scored.sum(axis=0)
     f1 = 2 * scored / np.maximum(row[:, None] + col[None, :], 1)
@@ -153,9 +155,15 @@ def _per_behaviour(
     out = []
     for r, name in enumerate(behaviours):
         best = int(f1[r].argmax()) if scored.shape[1] else -1
-        mine = [k for k in np.argsort(-scored[r], kind="stable") if owner[k] == r and scored[r, k]]
-        overlap = scored[r, mine].sum()
-        merged = 2 * overlap / max(row[r] + col[mine].sum(), 1)
+        mine: list[int] = []
+        merged = 0.0
+        for k in np.argsort(-scored[r], kind="stable"):
+            if owner[k] != r or not scored[r, k]:
+                continue
+            union = [*mine, k]
+            f1_union = 2 * scored[r, union].sum() / max(row[r] + col[union].sum(), 1)
+            if not mine or f1_union > merged:
+                mine, merged = union, f1_union
         m = matched.get(str(name))
         k = int(np.flatnonzero(motifs == m)[0]) if m is not None else -1
         out.append(
