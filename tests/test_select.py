@@ -206,3 +206,21 @@ def test_heldout_sessions_read_each_sessions_offset_once(four_states, monkeypatc
             total += ref.score(moved, lengths)
         both = table.loc[k, "heldout_ll_per_frame"] + table.loc[k, "train_ll_per_frame"]
         assert both == pytest.approx(total / len(X), rel=1e-9)
+
+
+def test_the_reason_says_a_next_state_that_fits_worse_without_a_negative_share():
+    # An invented 3-D study read "one more state adds -116 % of the largest gain per state,
+    # below 20 %": a next state that fits the held-out sessions less well is said so.
+    from ethoscribe.segment.select import _reason
+
+    table = pd.DataFrame({"n_states": [3, 4, 5], "heldout_ll_per_frame": [-5.0, -3.0, -5.3],
+                          "heldout_gain": [np.nan, 2.0, -2.3]})  # fmt: skip
+    text = _reason(table, 4, "elbow", None, ())
+    assert text == (
+        "4 states: the elbow of the held-out curve (one more state fits the held-out "
+        "sessions less well)"
+    )
+    table.loc[2, "heldout_gain"] = 0.2
+    assert "(one more state adds 10 % of the largest gain per state, below 20 %)" in _reason(
+        table, 4, "elbow", None, ()
+    )

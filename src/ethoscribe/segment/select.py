@@ -530,9 +530,12 @@ def _reason(
         after = gains[gains.index > best].dropna()
         text = f"{best} states: the elbow of the held-out curve"
         if len(after) and np.isfinite(top) and top > 0:
+            share = float(after.iloc[0]) / top
             text += (
-                f" (one more state adds {100 * float(after.iloc[0]) / top:.0f} % of the largest "
-                f"gain per state, below {100 * ELBOW_FRACTION:.0f} %)"
+                f" (one more state adds {100 * share:.0f} % of the largest gain per state, "
+                f"below {100 * ELBOW_FRACTION:.0f} %)"
+                if share >= 0
+                else " (one more state fits the held-out sessions less well)"
             )
     if not_needed:
         kneedle_or_falls = rule == "kneedle" or falls
