@@ -8,7 +8,7 @@ import math
 import re
 import sys
 import warnings
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -99,17 +99,33 @@ def _non_negative(option: str) -> Any:
     return parse
 
 
-def _min_confidence(value: str) -> float:
-    try:
-        number = float(value)
-    except ValueError:
-        number = float("nan")
-    if not 0 <= number <= 1:  # NaN too
-        raise argparse.ArgumentTypeError(
-            f"--min-confidence takes a number in [0, 1], e.g. 0.5; got {value!r} (confidences "
-            "written in percent are read as fractions, so 50 % is 0.5; 0 masks no point)"
-        )
-    return number
+def _in_range(low: float, high: float, said: str) -> Callable[[str], float]:
+    """An option's parser of a number from ``low`` to ``high``, refusing others with ``said``
+    (``{value}``: what was given)."""
+
+    def parse(value: str) -> float:
+        try:
+            number = float(value)
+        except ValueError:
+            number = float("nan")
+        if not low <= number <= high:  # NaN too
+            raise argparse.ArgumentTypeError(said.format(value=repr(value)))
+        return number
+
+    return parse
+
+
+_min_confidence = _in_range(
+    0.0, 1.0,
+    "--min-confidence takes a number in [0, 1], e.g. 0.5; got {value} (confidences written "
+    "in percent are read as fractions, so 50 % is 0.5; 0 masks no point)",
+)  # fmt: skip
+# a day at most: a simulated session is held in memory
+_session_seconds = _in_range(
+    1.0,
+    86_400.0,
+    "--duration takes the seconds of each session, from 1 to 86400 (a day); got {value}",
+)
 
 
 def _sessions_per_group(value: str) -> int:
@@ -120,18 +136,6 @@ def _sessions_per_group(value: str) -> int:
     if number < 1:
         raise argparse.ArgumentTypeError(
             f"--sessions takes a whole number of sessions per group, at least 1; got {value!r}"
-        )
-    return number
-
-
-def _session_seconds(value: str) -> float:
-    try:
-        number = float(value)
-    except ValueError:
-        number = float("nan")
-    if not 1 <= number <= 86_400:  # NaN too; a day at most: a simulated session is in memory
-        raise argparse.ArgumentTypeError(
-            f"--duration takes the seconds of each session, from 1 to 86400 (a day); got {value!r}"
         )
     return number
 
