@@ -142,11 +142,16 @@ def reader_options(format: str) -> list[str]:
     return [p for i, p in enumerate(params) if i > 0]
 
 
+def takes_any_option(format: str) -> bool:
+    """Whether the reader of ``format`` takes ``**options`` (every option name)."""
+    params = inspect.signature(_READERS[_known(format, "reader options")].func).parameters
+    return any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params.values())
+
+
 def takes_option(format: str, name: str) -> bool:
     """Whether the reader of ``format`` takes the option ``name`` (every name when it takes
     ``**options``)."""
-    params = inspect.signature(_READERS[_known(format, "reader options")].func).parameters
-    return name in params or any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params.values())
+    return name in reader_options(format) or takes_any_option(format)
 
 
 def check_reader_options(format: str, options: Mapping[str, Any], where: Any = "") -> None:

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import inspect
 import json
 import os
 import warnings
@@ -21,8 +20,9 @@ from ethoscribe.io.manifest import row_columns, warn_run_options
 from ethoscribe.io.registry import (
     check_reader_options,
     format_for,
-    reader_function,
     reader_reference,
+    takes_any_option,
+    takes_option,
     use_reader,
 )
 from ethoscribe.io.registry import (
@@ -147,7 +147,7 @@ def plan_sessions(
             if own_columns is not None:
                 file_options["columns"] = own_columns
         units = _row_value(row, "units", None)
-        takes_units = _takes_any(fmt) or "units" in options_of(fmt)
+        takes_units = takes_option(fmt, "units")
         if units is not None and px is None and units != "px" and takes_units:
             file_options["units"] = str(units)  # the file is already in these units
         check_reader_options(fmt, file_options, path)
@@ -239,7 +239,7 @@ def _warn_paths_not_read(
 
 def _accepted(fmt: str) -> set[str]:
     """Option names the reader of ``fmt`` takes (every name when it takes ``**options``)."""
-    return {"*"} if _takes_any(fmt) else set(options_of(fmt))
+    return {"*"} if takes_any_option(fmt) else set(options_of(fmt))
 
 
 def _manifest_rows(files: Sequence[Path], rows: list[Any]) -> list[Any]:
@@ -261,10 +261,8 @@ def read_planned(entry: dict[str, Any]) -> PoseTracks:
         use_reader(entry["reader"])
     fmt = entry.get("format")
     options = dict(entry.get("options", {}))
-    accepted = options_of(fmt) if fmt is not None else ["fps", "session"]
-    takes_any = fmt is not None and _takes_any(fmt)
     for key in ("fps", "session"):
-        if takes_any or key in accepted:
+        if fmt is None or takes_option(fmt, key):  # every reader by suffix takes both
             options[key] = entry[key]
     tracks = read_pose(entry["path"], format=fmt, **options)
     if tracks.session != entry["session"]:
@@ -357,11 +355,6 @@ def _row_value(row: Any, column: str, default: Any) -> Any:
     if row is None or column not in row.index or not _filled(row[column]):
         return default
     return row[column]
-
-
-def _takes_any(fmt: str) -> bool:
-    params = inspect.signature(reader_function(fmt)).parameters.values()
-    return any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params)
 
 
 def check_readers_portable(plan: Sequence[dict[str, Any]]) -> None:
