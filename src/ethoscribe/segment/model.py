@@ -1573,20 +1573,22 @@ def offset_limit(segmenter: Any) -> float | None:
     return float(m * f_dist.ppf(1.0 - POOR_FIT_OFFSET_TAIL, m, seen))
 
 
-def _offset_unlike(r: Mapping[str, Any]) -> bool:
+def poor_fit_test(r: Mapping[str, Any], warn_above: float = POOR_FIT_WARN_SHARE) -> str | None:
+    """Which test flags a session (record of :meth:`BehaviourModel.fit_shares`): ``"share"``
+    where more than ``warn_above`` of its frames are poorly explained, else ``"offset"`` where
+    its offset (with session offsets) lies beyond ``offset_limit``, else None."""
+    share = r.get("share")
+    if share is not None and share > warn_above:
+        return "share"
     d2, limit = r.get("offset_distance"), r.get("offset_limit")
-    return d2 is not None and limit is not None and d2 > limit
+    return "offset" if d2 is not None and limit is not None and d2 > limit else None
 
 
 def poorly_fitted(shares: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]]:
     """The records of :meth:`BehaviourModel.fit_shares` whose share of poorly explained frames
     is above ``POOR_FIT_WARN_SHARE``, or whose offset (with session offsets) lies beyond
     ``offset_limit`` (the sessions to warn about)."""
-    return [
-        r
-        for r in shares
-        if (r.get("share") is not None and r["share"] > POOR_FIT_WARN_SHARE) or _offset_unlike(r)
-    ]
+    return [r for r in shares if poor_fit_test(r)]
 
 
 POOR_FIT_LINES = 3
@@ -1624,18 +1626,16 @@ def poor_fit_messages(shares: Sequence[Mapping[str, Any]], model: BehaviourModel
 
 def _poor_fit_reason(r: Mapping[str, Any]) -> str:
     """Which test flagged a session, in a few words (``fit_shares`` record)."""
-    share = r.get("share")
-    if share is not None and share > POOR_FIT_WARN_SHARE:
-        return f"{share:.0%} of frames poorly explained"
+    if poor_fit_test(r) == "share":
+        return f"{r['share']:.0%} of frames poorly explained"
     return f"offset {r['offset_distance']:.0f}, limit {r['offset_limit']:.0f}"
 
 
 def _poor_fit_rank(r: Mapping[str, Any]) -> tuple[float, float]:
     """Shares over the limit first (most poorly explained first), then offsets by their
     distance over the limit."""
-    share = r.get("share") or 0.0
-    if share > POOR_FIT_WARN_SHARE:
-        return (1.0, share)
+    if poor_fit_test(r) == "share":
+        return (1.0, r["share"])
     return (0.0, (r.get("offset_distance") or 0.0) / (r.get("offset_limit") or 1.0))
 
 
@@ -1652,7 +1652,7 @@ _POOR_FIT_ADVICE = (
 
 def _poor_fit_line(r: Mapping[str, Any]) -> str:
     """The warning of one poorly fitted session (record of ``fit_shares``)."""
-    if r.get("share") is not None and r["share"] > POOR_FIT_WARN_SHARE:
+    if poor_fit_test(r) == "share":
         what = (
             f"the model explains {r['share']:.0%} of its frames worse than the worst 1 % of "
             "its own training frames (about 1 % expected)"

@@ -36,6 +36,7 @@ from ethoscribe.plots.model import stability_figure, state_count_figure, state_l
 from ethoscribe.plots.quality import BARS, quality_figure
 from ethoscribe.plots.stats import group_difference_figure, planned_values_figure
 from ethoscribe.report import Section
+from ethoscribe.segment.model import poor_fit_test
 from ethoscribe.segment.stability import (
     HIGH_AGREEMENT,
     LOW_AGREEMENT,
@@ -311,12 +312,11 @@ def _fit_to_model_table(fit: Any) -> pd.DataFrame | None:
     warn_above = float(fit.get("warn_above", 0.1))
     why = []
     for r, is_flagged in zip(fit["sessions"], table["flagged"], strict=True):
-        share, d2, limit = r.get("share"), r.get("offset_distance"), r.get("offset_limit")
-        if not is_flagged:
-            why.append("")
-        elif share is not None and share > warn_above:
+        test = poor_fit_test(r, warn_above) if is_flagged else None
+        if test == "share":
             why.append(f"more than {warn_above:.0%} of frames poorly explained")
-        elif d2 is not None and limit is not None:
+        elif test == "offset":
+            d2, limit = r["offset_distance"], r["offset_limit"]
             why.append(f"feature levels offset from the training animals' ({d2:.0f} > {limit:.0f})")
         else:
             why.append("")
