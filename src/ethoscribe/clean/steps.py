@@ -347,8 +347,10 @@ def _holds_before_leaps(x: np.ndarray, same: np.ndarray, bound: float | None) ->
     repeat the frame before) whose next step leaps beyond ``bound`` per frame (None: the jump
     test's automatic bound)."""
     held = np.zeros(x.shape[:3], bool)
+    if not same.any():  # nothing repeats: no speed bound is needed
+        return held
     bound = estimate_max_speed(x, 1.0) if bound is None else bound
-    if bound is None or not same.any():
+    if bound is None:
         return held
     # the last repeated step of each hold (step t: frame t -> t + 1), and the step after it
     last = same & ~np.concatenate([same[1:], np.zeros_like(same[:1])])
@@ -768,7 +770,7 @@ _SHAPE_FRAMES = 300  # frames per stretch whose proportions are read (evenly spa
 
 
 PART_CLIP = 10.0
-"""A point's misfit to a body (``_kernels._shape_misfit``) counts at most this many spreads of
+"""A point's misfit to a body (``_kernels._median_misfit``) counts at most this many spreads of
 its usual distances: one frame's glitch cannot outweigh several frames of evidence."""
 
 PART_SWITCH = 30.0
