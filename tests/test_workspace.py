@@ -136,6 +136,11 @@ def test_edits_are_journaled_and_replayed(study, workspace, tmp_path):
     assert set(pd.read_csv(ws.path / "bouts.csv")["motif"]) <= {"resting", "moving", "motif_04"}
     reopened = Workspace(ws.path)
     assert set(reopened.labels()["motif"]) - {""} == {"resting", "moving", "motif_04"}
+    # The states' file holds no names that a rename would leave stale; read, it gets defaults
+    assert "motif" not in pd.read_parquet(ws.path / "labels.parquet").columns
+    states = reopened.state_labels(["motif", "session"])
+    assert list(states.columns) == ["motif", "session"]
+    assert set(states["motif"]) - {""} <= {f"motif_0{k}" for k in range(1, 5)}
     reopened.undo()
     assert "motif_02" in set(Workspace(ws.path).labels()["motif"])
     records, problems = read_journal(ws.path / "journal.jsonl")

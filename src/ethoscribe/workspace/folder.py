@@ -6,7 +6,7 @@ This is the only module that knows the folder layout::
     sessions.csv       one row per session: source file, fps and frames as read, fps and
                        frames as labelled (fewer when resampled), manifest columns
     quality.csv        cleaning quality per session, animal and keypoint
-    labels.parquet     per-frame labels (state ids; names come from the journal)
+    labels.parquet     per-frame labels (state ids, no names: they come from the journal)
     labels.csv         the same with current motif names, for people
     bouts.csv, transitions.csv, time_budget.csv      ethogram tables with current names
     summary.json       run summary: parameters, versions, seed, state count, stability
@@ -335,13 +335,27 @@ class Workspace:
         return load_model(self.path / "model")
 
     def state_labels(self, columns: Sequence[str] | None = None) -> pd.DataFrame:
-        """Per-frame labels with the model's default motif names (``columns``: only these)."""
+        """Per-frame labels with the model's default motif names (``columns``: only these).
+
+        The file holds the model's states only: a ``motif`` column there would go stale at
+        the first rename (workspaces written before kept one, the default names)."""
         path = self.path / "labels.parquet"
+        named = columns is None or "motif" in columns
+        read = None if columns is None else [c for c in columns if c != "motif"]
+        if named and read is not None and "state" not in read:
+            read.append("state")
         try:
-            return pd.read_parquet(path, columns=None if columns is None else list(columns))
+            labels = pd.read_parquet(path, columns=read)
         except (OSError, ValueError, KeyError, pa.ArrowException) as exc:
             msg = f"{path}: cannot be read ({exc}); the workspace is damaged: run discover again"
             raise WorkspaceError(msg) from None
+        if named and "motif" not in labels:
+            state = labels["state"].to_numpy()
+            top = int(state.max(initial=-1)) + 1
+            names = np.array([motif_name(k) for k in range(top)] + [""])
+            at = labels.columns.get_loc("state") + 1
+            labels.insert(at, "motif", names[np.where(state >= 0, state, len(names) - 1)])
+        return labels if columns is None else labels[list(columns)]
 
     def labelled_shares(self) -> pd.Series:
         """Share of the labelled frames each fitted state labels (index: every state of the

@@ -1059,7 +1059,7 @@ def _named(
     n = 0
     for d in decoded:
         labels = pd.read_parquet(d["labels"])
-        write(labels)
+        write(labels.drop(columns="motif"))  # names are the journal's, written to labels.csv
         feats = []
         for path in d["features"]:
             shutil.copyfile(path, stage.path(f"features/{n:05d}.npz"))
