@@ -359,6 +359,31 @@ def test_paired_design_matches_scipy_paired_tests():
     assert rank["omnibus_p"].iloc[0] == pytest.approx(sps.friedmanchisquare(*conditions).pvalue)
 
 
+def test_a_within_subject_design_tested_unpaired_is_named_and_missing_pairs_are_counted():
+    rng = np.random.default_rng(4)
+    before = rng.normal(0, 1, 6)
+    after = before + rng.normal(0.8, 0.3, 6)
+    subjects = [f"vole{i}" for i in range(6)]
+    table = long_metrics({"after": after.tolist(), "before": before.tolist()}, subject=subjects)
+    unpaired = compare_groups(table)
+    assert any("6 of 6 subjects are in more than one group" in w and "--paired" in w
+               for w in unpaired.attrs["warnings"])  # fmt: skip
+    assert not any(
+        "more than one group" in w for w in compare_groups(table, paired=True).attrs["warnings"]
+    )
+    # vole5 lost its 'after' session: paired tests read the 5 complete pairs, and say so
+    gone = table[~((table["subject"] == "vole5") & (table["group"] == "after"))]
+    out = compare_groups(gone, paired=True)
+    assert "1 of 6 subjects lack one: 'vole5' (only 'before')" in " ".join(out.attrs["warnings"])
+    ref = sps.permutation_test(
+        (after[:5], before[:5]),
+        lambda u, v, axis: np.mean(u - v, axis=axis),
+        permutation_type="samples",
+        n_resamples=np.inf,
+    )
+    assert out["p_value"].iloc[0] == pytest.approx(ref.pvalue)  # scipy paired ("samples")
+
+
 def test_small_groups_get_a_note_and_bad_designs_clear_errors():
     out = compare_groups(long_metrics({"a": [1.0, 2.0, 3.0], "b": [4.0, 5.0, 6.0]}))
     assert out["p_value"].iloc[0] == pytest.approx(0.1)  # 3 vs 3: 2/20 is the floor

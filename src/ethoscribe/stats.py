@@ -187,6 +187,34 @@ def _per_unit(table: pd.DataFrame, unit: str, by: str) -> tuple[pd.DataFrame, st
     return table, note
 
 
+def _design_notes(table: pd.DataFrame, unit: str, by: str, paired: bool) -> list[str]:
+    """Subjects measured in several groups of an unpaired comparison (a within-subject
+    design tested as independent animals), or missing a condition of a paired one."""
+    if unit == "session" or unit not in table.columns:
+        return []
+    seen = table[[unit, by]].drop_duplicates().groupby(unit, sort=True)[by].agg(sorted)
+    groups = sorted(table[by].unique())
+    if not paired:
+        shared = seen[seen.map(len) > 1]
+        if shared.empty:
+            return []
+        first = shared.index[0]
+        return [
+            f"{len(shared)} of {len(seen)} subjects are in more than one group (e.g. "
+            f"{first!r} in {' and '.join(map(repr, shared.iloc[0]))}): an unpaired test counts "
+            "them as independent animals. If each subject was measured under every "
+            "condition, compare paired (--paired; paired=True)"
+        ]
+    partial = seen[seen.map(len) < len(groups)]
+    if partial.empty:
+        return []
+    named = ", ".join(f"{s!r} (only {' and '.join(map(repr, g))})" for s, g in partial.items())
+    return [
+        f"Paired tests read only the subjects measured in both conditions compared; "
+        f"{len(partial)} of {len(seen)} subjects lack one: {named}"
+    ]
+
+
 def _omnibus(samples: list[np.ndarray], paired: bool, test: str, n_resamples: int, seed) -> float:
     """p of any difference among > 2 groups (Kruskal-Wallis / Friedman, or permutation F)."""
     if min(len(s) for s in samples) < 2 or np.ptp(np.concatenate(samples)) == 0:
@@ -275,6 +303,7 @@ def compare_groups(
         raise InputError(f"column {by!r} holds {len(groups)} group(s) {groups}; need >= 2")
     unit = subject_column if subject_column in table.columns else "session"
     table, averaged = _per_unit(table, unit, by)
+    design = _design_notes(table, unit, by, paired)
     if unit in table.columns:
         sizes = table.groupby(by)[unit].nunique()
     else:  # no session column: the largest number of values any test has per group
@@ -320,7 +349,7 @@ def compare_groups(
         _family=out["family"].map(family_rank).fillna(len(family_rank)),
     ).sort_values(["_first", "_family", "metric", "motif"], kind="stable")
     out = out.drop(columns=["_first", "_family"]).reset_index(drop=True)
-    warnings = [averaged] if averaged else []
+    warnings = ([averaged] if averaged else []) + design
     blocked = out["floor"] > alpha
     if blocked.any():
         note = "too few values: the smallest reachable p exceeds alpha"
