@@ -7,6 +7,8 @@ projected onto its floor (x, y: filmed from above) or onto a wall (x, z: filmed 
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pytest
 from sklearn.metrics import adjusted_rand_score  # reference: scikit-learn
@@ -110,6 +112,38 @@ def test_a_runway_filmed_from_above_is_not_taken_for_a_side_view(fish):
     assert mirror_evidence(kept, "y") is None
 
 
+def _swim_the_height(tracks):
+    """Every body moved up and down as far as it travels across: the ranges are alike."""
+    out = []
+    for t in tracks:
+        c = t.coords.copy()
+        centre = np.nanmean(c[..., 0], axis=(1, 2))
+        reach = np.nanpercentile(centre, 95) - np.nanpercentile(centre, 5)
+        c[..., 1] += 0.45 * reach * np.sin(np.linspace(0, 6 * np.pi, len(c)))[:, None, None]
+        out.append(t.replace(coords=c))
+    return out
+
+
+def test_a_side_view_whose_animals_range_as_far_up_as_across_is_read_by_its_keypoints(fish):
+    # A fish swimming the tank's whole height: the ranges no longer name the vertical; the
+    # keypoints keeping their side of the body's axis when it faces the other way do.
+    side = _swim_the_height(_seen(fish[0], (0, 2)))
+    rx, ry = view_evidence(side)["range"]
+    assert 0.7 * rx < ry < rx / 0.7
+    view, vertical, why = choose_view(side)
+    assert (view, vertical) == ("side", "y") and "keep their side" in why
+    # the runway seen from above, moved alike, stays a view from above (its keypoints cross)
+    from benchmarks.probe_designs import CHANGES
+
+    runway = _swim_the_height(
+        [CHANGES["in a runway, from above"](t) for t in _seen(fish[0], (0, 1))]
+    )
+    assert choose_view(runway)[0] == "above"
+    # from above given for side-view tracks: said, with the option that fits them
+    with pytest.warns(InputWarning, match=r"read as filmed from the side.*view='side'"):
+        assert resolve_view(side, "above")[0] == "above"
+
+
 def test_lifting_keeps_the_vertical_and_adds_no_depth(fish):
     side = _seen(fish[0][:1], (0, 2))[0]
     lifted = lift_side_view(side, "y")
@@ -125,7 +159,14 @@ def test_a_side_view_is_labelled_with_its_vertical(fish):
     side = _seen(tracks, (0, 2))
     scores = {}
     for view in ("auto", "above"):
-        model = BehaviourModel(n_states=4, features={"view": view}, random_state=0).fit(side)
+        with warnings.catch_warnings(record=True) as given:
+            warnings.simplefilter("always")
+            model = BehaviourModel(n_states=4, features={"view": view}, random_state=0)
+            model.fit(side)
+        # given against the tracks, the fit says so too
+        assert any("read as filmed from the side" in str(w.message) for w in given) == (
+            view == "above"
+        )
         if view == "above":  # given against the tracks: labelling says so
             with pytest.warns(InputWarning, match="look filmed from the side"):
                 scores[view] = adjusted_rand_score(truth, model.label(side)["state"])
@@ -162,7 +203,8 @@ def test_a_causal_side_view_model_streams_as_it_labels_offline(fish):
     assert np.mean(streamed == offline) >= 0.99 and (offline >= 0).mean() > 0.8
 
 
-def test_command_line_reads_and_takes_the_camera_view(fish, tmp_path):
+@pytest.mark.filterwarnings("default:view='above' is given:UserWarning")  # shown by the CLI
+def test_command_line_reads_and_takes_the_camera_view(fish, tmp_path, capsys):
     import json
 
     from ethoscribe.cli import main
@@ -181,8 +223,12 @@ def test_command_line_reads_and_takes_the_camera_view(fish, tmp_path):
         "Camera: from the side, y vertical (read from the tracks"
         in (tmp_path / "a" / "report.html").read_text()
     )
+    capsys.readouterr()
     assert main(["discover", str(data), "--out", str(tmp_path / "b"), "--view", "above",
                  *common]) == 0  # fmt: skip
+    said = capsys.readouterr().err
+    assert "--view above is given, but the tracks read as filmed from the side" in said
+    assert "pass --view side" in said
     features = json.loads((tmp_path / "b" / "summary.json").read_text())["features"]
     assert features["view"] == "above" and features["view_report"] == "from above (given)"
     # the workbench draws what the camera saw: forward and height, so labelled

@@ -170,7 +170,8 @@ def choose_view(sessions: Sequence[PoseTracks]) -> tuple[str, str | None, str]:
     long axis keeps to an image axis, concentration >= ``SIDE_CONCENTRATION`` within
     ``LEVEL_DEGREES``), with the vertical the image axis along which the body centre ranges
     least (< ``RANGE_RATIO`` of the other), unless the keypoints cross the body's axis when it
-    faces the other way (:func:`mirror_evidence`: a runway seen from above); else
+    faces the other way (:func:`mirror_evidence`: a runway seen from above); where the ranges
+    are alike, the axis across a level body, if its keypoints keep their side then; else
     ``("above", None, why)``, also when the animals do not travel their body's spread
     (tethered or head-fixed: a fixed body axis gives the same body frame either way)."""
     e = view_evidence(sessions)
@@ -186,7 +187,22 @@ def choose_view(sessions: Sequence[PoseTracks]) -> tuple[str, str | None, str]:
         return "above", None, f"{said}, less than the body's spread: no sign of gravity"
     vertical = "y" if ry < RANGE_RATIO * rx else "x" if rx < RANGE_RATIO * ry else None
     if vertical is None:
-        return "above", None, said
+        # The ranges do not tell (a fish swims the tank's whole height): a level body lies
+        # across the vertical, and from the side its keypoints keep their side of the body's
+        # axis when it faces the other way (a dorsal fin stays above).
+        vertical = "y" if abs(angle) <= LEVEL_DEGREES else "x"
+        m = mirror_evidence(sessions, vertical)
+        if m is None or m["even"] < MIRROR_MIN or m["even"] <= m["odd"]:
+            return "above", None, said
+        return (
+            "side",
+            vertical,
+            (
+                f"{said}, alike; the keypoints keep their side of the body's axis when it faces "
+                f"the other way (kept {m['even']:.2f}, turned over {m['odd']:.2f} of the body's "
+                "spread): a level body seen from the side"
+            ),
+        )
     m = mirror_evidence(sessions, vertical)
     if m is not None and m["odd"] >= MIRROR_MIN and m["odd"] > m["even"]:
         return (
@@ -211,6 +227,16 @@ def resolve_view(sessions: Sequence[PoseTracks], view: str) -> tuple[str, str | 
     if not sessions or sessions[0].n_dims != 2:
         return "above", None, ""
     if view == "above":
+        read, _, why = choose_view(sessions)
+        if read == "side":
+            warnings.warn(
+                f"view='above' is given, but the tracks read as filmed from the side ({why}): "
+                "from above the body frame turns the animal freely, so a rearing or diving "
+                "body reads as a level one turned. If the camera looked from the side, pass "
+                "view='side' (command line: --view side)",
+                InputWarning,
+                stacklevel=3,
+            )
         return "above", None, "from above (given)"
     if view == "side":
         # Given side: the vertical is still read (a camera turned a quarter has x vertical),
