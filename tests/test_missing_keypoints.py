@@ -235,7 +235,7 @@ def test_a_session_without_a_keypoint_is_scored_from_the_others():
 
     sessions = [simulate_session(duration_s=60, seed=s, session=f"s{s}")[0] for s in (1, 2, 3)]
     given = [_without(sessions[0], "neck"), *sessions[1:]]
-    with pytest.warns(InputWarning, match=r"'s1' \(neck\) lack keypoint"):
+    with pytest.warns(InputWarning, match=r"are lacking.*'s1' \(neck\)"):
         model = BehaviourModel(n_states=4, segmenter=QUICK, random_state=0).fit(given)
     assert "neck" in model.keypoints_
     with pytest.warns(InputWarning, match="never seen"):

@@ -551,12 +551,12 @@ def test_sessions_lacking_a_keypoint_are_read_scored_and_reported(study, workspa
     for name in ("session_02", "session_09"):
         (lacking / f"{name}.parquet").write_bytes((study / f"{name}.parquet").read_bytes())
     (lacking / "manifest.csv").write_bytes((study / "manifest.csv").read_bytes())
-    with pytest.warns(InputWarning, match=r"'session_01' \(neck\) lack keypoint") as said:
+    with pytest.warns(InputWarning, match=r"are lacking.*'session_01' \(neck\)") as said:
         ws = discover(
             [lacking], tmp_path / "ws", manifest=lacking / "manifest.csv", states=4,
             stability=False, progress=False,
         )  # fmt: skip
-    assert sum("lack keypoint" in str(w.message) for w in said) == 1  # once, not per step
+    assert sum("are lacking" in str(w.message) for w in said) == 1  # once, not per step
     labels = ws.labels()
     first = labels[labels["session"] == "session_01"]
     assert (first["state"] >= 0).mean() >= 0.95 and first["body_seen"].max() == pytest.approx(0.9)
@@ -568,13 +568,36 @@ def test_sessions_lacking_a_keypoint_are_read_scored_and_reported(study, workspa
     assert "from every frame of a session" in quality_section(ws).text
     assert "'neck' in 'session_01'. Their positions" in quality_section(ws).text
     assert "from every frame" not in quality_section(workspace).text
-    with pytest.warns(InputWarning, match=r"'session_01' \(neck\) lack keypoint"):
+    with pytest.warns(InputWarning, match=r"are lacking.*'session_01' \(neck\)"):
         cohort = label_sessions(
             workspace.path, [lacking / "session_01.parquet"], tmp_path / "cohort",
             manifest=lacking / "manifest.csv", progress=False,
         )  # fmt: skip
     assert (cohort.labels()["state"] >= 0).mean() >= 0.95
     assert "neck" in set(pd.read_csv(cohort.path / "quality.csv")["keypoint"])
+
+
+def test_a_cohort_lacking_an_end_of_the_body_axis_is_told_once_with_the_refit(
+    study, workspace, tmp_path
+):
+    # A tracker set up anew for a cohort, without one of the keypoints the model's body frame
+    # rests on: one warning for every session (not one per file), naming the axis and the refit
+    end = workspace.model().features_.axis_[0]
+    data = tmp_path / "data"
+    data.mkdir()
+    for name in ("session_01", "session_02"):
+        table = pd.read_parquet(study / f"{name}.parquet")
+        table[table["keypoint"] != end].to_parquet(data / f"{name}.parquet")
+    with pytest.warns(InputWarning) as said:
+        label_sessions(
+            workspace.path, sorted(data.glob("*.parquet")), tmp_path / "cohort",
+            manifest=study / "manifest.csv", progress=False,
+        )  # fmt: skip
+    lacking = [str(w.message) for w in said if "are lacking" in str(w.message)]
+    assert len(lacking) == 1, lacking
+    assert f"'session_01' ({end}), 'session_02' ({end})" in lacking[0]
+    assert f"{end!r} is an end of the model's body axis" in lacking[0]
+    assert f"keypoints={end}," not in lacking[0] and "--reader-option keypoints=" in lacking[0]
 
 
 def test_a_cohort_in_percent_is_said_to_be_read_as_percent_once_per_file(

@@ -265,7 +265,10 @@ def enough_keypoints(n_have: int, n_study: int) -> bool:
 
 
 def match_keypoint_order(
-    sessions: Sequence[PoseTracks], keypoints: Sequence[str] | None = None, warn: bool = True
+    sessions: Sequence[PoseTracks],
+    keypoints: Sequence[str] | None = None,
+    warn: bool = True,
+    roles: Mapping[str, str] | None = None,
 ) -> list[PoseTracks]:
     """Sessions whose keypoints are ``keypoints`` in another order, put in that order; names
     that differ from them only in case or surrounding spaces (``'Nose '``) take their spelling,
@@ -284,7 +287,8 @@ def match_keypoint_order(
     new cohort tracked with more, or a keypoint left out of the fit): those are left out, with
     an ``InputWarning``, unless one of them looks like a lacking keypoint misspelt (then the
     session is returned unchanged and refused with that hint). ``warn=False``: no warnings
-    (sessions read and reported on already).
+    (sessions read and reported on already). ``roles``: what some of ``keypoints`` do in the
+    model (e.g. ``{"tail": "the body axis's end (tail -> nose)"}``), said when one is lacking.
 
     Examples
     --------
@@ -300,7 +304,7 @@ def match_keypoint_order(
         study_keypoints([s.keypoints for s in sessions]) if keypoints is None else keypoints
     )
     fold = {_folded(k): k for k in ref}
-    out, respelt, padded, unused = [], [], [], []
+    out, respelt, padded, unused, lost = [], [], [], [], set()
     for s in sessions:
         names = [fold.get(_folded(k), k) for k in s.keypoints]  # 'Nose ' in one file: 'nose'
         if len(set(names)) == len(names) and names != list(s.keypoints):
@@ -314,6 +318,7 @@ def match_keypoint_order(
             s = _with_keypoints(s, tuple(k for k in s.keypoints if k in ref))
         if lacking and set(s.keypoints) < set(ref) and enough_keypoints(len(s.keypoints), len(ref)):
             padded.append(f"'{s.session}' ({', '.join(lacking)})")
+            lost.update(lacking)
             s = _with_keypoints(s, ref)
         elif tuple(s.keypoints) != ref and sorted(s.keypoints) == sorted(ref):
             s = _with_keypoints(s, ref)  # the same keypoints in another order
@@ -335,19 +340,28 @@ def match_keypoint_order(
             stacklevel=2,
         )
     if padded and warn:
-        warnings.warn(
-            f"session(s) {', '.join(padded)} lack keypoint(s) {whose} ({len(ref)}: "
-            f"{list(ref)}); read as never seen there, so those sessions' frames are scored from "
-            "the keypoints they have (body_seen in the labels says how much of the body was "
-            "seen)."
+        central = [f"{k!r} is {roles[k]}" for k in ref if k in lost and k in (roles or {})]
+        kept = ",".join(k for k in ref if k not in lost)
+        text = (
+            f"some keypoint(s) {whose} ({len(ref)}: {list(ref)}) are lacking; read as never seen "
+            "there, so those sessions' frames are scored from the keypoints they have "
+            "(body_seen in the labels says how much of the body was seen)."
             + (
                 " To leave such keypoints out of every session instead, name the keypoints to "
                 "read (keypoints=[...]; command line: --reader-option keypoints=a,b,c)."
                 if keypoints is None
                 else ""
-            ),
-            InputWarning,
-            stacklevel=2,
+            )
+            + (
+                f" {'; '.join(central)}: every frame's body frame then rests on a guessed "
+                "position, which can shift the time budgets. Fit a model on the keypoints "
+                f"every cohort has (command line: discover --reader-option keypoints={kept})."
+                if central
+                else ""
+            )
+        )
+        warnings.warn(
+            f"{text.rstrip('.')}{IN_SESSIONS}{', '.join(padded)}", InputWarning, stacklevel=2
         )
     return out
 

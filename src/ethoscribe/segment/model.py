@@ -869,16 +869,28 @@ class BehaviourModel(BaseEstimator):
     ) -> tuple[list[FeatureSet], list[QualityReport]]:
         """Clean and featurise ``sessions`` exactly as at fitting time."""
         check_fitted(self, "segmenter_")
-        sessions = match_keypoint_order(sessions, self.keypoints_)
+        sessions = match_keypoint_order(sessions, self.keypoints_, roles=self._keypoint_roles())
         for s in sessions:
             self._check_body_plan(s)
         cleaned, quality = self._clean_all(sessions, self.cleaning_)
         return self.featurise_cleaned(cleaned), quality
 
+    def _keypoint_roles(self) -> dict[str, str]:
+        """The keypoints the body frame rests on (see :func:`match_keypoint_order`)."""
+        pipe = self.features_
+        axis = getattr(pipe, "axis_", None)
+        roles = {}
+        if axis:
+            for end in axis:
+                roles[end] = f"an end of the model's body axis ({axis[0]} -> {axis[1]})"
+        if getattr(pipe, "origin_", None):
+            roles[pipe.origin_] = "the model's origin (the body's centre)"
+        return roles
+
     def featurise_cleaned(self, cleaned: Sequence[PoseTracks]) -> list[FeatureSet]:
         """Features of sessions already cleaned with :attr:`cleaning_` (one set per animal)."""
         check_fitted(self, "segmenter_")
-        cleaned = match_keypoint_order(cleaned, self.keypoints_)
+        cleaned = match_keypoint_order(cleaned, self.keypoints_, roles=self._keypoint_roles())
         for s in cleaned:
             self._check_body_plan(s)
         if self.n_dims_ == 2:
