@@ -510,3 +510,35 @@ def test_sessions_whose_subject_is_left_empty_are_subjects_of_their_own():
     out = compare_groups(session_metrics(labels, bout_table(labels), sessions))
     assert (out["n_a"] == 3).all() and (out["n_b"] == 3).all()
     assert not any("averaged" in w for w in out.attrs["warnings"])
+
+
+def test_a_paired_report_says_so_and_joins_each_subjects_conditions():
+    from ethoscribe.plots.ethogram import time_budget_figure
+    from ethoscribe.workspace.report_sections import group_section
+
+    rng = np.random.default_rng(5)
+    before = rng.normal(0.2, 0.05, 6)
+    after = before + rng.normal(0.2, 0.03, 6)
+    subjects = [f"vole{i}" for i in range(6)]
+    table = long_metrics({"after": after.tolist(), "before": before.tolist()}, subject=subjects)
+    stats = compare_groups(table, paired=True, planned=["time_budget:m"])
+    section = group_section(stats, 0.05, table)
+    assert "Tests paired by subject" in section.text and "Paired design" in section.note
+    figure = section.figures[0]
+    joined = [t for t in figure.data if t.type == "scatter"]
+    assert len(joined) == 6 and "one point per subject; lines join" in figure.layout.title.text
+    for line in joined:  # each line runs through one subject's two values
+        i = subjects.index(line.name)
+        np.testing.assert_allclose(line.y, [after[i], before[i]])
+    g, low, high = stats[["effect_size", "ci_low", "ci_high"]].iloc[0]
+    assert f"g = {g:.2f} [{low:.2f}, {high:.2f}]" in figure.layout.annotations[0].text
+    assert section.tables[0][1]["n"].tolist() == ["6 pairs"]
+    unpaired = group_section(compare_groups(table, planned=["time_budget:m"]), 0.05, table)
+    assert "paired" not in unpaired.text.split("Design notes")[0]
+    assert "more than one group" in unpaired.text  # the design note is read at the top
+    # three animals per session: the budgets' figure says whose points it shows
+    budgets = pd.DataFrame(
+        {"session": ["s1"] * 3, "animal": ["a", "b", "c"], "motif": "m", "fraction": 0.5}
+    )
+    assert "per session and animal" in time_budget_figure(budgets).layout.title.text
+    assert "and animal" not in time_budget_figure(budgets.iloc[:1]).layout.title.text

@@ -336,6 +336,10 @@ def test_a_labelled_cohort_says_which_model_labelled_it(study, workspace, tmp_pa
     section = model_section(cohort)
     assert f"Labelled with the saved model of {source}" in section.text
     assert "not refitted" in section.text
+    assert (
+        f"Stability is checked where a model is fitted: see the report of {source}" in section.text
+    )
+    assert "No stability check was run" not in section.text
     fit = [t for caption, t in section.tables if "explained" in caption]
     assert fit and list(fit[0]["session"]) == ["session_02"]
 

@@ -187,6 +187,17 @@ def _per_unit(table: pd.DataFrame, unit: str, by: str) -> tuple[pd.DataFrame, st
     return table, note
 
 
+def unit_values(
+    metrics: pd.DataFrame, by: str = "group", subject_column: str = "subject"
+) -> tuple[pd.DataFrame, str]:
+    """The values :func:`compare_groups` tests: one per unit of analysis (the subject, or the
+    session where there is no ``subject_column``), group, metric and motif, the mean of the
+    unit's recordings; and the unit's column."""
+    table = metrics.dropna(subset=[by]).astype({by: str})
+    unit = subject_column if subject_column in table.columns else "session"
+    return _per_unit(table, unit, by)[0], unit
+
+
 def _design_notes(table: pd.DataFrame, unit: str, by: str, paired: bool) -> list[str]:
     """Subjects measured in several groups of an unpaired comparison (a within-subject
     design tested as independent animals), or missing a condition of a paired one."""
@@ -290,7 +301,8 @@ def compare_groups(
         tests, Benjamini-Hochberg within the family for the exploratory ones. Tests without
         variation are ``testable=False`` with NaN p and are not counted. ``attrs["warnings"]``
         lists design problems, such as groups too small for any test to reach ``alpha``, and
-        recordings averaged into their subject; ``attrs["alpha"]`` the level.
+        recordings averaged into their subject; ``attrs["alpha"]`` the level,
+        ``attrs["paired"]`` the design.
         :func:`~ethoscribe.multiplicity.family_summary` counts the tests per family.
     """
     need = ["metric", "motif", "value", by] + ([subject_column] if paired else [])
@@ -364,4 +376,5 @@ def compare_groups(
     out = out.reindex(columns=[*COMPARISON_COLUMNS, *omnibus, "note"])
     out.attrs["warnings"] = warnings
     out.attrs["alpha"] = alpha
+    out.attrs["paired"] = bool(paired)
     return out

@@ -142,7 +142,8 @@ def ethogram_raster(
 
 
 def time_budget_figure(budgets: pd.DataFrame, groups: GroupSpec = None) -> go.Figure:
-    """Fraction of valid time per motif, one point per session, side by side per group.
+    """Fraction of valid time per motif, one point per session (and animal), side by side per
+    group.
 
     ``budgets`` is :func:`ethoscribe.ethogram.time_budget` output per session (and animal);
     ``groups`` maps sessions to groups (or the table has a ``group`` column already).
@@ -168,8 +169,9 @@ def time_budget_figure(budgets: pd.DataFrame, groups: GroupSpec = None) -> go.Fi
                 hovertemplate=f"%{{text}}: %{{y:.3f}}<extra>{group}</extra>",
             )
         )
+    several = "animal" in table and (table.groupby("session")["animal"].nunique() > 1).any()
     fig.update_layout(
-        title="Time budget (one point per session)",
+        title=f"Time budget (one point per session{' and animal' if several else ''})",
         boxmode="group",
         yaxis={"title": "share of valid time", "rangemode": "tozero", "tickformat": ".1~%"},
         xaxis={"title": "motif", "categoryorder": "category ascending"},

@@ -120,11 +120,15 @@ def group_difference_figure(
     return fig
 
 
-def planned_values_figure(metrics: pd.DataFrame, planned: pd.DataFrame) -> go.Figure:
-    """One panel per planned comparison: every session's value by group, and the group means.
+def planned_values_figure(
+    metrics: pd.DataFrame, planned: pd.DataFrame, unit: str = "session", paired: bool = False
+) -> go.Figure:
+    """One panel per planned comparison: every unit's value by group, and the group means.
 
-    ``metrics``: the long table of ``session_metrics`` (``metric, motif, group, value``);
-    ``planned``: the planned rows of ``compare_groups`` (their adjusted p goes in the titles).
+    ``metrics``: the values tested (``metric, motif, group, value`` and the ``unit`` column:
+    ``stats.unit_values`` of ``session_metrics``); ``planned``: the planned rows of
+    ``compare_groups`` (their Hedges' g, interval and adjusted p go in the titles).
+    ``paired``: lines join each unit's values across the groups (conditions).
 
     Examples
     --------
@@ -138,22 +142,38 @@ def planned_values_figure(metrics: pd.DataFrame, planned: pd.DataFrame) -> go.Fi
     n = max(len(tests), 1)
     titles = []
     for _, t in tests.iterrows():
-        q = planned.loc[
-            (planned["metric"] == t["metric"]) & (planned["motif"] == t["motif"]), "q_value"
-        ].min()
-        titles.append(f"{t['metric']} of {t['motif']}<br><sup>Holm-adjusted p = {q:.2g}</sup>")
+        rows = planned[(planned["metric"] == t["metric"]) & (planned["motif"] == t["motif"])]
+        q = rows["q_value"].min()
+        said = f"Holm-adjusted p = {q:.2g}"
+        if len(rows) == 1 and {"effect_size", "ci_low", "ci_high"} <= set(rows.columns):
+            g, low, high = rows[["effect_size", "ci_low", "ci_high"]].iloc[0]
+            if np.isfinite(g):
+                said = f"g = {g:.2f} [{low:.2f}, {high:.2f}], {said}"
+        titles.append(f"{t['metric']} of {t['motif']}<br><sup>{said}</sup>")
     fig = make_subplots(rows=1, cols=n, subplot_titles=titles, horizontal_spacing=0.12)
     groups = sorted(metrics["group"].astype(str).unique())
     for k, (_, t) in enumerate(tests.iterrows()):
         rows = metrics[(metrics["metric"] == t["metric"]) & (metrics["motif"] == t["motif"])]
+        if paired and unit in rows:  # each unit's values joined, under the points
+            wide = rows.pivot_table(index=unit, columns="group", values="value", aggfunc="mean")
+            for name, values in wide.reindex(columns=groups).iterrows():
+                fig.add_trace(
+                    go.Scatter(
+                        x=groups, y=values.to_numpy(np.float64), mode="lines", showlegend=False,
+                        line={"color": "rgba(90,90,90,0.45)", "width": 1}, hoverinfo="skip",
+                        name=str(name),
+                    ),
+                    row=1, col=k + 1,
+                )  # fmt: skip
         for i, g in enumerate(groups):
             part = rows[rows["group"].astype(str) == g]
             fig.add_trace(
                 go.Box(
-                    x=[g] * len(part), y=part["value"], name=g, boxpoints="all", jitter=0.35,
-                    pointpos=0, marker={"color": GROUP_COLOURS[i % len(GROUP_COLOURS)], "size": 7},
+                    x=[g] * len(part), y=part["value"], name=g, boxpoints="all",
+                    jitter=0.0 if paired else 0.35, pointpos=0,
+                    marker={"color": GROUP_COLOURS[i % len(GROUP_COLOURS)], "size": 7},
                     line={"width": 1}, fillcolor="rgba(0,0,0,0)", showlegend=False,
-                    text=part.get("session"), boxmean=True,
+                    text=part.get(unit), boxmean=True,
                     hovertemplate="%{text}: %{y:.3g}<extra>" + g + "</extra>",
                 ),
                 row=1, col=k + 1,
@@ -162,7 +182,9 @@ def planned_values_figure(metrics: pd.DataFrame, planned: pd.DataFrame) -> go.Fi
         if t["metric"] == "time_budget":
             fig.update_yaxes(tickformat=".1~%", row=1, col=k + 1)
     fig.update_layout(
-        title={"text": "Planned comparisons: one point per session (dashed: group mean)", "x": 0},
+        title={"text": f"Planned comparisons: one point per {unit}"
+               + ("; lines join each one's conditions" if paired else "")
+               + " (dashed: group mean)", "x": 0},
         height=420, margin={"t": 110},
     )  # fmt: skip
     return fig

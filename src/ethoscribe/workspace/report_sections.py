@@ -42,6 +42,7 @@ from ethoscribe.segment.stability import (
     LOW_AGREEMENT,
     reproducibility_grades,
 )
+from ethoscribe.stats import unit_values
 from ethoscribe.transitions import transitions_above_chance
 from ethoscribe.workspace.folder import Workspace, frames_said
 
@@ -210,10 +211,12 @@ def model_section(ws: Workspace) -> Section:
             f"{frames_said(summary)}."
         )
     else:
+        animals = ws.sessions.get("n_animals", pd.Series([1]))
+        each = " (the frames of every animal counted)" if animals.max() > 1 else ""
         text = (
             f"{summary.get('n_states')} states ({chosen}), method {params.get('method', '?')}, "
             f"seed {summary.get('seed')}; {counted(summary.get('n_sessions') or 0, 'session')}, "
-            f"{frames_said(summary)}; {fitted} frames used to fit."
+            f"{frames_said(summary)}; {fitted} frames used to fit{each}."
         )
     offsets = summary.get("individual_offsets")
     if offsets:
@@ -290,6 +293,8 @@ def model_section(ws: Workspace) -> Section:
         text += f" No stability check was made: {stability['skipped']}."
     elif stability:
         tables.append(("Stability across seeds and split halves", pd.DataFrame([stability])))
+    elif source:
+        text += f" Stability is checked where a model is fitted: see the report of {source}."
     else:
         text += " No stability check was run."
     return Section("The model's choices", text, figures, tables)
@@ -357,7 +362,8 @@ def ethogram_sections(
     sections.append(
         Section(
             "Time budgets",
-            "Share of each session's valid time spent in each motif; one point per session.",
+            "Share of each session's valid time spent in each motif; one point per "
+            + ("session and animal." if _several_animals(budgets) else "session."),
             [time_budget_figure(budgets, groups)],
             [("Pooled over sessions" + (" by group" if groups else ""), pooled)],
         )
@@ -414,43 +420,69 @@ def group_section(
     """Group differences: planned tests first, how tests were corrected, then the exploratory
     families (forest plot of the smallest adjusted p-values and a table)."""
     planned = stats[stats["analysis"] == "planned"]
+    paired = bool(stats.attrs.get("paired"))
     text = (
         "Planned comparisons are the confirmatory tests a study names before it looks at the "
         "data (--primary); they are corrected together with Holm's method (Holm 1979). Every "
         "other test is exploratory, as is common practice in confirmatory research: corrected "
         "with Benjamini-Hochberg (1995) within its family of measurements (time budget, bout "
         "rate, bout duration, transitions), it is a reason to look at the bouts, not a finding. "
-        "Tests whose values do not vary are listed as not testable and are not counted. Effects "
-        "are group a minus group b: Hedges' g with its 95% interval from the noncentral t "
-        "distribution (exact for normal values; with a few sessions per group it is wide, as "
-        "it should be). Each subject (the session where none is given) is one value: the "
-        "animals of one session are averaged, as they are not independent."
+        "Tests whose values do not vary are listed as not testable and are not counted. "
     )
+    if paired:
+        text += (
+            "Paired design: each subject is compared with itself across conditions (paired "
+            "permutation tests of the within-subject differences, or Wilcoxon signed-rank); n "
+            "counts subjects measured in both conditions. Effects are condition a minus "
+            "condition b: Hedges' g of the differences (their mean over their standard "
+            "deviation, small-sample corrected; not comparable with an unpaired g) with its 95% "
+            "interval from the noncentral t distribution."
+        )
+    else:
+        text += (
+            "Effects are group a minus group b: Hedges' g with its 95% interval from the "
+            "noncentral t distribution (exact for normal values; with a few sessions per group "
+            "it is wide, as it should be). Each subject (the session where none is given) is "
+            "one value: the animals of one session are averaged, as they are not independent."
+        )
+    said = headline(stats, alpha)
+    if paired:
+        said += " Tests paired by subject (within-subject differences; see the note below)."
     warnings = stats.attrs.get("warnings") or []
-    if warnings:
-        text += " Design notes: " + " ".join(warnings)
+    if warnings:  # read before the figures, not under the method's note
+        said += " Design notes: " + " ".join(w.rstrip(".") + "." for w in warnings)
     tables = [("How the tests were corrected", family_summary(stats, alpha))]
     figures = []
     if len(planned):
-        table, shared = shown_tests(planned)
+        table, shared = shown_tests(planned, paired)
         tables.insert(0, (f"Planned comparisons (confirmatory){shared}", table))
         if metrics is not None:
-            figures.append(planned_values_figure(metrics, planned))
+            values, unit = unit_values(metrics)
+            figures.append(planned_values_figure(values, planned, unit=unit, paired=paired))
     explore = stats[(stats["analysis"] != "planned") & stats["testable"]]
     if len(explore):
-        figures.append(group_difference_figure(explore, max_rows=FOREST_ROWS))
+        figure = group_difference_figure(explore, max_rows=FOREST_ROWS)
+        figure.layout.title.text = "Exploratory: " + figure.layout.title.text
+        figures.append(figure)
         top = explore.sort_values(["q_value", "p_value"], kind="stable").head(TOP_ROWS)
-        table, shared = shown_tests(top)
+        table, shared = shown_tests(top, paired)
         caption = f"Exploratory tests with the smallest q (group_stats.csv has all {len(stats)})"
         tables.append((caption + shared, table))
-    return Section("Group differences", headline(stats, alpha), figures, tables, note=text)
+    return Section("Group differences", said, figures, tables, note=text)
+
+
+def _several_animals(table: pd.DataFrame) -> bool:
+    """Whether some session of ``table`` has more than one animal."""
+    if "animal" not in table.columns:
+        return False
+    return bool((table.groupby("session")["animal"].nunique() > 1).any())
 
 
 def _g(v: float) -> str:
     return "" if not np.isfinite(v) else f"{v:.3g}"
 
 
-def shown_tests(rows: pd.DataFrame) -> tuple[pd.DataFrame, str]:
+def shown_tests(rows: pd.DataFrame, paired: bool = False) -> tuple[pd.DataFrame, str]:
     """Test rows as a compact table for the page (group_stats.csv keeps every column), and a
     caption suffix naming what every row shares.
 
@@ -463,7 +495,9 @@ def shown_tests(rows: pd.DataFrame) -> tuple[pd.DataFrame, str]:
             "metric": rows["metric"],
             "motif": rows["motif"].astype(str),
             "a vs b": rows["group_a"] + " vs " + rows["group_b"],
-            "n": rows["n_a"].astype(int).astype(str) + " / " + rows["n_b"].astype(int).astype(str),
+            "n": rows["n_a"].astype(int).astype(str) + " pairs"
+            if paired
+            else rows["n_a"].astype(int).astype(str) + " / " + rows["n_b"].astype(int).astype(str),
             "mean a": rows["mean_a"].map(_g),
             "mean b": rows["mean_b"].map(_g),
             "Hedges' g [95% CI]": [
@@ -480,5 +514,6 @@ def shown_tests(rows: pd.DataFrame) -> tuple[pd.DataFrame, str]:
     if len(rows) < 2 or len(pairs) != 1:
         return table, ""
     a, b, n_a, n_b = pairs.iloc[0]
-    shared = f"; every row: a = {a}, b = {b}, n = {int(n_a)} / {int(n_b)}"
+    n = f"{int(n_a)} pairs" if paired else f"{int(n_a)} / {int(n_b)}"
+    shared = f"; every row: a = {a}, b = {b}, n = {n}"
     return table.drop(columns=["a vs b", "n"]), shared
