@@ -480,3 +480,46 @@ def test_frames_set_aside_are_described_not_tested(tmp_path):
     for family, rows in full[full["testable"]].groupby("family"):
         q = multipletests(rows["p_value"], method="fdr_bh")[1]
         np.testing.assert_allclose(rows["q_value"], q, err_msg=family)
+
+
+def test_animals_of_one_session_in_different_groups(tmp_path, capsys):
+    # Two animals per arena, one of each genotype: a manifest row per animal sets its group;
+    # each animal is a subject of its own. The time budgets' test against scipy's exact
+    # permutation test of the per-animal budgets (counted here with pandas).
+    folder = make_workspace(tmp_path / "ws")
+    labels = pd.read_parquet(folder / "labels.parquet")
+    rng = np.random.default_rng(11)
+    other = pd.concat([_session_labels(s, rng) for s in GROUP_OF], ignore_index=True)
+    labels = pd.concat([labels, other.assign(animal="animal_2")], ignore_index=True)
+    labels.to_parquet(folder / "labels.parquet", index=False)
+    rows = [
+        (s, a, "ko" if a == "animal_1" else "wt")
+        for s in GROUP_OF
+        for a in ("animal_1", "animal_2")
+    ]
+    table = pd.DataFrame(rows, columns=["session", "animal", "genotype"])
+    table.loc[1, "genotype"] = ""  # one animal of unknown genotype: left out, named
+    table.to_csv(tmp_path / "animals.csv", index=False)
+    with pytest.warns(InputWarning, match=r"'001/animal_2' have an empty 'genotype'"):
+        summary = compare(
+            folder, tmp_path / "out", manifest=tmp_path / "animals.csv", by="genotype"
+        )
+    assert "Compared 31 animals of 16 sessions" in summary and "(ko: 16, wt: 15)" in summary
+    stats = pd.read_csv(tmp_path / "out" / "group_stats.csv")
+    row = stats[(stats["metric"] == "time_budget") & (stats["motif"] == "motif_01")].iloc[0]
+    assert (row["n_a"], row["n_b"]) == (16, 15)
+    valid = labels[labels["state"] >= 0].assign(key=lambda t: t["session"] + "/" + t["animal"])
+    share = valid.groupby("key")["motif"].value_counts(normalize=True).unstack(fill_value=0)
+    ko = share.loc[[f"{s}/animal_1" for s in GROUP_OF], "motif_01"].to_numpy()
+    wt = share.loc[[f"{s}/animal_2" for s in list(GROUP_OF)[1:]], "motif_01"].to_numpy()
+    ref = sps.permutation_test(
+        (ko, wt), lambda x, y, axis: np.mean(x, axis=axis) - np.mean(y, axis=axis),
+        n_resamples=20000, random_state=0,
+    )  # fmt: skip
+    assert abs(row["p_value"] - ref.pvalue) < 0.01  # scipy (Monte Carlo above 10,000 splits)
+    budgets = pd.read_csv(tmp_path / "out" / "time_budget.csv")
+    assert set(budgets.groupby("animal")["genotype"].unique().map(tuple)) == {("ko",), ("wt",)}
+    # without the animal column, a repeated session is refused with the way to give animals
+    table.drop(columns="animal").to_csv(tmp_path / "no_animals.csv", index=False)
+    with pytest.raises(InputError, match="with an 'animal' column"):
+        compare(folder, tmp_path / "out2", manifest=tmp_path / "no_animals.csv", by="genotype")

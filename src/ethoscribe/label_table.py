@@ -32,9 +32,22 @@ def check_columns(table: pd.DataFrame, required: Sequence[str], what: str) -> No
 
 
 def with_groups(table: pd.DataFrame, groups: GroupSpec) -> pd.DataFrame:
-    """Return ``table`` with a ``group`` column looked up from its ``session`` column."""
+    """Return ``table`` with a ``group`` column looked up from its ``session`` column (and its
+    ``animal`` column, when ``groups`` is a table with one: animals of a session in different
+    groups)."""
     if groups is None:
         return table
+    if isinstance(groups, pd.DataFrame) and "animal" in groups and "animal" in table:
+        keys = groups[["session", "animal", "group"]].astype(str)
+        keys = keys.rename(columns={"session": "_s", "animal": "_a"})
+        out = table.drop(columns="group", errors="ignore")
+        out = out.assign(_s=out["session"].astype(str), _a=out["animal"].astype(str))
+        out = out.merge(keys, on=["_s", "_a"], how="left").drop(columns=["_s", "_a"])
+        lost = out.loc[out["group"].isna(), ["session", "animal"]].drop_duplicates()
+        if len(lost):
+            pairs = [f"{s}/{a}" for s, a in lost.astype(str).itertuples(index=False)]
+            raise InputError(f"no group given for animal(s) {pairs}; add them to groups")
+        return out
     if isinstance(groups, pd.DataFrame):
         check_columns(groups, ("session", "group"), "the groups table")
         groups = dict(zip(groups["session"].astype(str), groups["group"].astype(str), strict=True))

@@ -49,7 +49,8 @@ def read_manifest(path: str | os.PathLike[str], require_paths: bool = True) -> p
     """Read and check a manifest CSV.
 
     With ``require_paths=False`` the ``path`` column may be absent (a manifest that only gives
-    groups for sessions already read, as ``compare`` needs).
+    groups for sessions already read, as ``compare`` needs), and with an ``animal`` column a
+    session may have one row per animal (animals of one session in different groups).
 
     Returns
     -------
@@ -104,7 +105,10 @@ def validate_manifest(
         raise InputError(f"{source}: has column names but no sessions; add one row per session")
     text = {c: table[c].map(_cell) for c in table.columns}
     out = pd.DataFrame({"session": text["session"], "path": text["path"]})
-    _check_names(source, out["session"])
+    per_animal = not require_paths and "animal" in table.columns
+    _check_names(source, out["session"], text["animal"] if per_animal else None)
+    if per_animal:
+        out["animal"] = text["animal"]
     out["path"] = [_resolve(base, p) if p else "" for p in out["path"]]
     if require_paths:
         _check_files(source, out, base)
@@ -135,7 +139,8 @@ def _resolve(base: Path, value: str) -> str:
     return str(p if p.is_absolute() else (base / p).resolve())
 
 
-def _check_names(source: str, sessions: pd.Series) -> None:
+def _check_names(source: str, sessions: pd.Series, animals: pd.Series | None = None) -> None:
+    """Every row names its session (and ``animals``: its animal), each once."""
     empty = [i + 1 for i, s in enumerate(sessions) if not s]
     if empty:
         raise InputError(f"{source}: row(s) {empty} have no session name; name every session")
@@ -144,13 +149,29 @@ def _check_names(source: str, sessions: pd.Series) -> None:
             check_file_name(s, "session")
         except InputError as exc:
             raise InputError(f"{source}: row {i + 1}: {exc}") from None
+    if animals is not None:
+        unnamed = [i + 1 for i, a in enumerate(animals) if not a]
+        if unnamed:
+            msg = f"{source}: row(s) {unnamed} have no animal; name the animal on every row"
+            raise InputError(msg + " (as in the workspace's labels.csv)")
+        rows = sessions + "\0" + animals
+        dup = rows[rows.duplicated(keep=False)]
+        if not dup.empty:
+            at = [i + 1 for i, r in enumerate(rows) if r == dup.iloc[0]]
+            session, animal = dup.iloc[0].split("\0")
+            raise InputError(
+                f"{source}: session '{session}', animal '{animal}' is in rows {at}; give each "
+                "animal of a session one row"
+            )
+        return
     dup = sessions[sessions.duplicated(keep=False)]
     if not dup.empty:
         name = dup.iloc[0]
         rows = [i + 1 for i, s in enumerate(sessions) if s == name]
         raise InputError(
             f"{source}: session name '{name}' is used in rows {rows} ({dup.nunique()} repeated "
-            "name(s) in all); session names must be unique"
+            "name(s) in all); session names must be unique (one row per animal, with an "
+            "'animal' column, is read by compare's manifest: groups of the animals of a session)"
         )
 
 

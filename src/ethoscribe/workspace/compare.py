@@ -24,7 +24,7 @@ from ethoscribe.curation import UNASSIGNED
 from ethoscribe.errors import InputError, InputWarning, counted, listed
 from ethoscribe.ethogram import bout_table, time_budget, transition_table
 from ethoscribe.io import atomic_write_json, atomic_write_text, read_manifest, write_table
-from ethoscribe.label_table import csv_rounded
+from ethoscribe.label_table import GroupSpec, csv_rounded, with_groups
 from ethoscribe.multiplicity import family_summary, headline
 from ethoscribe.report import Section, render_report
 from ethoscribe.stats import EXACT_THRESHOLD, compare_groups, parse_planned, session_metrics
@@ -112,7 +112,10 @@ def compare(
     design = _design(ws, labels, manifest, by, paired)
     left_out = design.attrs["left_out"]
     if left_out:
-        labels = labels[~labels["session"].astype(str).isin(left_out)].reset_index(drop=True)
+        named = labels["session"].astype(str)
+        if "animal" in design:
+            named = named + "/" + labels["animal"].astype(str)
+        labels = labels[~named.isin(left_out)].reset_index(drop=True)
         shown = listed(map(repr, left_out), 10)
         _warn(f"sessions {shown} have an empty {by!r}: left out of the comparison")
     bouts = bout_table(labels)
@@ -125,7 +128,11 @@ def compare(
         tested, by="group", test=test, paired=paired, alpha=ALPHA, n_resamples=n_resamples,
         random_state=seed, planned=planned,
     )  # fmt: skip
-    groups = dict(zip(design["session"], design["group"], strict=True))
+    groups = (
+        design[["session", "animal", "group"]]
+        if "animal" in design
+        else dict(zip(design["session"], design["group"], strict=True))
+    )
     budgets = time_budget(labels)
     tables = {
         "group_stats": (stats, True),
@@ -275,15 +282,21 @@ def _design(
         msg = f"{source} has no 'subject' column; a paired comparison matches sessions by subject"
         raise InputError(f"{msg}. Add one (the animal measured under each {by!r})")
     design = pd.DataFrame({"session": _text(table["session"]), "group": _text(table[by])})
-    subject = _text(table["subject"]) if "subject" in table else design["session"]
+    # one row per animal (animals of one session in different groups): each animal is a
+    # subject of its own unless the manifest's subjects say otherwise
+    per_animal = "animal" in table.columns
+    if per_animal:
+        design.insert(1, "animal", _text(table["animal"]))
+    own = design["session"] + "/" + design["animal"] if per_animal else design["session"]
+    subject = _text(table["subject"]) if "subject" in table else own
     # a session whose subject is left empty is a subject of its own (not one with the others)
-    design["subject"] = subject.where(subject != "", design["session"])
+    design["subject"] = subject.where(subject != "", own)
     _check_coverage(design, labels, source, ws)
-    # An empty group leaves the session out of the comparison (the caller says so)
-    empty = design.loc[design["group"] == "", "session"].tolist()
+    # An empty group leaves the session (animal) out of the comparison (the caller says so)
+    empty = own[design["group"] == ""].tolist()
     design = design[design["group"] != ""].reset_index(drop=True)
     design.attrs["left_out"] = sorted(empty)
-    unit = "subject" if "subject" in table else "session"  # the unit of analysis
+    unit = "subject" if "subject" in table or per_animal else "session"  # unit of analysis
     sizes = design.groupby("group")[unit].nunique()
     if len(sizes) < 2:
         shown = listed(map(repr, sizes.index), 10)
@@ -303,6 +316,10 @@ def _design(
 def _check_coverage(design: pd.DataFrame, labels: pd.DataFrame, source: str, ws: Workspace) -> None:
     have = set(labels["session"].astype(str))
     given = set(design["session"])
+    if "animal" in design:  # per animal: every animal of the workspace's sessions, named so
+        keys = labels[["session", "animal"]].drop_duplicates().astype(str)
+        have = set(keys["session"] + "/" + keys["animal"])
+        given = set(design["session"] + "/" + design["animal"])
     missing, extra = sorted(have - given), sorted(given - have)
     problems = []
     if missing:
@@ -318,6 +335,7 @@ def _check_coverage(design: pd.DataFrame, labels: pd.DataFrame, source: str, ws:
             f"{source} does not match the workspace: {'; '.join(problems)}. The session column "
             f"must list the sessions as discovery named them (the 'session' column of "
             f"{ws.path / 'sessions.csv'})"
+            + (", the animal column their animals (as in labels.csv)" if "animal" in design else "")
         )
         if missing:
             msg += "; to leave a session out of the comparison, keep its row with the group empty"
@@ -325,11 +343,12 @@ def _check_coverage(design: pd.DataFrame, labels: pd.DataFrame, source: str, ws:
 
 
 # --- outputs ------------------------------------------------------------------------------
-def _tagged(table: pd.DataFrame, groups: dict[str, str], by: str) -> pd.DataFrame:
+def _tagged(table: pd.DataFrame, groups: GroupSpec, by: str) -> pd.DataFrame:
     """``table`` with the grouping column ``by`` after ``session`` (``group`` if taken)."""
     name = by if by not in table.columns else "group"
+    group = with_groups(table, groups)["group"].to_numpy()
     out = table.copy()
-    out.insert(1, name, out["session"].astype(str).map(groups))
+    out.insert(1, name, group)
     return out
 
 
@@ -352,7 +371,8 @@ def _journal_summary(ws: Workspace) -> dict[str, Any]:
 
 def _metadata(ws: Workspace, options: dict, design: pd.DataFrame, stats: pd.DataFrame) -> dict:
     summary = ws.summary
-    members = design.groupby("group")["session"].apply(sorted).to_dict()
+    member = design["session"] + "/" + design["animal"] if "animal" in design else design["session"]
+    members = member.groupby(design["group"]).apply(sorted).to_dict()
     return jsonable(
         {
             "kind": "ethoscribe.comparison",
@@ -403,19 +423,26 @@ def _summary(
     out: Path,
 ) -> str:
     """The paragraph ``compare`` returns: groups, planned tests, families, notes, the caution."""
-    counts = design.groupby("group")["session"].nunique()
+    per_animal = "animal" in design
+    counts = design.groupby("group")["subject" if per_animal else "session"].nunique()
     sizes = ", ".join(f"{g}: {n}" for g, n in counts.items())
     motifs = sorted(set(labels["motif"].astype(str)) - {"", UNASSIGNED})
     kind = f"{'paired ' if paired else ''}{test} tests"
+    what = (
+        f"{counted(len(design), 'animal')} of {counted(design['session'].nunique(), 'session')}"
+        if per_animal
+        else counted(len(design), "session")
+    )
     text = (
-        f"Compared {counted(len(design), 'session')} in {len(counts)} groups of {by!r} ({sizes}) "
+        f"Compared {what} in {len(counts)} groups of {by!r} ({sizes}) "
         f"over {counted(len(motifs), 'motif')} with {kind}. {headline(stats, ALPHA)}"
     )
     warnings = stats.attrs.get("warnings") or []
     text += " " + (" ".join(w.rstrip(".") + "." for w in warnings) + " " if warnings else "")
     left_out = design.attrs.get("left_out") or []
     if left_out:
-        text += f"Sessions left out (empty {by!r}): {listed(map(repr, left_out), 10)}. "
+        whose = "Animals (session/animal)" if per_animal else "Sessions"
+        text += f"{whose} left out (empty {by!r}): {listed(map(repr, left_out), 10)}. "
     if UNASSIGNED in set(labels["motif"].astype(str)):
         text += "Frames set aside as unassigned are in the tables, not tested. "
     return f"{text}Tables, metadata.json and report.html are in {out}. {CAUTION}"

@@ -338,13 +338,14 @@ def _state_names(ws: Workspace) -> dict[int, str]:
 def ethogram_sections(
     bouts: pd.DataFrame,
     budgets: pd.DataFrame,
-    groups: Mapping[str, str] | None = None,
+    groups: Mapping[str, str] | pd.DataFrame | None = None,
     seed: int = 0,  # kept for callers; nothing on these pages is random any more
     min_bout_s: float | None = None,
 ) -> list[Section]:
     """Raster, time budgets, bout durations and transitions (current motif names).
 
-    ``budgets`` is ``time_budget`` per session and animal; ``groups`` maps session -> group.
+    ``budgets`` is ``time_budget`` per session and animal; ``groups`` maps session -> group
+    (or is a table ``session, animal, group``: animals of a session in different groups).
     """
     n_rows = len(bouts[["session", "animal"]].drop_duplicates())
     n_bins = int(np.clip(RASTER_BARS // max(n_rows, 1), 100, 2000))
@@ -357,7 +358,8 @@ def ethogram_sections(
             [raster],
         )
     ]
-    by = ("group",) if groups else ()
+    grouped = groups is not None and len(groups) > 0
+    by = ("group",) if grouped else ()
     pooled = pool_time_budgets(budgets, by=by, groups=groups)
     sections.append(
         Section(
@@ -365,7 +367,7 @@ def ethogram_sections(
             "Share of each session's valid time spent in each motif; one point per "
             + ("session and animal." if _several_animals(budgets) else "session."),
             [time_budget_figure(budgets, groups)],
-            [("Pooled over sessions" + (" by group" if groups else ""), pooled)],
+            [("Pooled over sessions" + (" by group" if grouped else ""), pooled)],
         )
     )
     cut = [c for c in ("cut_before", "cut_after") if c in bouts.columns]
