@@ -117,7 +117,9 @@ def _swim_the_height(tracks):
     out = []
     for t in tracks:
         c = t.coords.copy()
-        centre = np.nanmean(c[..., 0], axis=(1, 2))
+        with warnings.catch_warnings():  # frames with every keypoint lost: NaN, left so
+            warnings.simplefilter("ignore", RuntimeWarning)
+            centre = np.nanmean(c[..., 0], axis=(1, 2))
         reach = np.nanpercentile(centre, 95) - np.nanpercentile(centre, 5)
         c[..., 1] += 0.45 * reach * np.sin(np.linspace(0, 6 * np.pi, len(c)))[:, None, None]
         out.append(t.replace(coords=c))
