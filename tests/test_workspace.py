@@ -717,3 +717,37 @@ def test_a_motif_that_labels_no_frame_is_said_beside_the_count(workspace, tmp_pa
     assert "4 motifs ('motif_04' labels no frame: bouts shorter than the minimum bout (0.5 s)" in (
         copy.describe()
     )
+
+
+def test_the_report_draws_each_motifs_mean_posture(workspace, tmp_path):
+    # The postures cached for the workbench, averaged over each motif's bouts: checked against
+    # numpy's mean of the same frames' body-frame keypoints; a workspace whose source files
+    # have moved says so instead of a figure.
+    import shutil
+
+    from ethoscribe.workspace.postures import PostureLibrary
+    from ethoscribe.workspace.report_sections import postures_section
+
+    bouts = pd.read_csv(workspace.path / "bouts.csv", dtype={"session": str})
+    section = postures_section(workspace, bouts)
+    figure = section.figures[0]
+    titles = [a.text for a in figure.layout.annotations]
+    assert titles[: bouts["motif"].nunique()] == sorted(bouts["motif"].unique())
+    library = PostureLibrary(workspace)
+    one = bouts.iloc[[0]]
+    lone = postures_section(workspace, one).figures[0]
+    keypoints = lone.data[1]
+    frames = library.frames(
+        one["session"].iloc[0],
+        one["animal"].iloc[0],
+        np.arange(one["start_frame"].iloc[0], one["stop_frame"].iloc[0]),
+    )
+    mean = np.nanmean(frames, axis=0)  # keypoints lost on some frames: the frames seeing them
+    np.testing.assert_allclose(keypoints.x, mean[:, 0], rtol=1e-5, atol=1e-4)  # numpy's mean
+    moved = Workspace(shutil.copytree(workspace.path, tmp_path / "moved"))
+    shutil.rmtree(moved.path / "postures")
+    pd.read_csv(moved.path / "sessions.csv").assign(source="/nowhere/x.parquet").to_csv(
+        moved.path / "sessions.csv", index=False
+    )
+    said = postures_section(moved, bouts)
+    assert not said.figures and said.text.startswith("No posture could be drawn")

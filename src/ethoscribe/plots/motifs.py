@@ -25,6 +25,7 @@ __all__ = [
     "duration_histogram",
     "neighbour_figure",
     "posture_figure",
+    "posture_grid_figure",
     "session_share_figure",
 ]
 
@@ -186,6 +187,79 @@ def posture_figure(
             **GRID,
         }
     return _figure(data, title, width, height * len(views), **layout)
+
+
+def posture_grid_figure(
+    postures: dict[str, np.ndarray],
+    keypoints: Sequence[str],
+    edges: Sequence[tuple[str, str]],
+    units: str = "",
+    second_axis: str = "sideways",
+    columns: int = 6,
+) -> go.Figure:
+    """Every motif's mean posture side by side at one scale, for a page rather than a click
+    (built once: ``make_subplots`` is fine here). 3-D postures get a side view (forward,
+    height) under each top view.
+
+    Examples
+    --------
+    >>> p = np.array([[1.0, 0], [0, 0], [-1, 0]])
+    >>> fig = posture_grid_figure({"rest": p, "walk": 2 * p}, ["n", "m", "t"], [("n", "m")])
+    >>> len(fig.data), fig.layout.annotations[1].text
+    (4, 'walk')
+    """
+    from plotly.subplots import make_subplots
+
+    names = list(postures)
+    dims = next(iter(postures.values())).shape[1] if names else 2
+    views = [((0, 1), second_axis)] + ([((0, 2), "height")] if dims == 3 else [])
+    cols = max(1, min(columns, len(names)))
+    blocks = -(-len(names) // cols) if names else 1
+    titles = [""] * (blocks * len(views) * cols)
+    for i, name in enumerate(names):
+        titles[(i // cols) * len(views) * cols + i % cols] = short_name(name, 22)
+    n_rows, panel = blocks * len(views), 1100 / cols  # square panels across a laptop page
+    height = int(60 + n_rows * (panel + 40))
+    fig = make_subplots(
+        rows=n_rows, cols=cols, subplot_titles=titles,
+        horizontal_spacing=0.02, vertical_spacing=min(0.3, 40 / height),  # room for a title
+    )  # fmt: skip
+    finite = [p[np.isfinite(p).all(1)] for p in postures.values()]
+    half = max((float(np.abs(f).max()) for f in finite if len(f)), default=1.0) * 1.15
+    index = _edge_index(keypoints, edges)
+    unit = f" ({units})" if units else ""
+    for i, (name, P) in enumerate(postures.items()):
+        for v, (pair, vertical) in enumerate(views):
+            row, col = (i // cols) * len(views) + v + 1, i % cols + 1
+            xs, ys = _bones(P, index, pair)
+            fig.add_trace(
+                go.Scatter(x=xs, y=ys, mode="lines", hoverinfo="skip", showlegend=False,
+                           line={"color": BONE_COLOUR, "width": 2}),
+                row=row, col=col,
+            )  # fmt: skip
+            fig.add_trace(
+                go.Scatter(
+                    x=P[:, pair[0]], y=P[:, pair[1]], mode="markers", showlegend=False,
+                    text=[f"{name}: {k}" for k in keypoints],
+                    marker={"size": 6, "color": "#0072B2"},
+                    hovertemplate="%{text}<br>%{x:.1f}, %{y:.1f}<extra></extra>",
+                ),
+                row=row, col=col,
+            )  # fmt: skip
+            first, axis = col == 1, (row - 1) * cols + col  # plotly numbers axes 1, 2, ...
+            fig.update_xaxes(range=[-half, half], showticklabels=False, row=row, col=col, **GRID)
+            fig.update_yaxes(
+                range=[-half, half], scaleanchor=f"x{'' if axis == 1 else axis}",
+                showticklabels=first, title_text=f"{vertical}{unit}" if first else None,
+                row=row, col=col, **GRID,
+            )  # fmt: skip
+    fig.update_layout(
+        height=height,
+        margin={"l": 60, "r": 10, "t": 50, "b": 10},
+        plot_bgcolor="white",
+        title={"text": "Mean posture of each motif (forward to the right, one scale)", "x": 0},
+    )
+    return fig
 
 
 def bout_strip_figure(

@@ -41,6 +41,7 @@ from ethoscribe.workspace.report_sections import (
     ethogram_sections,
     group_section,
     model_section,
+    postures_section,
     quality_section,
 )
 
@@ -192,6 +193,7 @@ def write_ethogram_report(
             groups = {s: lookup[s] for s in names}
     sections = [s for s in (quality_section(ws), model_section(ws)) if s is not None]
     sections += ethogram_sections(bouts, budgets, groups, 0, _min_bout(ws))
+    sections.append(postures_section(ws, bouts))
     sections.append(Section("Group statistics", "Run 'ethoscribe compare' for group tests."))
     params = {
         "created": now(),

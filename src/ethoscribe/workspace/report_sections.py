@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from ethoscribe.clean.steps import position_text
+from ethoscribe.curation import UNASSIGNED
 from ethoscribe.errors import counted, listed
 from ethoscribe.ethogram import (
     duration_summary,
@@ -33,6 +34,7 @@ from ethoscribe.plots.ethogram import (
     transition_heatmap,
 )
 from ethoscribe.plots.model import stability_figure, state_count_figure, state_labels
+from ethoscribe.plots.motifs import posture_grid_figure
 from ethoscribe.plots.quality import BARS, quality_figure
 from ethoscribe.plots.stats import group_difference_figure, planned_values_figure
 from ethoscribe.report import Section
@@ -45,6 +47,7 @@ from ethoscribe.segment.stability import (
 from ethoscribe.stats import unit_values
 from ethoscribe.transitions import transitions_above_chance
 from ethoscribe.workspace.folder import Workspace, frames_said
+from ethoscribe.workspace.postures import PostureLibrary
 
 RASTER_BARS = 6000  # bars drawn in the ethogram raster before rows are resampled
 TOP_ROWS = 25  # rows of the statistics table shown in the report
@@ -298,6 +301,46 @@ def model_section(ws: Workspace) -> Section:
     else:
         text += " No stability check was run."
     return Section("The model's choices", text, figures, tables)
+
+
+def postures_section(ws: Workspace, bouts: pd.DataFrame) -> Section:
+    """Every motif's mean posture on one page (from the postures cached for the workbench),
+    so motifs can be looked at, and named, without the workbench."""
+    title = "Motif postures"
+    library = PostureLibrary(ws)
+    if bouts.empty:
+        return Section(title, "No bout was labelled: no posture to draw.")
+    start = bouts["start_frame"].to_numpy(np.int64)
+    span = bouts["stop_frame"].to_numpy(np.int64) - start
+    rows = np.repeat(np.arange(len(bouts)), span)
+    frames = pd.DataFrame(
+        {
+            "session": bouts["session"].to_numpy()[rows],
+            "animal": bouts["animal"].to_numpy()[rows],
+            "frame": start[rows] + np.arange(len(rows)) - np.repeat(np.cumsum(span) - span, span),
+            "state": bouts["state"].to_numpy(np.int64)[rows],
+        }
+    )
+    library.set_states(frames, int(frames["state"].max()) + 1)
+    if not library.available:
+        return Section(title, f"No posture could be drawn: {library.problem}.")
+    motifs = bouts.groupby("motif", sort=True)["state"].unique()
+    motifs = motifs[[m not in ("", UNASSIGNED) for m in motifs.index]]
+    postures = {m: library.mean_posture(sorted(states)) for m, states in motifs.items()}
+    figure = posture_grid_figure(
+        postures, library.keypoints, library.edges, library.units, library.second_axis
+    )
+    text = (
+        "Each motif's mean posture in the body frame (every frame of its bouts, the animal "
+        "turned to face right): what a motif looks like, to check a name against. A mean "
+        "hides movement within a bout (a rhythm's phases average out): the workbench plays "
+        "example bouts."
+    )
+    if library.edges_note:
+        text += f" {library.edges_note[:1].upper()}{library.edges_note[1:]}."
+    if library.problem:
+        text += f" {library.problem}."
+    return Section(title, text, [figure])
 
 
 def _fit_to_model_table(fit: Any) -> pd.DataFrame | None:

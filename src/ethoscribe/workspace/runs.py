@@ -277,9 +277,9 @@ def discover(
         retire_learned(out, now().replace(":", ""))  # learned from the old states' features
         ws = Workspace(out)
         _warn_unscored(ws)
-        write_ethogram_report(ws, out / "report.html", tables)
-        with ticking("postures for the workbench", progress):
+        with ticking("postures for the workbench", progress):  # the report draws them too
             cache_postures(ws, model, _cleaned_loaders(prepared, table, causal))
+        write_ethogram_report(ws, out / "report.html", tables)
         return ws
 
 
@@ -846,9 +846,9 @@ def label_sessions(
         ws = Workspace(out)
         _warn_unscored(ws)
         tables = carry_learned(source, ws, locked=True) or tables  # the expert's names
-        write_ethogram_report(ws, out / "report.html", tables)
-        with ticking("postures for the workbench", progress):
+        with ticking("postures for the workbench", progress):  # the report draws them too
             cache_postures(ws, model, _cleaned_loaders(prepared, table, bool(model.causal)))
+        write_ethogram_report(ws, out / "report.html", tables)
         return ws
 
 
