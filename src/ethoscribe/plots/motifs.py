@@ -224,8 +224,15 @@ def posture_grid_figure(
         rows=n_rows, cols=cols, subplot_titles=titles,
         horizontal_spacing=0.02, vertical_spacing=min(0.3, 40 / height),  # room for a title
     )  # fmt: skip
-    finite = [p[np.isfinite(p).all(1)] for p in postures.values()]
-    half = max((float(np.abs(f).max()) for f in finite if len(f)), default=1.0) * 1.15
+    finite = np.concatenate([p[np.isfinite(p).all(1)] for p in postures.values()] or [[]])
+    # one scale for every motif and view: the top view's; a 3-D side view is centred on the
+    # heights off the floor it shows, at that scale unless they spread further
+    half = float(np.abs(finite[:, :2]).max()) * 1.15 if finite.size else 1.0
+    ranges = [((-half, half), (-half, half))]
+    if len(views) == 2 and finite.size:
+        low, high = float(finite[:, 2].min()), float(finite[:, 2].max())
+        up = max(half, (high - low) / 2 * 1.15)
+        ranges.append(((-half, half), ((low + high) / 2 - up, (low + high) / 2 + up)))
     index = _edge_index(keypoints, edges)
     unit = f" ({units})" if units else ""
     for i, (name, P) in enumerate(postures.items()):
@@ -247,9 +254,10 @@ def posture_grid_figure(
                 row=row, col=col,
             )  # fmt: skip
             first, axis = col == 1, (row - 1) * cols + col  # plotly numbers axes 1, 2, ...
-            fig.update_xaxes(range=[-half, half], showticklabels=False, row=row, col=col, **GRID)
+            across, vertical_range = ranges[v]
+            fig.update_xaxes(range=across, showticklabels=False, row=row, col=col, **GRID)
             fig.update_yaxes(
-                range=[-half, half], scaleanchor=f"x{'' if axis == 1 else axis}",
+                range=vertical_range, scaleanchor=f"x{'' if axis == 1 else axis}",
                 showticklabels=first, title_text=f"{vertical}{unit}" if first else None,
                 row=row, col=col, **GRID,
             )  # fmt: skip
