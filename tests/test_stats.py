@@ -315,12 +315,19 @@ def test_compare_groups_rank_tests_match_scipy_and_omnibus():
     assert ref_first["group_b"].tolist()[:2] == ["a", "a"]
 
 
+def before_and_after(seed: int, n: int, before: tuple, change: tuple):
+    """``n`` subjects measured before and after (normal values): the arrays, the subjects'
+    names and the long metrics table of both conditions."""
+    rng = np.random.default_rng(seed)
+    first = rng.normal(*before, n)
+    then = first + rng.normal(*change, n)
+    subjects = [f"vole{i}" for i in range(n)]
+    table = long_metrics({"after": then.tolist(), "before": first.tolist()}, subject=subjects)
+    return first, then, subjects, table
+
+
 def test_paired_design_matches_scipy_paired_tests():
-    rng = np.random.default_rng(9)
-    before = rng.normal(0, 1, 10)
-    after = before + rng.normal(0.7, 0.6, 10)
-    subjects = [f"vole{i}" for i in range(10)]
-    table = long_metrics({"after": after.tolist(), "before": before.tolist()}, subject=subjects)
+    before, after, subjects, table = before_and_after(9, 10, (0, 1), (0.7, 0.6))
     table = table.iloc[::-1]  # row order must not matter: subjects are matched by name
     out = compare_groups(table, paired=True)
     ref = sps.permutation_test(
@@ -335,7 +342,9 @@ def test_paired_design_matches_scipy_paired_tests():
     assert rank["p_value"].iloc[0] == pytest.approx(sps.wilcoxon(after, before).pvalue)  # scipy
     with pytest.raises(InputError, match="missing column"):
         compare_groups(table.drop(columns="subject"), paired=True)
-    third = long_metrics({"later": (after + rng.normal(0, 0.5, 10)).tolist()}, subject=subjects)
+    third = long_metrics(
+        {"later": (after + np.random.default_rng(10).normal(0, 0.5, 10)).tolist()}, subject=subjects
+    )
     three = pd.concat([table, third], ignore_index=True)
     wide = three.pivot(index="subject", columns="group", values="value")  # matched by subject
     conditions = [wide[g].to_numpy() for g in wide.columns]
@@ -360,11 +369,7 @@ def test_paired_design_matches_scipy_paired_tests():
 
 
 def test_a_within_subject_design_tested_unpaired_is_named_and_missing_pairs_are_counted():
-    rng = np.random.default_rng(4)
-    before = rng.normal(0, 1, 6)
-    after = before + rng.normal(0.8, 0.3, 6)
-    subjects = [f"vole{i}" for i in range(6)]
-    table = long_metrics({"after": after.tolist(), "before": before.tolist()}, subject=subjects)
+    before, after, _, table = before_and_after(4, 6, (0, 1), (0.8, 0.3))
     unpaired = compare_groups(table)
     assert any("6 of 6 subjects are in more than one group" in w and "--paired" in w
                for w in unpaired.attrs["warnings"])  # fmt: skip
@@ -516,11 +521,7 @@ def test_a_paired_report_says_so_and_joins_each_subjects_conditions():
     from ethoscribe.plots.ethogram import time_budget_figure
     from ethoscribe.workspace.report_sections import group_section
 
-    rng = np.random.default_rng(5)
-    before = rng.normal(0.2, 0.05, 6)
-    after = before + rng.normal(0.2, 0.03, 6)
-    subjects = [f"vole{i}" for i in range(6)]
-    table = long_metrics({"after": after.tolist(), "before": before.tolist()}, subject=subjects)
+    before, after, subjects, table = before_and_after(5, 6, (0.2, 0.05), (0.2, 0.03))
     stats = compare_groups(table, paired=True, planned=["time_budget:m"])
     section = group_section(stats, 0.05, table)
     assert "Tests paired by subject" in section.text and "Paired design" in section.note
