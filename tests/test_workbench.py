@@ -255,6 +255,20 @@ def test_merge_undo_redo_and_unassign(wb, folder):
     assert set(pd.read_csv(folder / "bouts.csv")["motif"]) == {"still", "unassigned"}
 
 
+def test_the_curation_panel_follows_a_new_motif_before_the_figures_redraw(wb):
+    # The figures take seconds to redraw; the panel a person acts on must show the new motif
+    # first, with nothing ticked or typed for the old one (else an edit hits another motif).
+    order = wb.state._listeners["motif"]
+    assert order.index(wb.desk.refresh) < order.index(wb.portrait.request_draw)
+    assert order[0] == wb.motif_list._show_selection  # the list's tick first of all
+    wb.desk.merge_with.value = (wb.desk.merge_with.options[0],)
+    wb.desk.name.value = "typed for the old motif"
+    wb.state.select_motif("motif_03")
+    assert "Curate motif_03" in wb.desk.title.value
+    assert "motif_03" not in wb.desk.merge_with.options
+    assert wb.desk.merge_with.value == () and wb.desk.name.value == ""
+
+
 def test_split_goes_through_the_journal(wb, folder):
     wb.state.select_motif("motif_01")
     for box, name in zip(wb.desk.split_names, ("part_a", "part_b"), strict=True):

@@ -206,6 +206,8 @@ def blank_figure(text: str, width: int, height: int) -> go.Figure:
 def figure_widget(fig: go.Figure, css: str) -> go.FigureWidget:
     """A FigureWidget of ``fig`` carrying the CSS class ``css`` (for tests and styling)."""
     widget = go.FigureWidget(fig)
+    # the toolbar upright at the right edge: across the top it hid the middle of the titles
+    widget.layout.modebar.orientation = "v"
     widget.add_class(css)
     return widget
 

@@ -111,7 +111,7 @@ class MotifList:
         self.list.observe(self._picked, "value")
         state.on("names", self.refresh)
         state.on("filter", self.refresh)
-        state.on("motif", self._show_selection)
+        state.on("motif", self._show_selection, first=True)
         header = _header(has_stability)
         self.widget = w.VBox(
             [
@@ -354,8 +354,8 @@ class CurationDesk:
         self.redo = button("Redo", "ethoscribe-redo-button", lambda: state.edit("redo"), say)
         self.message = w.HTML()
         self.message.add_class("ethoscribe-desk-message")
-        state.on("motif", self.refresh)
-        state.on("names", self.refresh)
+        state.on("motif", self.refresh, first=True)  # before the figures' slow redraw
+        state.on("names", self.refresh, first=True)
         state.on("message", self._show_message)
         lab = lambda text: w.HTML(f"<div style='width:90px;font-size:13px'>{text}</div>")  # noqa: E731
         row = lambda *items: flow(list(items))  # noqa: E731
@@ -374,12 +374,17 @@ class CurationDesk:
             ),
         )
         self.widget.add_class("ethoscribe-curation")
+        self._shown: str | None = None  # the motif the panel shows
         self.refresh()
 
     def refresh(self) -> None:
         motif = self.state.motif or "(none)"
         self.title.value = f"<div style='font-weight:600;font-size:14px'>Curate {motif}</div>"
         self.name.placeholder = f"new name for {motif}"
+        if self.state.motif != self._shown:  # another motif picked:
+            self.merge_with.value = ()  # ticks and typed names were for the one shown before
+            self.name.value = self.merge_into.value = ""
+            self._shown = self.state.motif
         self.merge_with.options = [m for m in self.state.motifs if m != self.state.motif]
 
     def _show_message(self) -> None:

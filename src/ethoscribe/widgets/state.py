@@ -88,6 +88,7 @@ class WorkbenchState(CurationEdits):
         if self._writer is not None and not self.ws.exports_current():
             self._writer.request()  # an earlier session ended before its tables were rewritten
         self._listeners: dict[str, list[Callable[[], None]]] = defaultdict(list)
+        self._leading: dict[str, int] = defaultdict(int)  # listeners registered first=True
         self._views: dict[Any, dict[Any, Any]] = {}
         self._state_key: frozenset[int] | None = None
         self.postures = PostureLibrary(self.ws, skeleton)
@@ -104,10 +105,17 @@ class WorkbenchState(CurationEdits):
         self._single_animal = self._labels["animal"].nunique() == 1
 
     # --- listeners ------------------------------------------------------------------------
-    def on(self, event: str, callback: Callable[[], None]) -> None:
+    def on(self, event: str, callback: Callable[[], None], first: bool = False) -> None:
         """Call ``callback()`` after ``event``: names, motif, filter, session, bout, message,
-        comparison."""
-        self._listeners[event].append(callback)
+        comparison. ``first``: before the callbacks registered without it -- for what a
+        person acts on (the curation panel), which must follow a new motif at once, not after
+        seconds of figures being redrawn (edits otherwise hit the motif the panel no longer
+        showed)."""
+        if first:  # after the earlier 'first' ones, before every other
+            self._listeners[event].insert(self._leading[event], callback)
+            self._leading[event] += 1
+        else:
+            self._listeners[event].append(callback)
 
     def _emit(self, *events: str) -> None:
         callbacks: list[Callable[[], None]] = []
