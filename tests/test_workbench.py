@@ -367,6 +367,19 @@ def test_group_comparison_and_its_errors(wb, folder):
     assert wb.state.message[0] == "ok", wb.state.message
     assert (folder / "comparison_group" / "group_stats.csv").is_file()
     assert len(wb.groups.figure.data) == 2 and "Compared 4 sessions" in wb.groups.summary.value
+    assert "(the &#x27;Planned&#x27; box)" in wb.groups.summary.value  # not a flag's words
+    # the planned comparison the page now takes: tested first, Holm-corrected
+    wb.groups.planned.value = "time_budget:motif_01"
+    wb.groups.run.click()
+    stats = pd.read_csv(folder / "comparison_group" / "group_stats.csv")
+    first = stats.iloc[0]
+    assert (first["analysis"], first["metric"], first["motif"]) == (
+        "planned", "time_budget", "motif_01"
+    )
+    assert "Planned (confirmatory, Holm over 1 tests)" in wb.groups.summary.value
+    wb.groups.planned.value = "time_budget:nothing_called_so"
+    wb.groups.run.click()
+    assert wb.state.message[0] == "error" and "nothing_called_so" in wb.state.message[1]
     wb.state.run_comparison("subject")
     kind, text = wb.state.message
     assert kind == "error" and "single subject" in text

@@ -396,17 +396,22 @@ class WorkbenchState(CurationEdits):
                 out.append(str(column))
         return out
 
-    def run_comparison(self, by: str, test: str = "permutation") -> bool:
-        """Compare groups of sessions by column ``by`` (writes ``comparison_<by>/``)."""
+    def run_comparison(self, by: str, test: str = "permutation", planned: str = "") -> bool:
+        """Compare groups of sessions by column ``by`` (writes ``comparison_<by>/``);
+        ``planned``: the confirmatory comparisons, e.g. ``"time_budget:digging"``."""
         self.flush()
         try:
             out = safe_child(self.ws.path, f"comparison_{by}", "grouping column")
-            text = compare(self.ws.path, out, by=by, test=test)
+            text = compare(self.ws.path, out, by=by, test=test, planned=planned.strip() or None)
+            text = text.replace("(--primary)", "(the 'Planned' box)")  # the page's own words
         except EthoscribeError as exc:
             self.say("error", f"could not compare by {by!r}: {exc}")
             return False
         stats = pd.read_csv(out / "group_stats.csv")
-        self.comparison = {"by": by, "test": test, "summary": text, "stats": stats, "folder": out}
+        self.comparison = {
+            "by": by, "test": test, "planned": planned, "summary": text, "stats": stats,
+            "folder": out,
+        }  # fmt: skip
         self.say("ok", f"Compared groups by {by!r}; tables and report.html are in {out}")
         self._emit("comparison")
         return True

@@ -93,6 +93,13 @@ class GroupPage:
         self.test = w.Dropdown(
             options=[("permutation test", "permutation"), ("rank test", "rank")], description="Test"
         )
+        motif = state.motifs[0] if state.motifs else "MOTIF"
+        self.planned = w.Text(
+            description="Planned",
+            placeholder=f"e.g. time_budget:{motif}, bout_rate:{motif}",
+            layout=w.Layout(width="420px"),
+        )
+        self.planned.add_class("ethoscribe-planned-text")
         self.run = button(
             "Compare groups", "ethoscribe-compare-button", self._run, state.say, "primary"
         )
@@ -106,7 +113,11 @@ class GroupPage:
             "Compares every motif's time budget, bout rate, bout durations and transitions "
             "between the groups (one value per subject, the session where no subject is given: "
             "the animals of a session are averaged), with Benjamini-Hochberg q-values "
-            "within each of these families of tests. Results are written to "
+            "within each of these families of tests. The comparisons the study planned before "
+            "looking (metric:motif, comma-separated; metrics time_budget, bout_rate, "
+            "bout_duration, or transition with from-&gt;to) go in 'Planned': the confirmatory "
+            "tests, "
+            "corrected together with Holm's method. Results are written to "
             "comparison_&lt;column&gt;/ in the workspace."
             if columns
             else "sessions.csv has no column that splits the sessions into groups; give a "
@@ -117,6 +128,7 @@ class GroupPage:
                 heading("Group comparison"),
                 note(hint),
                 w.HBox([self.by, self.test, self.run]),
+                self.planned,
                 self.summary,
                 self.figure_slot,
                 self.table,
@@ -127,7 +139,7 @@ class GroupPage:
 
     def _run(self) -> None:
         if self.by.value:
-            self.state.run_comparison(self.by.value, self.test.value)
+            self.state.run_comparison(self.by.value, self.test.value, self.planned.value)
 
     def _figure(self):
         result = self.state.comparison

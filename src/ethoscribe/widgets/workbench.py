@@ -185,9 +185,11 @@ class Workbench(w.VBox):
         print(self.state.message[1])
         return files
 
-    def compare(self, by: str = "group", test: str = "permutation") -> Any:
-        """Run the group comparison (as the Groups page does) and show its page."""
-        if self.state.run_comparison(by, test):
+    def compare(self, by: str = "group", test: str = "permutation", planned: str = "") -> Any:
+        """Run the group comparison (as the Groups page does) and show its page; ``planned``:
+        the confirmatory comparisons, e.g. ``"time_budget:digging,bout_rate:digging"``."""
+        if self.state.run_comparison(by, test, planned):
+            self.groups.planned.value = planned
             self.groups.by.value = by if by in self.groups.by.options else self.groups.by.value
             self.tabs.selected_index = PAGES.index("Groups")
         print(self.state.message[1])
