@@ -374,7 +374,9 @@ def test_group_comparison_and_its_errors(wb, folder):
     stats = pd.read_csv(folder / "comparison_group" / "group_stats.csv")
     first = stats.iloc[0]
     assert (first["analysis"], first["metric"], first["motif"]) == (
-        "planned", "time_budget", "motif_01"
+        "planned",
+        "time_budget",
+        "motif_01",
     )
     assert "Planned (confirmatory, Holm over 1 tests)" in wb.groups.summary.value
     wb.groups.planned.value = "time_budget:nothing_called_so"
