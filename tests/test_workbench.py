@@ -474,15 +474,18 @@ def test_an_edit_follows_the_edits_saved_by_another_workbench(writing_behind, fo
 def test_code_methods_print_the_message(wb, capsys):
     wb.rename_motif("motif_01", "from_code")
     wb.merge_motifs(["motif_02", "motif_03"], into="joined")
+    assert "· 2 motifs" in wb.title.value  # the header counts the motifs after the merge
     wb.undo()
+    wb.redo()
     wb.rename_motif("nope", "x")
     out = capsys.readouterr().out.splitlines()
-    assert out[:3] == [
+    assert out[:4] == [
         "Renamed 'motif_01' to 'from_code'.",
         "Merged 'motif_02', 'motif_03' into 'joined'.",
-        "Undid the last edit.",
+        "Undid: Merged 'motif_02', 'motif_03' into 'joined'.",  # which edit, not only that one
+        "Redid: Merged 'motif_02', 'motif_03' into 'joined'.",
     ]
-    assert out[3].startswith("unknown motif 'nope'")
+    assert out[4].startswith("unknown motif 'nope'")
 
 
 def test_missing_source_keeps_everything_else_working(folder):

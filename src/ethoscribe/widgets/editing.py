@@ -41,6 +41,10 @@ class CurationEdits:
             self.say("error", _refused(op, exc))
             return False
         kwargs = {**kwargs, **{k: record[k] for k in ("undid", "redid") if k in record}}
+        at = kwargs.get("undid", kwargs.get("redid"))
+        if isinstance(at, int):  # say which edit was undone or redone, not just that one was
+            history = self.curation.history  # position 0: the start record
+            kwargs["edit"] = history[at] if 0 <= at < len(history) else None
         self._write_tables()
         self._after_edit(op, kwargs)
         return True
@@ -108,4 +112,8 @@ def _describe(op: str, kw: dict[str, Any]) -> str:
         return f"Split {kw['motif']!r} into {kw['names'][0]!r} and {kw['names'][1]!r}."
     if op == "unassign":
         return f"Set {kw['motif']!r} aside as unassigned."
+    edit = kw.get("edit")
+    if isinstance(edit, dict) and edit.get("op") in ("rename", "merge", "split", "unassign"):
+        done = _describe(edit["op"], edit)
+        return f"Undid: {done}" if op == "undo" else f"Redid: {done}"
     return "Undid the last edit." if op == "undo" else "Redid the edit."

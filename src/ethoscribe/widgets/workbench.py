@@ -89,17 +89,24 @@ class Workbench(w.VBox):
 
     # --- layout ---------------------------------------------------------------------------
     def _header(self) -> w.Widget:
-        s = self.state.summary
-        folder = self.state.ws.path.resolve()
-        name, where = html.escape(folder.name), html.escape(str(folder), quote=True)
-        facts = (
-            f"{counted(s.get('n_sessions') or 0, 'session')} · {frames_said(s)} · "
-            f"{counted(len(self.state.motifs), 'motif')}"
-        )
-        title = w.HTML(
-            f"<div style='font-size:18px;font-weight:600' title='{where}'>ethoscribe workbench: "
-            f"{name}</div><div style='color:#555;font-size:12px'>{facts}</div>"
-        )
+        title = w.HTML()
+
+        def show() -> None:  # the motif count follows merges, splits and undos
+            s = self.state.summary
+            folder = self.state.ws.path.resolve()
+            name, where = html.escape(folder.name), html.escape(str(folder), quote=True)
+            facts = (
+                f"{counted(s.get('n_sessions') or 0, 'session')} · {frames_said(s)} · "
+                f"{counted(len(self.state.motifs), 'motif')}"
+            )
+            title.value = (
+                f"<div style='font-size:18px;font-weight:600' title='{where}'>ethoscribe "
+                f"workbench: {name}</div><div style='color:#555;font-size:12px'>{facts}</div>"
+            )
+
+        show()
+        self.state.on("names", show)
+        self.title = title
         bar = w.HBox(
             [title, self.save_button],
             layout=w.Layout(
