@@ -400,7 +400,7 @@ class Curation:
 
         ``features`` has ``session, animal, frame`` and feature columns (``columns``; default
         every numeric column that is not a label column). ``labels`` are the labels the current
-        naming applies to. ``names[0]`` goes to the larger cluster. With ``min_frames`` > 1 the
+        naming applies to. ``names[0]`` goes to the larger half. With ``min_frames`` > 1 the
         split also respects time: within each bout of the motif, a stretch given to one half
         that is shorter than ``min_frames`` joins its neighbouring stretch (as the minimum bout
         does for the model's labels), so the halves are contiguous runs, not a flicker. The
@@ -426,7 +426,12 @@ class Curation:
             # the frames each half labels once the time rule joined short stretches (as the
             # preview and the labels count them), not the 2-means clusters'
             halves = _along_time(rows, _assign(model, values), int(min_frames))
-            model["n_frames"] = np.bincount(halves, minlength=2).tolist()
+            n_frames = np.bincount(halves, minlength=2)
+            if n_frames[1] > n_frames[0]:  # the time rule made the larger cluster the smaller
+                model["centres"] = model["centres"][::-1]  # half: names[0] stays the larger
+                halves = _along_time(rows, _assign(model, values), int(min_frames))
+                n_frames = np.bincount(halves, minlength=2)
+            model["n_frames"] = n_frames.tolist()
         model["parent_states"] = sorted(k for k, v in self._names.items() if v == motif)
         model["new_states"] = [self._next_state, self._next_state + 1]
         self._next_state += 2
