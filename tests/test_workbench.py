@@ -278,6 +278,13 @@ def test_split_goes_through_the_journal(wb, folder):
     assert {"part_a", "part_b"} <= set(wb.state.motifs) and wb.state.motif == "part_a"
     assert Workspace(folder).journal()[-1]["op"] == "split"
     assert np.isfinite(wb.state.postures.mean_posture([3])).all()  # a new state: new sums
+    # the fitted state, in the reports' per-state tables, is named by its halves
+    from ethoscribe.workspace.report_sections import _state_names
+
+    wb.state.flush()
+    assert _state_names(Workspace(folder))[0] == "split into part_a and part_b"
+    wb.desk.undo.click()
+    assert Workspace(folder).curation().split_into == {}
 
 
 def test_sort_and_filter_the_motif_list(viewer):

@@ -332,6 +332,23 @@ class Curation:
         return sorted(set(self._names.values()) - {UNASSIGNED})
 
     @property
+    def split_into(self) -> dict[int, list[str]]:
+        """Fitted states split by an edit in effect -> the names of the two halves (the
+        states themselves no longer name a motif)."""
+        out: dict[int, list[str]] = {}
+        for index in self._done:
+            record = self._journal[index]
+            model = record.get("frames_assignment")
+            if record.get("op") == "split" and model:
+                halves = [
+                    self._names.get(k, n)
+                    for k, n in zip(model["new_states"], record["names"], strict=True)
+                ]
+                for state in model["parent_states"]:
+                    out[int(state)] = halves
+        return out
+
+    @property
     def history(self) -> list[dict[str, Any]]:
         """The journal: every record so far, JSON-able, oldest first."""
         return copy.deepcopy(self._journal)

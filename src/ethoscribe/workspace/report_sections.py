@@ -374,8 +374,13 @@ def _fit_to_model_table(fit: Any) -> pd.DataFrame | None:
 
 
 def _state_names(ws: Workspace) -> dict[int, str]:
-    """State -> current motif name (curated when the journal renamed it)."""
-    return {int(k): str(v) for k, v in ws.curation().names.items()}
+    """State -> current motif name (curated when the journal renamed it); a fitted state
+    split in two is named by its halves."""
+    cur = ws.curation()
+    names = {int(k): str(v) for k, v in cur.names.items()}
+    for state, halves in cur.split_into.items():
+        names.setdefault(state, f"split into {' and '.join(halves)}")
+    return names
 
 
 def ethogram_sections(
