@@ -211,12 +211,12 @@ def test_enter_in_the_name_box_renames(wb, folder):
 
 
 BAD_INPUT = [
-    (lambda wb: _rename(wb, ""), "a motif name must be a non-empty string"),
+    (lambda wb: _rename(wb, ""), "type the new name for motif_01 in the Name box"),
     (lambda wb: _rename(wb, "motif_03"), "already taken"),
     (lambda wb: _rename(wb, "unassigned"), "'unassigned' is reserved"),
     (lambda wb: wb.desk.undo.click(), "nothing to undo"),
-    (lambda wb: wb.desk.merge.click(), "merge needs at least two different motifs"),
-    (lambda wb: wb.desk.split.click(), "a motif name must be a non-empty string"),
+    (lambda wb: wb.desk.merge.click(), "tick the motifs to merge with motif_01 under 'Merge with'"),
+    (lambda wb: wb.desk.split.click(), "type the names of both parts of motif_01 under"),
 ]
 
 

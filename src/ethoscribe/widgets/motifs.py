@@ -397,12 +397,17 @@ class CurationDesk:
 
     def _rename(self) -> None:
         motif = self._need_motif()
-        if motif and self.state.edit("rename", motif=motif, name=self.name.value.strip()):
+        if motif and not self.name.value.strip():
+            self.state.say("error", f"type the new name for {motif} in the Name box")
+        elif motif and self.state.edit("rename", motif=motif, name=self.name.value.strip()):
             self.name.value = ""
 
     def _merge(self) -> None:
         motif = self._need_motif()
         if not motif:
+            return
+        if not self.merge_with.value:
+            self.state.say("error", f"tick the motifs to merge with {motif} under 'Merge with'")
             return
         chosen = [motif, *self.merge_with.value]
         into = self.merge_into.value.strip() or motif
@@ -412,7 +417,9 @@ class CurationDesk:
     def _split(self) -> None:
         motif = self._need_motif()
         names = [t.value.strip() for t in self.split_names]
-        if motif and self.state.edit("split", motif=motif, names=names):
+        if motif and not all(names):
+            self.state.say("error", f"type the names of both parts of {motif} under 'Split into'")
+        elif motif and self.state.edit("split", motif=motif, names=names):
             self.split_preview.value = ""
             for t in self.split_names:
                 t.value = ""
