@@ -500,7 +500,9 @@ def test_animals_of_one_session_in_different_groups(tmp_path, capsys):
     table = pd.DataFrame(rows, columns=["session", "animal", "genotype"])
     table.loc[1, "genotype"] = ""  # one animal of unknown genotype: left out, named
     table.to_csv(tmp_path / "animals.csv", index=False)
-    with pytest.warns(InputWarning, match=r"'001/animal_2' have an empty 'genotype'"):
+    with pytest.warns(
+        InputWarning, match=r"animals \(session/animal\) '001/animal_2' have an empty"
+    ):
         summary = compare(
             folder, tmp_path / "out", manifest=tmp_path / "animals.csv", by="genotype"
         )
@@ -519,6 +521,11 @@ def test_animals_of_one_session_in_different_groups(tmp_path, capsys):
     assert abs(row["p_value"] - ref.pvalue) < 0.01  # scipy (Monte Carlo above 10,000 splits)
     budgets = pd.read_csv(tmp_path / "out" / "time_budget.csv")
     assert set(budgets.groupby("animal")["genotype"].unique().map(tuple)) == {("ko",), ("wt",)}
+    # a column of one's own named 'animal' in sessions.csv (from discover's manifest) is not
+    # a per-animal design: compare without a manifest still groups sessions
+    sessions = pd.read_csv(folder / "sessions.csv", dtype=str).assign(animal="animal_1")
+    sessions.to_csv(folder / "sessions.csv", index=False)
+    assert "Compared 16 sessions" in compare(folder, tmp_path / "by_session")
     # without the animal column, a repeated session is refused with the way to give animals
     table.drop(columns="animal").to_csv(tmp_path / "no_animals.csv", index=False)
     with pytest.raises(InputError, match="with an 'animal' column"):

@@ -884,7 +884,7 @@ class BehaviourModel(BaseEstimator):
             for end in axis:
                 roles[end] = f"an end of the model's body axis ({axis[0]} -> {axis[1]})"
         if getattr(pipe, "origin_", None):
-            roles[pipe.origin_] = "the model's origin (the body's centre)"
+            roles[pipe.origin_] = "the model's origin (the body frame is centred on it)"
         return roles
 
     def featurise_cleaned(self, cleaned: Sequence[PoseTracks]) -> list[FeatureSet]:

@@ -118,7 +118,8 @@ def compare(
             named = named + "/" + labels["animal"].astype(str)
         labels = labels[~named.isin(left_out)].reset_index(drop=True)
         shown = listed(map(repr, left_out), 10)
-        _warn(f"sessions {shown} have an empty {by!r}: left out of the comparison")
+        whose = "animals (session/animal)" if "animal" in design else "sessions"
+        _warn(f"{whose} {shown} have an empty {by!r}: left out of the comparison")
     bouts = bout_table(labels)
     metrics = session_metrics(labels, bouts, design)
     # Frames the scientist set aside are no behaviour to test: described in the tables only
@@ -286,7 +287,7 @@ def _design(
     design = pd.DataFrame({"session": _text(table["session"]), "group": _text(table[by])})
     # one row per animal (animals of one session in different groups): each animal is a
     # subject of its own unless the manifest's subjects say otherwise
-    per_animal = "animal" in table.columns
+    per_animal = manifest is not None and "animal" in table.columns  # not sessions.csv's
     if per_animal:
         design.insert(1, "animal", _text(table["animal"]))
     own = design["session"] + "/" + design["animal"] if per_animal else design["session"]
