@@ -699,3 +699,20 @@ def test_long_motif_names_stay_readable():
     plain = posture_figure(p, ["n", "m", "t"], [], title="a: mean posture (body frame)")
     assert fig.layout.title.text == f"{name}:<br>mean posture (body frame)"
     assert fig.layout.margin.t == plain.layout.margin.t + 18
+
+
+def test_a_figure_slot_keeps_its_tallest_height_and_the_toolbar_off_the_title():
+    # A redrawn figure of another height must not move what lies below it (a person aiming at
+    # the curation panel hit the row next to the one aimed at); the toolbar stands in the
+    # right margin, not across the title.
+    import plotly.graph_objects as go
+
+    from ethoscribe.widgets.common import FigureSlot
+
+    heights = iter([300, 200])
+    slot = FigureSlot(lambda: go.Figure(layout={"height": next(heights), "margin": {"r": 5}}),
+                      "ethoscribe-test", 400, 100)  # fmt: skip
+    slot.show()
+    slot.draw()
+    assert slot.figure.layout.height == 200 and slot.layout.min_height == "300px"
+    assert slot.figure.layout.modebar.orientation == "v" and slot.figure.layout.margin.r == 40

@@ -144,6 +144,7 @@ class FigureSlot(w.Box):
         self.in_place = in_place
         self._figure: Any = None
         self._shown = ""  # JSON of the figure shown, to skip redraws that change nothing
+        self._tallest = 0  # px: the slot never shrinks below a figure it showed
 
     @property
     def created(self) -> bool:
@@ -181,6 +182,11 @@ class FigureSlot(w.Box):
             redraw(self._figure, fig)
         else:
             old, self._figure = self._figure, figure_widget(fig, self.css)
+            # the slot keeps the height of its tallest figure so far: what lies below (the
+            # curation panel) does not jump while a person aims at it
+            tallest = max(old.layout.height or 0, fig.layout.height or 0, self._tallest)
+            self._tallest = tallest
+            self.layout.min_height = f"{tallest}px" if tallest else None
             self.children = (self._figure,)
             old.close()
         if self._on_created is not None:
@@ -206,8 +212,10 @@ def blank_figure(text: str, width: int, height: int) -> go.Figure:
 def figure_widget(fig: go.Figure, css: str) -> go.FigureWidget:
     """A FigureWidget of ``fig`` carrying the CSS class ``css`` (for tests and styling)."""
     widget = go.FigureWidget(fig)
-    # the toolbar upright at the right edge: across the top it hid the middle of the titles
+    # the toolbar upright in the right margin: across the top it hid the middle of the titles
     widget.layout.modebar.orientation = "v"
+    right = widget.layout.margin.r
+    widget.layout.margin.r = max(40, 80 if right is None else right)  # plotly's default: 80
     widget.add_class(css)
     return widget
 
