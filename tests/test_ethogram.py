@@ -310,6 +310,9 @@ def test_figures_build_and_colours_are_deterministic():
     colours = motif_colours(bouts["motif"])
     assert colours == motif_colours(reversed(bouts["motif"].tolist()))
     assert len(set(colours.values())) == len(colours)
+    # black marks the workbench's shown bout, so no motif takes it (a user mistook one for it)
+    many = motif_colours([f"m{i:02d}" for i in range(30)])
+    assert "#000000" not in many.values() and len(set(many.values())) == 17
     fig = ethogram_raster(bouts)
     assert {t.name for t in fig.data} == set(colours)
     small = ethogram_raster(labels, fps=FPS, max_bars=10, n_bins=50)

@@ -29,13 +29,14 @@ __all__ = [
 ]
 
 OKABE_ITO = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000")
-PALETTE = OKABE_ITO + tuple(plotly.colors.qualitative.Safe[:-1])
+# black left out of the motifs' colours: it marks the bout shown in the workbench's close-up
+PALETTE = OKABE_ITO[:-1] + tuple(plotly.colors.qualitative.Safe[:-1])
 UNASSIGNED_COLOUR = "#BBBBBB"
 GROUP_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9")
 
 
 def motif_colours(motifs: Iterable[str]) -> dict[str, str]:
-    """Deterministic motif -> colour: sorted names take the palette in order (it repeats after 18).
+    """Deterministic motif -> colour: sorted names take the palette in order (it repeats after 17).
 
     Examples
     --------

@@ -75,8 +75,8 @@ class EthogramPage(LazyDrawing):
                     [
                         self.session,
                         note(
-                            "  Colours as in the motif list; the black bar marks "
-                            "the bout in the close-up."
+                            "  Colours follow the motifs' names in alphabetical order (hover "
+                            "a bar for its motif); the black bar marks the bout in the close-up."
                         ),
                     ]
                 ),
