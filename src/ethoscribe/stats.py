@@ -193,9 +193,19 @@ def unit_values(
     """The values :func:`compare_groups` tests: one per unit of analysis (the subject, or the
     session where there is no ``subject_column``), group, metric and motif, the mean of the
     unit's recordings; and the unit's column."""
+    table, unit, _ = _unit_table(metrics, by, subject_column)
+    return table, unit
+
+
+def _unit_table(
+    metrics: pd.DataFrame, by: str, subject_column: str
+) -> tuple[pd.DataFrame, str, str]:
+    """Rows with a group, one per unit (:func:`_per_unit`); the unit's column; what was
+    averaged."""
     table = metrics.dropna(subset=[by]).astype({by: str})
     unit = subject_column if subject_column in table.columns else "session"
-    return _per_unit(table, unit, by)[0], unit
+    table, averaged = _per_unit(table, unit, by)
+    return table, unit, averaged
 
 
 def _design_notes(table: pd.DataFrame, unit: str, by: str, paired: bool) -> list[str]:
@@ -309,12 +319,10 @@ def compare_groups(
     check_columns(metrics, need, "the metrics table")
     if test not in ("permutation", "rank"):
         raise InputError(f"test must be 'permutation' or 'rank'; got {test!r}")
-    table = metrics.dropna(subset=[by]).astype({by: str})
+    table, unit, averaged = _unit_table(metrics, by, subject_column)
     groups = sorted(table[by].unique())
     if len(groups) < 2:
         raise InputError(f"column {by!r} holds {len(groups)} group(s) {groups}; need >= 2")
-    unit = subject_column if subject_column in table.columns else "session"
-    table, averaged = _per_unit(table, unit, by)
     design = _design_notes(table, unit, by, paired)
     if unit in table.columns:
         sizes = table.groupby(by)[unit].nunique()

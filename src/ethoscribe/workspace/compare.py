@@ -113,9 +113,7 @@ def compare(
     design = _design(ws, labels, manifest, by, paired)
     left_out = design.attrs["left_out"]
     if left_out:
-        named = labels["session"].astype(str)
-        if "animal" in design:
-            named = named + "/" + labels["animal"].astype(str)
+        named = _recordings(labels, "animal" in design)
         labels = labels[~named.isin(left_out)].reset_index(drop=True)
         shown = listed(map(repr, left_out), 10)
         whose = "animals (session/animal)" if "animal" in design else "sessions"
@@ -257,6 +255,13 @@ def _sessions_table(ws: Workspace) -> pd.DataFrame:
     return pd.read_csv(ws.path / "sessions.csv", dtype=str, keep_default_na=False)
 
 
+def _recordings(table: pd.DataFrame, per_animal: bool) -> pd.Series:
+    """Each row's recording as the comparison names it: the session, or with ``per_animal``
+    (a manifest row per animal) ``session/animal``."""
+    session = table["session"].astype(str)
+    return session + "/" + table["animal"].astype(str) if per_animal else session
+
+
 def _warn(text: str) -> None:
     warnings.warn(text, InputWarning, stacklevel=3)
 
@@ -290,7 +295,7 @@ def _design(
     per_animal = manifest is not None and "animal" in table.columns  # not sessions.csv's
     if per_animal:
         design.insert(1, "animal", _text(table["animal"]))
-    own = design["session"] + "/" + design["animal"] if per_animal else design["session"]
+    own = _recordings(design, per_animal)
     subject = _text(table["subject"]) if "subject" in table else own
     # a session whose subject is left empty is a subject of its own (not one with the others)
     design["subject"] = subject.where(subject != "", own)
@@ -317,12 +322,9 @@ def _design(
 
 
 def _check_coverage(design: pd.DataFrame, labels: pd.DataFrame, source: str, ws: Workspace) -> None:
-    have = set(labels["session"].astype(str))
-    given = set(design["session"])
-    if "animal" in design:  # per animal: every animal of the workspace's sessions, named so
-        keys = labels[["session", "animal"]].drop_duplicates().astype(str)
-        have = set(keys["session"] + "/" + keys["animal"])
-        given = set(design["session"] + "/" + design["animal"])
+    # per animal: every animal of the workspace's sessions, named session/animal
+    per_animal = "animal" in design
+    have, given = set(_recordings(labels, per_animal)), set(_recordings(design, per_animal))
     missing, extra = sorted(have - given), sorted(given - have)
     problems = []
     if missing:
@@ -374,8 +376,8 @@ def _journal_summary(ws: Workspace) -> dict[str, Any]:
 
 def _metadata(ws: Workspace, options: dict, design: pd.DataFrame, stats: pd.DataFrame) -> dict:
     summary = ws.summary
-    member = design["session"] + "/" + design["animal"] if "animal" in design else design["session"]
-    members = member.groupby(design["group"]).apply(sorted).to_dict()
+    members = _recordings(design, "animal" in design).groupby(design["group"]).apply(sorted)
+    members = members.to_dict()
     return jsonable(
         {
             "kind": "ethoscribe.comparison",
