@@ -23,6 +23,7 @@ __all__ = [
     "ethogram_raster",
     "motif_colours",
     "motif_order",
+    "several_animals",
     "time_budget_figure",
     "transition_diagram",
     "transition_heatmap",
@@ -48,6 +49,20 @@ def motif_colours(motifs: Iterable[str]) -> dict[str, str]:
     if "unassigned" in {str(m) for m in motifs}:
         out["unassigned"] = UNASSIGNED_COLOUR
     return out
+
+
+def several_animals(table: pd.DataFrame) -> bool:
+    """Whether some session of ``table`` has more than one animal (figures then show one point
+    per session and animal).
+
+    Examples
+    --------
+    >>> several_animals(pd.DataFrame({"session": ["s", "s"], "animal": ["a", "b"]}))
+    True
+    """
+    if "animal" not in table.columns:
+        return False
+    return bool((table.groupby("session")["animal"].nunique() > 1).any())
 
 
 def _need(table: pd.DataFrame, columns: Iterable[str], what: str) -> None:
@@ -170,7 +185,7 @@ def time_budget_figure(budgets: pd.DataFrame, groups: GroupSpec = None) -> go.Fi
                 hovertemplate=f"%{{text}}: %{{y:.3f}}<extra>{group}</extra>",
             )
         )
-    several = "animal" in table and (table.groupby("session")["animal"].nunique() > 1).any()
+    several = several_animals(table)
     fig.update_layout(
         title=f"Time budget (one point per session{' and animal' if several else ''})",
         boxmode="group",

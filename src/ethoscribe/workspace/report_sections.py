@@ -29,6 +29,7 @@ from ethoscribe.multiplicity import family_summary, headline
 from ethoscribe.plots.ethogram import (
     duration_figure,
     ethogram_raster,
+    several_animals,
     time_budget_figure,
     transition_diagram,
     transition_heatmap,
@@ -413,7 +414,7 @@ def ethogram_sections(
         Section(
             "Time budgets",
             "Share of each session's valid time spent in each motif; one point per "
-            + ("session and animal." if _several_animals(budgets) else "session."),
+            + ("session and animal." if several_animals(budgets) else "session."),
             [time_budget_figure(budgets, groups)],
             [("Pooled over sessions" + (" by group" if grouped else ""), pooled)],
         )
@@ -519,13 +520,6 @@ def group_section(
         caption = f"Exploratory tests with the smallest q (group_stats.csv has all {len(stats)})"
         tables.append((caption + shared, table))
     return Section("Group differences", said, figures, tables, note=text)
-
-
-def _several_animals(table: pd.DataFrame) -> bool:
-    """Whether some session of ``table`` has more than one animal."""
-    if "animal" not in table.columns:
-        return False
-    return bool((table.groupby("session")["animal"].nunique() > 1).any())
 
 
 def _g(v: float) -> str:
