@@ -480,6 +480,18 @@ def test_a_manifest_read_as_a_pose_table_says_to_give_it_as_the_manifest(tmp_pat
         read_tidy(path, fps=30)
 
 
+def _wide_table(frame, first, n, keypoints, names, high=1.0):
+    """A wide table of ``n`` frames numbered from ``first`` in column ``frame``: per keypoint
+    the three columns ``names(k)`` (x, y: normal; confidence: uniform 0.2 to ``high``), seed 0."""
+    rng = np.random.default_rng(0)
+    table = pd.DataFrame({frame: np.arange(n) + first})
+    for k in keypoints:
+        x, y, confidence = names(k)
+        table[x], table[y] = rng.normal(size=(2, n))
+        table[confidence] = rng.uniform(0.2, high, n)
+    return table
+
+
 def test_a_wide_table_read_as_tidy_is_told_every_option_it_needs(tmp_path):
     # A tracker's wide export (frame_idx, nose_x, nose_y, nose_likelihood, ...): the refusal
     # names the pattern, the confidence word and the frame column in one go, and reading with
@@ -487,11 +499,9 @@ def test_a_wide_table_read_as_tidy_is_told_every_option_it_needs(tmp_path):
     from ethoscribe.cli import command_line_message
     from ethoscribe.io import read_wide
 
-    rng = np.random.default_rng(0)
-    table = pd.DataFrame({"frame_idx": np.arange(20) + 7})
-    for k in ("nose", "tail_base"):
-        table[f"{k}_x"], table[f"{k}_y"] = rng.normal(size=(2, 20))
-        table[f"{k}_likelihood"] = rng.uniform(0.2, 1.0, 20)
+    table = _wide_table(
+        "frame_idx", 7, 20, ("nose", "tail_base"), lambda k: (f"{k}_x", f"{k}_y", f"{k}_likelihood")
+    )
     path = tmp_path / "export.csv"
     table.to_csv(path, index=False)
     with pytest.raises(InputError, match="look like a wide table") as caught:
@@ -526,12 +536,11 @@ def test_the_wide_options_suggested_read_the_file_when_followed_literally(tmp_pa
     from ethoscribe.cli import _reader_options, build_parser, command_line_message
     from ethoscribe.io import read_pose
 
-    rng = np.random.default_rng(0)
     keypoints = ("snout", "ear_L", "tail_base")
-    table = pd.DataFrame({"frame_no": np.arange(30) + 3})
-    for k in keypoints:
-        table[f"{k}{sep}{axes[0]}"], table[f"{k}{sep}{axes[1]}"] = rng.normal(size=(2, 30))
-        table[f"{k}{sep}p"] = rng.uniform(0.2, 1.08, 30)
+    table = _wide_table(
+        "frame_no", 3, 30, keypoints,
+        lambda k: (f"{k}{sep}{axes[0]}", f"{k}{sep}{axes[1]}", f"{k}{sep}p"), high=1.08,
+    )  # fmt: skip
     path = tmp_path / "wide.csv"
     table.to_csv(path, index=False)
     with pytest.raises(InputError, match="look like a wide table") as caught:
